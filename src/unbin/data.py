@@ -1,0 +1,270 @@
+"""Reading extracts, checking columns against the spec, analysis samples and legacy grouping."""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .errors import DataError
+from .spec import Analysis, Grouping, Spec
+
+READERS = (".csv", ".parquet", ".pq", ".dta", ".sas7bdat")
+MAX_CATEGORICAL_LEVELS = 5  # a numeric column with this many distinct values or fewer is a factor
+
+
+def file_sha256(path: str | Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def extract_columns(path: Path) -> list[str]:
+    """Column names of an extract, read from its header or metadata only."""
+    suffix = path.suffix.lower()
+    if suffix == ".csv":
+        return list(pd.read_csv(path, nrows=0).columns)
+    if suffix in (".parquet", ".pq"):
+        import pyarrow.parquet as pq
+
+        return list(pq.read_schema(path).names)
+    if suffix == ".dta":
+        with pd.io.stata.StataReader(path) as rdr:
+            return list(rdr.varlist)
+    if suffix == ".sas7bdat":
+        import pyreadstat
+
+        _, meta = pyreadstat.read_sas7bdat(str(path), metadataonly=True)
+        return list(meta.column_names)
+    raise DataError(f"extract {path.name!r}: unknown file type {suffix!r}; use one of "
+                    f"{', '.join(READERS)}.")
+
+
+def extract_rows(path: Path) -> int:
+    """Row count of an extract (cheap for parquet: read from the footer)."""
+    if path.suffix.lower() in (".parquet", ".pq"):
+        import pyarrow.parquet as pq
+
+        return int(pq.ParquetFile(path).metadata.num_rows)
+    first = extract_columns(path)[:1]
+    return len(read_extract(path, first))
+
+
+def read_extract(path: Path, columns: list[str] | tuple[str, ...]) -> pd.DataFrame:
+    """Read only ``columns`` of an extract. Missing columns raise a DataError with suggestions."""
+    if not path.is_file():
+        raise DataError(f"extract {str(path)!r} does not exist; fix 'cohorts[].path' in the spec "
+                        "(relative paths are relative to the spec file).")
+    present = extract_columns(path)
+    missing = [c for c in columns if c not in present]
+    if missing:
+        raise DataError("; ".join(missing_column_message(c, present, path) for c in missing))
+    cols = list(dict.fromkeys(columns))
+    suffix = path.suffix.lower()
+    if suffix == ".csv":
+        return pd.read_csv(path, usecols=cols, low_memory=False)[cols]
+    if suffix in (".parquet", ".pq"):
+        import pyarrow.parquet as pq
+
+        return pq.read_table(path, columns=cols).to_pandas()
+    if suffix == ".dta":
+        return pd.read_stata(path, columns=cols, convert_categoricals=False)
+    import pyreadstat
+
+    df, _ = pyreadstat.read_sas7bdat(str(path), usecols=cols)
+    return df[cols]
+
+
+def missing_column_message(col: str, present: list[str], path: Path) -> str:
+    close = difflib.get_close_matches(col, present, n=1, cutoff=0.6)
+    hint = f" Did you mean {close[0]!r}?" if close else ""
+    return (f"column {col!r} is not in extract {path.name!r}.{hint} Its columns are: "
+            f"{', '.join(present[:30])}{' ...' if len(present) > 30 else ''}")
+
+
+# --------------------------------------------------------------------------- types
+
+
+def is_categorical(s: pd.Series, declared: str | None = None) -> bool:
+    if declared is not None:
+        return declared == "categorical"
+    if not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s):
+        return True
+    return bool(s.dropna().nunique() <= MAX_CATEGORICAL_LEVELS)
+
+
+def coerce_numeric(df: pd.DataFrame, col: str, role: str) -> pd.Series:
+    s = df[col]
+    if pd.api.types.is_bool_dtype(s):
+        return s.astype(float)
+    if pd.api.types.is_numeric_dtype(s):
+        return s.astype(float)
+    conv = pd.to_numeric(s, errors="coerce")
+    bad = s.notna() & conv.isna()
+    if bad.any():
+        examples = ", ".join(repr(v) for v in s[bad].astype(str).unique()[:3])
+        raise DataError(f"column {col!r} ({role}) must be numeric but holds non-numeric values "
+                        f"such as {examples} in {int(bad.sum())} rows; recode them (or set them "
+                        "to missing) in the extract.")
+    return conv.astype(float)
+
+
+def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> list[str]:
+    """Check every variable of every analysis against every cohort's extract (no fitting)."""
+    problems: list[str] = []
+    for cohort in spec.cohorts:
+        where = f"cohorts[{cohort.name}]"
+        if not cohort.path.is_file():
+            problems.append(f"{where}.path: {cohort.path_as_written!r} does not exist (looked at "
+                            f"{cohort.path}); fix the path (relative to the spec file).")
+            continue
+        try:
+            present = extract_columns(cohort.path)
+        except Exception as exc:  # unreadable file: report, don't crash
+            problems.append(f"{where}.path: cannot read {cohort.path.name!r}: {exc}")
+            continue
+        usable: list[str] = []
+        for a in spec.analyses:
+            for col, field in _column_fields(a):
+                if col not in present:
+                    problems.append(f"analyses[{a.name}].{field}: "
+                                    + missing_column_message(col, present, cohort.path)
+                                    + f" (cohort {cohort.name})")
+                else:
+                    usable.append(col)
+        cols = list(dict.fromkeys(usable))
+        if not cols:
+            continue
+        df = frames[cohort.name] if frames else read_extract(cohort.path, cols)
+        for a in spec.analyses:
+            problems += [f"analyses[{a.name}] (cohort {cohort.name}): {p}"
+                         for p in _type_problems(a, df, spec)]
+    return list(dict.fromkeys(problems))
+
+
+def _column_fields(a: Analysis) -> list[tuple[str, str]]:
+    out = [(c, f"outcome.{k}") for k, c in vars(a.outcome).items()
+           if k in ("event", "value", "count", "persontime", "time", "entry") and c]
+    out.append((a.exposure, "exposure"))
+    out += [(c, f"adjust[{i}]") for i, c in enumerate(a.adjust)]
+    out += [(c, f"strata[{i}]") for i, c in enumerate(a.strata)]
+    if a.by:
+        out.append((a.by, "by"))
+    out += [(f.variable, f"filters[{i}].variable") for i, f in enumerate(a.filters)]
+    return out
+
+
+def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
+    problems: list[str] = []
+    numeric_roles = [(a.exposure, "exposure")]
+    o = a.outcome
+    numeric_roles += [(c, f"outcome.{k}") for k, c in
+                      (("value", o.value), ("count", o.count), ("persontime", o.persontime),
+                       ("time", o.time), ("entry", o.entry), ("event", o.event)) if c]
+    for var in a.adjust:
+        if var in spec.groupings:
+            numeric_roles.append((var, "adjust (grouped)"))
+    for col, role in numeric_roles:
+        if col not in df:
+            continue
+        try:
+            s = coerce_numeric(df, col, role)
+        except DataError as exc:
+            problems.append(str(exc))
+            continue
+        if s.notna().sum() == 0:
+            problems.append(f"column {col!r} ({role}) is missing in every row; check the extract.")
+            continue
+        if role == "outcome.event":
+            vals = set(np.unique(s.dropna()))
+            if not vals <= {0.0, 1.0}:
+                problems.append(f"column {col!r} (outcome.event) must be coded 0/1; found values "
+                                f"{sorted(vals)[:6]}; recode it (1 = event).")
+        if role == "outcome.count" and ((s.dropna() < 0).any() or (s.dropna() % 1 != 0).any()):
+            problems.append(f"column {col!r} (outcome.count) must hold non-negative whole counts.")
+        if role == "exposure" and s.dropna().nunique() < 2:
+            problems.append(f"column {col!r} (exposure) is constant ({s.dropna().iloc[0]:g}); "
+                            "there is nothing to refit.")
+    return problems
+
+
+# --------------------------------------------------------------------------- samples
+
+
+@dataclass(frozen=True)
+class Sample:
+    """The complete-case analysis sample shared by every fit of one analysis."""
+
+    frame: pd.DataFrame
+    n_input: int
+    dropped: tuple[tuple[str, int], ...]
+
+    @property
+    def n(self) -> int:
+        return len(self.frame)
+
+
+def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
+    """Apply filters, then drop incomplete rows, then rows with impossible follow-up.
+
+    Every step's dropped-row count is kept, in order, under a reason that names the column.
+    """
+    n0 = len(df)
+    dropped: list[tuple[str, int]] = []
+    cur = df
+    for f in a.filters:
+        s = cur[f.variable]
+        keep = pd.Series(True, index=cur.index)
+        if f.min is not None:
+            keep &= coerce_numeric(cur, f.variable, "filter") >= f.min
+        if f.max is not None:
+            keep &= coerce_numeric(cur, f.variable, "filter") <= f.max
+        if f.values is not None:
+            keep &= s.isin(list(f.values)) | s.astype(str).isin([str(v) for v in f.values])
+        dropped.append((f"filter: {f.describe()}", int((~keep).sum())))
+        cur = cur[keep]
+    cols = [c for c in a.columns if c not in {f.variable for f in a.filters}
+            or c in (a.exposure, *a.adjust, *a.strata, a.by, *a.outcome.columns)]
+    for c in cols:
+        miss = cur[c].isna()
+        dropped.append((f"missing {c}", int(miss.sum())))
+        cur = cur[~miss]
+    numeric = {a.exposure, *a.outcome.columns}
+    numeric |= {v for v in a.adjust if v in spec.groupings}
+    out = cur.copy()
+    for c in sorted(numeric):
+        out[c] = coerce_numeric(out, c, "analysis column")
+    o = a.outcome
+    if o.type == "survival":
+        assert o.time is not None
+        bad = out[o.time] <= 0
+        if o.entry:
+            bad |= (out[o.entry] < 0) | (out[o.entry] >= out[o.time])
+        dropped.append((f"non-positive follow-up ({o.time}"
+                        + (f" <= {o.entry}" if o.entry else " <= 0") + ")", int(bad.sum())))
+        out = out[~bad]
+    if o.type == "count":
+        assert o.persontime is not None
+        bad = out[o.persontime] <= 0
+        dropped.append((f"non-positive person-time ({o.persontime} <= 0)", int(bad.sum())))
+        out = out[~bad]
+    return Sample(frame=out.reset_index(drop=True), n_input=n0, dropped=tuple(dropped))
+
+
+# --------------------------------------------------------------------------- legacy grouping
+
+
+def resolve_cuts(x: np.ndarray, g: Grouping) -> tuple[float, ...]:
+    """The cut values of a grouping in this sample (quantile groupings use the sample)."""
+    if g.cuts is not None:
+        return g.cuts
+    assert g.quantiles is not None
+    qs = np.quantile(x, np.arange(1, g.quantiles) / g.quantiles)
+    return tuple(float(v) for v in qs)
+

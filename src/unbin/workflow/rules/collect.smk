@@ -1,0 +1,20 @@
+# Study-level tables: every job's tables concatenated, with study-level provenance.
+
+
+rule collect_tables:
+    input:
+        expand(
+            "work/{cohort}/{analysis}/{table}.parquet",
+            cohort=UNBIN_COHORTS,
+            analysis=UNBIN_ANALYSES,
+            table=JOB_TABLES,
+        ),
+    output:
+        expand("tables/{table}.parquet", table=STUDY_TABLES),
+    params:
+        spec=UNBIN_SPEC_PATH,
+        digests=study_params(UNBIN_SPEC),
+    log:
+        "logs/collect.log",
+    script:
+        "../scripts/collect_tables.py"

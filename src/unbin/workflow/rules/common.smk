@@ -1,0 +1,29 @@
+# Shared set-up: validate the config and the spec up front, and name the jobs.
+import copy
+from pathlib import Path
+
+from snakemake.utils import min_version, validate
+
+from unbin.jobs import JOB_TABLES, STUDY_TABLES
+from unbin.spec import load_spec
+from unbin.workflow_support import analysis_params, study_params
+
+min_version("9.0")
+
+# Resolve our own files from this file's folder (inside a module, workflow.basedir is the
+# consumer's folder).
+UNBIN_RULES_DIR = Path(workflow.current_basedir)
+
+validate(config, str(UNBIN_RULES_DIR.parent / "schemas" / "config.schema.json"))
+UNBIN_SPEC_PATH = str(Path(config["spec"]).resolve())
+UNBIN_SPEC = load_spec(UNBIN_SPEC_PATH)
+# Snakemake's validate fills schema defaults in place: validate a copy, keep the spec as written.
+validate(copy.deepcopy(UNBIN_SPEC.raw), str(UNBIN_RULES_DIR.parent / "schemas" / "spec.schema.json"))
+
+UNBIN_COHORTS = [c.name for c in UNBIN_SPEC.cohorts]
+UNBIN_ANALYSES = [a.name for a in UNBIN_SPEC.analyses]
+
+wildcard_constraints:
+    cohort="[A-Za-z0-9][A-Za-z0-9_-]*",
+    analysis="[A-Za-z0-9][A-Za-z0-9_-]*",
+
