@@ -14,7 +14,10 @@ from .errors import SpecError, UnbinError
 
 
 def _console(quiet: bool = False) -> Console:
-    return Console(quiet=quiet, no_color=bool(os.environ.get("NO_COLOR")), highlight=False)
+    # Piped output (logs, CI) gets a fixed width wide enough for the summary table.
+    width = None if sys.stdout.isatty() else 132
+    return Console(quiet=quiet, no_color=bool(os.environ.get("NO_COLOR")), highlight=False,
+                   width=width)
 
 
 def cmd_check(args: argparse.Namespace) -> int:

@@ -6,9 +6,9 @@ results can be checked against the truth it was built with:
 - ``readmission_sodium`` (binary): 30-day readmission is U-shaped in serum sodium (lowest risk at
   140 mmol/L); the legacy analysis used three clinical groups (<135, 135-<145, >=145).
 - ``death_egfr`` (survival, delayed entry, strata by centre): the log hazard rises linearly as
-  kidney function falls below 60 and is flat above (an elbow); age confounds it strongly
-  (older people have lower eGFR and die sooner) and the legacy analysis adjusted for age in
-  decades — residual confounding.
+  kidney function falls below 60 and is flat above (an elbow); the legacy analysis split eGFR at
+  60. Age confounds it strongly (older people have lower eGFR and die sooner) and the legacy
+  analysis adjusted for age in decades — residual confounding.
 - ``visits_bmi`` (count, person-years offset): the clinic-visit rate is log-linear in BMI.
 - ``sbp_urate`` (continuous): systolic pressure rises linearly with serum urate; the legacy cut
   at 7.1 mg/dL was chosen from the data.
@@ -108,7 +108,7 @@ def demo_spec(data_rel: str = "data/lindenfeld.parquet") -> dict[str, Any]:
         "groupings": {
             "sodium": {"cuts": [135, 145], "labels": ["low", "normal", "high"],
                        "reference": "normal"},
-            "egfr": {"cuts": [30, 45, 60], "reference": ">=60"},
+            "egfr": {"cuts": [60], "reference": ">=60"},
             "age": {"cuts": [50, 60, 70]},
             "bmi": {"cuts": [25, 30], "labels": ["normal", "overweight", "obese"]},
             "urate": {"cuts": [7.1], "derived_from_data": True},
@@ -123,8 +123,8 @@ def demo_spec(data_rel: str = "data/lindenfeld.parquet") -> dict[str, Any]:
              "outcome": {"type": "survival", "time": "followup_years", "event": "died",
                          "entry": "entry_years", "horizon": 5},
              "exposure": "egfr", "adjust": ["age", "sex"], "strata": ["centre"],
-             "reported": {"contrast": "<30 vs >=60", "estimate": 3.1, "lower": 2.4,
-                          "upper": 4.0}},
+             "reported": {"contrast": "<60 vs >=60", "estimate": 2.1, "lower": 1.8,
+                          "upper": 2.5}},
             {"name": "visits_bmi",
              "outcome": {"type": "count", "count": "visits", "persontime": "person_years"},
              "exposure": "bmi", "adjust": ["age", "diabetes"]},

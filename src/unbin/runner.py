@@ -9,6 +9,7 @@ import signal
 import subprocess
 import sys
 from collections.abc import Callable
+from importlib import resources
 from pathlib import Path
 
 from .errors import UnbinError
@@ -21,12 +22,9 @@ PROFILES = ("local", "slurm")
 def profile_path(profile: str) -> Path:
     """A shipped profile by name (local, slurm), or a folder given by path."""
     if profile in PROFILES:
-        p = Path(str(snakefile().parent.parent / "profiles" / profile))
-        if p.is_dir():
+        p = Path(str(resources.files("unbin").joinpath("profiles", profile)))
+        if (p / "config.yaml").is_file():
             return p
-        repo = Path(__file__).resolve().parents[2] / "profiles" / profile
-        if repo.is_dir():
-            return repo
         raise UnbinError(f"profile {profile!r} is not shipped with this installation.")
     p = Path(profile)
     if not (p / "config.yaml").is_file():
@@ -41,9 +39,10 @@ def snakemake_command(spec: Path, out: Path, cores: int, profile: str | None = N
            "--directory", str(out), "--config", f"spec={spec.resolve()}",
            "--rerun-triggers", "params", "input", "--rerun-incomplete"]
     if profile:
-        cmd += ["--profile", str(profile_path(profile)), "--workflow-profile", "none"]
-    else:
-        cmd += ["--cores", str(cores), "--workflow-profile", "none"]
+        cmd += ["--profile", str(profile_path(profile))]
+    # The command line wins over a profile: --cores caps local work (and local rules on a
+    # cluster); no workflow profile is picked up implicitly.
+    cmd += ["--cores", str(cores), "--workflow-profile", "none"]
     return cmd + (extra or [])
 
 

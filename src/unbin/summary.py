@@ -33,13 +33,16 @@ def information_summary(out: Path) -> Table:
               title_justify="left")
     for col in ("cohort", "analysis", "status", "n", "LR χ² groups (df)", "LR χ² spline (df)",
                 "info kept", "spline adds p", "nonlinear p", "best by AIC"):
+        if col == "cohort" and status["cohort"].nunique() <= 1:
+            continue
         t.add_column(col, justify="right" if col not in ("cohort", "analysis", "status",
                                                           "best by AIC") else "left")
     rows = info[info["adjustment"] == "legacy"] if len(info) else info
     merged = status.merge(rows, on=["cohort", "analysis"], how="left") if len(status) else status
     for _, r in merged.iterrows():
+        cells = [] if status["cohort"].nunique() <= 1 else [str(r["cohort"])]
         t.add_row(
-            str(r["cohort"]), str(r["analysis"]), str(r["status"]), str(r.get("n_used", "")),
+            *cells, str(r["analysis"]), str(r["status"]), str(r.get("n_used", "")),
             f"{_fmt(r.get('lr_legacy'))} ({_fmt(r.get('df_legacy'), 0)})",
             f"{_fmt(r.get('lr_spline'))} ({_fmt(r.get('df_spline'), 0)})",
             _fmt(r.get("info_kept"), 2), _p(r.get("added_p")), _p(r.get("nonlinearity_p")),
