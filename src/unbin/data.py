@@ -36,7 +36,7 @@ def extract_columns(path: Path) -> list[str]:
         return list(pq.read_schema(path).names)
     if suffix == ".dta":
         with pd.io.stata.StataReader(path) as rdr:
-            return list(rdr.varlist)
+            return list(rdr.variable_labels())  # keyed by variable name, in file order
     if suffix == ".sas7bdat":
         import pyreadstat
 

@@ -15,14 +15,18 @@ from typing import Any
 
 import pandas as pd
 
+from .confounding import confounding_table
 from .curves import curves_table, density_table
+from .cutpoints import cutpoints_table
 from .data import _type_problems, analysis_sample, extract_rows, file_sha256, read_extract
 from .effects import effects_table
 from .errors import DataError, UnbinError
 from .fits import fits_table
 from .information import information_table
 from .provenance import provenance
+from .ranges import ranges_table
 from .refit import Refit, refit_analysis
+from .replication import replication_table
 from .spec import Spec, digest, load_spec
 from .tables import read_table, write_table
 
@@ -35,6 +39,10 @@ QUESTION_TABLES: dict[str, Callable[[Refit, Spec], pd.DataFrame]] = {
     "effects": lambda r, s: effects_table(r),
     "curves": lambda r, s: curves_table(r),
     "density": lambda r, s: density_table(r, s.min_cell),
+    "ranges": ranges_table,
+    "confounding": confounding_table,
+    "cutpoints": cutpoints_table,
+    "replication": replication_table,
 }
 JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "status")
 STUDY_TABLES = JOB_TABLES

@@ -55,6 +55,10 @@ def run_workflow(spec: Path, out: Path, cores: int = 1, profile: str | None = No
     cmd = snakemake_command(spec, out, cores, profile, extra)
     env = dict(os.environ)
     env.setdefault("PYTHONHASHSEED", "0")
+    # Each job is single-threaded; parallelism comes from Snakemake jobs. A multi-threaded BLAS
+    # inside every job only oversubscribes the cores (small matrix calls slow down ~1000x).
+    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        env.setdefault(var, "1")
     logfile = out / "logs" / "snakemake.log"
     with open(logfile, "w") as log, subprocess.Popen(
             cmd, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, env=env) as proc:

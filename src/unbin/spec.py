@@ -171,6 +171,24 @@ class VariableInfo:
 
 
 @dataclass(frozen=True)
+class Resampling:
+    """Sizes of the resampling runs: bootstrap replicates (confounding share, re-derived cut
+    point) and permutations (maximally selected statistic). 0 switches a run off."""
+
+    bootstrap: int = 200
+    permutations: int = 1000
+
+
+@dataclass(frozen=True)
+class CutpointSearch:
+    """Range of the search for a data-derived cut: the share of the sample below a candidate
+    cut must lie in [lower, upper]."""
+
+    lower: float = 0.1
+    upper: float = 0.9
+
+
+@dataclass(frozen=True)
 class Spec:
     study: str
     cohorts: tuple[Cohort, ...]
@@ -183,6 +201,8 @@ class Spec:
     seed: int
     raw: dict[str, Any] = field(repr=False)
     source: Path | None = None
+    resampling: Resampling = field(default_factory=Resampling)
+    cutpoint_search: CutpointSearch = field(default_factory=CutpointSearch)
 
     def analysis(self, name: str) -> Analysis:
         for a in self.analyses:
@@ -211,6 +231,16 @@ class Spec:
             text += f" ({info.unit})"
         return text
 
+    def rng(self, analysis: str, purpose: str) -> Any:
+        """A numpy Generator for one resampling run of one analysis: seeded from the spec's seed
+        and a digest of (analysis, purpose) through numpy's SeedSequence, so that every run gives
+        the same draws and the runs of different analyses and questions are independent."""
+        import numpy as np
+
+        key = hashlib.sha256(f"{analysis}\x00{purpose}".encode()).digest()
+        words = [int.from_bytes(key[i:i + 4], "little") for i in range(0, 16, 4)]
+        return np.random.default_rng(np.random.SeedSequence([self.seed, *words]))
+
     def slice_for(self, analysis: str) -> dict[str, Any]:
         """The spec entries one analysis depends on (its digest decides whether it reruns)."""
         a = self.analysis(analysis)
@@ -227,6 +257,7 @@ class Spec:
             "risk_thresholds": self.raw.get("risk_thresholds", []),
             "disclosure": self.raw.get("disclosure", {}),
             "seed": self.seed,
+            **{k: self.raw[k] for k in ("resampling", "cutpoint_search") if k in self.raw},
         }
 
 
@@ -271,9 +302,12 @@ def load_spec(path: str | Path) -> Spec:
 
 def parse_spec(raw: dict[str, Any], base: Path, source: Path | None = None) -> Spec:
     problems = schema_problems(raw)
-    if problems:
-        raise SpecError(problems)
-    problems = semantic_problems(raw)
+    try:
+        problems += semantic_problems(raw)
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError):
+        if not problems:
+            raise
+        # A schema problem left the spec too malformed for the semantic checks: report those.
     if problems:
         raise SpecError(problems)
     return _build(raw, base, source)
@@ -412,7 +446,9 @@ def semantic_problems(raw: dict[str, Any]) -> list[str]:
                 problems.append(f"{where}.outcome: a {kind} outcome needs '{f_}' (a column name); "
                                 "add it.")
         allowed = set(OUTCOME_FIELDS[kind]) | set(OPTIONAL_OUTCOME_FIELDS[kind]) | {"type"}
-        for f_ in sorted(set(out) - allowed):
+        known = {k for fs in (*OUTCOME_FIELDS.values(), *OPTIONAL_OUTCOME_FIELDS.values())
+                 for k in fs}
+        for f_ in sorted((set(out) - allowed) & known):  # unknown keys: the schema reports them
             problems.append(f"{where}.outcome.{f_}: not used by a {kind} outcome (it takes "
                             f"{sorted(allowed - {'type'})}); remove it.")
         if a.get("strata") and kind != "survival":
@@ -535,4 +571,7 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
         seed=int(raw.get("seed", DEFAULT_SEED)),
         raw=raw,
         source=source,
+        resampling=Resampling(**(raw.get("resampling") or {})),
+        cutpoint_search=CutpointSearch(**{k: float(v) for k, v in
+                                          (raw.get("cutpoint_search") or {}).items()}),
     )

@@ -51,6 +51,18 @@ def information_summary(out: Path) -> Table:
     return t
 
 
+def question_lines(out: Path) -> list[str]:
+    """One line per "what the grouping cost" question whose table exists."""
+    from . import confounding, cutpoints, ranges, replication
+
+    lines = []
+    for mod in (ranges, confounding, cutpoints, replication):
+        path = out / "tables" / f"{mod.TABLE}.parquet"
+        if path.is_file():
+            lines.append(mod.summary_line(read_table(path)))
+    return lines
+
+
 def print_summary(out: Path, console: Console | None = None) -> None:
     console = console or Console()
     console.print(information_summary(out))
@@ -60,4 +72,6 @@ def print_summary(out: Path, console: Console | None = None) -> None:
         console.print(f"[bold]{r['cohort']}/{r['analysis']}[/bold] {r['status']}: {r['message']}")
     console.print("info kept = LR χ²(legacy groups) / LR χ²(groups + spline); 1 means the "
                   "grouping lost nothing.")
+    for line in question_lines(out):
+        console.print(line, markup=False)
     console.print(f"Tables: {out / 'tables'}")

@@ -47,8 +47,11 @@ def check_design(X: np.ndarray, names: tuple[str, ...]) -> str:
     if const:
         return (f"design columns {const} are constant in the analysis sample (an empty or "
                 "all-covering group?); the model cannot estimate them.")
-    return (f"the design is collinear (rank {rank} < {Z.shape[1]} columns among {list(names)}); "
-            "remove an adjustment variable that duplicates another.")
+    # Columns that load on the null space of Z are the ones tied by a linear relation.
+    null = np.linalg.svd(Z, full_matrices=False)[2][rank:]
+    tied = [names[j] for j in range(X.shape[1]) if np.abs(null[:, j + 1]).max() > 1e-6]
+    return (f"the design is collinear (rank {rank} < {Z.shape[1]} columns): {tied} are linearly "
+            "dependent; remove an adjustment variable that duplicates another.")
 
 
 def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], n: int, events: int | None,

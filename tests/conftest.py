@@ -1,0 +1,44 @@
+"""Shared helpers: build a spec from a dict and refit one analysis on an in-memory frame."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+import pytest
+
+from unbin.data import analysis_sample
+from unbin.refit import Refit, refit_analysis
+from unbin.spec import Spec, parse_spec
+
+
+def _one_analysis(outcome: dict[str, Any], exposure: str, grouping: dict[str, Any],
+                  **extra: Any) -> dict[str, Any]:
+    return {
+        "study": "sim",
+        "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+        "groupings": {exposure: grouping},
+        "analyses": [{"name": "a", "outcome": outcome, "exposure": exposure}],
+        **extra,
+    }
+
+
+@pytest.fixture
+def one_analysis() -> Callable[..., dict[str, Any]]:
+    """Builder of a raw spec with one cohort, one grouping and one analysis:
+    ``one_analysis(outcome, exposure, grouping, **top_level_keys)``."""
+    return _one_analysis
+
+
+@pytest.fixture
+def refit_frame(tmp_path: Path) -> Callable[[pd.DataFrame, dict[str, Any]], tuple[Spec, Refit]]:
+    """Parse ``raw`` and run every fit of its first analysis on ``frame`` (no files read)."""
+
+    def run(frame: pd.DataFrame, raw: dict[str, Any]) -> tuple[Spec, Refit]:
+        spec = parse_spec(raw, base=tmp_path)
+        a = spec.analyses[0]
+        return spec, refit_analysis(analysis_sample(frame, a, spec), a, spec, spec.cohorts[0].name)
+
+    return run

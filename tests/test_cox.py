@@ -1,0 +1,350 @@
+"""Checks of the proportional-hazards engine (unbin.cox) against outside references.
+
+References: lifelines (CoxPHFitter, CoxTimeVaryingFitter, utils.concordance_index),
+statsmodels (PHReg with ties="breslow"), and the published Rossi recidivism fit listed in
+/work/shared/CHECKS.md (Fox & Weisberg's appendix on Cox regression, from memory).
+
+lifelines is fitted with tight ``fit_options``: its default stops (Newton decrement or step
+norm below 1e-7, relative change of the log likelihood below 1e-9, after damped Newton steps)
+leave coefficient errors near 1e-6, which is the tolerance of the comparison itself.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from lifelines import CoxPHFitter, CoxTimeVaryingFitter
+from lifelines.datasets import load_rossi
+from lifelines.utils import concordance_index
+
+from unbin.cox import CoxFit, baseline_cumhaz, concordance, fit_cox, predict_risk
+
+TIGHT = {"precision": 1e-14, "r_precision": 1e-16}
+ROSSI_COLS = ["fin", "age", "race", "wexp", "mar", "paro", "prio"]
+COLS = ["x1", "x2", "x3"]
+
+
+def _se(fit: CoxFit) -> np.ndarray:
+    return np.sqrt(np.diag(fit.cov))
+
+
+def _assert_matches_lifelines(fit: CoxFit, cph: CoxPHFitter) -> None:
+    assert fit.converged, fit.message
+    assert fit.message == ""
+    np.testing.assert_allclose(fit.coef, cph.params_.to_numpy(), rtol=1e-6, atol=0)
+    np.testing.assert_allclose(_se(fit), cph.standard_errors_.to_numpy(), rtol=1e-6, atol=0)
+    assert fit.loglik == pytest.approx(cph.log_likelihood_, abs=1e-8)
+    # public route to lifelines' log partial likelihood at zero: LR statistic = 2 (ll - ll0)
+    ll0 = cph.log_likelihood_ - cph.log_likelihood_ratio_test().test_statistic / 2
+    assert fit.loglik0 == pytest.approx(ll0, abs=1e-8)
+
+
+@pytest.fixture(scope="module")
+def rossi() -> pd.DataFrame:
+    return load_rossi()
+
+
+@pytest.fixture(scope="module")
+def sim() -> pd.DataFrame:
+    """Simulated cohort with heavy ties (24 distinct times), 3 strata, late entry, weights."""
+    rng = np.random.default_rng(20111)
+    n = 2000
+    x = np.column_stack([rng.normal(size=n), rng.binomial(1, 0.4, n), rng.normal(50, 10, n)])
+    stratum = rng.integers(0, 3, n)
+    latent = rng.exponential(1 / np.exp(x @ np.array([0.5, -0.4, 0.03]) - 1.5 + 0.3 * stratum))
+    censor = rng.exponential(2.0, n)
+    time = np.ceil(np.minimum(latent, censor) * 4)
+    late = rng.uniform(size=n) < 0.5
+    entry = np.floor(rng.uniform(0, 0.8, n) * time * late)
+    return pd.DataFrame(x, columns=COLS).assign(
+        T=time,
+        E=(latent <= censor).astype(int),
+        S=stratum,
+        entry=entry,
+        W=rng.integers(1, 4, n),  # integer weights: lifelines warns on non-integer ones
+    )
+
+
+def _x(df: pd.DataFrame) -> np.ndarray:
+    return df[COLS].to_numpy(float)
+
+
+# ------------------------------------------------------------------------------ Rossi
+
+
+def test_rossi_efron_matches_lifelines(rossi: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter (Efron ties) on lifelines.datasets.load_rossi
+    fit = fit_cox(rossi[ROSSI_COLS].to_numpy(float), rossi["week"], rossi["arrest"])
+    cph = CoxPHFitter().fit(rossi, "week", "arrest", fit_options=TIGHT)
+    _assert_matches_lifelines(fit, cph)
+    assert (fit.n, fit.events) == (432, 114)
+
+
+def test_rossi_matches_published_values(rossi: pd.DataFrame) -> None:
+    # source: CHECKS.md, Rossi recidivism data, Fox & Weisberg appendix (from memory),
+    # printed to 5 decimals (coefficients, SEs), 3 (log-likelihood, C) and 2 (LR)
+    X = rossi[ROSSI_COLS].to_numpy(float)
+    fit = fit_cox(X, rossi["week"], rossi["arrest"])
+    coef = [-0.37942, -0.05744, 0.31390, -0.14980, -0.43370, -0.08487, 0.09150]
+    se = [0.19138, 0.02200, 0.30799, 0.21222, 0.38187, 0.19576, 0.02865]
+    np.testing.assert_allclose(fit.coef, coef, atol=5.1e-6)
+    np.testing.assert_allclose(_se(fit), se, atol=5.1e-6)
+    assert fit.loglik == pytest.approx(-658.748, abs=5e-4)
+    assert 2 * (fit.loglik - fit.loglik0) == pytest.approx(33.27, abs=5e-3)
+    assert concordance(rossi["week"], X @ fit.coef, rossi["arrest"]) == pytest.approx(
+        0.640, abs=5e-4
+    )
+
+
+def test_rossi_breslow_matches_statsmodels(rossi: pd.DataFrame) -> None:
+    # source: statsmodels PHReg(ties="breslow")
+    X = rossi[ROSSI_COLS].to_numpy(float)
+    fit = fit_cox(X, rossi["week"], rossi["arrest"], ties="breslow")
+    ref = sm.PHReg(rossi["week"].to_numpy(float), X, status=rossi["arrest"], ties="breslow").fit()
+    np.testing.assert_allclose(fit.coef, ref.params, rtol=1e-6)
+    np.testing.assert_allclose(_se(fit), ref.bse, rtol=1e-6)
+    assert fit.loglik == pytest.approx(ref.llf, abs=1e-8)
+
+
+# ------------------------------------------------------------- ties, strata, delayed entry
+
+
+def test_heavy_ties_efron_matches_lifelines(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter (Efron ties)
+    assert sim["T"].nunique() < 30 and sim["E"].sum() > 1000
+    fit = fit_cox(_x(sim), sim["T"], sim["E"])
+    cph = CoxPHFitter().fit(sim[COLS + ["T", "E"]], "T", "E", fit_options=TIGHT)
+    _assert_matches_lifelines(fit, cph)
+
+
+def test_strata_match_lifelines(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter(strata=...)
+    fit = fit_cox(_x(sim), sim["T"], sim["E"], strata=sim["S"])
+    cph = CoxPHFitter().fit(sim[COLS + ["T", "E", "S"]], "T", "E", strata=["S"], fit_options=TIGHT)
+    _assert_matches_lifelines(fit, cph)
+
+
+def test_delayed_entry_matches_lifelines(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter(entry_col=...) (Efron ties, left truncation)
+    assert (sim["entry"] > 0).mean() > 0.15
+    assert sim["entry"].isin(sim.loc[sim["E"] == 1, "T"]).sum() > 100  # entry == an event time
+    fit = fit_cox(_x(sim), sim["T"], sim["E"], entry=sim["entry"])
+    cph = CoxPHFitter().fit(
+        sim[COLS + ["T", "E", "entry"]], "T", "E", entry_col="entry", fit_options=TIGHT
+    )
+    _assert_matches_lifelines(fit, cph)
+
+
+def test_weights_strata_and_entry_together_match_lifelines(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter(weights_col=, strata=, entry_col=)
+    fit = fit_cox(
+        _x(sim), sim["T"], sim["E"], entry=sim["entry"], strata=sim["S"], weights=sim["W"]
+    )
+    cph = CoxPHFitter().fit(
+        sim, "T", "E", weights_col="W", entry_col="entry", strata=["S"], fit_options=TIGHT
+    )
+    _assert_matches_lifelines(fit, cph)
+
+
+def test_weights_match_lifelines(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter(weights_col=...) (model-based variance, not robust)
+    fit = fit_cox(_x(sim), sim["T"], sim["E"], weights=sim["W"])
+    cph = CoxPHFitter().fit(
+        sim[COLS + ["T", "E", "W"]], "T", "E", weights_col="W", fit_options=TIGHT
+    )
+    _assert_matches_lifelines(fit, cph)
+
+
+def test_many_small_strata_with_entry_match_lifelines() -> None:
+    # source: lifelines CoxPHFitter(strata=, entry_col=); 150 strata of about 10 rows each
+    rng = np.random.default_rng(11)
+    n = 1500
+    x = rng.normal(size=(n, 2))
+    stratum = rng.integers(0, 150, n)
+    time = np.ceil(rng.exponential(1 / np.exp(x @ [0.5, -0.3] + 0.02 * stratum)) * 3)
+    entry = np.where(rng.uniform(size=n) < 0.3, np.floor(time * rng.uniform(size=n)), 0.0)
+    event = rng.binomial(1, 0.7, n)
+    frame = pd.DataFrame(x, columns=["a", "b"]).assign(T=time, E=event, S=stratum, en=entry)
+    cph = CoxPHFitter().fit(frame, "T", "E", strata=["S"], entry_col="en", fit_options=TIGHT)
+    _assert_matches_lifelines(fit_cox(x, time, event, strata=stratum, entry=entry), cph)
+
+
+def test_breslow_strata_and_entry_match_statsmodels(sim: pd.DataFrame) -> None:
+    # source: statsmodels PHReg(ties="breslow", strata=, entry=). statsmodels keeps a row
+    # entering exactly at an event time in that risk set (entry <= t; ours and lifelines':
+    # entry < t), so the entries are moved off the (integer) event times here
+    entry = np.where(sim["entry"] > 0, sim["entry"] + 0.5, 0.0)
+    fit = fit_cox(_x(sim), sim["T"], sim["E"], entry=entry, strata=sim["S"], ties="breslow")
+    ref = sm.PHReg(
+        sim["T"].to_numpy(float),
+        _x(sim),
+        status=sim["E"].to_numpy(),
+        strata=sim["S"].to_numpy(),
+        entry=entry,
+        ties="breslow",
+    ).fit()
+    np.testing.assert_allclose(fit.coef, ref.params, rtol=1e-6)
+    np.testing.assert_allclose(_se(fit), ref.bse, rtol=1e-6)
+    assert fit.loglik == pytest.approx(ref.llf, abs=1e-8)
+
+
+def test_no_covariates_gives_null_loglik(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter log-likelihood at zero (via its LR test)
+    fit = fit_cox(np.zeros((len(sim), 0)), sim["T"], sim["E"])
+    cph = CoxPHFitter().fit(sim[COLS + ["T", "E"]], "T", "E", fit_options=TIGHT)
+    ll0 = cph.log_likelihood_ - cph.log_likelihood_ratio_test().test_statistic / 2
+    assert fit.converged and fit.message == "" and fit.coef.shape == (0,)
+    assert fit.loglik == pytest.approx(ll0, abs=1e-8) and fit.loglik0 == fit.loglik
+
+
+def test_start_at_the_estimate_converges_at_once(rossi: pd.DataFrame) -> None:
+    # common practice (Newton's method started at its fixed point); reference: lifelines
+    cph = CoxPHFitter().fit(rossi, "week", "arrest", fit_options=TIGHT)
+    X = rossi[ROSSI_COLS].to_numpy(float)
+    fit = fit_cox(X, rossi["week"], rossi["arrest"], init=cph.params_.to_numpy())
+    assert fit.converged and fit.iterations == 1
+    np.testing.assert_allclose(fit.coef, cph.params_.to_numpy(), rtol=1e-6)
+
+
+# ------------------------------------------------------------------ baseline and risk
+
+
+def test_baseline_cumhaz_matches_lifelines_with_strata_and_weights(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter.baseline_cumulative_hazard_ (Breslow, at the column means,
+    # one column per stratum); ours is at covariates = 0, hence the exp(mean' b) factor
+    X = _x(sim)
+    fit = fit_cox(X, sim["T"], sim["E"], strata=sim["S"], weights=sim["W"])
+    cph = CoxPHFitter().fit(
+        sim[COLS + ["T", "E", "S", "W"]], "T", "E", strata=["S"], weights_col="W", fit_options=TIGHT
+    )
+    base = baseline_cumhaz(X, sim["T"], sim["E"], fit.coef, strata=sim["S"], weights=sim["W"])
+    assert list(base.columns) == ["stratum", "time", "cumhaz"]
+    assert sorted(base["stratum"].unique()) == [0, 1, 2]
+    at_mean = np.exp(X.mean(axis=0) @ fit.coef)
+    for label, part in base.groupby("stratum"):
+        ref = cph.baseline_cumulative_hazard_[label].loc[part["time"]].to_numpy()
+        np.testing.assert_allclose(part["cumhaz"].to_numpy() * at_mean, ref, rtol=1e-6)
+
+
+def test_baseline_cumhaz_under_delayed_entry_matches_lifelines_start_stop(
+    sim: pd.DataFrame,
+) -> None:
+    # source: lifelines CoxTimeVaryingFitter.baseline_cumulative_hazard_ with (entry, time]
+    # intervals (CoxPHFitter's baseline ignores entry_col, so it is not the reference here)
+    X = _x(sim)
+    fit = fit_cox(X, sim["T"], sim["E"], entry=sim["entry"])
+    ctv = CoxTimeVaryingFitter().fit(
+        sim[COLS + ["T", "E", "entry"]].assign(id=np.arange(len(sim))),
+        id_col="id",
+        event_col="E",
+        start_col="entry",
+        stop_col="T",
+    )
+    np.testing.assert_allclose(fit.coef, ctv.params_.to_numpy(), rtol=1e-6)
+    base = baseline_cumhaz(X, sim["T"], sim["E"], fit.coef, entry=sim["entry"])
+    ref = ctv.baseline_cumulative_hazard_.iloc[:, 0].loc[base["time"]].to_numpy()
+    at_mean = np.exp(X.mean(axis=0) @ fit.coef)
+    np.testing.assert_allclose(base["cumhaz"].to_numpy() * at_mean, ref, rtol=1e-6)
+
+
+def test_predict_risk_matches_lifelines(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter.predict_survival_function (risk = 1 - S(horizon | x));
+    # the horizon is an observed time, where lifelines does not interpolate
+    X = _x(sim)
+    fit = fit_cox(X, sim["T"], sim["E"], strata=sim["S"])
+    cph = CoxPHFitter().fit(sim[COLS + ["T", "E", "S"]], "T", "E", strata=["S"], fit_options=TIGHT)
+    base = baseline_cumhaz(X, sim["T"], sim["E"], fit.coef, strata=sim["S"])
+    new = sim.iloc[:25]
+    horizon = 6.0
+    risk = predict_risk(_x(new), fit.coef, base, horizon, strata_new=new["S"].to_numpy())
+    surv_df = cph.predict_survival_function(new[COLS + ["S"]], times=[horizon])
+    surv = surv_df[new.index].to_numpy().ravel()  # lifelines groups the columns by stratum
+    np.testing.assert_allclose(risk, 1 - surv, rtol=1e-6)
+    # before the first event time the baseline is zero (common practice: step function)
+    early = predict_risk(_x(new), fit.coef, base, 0.0, strata_new=new["S"].to_numpy())
+    assert np.all(early == 0)
+    with pytest.raises(ValueError, match="strata_new"):
+        predict_risk(_x(new), fit.coef, base, horizon)
+
+
+# ------------------------------------------------------------------------ concordance
+
+
+def test_concordance_matches_lifelines_with_ties_and_censoring() -> None:
+    # source: lifelines.utils.concordance_index(time, -score, event)
+    rng = np.random.default_rng(7)
+    for _ in range(60):
+        n = int(rng.integers(2, 50))
+        t = rng.integers(0, rng.integers(1, 9), n).astype(float)
+        score = rng.integers(0, rng.integers(1, 6), n).astype(float)
+        event = rng.binomial(1, rng.uniform(0.1, 1.0), n)
+        try:
+            ref = concordance_index(t, -score, event)
+        except ZeroDivisionError:  # lifelines: no admissible pair
+            assert np.isnan(concordance(t, score, event))
+            continue
+        assert concordance(t, score, event) == pytest.approx(ref, abs=1e-12)
+    n = 5000
+    t = rng.exponential(size=n).round(2)
+    score = rng.normal(size=n).round(1)
+    event = rng.binomial(1, 0.4, n)
+    assert concordance(t, score, event) == pytest.approx(
+        concordance_index(t, -score, event), abs=1e-12
+    )
+
+
+# ------------------------------------------------------------------ failures and inputs
+
+
+def test_monotone_likelihood_is_reported_not_silent() -> None:
+    # common practice: with no events in one group of a binary column the estimate is infinite
+    rng = np.random.default_rng(3)
+    n = 200
+    group = rng.binomial(1, 0.5, n)
+    X = np.column_stack([rng.normal(size=n), group])
+    event = np.where(group == 1, rng.binomial(1, 0.7, n), 0)
+    fit = fit_cox(X, rng.exponential(size=n), event)
+    assert not fit.converged
+    assert "column(s) [1]" in fit.message and "infinite" in fit.message
+
+
+@pytest.mark.parametrize(
+    ("make", "expected"),
+    [
+        (lambda x: np.column_stack([x, 2 * x + 1]), "collinear"),
+        (lambda x: np.column_stack([x, np.ones_like(x)]), "constant"),
+    ],
+)
+def test_singular_information_is_reported(make, expected) -> None:  # type: ignore[no-untyped-def]
+    # common practice: a collinear or constant column makes the information singular
+    rng = np.random.default_rng(4)
+    n = 150
+    fit = fit_cox(make(rng.normal(size=n)), rng.exponential(size=n), rng.binomial(1, 0.5, n))
+    assert not fit.converged and expected in fit.message
+    assert np.isnan(fit.coef).all() and np.isfinite(fit.loglik0)
+
+
+def test_iteration_limit_is_reported(rossi: pd.DataFrame) -> None:
+    # common practice: hitting max_iter is non-convergence, with the last iterate kept
+    X = rossi[ROSSI_COLS].to_numpy(float)
+    fit = fit_cox(X, rossi["week"], rossi["arrest"], max_iter=1)
+    assert not fit.converged and fit.iterations == 1
+    assert "max_iter" in fit.message and np.isfinite(fit.coef).all()
+
+
+def test_invalid_inputs_raise_value_errors() -> None:
+    # common practice: bad input is refused with a message naming the problem
+    X = np.arange(6.0)[:, None]
+    time = np.array([1.0, 2, 3, 4, 5, 6])
+    with pytest.raises(ValueError, match="event must be 0/1"):
+        fit_cox(X, time, [0, 1, 2, 1, 0, 1])
+    with pytest.raises(ValueError, match="greater than entry"):
+        fit_cox(X, time, [0, 1, 1, 1, 0, 1], entry=[0, 0, 3, 0, 0, 0])
+    with pytest.raises(ValueError, match="missing or infinite"):
+        fit_cox(X, [1.0, np.nan, 3, 4, 5, 6], [0, 1, 1, 1, 0, 1])
+    with pytest.raises(ValueError, match="weights must be positive"):
+        fit_cox(X, time, [0, 1, 1, 1, 0, 1], weights=[1, 1, 0, 1, 1, 1])
+    with pytest.raises(ValueError, match="ties"):
+        fit_cox(X, time, [0, 1, 1, 1, 0, 1], ties="exact")

@@ -1,0 +1,317 @@
+"""Tests of the cut-point audit (unbin.cutpoints): corrected p-values against the published
+formulas (CHECKS.md), the split statistics against reference libraries, the behaviour of the
+maximally selected statistic under the null, and the audit rows."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from lifelines.datasets import load_rossi
+from lifelines.statistics import logrank_test
+from scipy import stats
+from statsmodels.duration.hazard_regression import PHReg
+
+from unbin.cutpoints import SplitSearch, cutpoints_table, p_altman, p_lausen
+from unbin.data import analysis_sample
+from unbin.models.base import Outcome
+from unbin.refit import Refit, build_outcome, legacy_term
+from unbin.spec import Spec, parse_spec
+
+
+def _refit(df: pd.DataFrame, raw: dict[str, Any], name: str = "a") -> tuple[Refit, Spec]:
+    """A Refit without fits (the cut-point audit does not use them)."""
+    spec = parse_spec(raw, base=Path("."))
+    a = spec.analysis(name)
+    sample = analysis_sample(df, a, spec)
+    x = sample.frame[a.exposure].to_numpy(float)
+    return Refit(a, "sim", sample, build_outcome(sample, a), x,
+                 legacy_term(x, a.exposure, spec)), spec
+
+
+def _raw(outcome: dict[str, Any], groupings: dict[str, Any], adjust: list[str] | None = None,
+         **top: Any) -> dict[str, Any]:
+    return {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
+            "groupings": groupings,
+            "analyses": [{"name": "a", "outcome": outcome, "exposure": "x",
+                          "adjust": adjust or []}], **top}
+
+
+# --------------------------------------------------------------------------- corrected p-values
+
+
+@pytest.mark.parametrize(("p", "eps", "expected"), [
+    # Miller-Siegmund / Lausen-Schumacher values computed from the formula (CHECKS.md)
+    (0.05, 0.10, 0.4916), (0.05, 0.05, 0.6183), (0.01, 0.10, 0.1615), (0.01, 0.05, 0.2087),
+    (0.001, 0.10, 0.0255), (0.001, 0.05, 0.0334),
+])
+def test_lausen_schumacher_values(p: float, eps: float, expected: float) -> None:
+    assert p_lausen(p, eps, 1 - eps) == pytest.approx(expected, abs=6e-5)
+
+
+@pytest.mark.parametrize(("p", "expected"), [(0.05, 0.4923), (0.01, 0.1601), (0.001, 0.0248)])
+def test_altman_values(p: float, expected: float) -> None:
+    # Altman, Lausen, Sauerbrei & Schumacher 1994 (JNCI 86:829), 10-90% range; CHECKS.md values
+    assert p_altman(p, 0.1, 0.9) == pytest.approx(expected, abs=6e-5)
+    # the formula itself (CHECKS.md), 5-95% range
+    assert p_altman(p, 0.05, 0.95) == pytest.approx(-3.13 * p * (1 + 1.65 * np.log(p)))
+    # outside the published ranges / p-values the formula is not used
+    assert np.isnan(p_altman(p, 0.2, 0.8))
+    assert np.isnan(p_altman(0.3, 0.1, 0.9))
+
+
+# --------------------------------------------------------------------------- split statistics
+
+
+def test_split_statistics_match_reference_libraries() -> None:
+    rng = np.random.default_rng(11)
+    n = 500
+    x = rng.normal(size=n).round(2)
+    # linear model: the score statistic is n R^2 of the split (statsmodels OLS)
+    y = 0.3 * x + rng.normal(size=n)
+    s = SplitSearch.build("continuous", x, Outcome("continuous", y))
+    for j in (0, 10, len(s.cuts) - 1):
+        g = (x >= s.cuts[j]).astype(float)
+        ref = n * sm.OLS(y, sm.add_constant(g)).fit().rsquared
+        assert s.profile()[j] == pytest.approx(ref, rel=1e-10)
+    # logistic: Pearson chi-square of the 2x2 table (scipy chi2_contingency, no correction)
+    yb = (rng.random(n) < 1 / (1 + np.exp(-0.5 * x))).astype(float)
+    s = SplitSearch.build("binary", x, Outcome("binary", yb))
+    for j in (3, 20):
+        hi = x >= s.cuts[j]
+        tab = [[np.sum(hi & (yb == 1)), np.sum(hi & (yb == 0))],
+               [np.sum(~hi & (yb == 1)), np.sum(~hi & (yb == 0))]]
+        ref = stats.chi2_contingency(tab, correction=False)[0]
+        assert s.profile()[j] == pytest.approx(ref, rel=1e-10)
+    # Poisson with offset: statsmodels GLM score test of the split indicator
+    t = rng.uniform(0.5, 3, n)
+    yc = rng.poisson(t * np.exp(0.2 * x)).astype(float)
+    s = SplitSearch.build("count", x, Outcome("count", yc, offset=np.log(t)))
+    null = sm.GLM(yc, np.ones((n, 1)), family=sm.families.Poisson(), offset=np.log(t)).fit()
+    for j in (5, 30):
+        g = (x >= s.cuts[j]).astype(float)
+        ref = null.score_test(exog_extra=g[:, None]).statistic[0]
+        assert s.profile()[j] == pytest.approx(ref, rel=1e-8)
+
+
+def test_logrank_matches_lifelines_with_ties() -> None:
+    """Log-rank statistic (hypergeometric variance) on the Rossi data (shipped with lifelines),
+    split on age; lifelines.statistics.logrank_test is the reference."""
+    ro = load_rossi()
+    x = ro["age"].to_numpy(float)
+    s = SplitSearch.build("survival", x, Outcome("survival", ro["arrest"].to_numpy(float),
+                                                 time=ro["week"].to_numpy(float)))
+    for j in (0, 4, len(s.cuts) - 1):
+        lo = x < s.cuts[j]
+        ref = logrank_test(ro["week"][lo], ro["week"][~lo], ro["arrest"][lo],
+                           ro["arrest"][~lo]).test_statistic
+        assert s.profile()[j] == pytest.approx(ref, rel=1e-10)
+
+
+def test_stratified_logrank_with_delayed_entry_matches_cox_score_test() -> None:
+    """With untied times the stratified log-rank equals the Cox score test at beta = 0
+    (statsmodels PHReg, strata and entry); the profile is computed in chunks of candidates."""
+    rng = np.random.default_rng(3)
+    n = 900
+    x = rng.normal(size=n).round(1)
+    st = rng.integers(0, 3, n)
+    T = rng.exponential(1 / np.exp(0.4 * x))
+    C = rng.uniform(0.5, 3, n)
+    entry = rng.uniform(0, 0.3, n)
+    time = np.minimum(T, C)
+    ev = (T <= C).astype(float)
+    keep = time > entry
+    x, st, time, ev, entry = x[keep], st[keep], time[keep], ev[keep], entry[keep]
+    s = SplitSearch.build("survival", x, Outcome("survival", ev, time=time, entry=entry,
+                                                 strata=st))
+    prof = s.profile()
+    for j in (0, 7, len(s.cuts) - 1):
+        g = (x < s.cuts[j]).astype(float)[:, None]
+        m = PHReg(time, g, status=ev, entry=entry, strata=st, ties="breslow")
+        ref = m.score(np.zeros(1))[0] ** 2 / -m.hessian(np.zeros(1))[0, 0]
+        assert prof[j] == pytest.approx(ref, rel=1e-9)
+
+
+def test_weighted_statistics_equal_the_statistic_of_the_resampled_data() -> None:
+    """A bootstrap replicate is a vector of frequency weights; its statistic must equal the one of
+    the data with rows repeated (reference: scipy and lifelines on the repeated rows)."""
+    rng = np.random.default_rng(8)
+    n = 300
+    x = rng.normal(size=n).round(1)
+    yb = (rng.random(n) < 0.3 + 0.1 * (x > 0)).astype(float)
+    w = np.bincount(rng.integers(0, n, n), minlength=n).astype(float)
+    s = SplitSearch.build("binary", x, Outcome("binary", yb), lower=0.0, upper=1.0)
+    order = np.argsort(x, kind="stable")
+    stat_w = s._glm_stat(w[order][None, :], None)[0]
+    rep = np.repeat(np.arange(n), w.astype(int))
+    for j in (5, 15):
+        hi = x[rep] >= s.cuts[j]
+        yr = yb[rep]
+        tab = [[np.sum(hi & (yr == 1)), np.sum(hi & (yr == 0))],
+               [np.sum(~hi & (yr == 1)), np.sum(~hi & (yr == 0))]]
+        assert stat_w[j] == pytest.approx(stats.chi2_contingency(tab, correction=False)[0],
+                                          rel=1e-10)
+    ro = load_rossi()
+    xr = ro["age"].to_numpy(float)
+    wr = np.bincount(rng.integers(0, len(ro), len(ro)), minlength=len(ro)).astype(float)
+    s = SplitSearch.build("survival", xr, Outcome("survival", ro["arrest"].to_numpy(float),
+                                                  time=ro["week"].to_numpy(float)))
+    assert s.surv is not None
+    order = np.argsort(xr, kind="stable")
+    stat_w = s.surv.logrank(s.k, wr[order])
+    rep = np.repeat(np.arange(len(ro)), wr.astype(int))
+    wk, ar = ro["week"].to_numpy()[rep], ro["arrest"].to_numpy()[rep]
+    for j in (2, 9):
+        lo = xr[rep] < s.cuts[j]
+        ref = logrank_test(wk[lo], wk[~lo], ar[lo], ar[~lo]).test_statistic
+        assert stat_w[j] == pytest.approx(ref, rel=1e-10)
+
+
+def test_stratified_permutation_stays_within_strata() -> None:
+    rng = np.random.default_rng(2)
+    n = 200
+    st = rng.integers(0, 4, n)
+    s = SplitSearch.build("survival", rng.normal(size=n),
+                          Outcome("survival", np.ones(n), time=rng.uniform(1, 2, n), strata=st))
+    assert s.surv is not None
+    perm = s.surv.stratified_permutation(np.random.default_rng(0))
+    assert sorted(perm.tolist()) == list(range(n))  # a permutation
+    assert np.array_equal(s.surv.strata[perm], s.surv.strata)  # of rows of the same stratum
+    assert not np.array_equal(perm, np.arange(n))
+
+
+# --------------------------------------------------------------------------- null behaviour
+
+
+def test_minimum_p_search_under_the_null() -> None:
+    """No association: the naive p of the maximally selected statistic rejects far more often
+    than 5% (Altman et al. 1994 report about 40% for a 10-90% search), the corrected and the
+    permutation p-values about 5%.
+
+    1000 data sets of n = 200 with all-distinct x (160 candidate cuts), 199 permutations each.
+    Monte Carlo SE of a rejection rate near 5% is 0.007: the bounds [0.03, 0.07] allow about 3 SE
+    (common practice); the corrected formulas assume a continuous search and are slightly
+    conservative with 160 discrete candidates, hence their lower bound 0.02."""
+    rng = np.random.default_rng(1994)
+    reps, n, perms = 1000, 200, 199
+    naive = altman = lausen = perm = 0
+    for _ in range(reps):
+        s = SplitSearch.build("continuous", rng.uniform(size=n),
+                              Outcome("continuous", rng.normal(size=n)))
+        m = float(np.nanmax(s.profile()))
+        p = float(stats.chi2.sf(m, 1))
+        pm = s.permutation_max(rng, perms)
+        naive += p < 0.05
+        altman += p_altman(p) < 0.05
+        lausen += p_lausen(p) < 0.05
+        perm += (1 + np.sum(pm >= m * (1 - 1e-10))) / (1 + perms) < 0.05
+    assert naive / reps > 0.3
+    assert 0.03 <= perm / reps <= 0.07
+    assert 0.02 <= altman / reps <= 0.07
+    assert 0.02 <= lausen / reps <= 0.07
+
+
+def test_bootstrap_of_the_optimal_cut_is_tight_for_a_step_and_wide_for_a_line() -> None:
+    """Common practice (no source): a true threshold is re-found in almost every bootstrap
+    sample; under a linear truth the "optimal" cut wanders over much of the search range."""
+    rng = np.random.default_rng(4)
+    n = 1000
+    x = rng.uniform(0, 10, n).round(2)
+    y_step = 1.0 * (x >= 4) + rng.normal(size=n)
+    y_line = 0.1 * x + rng.normal(size=n)
+    step = SplitSearch.build("continuous", x, Outcome("continuous", y_step))
+    line = SplitSearch.build("continuous", x, Outcome("continuous", y_line))
+    cs = step.bootstrap_cuts(np.random.default_rng(1), 200)
+    cl = line.bootstrap_cuts(np.random.default_rng(1), 200)
+    lo_s, hi_s = np.percentile(cs, [2.5, 97.5])
+    lo_l, hi_l = np.percentile(cl, [2.5, 97.5])
+    assert lo_s <= 4.0 <= hi_s and hi_s - lo_s < 1.0
+    # over 12 seeds: step widths 0.1-0.9, line widths 2.4-6.5
+    assert hi_l - lo_l > 2 * (hi_s - lo_s) and hi_l - lo_l > 1.5
+
+
+# --------------------------------------------------------------------------- the table
+
+
+def test_audit_rows_percentiles_counts_and_suppression() -> None:
+    rng = np.random.default_rng(6)
+    n = 400
+    x = rng.normal(50, 10, n).round(1)
+    x[:4] = [90.0, 91.0, 92.0, 93.0]  # a top group of 4 rows, below min_cell = 10
+    y = (rng.random(n) < 0.3).astype(float)
+    df = pd.DataFrame({"x": x, "y": y})
+    raw = _raw({"type": "binary", "event": "y"}, {"x": {"cuts": [45, 60, 85]}},
+               disclosure={"min_cell": 10}, resampling={"bootstrap": 0, "permutations": 0})
+    r, spec = _refit(df, raw)
+    tab = cutpoints_table(r, spec)
+    cuts = tab[tab["row_type"] == "cut"]
+    # percentile of a cut = share of values below it (closed left), as scipy computes it
+    for row in cuts.itertuples():
+        assert row.percentile == pytest.approx(stats.percentileofscore(x, row.cut, kind="strict"))
+        assert row.distance_to_median == pytest.approx(row.cut - np.median(x))
+    assert (tab["row_type"] == "search").sum() == 0  # not derived from data
+    groups = tab[tab["row_type"] == "group"].set_index("group")
+    true_n = np.bincount(np.searchsorted([45, 60, 85], x, side="right"), minlength=4)
+    assert pd.isna(groups.loc[">=85", "n"])  # 4 rows < min_cell: suppressed
+    # exactly one cell hidden would be recoverable from the total: the next smallest is hidden
+    smallest_other = ["<45", "45-<60", "60-<85"][int(np.argmin(true_n[:3]))]
+    assert pd.isna(groups.loc[smallest_other, "n"])
+    shown = groups["n"].dropna()
+    for label, count in shown.items():
+        assert count == true_n[["<45", "45-<60", "60-<85", ">=85"].index(label)]
+    assert groups["suppressed"].sum() >= 2
+
+
+def test_data_derived_cut_search_row_and_reproducibility() -> None:
+    rng = np.random.default_rng(9)
+    n = 600
+    x = rng.normal(6, 1.4, n).round(1)
+    y = 2.0 * x + rng.normal(0, 8, n)
+    df = pd.DataFrame({"x": x, "y": y})
+    raw = _raw({"type": "continuous", "value": "y"},
+               {"x": {"cuts": [7.1], "derived_from_data": True}},
+               seed=5, resampling={"bootstrap": 50, "permutations": 99},
+               cutpoint_search={"lower": 0.05, "upper": 0.95})
+    r, spec = _refit(df, raw)
+    tab = cutpoints_table(r, spec)
+    search = tab[tab["row_type"] == "search"].iloc[0]
+    prof = tab[tab["row_type"] == "profile"]
+    assert search["status"] == "ok"
+    assert search["statistic"] == pytest.approx(prof["statistic"].max())
+    assert prof["percentile"].between(5, 95).all()
+    p = stats.chi2.sf(search["statistic"], 1)
+    assert search["p_naive"] == pytest.approx(p)
+    assert search["p_altman"] == pytest.approx(p_altman(p, 0.05, 0.95), nan_ok=True)
+    assert search["p_lausen"] == pytest.approx(p_lausen(p, 0.05, 0.95))
+    assert 1 / 100 <= search["p_permutation"] <= 1
+    assert search["boot_cut_p2_5"] <= search["boot_cut_p50"] <= search["boot_cut_p97_5"]
+    # seeded from the spec: the same spec gives the same table
+    pd.testing.assert_frame_equal(tab, cutpoints_table(r, spec))
+
+
+def test_resampling_and_search_options_in_the_spec() -> None:
+    from unbin.errors import SpecError
+
+    base = _raw({"type": "continuous", "value": "y"}, {"x": {"cuts": [1.0]}})
+    spec = parse_spec(base, base=Path("."))
+    assert (spec.resampling.bootstrap, spec.resampling.permutations) == (200, 1000)
+    assert (spec.cutpoint_search.lower, spec.cutpoint_search.upper) == (0.1, 0.9)
+    assert "resampling" not in spec.slice_for("a")  # digests of older specs are unchanged
+    spec = parse_spec({**base, "resampling": {"bootstrap": 0, "permutations": 50},
+                       "cutpoint_search": {"lower": 0.05, "upper": 0.95}}, base=Path("."))
+    assert (spec.resampling.bootstrap, spec.resampling.permutations) == (0, 50)
+    assert spec.cutpoint_search.lower == 0.05
+    assert spec.slice_for("a")["resampling"] == {"bootstrap": 0, "permutations": 50}
+    with pytest.raises(SpecError, match="Did you mean 'permutations'"):
+        parse_spec({**base, "resampling": {"permutation": 10}}, base=Path("."))
+    with pytest.raises(SpecError, match="cutpoint_search"):
+        parse_spec({**base, "cutpoint_search": {"lower": 0.6}}, base=Path("."))
+    # streams: the same (seed, analysis, purpose) gives the same draws, anything else differs
+    draw = spec.rng("a", "cutpoints-bootstrap").random(3)
+    assert np.array_equal(draw, spec.rng("a", "cutpoints-bootstrap").random(3))
+    assert not np.array_equal(draw, spec.rng("b", "cutpoints-bootstrap").random(3))
+    assert not np.array_equal(draw, spec.rng("a", "confounding-bootstrap").random(3))

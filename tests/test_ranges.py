@@ -1,0 +1,127 @@
+"""Tests of range dependence (unbin.ranges): with a linear truth the legacy high-vs-low estimate
+follows the truncated-normal means of the trimmed groups, while the continuous contrast between
+fixed values stays within its interval."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pytest
+from lifelines import CoxPHFitter
+from scipy import stats
+
+from unbin.data import analysis_sample
+from unbin.ranges import ranges_table, trims
+from unbin.refit import Refit, build_outcome, legacy_term
+from unbin.spec import Spec, parse_spec
+
+
+def _refit(df: pd.DataFrame, raw: dict[str, Any], name: str = "a") -> tuple[Refit, Spec]:
+    """A Refit without fits (the range question fits its own models)."""
+    spec = parse_spec(raw, base=Path("."))
+    a = spec.analysis(name)
+    sample = analysis_sample(df, a, spec)
+    x = sample.frame[a.exposure].to_numpy(float)
+    return Refit(a, "sim", sample, build_outcome(sample, a), x,
+                 legacy_term(x, a.exposure, spec)), spec
+
+
+def _raw(outcome: dict[str, Any], cuts: list[float], adjust: list[str],
+         **extra: Any) -> dict[str, Any]:
+    return {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
+            "groupings": {"x": {"cuts": cuts}},
+            "analyses": [{"name": "a", "outcome": outcome, "exposure": "x", "adjust": adjust,
+                          **extra}]}
+
+
+def test_legacy_estimate_moves_while_the_continuous_contrast_stays() -> None:
+    """x ~ N(0, 1) cut at its population tertiles, y = x + 0.5 age + e.
+
+    Legacy (top vs bottom third): its expectation in a sample trimmed to [l, u] is
+    E[x | c2 <= x < u] - E[x | l <= x < c1], the means of truncated normals (scipy truncnorm);
+    the estimate must be within 4 SE of it, and it moves away from the untrimmed estimate by
+    many SEs. Linear and spline contrasts between the fixed values: each trimmed 95% interval
+    contains both the untrimmed estimate and the truth (common practice: the trimmed estimate
+    is noisier but unbiased; the nested samples make the difference smaller than its SE)."""
+    rng = np.random.default_rng(7)
+    n = 20_000
+    x = rng.normal(size=n)
+    age = rng.normal(size=n)
+    y = x + 0.5 * age + rng.normal(size=n)
+    c1, c2 = stats.norm.ppf(1 / 3), stats.norm.ppf(2 / 3)
+    df = pd.DataFrame({"x": x, "y": y, "age": age})
+    r, spec = _refit(df, _raw({"type": "continuous", "value": "y"}, [c1, c2], ["age"]))
+    tab = ranges_table(r, spec)
+    assert len(tab) == 3 * len(trims())
+    assert (tab["status"] == "ok").all()
+    full = tab[(tab["form"] == "legacy") & (tab["trim"] == "none")].iloc[0]
+    for row in tab[tab["form"] == "legacy"].itertuples():
+        lo = stats.norm.ppf(row.share_lower) if row.share_lower > 0 else -np.inf
+        hi = stats.norm.ppf(1 - row.share_upper) if row.share_upper > 0 else np.inf
+        expected = (stats.truncnorm.mean(c2, hi) - stats.truncnorm.mean(lo, c1))
+        assert row.estimate == pytest.approx(expected, abs=4 * row.se)
+        if row.trim != "none" and max(row.share_lower, row.share_upper) >= 0.10:
+            assert abs(row.estimate - full["estimate"]) > 5 * row.se
+            assert not row.covers_untrimmed
+    assert (tab["form"] == "legacy").sum() == len(trims())
+    both20 = tab[(tab["form"] == "legacy") & (tab["trim"] == "both")
+                 & (tab["share_lower"] == 0.2)].iloc[0]
+    assert both20["estimate"] < 0.65 * full["estimate"]  # the grouped effect shrinks by a third
+    for form in ("linear", "spline"):
+        rows = tab[tab["form"] == form]
+        truth = rows["x_high"].iloc[0] - rows["x_low"].iloc[0]  # slope 1 between fixed values
+        assert (rows["x_high"] == rows["x_high"].iloc[0]).all()  # the values stay fixed
+        assert rows["covers_untrimmed"].all()
+        assert ((rows["lower"] <= truth) & (truth <= rows["upper"])).all()
+
+
+def test_trims_that_empty_a_group_are_skipped_with_a_reason() -> None:
+    rng = np.random.default_rng(3)
+    n = 3000
+    x = rng.normal(size=n)
+    y = (rng.random(n) < 1 / (1 + np.exp(-(-1 + 0.5 * x)))).astype(float)
+    df = pd.DataFrame({"x": x, "y": y})
+    cut = float(np.quantile(x, 0.03))  # lowest group: 3% of the sample
+    r, spec = _refit(df, _raw({"type": "binary", "event": "y"}, [cut, 0.0], []))
+    tab = ranges_table(r, spec)
+    leg = tab[tab["form"] == "legacy"]
+    skipped = leg[leg["status"] == "skipped"]
+    # every trim that cuts at least 5% from below removes the whole lowest group
+    assert set(zip(skipped["trim"], skipped["share_lower"], strict=True)) == {
+        (t, s) for t, s, _ in trims() if s >= 0.05}
+    assert skipped["reason"].str.contains("after trimming").all()
+    assert skipped["estimate"].isna().all()
+    # the continuous contrasts are still estimated there, flagged as extrapolated
+    lin = tab[(tab["form"] == "linear") & (tab["share_lower"] >= 0.05)]
+    assert (lin["status"] == "ok").all() and lin["extrapolated"].all()
+
+
+def test_survival_trim_refits_the_legacy_model_on_the_trimmed_rows() -> None:
+    """The legacy log hazard ratio after trimming the upper 10% equals lifelines' CoxPHFitter
+    (Efron ties, strata) fitted to the trimmed rows with the same group indicators."""
+    rng = np.random.default_rng(11)
+    n = 1500
+    x = rng.uniform(20, 80, n).round(0)
+    centre = rng.integers(1, 4, n)
+    t = rng.exponential(1 / (0.1 * np.exp(0.02 * (x - 50))))
+    cens = rng.uniform(1, 10, n)
+    df = pd.DataFrame({"x": x, "centre": centre, "time": np.minimum(t, cens).round(2) + 0.01,
+                       "died": (t <= cens).astype(int)})
+    raw = _raw({"type": "survival", "time": "time", "event": "died"}, [40.0, 60.0], [],
+               strata=["centre"])
+    r, spec = _refit(df, raw)
+    tab = ranges_table(r, spec)
+    row = tab[(tab["form"] == "legacy") & (tab["trim"] == "upper")
+              & (tab["share_upper"] == 0.10)].iloc[0]
+    bound = np.quantile(x, 0.90)
+    sub = df[df["x"] <= bound].copy()
+    assert row["n"] == len(sub)
+    sub["g1"] = ((sub["x"] >= 40) & (sub["x"] < 60)).astype(float)
+    sub["g2"] = (sub["x"] >= 60).astype(float)
+    ref = CoxPHFitter().fit(sub[["time", "died", "centre", "g1", "g2"]], "time", "died",
+                            strata=["centre"])
+    assert row["estimate"] == pytest.approx(ref.params_["g2"], abs=1e-5)
+    assert row["se"] == pytest.approx(ref.standard_errors_["g2"], rel=1e-4)

@@ -1,0 +1,163 @@
+"""Spec loading and validation (unbin.spec) and `unbin check` (unbin.cli), in-process."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+
+from unbin.cli import main
+from unbin.data import data_problems
+from unbin.demo import write_demo
+from unbin.errors import SpecError
+from unbin.spec import load_spec, parse_spec
+
+
+@pytest.fixture
+def demo(tmp_path: Path) -> tuple[Path, dict[str, Any]]:
+    """The invented demo registry and its spec, written under tmp_path."""
+    spec_path = write_demo(tmp_path, n=400)
+    return spec_path, yaml.safe_load(spec_path.read_text(encoding="utf-8"))
+
+
+def _write(path: Path, raw: dict[str, Any]) -> Path:
+    path.write_text(yaml.safe_dump(raw, sort_keys=False), encoding="utf-8")
+    return path
+
+
+def _check(path: Path, capsys: pytest.CaptureFixture[str]) -> tuple[int, int, str]:
+    """Run `unbin check` in-process: exit code, number of problems listed, and the output with
+    whitespace collapsed (the console may wrap long lines)."""
+    rc = main(["check", str(path)])
+    out = capsys.readouterr().out
+    listed = sum(line.startswith("  - ") for line in out.splitlines())
+    return rc, listed, " ".join(out.split())
+
+
+def _flat(text: str) -> str:
+    return " ".join(text.split())
+
+
+def test_demo_spec_passes_check(demo: tuple[Path, dict[str, Any]],
+                                capsys: pytest.CaptureFixture[str]) -> None:
+    spec_path, _ = demo
+    rc, listed, out = _check(spec_path, capsys)
+    assert rc == 0 and listed == 0
+    assert "is usable: 1 cohort(s), 4 analysis(es)" in out
+    spec = load_spec(spec_path)
+    assert [a.family for a in spec.analyses] == ["binary", "survival", "count", "continuous"]
+
+
+def test_unknown_key_and_unsorted_cuts_are_each_reported(
+        demo: tuple[Path, dict[str, Any]], capsys: pytest.CaptureFixture[str]) -> None:
+    spec_path, raw = demo
+    raw["analyses"][0]["adjsut"] = raw["analyses"][0].pop("adjust")
+    raw["groupings"]["age"]["cuts"] = [60, 50, 70]
+    bad = _write(spec_path.parent / "bad.yaml", raw)
+
+    with pytest.raises(SpecError) as err:
+        load_spec(bad)
+    problems = err.value.problems
+    assert len(problems) == 2, problems
+    key, cuts = sorted(problems)  # 'analyses[0]...' sorts before 'groupings...'
+    assert "unknown key 'adjsut'" in key and "Did you mean 'adjust'?" in key
+    assert key.startswith("analyses[0]")
+    assert cuts.startswith("groupings.age.cuts") and "strictly increasing" in cuts
+    assert "[50.0, 60.0, 70.0]" in cuts  # the fix is spelled out
+
+    rc, listed, out = _check(bad, capsys)
+    assert rc != 0 and listed == 2
+    assert "The spec has 2 problem(s)" in out
+    assert all(_flat(p) in out for p in problems)
+
+
+def test_misspelt_variable_is_found_against_the_data(demo: tuple[Path, dict[str, Any]],
+                                                      capsys: pytest.CaptureFixture[str]) -> None:
+    spec_path, raw = demo
+    raw["analyses"][2]["adjust"] = ["agee", "diabetes"]  # visits_bmi; 'age' misspelt
+    bad = _write(spec_path.parent / "typo.yaml", raw)
+    spec = load_spec(bad)  # a valid spec: the column is only missing from the extract
+    problems = data_problems(spec)
+    assert len(problems) == 1
+    assert "'agee'" in problems[0] and "Did you mean 'age'?" in problems[0]
+    assert problems[0].startswith("analyses[visits_bmi].adjust[0]")
+
+    rc, listed, out = _check(bad, capsys)
+    assert rc != 0 and listed == 1
+    assert "does not match the data" in out and _flat(problems[0]) in out
+
+
+def test_malformed_yaml_names_the_line(tmp_path: Path) -> None:
+    text = ("study: broken\n"
+            "cohorts:\n"
+            "  - {name: c, path: c.csv}\n"
+            "analyses:\n"
+            "  - name: a\n"
+            "    exposure: age: 5\n")
+    path = tmp_path / "broken.yaml"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(SpecError) as err:
+        load_spec(path)
+    assert len(err.value.problems) == 1
+    msg = err.value.problems[0]
+    assert "broken.yaml is not valid YAML at line 6" in msg
+
+
+def test_yaml_that_is_not_a_mapping_and_missing_file_are_clear(tmp_path: Path) -> None:
+    path = tmp_path / "list.yaml"
+    path.write_text("- a\n- b\n", encoding="utf-8")
+    with pytest.raises(SpecError, match="must be a mapping"):
+        load_spec(path)
+    with pytest.raises(SpecError, match="does not exist"):
+        load_spec(tmp_path / "nope.yaml")
+
+
+def _minimal(**analysis: Any) -> dict[str, Any]:
+    a = {"name": "a", "outcome": {"type": "binary", "event": "dead"}, "exposure": "egfr"}
+    a.update(analysis)
+    return {"study": "s", "cohorts": [{"name": "c", "path": "c.csv"}],
+            "groupings": {"egfr": {"cuts": [30, 45, 60]}}, "analyses": [a]}
+
+
+def test_outcome_key_typo_gives_one_suggestion_not_a_pile(tmp_path: Path) -> None:
+    raw = _minimal(outcome={"type": "binary", "evnt": "dead"})
+    with pytest.raises(SpecError) as err:
+        parse_spec(raw, base=tmp_path)
+    problems = err.value.problems
+    assert any("unknown key 'evnt'" in p and "Did you mean 'event'?" in p for p in problems)
+    assert any("needs 'event'" in p for p in problems)
+    assert not any("not used by a binary outcome" in p for p in problems)
+    assert len(problems) == 2
+
+
+def test_reference_group_must_be_a_group(tmp_path: Path) -> None:
+    raw = _minimal()
+    raw["groupings"]["egfr"]["reference"] = ">=65"
+    with pytest.raises(SpecError) as err:
+        parse_spec(raw, base=tmp_path)
+    (msg,) = err.value.problems
+    assert msg.startswith("groupings.egfr.reference") and "Did you mean '>=60'?" in msg
+
+
+def test_default_group_labels_follow_the_closed_side(tmp_path: Path) -> None:
+    raw = _minimal()
+    raw["groupings"]["age"] = {"cuts": [50, 70], "closed": "right"}
+    raw["groupings"]["sbp"] = {"quantiles": 3}
+    spec = parse_spec(raw, base=tmp_path)
+    assert spec.groupings["egfr"].labels == ("<30", "30-<45", "45-<60", ">=60")
+    assert spec.groupings["egfr"].reference == "<30" and spec.groupings["egfr"].closed == "left"
+    assert spec.groupings["age"].labels == ("<=50", ">50-70", ">70")
+    assert spec.groupings["sbp"].labels == ("Q1", "Q2", "Q3") and spec.groupings["sbp"].cuts is None
+    assert spec.cohorts[0].path == (tmp_path / "c.csv").resolve()
+
+
+def test_strata_outside_survival_and_bad_filter_are_reported(tmp_path: Path) -> None:
+    raw = _minimal(strata=["centre"], filters=[{"variable": "age", "min": 80, "max": 18}])
+    with pytest.raises(SpecError) as err:
+        parse_spec(raw, base=tmp_path)
+    problems = err.value.problems
+    assert len(problems) == 2
+    assert any("strata are for survival" in p for p in problems)
+    assert any("min 80 > max 18" in p for p in problems)

@@ -1,0 +1,145 @@
+"""End to end: the demo through the real Snakemake workflow, the command contract, provenance,
+byte-identical reruns, and the demo recovering the truths it was simulated with."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from unbin.demo import true_loghr_egfr, true_logodds_sodium
+from unbin.tables import read_provenance, read_table
+
+pytestmark = pytest.mark.workflow
+
+
+def run_cli(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "unbin.cli", *args], capture_output=True,
+                          text=True, cwd=cwd, timeout=600)
+
+
+@pytest.fixture(scope="session")
+def demo_out(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    out = tmp_path_factory.mktemp("demo")
+    proc = run_cli("demo", "--out", str(out), "--cores", "2")
+    assert proc.returncode == 0, proc.stdout + proc.stderr
+    return out
+
+
+def test_demo_command_contract(demo_out: Path) -> None:
+    assert (demo_out / "spec.yaml").is_file()
+    assert list((demo_out / "data").glob("*.parquet"))
+    for name in ("fits", "information", "effects", "curves"):
+        assert (demo_out / "tables" / f"{name}.parquet").is_file()
+
+
+def test_every_analysis_completed(demo_out: Path) -> None:
+    status = read_table(demo_out / "tables" / "status.parquet")
+    assert set(status["analysis"]) == {"readmission_sodium", "death_egfr", "visits_bmi",
+                                       "sbp_urate"}
+    assert (status["status"] == "ok").all(), status[["analysis", "status", "message"]]
+
+
+def test_provenance_in_every_table(demo_out: Path) -> None:
+    for path in sorted((demo_out / "tables").glob("*.parquet")):
+        prov = read_provenance(path)
+        assert prov["table"] == path.stem
+        assert prov["seed"] == 20260401
+        assert len(prov["spec_digest"]) == 64
+        (inp,) = prov["inputs"]
+        assert inp["path"] == "data/lindenfeld.parquet" and inp["rows"] == 6000
+        assert len(inp["sha256"]) == 64
+        assert "statsmodels" in prov["versions"]
+        assert "time" not in json.dumps(prov).lower().replace("followup", "")
+
+
+def test_rerun_is_byte_identical(demo_out: Path, tmp_path: Path) -> None:
+    """Same inputs, same bytes (DESIGN §5): a second run in a fresh folder."""
+    proc = run_cli("demo", "--out", str(tmp_path), "--cores", "2", "--quiet")
+    assert proc.returncode == 0, proc.stdout + proc.stderr
+    for path in sorted((demo_out / "tables").glob("*.parquet")):
+        assert (tmp_path / "tables" / path.name).read_bytes() == path.read_bytes(), path.name
+
+
+def _info(demo_out: Path, analysis: str, adjustment: str = "continuous") -> pd.Series:
+    info = read_table(demo_out / "tables" / "information.parquet")
+    row = info[(info["analysis"] == analysis) & (info["adjustment"] == adjustment)]
+    assert len(row) == 1
+    return row.iloc[0]
+
+
+@pytest.mark.parametrize("analysis", ["readmission_sodium", "death_egfr"])
+def test_demo_nonlinear_truths_beat_grouping_and_linear(demo_out: Path, analysis: str) -> None:
+    """Simulated truth (unbin.demo): U shape for sodium, elbow for eGFR. The spline or FP must
+    beat both the legacy grouping and the linear form on AIC; the grouping keeps < 1 of the
+    information and the spline adds significantly to the groups."""
+    r = _info(demo_out, analysis)
+    best_flexible = min(r["aic_spline"], r["aic_fp"])
+    assert best_flexible < r["aic_legacy"] and best_flexible < r["aic_linear"]
+    assert r["info_kept"] < 1.0
+    assert r["added_p"] < 0.05
+    assert r["best_form"] in ("spline", "fp")
+
+
+@pytest.mark.parametrize("analysis", ["visits_bmi", "sbp_urate"])
+def test_demo_linear_truths(demo_out: Path, analysis: str) -> None:
+    """Simulated truth linear: the grouping keeps < 1 of the information, linear beats the
+    grouping on AIC, and there is no evidence of nonlinearity at the 1% level."""
+    r = _info(demo_out, analysis)
+    assert r["info_kept"] < 1.0
+    assert r["aic_linear"] < r["aic_legacy"]
+    assert r["nonlinearity_p"] > 0.01
+
+
+def test_demo_spline_curve_tracks_truth(demo_out: Path) -> None:
+    """The spline curve (continuous adjustment) against the simulated truth, relative to the same
+    reference value: within its pointwise 99.9% band at most grid points (the band is
+    pointwise, so a few misses are expected; common practice)."""
+    curves = read_table(demo_out / "tables" / "curves.parquet")
+    for analysis, truth in (("readmission_sodium", true_logodds_sodium),
+                            ("death_egfr", true_loghr_egfr)):
+        c = curves[(curves["analysis"] == analysis) & (curves["form"] == "spline")
+                   & (curves["adjustment"] == "continuous")]
+        x = c["x"].to_numpy()
+        ref = float(c["x_reference"].iloc[0])
+        true = truth(x) - truth(np.array([ref]))
+        z = np.abs(c["estimate"].to_numpy() - true) / np.maximum(c["se"].to_numpy(), 1e-9)
+        assert np.mean(z < 3.29) > 0.9, (analysis, np.round(z, 1))
+
+
+def test_effects_have_legacy_and_continuous_contrasts(demo_out: Path) -> None:
+    eff = read_table(demo_out / "tables" / "effects.parquet")
+    sod = eff[(eff["analysis"] == "readmission_sodium") & (eff["contrast"] == "low vs normal")]
+    assert set(sod["form"]) >= {"legacy", "linear", "spline", "fp"}
+    assert (sod["scale"] == "odds ratio").all()
+    legacy = sod[(sod["form"] == "legacy") & (sod["adjustment"] == "legacy")].iloc[0]
+    assert legacy["effect_lower"] < legacy["effect"] < legacy["effect_upper"]
+    # Inside the 'low' group the spline's effect spreads widely (U shape): not flat.
+    spline = sod[(sod["form"] == "spline") & (sod["adjustment"] == "legacy")].iloc[0]
+    assert spline["within_p10"] > 1.5 * spline["within_p90"]
+
+
+def test_density_suppresses_small_cells(demo_out: Path) -> None:
+    dens = read_table(demo_out / "tables" / "density.parquet")
+    shown = dens["count"].dropna()
+    assert (shown.eq(0) | shown.ge(10)).all()
+    assert dens.loc[dens["suppressed"], "count"].isna().all()
+
+
+def test_check_rejects_bad_spec_before_fitting(tmp_path: Path) -> None:
+    from unbin.demo import write_demo
+
+    spec = write_demo(tmp_path)
+    text = spec.read_text().replace("count: visits", "count: vists", 1)
+    spec.write_text(text)
+    proc = run_cli("check", str(spec))
+    assert proc.returncode != 0
+    assert "vists" in proc.stdout and "Did you mean 'visits'" in proc.stdout
+    proc = run_cli("run", str(spec), "--out", str(tmp_path / "out"), "--cores", "1")
+    assert proc.returncode != 0
+    assert not (tmp_path / "out" / "tables").exists()
