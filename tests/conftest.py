@@ -42,3 +42,17 @@ def refit_frame(tmp_path: Path) -> Callable[[pd.DataFrame, dict[str, Any]], tupl
         return spec, refit_analysis(analysis_sample(frame, a, spec), a, spec, spec.cohorts[0].name)
 
     return run
+
+
+@pytest.fixture(scope="session")
+def demo_out(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The demo run once per test session (through the real workflow), shared by every test
+    that reads its outputs."""
+    import subprocess
+    import sys
+
+    out = tmp_path_factory.mktemp("demo")
+    proc = subprocess.run([sys.executable, "-m", "unbin.cli", "demo", "--out", str(out),
+                           "--cores", "2"], capture_output=True, text=True, timeout=900)
+    assert proc.returncode == 0, proc.stdout + proc.stderr
+    return out

@@ -81,7 +81,7 @@ def test_non_numeric_exposure_values_are_a_clear_problem(tmp_path: Path) -> None
     problems = data_problems(spec)
     assert len(problems) == 1, problems
     (msg,) = problems
-    assert msg.startswith("analyses[death_egfr] (cohort north)")
+    assert msg.startswith("analyses[death_egfr]:") and msg.endswith("(cohort north)")
     assert "column 'egfr' (exposure) must be numeric" in msg
     assert "'<15'" in msg and "'unknown'" in msg and "in 3 rows" in msg
 

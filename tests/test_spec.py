@@ -45,7 +45,7 @@ def test_demo_spec_passes_check(demo: tuple[Path, dict[str, Any]],
     spec_path, _ = demo
     rc, listed, out = _check(spec_path, capsys)
     assert rc == 0 and listed == 0
-    assert "is usable: 1 cohort(s), 4 analysis(es)" in out
+    assert "is usable: 3 cohort(s), 4 analysis(es)" in out
     spec = load_spec(spec_path)
     assert [a.family for a in spec.analyses] == ["binary", "survival", "count", "continuous"]
 

@@ -12,7 +12,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from unbin.demo import true_loghr_egfr, true_logodds_sodium
+from unbin.bundles import BUNDLE_TABLES
+from unbin.demo import COHORTS, true_loghr_egfr, true_logodds_sodium
 from unbin.tables import read_provenance, read_table
 
 pytestmark = pytest.mark.workflow
@@ -21,14 +22,6 @@ pytestmark = pytest.mark.workflow
 def run_cli(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess[str]:
     return subprocess.run([sys.executable, "-m", "unbin.cli", *args], capture_output=True,
                           text=True, cwd=cwd, timeout=600)
-
-
-@pytest.fixture(scope="session")
-def demo_out(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    out = tmp_path_factory.mktemp("demo")
-    proc = run_cli("demo", "--out", str(out), "--cores", "2")
-    assert proc.returncode == 0, proc.stdout + proc.stderr
-    return out
 
 
 def test_demo_command_contract(demo_out: Path) -> None:
@@ -42,6 +35,7 @@ def test_every_analysis_completed(demo_out: Path) -> None:
     status = read_table(demo_out / "tables" / "status.parquet")
     assert set(status["analysis"]) == {"readmission_sodium", "death_egfr", "visits_bmi",
                                        "sbp_urate"}
+    assert set(status["cohort"]) == {c.name for c in COHORTS}
     assert (status["status"] == "ok").all(), status[["analysis", "status", "message"]]
 
 
@@ -51,9 +45,11 @@ def test_provenance_in_every_table(demo_out: Path) -> None:
         assert prov["table"] == path.stem
         assert prov["seed"] == 20260401
         assert len(prov["spec_digest"]) == 64
-        (inp,) = prov["inputs"]
-        assert inp["path"] == "data/lindenfeld.parquet" and inp["rows"] == 6000
-        assert len(inp["sha256"]) == 64
+        inputs = {i["cohort"]: i for i in prov["inputs"]}
+        for c in COHORTS:
+            inp = inputs[c.name]
+            assert inp["path"] == f"data/{c.name}.parquet" and inp["rows"] == c.n
+            assert len(inp["sha256"]) == 64
         assert "statsmodels" in prov["versions"]
         assert "time" not in json.dumps(prov).lower().replace("followup", "")
 
@@ -68,7 +64,8 @@ def test_rerun_is_byte_identical(demo_out: Path, tmp_path: Path) -> None:
 
 def _info(demo_out: Path, analysis: str, adjustment: str = "continuous") -> pd.Series:
     info = read_table(demo_out / "tables" / "information.parquet")
-    row = info[(info["analysis"] == analysis) & (info["adjustment"] == adjustment)]
+    row = info[(info["analysis"] == analysis) & (info["adjustment"] == adjustment)
+               & (info["cohort"] == "lindenfeld")]
     assert len(row) == 1
     return row.iloc[0]
 
@@ -104,7 +101,7 @@ def test_demo_spline_curve_tracks_truth(demo_out: Path) -> None:
     for analysis, truth in (("readmission_sodium", true_logodds_sodium),
                             ("death_egfr", true_loghr_egfr)):
         c = curves[(curves["analysis"] == analysis) & (curves["form"] == "spline")
-                   & (curves["adjustment"] == "continuous")]
+                   & (curves["adjustment"] == "continuous") & (curves["cohort"] == "lindenfeld")]
         x = c["x"].to_numpy()
         ref = float(c["x_reference"].iloc[0])
         true = truth(x) - truth(np.array([ref]))
@@ -114,7 +111,8 @@ def test_demo_spline_curve_tracks_truth(demo_out: Path) -> None:
 
 def test_effects_have_legacy_and_continuous_contrasts(demo_out: Path) -> None:
     eff = read_table(demo_out / "tables" / "effects.parquet")
-    sod = eff[(eff["analysis"] == "readmission_sodium") & (eff["contrast"] == "low vs normal")]
+    sod = eff[(eff["analysis"] == "readmission_sodium") & (eff["contrast"] == "low vs normal")
+              & (eff["cohort"] == "lindenfeld")]
     assert set(sod["form"]) >= {"legacy", "linear", "spline", "fp"}
     assert (sod["scale"] == "odds ratio").all()
     legacy = sod[(sod["form"] == "legacy") & (sod["adjustment"] == "legacy")].iloc[0]
@@ -143,3 +141,24 @@ def test_check_rejects_bad_spec_before_fitting(tmp_path: Path) -> None:
     proc = run_cli("run", str(spec), "--out", str(tmp_path / "out"), "--cores", "1")
     assert proc.returncode != 0
     assert not (tmp_path / "out" / "tables").exists()
+
+
+def test_demo_pools_three_cohorts(demo_out: Path) -> None:
+    """The demo's three invented cohorts share one true curve: pooled tables are filled, every
+    cohort has a bundle, the pooled U curve for sodium tracks the truth, and the harmonisation
+    table shows the urate cuts tracking the cohorts' medians (simulated that way)."""
+    for c in COHORTS:
+        for t in BUNDLE_TABLES:
+            assert (demo_out / "bundles" / c.name / f"{t}.parquet").is_file()
+    pc = read_table(demo_out / "tables" / "pooled_curves.parquet")
+    assert {"fixed", "random", "multivariate fixed", "multivariate random"} <= set(pc["method"])
+    mv = pc[(pc["analysis"] == "readmission_sodium") & (pc["adjustment"] == "continuous")
+            & (pc["method"] == "multivariate random")]
+    x, ref = mv["x"].to_numpy(), float(mv["x_reference"].iloc[0])
+    true = true_logodds_sodium(x) - true_logodds_sodium(np.array([ref]))
+    z = np.abs(mv["estimate"].to_numpy() - true) / mv["se"].to_numpy()
+    assert np.mean(z < 3.29) > 0.9
+    h = read_table(demo_out / "tables" / "harmonisation.parquet")
+    ur = h[(h["variable"] == "urate") & (h["role"] == "exposure")]
+    assert ur["cohort"].nunique() == 3
+    assert ur["cut_median_correlation"].iloc[0] > 0.8

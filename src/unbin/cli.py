@@ -1,4 +1,5 @@
-"""The command line: ``unbin run``, ``unbin check``, ``unbin demo``, ``unbin summary``."""
+"""The command line: ``unbin run``, ``unbin check``, ``unbin demo``, ``unbin summary``,
+``unbin report``."""
 
 from __future__ import annotations
 
@@ -52,16 +53,19 @@ def _run(spec_path: Path, out: Path, cores: int, profile: str | None, quiet: boo
     from .summary import print_summary
 
     console = _console(quiet)
+    errors = _console()  # problems are printed even with --quiet: the exit code alone says little
     try:
         spec = load_spec(spec_path)
     except SpecError as exc:
-        console.print("[red]The spec has problems:[/red]", *[f"  - {p}" for p in exc.problems],
-                      sep="\n", markup=False)
+        errors.print(f"[red]The spec has {len(exc.problems)} problem(s):[/red]")
+        for p in exc.problems:
+            errors.print(f"  - {p}", markup=False)
         return 2
     problems = data_problems(spec)
     if problems:
-        console.print("[red]The spec does not match the data:[/red]",
-                      *[f"  - {p}" for p in problems], sep="\n", markup=False)
+        errors.print(f"[red]The spec does not match the data: {len(problems)} problem(s):[/red]")
+        for p in problems:
+            errors.print(f"  - {p}", markup=False)
         return 2
     start = time.perf_counter()
     with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
@@ -69,15 +73,19 @@ def _run(spec_path: Path, out: Path, cores: int, profile: str | None, quiet: boo
         task = progress.add_task("starting the workflow", total=None)
 
         def update(done: int, total: int, current: str) -> None:
-            progress.update(task, completed=done, total=total,
-                            description=f"jobs done ({current})" if current else "jobs done")
+            progress.update(task, completed=done, total=total or None,
+                            description=f"jobs done · running {current}" if current
+                            else "jobs done")
 
         rc = run_workflow(spec_path, out, cores=cores, profile=profile, on_progress=update)
     if rc != 0:
-        console.print(f"[red]The workflow failed (exit {rc}); see {out / 'logs'}.[/red]")
+        errors.print(f"[red]The workflow failed (exit {rc}); see {out / 'logs'}.[/red]")
         return rc
     if not quiet:
         print_summary(out, console)
+        if (out / "report.html").is_file():
+            console.print(f"Report: {out / 'report.html'} (figures in {out / 'figures'})",
+                          markup=False)
         console.print(f"Finished in {time.perf_counter() - start:.1f} s.")
     return 0
 
@@ -96,10 +104,62 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return _run(spec_path, out, args.cores, args.profile, args.quiet)
 
 
+def cmd_pool(args: argparse.Namespace) -> int:
+    from .jobs import pool_job
+    from .pooled import POOLED_TABLES
+
+    out = Path(args.out) / "tables"
+    pool_job([Path(b) for b in args.bundles], out)
+    console = _console(args.quiet)
+    console.print(f"Pooled {len(args.bundles)} bundle(s): "
+                  + ", ".join(str(out / f"{t}.parquet") for t in POOLED_TABLES), markup=False)
+    return 0
+
+
+def cmd_compare(args: argparse.Namespace) -> int:
+    from rich.table import Table
+
+    from .jobs import compare_folders
+    from .provenance import provenance
+    from .tables import write_table
+
+    changes = compare_folders(args.old, args.new, args.tolerance)
+    out = Path(args.out) if args.out else Path(args.new) / "comparison.parquet"
+    write_table(changes, out, provenance([], "", 0, "comparison", ""))
+    console = _console(args.quiet)
+    if changes.empty:
+        console.print(f"No differences beyond {args.tolerance:g} between {args.old} and "
+                      f"{args.new}.")
+        return 0
+    t = Table(title=f"What changed from {args.old} to {args.new}", title_justify="left")
+    for col in ("change", "cohort", "analysis", "table", "item", "old", "new"):
+        t.add_column(col)
+    for _, r in changes.head(args.max_rows).iterrows():
+        t.add_row(*(str(r[c]) for c in ("change", "cohort", "analysis", "table", "item", "old",
+                                         "new")))
+    console.print(t)
+    affected = changes.drop_duplicates(["cohort", "analysis"])
+    console.print(f"{len(changes)} change(s) in {len(affected)} cohort/analysis pair(s); "
+                  f"full table: {out}", markup=False)
+    return 0
+
+
 def cmd_summary(args: argparse.Namespace) -> int:
     from .summary import print_summary
 
     print_summary(Path(args.out), _console())
+    return 0
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from .report import build_report, find_spec
+
+    out = Path(args.out)
+    console = _console(args.quiet)
+    with console.status("drawing the figures and writing the report", spinner="line"):
+        rep = build_report(out, find_spec(out, args.spec))
+    console.print(f"Report: {rep.path} ({len(rep.figures)} figures in {out / 'figures'})",
+                  markup=False)
     return 0
 
 
@@ -134,9 +194,33 @@ def build_parser() -> argparse.ArgumentParser:
     run_options(sp)
     sp.set_defaults(func=cmd_demo)
 
+    sp = sub.add_parser("pool", help="pool cohort bundles (folders under <out>/bundles/)")
+    sp.add_argument("bundles", nargs="+", help="bundle folders, one per cohort")
+    sp.add_argument("--out", required=True, help="output folder (tables go to OUT/tables/)")
+    sp.add_argument("--quiet", action="store_true")
+    sp.set_defaults(func=cmd_pool)
+
+    sp = sub.add_parser("compare", help="what changed between two result folders")
+    sp.add_argument("old")
+    sp.add_argument("new")
+    sp.add_argument("--tolerance", type=float, default=1e-8,
+                    help="absolute change below which an estimate counts as unchanged "
+                         "(model scale: log ratio, mean difference; default 1e-8)")
+    sp.add_argument("--out", help="parquet file for the full table (default NEW/comparison.parquet)")
+    sp.add_argument("--max-rows", type=int, default=40, help="rows shown on screen")
+    sp.add_argument("--quiet", action="store_true")
+    sp.set_defaults(func=cmd_compare)
+
     sp = sub.add_parser("summary", help="print the summary of a finished run")
     sp.add_argument("out")
     sp.set_defaults(func=cmd_summary)
+
+    sp = sub.add_parser("report", help="draw the figures and rebuild OUT/report.html")
+    sp.add_argument("out", help="output folder of a finished run")
+    sp.add_argument("--spec", default=None,
+                    help="the run's spec (default: OUT/spec.yaml, as `unbin demo` writes it)")
+    sp.add_argument("--quiet", action="store_true", help="print nothing")
+    sp.set_defaults(func=cmd_report)
     return p
 
 
@@ -147,6 +231,12 @@ def main(argv: list[str] | None = None) -> int:
     except UnbinError as exc:
         _console().print(f"[red]unbin:[/red] {exc}", markup=True)
         return 2
+    except KeyboardInterrupt:
+        # Snakemake has stopped its jobs and marked their outputs incomplete; tables are written
+        # atomically, so what exists is complete and the next run redoes only the rest.
+        _console().print("[red]Interrupted.[/red] Finished jobs are kept; run the same command "
+                         "again to finish the rest.")
+        return 130
 
 
 if __name__ == "__main__":

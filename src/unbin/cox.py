@@ -131,14 +131,21 @@ class _Layout:
 
     order: np.ndarray  # rows of the input at risk at some event time, by (stratum, time)
     w: np.ndarray  # weights of kept rows (sorted)
+    unit_w: bool  # no weights given (all ones)
     we: np.ndarray  # weight * event of kept rows
     ev: np.ndarray  # positions (in kept rows) of events, grouped by event time
-    g: np.ndarray  # event-time index k of each event in ``ev``
-    lfrac: np.ndarray  # l / d_k for each event (Efron), l = 0 .. d_k - 1
+    we_ev: np.ndarray  # weights of those events
     wavg: np.ndarray  # (K,) mean weight of the events tied at t_k
     wsum: np.ndarray  # (K,) summed weight of the events at t_k
+    wsum_untied: np.ndarray  # (K,) wsum, with 0 at the event times holding tied events
     risk_op: sparse.csr_matrix  # (K, m): +1 at b_i, -1 at a_i (entered after t_k)
-    tie_op: sparse.csr_matrix  # (K, m): 1 for the events at t_k
+    plain_op: bool  # risk_op is one +1 per row in row order (no delayed entry)
+    tie_k: np.ndarray  # (T,) the event times holding more than one event
+    tie_ev: np.ndarray  # positions (in kept rows) of the events at those times, grouped
+    tie_grp: np.ndarray  # index into tie_k of each event in tie_ev
+    tie_f: np.ndarray  # l / d_k for each event in tie_ev (Efron), l = 0 .. d_k - 1
+    tie_wavg: np.ndarray  # wavg of the event time of each event in tie_ev
+    tie_op: sparse.csr_matrix  # (T, m): 1 for the events at tie_k
     b_idx: np.ndarray  # b_i + 1 (index into a zero-padded cumulative array)
     a_idx: np.ndarray  # a_i + 1 if entered after the stratum's first event time, else 0
     seg_end: np.ndarray  # (K,) one past the last event-time index of t_k's stratum
@@ -149,10 +156,19 @@ class _Layout:
     k_time: np.ndarray  # (K,) the event time t_k
     labels: np.ndarray  # stratum labels (index = code)
     n_strata: int
-    ties: bool  # some event time has more than one event
     late_entry: bool  # some row enters after the first event time of its stratum
     n: int
     events: int
+    # the kept rows' own values, sorted (to lay out a subsample without checking it again)
+    time_s: np.ndarray
+    event_s: np.ndarray
+    entry_s: np.ndarray | None
+    code_s: np.ndarray | None  # stratum codes (None without strata)
+
+    @property
+    def ties(self) -> bool:
+        """Some event time has more than one event."""
+        return self.tie_k.size > 0
 
 
 def _prepare(
@@ -166,9 +182,7 @@ def _prepare(
     t = _as_1d("time", time, n)
     _check_finite("time", t)
     e = _event_array(event, n)
-    if weights is None:
-        w = np.ones(n)
-    else:
+    if weights is not None:
         w = _as_1d("weights", weights, n)
         _check_finite("weights", w)
         if (w <= 0).any():
@@ -187,8 +201,8 @@ def _prepare(
                 f"have time <= entry, e.g. row {first} with entry={float(en[first])}, "
                 f"time={float(t[first])}"
             )
+    scode: np.ndarray | None = None
     if strata is None:
-        scode = np.zeros(n, dtype=np.int64)
         labels = np.array([0])
     else:
         s_arr = np.asarray(strata)
@@ -203,28 +217,38 @@ def _prepare(
     # sort once: by stratum, then time (a quicksort on time, then a stable pass on the codes)
     order = np.argsort(t)
     n_strata = int(labels.size)
-    if n_strata > 1:
+    if scode is not None and n_strata > 1:
         codes_small = scode.astype(np.uint16) if n_strata < 2**16 else scode
         order = order[np.argsort(codes_small[order], kind="stable")]
-    t_s, e_s, sc_s = t[order], e[order], scode[order]
+    t_s, e_s = t[order], e[order]
+    sc_s = None if scode is None else scode[order]
     # runs of rows sharing (stratum, time); the runs holding an event are the event times k
-    new_run = np.ones(n, dtype=bool)
-    new_run[1:] = (t_s[1:] != t_s[:-1]) | (sc_s[1:] != sc_s[:-1])
+    new_run = np.empty(n, dtype=bool)
+    new_run[:1] = True
+    np.not_equal(t_s[1:], t_s[:-1], out=new_run[1:])
+    if sc_s is not None and n_strata > 1:
+        new_run[1:] |= sc_s[1:] != sc_s[:-1]
     run_id = np.cumsum(new_run) - 1
     run_first = np.flatnonzero(new_run)
     run_event = np.bincount(run_id[e_s], minlength=run_first.size) > 0
     run_k = np.cumsum(run_event) - 1  # last event time at or before each run
     b = run_k[run_id]  # a row is at risk at event times (a, b]
     k_first = run_first[run_event]
-    k_time, k_stratum = t_s[k_first], sc_s[k_first]
+    k_time = t_s[k_first]
+    k_stratum = np.zeros(k_first.size, dtype=np.int64) if sc_s is None else sc_s[k_first]
     K = int(k_first.size)
 
-    new_stratum = np.ones(n, dtype=bool)
-    new_stratum[1:] = sc_s[1:] != sc_s[:-1]
-    s_first = np.flatnonzero(new_stratum)
+    if sc_s is None or n_strata == 1:
+        s_first = np.zeros(min(n, 1), dtype=np.int64)
+    else:
+        s_first = np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
     s_runs = run_id[s_first]
     lo_stratum = run_k[s_runs] + 1 - run_event[s_runs]  # first event time of each stratum
-    lo = np.repeat(lo_stratum, np.diff(np.r_[s_first, n]))
+    if s_first.size <= 1:
+        lo = np.full(n, lo_stratum[0] if n else 0, dtype=np.int64)
+    else:
+        lo = np.repeat(lo_stratum, np.diff(np.r_[s_first, n]))
+    en_s = None
     if entry is None:
         a = lo - 1
     else:
@@ -232,6 +256,7 @@ def _prepare(
         if n_strata == 1:
             a = np.searchsorted(k_time, en_s, side="right") - 1
         else:
+            assert sc_s is not None
             values = np.unique(k_time)
             span = np.int64(values.size + 1)
             k_key = k_stratum * span + np.searchsorted(values, k_time) + 1
@@ -240,17 +265,32 @@ def _prepare(
     keep = b > a  # at risk at one event time at least
     if not keep.all():
         kept = np.flatnonzero(keep)
-        order, b, a, lo, e_s, sc_s = order[kept], b[kept], a[kept], lo[kept], e_s[kept], sc_s[kept]
+        order, b, a, lo, e_s, t_s = order[kept], b[kept], a[kept], lo[kept], e_s[kept], t_s[kept]
+        sc_s = None if sc_s is None else sc_s[kept]
+        en_s = None if en_s is None else en_s[kept]
     m = order.size
-    w_s = w[order]
+    w_s = np.ones(m) if weights is None else w[order]
 
     ev = np.flatnonzero(e_s)
     g = b[ev]
     d = np.bincount(g, minlength=K)
-    first_of_group = np.cumsum(d) - d
-    lfrac = (np.arange(ev.size) - first_of_group[g]) / d[g]
-    wsum = np.bincount(g, weights=w_s[ev], minlength=K)
+    we_ev = w_s[ev]
+    wsum = np.bincount(g, weights=we_ev, minlength=K) if weights is not None else d.astype(float)
     wavg = wsum / np.maximum(d, 1)
+
+    # Efron's terms differ from Breslow's only at the event times with tied events
+    tied = d > 1
+    tie_k = np.flatnonzero(tied)
+    in_tied = tied[g]
+    tie_ev, tie_g = ev[in_tied], g[in_tied]
+    tie_grp = (np.cumsum(tied) - 1)[tie_g]
+    tie_d = d[tie_k]
+    tie_first = np.cumsum(tie_d) - tie_d
+    tie_f = (np.arange(tie_ev.size) - tie_first[tie_grp]) / tie_d[tie_grp]
+    # events are sorted by event time, so the tie operator's rows are runs of events
+    tie_op = sparse.csr_matrix(
+        (np.ones(tie_ev.size), tie_ev, np.r_[0, np.cumsum(tie_d)]), shape=(tie_k.size, m)
+    )
 
     entered_late = a >= lo
     n_late = int(entered_late.sum())
@@ -262,32 +302,41 @@ def _prepare(
         cols = np.concatenate([np.arange(m), np.flatnonzero(entered_late)])
         vals = np.concatenate([np.ones(m), -np.ones(n_late)])
         risk_op = sparse.csr_matrix((vals, (rows, cols)), shape=(K, m))
-    # events are sorted by event time, so the tie operator's rows are runs of events
-    tie_indptr = np.r_[0, np.cumsum(d)]
-    tie_op = sparse.csr_matrix((np.ones(ev.size), ev, tie_indptr), shape=(K, m))
 
-    k_new = np.ones(K, dtype=bool)
-    k_new[1:] = k_stratum[1:] != k_stratum[:-1]
-    k_bounds = np.flatnonzero(k_new)
-    k_sizes = np.diff(np.r_[k_bounds, K])
-    seg_start = np.repeat(k_bounds, k_sizes)
-    seg_end = np.repeat(np.r_[k_bounds[1:], K], k_sizes)
-
-    if m:
-        starts = np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
+    if n_strata == 1:
+        seg_start, seg_end = np.zeros(K, dtype=np.int64), np.full(K, K, dtype=np.int64)
     else:
+        k_new = np.ones(K, dtype=bool)
+        k_new[1:] = k_stratum[1:] != k_stratum[:-1]
+        k_bounds = np.flatnonzero(k_new)
+        k_sizes = np.diff(np.r_[k_bounds, K])
+        seg_start = np.repeat(k_bounds, k_sizes)
+        seg_end = np.repeat(np.r_[k_bounds[1:], K], k_sizes)
+
+    if m == 0:
         starts = np.zeros(0, dtype=np.int64)
+    elif sc_s is None or n_strata == 1:
+        starts = np.zeros(1, dtype=np.int64)
+    else:
+        starts = np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
     counts = np.diff(np.r_[starts, m])
     return _Layout(
         order=order,
         w=w_s,
+        unit_w=weights is None,
         we=w_s * e_s,
         ev=ev,
-        g=g,
-        lfrac=lfrac,
+        we_ev=we_ev,
         wavg=wavg,
         wsum=wsum,
+        wsum_untied=np.where(tied, 0.0, wsum),
         risk_op=risk_op,
+        plain_op=n_late == 0,
+        tie_k=tie_k,
+        tie_ev=tie_ev,
+        tie_grp=tie_grp,
+        tie_f=tie_f,
+        tie_wavg=wavg[tie_g],
         tie_op=tie_op,
         b_idx=b + 1,
         a_idx=np.where(entered_late, a + 1, 0),
@@ -299,114 +348,165 @@ def _prepare(
         k_time=k_time,
         labels=labels,
         n_strata=n_strata,
-        ties=bool((d > 1).any()),
         late_entry=n_late > 0,
         n=n,
         events=int(e.sum()),
+        time_s=t_s,
+        event_s=e_s,
+        entry_s=en_s,
+        code_s=sc_s,
     )
 
 
 # ------------------------------------------------------------------- sums over event times
 
 
-def _scaled(op: sparse.csr_matrix, r: np.ndarray) -> sparse.csr_matrix:
+def _scaled(L: _Layout, op: sparse.csr_matrix, r: np.ndarray) -> sparse.csr_matrix:
     """``op @ diag(r)``: the operator's values times r of their rows (columns of op)."""
-    return sparse.csr_matrix((op.data * r[op.indices], op.indices, op.indptr), shape=op.shape)
+    data = r if op is L.risk_op and L.plain_op else op.data * r[op.indices]
+    return sparse.csr_matrix((data, op.indices, op.indptr), shape=op.shape)
 
 
 def _risk_sums(L: _Layout, contrib: np.ndarray) -> np.ndarray:
     """Risk-set sums per event time from per-event-time contributions.
 
-    ``contrib`` is (q, K): for each event time, the summed values of the rows whose last event
+    ``contrib`` is (K, q): for each event time, the summed values of the rows whose last event
     time at risk it is, minus those of the rows that entered just after it. Returns (q, K): the
     reverse cumulative sum over event times, restarted at every stratum.
     """
-    z = contrib
+    K, q = contrib.shape
     if L.n_strata == 1:
-        out = np.empty_like(z)
-        np.cumsum(z[:, ::-1], axis=1, out=out[:, ::-1])  # ``out`` stays C-contiguous
+        out = np.empty((q, K))
+        for j in range(q):  # one 1-D pass per column: faster than a 2-D cumsum here
+            np.cumsum(contrib[::-1, j], out=out[j, ::-1])
         return out
     # restarted per stratum by subtracting the later strata's total; in extended precision so
     # that those totals do not swamp a stratum's small late risk sets
-    rev = np.zeros((z.shape[0], z.shape[1] + 1), dtype=np.longdouble)
-    rev[:, :-1] = np.cumsum(z[:, ::-1].astype(np.longdouble), axis=1)[:, ::-1]
+    rev = np.zeros((q, K + 1), dtype=np.longdouble)
+    rev[:, :-1] = np.cumsum(contrib[::-1].T.astype(np.longdouble), axis=1)[:, ::-1]
     return np.asarray(rev[:, :-1] - rev[:, L.seg_end], dtype=float)
 
 
 def _forward_cum(L: _Layout, c: np.ndarray) -> np.ndarray:
     """Cumulative sum of ``c`` over event times within each stratum, zero-padded in front."""
+    out = np.zeros(c.size + 1)
     if L.n_strata == 1:
-        return np.concatenate([[0.0], np.cumsum(c)])
+        np.cumsum(c, out=out[1:])
+        return out
     cum = np.concatenate([[0.0], np.cumsum(c.astype(np.longdouble))])
-    within = cum[1:] - cum[L.seg_start]
-    return np.concatenate([[0.0], np.asarray(within, dtype=float)])
+    out[1:] = cum[1:] - cum[L.seg_start]
+    return out
 
 
 def _shifted_eta(L: _Layout, eta: np.ndarray) -> np.ndarray:
+    """``eta`` less its maximum within each stratum (in place)."""
     if eta.size == 0:
         return eta
     if L.row_starts.size <= 1:
-        return eta - eta.max()
+        eta -= eta.max()
+        return eta
     top = np.maximum.reduceat(eta, L.row_starts)
-    return eta - np.repeat(top, L.row_counts)
+    eta -= np.repeat(top, L.row_counts)
+    return eta
+
+
+_BLOCK = 8192  # rows per block of the weighted cross-products (stays in cache)
+
+
+@dataclass(frozen=True)
+class _Design:
+    """The kept rows' covariates, sorted and standardised, with a leading column of ones."""
+
+    X1: np.ndarray  # (m, 1 + p), C-contiguous
+    xwe: np.ndarray  # (p,) sum over events of w x: the part of the score that never changes
+    buf: np.ndarray  # (min(m, _BLOCK), 1 + p) scratch
+
+    @classmethod
+    def of(cls, X1: np.ndarray, we: np.ndarray) -> _Design:
+        buf = np.empty((min(X1.shape[0], _BLOCK), X1.shape[1]))
+        return cls(X1, X1[:, 1:].T @ we, buf)
+
+
+def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
+    """``X1' diag(v) X1``, in blocks of rows that stay in cache."""
+    X1, buf = D.X1, D.buf
+    q = X1.shape[1]
+    out = np.zeros((q, q))
+    for start in range(0, X1.shape[0], _BLOCK):
+        block = X1[start : start + _BLOCK]
+        scaled = buf[: block.shape[0]]
+        np.multiply(block, v[start : start + _BLOCK, None], out=scaled)
+        out += block.T @ scaled
+    return out
 
 
 def _evaluate(
-    L: _Layout, Xs: np.ndarray, beta: np.ndarray, efron: bool, work: np.ndarray | None = None
+    L: _Layout, D: _Design, beta: np.ndarray, efron: bool, derivs: bool = True
 ) -> tuple[float, np.ndarray, np.ndarray]:
     """Log partial likelihood, score and observed information at ``beta``.
 
-    ``Xs`` is the (m, p) C-contiguous array of standardised covariates of the kept rows;
-    ``work`` an (m, p) scratch array reused between calls. Without ``work`` only the log
-    partial likelihood is computed.
+    With ``derivs=False`` only the log partial likelihood is computed (score and information
+    are zeros).
     """
-    p = Xs.shape[1]
+    X1 = D.X1
+    p = X1.shape[1] - 1
+    eta: np.ndarray | None = None
     if p and beta.any():
-        eta = _shifted_eta(L, Xs @ beta)
+        eta = _shifted_eta(L, X1[:, 1:] @ beta)
         with np.errstate(over="ignore", under="ignore"):
-            r = L.w * np.exp(eta)
+            r = np.exp(eta)
+        if not L.unit_w:
+            r *= L.w
     else:
-        eta, r = np.zeros(Xs.shape[0]), L.w
-    K = L.wavg.size
-    g, lfrac = L.g, L.lfrac
+        r = L.w
     efron_terms = efron and L.ties
-    derivs = work is not None and p > 0
-    # (1 + p, K): risk-set sums of r and of r x at each event time
-    contrib = np.empty((1 + p if derivs else 1, K))
-    contrib[0] = L.risk_op @ r
+    derivs = derivs and p > 0
+    # risk-set sums of r (row 0) and of r x (rows 1..p) at each event time
     if derivs:
-        contrib[1:] = (_scaled(L.risk_op, r) @ Xs).T
-    sums = _risk_sums(L, contrib)
+        sums = _risk_sums(L, _scaled(L, L.risk_op, r) @ X1)
+    else:
+        sums = _risk_sums(L, np.asarray(L.risk_op @ r)[:, None])
     s0 = sums[0]
+    loglik = float(L.we_ev @ eta[L.ev]) if eta is not None else 0.0
     with np.errstate(divide="ignore", invalid="ignore"):
-        if efron_terms:  # one term per event: denominators S0 - (l/d) T0
-            t0 = L.tie_op @ r
-            den = s0[g] - lfrac * t0[g]
-            loglik = float(L.we[L.ev] @ eta[L.ev] - L.wavg[g] @ np.log(den))
+        log_s0 = np.log(s0)
+        if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
+            tied_sums = _scaled(L, L.tie_op, r) @ X1 if derivs else L.tie_op @ r
+            t0 = tied_sums[:, 0] if derivs else tied_sums
+            den = s0[L.tie_k][L.tie_grp] - L.tie_f * t0[L.tie_grp]
+            loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
         else:  # Breslow, or no tied events: one term per event time
-            loglik = float(L.we[L.ev] @ eta[L.ev] - L.wsum @ np.log(s0))
+            loglik -= float(L.wsum @ log_s0)
     if not derivs or not np.isfinite(loglik):
         return loglik, np.zeros(p), np.zeros((p, p))
-    assert work is not None
+    T = L.tie_k.size
+    # sum_k c_k sum_{i in R_k} r_i x_i x_i' = X' diag(v) X with v_i = r_i sum_{k: i in R_k} c_k;
+    # the risk-set means enter as sum_k a_k S1_k S1_k' (and, for tied events, one per event)
     if efron_terms:
+        c = L.wsum_untied / s0
+        a = L.wsum_untied / s0**2
         inv = 1.0 / den
-        c = L.wavg * np.bincount(g, weights=inv, minlength=K)
-        t1 = np.asarray(_scaled(L.tie_op, r) @ Xs).T
-        mean = (sums[1:, g] - lfrac * t1[:, g]) * inv  # (p, events): risk-set means
-        mean_w = L.wavg[g]
+        c[L.tie_k] = np.bincount(L.tie_grp, weights=L.tie_wavg * inv, minlength=T)
+        bk = np.bincount(L.tie_grp, weights=L.tie_wavg * L.tie_f * inv, minlength=T)
     else:
         c = L.wsum / s0
-        mean = sums[1:]  # (p, K): risk-set sums; the means are sums / s0
-        mean_w = L.wsum / s0**2
-    # sum_k c_k sum_{i in R_k} r_i x_i x_i' = X' diag(v) X with v_i = r_i sum_{k: i in R_k} c_k
+        a = c / s0
     cum = _forward_cum(L, c)
     v = r * (cum[L.b_idx] - cum[L.a_idx]) if L.late_entry else r * cum[L.b_idx]
     if efron_terms:
-        bk = L.wavg * np.bincount(g, weights=lfrac * inv, minlength=K)
-        v[L.ev] -= r[L.ev] * bk[g]
-    score = Xs.T @ (L.we - v)
-    np.multiply(Xs, v[:, None], out=work)
-    info = Xs.T @ work - (mean * mean_w) @ mean.T
+        v[L.tie_ev] -= r[L.tie_ev] * bk[L.tie_grp]
+    gram = _weighted_gram(D, v)
+    score = D.xwe - gram[1:, 0]
+    S1 = sums[1:]
+    if efron_terms:
+        # each tied event's risk-set mean (S1 - (l/d) T1) / den, times sqrt(wavg)
+        tk = L.tie_k[L.tie_grp]
+        mean = S1[:, tk] - L.tie_f * tied_sums[L.tie_grp, 1:].T
+        mean *= inv * np.sqrt(L.tie_wavg)
+    S1 *= np.sqrt(a)
+    info = gram[1:, 1:] - S1 @ S1.T
+    if efron_terms:
+        info -= mean @ mean.T
     info = (info + info.T) / 2.0
     return loglik, score, info
 
@@ -448,6 +548,105 @@ def _solve(info: np.ndarray, score: np.ndarray) -> np.ndarray | None:
     return step if np.isfinite(step).all() else None
 
 
+@dataclass
+class _Iterate:
+    """Where Newton's method stopped: ``status`` is converged, singular, max_iter or halving."""
+
+    beta: np.ndarray
+    loglik: float
+    score: np.ndarray
+    info: np.ndarray
+    iterations: int
+    status: str
+    last_change: float
+
+
+def _newton(
+    L: _Layout, D: _Design, efron: bool, start: _Iterate, max_iter: int, tol: float
+) -> _Iterate:
+    """Newton steps with step halving from ``start`` (score and information evaluated there)
+    until the log partial likelihood changes by at most ``tol * max(1, |loglik|)``."""
+    beta, ll, score, info = start.beta, start.loglik, start.score, start.info
+    iterations = 0
+    last_change = float("nan")
+    while True:
+        step = _solve(info, score)
+        if step is None:
+            return _Iterate(beta, ll, score, info, iterations, "singular", last_change)
+        if iterations >= max_iter:
+            return _Iterate(beta, ll, score, info, iterations, "max_iter", last_change)
+        iterations += 1
+        halving = 0
+        while True:
+            cand = beta + step
+            ll_c, score_c, info_c = _evaluate(L, D, cand, efron)
+            if np.isfinite(ll_c) and ll_c >= ll - 1e-12 * max(1.0, abs(ll)):
+                break
+            halving += 1
+            step = step / 2.0
+            if halving > 40:
+                return _Iterate(beta, ll, score, info, iterations, "halving", last_change)
+        last_change = ll_c - ll
+        beta, ll, score, info = cand, ll_c, score_c, info_c
+        if abs(last_change) <= tol * max(1.0, abs(ll)):
+            return _Iterate(beta, ll, score, info, iterations, "converged", last_change)
+
+
+# Starting values for large data: Newton's method from zero needs several steps before it
+# reaches the region where it converges quadratically. Those steps are taken on a systematic
+# subsample (every ``stride``-th row in time order, about _WARM_EVENTS events); the full data
+# then need only the last few steps. The estimate is still the full data's maximum.
+_WARM_EVENTS = 10_000
+_WARM_MIN_STRIDE = 4
+
+
+def _warm_start(L: _Layout, D: _Design, efron: bool) -> np.ndarray | None:
+    """Standardised coefficients fitted on a subsample, or None (too small, or no fit)."""
+    stride = L.events // _WARM_EVENTS
+    if stride < _WARM_MIN_STRIDE:
+        return None
+    pos = np.arange(0, L.order.size, stride)
+    sub = _prepare(
+        pos.size,
+        L.time_s[pos],
+        L.event_s[pos],
+        None if L.entry_s is None else L.entry_s[pos],
+        None if L.code_s is None else L.code_s[pos],
+        None if L.unit_w else L.w[pos],
+    )
+    if sub.events == 0:
+        return None
+    Dsub = _Design.of(D.X1[pos[sub.order]], sub.we)
+    zero = np.zeros(D.X1.shape[1] - 1)
+    ll, score, info = _evaluate(sub, Dsub, zero, efron)
+    fit = _newton(sub, Dsub, efron, _Iterate(zero, ll, score, info, 0, "", ll), 30, 1e-6)
+    ok = fit.status == "converged" and np.isfinite(fit.beta).all()
+    return fit.beta if ok else None
+
+
+def _standardised(Xa: np.ndarray, L: _Layout) -> tuple[_Design, np.ndarray, np.ndarray]:
+    """The kept rows of X, sorted, centred and scaled, behind a column of ones; and the
+    column means and standard deviations (0 for a constant column)."""
+    m, p = L.order.size, Xa.shape[1]
+    X1 = np.empty((m, 1 + p))
+    X1[:, 0] = 1.0
+    if m == 0:
+        return _Design.of(X1, L.we), np.zeros(p), np.zeros(p)
+    if Xa.flags.f_contiguous and not Xa.flags.c_contiguous:  # e.g. from a data frame
+        cols = np.empty((p, m))
+        for j in range(p):
+            np.take(Xa[:, j], L.order, out=cols[j])
+        sorted_x = cols.T
+    else:
+        sorted_x = np.take(Xa, L.order, axis=0)
+    mean = np.ones(m) @ sorted_x / m
+    sorted_x -= mean
+    sd = np.sqrt(np.einsum("ij,ij->j", sorted_x, sorted_x) / m)
+    sd[sd <= 1e-12 * np.maximum(1.0, np.abs(mean))] = 0.0  # constant up to rounding
+    np.multiply(sorted_x, 1.0 / np.where(sd > 0, sd, 1.0), out=X1[:, 1:])
+    return _Design.of(X1, L.we), mean, sd
+
+
 def fit_cox(
     X: Any,
     time: Any,
@@ -469,7 +668,9 @@ def fit_cox(
     weights: optional positive case weights (the information is the model-based one, not a
     robust sandwich). ties: "efron" (default) or "breslow".
     Convergence: Newton steps with step halving until the log partial likelihood changes by
-    less than ``tol * max(1, |loglik|)``. ``init`` are starting values on the scale of X.
+    less than ``tol * max(1, |loglik|)``. ``init`` are starting values on the scale of X;
+    without them, data with many events start from a fit to a subsample (``iterations``
+    counts the steps on the full data only).
     """
     if ties not in ("efron", "breslow"):
         raise ValueError(f"ties must be 'efron' or 'breslow', got {ties!r}")
@@ -479,41 +680,38 @@ def fit_cox(
     L = _prepare(n, time, event, entry, strata, weights)
     efron = ties == "efron"
     nan_coef, nan_cov = np.full(p, np.nan), np.full((p, p), np.nan)
-
-    m = L.order.size
-    Xs = Xa[L.order]  # a copy, centred and scaled in place
-    mean = np.ones(m) @ Xs / m if m else np.zeros(p)
-    Xs -= mean
-    sd = np.sqrt(np.einsum("ij,ij->j", Xs, Xs) / m) if m else np.zeros(p)
-    sd[sd <= 1e-12 * np.maximum(1.0, np.abs(mean))] = 0.0  # constant up to rounding
-    scale = np.where(sd > 0, sd, 1.0)
-    Xs /= scale
-    work = np.empty((m, p))
-
     if L.events == 0:
         msg = "" if p == 0 else "no events: the coefficients are not estimable"
         return CoxFit(nan_coef, nan_cov, 0.0, 0.0, 0, p == 0, msg, n, 0)
 
-    ll0, score, info = _evaluate(L, Xs, np.zeros(p), efron, work if init is None else None)
+    D, _, sd = _standardised(Xa, L)
+    scale = np.where(sd > 0, sd, 1.0)
+    zero = np.zeros(p)
+    warm = None if init is not None or p == 0 else _warm_start(L, D, efron)
+    ll0, score, info = _evaluate(L, D, zero, efron, derivs=init is None and warm is None)
     if p == 0:
         return CoxFit(np.zeros(0), np.zeros((0, 0)), ll0, ll0, 0, True, "", n, L.events)
 
-    if init is None:
-        beta = np.zeros(p)
-        ll = ll0
-    else:
+    beta, ll = zero, ll0
+    if init is not None:
         init_arr = _as_1d("init", init, None)
         if init_arr.shape[0] != p:
             raise ValueError(f"init has {init_arr.shape[0]} values but X has {p} columns")
         _check_finite("init", init_arr)
         beta = init_arr * scale
-        ll, score, info = _evaluate(L, Xs, beta, efron, work)
+        ll, score, info = _evaluate(L, D, beta, efron)
         if not np.isfinite(ll):
             msg = (
                 "log partial likelihood is not finite at the starting values (init); "
                 "start from zero or from smaller values"
             )
             return CoxFit(nan_coef, nan_cov, ll, ll0, 0, False, msg, n, L.events)
+    elif warm is not None:
+        ll_w, score_w, info_w = _evaluate(L, D, warm, efron)
+        if np.isfinite(ll_w) and ll_w >= ll0:
+            beta, ll, score, info = warm, ll_w, score_w, info_w
+        else:  # the subsample misled: start from zero after all
+            ll, score, info = _evaluate(L, D, zero, efron)
 
     def back(b: np.ndarray, inf: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         try:
@@ -522,46 +720,25 @@ def fit_cox(
             return b / scale, nan_cov
         return b / scale, cov_s / np.outer(scale, scale)
 
-    iterations = 0
-    last_change = float("nan")
+    it = _newton(L, D, efron, _Iterate(beta, ll, score, info, 0, "", ll), max_iter, tol)
+    beta, ll, score, info, iterations = it.beta, it.loglik, it.score, it.info, it.iterations
     message = ""
-    converged = False
-    while True:
-        step = _solve(info, score)
-        if step is None:
-            message = _singular_message(info, sd)
-            return CoxFit(nan_coef, nan_cov, ll, ll0, iterations, False, message, n, L.events)
-        if iterations >= max_iter:
-            message = (
-                f"no convergence after {max_iter} Newton iteration(s) (last change in log "
-                f"partial likelihood {last_change:.3g}); raise max_iter, start from better "
-                "values (init), or look for a covariate with extreme values or separation"
-            )
-            break
-        iterations += 1
-        halving = 0
-        while True:
-            cand = beta + step
-            ll_c, score_c, info_c = _evaluate(L, Xs, cand, efron, work)
-            if np.isfinite(ll_c) and ll_c >= ll - 1e-12 * max(1.0, abs(ll)):
-                break
-            halving += 1
-            step = step / 2.0
-            if halving > 40:
-                break
-        if halving > 40:
-            message = (
-                "step halving could not improve the log partial likelihood "
-                f"(at {ll:.6g}); the model may be overparameterised or a covariate may have "
-                "extreme values - rescale or drop columns, or give init"
-            )
-            break
-        last_change = ll_c - ll
-        beta, ll, score, info = cand, ll_c, score_c, info_c
-        if abs(last_change) <= tol * max(1.0, abs(ll)):
-            converged = True
-            break
-
+    if it.status == "singular":
+        message = _singular_message(info, sd)
+        return CoxFit(nan_coef, nan_cov, ll, ll0, iterations, False, message, n, L.events)
+    if it.status == "max_iter":
+        message = (
+            f"no convergence after {max_iter} Newton iteration(s) (last change in log "
+            f"partial likelihood {it.last_change:.3g}); raise max_iter, start from better "
+            "values (init), or look for a covariate with extreme values or separation"
+        )
+    elif it.status == "halving":
+        message = (
+            "step halving could not improve the log partial likelihood "
+            f"(at {ll:.6g}); the model may be overparameterised or a covariate may have "
+            "extreme values - rescale or drop columns, or give init"
+        )
+    converged = it.status == "converged"
     if converged:
         # a coefficient that keeps moving although the likelihood stopped changing is going to
         # infinity (monotone likelihood), as when one group has no events
@@ -620,8 +797,8 @@ def baseline_cumhaz(
     _check_finite("coef", b)
     L = _prepare(n, time, event, entry, strata, weights)
     eta = Xa[L.order] @ b if p else np.zeros(L.order.size)
-    shifted = _shifted_eta(L, eta)
-    s0 = _risk_sums(L, np.asarray(L.risk_op @ (L.w * np.exp(shifted)))[None, :])[0]
+    shifted = _shifted_eta(L, eta.copy())
+    s0 = _risk_sums(L, np.asarray(L.risk_op @ (L.w * np.exp(shifted)))[:, None])[0]
     K = L.wsum.size
     if K == 0:
         return pd.DataFrame({"stratum": L.labels[:0], "time": np.zeros(0), "cumhaz": np.zeros(0)})

@@ -1,6 +1,10 @@
 """Curves: the partial effect of the exposure on a grid (1st–99th percentile) relative to the
 median of the legacy reference group, for every form and adjustment coding, with pointwise 95%
-intervals; and the binned distribution of the exposure for the rug, small cells suppressed."""
+intervals; and the binned distribution of the exposure for the rug, small cells suppressed.
+
+Across cohorts the grid and the reference value come from the common basis (``unbin.common``),
+so that every cohort's curve is on the same grid relative to the same value; ``in_range`` marks
+grid points inside this cohort's own 1st–99th percentile range."""
 
 from __future__ import annotations
 
@@ -11,7 +15,7 @@ from .contrasts import contrast, with_interval
 from .models import EFFECT_SCALE
 from .refit import Refit
 
-FORMS = ("legacy", "linear", "spline", "fp")
+FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
 DENSITY_BINS = 40
 
 
@@ -21,8 +25,11 @@ def grid(x: np.ndarray, points: int) -> np.ndarray:
 
 
 def curves_table(r: Refit) -> pd.DataFrame:
-    xs = grid(r.x, r.analysis.continuous.grid_points)
-    x_ref = r.reference_value
+    points = r.analysis.continuous.grid_points
+    xs = r.basis.grid(points) if r.basis is not None else grid(r.x, points)
+    x_ref = r.curve_reference
+    lo, hi = np.quantile(r.x, [0.01, 0.99])
+    in_range = (xs >= lo - 1e-12 * abs(lo)) & (xs <= hi + 1e-12 * abs(hi))
     parts = []
     for coding in ("legacy", "continuous", "none"):
         for form in FORMS:
@@ -31,7 +38,8 @@ def curves_table(r: Refit) -> pd.DataFrame:
                 continue
             est, se = contrast(f, xs, x_ref)
             parts.append(pd.DataFrame({"adjustment": coding, "form": form, "x": xs,
-                                       "x_reference": x_ref, "estimate": est, "se": se,
+                                       "x_reference": x_ref, "in_range": in_range,
+                                       "estimate": est, "se": se,
                                        "status": f.result.status}))
     if not parts:
         return pd.DataFrame()

@@ -116,8 +116,11 @@ def coerce_numeric(df: pd.DataFrame, col: str, role: str) -> pd.Series:
 
 
 def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> list[str]:
-    """Check every variable of every analysis against every cohort's extract (no fitting)."""
+    """Check every variable of every analysis against every cohort's extract (no fitting).
+
+    A problem found in several cohorts is reported once, naming the cohorts."""
     problems: list[str] = []
+    found: dict[str, list[str]] = {}  # message -> cohorts where it occurs
     for cohort in spec.cohorts:
         where = f"cohorts[{cohort.name}]"
         if not cohort.path.is_file():
@@ -130,21 +133,28 @@ def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> 
             problems.append(f"{where}.path: cannot read {cohort.path.name!r}: {exc}")
             continue
         usable: list[str] = []
-        for a in spec.analyses:
+        cspec = spec.for_cohort(cohort.name)
+        for a in cspec.analyses:
             for col, field in _column_fields(a):
                 if col not in present:
-                    problems.append(f"analyses[{a.name}].{field}: "
-                                    + missing_column_message(col, present, cohort.path)
-                                    + f" (cohort {cohort.name})")
+                    close = difflib.get_close_matches(col, present, n=1, cutoff=0.6)
+                    hint = f" Did you mean {close[0]!r}?" if close else ""
+                    msg = (f"analyses[{a.name}].{field}: column {col!r} is not in the extract."
+                           f"{hint} Its columns are: {', '.join(present[:30])}"
+                           f"{' ...' if len(present) > 30 else ''}")
+                    found.setdefault(msg, []).append(cohort.name)
                 else:
                     usable.append(col)
         cols = list(dict.fromkeys(usable))
         if not cols:
             continue
         df = frames[cohort.name] if frames else read_extract(cohort.path, cols)
-        for a in spec.analyses:
-            problems += [f"analyses[{a.name}] (cohort {cohort.name}): {p}"
-                         for p in _type_problems(a, df, spec)]
+        for a in cspec.analyses:
+            for p in _type_problems(a, df, cspec):
+                found.setdefault(f"analyses[{a.name}]: {p}", []).append(cohort.name)
+    for msg, cohorts in found.items():
+        label = "cohort" if len(cohorts) == 1 else "cohorts"
+        problems.append(f"{msg} ({label} {', '.join(cohorts)})")
     return list(dict.fromkeys(problems))
 
 
@@ -184,8 +194,9 @@ def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
         if role == "outcome.event":
             vals = set(np.unique(s.dropna()))
             if not vals <= {0.0, 1.0}:
+                shown = ", ".join(f"{float(v):g}" for v in sorted(vals)[:6])
                 problems.append(f"column {col!r} (outcome.event) must be coded 0/1; found values "
-                                f"{sorted(vals)[:6]}; recode it (1 = event).")
+                                f"{shown}{' ...' if len(vals) > 6 else ''}; recode it (1 = event).")
         if role == "outcome.count" and ((s.dropna() < 0).any() or (s.dropna() % 1 != 0).any()):
             problems.append(f"column {col!r} (outcome.count) must hold non-negative whole counts.")
         if role == "exposure" and s.dropna().nunique() < 2:

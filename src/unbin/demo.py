@@ -1,7 +1,10 @@
-"""An invented scenario: the (fictional) Lindenfeld Regional Health Registry.
+"""An invented scenario: the (fictional) Lindenfeld Regional Health Registry and two partner
+cohorts (Marrowby, Eastholm) of an invented consortium.
 
-Several thousand simulated patients, each exposure with a known true shape, so that the demo's
-results can be checked against the truth it was built with:
+Several thousand simulated patients per cohort, each exposure with a known true shape shared by
+every cohort (the cohorts differ in who they recruited: the exposures' distributions shift), so
+that the demo's results — per cohort and pooled — can be checked against the truth it was built
+with:
 
 - ``readmission_sodium`` (binary): 30-day readmission is U-shaped in serum sodium (lowest risk at
   140 mmol/L); the legacy analysis used three clinical groups (<135, 135-<145, >=145).
@@ -19,6 +22,7 @@ every run.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -47,17 +51,50 @@ TRUE_VISITS_PER_BMI = 0.04  # log rate ratio per kg/m2
 TRUE_SBP_PER_URATE = 2.0  # mmHg per mg/dL
 
 
-def simulate_registry(n: int = DEMO_ROWS, seed: int = DEMO_SEED) -> pd.DataFrame:
+@dataclass(frozen=True)
+class CohortProfile:
+    """How one invented cohort's population differs: the exposures' distributions shift, the
+    true curves stay the same."""
+
+    name: str
+    n: int
+    seed: int
+    age_mean: float = 63.0
+    bmi_median: float = 27.0
+    sodium_mean: float = 139.5
+    sodium_sd: float = 4.0
+    egfr_shift: float = 0.0
+    urate_shift: float = 0.0
+    urate_cut: float = 7.1  # the cut this cohort's own legacy paper used (chosen from its data)
+
+
+COHORTS = (
+    CohortProfile("lindenfeld", DEMO_ROWS, DEMO_SEED),
+    CohortProfile("marrowby", 4000, DEMO_SEED + 1, age_mean=68.0, bmi_median=28.5,
+                  sodium_mean=138.0, sodium_sd=4.6, egfr_shift=-6.0, urate_shift=0.5,
+                  urate_cut=7.0),
+    CohortProfile("eastholm", 3000, DEMO_SEED + 2, age_mean=57.0, bmi_median=25.5,
+                  sodium_mean=140.5, sodium_sd=3.4, egfr_shift=5.0, urate_shift=-0.7,
+                  urate_cut=5.6),
+)
+
+
+def simulate_registry(n: int = DEMO_ROWS, seed: int = DEMO_SEED,
+                      profile: CohortProfile | None = None) -> pd.DataFrame:
+    p = profile or CohortProfile("lindenfeld", n, seed)
+    n, seed = p.n, p.seed
     rng = np.random.default_rng(seed)
     centre = rng.integers(1, 5, n)
-    age = np.clip(rng.normal(63, 11, n), 30, 92).round(1)
+    age = np.clip(rng.normal(p.age_mean, 11, n), 30, 92).round(1)
     sex = rng.integers(0, 2, n)
-    bmi = np.clip(rng.lognormal(np.log(27), 0.17, n), 16, 55).round(1)
+    bmi = np.clip(rng.lognormal(np.log(p.bmi_median), 0.17, n), 16, 55).round(1)
     p_diab = 1 / (1 + np.exp(-(-3.2 + 0.03 * (age - 60) + 0.12 * (bmi - 27))))
     diabetes = (rng.random(n) < p_diab).astype(int)
-    sodium = np.round(rng.normal(139.5, 4.0, n), 0)
-    egfr = np.clip(105 - 0.9 * (age - 40) + rng.normal(0, 14, n) - 6 * diabetes, 6, 140).round(0)
-    urate = np.clip(rng.normal(5.8 + 0.6 * sex + 0.05 * (bmi - 27), 1.4, n), 1.5, 13).round(1)
+    sodium = np.round(rng.normal(p.sodium_mean, p.sodium_sd, n), 0)
+    egfr = np.clip(105 + p.egfr_shift - 0.9 * (age - 40) + rng.normal(0, 14, n) - 6 * diabetes,
+                   6, 140).round(0)
+    urate = np.clip(rng.normal(5.8 + p.urate_shift + 0.6 * sex + 0.05 * (bmi - 27), 1.4, n),
+                    1.5, 13).round(1)
 
     lo = -2.3 + true_logodds_sodium(sodium) + 0.02 * (age - 63) + 0.5 * diabetes
     readmit = (rng.random(n) < 1 / (1 + np.exp(-lo))).astype(int)
@@ -93,10 +130,14 @@ def simulate_registry(n: int = DEMO_ROWS, seed: int = DEMO_SEED) -> pd.DataFrame
     return df
 
 
-def demo_spec(data_rel: str = "data/lindenfeld.parquet") -> dict[str, Any]:
+def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS) -> dict[str, Any]:
     return {
         "study": "lindenfeld-registry-demo",
-        "cohorts": [{"name": "lindenfeld", "path": data_rel}],
+        "cohorts": [{"name": c.name, "path": f"data/{c.name}.parquet",
+                     **({"groupings": {"urate": {"cuts": [c.urate_cut],
+                                                 "derived_from_data": True}}}
+                        if c.urate_cut != 7.1 else {})}
+                    for c in cohorts],
         "variables": {
             "sodium": {"label": "Serum sodium", "unit": "mmol/L"},
             "egfr": {"label": "eGFR", "unit": "mL/min/1.73m²"},
@@ -140,14 +181,21 @@ def demo_spec(data_rel: str = "data/lindenfeld.parquet") -> dict[str, Any]:
     }
 
 
-def write_demo(out: str | Path, n: int = DEMO_ROWS) -> Path:
-    """Write the demo's extract under ``out/data/`` and its spec at ``out/spec.yaml``."""
+def write_demo(out: str | Path, n: int | None = None,
+               cohorts: tuple[CohortProfile, ...] = COHORTS) -> Path:
+    """Write the demo's extracts under ``out/data/`` and its spec at ``out/spec.yaml``
+    (``n``: rows per cohort instead of the profiles' sizes, for quick tests)."""
     out = Path(out)
+    if n is not None:
+        from dataclasses import replace
+
+        cohorts = tuple(replace(c, n=n) for c in cohorts)
     (out / "data").mkdir(parents=True, exist_ok=True)
-    df = simulate_registry(n)
-    df.to_parquet(out / "data" / "lindenfeld.parquet", index=False)
+    for c in cohorts:
+        simulate_registry(profile=c).to_parquet(out / "data" / f"{c.name}.parquet", index=False)
     spec_path = out / "spec.yaml"
     spec_path.write_text(
         "# unbin demo: an invented registry (all data simulated; see unbin.demo).\n"
-        + yaml.safe_dump(demo_spec(), sort_keys=False, allow_unicode=True), encoding="utf-8")
+        + yaml.safe_dump(demo_spec(cohorts), sort_keys=False, allow_unicode=True),
+        encoding="utf-8")
     return spec_path

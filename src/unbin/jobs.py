@@ -7,25 +7,30 @@ read files; this module is where reading and writing happens.
 
 from __future__ import annotations
 
+import json
 import logging
 import traceback
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
+from .bundles import BUNDLE_TABLES, bundle_problems, coefficients_table, make_bundle
+from .common import CommonBasis, combine, sample_summary
 from .confounding import confounding_table
 from .curves import curves_table, density_table
 from .cutpoints import cutpoints_table
 from .data import _type_problems, analysis_sample, extract_rows, file_sha256, read_extract
+from .decisions import net_benefit_table, thresholds_table
 from .effects import effects_table
 from .errors import DataError, UnbinError
 from .fits import fits_table
 from .information import information_table
+from .pooled import POOLED_TABLES, pool_bundles
 from .provenance import provenance
 from .ranges import ranges_table
-from .refit import Refit, refit_analysis
+from .refit import Refit, legacy_term, refit_analysis
 from .replication import replication_table
 from .spec import Spec, digest, load_spec
 from .tables import read_table, write_table
@@ -39,10 +44,13 @@ QUESTION_TABLES: dict[str, Callable[[Refit, Spec], pd.DataFrame]] = {
     "effects": lambda r, s: effects_table(r),
     "curves": lambda r, s: curves_table(r),
     "density": lambda r, s: density_table(r, s.min_cell),
+    "coefficients": lambda r, s: coefficients_table(r),
     "ranges": ranges_table,
     "confounding": confounding_table,
     "cutpoints": cutpoints_table,
     "replication": replication_table,
+    "thresholds": thresholds_table,
+    "net_benefit": net_benefit_table,
 }
 JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "status")
 STUDY_TABLES = JOB_TABLES
@@ -61,8 +69,8 @@ def _keyed(df: pd.DataFrame, cohort: str, analysis: str) -> pd.DataFrame:
     return df
 
 
-def analyse(spec: Spec, cohort: str, analysis: str,
-            frame: pd.DataFrame) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
+def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
+            basis: CommonBasis | None = None) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
     """Every question's table for one analysis on one cohort's rows, plus its status record.
 
     Problems of this analysis (bad data, empty sample, a failing question) are recorded in the
@@ -84,9 +92,20 @@ def analyse(spec: Spec, cohort: str, analysis: str,
             + [("analysis sample", sample.n)], columns=["step", "rows"])
         status["n_used"] = sample.n
         if sample.n < 10:
-            raise DataError(f"only {sample.n} rows are left after filters and complete cases; "
-                            "check the filters and missing values (see samples.parquet).")
-        refit = refit_analysis(sample, a, spec, cohort)
+            step, lost = max(sample.dropped, key=lambda d: d[1], default=("", 0))
+            most = f" (most were dropped by '{step}': {lost} rows)" if lost else ""
+            raise DataError(f"only {sample.n} rows are left after filters, complete cases and "
+                            f"follow-up checks{most}; check the filters and missing values (see "
+                            "samples.parquet).")
+        event = a.outcome.event
+        if event is not None:
+            events = int(sample.frame[event].sum())
+            if events == 0 or (a.family == "binary" and events == sample.n):
+                raise DataError(f"no {'events' if events == 0 else 'non-events'} in the analysis "
+                                f"sample: {event!r} is {1 if events else 0} in all {sample.n} "
+                                "rows; there is no contrast to estimate. Check the outcome "
+                                "coding and the filters.")
+        refit = refit_analysis(sample, a, spec, cohort, basis)
         failed = [f"{f.form}/{f.adjustment}: {f.result.message}" for f in refit.fits
                   if not f.result.ok and f.selected]
         for name, build in QUESTION_TABLES.items():
@@ -110,12 +129,12 @@ def analyse(spec: Spec, cohort: str, analysis: str,
 
 
 def run_analysis_job(spec_path: str | Path, cohort: str, analysis: str,
-                     outdir: str | Path) -> dict[str, Any]:
-    spec = load_spec(spec_path)
+                     outdir: str | Path, basis_path: str | Path | None = None) -> dict[str, Any]:
+    spec = load_spec(spec_path).for_cohort(cohort)
     a = spec.analysis(analysis)
     rec = input_record(spec, cohort)
-    prov_base = dict(inputs=[rec], spec_digest=digest(spec.slice_for(analysis)), seed=spec.seed,
-                     study=spec.study)
+    prov_base = dict(inputs=[rec], spec_digest=digest(spec.slice_for(analysis, cohort)),
+                     seed=spec.seed, study=spec.study)
     try:
         frame = read_extract(spec.cohort(cohort).path, a.columns)
     except UnbinError as exc:
@@ -127,7 +146,10 @@ def run_analysis_job(spec_path: str | Path, cohort: str, analysis: str,
                                            "exposure": a.exposure}])}
         status = tables["status"].iloc[0].to_dict()
     else:
-        tables, status = analyse(spec, cohort, analysis, frame)
+        basis = None
+        if basis_path is not None:
+            basis = CommonBasis.from_dict(json.loads(Path(basis_path).read_text()))
+        tables, status = analyse(spec, cohort, analysis, frame, basis)
     out = Path(outdir)
     for name in JOB_TABLES:
         df = tables.get(name, pd.DataFrame())
@@ -154,3 +176,136 @@ def collect_tables(spec_path: str | Path, work: str | Path, tables_dir: str | Pa
                                 "analysis": pd.Series(dtype=str)})
         write_table(out, Path(tables_dir) / f"{name}.parquet",
                     provenance(inputs, digest(spec.raw), spec.seed, name, spec.study))
+
+
+# --------------------------------------------------------------------------- consortium mode
+
+
+def summarise_job(spec_path: str | Path, cohort: str, analysis: str, out: str | Path) -> None:
+    """A cohort's share-safe summary of one analysis' exposure (for the common basis)."""
+    spec = load_spec(spec_path).for_cohort(cohort)
+    a = spec.analysis(analysis)
+    summary: dict[str, Any] = {"cohort": cohort, "analysis": analysis, "status": "ok"}
+    try:
+        frame = read_extract(spec.cohort(cohort).path, a.columns)
+        problems = _type_problems(a, frame, spec)
+        if problems:
+            raise DataError(" ".join(problems))
+        sample = analysis_sample(frame, a, spec)
+        if sample.n < 10:
+            raise DataError(f"only {sample.n} rows in the analysis sample")
+        x = sample.frame[a.exposure].to_numpy(float)
+        summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous))
+    except UnbinError as exc:
+        summary.update(status="failed", message=str(exc))
+    Path(out).parent.mkdir(parents=True, exist_ok=True)
+    Path(out).write_text(json.dumps(summary, sort_keys=True, indent=1))
+
+
+def common_basis_job(spec_path: str | Path, analysis: str, summaries: list[str],
+                     out: str | Path) -> None:
+    spec = load_spec(spec_path)
+    a = spec.analysis(analysis)
+    usable = [d for d in (json.loads(Path(p).read_text()) for p in summaries)
+              if d["status"] == "ok"]
+    if not usable:
+        raise DataError(f"analysis {analysis!r}: no cohort could summarise its sample; see the "
+                        "summaries/ folder for each cohort's message.")
+    basis = combine(usable, a.continuous)
+    Path(out).parent.mkdir(parents=True, exist_ok=True)
+    Path(out).write_text(json.dumps(basis.to_dict(), sort_keys=True, indent=1))
+
+
+BUNDLE_SOURCES = ("fits", "curves", "effects", "coefficients", "status", "cutpoints")
+
+
+def bundle_job(spec_path: str | Path, cohort: str, work: str | Path,
+               bundle_dir: str | Path) -> None:
+    """The cohort's share-safe bundle, built from its job tables."""
+    spec = load_spec(spec_path).for_cohort(cohort)
+    tables = {}
+    for name in BUNDLE_SOURCES:
+        parts = [read_table(Path(work) / cohort / a.name / f"{name}.parquet")
+                 for a in spec.analyses]
+        parts = [p for p in parts if len(p)]
+        tables[name] = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+            columns=["cohort", "analysis", "form", "adjustment", "contrast", "events",
+                     "row_type", "n_used", "status"])
+    bundle = make_bundle(tables, spec.min_cell)
+    rec = input_record(spec, cohort)
+    grid = max(a.continuous.grid_points for a in spec.analyses)
+    problems = bundle_problems(bundle, spec.min_cell, grid)
+    if problems:
+        raise DataError("the bundle is not share-safe: " + "; ".join(problems))
+    prov = dict(inputs=[rec], spec_digest=digest({a.name: spec.slice_for(a.name, cohort)
+                                                  for a in spec.analyses}),
+                seed=spec.seed, study=spec.study)
+    for name in BUNDLE_TABLES:
+        write_table(bundle[name], Path(bundle_dir) / f"{name}.parquet",
+                    provenance(table=f"bundle:{name}", **prov))  # type: ignore[arg-type]
+
+
+def read_bundle(bundle_dir: str | Path) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
+    d = Path(bundle_dir)
+    missing = [n for n in BUNDLE_TABLES if not (d / f"{n}.parquet").is_file()]
+    if missing:
+        raise DataError(f"{str(d)!r} is not a complete unbin bundle: {missing} missing; pass the "
+                        "folders under <out>/bundles/ of a finished run.")
+    from .tables import read_provenance
+
+    return ({n: read_table(d / f"{n}.parquet") for n in BUNDLE_TABLES},
+            read_provenance(d / "curves.parquet"))
+
+
+def pool_job(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
+    """Pool cohort bundles (from one run or from separate runs) into the pooled tables."""
+    bundles, provs = {}, []
+    for d in bundle_dirs:
+        bundle, prov = read_bundle(d)
+        cohorts = bundle["counts"]["cohort"].unique() if len(bundle["counts"]) else [Path(d).name]
+        name = str(cohorts[0])
+        if name in bundles:
+            raise DataError(f"two bundles are for cohort {name!r}; pass each cohort once.")
+        bundles[name] = bundle
+        provs.append(prov)
+    pooled = pool_bundles(dict(sorted(bundles.items())))  # the same tables in any order
+    inputs = [i for p in provs for i in p.get("inputs", [])]
+    prov = dict(inputs=inputs, spec_digest=digest(sorted(p.get("spec_digest", "") for p in provs)),
+                seed=provs[0].get("seed", 0) if provs else 0,
+                study=provs[0].get("study", "") if provs else "")
+    for name in POOLED_TABLES:
+        df = pooled.get(name, pd.DataFrame())
+        if df.empty:
+            df = pd.DataFrame({"analysis": pd.Series(dtype=str)})
+        write_table(df, Path(tables_dir) / f"{name}.parquet",
+                    provenance(table=name, **prov))
+
+
+# --------------------------------------------------------------------------- versioned updates
+
+
+def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.DataFrame:
+    """What changed between two result folders (see ``unbin.compare``)."""
+    from .compare import COMPARED, compare_provenance, compare_tables
+    from .tables import read_provenance
+
+    def tables(root: Path) -> dict[str, pd.DataFrame]:
+        names = [*COMPARED, "status"]
+        return {n: read_table(root / "tables" / f"{n}.parquet") for n in names
+                if (root / "tables" / f"{n}.parquet").is_file()}
+
+    def provs(root: Path) -> dict[tuple[str, str], dict[str, Any]]:
+        out = {}
+        for p in sorted((root / "work").glob("*/*/status.parquet")):
+            out[(p.parent.parent.name, p.parent.name)] = read_provenance(p)
+        return out
+
+    o, n = Path(old), Path(new)
+    for root in (o, n):
+        if not (root / "tables" / "status.parquet").is_file():
+            raise DataError(f"{str(root)!r} is not a finished unbin result folder (no "
+                            "tables/status.parquet).")
+    changes = compare_tables(tables(o), tables(n), tolerance)
+    prov = compare_provenance(provs(o), provs(n))
+    parts = [d for d in (prov, changes) if len(d)]
+    return pd.concat(parts, ignore_index=True) if parts else changes

@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .common import CommonBasis, combine, sample_summary
 from .data import Sample, is_categorical, resolve_cuts
 from .models import Outcome, fit
 from .models.base import FitResult, failed_fit
@@ -69,6 +70,7 @@ class Refit:
     outcome: Outcome
     x: np.ndarray
     legacy: GroupedTerm
+    basis: CommonBasis | None = None
     fits: list[FormFit] = field(default_factory=list)
     messages: list[str] = field(default_factory=list)
 
@@ -87,6 +89,12 @@ class Refit:
         """The median exposure of the legacy reference group: the curves' reference point."""
         codes = self.legacy.codes(self.x)
         return float(np.median(self.x[codes == self.legacy.reference]))
+
+    @property
+    def curve_reference(self) -> float:
+        """The curves' reference value: the common basis' (shared across cohorts) when there is
+        one, else the median of the legacy reference group."""
+        return self.basis.reference if self.basis is not None else self.reference_value
 
     def group_values(self, g: int) -> np.ndarray:
         return self.x[self.legacy.codes(self.x) == g]
@@ -231,11 +239,16 @@ def select_fp(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable: str
     return rows, chosen
 
 
-def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str) -> Refit:
+def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
+                   basis: CommonBasis | None = None) -> Refit:
+    """All fits of one analysis. ``basis`` is the common basis across cohorts; without one the
+    cohort's own sample gives it (the same values as the single-cohort defaults)."""
     df = sample.frame
     x = df[a.exposure].to_numpy(float)
     legacy = legacy_term(x, a.exposure, spec)
-    r = Refit(a, cohort, sample, build_outcome(sample, a), x, legacy)
+    if basis is None:
+        basis = combine([sample_summary(x, legacy, a.continuous)], a.continuous)
+    r = Refit(a, cohort, sample, build_outcome(sample, a), x, legacy, basis)
     f = _Fitter(r, df)
     opts = a.continuous
     empty = _empty_group_message(legacy, x)
@@ -272,6 +285,11 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str) -> Refi
                 best_spline = min(ok, key=lambda c: c.result.aic)
             for c in cands:
                 r.fits.append(replace(c, selected=c is best_spline))
+            if coding != "none":
+                # The spline on the common knots: its coefficients go into the cohort bundle.
+                term = SplineTerm(a.exposure, basis.knots)
+                r.fits.append(FormFit("common_spline", coding, (term,), adjust,
+                                      f.run((term,), adjust), f"{term.describe()} (common)"))
             if best_spline is not None and not empty:
                 both = f.run((legacy, *best_spline.exposure_terms), adjust)
                 r.fits.append(FormFit("legacy+spline", coding,

@@ -3,20 +3,73 @@ between 9.x releases and ignores profiles), with progress read from its log."""
 
 from __future__ import annotations
 
+import json
 import os
 import re
 import signal
 import subprocess
 import sys
+import time
 from collections.abc import Callable
+from datetime import UTC, datetime
 from importlib import resources
 from pathlib import Path
+from typing import Any
 
 from .errors import UnbinError
 from .workflow_support import snakefile
 
 PROGRESS = re.compile(r"(\d+) of (\d+) steps \((\d+(?:\.\d+)?)%\) done")
 PROFILES = ("local", "slurm")
+
+
+class JobTracker:
+    """Follows Snakemake's log: jobs done and in total, and which jobs are running now (by
+    cohort/analysis for the fits, by what they do for the study-level steps)."""
+
+    RULE = re.compile(r"^\s*(?:local)?rule (\w+):")
+    JOBID = re.compile(r"^\s*jobid: (\d+)")
+    WILDCARDS = re.compile(r"^\s*wildcards: (.+)$")
+    FINISHED = re.compile(r"Finished jobid: (\d+)")
+    TOTAL = re.compile(r"^total\s+(\d+)\s*$")
+    LABELS = {"collect_tables": "collecting the tables",
+              "build_report": "drawing the figures and the report", "all": ""}
+
+    def __init__(self) -> None:
+        self.done = 0
+        self.total = 0
+        self.running: dict[str, str] = {}
+        self._rule = ""
+        self._job = ""
+
+    def feed(self, line: str) -> bool:
+        """Read one log line; True when what the progress shows has changed."""
+        if m := self.RULE.match(line):
+            self._rule, self._job = m.group(1), ""
+        elif (m := self.JOBID.match(line)) and self._rule:
+            self._job = m.group(1)
+            self.running[self._job] = self.LABELS.get(self._rule, self._rule)
+            return True
+        elif (m := self.WILDCARDS.match(line)) and self._job:
+            values = dict(kv.split("=", 1) for kv in m.group(1).split(", ") if "=" in kv)
+            label = "/".join(values.values())
+            if self._rule != "fit_analysis":
+                label = f"{self._rule.replace('_', ' ')} {label}"
+            self.running[self._job] = label
+            return True
+        elif m := self.FINISHED.search(line):
+            self.running.pop(m.group(1), None)
+            return True
+        elif m := PROGRESS.search(line):
+            self.done, self.total = int(m.group(1)), int(m.group(2))
+            return True
+        elif (m := self.TOTAL.match(line)) and not self.total:
+            self.total = int(m.group(1))
+            return True
+        return False
+
+    def current(self) -> str:
+        return ", ".join(v for v in self.running.values() if v)
 
 
 def profile_path(profile: str) -> Path:
@@ -46,10 +99,59 @@ def snakemake_command(spec: Path, out: Path, cores: int, profile: str | None = N
     return cmd + (extra or [])
 
 
+def run_manifest(out: Path, spec: Path, cores: int, profile: str | None, started: float,
+                 ended: float, returncode: int) -> dict[str, Any]:
+    """The run manifest (``out/run.json``): versions, the spec's digest, per-rule timings from
+    Snakemake's benchmark files, start and end times. Times live here, never in the results."""
+    from .provenance import versions
+    from .spec import digest, read_yaml
+
+    rules: dict[str, dict[str, Any]] = {}
+    for tsv in sorted((out / "benchmarks").glob("*/**/*.tsv")):
+        rule = tsv.relative_to(out / "benchmarks").parts[0]
+        with open(tsv) as fh:
+            header = fh.readline().rstrip("\n").split("\t")
+            values = fh.readline().rstrip("\n").split("\t")
+        row = dict(zip(header, values, strict=False))
+        r = rules.setdefault(rule, {"jobs": 0, "seconds_total": 0.0, "seconds_max": 0.0,
+                                    "max_rss_mb": 0.0})
+        s = float(row.get("s", "nan"))
+        rss = float(row.get("max_rss", "0") or 0) if row.get("max_rss", "-") != "-" else 0.0
+        r["jobs"] += 1
+        r["seconds_total"] = round(r["seconds_total"] + s, 3)
+        r["seconds_max"] = round(max(r["seconds_max"], s), 3)
+        r["max_rss_mb"] = round(max(r["max_rss_mb"], rss), 1)
+    stamp = lambda t: datetime.fromtimestamp(t, tz=UTC).isoformat(timespec="seconds")  # noqa: E731
+    return {
+        "spec": str(spec.resolve()),
+        "spec_digest": digest(read_yaml(spec)),
+        "versions": versions(),
+        "cores": cores,
+        "profile": profile or "none",
+        "started": stamp(started),
+        "ended": stamp(ended),
+        "seconds": round(ended - started, 2),
+        "returncode": returncode,
+        "rules": rules,
+    }
+
+
 def run_workflow(spec: Path, out: Path, cores: int = 1, profile: str | None = None,
                  extra: list[str] | None = None,
                  on_progress: Callable[[int, int, str], None] | None = None) -> int:
-    """Run the workflow; returns Snakemake's exit code. Its log goes to ``out/logs/snakemake.log``."""
+    """Run the workflow; returns Snakemake's exit code. Its log goes to ``out/logs/snakemake.log``
+    and the run manifest to ``out/run.json``."""
+    started = time.time()
+    rc = _run_snakemake(spec, out, cores, profile, extra, on_progress)
+    if not extra or "-n" not in extra:
+        manifest = run_manifest(out, spec, cores, profile, started, time.time(), rc)
+        (out / "run.json").write_text(json.dumps(manifest, indent=1, sort_keys=True) + "\n")
+    return rc
+
+
+def _run_snakemake(spec: Path, out: Path, cores: int, profile: str | None,
+                   extra: list[str] | None,
+                   on_progress: Callable[[int, int, str], None] | None) -> int:
     out.mkdir(parents=True, exist_ok=True)
     (out / "logs").mkdir(exist_ok=True)
     cmd = snakemake_command(spec, out, cores, profile, extra)
@@ -64,15 +166,11 @@ def run_workflow(spec: Path, out: Path, cores: int = 1, profile: str | None = No
             cmd, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, env=env) as proc:
         try:
             assert proc.stdout is not None
-            current = ""
+            jobs = JobTracker()
             for line in proc.stdout:
                 log.write(line)
-                m = re.search(r"wildcards: cohort=([\w-]+), analysis=([\w-]+)", line)
-                if m:
-                    current = f"{m.group(1)}/{m.group(2)}"
-                m = PROGRESS.search(line)
-                if m and on_progress:
-                    on_progress(int(m.group(1)), int(m.group(2)), current)
+                if jobs.feed(line) and on_progress:
+                    on_progress(jobs.done, jobs.total, jobs.current())
             return proc.wait()
         except KeyboardInterrupt:
             # Snakemake ignores SIGTERM while jobs run: ask with SIGINT, then kill.

@@ -10,6 +10,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
+import math
 import re
 from dataclasses import dataclass, field
 from functools import cache
@@ -128,6 +129,15 @@ class ContinuousOptions:
     adjust_knots: int = 4
     fp_alpha: float = 0.05
     grid_points: int = 100
+    grid_range: tuple[float, float] | None = None
+    reference_value: float | None = None
+    common_knots: int = 4
+
+    @property
+    def basis_fixed(self) -> bool:
+        """Knots, reference value and grid all fixed by the spec: no cohort summaries needed."""
+        return (self.knot_values is not None and self.reference_value is not None
+                and self.grid_range is not None)
 
 
 @dataclass(frozen=True)
@@ -141,6 +151,9 @@ class Analysis:
     filters: tuple[Filter, ...] = ()
     reported: Reported | None = None
     continuous: ContinuousOptions = field(default_factory=ContinuousOptions)
+    # Decision thresholds on this analysis' risk scale (probability; rate per person-time unit
+    # for count outcomes; the mean for continuous ones); None: the study's risk_thresholds.
+    risk_thresholds: tuple[float, ...] | None = None
 
     @property
     def family(self) -> str:
@@ -161,6 +174,7 @@ class Cohort:
     name: str
     path: Path
     path_as_written: str
+    groupings: dict[str, Grouping] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -203,6 +217,16 @@ class Spec:
     source: Path | None = None
     resampling: Resampling = field(default_factory=Resampling)
     cutpoint_search: CutpointSearch = field(default_factory=CutpointSearch)
+    horizon: float | None = None  # default risk horizon of survival outcomes without their own
+
+    def for_cohort(self, name: str) -> Spec:
+        """The spec as one cohort sees it: its own legacy groupings override the study's."""
+        c = self.cohort(name)
+        if not c.groupings:
+            return self
+        from dataclasses import replace
+
+        return replace(self, groupings={**self.groupings, **c.groupings})
 
     def analysis(self, name: str) -> Analysis:
         for a in self.analyses:
@@ -241,23 +265,30 @@ class Spec:
         words = [int.from_bytes(key[i:i + 4], "little") for i in range(0, 16, 4)]
         return np.random.default_rng(np.random.SeedSequence([self.seed, *words]))
 
-    def slice_for(self, analysis: str) -> dict[str, Any]:
-        """The spec entries one analysis depends on (its digest decides whether it reruns)."""
+    def slice_for(self, analysis: str, cohort: str | None = None) -> dict[str, Any]:
+        """The spec entries one analysis (on one cohort, if given) depends on; its digest decides
+        whether the analysis' jobs rerun."""
         a = self.analysis(analysis)
         raw_a = next(x for x in self.raw["analyses"] if x["name"] == analysis)
         groupings = self.raw.get("groupings", {})
         variables = self.raw.get("variables", {})
         used = set(a.columns)
+        cohort_groupings = {c["name"]: {k: v for k, v in sorted((c.get("groupings") or {}).items())
+                                        if k in used}
+                            for c in self.raw["cohorts"]
+                            if c.get("groupings") and cohort in (None, c["name"])}
         return {
             "study": self.study,
             "analysis": raw_a,
+            **({"cohort_groupings": cohort_groupings} if any(cohort_groupings.values()) else {}),
             "groupings": {k: groupings[k] for k in sorted(groupings) if k in used},
             "variables": {k: variables[k] for k in sorted(variables) if k in used},
             "continuous": self.raw.get("continuous", {}),
             "risk_thresholds": self.raw.get("risk_thresholds", []),
             "disclosure": self.raw.get("disclosure", {}),
             "seed": self.seed,
-            **{k: self.raw[k] for k in ("resampling", "cutpoint_search") if k in self.raw},
+            **{k: self.raw[k] for k in ("resampling", "cutpoint_search", "horizon")
+               if k in self.raw},
         }
 
 
@@ -287,6 +318,11 @@ def read_yaml(path: str | Path) -> dict[str, Any]:
                         "(indentation, colons, quotes).") from None
     except UnicodeDecodeError:
         raise SpecError(f"spec: {p.name} is not UTF-8 text; save it as UTF-8.") from None
+    except RecursionError:
+        raise SpecError(f"spec: {p.name} is nested too deeply to be a spec; a spec needs a "
+                        "handful of levels.") from None
+    except OSError as exc:
+        raise SpecError(f"spec: cannot read {p.name}: {exc.strerror or exc}.") from None
     if not isinstance(data, dict):
         raise SpecError(f"spec: the top level of {p.name} must be a mapping (key: value), "
                         f"got {type(data).__name__}.")
@@ -300,7 +336,35 @@ def load_spec(path: str | Path) -> Spec:
     return parse_spec(raw, base=p.parent, source=p)
 
 
+MAX_SPEC_DEPTH = 32  # a spec needs about 7 levels
+MAX_SPEC_NODES = 100_000
+
+
+def _shape_problem(raw: Any) -> str:
+    """A spec is a small tree. YAML aliases can make one that refers to itself, or expand a short
+    file into billions of values; either would hang or crash the validators that walk it."""
+    seen = 0
+    stack: list[tuple[Any, int]] = [(raw, 0)]
+    while stack:
+        node, depth = stack.pop()
+        seen += 1
+        if depth > MAX_SPEC_DEPTH:
+            return (f"spec: nested more than {MAX_SPEC_DEPTH} levels deep (a YAML alias that "
+                    "refers to itself?); write the spec out plainly.")
+        if seen > MAX_SPEC_NODES:
+            return (f"spec: more than {MAX_SPEC_NODES:,} values (YAML aliases repeated inside "
+                    "each other?); write the spec out plainly.")
+        if isinstance(node, dict):
+            stack += [(v, depth + 1) for v in node.values()]
+        elif isinstance(node, list):
+            stack += [(v, depth + 1) for v in node]
+    return ""
+
+
 def parse_spec(raw: dict[str, Any], base: Path, source: Path | None = None) -> Spec:
+    shape = _shape_problem(raw)
+    if shape:
+        raise SpecError(shape)
     problems = schema_problems(raw)
     try:
         problems += semantic_problems(raw)
@@ -351,9 +415,10 @@ def schema_problems(raw: dict[str, Any]) -> list[str]:
         where = _where(err.absolute_path)
         if err.validator == "additionalProperties":
             allowed = _allowed_keys(schema, list(err.absolute_path))
-            extras = sorted(set(err.instance) - set(allowed)) if isinstance(err.instance, dict) else []
+            extras = (sorted(set(err.instance) - set(allowed), key=str)
+                      if isinstance(err.instance, dict) else [])
             for key in extras:
-                close = difflib.get_close_matches(key, allowed, n=1, cutoff=0.6)
+                close = difflib.get_close_matches(str(key), allowed, n=1, cutoff=0.6)
                 hint = f" Did you mean {close[0]!r}?" if close else ""
                 problems.append(f"{where}: unknown key {key!r}.{hint} Allowed keys: "
                                 f"{', '.join(allowed)}.")
@@ -399,12 +464,45 @@ def default_labels(cuts: tuple[float, ...], closed: str) -> list[str]:
     return labels
 
 
+def _value_problems(node: Any, path: tuple[Any, ...] = ()) -> list[str]:
+    """What YAML reads but JSON cannot hold, so the schema does not see it: .nan and .inf as
+    numbers, and keys that are not text (unquoted numbers, dates, null, yes/no/on/off)."""
+    if isinstance(node, float) and not math.isfinite(node):
+        return [f"{_where(path)}: {node!r} is not a finite number; write a finite value."]
+    problems: list[str] = []
+    if isinstance(node, dict):
+        for k, v in node.items():
+            if not isinstance(k, str):
+                problems.append(f"{_where(path)}: the key {k!r} is not text (YAML reads unquoted "
+                                "numbers, dates, null, yes/no/on/off as values); quote it.")
+            problems += _value_problems(v, (*path, str(k)))
+    elif isinstance(node, list):
+        problems += [p for i, v in enumerate(node) for p in _value_problems(v, (*path, i))]
+    return problems
+
+
 def semantic_problems(raw: dict[str, Any]) -> list[str]:
     """Checks the schema cannot express: sorted cuts, references, required outcome fields."""
-    problems: list[str] = []
+    problems: list[str] = _value_problems(raw)
+    # The schema's identifier pattern ends in '$', which also matches before a final line break;
+    # names become folders of the output, so they must be identifiers through to the end.
+    named = [("study", raw.get("study"))]
+    named += [(f"{key}[{i}].name", item.get("name")) for key in ("cohorts", "analyses")
+              for i, item in enumerate(raw.get(key, []))]
+    for where, name in named:
+        if isinstance(name, str) and name.endswith("\n"):
+            problems.append(f"{where}: {name!r} is not a valid identifier; use letters, digits, "
+                            "'_' and '-' (starting with a letter or digit).")
     groupings = raw.get("groupings", {}) or {}
-    for var, g in groupings.items():
-        where = f"groupings.{var}"
+    sources = [(f"groupings.{var}", g) for var, g in groupings.items()]
+    for i, c in enumerate(raw.get("cohorts", [])):
+        for var, g in (c.get("groupings") or {}).items():
+            sources.append((f"cohorts[{i}].groupings.{var}", g))
+            if var not in groupings:
+                problems.append(f"cohorts[{i}].groupings.{var}: {var!r} has no study-level "
+                                f"grouping; declare groupings.{var} too (the cohorts' own cuts "
+                                "override it).")
+    for where, g in sources:
         has_cuts, has_q = "cuts" in g, "quantiles" in g
         if has_cuts == has_q:
             problems.append(f"{where}: give exactly one of 'cuts' (cut points) or 'quantiles' "
@@ -451,6 +549,11 @@ def semantic_problems(raw: dict[str, Any]) -> list[str]:
         for f_ in sorted((set(out) - allowed) & known):  # unknown keys: the schema reports them
             problems.append(f"{where}.outcome.{f_}: not used by a {kind} outcome (it takes "
                             f"{sorted(allowed - {'type'})}); remove it.")
+        for t in a.get("risk_thresholds", []):
+            if (kind in ("binary", "survival") and not 0 < t < 1) or (kind == "count" and t <= 0):
+                scale = "a probability in (0, 1)" if kind != "count" else "a rate > 0"
+                problems.append(f"{where}.risk_thresholds: {t} is not {scale} (the risk scale of a "
+                                f"{kind} outcome).")
         if a.get("strata") and kind != "survival":
             problems.append(f"{where}.strata: strata are for survival (Cox) outcomes only; put "
                             f"{a['strata']} under 'adjust' for a {kind} outcome.")
@@ -458,7 +561,9 @@ def semantic_problems(raw: dict[str, Any]) -> list[str]:
         if exp not in groupings:
             problems.append(f"{where}.exposure: {exp!r} has no entry under 'groupings'; declare "
                             f"how the legacy analysis grouped it (groupings.{exp}: {{cuts: [...]}}).")
-        involved = [exp, *a.get("adjust", []), *a.get("strata", [])] + ([a["by"]] if "by" in a else [])
+        lists = [a.get(k) for k in ("adjust", "strata")]  # not lists: the schema reports them
+        involved = ([exp, *(v for vs in lists if isinstance(vs, list) for v in vs)]
+                    + ([a["by"]] if "by" in a else []))
         for v in sorted({v for v in involved if involved.count(v) > 1}):
             problems.append(f"{where}: variable {v!r} appears more than once among exposure, "
                             "adjust, strata and by; list it once.")
@@ -517,12 +622,17 @@ def _continuous(raw: dict[str, Any], base: ContinuousOptions) -> ContinuousOptio
         adjust_knots=int(raw.get("adjust_knots", base.adjust_knots)),
         fp_alpha=float(raw.get("fp_alpha", base.fp_alpha)),
         grid_points=int(raw.get("grid_points", base.grid_points)),
+        grid_range=(tuple(float(v) for v in raw["grid_range"])  # type: ignore[arg-type]
+                    if "grid_range" in raw else base.grid_range),
+        reference_value=(float(raw["reference_value"]) if "reference_value" in raw
+                         else base.reference_value),
+        common_knots=int(raw.get("common_knots", base.common_knots)),
     )
 
 
-def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
+def _groupings(raw: dict[str, Any]) -> dict[str, Grouping]:
     groupings = {}
-    for var, g in (raw.get("groupings") or {}).items():
+    for var, g in raw.items():
         labels = _labels_for(g)
         groupings[var] = Grouping(
             variable=var,
@@ -533,6 +643,11 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
             reference=g.get("reference", labels[0] if labels else None),
             derived_from_data=bool(g.get("derived_from_data", False)),
         )
+    return groupings
+
+
+def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
+    groupings = _groupings(raw.get("groupings") or {})
     study_cont = _continuous(raw.get("continuous", {}), ContinuousOptions())
     analyses = []
     for a in raw["analyses"]:
@@ -554,8 +669,11 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
             reported=Reported(rep["contrast"], float(rep["estimate"]), rep.get("lower"),
                               rep.get("upper")) if rep else None,
             continuous=_continuous(a.get("continuous", {}), study_cont),
+            risk_thresholds=(tuple(float(t) for t in a["risk_thresholds"])
+                             if "risk_thresholds" in a else None),
         ))
-    cohorts = tuple(Cohort(c["name"], (base / c["path"]).resolve(), c["path"])
+    cohorts = tuple(Cohort(c["name"], (base / c["path"]).resolve(), c["path"],
+                           _groupings(c.get("groupings") or {}))
                     for c in raw["cohorts"])
     variables = {k: VariableInfo(v.get("label"), v.get("unit"), v.get("type"))
                  for k, v in (raw.get("variables") or {}).items()}
@@ -574,4 +692,5 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
         resampling=Resampling(**(raw.get("resampling") or {})),
         cutpoint_search=CutpointSearch(**{k: float(v) for k, v in
                                           (raw.get("cutpoint_search") or {}).items()}),
+        horizon=float(raw["horizon"]) if "horizon" in raw else None,
     )

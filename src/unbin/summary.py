@@ -60,6 +60,11 @@ def question_lines(out: Path) -> list[str]:
         path = out / "tables" / f"{mod.TABLE}.parquet"
         if path.is_file():
             lines.append(mod.summary_line(read_table(path)))
+    from .decisions import TABLES, summary_lines
+
+    paths = [out / "tables" / f"{name}.parquet" for name in TABLES]
+    if all(p.is_file() for p in paths):
+        lines += summary_lines(*(read_table(p) for p in paths))
     return lines
 
 

@@ -8,6 +8,7 @@ from contextlib import contextmanager
 from functools import cache
 from importlib import resources
 from pathlib import Path
+from typing import Any
 
 from . import __version__
 from .data import file_sha256
@@ -28,12 +29,30 @@ def analysis_params(spec: Spec, cohort: str, analysis: str) -> str:
     """What decides whether a (cohort, analysis) job reruns: the extract's content digest, the
     digest of the spec entries the analysis uses, and unbin's version."""
     c = spec.cohort(cohort)
-    return (f"extract={_sha(str(c.path))} spec={digest(spec.slice_for(analysis))} "
+    return (f"extract={_sha(str(c.path))} spec={digest(spec.slice_for(analysis, cohort))} "
             f"unbin={__version__}")
+
+
+def basis_params(spec: Spec, analysis: str) -> str:
+    """What decides whether an analysis' common basis is recomputed (beyond its inputs)."""
+    return f"spec={digest(spec.slice_for(analysis))} unbin={__version__}"
+
+
+def cohort_params(spec: Spec, cohort: str) -> str:
+    """What decides whether a cohort's bundle is rebuilt."""
+    c = spec.cohort(cohort)
+    slices = {a.name: spec.slice_for(a.name, cohort) for a in spec.analyses}
+    return f"extract={_sha(str(c.path))} spec={digest(slices)} unbin={__version__}"
 
 
 def study_params(spec: Spec) -> str:
     return f"spec={digest(spec.raw)} unbin={__version__}"
+
+
+def spec_path(sm: Any) -> str:
+    """The spec's path for a rule script: from the workflow config (not from params, so that
+    moving a result folder or the spec does not by itself rerun anything)."""
+    return str(Path(sm.config["spec"]).resolve())
 
 
 @contextmanager

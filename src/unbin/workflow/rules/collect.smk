@@ -12,9 +12,10 @@ rule collect_tables:
     output:
         expand("tables/{table}.parquet", table=STUDY_TABLES),
     params:
-        spec=UNBIN_SPEC_PATH,
         digests=study_params(UNBIN_SPEC),
     log:
         "logs/collect.log",
+    benchmark:
+        "benchmarks/collect_tables/all.tsv"
     script:
         "../scripts/collect_tables.py"

@@ -4,9 +4,11 @@ from pathlib import Path
 
 from snakemake.utils import min_version, validate
 
+from unbin.bundles import BUNDLE_TABLES
 from unbin.jobs import JOB_TABLES, STUDY_TABLES
+from unbin.pooled import POOLED_TABLES
 from unbin.spec import load_spec
-from unbin.workflow_support import analysis_params, study_params
+from unbin.workflow_support import analysis_params, basis_params, cohort_params, study_params
 
 min_version("9.0")
 
@@ -22,6 +24,15 @@ validate(copy.deepcopy(UNBIN_SPEC.raw), str(UNBIN_RULES_DIR.parent / "schemas" /
 
 UNBIN_COHORTS = [c.name for c in UNBIN_SPEC.cohorts]
 UNBIN_ANALYSES = [a.name for a in UNBIN_SPEC.analyses]
+# Several cohorts: common bases from cohort summaries (unless the spec fixes knots, reference
+# and grid of an analysis), then pooling.
+UNBIN_CONSORTIUM = len(UNBIN_COHORTS) > 1
+UNBIN_DERIVED_BASIS = {
+    a.name: UNBIN_CONSORTIUM and not a.continuous.basis_fixed for a in UNBIN_SPEC.analyses
+}
+
+# Bookkeeping rules run in the main process, not as cluster jobs.
+localrules: all, collect_tables, common_basis, bundle_cohort, pool_bundles
 
 wildcard_constraints:
     cohort="[A-Za-z0-9][A-Za-z0-9_-]*",

@@ -6,13 +6,15 @@
 rule fit_analysis:
     input:
         extract=lambda w: str(UNBIN_SPEC.cohort(w.cohort).path),
+        basis=lambda w: f"common/{w.analysis}.json" if UNBIN_DERIVED_BASIS[w.analysis] else [],
     output:
         expand("work/{{cohort}}/{{analysis}}/{table}.parquet", table=JOB_TABLES),
     params:
-        spec=UNBIN_SPEC_PATH,
         digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     log:
         "logs/fit/{cohort}/{analysis}.log",
+    benchmark:
+        "benchmarks/fit_analysis/{cohort}/{analysis}.tsv"
     threads: 1
     resources:
         mem_mb=lambda w, attempt: 1000 * attempt,

@@ -3,9 +3,10 @@
 from pathlib import Path
 
 from unbin.jobs import collect_tables
-from unbin.workflow_support import logging_to
+from unbin.workflow_support import logging_to, spec_path
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821
 
 with logging_to(sm.log[0]):
-    collect_tables(sm.params.spec, "work", Path(sm.output[0]).parent)
+    # work/<cohort>/<analysis>/<table>.parquet: the work folder, wherever a module prefix put it
+    collect_tables(spec_path(sm), Path(sm.input[0]).parents[2], Path(sm.output[0]).parent)

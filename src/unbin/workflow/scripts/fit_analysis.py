@@ -3,10 +3,11 @@
 from pathlib import Path
 
 from unbin.jobs import run_analysis_job
-from unbin.workflow_support import logging_to
+from unbin.workflow_support import logging_to, spec_path
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821
 
 with logging_to(sm.log[0]):
-    run_analysis_job(sm.params.spec, sm.wildcards.cohort, sm.wildcards.analysis,
-                     Path(sm.output[0]).parent)
+    basis = sm.input.get("basis") or None
+    run_analysis_job(spec_path(sm), sm.wildcards.cohort, sm.wildcards.analysis,
+                     Path(sm.output[0]).parent, basis_path=basis)

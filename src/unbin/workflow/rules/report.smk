@@ -1,0 +1,36 @@
+# The last steps: figures (one job per cohort, figures/<cohort>/, and the study-level and pooled
+# ones in figures/_study/) and the self-contained HTML report (report.html). Both read only the
+# study-level tables and the spec; reruns give the same bytes.
+
+# Every study-level table the run writes (the pooled ones too in consortium mode).
+UNBIN_REPORT_TABLES = list(STUDY_TABLES) + (list(POOLED_TABLES) if UNBIN_CONSORTIUM else [])
+
+
+rule draw_figures:
+    input:
+        expand("tables/{table}.parquet", table=UNBIN_REPORT_TABLES),
+    output:
+        directory("figures/{cohort}"),
+    params:
+        spec=UNBIN_SPEC_PATH,
+        digests=study_params(UNBIN_SPEC),
+    log:
+        "logs/figures/{cohort}.log",
+    script:
+        "../scripts/draw_figures.py"
+
+
+rule build_report:
+    input:
+        tables=expand("tables/{table}.parquet", table=UNBIN_REPORT_TABLES),
+        figures=expand("figures/{cohort}", cohort=UNBIN_COHORTS),
+    output:
+        report="report.html",
+        study=directory("figures/_study"),
+    params:
+        spec=UNBIN_SPEC_PATH,
+        digests=study_params(UNBIN_SPEC),
+    log:
+        "logs/report.log",
+    script:
+        "../scripts/build_report.py"

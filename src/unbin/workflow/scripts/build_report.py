@@ -1,0 +1,12 @@
+"""Rule script: draw the study-level figures and write the self-contained HTML report, with the
+cohorts' figures read from their own jobs' folders (unbin.report)."""
+
+from pathlib import Path
+
+from unbin.report import build_report
+from unbin.workflow_support import logging_to
+
+sm = snakemake  # type: ignore[name-defined]  # noqa: F821
+
+with logging_to(sm.log[0]):
+    build_report(Path(sm.output.report).parent, sm.params.spec, draw_cohorts=False)

@@ -1,0 +1,11 @@
+"""Rule script: draw one cohort's figures from the study-level tables (unbin.report)."""
+
+from pathlib import Path
+
+from unbin.report import draw_cohort_figures
+from unbin.workflow_support import logging_to
+
+sm = snakemake  # type: ignore[name-defined]  # noqa: F821
+
+with logging_to(sm.log[0]):
+    draw_cohort_figures(Path(sm.output[0]).parent.parent, sm.params.spec, sm.wildcards.cohort)

@@ -1,0 +1,12 @@
+"""Rule script: pool every cohort's bundle."""
+
+from pathlib import Path
+
+from unbin.jobs import pool_job
+from unbin.workflow_support import logging_to
+
+sm = snakemake  # type: ignore[name-defined]  # noqa: F821
+
+with logging_to(sm.log[0]):
+    bundle_dirs = sorted({str(Path(p).parent) for p in sm.input})
+    pool_job(bundle_dirs, Path(sm.output[0]).parent)

@@ -1,0 +1,1 @@
+"""Helpers for opening pages in headless Chromium from the tests (stdlib only)."""
