@@ -4,7 +4,6 @@ bootstrap against reference libraries."""
 
 from __future__ import annotations
 
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -15,29 +14,19 @@ from lifelines import CoxPHFitter
 from lifelines.datasets import load_rossi
 from scipy import stats
 
+from helpers import bare_refit as _refit
 from unbin.confounding import (
     confounding_table,
     resample_weights,
     weighted_cox,
     weighted_glm,
 )
-from unbin.data import analysis_sample
 from unbin.models.base import Outcome
-from unbin.refit import Refit, build_outcome, legacy_term
-from unbin.spec import Spec, parse_spec
 
 # Cochran 1968 (Biometrics 24:295), CHECKS.md: % of the bias removed, c equal-frequency groups
 COCHRAN = {2: 63.66, 3: 79.32, 4: 86.06, 5: 89.70}
 
 
-def _refit(df: pd.DataFrame, raw: dict[str, Any], name: str = "a") -> tuple[Refit, Spec]:
-    """A Refit without fits (the confounding question fits its own models)."""
-    spec = parse_spec(raw, base=Path("."))
-    a = spec.analysis(name)
-    sample = analysis_sample(df, a, spec)
-    x = sample.frame[a.exposure].to_numpy(float)
-    return Refit(a, "sim", sample, build_outcome(sample, a), x,
-                 legacy_term(x, a.exposure, spec)), spec
 
 
 def _raw(outcome: dict[str, Any], groupings: dict[str, Any], adjust: list[str],

@@ -16,21 +16,10 @@ from lifelines.statistics import logrank_test
 from scipy import stats
 from statsmodels.duration.hazard_regression import PHReg
 
+from helpers import bare_refit as _refit
 from unbin.cutpoints import SplitSearch, cutpoints_table, p_altman, p_lausen
-from unbin.data import analysis_sample
 from unbin.models.base import Outcome
-from unbin.refit import Refit, build_outcome, legacy_term
-from unbin.spec import Spec, parse_spec
-
-
-def _refit(df: pd.DataFrame, raw: dict[str, Any], name: str = "a") -> tuple[Refit, Spec]:
-    """A Refit without fits (the cut-point audit does not use them)."""
-    spec = parse_spec(raw, base=Path("."))
-    a = spec.analysis(name)
-    sample = analysis_sample(df, a, spec)
-    x = sample.frame[a.exposure].to_numpy(float)
-    return Refit(a, "sim", sample, build_outcome(sample, a), x,
-                 legacy_term(x, a.exposure, spec)), spec
+from unbin.spec import parse_spec
 
 
 def _raw(outcome: dict[str, Any], groupings: dict[str, Any], adjust: list[str] | None = None,

@@ -4,7 +4,6 @@ fixed values stays within its interval."""
 
 from __future__ import annotations
 
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -13,20 +12,8 @@ import pytest
 from lifelines import CoxPHFitter
 from scipy import stats
 
-from unbin.data import analysis_sample
+from helpers import bare_refit as _refit
 from unbin.ranges import ranges_table, trims
-from unbin.refit import Refit, build_outcome, legacy_term
-from unbin.spec import Spec, parse_spec
-
-
-def _refit(df: pd.DataFrame, raw: dict[str, Any], name: str = "a") -> tuple[Refit, Spec]:
-    """A Refit without fits (the range question fits its own models)."""
-    spec = parse_spec(raw, base=Path("."))
-    a = spec.analysis(name)
-    sample = analysis_sample(df, a, spec)
-    x = sample.frame[a.exposure].to_numpy(float)
-    return Refit(a, "sim", sample, build_outcome(sample, a), x,
-                 legacy_term(x, a.exposure, spec)), spec
 
 
 def _raw(outcome: dict[str, Any], cuts: list[float], adjust: list[str],
