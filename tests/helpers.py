@@ -8,7 +8,8 @@ from typing import Any
 import pandas as pd
 
 from unbin.data import analysis_sample
-from unbin.refit import Refit, build_outcome, legacy_term
+from unbin.refit import Refit
+from unbin.refit import bare_refit as _bare
 from unbin.spec import Spec, parse_spec
 
 
@@ -16,7 +17,4 @@ def bare_refit(df: pd.DataFrame, raw: dict[str, Any], name: str = "a") -> tuple[
     """A Refit of one analysis without any fits, for questions that fit their own models."""
     spec = parse_spec(raw, base=Path("."))
     a = spec.analysis(name)
-    sample = analysis_sample(df, a, spec)
-    x = sample.frame[a.exposure].to_numpy(float)
-    return Refit(a, "sim", sample, build_outcome(sample, a), x,
-                 legacy_term(x, a.exposure, spec)), spec
+    return _bare(analysis_sample(df, a, spec), a, spec, "sim"), spec

@@ -107,8 +107,10 @@ def test_changing_one_analysis_reruns_only_its_jobs(small_run: tuple[Path, Path]
     jobs = planned(changed, out)
     assert _fits(jobs) == {"cohort=lindenfeld, analysis=visits_bmi",
                            "cohort=marrowby, analysis=visits_bmi"}
-    assert {r for r, _ in jobs} <= {"fit_analysis", "bundle_cohort", "pool_bundles",
-                                    "collect_tables", "draw_figures", "build_report", "all"}
+    assert {w for r, w in jobs if r == "resample_analysis"} == _fits(jobs)
+    assert {r for r, _ in jobs} <= {"fit_analysis", "resample_analysis", "bundle_cohort",
+                                    "pool_bundles", "collect_tables", "draw_figures",
+                                    "build_report", "all"}
 
 
 def test_replacing_one_extract_reruns_only_that_cohort(small_run: tuple[Path, Path],

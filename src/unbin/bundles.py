@@ -11,18 +11,21 @@ turn a cohort's result tables into bundle tables (``jobs`` does the reading and 
 from __future__ import annotations
 
 import json
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
-from .refit import Refit
+if TYPE_CHECKING:
+    from .refit import Refit
+    from .spec import Spec
 
 BUNDLE_TABLES = ("curves", "coefficients", "contrasts", "counts", "cuts")
+POOLED_TABLES = ("pooled_curves", "pooled_effects", "heterogeneity", "harmonisation")
 CURVE_FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
 
 
-def coefficients_table(r: Refit) -> pd.DataFrame:
+def coefficients_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     """The common-knot spline's exposure coefficients and covariance, long (one row per (i, j)).
 
     Also written by every job (``coefficients.parquet``) so bundles can be built from tables."""

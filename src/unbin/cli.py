@@ -106,7 +106,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 def cmd_pool(args: argparse.Namespace) -> int:
     from .jobs import pool_job
-    from .pooled import POOLED_TABLES
+    from .bundles import POOLED_TABLES
 
     out = Path(args.out) / "tables"
     pool_job([Path(b) for b in args.bundles], out)

@@ -14,6 +14,7 @@ import pandas as pd
 from .contrasts import contrast, with_interval
 from .models import EFFECT_SCALE
 from .refit import Refit
+from .spec import Spec
 
 FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
 DENSITY_BINS = 40
@@ -24,7 +25,7 @@ def grid(x: np.ndarray, points: int) -> np.ndarray:
     return np.linspace(lo, hi, points)
 
 
-def curves_table(r: Refit) -> pd.DataFrame:
+def curves_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     points = r.analysis.continuous.grid_points
     xs = r.basis.grid(points) if r.basis is not None else grid(r.x, points)
     x_ref = r.curve_reference
@@ -48,9 +49,10 @@ def curves_table(r: Refit) -> pd.DataFrame:
     return out
 
 
-def density_table(r: Refit, min_cell: int) -> pd.DataFrame:
+def density_table(r: Refit, spec: Spec) -> pd.DataFrame:
     """Counts of the exposure in equal-width bins over the 1st–99th percentile range; counts
-    below ``min_cell`` (but above zero) are suppressed (NaN, ``suppressed`` true)."""
+    below ``spec.min_cell`` (but above zero) are suppressed (NaN, ``suppressed`` true)."""
+    min_cell = spec.min_cell
     lo, hi = np.quantile(r.x, [0.01, 0.99])
     edges = np.linspace(lo, hi, DENSITY_BINS + 1)
     counts, _ = np.histogram(r.x[(r.x >= lo) & (r.x <= hi)], bins=edges)

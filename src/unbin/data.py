@@ -12,6 +12,7 @@ import pandas as pd
 
 from .errors import DataError
 from .spec import Analysis, Grouping, Spec
+from .terms.grouped import GroupedTerm
 
 READERS = (".csv", ".parquet", ".pq", ".dta", ".sas7bdat")
 MAX_CATEGORICAL_LEVELS = 5  # a numeric column with this many distinct values or fewer is a factor
@@ -279,3 +280,11 @@ def resolve_cuts(x: np.ndarray, g: Grouping) -> tuple[float, ...]:
     qs = np.quantile(x, np.arange(1, g.quantiles) / g.quantiles)
     return tuple(float(v) for v in qs)
 
+
+def legacy_term(x: np.ndarray, variable: str, spec: Spec) -> GroupedTerm:
+    """The legacy grouping of ``variable`` as design indicators, its cuts resolved in ``x``."""
+    g = spec.groupings[variable]
+    assert g.labels is not None
+    cuts = resolve_cuts(x, g)
+    ref = g.labels.index(g.reference) if g.reference in g.labels else 0
+    return GroupedTerm(variable, cuts, g.closed, g.labels, ref)

@@ -177,6 +177,8 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS) -> dict[str, Any]:
         "continuous": {"forms": ["linear", "spline", "fp"], "spline_knots": [3, 4, 5]},
         "risk_thresholds": [0.1, 0.2],
         "disclosure": {"min_cell": 10},
+        # Smaller than the defaults (200, 1000) so that the demo stays quick.
+        "resampling": {"bootstrap": 100, "permutations": 199},
         "seed": DEMO_SEED,
     }
 

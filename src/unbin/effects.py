@@ -10,11 +10,12 @@ import pandas as pd
 from .contrasts import contrast, with_interval
 from .models import EFFECT_SCALE
 from .refit import Refit
+from .spec import Spec
 
 FORMS = ("legacy", "linear", "spline", "fp")
 
 
-def effects_table(r: Refit) -> pd.DataFrame:
+def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     rows = []
     term = r.legacy
     x_ref = r.reference_value

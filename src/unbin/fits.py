@@ -9,9 +9,10 @@ import pandas as pd
 
 from .discrimination import c_index
 from .refit import Refit
+from .spec import Spec
 
 
-def fits_table(r: Refit) -> pd.DataFrame:
+def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     rows = []
     nulls = {f.adjustment: f.result for f in r.fits if f.form == "null"}
     for f in r.fits:

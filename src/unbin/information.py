@@ -14,6 +14,7 @@ from scipy import stats
 
 from .discrimination import c_index
 from .refit import FormFit, Refit
+from .spec import Spec
 
 
 def _lr(a: float, b: float) -> float:
@@ -24,7 +25,7 @@ def _p(chi2: float, df: int) -> float:
     return float(stats.chi2.sf(max(chi2, 0.0), df)) if df > 0 and np.isfinite(chi2) else np.nan
 
 
-def information_table(r: Refit) -> pd.DataFrame:
+def information_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     rows = []
     for coding in ("legacy", "continuous", "none"):
         get = {form: r.get(form, coding) for form in

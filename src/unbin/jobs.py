@@ -7,52 +7,70 @@ read files; this module is where reading and writing happens.
 
 from __future__ import annotations
 
+import importlib
 import json
 import logging
 import traceback
 from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from .bundles import BUNDLE_TABLES, bundle_problems, coefficients_table, make_bundle
+from .bundles import BUNDLE_TABLES, POOLED_TABLES
 from .common import CommonBasis, combine, sample_summary
-from .confounding import confounding_table
-from .curves import curves_table, density_table
-from .cutpoints import cutpoints_table
-from .data import _type_problems, analysis_sample, extract_rows, file_sha256, read_extract
-from .decisions import net_benefit_table, thresholds_table
-from .effects import effects_table
+from .data import (
+    _type_problems,
+    analysis_sample,
+    extract_rows,
+    file_sha256,
+    legacy_term,
+    read_extract,
+)
 from .errors import DataError, UnbinError
-from .fits import fits_table
-from .information import information_table
-from .pooled import POOLED_TABLES, pool_bundles
 from .provenance import provenance
-from .ranges import ranges_table
-from .refit import Refit, legacy_term, refit_analysis
-from .replication import replication_table
 from .spec import Spec, digest, load_spec
 from .tables import read_table, write_table
 
+if TYPE_CHECKING:
+    from .refit import Refit
+
+# The statistics modules are imported when a job needs them: light jobs (summaries, bundles,
+# pooling, collecting) then start without scipy.stats, statsmodels and friends.
+
+
+def _builder(target: str) -> Callable[[Refit, Spec], pd.DataFrame]:
+    """``module:function`` -> the table builder; every builder takes (refit, spec)."""
+    module, name = target.split(":")
+    fn: Callable[[Refit, Spec], pd.DataFrame] = getattr(
+        importlib.import_module(f"unbin.{module}"), name)
+    return fn
+
+
 log = logging.getLogger("unbin")
 
-# Tables every (cohort, analysis) job writes, and the builder of each from the refit.
-QUESTION_TABLES: dict[str, Callable[[Refit, Spec], pd.DataFrame]] = {
-    "fits": lambda r, s: fits_table(r),
-    "information": lambda r, s: information_table(r),
-    "effects": lambda r, s: effects_table(r),
-    "curves": lambda r, s: curves_table(r),
-    "density": lambda r, s: density_table(r, s.min_cell),
-    "coefficients": lambda r, s: coefficients_table(r),
-    "ranges": ranges_table,
-    "confounding": confounding_table,
-    "cutpoints": cutpoints_table,
-    "replication": replication_table,
-    "thresholds": thresholds_table,
-    "net_benefit": net_benefit_table,
+# Tables every (cohort, analysis) fit job writes, and the builder of each from the refit.
+QUESTION_TABLES: dict[str, str] = {
+    "fits": "fits:fits_table",
+    "information": "information:information_table",
+    "effects": "effects:effects_table",
+    "curves": "curves:curves_table",
+    "density": "curves:density_table",
+    "coefficients": "bundles:coefficients_table",
+    "ranges": "ranges:ranges_table",
+    "replication": "replication:replication_table",
+    "thresholds": "decisions:thresholds_table",
+    "net_benefit": "decisions:net_benefit_table",
 }
-JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "status")
+# Questions whose cost is resampling (bootstrap, permutations): a workflow job of their own per
+# (cohort, analysis), so they spread over cores or a cluster beside the fits. They need the
+# analysis sample only, not the refit's fits.
+RESAMPLING_TABLES: dict[str, str] = {
+    "confounding": "confounding:confounding_table",
+    "cutpoints": "cutpoints:cutpoints_table",
+}
+FIT_JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "status")
+JOB_TABLES: tuple[str, ...] = (*FIT_JOB_TABLES, *RESAMPLING_TABLES)
 STUDY_TABLES = JOB_TABLES
 
 
@@ -70,8 +88,11 @@ def _keyed(df: pd.DataFrame, cohort: str, analysis: str) -> pd.DataFrame:
 
 
 def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
-            basis: CommonBasis | None = None) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
-    """Every question's table for one analysis on one cohort's rows, plus its status record.
+            basis: CommonBasis | None = None, resampling: bool = True
+            ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
+    """Every question's table for one analysis on one cohort's rows, plus its status record
+    (the resampling questions too unless ``resampling`` is false: the workflow runs those in
+    their own job, ``resample_job``).
 
     Problems of this analysis (bad data, empty sample, a failing question) are recorded in the
     status, never raised: the other analyses must complete.
@@ -105,11 +126,14 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                                 f"sample: {event!r} is {1 if events else 0} in all {sample.n} "
                                 "rows; there is no contrast to estimate. Check the outcome "
                                 "coding and the filters.")
+        from .refit import refit_analysis
+
         refit = refit_analysis(sample, a, spec, cohort, basis)
         failed = [f"{f.form}/{f.adjustment}: {f.result.message}" for f in refit.fits
                   if not f.result.ok and f.selected]
-        for name, build in QUESTION_TABLES.items():
-            tables[name] = build(refit, spec)
+        builders = {**QUESTION_TABLES, **(RESAMPLING_TABLES if resampling else {})}
+        for name, target in builders.items():
+            tables[name] = _builder(target)(refit, spec)
         notes = refit.messages + failed
         if failed:
             status["status"] = "partial"
@@ -149,9 +173,9 @@ def run_analysis_job(spec_path: str | Path, cohort: str, analysis: str,
         basis = None
         if basis_path is not None:
             basis = CommonBasis.from_dict(json.loads(Path(basis_path).read_text()))
-        tables, status = analyse(spec, cohort, analysis, frame, basis)
+        tables, status = analyse(spec, cohort, analysis, frame, basis, resampling=False)
     out = Path(outdir)
-    for name in JOB_TABLES:
+    for name in FIT_JOB_TABLES:
         df = tables.get(name, pd.DataFrame())
         write_table(_keyed(df, cohort, analysis), out / f"{name}.parquet",
                     provenance(table=name, **prov_base))  # type: ignore[arg-type]
@@ -231,6 +255,8 @@ def bundle_job(spec_path: str | Path, cohort: str, work: str | Path,
         tables[name] = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
             columns=["cohort", "analysis", "form", "adjustment", "contrast", "events",
                      "row_type", "n_used", "status"])
+    from .bundles import bundle_problems, make_bundle
+
     bundle = make_bundle(tables, spec.min_cell)
     rec = input_record(spec, cohort)
     grid = max(a.continuous.grid_points for a in spec.analyses)
@@ -268,6 +294,8 @@ def pool_job(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
             raise DataError(f"two bundles are for cohort {name!r}; pass each cohort once.")
         bundles[name] = bundle
         provs.append(prov)
+    from .pooled import pool_bundles
+
     pooled = pool_bundles(dict(sorted(bundles.items())))  # the same tables in any order
     inputs = [i for p in provs for i in p.get("inputs", [])]
     prov = dict(inputs=inputs, spec_digest=digest(sorted(p.get("spec_digest", "") for p in provs)),
@@ -309,3 +337,33 @@ def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.Da
     prov = compare_provenance(provs(o), provs(n))
     parts = [d for d in (prov, changes) if len(d)]
     return pd.concat(parts, ignore_index=True) if parts else changes
+
+
+def resample_job(spec_path: str | Path, cohort: str, analysis: str, outdir: str | Path) -> None:
+    """The resampling questions of one analysis on one cohort (bootstrap, permutations), on the
+    analysis sample; an analysis that cannot run leaves empty tables (its fit job records why)."""
+    spec = load_spec(spec_path).for_cohort(cohort)
+    a = spec.analysis(analysis)
+    prov_base = dict(inputs=[input_record(spec, cohort)],
+                     spec_digest=digest(spec.slice_for(analysis, cohort)), seed=spec.seed,
+                     study=spec.study)
+    tables: dict[str, pd.DataFrame] = {}
+    try:
+        frame = read_extract(spec.cohort(cohort).path, a.columns)
+        if _type_problems(a, frame, spec):
+            raise DataError("the data do not fit the spec (see the fit job's status)")
+        sample = analysis_sample(frame, a, spec)
+        if sample.n < 10:
+            raise DataError("too few rows")
+        from .refit import bare_refit
+
+        r = bare_refit(sample, a, spec, cohort)
+        for name, target in RESAMPLING_TABLES.items():
+            tables[name] = _builder(target)(r, spec)
+    except UnbinError as exc:
+        log.info("%s/%s: resampling questions not run: %s", cohort, analysis, exc)
+        tables = {}
+    for name in RESAMPLING_TABLES:
+        df = tables.get(name, pd.DataFrame())
+        write_table(_keyed(df, cohort, analysis), Path(outdir) / f"{name}.parquet",
+                    provenance(table=name, **prov_base))  # type: ignore[arg-type]

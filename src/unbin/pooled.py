@@ -17,7 +17,6 @@ from .pooling import pool_multivariate, pool_pointwise, pool_univariate, pooled_
 from .terms import SplineTerm
 
 RATIO_SCALES = {"odds ratio", "hazard ratio", "rate ratio"}
-POOLED_TABLES = ("pooled_curves", "pooled_effects", "heterogeneity", "harmonisation")
 
 
 def _effect_columns(df: pd.DataFrame) -> pd.DataFrame:

@@ -11,7 +11,7 @@ import pandas as pd
 from scipy import stats
 
 from .common import CommonBasis, combine, sample_summary
-from .data import Sample, is_categorical, resolve_cuts
+from .data import Sample, is_categorical, legacy_term
 from .models import Outcome, fit
 from .models.base import FitResult, failed_fit
 from .spec import Analysis, Spec
@@ -115,14 +115,6 @@ def build_outcome(sample: Sample, a: Analysis) -> Outcome:
         strata = df.groupby(list(a.strata), sort=True).ngroup().to_numpy()
     return Outcome("survival", df[o.event].to_numpy(float), time=df[o.time].to_numpy(float),
                    entry=df[o.entry].to_numpy(float) if o.entry else None, strata=strata)
-
-
-def legacy_term(x: np.ndarray, variable: str, spec: Spec) -> GroupedTerm:
-    g = spec.groupings[variable]
-    assert g.labels is not None
-    cuts = resolve_cuts(x, g)
-    ref = g.labels.index(g.reference) if g.reference in g.labels else 0
-    return GroupedTerm(variable, cuts, g.closed, g.labels, ref)
 
 
 def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> tuple[Term, ...]:
@@ -306,3 +298,10 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
                 r.fits += [replace(row, adjustment=coding) for row in rows]
                 r.fits.append(replace(chosen, adjustment=coding))
     return r
+
+
+def bare_refit(sample: Sample, a: Analysis, spec: Spec, cohort: str) -> Refit:
+    """The analysis sample, outcome and legacy grouping without any fits (for questions that
+    fit their own models, such as the resampling ones)."""
+    x = sample.frame[a.exposure].to_numpy(float)
+    return Refit(a, cohort, sample, build_outcome(sample, a), x, legacy_term(x, a.exposure, spec))

@@ -10,7 +10,8 @@ import signal
 import subprocess
 import sys
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from datetime import UTC, datetime
 from importlib import resources
 from pathlib import Path
@@ -142,11 +143,44 @@ def run_workflow(spec: Path, out: Path, cores: int = 1, profile: str | None = No
     """Run the workflow; returns Snakemake's exit code. Its log goes to ``out/logs/snakemake.log``
     and the run manifest to ``out/run.json``."""
     started = time.time()
-    rc = _run_snakemake(spec, out, cores, profile, extra, on_progress)
+    with _folder_lock(out) as held:
+        if held:
+            _remove_stale_lock(spec, out, cores, profile)
+        rc = _run_snakemake(spec, out, cores, profile, extra, on_progress)
     if not extra or "-n" not in extra:
         manifest = run_manifest(out, spec, cores, profile, started, time.time(), rc)
         (out / "run.json").write_text(json.dumps(manifest, indent=1, sort_keys=True) + "\n")
     return rc
+
+
+@contextmanager
+def _folder_lock(out: Path) -> Iterator[bool]:
+    """One unbin run at a time per output folder. The kernel releases this lock however the run
+    ends (even killed, or on power loss), unlike the lock files Snakemake leaves behind: holding
+    it shows that a Snakemake lock found in the folder is stale. Yields whether it is held (not
+    on systems without ``fcntl``)."""
+    out.mkdir(parents=True, exist_ok=True)
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - not POSIX: Snakemake's own locking only
+        yield False
+        return
+    with open(out / ".unbin-run.lock", "w") as fh:
+        try:
+            fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise UnbinError(f"another unbin run is writing to {out}; wait for it to finish or "
+                             "choose another --out folder.") from None
+        yield True
+
+
+def _remove_stale_lock(spec: Path, out: Path, cores: int, profile: str | None) -> None:
+    """A run that was killed (SIGKILL, out of memory, power loss) leaves Snakemake's lock behind,
+    and every later run would stop at it; with the folder lock held, no run is using it."""
+    locks = out / ".snakemake" / "locks"
+    if locks.is_dir() and any(locks.iterdir()):
+        subprocess.run(snakemake_command(spec, out, cores, profile, ["--unlock"]),
+                       stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, check=False)
 
 
 def _run_snakemake(spec: Path, out: Path, cores: int, profile: str | None,

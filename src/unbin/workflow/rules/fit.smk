@@ -1,4 +1,5 @@
-# One job per (cohort, analysis): every fit and every question table of that analysis.
+# One job per (cohort, analysis) for the fits and the question tables built from them, and one
+# for the resampling questions.
 # Reruns follow content digests (params), not timestamps: the extract's SHA-256 and the digest of
 # the spec entries this analysis uses.
 
@@ -8,7 +9,7 @@ rule fit_analysis:
         extract=lambda w: str(UNBIN_SPEC.cohort(w.cohort).path),
         basis=lambda w: f"common/{w.analysis}.json" if UNBIN_DERIVED_BASIS[w.analysis] else [],
     output:
-        expand("work/{{cohort}}/{{analysis}}/{table}.parquet", table=JOB_TABLES),
+        expand("work/{{cohort}}/{{analysis}}/{table}.parquet", table=FIT_JOB_TABLES),
     params:
         digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     log:
@@ -20,3 +21,23 @@ rule fit_analysis:
         mem_mb=lambda w, attempt: 1000 * attempt,
     script:
         "../scripts/fit_analysis.py"
+
+
+# The resampling questions (bootstrap, permutations) of the same analysis: a job of their own, so
+# they run beside the fits on another core or cluster node.
+rule resample_analysis:
+    input:
+        extract=lambda w: str(UNBIN_SPEC.cohort(w.cohort).path),
+    output:
+        expand("work/{{cohort}}/{{analysis}}/{table}.parquet", table=RESAMPLING_TABLES),
+    params:
+        digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
+    log:
+        "logs/resample/{cohort}/{analysis}.log",
+    benchmark:
+        "benchmarks/resample_analysis/{cohort}/{analysis}.tsv"
+    threads: 1
+    resources:
+        mem_mb=lambda w, attempt: 1000 * attempt,
+    script:
+        "../scripts/resample_analysis.py"

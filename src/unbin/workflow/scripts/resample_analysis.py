@@ -1,0 +1,12 @@
+"""Rule script: the resampling questions of one analysis on one cohort."""
+
+from pathlib import Path
+
+from unbin.jobs import resample_job
+from unbin.workflow_support import logging_to, spec_path
+
+sm = snakemake  # type: ignore[name-defined]  # noqa: F821
+
+with logging_to(sm.log[0]):
+    resample_job(spec_path(sm), sm.wildcards.cohort, sm.wildcards.analysis,
+                 Path(sm.output[0]).parent)
