@@ -6,8 +6,8 @@
 The data are an invented registry cohort: a biomarker with a U-shaped log hazard, age and sex;
 follow-up up to 10 years with administrative censoring and random loss. p = 2 fits the
 biomarker and age linearly; p = 8 fits restricted cubic splines of the biomarker (5 knots,
-4 columns) and age (4 knots, 3 columns) plus sex. Both engines fit Efron ties on the same
-arrays. Times are continuous by default; ``--time-unit days`` rounds them up to whole days
+4 columns) and age (4 knots, 3 columns), built by ``unbin.terms.SplineTerm``, plus sex. Both
+engines fit Efron ties on the same arrays. Times are continuous by default; ``--time-unit days`` rounds them up to whole days
 (about 3,650 distinct values), which gives heavy ties. The p = 8 columns are orthogonalised
 (the same model and log-likelihood): on the raw spline basis, whose columns are nearly
 collinear, lifelines' Newton iterations stop far from the maximum (``--raw-basis`` shows it;
@@ -16,7 +16,8 @@ unbin and statsmodels agree there).
 unbin's time is the median of ``--repeats`` fits; lifelines is fitted once. Peak memory is
 the tracemalloc peak of a separate fit of each engine (allocations during the fit only; the
 input arrays are excluded). BLAS is limited to one thread (unless the environment says
-otherwise), so the numbers are for one core. lifelines is skipped above ``--lifelines-max-n``
+otherwise), so the numbers are for one core; on a shared machine they are noisy, so prefer
+the speed-up (both engines timed side by side) to the seconds. lifelines is skipped above ``--lifelines-max-n``
 rows (200,000) unless ``--force-lifelines`` is given.
 """
 
@@ -42,25 +43,10 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
 from unbin.cox import fit_cox  # noqa: E402
+from unbin.terms import SplineTerm  # noqa: E402
 
 SIZES = (10_000, 100_000, 200_000, 1_000_000)
 COLUMNS = (2, 8)
-
-
-def rcs_basis(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
-    """Restricted cubic spline columns (x and the k - 2 nonlinear terms), Durrleman & Simon."""
-    k = knots.size
-    t_last, t_prev = knots[-1], knots[-2]
-    cols = [x]
-    for j in range(k - 2):
-        tj = knots[j]
-        term = (
-            np.clip(x - tj, 0, None) ** 3
-            - np.clip(x - t_prev, 0, None) ** 3 * (t_last - tj) / (t_last - t_prev)
-            + np.clip(x - t_last, 0, None) ** 3 * (t_prev - tj) / (t_last - t_prev)
-        )
-        cols.append(term / (t_last - knots[0]) ** 2)
-    return np.column_stack(cols)
 
 
 def simulate(
@@ -85,8 +71,8 @@ def simulate(
         return np.column_stack([marker, age]), time_years, event
     X = np.column_stack(
         [
-            rcs_basis(marker, np.quantile(marker, [0.05, 0.275, 0.5, 0.725, 0.95])),
-            rcs_basis(age, np.quantile(age, [0.05, 0.35, 0.65, 0.95])),
+            SplineTerm.at_quantiles("marker", marker, 5).basis(marker),
+            SplineTerm.at_quantiles("age", age, 4).basis(age),
             sex,
         ]
     )
@@ -147,6 +133,7 @@ def measure(
         "lifelines_peak_mib": None,
         "speedup": None,
         "max_abs_coef_diff": None,
+        "max_rel_se_diff": None,
         "lifelines_converged": None,
         "lifelines_loglik_minus_unbin": None,
     }
@@ -165,6 +152,8 @@ def measure(
         row["lifelines_seconds"] = seconds
         row["speedup"] = seconds / row["unbin_seconds"]
         row["max_abs_coef_diff"] = float(np.max(np.abs(ref.params_.to_numpy() - fit.coef)))
+        se = np.sqrt(np.diag(fit.cov))
+        row["max_rel_se_diff"] = float(np.max(np.abs(se / ref.standard_errors_.to_numpy() - 1)))
         if memory:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
@@ -178,18 +167,22 @@ def _fmt(value: Any, spec: str) -> str:
 
 def markdown(rows: list[dict[str, Any]]) -> str:
     head = (
-        "| n | p | events | unbin s | unbin peak MiB | lifelines s | lifelines peak MiB "
-        "| speed-up | max abs coef diff |\n|---:|---:|---:|---:|---:|---:|---:|---:|---:|"
+        "| n | p | events | unbin s | unbin iterations | unbin peak MiB | lifelines s "
+        "| lifelines peak MiB | speed-up | max abs coef diff | max rel SE diff "
+        "| loglik diff |\n|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|"
     )
     lines = [head]
     for r in rows:
         lines.append(
             f"| {r['n']:,} | {r['p']} | {r['events']:,} | {r['unbin_seconds']:.3f} "
+            f"| {r['unbin_iterations']} "
             f"| {_fmt(r['unbin_peak_mib'], '.0f')} | {_fmt(r['lifelines_seconds'], '.2f')} "
             f"| {_fmt(r['lifelines_peak_mib'], '.0f')} | {_fmt(r['speedup'], '.0f')}"
             f"{'×' if r['speedup'] is not None else ''} "
             f"| {_fmt(r['max_abs_coef_diff'], '.1e')}"
-            f"{' (lifelines did not converge)' if r['lifelines_converged'] is False else ''} |"
+            f"{' (lifelines did not converge)' if r['lifelines_converged'] is False else ''} "
+            f"| {_fmt(r['max_rel_se_diff'], '.1e')} "
+            f"| {_fmt(r['lifelines_loglik_minus_unbin'], '.1e')} |"
         )
     return "\n".join(lines)
 

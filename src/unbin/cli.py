@@ -105,8 +105,8 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 
 def cmd_pool(args: argparse.Namespace) -> int:
-    from .jobs import pool_job
     from .bundles import POOLED_TABLES
+    from .jobs import pool_job
 
     out = Path(args.out) / "tables"
     pool_job([Path(b) for b in args.bundles], out)

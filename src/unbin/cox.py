@@ -11,25 +11,37 @@ horizon, and ``concordance`` Harrell's C in O(n log n).
 
 How it is fast
 --------------
-The data are sorted once. Every event time t_k of every stratum gets an index k (sorted by
-stratum, then time), and every row the range of indices ``(a_i, b_i]`` of the event times at
-which it is at risk. A sparse (K x n) matrix with +1 at ``b_i`` and -1 at ``a_i`` turns a
-reverse cumulative sum over event times into the risk-set sums of ``w exp(eta)`` and
-``w exp(eta) x`` at every event time (the -1 removes rows that have not yet entered). The
-second derivatives never need per-event-time p x p matrices: the sum over event times of
-``c_k * sum_{i in R_k} r_i x_i x_i'`` equals ``X' diag(r_i * sum_{k: i in R_k} c_k) X``, one
-matrix product, and the ``E[x] E[x]'`` part needs only the (event times x p) risk-set means.
-Memory is therefore a few n x p arrays; nothing of size n x p x p (or n x p^2) is formed.
-Efron's tied-event terms are expanded over events (one entry per event, ``l/d`` fractions)
-and summed with ``np.bincount``, so there is no Python loop over event times or strata.
+The data are sorted once, and the covariates gathered once into a sorted, standardised
+(n x (1 + p)) array whose first column is ones. Every event time t_k of every stratum gets an
+index k (sorted by stratum, then time), and every row the range of indices ``(a_i, b_i]`` of
+the event times at which it is at risk. A sparse (K x n) matrix with +1 at ``b_i`` and -1 at
+``a_i``, times that array, followed by a reverse cumulative sum over event times, gives the
+risk-set sums of ``w exp(eta)`` and ``w exp(eta) x`` at every event time in one sparse product
+(the -1 removes rows that have not yet entered). The second derivatives never need
+per-event-time p x p matrices: the sum over event times of ``c_k * sum_{i in R_k} r_i x_i x_i'``
+equals ``X' diag(r_i * sum_{k: i in R_k} c_k) X``, one matrix product (in row blocks that stay
+in cache; its first row is also the score's varying part), and the ``E[x] E[x]'`` part needs
+only the (event times x p) risk-set sums. Memory is therefore a few n x p arrays; nothing of
+size n x p x p (or n x p^2) is formed. Efron's tied-event terms touch only the event times
+that hold ties (one entry per tied event, ``l/d`` fractions, summed with ``np.bincount``), so
+there is no Python loop over event times or strata.
+
+Few evaluations: with many events, Newton's method starts from a fit to a systematic subsample
+(every 4th to 8th row in time order, itself started the same way when large), whose
+information, scaled up, serves for the first full-data step; the fit then usually needs two
+or three evaluations of the full information. It stops when the next Newton step would change
+no row's linear predictor by more than ``100 * tol`` (so that no weight ``exp(eta)``, hence no
+part of the information, changes by more than about that fraction); that last step is taken
+without a further evaluation.
 
 Numerics
 --------
 Columns are centred and scaled internally (the partial likelihood is invariant to centring;
 estimates are transformed back). The linear predictor is shifted by its maximum within each
-stratum before ``exp`` (the partial likelihood is invariant to that too). With several strata
-the cumulative sums over event times run in extended precision (``np.longdouble``) so that
-one stratum's sums do not lose digits to another's.
+stratum before ``exp`` (the partial likelihood is invariant to that too). The cumulative sums
+over event times restart at every stratum: by a loop over up to 64 strata, beyond that by
+subtracting running totals in extended precision (``np.longdouble``), so that one stratum's
+sums do not lose digits to another's.
 
 Failures
 --------
@@ -150,6 +162,7 @@ class _Layout:
     a_idx: np.ndarray  # a_i + 1 if entered after the stratum's first event time, else 0
     seg_end: np.ndarray  # (K,) one past the last event-time index of t_k's stratum
     seg_start: np.ndarray  # (K,) first event-time index of t_k's stratum
+    k_bounds: np.ndarray  # first event-time index of each stratum with events, then K
     row_starts: np.ndarray  # start of each stratum among kept rows
     row_counts: np.ndarray
     k_stratum: np.ndarray  # (K,) stratum code of each event time
@@ -305,6 +318,7 @@ def _prepare(
 
     if n_strata == 1:
         seg_start, seg_end = np.zeros(K, dtype=np.int64), np.full(K, K, dtype=np.int64)
+        k_bounds = np.array([0, K])
     else:
         k_new = np.ones(K, dtype=bool)
         k_new[1:] = k_stratum[1:] != k_stratum[:-1]
@@ -312,6 +326,7 @@ def _prepare(
         k_sizes = np.diff(np.r_[k_bounds, K])
         seg_start = np.repeat(k_bounds, k_sizes)
         seg_end = np.repeat(np.r_[k_bounds[1:], K], k_sizes)
+        k_bounds = np.r_[k_bounds, K]
 
     if m == 0:
         starts = np.zeros(0, dtype=np.int64)
@@ -342,6 +357,7 @@ def _prepare(
         a_idx=np.where(entered_late, a + 1, 0),
         seg_end=seg_end,
         seg_start=seg_start,
+        k_bounds=k_bounds,
         row_starts=starts,
         row_counts=counts,
         k_stratum=k_stratum,
@@ -361,6 +377,9 @@ def _prepare(
 # ------------------------------------------------------------------- sums over event times
 
 
+_FEW_STRATA = 64  # up to this many strata, sums restart by looping over strata
+
+
 def _scaled(L: _Layout, op: sparse.csr_matrix, r: np.ndarray) -> sparse.csr_matrix:
     """``op @ diag(r)``: the operator's values times r of their rows (columns of op)."""
     data = r if op is L.risk_op and L.plain_op else op.data * r[op.indices]
@@ -375,13 +394,14 @@ def _risk_sums(L: _Layout, contrib: np.ndarray) -> np.ndarray:
     reverse cumulative sum over event times, restarted at every stratum.
     """
     K, q = contrib.shape
-    if L.n_strata == 1:
+    if L.k_bounds.size <= _FEW_STRATA + 1:
         out = np.empty((q, K))
-        for j in range(q):  # one 1-D pass per column: faster than a 2-D cumsum here
-            np.cumsum(contrib[::-1, j], out=out[j, ::-1])
+        for lo, hi in zip(L.k_bounds[:-1], L.k_bounds[1:], strict=True):
+            for j in range(q):  # one 1-D pass per column: faster than a 2-D cumsum here
+                np.cumsum(contrib[lo:hi][::-1, j], out=out[j, lo:hi][::-1])
         return out
-    # restarted per stratum by subtracting the later strata's total; in extended precision so
-    # that those totals do not swamp a stratum's small late risk sets
+    # many strata: restarted per stratum by subtracting the later strata's total; in extended
+    # precision so that those totals do not swamp a stratum's small late risk sets
     rev = np.zeros((q, K + 1), dtype=np.longdouble)
     rev[:, :-1] = np.cumsum(contrib[::-1].T.astype(np.longdouble), axis=1)[:, ::-1]
     return np.asarray(rev[:, :-1] - rev[:, L.seg_end], dtype=float)
@@ -390,8 +410,9 @@ def _risk_sums(L: _Layout, contrib: np.ndarray) -> np.ndarray:
 def _forward_cum(L: _Layout, c: np.ndarray) -> np.ndarray:
     """Cumulative sum of ``c`` over event times within each stratum, zero-padded in front."""
     out = np.zeros(c.size + 1)
-    if L.n_strata == 1:
-        np.cumsum(c, out=out[1:])
+    if L.k_bounds.size <= _FEW_STRATA + 1:
+        for lo, hi in zip(L.k_bounds[:-1], L.k_bounds[1:], strict=True):
+            np.cumsum(c[lo:hi], out=out[lo + 1 : hi + 1])
         return out
     cum = np.concatenate([[0.0], np.cumsum(c.astype(np.longdouble))])
     out[1:] = cum[1:] - cum[L.seg_start]
@@ -419,12 +440,13 @@ class _Design:
 
     X1: np.ndarray  # (m, 1 + p), C-contiguous
     xwe: np.ndarray  # (p,) sum over events of w x: the part of the score that never changes
+    reach: np.ndarray  # (p,) largest |x| of each standardised column (or a bound on it)
     buf: np.ndarray  # (min(m, _BLOCK), 1 + p) scratch
 
     @classmethod
-    def of(cls, X1: np.ndarray, we: np.ndarray) -> _Design:
+    def of(cls, X1: np.ndarray, we: np.ndarray, reach: np.ndarray) -> _Design:
         buf = np.empty((min(X1.shape[0], _BLOCK), X1.shape[1]))
-        return cls(X1, X1[:, 1:].T @ we, buf)
+        return cls(X1, X1[:, 1:].T @ we, reach, buf)
 
 
 def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
@@ -441,12 +463,12 @@ def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
 
 
 def _evaluate(
-    L: _Layout, D: _Design, beta: np.ndarray, efron: bool, derivs: bool = True
+    L: _Layout, D: _Design, beta: np.ndarray, efron: bool, order: int = 2
 ) -> tuple[float, np.ndarray, np.ndarray]:
     """Log partial likelihood, score and observed information at ``beta``.
 
-    With ``derivs=False`` only the log partial likelihood is computed (score and information
-    are zeros).
+    ``order`` 0 computes the log partial likelihood only, 1 adds the score (which needs the
+    risk-set sums of r only), 2 the information too; what is not computed is zeros.
     """
     X1 = D.X1
     p = X1.shape[1] - 1
@@ -460,8 +482,9 @@ def _evaluate(
     else:
         r = L.w
     efron_terms = efron and L.ties
-    derivs = derivs and p > 0
-    # risk-set sums of r (row 0) and of r x (rows 1..p) at each event time
+    order = order if p > 0 else 0
+    derivs = order == 2
+    # risk-set sums of r (row 0) and, for the information, of r x (rows 1..p) at each event time
     if derivs:
         sums = _risk_sums(L, _scaled(L, L.risk_op, r) @ X1)
     else:
@@ -477,7 +500,7 @@ def _evaluate(
             loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
         else:  # Breslow, or no tied events: one term per event time
             loglik -= float(L.wsum @ log_s0)
-    if not derivs or not np.isfinite(loglik):
+    if order == 0 or not np.isfinite(loglik):
         return loglik, np.zeros(p), np.zeros((p, p))
     T = L.tie_k.size
     # sum_k c_k sum_{i in R_k} r_i x_i x_i' = X' diag(v) X with v_i = r_i sum_{k: i in R_k} c_k;
@@ -495,6 +518,8 @@ def _evaluate(
     v = r * (cum[L.b_idx] - cum[L.a_idx]) if L.late_entry else r * cum[L.b_idx]
     if efron_terms:
         v[L.tie_ev] -= r[L.tie_ev] * bk[L.tie_grp]
+    if order == 1:
+        return loglik, D.xwe - D.X1[:, 1:].T @ v, np.zeros((p, p))
     gram = _weighted_gram(D, v)
     score = D.xwe - gram[1:, 0]
     S1 = sums[1:]
@@ -561,18 +586,51 @@ class _Iterate:
     last_change: float
 
 
+def _diverging(step: np.ndarray, beta: np.ndarray, tol: float) -> np.ndarray:
+    """Columns whose Newton step keeps them moving: a diverging coefficient's steps stay near
+    1 (standardised units), a converging one's shrink quadratically; 1e-4 tells them apart."""
+    big = (np.abs(step) > max(1e-4, 100.0 * tol)) & (np.abs(step) > np.sqrt(tol) * np.abs(beta))
+    return np.flatnonzero(big)
+
+
+def _settled(D: _Design, step: np.ndarray, tol: float) -> bool:
+    """The step changes no row's linear predictor by more than ``100 * tol``: first a bound
+    (``|step| . reach``), then, near that point only, the exact largest change."""
+    bound = float(np.abs(step) @ D.reach)
+    if bound <= 100.0 * tol:
+        return True
+    if bound > 1e-3:
+        return False
+    return float(np.abs(D.X1[:, 1:] @ step).max()) <= 100.0 * tol
+
+
 def _newton(
     L: _Layout, D: _Design, efron: bool, start: _Iterate, max_iter: int, tol: float
 ) -> _Iterate:
-    """Newton steps with step halving from ``start`` (score and information evaluated there)
-    until the log partial likelihood changes by at most ``tol * max(1, |loglik|)``."""
+    """Newton steps with step halving from ``start`` (score and information evaluated there).
+
+    Converged when the next step would change no row's linear predictor by more than
+    ``100 * tol`` (checked only where the information is the full data's, that is after one
+    step at least), so that the information at the last point is, to about that fraction, the
+    one at the estimate; or, where rounding keeps the steps from getting that small, after
+    three steps in a row changed the log partial likelihood by at most
+    ``tol * max(1, |loglik|)``. Also stops, for the caller to report, when the log partial
+    likelihood has levelled off like that while a coefficient keeps moving. The last point
+    evaluated is returned, not the next step's.
+    """
     beta, ll, score, info = start.beta, start.loglik, start.score, start.info
-    iterations = 0
+    iterations = flat = 0
     last_change = float("nan")
     while True:
         step = _solve(info, score)
         if step is None:
             return _Iterate(beta, ll, score, info, iterations, "singular", last_change)
+        if iterations:
+            levelled = abs(last_change) <= tol * max(1.0, abs(ll))
+            flat = flat + 1 if levelled else 0
+            diverging = levelled and _diverging(step, beta, tol).size > 0
+            if diverging or flat >= 3 or _settled(D, step, tol):
+                return _Iterate(beta, ll, score, info, iterations, "converged", last_change)
         if iterations >= max_iter:
             return _Iterate(beta, ll, score, info, iterations, "max_iter", last_change)
         iterations += 1
@@ -588,21 +646,24 @@ def _newton(
                 return _Iterate(beta, ll, score, info, iterations, "halving", last_change)
         last_change = ll_c - ll
         beta, ll, score, info = cand, ll_c, score_c, info_c
-        if abs(last_change) <= tol * max(1.0, abs(ll)):
-            return _Iterate(beta, ll, score, info, iterations, "converged", last_change)
 
 
 # Starting values for large data: Newton's method from zero needs several steps before it
 # reaches the region where it converges quadratically. Those steps are taken on a systematic
-# subsample (every ``stride``-th row in time order, about _WARM_EVENTS events); the full data
-# then need only the last few steps. The estimate is still the full data's maximum.
-_WARM_EVENTS = 10_000
-_WARM_MIN_STRIDE = 4
+# subsample (every ``stride``-th row in time order, stride 4 to 8, at least _WARM_EVENTS
+# events), itself started the same way when it is large enough. The first step on the full
+# data uses the subsample's information scaled up to the full data (its error is of the order
+# of the subsample's sampling error, which the quadratic convergence absorbs), so the full data
+# need the score at the start and then about three full evaluations instead of six or seven.
+# The estimate is still the full data's maximum, and the information the full data's.
+_WARM_EVENTS = 2_500
+_WARM_MIN_STRIDE, _WARM_MAX_STRIDE = 4, 8
 
 
-def _warm_start(L: _Layout, D: _Design, efron: bool) -> np.ndarray | None:
-    """Standardised coefficients fitted on a subsample, or None (too small, or no fit)."""
-    stride = L.events // _WARM_EVENTS
+def _warm_start(L: _Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndarray] | None:
+    """Standardised coefficients fitted on a subsample and its information scaled to the full
+    data, or None (too few events for a subsample to pay off, or no converged fit)."""
+    stride = min(L.events // _WARM_EVENTS, _WARM_MAX_STRIDE)
     if stride < _WARM_MIN_STRIDE:
         return None
     pos = np.arange(0, L.order.size, stride)
@@ -616,25 +677,59 @@ def _warm_start(L: _Layout, D: _Design, efron: bool) -> np.ndarray | None:
     )
     if sub.events == 0:
         return None
-    Dsub = _Design.of(D.X1[pos[sub.order]], sub.we)
+    Dsub = _Design.of(D.X1[pos[sub.order]], sub.we, D.reach)
+    fit = _newton(sub, Dsub, efron, _start(sub, Dsub, efron), 30, 1e-5)
+    if fit.status != "converged" or not np.isfinite(fit.beta).all():
+        return None
+    nxt = _solve(fit.info, fit.score)
+    if nxt is None or np.abs(nxt).max() > 0.1:  # e.g. a coefficient diverging in the subsample
+        return None
+    return fit.beta, fit.info * (L.wsum.sum() / sub.wsum.sum())
+
+
+def _start(
+    L: _Layout, D: _Design, efron: bool, ll0: float | None = None, warm_ok: bool = True
+) -> _Iterate:
+    """Where Newton's method starts without starting values: at a subsample's estimate (with
+    the score there and the subsample's information) when that pays off, otherwise at zero."""
     zero = np.zeros(D.X1.shape[1] - 1)
-    ll, score, info = _evaluate(sub, Dsub, zero, efron)
-    fit = _newton(sub, Dsub, efron, _Iterate(zero, ll, score, info, 0, "", ll), 30, 1e-6)
-    ok = fit.status == "converged" and np.isfinite(fit.beta).all()
-    return fit.beta if ok else None
+    warm = _warm_start(L, D, efron) if warm_ok else None
+    if warm is not None:
+        ll, score, _ = _evaluate(L, D, warm[0], efron, 1)
+        if ll0 is None:
+            ll0 = _evaluate(L, D, zero, efron, 0)[0]
+        if np.isfinite(ll) and ll >= ll0:
+            return _Iterate(warm[0], ll, score, warm[1], 0, "", ll)
+    ll, score, info = _evaluate(L, D, zero, efron)  # no (useful) subsample fit
+    return _Iterate(zero, ll, score, info, 0, "", ll)
+
+
+def _largest_abs(a: np.ndarray, rows: int = 256) -> np.ndarray:
+    """Largest |value| of each column of a C-contiguous (m, p) array. Reduced over blocks of
+    ``rows`` rows seen as one wide row (a plain reduction down 8 columns is ~8x slower)."""
+    m, p = a.shape
+    if p == 0:
+        return np.zeros(0)
+    k = m // rows * rows
+    wide = a[:k].reshape(-1, rows * p)
+    hi = wide.max(axis=0, initial=-np.inf).reshape(rows, p).max(axis=0)
+    lo = wide.min(axis=0, initial=np.inf).reshape(rows, p).min(axis=0)
+    hi = np.maximum(hi, a[k:].max(axis=0, initial=-np.inf))
+    lo = np.minimum(lo, a[k:].min(axis=0, initial=np.inf))
+    return np.maximum(hi, -lo)
 
 
 def _standardised(Xa: np.ndarray, L: _Layout) -> tuple[_Design, np.ndarray, np.ndarray]:
-    """The kept rows of X, sorted, centred and scaled, behind a column of ones; and the
-    column means and standard deviations (0 for a constant column)."""
+    """The kept rows of X, sorted, centred and scaled, behind a column of ones; the scale of
+    each column (to map estimates back) and its standard deviation (0 for a constant column)."""
     m, p = L.order.size, Xa.shape[1]
     X1 = np.empty((m, 1 + p))
     X1[:, 0] = 1.0
     if m == 0:
-        return _Design.of(X1, L.we), np.zeros(p), np.zeros(p)
+        return _Design.of(X1, L.we, np.zeros(p)), np.ones(p), np.zeros(p)
     if Xa.flags.f_contiguous and not Xa.flags.c_contiguous:  # e.g. from a data frame
         cols = np.empty((p, m))
-        for j in range(p):
+        for j in range(p):  # gather column by column: each column is contiguous
             np.take(Xa[:, j], L.order, out=cols[j])
         sorted_x = cols.T
     else:
@@ -643,8 +738,10 @@ def _standardised(Xa: np.ndarray, L: _Layout) -> tuple[_Design, np.ndarray, np.n
     sorted_x -= mean
     sd = np.sqrt(np.einsum("ij,ij->j", sorted_x, sorted_x) / m)
     sd[sd <= 1e-12 * np.maximum(1.0, np.abs(mean))] = 0.0  # constant up to rounding
-    np.multiply(sorted_x, 1.0 / np.where(sd > 0, sd, 1.0), out=X1[:, 1:])
-    return _Design.of(X1, L.we), mean, sd
+    scale = np.where(sd > 0, sd, 1.0)
+    reach = _largest_abs(sorted_x) / scale
+    np.multiply(sorted_x, 1.0 / scale, out=X1[:, 1:])
+    return _Design.of(X1, L.we, reach), scale, sd
 
 
 def fit_cox(
@@ -667,10 +764,15 @@ def fit_cox(
     strata: optional labels; each stratum has its own baseline hazard.
     weights: optional positive case weights (the information is the model-based one, not a
     robust sandwich). ties: "efron" (default) or "breslow".
-    Convergence: Newton steps with step halving until the log partial likelihood changes by
-    less than ``tol * max(1, |loglik|)``. ``init`` are starting values on the scale of X;
-    without them, data with many events start from a fit to a subsample (``iterations``
-    counts the steps on the full data only).
+    Convergence: Newton steps with step halving until the next step would change no row's
+    linear predictor by more than ``100 * tol``; that step is then taken (``loglik`` is its
+    quadratic prediction, ``cov`` the inverse information at the last point evaluated, where
+    no weight exp(eta) differs by more than that fraction). A coefficient that keeps moving
+    once the log partial likelihood changes by less than ``tol * max(1, |loglik|)`` is
+    reported as diverging.
+    ``init`` are starting values on the scale of X; without them, data with many events
+    (10,000 or more) start from a fit to a subsample (``iterations`` counts the steps on the
+    full data only).
     """
     if ties not in ("efron", "breslow"):
         raise ValueError(f"ties must be 'efron' or 'breslow', got {ties!r}")
@@ -684,34 +786,27 @@ def fit_cox(
         msg = "" if p == 0 else "no events: the coefficients are not estimable"
         return CoxFit(nan_coef, nan_cov, 0.0, 0.0, 0, p == 0, msg, n, 0)
 
-    D, _, sd = _standardised(Xa, L)
-    scale = np.where(sd > 0, sd, 1.0)
-    zero = np.zeros(p)
-    warm = None if init is not None or p == 0 else _warm_start(L, D, efron)
-    ll0, score, info = _evaluate(L, D, zero, efron, derivs=init is None and warm is None)
+    D, scale, sd = _standardised(Xa, L)
+    ll0 = _evaluate(L, D, np.zeros(p), efron, 0)[0]
     if p == 0:
         return CoxFit(np.zeros(0), np.zeros((0, 0)), ll0, ll0, 0, True, "", n, L.events)
 
-    beta, ll = zero, ll0
-    if init is not None:
+    if init is None:
+        # (with no step allowed, the information must be the full data's)
+        start = _start(L, D, efron, ll0, warm_ok=max_iter >= 1)
+    else:
         init_arr = _as_1d("init", init, None)
         if init_arr.shape[0] != p:
             raise ValueError(f"init has {init_arr.shape[0]} values but X has {p} columns")
         _check_finite("init", init_arr)
-        beta = init_arr * scale
-        ll, score, info = _evaluate(L, D, beta, efron)
+        ll, score, info = _evaluate(L, D, init_arr * scale, efron)
         if not np.isfinite(ll):
             msg = (
                 "log partial likelihood is not finite at the starting values (init); "
                 "start from zero or from smaller values"
             )
             return CoxFit(nan_coef, nan_cov, ll, ll0, 0, False, msg, n, L.events)
-    elif warm is not None:
-        ll_w, score_w, info_w = _evaluate(L, D, warm, efron)
-        if np.isfinite(ll_w) and ll_w >= ll0:
-            beta, ll, score, info = warm, ll_w, score_w, info_w
-        else:  # the subsample misled: start from zero after all
-            ll, score, info = _evaluate(L, D, zero, efron)
+        start = _Iterate(init_arr * scale, ll, score, info, 0, "", ll)
 
     def back(b: np.ndarray, inf: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         try:
@@ -720,7 +815,7 @@ def fit_cox(
             return b / scale, nan_cov
         return b / scale, cov_s / np.outer(scale, scale)
 
-    it = _newton(L, D, efron, _Iterate(beta, ll, score, info, 0, "", ll), max_iter, tol)
+    it = _newton(L, D, efron, start, max_iter, tol)
     beta, ll, score, info, iterations = it.beta, it.loglik, it.score, it.info, it.iterations
     message = ""
     if it.status == "singular":
@@ -740,16 +835,18 @@ def fit_cox(
         )
     converged = it.status == "converged"
     if converged:
-        # a coefficient that keeps moving although the likelihood stopped changing is going to
-        # infinity (monotone likelihood), as when one group has no events
+        # the Newton step from the last point: a coefficient that keeps moving although the
+        # likelihood stopped changing is going to infinity (monotone likelihood), as when one
+        # group has no events; otherwise the step is taken without evaluating its end point
+        # (its log partial likelihood is the quadratic prediction, error of the order of the
+        # step cubed; the information stays the last point's, where no weight exp(eta)
+        # differs from the estimate's by more than a fraction of about 100 * tol)
         nxt = _solve(info, score)
         if nxt is None:
             message = _singular_message(info, sd)
             coef, _ = back(beta, info)
             return CoxFit(coef, nan_cov, ll, ll0, iterations, False, message, n, L.events)
-        diverging = np.flatnonzero(
-            (np.abs(nxt) > max(tol, 1e-8)) & (np.abs(nxt) > np.sqrt(tol) * np.abs(beta))
-        )
+        diverging = _diverging(nxt, beta, tol)
         if diverging.size:
             converged = False
             message = (
@@ -758,6 +855,9 @@ def fit_cox(
                 "one group of a binary column); the estimate is infinite - merge groups or "
                 "drop the column"
             )
+        else:
+            ll += float(score @ nxt) / 2.0
+            beta = beta + nxt
     coef, cov = back(beta, info)
     if not np.isfinite(cov).all() and not message:
         message = "the information matrix could not be inverted at the estimate"

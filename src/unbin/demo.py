@@ -168,10 +168,12 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS) -> dict[str, Any]:
                           "upper": 2.5}},
             {"name": "visits_bmi",
              "outcome": {"type": "count", "count": "visits", "persontime": "person_years"},
-             "exposure": "bmi", "adjust": ["age", "diabetes"]},
+             "exposure": "bmi", "adjust": ["age", "diabetes"],
+             "risk_thresholds": [1.5]},  # clinic visits per person-year
             {"name": "sbp_urate",
              "outcome": {"type": "continuous", "value": "sbp"},
              "exposure": "urate", "adjust": ["age", "sex"],
+             "risk_thresholds": [140],  # predicted mean systolic pressure, mmHg
              "filters": [{"variable": "age", "min": 18}]},
         ],
         "continuous": {"forms": ["linear", "spline", "fp"], "spline_knots": [3, 4, 5]},

@@ -18,10 +18,18 @@ INTERCEPT = "(intercept)"
 
 
 def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    mean = X.mean(axis=0) if X.shape[1] else np.zeros(0)
-    sd = X.std(axis=0) if X.shape[1] else np.zeros(0)
+    """``[1, (X - mean) / sd]`` written straight into one array (no (n, p) temporaries)."""
+    n, p = X.shape
+    Z = np.empty((n, p + 1))
+    Z[:, 0] = 1.0
+    if p == 0:
+        return Z, np.zeros(0), np.zeros(0)
+    mean = X.mean(axis=0)
+    Zs = Z[:, 1:]
+    np.subtract(X, mean, out=Zs)
+    sd = np.sqrt(np.einsum("ij,ij->j", Zs, Zs) / n) if n else np.zeros(p)
     sd = np.where(sd > 0, sd, 1.0)
-    Z = np.column_stack([np.ones(X.shape[0]), (X - mean) / sd])
+    Zs /= sd
     return Z, mean, sd
 
 
@@ -35,11 +43,13 @@ def back_transform(theta_s: np.ndarray, cov_s: np.ndarray, mean: np.ndarray,
     return A @ theta_s, A @ cov_s @ A.T
 
 
-def check_design(X: np.ndarray, names: tuple[str, ...]) -> str:
-    """A message naming the collinear columns, or '' when the design has full rank."""
+def check_design(X: np.ndarray, names: tuple[str, ...], Z: np.ndarray | None = None) -> str:
+    """A message naming the collinear columns, or '' when the design has full rank.
+    ``Z`` is ``standardise(X)[0]`` when the caller has it already."""
     if X.shape[1] == 0:
         return ""
-    Z, _, _ = standardise(X)
+    if Z is None:
+        Z, _, _ = standardise(X)
     rank = np.linalg.matrix_rank(Z)
     if rank == Z.shape[1]:
         return ""
@@ -59,10 +69,10 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], n: int, events: 
             separation_check: Callable[[np.ndarray], str] | None = None) -> FitResult:
     """Fit with ``fitter(Z)`` (a statsmodels results object) and record warnings and failures."""
     all_names = (INTERCEPT, *names)
-    problem = check_design(X, names)
+    Z, mean, sd = standardise(X)  # once: the rank check and the fit share it
+    problem = check_design(X, names, Z)
     if problem:
         return failed_fit(family, all_names, n, events, problem)
-    Z, mean, sd = standardise(X)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
