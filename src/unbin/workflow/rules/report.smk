@@ -16,6 +16,8 @@ rule draw_figures:
         digests=study_params(UNBIN_SPEC),
     log:
         "logs/figures/{cohort}.log",
+    benchmark:
+        "benchmarks/draw_figures/{cohort}.tsv"
     script:
         "../scripts/draw_figures.py"
 
@@ -32,5 +34,7 @@ rule build_report:
         digests=study_params(UNBIN_SPEC),
     log:
         "logs/report.log",
+    benchmark:
+        "benchmarks/build_report/all.tsv"
     script:
         "../scripts/build_report.py"

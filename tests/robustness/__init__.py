@@ -1,0 +1,1 @@
+"""Robustness: bad input, fuzzed specs, interrupted runs."""
