@@ -29,6 +29,9 @@ def fit_binary(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitRe
 
     def fitter(Z: np.ndarray) -> Any:
         model = sm.GLM(y, Z, family=sm.families.Binomial(), freq_weights=outcome.weights)
-        return model.fit(maxiter=100, tol=1e-10)
+        # rtol: at registry scale the deviance (~1e6) wobbles by a few units in the last place
+        # between iterations, more than an absolute 1e-10; without a relative tolerance a
+        # fit that has converged runs to maxiter and is reported as not converged.
+        return model.fit(maxiter=100, tol=1e-10, rtol=1e-13)
 
     return run_glm("binary", X, names, outcome.n, events, fitter, separation_check=separation)

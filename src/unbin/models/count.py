@@ -18,7 +18,10 @@ def fit_count(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitRes
     def fitter(Z: np.ndarray) -> Any:
         model = sm.GLM(y, Z, family=sm.families.Poisson(), offset=outcome.offset,
                        freq_weights=outcome.weights)
-        return model.fit(maxiter=100, tol=1e-10)
+        # rtol: at registry scale the deviance (~1e6) wobbles by a few units in the last place
+        # between iterations, more than an absolute 1e-10; without a relative tolerance a
+        # fit that has converged runs to maxiter and is reported as not converged.
+        return model.fit(maxiter=100, tol=1e-10, rtol=1e-13)
 
     res = run_glm("count", X, names, outcome.n, int(y.sum()), fitter)
     if res.ok:
