@@ -33,14 +33,14 @@ import json  # noqa: E402
 import platform  # noqa: E402
 import statistics  # noqa: E402
 import sys  # noqa: E402
-import time  # noqa: E402
-import tracemalloc  # noqa: E402
 import warnings  # noqa: E402
-from collections.abc import Callable  # noqa: E402
 from typing import Any  # noqa: E402
 
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
+from _measure import fmt as _fmt  # noqa: E402
+from _measure import peak_mib as _peak_mib  # noqa: E402
+from _measure import timed  # noqa: E402
 
 from unbin.cox import fit_cox  # noqa: E402
 from unbin.terms import SplineTerm  # noqa: E402
@@ -83,20 +83,8 @@ def simulate(
     return X, time_years, event
 
 
-def _peak_mib(fn: Callable[[], Any]) -> float:
-    tracemalloc.start()
-    tracemalloc.reset_peak()
-    try:
-        fn()
-        return tracemalloc.get_traced_memory()[1] / 2**20
-    finally:
-        tracemalloc.stop()
 
 
-def _timed(fn: Callable[[], Any]) -> tuple[float, Any]:
-    start = time.perf_counter()
-    out = fn()
-    return time.perf_counter() - start, out
 
 
 def measure(
@@ -117,7 +105,7 @@ def measure(
     times = []
     fit = None
     for _ in range(max(1, repeats)):
-        seconds, fit = _timed(run_unbin)
+        seconds, fit = timed(run_unbin)
         times.append(seconds)
     assert fit is not None
     row: dict[str, Any] = {
@@ -146,7 +134,7 @@ def measure(
         run_ref = lambda: CoxPHFitter().fit(frame, "time", "event")  # noqa: E731
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            seconds, ref = _timed(run_ref)
+            seconds, ref = timed(run_ref)
         row["lifelines_converged"] = not any("converge" in str(w.message).lower() for w in caught)
         row["lifelines_loglik_minus_unbin"] = float(ref.log_likelihood_ - fit.loglik)
         row["lifelines_seconds"] = seconds
@@ -161,8 +149,6 @@ def measure(
     return row
 
 
-def _fmt(value: Any, spec: str) -> str:
-    return "–" if value is None else format(value, spec)
 
 
 def markdown(rows: list[dict[str, Any]]) -> str:

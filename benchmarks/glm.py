@@ -35,7 +35,6 @@ import json  # noqa: E402
 import platform  # noqa: E402
 import statistics  # noqa: E402
 import time  # noqa: E402
-import tracemalloc  # noqa: E402
 import warnings  # noqa: E402
 from collections.abc import Callable  # noqa: E402
 from dataclasses import dataclass  # noqa: E402
@@ -43,6 +42,8 @@ from typing import Any  # noqa: E402
 
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
+from _measure import fmt as _fmt  # noqa: E402
+from _measure import peak_mib as _peak_mib  # noqa: E402
 
 from unbin.models import Outcome, fit  # noqa: E402
 from unbin.terms import SplineTerm  # noqa: E402
@@ -86,14 +87,6 @@ def simulate(n: int, p: int, seed: int) -> Cohort:
     return Cohort(X, names, y_binary, y_count, np.log(years))
 
 
-def _peak_mib(fn: Callable[[], Any]) -> float:
-    tracemalloc.start()
-    tracemalloc.reset_peak()
-    try:
-        fn()
-        return tracemalloc.get_traced_memory()[1] / 2**20
-    finally:
-        tracemalloc.stop()
 
 
 def _median_seconds(fn: Callable[[], Any], repeats: int) -> tuple[float, Any]:
@@ -157,8 +150,6 @@ def measure(
     }
 
 
-def _fmt(value: Any, spec: str) -> str:
-    return "–" if value is None else format(value, spec)
 
 
 def markdown(rows: list[dict[str, Any]]) -> str:

@@ -8,10 +8,14 @@ import os
 import sys
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from rich.console import Console
 
 from .errors import SpecError, UnbinError
+
+if TYPE_CHECKING:
+    from .spec import Spec
 
 
 def _console(quiet: bool = False) -> Console:
@@ -21,23 +25,31 @@ def _console(quiet: bool = False) -> Console:
                    width=width)
 
 
-def cmd_check(args: argparse.Namespace) -> int:
+def _usable_spec(path: Path, console: Console) -> Spec | None:
+    """The loaded spec when it is valid and matches its data; else print every problem (spec
+    problems first, then data problems) and return None."""
     from .data import data_problems
     from .spec import load_spec
 
-    console = _console()
     try:
-        spec = load_spec(args.spec)
+        spec = load_spec(path)
     except SpecError as exc:
-        console.print(f"[red]The spec has {len(exc.problems)} problem(s):[/red]")
-        for p in exc.problems:
-            console.print(f"  - {p}", markup=False)
-        return 2
-    problems = data_problems(spec)
-    if problems:
-        console.print(f"[red]The spec does not match the data: {len(problems)} problem(s):[/red]")
-        for p in problems:
-            console.print(f"  - {p}", markup=False)
+        problems, what = exc.problems, "The spec has"
+    else:
+        problems, what = data_problems(spec), "The spec does not match the data:"
+        if not problems:
+            return spec
+    console.print(f"[red]{what} {len(problems)} problem(s):[/red]")
+    for p in problems:
+        console.print(f"  - {p}", markup=False)
+    return None
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+
+    console = _console()
+    spec = _usable_spec(Path(args.spec), console)
+    if spec is None:
         return 2
     console.print(f"Spec {args.spec} is usable: {len(spec.cohorts)} cohort(s), "
                   f"{len(spec.analyses)} analysis(es).")
@@ -47,25 +59,12 @@ def cmd_check(args: argparse.Namespace) -> int:
 def _run(spec_path: Path, out: Path, cores: int, profile: str | None, quiet: bool) -> int:
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
-    from .data import data_problems
     from .runner import run_workflow
-    from .spec import load_spec
     from .summary import print_summary
 
     console = _console(quiet)
     errors = _console()  # problems are printed even with --quiet: the exit code alone says little
-    try:
-        spec = load_spec(spec_path)
-    except SpecError as exc:
-        errors.print(f"[red]The spec has {len(exc.problems)} problem(s):[/red]")
-        for p in exc.problems:
-            errors.print(f"  - {p}", markup=False)
-        return 2
-    problems = data_problems(spec)
-    if problems:
-        errors.print(f"[red]The spec does not match the data: {len(problems)} problem(s):[/red]")
-        for p in problems:
-            errors.print(f"  - {p}", markup=False)
+    if _usable_spec(spec_path, errors) is None:
         return 2
     start = time.perf_counter()
     with Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
