@@ -14,6 +14,9 @@ class Outcome:
 
     ``y`` is the event indicator (binary, survival), the value (continuous) or the count (count).
     ``offset`` is log person-time (count). ``time``/``entry``/``strata`` are for survival.
+    ``cache`` holds what fitters derive from the outcome alone and reuse across the many fits
+    of one sample (e.g. the Cox engine's sorted risk-set layout); it is never compared or
+    shown, and a subset starts with an empty one.
     """
 
     family: str
@@ -23,6 +26,7 @@ class Outcome:
     entry: np.ndarray | None = None
     strata: np.ndarray | None = None
     weights: np.ndarray | None = None
+    cache: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def n(self) -> int:
