@@ -39,6 +39,7 @@ import pandas as pd
 from scipy import special
 
 from .models import EFFECT_SCALE, RATIO_FAMILIES, Outcome, fit
+from .models._glm import gram
 from .models.base import FitResult
 from .refit import Refit, adjustment_terms, design
 from .spec import Spec
@@ -138,33 +139,23 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: np.ndarray,
 class _Pairs:
     """Products of every pair of design columns, z_i z_j (i <= j), so that the information
     matrices of all replicates come from one matrix product: H[c] = sum_n wv[c, n] z_n z_n'.
-    Kept when small, otherwise rebuilt block by block of rows."""
+    Formed only when small (``cached`` is None otherwise: ``_information`` then takes one
+    blocked product per replicate)."""
 
     def __init__(self, Z: np.ndarray):
-        self.Z = Z
         self.iu = np.triu_indices(Z.shape[1])
-        n, k = Z.shape[0], len(self.iu[0])
-        self.block = max(1, _CHUNK_CELLS // max(k, 1))
-        self.cached = self._products(slice(0, n)) if n * k <= _CHUNK_CELLS else None
-
-    def _products(self, rows: slice) -> np.ndarray:
-        Zr = self.Z[rows]
-        return np.asarray(Zr[:, self.iu[0]] * Zr[:, self.iu[1]])
-
-    def weighted_sums(self, wv: np.ndarray) -> np.ndarray:
-        if self.cached is not None:
-            return np.asarray(wv @ self.cached)
-        n = self.Z.shape[0]
-        out = np.zeros((wv.shape[0], len(self.iu[0])))
-        for r0 in range(0, n, self.block):
-            rows = slice(r0, min(n, r0 + self.block))
-            out += wv[:, rows] @ self._products(rows)
-        return out
+        k = len(self.iu[0])
+        self.cached = (np.asarray(Z[:, self.iu[0]] * Z[:, self.iu[1]])
+                       if Z.shape[0] * k <= _CHUNK_CELLS else None)
 
 
 def _information(Z: np.ndarray, wv: np.ndarray, pairs: _Pairs) -> np.ndarray:
+    if pairs.cached is None:
+        # Large samples come a few replicates at a time: one blocked Z' diag(w) Z product per
+        # replicate beats forming the pairwise products again in every iteration.
+        return np.stack([gram(Z, w) for w in wv])
     p = Z.shape[1]
-    flat = pairs.weighted_sums(wv)
+    flat = np.asarray(wv @ pairs.cached)
     H = np.empty((wv.shape[0], p, p))
     i, j = pairs.iu
     H[:, i, j] = flat

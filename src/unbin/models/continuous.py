@@ -1,9 +1,7 @@
-"""Linear regression (statsmodels OLS) on numpy arrays; the residual variance counts as a
-parameter in AIC/BIC (maximum-likelihood log-likelihood)."""
+"""Linear regression on numpy arrays (least squares by unbin's solver); the residual variance
+counts as a parameter in AIC/BIC (maximum-likelihood log-likelihood)."""
 
 from __future__ import annotations
-
-from typing import Any
 
 import numpy as np
 
@@ -12,16 +10,8 @@ from .base import FitResult, Outcome
 
 
 def fit_continuous(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
-    import statsmodels.api as sm
-
     y = outcome.y.astype(float)
-
-    def fitter(Z: np.ndarray) -> Any:
-        if outcome.weights is not None:
-            return sm.WLS(y, Z, weights=outcome.weights).fit()
-        return sm.OLS(y, Z).fit()
-
-    res = run_glm("continuous", X, names, outcome.n, None, fitter, n_extra_params=1)
+    res = run_glm("continuous", X, names, outcome, None, n_extra_params=1)
     if res.ok and res.linear_predictor is not None:
         fitted = res.linear_predictor + res.extra["intercept"]
         ss_res = float(np.sum((y - fitted) ** 2))
