@@ -144,13 +144,30 @@ def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> 
 
 
 def design(df: pd.DataFrame, x: np.ndarray, exposure: tuple[Term, ...],
-           adjust: tuple[Term, ...]) -> tuple[np.ndarray, tuple[str, ...]]:
-    cols = [t.basis(x) for t in exposure] + [t.basis(df[t.variable].to_numpy())
-                                             if isinstance(t, CategoricalTerm)
-                                             else t.basis(df[t.variable].to_numpy(float))
-                                             for t in adjust]
+           adjust: tuple[Term, ...], cache: dict[str, np.ndarray] | None = None,
+           ) -> tuple[np.ndarray, tuple[str, ...]]:
+    """The design matrix (exposure columns, then adjustment columns) and its column names.
+    ``cache`` keeps the adjustment terms' columns between calls on the same rows (an analysis
+    fits dozens of exposure forms against the same few adjustment sets)."""
+    def adjust_basis(t: Term) -> np.ndarray:
+        key = repr(t)
+        if cache is not None and key in cache:
+            return cache[key]
+        col = df[t.variable].to_numpy()
+        b = t.basis(col if isinstance(t, CategoricalTerm) else col.astype(float))
+        b = np.asarray(b, dtype=float).reshape(len(x), -1)
+        if cache is not None:
+            cache[key] = b
+        return b
+
+    cols = [np.asarray(t.basis(x), dtype=float).reshape(len(x), -1) for t in exposure]
+    cols += [adjust_basis(t) for t in adjust]
     names = tuple(n for t in (*exposure, *adjust) for n in t.names())
-    X = np.column_stack(cols) if cols else np.zeros((len(x), 0))
+    X = np.empty((len(x), sum(c.shape[1] for c in cols)))
+    j = 0
+    for c in cols:
+        X[:, j:j + c.shape[1]] = c
+        j += c.shape[1]
     return X, names
 
 
@@ -161,11 +178,12 @@ class _Fitter:
         self.r = refit
         self.df = df
         self.cache: dict[tuple[str, ...], FitResult] = {}
+        self.columns: dict[str, np.ndarray] = {}  # adjustment columns, built once
 
     def run(self, exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> FitResult:
         key = tuple(repr(t) for t in (*exposure, *adjust))
         if key not in self.cache:
-            X, names = design(self.df, self.r.x, exposure, adjust)
+            X, names = design(self.df, self.r.x, exposure, adjust, self.columns)
             res = fit(self.r.family, X, self.r.outcome, names)
             self.cache[key] = _epv_warning(res)
         return self.cache[key]

@@ -45,6 +45,7 @@ _REL_TOL = 1e-12
 _ABS_TOL = 1e-10
 _STEP_TOL = 1e-10
 _BLOCK_ROWS = 1 << 15
+_PASS_ROWS = 1 << 13  # rows per block of one likelihood pass (a few hundred kB)
 # An information (Gram) matrix this well conditioned has full rank beyond doubt; below it, the
 # singular values of the design itself decide (numpy's matrix_rank), which also names the tied
 # columns. (The Gram's eigenvalues are the squared singular values, accurate to about
@@ -53,18 +54,21 @@ _GRAM_RCOND = 1e-10
 
 
 def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """``[1, (X - mean) / sd]`` written straight into one array (no (n, p) temporaries)."""
+    """``[1, (X - mean) / sd]`` written straight into one array (no (n, p) temporaries). The
+    scale comes from the raw second moments (one pass): it only conditions the problem, and
+    the estimates are mapped back with the very values used."""
     n, p = X.shape
     Z = np.empty((n, p + 1))
     Z[:, 0] = 1.0
-    if p == 0:
-        return Z, np.zeros(0), np.zeros(0)
-    mean = X.mean(axis=0)
+    if p == 0 or n == 0:
+        return Z, np.zeros(p), np.ones(p)
+    mean = (np.ones(n) @ X) / n
+    var = np.einsum("ij,ij->j", X, X) / n - mean * mean
+    # a column whose variance is lost in the rounding of its mean is constant: left unscaled
+    sd = np.where(var > 1e-13 * np.maximum(mean * mean, 1e-300), np.sqrt(np.abs(var)), 1.0)
     Zs = Z[:, 1:]
     np.subtract(X, mean, out=Zs)
-    sd = np.sqrt(np.einsum("ij,ij->j", Zs, Zs) / n) if n else np.zeros(p)
-    sd = np.where(sd > 0, sd, 1.0)
-    Zs /= sd
+    Zs *= 1.0 / sd
     return Z, mean, sd
 
 
@@ -122,39 +126,64 @@ class _Solution:
 
 
 class _Family:
-    """Mean, variance and log-likelihood of one family on the linear predictor."""
+    """One pass over the rows, in blocks that stay in cache: the log-likelihood, score and
+    information at one linear predictor, for the logistic or the Poisson model."""
 
-    def __init__(self, family: str, y: np.ndarray, f: np.ndarray | None):
-        self.family, self.y, self.f = family, y, f
+    def __init__(self, family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
+                 f: np.ndarray | None):
+        self.binary = family == "binary"
+        self.Z, self.y, self.off, self.f = Z, y, off, f
         self.const = 0.0
-        if family == "count":  # the log(y!) term of the Poisson log-likelihood
-            self.const = -float(np.sum(special.gammaln(y + 1.0) if f is None
-                                       else f * special.gammaln(y + 1.0)))
+        if not self.binary:  # the log(y!) term of the Poisson log-likelihood
+            lg = special.gammaln(y + 1.0)
+            self.const = -float(lg.sum() if f is None else f @ lg)
 
-    def _sum(self, a: np.ndarray) -> float:
-        return float(a.sum() if self.f is None else self.f @ a)
+    def evaluate(self, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+        Z, y, off, f = self.Z, self.y, self.off, self.f
+        n, k = Z.shape
+        ll, score, H = self.const, np.zeros(k), np.zeros((k, k))
+        for r0 in range(0, n, _PASS_ROWS):
+            r1 = min(n, r0 + _PASS_ROWS)
+            Zb, yb = Z[r0:r1], y[r0:r1]
+            eta = Zb @ theta
+            if off is not None:
+                eta += off[r0:r1]
+            if self.binary:
+                # one exp and one log1p give the mean, the variance and log(1 + e^eta) stably
+                e = np.exp(-np.abs(eta))
+                inv = 1.0 / (1.0 + e)
+                mu = np.where(eta >= 0, inv, e * inv)
+                v = e * inv * inv  # mu (1 - mu), without cancellation
+                terms = yb * eta - (np.maximum(eta, 0.0) + np.log1p(e))
+            else:
+                mu = np.exp(np.minimum(eta, 700.0))
+                v = mu
+                terms = yb * eta - mu
+            resid = yb - mu
+            if f is not None:
+                fb = f[r0:r1]
+                terms, resid, v = fb * terms, fb * resid, fb * v
+            ll += float(terms.sum())
+            score += Zb.T @ resid
+            H += (Zb * v[:, None]).T @ Zb
+        return ll, score, H
 
-    def mean_var(self, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        if self.family == "binary":
-            mu = special.expit(eta)
-            return mu, mu * (1.0 - mu)
-        mu = np.exp(np.minimum(eta, 700.0))
-        return mu, mu
-
-    def loglik(self, eta: np.ndarray) -> float:
-        if self.family == "binary":
-            return self._sum(self.y * eta - np.logaddexp(0.0, eta))
-        return self._sum(self.y * eta - np.exp(np.minimum(eta, 700.0))) + self.const
-
-    def start(self) -> tuple[np.ndarray, np.ndarray]:
-        """The customary starting means and their linear predictors."""
-        y = self.y
-        if self.family == "binary":
+    def start(self) -> np.ndarray:
+        """Coefficients of the weighted least-squares step from the customary starting means."""
+        Z, y, f = self.Z, self.y, self.f
+        if self.binary:
             mu = (y + 0.5) / 2.0
-            return mu, np.log(mu / (1.0 - mu))
-        ybar = self._sum(y) / (y.size if self.f is None else float(self.f.sum()))
-        mu = (y + ybar) / 2.0
-        return mu, np.log(mu)
+            eta0 = np.log(mu / (1.0 - mu))
+            v = mu * (1.0 - mu)
+        else:
+            ybar = float(y.mean() if f is None else (f @ y) / f.sum())
+            mu = (y + ybar) / 2.0
+            eta0, v = np.log(mu), mu
+        fv = v if f is None else f * v
+        cf = _cholesky(gram(Z, fv))
+        if cf is None:
+            return np.full(Z.shape[1], np.nan)
+        return linalg.cho_solve(cf, Z.T @ (fv * eta0 + (y - mu) * (1.0 if f is None else f)))
 
 
 def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
@@ -167,38 +196,27 @@ def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
 def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
             f: np.ndarray | None) -> _Solution:
     """Maximum likelihood of the logistic or Poisson model on the standardised design."""
-    fam = _Family(family, y, f)
+    fam = _Family(family, Z, y, off, f)
     k = Z.shape[1]
     nan = _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0, "")
-    mu, eta0 = fam.start()
-    v = mu * (1.0 - mu) if family == "binary" else mu
-    fv = v if f is None else f * v
-    zwork = eta0 + (y - mu) / v  # working response (offset excluded)
-    cf = _cholesky(gram(Z, fv))
-    if cf is None:
+    theta = fam.start()
+    if not np.all(np.isfinite(theta)):
         nan.message = "the information matrix is singular at the start; check the design."
         return nan
-    theta = linalg.cho_solve(cf, Z.T @ (fv * zwork))
     ll_prev, step = -np.inf, np.zeros(k)
     for it in range(1, MAX_ITER + 1):
-        eta = Z @ theta
-        if off is not None:
-            eta += off
-        ll = fam.loglik(eta)
+        ll, score, H = fam.evaluate(theta)
         halvings = 0
         while not (np.isfinite(ll) and ll >= ll_prev - _ABS_TOL) and halvings < 30:
             step /= 2.0
             theta = theta - step
-            eta = Z @ theta if off is None else Z @ theta + off
-            ll = fam.loglik(eta)
+            ll, score, H = fam.evaluate(theta)
             halvings += 1
         if not np.isfinite(ll):
             nan.message = "the log-likelihood is not finite; check for extreme values."
             nan.iterations = it
             return nan
-        mu, v = fam.mean_var(eta)
-        resid = y - mu if f is None else f * (y - mu)
-        cf = _cholesky(gram(Z, v if f is None else f * v))
+        cf = _cholesky(H)
         if cf is None:
             nan.message = ("the information matrix became singular; check for separation or "
                            "an empty group.")
@@ -212,7 +230,7 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
                 "step halving could not improve the log-likelihood; the model may be "
                 "overparameterised or a covariate may have extreme values.")
             return _Solution(theta, cov, ll, it, msg)
-        step = linalg.cho_solve(cf, Z.T @ resid)
+        step = linalg.cho_solve(cf, score)
         ll_prev = ll
         theta = theta + step
     return _Solution(theta, np.full((k, k), np.nan), ll, MAX_ITER,
