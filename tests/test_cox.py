@@ -19,7 +19,16 @@ from lifelines import CoxPHFitter, CoxTimeVaryingFitter
 from lifelines.datasets import load_rossi
 from lifelines.utils import concordance_index
 
-from unbin.cox import CoxFit, baseline_cumhaz, concordance, fit_cox, predict_risk
+from unbin.cox import (
+    CoxFit,
+    baseline_cumhaz,
+    concordance,
+    fit_cox,
+    predict_risk,
+    prepare_layout,
+)
+from unbin.models.base import Outcome
+from unbin.models.survival import fit_survival
 
 TIGHT = {"precision": 1e-14, "r_precision": 1e-16}
 ROSSI_COLS = ["fin", "age", "race", "wexp", "mar", "paro", "prio"]
@@ -231,9 +240,7 @@ def test_subsample_start_reaches_lifelines_fit(
         cph = CoxPHFitter().fit(sim[COLS + ["T", "E"]], "T", "E", fit_options=TIGHT)
         _assert_matches_lifelines(fit, cph)
     else:
-        fit = fit_cox(
-            X, sim["T"], sim["E"], entry=sim["entry"], strata=sim["S"], weights=sim["W"]
-        )
+        fit = fit_cox(X, sim["T"], sim["E"], entry=sim["entry"], strata=sim["S"], weights=sim["W"])
         cph = CoxPHFitter().fit(
             sim, "T", "E", weights_col="W", entry_col="entry", strata=["S"], fit_options=TIGHT
         )
@@ -336,6 +343,92 @@ def test_concordance_matches_lifelines_with_ties_and_censoring() -> None:
     assert concordance(t, score, event) == pytest.approx(
         concordance_index(t, -score, event), abs=1e-12
     )
+
+
+# ------------------------------------------------------------------- prepared layouts
+
+
+def test_prepared_layout_gives_the_same_fit_bit_for_bit(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter(weights_col=, entry_col=, strata=) for the fit itself; the
+    # fits with and without a prepared layout must agree exactly, for several designs
+    X = _x(sim)
+    args = dict(entry=sim["entry"], strata=sim["S"], weights=sim["W"])
+    layout = prepare_layout(sim["T"], sim["E"], **args)
+    for cols in ([0, 1, 2], [0], [2, 1]):
+        for ties in ("efron", "breslow"):
+            plain = fit_cox(X[:, cols], sim["T"], sim["E"], ties=ties, **args)
+            again = fit_cox(X[:, cols], sim["T"], sim["E"], ties=ties, layout=layout, **args)
+            assert np.array_equal(plain.coef, again.coef)
+            assert np.array_equal(plain.cov, again.cov)
+            assert (plain.loglik, plain.loglik0, plain.iterations) == (
+                again.loglik,
+                again.loglik0,
+                again.iterations,
+            )
+    cph = CoxPHFitter().fit(
+        sim, "T", "E", weights_col="W", entry_col="entry", strata=["S"], fit_options=TIGHT
+    )
+    _assert_matches_lifelines(fit_cox(X, sim["T"], sim["E"], layout=layout, **args), cph)
+    coef = np.array([0.5, -0.4, 0.03])
+    base = baseline_cumhaz(X, sim["T"], sim["E"], coef, **args)
+    pd.testing.assert_frame_equal(
+        base, baseline_cumhaz(X, sim["T"], sim["E"], coef, layout=layout, **args)
+    )
+
+
+def test_subsample_start_with_a_prepared_layout(
+    sim: pd.DataFrame, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # the subsample start (lowered event threshold, as above) runs on the prepared layout too
+    import unbin.cox as engine
+
+    monkeypatch.setattr(engine, "_WARM_EVENTS", 8)
+    layout = prepare_layout(sim["T"], sim["E"], strata=sim["S"])
+    plain = fit_cox(_x(sim), sim["T"], sim["E"], strata=sim["S"])
+    again = fit_cox(_x(sim), sim["T"], sim["E"], strata=sim["S"], layout=layout)
+    assert np.array_equal(plain.coef, again.coef) and np.array_equal(plain.cov, again.cov)
+    assert plain.loglik == again.loglik
+
+
+def test_survival_fits_of_one_outcome_share_its_layout(sim: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter(entry_col=, strata=); the layout is made at the first fit,
+    # kept in outcome.cache and reused; every fit equals a fit without it
+    outcome = Outcome(
+        "survival",
+        sim["E"].to_numpy(float),
+        time=sim["T"].to_numpy(float),
+        entry=sim["entry"].to_numpy(float),
+        strata=sim["S"].to_numpy(),
+    )
+    X = _x(sim)
+    first = fit_survival(X[:, :1], outcome, ("x1",))
+    layout = outcome.cache["cox_layout"]
+    second = fit_survival(X, outcome, tuple(COLS))
+    assert outcome.cache["cox_layout"] is layout
+    for res, cols in ((first, [0]), (second, [0, 1, 2])):
+        ref = fit_cox(X[:, cols], sim["T"], sim["E"], entry=sim["entry"], strata=sim["S"])
+        assert res.ok and np.array_equal(res.coef, ref.coef) and res.loglik == ref.loglik
+    cph = CoxPHFitter().fit(
+        sim[COLS + ["T", "E", "S", "entry"]],
+        "T",
+        "E",
+        entry_col="entry",
+        strata=["S"],
+        fit_options=TIGHT,
+    )
+    np.testing.assert_allclose(second.coef, cph.params_.to_numpy(), rtol=1e-6)
+    assert outcome.subset(np.arange(len(sim)) < 1000).cache == {}
+
+
+def test_layout_for_other_rows_is_refused(sim: pd.DataFrame) -> None:
+    # common practice: a mismatch is refused with a message naming the problem
+    layout = prepare_layout(sim["T"][:100], sim["E"][:100])
+    with pytest.raises(ValueError, match="layout was prepared for 100 rows but X has 2000"):
+        fit_cox(_x(sim), sim["T"], sim["E"], layout=layout)
+    with pytest.raises(ValueError, match="layout must come from prepare_layout"):
+        fit_cox(_x(sim), sim["T"], sim["E"], layout="cached")
+    with pytest.raises(ValueError, match="greater than entry"):
+        prepare_layout([1.0, 2.0], [1, 0], entry=[0.0, 2.0])
 
 
 # ------------------------------------------------------------------ failures and inputs

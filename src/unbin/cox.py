@@ -7,7 +7,8 @@ Efron (default) or Breslow handling of tied event times, strata (a separate base
 per stratum), delayed entry (left truncation: a row is at risk at event time t when
 ``entry < t <= time``) and optional case weights. ``baseline_cumhaz`` gives the Breslow
 estimate of the baseline cumulative hazard per stratum, ``predict_risk`` the absolute risk by a
-horizon, and ``concordance`` Harrell's C in O(n log n).
+horizon, and ``concordance`` Harrell's C in O(n log n). ``prepare_layout`` checks and sorts
+one sample once for any number of fits of it (``fit_cox(..., layout=...)``).
 
 How it is fast
 --------------
@@ -25,6 +26,11 @@ only the (event times x p) risk-set sums. Memory is therefore a few n x p arrays
 size n x p x p (or n x p^2) is formed. Efron's tied-event terms touch only the event times
 that hold ties (one entry per tied event, ``l/d`` fractions, summed with ``np.bincount``), so
 there is no Python loop over event times or strata.
+
+One sample, many models: the sort, the index ranges and the sparse operators depend on time,
+event, entry, strata and weights only, never on X. ``prepare_layout`` builds them once; a fit
+given that layout starts at gathering X, and its result is bit for bit the one it computes
+when it lays the sample out itself.
 
 Few evaluations: with many events, Newton's method starts from a fit to a systematic subsample
 (every 4th to 8th row in time order, itself started the same way when large), whose
@@ -60,7 +66,15 @@ import numpy as np
 import pandas as pd
 from scipy import linalg, sparse
 
-__all__ = ["CoxFit", "baseline_cumhaz", "concordance", "fit_cox", "predict_risk"]
+__all__ = [
+    "CoxFit",
+    "Layout",
+    "baseline_cumhaz",
+    "concordance",
+    "fit_cox",
+    "predict_risk",
+    "prepare_layout",
+]
 
 
 @dataclass(frozen=True)
@@ -138,8 +152,13 @@ def _design(X: Any) -> np.ndarray:
 
 
 @dataclass(frozen=True)
-class _Layout:
-    """The data sorted once, with the at-risk index ranges and the sparse risk-set operator."""
+class Layout:
+    """The data sorted once, with the at-risk index ranges and the sparse risk-set operator.
+
+    Made by :func:`prepare_layout` (or inside :func:`fit_cox`); it depends on time, event,
+    entry, strata and weights only, never on X, so every model of one sample can share it.
+    Treat it as opaque: its fields are the engine's working arrays.
+    """
 
     order: np.ndarray  # rows of the input at risk at some event time, by (stratum, time)
     w: np.ndarray  # weights of kept rows (sorted)
@@ -191,7 +210,7 @@ def _prepare(
     entry: Any | None,
     strata: Any | None,
     weights: Any | None,
-) -> _Layout:
+) -> Layout:
     t = _as_1d("time", time, n)
     _check_finite("time", t)
     e = _event_array(event, n)
@@ -335,7 +354,7 @@ def _prepare(
     else:
         starts = np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
     counts = np.diff(np.r_[starts, m])
-    return _Layout(
+    return Layout(
         order=order,
         w=w_s,
         unit_w=weights is None,
@@ -374,19 +393,53 @@ def _prepare(
     )
 
 
+def prepare_layout(
+    time: Any,
+    event: Any,
+    *,
+    entry: Any | None = None,
+    strata: Any | None = None,
+    weights: Any | None = None,
+) -> Layout:
+    """Check and sort one sample once, for any number of fits of it: pass the result as
+    ``layout=`` to :func:`fit_cox` or :func:`baseline_cumhaz` with an X of the same rows.
+
+    The arguments mean what they mean for :func:`fit_cox`, and the same invalid input raises
+    the same ``ValueError``. The sort (by stratum, then time), the risk-set index ranges and the
+    sparse risk-set and tie operators depend on these arrays only, so a layout made here gives
+    bit-for-bit the fit that :func:`fit_cox` computes when it prepares the layout itself.
+    """
+    t = np.asarray(time)
+    if t.ndim != 1:
+        raise ValueError(f"time must be one-dimensional, got shape {t.shape}")
+    return _prepare(t.shape[0], t, event, entry, strata, weights)
+
+
+def _given_layout(layout: Any, n: int) -> Layout:
+    """``layout`` after checking that it is one and that it was made for ``n`` rows."""
+    if not isinstance(layout, Layout):
+        raise ValueError(f"layout must come from prepare_layout, got {type(layout).__name__}")
+    if layout.n != n:
+        raise ValueError(
+            f"layout was prepared for {layout.n} rows but X has {n}; prepare it from the same "
+            "rows as X"
+        )
+    return layout
+
+
 # ------------------------------------------------------------------- sums over event times
 
 
 _FEW_STRATA = 64  # up to this many strata, sums restart by looping over strata
 
 
-def _scaled(L: _Layout, op: sparse.csr_matrix, r: np.ndarray) -> sparse.csr_matrix:
+def _scaled(L: Layout, op: sparse.csr_matrix, r: np.ndarray) -> sparse.csr_matrix:
     """``op @ diag(r)``: the operator's values times r of their rows (columns of op)."""
     data = r if op is L.risk_op and L.plain_op else op.data * r[op.indices]
     return sparse.csr_matrix((data, op.indices, op.indptr), shape=op.shape)
 
 
-def _risk_sums(L: _Layout, contrib: np.ndarray) -> np.ndarray:
+def _risk_sums(L: Layout, contrib: np.ndarray) -> np.ndarray:
     """Risk-set sums per event time from per-event-time contributions.
 
     ``contrib`` is (K, q): for each event time, the summed values of the rows whose last event
@@ -407,7 +460,7 @@ def _risk_sums(L: _Layout, contrib: np.ndarray) -> np.ndarray:
     return np.asarray(rev[:, :-1] - rev[:, L.seg_end], dtype=float)
 
 
-def _forward_cum(L: _Layout, c: np.ndarray) -> np.ndarray:
+def _forward_cum(L: Layout, c: np.ndarray) -> np.ndarray:
     """Cumulative sum of ``c`` over event times within each stratum, zero-padded in front."""
     out = np.zeros(c.size + 1)
     if L.k_bounds.size <= _FEW_STRATA + 1:
@@ -419,7 +472,7 @@ def _forward_cum(L: _Layout, c: np.ndarray) -> np.ndarray:
     return out
 
 
-def _shifted_eta(L: _Layout, eta: np.ndarray) -> np.ndarray:
+def _shifted_eta(L: Layout, eta: np.ndarray) -> np.ndarray:
     """``eta`` less its maximum within each stratum (in place)."""
     if eta.size == 0:
         return eta
@@ -463,7 +516,7 @@ def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
 
 
 def _evaluate(
-    L: _Layout, D: _Design, beta: np.ndarray, efron: bool, order: int = 2
+    L: Layout, D: _Design, beta: np.ndarray, efron: bool, order: int = 2
 ) -> tuple[float, np.ndarray, np.ndarray]:
     """Log partial likelihood, score and observed information at ``beta``.
 
@@ -605,7 +658,7 @@ def _settled(D: _Design, step: np.ndarray, tol: float) -> bool:
 
 
 def _newton(
-    L: _Layout, D: _Design, efron: bool, start: _Iterate, max_iter: int, tol: float
+    L: Layout, D: _Design, efron: bool, start: _Iterate, max_iter: int, tol: float
 ) -> _Iterate:
     """Newton steps with step halving from ``start`` (score and information evaluated there).
 
@@ -660,7 +713,7 @@ _WARM_EVENTS = 2_500
 _WARM_MIN_STRIDE, _WARM_MAX_STRIDE = 4, 8
 
 
-def _warm_start(L: _Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndarray] | None:
+def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndarray] | None:
     """Standardised coefficients fitted on a subsample and its information scaled to the full
     data, or None (too few events for a subsample to pay off, or no converged fit)."""
     stride = min(L.events // _WARM_EVENTS, _WARM_MAX_STRIDE)
@@ -688,7 +741,7 @@ def _warm_start(L: _Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.nda
 
 
 def _start(
-    L: _Layout, D: _Design, efron: bool, ll0: float | None = None, warm_ok: bool = True
+    L: Layout, D: _Design, efron: bool, ll0: float | None = None, warm_ok: bool = True
 ) -> _Iterate:
     """Where Newton's method starts without starting values: at a subsample's estimate (with
     the score there and the subsample's information) when that pays off, otherwise at zero."""
@@ -719,7 +772,7 @@ def _largest_abs(a: np.ndarray, rows: int = 256) -> np.ndarray:
     return np.maximum(hi, -lo)
 
 
-def _standardised(Xa: np.ndarray, L: _Layout) -> tuple[_Design, np.ndarray, np.ndarray]:
+def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.ndarray]:
     """The kept rows of X, sorted, centred and scaled, behind a column of ones; the scale of
     each column (to map estimates back) and its standard deviation (0 for a constant column)."""
     m, p = L.order.size, Xa.shape[1]
@@ -756,6 +809,7 @@ def fit_cox(
     max_iter: int = 50,
     tol: float = 1e-9,
     init: Any | None = None,
+    layout: Layout | None = None,
 ) -> CoxFit:
     """Fit a Cox proportional-hazards model by maximising the partial likelihood.
 
@@ -773,13 +827,20 @@ def fit_cox(
     ``init`` are starting values on the scale of X; without them, data with many events
     (10,000 or more) start from a fit to a subsample (``iterations`` counts the steps on the
     full data only).
+    ``layout``: the sample prepared by :func:`prepare_layout` from the same time, event, entry,
+    strata and weights; those are then not read again (only the row count is checked), which
+    saves the sort and the risk-set layout when one sample gets many fits. The fit is
+    bit-for-bit the one without it.
     """
     if ties not in ("efron", "breslow"):
         raise ValueError(f"ties must be 'efron' or 'breslow', got {ties!r}")
     Xa = _design(X)
     n, p = Xa.shape
     _check_finite("X", Xa)
-    L = _prepare(n, time, event, entry, strata, weights)
+    if layout is None:
+        L = _prepare(n, time, event, entry, strata, weights)
+    else:
+        L = _given_layout(layout, n)
     efron = ties == "efron"
     nan_coef, nan_cov = np.full(p, np.nan), np.full((p, p), np.nan)
     if L.events == 0:
@@ -877,6 +938,7 @@ def baseline_cumhaz(
     entry: Any | None = None,
     strata: Any | None = None,
     weights: Any | None = None,
+    layout: Layout | None = None,
 ) -> pd.DataFrame:
     """Breslow estimate of the baseline cumulative hazard, per stratum.
 
@@ -887,6 +949,7 @@ def baseline_cumhaz(
     entry. The baseline is at covariates = 0 on the scale of X (NOT at the covariate means),
     so ``H(t | x) = H0(t) exp(x coef)``. The Breslow form is used whichever ties method fitted
     ``coef``. If x = 0 is far outside the data, H0 may underflow: centre X first.
+    ``layout`` is as for :func:`fit_cox`.
     """
     Xa = _design(X)
     n, p = Xa.shape
@@ -895,7 +958,10 @@ def baseline_cumhaz(
     if b.shape[0] != p:
         raise ValueError(f"coef has {b.shape[0]} values but X has {p} columns")
     _check_finite("coef", b)
-    L = _prepare(n, time, event, entry, strata, weights)
+    if layout is None:
+        L = _prepare(n, time, event, entry, strata, weights)
+    else:
+        L = _given_layout(layout, n)
     eta = Xa[L.order] @ b if p else np.zeros(L.order.size)
     shifted = _shifted_eta(L, eta.copy())
     s0 = _risk_sums(L, np.asarray(L.risk_op @ (L.w * np.exp(shifted)))[:, None])[0]

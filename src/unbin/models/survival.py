@@ -1,13 +1,38 @@
 """Cox proportional-hazards regression through unbin's own engine (``unbin.cox``): Efron ties,
 strata and delayed entry. Coefficients have no intercept; ``loglik`` is the log partial
-likelihood."""
+likelihood.
+
+Every fit of one analysis has the same rows, times, events, entry, strata and weights (only X
+differs), so the engine's sorted risk-set layout (``unbin.cox.prepare_layout``) is made at the
+first fit and kept in ``outcome.cache`` for the others."""
 
 from __future__ import annotations
+
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ._glm import check_design
 from .base import FitResult, Outcome, failed_fit
+
+if TYPE_CHECKING:
+    from ..cox import Layout
+
+_LAYOUT = "cox_layout"
+
+
+def cox_layout(outcome: Outcome) -> Layout:
+    """The Cox layout of this outcome's sample: prepared on first use, then kept in
+    ``outcome.cache`` (invalid outcome arrays raise ``ValueError`` as ``fit_cox`` does)."""
+    from ..cox import prepare_layout
+
+    layout: Layout | None = outcome.cache.get(_LAYOUT)
+    if layout is None:
+        assert outcome.time is not None
+        layout = prepare_layout(outcome.time, outcome.y, entry=outcome.entry,
+                                strata=outcome.strata, weights=outcome.weights)
+        outcome.cache[_LAYOUT] = layout
+    return layout
 
 
 def fit_survival(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
@@ -23,7 +48,7 @@ def fit_survival(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> Fit
     if problem:
         return failed_fit("survival", names, n, events, problem)
     fit = fit_cox(X, outcome.time, outcome.y, entry=outcome.entry, strata=outcome.strata,
-                  weights=outcome.weights, ties="efron")
+                  weights=outcome.weights, ties="efron", layout=cox_layout(outcome))
     if not fit.converged:
         return failed_fit("survival", names, n, events,
                           fit.message or "Cox fit did not converge.")
