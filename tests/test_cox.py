@@ -23,10 +23,12 @@ from unbin.cox import (
     CoxFit,
     baseline_cumhaz,
     concordance,
+    concordance_order,
     fit_cox,
     predict_risk,
     prepare_layout,
 )
+from unbin.discrimination import c_index
 from unbin.models.base import Outcome
 from unbin.models.survival import fit_survival
 
@@ -343,6 +345,48 @@ def test_concordance_matches_lifelines_with_ties_and_censoring() -> None:
     assert concordance(t, score, event) == pytest.approx(
         concordance_index(t, -score, event), abs=1e-12
     )
+
+
+def test_one_time_order_serves_many_scores_exactly() -> None:
+    # source: lifelines.utils.concordance_index(time, -score, event); heavy ties in time (with
+    # events tied in time and in score) and in score; the shared time order gives the same C
+    rng = np.random.default_rng(17)
+    n = 3000
+    t = rng.integers(1, 40, n).astype(float)
+    event = rng.binomial(1, 0.5, n)
+    order = concordance_order(t, event)
+    for k in range(4):
+        score = rng.normal(size=n).round(k)  # k = 0: few distinct scores
+        with_order = concordance(t, score, event, time_order=order)
+        assert with_order == concordance(t, score, event)
+        assert with_order == pytest.approx(concordance_index(t, -score, event), abs=1e-12)
+    with pytest.raises(ValueError, match="risk_score must be one-dimensional with 3000"):
+        concordance(t, np.zeros(10), event, time_order=order)
+
+
+def test_c_index_is_computed_once_per_linear_predictor(
+    sim: pd.DataFrame, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # source: lifelines.utils.concordance_index(time, -lp, event); the second request for the
+    # same array is answered from outcome.cache, a new array is computed
+    import unbin.cox as engine
+
+    calls: list[int] = []
+    real = engine.concordance
+
+    def spy(*args, **kwargs):  # type: ignore[no-untyped-def]
+        calls.append(1)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(engine, "concordance", spy)
+    outcome = Outcome("survival", sim["E"].to_numpy(float), time=sim["T"].to_numpy(float))
+    lp = _x(sim) @ np.array([0.5, -0.4, 0.03])
+    ref = concordance_index(sim["T"], -lp, sim["E"])
+    assert c_index(outcome, lp) == pytest.approx(ref, abs=1e-12)
+    assert c_index(outcome, lp) == pytest.approx(ref, abs=1e-12)
+    assert len(calls) == 1
+    assert c_index(outcome, lp.copy()) == pytest.approx(ref, abs=1e-12)
+    assert len(calls) == 2
 
 
 # ------------------------------------------------------------------- prepared layouts

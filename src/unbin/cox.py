@@ -8,7 +8,8 @@ per stratum), delayed entry (left truncation: a row is at risk at event time t w
 ``entry < t <= time``) and optional case weights. ``baseline_cumhaz`` gives the Breslow
 estimate of the baseline cumulative hazard per stratum, ``predict_risk`` the absolute risk by a
 horizon, and ``concordance`` Harrell's C in O(n log n). ``prepare_layout`` checks and sorts
-one sample once for any number of fits of it (``fit_cox(..., layout=...)``).
+one sample once for any number of fits of it (``fit_cox(..., layout=...)``), and
+``concordance_order`` does the same for the C-indices of many scores of one sample.
 
 How it is fast
 --------------
@@ -30,7 +31,9 @@ there is no Python loop over event times or strata.
 One sample, many models: the sort, the index ranges and the sparse operators depend on time,
 event, entry, strata and weights only, never on X. ``prepare_layout`` builds them once; a fit
 given that layout starts at gathering X, and its result is bit for bit the one it computes
-when it lays the sample out itself.
+when it lays the sample out itself. Harrell's C likewise keeps the time order and the tie
+counts of (time, event) (``concordance_order``), so each score costs one sort by score and
+O(n) passes per bit of n (see ``concordance``).
 
 Few evaluations: with many events, Newton's method starts from a fit to a systematic subsample
 (every 4th to 8th row in time order, itself started the same way when large), whose
@@ -69,8 +72,10 @@ from scipy import linalg, sparse
 __all__ = [
     "CoxFit",
     "Layout",
+    "TimeOrder",
     "baseline_cumhaz",
     "concordance",
+    "concordance_order",
     "fit_cox",
     "predict_risk",
     "prepare_layout",
@@ -1031,68 +1036,133 @@ def predict_risk(
 # ------------------------------------------------------------------------------ concordance
 
 
-def concordance(time: Any, risk_score: Any, event: Any) -> float:
+@dataclass(frozen=True)
+class TimeOrder:
+    """What Harrell's C needs of (time, event) alone, made by :func:`concordance_order` and
+    shared by every score of one sample: the rows in time order (at equal times events first),
+    the number of comparable pairs, and the events that share their time with other events."""
+
+    n: int
+    order: np.ndarray  # rows by time; at equal times events before censored rows
+    event_s: np.ndarray  # event indicator in that order
+    pairs: int  # comparable pairs
+    tied_slots: np.ndarray  # positions (in order) of the events tied in time with others
+    tied_grp: np.ndarray  # their event time's group number (non-decreasing)
+
+
+def concordance_order(time: Any, event: Any) -> TimeOrder:
+    """Check and order (time, event) once, for :func:`concordance` of any number of scores.
+
+    Invalid input raises ``ValueError`` as :func:`concordance` does."""
+    t = _as_1d("time", time, None)
+    n = t.shape[0]
+    e = _event_array(event, n)
+    _check_finite("time", t)
+    order = np.lexsort((~e, t))
+    t_s, e_s = t[order], e[order]
+    ev = np.flatnonzero(e_s)
+    # pairs: every event with all rows after it, less the events tied in time with it
+    pairs = int((n - 1 - ev).sum())
+    te = t_s[ev]
+    new_t = np.ones(te.size, dtype=bool)
+    np.not_equal(te[1:], te[:-1], out=new_t[1:])
+    size_t = np.diff(np.r_[np.flatnonzero(new_t), te.size])
+    pairs -= int((size_t * (size_t - 1) // 2).sum())
+    grp = np.cumsum(new_t) - 1
+    tied = size_t[grp] > 1
+    return TimeOrder(n, order, e_s, pairs, ev[tied], grp[tied])
+
+
+def concordance(
+    time: Any, risk_score: Any, event: Any, *, time_order: TimeOrder | None = None
+) -> float:
     """Harrell's C: the share of comparable pairs in which the earlier event had the higher score.
 
     A pair is comparable when the earlier time is an event and the other row's time is later,
     or equal with the other row censored; pairs of events at the same time are not comparable.
     Tied scores count one half. Equals ``lifelines.utils.concordance_index(time, -risk_score,
     event)``. Returns NaN when there is no comparable pair (e.g. no events).
-    O(n log n): a bottom-up merge over the rows sorted by time counts, for every row, the
-    earlier events with a higher (or equal) score.
+    ``time_order`` (from :func:`concordance_order` of the same time and event, which are then
+    not read again) saves the time sort when one sample gets many scores.
+
+    O(n log n), exact in integers: the rows are laid out in time order (the events tied in time
+    by increasing score, so that their pairs count as lower or tied, and the tied ones are taken
+    out again), then sorted once by score (ties by position). Going down the bits of the
+    position, from the highest, each level splits every block of positions into an earlier and
+    a later half; with the rows of each block in score order, one cumulative count of the later
+    half gives, for every earlier event, the later rows with a lower score, and the same counts
+    split each block into its halves for the next level (a stable partition, O(n)). So the
+    only sort is the one by score; every level is a few passes over n integers.
     """
-    t = _as_1d("time", time, None)
-    n = t.shape[0]
-    s = _as_1d("risk_score", risk_score, n)
-    e = _event_array(event, n)
-    _check_finite("time", t)
+    s = np.asarray(risk_score, dtype=float)
+    if time_order is None:
+        time_order = concordance_order(time, event)
+    if s.ndim != 1 or s.shape[0] != time_order.n:
+        raise ValueError(
+            f"risk_score must be one-dimensional with {time_order.n} values, got shape {s.shape}"
+        )
     _check_finite("risk_score", s)
-    if n < 2 or not e.any():
+    T = time_order
+    n = T.n
+    if n < 2 or not T.event_s.any() or T.pairs == 0:
         return float("nan")
-    # order: time ascending; at equal times events first, the events by increasing score
-    order = np.lexsort((np.where(e, s, 0.0), ~e, t))
-    t, s, e = t[order], s[order], e[order]
-    q = np.unique(s, return_inverse=True)[1].astype(np.int64).ravel()
+    rows = T.order
+    if T.tied_slots.size:
+        rows = rows.copy()
+        tied_rows = T.order[T.tied_slots]
+        rows[T.tied_slots] = tied_rows[np.lexsort((s[tied_rows], T.tied_grp))]
+    s_pos = s[rows]  # scores in time order
+    # events tied in time and in score: their pair counts as tied above, but is not comparable
+    same_time_same_score = 0
+    if T.tied_slots.size:
+        st = s_pos[T.tied_slots]
+        new_ts = np.ones(st.size, dtype=bool)
+        new_ts[1:] = (T.tied_grp[1:] != T.tied_grp[:-1]) | (st[1:] != st[:-1])
+        size_ts = np.diff(np.r_[np.flatnonzero(new_ts), st.size])
+        same_time_same_score = int((size_ts * (size_ts - 1) // 2).sum())
 
-    # pairs: every event with all rows after it, less events tied in time with it
-    pos = np.arange(n, dtype=np.int64)
-    pairs = int((n - 1 - pos[e]).sum())
-    # events tied in time (and, for the score ties, also in score), grouped
-    te, qe = t[e], q[e]
-    new_t = np.r_[True, te[1:] != te[:-1]]
-    size_t = np.diff(np.r_[np.flatnonzero(new_t), te.size])
-    pairs -= int((size_t * (size_t - 1) // 2).sum())
-    new_tq = new_t | np.r_[True, qe[1:] != qe[:-1]]
-    size_tq = np.diff(np.r_[np.flatnonzero(new_tq), te.size])
-    same_time_same_score = int((size_tq * (size_tq - 1) // 2).sum())
-    if pairs == 0:
-        return float("nan")
-
-    higher, equal = _earlier_events_vs_later(q, e)
-    equal -= same_time_same_score
-    return (higher + 0.5 * equal) / pairs
+    # positions sorted by score, ties by position (a stable sort)
+    itype = np.int32 if n < 2**31 else np.int64
+    pos = np.argsort(s_pos, kind="stable").astype(itype)
+    by_score = s_pos[pos]
+    dead = T.event_s[pos]
+    # tied scores: every event with the later rows of its run of equal scores
+    new_s = np.ones(n, dtype=bool)
+    np.not_equal(by_score[1:], by_score[:-1], out=new_s[1:])
+    run_end = np.r_[np.flatnonzero(new_s)[1:], n]
+    idx = np.arange(n, dtype=itype)
+    run = np.cumsum(new_s) - 1
+    equal = int((run_end[run[dead]] - 1 - idx[dead]).sum()) - same_time_same_score
+    higher = _earlier_events_above_later(pos, dead, idx)
+    return (higher + 0.5 * equal) / T.pairs
 
 
-def _earlier_events_vs_later(q: np.ndarray, dead: np.ndarray) -> tuple[int, int]:
-    """Count pairs (i before j) with i an event and q_i > q_j, and with q_i == q_j."""
-    n = q.size
-    nq = np.int64(q.max()) + 1
-    idx = np.arange(n, dtype=np.int64)
-    perm = idx.copy()  # rows arranged so that every block of ``width`` is sorted by q
-    higher = equal = 0
-    width = 1
-    while width < n:
-        qa, da = q[perm], dead[perm]
-        pair = idx // (2 * width)
-        right = ((idx // width) & 1).astype(bool)
-        key = pair * nq + qa
-        left_keys = key[~right & da]  # sorted: pairs ascending, q sorted within each half
-        rkey = key[right]
-        above = np.searchsorted(left_keys, rkey, side="right")
-        at_least = np.searchsorted(left_keys, rkey, side="left")
-        end = np.searchsorted(left_keys, (pair[right] + 1) * nq, side="left")
-        higher += int((end - above).sum())
-        equal += int((above - at_least).sum())
-        perm = perm[np.argsort(key, kind="stable")]
-        width *= 2
-    return higher, equal
+def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray) -> int:
+    """Count pairs of positions i < j with i an event and a higher score than j.
+
+    ``pos`` are the positions 0..n-1 sorted by score (ties by position), ``dead`` whether each
+    is an event, ``idx`` = arange(n) of pos's dtype. At the level of bit L the rows are arranged
+    in blocks of 2^(L+1) positions (block b at indices from b 2^(L+1), as the positions are a
+    permutation), each in score order; the later half of a block is bit L = 1. Its running count
+    before an earlier-half event is the number of later rows with a lower score (an equal score
+    sorts after, by position). That count is also each row's rank within its half, which
+    places it in the next level's arrangement.
+    """
+    n = pos.size
+    dt = pos.dtype.type
+    higher = 0
+    pos, dead = pos.copy(), dead.copy()
+    pos_next, dead_next = np.empty_like(pos), np.empty_like(dead)
+    for level in range((n - 1).bit_length() - 1, -1, -1):
+        later = (pos & dt(1 << level)).astype(bool)
+        count = np.cumsum(later, dtype=pos.dtype)
+        count -= later  # later rows before each row ...
+        block = pos & dt(~((1 << (level + 1)) - 1))  # (the block's first index)
+        count -= count[block]  # ... in its block
+        higher += int(count[dead & ~later].sum(dtype=np.int64))
+        if level:
+            dest = np.where(later, block + dt(1 << level) + count, idx - count)
+            pos_next[dest] = pos
+            dead_next[dest] = dead
+            pos, pos_next, dead, dead_next = pos_next, pos, dead_next, dead
+    return higher

@@ -1,5 +1,12 @@
 """Discrimination of a fitted linear predictor: the C-index (AUC for binary outcomes, Harrell's C
-for survival outcomes). Not defined here for count and continuous outcomes (NaN)."""
+for survival outcomes). Not defined here for count and continuous outcomes (NaN).
+
+Several tables ask for the C-index of the same fits, so ``c_index`` computes it once per linear
+predictor: the value is kept in ``outcome.cache``, keyed by the identity of the array and holding
+a reference to it (so that the identity cannot pass to another array while the entry exists);
+linear predictors are never changed in place. For survival, the time order and the tie
+bookkeeping of Harrell's C depend on (time, event) only and are kept there too
+(``unbin.cox.concordance_order``)."""
 
 from __future__ import annotations
 
@@ -19,14 +26,28 @@ def auc(y: np.ndarray, score: np.ndarray) -> float:
     return float((ranks[y].sum() - n1 * (n1 + 1) / 2) / (n1 * n0))
 
 
+_MEMO = "c_index"
+_TIME_ORDER = "concordance_order"
+
+
 def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
-    if lp is None:
+    """AUC (binary) or Harrell's C (survival) of the linear predictor ``lp`` of a fit to
+    ``outcome``'s rows; NaN for other families or without ``lp``. Computed once per ``lp``."""
+    if lp is None or outcome.family not in ("binary", "survival"):
         return float("nan")
+    memo: dict[int, tuple[np.ndarray, float]] = outcome.cache.setdefault(_MEMO, {})
+    hit = memo.get(id(lp))
+    if hit is not None and hit[0] is lp:
+        return hit[1]
     if outcome.family == "binary":
-        return auc(outcome.y, lp)
-    if outcome.family == "survival":
-        from .cox import concordance
+        value = auc(outcome.y, lp)
+    else:
+        from .cox import concordance, concordance_order
 
         assert outcome.time is not None
-        return float(concordance(outcome.time, lp, outcome.y))
-    return float("nan")
+        order = outcome.cache.get(_TIME_ORDER)
+        if order is None:
+            order = outcome.cache[_TIME_ORDER] = concordance_order(outcome.time, outcome.y)
+        value = float(concordance(outcome.time, lp, outcome.y, time_order=order))
+    memo[id(lp)] = (lp, value)
+    return value
