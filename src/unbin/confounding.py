@@ -22,7 +22,7 @@ case resampling drawn once and shared by every model, so the three estimates of 
 from the same resampled data). Groupings and knots stay as in the full sample. A replicate is
 refitted by Newton's method from the full-sample estimate on frequency weights — vectorised over
 replicates for the linear, logistic and Poisson models; for survival ``unbin.cox.fit_cox`` on the
-resampled rows —
+resampled rows, whose sort and risk sets are laid out once per replicate for all designs —
 and counts as failed (left out, counted in ``bootstrap_ok``) when a design column has no variation
 in it, the fit does not converge, or (logistic) the fitted risks run to 0 or 1. The same
 replicates give a percentile interval of the confounding itself (crude - continuous);
@@ -32,6 +32,7 @@ not be read.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -181,26 +182,42 @@ def weighted_cox(X: np.ndarray, outcome: Outcome, W: np.ndarray,
     """Cox coefficients for each row of frequency weights ``W``, fitted by ``unbin.cox.fit_cox``
     (Efron ties) started at ``start`` on the rows repeated as often as drawn — not on case
     weights, because Efron's tie correction counts a repeated row as several tied events but a
-    weighted row as one; NaN where a fit fails."""
-    from .cox import fit_cox
+    weighted row as one; NaN where a fit fails. One design of :func:`weighted_cox_designs`."""
+    return weighted_cox_designs([(X, start)], outcome, W)[0]
+
+
+def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]],
+                         outcome: Outcome, W: np.ndarray) -> list[np.ndarray]:
+    """:func:`weighted_cox` for several designs ``(X, start)`` of the same rows at once: the
+    designs share the replicates, so each replicate's repeated rows and their Cox layout (the
+    sort and the risk sets, ``unbin.cox.prepare_layout``) are made once and every design is
+    fitted on them. The same coefficients as one design at a time, bit for bit."""
+    from .cox import fit_cox, prepare_layout
 
     assert outcome.time is not None
-    X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
+    Xs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X, _ in designs]
+    inits = [start if start is not None and np.all(np.isfinite(start)) else None
+             for _, start in designs]
     W = np.atleast_2d(W)
-    out = np.full((W.shape[0], X.shape[1]), np.nan)
-    init = start if start is not None and np.all(np.isfinite(start)) else None
+    outs = [np.full((W.shape[0], X.shape[1]), np.nan) for X in Xs]
     for b, w in enumerate(W):
         m = np.repeat(np.arange(len(w)), np.asarray(w).astype(np.int64))
+        time, event = outcome.time[m], outcome.y[m]
+        entry = outcome.entry[m] if outcome.entry is not None else None
+        strata = outcome.strata[m] if outcome.strata is not None else None
         try:
-            f = fit_cox(X[m], outcome.time[m], outcome.y[m],
-                        entry=outcome.entry[m] if outcome.entry is not None else None,
-                        strata=outcome.strata[m] if outcome.strata is not None else None,
-                        init=init)
+            layout = prepare_layout(time, event, entry=entry, strata=strata)
         except ValueError:
             continue
-        if f.converged:
-            out[b] = f.coef
-    return out
+        for X, init, out in zip(Xs, inits, outs, strict=True):
+            try:
+                f = fit_cox(X[m], time, event, entry=entry, strata=strata, init=init,
+                            layout=layout)
+            except ValueError:
+                continue
+            if f.converged:
+                out[b] = f.coef
+    return outs
 
 
 # --------------------------------------------------------------------------- the table
@@ -238,16 +255,17 @@ class _Designs:
         out = {k: np.full((replicates, len(v[2])), np.nan) for k, v in self.items.items()}
         p_max = max((v[0].shape[1] for v in self.items.values()), default=0)
         chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
+        ok = [(key, X, [names.index(nm) for nm in exp_names], res)
+              for key, (X, names, exp_names, res) in self.items.items() if res.ok]
         for c0 in range(0, replicates, chunk):
             W = resample_weights(rng, n, min(chunk, replicates - c0))
-            for key, (X, names, exp_names, res) in self.items.items():
-                if not res.ok:
-                    continue
-                pos = [names.index(nm) for nm in exp_names]
-                if r.family == "survival":
-                    coef = weighted_cox(X, r.outcome, W, res.coef)
-                else:
-                    coef = weighted_glm(r.family, X, r.outcome, W, res.coef)[:, 1:]
+            if r.family == "survival":  # all designs on each replicate's rows and Cox layout
+                coefs = weighted_cox_designs([(X, res.coef) for _, X, _, res in ok],
+                                             r.outcome, W)
+            else:
+                coefs = [weighted_glm(r.family, X, r.outcome, W, res.coef)[:, 1:]
+                         for _, X, _, res in ok]
+            for (key, _, pos, _), coef in zip(ok, coefs, strict=True):
                 out[key][c0:c0 + len(W)] = coef[:, pos]
         return out
 
