@@ -1048,6 +1048,7 @@ class TimeOrder:
     pairs: int  # comparable pairs
     tied_slots: np.ndarray  # positions (in order) of the events tied in time with others
     tied_grp: np.ndarray  # their event time's group number (non-decreasing)
+    tied_at: np.ndarray  # (n,) every position's tied_grp; the dtype's largest value if none
 
 
 def concordance_order(time: Any, event: Any) -> TimeOrder:
@@ -1070,7 +1071,13 @@ def concordance_order(time: Any, event: Any) -> TimeOrder:
     pairs -= int((size_t * (size_t - 1) // 2).sum())
     grp = np.cumsum(new_t) - 1
     tied = size_t[grp] > 1
-    return TimeOrder(n, order, e_s, pairs, ev[tied], grp[tied])
+    slots, tied_grp = ev[tied], grp[tied]
+    # group numbers as small as they fit (a stable sort by a 16-bit key is a radix sort)
+    gtype = np.uint16 if tied_grp.size == 0 or tied_grp[-1] < 2**16 - 1 else np.int64
+    tied_grp = tied_grp.astype(gtype)
+    tied_at = np.full(n, np.iinfo(gtype).max, dtype=gtype)
+    tied_at[slots] = tied_grp
+    return TimeOrder(n, order, e_s, pairs, slots, tied_grp, tied_at)
 
 
 def concordance(
@@ -1087,12 +1094,13 @@ def concordance(
 
     O(n log n), exact in integers: the rows are laid out in time order (the events tied in time
     by increasing score, so that their pairs count as lower or tied, and the tied ones are taken
-    out again), then sorted once by score (ties by position). Going down the bits of the
+    out again), and sorted once by score (ties by position); the events tied in time then move
+    to their slots by a stable (radix) sort of their time groups. Going down the bits of the
     position, from the highest, each level splits every block of positions into an earlier and
     a later half; with the rows of each block in score order, one cumulative count of the later
     half gives, for every earlier event, the later rows with a lower score, and the same counts
     split each block into its halves for the next level (a stable partition, O(n)). So the
-    only sort is the one by score; every level is a few passes over n integers.
+    only full sort is the one by score; every level is a few passes over n integers.
     """
     s = np.asarray(risk_score, dtype=float)
     if time_order is None:
@@ -1106,25 +1114,26 @@ def concordance(
     n = T.n
     if n < 2 or not T.event_s.any() or T.pairs == 0:
         return float("nan")
-    rows = T.order
-    if T.tied_slots.size:
-        rows = rows.copy()
-        tied_rows = T.order[T.tied_slots]
-        rows[T.tied_slots] = tied_rows[np.lexsort((s[tied_rows], T.tied_grp))]
-    s_pos = s[rows]  # scores in time order
-    # events tied in time and in score: their pair counts as tied above, but is not comparable
+    s_time = s[T.order]  # scores in time order
+    itype = np.int32 if n < 2**31 else np.int64
+    # positions sorted by score, ties by position (a stable sort)
+    pos = np.argsort(s_time, kind="stable").astype(itype)
+    by_score = s_time[pos]
+    # the events tied in time take their time's slots by increasing score: the tied events in
+    # score order, grouped by their time (a stable sort, so still by score within a time)
     same_time_same_score = 0
     if T.tied_slots.size:
-        st = s_pos[T.tied_slots]
+        seq = pos[T.tied_at[pos] != np.iinfo(T.tied_at.dtype).max]  # tied events, by score
+        seq = seq[np.argsort(T.tied_at[seq], kind="stable")]  # by time, then score
+        st = s_time[seq]  # the scores at T.tied_slots after the move
+        moved = np.arange(n, dtype=itype)
+        moved[seq] = T.tied_slots
+        pos = moved[pos]  # still by score, ties by (new) position
+        # events tied in time and in score: counted as tied below, but not comparable
         new_ts = np.ones(st.size, dtype=bool)
         new_ts[1:] = (T.tied_grp[1:] != T.tied_grp[:-1]) | (st[1:] != st[:-1])
         size_ts = np.diff(np.r_[np.flatnonzero(new_ts), st.size])
         same_time_same_score = int((size_ts * (size_ts - 1) // 2).sum())
-
-    # positions sorted by score, ties by position (a stable sort)
-    itype = np.int32 if n < 2**31 else np.int64
-    pos = np.argsort(s_pos, kind="stable").astype(itype)
-    by_score = s_pos[pos]
     dead = T.event_s[pos]
     # tied scores: every event with the later rows of its run of equal scores
     new_s = np.ones(n, dtype=bool)
@@ -1137,6 +1146,9 @@ def concordance(
     return (higher + 0.5 * equal) / T.pairs
 
 
+_BRUTE_BITS = 4  # pairs within blocks of 2^4 positions are compared directly
+
+
 def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray) -> int:
     """Count pairs of positions i < j with i an event and a higher score than j.
 
@@ -1146,23 +1158,58 @@ def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarr
     permutation), each in score order; the later half of a block is bit L = 1. Its running count
     before an earlier-half event is the number of later rows with a lower score (an equal score
     sorts after, by position). That count is also each row's rank within its half, which
-    places it in the next level's arrangement.
+    places it in the next level's arrangement (one scatter per level; the work arrays are
+    allocated once). The pairs within the smallest blocks (16 positions) are compared
+    directly, by each row's rank in the score order.
     """
     n = pos.size
-    dt = pos.dtype.type
-    higher = 0
-    pos, dead = pos.copy(), dead.copy()
+    low = min(_BRUTE_BITS, (n - 1).bit_length())
+    higher = _within_blocks(pos, dead, idx, low)
+    pos, dead = pos.astype(np.intp), dead.copy()
+    at = np.arange(n, dtype=np.intp)
     pos_next, dead_next = np.empty_like(pos), np.empty_like(dead)
-    for level in range((n - 1).bit_length() - 1, -1, -1):
-        later = (pos & dt(1 << level)).astype(bool)
-        count = np.cumsum(later, dtype=pos.dtype)
+    later = np.empty(n, dtype=bool)
+    count, dest, tmp = (np.empty(n, dtype=np.intp) for _ in range(3))
+    for level in range((n - 1).bit_length() - 1, low - 1, -1):
+        size = 1 << (level + 1)  # the block
+        np.bitwise_and(pos, 1 << level, out=count)
+        np.not_equal(count, 0, out=later)
+        np.cumsum(later, out=count)
         count -= later  # later rows before each row ...
-        block = pos & dt(~((1 << (level + 1)) - 1))  # (the block's first index)
-        count -= count[block]  # ... in its block
-        higher += int(count[dead & ~later].sum(dtype=np.int64))
-        if level:
-            dest = np.where(later, block + dt(1 << level) + count, idx - count)
+        full = n // size * size
+        blocks = count[:full].reshape(-1, size)
+        blocks -= blocks[:, :1].copy()
+        if full < n:
+            count[full:] -= count[full]  # ... in its block
+        np.multiply(count, dead, out=tmp)
+        np.multiply(tmp, ~later, out=tmp)
+        higher += int(tmp.sum())
+        if level > low:
+            np.subtract(at, count, out=dest)  # earlier half: its rank among the earlier rows
+            np.bitwise_and(at, ~(size - 1), out=tmp)  # later half: after the earlier half
+            tmp += 1 << level
+            tmp += count
+            np.copyto(dest, tmp, where=later)
             pos_next[dest] = pos
             dead_next[dest] = dead
             pos, pos_next, dead, dead_next = pos_next, pos, dead_next, dead
     return higher
+
+
+def _within_blocks(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray, bits: int) -> int:
+    """The pairs of :func:`_earlier_events_above_later` within blocks of 2^bits positions."""
+    if bits == 0:
+        return 0
+    n, size = pos.size, 1 << bits
+    rows = -(-n // size)
+    rank = np.full(rows * size, n, dtype=pos.dtype)  # padding: never lower, never an event
+    rank[pos] = idx  # rank in the score order (ties by position) of each position
+    ev = np.zeros(rows * size, dtype=bool)
+    ev[pos] = dead
+    rank2, ev2 = rank.reshape(rows, size), ev.reshape(rows, size)
+    total = 0
+    for i in range(size - 1):
+        above = rank2[:, i + 1 :] < rank2[:, i : i + 1]
+        above &= ev2[:, i : i + 1]
+        total += int(np.count_nonzero(above))
+    return total
