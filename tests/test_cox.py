@@ -432,6 +432,11 @@ def test_subsample_start_with_a_prepared_layout(
     again = fit_cox(_x(sim), sim["T"], sim["E"], strata=sim["S"], layout=layout)
     assert np.array_equal(plain.coef, again.coef) and np.array_equal(plain.cov, again.cov)
     assert plain.loglik == again.loglik
+    kept = dict(layout.subsamples)  # the subsample layout, made by the first fit, is reused
+    assert kept
+    third = fit_cox(_x(sim), sim["T"], sim["E"], strata=sim["S"], layout=layout)
+    assert np.array_equal(plain.coef, third.coef) and plain.loglik == third.loglik
+    assert all(layout.subsamples[k] is v for k, v in kept.items())
 
 
 def test_survival_fits_of_one_outcome_share_its_layout(sim: pd.DataFrame) -> None:

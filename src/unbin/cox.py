@@ -38,10 +38,11 @@ O(n) passes per bit of n (see ``concordance``).
 Few evaluations: with many events, Newton's method starts from a fit to a systematic subsample
 (every 4th to 8th row in time order, itself started the same way when large), whose
 information, scaled up, serves for the first full-data step; the fit then usually needs two
-or three evaluations of the full information. It stops when the next Newton step would change
-no row's linear predictor by more than ``100 * tol`` (so that no weight ``exp(eta)``, hence no
-part of the information, changes by more than about that fraction); that last step is taken
-without a further evaluation.
+or three evaluations of the full information (the subsample's layout is kept with the full
+one, so the fits that share a prepared layout share it too). It stops when the next Newton
+step would change no row's linear predictor by more than ``100 * tol`` (so that no weight
+``exp(eta)``, hence no part of the information, changes by more than about that fraction);
+that last step is taken without a further evaluation.
 
 Numerics
 --------
@@ -62,7 +63,7 @@ to try (iteration limit, singular information, diverging coefficient, non-finite
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -201,6 +202,9 @@ class Layout:
     event_s: np.ndarray
     entry_s: np.ndarray | None
     code_s: np.ndarray | None  # stratum codes (None without strata)
+    # the layouts of subsamples for the start of Newton's method, by stride (made on first use:
+    # they too depend on the sample only, so the fits sharing this layout share them)
+    subsamples: dict[int, Layout] = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def ties(self) -> bool:
@@ -725,14 +729,16 @@ def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndar
     if stride < _WARM_MIN_STRIDE:
         return None
     pos = np.arange(0, L.order.size, stride)
-    sub = _prepare(
-        pos.size,
-        L.time_s[pos],
-        L.event_s[pos],
-        None if L.entry_s is None else L.entry_s[pos],
-        None if L.code_s is None else L.code_s[pos],
-        None if L.unit_w else L.w[pos],
-    )
+    sub = L.subsamples.get(stride)
+    if sub is None:
+        sub = L.subsamples[stride] = _prepare(
+            pos.size,
+            L.time_s[pos],
+            L.event_s[pos],
+            None if L.entry_s is None else L.entry_s[pos],
+            None if L.code_s is None else L.code_s[pos],
+            None if L.unit_w else L.w[pos],
+        )
     if sub.events == 0:
         return None
     Dsub = _Design.of(D.X1[pos[sub.order]], sub.we, D.reach)
