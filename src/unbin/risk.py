@@ -27,6 +27,7 @@ from scipy import special
 
 from .cox import baseline_cumhaz
 from .models.base import FitResult
+from .models.survival import cox_layout
 from .refit import FormFit, Refit
 from .spec import Analysis, Spec
 
@@ -143,7 +144,7 @@ def survival_base(r: Refit, eta: np.ndarray, horizon: float) -> tuple[np.ndarray
     # The baseline is computed at the centred predictor (no underflow), then moved back.
     centre = float(np.mean(eta)) if eta.size else 0.0
     base = baseline_cumhaz((eta - centre)[:, None], o.time, o.y, [1.0], entry=o.entry,
-                           strata=o.strata)
+                           strata=o.strata, layout=cox_layout(o))
     strata = o.strata if o.strata is not None else np.zeros(o.n, dtype=np.int64)
     log_h0 = np.full(o.n, -np.inf)
     held: list[str] = []
