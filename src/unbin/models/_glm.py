@@ -10,16 +10,18 @@ and v the variance function (mu(1 - mu), mu, 1),
 
     score = Z' f (y - mu),   information H = Z' diag(f v) Z,   step = H^-1 score
 
-(f: frequency weights, 1 without). The first step is the weighted least-squares step from the
-customary start (mu = (y + 1/2)/2 for the logistic model, (y + mean y)/2 for the Poisson model;
-as statsmodels' GLM starts). Each step is solved by a Cholesky factorisation of the p x p
+(f: frequency weights, 1 without). The logistic model starts with the weighted least-squares
+step from the customary means mu = (y + 1/2)/2; the Poisson model from its intercept-only
+estimate with the offset (closed form). Each step is solved by a Cholesky factorisation of the p x p
 information; the score is recomputed from the residuals at every iterate, so the iteration also
 refines away the rounding of the factorisation (the linear model takes one least-squares step
 and two such refinement steps). A step that lowers the log-likelihood is halved (up to 30
 times).
 
 Convergence: the log-likelihood changes by at most 1e-12 of its size between iterates (with an
-absolute floor of 1e-10), or the step changes no standardised coefficient by more than 1e-10.
+absolute floor of 1e-10), or the next step would change no standardised coefficient by more
+than 1e-10 — that step is then taken without evaluating its end point (its log-likelihood is
+the quadratic prediction), as the Cox engine does.
 The covariance is the inverse information at the final iterate (times the residual variance
 ``RSS / (N - p)`` for the linear model). ``H`` is built in blocks of rows, so a fit holds only
 a few vectors of n values besides the design; nothing of size n x p^2 is formed.
@@ -130,13 +132,12 @@ class _Family:
     information at one linear predictor, for the logistic or the Poisson model."""
 
     def __init__(self, family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-                 f: np.ndarray | None):
+                 f: np.ndarray | None, const: float | None = None):
         self.binary = family == "binary"
         self.Z, self.y, self.off, self.f = Z, y, off, f
         self.const = 0.0
         if not self.binary:  # the log(y!) term of the Poisson log-likelihood
-            lg = special.gammaln(y + 1.0)
-            self.const = -float(lg.sum() if f is None else f @ lg)
+            self.const = poisson_constant(y, f) if const is None else const
 
     def evaluate(self, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
         Z, y, off, f = self.Z, self.y, self.off, self.f
@@ -169,21 +170,32 @@ class _Family:
         return ll, score, H
 
     def start(self) -> np.ndarray:
-        """Coefficients of the weighted least-squares step from the customary starting means."""
+        """Starting coefficients. Logistic: the weighted least-squares step from the customary
+        starting means, mu = (y + 1/2) / 2. Poisson: the intercept-only estimate with the
+        offset, log(sum y / sum e^offset), other coefficients 0 (the customary start ignores
+        the offset and, with person-time offsets, costs several more steps)."""
         Z, y, f = self.Z, self.y, self.f
-        if self.binary:
-            mu = (y + 0.5) / 2.0
-            eta0 = np.log(mu / (1.0 - mu))
-            v = mu * (1.0 - mu)
-        else:
-            ybar = float(y.mean() if f is None else (f @ y) / f.sum())
-            mu = (y + ybar) / 2.0
-            eta0, v = np.log(mu), mu
+        if not self.binary:
+            theta = np.zeros(Z.shape[1])
+            t = np.ones_like(y) if self.off is None else np.exp(self.off)
+            total_y = float(y.sum() if f is None else f @ y)
+            total_t = float(t.sum() if f is None else f @ t)
+            theta[0] = np.log(max(total_y, 1e-10) / total_t)
+            return theta
+        mu = (y + 0.5) / 2.0
+        eta0 = np.log(mu / (1.0 - mu))
+        v = mu * (1.0 - mu)
         fv = v if f is None else f * v
         cf = _cholesky(gram(Z, fv))
         if cf is None:
             return np.full(Z.shape[1], np.nan)
         return linalg.cho_solve(cf, Z.T @ (fv * eta0 + (y - mu) * (1.0 if f is None else f)))
+
+
+def poisson_constant(y: np.ndarray, f: np.ndarray | None = None) -> float:
+    """The -sum log(y!) term of the Poisson log-likelihood (it does not depend on the fit)."""
+    lg = special.gammaln(y + 1.0)
+    return -float(lg.sum() if f is None else f @ lg)
 
 
 def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
@@ -194,9 +206,9 @@ def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
 
 
 def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-            f: np.ndarray | None) -> _Solution:
+            f: np.ndarray | None, const: float | None = None) -> _Solution:
     """Maximum likelihood of the logistic or Poisson model on the standardised design."""
-    fam = _Family(family, Z, y, off, f)
+    fam = _Family(family, Z, y, off, f, const)
     k = Z.shape[1]
     nan = _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0, "")
     theta = fam.start()
@@ -222,15 +234,20 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
                            "an empty group.")
             nan.iterations = it
             return nan
-        change = abs(ll - ll_prev)
-        small_step = it > 1 and float(np.max(np.abs(step))) <= _STEP_TOL
-        if change <= _REL_TOL * abs(ll) + _ABS_TOL or small_step or halvings == 30:
+        step = linalg.cho_solve(cf, score)
+        small_step = float(np.max(np.abs(step))) <= _STEP_TOL
+        if small_step:
+            # the last step is taken without evaluating its end point: its log-likelihood is
+            # the quadratic prediction and the information that of the current point (both off
+            # by far less than the tolerance for a step this small)
+            theta = theta + step
+            ll += float(score @ step) / 2.0
+        if abs(ll - ll_prev) <= _REL_TOL * abs(ll) + _ABS_TOL or small_step or halvings == 30:
             cov = linalg.cho_solve(cf, np.eye(k))
             msg = "" if halvings < 30 else (
                 "step halving could not improve the log-likelihood; the model may be "
                 "overparameterised or a covariate may have extreme values.")
             return _Solution(theta, cov, ll, it, msg)
-        step = linalg.cho_solve(cf, score)
         ll_prev = ll
         theta = theta + step
     return _Solution(theta, np.full((k, k), np.nan), ll, MAX_ITER,
@@ -273,7 +290,12 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
     if family == "continuous":
         sol = _least_squares(Z, y, f)
     else:
-        sol = _newton(family, Z, y, outcome.offset, f)
+        const = None
+        if family == "count":  # the same for every fit of this outcome
+            const = outcome.cache.get("poisson_constant")
+            if const is None:
+                const = outcome.cache["poisson_constant"] = poisson_constant(y, f)
+        sol = _newton(family, Z, y, outcome.offset, f, const)
     if separation_check is not None and np.all(np.isfinite(sol.theta)):
         sep = separation_check(Z @ sol.theta)
         if sep:
