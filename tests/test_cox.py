@@ -533,3 +533,25 @@ def test_invalid_inputs_raise_value_errors() -> None:
         fit_cox(X, time, [0, 1, 1, 1, 0, 1], weights=[1, 1, 0, 1, 1, 1])
     with pytest.raises(ValueError, match="ties"):
         fit_cox(X, time, [0, 1, 1, 1, 0, 1], ties="exact")
+
+
+def test_chord_refits_near_a_start_reach_the_full_fit() -> None:
+    """``refit_near`` (one Newton step, then chord steps with the start's information) reaches
+    the maximum that ``fit_cox`` finds, on Rossi data shipped by lifelines with its published
+    Efron fit as the reference (lifelines CoxPHFitter; CHECKS.md); from a start far off it
+    declines (None) rather than return a poor estimate."""
+    from unbin.cox import refit_near
+
+    ro = load_rossi()
+    cols = ["fin", "age", "race", "wexp", "mar", "paro", "prio"]
+    X = ro[cols].to_numpy(float)
+    layout = prepare_layout(ro["week"].to_numpy(float), ro["arrest"].to_numpy(float))
+    published = np.array([-0.37942, -0.05744, 0.31390, -0.14980, -0.43370, -0.08487, 0.09150])
+    near = refit_near(X, layout, published + 0.01)
+    assert near is not None
+    np.testing.assert_allclose(near, published, atol=6e-5)
+    full = fit_cox(X, ro["week"], ro["arrest"], tol=1e-13)
+    np.testing.assert_allclose(near, full.coef, rtol=1e-7, atol=1e-9)
+    assert refit_near(X, layout, np.full(7, 5.0)) is None
+    with pytest.raises(ValueError, match="prepared for 432 rows"):
+        refit_near(X[:10], layout, published)

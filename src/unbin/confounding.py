@@ -218,8 +218,9 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
     """:func:`weighted_cox` for several designs ``(X, start)`` of the same rows at once: the
     designs share the replicates, so each replicate's repeated rows and their Cox layout (the
     sort and the risk sets, ``unbin.cox.prepare_layout``) are made once and every design is
-    fitted on them. The same coefficients as one design at a time, bit for bit."""
-    from .cox import fit_cox, prepare_layout
+    fitted on them. A design with a start is refitted by chord steps from it
+    (``unbin.cox.refit_near``), falling back to ``fit_cox`` when those do not settle."""
+    from .cox import fit_cox, prepare_layout, refit_near
 
     assert outcome.time is not None
     Xs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X, _ in designs]
@@ -237,8 +238,13 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
         except ValueError:
             continue
         for X, init, out in zip(Xs, inits, outs, strict=True):
-            try:
-                f = fit_cox(X[m], time, event, entry=entry, strata=strata, init=init,
+            Xm = X[m]
+            coef = refit_near(Xm, layout, init) if init is not None else None
+            if coef is not None:
+                out[b] = coef
+                continue
+            try:  # far from the start, or not settling: the full fit decides
+                f = fit_cox(Xm, time, event, entry=entry, strata=strata, init=init,
                             layout=layout)
             except ValueError:
                 continue
