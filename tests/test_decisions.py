@@ -397,3 +397,20 @@ def test_demo_thresholds_differ_by_diabetes_as_the_truth_says(tmp_path: Path) ->
         assert low0 < low1 and high1 < high0
     assert {"spline x diabetes"} <= set(tab["model"])
     assert tab["df_interaction"].dropna().nunique() == 1
+
+
+def test_risk_rules_from_sorted_risks_equal_the_row_by_row_counts() -> None:
+    """``net_benefit_risk`` (counts from sorted risks) equals ``net_benefit_counts`` on the
+    explicit (thresholds x n) treatment matrix, including risks tied with a threshold
+    (Vickers & Elkin 2006 definition: treat when risk >= p_t; common practice)."""
+    from unbin.decisions import net_benefit_risk
+
+    rng = np.random.default_rng(9)
+    n = 5000
+    risk = np.round(rng.beta(2, 6, n), 2)  # many ties, some exactly on the grid
+    y = (rng.random(n) < risk).astype(float)
+    grid = np.array([0.05, 0.1, 0.2, 0.25, 0.3, 0.5])
+    want = net_benefit_counts(y, risk[None, :] >= grid[:, None], grid)
+    got = net_benefit_risk(y, risk, grid)
+    for a, b in zip(got, want, strict=True):
+        np.testing.assert_allclose(a, b, rtol=0, atol=1e-15)

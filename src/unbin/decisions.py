@@ -351,6 +351,20 @@ def net_benefit_counts(y: np.ndarray, positive: np.ndarray,
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
 
 
+def net_benefit_risk(y: np.ndarray, risk: np.ndarray,
+                     thresholds: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``net_benefit_counts`` of the rules "treat when risk >= p_t" at every threshold, from
+    the sorted risks of the events and of the others (no thresholds x n matrix: counting the
+    risks at or above p_t is ``len - searchsorted(sorted, p_t, 'left')``)."""
+    y = np.asarray(y, dtype=float) > 0
+    risk = np.asarray(risk, dtype=float)
+    n = len(y)
+    ev, non = np.sort(risk[y]), np.sort(risk[~y])
+    tp = (ev.size - np.searchsorted(ev, thresholds, side="left")) / n
+    fp = (non.size - np.searchsorted(non, thresholds, side="left")) / n
+    return tp - fp * thresholds / (1.0 - thresholds), tp, fp
+
+
 def km_survival(time: np.ndarray, event: np.ndarray, horizon: float,
                 entry: np.ndarray | None = None) -> float:
     """Kaplan-Meier estimate of S(horizon): the product over event times u <= horizon of
@@ -373,15 +387,18 @@ def km_survival(time: np.ndarray, event: np.ndarray, horizon: float,
 
 def net_benefit_km(time: np.ndarray, event: np.ndarray, entry: np.ndarray | None,
                    positive: np.ndarray, horizon: float,
-                   thresholds: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                   thresholds: np.ndarray, risk: np.ndarray | None = None,
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Survival outcome at ``horizon``: (NB, (1 - S+) P+, S+ P+) per threshold (Vickers et al.
-    2008), ``positive`` of shape (n,) or (thresholds, n). A rule treating nobody has NB 0."""
+    2008), ``positive`` of shape (n,) or (thresholds, n); with ``risk`` (n,), the rules "treat
+    when risk >= p_t" instead (``positive`` is then ignored; one row mask at a time). A rule
+    treating nobody has NB 0."""
     pos = np.broadcast_to(np.asarray(positive, dtype=bool), (len(thresholds), len(time)))
     tp = np.zeros(len(thresholds))
     fp = np.zeros(len(thresholds))
     cache: dict[bytes, tuple[float, float]] = {}
     for g in range(len(thresholds)):
-        mask = pos[g]
+        mask = pos[g] if risk is None else risk >= thresholds[g]
         share = float(mask.mean())
         if share == 0:
             continue
@@ -438,7 +455,10 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
     if r.family == "binary":
         method = "events/n"
 
-        def nb(positive: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        def nb(positive: np.ndarray, risk: np.ndarray | None = None,
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            if risk is not None:
+                return net_benefit_risk(y, risk, pt)
             return net_benefit_counts(y, positive, pt)
     else:
         assert o.time is not None and d.scale.horizon is not None
@@ -449,28 +469,36 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
             held = (f"the horizon {h:g} is past the longest follow-up ({time.max():g}): "
                     "Kaplan-Meier held at its last value")
 
-        def nb(positive: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-            return net_benefit_km(time, y, entry, positive, h, pt)
+        def nb(positive: np.ndarray, risk: np.ndarray | None = None,
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            return net_benefit_km(time, y, entry, positive, h, pt, risk)
 
-    rules: list[tuple[str, str, str, str, np.ndarray, str]] = [
-        ("treat all", "reference", "", "", np.ones(len(y), dtype=bool), held),
-        ("treat none", "reference", "", "", np.zeros(len(y), dtype=bool), "")]
-    rules += [(name, "legacy", "", "", mask, held) for name, mask in legacy_rules(r.legacy, r.x)]
+    # (rule, kind, model, adjustment, who is treated: a row mask, or the risk of each row for
+    # the rules "treat when risk >= p_t" at every p_t, note)
+    rules: list[tuple[str, str, str, str, np.ndarray, np.ndarray | None, str]] = [
+        ("treat all", "reference", "", "", np.ones(len(y), dtype=bool), None, held),
+        ("treat none", "reference", "", "", np.zeros(len(y), dtype=bool), None, "")]
+    rules += [(name, "legacy", "", "", mask, None, held)
+              for name, mask in legacy_rules(r.legacy, r.x)]
     fits = ([d.legacy] if d.legacy is not None else []) + list(d.curves)
+    none = np.zeros(len(y), dtype=bool)
     for rf in fits:
-        risk = rf.risk
-        positive = risk[None, :] >= pt[:, None]
         note = " | ".join(v for v in (APPARENT, rf.note, held) if v)
-        rules.append((f"risk: {rf.model}", "model", rf.model, rf.adjustment, positive, note))
+        rules.append((f"risk: {rf.model}", "model", rf.model, rf.adjustment, none,
+                      np.asarray(rf.risk, dtype=float), note))
     rows: list[dict[str, Any]] = []
     for model, adjustment, message in d.failed:
         rows.append({**base, "rule": f"risk: {model}", "rule_type": "model", "model": model,
                      "adjustment": adjustment, "method": method, "status": "failed",
                      "reason": message})
     parts = [_finish(rows, NB_COLUMNS)] if rows else []
-    for name, kind, model, adjustment, positive, note in rules:
-        value, tp, fp = nb(positive)
-        treated = (positive.mean(axis=-1) * np.ones(len(pt)))
+    for name, kind, model, adjustment, positive, risk, note in rules:
+        value, tp, fp = nb(positive, risk)
+        if risk is None:
+            treated = positive.mean() * np.ones(len(pt))
+        else:
+            srt = np.sort(risk)
+            treated = (srt.size - np.searchsorted(srt, pt, side="left")) / srt.size
         part = pd.DataFrame({**base, "rule": name, "rule_type": kind, "model": model,
                              "adjustment": adjustment, "threshold": pt, "net_benefit": value,
                              "treated": treated, "true_positive": tp, "false_positive": fp,

@@ -180,6 +180,14 @@ class _Fitter:
         self.cache: dict[tuple[str, ...], FitResult] = {}
         self.columns: dict[str, np.ndarray] = {}  # adjustment columns, built once
 
+    def drop_predictor(self, exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> None:
+        """Forget the per-row linear predictor of a fit no table uses (a losing FP candidate):
+        n values each, which over an analysis' dozens of candidates is most of a job's memory
+        on a registry-sized sample."""
+        key = tuple(repr(t) for t in (*exposure, *adjust))
+        if key in self.cache:
+            self.cache[key] = replace(self.cache[key], linear_predictor=None)
+
     def run(self, exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> FitResult:
         key = tuple(repr(t) for t in (*exposure, *adjust))
         if key not in self.cache:
@@ -221,7 +229,11 @@ def select_fp(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable: str
             term = FPTerm.from_data(variable, x, powers)
             res = f.run((term,), adjust)
             if res.ok and (degree not in best or res.loglik > best[degree][1].loglik):
+                if degree in best:
+                    f.drop_predictor((best[degree][0],), adjust)
                 best[degree] = (term, res)
+            else:
+                f.drop_predictor((term,), adjust)
     if 2 not in best or 1 not in best:
         msg = "no fractional polynomial could be fitted (every candidate failed)"
         failed = failed_fit(f.r.family, null.names, null.n, null.events, msg)
