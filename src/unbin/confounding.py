@@ -40,7 +40,7 @@ import pandas as pd
 from scipy import special
 
 from .models import EFFECT_SCALE, RATIO_FAMILIES, Outcome, fit
-from .models._glm import gram
+from .models._glm import gram, standardise
 from .models.base import FitResult
 from .refit import Refit, adjustment_terms, design
 from .spec import Spec
@@ -72,10 +72,7 @@ class WeightedGLM:
         X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
         n, p = X.shape
         self.family, self.n, self.p = family, n, p
-        self.mean = X.mean(axis=0) if p else np.zeros(0)
-        sd = X.std(axis=0) if p else np.zeros(0)
-        self.sd = np.where(sd > 0, sd, 1.0)
-        self.Z = np.column_stack([np.ones(n), (X - self.mean) / self.sd])
+        self.Z, self.mean, self.sd = standardise(X)  # the solver's own [1, (X - mean) / sd]
         theta0 = np.zeros(p + 1)
         if start is not None and np.all(np.isfinite(start)):
             theta0 = np.concatenate([[start[0] + float(start[1:] @ self.mean)],
