@@ -180,16 +180,20 @@ class _Fitter:
         self.cache: dict[tuple[str, ...], FitResult] = {}
         self.columns: dict[str, np.ndarray] = {}  # adjustment columns, built once
 
+    @staticmethod
+    def _key(exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> tuple[str, ...]:
+        return tuple(repr(t) for t in (*exposure, *adjust))
+
     def drop_predictor(self, exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> None:
         """Forget the per-row linear predictor of a fit no table uses (a losing FP candidate):
         n values each, which over an analysis' dozens of candidates is most of a job's memory
         on a registry-sized sample."""
-        key = tuple(repr(t) for t in (*exposure, *adjust))
+        key = self._key(exposure, adjust)
         if key in self.cache:
             self.cache[key] = replace(self.cache[key], linear_predictor=None)
 
     def run(self, exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> FitResult:
-        key = tuple(repr(t) for t in (*exposure, *adjust))
+        key = self._key(exposure, adjust)
         if key not in self.cache:
             X, names = design(self.df, self.r.x, exposure, adjust, self.columns)
             res = fit(self.r.family, X, self.r.outcome, names)
