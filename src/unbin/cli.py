@@ -28,7 +28,7 @@ def _console(quiet: bool = False) -> Console:
 def _usable_spec(path: Path, console: Console) -> Spec | None:
     """The loaded spec when it is valid and matches its data; else print every problem (spec
     problems first, then data problems) and return None."""
-    from .data import data_problems
+    from .data import data_problems, grouping_warnings
     from .spec import load_spec
 
     try:
@@ -38,6 +38,13 @@ def _usable_spec(path: Path, console: Console) -> Spec | None:
     else:
         problems, what = data_problems(spec), "The spec does not match the data:"
         if not problems:
+            warnings = grouping_warnings(spec)
+            if warnings:
+                console.print(f"[yellow]The legacy groupings have {len(warnings)} problem(s) "
+                              "in the analysis samples (the analyses still run; the legacy "
+                              "contrasts these make impossible are recorded as failed):[/yellow]")
+                for w in warnings:
+                    console.print(f"  - {w}", markup=False)
             return spec
     console.print(f"[red]{what} {len(problems)} problem(s):[/red]")
     for p in problems:

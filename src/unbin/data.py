@@ -288,3 +288,84 @@ def legacy_term(x: np.ndarray, variable: str, spec: Spec) -> GroupedTerm:
     cuts = resolve_cuts(x, g)
     ref = g.labels.index(g.reference) if g.reference in g.labels else 0
     return GroupedTerm(variable, cuts, g.closed, g.labels, ref)
+
+
+# --------------------------------------------------------------------------- grouping preflight
+
+
+def group_problems(x: np.ndarray, term: GroupedTerm, min_cell: int) -> tuple[list[str], list[str]]:
+    """What is wrong with a legacy grouping in one analysis sample, before anything is fitted:
+    (problems that make a legacy contrast impossible, warnings). Problems: an empty group (naming
+    the cut that lies outside the observed range when that is the cause), an empty reference
+    group. Warnings: groups with fewer rows than ``min_cell``."""
+    problems: list[str] = []
+    warnings: list[str] = []
+    if len(x) == 0:
+        return problems, warnings
+    lo, hi = float(np.min(x)), float(np.max(x))
+    counts = np.bincount(term.codes(x), minlength=len(term.labels))
+    outside = [c for c in term.cuts if c <= lo or c > hi]
+    empty = [term.labels[j] for j in range(len(term.labels)) if counts[j] == 0]
+    if empty:
+        ref = term.labels[term.reference]
+        names = ", ".join(repr(e) for e in empty)
+        what = (f"the reference group {names} is" if empty == [ref] else
+                f"groups {names} are" if len(empty) > 1 else f"group {names} is")
+        cause = (f" because cut(s) {', '.join(f'{c:g}' for c in outside)} lie outside the "
+                 f"observed range {lo:g} to {hi:g}" if outside else "")
+        fix = ("check the cuts (and the unit of the column) against the data" if outside else
+               "check the cuts against the data")
+        if ref in empty:
+            fix += ", or choose another `reference` in groupings"
+        problems.append(f"{what} empty in the analysis sample{cause}: the legacy contrasts "
+                        f"{'against' if ref in empty else 'of'} it cannot be estimated; {fix}.")
+    small = [(term.labels[j], int(counts[j])) for j in range(len(term.labels))
+             if 0 < counts[j] < min_cell]
+    if small:
+        warnings.append(
+            f"group(s) {', '.join(f'{lab!r} ({n} rows)' for lab, n in small)} of "
+            f"{term.variable!r} hold fewer than disclosure.min_cell = {min_cell} rows: their "
+            "counts are suppressed in outputs and their contrasts are imprecise.")
+    return problems, warnings
+
+
+def grouping_warnings(spec: Spec) -> list[str]:
+    """Build each cohort's analysis samples and legacy groups (exposure, grouped adjusters and a
+    grouped ``by``) and report, per cohort, empty groups, cuts outside the observed range, an
+    empty reference group and groups below ``disclosure.min_cell``. Call after
+    :func:`data_problems` found nothing. The analyses still run: the failing legacy contrasts are
+    recorded with their status."""
+    found: dict[str, list[str]] = {}
+    for cohort in spec.cohorts:
+        cspec = spec.for_cohort(cohort.name)
+        cols = list(dict.fromkeys(c for a in cspec.analyses for c, _ in _column_fields(a)))
+        df = read_extract(cohort.path, cols)
+        for a in cspec.analyses:
+            try:
+                sample = analysis_sample(df, a, cspec)
+            except DataError as exc:
+                found.setdefault(f"analyses[{a.name}]: {exc}", []).append(cohort.name)
+                continue
+            if sample.n == 0:
+                found.setdefault(f"analyses[{a.name}]: no rows are left after filters, complete "
+                                 "cases and follow-up checks.", []).append(cohort.name)
+                continue
+            grouped = [(a.exposure, "exposure")] + [(v, "adjust") for v in a.adjust
+                                                    if v in cspec.groupings]
+            if a.by and a.by in cspec.groupings:
+                grouped.append((a.by, "by"))
+            for var, role in grouped:
+                info = cspec.variables.get(var)
+                if info is not None and info.type == "categorical":
+                    continue
+                x = coerce_numeric(sample.frame, var, role).to_numpy(float)
+                term = legacy_term(x, var, cspec)
+                probs, warns = group_problems(x, term, cspec.min_cell)
+                for m in probs + warns:
+                    found.setdefault(f"analyses[{a.name}].{role} ({var}): {m}",
+                                     []).append(cohort.name)
+    out = []
+    for msg, cohorts in found.items():
+        label = "cohort" if len(cohorts) == 1 else "cohorts"
+        out.append(f"{msg} ({label} {', '.join(cohorts)})")
+    return out

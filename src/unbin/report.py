@@ -12,11 +12,14 @@ from __future__ import annotations
 
 import base64
 import html
+import logging
 import math
 import re
 import shutil
+import traceback
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
+from functools import partial
 from importlib import metadata
 from pathlib import Path
 from typing import Any
@@ -30,6 +33,8 @@ from .errors import UnbinError
 from .figures import Context, FigureFile, draw_figures, finite, group_dir, load_tables, read_index
 from .spec import Spec, digest, load_spec
 from .tables import read_provenance
+
+log = logging.getLogger(__name__)
 
 REPORT_NAME = "report.html"
 FIGURES_DIR = "figures"
@@ -150,6 +155,9 @@ def get(r: pd.Series, key: str) -> Any:
 
 
 def figure_html(f: FigureFile) -> str:
+    if f.svg is None:
+        return (f'<figure id="{slug("fig", f.cohort, f.analysis, f.kind)}" class="not-drawn">'
+                f"<p><b>Figure not drawn.</b> {esc(f.problem)}</p></figure>")
     svg = f.svg.read_bytes()
     m = re.search(rb'<svg[^>]*\swidth="([\d.]+)pt"[^>]*\sheight="([\d.]+)pt"', svg)
     size = ""
@@ -175,6 +183,19 @@ class Builder:
         self._sections: set[str] = set()
 
     # ---- helpers
+    def guarded(self, what: str, build: Callable[[], str]) -> str:
+        """A section of the page, or a note in its place saying why it could not be written
+        (the rest of the report is still written)."""
+        try:
+            return build()
+        except Exception as exc:
+            log.warning("the report's %s could not be written (%s: %s)", what,
+                        type(exc).__name__, exc)
+            log.debug("%s", traceback.format_exc())
+            return (f'<div class="not-drawn"><p><b>{esc(what)}</b>: this part could not '
+                    f"be written ({esc(type(exc).__name__)}: {esc(str(exc))}); the numbers are "
+                    "in the tables under <code>tables/</code>. Please report this.</p></div>")
+
     def figs(self, cohort: str | None, analysis: str | None, kind: str) -> str:
         return "".join(figure_html(f) for f in self.figures
                        if f.cohort == cohort and f.analysis == analysis and f.kind == kind)
@@ -302,19 +323,20 @@ class Builder:
                  f'<p class="meta">{esc(" · ".join(m for m in meta if m))}</p>']
         if state not in ("ok", "missing") and st is not None and get(st, "message"):
             parts.append(f'<p class="caution">{esc(get(st, "message"))}</p>')
-        parts.append(self.cards(cohort, analysis))
-        parts.append(self.figs(cohort, analysis, "curves"))
-        parts.append(self.effects(cohort, analysis))
-        parts.append(self.information(cohort, analysis))
-        parts.append(self.ranges(cohort, analysis))
-        parts.append(self.confounding(cohort, analysis))
-        parts.append(self.cutpoints(cohort, analysis))
-        parts.append(self.replication(cohort, analysis))
-        parts.append(self.decisions(cohort, analysis))
-        parts.append(self.others(cohort, analysis))
-        parts.append(self.fits_and_sample(cohort, analysis))
+        pieces: list[tuple[str, Callable[[str, str], str]]] = [
+            ("key numbers", self.cards), ("curves", self.curves_figure),
+            ("effects", self.effects), ("information", self.information),
+            ("range dependence", self.ranges), ("residual confounding", self.confounding),
+            ("cut points", self.cutpoints), ("replication", self.replication),
+            ("decisions", self.decisions), ("other figures", self.others),
+            ("fits and sample", self.fits_and_sample)]
+        parts += [self.guarded(what, partial(build, cohort, analysis))
+                  for what, build in pieces]
         parts.append("</section>")
         return "".join(parts)
+
+    def curves_figure(self, cohort: str, analysis: str) -> str:
+        return self.figs(cohort, analysis, "curves")
 
     def _outcome(self, analysis: str) -> str:
         o = self.spec.analysis(analysis).outcome
@@ -407,6 +429,10 @@ class Builder:
         df = self.ctx.rows("ranges", cohort, analysis)
         if df.empty:
             return ""
+        if "form" not in df:  # the question could not be answered: say why
+            reasons = "; ".join(dict.fromkeys(str(v) for v in df.get("reason", []) if v))
+            return ('<h3>Range dependence</h3><p class="caution">Not estimated: '
+                    f"{esc(reasons or 'no rows to compare')}</p>")
         cols = [Col("trim", lambda r: _trim(r)), Col("form", lambda r: str(r["form"])),
                 Col("contrast", lambda r: str(r["contrast"])),
                 Col("rows", lambda r: _int(get(r, "n")), True),
@@ -703,9 +729,12 @@ class Builder:
                   f"predictors, refitted on the continuous scale.</p><dl class=facts>"
                   + "".join(f"<div><dt>{esc(k)}</dt><dd>{esc(v)}</dd></div>" for k, v in facts)
                   + "</dl></header>")
-        body = [header, self.summary(), self.pooled()]
-        body += [self.analysis(c, a) for c, a in self.ctx.jobs()]
-        body += [self.cautions(), self.provenance()]
+        body = [header, self.guarded("study summary", self.summary),
+                self.guarded("pooled results", self.pooled)]
+        body += [self.guarded(f"{a} ({c})", partial(self.analysis, c, a))
+                 for c, a in self.ctx.jobs()]
+        body += [self.guarded("cautions", self.cautions),
+                 self.guarded("provenance", self.provenance)]
         nav = self.nav()
         return (
             "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
@@ -776,6 +805,8 @@ margin:1rem 0 1.2rem}.card{background:var(--paper);border-top:3px solid var(--sp
 padding:.6rem .85rem}.card .label,.card .sub{display:block;font-size:.78rem;color:var(--muted)}
 .card .value{display:block;font-size:1.45rem;font-weight:700;font-variant-numeric:tabular-nums}
 .scroll{overflow-x:auto}
+.not-drawn{background:var(--warn);border-left:4px solid var(--legacy);padding:.5rem .9rem;
+margin:1rem 0}
 table{border-collapse:collapse;font-size:.84rem;font-variant-numeric:tabular-nums;
 margin:.8rem 0 .3rem}
 caption{caption-side:top;text-align:left;font-weight:700;padding:0 0 .4rem}

@@ -470,3 +470,95 @@ def test_one_failing_analysis_does_not_stop_the_others(tmp_path: Path) -> None:
     # The summary printed at the end lists the failed analysis with its status.
     assert "count_marker" in proc.stdout and "failed" in proc.stdout
     assert (out / "report.html").is_file()
+
+
+# --------------------------------------------------------------------------- legacy groups preflight
+
+
+@pytest.mark.parametrize(("cuts", "message"), [
+    ([40, 60, 120], "analyses[binary_marker].exposure (marker): group '>=120' is empty in the "
+                    "analysis sample because cut(s) 120 lie outside the observed range"),
+    ([10, 60], "analyses[binary_marker].exposure (marker): the reference group '<10' is empty in "
+               "the analysis sample because cut(s) 10 lie outside the observed range"),
+])
+def test_check_flags_cuts_outside_the_data_per_cohort(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str], cuts: list[float],
+        message: str) -> None:
+    """`unbin check` builds the analysis sample and its legacy groups before any fit and says
+    which group is empty and why, naming the analysis, the field and the cohort; the spec stays
+    usable (the analyses run and record the failing legacy contrasts)."""
+    raw = base_raw()
+    raw["analyses"] = raw["analyses"][:1]
+    raw["groupings"]["marker"]["cuts"] = cuts
+    spec_path = _write(tmp_path, raw, registry())
+    assert main(["check", str(spec_path)]) == 0
+    out = _flat(capsys.readouterr().out)
+    assert _flat(message) in out and "(cohort north)" in out
+    if cuts[0] == 10:
+        assert "choose another `reference` in groupings" in out
+
+
+def test_check_warns_about_groups_below_min_cell(tmp_path: Path,
+                                                 capsys: pytest.CaptureFixture[str]) -> None:
+    frame = registry()
+    raw = base_raw()
+    raw["analyses"] = raw["analyses"][:1]
+    low = float(np.sort(frame["marker"])[3])  # 3 rows below (values are distinct enough)
+    n_low = int((frame["marker"] < low).sum())
+    raw["groupings"]["marker"]["cuts"] = [low, 60]
+    spec_path = _write(tmp_path, raw, frame)
+    assert main(["check", str(spec_path)]) == 0
+    out = _flat(capsys.readouterr().out)
+    assert f"({n_low} rows) of 'marker' hold fewer than disclosure.min_cell = 10 rows" in out
+
+
+def test_a_figure_that_cannot_be_drawn_says_why_and_the_rest_is_drawn(tmp_path: Path) -> None:
+    """One figure kind that raises: the other figures are drawn, the index records the reason,
+    and the report carries it in the figure's place."""
+    from unbin.figures import KINDS, Context, Kind, draw_figures, read_index
+    from unbin.report import Builder
+
+    def broken(ctx: Any, cohort: Any, analysis: Any) -> Any:
+        raise KeyError("scale")
+
+    spec = parse_spec({**base_raw(), "analyses": base_raw()["analyses"][:1]}, base=tmp_path)
+    frame = registry()
+    tables, _ = analyse(spec, "north", "binary_marker", frame)
+    keyed = {name: df.assign(cohort="north", analysis="binary_marker") for name, df in
+             tables.items()}
+    ctx = Context(keyed, spec)
+    kinds = (Kind("broken", "curves", "analysis", broken),
+             *(k for k in KINDS if k.name == "curves"))
+    done = draw_figures(ctx, tmp_path / "figures", kinds=kinds)
+    by_kind = {f.kind: f for f in done}
+    assert by_kind["curves"].svg is not None and by_kind["curves"].svg.is_file()
+    assert by_kind["broken"].svg is None
+    assert "the 'broken' figure could not be drawn from the 'curves' table (KeyError: 'scale')" \
+        in by_kind["broken"].problem
+    index = read_index(tmp_path / "figures" / "north", tmp_path / "figures")
+    assert [f.problem for f in index if f.kind == "broken"] == [by_kind["broken"].problem]
+    html = Builder(ctx, done, tmp_path).figs("north", "binary_marker", "broken")
+    assert "Figure not drawn." in html and "KeyError" in html
+
+
+@pytest.mark.workflow
+def test_a_run_with_a_cut_outside_the_data_finishes_with_a_report(tmp_path: Path) -> None:
+    """The case that used to end in a traceback from the figures: a grouping whose cut lies
+    beyond every value. The run finishes, and the report says why the legacy contrasts and the
+    range-dependence question could not be estimated."""
+    raw = base_raw()
+    raw["analyses"] = raw["analyses"][1:2]  # survival
+    raw["groupings"]["marker"] = {"cuts": [200]}
+    spec_path = _write(tmp_path, raw, registry())
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "unbin.cli", "run", str(spec_path), "--out",
+                           str(out), "--cores", "2"], capture_output=True, text=True, timeout=600)
+    assert proc.returncode == 0, proc.stdout + proc.stderr
+    assert "lie outside the observed range" in _flat(proc.stdout)
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert "Not estimated: the highest or lowest legacy group is empty" in html
+    assert "could not be written" not in html
+    proc = subprocess.run([sys.executable, "-m", "unbin.cli", "report", str(out), "--spec",
+                           str(spec_path), "--quiet"],
+                          capture_output=True, text=True, timeout=600)
+    assert proc.returncode == 0, proc.stdout + proc.stderr

@@ -14,6 +14,8 @@ no GUI backend is ever chosen and nothing global is left behind.
 from __future__ import annotations
 
 import json
+import logging
+import traceback
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -26,6 +28,8 @@ from .style import save, styled
 __all__ = ["INDEX", "KINDS", "STUDY_DIR", "Context", "Drawn", "FigureFile", "Kind", "draw_figures",
            "finite", "group_dir", "load_tables", "plan", "read_index"]
 
+
+log = logging.getLogger(__name__)
 
 STUDY_DIR = "_study"     # study-level figures; cohort names cannot start with "_"
 INDEX = "index.json"     # what a folder of figures holds, for the report
@@ -89,11 +93,19 @@ def draw_figures(ctx: Context, figures_dir: str | Path, cohorts: Sequence[str] |
     out = Path(figures_dir)
     done: list[FigureFile] = []
     for k, cohort, analysis in plan(ctx, cohorts, study, kinds):
-        with styled():
-            drawn = k.draw(ctx, cohort, analysis)
-        if drawn is None:
+        try:
+            with styled():
+                drawn = k.draw(ctx, cohort, analysis)
+            if drawn is None:
+                continue
+            png, svg = save(drawn.figure, figure_path(out, k.name, cohort, analysis))
+        except Exception as exc:  # one figure that cannot be drawn must not stop the others
+            log.warning("figure %s for %s/%s could not be drawn (%s: %s)", k.name, cohort,
+                        analysis, type(exc).__name__, exc)
+            log.debug("%s", traceback.format_exc())
+            done.append(FigureFile(k.name, cohort, analysis, f"Figure '{k.name}' not drawn", "",
+                                   "", None, None, not_drawn_message(k, exc)))
             continue
-        png, svg = save(drawn.figure, figure_path(out, k.name, cohort, analysis))
         done.append(FigureFile(k.name, cohort, analysis, drawn.title, drawn.alt, drawn.caption,
                                png, svg))
     groups: list[str | None] = [None] if study else []
@@ -103,12 +115,19 @@ def draw_figures(ctx: Context, figures_dir: str | Path, cohorts: Sequence[str] |
     return done
 
 
+def not_drawn_message(k: Kind, exc: Exception) -> str:
+    return (f"the '{k.name}' figure could not be drawn from the '{k.table}' table "
+            f"({type(exc).__name__}: {exc}); its numbers are in tables/{k.table}.parquet. "
+            "Please report this with the figures log.")
+
+
 def write_index(figures: list[FigureFile], directory: Path, figures_dir: Path) -> None:
     directory.mkdir(parents=True, exist_ok=True)
     records = [{"kind": f.kind, "cohort": f.cohort, "analysis": f.analysis, "title": f.title,
                 "alt": f.alt, "caption": f.caption,
-                "png": f.png.relative_to(figures_dir).as_posix(),
-                "svg": f.svg.relative_to(figures_dir).as_posix()} for f in figures]
+                "png": f.png.relative_to(figures_dir).as_posix() if f.png else None,
+                "svg": f.svg.relative_to(figures_dir).as_posix() if f.svg else None,
+                "problem": f.problem} for f in figures]
     (directory / INDEX).write_text(json.dumps(records, indent=1, ensure_ascii=False) + "\n",
                                    encoding="utf-8")
 
@@ -118,5 +137,6 @@ def read_index(directory: Path, figures_dir: Path) -> list[FigureFile]:
     if not path.is_file():
         return []
     return [FigureFile(r["kind"], r["cohort"], r["analysis"], r["title"], r["alt"], r["caption"],
-                       figures_dir / r["png"], figures_dir / r["svg"])
+                       figures_dir / r["png"] if r.get("png") else None,
+                       figures_dir / r["svg"] if r.get("svg") else None, r.get("problem", ""))
             for r in json.loads(path.read_text(encoding="utf-8"))]

@@ -33,8 +33,9 @@ class FigureFile:
     title: str
     alt: str
     caption: str
-    png: Path
-    svg: Path
+    png: Path | None
+    svg: Path | None
+    problem: str = ""    # why the figure could not be drawn (png and svg are then None)
 
 
 @dataclass(frozen=True)

@@ -44,8 +44,8 @@ def scenarios(df: pd.DataFrame) -> list[tuple[str, float, float]]:
 def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
     assert cohort is not None and analysis is not None
     df = ctx.rows("ranges", cohort, analysis)
-    if df.empty or "trim" not in df:
-        return None
+    if df.empty or "trim" not in df or "form" not in df:
+        return None  # not estimated: the report says why
     if "adjustment" in df and (df["adjustment"] == "legacy").any():
         df = df[df["adjustment"] == "legacy"]
     scale = str(df["scale"].iloc[0])
