@@ -197,8 +197,28 @@ def test_module_from_installed_wheel(tmp_path: Path) -> None:
                            str(consumer / "Snakefile")], capture_output=True, text=True, env=env,
                           timeout=900)
     assert proc.returncode == 0, proc.stdout + proc.stderr
+    # A `localrules:` list named the unprefixed rules, so Snakemake warned here and the
+    # bookkeeping rules lost their local status under the consumer's prefix.
+    assert "localrules directive specifies rules that are not present" not in proc.stdout + \
+        proc.stderr
     assert (consumer / "results" / "unbin" / "tables" / "information.parquet").is_file()
     assert (consumer / "results" / "consortium_note.txt").read_text().startswith("rows:")
+
+
+def test_bookkeeping_rules_declare_themselves_local() -> None:
+    """Each bookkeeping rule carries `localrule: True` in its own definition: Snakemake records
+    it under the rule's final name, so it holds under a consumer's `use rule * ... as unbin_*`
+    too (a `localrules:` list would name rules that the prefix renamed). The fitting rules are
+    cluster jobs."""
+    rules = ROOT / "src" / "unbin" / "workflow"
+    text = "\n".join(p.read_text() for p in [rules / "Snakefile", *sorted(
+        (rules / "rules").glob("*.smk"))])
+    blocks = dict(re.findall(r"^rule (\w+):\n((?:    .*\n|\n)*)", text, flags=re.M))
+    local = {name for name, body in blocks.items() if "    localrule: True" in body}
+    assert local == {"all", "collect_tables", "common_basis", "bundle_cohort", "pool_bundles"}
+    assert not re.search(r"^localrules:", text, flags=re.M)
+    assert {"fit_analysis", "resample_analysis", "summarise_sample", "draw_figures",
+            "build_report"} <= set(blocks) - local
 
 
 CONSUMER = """

@@ -2,6 +2,7 @@
 
 
 rule collect_tables:
+    localrule: True
     input:
         expand(
             "work/{cohort}/{analysis}/{table}.parquet",

@@ -30,8 +30,9 @@ UNBIN_DERIVED_BASIS = {
     a.name: UNBIN_CONSORTIUM and not a.continuous.basis_fixed for a in UNBIN_SPEC.analyses
 }
 
-# Bookkeeping rules run in the main process, not as cluster jobs.
-localrules: all, collect_tables, common_basis, bundle_cohort, pool_bundles
+# Bookkeeping rules run in the main process, not as cluster jobs: each says so itself
+# (`localrule: True`), which survives a consumer's `use rule * from unbin as unbin_*` (a
+# `localrules:` list names the unprefixed rules and is lost there).
 
 wildcard_constraints:
     cohort="[A-Za-z0-9][A-Za-z0-9_-]*",

@@ -19,6 +19,7 @@ rule summarise_sample:
 
 
 rule common_basis:
+    localrule: True
     input:
         lambda w: expand("summaries/{cohort}/{analysis}.json", cohort=UNBIN_COHORTS,
                          analysis=w.analysis),
@@ -28,11 +29,14 @@ rule common_basis:
         digests=lambda w: basis_params(UNBIN_SPEC, w.analysis),
     log:
         "logs/common/{analysis}.log",
+    benchmark:
+        "benchmarks/common_basis/{analysis}.tsv"
     script:
         "../scripts/common_basis.py"
 
 
 rule bundle_cohort:
+    localrule: True
     input:
         lambda w: expand("work/{cohort}/{analysis}/{table}.parquet", cohort=w.cohort,
                          analysis=UNBIN_ANALYSES, table=JOB_TABLES),
@@ -49,6 +53,7 @@ rule bundle_cohort:
 
 
 rule pool_bundles:
+    localrule: True
     input:
         expand("bundles/{cohort}/{table}.parquet", cohort=UNBIN_COHORTS, table=BUNDLE_TABLES),
     output:
