@@ -127,3 +127,21 @@ def test_count_sample_drops_non_positive_person_time(tmp_path: Path) -> None:
     assert dropped["missing bmi"] == 1
     assert dropped["non-positive person-time (pyears <= 0)"] == 2
     assert sample.n == 2 and list(sample.frame["visits"]) == [1.0, 5.0]
+
+
+def test_a_non_numeric_value_is_located_by_row_and_csv_line(tmp_path: Path) -> None:
+    """The message names the column, its role, the value and where the first one is (data row
+    and the CSV line, counting the header line)."""
+    from unbin.data import coerce_numeric, read_extract
+
+    path = tmp_path / "extract.csv"
+    rows = ["x,age"] + [f"{i},{40 + i}" for i in range(30)]
+    rows[17] = "16,<40"  # data row 17, line 18 of the file
+    path.write_text("\n".join(rows) + "\n", encoding="utf-8")
+    df = read_extract(path, ["age"])
+    with pytest.raises(DataError) as err:
+        coerce_numeric(df, "age", "exposure")
+    msg = str(err.value)
+    assert "column 'age' (exposure) must be numeric" in msg and "'<40' in 1 rows" in msg
+    assert "the first in data row 17 (line 18 of a CSV file with one header line)" in msg
+    assert rows[17].endswith("<40") and path.read_text().splitlines()[17] == rows[17]

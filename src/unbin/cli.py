@@ -40,9 +40,9 @@ def _usable_spec(path: Path, console: Console) -> Spec | None:
         if not problems:
             warnings = grouping_warnings(spec)
             if warnings:
-                console.print(f"[yellow]The legacy groupings have {len(warnings)} problem(s) "
-                              "in the analysis samples (the analyses still run; the legacy "
-                              "contrasts these make impossible are recorded as failed):[/yellow]")
+                console.print(f"[yellow]{len(warnings)} note(s) on the legacy groups in the "
+                              "analysis samples (the analyses still run; a legacy contrast "
+                              "with an empty group is recorded as failed):[/yellow]")
                 for w in warnings:
                     console.print(f"  - {w}", markup=False)
             return spec

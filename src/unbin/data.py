@@ -110,9 +110,14 @@ def coerce_numeric(df: pd.DataFrame, col: str, role: str) -> pd.Series:
     bad = s.notna() & conv.isna()
     if bad.any():
         examples = ", ".join(repr(v) for v in s[bad].astype(str).unique()[:3])
+        where = ""
+        first = s.index[np.flatnonzero(bad.to_numpy())[0]]
+        if isinstance(first, (int, np.integer)):  # the extract's row position (as read)
+            where = (f", the first in data row {int(first) + 1} (line {int(first) + 2} of a "
+                     "CSV file with one header line)")
         raise DataError(f"column {col!r} ({role}) must be numeric but holds non-numeric values "
-                        f"such as {examples} in {int(bad.sum())} rows; recode them (or set them "
-                        "to missing) in the extract.")
+                        f"such as {examples} in {int(bad.sum())} rows{where}; recode them (or "
+                        "set them to missing) in the extract.")
     return conv.astype(float)
 
 

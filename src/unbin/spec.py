@@ -311,11 +311,7 @@ def read_yaml(path: str | Path) -> dict[str, Any]:
     try:
         data = yaml.safe_load(p.read_text(encoding="utf-8"))
     except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
-        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
-        raise SpecError(f"spec: {p.name} is not valid YAML{where}: {problem}. Fix the YAML syntax "
-                        "(indentation, colons, quotes).") from None
+        raise SpecError(yaml_message(p.name, exc)) from None
     except UnicodeDecodeError:
         raise SpecError(f"spec: {p.name} is not UTF-8 text; save it as UTF-8.") from None
     except RecursionError:
@@ -327,6 +323,25 @@ def read_yaml(path: str | Path) -> dict[str, Any]:
         raise SpecError(f"spec: the top level of {p.name} must be a mapping (key: value), "
                         f"got {type(data).__name__}.")
     return data
+
+
+def yaml_message(name: str, exc: yaml.YAMLError) -> str:
+    """A YAML syntax error, located where the broken construct starts (an unclosed quote or
+    bracket is only noticed lines later, often at the end of the file), then what was found."""
+    mark = getattr(exc, "problem_mark", None)
+    start = getattr(exc, "context_mark", None)
+    problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+    context = getattr(exc, "context", None)
+    at = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+    what = re.sub(r"^while (scanning|parsing) (an? )?", "", str(context or ""))
+    unclosed = what.startswith(("quoted", "flow", "block scalar", "anchor", "alias", "tag"))
+    if start is not None and unclosed and (mark is None or start.line != mark.line):
+        return (f"spec: {name} is not valid YAML at line {start.line + 1}, column "
+                f"{start.column + 1}: the {what} that starts there is not closed or not "
+                f"indented as expected ({problem}{at}). Fix the YAML syntax at line "
+                f"{start.line + 1} (indentation, colons, quotes, brackets).")
+    return (f"spec: {name} is not valid YAML{at}: {problem}. Fix the YAML syntax "
+            "(indentation, colons, quotes).")
 
 
 def load_spec(path: str | Path) -> Spec:
@@ -366,15 +381,62 @@ def parse_spec(raw: dict[str, Any], base: Path, source: Path | None = None) -> S
     if shape:
         raise SpecError(shape)
     problems = schema_problems(raw)
+    # The semantic checks read the spec as the user meant it: a misspelled key with a close
+    # match ('groupngs') is read as the suggestion, so its consequences (every exposure without
+    # a grouping) do not bury the cause; independent problems are still all reported.
     try:
-        problems += semantic_problems(raw)
+        problems += semantic_problems(_with_suggested_keys(raw) if problems else raw)
     except (KeyError, TypeError, ValueError, AttributeError, IndexError):
         if not problems:
             raise
         # A schema problem left the spec too malformed for the semantic checks: report those.
     if problems:
-        raise SpecError(problems)
+        raise SpecError(named_paths(problems, raw))
     return _build(raw, base, source)
+
+
+def _with_suggested_keys(raw: dict[str, Any]) -> dict[str, Any]:
+    """A copy of ``raw`` with each unknown key renamed to its 'did you mean' suggestion (when
+    that key is not present already)."""
+    import copy
+
+    import jsonschema
+
+    schema = spec_schema()
+    fixed = copy.deepcopy(raw)
+    for err in jsonschema.Draft202012Validator(schema).iter_errors(raw):
+        if err.validator != "additionalProperties" or not isinstance(err.instance, dict):
+            continue
+        node: Any = fixed
+        for part in err.absolute_path:
+            node = node[part]
+        allowed = _allowed_keys(schema, list(err.absolute_path))
+        for key in sorted(set(err.instance) - set(allowed), key=str):
+            close = difflib.get_close_matches(str(key), allowed, n=1, cutoff=0.6)
+            if close and close[0] not in node and key in node:
+                node[close[0]] = node.pop(key)
+    return fixed
+
+
+def named_paths(problems: list[str], raw: dict[str, Any]) -> list[str]:
+    """One path style in every message: a cohort or an analysis by its name
+    (``analyses[death_egfr].exposure``), by its position only when it has no usable name."""
+    def name_of(key: str, i: int) -> str | None:
+        items = raw.get(key)
+        if not isinstance(items, list) or i >= len(items) or not isinstance(items[i], dict):
+            return None
+        name = items[i].get("name")
+        if not isinstance(name, str) or not re.fullmatch(r"[A-Za-z0-9][A-Za-z0-9_-]*", name):
+            return None
+        names = [x.get("name") for x in items if isinstance(x, dict)]
+        return name if names.count(name) == 1 else None
+
+    def rewrite(m: re.Match[str]) -> str:
+        name = name_of(m.group(1), int(m.group(2)))
+        return f"{m.group(1)}[{name}]" if name else m.group(0)
+
+    pattern = re.compile(r"\b(cohorts|analyses)\[(\d+)\](?: \([^)]*\))?")
+    return list(dict.fromkeys(pattern.sub(rewrite, p) for p in problems))
 
 
 def _where(path: Any) -> str:

@@ -134,16 +134,18 @@ def _rename(path: tuple[Any, ...], old: str, new: str) -> Callable[[dict[str, An
 SPEC_CASES: list[tuple[str, Callable[[dict[str, Any]], None], list[str]]] = [
     ("unknown top-level key", _rename((), "continuous", "continous"),
      ["(top level): unknown key 'continous'. Did you mean 'continuous'?"]),
+    ("misspelled groupings: one message, the cause", _rename((), "groupings", "groupngs"),
+     ["(top level): unknown key 'groupngs'. Did you mean 'groupings'?"]),
     ("unknown analysis key", _rename(("analyses", 1), "adjust", "adjustment"),
-     ["analyses[1]: unknown key 'adjustment'. Did you mean 'adjust'?"]),
+     ["analyses[survival_marker]: unknown key 'adjustment'. Did you mean 'adjust'?"]),
     ("wrong type: seed as text", _set(("seed",), "eleven"),
      ["seed: 'eleven' has the wrong type; expected integer."]),
     ("wrong type: adjust as text", _set(("analyses", 0, "adjust"), "age, sex"),
-     ["analyses[0].adjust: 'age, sex' has the wrong type; expected array."]),
+     ["analyses[binary_marker].adjust: 'age, sex' has the wrong type; expected array."]),
     ("wrong type: cuts as text", _set(("groupings", "marker", "cuts"), "40, 60"),
      ["groupings.marker.cuts: '40, 60' has the wrong type; expected array."]),
     ("exposure without a grouping", _set(("analyses", 2, "exposure"), "age_at_entry"),
-     ["analyses[2] (count_marker).exposure: 'age_at_entry' has no entry under 'groupings'"]),
+     ["analyses[count_marker].exposure: 'age_at_entry' has no entry under 'groupings'"]),
     ("unsorted cuts", _set(("groupings", "marker", "cuts"), [60, 40]),
      ["groupings.marker.cuts: [60, 40] must be strictly increasing with no repeats; write them "
       "as [40.0, 60.0]."]),
@@ -154,16 +156,16 @@ SPEC_CASES: list[tuple[str, Callable[[dict[str, Any]], None], list[str]]] = [
      ["groupings.marker.reference: '>=70' is not one of the groups ['<40', '40-<60', '>=60']. "
       "Did you mean '>=60'?"]),
     ("outcome column given as a number", _set(("analyses", 0, "outcome", "event"), 1),
-     ["analyses[0].outcome.event: 1 has the wrong type; expected string."]),
+     ["analyses[binary_marker].outcome.event: 1 has the wrong type; expected string."]),
     ("outcome of an unknown type", _set(("analyses", 3, "outcome", "type"), "continous"),
-     ["analyses[3].outcome.type: 'continous' is not one of ['binary', 'continuous', 'count', "
+     ["analyses[continuous_marker].outcome.type: 'continous' is not one of ['binary', 'continuous', 'count', "
       "'survival']. Did you mean 'continuous'?"]),
     ("outcome field of another family", _set(("analyses", 0, "outcome", "value"), "sbp"),
-     ["analyses[0] (binary_marker).outcome.value: not used by a binary outcome (it takes "
+     ["analyses[binary_marker].outcome.value: not used by a binary outcome (it takes "
       "['event']); remove it."]),
     ("survival outcome without its event", _rename(("analyses", 1, "outcome"), "event", "died"),
-     ["analyses[1].outcome: unknown key 'died'.",
-      "analyses[1] (survival_marker).outcome: a survival outcome needs 'event' (a column name); "
+     ["analyses[survival_marker].outcome: unknown key 'died'.",
+      "analyses[survival_marker].outcome: a survival outcome needs 'event' (a column name); "
       "add it."]),
 ]
 
