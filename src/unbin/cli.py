@@ -192,7 +192,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp.set_defaults(func=cmd_run)
 
     sp = sub.add_parser("check", help="validate a spec and its data without fitting")
-    sp.add_argument("spec")
+    sp.add_argument("spec", help="the spec (YAML) to check against its extracts")
     sp.set_defaults(func=cmd_check)
 
     sp = sub.add_parser("demo", help="write the invented demo registry and run it")
@@ -203,22 +203,22 @@ def build_parser() -> argparse.ArgumentParser:
     sp = sub.add_parser("pool", help="pool cohort bundles (folders under <out>/bundles/)")
     sp.add_argument("bundles", nargs="+", help="bundle folders, one per cohort")
     sp.add_argument("--out", required=True, help="output folder (tables go to OUT/tables/)")
-    sp.add_argument("--quiet", action="store_true")
+    sp.add_argument("--quiet", action="store_true", help="print nothing")
     sp.set_defaults(func=cmd_pool)
 
     sp = sub.add_parser("compare", help="what changed between two result folders")
-    sp.add_argument("old")
-    sp.add_argument("new")
+    sp.add_argument("old", help="output folder of the earlier run")
+    sp.add_argument("new", help="output folder of the later run")
     sp.add_argument("--tolerance", type=float, default=1e-8,
                     help="absolute change below which an estimate counts as unchanged "
                          "(model scale: log ratio, mean difference; default 1e-8)")
     sp.add_argument("--out", help="parquet file for the full table (default NEW/comparison.parquet)")
     sp.add_argument("--max-rows", type=int, default=40, help="rows shown on screen")
-    sp.add_argument("--quiet", action="store_true")
+    sp.add_argument("--quiet", action="store_true", help="print nothing")
     sp.set_defaults(func=cmd_compare)
 
     sp = sub.add_parser("summary", help="print the summary of a finished run")
-    sp.add_argument("out")
+    sp.add_argument("out", help="output folder of a finished run")
     sp.set_defaults(func=cmd_summary)
 
     sp = sub.add_parser("report", help="draw the figures and rebuild OUT/report.html")
