@@ -4,6 +4,8 @@ entries differ). Pure: tables and provenance in, one tidy DataFrame out."""
 
 from __future__ import annotations
 
+import json
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -101,3 +103,36 @@ def compare_provenance(old: dict[tuple[str, str], dict[str, Any]],
                          "table": "provenance", "item": ", ".join(changed), "old": "",
                          "new": ""})
     return pd.DataFrame(rows, columns=COLUMNS)
+
+
+def run_record(folder: Path) -> dict[str, Any]:
+    """The run manifest of a result folder (``run.json``), or {} when there is none."""
+    path = folder / "run.json"
+    try:
+        return dict(json.loads(path.read_text(encoding="utf-8")))
+    except (OSError, ValueError):
+        return {}
+
+
+def _commit_text(git: dict[str, Any] | None) -> str:
+    if not git:
+        return "not in a git repository"
+    state = "clean" if git.get("clean") else "uncommitted changes"
+    if not git.get("spec_tracked"):
+        state += "; spec not tracked"
+    elif not git.get("spec_unchanged"):
+        state += "; spec changed since the commit"
+    return f"{str(git.get('commit', ''))[:12]} ({state})"
+
+
+def compare_commits(old: dict[str, Any], new: dict[str, Any]) -> pd.DataFrame:
+    """One row naming the spec's commit in each run (from ``run.json``), when either run
+    recorded one, so that what moved is read beside the change of spec that moved it."""
+    go, gn = old.get("spec_git"), new.get("spec_git")
+    if not go and not gn:
+        return pd.DataFrame(columns=COLUMNS)
+    same = bool(go and gn and go.get("commit") == gn.get("commit"))
+    return pd.DataFrame([{"change": "spec commit" + (" (same)" if same else ""), "cohort": "",
+                          "analysis": "", "table": "run.json", "item": "spec_git",
+                          "old": _commit_text(go), "new": _commit_text(gn),
+                          "difference": np.nan}], columns=COLUMNS)

@@ -314,7 +314,7 @@ def pool_job(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
 
 def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.DataFrame:
     """What changed between two result folders (see ``unbin.compare``)."""
-    from .compare import COMPARED, compare_provenance, compare_tables
+    from .compare import COMPARED, compare_commits, compare_provenance, compare_tables, run_record
     from .tables import read_provenance
 
     def tables(root: Path) -> dict[str, pd.DataFrame]:
@@ -335,7 +335,8 @@ def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.Da
                             "tables/status.parquet).")
     changes = compare_tables(tables(o), tables(n), tolerance)
     prov = compare_provenance(provs(o), provs(n))
-    parts = [d for d in (prov, changes) if len(d)]
+    commits = compare_commits(run_record(o), run_record(n))
+    parts = [d for d in (commits, prov, changes) if len(d)]
     return pd.concat(parts, ignore_index=True) if parts else changes
 
 

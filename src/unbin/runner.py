@@ -126,6 +126,7 @@ def run_manifest(out: Path, spec: Path, cores: int, profile: str | None, started
     return {
         "spec": str(spec.resolve()),
         "spec_digest": digest(read_yaml(spec)),
+        "spec_git": spec_git(spec),
         "versions": versions(),
         "cores": cores,
         "profile": profile or "none",
@@ -134,6 +135,36 @@ def run_manifest(out: Path, spec: Path, cores: int, profile: str | None, started
         "seconds": round(ended - started, 2),
         "returncode": returncode,
         "rules": rules,
+    }
+
+
+def spec_git(spec: Path) -> dict[str, Any] | None:
+    """Where the spec stands in version control, when it lives in a git repository: the commit
+    checked out, whether the working tree was clean (no changed tracked file), and whether the
+    spec itself is tracked and unchanged. None outside a repository or without git. Only the run
+    manifest holds this; result tables stay byte-stable."""
+    folder = spec.resolve().parent
+
+    def git(*args: str) -> str | None:
+        try:
+            proc = subprocess.run(["git", "-C", str(folder), *args], capture_output=True,
+                                  text=True, timeout=30, check=False)
+        except (OSError, subprocess.TimeoutExpired):
+            return None
+        return proc.stdout.strip() if proc.returncode == 0 else None
+
+    commit = git("rev-parse", "HEAD")
+    if not commit:
+        return None
+    changed = git("status", "--porcelain", "--untracked-files=no")
+    name = spec.resolve().name
+    spec_state = git("status", "--porcelain", "--", name)
+    tracked = git("ls-files", "--error-unmatch", "--", name) is not None
+    return {
+        "commit": commit,
+        "clean": changed == "",
+        "spec_tracked": tracked,
+        "spec_unchanged": tracked and spec_state == "",
     }
 
 
