@@ -162,6 +162,22 @@ def test_run_manifest_beside_results(small_run: tuple[Path, Path]) -> None:
     assert "statsmodels" in manifest["versions"]
 
 
+def test_report_false_plans_no_figures_and_no_report(tmp_path: Path) -> None:
+    """`report: false` (large batch runs): a fresh run plans every fit, resampling and table
+    job but no figure or report job; `unbin report DIR` draws them later."""
+    folder = tmp_path / "batch"
+    folder.mkdir()
+    spec = small_spec(folder, n=300)
+    raw = yaml.safe_load(spec.read_text())
+    with_report = {r for r, _ in planned(spec, folder / "out")}
+    raw["report"] = False
+    spec.write_text(yaml.safe_dump(raw))
+    without = {r for r, _ in planned(spec, folder / "out")}
+    assert {"draw_figures", "build_report"} <= with_report
+    assert without == with_report - {"draw_figures", "build_report"}
+    assert {"fit_analysis", "resample_analysis", "collect_tables"} <= without
+
+
 def test_module_from_installed_wheel(tmp_path: Path) -> None:
     """Build a wheel, install it into a fresh virtual environment, and run a consumer workflow
     that imports unbin's workflow with Snakemake's `module` directive and a prefix. The wheel is

@@ -218,6 +218,7 @@ class Spec:
     resampling: Resampling = field(default_factory=Resampling)
     cutpoint_search: CutpointSearch = field(default_factory=CutpointSearch)
     horizon: float | None = None  # default risk horizon of survival outcomes without their own
+    report: bool = True  # figures and report.html at the end of a run
 
     def for_cohort(self, name: str) -> Spec:
         """The spec as one cohort sees it: its own legacy groupings override the study's."""
@@ -755,4 +756,5 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
         cutpoint_search=CutpointSearch(**{k: float(v) for k, v in
                                           (raw.get("cutpoint_search") or {}).items()}),
         horizon=float(raw["horizon"]) if "horizon" in raw else None,
+        report=bool(raw.get("report", True)),
     )
