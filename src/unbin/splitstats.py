@@ -202,11 +202,16 @@ class AdjustedScore:
         """Per-row score contributions (y - mu)/phi and weights v at the null fit."""
         if w is None and "glm" in self._full:
             return self._full["glm"]
-        out = Outcome(self.family, self.y, offset=self.offset, weights=w)
-        res = fit(self.family, self.Z, out, self.names)
-        if not res.ok:
-            raise NullModelFailed(res.message)
-        eta = res.extra["intercept"] + np.asarray(res.linear_predictor)
+        if w is None or "theta" not in self._full:
+            out = Outcome(self.family, self.y, offset=self.offset, weights=w)
+            res = fit(self.family, self.Z, out, self.names)
+            if not res.ok:
+                raise NullModelFailed(res.message)
+            eta = res.extra["intercept"] + np.asarray(res.linear_predictor)
+            if w is None:
+                self._full["theta"] = np.r_[res.extra["intercept"], res.coef[1:]]
+        else:
+            eta = self._refit(w)
         if self.offset is not None:
             eta = eta + self.offset
         if self.family == "binary":
@@ -226,6 +231,40 @@ class AdjustedScore:
         if w is None:
             self._full["glm"] = pieces
         return pieces
+
+    def _refit(self, w: np.ndarray, max_iter: int = 30) -> np.ndarray:
+        """The null model's linear predictor (without offset) on frequency weights ``w``, by
+        Newton's method from the full-sample estimate (canonical links: score Z' w (y - mu),
+        information Z' diag(w v) Z)."""
+        Z1 = np.column_stack([np.ones(len(self.y)), self.Z])
+        theta = np.asarray(self._full["theta"], dtype=float).copy()
+        off = 0.0 if self.offset is None else self.offset
+        for _ in range(max_iter):
+            eta = Z1 @ theta
+            if self.family == "binary":
+                mu = special.expit(eta)
+                v = mu * (1.0 - mu)
+            elif self.family == "count":
+                mu = np.exp(eta + off)
+                v = mu
+            else:
+                mu, v = eta, np.ones_like(eta)
+            info = Z1.T @ ((w * v)[:, None] * Z1)
+            try:
+                step = linalg.solve(info, Z1.T @ (w * (self.y - mu)), assume_a="pos")
+            except (linalg.LinAlgError, ValueError) as exc:
+                raise NullModelFailed("the replicate's null model has a singular information "
+                                      "matrix (an adjustment category not drawn?)") from exc
+            theta += step
+            if not np.all(np.isfinite(theta)):
+                break
+            if np.max(np.abs(step)) < 1e-10 * (1.0 + np.max(np.abs(theta))):
+                eta = Z1 @ theta
+                if self.family == "binary" and np.any(np.abs(eta[w > 0]) > 20):
+                    raise NullModelFailed("perfect or quasi-complete separation in the "
+                                          "replicate's null model")
+                return eta
+        raise NullModelFailed("the replicate's null model did not converge")
 
     def _glm(self, k: np.ndarray, w: np.ndarray | None) -> np.ndarray:
         r, v = self._glm_null(w)
