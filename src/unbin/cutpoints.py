@@ -39,11 +39,14 @@ coding, and the strata for Cox (Breslow ties) — fitted once (``unbin.splitstat
 ``statistic_name`` and ``adjusted_for`` say which. A permutation of the exposure would also
 break its association with the adjusters (the null it simulates is "exposure independent of
 outcome and adjusters", not "no association given the adjusters"), so under adjustment there is
-no permutation p-value: the corrected p-values rest on the asymptotic null distribution of the
-maximally selected score statistic (Miller & Siegmund 1982; Lausen & Schumacher 1992), which the
-adjusted score process shares to the extent that the exposure is not strongly tied to the
-adjusters (its type-I error under a confounded null is checked in tests/test_cutpoints.py). The
-bootstrap refits the null model in every replicate.
+no permutation p-value. The corrected p-values rest on the asymptotic null distribution of the
+maximally selected statistic of an unadjusted split (Miller & Siegmund 1982; Lausen &
+Schumacher 1992), which the adjusted score process approaches when the exposure is not strongly
+tied to the adjusters; ``p_simulated`` instead draws (``permutations`` times) from the
+asymptotic null of the adjusted score process itself, given the design (Gaussian draws with
+the efficient information as covariance; for Cox, multipliers on the events' score
+contributions, Lin, Wei & Ying 1993), and repeats the maximisation:
+p = (1 + #{max* >= max}) / (1 + draws). The bootstrap refits the null model in every replicate.
 
 Resampling uses frequency weights (a bootstrap replicate is a vector of multinomial counts), which
 give exactly the statistic of the resampled data; it is vectorised over replicates except for
@@ -65,7 +68,14 @@ from .confounding import resample_weights
 from .models.base import Outcome
 from .refit import Refit, adjustment_terms, design, legacy_term
 from .spec import Spec
-from .splitstats import AdjustedScore, NullModelFailed
+from .splitstats import (  # noqa: F401  (the corrected p-values are part of this API)
+    ALTMAN_COEFFICIENTS,
+    AdjustedScore,
+    NullModelFailed,
+    altman_message,
+    p_altman,
+    p_lausen,
+)
 from .splitstats import SurvivalLayout as _SurvivalLayout
 from .terms import GroupedTerm
 
@@ -80,64 +90,6 @@ STATISTIC = {
     "count": "Poisson score chi-square with person-time offset",
     "survival": "log-rank chi-square (hypergeometric variance, strata, delayed entry)",
 }
-
-# Altman, Lausen, Sauerbrei & Schumacher 1994 (JNCI 86:829): P_cor = -a P (1 + b ln P), for
-# cuts searched between the given quantiles, valid for about 1e-4 <= P <= 0.1.
-ALTMAN_COEFFICIENTS: dict[tuple[float, float], tuple[float, float]] = {
-    (0.10, 0.90): (1.63, 2.35),
-    (0.05, 0.95): (3.13, 1.65),
-}
-
-
-# --------------------------------------------------------------------------- corrected p-values
-
-
-ALTMAN_P_RANGE = (1e-4, 0.1)
-
-
-def p_altman(p: float, lower: float = 0.1, upper: float = 0.9) -> float:
-    """Altman et al. (1994) corrected p-value of a minimum-p cut search over [lower, upper].
-
-    Published for the 10-90% and 5-95% ranges and for 0.0001 <= p <= 0.1: returns NaN for other
-    ranges and p-values (:func:`altman_message` says why); the result is clipped to [p, 1]."""
-    if altman_message(p, lower, upper):
-        return float("nan")
-    a, b = ALTMAN_COEFFICIENTS[(round(lower, 6), round(upper, 6))]
-    return float(min(1.0, max(p, -a * p * (1.0 + b * np.log(p)))))
-
-
-def altman_message(p: float, lower: float = 0.1, upper: float = 0.9) -> str:
-    """Why :func:`p_altman` gives no value ("" when it does)."""
-    if (round(lower, 6), round(upper, 6)) not in ALTMAN_COEFFICIENTS:
-        return (f"search range {100 * lower:g}-{100 * upper:g}% is not one the Altman et al. "
-                "1994 formula was published for (10-90%, 5-95%); use p_lausen")
-    lo, hi = ALTMAN_P_RANGE
-    if not np.isfinite(p):
-        return "no naive p-value"
-    if not lo <= p <= hi:
-        return (f"naive p {p:.3g} is outside {lo:g}-{hi:g}, the range the Altman et al. 1994 "
-                "formula was published for; use p_lausen")
-    return ""
-
-
-def p_lausen(p: float, lower: float = 0.1, upper: float = 0.9) -> float:
-    """Miller & Siegmund (1982) / Lausen & Schumacher (1992) approximation of the p-value of the
-    maximally selected chi-square over cuts with low-group share in [lower, upper]:
-
-        P ~ phi(z) (z - 1/z) ln(upper (1 - lower) / (lower (1 - upper))) + 4 phi(z) / z,
-
-    with z = Phi^-1(1 - p/2). For the symmetric range [eps, 1 - eps] the log term is
-    ln((1 - eps)^2 / eps^2). Clipped to [p, 1]."""
-    if not np.isfinite(p) or p <= 0:
-        return float("nan") if not np.isfinite(p) else 0.0
-    if p >= 1:
-        return 1.0
-    z = float(stats.norm.isf(p / 2.0))
-    phi = float(stats.norm.pdf(z))
-    span = np.log(upper * (1.0 - lower) / (lower * (1.0 - upper)))
-    val = phi * (z - 1.0 / z) * span + 4.0 * phi / z
-    return float(min(1.0, max(p, val)))
-
 
 # --------------------------------------------------------------------------- the split search
 
@@ -478,8 +430,12 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
     summary["permutations"] = n_perm
     if n_perm > 0 and search.adjusted is not None:
         summary["permutations"] = 0
+        sim = search.adjusted.simulate_max(search.k, spec.rng(a.name, "cutpoints-simulation"),
+                                           n_perm)
+        ge = int(np.sum(np.nan_to_num(sim, nan=-np.inf) >= max_stat * (1 - 1e-10)))
+        summary.update(simulations=n_perm, p_simulated=(1 + ge) / (1 + n_perm))
         notes.append("no permutation p-value under adjustment (permuting the exposure would "
-                     "also break its association with the adjusters); see p_lausen, p_altman")
+                     "also break its association with the adjusters); p_simulated instead")
     elif n_perm > 0:
         perm_max = search.permutation_max(spec.rng(a.name, "cutpoints-permutation"), n_perm)
         ge = int(np.sum(np.nan_to_num(perm_max, nan=-np.inf) >= max_stat * (1 - 1e-10)))
@@ -513,7 +469,7 @@ COLUMNS = ["row_type", "variable", "role", "derived_from_data", "group", "cut", 
            "median", "distance_to_median", "distance_percentile_points", "statistic", "p_naive",
            "n", "events", "suppressed", "statistic_name", "adjusted_for", "search_lower",
            "search_upper", "n_candidates", "p_altman", "p_altman_message", "p_lausen",
-           "permutations", "p_permutation", "bootstrap", "bootstrap_ok", "bootstrap_failed",
+           "permutations", "p_permutation", "simulations", "p_simulated", "bootstrap", "bootstrap_ok", "bootstrap_failed",
            *_boot_names("boot_cut"), *_boot_names("boot_percentile"), "status", "message"]
 
 
@@ -557,8 +513,8 @@ def cutpoints_table(r: Refit, spec: Spec) -> pd.DataFrame:
         else:
             rows += _search_rows(r, spec, search, r.legacy)
     out = pd.DataFrame(rows, columns=COLUMNS)
-    for c in ("n", "events", "n_candidates", "permutations", "bootstrap", "bootstrap_ok",
-              "bootstrap_failed"):
+    for c in ("n", "events", "n_candidates", "permutations", "simulations", "bootstrap",
+              "bootstrap_ok", "bootstrap_failed"):
         out[c] = out[c].astype("Int64")
     for c in ("derived_from_data", "suppressed"):
         out[c] = out[c].astype("boolean")

@@ -41,7 +41,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import linalg, special
+from scipy import linalg, special, stats
 
 from .models import fit
 from .models.base import Outcome
@@ -169,6 +169,67 @@ class SurvivalLayout:
             return np.where(V > 1e-12, U * U / V, np.nan)
 
 
+# --------------------------------------------------------------------------- corrected p-values
+
+# Altman, Lausen, Sauerbrei & Schumacher 1994 (JNCI 86:829): P_cor = -a P (1 + b ln P), for
+# cuts searched between the given quantiles, valid for about 1e-4 <= P <= 0.1.
+ALTMAN_COEFFICIENTS: dict[tuple[float, float], tuple[float, float]] = {
+    (0.10, 0.90): (1.63, 2.35),
+    (0.05, 0.95): (3.13, 1.65),
+}
+
+
+ALTMAN_P_RANGE = (1e-4, 0.1)
+
+
+def p_altman(p: float, lower: float = 0.1, upper: float = 0.9) -> float:
+    """Altman et al. (1994) corrected p-value of a minimum-p cut search over [lower, upper].
+
+    Published for the 10-90% and 5-95% ranges and for 0.0001 <= p <= 0.1: returns NaN for other
+    ranges and p-values (:func:`altman_message` says why); the result is clipped to [p, 1]."""
+    if altman_message(p, lower, upper):
+        return float("nan")
+    a, b = ALTMAN_COEFFICIENTS[(round(lower, 6), round(upper, 6))]
+    return float(min(1.0, max(p, -a * p * (1.0 + b * np.log(p)))))
+
+
+def altman_message(p: float, lower: float = 0.1, upper: float = 0.9) -> str:
+    """Why :func:`p_altman` gives no value ("" when it does)."""
+    if (round(lower, 6), round(upper, 6)) not in ALTMAN_COEFFICIENTS:
+        return (f"search range {100 * lower:g}-{100 * upper:g}% is not one the Altman et al. "
+                "1994 formula was published for (10-90%, 5-95%); use p_lausen")
+    lo, hi = ALTMAN_P_RANGE
+    if not np.isfinite(p):
+        return "no naive p-value"
+    if not lo <= p <= hi:
+        return (f"naive p {p:.3g} is outside {lo:g}-{hi:g}, the range the Altman et al. 1994 "
+                "formula was published for; use p_lausen")
+    return ""
+
+
+def p_lausen(p: float, lower: float = 0.1, upper: float = 0.9) -> float:
+    """Miller & Siegmund (1982) / Lausen & Schumacher (1992) approximation of the p-value of the
+    maximally selected chi-square over cuts with low-group share in [lower, upper]:
+
+        P ~ phi(z) (z - 1/z) ln(upper (1 - lower) / (lower (1 - upper))) + 4 phi(z) / z,
+
+    with z = Phi^-1(1 - p/2). For the symmetric range [eps, 1 - eps] the log term is
+    ln((1 - eps)^2 / eps^2). Clipped to [p, 1]."""
+    if not np.isfinite(p) or p <= 0:
+        return float("nan") if not np.isfinite(p) else 0.0
+    if p >= 1:
+        return 1.0
+    z = float(stats.norm.isf(p / 2.0))
+    phi = float(stats.norm.pdf(z))
+    span = np.log(upper * (1.0 - lower) / (lower * (1.0 - upper)))
+    val = phi * (z - 1.0 / z) * span + 4.0 * phi / z
+    return float(min(1.0, max(p, val)))
+
+
+
+# --------------------------------------------------------------------------- adjusted score
+
+
 class NullModelFailed(Exception):
     """The adjusted null model could not be fitted (message says why)."""
 
@@ -272,32 +333,87 @@ class AdjustedScore:
             r, v = r * w, v * w
         Z1 = np.column_stack([np.ones(len(r)), self.Z])
         vZ = v[:, None] * Z1
-        U = prefix_at(r, k)
-        i_dd = prefix_at(v, k)
-        i_dz = prefix_at(vZ, k)
-        i_zz = Z1.T @ vZ
-        return _chi2(U, i_dd, i_dz, i_zz)
+        eff, B = _efficient(prefix_at(v, k), prefix_at(vZ, k), Z1.T @ vZ)
+        return _chi2(prefix_at(r, k), eff)
+
+    def simulate_max(self, k: np.ndarray, rng: np.random.Generator, draws: int) -> np.ndarray:
+        """The maximum over the candidates of T*_c = U*_c^2 / I_c for ``draws`` draws from the
+        asymptotic null distribution of the score process, given the design (exposure,
+        adjusters, strata and at-risk sets held fixed). Linear, logistic and Poisson models:
+        U* = D_c~' W^(1/2) g with g ~ N(0, I_n) and D_c~ the indicator's residual after
+        weighted projection on the null model's columns, a Gaussian vector with exactly the
+        efficient information as covariance. Cox: multipliers on the events' score
+        contributions (Lin, Wei & Ying 1993), U*_c = sum_i g_i (D_ci - p_c(t_i)), projected
+        on the adjusters' contributions, whose covariance given the data estimates the
+        efficient information. NaN candidates are skipped."""
+        if self.family == "survival":
+            return self._cox_simulate(k, rng, draws)
+        _, v = self._glm_null(None)
+        n = len(v)
+        Z1 = np.column_stack([np.ones(n), self.Z])
+        vZ = v[:, None] * Z1
+        eff, B = _efficient(prefix_at(v, k), prefix_at(vZ, k), Z1.T @ vZ)
+        sv = np.sqrt(v)
+        out = np.empty(draws)
+        chunk = max(1, _CHUNK_CELLS // max(n, 1))
+        for r0 in range(0, draws, chunk):
+            size = min(chunk, draws - r0)
+            G = rng.standard_normal((n, size)) * sv[:, None]
+            U = prefix_at(G, k) - B @ (Z1.T @ G)
+            out[r0:r0 + size] = _max_stat(U, eff)
+        return out
 
     # -- Cox (Breslow)
 
     def _cox(self, k: np.ndarray, w: np.ndarray | None) -> np.ndarray:
+        U, eff, _, _ = self._cox_parts(k, w)
+        return _chi2(U, eff)
+
+    def _cox_simulate(self, k: np.ndarray, rng: np.random.Generator, draws: int) -> np.ndarray:
+        _, eff, B, pieces = self._cox_parts(k, None)
+        v, s0, zbar = pieces
+        L = self.surv
+        assert L is not None
+        ev_rows = np.flatnonzero(L.e < L.n_times)
+        e_ev = L.e[ev_rows]
+        az = self.Z[ev_rows] - zbar[e_ev]
+        E = ev_rows.size
+        out = np.empty(draws)
+        chunk = max(1, _CHUNK_CELLS // max(E, 1))
+        for r0 in range(0, draws, chunk):
+            size = min(chunk, draws - r0)
+            G = rng.standard_normal((E, size))
+            U = np.empty((len(k), size))
+            for m0, m1, n1, _ in L.low_group(k, v, L.a, L.b, L.e):
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    frac = np.where(s0 > 0, n1 / s0, 0.0)
+                low = (ev_rows[None, :] < k[m0:m1, None]).astype(float)
+                U[m0:m1] = (low - frac[:, e_ev]) @ G
+            U -= B @ (az.T @ G)
+            out[r0:r0 + size] = _max_stat(U, eff)
+        return out
+
+    def _cox_parts(self, k: np.ndarray, w: np.ndarray | None) -> tuple[
+            np.ndarray, np.ndarray, np.ndarray, tuple[np.ndarray, np.ndarray, np.ndarray]]:
+        """U_c, the efficient information, I_DZ I_ZZ^-1 and (risk weights, at-risk sums,
+        at-risk means of Z) of the Cox null model fitted with frequency weights ``w``."""
         from .cox import fit_cox
 
         assert self.surv is not None and self.time is not None
         L = self.surv
-        if w is None or "beta" not in self._full:
-            init = None
+        if w is None and "beta" in self._full:
+            beta = self._full["beta"]
         else:
-            init = self._full["beta"]
-        rows = slice(None) if w is None else w > 0
-        sub = (lambda a: None if a is None else a[rows])  # noqa: E731
-        fitted = fit_cox(self.Z[rows], self.time[rows], self.y[rows], entry=sub(self.entry),
-                         strata=sub(self.strata), weights=sub(w), ties="breslow", init=init)
-        if not fitted.converged or not np.all(np.isfinite(fitted.coef)):
-            raise NullModelFailed(fitted.message or "the Cox null model did not converge")
-        beta = np.asarray(fitted.coef)
-        if w is None:
-            self._full["beta"] = beta
+            rows = slice(None) if w is None else w > 0
+            sub = (lambda a: None if a is None else a[rows])  # noqa: E731
+            fitted = fit_cox(self.Z[rows], self.time[rows], self.y[rows],
+                             entry=sub(self.entry), strata=sub(self.strata), weights=sub(w),
+                             ties="breslow", init=self._full.get("beta"))
+            if not fitted.converged or not np.all(np.isfinite(fitted.coef)):
+                raise NullModelFailed(fitted.message or "the Cox null model did not converge")
+            beta = np.asarray(fitted.coef)
+            if w is None:
+                self._full["beta"] = beta
         fw = np.ones(len(self.y)) if w is None else w
         eta = self.Z @ beta
         v = fw * np.exp(eta - eta.max())  # a common factor cancels in every term
@@ -325,17 +441,32 @@ class AdjustedScore:
                 frac = np.where(s0 > 0, n1 / s0, 0.0)
             i_dd[m0:m1] -= (d * frac * frac).sum(axis=1)
             i_dz[m0:m1] -= frac @ dz
-        return _chi2(U, i_dd, i_dz, i_zz)
+        eff, B = _efficient(i_dd, i_dz, i_zz)
+        return U, eff, B, (v, s0, zbar)
 
 
-def _chi2(U: np.ndarray, i_dd: np.ndarray, i_dz: np.ndarray, i_zz: np.ndarray) -> np.ndarray:
-    """U^2 / (I_DD - I_DZ I_ZZ^-1 I_ZD) per candidate; NaN where the efficient information is
-    not positive (relative to I_DD)."""
+def _efficient(i_dd: np.ndarray, i_dz: np.ndarray,
+               i_zz: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The efficient information I_DD - I_DZ I_ZZ^-1 I_ZD per candidate (NaN where it is not
+    positive, relative to I_DD) and B = I_DZ I_ZZ^-1 (candidates x columns)."""
     try:
         cf = linalg.cho_factor(i_zz)
     except linalg.LinAlgError as exc:
         raise NullModelFailed("the adjustment variables' information matrix is singular") \
             from exc
-    eff = i_dd - np.einsum("mj,jm->m", i_dz, linalg.cho_solve(cf, i_dz.T))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return np.where(eff > 1e-10 * np.maximum(i_dd, 1e-300), U * U / eff, np.nan)
+    B = linalg.cho_solve(cf, i_dz.T).T
+    eff = i_dd - np.einsum("mj,mj->m", i_dz, B)
+    return np.where(eff > 1e-10 * np.maximum(i_dd, 1e-300), eff, np.nan), B
+
+
+def _chi2(U: np.ndarray, eff: np.ndarray) -> np.ndarray:
+    """U^2 / I per candidate (NaN where I is)."""
+    return np.asarray(U * U / eff, dtype=float)
+
+
+def _max_stat(U: np.ndarray, eff: np.ndarray) -> np.ndarray:
+    """Per column (draw), the maximum over candidates (rows) of U^2 / I, skipping NaN."""
+    ok = np.isfinite(eff)
+    if not ok.any():
+        return np.full(U.shape[1], np.nan)
+    return np.max(U[ok] ** 2 / eff[ok, None], axis=0)
