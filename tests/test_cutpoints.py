@@ -19,7 +19,14 @@ from scipy import stats
 from statsmodels.duration.hazard_regression import PHReg
 
 from helpers import bare_refit as _refit
-from unbin.cutpoints import SplitSearch, altman_message, cutpoints_table, p_altman, p_lausen
+from unbin.cutpoints import (
+    SplitSearch,
+    altman_message,
+    cutpoints_table,
+    p_altman,
+    p_lausen,
+    summary_line,
+)
 from unbin.models.base import Outcome
 from unbin.spec import parse_spec
 
@@ -490,6 +497,7 @@ def test_adjusted_search_rows_name_the_statistic_and_count_failed_replicates() -
     assert pd.isna(search["p_permutation"]) and search["permutations"] == 0
     assert "no permutation p-value under adjustment" in search["message"]
     assert search["simulations"] == 99 and 1 / 100 <= search["p_simulated"] <= 1
+    assert "simulated p" in summary_line(tab.assign(analysis="a"))
     p = search["p_naive"]
     assert (pd.isna(search["p_altman"]) == (not 1e-4 <= p <= 0.1))
     if pd.isna(search["p_altman"]):

@@ -123,6 +123,7 @@ def test_demo_fills_every_grouping_cost_table() -> None:
     # permutation p-value (a permuted exposure loses its association with the adjusters)
     assert search["statistic_name"].iloc[0].startswith("score chi-square of the split, adjusted")
     assert search["p_permutation"].isna().all() and (search["permutations"] == 0).all()
+    assert search["p_simulated"].notna().all()
     assert len(pd.concat([t for t in out["replication"] if len(t)])) == 1  # death_egfr reports
     for q in ("ranges", "confounding"):
         assert all((t["status"] == "ok").any() for t in out[q])

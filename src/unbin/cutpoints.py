@@ -537,10 +537,11 @@ def summary_line(df: pd.DataFrame) -> str:
         if s.status != "ok":
             text += f"; {s.analysis}: search failed"
             continue
+        resampled = (f"permutation p {_p(s.p_permutation)}" if pd.notna(s.p_permutation)
+                     else f"simulated p {_p(getattr(s, 'p_simulated', None))}")
         text += (f"; {s.analysis} {s.variable} {where} chosen from the data: optimal "
                  f"{s.cut:g}, naive p {_p(s.p_naive)}, corrected p {_p(s.p_lausen)}, "
-                 f"permutation p {_p(s.p_permutation)}, bootstrap cut "
-                 f"{_g(s.boot_cut_p2_5)}–{_g(s.boot_cut_p97_5)}")
+                 f"{resampled}, bootstrap cut {_g(s.boot_cut_p2_5)}–{_g(s.boot_cut_p97_5)}")
     return text
 
 
