@@ -1,6 +1,8 @@
 """The split statistics behind the cut-point audit (``unbin.cutpoints``), vectorised over
-candidate cuts: the survival layout of the (stratified, delayed-entry) log-rank statistic, and
-the score statistic of a split adjusted for the analysis's adjustment variables.
+candidate cuts: the survival layout of the (stratified, delayed-entry) log-rank statistic, the
+score statistic of a split adjusted for the analysis's adjustment variables with draws from its
+asymptotic null (``AdjustedScore.simulate_max``), and the corrected p-values of a maximally
+selected statistic (Altman et al. 1994; Miller & Siegmund 1982 / Lausen & Schumacher 1992).
 
 Adjusted split statistic
 ------------------------
