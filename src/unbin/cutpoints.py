@@ -13,15 +13,18 @@ For an exposure grouping flagged ``derived_from_data``:
   the search range (``cutpoint_search``, default 10-90%); candidates are the distinct observed
   values (thinned to ``MAX_CANDIDATES`` evenly spaced in rank when there are more);
 - the **maximally selected statistic**, its naive p-value (chi-square, 1 df), the corrected
-  p-values of Altman et al. 1994 (JNCI 86:829; only for the 10-90% and 5-95% ranges the formula
-  was published for) and of Miller & Siegmund 1982 / Lausen & Schumacher 1992 (any range), and a
-  permutation p-value (the exposure permuted against the outcome — within strata for survival —
-  and the whole search repeated; p = (1 + #{max* >= max}) / (1 + permutations));
-- the **bootstrap spread** of the re-derived "optimal" cut (case resampling; percentiles).
+  p-values of Altman, Lausen, Sauerbrei & Schumacher 1994 (JNCI 86:829; only for the 10-90% and
+  5-95% ranges and the naive p-values 1e-4 <= p <= 0.1 the formula was published for; otherwise
+  empty, with the reason in ``p_altman_message``) and of Miller & Siegmund 1982 (Biometrics
+  38:1011) / Lausen & Schumacher 1992 (Biometrics 48:73; any range), and a permutation p-value
+  (the exposure permuted against the outcome — within strata for survival — and the whole search
+  repeated; p = (1 + #{max* >= max}) / (1 + permutations));
+- the **bootstrap spread** of the re-derived "optimal" cut (case resampling; percentiles), with
+  the replicates that gave no cut counted (``bootstrap_failed``) and their reasons.
 
-The split statistic is the score (Rao) chi-square of a binary split in the analysis's family,
-without adjustment (as a minimum-p search is usually run), computed for all candidates at once
-from cumulative sums over the sorted exposure:
+Without adjustment variables the split statistic is the score (Rao) chi-square of a binary split
+in the analysis's family, computed for all candidates at once from cumulative sums over the
+sorted exposure:
 
 - continuous: n R^2 of the split (score test of the linear model, variance estimated under the
   null with denominator n);
@@ -30,15 +33,31 @@ from cumulative sums over the sorted exposure:
 - survival: the log-rank chi-square (hypergeometric variance; stratified by the analysis's strata;
   delayed entry respected: a row is at risk at t when entry < t <= time).
 
+When the analysis adjusts for other variables (``adjust``, ``by``), the statistic is the score
+chi-square of the split added to the adjusted null model — those variables in their legacy
+coding, and the strata for Cox (Breslow ties) — fitted once (``unbin.splitstats``); the table's
+``statistic_name`` and ``adjusted_for`` say which. A permutation of the exposure would also
+break its association with the adjusters (the null it simulates is "exposure independent of
+outcome and adjusters", not "no association given the adjusters"), so under adjustment there is
+no permutation p-value. The corrected p-values rest on the asymptotic null distribution of the
+maximally selected statistic of an unadjusted split (Miller & Siegmund 1982; Lausen &
+Schumacher 1992), which the adjusted score process approaches when the exposure is not strongly
+tied to the adjusters; ``p_simulated`` instead draws (``permutations`` times) from the
+asymptotic null of the adjusted score process itself, given the design (Gaussian draws with
+the efficient information as covariance; for Cox, multipliers on the events' score
+contributions, Lin, Wei & Ying 1993), and repeats the maximisation:
+p = (1 + #{max* >= max}) / (1 + draws). The bootstrap refits the null model in every replicate.
+
 Resampling uses frequency weights (a bootstrap replicate is a vector of multinomial counts), which
 give exactly the statistic of the resampled data; it is vectorised over replicates except for
-survival, where each replicate costs O(n + candidates x event times). Draws come from
+survival and adjusted searches, where each replicate costs O(n + candidates x event times), or a
+refit of the null model. Draws come from
 ``spec.rng(analysis, "cutpoints-...")``: the same spec gives the same numbers on every run.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from typing import Any, Literal
 
 import numpy as np
@@ -47,8 +66,17 @@ from scipy import stats
 
 from .confounding import resample_weights
 from .models.base import Outcome
-from .refit import Refit, legacy_term
+from .refit import Refit, adjustment_terms, design, legacy_term
 from .spec import Spec
+from .splitstats import (  # noqa: F401  (the corrected p-values are part of this API)
+    ALTMAN_COEFFICIENTS,
+    AdjustedScore,
+    NullModelFailed,
+    altman_message,
+    p_altman,
+    p_lausen,
+)
+from .splitstats import SurvivalLayout as _SurvivalLayout
 from .terms import GroupedTerm
 
 TABLE = "cutpoints"
@@ -62,50 +90,6 @@ STATISTIC = {
     "count": "Poisson score chi-square with person-time offset",
     "survival": "log-rank chi-square (hypergeometric variance, strata, delayed entry)",
 }
-
-# Altman, Lausen, Sauerbrei & Schumacher 1994 (JNCI 86:829): P_cor = -a P (1 + b ln P), for
-# cuts searched between the given quantiles. Coefficients as listed in CHECKS.md.
-ALTMAN_COEFFICIENTS: dict[tuple[float, float], tuple[float, float]] = {
-    (0.10, 0.90): (1.63, 2.35),
-    (0.05, 0.95): (3.13, 1.65),
-}
-
-
-# --------------------------------------------------------------------------- corrected p-values
-
-
-def p_altman(p: float, lower: float = 0.1, upper: float = 0.9) -> float:
-    """Altman et al. (1994) corrected p-value of a minimum-p cut search over [lower, upper].
-
-    Published for the 10-90% and 5-95% ranges and for 0.0001 <= p <= 0.1: returns NaN for other
-    ranges and for p > 0.1 (where the formula is not monotone); the result is clipped to
-    [p, 1]."""
-    key = (round(lower, 6), round(upper, 6))
-    coef = ALTMAN_COEFFICIENTS.get(key)
-    if coef is None or not np.isfinite(p) or p <= 0 or p > 0.1:
-        return float("nan")
-    a, b = coef
-    return float(min(1.0, max(p, -a * p * (1.0 + b * np.log(p)))))
-
-
-def p_lausen(p: float, lower: float = 0.1, upper: float = 0.9) -> float:
-    """Miller & Siegmund (1982) / Lausen & Schumacher (1992) approximation of the p-value of the
-    maximally selected chi-square over cuts with low-group share in [lower, upper]:
-
-        P ~ phi(z) (z - 1/z) ln(upper (1 - lower) / (lower (1 - upper))) + 4 phi(z) / z,
-
-    with z = Phi^-1(1 - p/2). For the symmetric range [eps, 1 - eps] the log term is
-    ln((1 - eps)^2 / eps^2). Clipped to [p, 1]."""
-    if not np.isfinite(p) or p <= 0:
-        return float("nan") if not np.isfinite(p) else 0.0
-    if p >= 1:
-        return 1.0
-    z = float(stats.norm.isf(p / 2.0))
-    phi = float(stats.norm.pdf(z))
-    span = np.log(upper * (1.0 - lower) / (lower * (1.0 - upper)))
-    val = phi * (z - 1.0 / z) * span + 4.0 * phi / z
-    return float(min(1.0, max(p, val)))
-
 
 # --------------------------------------------------------------------------- the split search
 
@@ -125,11 +109,18 @@ class SplitSearch:
     y: np.ndarray  # outcome in sorted order (event, value or count)
     t: np.ndarray | None = None  # person-time (count), sorted
     surv: _SurvivalLayout | None = None
+    adjusted: AdjustedScore | None = None  # the score statistic given the adjusters
+    null_error: list[str] = field(default_factory=list)  # why the adjusted null model failed
+    name: str = ""  # the statistic, for the table (STATISTIC[family] when not adjusted)
+    adjusted_for: str = ""  # adjustment variables and strata the statistic accounts for
 
     @classmethod
     def build(cls, family: str, x: np.ndarray, outcome: Outcome, closed: str = "left",
               lower: float = 0.1, upper: float = 0.9,
-              max_candidates: int = MAX_CANDIDATES) -> SplitSearch:
+              max_candidates: int = MAX_CANDIDATES,
+              adjust: tuple[np.ndarray, tuple[str, ...]] | None = None) -> SplitSearch:
+        """``adjust``: the adjustment design (columns, names; no intercept) in row order; with
+        at least one column the statistic is the adjusted score chi-square."""
         x = np.asarray(x, dtype=float)
         order = np.argsort(x, kind="stable")
         xs = x[order]
@@ -154,8 +145,17 @@ class SplitSearch:
                 raise ValueError("a count outcome needs its person-time offset")
             t = np.exp(outcome.offset)[order]
         surv = _SurvivalLayout.build(outcome, order) if family == "survival" else None
-        return cls(family, closed, lower, upper, xs, k.astype(np.int64), cand,
-                   np.asarray(outcome.y, dtype=float)[order], t, surv)
+        y = np.asarray(outcome.y, dtype=float)[order]
+        adjusted = None
+        if adjust is not None and adjust[0].shape[1] > 0:
+            def srt(a: np.ndarray | None) -> np.ndarray | None:
+                return None if a is None else np.asarray(a)[order]
+
+            adjusted = AdjustedScore(family, np.asarray(adjust[0], dtype=float)[order],
+                                     adjust[1], y, srt(outcome.offset), srt(outcome.time),
+                                     srt(outcome.entry), srt(outcome.strata), surv)
+        return cls(family, closed, lower, upper, xs, k.astype(np.int64), cand, y, t, surv,
+                   adjusted, name=STATISTIC.get(family, ""))
 
     @property
     def n(self) -> int:
@@ -170,14 +170,20 @@ class SplitSearch:
         k = int(np.searchsorted(self.xs, cut, side=_side(self.closed)))
         if k <= 0 or k >= self.n:
             return float("nan")
-        one = SplitSearch(self.family, self.closed, 0.0, 1.0, self.xs, np.array([k]),
-                          np.array([cut]), self.y, self.t, self.surv)
+        one = replace(self, lower=0.0, upper=1.0, k=np.array([k]), cuts=np.array([cut]))
         return float(one.profile()[0])
 
     # -- statistics
 
     def profile(self) -> np.ndarray:
-        """The statistic at every candidate cut (NaN where undefined)."""
+        """The statistic at every candidate cut (NaN where undefined; all NaN, with the reason in
+        ``null_error``, when the adjusted null model cannot be fitted)."""
+        if self.adjusted is not None:
+            try:
+                return self.adjusted.profile(self.k)
+            except NullModelFailed as exc:
+                self.null_error.append(str(exc) or "the adjusted null model failed")
+                return np.full(len(self.k), np.nan)
         if self.family == "survival":
             assert self.surv is not None
             return self.surv.logrank(self.k, self.surv.w_unit)
@@ -241,7 +247,10 @@ class SplitSearch:
 
     def permutation_max(self, rng: np.random.Generator, permutations: int) -> np.ndarray:
         """The maximal statistic of each of ``permutations`` data sets in which the exposure is
-        permuted against the outcome (within strata for survival)."""
+        permuted against the outcome (within strata for survival). Unadjusted searches only."""
+        if self.adjusted is not None:
+            raise ValueError("a permutation of the exposure ignores the adjusters; the adjusted "
+                             "search has no permutation p-value")
         out = np.empty(permutations)
         if self.family == "survival":
             assert self.surv is not None
@@ -262,18 +271,34 @@ class SplitSearch:
     def bootstrap_cuts(self, rng: np.random.Generator, replicates: int) -> np.ndarray:
         """The re-derived optimal cut in each of ``replicates`` bootstrap samples (case
         resampling as multinomial frequency weights; the search range applies to each
-        replicate's own low-group shares). NaN when a replicate has no valid candidate."""
+        replicate's own low-group shares). NaN when a replicate has no valid candidate or its
+        adjusted null model cannot be fitted (see :meth:`bootstrap`)."""
+        return self.bootstrap(rng, replicates)[0]
+
+    def bootstrap(self, rng: np.random.Generator,
+                  replicates: int) -> tuple[np.ndarray, dict[str, int]]:
+        """:meth:`bootstrap_cuts` and the number of replicates that gave no cut, by reason."""
         out = np.full(replicates, np.nan)
+        failed = {"null model failed": 0, "no valid candidate": 0}
         if len(self.k) == 0:
-            return out
+            failed["no valid candidate"] = replicates
+            return out, failed
         n = self.n
         chunk = max(1, _CHUNK_CELLS // max(n, 1))
+        one_by_one = self.family == "survival" or self.adjusted is not None
         done = 0
         while done < replicates:
-            size = min(chunk, replicates - done) if self.family != "survival" else 1
+            size = min(chunk, replicates - done) if not one_by_one else 1
             W = resample_weights(rng, n, size)
             share = _cum(W)[:, self.k] / n
-            if self.family == "survival":
+            if self.adjusted is not None:
+                try:
+                    stat = self.adjusted.profile(self.k, W[0])[None, :]
+                except NullModelFailed:
+                    failed["null model failed"] += 1
+                    done += 1
+                    continue
+            elif self.family == "survival":
                 assert self.surv is not None
                 stat = self.surv.logrank(self.k, W[0])[None, :]
             else:
@@ -283,8 +308,9 @@ class SplitSearch:
             best = np.argmax(stat, axis=1)
             has = ok.any(axis=1)
             out[done:done + size] = np.where(has, self.cuts[best], np.nan)
+            failed["no valid candidate"] += int((~has).sum())
             done += size
-        return out
+        return out, failed
 
 
 def _side(closed: str) -> Literal["left", "right"]:
@@ -306,105 +332,6 @@ def _nanmax(a: np.ndarray, axis: int | None = None) -> Any:
     filled = np.where(np.isnan(a), -np.inf, a)
     m = np.max(filled, axis=axis) if filled.size else np.array(-np.inf)
     return np.where(np.isneginf(m), np.nan, m)
-
-
-@dataclass
-class _SurvivalLayout:
-    """Event times of every stratum indexed k = 0..K-1 (by stratum, then time); per row the
-    half-open range [a_i, b_i) of event indices at which it is at risk and, for events, the index
-    e_i of its own event time. Rows are in exposure-sorted order."""
-
-    a: np.ndarray
-    b: np.ndarray
-    e: np.ndarray  # event index for event rows, K (a dummy slot) otherwise
-    strata: np.ndarray
-    n_times: int
-
-    @property
-    def w_unit(self) -> np.ndarray:
-        return np.ones(len(self.a))
-
-    @classmethod
-    def build(cls, outcome: Outcome, order: np.ndarray) -> _SurvivalLayout:
-        assert outcome.time is not None
-        time = np.asarray(outcome.time, dtype=float)[order]
-        event = np.asarray(outcome.y, dtype=float)[order] > 0
-        entry = (np.asarray(outcome.entry, dtype=float)[order] if outcome.entry is not None
-                 else np.full(len(time), -np.inf))
-        strata = (np.asarray(outcome.strata)[order] if outcome.strata is not None
-                  else np.zeros(len(time), dtype=np.int64))
-        codes = np.unique(strata, return_inverse=True)[1].reshape(-1)
-        n = len(time)
-        a = np.empty(n, dtype=np.int64)
-        b = np.empty(n, dtype=np.int64)
-        e = np.empty(n, dtype=np.int64)
-        offset = 0
-        for s in range(int(codes.max()) + 1 if n else 0):
-            rows = np.flatnonzero(codes == s)
-            times = np.unique(time[rows][event[rows]])
-            a[rows] = offset + np.searchsorted(times, entry[rows], side="right")
-            b[rows] = offset + np.searchsorted(times, time[rows], side="right")
-            e[rows] = offset + np.searchsorted(times, time[rows], side="left")
-            offset += len(times)
-        e = np.where(event, e, offset)
-        return cls(a, b, e, codes, offset)
-
-    def stratified_permutation(self, rng: np.random.Generator) -> np.ndarray:
-        """Row order that shuffles the survival data within strata against the sorted exposure:
-        position p receives the outcome of row perm[p], from the same stratum."""
-        key = rng.random(len(self.a))
-        by_stratum = np.argsort(self.strata, kind="stable")
-        shuffled = np.lexsort((key, self.strata))
-        perm = np.empty(len(self.a), dtype=np.int64)
-        perm[by_stratum] = shuffled
-        return perm
-
-    def logrank(self, k: np.ndarray, w: np.ndarray, perm: np.ndarray | None = None) -> np.ndarray:
-        """Log-rank chi-square (low group vs the rest) for every candidate (low group = the first
-        k[m] rows in exposure order), with frequency weights ``w`` (aligned with the exposure
-        order). ``perm`` moves the survival data against the exposure."""
-        a, b, e = (self.a, self.b, self.e) if perm is None else \
-            (self.a[perm], self.b[perm], self.e[perm])
-        K = self.n_times
-        if K == 0 or len(k) == 0:
-            return np.full(len(k), np.nan)
-        n_k = np.cumsum(np.bincount(a, w, K + 1) - np.bincount(b, w, K + 1))[:K]
-        d_k = np.bincount(e, w, K + 1)[:K]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            hyper = np.where(n_k > 1, (n_k - d_k) / (n_k - 1), 0.0)
-        M = len(k)
-        U = np.empty(M)
-        V = np.empty(M)
-        chunk = max(1, _CHUNK_CELLS // (K + 1))
-        base_r = np.zeros(K + 1)
-        base_d = np.zeros(K + 1)
-        start_row = 0
-        for m0 in range(0, M, chunk):
-            m1 = min(M, m0 + chunk)
-            C = m1 - m0
-            # rows entering the low group at candidates m0..m1-1: positions k[m-1]..k[m]-1
-            stop_row = int(k[m1 - 1])
-            rows = slice(start_row, stop_row)
-            g = np.searchsorted(k[m0:m1], np.arange(start_row, stop_row), side="right")
-            wr = w[rows]
-            flat_a = g * (K + 1) + a[rows]
-            flat_b = g * (K + 1) + b[rows]
-            flat_e = g * (K + 1) + e[rows]
-            D: np.ndarray = (np.bincount(flat_a, wr, C * (K + 1))
-                             - np.bincount(flat_b, wr, C * (K + 1)))
-            D = np.cumsum(D.reshape(C, K + 1), axis=0) + base_r
-            Dd: np.ndarray = np.bincount(flat_e, wr, C * (K + 1)).reshape(C, K + 1)
-            Dd = np.cumsum(Dd, axis=0) + base_d
-            base_r, base_d = D[-1].copy(), Dd[-1].copy()
-            n1 = np.cumsum(D, axis=1)[:, :K]
-            d1 = Dd[:, :K]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                frac = np.where(n_k > 0, n1 / n_k, 0.0)
-            U[m0:m1] = (d1 - d_k * frac).sum(axis=1)
-            V[m0:m1] = (d_k * hyper * frac * (1.0 - frac)).sum(axis=1)
-            start_row = stop_row
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.where(V > 1e-12, U * U / V, np.nan)
 
 
 # --------------------------------------------------------------------------- the table
@@ -446,7 +373,8 @@ def _cut_and_group_rows(r: Refit, spec: Spec, variable: str, role: str, term: Gr
     for j, c in enumerate(term.cuts):
         pct = 100.0 * float(np.mean(codes <= j))
         stat = search.statistic_at(c) if search is not None else float("nan")
-        rows.append({**base, "row_type": "cut", "cut": float(c), "percentile": pct,
+        named = {"statistic_name": search.name} if search is not None else {}
+        rows.append({**base, **named, "row_type": "cut", "cut": float(c), "percentile": pct,
                      "median": med, "distance_to_median": float(c) - med,
                      "distance_percentile_points": pct - 50.0, "statistic": stat,
                      "p_naive": float(stats.chi2.sf(stat, 1)) if np.isfinite(stat) else np.nan,
@@ -468,16 +396,21 @@ def _cut_and_group_rows(r: Refit, spec: Spec, variable: str, role: str, term: Gr
 def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
                  term: GroupedTerm) -> list[dict[str, Any]]:
     a = r.analysis
-    base = {"variable": a.exposure, "role": "exposure", "derived_from_data": True}
+    base = {"variable": a.exposure, "role": "exposure", "derived_from_data": True,
+            "statistic_name": search.name}
     prof = search.profile()
     rows: list[dict[str, Any]] = [
         {**base, "row_type": "profile", "cut": float(c), "percentile": float(p),
          "statistic": float(s), "p_naive": float(stats.chi2.sf(s, 1)) if np.isfinite(s) else np.nan}
         for c, p, s in zip(search.cuts, search.percentiles, prof, strict=True)]
     lo, hi = spec.cutpoint_search.lower, spec.cutpoint_search.upper
-    summary: dict[str, Any] = {**base, "row_type": "search", "statistic_name": STATISTIC[r.family],
+    summary: dict[str, Any] = {**base, "row_type": "search", "adjusted_for": search.adjusted_for,
                                "search_lower": lo, "search_upper": hi,
                                "n_candidates": len(search.k), "status": "ok", "message": ""}
+    if search.null_error:
+        summary.update(status="failed", message="the adjusted null model (adjustment variables "
+                       f"in their legacy coding) could not be fitted: {search.null_error[0]}")
+        return [*rows, summary]
     if not np.isfinite(prof).any():
         summary.update(status="failed", message="no candidate cut in the search range gives a "
                                                 "defined statistic (too few distinct values?)")
@@ -487,6 +420,7 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
     p_naive = float(stats.chi2.sf(max_stat, 1))
     summary.update(cut=float(search.cuts[best]), percentile=float(search.percentiles[best]),
                    statistic=max_stat, p_naive=p_naive, p_altman=p_altman(p_naive, lo, hi),
+                   p_altman_message=altman_message(p_naive, lo, hi),
                    p_lausen=p_lausen(p_naive, lo, hi))
     notes = []
     if len(term.cuts) > 1:
@@ -494,16 +428,25 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
                      "binary splits")
     n_perm = spec.resampling.permutations
     summary["permutations"] = n_perm
-    if n_perm > 0:
+    if n_perm > 0 and search.adjusted is not None:
+        summary["permutations"] = 0
+        sim = search.adjusted.simulate_max(search.k, spec.rng(a.name, "cutpoints-simulation"),
+                                           n_perm)
+        ge = int(np.sum(np.nan_to_num(sim, nan=-np.inf) >= max_stat * (1 - 1e-10)))
+        summary.update(simulations=n_perm, p_simulated=(1 + ge) / (1 + n_perm))
+        notes.append("no permutation p-value under adjustment (permuting the exposure would "
+                     "also break its association with the adjusters); p_simulated instead")
+    elif n_perm > 0:
         perm_max = search.permutation_max(spec.rng(a.name, "cutpoints-permutation"), n_perm)
         ge = int(np.sum(np.nan_to_num(perm_max, nan=-np.inf) >= max_stat * (1 - 1e-10)))
         summary["p_permutation"] = (1 + ge) / (1 + n_perm)
     n_boot = spec.resampling.bootstrap
     summary["bootstrap"] = n_boot
     if n_boot > 0:
-        cuts = search.bootstrap_cuts(spec.rng(a.name, "cutpoints-bootstrap"), n_boot)
+        cuts, failed = search.bootstrap(spec.rng(a.name, "cutpoints-bootstrap"), n_boot)
         ok = cuts[np.isfinite(cuts)]
         summary["bootstrap_ok"] = len(ok)
+        summary["bootstrap_failed"] = n_boot - len(ok)
         if len(ok):
             q = np.percentile(ok, BOOT_PERCENTILES)
             pct = 100.0 * np.searchsorted(search.xs, q, side=_side(search.closed)) / search.n
@@ -511,7 +454,9 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
                 summary[name] = float(v)
                 summary[name.replace("boot_cut", "boot_percentile")] = float(p)
         if len(ok) < n_boot:
-            notes.append(f"{n_boot - len(ok)} bootstrap replicate(s) had no valid candidate")
+            why = ", ".join(f"{v} {k}" for k, v in failed.items() if v)
+            notes.append(f"{n_boot - len(ok)} of {n_boot} bootstrap replicate(s) gave no cut "
+                         f"({why}); the boot_* columns use the other {len(ok)}")
     summary["message"] = "; ".join(notes)
     return [*rows, summary]
 
@@ -522,10 +467,16 @@ def _boot_names(prefix: str) -> list[str]:
 
 COLUMNS = ["row_type", "variable", "role", "derived_from_data", "group", "cut", "percentile",
            "median", "distance_to_median", "distance_percentile_points", "statistic", "p_naive",
-           "n", "events", "suppressed", "statistic_name", "search_lower", "search_upper",
-           "n_candidates", "p_altman", "p_lausen", "permutations", "p_permutation", "bootstrap",
-           "bootstrap_ok", *_boot_names("boot_cut"), *_boot_names("boot_percentile"),
-           "status", "message"]
+           "n", "events", "suppressed", "statistic_name", "adjusted_for", "search_lower",
+           "search_upper", "n_candidates", "p_altman", "p_altman_message", "p_lausen",
+           "permutations", "p_permutation", "simulations", "p_simulated", "bootstrap", "bootstrap_ok", "bootstrap_failed",
+           *_boot_names("boot_cut"), *_boot_names("boot_percentile"), "status", "message"]
+
+
+def _adjustment(r: Refit, spec: Spec) -> tuple[np.ndarray, tuple[str, ...]]:
+    """The legacy analysis's adjustment design (legacy coding; no intercept)."""
+    terms = adjustment_terms(r.sample.frame, r.analysis, spec, "legacy")
+    return design(r.sample.frame, r.x, (), terms)
 
 
 def cutpoints_table(r: Refit, spec: Spec) -> pd.DataFrame:
@@ -536,7 +487,17 @@ def cutpoints_table(r: Refit, spec: Spec) -> pd.DataFrame:
     search_error = ""
     lo, hi = spec.cutpoint_search.lower, spec.cutpoint_search.upper
     try:
-        search = SplitSearch.build(r.family, r.x, r.outcome, r.legacy.closed, lo, hi)
+        search = SplitSearch.build(r.family, r.x, r.outcome, r.legacy.closed, lo, hi,
+                                   adjust=_adjustment(r, spec))
+        a = r.analysis
+        adjusters = [*a.adjust, *([a.by] if a.by else [])]
+        strata = list(a.strata) if r.family == "survival" else []
+        search.adjusted_for = ", ".join([*adjusters, *(f"strata {v}" for v in strata)])
+        if search.adjusted is not None:
+            search.name = (f"score chi-square of the split, adjusted for {', '.join(adjusters)} "
+                           "(legacy coding)" + (f", stratified by {', '.join(strata)}"
+                                                if strata else "")
+                           + ("; Cox model, Breslow ties" if r.family == "survival" else ""))
     except ValueError as exc:
         search_error = str(exc)
     for variable, role in _grouped_variables(r, spec):
@@ -552,11 +513,13 @@ def cutpoints_table(r: Refit, spec: Spec) -> pd.DataFrame:
         else:
             rows += _search_rows(r, spec, search, r.legacy)
     out = pd.DataFrame(rows, columns=COLUMNS)
-    for c in ("n", "events", "n_candidates", "permutations", "bootstrap", "bootstrap_ok"):
+    for c in ("n", "events", "n_candidates", "permutations", "simulations", "bootstrap",
+              "bootstrap_ok", "bootstrap_failed"):
         out[c] = out[c].astype("Int64")
     for c in ("derived_from_data", "suppressed"):
         out[c] = out[c].astype("boolean")
-    for c in ("group", "statistic_name", "status", "message"):
+    for c in ("group", "statistic_name", "adjusted_for", "p_altman_message", "status",
+              "message"):
         out[c] = out[c].astype("string")
     return out
 
@@ -574,10 +537,11 @@ def summary_line(df: pd.DataFrame) -> str:
         if s.status != "ok":
             text += f"; {s.analysis}: search failed"
             continue
+        resampled = (f"permutation p {_p(s.p_permutation)}" if pd.notna(s.p_permutation)
+                     else f"simulated p {_p(getattr(s, 'p_simulated', None))}")
         text += (f"; {s.analysis} {s.variable} {where} chosen from the data: optimal "
                  f"{s.cut:g}, naive p {_p(s.p_naive)}, corrected p {_p(s.p_lausen)}, "
-                 f"permutation p {_p(s.p_permutation)}, bootstrap cut "
-                 f"{_g(s.boot_cut_p2_5)}–{_g(s.boot_cut_p97_5)}")
+                 f"{resampled}, bootstrap cut {_g(s.boot_cut_p2_5)}–{_g(s.boot_cut_p97_5)}")
     return text
 
 

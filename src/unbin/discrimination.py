@@ -4,9 +4,11 @@ for survival outcomes). Not defined here for count and continuous outcomes (NaN)
 Several tables ask for the C-index of the same fits, so ``c_index`` computes it once per linear
 predictor: the value is kept in ``outcome.cache``, keyed by the identity of the array and holding
 a reference to it (so that the identity cannot pass to another array while the entry exists);
-linear predictors are never changed in place. For survival, the time order and the tie
-bookkeeping of Harrell's C depend on (time, event) only and are kept there too
-(``unbin.cox.concordance_order``)."""
+linear predictors are never changed in place. For survival, Harrell's C compares only pairs
+within a stratum in which the longer-lived row was at risk at the earlier event time (entry
+before it); the time order and the tie and delayed-entry bookkeeping depend on (time, event,
+entry, strata) only and are kept there too (``unbin.cox.concordance_order``), with references
+to the arrays they were made from, so that they serve only the same arrays."""
 
 from __future__ import annotations
 
@@ -31,8 +33,8 @@ _TIME_ORDER = "concordance_order"
 
 
 def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
-    """AUC (binary) or Harrell's C (survival) of the linear predictor ``lp`` of a fit to
-    ``outcome``'s rows; NaN for other families or without ``lp``. Computed once per ``lp``."""
+    """AUC (binary) or Harrell's C (survival; within strata, pairs at risk together) of the
+    linear predictor ``lp`` of a fit to ``outcome``'s rows; NaN for other families or without ``lp``. Computed once per ``lp``."""
     if lp is None or outcome.family not in ("binary", "survival"):
         return float("nan")
     memo: dict[int, tuple[np.ndarray, float]] = outcome.cache.setdefault(_MEMO, {})
@@ -45,9 +47,11 @@ def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
         from .cox import concordance, concordance_order
 
         assert outcome.time is not None
-        order = outcome.cache.get(_TIME_ORDER)
-        if order is None:
-            order = outcome.cache[_TIME_ORDER] = concordance_order(outcome.time, outcome.y)
-        value = float(concordance(outcome.time, lp, outcome.y, time_order=order))
+        source = (outcome.time, outcome.y, outcome.entry, outcome.strata)
+        kept = outcome.cache.get(_TIME_ORDER)
+        if kept is None or any(a is not b for a, b in zip(kept[0], source, strict=True)):
+            order = concordance_order(outcome.time, outcome.y, outcome.entry, outcome.strata)
+            kept = outcome.cache[_TIME_ORDER] = (source, order)
+        value = float(concordance(outcome.time, lp, outcome.y, time_order=kept[1]))
     memo[id(lp)] = (lp, value)
     return value
