@@ -7,6 +7,7 @@ seeded replicate study, and per-level curves against a simulated truth."""
 from __future__ import annotations
 
 import importlib.util
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -280,3 +281,74 @@ def test_levels_come_from_the_factor_in_the_adjustment(tmp_path: Path) -> None:
     np.testing.assert_array_equal(lv.codes, np.r_[np.zeros(20), np.ones(20)])
     m = fit_level_model(r, interaction_spline(r), adjust, "continuous", lv)
     assert m.df == 3
+
+
+@pytest.fixture(scope="module")
+def demo_tables() -> tuple[Spec, dict[str, pd.DataFrame]]:
+    """The demo's two analyses with a ``by`` on its first cohort, through ``jobs.analyse`` (the
+    workflow's per-analysis function), without the resampling questions."""
+    from unbin.demo import demo_spec, simulate_registry
+    from unbin.jobs import analyse
+
+    raw = demo_spec()
+    raw["analyses"] = [a for a in raw["analyses"]
+                       if a["name"] in ("readmission_sodium", "sbp_urate")]
+    spec = parse_spec(raw, base=Path("."))
+    frame = simulate_registry()
+    out: dict[str, list[pd.DataFrame]] = {}
+    for a in spec.analyses:
+        tables, status = analyse(spec, "lindenfeld", a.name, frame, resampling=False)
+        assert status["status"] == "ok", status["message"]
+        for name, df in tables.items():
+            out.setdefault(name, []).append(
+                df.assign(cohort="lindenfeld", analysis=a.name)[["cohort", "analysis",
+                                                                  *df.columns]])
+    with warnings.catch_warnings():  # tables of both analyses with all-missing columns
+        warnings.simplefilter("ignore", FutureWarning)
+        return spec, {k: pd.concat(v, ignore_index=True) for k, v in out.items()}
+
+
+def test_demo_effect_modification_recovers_its_truth(
+        demo_tables: tuple[Spec, dict[str, pd.DataFrame]]) -> None:
+    """unbin.demo's truths: systolic pressure's slope on urate is 0.5, 1.5, 2.5, 3.5 mmHg per
+    mg/dL in the age groups <50, 50-<60, 60-<70, >=70 (a real interaction, detected at p < 0.001);
+    each level's curve, a line through its reference, has the level's slope within 3 SEs of a
+    least-squares line through the curve (SE of the curve at the level's 90th percentile over
+    its distance from the reference). Per-level thresholds and the legacy subgroup contrasts
+    are filled for the analyses with a ``by``."""
+    from unbin.demo import TRUE_SBP_PER_URATE_BY_AGE
+
+    _, t = demo_tables
+    info = t["information"].set_index(["analysis", "adjustment"])
+    assert info.loc[("sbp_urate", "continuous"), "interaction_p"] < 1e-3
+    assert info.loc[("sbp_urate", "continuous"), "interaction_df"] == 9
+    cur = t["curves"]
+    cur = cur[(cur["analysis"] == "sbp_urate") & (cur["form"] == SPLINE)
+              & (cur["adjustment"] == "continuous") & cur["in_range"]]
+    for level, slope in zip(("<50", "50-<60", "60-<70", ">=70"), TRUE_SBP_PER_URATE_BY_AGE,
+                            strict=True):
+        g = cur[cur["by_level"] == level]
+        dx = (g["x"] - g["x_reference"]).to_numpy()
+        fitted = float(np.polyfit(dx, g["estimate"].to_numpy(), 1)[0])
+        far = int(np.argmax(np.abs(dx)))
+        se_slope = float(g["se"].to_numpy()[far] / abs(dx[far]))
+        assert abs(fitted - slope) < 3 * se_slope, (level, fitted, se_slope)
+    thr = t["thresholds"]
+    assert set(thr.loc[thr["analysis"] == "sbp_urate", "level"]) >= {"<50", ">=70"}
+    eff = t["effects"]
+    assert set(eff.loc[eff["form"] == "legacy x level", "by_level"]) >= {"0", "1"}
+
+
+def test_demo_level_curves_figure(demo_tables: tuple[Spec, dict[str, pd.DataFrame]]) -> None:
+    """The level-curves figure is drawn for an analysis with a ``by`` (one panel per level,
+    the interaction test in its alt text) and skipped for one without per-level rows."""
+    from unbin.figures import Context
+    from unbin.figures.levels import draw
+
+    spec, t = demo_tables
+    ctx = Context(t, spec)
+    drawn = draw(ctx, "lindenfeld", "sbp_urate")
+    assert drawn is not None
+    assert "4 panels" in drawn.alt and "interaction LR" in drawn.alt
+    no_levels = {k: (v[v["form"] != SPLINE] if k == "curves" else v) for k, v in t.items()}
+    assert draw(Context(no_levels, spec), "lindenfeld", "sbp_urate") is None

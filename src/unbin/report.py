@@ -304,6 +304,7 @@ class Builder:
             parts.append(f'<p class="caution">{esc(get(st, "message"))}</p>')
         parts.append(self.cards(cohort, analysis))
         parts.append(self.figs(cohort, analysis, "curves"))
+        parts.append(self.figs(cohort, analysis, "level-curves"))
         parts.append(self.effects(cohort, analysis))
         parts.append(self.information(cohort, analysis))
         parts.append(self.ranges(cohort, analysis))
@@ -346,6 +347,8 @@ class Builder:
 
     def effects(self, cohort: str, analysis: str) -> str:
         eff = self.ctx.rows("effects", cohort, analysis)
+        if "by_level" in eff:  # per-level contrasts: in the table's parquet, not in this summary
+            eff = eff[eff["by_level"].fillna("") == ""]
         if eff.empty:
             return ""
         eff = eff[eff["adjustment"] == "legacy"] if (eff["adjustment"] == "legacy").any() else eff
