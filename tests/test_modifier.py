@@ -199,6 +199,35 @@ def test_legacy_subgroup_contrasts_match_statsmodels(
     assert (eff.loc[~eff["form"].str.endswith(" x level"), "by_level"] == "").all()
 
 
+def test_per_level_thresholds_plug_back_into_statsmodels(tmp_path: Path) -> None:
+    """Implied thresholds per level of a grouped modifier come from the interaction model WITH
+    the level main effect: at each reported exposure value x*, the statsmodels GLM (binomial,
+    patsy natural cubic spline on the recorded knots x C(level) + spline of z) gives the
+    threshold risk at the same quantile of the level's linear predictors with x set to x*."""
+    from unbin.decisions import thresholds_table
+
+    frame = _null_frame(3000, 11)
+    raw = _raw({"type": "binary", "event": "y"})
+    raw["risk_thresholds"] = [0.3, 0.5]
+    spec, r = _refit(frame, raw, tmp_path)
+    tab = thresholds_table(r, spec)
+    rows = tab[(tab["model"] == "spline x w") & (tab["status"] == "ok")
+               & tab["exposure_value"].notna()]
+    assert set(rows["level"]) == {"<50", ">=50"}
+    knots = interaction_spline(r).knots
+    zk = np.quantile(frame["z"], Z_QUANTILES)
+    f = frame.assign(lvl=np.where(frame["w"] >= 50, "b", "a"))
+    yv, X = patsy.dmatrices(f"y ~ {_cr('x', knots)} * C(lvl) + {_cr('z', zk)}", f,
+                            return_type="dataframe")
+    full = sm.GLM(yv, X, family=sm.families.Binomial()).fit(tol=1e-12)
+    di = X.design_info
+    for row in rows.itertuples():
+        part = f[f["lvl"] == ("b" if row.level == ">=50" else "a")]
+        Xs = np.asarray(patsy.build_design_matrices([di], part.assign(x=row.exposure_value))[0])
+        lp = np.quantile(Xs @ full.params.to_numpy(), row.profile_quantile)
+        assert abs(special.expit(lp) - row.threshold) < 1e-6, row
+
+
 def _check_module() -> Any:
     """benchmarks/checks/interaction.py, imported from its path (it is not a package)."""
     path = Path(__file__).resolve().parents[1] / "benchmarks" / "checks" / "interaction.py"

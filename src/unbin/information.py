@@ -4,7 +4,10 @@ Per adjustment coding: LR chi-square of the exposure in each form (against the a
 model), the share the grouping keeps, LR(legacy) / LR(legacy + spline), the LR test that the
 spline adds beyond the groups, the nonlinearity test (spline vs linear) and the change in the
 C-index. The share is the "information kept" of the legacy grouping: for a median split of a
-normal predictor with a linear effect it tends to 2/pi (Cohen 1983)."""
+normal predictor with a linear effect it tends to 2/pi (Cohen 1983). With an effect modifier
+``by`` that has levels, the LR test of the exposure x level interaction (unbin.interaction:
+fixed-knot spline, the level main effects in both models) is on the legacy and continuous
+rows."""
 
 from __future__ import annotations
 

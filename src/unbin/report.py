@@ -534,6 +534,7 @@ class Builder:
             rows = pe[(pe["analysis"] == a.name)] if len(pe) else pe
             if len(rows):
                 rows = rows[(rows["contrast_type"] == "group")
+                            & ~rows["form"].astype(str).str.endswith(" x level")
                             & (rows["adjustment"] == ("legacy" if (rows["adjustment"] == "legacy")
                                                       .any() else rows["adjustment"].iloc[0]))]
                 parts.append(table(rows, [
