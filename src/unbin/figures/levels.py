@@ -64,7 +64,8 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
     info = ctx.spec.variables.get(a.exposure)
     unit = f" {info.unit}" if info and info.unit else ""
     xlabel = ctx.spec.label(a.exposure)
-    by_label = ctx.spec.label(by) if by else "level"
+    by_info = ctx.spec.variables.get(by)
+    by_label = (by_info.label if by_info and by_info.label else by) or "level"
     test = _interaction_text(ctx.rows("information", cohort, analysis), adj)
     y_lo, y_hi = clipped_span(c["effect"].astype(float).tolist(),
                               [*c["effect_lower"].astype(float), *c["effect_upper"].astype(float)],
