@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from .contrasts import contrast, with_interval
+from .interaction import SPLINE, level_models, level_reference
 from .models import EFFECT_SCALE
 from .refit import Refit
 from .spec import Spec
@@ -41,12 +42,42 @@ def curves_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             parts.append(pd.DataFrame({"adjustment": coding, "form": form, "x": xs,
                                        "x_reference": x_ref, "in_range": in_range,
                                        "estimate": est, "se": se,
-                                       "status": f.result.status}))
+                                       "status": f.result.status, "by_level": ""}))
+    parts += _level_curves(r, xs)
     if not parts:
         return pd.DataFrame()
     out = with_interval(pd.concat(parts, ignore_index=True), r.family)
     out["scale"] = EFFECT_SCALE[r.family]
     return out
+
+
+def _level_curves(r: Refit, xs: np.ndarray) -> list[pd.DataFrame]:
+    """Per-level curves of the spline x level interaction model (unbin.interaction), each level
+    relative to its own reference value (the median of the legacy reference group within the
+    level); ``in_range`` marks the level's own 1st-99th percentile range."""
+    lm = level_models(r)
+    parts = []
+    for coding in ("legacy", "continuous"):
+        m = lm.get(SPLINE, coding)
+        if m is None:
+            continue
+        for j, label in enumerate(m.levels.labels):
+            x_lvl = r.x[m.levels.codes == j]
+            x_ref = level_reference(r, m.levels, j)
+            status = m.full.status if m.ok else "failed"
+            if x_lvl.size == 0 or not np.isfinite(x_ref):
+                est = se = np.full(xs.shape, np.nan)
+                in_range = np.zeros(xs.shape, dtype=bool)
+                status = "not_estimable"
+            else:
+                est, se = m.contrast(j, xs, x_ref)
+                lo, hi = np.quantile(x_lvl, [0.01, 0.99])
+                in_range = (xs >= lo - 1e-12 * abs(lo)) & (xs <= hi + 1e-12 * abs(hi))
+            parts.append(pd.DataFrame({"adjustment": coding, "form": SPLINE, "x": xs,
+                                       "x_reference": x_ref, "in_range": in_range,
+                                       "estimate": est, "se": se, "status": status,
+                                       "by_level": label}))
+    return parts
 
 
 def density_table(r: Refit, spec: Spec) -> pd.DataFrame:

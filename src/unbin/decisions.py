@@ -16,9 +16,11 @@ method (``scipy.optimize.brentq``), so the risk at a reported value equals the t
 rounding; every crossing of a non-monotone curve is reported (``crossing`` 1, 2, ...), a curve
 that stays on one side is reported once with ``position`` "always above"/"always below". A
 crossing between two grid points that touches the threshold without crossing it is not found.
-Each value is compared with the nearest legacy cut. The interaction model's likelihood-ratio
-test against the spline model without interaction (same knots, same continuous adjustment) is
-on every row (``lr_interaction``, ``df_interaction``, ``p_interaction``).
+Each value is compared with the nearest legacy cut. The interaction model
+(:mod:`unbin.interaction`: a spline with knots fixed before the outcome is seen, the level main
+effects in the model and in the one it is tested against) and its likelihood-ratio test against
+the same spline without interaction (same continuous adjustment) are on every row
+(``lr_interaction``, ``df_interaction``, ``p_interaction``).
 
 ``net_benefit`` — decision curves (Vickers & Elkin 2006, Med Decis Making 26:565) over the
 threshold probabilities in :data:`NB_GRID` for treat-all, treat-none, the legacy rules (exposure
@@ -41,14 +43,14 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import optimize
 
-from .data import is_categorical
-from .models import fit
-from .refit import Refit, design, legacy_term
+from .interaction import SPLINE, level_models
+from .modifier import Levels
+from .refit import Refit
 from .risk import RiskFit, RiskScale, from_result, link, risk_fit, risk_scale
 from .spec import Analysis, Spec
-from .terms import CategoricalTerm, GroupedTerm, SplineTerm
+from .terms import GroupedTerm
 
 TABLES = ("thresholds", "net_benefit")
 CAUTION = ("These numbers support statistical re-analysis; clinical decisions follow local "
@@ -72,36 +74,9 @@ def thresholds_for(a: Analysis, spec: Spec) -> tuple[float, ...]:
 # --------------------------------------------------------------------------- effect modifier
 
 
-@dataclass(frozen=True)
-class Levels:
-    """The levels of the effect modifier: labels and every sample row's level code. Without a
-    modifier there is one level, "all"."""
-
-    variable: str
-    labels: tuple[str, ...]
-    codes: np.ndarray
-    note: str = ""
-
-
-def modifier_levels(r: Refit, spec: Spec) -> Levels:
-    a = r.analysis
-    n = len(r.x)
-    one = Levels("", ("all",), np.zeros(n, dtype=np.int64))
-    if not a.by:
-        return one
-    values = r.sample.frame[a.by]
-    info = spec.variables.get(a.by)
-    declared = info.type if info else None
-    if a.by in spec.groupings and declared != "categorical":
-        term = legacy_term(values.to_numpy(float), a.by, spec)
-        return Levels(a.by, term.labels, term.codes(values.to_numpy(float)).astype(np.int64))
-    if is_categorical(values, declared):
-        cat = CategoricalTerm.from_data(a.by, values)
-        codes = pd.Index(list(cat.levels), dtype=object).get_indexer(values.astype(object))
-        return Levels(a.by, tuple(str(v) for v in cat.levels), np.asarray(codes, dtype=np.int64))
-    return Levels("", ("all",), np.zeros(n, dtype=np.int64),
-                  f"effect modifier {a.by!r} is numeric with many values and has no grouping: "
-                  "no levels (declare groupings for it to get thresholds per level)")
+def modifier_levels(r: Refit, spec: Spec | None = None) -> Levels:
+    """The levels of the effect modifier (unbin.modifier), as the refit's models enter it."""
+    return level_models(r).levels
 
 
 @dataclass(frozen=True)
@@ -115,42 +90,29 @@ class InteractionTest:
 
 def interaction_model(r: Refit, levels: Levels,
                       scale: RiskScale) -> tuple[RiskFit | None, InteractionTest]:
-    """Spline of the exposure x level of ``by`` (the knots of the selected spline, continuous
-    adjustment including the levels' main effects), and its LR test against the spline model."""
-    if not levels.variable or len(levels.labels) < 2:
+    """The spline x level model with continuous adjustment (unbin.interaction: fixed knots, the
+    level main effects in it and in the model it is tested against) on the risk scale, and its
+    LR test."""
+    if not levels.active:
         return None, InteractionTest(reason=levels.note or "no effect modifier")
-    main = r.get("spline", "continuous")
-    terms = [t for t in main.exposure_terms if isinstance(t, SplineTerm)] if main else []
-    if main is None or not main.result.ok or not terms:
-        return None, InteractionTest(reason="the spline model with continuous adjustment is not "
-                                            "available to compare with")
-    term = terms[0]
-    X0, names0 = design(r.sample.frame, r.x, (term,), main.adjust_terms)
-    B = term.basis(r.x)
-    cols, names = [X0], list(names0)
-    for j in range(1, len(levels.labels)):
-        cols.append(B * (levels.codes == j)[:, None])
-        names += [f"{nm}:{levels.variable}[{levels.labels[j]}]" for nm in term.names()]
-    res = fit(r.family, np.column_stack(cols), r.outcome, tuple(names))
-    df = (len(levels.labels) - 1) * term.df
-    if not res.ok:
-        return None, InteractionTest(df=df, status="failed", reason=res.message)
-    lr = max(2.0 * (res.loglik - main.result.loglik), 0.0)
-    test = InteractionTest(lr, df, float(stats.chi2.sf(lr, df)), "ok", " | ".join(res.warnings))
-    idx_main = res.index(term.names())
-    per_level = [res.coef[idx_main]]
-    for j in range(1, len(levels.labels)):
-        idx = res.index([f"{nm}:{levels.variable}[{levels.labels[j]}]" for nm in term.names()])
-        per_level.append(res.coef[idx_main] + res.coef[idx])
-    coefs = np.vstack(per_level)
+    lm = level_models(r)
+    m = lm.get(SPLINE, "continuous")
+    if m is None:
+        return None, InteractionTest(reason=lm.reason or "the interaction model with continuous "
+                                                         "adjustment is not available")
+    if not m.ok:
+        return None, InteractionTest(df=m.df, status="failed", reason=m.reason)
+    test = InteractionTest(m.lr, m.df, m.p, "ok", m.reason)
+    coefs = np.vstack([m.level_coef(j)[0] for j in range(len(m.levels.labels))])
+    term = m.term
 
     def curve(x: np.ndarray, level: int = 0) -> np.ndarray:
         return np.asarray(term.basis(np.atleast_1d(x)) @ coefs[level], dtype=float)
 
-    rows = np.einsum("ij,ij->i", B, coefs[levels.codes])
-    rf = from_result(r, res, scale, curve, rows, f"spline x {levels.variable}", "continuous",
-                     f"{term.describe()} x {levels.variable} (levels "
-                     f"{', '.join(levels.labels)})")
+    B = np.asarray(term.basis(r.x), dtype=float)
+    rows = np.einsum("ij,ij->i", B, coefs[m.levels.codes])
+    rf = from_result(r, m.full, scale, curve, rows, f"spline x {m.levels.variable}",
+                     "continuous", m.detail)
     return rf, test
 
 

@@ -13,8 +13,12 @@ with:
   60. Age confounds it strongly (older people have lower eGFR and die sooner) and the legacy
   analysis adjusted for age in decades — residual confounding.
 - ``visits_bmi`` (count, person-years offset): the clinic-visit rate is log-linear in BMI.
-- ``sbp_urate`` (continuous): systolic pressure rises linearly with serum urate; the legacy cut
-  at 7.1 mg/dL was chosen from the data.
+- ``sbp_urate`` (continuous): systolic pressure rises linearly with serum urate, more steeply
+  in older patients (a real effect modification: the slope differs between the age groups
+  <50, 50-<60, 60-<70, >=70, which the analysis takes as its ``by``); the legacy cut at
+  7.1 mg/dL was chosen from the data.
+- ``readmission_sodium`` is also analysed by diabetes, which shifts the risk at every sodium (a
+  main effect) without changing the U shape (no effect modification).
 
 Every number here is invented; the random generator is seeded, so the files are identical on
 every run.
@@ -48,7 +52,14 @@ def true_loghr_egfr(egfr: np.ndarray) -> np.ndarray:
 
 
 TRUE_VISITS_PER_BMI = 0.04  # log rate ratio per kg/m2
-TRUE_SBP_PER_URATE = 2.0  # mmHg per mg/dL
+AGE_CUTS = (50, 60, 70)  # the legacy age groups, the levels of sbp_urate's ``by``
+TRUE_SBP_PER_URATE_BY_AGE = (0.5, 1.5, 2.5, 3.5)  # mmHg per mg/dL in <50, 50-<60, 60-<70, >=70
+
+
+def true_sbp_per_urate(age: np.ndarray) -> np.ndarray:
+    """The true slope of systolic pressure on urate (mmHg per mg/dL) at each age."""
+    groups = np.searchsorted(np.asarray(AGE_CUTS), np.asarray(age, dtype=float), side="right")
+    return np.asarray(TRUE_SBP_PER_URATE_BY_AGE)[groups]
 
 
 @dataclass(frozen=True)
@@ -114,7 +125,7 @@ def simulate_registry(n: int = DEMO_ROWS, seed: int = DEMO_SEED,
     rate = 1.2 * np.exp(TRUE_VISITS_PER_BMI * (bmi - 27) + 0.01 * (age - 63) + 0.3 * diabetes)
     visits = rng.poisson(rate * pyears)
 
-    sbp = (128 + TRUE_SBP_PER_URATE * (urate - 6) + 0.45 * (age - 63) + 3 * sex
+    sbp = (128 + true_sbp_per_urate(age) * (urate - 6) + 0.45 * (age - 63) + 3 * sex
            + rng.normal(0, 14, n)).round(0)
 
     df = pd.DataFrame({
@@ -150,7 +161,7 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS) -> dict[str, Any]:
             "sodium": {"cuts": [135, 145], "labels": ["low", "normal", "high"],
                        "reference": "normal"},
             "egfr": {"cuts": [60], "reference": ">=60"},
-            "age": {"cuts": [50, 60, 70]},
+            "age": {"cuts": list(AGE_CUTS)},
             "bmi": {"cuts": [25, 30], "labels": ["normal", "overweight", "obese"]},
             "urate": {"cuts": [7.1], "derived_from_data": True},
         },
@@ -172,7 +183,7 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS) -> dict[str, Any]:
              "risk_thresholds": [1.5]},  # clinic visits per person-year
             {"name": "sbp_urate",
              "outcome": {"type": "continuous", "value": "sbp"},
-             "exposure": "urate", "adjust": ["age", "sex"],
+             "exposure": "urate", "adjust": ["sex"], "by": "age",
              "risk_thresholds": [140],  # predicted mean systolic pressure, mmHg
              "filters": [{"variable": "age", "min": 18}]},
         ],

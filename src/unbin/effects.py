@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from .contrasts import contrast, with_interval
+from .interaction import LEGACY, SPLINE, level_models, level_reference
 from .models import EFFECT_SCALE
 from .refit import Refit
 from .spec import Spec
@@ -58,6 +59,9 @@ def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
                              "group": "", "x_value": x_ref + 1.0, "x_reference": x_ref,
                              "estimate": float(est[0]), "se": float(se[0]),
                              "within_p10": np.nan, "within_p90": np.nan})
+    for row in rows:
+        row["by_level"] = ""
+    rows += _level_effects(r)
     out = pd.DataFrame(rows)
     if out.empty:
         return out
@@ -67,3 +71,49 @@ def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
         out[c] = np.exp(out[c]) if ratio else out[c]
     out["scale"] = EFFECT_SCALE[r.family]
     return out
+
+
+def _level_effects(r: Refit) -> list[dict[str, object]]:
+    """Group contrasts within each level of ``by``: from the spline x level model (between the
+    group's and the reference group's medians within the level, with the spline's spread inside
+    the group) and from the legacy groups x level model (each group vs the reference group within
+    the level: the legacy analysis' own subgroup contrasts). unbin.interaction."""
+    lm = level_models(r)
+    term = r.legacy
+    labels, ref = term.labels, term.reference
+    codes = term.codes(r.x)
+    rows: list[dict[str, object]] = []
+    for coding in ("legacy", "continuous"):
+        for form in (LEGACY, SPLINE):
+            m = lm.get(form, coding)
+            if m is None:
+                continue
+            lv = m.levels
+            for j, level in enumerate(lv.labels):
+                x_ref = level_reference(r, lv, j)
+                where = f"{lv.variable} = {level}"
+                for g in range(len(labels)):
+                    vals = r.x[(codes == g) & (lv.codes == j)]
+                    if len(vals) == 0:
+                        continue
+                    x_g = float(np.median(vals))
+                    status = m.full.status if m.ok else "failed"
+                    spread = (np.nan, np.nan)
+                    if not np.isfinite(x_ref):
+                        est, se = np.array([np.nan]), np.array([np.nan])
+                        status = "not_estimable"
+                    else:
+                        est, se = m.contrast(j, np.array([x_g]), x_ref)
+                        if form == SPLINE:
+                            p10, p90 = np.quantile(vals, [0.10, 0.90])
+                            sp, _ = m.contrast(j, np.array([p10, p90]), x_ref)
+                            spread = (float(sp[0]), float(sp[1]))
+                    rows.append({
+                        "adjustment": coding, "form": form, "status": status,
+                        "contrast_type": "group",
+                        "contrast": (f"{labels[g]} ({where}) (reference)" if g == ref
+                                     else f"{labels[g]} vs {labels[ref]} ({where})"),
+                        "group": labels[g], "x_value": x_g, "x_reference": x_ref,
+                        "estimate": float(est[0]), "se": float(se[0]),
+                        "within_p10": spread[0], "within_p90": spread[1], "by_level": level})
+    return rows

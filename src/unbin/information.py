@@ -4,7 +4,10 @@ Per adjustment coding: LR chi-square of the exposure in each form (against the a
 model), the share the grouping keeps, LR(legacy) / LR(legacy + spline), the LR test that the
 spline adds beyond the groups, the nonlinearity test (spline vs linear) and the change in the
 C-index. The share is the "information kept" of the legacy grouping: for a median split of a
-normal predictor with a linear effect it tends to 2/pi (Cohen 1983)."""
+normal predictor with a linear effect it tends to 2/pi (Cohen 1983). With an effect modifier
+``by`` that has levels, the LR test of the exposure x level interaction (unbin.interaction:
+fixed-knot spline, the level main effects in both models) is on the legacy and continuous
+rows."""
 
 from __future__ import annotations
 
@@ -13,6 +16,7 @@ import pandas as pd
 from scipy import stats
 
 from .discrimination import c_index
+from .interaction import SPLINE, level_models
 from .refit import FormFit, Refit
 from .spec import Spec
 
@@ -76,5 +80,21 @@ def information_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             "aic_legacy": aics.get("legacy", np.nan), "aic_linear": aics.get("linear", np.nan),
             "aic_spline": aics.get("spline", np.nan), "aic_fp": aics.get("fp", np.nan),
             "best_form": best,
+            **_interaction(r, coding),
         })
     return pd.DataFrame(rows)
+
+
+def _interaction(r: Refit, coding: str) -> dict[str, object]:
+    """The spline x level interaction test of this coding (unbin.interaction): the fixed-knot
+    spline with and without its level interactions, both with the level main effects."""
+    lm = level_models(r)
+    m = lm.get(SPLINE, coding)
+    if m is None:
+        why = "" if not r.analysis.by else (lm.reason if coding != "none" else
+                                            "no adjustment, so no level main effects")
+        return {"interaction_lr": np.nan, "interaction_df": np.nan, "interaction_p": np.nan,
+                "interaction_detail": why}
+    detail = m.detail if m.ok else f"{m.detail}: failed ({m.reason})"
+    return {"interaction_lr": m.lr, "interaction_df": float(m.df) if m.df else np.nan,
+            "interaction_p": m.p, "interaction_detail": detail}

@@ -14,6 +14,7 @@ from .common import CommonBasis, combine, sample_summary
 from .data import Sample, is_categorical, legacy_term
 from .models import Outcome, fit
 from .models.base import FitResult, failed_fit
+from .modifier import modifier_term
 from .spec import Analysis, Spec
 from .terms import (
     CategoricalTerm,
@@ -119,9 +120,12 @@ def build_outcome(sample: Sample, a: Analysis) -> Outcome:
 
 def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> tuple[Term, ...]:
     """Adjustment variables as the legacy analysis had them (grouped where a grouping is declared,
-    otherwise as they are) or continuously (numeric variables as restricted cubic splines)."""
+    otherwise as they are) or continuously (numeric variables as restricted cubic splines). The
+    effect modifier ``by`` enters last, as the factor of its levels in both codings
+    (:func:`unbin.modifier.modifier_term`)."""
     terms: list[Term] = []
-    for v in [*a.adjust, *([a.by] if a.by else [])]:
+    by = modifier_term(df, a, spec)
+    for v in [*a.adjust, *([a.by] if a.by and by is None else [])]:
         info = spec.variables.get(v)
         declared = info.type if info else None
         if v in spec.groupings and declared != "categorical":
@@ -140,6 +144,8 @@ def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> 
                 terms.append(SplineTerm(v, default_knots(x, a.continuous.adjust_knots)))
             except ValueError:
                 terms.append(LinearTerm(v))
+    if by is not None:  # the effect modifier's levels, as a factor in both codings
+        terms.append(by)
     return tuple(terms)
 
 

@@ -325,6 +325,7 @@ class Builder:
             parts.append(f'<p class="caution">{esc(get(st, "message"))}</p>')
         pieces: list[tuple[str, Callable[[str, str], str]]] = [
             ("key numbers", self.cards), ("curves", self.curves_figure),
+            ("curves by level", self.level_curves_figure),
             ("effects", self.effects), ("information", self.information),
             ("range dependence", self.ranges), ("residual confounding", self.confounding),
             ("cut points", self.cutpoints), ("replication", self.replication),
@@ -337,6 +338,9 @@ class Builder:
 
     def curves_figure(self, cohort: str, analysis: str) -> str:
         return self.figs(cohort, analysis, "curves")
+
+    def level_curves_figure(self, cohort: str, analysis: str) -> str:
+        return self.figs(cohort, analysis, "level-curves")
 
     def _outcome(self, analysis: str) -> str:
         o = self.spec.analysis(analysis).outcome
@@ -368,6 +372,8 @@ class Builder:
 
     def effects(self, cohort: str, analysis: str) -> str:
         eff = self.ctx.rows("effects", cohort, analysis)
+        if "by_level" in eff:  # per-level contrasts: in the table's parquet, not in this summary
+            eff = eff[eff["by_level"].fillna("") == ""]
         if eff.empty:
             return ""
         eff = eff[eff["adjustment"] == "legacy"] if (eff["adjustment"] == "legacy").any() else eff
@@ -557,6 +563,7 @@ class Builder:
             rows = pe[(pe["analysis"] == a.name)] if len(pe) else pe
             if len(rows):
                 rows = rows[(rows["contrast_type"] == "group")
+                            & ~rows["form"].astype(str).str.endswith(" x level")
                             & (rows["adjustment"] == ("legacy" if (rows["adjustment"] == "legacy")
                                                       .any() else rows["adjustment"].iloc[0]))]
                 parts.append(table(rows, [

@@ -36,12 +36,13 @@ INDEX = "index.json"     # what a folder of figures holds, for the report
 
 
 def _kinds() -> tuple[Kind, ...]:
-    from . import confounding, curves, cutpoints, decisions, information, pooled, ranges
+    from . import confounding, curves, cutpoints, decisions, information, levels, pooled, ranges
 
     return (
         Kind("information", "information", "study", information.draw),
         Kind("pooled-curves", "pooled_curves", "pooled", pooled.draw),
         Kind("curves", "curves", "analysis", curves.draw),
+        Kind("level-curves", "curves", "analysis", levels.draw),
         Kind("ranges", "ranges", "analysis", ranges.draw),
         Kind("confounding", "confounding", "analysis", confounding.draw),
         Kind("cut-positions", "cutpoints", "analysis", cutpoints.draw_positions),
