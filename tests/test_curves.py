@@ -1,5 +1,5 @@
 """The curves table against reference-library fits of the same designs (statsmodels GLM
-binomial, GLM Poisson with offset, OLS; lifelines CoxPHFitter), its grid and reference value
+binomial, GLM Poisson with offset, OLS, PHReg with Efron ties), its grid and reference value
 computed by hand, and the coverage of its pointwise intervals over seeded replicates with a
 known true curve."""
 

@@ -1,5 +1,5 @@
 """The effects table against reference-library fits of the same designs (statsmodels GLM
-binomial, GLM Poisson with a log person-time offset, OLS; lifelines CoxPHFitter), with the
+binomial, GLM Poisson with a log person-time offset, OLS, PHReg; lifelines CoxPHFitter), with the
 contrast points and the within-group spread computed by hand, and the coverage of its
 intervals over seeded replicates with a known truth."""
 
@@ -19,6 +19,7 @@ from tablerefs import (
     Reference,
     clinic_frame,
     group_index,
+    lifelines_fit,
     reference_fit,
     selected_row,
 )
@@ -27,7 +28,7 @@ from unbin.fits import fits_table
 
 RATIO = {"binary": True, "count": True, "continuous": False, "survival": True}
 # Agreement with the reference libraries (relative, estimate and se): statsmodels is iterated to
-# 1e-12 and lifelines to precision 1e-12, so both stop far inside these tolerances.
+# 1e-12 (PHReg tol 1e-12), so they stop far inside these tolerances.
 TOL = {"binary": (1e-7, 1e-6), "count": (1e-7, 1e-6), "continuous": (1e-9, 1e-8),
        "survival": (1e-7, 1e-6)}
 
@@ -110,6 +111,35 @@ def test_effects_equal_reference_library_contrasts(refit_frame: Any, one_analysi
     assert sorted(legacy["group"]) == sorted(labels)
     own = legacy[legacy["group"] == MARKER_GROUPING["reference"]].iloc[0]
     assert own["estimate"] == 0.0 and own["se"] == 0.0
+
+
+def test_cox_effects_equal_lifelines(refit_frame: Any, one_analysis: Any) -> None:
+    # Reference library: lifelines CoxPHFitter (Efron ties) on the rebuilt designs of the
+    # legacy, linear and 3-knot spline forms (both adjustment codings).
+    frame = clinic_frame("survival", 900, seed=12)
+    spec, r = refit_frame(frame, _raw(one_analysis, "survival",
+                                      continuous={"spline_knots": [3], "forms": ["linear",
+                                                                                "spline"]}))
+    eff = effects_table(r, spec)
+    fits = fits_table(r, spec)
+    x = frame["marker"].to_numpy()
+    q25, q75 = np.quantile(x, [0.25, 0.75])
+    n_checked = 0
+    for coding in ("legacy", "continuous"):
+        for form in ("legacy", "linear", "spline"):
+            ref = lifelines_fit(selected_row(fits, form, coding), frame, OUTCOMES["survival"])
+            rows = eff[(eff["adjustment"] == coding) & (eff["form"] == form)]
+            for _, row in rows.iterrows():
+                if row["contrast_type"] == "per_unit":
+                    est, se = ref.b[:1], np.sqrt(ref.V[:1, 0])
+                elif row["contrast_type"] == "iqr":
+                    est, se = ref.contrast(q75, q25)
+                else:
+                    est, se = ref.contrast(row["x_value"], row["x_reference"])
+                assert row["estimate"] == pytest.approx(est[0], rel=1e-6, abs=1e-8)
+                assert row["se"] == pytest.approx(se[0], rel=1e-5, abs=1e-10)
+                n_checked += 1
+    assert n_checked == 2 * (5 + 5 + 5 + 1)
 
 
 def test_legacy_group_contrast_is_the_indicator_coefficient_of_statsmodels(
