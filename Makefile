@@ -4,7 +4,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test lint install clean
+.PHONY: demo test lint install clean mutation
 
 $(STAMP): pyproject.toml constraints.txt
 	test -x $(BIN)/python || $(PY) -m venv $(VENV)
@@ -26,5 +26,11 @@ lint: $(STAMP)
 	$(BIN)/ruff check src tests benchmarks workflow/scripts
 	$(BIN)/mypy
 
+# Mutation testing of the statistics modules against their unit tests ([tool.mutmut] in
+# pyproject.toml); slow, not part of CI. Results: `$(BIN)/mutmut results` or `mutmut browse`.
+mutation: $(STAMP)
+	$(BIN)/mutmut run --max-children 2
+	$(BIN)/mutmut results
+
 clean:
-	rm -rf $(VENV) demo-out
+	rm -rf $(VENV) demo-out mutants
