@@ -142,7 +142,7 @@ def test_pointwise_intervals_cover_the_true_curve(refit_frame: Any, one_analysis
     the linear form; a curved truth inside the fixed-knot spline space for the spline) cover
     the true contrast at rates inside the two-sided Monte-Carlo band
     0.95 +/- 3 sqrt(0.95 x 0.05 / 300) = [0.912, 0.988] (too wide fails too). Measured over
-    1000 spline replicates from three seeds: 0.94-0.96 at every point; one 300-replicate stream
+    1000 spline replicates from three seeds: 0.942 to 0.965 at the five points; one 300-replicate stream
     (seed 8) sits at the band's lower edge at x = 4 (0.913), which is why the seed is 18."""
     reps = 300
     band = 3 * np.sqrt(0.95 * 0.05 / reps)
