@@ -17,6 +17,7 @@ from tablerefs import (
     Z975,
     clinic_frame,
     group_index,
+    lifelines_fit,
     rcs_columns,
     reference_fit,
     selected_row,
@@ -69,6 +70,28 @@ def test_curves_equal_reference_library_predictions(refit_frame: Any, one_analys
         inside = step["estimate"].to_numpy()[group_index(grid, MARKER_GROUPING["cuts"],
                                                          "left") == j]
         assert np.ptp(inside) == 0.0
+
+
+def test_cox_curves_equal_lifelines(refit_frame: Any, one_analysis: Any) -> None:
+    # Reference library: lifelines CoxPHFitter (Efron ties) on the rebuilt legacy, linear and
+    # 3-knot spline designs, both adjustment codings: log hazard ratios and their SEs on the grid.
+    frame = clinic_frame("survival", 900, seed=25)
+    raw = one_analysis(OUTCOMES["survival"], "marker", dict(MARKER_GROUPING),
+                       continuous={"grid_points": 20, "spline_knots": [3],
+                                   "forms": ["linear", "spline"]})
+    raw["analyses"][0]["adjust"] = ["age", "sex"]
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    fits = fits_table(r, spec)
+    for coding in ("legacy", "continuous"):
+        for form in ("legacy", "linear", "spline"):
+            c = cur[(cur["adjustment"] == coding) & (cur["form"] == form)].sort_values("x")
+            assert len(c) == 20
+            ref = lifelines_fit(selected_row(fits, form, coding), frame, OUTCOMES["survival"])
+            est, se = ref.contrast(c["x"].to_numpy(), c["x_reference"].to_numpy())
+            np.testing.assert_allclose(c["estimate"], est, rtol=1e-6, atol=1e-8)
+            np.testing.assert_allclose(c["se"], se, rtol=1e-5, atol=1e-10)
+            np.testing.assert_allclose(c["effect"], np.exp(est), rtol=1e-6)
 
 
 def test_density_counts_match_numpy_histogram_and_suppress_small_cells(
