@@ -20,12 +20,12 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-Z975 = 1.959963984540054  # standard normal 97.5% point (Abramowitz & Stegun 26.2.23 tables)
+Z975 = 1.959963984540054  # the standard normal 97.5% quantile
 
 
 def rcs_columns(x: np.ndarray, knots: list[float]) -> np.ndarray:
     """Restricted cubic spline, Harrell's published form without normalisation (Harrell,
-    Regression Modeling Strategies, 2nd ed. 2015, eq. 2.25; Durrleman & Simon 1989):
+    Regression Modeling Strategies, 2nd ed. 2015; Durrleman & Simon 1989, Stat Med 8:551):
     x, then for j = 1..k-2
     (x-t_j)+^3 - (x-t_{k-1})+^3 (t_k-t_j)/(t_k-t_{k-1}) + (x-t_k)+^3 (t_{k-1}-t_j)/(t_k-t_{k-1})."""
     x = np.asarray(x, dtype=float)
