@@ -138,6 +138,37 @@ def test_summary_numbers_are_the_legacy_rows_of_the_tables(tmp_path: Path,
     assert float(row["info kept"]) == pytest.approx(kept, abs=0.005)
 
 
+def test_printed_summary_names_the_failed_analysis_and_its_numbers(tmp_path: Path) -> None:
+    # Hand-made tables: one analysis ok, one failed; the printed summary must show the ok one's
+    # numbers as in its table and the failed one's status and message.
+    from rich.console import Console
+
+    from unbin.summary import print_summary
+
+    prov = provenance([], "", 0, "t", "s")
+    status = pd.DataFrame([
+        {"cohort": "north", "analysis": "flare_marker", "status": "ok", "message": "",
+         "n_input": 500, "n_used": 480, "family": "binary", "exposure": "marker"},
+        {"cohort": "north", "analysis": "visits_bmi", "status": "failed",
+         "message": "only 3 rows are left after filters", "n_input": 500, "n_used": 3,
+         "family": "count", "exposure": "bmi"}])
+    info = pd.DataFrame([{"cohort": "north", "analysis": "flare_marker", "adjustment": a,
+                          "lr_legacy": lr, "df_legacy": 2, "lr_spline": 31.26, "df_spline": 3,
+                          "info_kept": kept, "added_p": 0.0004, "nonlinearity_p": 0.0312,
+                          "best_form": "spline"}
+                         for a, lr, kept in (("legacy", 12.34, 0.3871),
+                                             ("continuous", 99.9, 0.9999))])
+    write_table(status, tmp_path / "tables" / "status.parquet", prov)
+    write_table(info, tmp_path / "tables" / "information.parquet", prov)
+    console = Console(record=True, width=200, color_system=None)
+    print_summary(tmp_path, console)
+    text = console.export_text()
+    assert "12.3 (2)" in text and "31.3 (3)" in text and "0.39" in text
+    assert "<0.001" in text and "0.031" in text and "480" in text
+    assert "99.9" not in text and "1.00" not in text  # the continuous coding is not shown
+    assert "north/visits_bmi failed: only 3 rows are left after filters" in text
+
+
 # --------------------------------------------------------------------------- provenance
 
 
