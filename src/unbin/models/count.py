@@ -10,9 +10,20 @@ from ._glm import run_glm
 from .base import FitResult, Outcome
 
 
+def _zero_rate(eta: np.ndarray) -> str:
+    # A group (or a region of a curve) with no counts at all has a rate ratio of 0: its log
+    # runs to -inf and Newton stops where the log-likelihood no longer moves, near -25 or
+    # below. A fitted rate e^20 (5e8) times below the typical row's is not a real estimate.
+    if eta.size and float(np.min(eta)) < float(np.median(eta)) - 20:
+        return ("some rows have a fitted rate of practically 0 (a group or range without any "
+                "counts?); the rate ratio is 0 and its logarithm is -infinite. Merge sparse "
+                "groups or use a continuous form.")
+    return ""
+
+
 def fit_count(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
     y = outcome.y.astype(float)
-    res = run_glm("count", X, names, outcome, int(y.sum()))
+    res = run_glm("count", X, names, outcome, int(y.sum()), separation_check=_zero_rate)
     if res.ok:
         # Pearson dispersion: > 1 signals overdispersion (the Poisson SEs are then too small).
         eta = res.linear_predictor + res.extra["intercept"]
