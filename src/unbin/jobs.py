@@ -132,10 +132,20 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
         failed = [f"{f.form}/{f.adjustment}: {f.result.message}" for f in refit.fits
                   if not f.result.ok and f.selected]
         builders = {**QUESTION_TABLES, **(RESAMPLING_TABLES if resampling else {})}
+        lost = []
         for name, target in builders.items():
-            tables[name] = _builder(target)(refit, spec)
-        notes = refit.messages + failed
-        if failed:
+            # One question that fails loses its own table only, never the analysis' others.
+            try:
+                tables[name] = _builder(target)(refit, spec)
+            except Exception as exc:
+                if not isinstance(exc, UnbinError):
+                    log.error("internal error in %s/%s, question %s:\n%s", cohort, analysis,
+                              name, traceback.format_exc())
+                tables[name] = pd.DataFrame()
+                lost.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its "
+                            "table is empty, the other tables are complete")
+        notes = refit.messages + failed + lost
+        if failed or lost:
             status["status"] = "partial"
         status["message"] = " | ".join(dict.fromkeys(notes))
     except UnbinError as exc:
