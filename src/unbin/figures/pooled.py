@@ -89,13 +89,15 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
                 "basis, within its own 1st–99th percentile. Ember steps: the legacy groups "
                 "pooled (pointwise random effects). Strip below: cohorts counting at each value "
                 "in the pointwise pooling (k)."
-                + (f" Median I² over the grid: {float(np.nanmedian(i2)):.0%}."
+                + ((f" Multivariate I²: {float(np.nanmedian(i2)):.0%}."
+                    if method.startswith("multivariate")
+                    else f" Median I² over the grid: {float(np.nanmedian(i2)):.0%}.")
                    if i2.notna().any() else ""))
     fig_, fig = new_figure(8.0, 5.3, footnote)
     ax, kax = fig.subplots(2, 1, height_ratios=[5, 0.8])
     ys = [*curve["effect"].astype(float)]
     bounds = [*curve["effect_lower"].astype(float), *curve["effect_upper"].astype(float)]
-    for _, g in per.groupby("cohort", sort=True):
+    for _, g in (per.groupby("cohort", sort=True) if len(per) else []):
         g = g.sort_values("x")
         if "in_range" in g:
             g = g[g["in_range"].fillna(True).astype(bool)]
@@ -120,9 +122,10 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
     if len(kx):
         kv = kx["k"].to_numpy(float)
         kax.step(kx["x"], kv, where="mid", color=INK, lw=1.2)
-        kax.set_ylim(0, max(float(np.nanmax(kv)), 1.0) + 0.6)
-        kax.yaxis.set_major_locator(MaxNLocator(integer=True, nbins=3))
-    kax.set_ylabel("k", rotation=0, ha="right", va="center")
+        top = int(max(float(np.nanmax(kv)), 1.0))
+        kax.set_ylim(0, top + 0.6)
+        kax.set_yticks([0, top])
+    kax.set_ylabel("cohorts (k)", rotation=0, ha="right", va="center", labelpad=6)
     kax.set_xlim(float(curve["x"].min()), float(curve["x"].max()))
     kax.xaxis.set_major_locator(MaxNLocator(nbins=7, steps=[1, 2, 2.5, 5, 10]))
     kax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v:g}"))
