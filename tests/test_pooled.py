@@ -262,3 +262,41 @@ def test_pool_bundles_end_to_end_on_hand_made_bundles() -> None:
     assert pc.loc[pc["x"] == 2.0, "k"].eq(3).all()  # at the reference every cohort counts
     assert {"effect_pi_lower", "effect_pi_upper", "tau2_method"} <= set(pc.columns)
     assert (out["pooled_effects"]["k"] == 3).all()
+
+
+def test_pooled_figure_leads_with_the_multivariate_spline_and_shows_k() -> None:
+    # The figure draws the multivariate pooled spline as the primary curve (one function, no
+    # step where a cohort leaves the pointwise pool) and k along x from the pointwise rows.
+    from pathlib import Path
+
+    from conftest import _one_analysis
+    from unbin.figures.base import Context
+    from unbin.figures.pooled import draw
+    from unbin.spec import parse_spec
+
+    rng = np.random.default_rng(5)
+    knots = [1.0, 2.0, 3.0, 4.0]
+    xs = np.linspace(0.5, 4.5, 21)
+    curves, coefs = [], []
+    for i, c in enumerate(("A", "B", "C")):
+        A = rng.normal(size=(3, 6))
+        b = np.array([0.5, -0.3, 0.2]) + rng.normal(0, 0.1, 3)
+        coefs.append(_coef_rows(c, b, A @ A.T * 0.01, knots))
+        D = _rcs(xs, np.array(knots)) - _rcs(np.array([2.5]), np.array(knots))
+        curves.append(_curve_rows(c, xs, D @ b, np.where(xs == 2.5, 0.0, 0.1), xs <= 4.5 - i,
+                                  form="common_spline", ref=2.5))
+    bundles = {c: {"curves": cv, "coefficients": cf, "contrasts": pd.DataFrame(),
+                   "counts": pd.DataFrame(), "cuts": pd.DataFrame()}
+               for c, cv, cf in zip("ABC", curves, coefs, strict=True)}
+    out = pool_bundles(bundles)
+    raw = _one_analysis({"type": "binary", "event": "y"}, "x", {"cuts": [2.0]})
+    spec = parse_spec(raw, base=Path("."))
+    per = pd.concat(curves, ignore_index=True)
+    per["effect"] = np.exp(per["estimate"])
+    drawn = draw(Context(tables={**out, "curves": per}, spec=spec), None, "a")
+    assert drawn is not None
+    assert "multivariate random-effects pooling" in drawn.alt
+    assert "1 to 3 cohorts count" in drawn.alt and "3 cohort curve(s)" in drawn.alt
+    mv = out["pooled_curves"]
+    mv = mv[mv["method"] == "multivariate random"]
+    assert mv["estimate"].notna().all() and len(mv) == len(xs)  # no gap where k drops

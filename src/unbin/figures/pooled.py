@@ -148,7 +148,8 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
            f"from {f(e[0])} at "
            f"{fmt_number(xs[0])} to {f(e[-1])} at {fmt_number(xs[-1])}, lowest {f(e.min())} at "
            f"{fmt_number(xs[int(np.argmin(e))])}, highest {f(e.max())} at "
-           f"{fmt_number(xs[int(np.argmax(e))])}; {per['cohort'].nunique()} cohort curve(s) "
+           f"{fmt_number(xs[int(np.argmax(e))])}; "
+           f"{per['cohort'].nunique() if len(per) else 0} cohort curve(s) "
            "behind it and the pooled legacy step function"
            + (f"; pointwise, {int(kx['k'].min())} to {int(kx['k'].max())} cohorts count "
               "along the axis." if len(kx) else "."))
