@@ -243,3 +243,11 @@ def test_common_contrast_values_are_weighted_means_of_cohort_summaries() -> None
     fb = combine([sample_summary(xa, term, fixed)], fixed)
     assert fb.source == "spec" and fb.group_values == ()
     assert fb.contrast_quartiles() == (-1.0, 1.0)
+
+
+def test_summary_leaves_out_medians_of_small_groups() -> None:
+    """Disclosure: a group with fewer than min_cell rows sends no median in the summary."""
+    x = np.concatenate([np.full(3, -1.0), np.linspace(0.0, 5.0, 200)])
+    term = GroupedTerm("x", (0.0,), "left", ("lo", "hi"), 1)
+    s = sample_summary(x, term, ContinuousOptions(common_knots=4), min_cell=10)
+    assert s["group_medians"] == {"hi": pytest.approx(float(np.median(x[x >= 0])))}

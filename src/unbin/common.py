@@ -68,8 +68,11 @@ class CommonBasis:
                    tuple((str(g), float(v)) for g, v in d.get("group_values", [])))
 
 
-def sample_summary(x: np.ndarray, legacy: GroupedTerm, opts: ContinuousOptions) -> dict[str, Any]:
-    """Aggregates of one cohort's analysis sample that the common basis needs (no rows)."""
+def sample_summary(x: np.ndarray, legacy: GroupedTerm, opts: ContinuousOptions,
+                   min_cell: int = 0) -> dict[str, Any]:
+    """Aggregates of one cohort's analysis sample that the common basis needs (no rows). A
+    group's median is left out when the group has fewer than ``min_cell`` rows (the summary is
+    shared with the coordinating centre)."""
     codes = legacy.codes(x)
     ref = x[codes == legacy.reference]
     k = opts.common_knots
@@ -79,7 +82,8 @@ def sample_summary(x: np.ndarray, legacy: GroupedTerm, opts: ContinuousOptions) 
         knots = None
     p01, q25, q75, p99 = np.quantile(x, [0.01, 0.25, 0.75, 0.99])
     medians = {legacy.labels[g]: float(np.median(x[codes == g]))
-               for g in range(len(legacy.labels)) if (codes == g).any()}
+               for g in range(len(legacy.labels))
+               if (codes == g).any() and (codes == g).sum() >= min_cell}
     return {
         "variable": legacy.variable,
         "n": int(len(x)),

@@ -230,7 +230,8 @@ def summarise_job(spec_path: str | Path, cohort: str, analysis: str, out: str | 
         if sample.n < 10:
             raise DataError(f"only {sample.n} rows in the analysis sample")
         x = sample.frame[a.exposure].to_numpy(float)
-        summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous))
+        summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous,
+                                      spec.min_cell))
     except UnbinError as exc:
         summary.update(status="failed", message=str(exc))
     Path(out).parent.mkdir(parents=True, exist_ok=True)
