@@ -551,3 +551,25 @@ def test_hksj_coverage_near_nominal_with_unequal_variances(k: int) -> None:
     cov = _coverage(k, n, 200 + k, equal=False)
     assert 0.93 < cov["pm_hksj"] < 0.96, cov
     assert cov["dl_normal"] < cov["pm_hksj"] - 3 * np.sqrt(0.95 * 0.05 / n), cov
+
+
+def test_pooling_check_script_reports_coverage_with_its_mc_error() -> None:
+    # benchmarks/checks/pooling.py (loaded from its path): the same simulation design as the
+    # slow test above, at 2000 replicates; HKSJ within [0.92, 0.97] (its known small shortfall,
+    # IntHout et al. 2014, plus 3.5 MC SE), DL-normal below HKSJ, and the MC SE it reports
+    # equal to sqrt(c (1 - c) / n).
+    import importlib.util
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[1] / "benchmarks" / "checks" / "pooling.py"
+    spec = importlib.util.spec_from_file_location("pooling_check", path)
+    assert spec is not None and spec.loader is not None
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    out = mod.run(2000, 9)
+    assert [r["k"] for r in out["results"]] == [3, 5]
+    for r in out["results"]:
+        c = r["pm_hksj"]["coverage"]
+        assert 0.92 < c < 0.97, r
+        assert r["pm_hksj"]["mc_se"] == pytest.approx(np.sqrt(c * (1 - c) / 2000), rel=1e-12)
+        assert r["dl_normal"]["coverage"] < c, r
