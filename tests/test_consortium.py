@@ -3,6 +3,7 @@ runs, and the pooled curve's coverage of a shared true curve."""
 
 from __future__ import annotations
 
+import json
 import subprocess
 import sys
 from pathlib import Path
@@ -159,3 +160,94 @@ def test_pooled_curve_covers_shared_truth() -> None:
             acc.append(np.abs(est - truth) <= 1.959964 * se)
     assert 0.92 <= float(np.mean(fixed)) <= 0.98, np.mean(fixed)
     assert 0.92 <= float(np.mean(random)) <= 0.995, np.mean(random)
+
+
+def _shifted_fp_spec() -> tuple[object, pd.DataFrame]:
+    """A continuous outcome on an exposure with negative values and a log-shaped truth, so the
+    selected fractional polynomial needs a shift (its origin lies just below the minimum)."""
+    from conftest import _one_analysis
+
+    rng = np.random.default_rng(8)
+    x = rng.uniform(-2.0, 3.0, 1500)
+    frame = pd.DataFrame({"x": x, "y": np.log(x + 2.2) + rng.normal(0.0, 0.3, x.size)})
+    raw = _one_analysis({"type": "continuous", "value": "y"}, "x", {"cuts": [0.0]},
+                        continuous={"forms": ["linear", "fp"], "spline_knots": [4]},
+                        resampling={"bootstrap": 5, "permutations": 9})
+    return parse_spec(raw, base=Path(".")), frame
+
+
+def test_fp_curve_on_a_wider_common_grid_is_missing_below_its_origin_not_an_error() -> None:
+    """A common grid that reaches below this cohort's minimum (another cohort's exposure goes
+    lower): the FP curve there is NaN with in_range false; the analysis keeps every table."""
+    from unbin.common import CommonBasis
+
+    spec, frame = _shifted_fp_spec()
+    basis = CommonBasis("x", (-1.5, 0.0, 1.0, 2.5), 0.5, -4.0, 3.0, "cohorts", (-0.5, 1.8),
+                        (("<0", -1.0), (">=0", 1.5)))
+    tables, status = analyse(spec, "sim", "a", frame, basis, resampling=False)
+    assert status["status"] in ("ok", "partial") and "failed (" not in status["message"], status
+    cur = tables["curves"]
+    fp = cur[(cur["form"] == "fp") & (cur["adjustment"] == "legacy")]
+    fits = tables["fits"]
+    assert len(fp) == 100 and len(fits) and len(tables["effects"])
+    origin = -json.loads(fits.loc[(fits["form"] == "fp") & (fits["adjustment"] == "legacy"),
+                                  "exposure_basis"].iloc[0])[0]["shift"]
+    assert frame["x"].min() - 0.06 < origin < frame["x"].min()  # delta = 1% of the range 5
+    below = fp["x"] <= origin
+    assert below.any()
+    assert fp.loc[below, "estimate"].isna().all() and not fp.loc[below, "in_range"].any()
+    assert fp.loc[~below & fp["in_range"], "estimate"].notna().all()
+    cc = tables["common_contrasts"]
+    assert set(cc["contrast_type"]) == {"common quartiles", "common group"}
+    grp = cc[(cc["form"] == "fp") & (cc["contrast_type"] == "common group")
+             & (cc["adjustment"] == "legacy")]
+    # one non-reference group: its common value against the common reference value
+    assert len(grp) == 1 and grp["x_value"].iloc[0] in (-1.0, 1.5)
+    assert grp["x_reference"].iloc[0] == 0.5
+
+
+def test_one_failing_question_keeps_the_other_tables(monkeypatch: pytest.MonkeyPatch) -> None:
+    import unbin.ranges
+
+    def broken(r: object, spec: object) -> pd.DataFrame:
+        raise ValueError("deliberately broken for the test")
+
+    monkeypatch.setattr(unbin.ranges, "ranges_table", broken)
+    spec, frame = _shifted_fp_spec()
+    tables, status = analyse(spec, "sim", "a", frame, resampling=False)
+    assert status["status"] == "partial"
+    assert "question 'ranges' failed (ValueError: deliberately broken" in status["message"]
+    assert tables["ranges"].empty
+    for name in ("fits", "effects", "curves", "information", "common_contrasts"):
+        assert len(tables[name]) > 0, name
+
+
+def test_common_contrast_values_are_weighted_means_of_cohort_summaries() -> None:
+    """Common quartiles = n-weighted means of the cohorts' quartiles; common group values =
+    n-weighted means of the cohorts' group medians (numpy on the raw samples); with the whole
+    basis fixed by the spec, the quartile points of the fixed grid and no group values."""
+    rng = np.random.default_rng(2)
+    opts = ContinuousOptions(common_knots=4)
+    term = GroupedTerm("x", (0.0,), "left", ("lo", "hi"), 1)
+    xa, xb = rng.normal(0, 1, 3000), rng.normal(1, 2, 1000)
+    basis = combine([sample_summary(xa, term, opts), sample_summary(xb, term, opts)], opts)
+    qa, qb = np.quantile(xa, [0.25, 0.75]), np.quantile(xb, [0.25, 0.75])
+    np.testing.assert_allclose(basis.quartiles, (3000 * qa + 1000 * qb) / 4000, rtol=1e-12)
+    lo = (3000 * np.median(xa[xa < 0]) + 1000 * np.median(xb[xb < 0])) / 4000
+    assert dict(basis.group_values)["lo"] == pytest.approx(lo, rel=1e-12)
+    assert dict(basis.group_values)["hi"] == pytest.approx(basis.reference, rel=1e-12)
+    again = type(basis).from_dict(json.loads(json.dumps(basis.to_dict())))
+    assert again == basis
+    fixed = ContinuousOptions(common_knots=4, knot_values=(-1.0, 0.0, 1.0, 2.0),
+                              reference_value=0.0, grid_range=(-2.0, 2.0))
+    fb = combine([sample_summary(xa, term, fixed)], fixed)
+    assert fb.source == "spec" and fb.group_values == ()
+    assert fb.contrast_quartiles() == (-1.0, 1.0)
+
+
+def test_summary_leaves_out_medians_of_small_groups() -> None:
+    """Disclosure: a group with fewer than min_cell rows sends no median in the summary."""
+    x = np.concatenate([np.full(3, -1.0), np.linspace(0.0, 5.0, 200)])
+    term = GroupedTerm("x", (0.0,), "left", ("lo", "hi"), 1)
+    s = sample_summary(x, term, ContinuousOptions(common_knots=4), min_cell=10)
+    assert s["group_medians"] == {"hi": pytest.approx(float(np.median(x[x >= 0])))}

@@ -159,14 +159,53 @@ def test_fp_repeated_power_gives_x_to_p_and_x_to_p_log_x(p: float) -> None:
     [-12.0, -2.0, 8.0],  # smallest gap 10
 ])
 def test_fp_shift_rule_for_non_positive_data(values: list[float]) -> None:
-    # CHECKS.md (Royston & Sauerbrei 2008): shift by -min + the smallest gap between sorted
-    # distinct values, so that the smallest shifted value equals that gap.
+    # Royston & Sauerbrei 2008 (sec. 4.7): shift by -min + the data's rounding step (here the
+    # smallest gap between sorted distinct values, which exceeds 1% of the range), so that the
+    # smallest shifted value equals that gap.
     distinct = sorted(set(values))
     gap = min(b - a for a, b in zip(distinct, distinct[1:], strict=False))
     assert fp_shift(values) == pytest.approx(-min(values) + gap, rel=1e-14)
     term = FPTerm.from_data("x", np.array(values), (0.0,))
     assert min(values) + term.shift == pytest.approx(gap, rel=1e-12)
     assert np.isfinite(term.basis(np.array(values))).all()
+
+
+def test_fp_shift_at_full_precision_lets_no_single_row_dominate() -> None:
+    # Full-precision data: the smallest gap (~1e-7 here) is not a rounding step. The shift
+    # floors the origin distance at 1% of the range (documented in unbin.terms.fp), so the
+    # smallest row's x^-2 is bounded relative to its neighbours, and its leverage in the FP1(-2)
+    # least-squares fit (hat matrix by numpy QR, an independent computation) is bounded, where
+    # the smallest-gap rule gives that row leverage > 0.9 (it alone decides the fit).
+    rng = np.random.default_rng(4)
+    x = rng.uniform(-1.0, 1.0, 2000)
+    x[1] = x.min() + 1e-7  # a near-tie at the minimum, as full-precision data have somewhere
+    gap = float(np.diff(np.unique(x)).min())
+    assert gap < 1e-6
+
+    def leverage_of_min(shift: float) -> tuple[float, float]:
+        term = FPTerm("x", (-2.0,), shift, 1.0)
+        B = np.column_stack([np.ones(x.size), term.basis(x)])
+        Q, _ = np.linalg.qr(B)
+        h = np.sum(Q**2, axis=1)
+        col = B[:, 1]
+        order = np.argsort(x)
+        return float(h[order[0]]), float(col[order[0]] / col[order[2]])
+
+    shift = fp_shift(x)
+    assert shift == pytest.approx(-x.min() + 0.01 * (x.max() - x.min()), rel=1e-12)
+    h_new, ratio_new = leverage_of_min(shift)
+    h_old, ratio_old = leverage_of_min(-x.min() + gap)
+    assert h_old > 0.9 and ratio_old > 1e6  # the old rule: one row dominates
+    # 3 / (n * P(x within delta of min) + 3) = 3 / (2000 * 0.01 + 3) ~ 0.13 for uniform data
+    assert h_new < 0.2
+    assert ratio_new < 1.5
+    # the term records shift and scale, so the basis rebuilds exactly from its dict
+    term = FPTerm.from_data("x", x, (-2.0, 1.0))
+    d = term.to_dict()
+    again = FPTerm(d["variable"], tuple(d["powers"]), d["shift"], d["scale"])
+    np.testing.assert_array_equal(again.basis(x), term.basis(x))
+    assert not term.in_domain(np.array([x.min() - 0.05]))[0]
+    assert term.in_domain(np.array([x.min()]))[0]
 
 
 def test_fp_no_shift_for_positive_data_and_refuses_values_below_the_origin() -> None:

@@ -45,6 +45,47 @@ def coefficients_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
                                        "cov"])
 
 
+COMMON_FORMS = ("linear", "spline", "fp", "common_spline")
+COMMON_QUARTILES = "common Q3 vs Q1"
+
+
+def common_contrasts_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+    """Each continuous form's contrasts at the common exposure values of the common basis
+    (``unbin.common``), so that every cohort estimates the same quantity and the contrasts
+    pool: the common upper vs lower quartile (``contrast_type`` "common quartiles") and each
+    legacy group's common median vs the common reference value ("common group"). NaN where a
+    form is not defined at a value (a fractional polynomial below its origin)."""
+    from .contrasts import contrast
+
+    basis = r.basis
+    cols = ["adjustment", "form", "contrast_type", "contrast", "x_value", "x_reference",
+            "estimate", "se", "scale"]
+    if basis is None:
+        return pd.DataFrame(columns=cols)
+    from .models import EFFECT_SCALE
+
+    q1, q3 = basis.contrast_quartiles()
+    points = [("common quartiles", COMMON_QUARTILES, q3, q1)]
+    ref_label = r.legacy.labels[r.legacy.reference]
+    points += [("common group", f"{g} vs {ref_label} (common values)", v, basis.reference)
+               for g, v in basis.group_values if g != ref_label]
+    rows = []
+    for coding in ("legacy", "continuous"):
+        for form in COMMON_FORMS:
+            f = r.get(form, coding)
+            if f is None:
+                continue
+            x1 = np.array([p[2] for p in points])
+            x0 = np.array([p[3] for p in points])
+            est, se = contrast(f, x1, x0)
+            for (ctype, label, a, b), e, s_ in zip(points, est, se, strict=True):
+                rows.append({"adjustment": coding, "form": form, "contrast_type": ctype,
+                             "contrast": label, "x_value": float(a), "x_reference": float(b),
+                             "estimate": float(e), "se": float(s_),
+                             "scale": EFFECT_SCALE[r.family]})
+    return pd.DataFrame(rows, columns=cols)
+
+
 def _suppress(v: Any, min_cell: int) -> Any:
     if v is None or pd.isna(v):
         return pd.NA
@@ -54,7 +95,10 @@ def _suppress(v: Any, min_cell: int) -> Any:
 
 def make_bundle(tables: dict[str, pd.DataFrame], min_cell: int) -> dict[str, pd.DataFrame]:
     """Bundle tables from one cohort's study-level-style tables (fits, curves, effects,
-    coefficients, status, cutpoints); keys as in ``BUNDLE_TABLES``."""
+    coefficients, common_contrasts, status, cutpoints); keys as in ``BUNDLE_TABLES``. The
+    bundle's ``contrasts`` holds the effects table's contrasts (each cohort's own values: only
+    the legacy groups' and the linear per-unit ones pool) and the contrasts at the common
+    values (``common_contrasts``), which pool for every continuous form."""
     curves = tables["curves"]
     curves = curves[curves["form"].isin(CURVE_FORMS)][
         ["cohort", "analysis", "adjustment", "form", "x", "x_reference", "in_range", "estimate",
@@ -62,7 +106,11 @@ def make_bundle(tables: dict[str, pd.DataFrame], min_cell: int) -> dict[str, pd.
     eff = tables["effects"]
     eff = eff[~eff["contrast"].str.endswith("(reference)")][
         ["cohort", "analysis", "adjustment", "form", "contrast_type", "contrast", "x_value",
-         "x_reference", "estimate", "se", "scale"]].reset_index(drop=True)
+         "x_reference", "estimate", "se", "scale"]]
+    common = tables.get("common_contrasts")
+    if common is not None and len(common):
+        eff = pd.concat([eff, common[eff.columns]], ignore_index=True)
+    eff = eff.reset_index(drop=True)
     coefs = tables["coefficients"].reset_index(drop=True)
     fits = tables["fits"]
     null = fits[(fits["form"] == "null") & (fits["adjustment"] == "legacy")]

@@ -18,8 +18,8 @@ COMPARED: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "information": (("cohort", "analysis", "adjustment"),
                     ("lr_legacy", "lr_linear", "lr_spline", "info_kept")),
     "fits": (("cohort", "analysis", "adjustment", "form", "detail"), ("loglik",)),
-    "pooled_effects": (("analysis", "adjustment", "form", "contrast_type", "contrast", "method"),
-                       ("estimate", "se")),
+    "pooled_effects": (("analysis", "adjustment", "form", "contrast_type", "contrast", "groups",
+                        "method"), ("estimate", "se")),
 }
 COLUMNS = ["change", "cohort", "analysis", "table", "item", "old", "new", "difference"]
 

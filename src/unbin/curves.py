@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .contrasts import contrast, with_interval
+from .contrasts import contrast, domain, with_interval
 from .interaction import SPLINE, level_models, level_reference
 from .models import EFFECT_SCALE
 from .refit import Refit
@@ -38,9 +38,11 @@ def curves_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             f = r.get(form, coding)
             if f is None:
                 continue
-            est, se = contrast(f, xs, x_ref)
+            est, se = contrast(f, xs, x_ref)  # NaN outside the form's domain
             parts.append(pd.DataFrame({"adjustment": coding, "form": form, "x": xs,
-                                       "x_reference": x_ref, "in_range": in_range,
+                                       "x_reference": x_ref,
+                                       "in_range": in_range & domain(f, xs)
+                                       & bool(domain(f, np.array([x_ref]))[0]),
                                        "estimate": est, "se": se,
                                        "status": f.result.status, "by_level": ""}))
     parts += _level_curves(r, xs)

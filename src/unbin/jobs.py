@@ -57,6 +57,7 @@ QUESTION_TABLES: dict[str, str] = {
     "curves": "curves:curves_table",
     "density": "curves:density_table",
     "coefficients": "bundles:coefficients_table",
+    "common_contrasts": "bundles:common_contrasts_table",
     "ranges": "ranges:ranges_table",
     "replication": "replication:replication_table",
     "thresholds": "decisions:thresholds_table",
@@ -132,10 +133,20 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
         failed = [f"{f.form}/{f.adjustment}: {f.result.message}" for f in refit.fits
                   if not f.result.ok and f.selected]
         builders = {**QUESTION_TABLES, **(RESAMPLING_TABLES if resampling else {})}
+        lost_questions: list[str] = []
         for name, target in builders.items():
-            tables[name] = _builder(target)(refit, spec)
-        notes = refit.messages + failed
-        if failed:
+            # One question that fails loses its own table only, never the analysis' others.
+            try:
+                tables[name] = _builder(target)(refit, spec)
+            except Exception as exc:
+                if not isinstance(exc, UnbinError):
+                    log.error("internal error in %s/%s, question %s:\n%s", cohort, analysis,
+                              name, traceback.format_exc())
+                tables[name] = pd.DataFrame()
+                lost_questions.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its "
+                            "table is empty, the other tables are complete")
+        notes = refit.messages + failed + lost_questions
+        if failed or lost_questions:
             status["status"] = "partial"
         status["message"] = " | ".join(dict.fromkeys(notes))
     except UnbinError as exc:
@@ -219,7 +230,8 @@ def summarise_job(spec_path: str | Path, cohort: str, analysis: str, out: str | 
         if sample.n < 10:
             raise DataError(f"only {sample.n} rows in the analysis sample")
         x = sample.frame[a.exposure].to_numpy(float)
-        summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous))
+        summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous,
+                                      spec.min_cell))
     except UnbinError as exc:
         summary.update(status="failed", message=str(exc))
     Path(out).parent.mkdir(parents=True, exist_ok=True)
@@ -240,7 +252,8 @@ def common_basis_job(spec_path: str | Path, analysis: str, summaries: list[str],
     Path(out).write_text(json.dumps(basis.to_dict(), sort_keys=True, indent=1))
 
 
-BUNDLE_SOURCES = ("fits", "curves", "effects", "coefficients", "status", "cutpoints")
+BUNDLE_SOURCES = ("fits", "curves", "effects", "coefficients", "common_contrasts", "status",
+                  "cutpoints")
 
 
 def bundle_job(spec_path: str | Path, cohort: str, work: str | Path,

@@ -45,7 +45,8 @@ CAUTION = ("unbin supports statistical re-analysis. Decisions about the care of 
 KNOWN_TABLES = frozenset({"fits", "information", "effects", "curves", "density", "samples",
                           "status", "ranges", "confounding", "cutpoints", "replication",
                           "thresholds", "net_benefit", "pooled_curves", "pooled_effects",
-                          "heterogeneity", "harmonisation", "coefficients"})
+                          "heterogeneity", "harmonisation", "coefficients",
+                          "common_contrasts"})
 FAMILY_TEXT = {"binary": "binary outcome (logistic model)",
                "continuous": "continuous outcome (linear model)",
                "count": "count outcome (Poisson model with person-time)",

@@ -1,9 +1,12 @@
 """Fractional polynomials (Royston & Altman 1994, JRSS-C 43:429; Royston & Sauerbrei 2008).
 
 Powers come from S = {-2, -1, -0.5, 0, 0.5, 1, 2, 3} with x^0 = log x; a repeated power p gives
-x^p and x^p log x. x must be positive: non-positive data are shifted by -min + the smallest gap
-between sorted distinct values. x is then divided by a power of ten (``scale``) so that the
-columns stay well conditioned; this only reparametrises the model (same fit, same deviance).
+x^p and x^p log x. x must be positive: non-positive data are shifted so that the smallest value
+becomes delta = max(rounding step, 0.01 x range) (see :func:`fp_shift`). x is then divided by a
+power of ten (``scale``) so that the columns stay well conditioned; this only reparametrises the
+model (same fit, same deviance). The term records ``shift`` and ``scale``, so the basis rebuilds
+exactly; values at or below the origin (-shift) lie outside the term's domain
+(:meth:`FPTerm.in_domain`).
 """
 
 from __future__ import annotations
@@ -19,14 +22,28 @@ FP1_SET: tuple[tuple[float, ...], ...] = tuple((p,) for p in FP_POWERS)
 FP2_SET: tuple[tuple[float, ...], ...] = tuple(combinations_with_replacement(FP_POWERS, 2))
 
 
+SHIFT_RANGE_FRACTION = 0.01
+
+
 def fp_shift(x: Any) -> float:
-    """The shift that makes x positive: 0 if min(x) > 0, else -min + smallest gap."""
+    """The shift that makes x positive: 0 if min(x) > 0, else -min + delta with
+    delta = max(smallest gap between sorted distinct values, 0.01 x range).
+
+    Royston & Sauerbrei (2008, sec. 4.7) shift non-positive data by -min plus the data's
+    rounding step, so that the smallest value becomes that step (x = 0, 1, 2, ... becomes
+    1, 2, 3, ...). For data recorded at full precision the smallest gap is not a rounding step
+    (it can be 1e-7, and then x^-2 of the smallest row is ~1e14 times that of the others, so one
+    row decides the fit). The floor of 1% of the range bounds this: the smallest shifted value
+    is at least range/100, so no power in the FP set gives one row more than
+    (1 + (x_(2) - x_(1)) / delta)^2 times the value of its nearest neighbour.
+    Data on a coarse grid (integers, counts) keep the classic rule."""
     xs = np.unique(np.asarray(x, dtype=float))
     if xs[0] > 0:
         return 0.0
     gaps = np.diff(xs)
     gap = float(gaps.min()) if len(gaps) else 1.0
-    return float(-xs[0] + gap)
+    delta = max(gap, SHIFT_RANGE_FRACTION * float(xs[-1] - xs[0]))
+    return float(-xs[0] + delta)
 
 
 def fp_scale(x: Any, shift: float) -> float:
@@ -58,6 +75,11 @@ class FPTerm:
     def names(self) -> tuple[str, ...]:
         return tuple(f"{self.variable}^({p:g})" + ("*log" if i and p == self.powers[i - 1] else "")
                      for i, p in enumerate(self.powers))
+
+    def in_domain(self, x: Any) -> np.ndarray:
+        """Where the basis is defined: x above the origin -shift (a curve evaluated on a grid
+        shared with other cohorts is missing, not an error, outside it)."""
+        return np.asarray(np.asarray(x, dtype=float) + self.shift > 0)
 
     def basis(self, x: Any) -> np.ndarray:
         z = (np.asarray(x, dtype=float) + self.shift) / self.scale
