@@ -104,6 +104,8 @@ def make_bundle(tables: dict[str, pd.DataFrame], min_cell: int) -> dict[str, pd.
         ["cohort", "analysis", "adjustment", "form", "x", "x_reference", "in_range", "estimate",
          "se", "scale"]].reset_index(drop=True)
     eff = tables["effects"]
+    if "by_level" in eff:  # per-level contrasts of an effect modifier are not pooled (yet)
+        eff = eff[eff["by_level"].fillna("") == ""]
     eff = eff[~eff["contrast"].str.endswith("(reference)")][
         ["cohort", "analysis", "adjustment", "form", "contrast_type", "contrast", "x_value",
          "x_reference", "estimate", "se", "scale"]]
