@@ -9,7 +9,8 @@ a normal predictor with a linear effect it tends to 2/pi (Cohen 1983).
 The tests and the share use the *test spline* (``continuous.test_knots`` knots at fixed
 quantiles, chosen before the outcome is seen; ``test_detail`` gives its knots), not the spline
 whose knot count AIC picked: a test on a model the same data selected rejects too often (under
-a linear truth, about 10% at the 5% level with k in {3, 4, 5} chosen by AIC), and an
+a linear truth with n = 300, 9-10% at the 5% level with k in {3, 4, 5} chosen by AIC;
+benchmarks/checks/nonlinearity.py), and an
 AIC-chosen denominator would bias the share the same way. ``lr_spline`` and ``aic_spline``
 remain those of the AIC-chosen (drawn) spline."""
 
