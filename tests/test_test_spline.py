@@ -229,3 +229,20 @@ def test_test_knots_override_and_validation(tmp_path: Path) -> None:
     with pytest.raises(SpecError) as err:
         _spec("binary", test_knot=4)
     assert "Did you mean 'test_knots'?" in str(err.value)
+
+
+def test_too_few_distinct_values_for_the_test_spline_is_a_message_not_a_crash() -> None:
+    """An exposure with five distinct values cannot carry 7 distinct knots at the default
+    quantiles: the analysis still runs, the tests are NaN (not computed on some other spline)
+    and the message names the spec field to change."""
+    rng = np.random.default_rng(12)
+    x = rng.choice([0.0, 1.0, 2.0, 3.0, 4.0], size=N)
+    y = (rng.random(N) < 1 / (1 + np.exp(-0.5 * x))).astype(float)
+    spec = _spec("binary", test_knots=7, spline_knots=[3])
+    a = spec.analyses[0]
+    r = refit_analysis(analysis_sample(pd.DataFrame({"x": x, "y": y}), a, spec), a, spec, "sim")
+    assert any("continuous.test_knots" in m for m in r.messages)
+    info = information_table(r).set_index("adjustment").loc["legacy"]
+    assert np.isnan(info["nonlinearity_p"]) and np.isnan(info["added_p"])
+    assert np.isnan(info["info_kept"]) and info["test_detail"] == ""
+    assert np.isfinite(info["lr_linear"])
