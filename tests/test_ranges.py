@@ -59,8 +59,8 @@ def test_legacy_estimate_moves_while_the_continuous_contrast_stays() -> None:
     assert both20["estimate"] < 0.65 * full["estimate"]  # the grouped effect shrinks by a third
     for form in ("linear", "spline"):
         rows = tab[tab["form"] == form]
-        truth = rows["x_high"].iloc[0] - rows["x_low"].iloc[0]  # slope 1 between fixed values
-        assert (rows["x_high"] == rows["x_high"].iloc[0]).all()  # the values stay fixed
+        truth = rows["x_value"].iloc[0] - rows["x_reference"].iloc[0]  # slope 1 between them
+        assert (rows["x_value"] == rows["x_value"].iloc[0]).all()  # the values stay fixed
         assert rows["covers_untrimmed"].all()
         assert ((rows["lower"] <= truth) & (truth <= rows["upper"])).all()
 
@@ -112,3 +112,40 @@ def test_survival_trim_refits_the_legacy_model_on_the_trimmed_rows() -> None:
                             strata=["centre"])
     assert row["estimate"] == pytest.approx(ref.params_["g2"], abs=1e-5)
     assert row["se"] == pytest.approx(ref.standard_errors_["g2"], rel=1e-4)
+
+
+@pytest.mark.parametrize(("reference", "comparison"), [(">=c2", "<c1"), ("<c1", ">=c2"),
+                                                       ("mid", ">=c2")])
+def test_contrasts_read_group_vs_reference(reference: str, comparison: str) -> None:
+    """One direction everywhere: "comparison vs reference" (the legacy paper's "group vs
+    reference"). y = x + e with cuts at the population tertiles: whatever group is the
+    reference, the legacy estimate must match the difference of the truncated-normal means
+    E[x | comparison group] - E[x | reference group] (scipy truncnorm) within 4 SE, so a
+    reference at the top gives a negative estimate (lowest vs highest group), and the linear
+    contrast must be x_value - x_reference (slope 1) within 4 SE. The middle group as the
+    reference ties: the highest group is compared."""
+    rng = np.random.default_rng(2031)
+    n = 20_000
+    x = rng.normal(size=n)
+    df = pd.DataFrame({"x": x, "y": x + rng.normal(size=n)})
+    c1, c2 = stats.norm.ppf(1 / 3), stats.norm.ppf(2 / 3)
+    labels = ["<c1", "mid", ">=c2"]
+    raw = _raw({"type": "continuous", "value": "y"}, [c1, c2], [])
+    raw["groupings"]["x"].update(labels=labels, reference=reference)
+    r, spec = _refit(df, raw)
+    tab = ranges_table(r, spec)
+    full = tab[tab["trim"] == "none"].set_index("form")
+    assert full.loc["legacy", "contrast"] == f"{comparison} vs {reference}"
+    bounds = {"<c1": (-np.inf, c1), "mid": (c1, c2), ">=c2": (c2, np.inf)}
+    expected = (stats.truncnorm.mean(*bounds[comparison])
+                - stats.truncnorm.mean(*bounds[reference]))
+    leg = full.loc["legacy"]
+    assert leg["estimate"] == pytest.approx(expected, abs=4 * leg["se"])
+    assert np.sign(leg["estimate"]) == np.sign(expected)
+    lin = full.loc["linear"]
+    assert lin["x_value"] == pytest.approx(np.median(x[r.legacy.codes(x) == labels.index(
+        comparison)]))
+    assert lin["x_reference"] == pytest.approx(np.median(x[r.legacy.codes(x) == labels.index(
+        reference)]))
+    assert lin["estimate"] == pytest.approx(lin["x_value"] - lin["x_reference"],
+                                            abs=4 * lin["se"])

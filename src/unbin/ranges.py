@@ -1,17 +1,25 @@
-"""Range dependence: how the legacy high-vs-low estimate moves when the exposure's range changes
-(as it does between studies with different entry criteria), while a continuous model's contrast
-between two fixed exposure values stays put.
+"""Range dependence: how the legacy estimate of the extreme group vs the reference group moves
+when the exposure's range changes (as it does between studies with different entry criteria),
+while a continuous model's contrast between two fixed exposure values stays put.
+
+Direction: every contrast reads "comparison vs reference", as the legacy paper's "group vs
+reference" and the effects table do — the comparison's effect over (ratio) or minus
+(difference) the reference's. The reference is the legacy reference group; the comparison is
+the extreme group (lowest or highest) farther from it (the highest when the reference is in
+the exact middle). With a reference at the top (say eGFR >= 60) the contrast is the lowest
+group vs it, not "high vs low".
 
 The sample is trimmed at quantiles of the full analysis sample's exposure: the upper tail, the
 lower tail, or both, by each share in ``TRIM_SHARES`` (plus the untrimmed sample). In every
 trimmed sample, with the legacy adjustment (as the legacy paper had it), three models are refitted:
 
 - ``legacy``: the legacy groups (fixed cuts stay; quantile groupings are re-derived in the trimmed
-  sample, as a study with that range would have done), and the estimate is the highest vs the
-  lowest group;
+  sample, as a study with that range would have done), and the estimate is the comparison group
+  vs the reference group (``x_value`` and ``x_reference``: their medians in the trimmed sample);
 - ``linear`` and ``spline`` (restricted cubic spline, knots at the default quantiles of the
   trimmed sample, as many knots as the spline AIC chose in the full sample): the contrast between
-  two fixed values, the full-sample medians of the highest and the lowest legacy group.
+  two fixed values, ``x_value`` (the full-sample median of the comparison group) vs
+  ``x_reference`` (the full-sample median of the reference group).
 
 A legacy row is skipped (``status = "skipped"``, with the reason) when a trim leaves a legacy
 group with fewer than ``max(MIN_GROUP_ROWS, min_cell)`` rows or, for event outcomes, fewer than
@@ -78,6 +86,16 @@ def _too_small(r: Refit, codes: np.ndarray, labels: tuple[str, ...], y: np.ndarr
     return ""
 
 
+def comparison_group(reference: int, n_groups: int) -> int:
+    """The extreme legacy group farther from the reference group (ties: the highest)."""
+    top = n_groups - 1
+    if reference == top:
+        return 0
+    if reference == 0:
+        return top
+    return top if top - reference >= reference else 0
+
+
 def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
     """Legacy and continuous contrasts refitted in range-trimmed samples (module docstring)."""
     a = r.analysis
@@ -85,13 +103,15 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
     x_full = r.x
     full_codes = r.legacy.codes(x_full)
     labels = r.legacy.labels
-    top, bottom = len(labels) - 1, 0
-    if not (np.any(full_codes == top) and np.any(full_codes == bottom)):
+    ref = r.legacy.reference
+    comp = comparison_group(ref, len(labels))
+    if not (np.any(full_codes == comp) and np.any(full_codes == ref)):
         return pd.DataFrame([{"trim": "none", "status": "failed",
-                              "reason": "the highest or lowest legacy group is empty in the "
+                              "reason": f"the legacy comparison group {labels[comp]!r} or the "
+                                        f"reference group {labels[ref]!r} is empty in the "
                                         "analysis sample"}])
-    x_high = float(np.median(x_full[full_codes == top]))
-    x_low = float(np.median(x_full[full_codes == bottom]))
+    x_comp = float(np.median(x_full[full_codes == comp]))
+    x_ref = float(np.median(x_full[full_codes == ref]))
     k = _spline_knots(r)
     min_rows = max(MIN_GROUP_ROWS, spec.min_cell)
     y_events = None if r.family == "continuous" else np.asarray(r.outcome.y, dtype=float)
@@ -112,22 +132,23 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
                 "events": int(round(float(y_events[keep].sum()))) if y_events is not None
                 else None, "adjustment": "legacy"}
         adjust = adjustment_terms(df, a, spec, "legacy")
-        # legacy groups, highest vs lowest
+        # legacy groups, comparison vs reference group
         term = legacy_term(x, a.exposure, spec)
         codes = term.codes(x)
         reason = _too_small(r, codes, labels, y_events[keep] if y_events is not None else None,
                             min_rows)
         row = {**base, "form": "legacy", "detail": term.describe(),
-               "contrast": f"{labels[top]} vs {labels[bottom]}"}
+               "contrast": f"{labels[comp]} vs {labels[ref]}"}
         if reason:
             rows.append({**row, "status": "skipped", "reason": reason})
         else:
-            xt = float(np.median(x[codes == top]))
-            xb = float(np.median(x[codes == bottom]))
-            rows.append({**row, **_fit_contrast(r, df, x, outcome, (term,), adjust, xt, xb),
-                         "x_high": xt, "x_low": xb})
+            xc = float(np.median(x[codes == comp]))
+            xr = float(np.median(x[codes == ref]))
+            rows.append({**row, **_fit_contrast(r, df, x, outcome, (term,), adjust, xc, xr),
+                         "x_value": xc, "x_reference": xr})
         # continuous forms between the fixed values
-        extrap = bool((lo > 0 and x_low < b_lo) or (hi > 0 and x_high > b_hi))
+        extrap = bool((lo > 0 and min(x_comp, x_ref) < b_lo)
+                      or (hi > 0 and max(x_comp, x_ref) > b_hi))
         forms: list[tuple[str, tuple[Term, ...] | None, str]] = [
             ("linear", (LinearTerm(a.exposure),), "linear")]
         try:
@@ -136,12 +157,14 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
         except ValueError as exc:
             forms.append(("spline", None, str(exc)))
         for form, terms, detail in forms:
-            row = {**base, "form": form, "detail": detail, "x_high": x_high, "x_low": x_low,
-                   "contrast": f"{x_high:g} vs {x_low:g}", "extrapolated": extrap}
+            row = {**base, "form": form, "detail": detail, "x_value": x_comp,
+                   "x_reference": x_ref, "contrast": f"{x_comp:g} vs {x_ref:g}",
+                   "extrapolated": extrap}
             if terms is None:
                 rows.append({**row, "status": "failed", "reason": detail})
                 continue
-            rows.append({**row, **_fit_contrast(r, df, x, outcome, terms, adjust, x_high, x_low)})
+            rows.append({**row, **_fit_contrast(r, df, x, outcome, terms, adjust, x_comp,
+                                                x_ref)})
     return _finish(pd.DataFrame(rows), r.family)
 
 
@@ -158,7 +181,7 @@ def _fit_contrast(r: Refit, df: pd.DataFrame, x: np.ndarray, outcome: Any,
 
 
 COLUMNS = ["trim", "share_lower", "share_upper", "bound_lower", "bound_upper", "n", "events",
-           "adjustment", "form", "detail", "contrast", "x_high", "x_low", "estimate", "se",
+           "adjustment", "form", "detail", "contrast", "x_value", "x_reference", "estimate", "se",
            "lower", "upper", "effect", "effect_lower", "effect_upper", "change",
            "covers_untrimmed", "extrapolated", "scale", "status", "reason"]
 

@@ -1,6 +1,16 @@
 """Every fit of one analysis on one cohort: legacy groups, linear, spline (k by AIC), fractional
-polynomial (closed-test function selection), legacy + spline, adjustment only and crude — each
-with legacy-grouped and with continuous (spline) adjustment, all on the same sample."""
+polynomial (closed-test function selection), the test spline alone and beside the legacy groups,
+adjustment only and crude — each with legacy-grouped and with continuous (spline) adjustment, all
+on the same sample.
+
+The *test spline* has ``continuous.test_knots`` knots at the default quantiles of the exposure:
+its knots are fixed before the outcome is seen, so the likelihood-ratio tests built on it
+(nonlinearity, added beyond the groups) keep their nominal level. The spline whose knot count AIC
+picks is the one drawn; tests on it would be anti-conservative, because the same data chose it.
+
+A fractional polynomial's powers are estimated too: the fp1/fp2/fp fits count them in
+``n_params`` (FP1: 2 parameters for the exposure, FP2: 4; Royston & Sauerbrei 2008), so that
+their AIC is comparable with the other forms'."""
 
 from __future__ import annotations
 
@@ -35,7 +45,7 @@ EPV_MIN = 10  # events per estimated coefficient (Peduzzi et al. 1996; common pr
 class FormFit:
     """One fitted model: the exposure in one form, with one adjustment coding."""
 
-    form: str  # null | legacy | linear | spline | fp | legacy+spline
+    form: str  # null | legacy | linear | spline | fp | fp1 | fp2 | test_spline | legacy+test_spline
     adjustment: str  # legacy | continuous | none
     exposure_terms: tuple[Term, ...]
     adjust_terms: tuple[Term, ...]
@@ -229,6 +239,21 @@ def _empty_group_message(term: GroupedTerm, x: np.ndarray) -> str:
     return ""
 
 
+def with_powers_counted(res: FitResult, term: FPTerm) -> FitResult:
+    """The fit with the FP powers counted as estimated parameters (Royston & Sauerbrei 2008:
+    FP1 spends 2 df on the exposure, FP2 4), so its AIC and BIC are comparable with the other
+    forms'. Only the counting changes; coefficients and likelihood are the fit's own."""
+    if not res.ok:
+        return res
+    return replace(res, n_params=res.n_params + len(term.powers))
+
+
+def test_spline_detail(term: SplineTerm) -> str:
+    """The test spline's description with its knots (what the information table cites)."""
+    knots = ", ".join(f"{k:.4g}" for k in term.knots)
+    return f"restricted cubic spline, {len(term.knots)} fixed knots at {knots}"
+
+
 def select_fp(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable: str, alpha: float,
               null: FitResult, linear: FitResult) -> tuple[list[FormFit], FormFit]:
     """Function selection procedure (closed test; Royston & Sauerbrei 2008): FP2 vs null (4 df),
@@ -251,7 +276,8 @@ def select_fp(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable: str
     rows: list[FormFit] = []
     for degree in (1, 2):
         term, res = best[degree]
-        rows.append(FormFit(f"fp{degree}", "", (term,), adjust, res, term.describe(), False))
+        rows.append(FormFit(f"fp{degree}", "", (term,), adjust, with_powers_counted(res, term),
+                            term.describe(), False))
     dev = {k: -2 * v[1].loglik for k, v in best.items()}
     p_null = stats.chi2.sf(-2 * null.loglik - dev[2], 4)
     p_lin = stats.chi2.sf(-2 * linear.loglik - dev[2], 3)
@@ -264,10 +290,12 @@ def select_fp(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable: str
                          f"FP: linear ({tests})")
     elif p_fp1 >= alpha:
         term, res = best[1]
-        chosen = FormFit("fp", "", (term,), adjust, res, f"{term.describe()} ({tests})")
+        chosen = FormFit("fp", "", (term,), adjust, with_powers_counted(res, term),
+                         f"{term.describe()} ({tests})")
     else:
         term, res = best[2]
-        chosen = FormFit("fp", "", (term,), adjust, res, f"{term.describe()} ({tests})")
+        chosen = FormFit("fp", "", (term,), adjust, with_powers_counted(res, term),
+                         f"{term.describe()} ({tests})")
     return rows, chosen
 
 
@@ -293,6 +321,12 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
                 spline_terms.append(SplineTerm.at_quantiles(a.exposure, x, k))
             except ValueError as exc:
                 r.messages.append(str(exc))
+    test_term: SplineTerm | None = None
+    try:
+        test_term = SplineTerm.at_quantiles(a.exposure, x, opts.test_knots)
+    except ValueError as exc:
+        r.messages.append(f"test spline ({opts.test_knots} knots; continuous.test_knots): {exc} "
+                          "The nonlinearity and added-beyond-the-groups tests are not computed.")
     codings: list[tuple[str, tuple[Term, ...]]] = [
         (c, adjustment_terms(df, a, spec, c)) for c in ADJUSTMENTS]
     codings.append(("none", ()))
@@ -322,11 +356,15 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
                 term = SplineTerm(a.exposure, basis.knots)
                 r.fits.append(FormFit("common_spline", coding, (term,), adjust,
                                       f.run((term,), adjust), f"{term.describe()} (common)"))
-            if best_spline is not None and not empty:
-                both = f.run((legacy, *best_spline.exposure_terms), adjust)
-                r.fits.append(FormFit("legacy+spline", coding,
-                                      (legacy, *best_spline.exposure_terms), adjust, both,
-                                      f"legacy groups + {best_spline.detail}"))
+        if test_term is not None:
+            # The tests' spline (knots fixed before the outcome is seen), under every coding.
+            detail = test_spline_detail(test_term)
+            r.fits.append(FormFit("test_spline", coding, (test_term,), adjust,
+                                  f.run((test_term,), adjust), detail))
+            if not empty:
+                r.fits.append(FormFit("legacy+test_spline", coding, (legacy, test_term), adjust,
+                                      f.run((legacy, test_term), adjust),
+                                      f"legacy groups + {detail}"))
         if "fp" in opts.forms and coding != "none":
             if not (null.ok and linear.ok):
                 r.fits.append(FormFit("fp", coding, (), adjust, failed_fit(

@@ -127,6 +127,10 @@ class ContinuousOptions:
     spline_knots: tuple[int, ...] = DEFAULT_KNOTS
     knot_values: tuple[float, ...] | None = None
     adjust_knots: int = 4
+    # Knots of the spline behind the tests (nonlinearity, added beyond the groups, information
+    # kept): a fixed count at the default quantiles of the exposure, chosen before the outcome
+    # is seen, unlike the drawn spline whose knot count AIC picks.
+    test_knots: int = 4
     fp_alpha: float = 0.05
     grid_points: int = 100
     grid_range: tuple[float, float] | None = None
@@ -499,6 +503,10 @@ def schema_problems(raw: dict[str, Any]) -> list[str]:
         elif err.validator == "pattern":
             problems.append(f"{where}: {err.instance!r} is not a valid identifier; use letters, "
                             "digits, '_' and '-' (starting with a letter or digit).")
+        elif (err.validator in ("minimum", "maximum") and where.endswith("_knots")
+              and not isinstance(err.instance, bool)):
+            problems.append(f"{where}: {err.instance!r} knots is not supported; use a whole "
+                            "number of knots from 3 to 7 (4 is the usual choice).")
         elif err.validator == "oneOf" and where.endswith("spline_knots"):
             problems.append(f"{where}: {err.instance!r} is neither a list of knot counts (3–7) nor "
                             "{values: [at least 3 knot positions]}.")
@@ -683,6 +691,7 @@ def _continuous(raw: dict[str, Any], base: ContinuousOptions) -> ContinuousOptio
         spline_knots=knot_counts,
         knot_values=knot_values,
         adjust_knots=int(raw.get("adjust_knots", base.adjust_knots)),
+        test_knots=int(raw.get("test_knots", base.test_knots)),
         fp_alpha=float(raw.get("fp_alpha", base.fp_alpha)),
         grid_points=int(raw.get("grid_points", base.grid_points)),
         grid_range=(tuple(float(v) for v in raw["grid_range"])  # type: ignore[arg-type]

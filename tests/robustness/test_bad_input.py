@@ -372,7 +372,8 @@ def test_perfect_separation(tmp_path: Path) -> None:
     _, tables, status = _analyse(tmp_path, frame, "binary")
     assert status["status"] == "partial"
     fits = tables["fits"]
-    exposure = fits[fits["form"].isin(["linear", "spline", "legacy+spline"]) & fits["selected"]]
+    exposure = fits[fits["form"].isin(["linear", "spline", "test_spline",
+                                            "legacy+test_spline"]) & fits["selected"]]
     assert len(exposure) and (exposure["status"] == "failed").all()
     assert exposure["message"].str.startswith("perfect or quasi-complete separation").all()
     assert (fits.loc[fits["form"] == "null", "status"] == "ok").all()

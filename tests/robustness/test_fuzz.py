@@ -30,7 +30,7 @@ KNOWN = ("study", "cohorts", "name", "path", "groupings", "variables", "analyses
          "type", "event", "value", "count", "persontime", "time", "entry", "horizon", "exposure",
          "adjust", "strata", "by", "filters", "variable", "min", "max", "in", "reported",
          "contrast", "estimate", "lower", "upper", "continuous", "forms", "spline_knots",
-         "values", "adjust_knots", "fp_alpha", "grid_points", "grid_range", "reference_value",
+         "values", "adjust_knots", "test_knots", "fp_alpha", "grid_points", "grid_range", "reference_value",
          "common_knots", "risk_thresholds", "disclosure", "min_cell", "seed", "resampling",
          "bootstrap", "permutations", "cutpoint_search", "cuts", "quantiles", "closed", "labels",
          "reference", "derived_from_data", "binary", "survival", "count", "left", "right",
@@ -60,7 +60,8 @@ def full_spec() -> dict[str, Any]:
     raw["groupings"]["bmi"]["closed"] = "right"
     raw["groupings"]["sodium"]["derived_from_data"] = False
     raw["groupings"]["quintile"] = {"quantiles": 5}
-    raw["continuous"].update(adjust_knots=4, fp_alpha=0.05, grid_points=50, common_knots=4)
+    raw["continuous"].update(adjust_knots=4, test_knots=4, fp_alpha=0.05, grid_points=50,
+                             common_knots=4)
     raw.update(horizon=5, resampling={"bootstrap": 10, "permutations": 19},
                cutpoint_search={"lower": 0.1, "upper": 0.9})
     return raw

@@ -1,6 +1,7 @@
 """Range dependence: how far each estimate moves from its full-range value when the sample's
-exposure range is trimmed (low tail, high tail, both), the legacy high-vs-low contrast beside the
-continuous forms' contrast between two fixed exposure values."""
+exposure range is trimmed (low tail, high tail, both), the legacy contrast of the extreme group
+vs the reference group beside the continuous forms' contrast between two fixed exposure values
+(the two groups' full-sample medians, the reference's second: "group vs reference")."""
 
 from __future__ import annotations
 
@@ -57,7 +58,8 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
     short = info.label if info and info.label else a.exposure
     unit = f" {info.unit}" if info and info.unit else ""
     forms = [f for f in FORMS if (df["form"] == f).any()]
-    footnote = ("Each point: the estimate in the trimmed sample relative to the same model's "
+    footnote = ("Contrasts read group vs reference (legacy reference group second). Each point: "
+                "the estimate in the trimmed sample relative to the same model's "
                 "estimate in the full sample, with its 95% interval shifted alike. Hollow: a fixed "
                 "contrast value lies outside the trimmed range.\n× at the null line: the legacy "
                 "contrast could not be estimated (a group was left with too few rows or events).")
