@@ -28,8 +28,9 @@ every row's exposure set to the comparison and to the reference value, averaged 
 the analysis' ``horizon`` from the Cox model's standardised survival, Breslow baseline), rate
 ratio (count: expected events per person-time), mean difference (continuous). With no
 confounding the crude and adjusted marginal contrasts estimate the same quantity. Their ``se_*``
-are bootstrap standard deviations. The ``"conditional"`` row keeps the model-scale contrast (log
-odds/hazard/rate ratio or mean difference; ``se_*`` from the model) and splits its
+are bootstrap standard deviations and ``lower_*``/``upper_*`` bootstrap percentile limits. The
+``"conditional"`` row keeps the model-scale contrast (log odds/hazard/rate ratio or mean
+difference; ``se_*`` from the model, Wald limits) and splits its
 change-in-estimate, ``confounding = e_crude - e_continuous``, into
 
     change_confounding       = e_crude - m_continuous
@@ -410,6 +411,8 @@ class _Form:
 
     @property
     def contrast(self) -> str:
+        if self.form == "linear":
+            return self.comparison.replace(" percentile", "") + f" vs {self.reference}"
         return f"{self.comparison} vs {self.reference}"
 
 
@@ -426,8 +429,8 @@ def _exposure_forms(r: Refit) -> list[_Form]:
     q25, q75 = (float(v) for v in np.percentile(r.x, [25, 75]))
     lin = (LinearTerm(r.analysis.exposure),)
     x1, x0, l1, l0 = ((q75, q25, "75th", "25th") if up else (q25, q75, "25th", "75th"))
-    forms = [_Form("linear", lin, f"{l1} percentile ({x1:.4g})", f"{l0} percentile ({x0:.4g})",
-                   x1, x0, (np.array([x1]), np.array([x0])))]
+    forms = [_Form("linear", lin, f"{l1} percentile", f"{l0} percentile", x1, x0,
+                   (np.array([x1]), np.array([x0])))]
     if comp is not None and np.any(codes == ref):
         x1 = float(np.median(r.x[codes == comp]))
         x0 = float(np.median(r.x[codes == ref]))
