@@ -266,12 +266,12 @@ def _covers(r: pd.Series, value: float, lo: str, hi: str) -> bool:
     return bool(r[lo] <= value <= r[hi])
 
 
-def _null_confounding_runs(sims: int, seed0: int) -> dict[str, np.ndarray]:
+def _null_confounding_runs(sims: int, seed0: int, boot: int = 100) -> dict[str, np.ndarray]:
     out: dict[str, list[float]] = {k: [] for k in (
         "rr", "rr_cover", "rr_halfwidth", "rd_cover", "cond_cover", "change_cover", "noncoll",
         "share_clear")}
     for s in range(sims):
-        tab = _logistic_sim(seed0 + s, rho=0.0)
+        tab = _logistic_sim(seed0 + s, rho=0.0, boot=boot)
         rr, rd, cond = _pick(tab, "risk ratio"), _pick(tab, "risk difference"), \
             _pick(tab, "odds ratio")
         assert bool(rr["primary"]) and rr["scale_kind"] == "marginal"
@@ -316,8 +316,9 @@ def test_independent_confounder_leaves_no_marginal_confounding() -> None:
 
 @pytest.mark.slow
 def test_independent_confounder_marginal_coverage_200_simulations() -> None:
-    """As above with 200 simulations: coverage of 0 in 93..99% (MC SD 1.5 points)."""
-    _check_null(_null_confounding_runs(200, 9_000), 0.93, 0.99)
+    """As above with 200 simulations and 200 replicates each: coverage of 0 in 93..99% (MC SD
+    1.5 points)."""
+    _check_null(_null_confounding_runs(200, 9_000, boot=200), 0.93, 0.99)
 
 
 def _designs_by_hand(df: pd.DataFrame, r: Any, spec: Any, form: str) -> dict[str, np.ndarray]:
@@ -456,11 +457,12 @@ def _true_risk(v: float, coef: tuple[float, float, float]) -> float:
     return float(np.sum(w / (1 + np.exp(-(a + b * v + c * nodes)))) / np.sqrt(2 * np.pi))
 
 
-def _coverage_runs(sims: int, seed0: int) -> dict[str, np.ndarray]:
+def _coverage_runs(sims: int, seed0: int, n: int = 500, boot: int = 100
+                   ) -> dict[str, np.ndarray]:
     coef = (-0.5, 0.5, 1.0)
     out: dict[str, list[float]] = {"rd_err": [], "rd_cover": [], "rd_half": [], "rr_cover": []}
     for s in range(sims):
-        tab = _logistic_sim(seed0 + s, rho=0.5, coef=coef)
+        tab = _logistic_sim(seed0 + s, rho=0.5, n=n, boot=boot, coef=coef)
         rd, rr = _pick(tab, "risk difference"), _pick(tab, "risk ratio")
         r1, r0 = _true_risk(rd["x_value"], coef), _true_risk(rd["x_reference"], coef)
         out["rd_err"].append(rd["estimate_continuous"] - (r1 - r0))
@@ -491,8 +493,9 @@ def test_marginal_interval_covers_the_true_standardised_contrast() -> None:
 
 @pytest.mark.slow
 def test_marginal_interval_coverage_200_simulations() -> None:
-    """As above with 200 simulations: coverage 0.92..0.98 (MC SD 1.5 points)."""
-    _check_coverage(_coverage_runs(200, 13_000), 0.92, 0.98)
+    """As above with 200 simulations of n = 1000 with 200 replicates each: coverage 0.92..0.98
+    (MC SD 1.5 points)."""
+    _check_coverage(_coverage_runs(200, 13_000, n=1000, boot=200), 0.92, 0.98)
 
 
 def test_contrast_runs_from_the_comparison_group_to_the_legacy_reference() -> None:
