@@ -459,6 +459,7 @@ class Builder:
         cols = [Col("exposure", lambda r: f"{r['exposure_form']}: {r['contrast']}"),
                 Col("grouped", lambda r: str(r["scope"]) if r["scope"] != "all"
                     else "all grouped confounders"),
+                Col("scale", lambda r: f"{get(r, 'scale_kind') or ''} {r['scale']}".strip()),
                 Col("crude", lambda r: num(get(r, "effect_crude")), True),
                 Col("grouped adjustment", lambda r: num(get(r, "effect_grouped")), True),
                 Col("continuous adjustment", lambda r: num(get(r, "effect_continuous")), True),
@@ -470,7 +471,8 @@ class Builder:
                     f"{_int(get(r, 'bootstrap'))}", True)]
         return ('<h3>Residual confounding</h3>' + self.figs(cohort, analysis, "confounding")
                 + "<details><summary>Confounding table</summary>"
-                + table(df, cols, f"Exposure effect ({df['scale'].iloc[0]}) by adjustment coding")
+                + table(df, cols, "Exposure effect by adjustment coding: marginal = "
+                        "standardised (the share to read), conditional = model scale")
                 + "</details>")
 
     def cutpoints(self, cohort: str, analysis: str) -> str:

@@ -1,6 +1,7 @@
 """Residual confounding: the exposure's effect crude, adjusted with the legacy grouped
 confounders, and adjusted with continuous confounders, per exposure coding, with the share of the
-confounding that the grouped adjustment leaves."""
+confounding that the grouped adjustment leaves — on the table's primary marginal (standardised)
+scale, or on the model scale for tables without marginal rows."""
 
 from __future__ import annotations
 
@@ -36,21 +37,28 @@ def _share_text(r: pd.Series) -> str:
     return f"share left by the grouped adjustment: {float(r['share_left']):.0%}{ci}"
 
 
-def _rows(g: pd.DataFrame) -> list[tuple[str, float, float, str]]:
-    """(label, estimate, se, colour) from crude to continuous, one row per grouped confounder
-    when there are several."""
+def _limits(r: pd.Series, what: str) -> tuple[float, float, float]:
+    """(estimate, lower, upper) of one adjustment from the table (older tables without limits:
+    the Wald interval from the standard error)."""
+    est = float(r[f"estimate_{what}"])
+    if f"lower_{what}" in r:
+        return est, float(r[f"lower_{what}"]), float(r[f"upper_{what}"])
+    se = float(r[f"se_{what}"])
+    return est, est - Z95 * se, est + Z95 * se
+
+
+def _rows(g: pd.DataFrame) -> list[tuple[str, tuple[float, float, float], str]]:
+    """(label, (estimate, lower, upper), colour) from crude to continuous, one row per grouped
+    confounder when there are several."""
     allrow = g[g["scope"] == "all"]
     base = allrow.iloc[0] if len(allrow) else g.iloc[0]
-    out = [("crude", float(base["estimate_crude"]), float(base["se_crude"]), NEUTRAL),
-           ("grouped confounders", float(base["estimate_grouped"]), float(base["se_grouped"]),
-            LEGACY)]
+    out = [("crude", _limits(base, "crude"), NEUTRAL),
+           ("grouped confounders", _limits(base, "grouped"), LEGACY)]
     single = g[g["scope"] != "all"]
     if len(single) > 1:
-        for r in single.itertuples():
-            out.append((f"only {r.scope} grouped", float(r.estimate_grouped),
-                        float(r.se_grouped), LEGACY))
-    out.append(("continuous confounders", float(base["estimate_continuous"]),
-                float(base["se_continuous"]), SPLINE))
+        for _, r in single.iterrows():
+            out.append((f"only {r['scope']} grouped", _limits(r, "grouped"), LEGACY))
+    out.append(("continuous confounders", _limits(base, "continuous"), SPLINE))
     return out
 
 
@@ -62,6 +70,11 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
     if "status" in df:
         df = df[df["status"] == "ok"]
     df = df[np.isfinite(df["estimate_crude"].astype(float))]
+    marginal = "primary" in df and bool(df["primary"].fillna(False).astype(bool).any())
+    if marginal:  # the standardised contrast the table reads its share from
+        df = df[df["primary"].fillna(False).astype(bool)]
+    elif "scale_kind" in df:
+        df = df[df["scale_kind"] == "conditional"]
     if df.empty:
         return None
     scale = str(df["scale"].iloc[0])
@@ -77,10 +90,16 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
         panels.append((form, str(g["contrast"].iloc[0]), rows,
                        allrow.iloc[0] if len(allrow) else g.iloc[0]))
     nrows = max(len(p[2]) for p in panels)
-    footnote = (f"Points: the exposure's effect ({scale}) with 95% Wald intervals, from no "
-                "adjustment (top) to adjustment with continuous confounders (bottom).\nShare left "
-                "= (grouped − continuous) / (crude − continuous) on the model scale, with its "
-                "bootstrap interval.")
+    if marginal:
+        footnote = (f"Points: the exposure's standardised {scale} (each row's exposure set to "
+                    "each value, predictions averaged), 95% bootstrap intervals;\nrows from no "
+                    "adjustment (top) to continuous confounders (bottom). Share left = (grouped − "
+                    "continuous) / (crude − continuous) on this scale.")
+    else:
+        footnote = (f"Points: the exposure's effect ({scale}) with 95% Wald intervals, from no "
+                    "adjustment (top) to adjustment with continuous confounders (bottom).\n"
+                    "Share left = (grouped − continuous) / (crude − continuous) on the model "
+                    "scale, with its bootstrap interval.")
     fig_, fig = new_figure(4.4 * len(panels) + 1.4, 1.9 + 0.42 * nrows, footnote)
     same_rows = len({tuple(r[0] for r in p[2]) for p in panels}) == 1
     axes = fig.subplots(1, len(panels), squeeze=False)[0]
@@ -88,8 +107,8 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
     for ax, (form, contrast, rows, allrow) in zip(axes, panels, strict=True):
         ys = np.arange(len(rows))[::-1]
         effs, bounds = [], []
-        for y, (_label, est, se, colour) in zip(ys, rows, strict=True):
-            e, lo, hi = tr(est), tr(est - Z95 * se), tr(est + Z95 * se)
+        for y, (_label, (est, low, up), colour) in zip(ys, rows, strict=True):
+            e, lo, hi = tr(est), tr(low), tr(up)
             ax.plot([lo, hi], [y, y], color=colour, lw=1.6, zorder=3)
             ax.plot([e], [y], marker="o", ms=7, color=colour, ls="none", zorder=4)
             effs.append(e)
@@ -116,8 +135,9 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
     most = ""
     if len(largest):
         most = f" The grouping that leaves the most: {largest['scope'].iloc[0]}."
-    alt = ("Dot-and-interval chart per exposure coding, rows from crude to adjusted with "
-           "continuous confounders. " + "; ".join(alt_parts) + "." + most)
+    alt = (f"Dot-and-interval chart of the exposure's {'standardised ' if marginal else ''}"
+           f"{scale} per exposure coding, rows from crude to adjusted with continuous "
+           "confounders. " + "; ".join(alt_parts) + "." + most)
     caption = ("If the grouped adjustment removed all confounding, its point would sit on the "
                "continuous one; the gap is confounding the legacy analysis left in its estimate."
                + most)
