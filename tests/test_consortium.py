@@ -54,7 +54,7 @@ def _run(*args: str) -> None:
 
 def test_common_basis_is_weighted_mean_of_cohort_summaries() -> None:
     """Knots = n-weighted mean of the cohorts' knot quantiles (never from pooled rows);
-    a single cohort gets its own sample's default knots (common practice, DESIGN §6)."""
+    a single cohort gets its own sample's default knots (common practice)."""
     rng = np.random.default_rng(1)
     opts = ContinuousOptions(common_knots=4)
     term = GroupedTerm("x", (0.0,), "left", ("lo", "hi"), 1)

@@ -33,7 +33,7 @@ from unbin.spec import Spec, parse_spec
 
 TIGHT = {"precision": 1e-14, "r_precision": 1e-16}  # lifelines convergence, as in test_cox
 X_KNOTS = [35.0, 45.0, 55.0, 65.0]
-Z_QUANTILES = [0.05, 0.35, 0.65, 0.95]  # default 4 adjustment knots (CHECKS.md, common practice)
+Z_QUANTILES = [0.05, 0.35, 0.65, 0.95]  # default 4 adjustment knots (common practice)
 
 
 def _raw(outcome: dict[str, Any], horizon: float | None = None, **analysis: Any) -> dict[str, Any]:
@@ -60,7 +60,7 @@ def _refit(frame: pd.DataFrame, raw: dict[str, Any], tmp: Path) -> tuple[Spec, R
 
 def _cr(var: str, knots: list[float] | np.ndarray) -> str:
     """patsy's natural cubic spline with the given knots, centred: the same function space as
-    the restricted cubic spline without its constant (CHECKS.md "Reference library")."""
+    the restricted cubic spline without its constant (patsy's cr() as the reference library)."""
     k = list(knots)
     return (f"cr({var}, knots={k[1:-1]}, lower_bound={k[0]}, upper_bound={k[-1]}, "
             "constraints='center')")
@@ -182,7 +182,7 @@ def test_binary_net_benefit_by_the_formula(binary_case: tuple[pd.DataFrame, Spec
 
 
 def test_treat_all_reproduces_vickers_elkin() -> None:
-    # Vickers & Elkin 2006 (CHECKS.md): prevalence 0.30, treat-all NB at p_t = 0.05 ... 0.50.
+    # Vickers & Elkin 2006 (Med Decis Making 26:565): prevalence 0.30, treat-all NB at p_t = 0.05 ... 0.50.
     y = np.r_[np.ones(300), np.zeros(700)]
     grid = np.array([0.05, 0.10, 0.20, 0.30, 0.50])
     value, tp, fp = net_benefit_counts(y, np.ones(1000, dtype=bool), grid)
@@ -196,7 +196,7 @@ def test_treat_all_reproduces_vickers_elkin() -> None:
 
 
 def test_treat_all_in_the_table_at_prevalence_030(tmp_path: Path) -> None:
-    # Vickers & Elkin 2006 worked values (CHECKS.md) through the whole table.
+    # Vickers & Elkin 2006 worked values through the whole table.
     rng = np.random.default_rng(5)
     x = rng.normal(50, 10, 1000)
     y = np.zeros(1000, dtype=int)

@@ -50,7 +50,7 @@ def _linear_model_frame(seed: int, slope: float) -> pd.DataFrame:
 
 
 def test_shares_kept_from_the_formula_match_the_published_values() -> None:
-    # CHECKS.md: a split leaving share p shrinks r by phi(z_p)/sqrt(p(1-p)); median -> sqrt(2/pi)
+    # Cohen 1983; MacCallum et al. 2002: a split leaving share p shrinks r by phi(z_p)/sqrt(p(1-p)); median -> sqrt(2/pi)
     # (Cohen 1983; MacCallum et al. 2002), p = 0.25 -> 0.7339, p = 0.10 -> 0.5850.
     def shrink(p: float) -> float:
         return float(stats.norm.pdf(stats.norm.ppf(p)) / np.sqrt(p * (1 - p)))
@@ -62,7 +62,7 @@ def test_shares_kept_from_the_formula_match_the_published_values() -> None:
 
 def test_median_split_keeps_two_over_pi_of_a_linear_models_information(refit_frame: Any,
                                                                        one_analysis: Any) -> None:
-    # Cohen 1983; MacCallum, Zhang, Preacher & Rucker 2002 (CHECKS.md): a median split of a
+    # Cohen 1983; MacCallum, Zhang, Preacher & Rucker 2002: a median split of a
     # normal predictor keeps 2/pi = 0.6366 of the explained variance, hence (small R^2) of the LR
     # chi-square. Linear model y = 0.15 x + e, e ~ N(0, 1): R^2 = 0.022, lam ~ 4500 per run.
     # Away from the local limit LR = -n log(1 - R^2) gives the exact population ratio
@@ -102,7 +102,7 @@ def test_median_split_keeps_two_over_pi_in_a_logistic_model(refit_frame: Any,
 
 
 def test_quarter_split_keeps_phi_squared_over_p_q(refit_frame: Any, one_analysis: Any) -> None:
-    # CHECKS.md formula: a 25%/75% split keeps phi(z_p)^2 / (p (1 - p)) = 0.7339^2 = 0.5386 of
+    # From the published formula (MacCallum et al. 2002): a 25%/75% split keeps phi(z_p)^2 / (p (1 - p)) = 0.7339^2 = 0.5386 of
     # the information (here: cut at the normal 25th percentile, so p = 0.25 in the population).
     p = 0.25
     z = float(stats.norm.ppf(p))

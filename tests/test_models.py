@@ -11,7 +11,7 @@ from unbin.models import Outcome, fit
 
 
 def test_logit_reproduces_the_published_spector_mazzeo_fit() -> None:
-    # Greene, Econometric Analysis, Table 21.1 (from memory; CHECKS.md), on the Spector & Mazzeo
+    # Greene, Econometric Analysis, Table 21.1 (from memory), on the Spector & Mazzeo
     # data that statsmodels ships.
     d = spector.load_pandas()
     names = ("GPA", "TUCE", "PSI")

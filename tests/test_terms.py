@@ -39,7 +39,7 @@ def _ls_fitted(X: np.ndarray, y: np.ndarray) -> np.ndarray:
 def test_spline_spans_the_same_space_as_patsy_natural_cubic_spline(k: int) -> None:
     # Reference library: patsy cr(x, knots=inner, lower_bound=t1, upper_bound=tk) is a natural
     # cubic regression spline with the same knots, i.e. the same function space as the
-    # restricted cubic spline (CHECKS.md "Reference library"): OLS fitted values must agree.
+    # restricted cubic spline (patsy's cr() as the reference library): OLS fitted values must agree.
     rng = np.random.default_rng(11 + k)
     x = rng.gamma(3.0, 2.0, 800)  # skewed, with values well beyond both outer knots
     y = np.sin(x / 2.0) + 0.05 * x**2 + rng.normal(0.0, 0.3, x.size)
@@ -58,7 +58,7 @@ def test_spline_spans_the_same_space_as_patsy_natural_cubic_spline(k: int) -> No
 
 
 def _durrleman_simon(x: float, t: list[float]) -> list[float]:
-    """Durrleman & Simon 1989 (Stat Med 8:551), as written in CHECKS.md, one point at a time."""
+    """Durrleman & Simon 1989 (Stat Med 8:551), written out here, one point at a time."""
     k = len(t)
 
     def cube(u: float) -> float:
@@ -74,7 +74,7 @@ def _durrleman_simon(x: float, t: list[float]) -> list[float]:
 
 
 def test_spline_basis_matches_the_durrleman_simon_formula() -> None:
-    # Published formula (Durrleman & Simon 1989; CHECKS.md), written out independently above.
+    # Published formula (Durrleman & Simon 1989), written out independently above.
     knots = [1.0, 2.5, 4.0, 7.0, 10.0]
     points = [-3.0, 1.0, 1.7, 2.5, 3.2, 5.5, 7.0, 8.8, 10.0, 14.0]
     got = SplineTerm("x", tuple(knots)).basis(np.array(points))
@@ -96,8 +96,8 @@ def test_spline_is_linear_beyond_the_outer_knots_and_cubic_inside() -> None:
     assert np.abs(inside[:, 1:]).max() > 1e-3  # the nonlinear columns do bend between knots
 
 
-# Default knot quantiles (published regression-modelling texts; common practice; CHECKS.md).
-CHECKS_KNOT_QUANTILES = {
+# Default knot quantiles (published regression-modelling texts; common practice).
+KNOT_QUANTILES = {
     3: [0.10, 0.50, 0.90],
     4: [0.05, 0.35, 0.65, 0.95],
     5: [0.05, 0.275, 0.50, 0.725, 0.95],
@@ -106,15 +106,15 @@ CHECKS_KNOT_QUANTILES = {
 }
 
 
-@pytest.mark.parametrize("k", sorted(CHECKS_KNOT_QUANTILES))
+@pytest.mark.parametrize("k", sorted(KNOT_QUANTILES))
 def test_default_knots_sit_at_the_published_quantiles(k: int) -> None:
     x = np.random.default_rng(k).lognormal(0.0, 0.6, 1000)
-    np.testing.assert_allclose(default_knots(x, k), np.quantile(x, CHECKS_KNOT_QUANTILES[k]),
+    np.testing.assert_allclose(default_knots(x, k), np.quantile(x, KNOT_QUANTILES[k]),
                                rtol=1e-12)
 
 
 def test_default_outer_knots_move_to_fifth_extreme_values_below_100_observations() -> None:
-    # CHECKS.md (common practice): with under 100 values the outer knots are the 5th smallest
+    # Common practice: with under 100 values the outer knots are the 5th smallest
     # and 5th largest values; the inner ones stay at their quantiles.
     x = np.random.default_rng(3).normal(50.0, 10.0, 60)
     xs = np.sort(x)
@@ -243,7 +243,7 @@ def _fp_refit(refit_frame: Callable[..., tuple[Any, Refit]], one_analysis: Calla
 
 
 def _reference_fsp(x: np.ndarray, y: np.ndarray, alpha: float = 0.05) -> tuple[float, ...]:
-    """The closed-test function selection (Royston & Sauerbrei 2008; CHECKS.md) written out with
+    """The closed-test function selection (Royston & Sauerbrei 2008) written out with
     statsmodels OLS deviances: () null, (1,) linear, else the chosen FP powers."""
     def dev(B: np.ndarray) -> float:
         return float(-2.0 * sm.OLS(y, sm.add_constant(B, has_constant="add")).fit().llf)
@@ -276,7 +276,7 @@ def _chosen_powers(r: Refit) -> tuple[float, ...]:
 
 
 def test_fp_selection_finds_a_log_truth(refit_frame: Any, one_analysis: Any) -> None:
-    # Function selection procedure (Royston & Sauerbrei 2008; CHECKS.md), closed test at 5%,
+    # Function selection procedure (Royston & Sauerbrei 2008), closed test at 5%,
     # checked against the same procedure written out with statsmodels OLS (reference library).
     # Truth y = log(x) + noise is FP1(0). With n = 5000 over x in [0.5, 20] the FP2-vs-null and
     # FP2-vs-linear tests have power ~1 (log and linear differ by far more than the noise), the

@@ -57,7 +57,7 @@ def test_provenance_in_every_table(demo_out: Path) -> None:
 
 
 def test_rerun_is_byte_identical(demo_out: Path, tmp_path: Path) -> None:
-    """Same inputs, same bytes (DESIGN §5): a second run in a fresh folder."""
+    """Same inputs, same bytes (results carry no timestamps): a second run in a fresh folder."""
     proc = run_cli("demo", "--out", str(tmp_path), "--cores", "2", "--quiet")
     assert proc.returncode == 0, proc.stdout + proc.stderr
     for path in sorted((demo_out / "tables").glob("*.parquet")):

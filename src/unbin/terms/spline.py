@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-# Default knot quantiles by number of knots (published regression-modelling texts; CHECKS.md).
+# Default knot quantiles by number of knots (published regression-modelling texts; common practice).
 KNOT_QUANTILES: dict[int, tuple[float, ...]] = {
     3: (0.10, 0.50, 0.90),
     4: (0.05, 0.35, 0.65, 0.95),
@@ -27,7 +27,7 @@ KNOT_QUANTILES: dict[int, tuple[float, ...]] = {
 
 def default_knots(x: Any, k: int) -> tuple[float, ...]:
     """Knots at the default quantiles; with fewer than 100 values the outer knots move to the
-    5th smallest and 5th largest value (CHECKS.md, common practice)."""
+    5th smallest and 5th largest value (common practice)."""
     xs = np.sort(np.asarray(x, dtype=float))
     if k not in KNOT_QUANTILES:
         raise ValueError(f"spline knots: {k} knots is not supported; use 3 to 7.")
