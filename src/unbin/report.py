@@ -10,7 +10,6 @@ bytes.
 
 from __future__ import annotations
 
-import base64
 import html
 import logging
 import math
@@ -155,6 +154,16 @@ def get(r: pd.Series, key: str) -> Any:
 # --------------------------------------------------------------------------- figures
 
 
+_URI_ESCAPES = {c: f"%{ord(c):02X}" for c in '%"#<>&\n\r\t'}
+
+
+def svg_data_uri(svg: bytes) -> str:
+    """The SVG as a UTF-8 data URI with only the characters that would end the attribute or
+    the URI escaped: about a tenth larger than the file, where base64 is a third larger."""
+    text = svg.decode("utf-8")
+    return "data:image/svg+xml;charset=utf-8," + "".join(_URI_ESCAPES.get(c, c) for c in text)
+
+
 def figure_html(f: FigureFile) -> str:
     if f.svg is None:
         return (f'<figure id="{slug("fig", f.cohort, f.analysis, f.kind)}" class="not-drawn">'
@@ -165,9 +174,9 @@ def figure_html(f: FigureFile) -> str:
     if m:
         w, h = (round(float(v) * 4 / 3) for v in m.groups())
         size = f' width="{w}" height="{h}"'
-    data = base64.b64encode(svg).decode("ascii")
+    data = svg_data_uri(svg)
     return (f'<figure id="{slug("fig", f.cohort, f.analysis, f.kind)}"><img '
-            f'src="data:image/svg+xml;base64,{data}"{size} alt="{esc(f.alt)}">'
+            f'src="{data}"{size} alt="{esc(f.alt)}">'
             f'<figcaption><b>{esc(f.title)}.</b> {esc(f.caption)}</figcaption></figure>')
 
 

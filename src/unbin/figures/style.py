@@ -12,6 +12,7 @@ printed in grey); line styles and hatching carry the same distinction a second t
 from __future__ import annotations
 
 import math
+import re
 import textwrap
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -95,7 +96,7 @@ STYLE: dict[str, Any] = {
     "hatch.linewidth": 0.7,
     "lines.solid_capstyle": "butt",
     "svg.hashsalt": SVG_SALT,
-    "svg.fonttype": "path",          # text as outlines: no font needed where the SVG is shown
+    "svg.fonttype": "none",          # text as text (a tenth of the size of outlines); the report names fonts
     "path.simplify": True,
 }
 
@@ -138,7 +139,21 @@ def save(fig: Figure, base: Path) -> tuple[Path, Path]:
         freeze_layout(fig)
         fig.savefig(png, format="png", dpi=DPI, metadata={"Software": None})
         fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
+    svg.write_text(lighter_svg(svg.read_text(encoding="utf-8")), encoding="utf-8")
     return png, svg
+
+
+_LONG_DECIMAL = re.compile(r"(?<![\w#.-])(-?\d+\.\d{3,})(?![\w.])")
+
+
+def lighter_svg(text: str) -> str:
+    """Coordinates to two decimals of a point (1/7200 inch): the same drawing to the eye, about
+    a third of the bytes (the report inlines every figure)."""
+    def short(m: re.Match[str]) -> str:
+        v = f"{float(m.group(1)):.2f}".rstrip("0").rstrip(".")
+        return "0" if v in ("-0", "") else v
+
+    return re.sub(r"\n[ \t]+", "\n", _LONG_DECIMAL.sub(short, text))
 
 
 def freeze_layout(fig: Figure, digits: int = 9) -> None:
