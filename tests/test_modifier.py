@@ -84,13 +84,15 @@ def null_case(tmp_path_factory: pytest.TempPathFactory) -> tuple[pd.DataFrame, S
 def test_modifier_enters_both_codings_as_its_levels(
         null_case: tuple[pd.DataFrame, Spec, Refit]) -> None:
     """Both adjustment codings hold w as the factor of its legacy groups (README: "enters as a
-    factor"), never as a spline or line of itself."""
+    factor"); the continuous coding adds w's own spline (the trend within the levels), as for
+    any numeric adjuster."""
     _, _, r = null_case
     for coding in ("legacy", "continuous"):
         adjust = r.get("null", coding).adjust_terms
-        by = [t for t in adjust if t.variable == "w"]
-        assert len(by) == 1 and isinstance(by[0], GroupedTerm), (coding, adjust)
-        assert by[0].cuts == (50.0,)
+        by = [t for t in adjust if t.variable == "w" and isinstance(t, GroupedTerm)]
+        assert len(by) == 1 and by[0].cuts == (50.0,), (coding, adjust)
+        others = [t for t in adjust if t.variable == "w" and not isinstance(t, GroupedTerm)]
+        assert len(others) == (coding == "continuous"), (coding, adjust)
 
 
 def test_null_interaction_with_a_main_step_is_not_significant(
@@ -115,11 +117,12 @@ def test_interaction_lr_matches_statsmodels(null_case: tuple[pd.DataFrame, Spec,
     knots = interaction_spline(r).knots
     np.testing.assert_allclose(knots, np.quantile(frame["x"], X_QUANTILES), rtol=1e-12)
     zk = np.quantile(frame["z"], Z_QUANTILES)
+    wk = np.quantile(frame["w"], Z_QUANTILES)  # w's own spline, continuous coding
     f = frame.assign(lvl=np.where(frame["w"] >= 50, "b", "a"))
     fam = sm.families.Binomial()
-    main = smf.glm(f"y ~ {_cr('x', knots)} + C(lvl) + {_cr('z', zk)}", f,
+    main = smf.glm(f"y ~ {_cr('x', knots)} + C(lvl) + {_cr('z', zk)} + {_cr('w', wk)}", f,
                    family=fam).fit(tol=1e-12)
-    full = smf.glm(f"y ~ {_cr('x', knots)} * C(lvl) + {_cr('z', zk)}", f,
+    full = smf.glm(f"y ~ {_cr('x', knots)} * C(lvl) + {_cr('z', zk)} + {_cr('w', wk)}", f,
                    family=fam).fit(tol=1e-12)
     lr = 2 * (full.llf - main.llf)
     np.testing.assert_allclose(info.loc["continuous", "interaction_lr"], lr, rtol=1e-6)
@@ -149,9 +152,10 @@ def test_per_level_curves_match_statsmodels_delta_method(
     assert (cur.loc[cur["form"] != SPLINE, "by_level"] == "").all()
     knots = interaction_spline(r).knots
     zk = np.quantile(frame["z"], Z_QUANTILES)
+    wk = np.quantile(frame["w"], Z_QUANTILES)
     f = frame.assign(lvl=np.where(frame["w"] >= 50, "b", "a"))
-    yv, X = patsy.dmatrices(f"y ~ {_cr('x', knots)} * C(lvl) + {_cr('z', zk)}", f,
-                            return_type="dataframe")
+    yv, X = patsy.dmatrices(f"y ~ {_cr('x', knots)} * C(lvl) + {_cr('z', zk)} + {_cr('w', wk)}",
+                            f, return_type="dataframe")
     full = sm.GLM(yv, X, family=sm.families.Binomial()).fit(tol=1e-12)
     di = X.design_info
     refs = _per_level_reference(frame)
@@ -162,7 +166,7 @@ def test_per_level_curves_match_statsmodels_delta_method(
         x_ref = refs.loc[lvl, "x_ref"]
         np.testing.assert_allclose(rows["x_reference"], x_ref, rtol=1e-12)
         xs = rows["x"].to_numpy()
-        new = pd.DataFrame({"x": xs, "lvl": lvl, "z": 0.0})
+        new = pd.DataFrame({"x": xs, "lvl": lvl, "z": 0.0, "w": 50.0})
         at_ref = new.assign(x=x_ref)
         D = (np.asarray(patsy.build_design_matrices([di], new)[0])
              - np.asarray(patsy.build_design_matrices([di], at_ref)[0]))
@@ -180,9 +184,10 @@ def test_legacy_subgroup_contrasts_match_statsmodels(
     frame, spec, r = null_case
     eff = effects_table(r, spec)
     zk = np.quantile(frame["z"], Z_QUANTILES)
+    wk = np.quantile(frame["w"], Z_QUANTILES)
     f = frame.assign(lvl=np.where(frame["w"] >= 50, "b", "a"),
                      grp=np.where(frame["x"] >= 60, "hi", "lo"))
-    fit = smf.glm(f"y ~ C(grp, Treatment('lo')) * C(lvl) + {_cr('z', zk)}", f,
+    fit = smf.glm(f"y ~ C(grp, Treatment('lo')) * C(lvl) + {_cr('z', zk)} + {_cr('w', wk)}", f,
                   family=sm.families.Binomial()).fit(tol=1e-12)
     p, V = fit.params, fit.cov_params()
     g = "C(grp, Treatment('lo'))[T.hi]"
@@ -202,7 +207,7 @@ def test_legacy_subgroup_contrasts_match_statsmodels(
 def test_per_level_thresholds_plug_back_into_statsmodels(tmp_path: Path) -> None:
     """Implied thresholds per level of a grouped modifier come from the interaction model WITH
     the level main effect: at each reported exposure value x*, the statsmodels GLM (binomial,
-    patsy natural cubic spline on the recorded knots x C(level) + spline of z) gives the
+    patsy natural cubic spline on the recorded knots x C(level) + splines of z and w) gives the
     threshold risk at the same quantile of the level's linear predictors with x set to x*."""
     from unbin.decisions import thresholds_table
 
@@ -216,9 +221,10 @@ def test_per_level_thresholds_plug_back_into_statsmodels(tmp_path: Path) -> None
     assert set(rows["level"]) == {"<50", ">=50"}
     knots = interaction_spline(r).knots
     zk = np.quantile(frame["z"], Z_QUANTILES)
+    wk = np.quantile(frame["w"], Z_QUANTILES)
     f = frame.assign(lvl=np.where(frame["w"] >= 50, "b", "a"))
-    yv, X = patsy.dmatrices(f"y ~ {_cr('x', knots)} * C(lvl) + {_cr('z', zk)}", f,
-                            return_type="dataframe")
+    yv, X = patsy.dmatrices(f"y ~ {_cr('x', knots)} * C(lvl) + {_cr('z', zk)} + {_cr('w', wk)}",
+                            f, return_type="dataframe")
     full = sm.GLM(yv, X, family=sm.families.Binomial()).fit(tol=1e-12)
     di = X.design_info
     for row in rows.itertuples():

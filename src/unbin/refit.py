@@ -132,12 +132,19 @@ def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> 
     """Adjustment variables as the legacy analysis had them (grouped where a grouping is declared,
     otherwise as they are) or continuously (numeric variables as restricted cubic splines). The
     effect modifier ``by`` enters last, as the factor of its levels in both codings
-    (:func:`unbin.modifier.modifier_term`)."""
+    (:func:`unbin.modifier.modifier_term`); a grouped numeric modifier also enters as its spline
+    in the continuous coding, and never twice when it is an adjuster too."""
     terms: list[Term] = []
     by = modifier_term(df, a, spec)
-    for v in [*a.adjust, *([a.by] if a.by and by is None else [])]:
+    for v in dict.fromkeys([*a.adjust, *([a.by] if a.by else [])]):
         info = spec.variables.get(v)
         declared = info.type if info else None
+        if v == a.by and by is not None:
+            # The modifier's factor enters below. Continuously adjusted, a grouped numeric
+            # modifier also enters as its own spline, as any numeric adjuster does: the levels
+            # then carry the step at the cuts, the spline the trend within them.
+            if coding == "legacy" or not isinstance(by, GroupedTerm):
+                continue
         if v in spec.groupings and declared != "categorical":
             x = df[v].to_numpy(float)
             if coding == "legacy":
