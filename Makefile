@@ -31,6 +31,7 @@ lint: $(STAMP)
 # `make mutation MUTANTS='unbin.contrasts*'`. Survivors: `$(BIN)/mutmut results`.
 MUTANTS ?=
 mutation: $(STAMP)
+	$(BIN)/python -m pip install --quiet -c constraints.txt -e '.[dev,mutation]'
 	$(BIN)/mutmut run --max-children 2 $(MUTANTS)
 	$(BIN)/mutmut results
 
