@@ -1,0 +1,1 @@
+"""The questions: one module per table, each a builder (refit, spec) -> DataFrame."""
