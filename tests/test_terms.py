@@ -14,7 +14,7 @@ from scipy import stats
 
 from unbin.data import resolve_cuts
 from unbin.models import Outcome, fit
-from unbin.refit import Refit
+from unbin.refit.analysis import Refit
 from unbin.spec import Grouping
 from unbin.terms import (
     FP_POWERS,

@@ -13,9 +13,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from unbin.bundles import BUNDLE_TABLES
+from unbin.consortium.bundles import BUNDLE_TABLES
 from unbin.demo import COHORTS, true_loghr_egfr, true_logodds_sodium
-from unbin.tables import read_provenance, read_table
+from unbin.results.tables import read_provenance, read_table
 
 pytestmark = pytest.mark.workflow
 

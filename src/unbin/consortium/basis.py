@@ -25,9 +25,9 @@ from typing import Any
 
 import numpy as np
 
-from .spec import ContinuousOptions
-from .terms import GroupedTerm, default_knots
-from .terms.spline import KNOT_QUANTILES
+from ..spec import ContinuousOptions
+from ..terms import GroupedTerm, default_knots
+from ..terms.spline import KNOT_QUANTILES
 
 
 @dataclass(frozen=True)

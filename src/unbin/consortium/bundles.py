@@ -17,8 +17,8 @@ import numpy as np
 import pandas as pd
 
 if TYPE_CHECKING:
-    from .refit import Refit
-    from .spec import Spec
+    from ..refit.analysis import Refit
+    from ..spec import Spec
 
 BUNDLE_TABLES = ("curves", "coefficients", "contrasts", "counts", "cuts")
 POOLED_TABLES = ("pooled_curves", "pooled_effects", "heterogeneity", "harmonisation")
@@ -51,18 +51,18 @@ COMMON_QUARTILES = "common Q3 vs Q1"
 
 def common_contrasts_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     """Each continuous form's contrasts at the common exposure values of the common basis
-    (``unbin.common``), so that every cohort estimates the same quantity and the contrasts
+    (``unbin.consortium.basis``), so that every cohort estimates the same quantity and the contrasts
     pool: the common upper vs lower quartile (``contrast_type`` "common quartiles") and each
     legacy group's common median vs the common reference value ("common group"). NaN where a
     form is not defined at a value (a fractional polynomial below its origin)."""
-    from .contrasts import contrast
+    from ..refit.contrasts import contrast
 
     basis = r.basis
     cols = ["adjustment", "form", "contrast_type", "contrast", "x_value", "x_reference",
             "estimate", "se", "scale"]
     if basis is None:
         return pd.DataFrame(columns=cols)
-    from .models import EFFECT_SCALE
+    from ..models import EFFECT_SCALE
 
     q1, q3 = basis.contrast_quartiles()
     points = [("common quartiles", COMMON_QUARTILES, q3, q1)]

@@ -30,11 +30,11 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..errors import UnbinError
+from ..refit.contrasts import Z95
+from ..terms import SplineTerm
 from .bundles import coefficient_arrays
-from .contrasts import Z95
-from .errors import UnbinError
-from .pooling import pool_multivariate, pool_pointwise, pool_univariate, pooled_curve
-from .terms import SplineTerm
+from .meta_analysis import pool_multivariate, pool_pointwise, pool_univariate, pooled_curve
 
 RATIO_SCALES = {"odds ratio", "hazard ratio", "rate ratio"}
 # Contrast types whose exposure values are the same in every cohort (see the module docstring).

@@ -10,9 +10,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import DataError
-from .spec import Analysis, Grouping, Spec
-from .terms.grouped import GroupedTerm
+from ..errors import DataError
+from ..spec import Analysis, Grouping, Spec
+from ..terms.grouped import GroupedTerm
 
 READERS = (".csv", ".parquet", ".pq", ".dta", ".sas7bdat")
 MAX_CATEGORICAL_LEVELS = 5  # a numeric column with this many distinct values or fewer is a factor

@@ -7,7 +7,7 @@ a reference to it (so that the identity cannot pass to another array while the e
 linear predictors are never changed in place. For survival, Harrell's C compares only pairs
 within a stratum in which the longer-lived row was at risk at the earlier event time (entry
 before it); the time order and the tie and delayed-entry bookkeeping depend on (time, event,
-entry, strata) only and are kept there too (``unbin.cox.concordance_order``), with references
+entry, strata) only and are kept there too (``unbin.models.cox.concordance_order``), with references
 to the arrays they were made from, so that they serve only the same arrays."""
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from .models.base import Outcome
+from .base import Outcome
 
 
 def auc(y: np.ndarray, score: np.ndarray) -> float:

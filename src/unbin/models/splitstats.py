@@ -1,4 +1,4 @@
-"""The split statistics behind the cut-point audit (``unbin.cutpoints``), vectorised over
+"""The split statistics behind the cut-point audit (``unbin.questions.cutpoints``), vectorised over
 candidate cuts: the survival layout of the (stratified, delayed-entry) log-rank statistic, the
 score statistic of a split adjusted for the analysis's adjustment variables with draws from its
 asymptotic null (``AdjustedScore.simulate_max``), and the corrected p-values of a maximally
@@ -45,8 +45,8 @@ from typing import Any
 import numpy as np
 from scipy import linalg, special, stats
 
-from .models import fit
-from .models.base import Outcome
+from . import fit
+from .base import Outcome
 
 _CHUNK_CELLS = 4_000_000  # candidates x event times of one block (about 32 MB of float64)
 

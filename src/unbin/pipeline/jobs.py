@@ -17,9 +17,9 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from .bundles import BUNDLE_TABLES, POOLED_TABLES
-from .common import CommonBasis, combine, sample_summary
-from .data import (
+from ..consortium.basis import CommonBasis, combine, sample_summary
+from ..consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
+from ..data import (
     _type_problems,
     analysis_sample,
     extract_rows,
@@ -27,20 +27,22 @@ from .data import (
     legacy_term,
     read_extract,
 )
-from .errors import DataError, UnbinError
-from .provenance import provenance
-from .spec import Spec, digest, load_spec
-from .tables import read_table, write_table
+from ..errors import DataError, UnbinError
+from ..questions import QUESTION_TABLES, RESAMPLING_TABLES
+from ..results.provenance import provenance
+from ..results.tables import read_table, write_table
+from ..spec import Spec, digest, load_spec
 
 if TYPE_CHECKING:
-    from .refit import Refit
+    from ..refit.analysis import Refit
 
 # The statistics modules are imported when a job needs them: light jobs (summaries, bundles,
 # pooling, collecting) then start without scipy.stats, statsmodels and friends.
 
 
 def _builder(target: str) -> Callable[[Refit, Spec], pd.DataFrame]:
-    """``module:function`` -> the table builder; every builder takes (refit, spec)."""
+    """``package.module:function`` (under ``unbin``) -> the table builder; every builder takes
+    (refit, spec)."""
     module, name = target.split(":")
     fn: Callable[[Refit, Spec], pd.DataFrame] = getattr(
         importlib.import_module(f"unbin.{module}"), name)
@@ -49,27 +51,6 @@ def _builder(target: str) -> Callable[[Refit, Spec], pd.DataFrame]:
 
 log = logging.getLogger("unbin")
 
-# Tables every (cohort, analysis) fit job writes, and the builder of each from the refit.
-QUESTION_TABLES: dict[str, str] = {
-    "fits": "fits:fits_table",
-    "information": "information:information_table",
-    "effects": "effects:effects_table",
-    "curves": "curves:curves_table",
-    "density": "curves:density_table",
-    "coefficients": "bundles:coefficients_table",
-    "common_contrasts": "bundles:common_contrasts_table",
-    "ranges": "ranges:ranges_table",
-    "replication": "replication:replication_table",
-    "thresholds": "decisions:thresholds_table",
-    "net_benefit": "decisions:net_benefit_table",
-}
-# Questions whose cost is resampling (bootstrap, permutations): a workflow job of their own per
-# (cohort, analysis), so they spread over cores or a cluster beside the fits. They need the
-# analysis sample only, not the refit's fits.
-RESAMPLING_TABLES: dict[str, str] = {
-    "confounding": "confounding:confounding_table",
-    "cutpoints": "cutpoints:cutpoints_table",
-}
 FIT_JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "status")
 JOB_TABLES: tuple[str, ...] = (*FIT_JOB_TABLES, *RESAMPLING_TABLES)
 STUDY_TABLES = JOB_TABLES
@@ -127,7 +108,7 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                                 f"sample: {event!r} is {1 if events else 0} in all {sample.n} "
                                 "rows; there is no contrast to estimate. Check the outcome "
                                 "coding and the filters.")
-        from .refit import refit_analysis
+        from ..refit.analysis import refit_analysis
 
         refit = refit_analysis(sample, a, spec, cohort, basis)
         failed = [f"{f.form}/{f.adjustment}: {f.result.message}" for f in refit.fits
@@ -268,7 +249,7 @@ def bundle_job(spec_path: str | Path, cohort: str, work: str | Path,
         tables[name] = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
             columns=["cohort", "analysis", "form", "adjustment", "contrast", "events",
                      "row_type", "n_used", "status"])
-    from .bundles import bundle_problems, make_bundle
+    from ..consortium.bundles import bundle_problems, make_bundle
 
     bundle = make_bundle(tables, spec.min_cell)
     rec = input_record(spec, cohort)
@@ -290,7 +271,7 @@ def read_bundle(bundle_dir: str | Path) -> tuple[dict[str, pd.DataFrame], dict[s
     if missing:
         raise DataError(f"{str(d)!r} is not a complete unbin bundle: {missing} missing; pass the "
                         "folders under <out>/bundles/ of a finished run.")
-    from .tables import read_provenance
+    from ..results.tables import read_provenance
 
     return ({n: read_table(d / f"{n}.parquet") for n in BUNDLE_TABLES},
             read_provenance(d / "curves.parquet"))
@@ -307,7 +288,7 @@ def pool_job(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
             raise DataError(f"two bundles are for cohort {name!r}; pass each cohort once.")
         bundles[name] = bundle
         provs.append(prov)
-    from .pooled import pool_bundles
+    from ..consortium.pool import pool_bundles
 
     pooled = pool_bundles(dict(sorted(bundles.items())))  # the same tables in any order
     inputs = [i for p in provs for i in p.get("inputs", [])]
@@ -326,9 +307,15 @@ def pool_job(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
 
 
 def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.DataFrame:
-    """What changed between two result folders (see ``unbin.compare``)."""
-    from .compare import COMPARED, compare_commits, compare_provenance, compare_tables, run_record
-    from .tables import read_provenance
+    """What changed between two result folders (see ``unbin.results.compare``)."""
+    from ..results.compare import (
+        COMPARED,
+        compare_commits,
+        compare_provenance,
+        compare_tables,
+        run_record,
+    )
+    from ..results.tables import read_provenance
 
     def tables(root: Path) -> dict[str, pd.DataFrame]:
         names = [*COMPARED, "status"]
@@ -369,7 +356,7 @@ def resample_job(spec_path: str | Path, cohort: str, analysis: str, outdir: str 
         sample = analysis_sample(frame, a, spec)
         if sample.n < 10:
             raise DataError("too few rows")
-        from .refit import bare_refit
+        from ..refit.analysis import bare_refit
 
         r = bare_refit(sample, a, spec, cohort)
         for name, target in RESAMPLING_TABLES.items():

@@ -17,8 +17,8 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from .errors import UnbinError
-from .workflow_support import snakefile
+from ..errors import UnbinError
+from ..workflow_support import snakefile
 
 PROGRESS = re.compile(r"(\d+) of (\d+) steps \((\d+(?:\.\d+)?)%\) done")
 PROFILES = ("local", "slurm")
@@ -104,8 +104,8 @@ def run_manifest(out: Path, spec: Path, cores: int, profile: str | None, started
                  ended: float, returncode: int) -> dict[str, Any]:
     """The run manifest (``out/run.json``): versions, the spec's digest, per-rule timings from
     Snakemake's benchmark files, start and end times. Times live here, never in the results."""
-    from .provenance import versions
-    from .spec import digest, read_yaml
+    from ..results.provenance import versions
+    from ..spec import digest, read_yaml
 
     rules: dict[str, dict[str, Any]] = {}
     for tsv in sorted((out / "benchmarks").glob("*/**/*.tsv")):

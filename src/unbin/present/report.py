@@ -26,12 +26,12 @@ from typing import Any
 import pandas as pd
 import yaml
 
-from . import __version__
-from .data import file_sha256
-from .errors import UnbinError
+from .. import __version__
+from ..data import file_sha256
+from ..errors import UnbinError
+from ..results.tables import read_provenance
+from ..spec import Spec, digest, load_spec
 from .figures import Context, FigureFile, draw_figures, finite, group_dir, load_tables, read_index
-from .spec import Spec, digest, load_spec
-from .tables import read_provenance
 
 log = logging.getLogger(__name__)
 
@@ -293,13 +293,13 @@ class Builder:
             df = self.ctx.table(name)
             if df.empty:
                 continue
-            mod = importlib.import_module(f"unbin.{name}")
+            mod = importlib.import_module(f"unbin.questions.{name}")
             fn = getattr(mod, "summary_line", None)
             if fn is not None:
                 lines.append(str(fn(df)))
         th, nb = self.ctx.table("thresholds"), self.ctx.table("net_benefit")
         if len(th) or len(nb):
-            mod = importlib.import_module("unbin.decisions")
+            mod = importlib.import_module("unbin.questions.decisions")
             fn2 = getattr(mod, "summary_lines", None)
             if fn2 is not None:
                 lines += [str(x) for x in fn2(th, nb)]

@@ -9,7 +9,7 @@ import pandas as pd
 from rich.console import Console
 from rich.table import Table
 
-from .tables import read_table
+from ..results.tables import read_table
 
 
 def _fmt(v: object, digits: int = 1) -> str:
@@ -53,14 +53,14 @@ def information_summary(out: Path) -> Table:
 
 def question_lines(out: Path) -> list[str]:
     """One line per "what the grouping cost" question whose table exists."""
-    from . import confounding, cutpoints, ranges, replication
+    from ..questions import confounding, cutpoints, ranges, replication
 
     lines = []
     for mod in (ranges, confounding, cutpoints, replication):
         path = out / "tables" / f"{mod.TABLE}.parquet"
         if path.is_file():
             lines.append(mod.summary_line(read_table(path)))
-    from .decisions import TABLES, summary_lines
+    from ..questions.decisions import TABLES, summary_lines
 
     paths = [out / "tables" / f"{name}.parquet" for name in TABLES]
     if all(p.is_file() for p in paths):

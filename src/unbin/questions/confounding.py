@@ -22,7 +22,7 @@ Scales (``scale_kind``). Odds and hazard ratios are not collapsible: adjusting f
 the outcome moves them even when it is independent of the exposure, so a change-in-estimate on
 the model scale mixes confounding with non-collapsibility (Greenland, Robins & Pearl 1999, Stat
 Sci 14:29). The ``"marginal"`` rows (``primary`` marks the default one) therefore compare
-standardised (g-computation) contrasts, ``unbin.standardise``: each model's predictions with
+standardised (g-computation) contrasts, ``unbin.refit.standardise``: each model's predictions with
 every row's exposure set to the comparison and to the reference value, averaged over the sample
 — risk ratio (log scale in ``estimate_*``) and risk difference (binary; survival: the risk by
 the analysis' ``horizon`` from the Cox model's standardised survival, Breslow baseline), rate
@@ -37,7 +37,7 @@ change-in-estimate, ``confounding = e_crude - e_continuous``, into
     change_noncollapsibility = m_continuous - e_continuous,
 
 where ``m_continuous`` is the continuously adjusted model's marginal contrast mapped to the model
-scale (``unbin.standardise.on_model_scale``: the log odds ratio of the standardised risks; for
+scale (``unbin.refit.standardise.on_model_scale``: the log odds ratio of the standardised risks; for
 survival the log ratio of the standardised cumulative hazards at the horizon; the log rate ratio
 or the mean difference, which equal the conditional ones, so the non-collapsibility part is 0
 for counts and linear models). The crude model's contrast is its own marginal one (except with
@@ -47,7 +47,7 @@ Bootstrap. Intervals are percentiles over ``resampling.bootstrap`` case-resampli
 drawn once and shared by every model, so all estimates of a replicate come from the same
 resampled data; groupings, knots and contrast values stay as in the full sample. A replicate is
 refitted by Newton's method from the full-sample estimate on frequency weights — vectorised over
-replicates for the linear, logistic and Poisson models; for survival ``unbin.cox.fit_cox`` on the
+replicates for the linear, logistic and Poisson models; for survival ``unbin.models.cox.fit_cox`` on the
 resampled rows, whose sort and risk sets are laid out once per replicate for all designs — and
 its standardised means come from the refitted coefficients by matrix products (survival: the
 replicate's own Breslow baseline). A replicate fails for a row (counted in ``bootstrap_failed``,
@@ -67,16 +67,16 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from .contrasts import Z95
-from .models import EFFECT_SCALE, Outcome, fit
-from .models._glm import gram, standardise
-from .models.base import FitResult
-from .models.survival import cox_layout
-from .refit import Refit, adjustment_terms, design
-from .risk import horizon_for
-from .spec import Spec
-from .standardise import MEASURES, contrast, cox_risks, glm_means, on_model_scale
-from .terms import GroupedTerm, LinearTerm, Term
+from ..models import EFFECT_SCALE, Outcome, fit
+from ..models._glm import gram, standardise
+from ..models.base import FitResult
+from ..models.survival import cox_layout
+from ..refit.analysis import Refit, adjustment_terms, design
+from ..refit.contrasts import Z95
+from ..refit.risk import horizon_for
+from ..refit.standardise import MEASURES, contrast, cox_risks, glm_means, on_model_scale
+from ..spec import Spec
+from ..terms import GroupedTerm, LinearTerm, Term
 
 TABLE = "confounding"
 _CHUNK_CELLS = 4_000_000
@@ -238,7 +238,7 @@ OnCoxFit = Callable[[int, int, np.ndarray, np.ndarray, Any, np.ndarray], None]
 
 def weighted_cox(X: np.ndarray, outcome: Outcome, W: np.ndarray,
                  start: np.ndarray | None = None) -> np.ndarray:
-    """Cox coefficients for each row of frequency weights ``W``, fitted by ``unbin.cox.fit_cox``
+    """Cox coefficients for each row of frequency weights ``W``, fitted by ``unbin.models.cox.fit_cox``
     (Efron ties) started at ``start`` on the rows repeated as often as drawn — not on case
     weights, because Efron's tie correction counts a repeated row as several tied events but a
     weighted row as one; NaN where a fit fails. One design of :func:`weighted_cox_designs`."""
@@ -250,12 +250,12 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
                          on_fit: OnCoxFit | None = None) -> list[np.ndarray]:
     """:func:`weighted_cox` for several designs ``(X, start)`` of the same rows at once: the
     designs share the replicates, so each replicate's repeated rows and their Cox layout (the
-    sort and the risk sets, ``unbin.cox.prepare_layout``) are made once and every design is
+    sort and the risk sets, ``unbin.models.cox.prepare_layout``) are made once and every design is
     fitted on them. A design with a start is refitted by chord steps from it
-    (``unbin.cox.refit_near``), falling back to ``fit_cox`` when those do not settle.
+    (``unbin.models.cox.refit_near``), falling back to ``fit_cox`` when those do not settle.
     ``on_fit(b, j, Xm, m, layout, coef)`` is called after each successful fit of design ``j``
     in replicate ``b`` (``m`` the repeated row indices, ``Xm`` their design rows)."""
-    from .cox import fit_cox, prepare_layout, refit_near
+    from ..models.cox import fit_cox, prepare_layout, refit_near
 
     assert outcome.time is not None
     Xs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X, _ in designs]

@@ -2,7 +2,7 @@
 median of the legacy reference group, for every form and adjustment coding, with pointwise 95%
 intervals; and the binned distribution of the exposure for the rug, small cells suppressed.
 
-Across cohorts the grid and the reference value come from the common basis (``unbin.common``),
+Across cohorts the grid and the reference value come from the common basis (``unbin.consortium.basis``),
 so that every cohort's curve is on the same grid relative to the same value; ``in_range`` marks
 grid points inside this cohort's own 1st–99th percentile range."""
 
@@ -11,11 +11,11 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .contrasts import contrast, domain, with_interval
-from .interaction import SPLINE, level_models, level_reference
-from .models import EFFECT_SCALE
-from .refit import Refit
-from .spec import Spec
+from ..models import EFFECT_SCALE
+from ..refit.analysis import Refit
+from ..refit.contrasts import contrast, domain, with_interval
+from ..refit.interaction import SPLINE, level_models, level_reference
+from ..spec import Spec
 
 FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
 DENSITY_BINS = 40
@@ -54,7 +54,7 @@ def curves_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
 
 
 def _level_curves(r: Refit, xs: np.ndarray) -> list[pd.DataFrame]:
-    """Per-level curves of the spline x level interaction model (unbin.interaction), each level
+    """Per-level curves of the spline x level interaction model (unbin.refit.interaction), each level
     relative to its own reference value (the median of the legacy reference group within the
     level); ``in_range`` marks the level's own 1st-99th percentile range."""
     lm = level_models(r)

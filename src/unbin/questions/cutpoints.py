@@ -35,7 +35,7 @@ sorted exposure:
 
 When the analysis adjusts for other variables (``adjust``, ``by``), the statistic is the score
 chi-square of the split added to the adjusted null model — those variables in their legacy
-coding, and the strata for Cox (Breslow ties) — fitted once (``unbin.splitstats``); the table's
+coding, and the strata for Cox (Breslow ties) — fitted once (``unbin.models.splitstats``); the table's
 ``statistic_name`` and ``adjusted_for`` say which. A permutation of the exposure would also
 break its association with the adjusters (the null it simulates is "exposure independent of
 outcome and adjusters", not "no association given the adjusters"), so under adjustment there is
@@ -64,11 +64,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .confounding import resample_weights
-from .models.base import Outcome
-from .refit import Refit, adjustment_terms, design, legacy_term
-from .spec import Spec
-from .splitstats import (  # noqa: F401  (the corrected p-values are part of this API)
+from ..models.base import Outcome
+from ..models.splitstats import (  # noqa: F401  (the corrected p-values are part of this API)
     ALTMAN_COEFFICIENTS,
     AdjustedScore,
     NullModelFailed,
@@ -76,8 +73,11 @@ from .splitstats import (  # noqa: F401  (the corrected p-values are part of thi
     p_altman,
     p_lausen,
 )
-from .splitstats import SurvivalLayout as _SurvivalLayout
-from .terms import GroupedTerm
+from ..models.splitstats import SurvivalLayout as _SurvivalLayout
+from ..refit.analysis import Refit, adjustment_terms, design, legacy_term
+from ..spec import Spec
+from ..terms import GroupedTerm
+from .confounding import resample_weights
 
 TABLE = "cutpoints"
 MAX_CANDIDATES = 500

@@ -7,7 +7,7 @@ Two tables per analysis, each row carrying the same ``caution`` sentence (:data:
 for count and continuous outcomes, which need their own list), every fitted curve (linear, spline
 and fractional polynomial with continuous adjustment; with an effect modifier ``by`` also the
 spline x level interaction model) and every level of ``by``: the exposure values at which the
-predicted risk (:mod:`unbin.risk`) crosses the threshold, within the level's observed exposure
+predicted risk (:mod:`unbin.refit.risk`) crosses the threshold, within the level's observed exposure
 range, with the rest of the linear predictor (everything but the exposure: intercept or log
 baseline hazard, adjustment, the level's main effect) held at its 10th, 50th and 90th percentile
 among the level's rows — the cut a risk rule implies moves with the patient's other risk
@@ -17,7 +17,7 @@ rounding; every crossing of a non-monotone curve is reported (``crossing`` 1, 2,
 that stays on one side is reported once with ``position`` "always above"/"always below". A
 crossing between two grid points that touches the threshold without crossing it is not found.
 Each value is compared with the nearest legacy cut. The interaction model
-(:mod:`unbin.interaction`: a spline with knots fixed before the outcome is seen, the level main
+(:mod:`unbin.refit.interaction`: a spline with knots fixed before the outcome is seen, the level main
 effects in the model and in the one it is tested against) and its likelihood-ratio test against
 the same spline without interaction (same continuous adjustment) are on every row
 (``lr_interaction``, ``df_interaction``, ``p_interaction``).
@@ -45,12 +45,12 @@ import numpy as np
 import pandas as pd
 from scipy import optimize
 
-from .interaction import SPLINE, level_models
-from .modifier import Levels
-from .refit import Refit
-from .risk import RiskFit, RiskScale, from_result, link, risk_fit, risk_scale
-from .spec import Analysis, Spec
-from .terms import GroupedTerm
+from ..refit.analysis import Refit
+from ..refit.interaction import SPLINE, level_models
+from ..refit.modifier import Levels
+from ..refit.risk import RiskFit, RiskScale, from_result, link, risk_fit, risk_scale
+from ..spec import Analysis, Spec
+from ..terms import GroupedTerm
 
 TABLES = ("thresholds", "net_benefit")
 CAUTION = ("These numbers support statistical re-analysis; clinical decisions follow local "
@@ -75,7 +75,7 @@ def thresholds_for(a: Analysis, spec: Spec) -> tuple[float, ...]:
 
 
 def modifier_levels(r: Refit, spec: Spec | None = None) -> Levels:
-    """The levels of the effect modifier (unbin.modifier), as the refit's models enter it."""
+    """The levels of the effect modifier (unbin.refit.modifier), as the refit's models enter it."""
     return level_models(r).levels
 
 
@@ -90,7 +90,7 @@ class InteractionTest:
 
 def interaction_model(r: Refit, levels: Levels,
                       scale: RiskScale) -> tuple[RiskFit | None, InteractionTest]:
-    """The spline x level model with continuous adjustment (unbin.interaction: fixed knots, the
+    """The spline x level model with continuous adjustment (unbin.refit.interaction: fixed knots, the
     level main effects in it and in the model it is tested against) on the risk scale, and its
     LR test."""
     if not levels.active:

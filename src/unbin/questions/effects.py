@@ -15,11 +15,11 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .contrasts import contrast, with_interval
-from .interaction import LEGACY, SPLINE, level_models, level_reference
-from .models import EFFECT_SCALE
-from .refit import Refit
-from .spec import Spec
+from ..models import EFFECT_SCALE
+from ..refit.analysis import Refit
+from ..refit.contrasts import contrast, with_interval
+from ..refit.interaction import LEGACY, SPLINE, level_models, level_reference
+from ..spec import Spec
 
 FORMS = ("legacy", "linear", "spline", "fp")
 
@@ -107,7 +107,7 @@ def _level_effects(r: Refit) -> list[dict[str, object]]:
     """Group contrasts within each level of ``by``: from the spline x level model (between the
     group's and the reference group's medians within the level, with the spline's spread inside
     the group) and from the legacy groups x level model (each group vs the reference group within
-    the level: the legacy analysis' own subgroup contrasts). unbin.interaction."""
+    the level: the legacy analysis' own subgroup contrasts). unbin.refit.interaction."""
     lm = level_models(r)
     term = r.legacy
     labels, ref = term.labels, term.reference

@@ -7,9 +7,9 @@ import json
 import numpy as np
 import pandas as pd
 
-from .discrimination import c_index
-from .refit import Refit
-from .spec import Spec
+from ..models.discrimination import c_index
+from ..refit.analysis import Refit
+from ..spec import Spec
 
 
 def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:

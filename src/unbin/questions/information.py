@@ -15,7 +15,7 @@ AIC-chosen denominator would bias the share the same way. ``lr_spline`` and ``ai
 remain those of the AIC-chosen (drawn) spline.
 
 With an effect modifier ``by`` that has levels, the LR test of the exposure x level interaction
-(unbin.interaction: fixed-knot spline, the level main effects in both models) is on the legacy
+(unbin.refit.interaction: fixed-knot spline, the level main effects in both models) is on the legacy
 and continuous rows."""
 
 from __future__ import annotations
@@ -24,10 +24,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .discrimination import c_index
-from .interaction import SPLINE, level_models
-from .refit import FormFit, Refit
-from .spec import Spec
+from ..models.discrimination import c_index
+from ..refit.analysis import FormFit, Refit
+from ..refit.interaction import SPLINE, level_models
+from ..spec import Spec
 
 
 def _lr(a: float, b: float) -> float:
@@ -101,7 +101,7 @@ def information_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
 
 
 def _interaction(r: Refit, coding: str) -> dict[str, object]:
-    """The spline x level interaction test of this coding (unbin.interaction): the fixed-knot
+    """The spline x level interaction test of this coding (unbin.refit.interaction): the fixed-knot
     spline with and without its level interactions, both with the level main effects."""
     lm = level_models(r)
     m = lm.get(SPLINE, coding)

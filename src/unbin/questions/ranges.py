@@ -36,11 +36,11 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .contrasts import contrast, with_interval
-from .models import EFFECT_SCALE, fit
-from .refit import FormFit, Refit, adjustment_terms, design, legacy_term
-from .spec import Spec
-from .terms import LinearTerm, SplineTerm, Term
+from ..models import EFFECT_SCALE, fit
+from ..refit.analysis import FormFit, Refit, adjustment_terms, design, legacy_term
+from ..refit.contrasts import contrast, with_interval
+from ..spec import Spec
+from ..terms import LinearTerm, SplineTerm, Term
 
 TABLE = "ranges"
 TRIM_SHARES = (0.05, 0.10, 0.20)

@@ -27,10 +27,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .contrasts import Z95, contrast
-from .models import EFFECT_SCALE, RATIO_FAMILIES
-from .refit import Refit
-from .spec import Spec
+from ..models import EFFECT_SCALE, RATIO_FAMILIES
+from ..refit.analysis import Refit
+from ..refit.contrasts import Z95, contrast
+from ..spec import Spec
 
 TABLE = "replication"
 SE_RATIO_TOLERANCE = 1.5

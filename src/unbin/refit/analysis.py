@@ -20,13 +20,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .common import CommonBasis, combine, sample_summary
-from .data import Sample, is_categorical, legacy_term
-from .models import Outcome, fit
-from .models.base import FitResult, failed_fit
-from .modifier import modifier_term
-from .spec import Analysis, Spec
-from .terms import (
+from ..consortium.basis import CommonBasis, combine, sample_summary
+from ..data import Sample, is_categorical, legacy_term
+from ..models import Outcome, fit
+from ..models.base import FitResult, failed_fit
+from ..spec import Analysis, Spec
+from ..terms import (
     CategoricalTerm,
     FPTerm,
     GroupedTerm,
@@ -35,7 +34,8 @@ from .terms import (
     Term,
     default_knots,
 )
-from .terms.fp import FP1_SET, FP2_SET
+from ..terms.fp import FP1_SET, FP2_SET
+from .modifier import modifier_term
 
 ADJUSTMENTS = ("legacy", "continuous")
 EPV_MIN = 10  # events per estimated coefficient (Peduzzi et al. 1996; common practice)
@@ -132,7 +132,7 @@ def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> 
     """Adjustment variables as the legacy analysis had them (grouped where a grouping is declared,
     otherwise as they are) or continuously (numeric variables as restricted cubic splines). The
     effect modifier ``by`` enters last, as the factor of its levels in both codings
-    (:func:`unbin.modifier.modifier_term`); a grouped numeric modifier also enters as its spline
+    (:func:`unbin.refit.modifier.modifier_term`); a grouped numeric modifier also enters as its spline
     in the continuous coding, and never twice when it is an adjuster too."""
     terms: list[Term] = []
     by = modifier_term(df, a, spec)

@@ -11,8 +11,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .models import RATIO_FAMILIES
-from .refit import FormFit
+from ..models import RATIO_FAMILIES
+from .analysis import FormFit
 
 Z95 = float(stats.norm.ppf(0.975))
 

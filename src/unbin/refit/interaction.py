@@ -1,7 +1,7 @@
 """Effect modification: the exposure's association per level of the analysis' ``by`` variable.
 
 For each adjustment coding (legacy, continuous) two interaction models, each beside its
-main-effects model; BOTH hold the level main effects (the factor of :mod:`unbin.modifier`, part
+main-effects model; BOTH hold the level main effects (the factor of :mod:`unbin.refit.modifier`, part
 of the coding's adjustment terms), so the interaction test compares like with like:
 
 - ``spline x level``: a restricted cubic spline of the exposure with knots FIXED before the
@@ -26,11 +26,11 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
-from .models import fit
-from .models.base import FitResult, failed_fit
+from ..models import fit
+from ..models.base import FitResult, failed_fit
+from ..terms import GroupedTerm, SplineTerm, Term
+from .analysis import Refit, design
 from .modifier import Levels, levels_from_terms
-from .refit import Refit, design
-from .terms import GroupedTerm, SplineTerm, Term
 
 INTERACTION_KNOTS = 4  # fixed count for the interaction test's spline (default quantiles)
 CODINGS = ("legacy", "continuous")

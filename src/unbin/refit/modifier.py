@@ -8,7 +8,7 @@
 
 The level factor (:func:`modifier_term`) enters every adjusted model of the analysis, under the
 legacy and the continuous adjustment coding alike; the interaction models
-(:mod:`unbin.interaction`) read the same levels back from it (:func:`levels_from_terms`).
+(:mod:`unbin.refit.interaction`) read the same levels back from it (:func:`levels_from_terms`).
 """
 
 from __future__ import annotations
@@ -20,9 +20,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .data import is_categorical, legacy_term
-from .spec import Analysis, Spec
-from .terms import CategoricalTerm, GroupedTerm
+from ..data import is_categorical, legacy_term
+from ..spec import Analysis, Spec
+from ..terms import CategoricalTerm, GroupedTerm
 
 LevelTerm = GroupedTerm | CategoricalTerm
 

@@ -5,7 +5,7 @@ Every family's prediction is an inverse link of one linear predictor ``z``:
 - binary: the probability of the event, ``expit(z)`` with ``z = intercept + X b``;
 - survival: the risk of the event by the horizon, ``1 - exp(-H0_s(h) exp(X b))``, i.e.
   ``1 - exp(-exp(z))`` with ``z = log H0_s(h) + X b`` (Breslow baseline of the row's stratum
-  ``s`` from :func:`unbin.cox.baseline_cumhaz`, read as a step function at the horizon ``h``);
+  ``s`` from :func:`unbin.models.cox.baseline_cumhaz`, read as a step function at the horizon ``h``);
 - count: the expected number of events per one unit of person-time, ``exp(z)`` with
   ``z = intercept + X b`` (the log person-time offset left out);
 - continuous: the predicted mean, ``z`` itself (a "threshold" is then one on the mean).
@@ -25,11 +25,11 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from .cox import baseline_cumhaz
-from .models.base import FitResult
-from .models.survival import cox_layout
-from .refit import FormFit, Refit
-from .spec import Analysis, Spec
+from ..models.base import FitResult
+from ..models.cox import baseline_cumhaz
+from ..models.survival import cox_layout
+from ..spec import Analysis, Spec
+from .analysis import FormFit, Refit
 
 # An exposure curve: the exposure's part of the linear predictor at exposure values ``x`` for the
 # rows of one level (code) of the effect modifier; curves without a modifier ignore the level.

@@ -15,7 +15,7 @@ sample itself, resampling counts for a bootstrap replicate):
   of person-time expected with every row's own follow-up;
 - survival: ``R(v) = 1 - sum_i w_i exp(-H0_s(h) exp(rest_i + e(v)'b)) / sum_i w_i``, one
   minus the standardised survival at the horizon ``h``, with the Breslow baseline cumulative
-  hazard ``H0_s`` of the row's stratum ``s`` (``unbin.cox.baseline_cumhaz``, a step function,
+  hazard ``H0_s`` of the row's stratum ``s`` (``unbin.models.cox.baseline_cumhaz``, a step function,
   held at its last value past the stratum's last event time).
 
 The contrasts of two standardised means (:data:`MEASURES`) are collapsible: with no confounding
@@ -37,7 +37,7 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
-from .cox import Layout, baseline_cumhaz
+from ..models.cox import Layout, baseline_cumhaz
 
 # The marginal contrasts reported per family: (name, kind); "ratio" contrasts are taken on the
 # log scale (log R1 - log R0), "difference" ones as R1 - R0.
@@ -108,7 +108,7 @@ def glm_means(family: str, X: np.ndarray, k: int, coef: np.ndarray, at: Sequence
 
 def cumhaz_at(base: pd.DataFrame, strata: np.ndarray | None, n: int,
               horizon: float) -> tuple[np.ndarray, list[str], list[str]]:
-    """H0_s(horizon) for each of ``n`` rows from a :func:`unbin.cox.baseline_cumhaz` table
+    """H0_s(horizon) for each of ``n`` rows from a :func:`unbin.models.cox.baseline_cumhaz` table
     (step function; 0 before the stratum's first event time, held at its last value past the
     last one), with the strata whose baseline is held and those with no event by the horizon."""
     h0 = np.zeros(n)
@@ -132,7 +132,7 @@ def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
     """Standardised risks by ``horizon`` (module docstring) of the Cox model with coefficients
     ``coef`` (no intercept) on the rows given (a replicate's rows repeated as drawn), at each
     exposure basis row in ``at``; the baseline is Breslow's on the same rows (``layout`` as
-    for :func:`unbin.cox.baseline_cumhaz`). Returns (risks, note on the horizon)."""
+    for :func:`unbin.models.cox.baseline_cumhaz`). Returns (risks, note on the horizon)."""
     X = np.asarray(X, dtype=float)
     coef = np.asarray(coef, dtype=float)
     eta = X @ coef

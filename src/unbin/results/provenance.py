@@ -6,7 +6,7 @@ from __future__ import annotations
 from importlib import metadata
 from typing import Any
 
-from . import __version__
+from .. import __version__
 
 DEPENDENCIES = ("numpy", "pandas", "scipy", "statsmodels", "lifelines", "pyarrow", "snakemake")
 METADATA_KEY = b"unbin"

@@ -20,7 +20,7 @@ from typing import Any
 
 import yaml
 
-from .errors import SpecError
+from ..errors import SpecError
 
 FORMS = ("linear", "spline", "fp")
 DEFAULT_KNOTS = (3, 4, 5)

@@ -21,7 +21,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from ..tables import read_table
+from ...results.tables import read_table
 from .base import Context, Drawn, FigureFile, Kind, finite
 from .style import save, styled
 

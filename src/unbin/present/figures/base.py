@@ -12,7 +12,7 @@ from typing import Any
 
 import pandas as pd
 
-from ..spec import Spec
+from ...spec import Spec
 
 
 @dataclass(frozen=True)

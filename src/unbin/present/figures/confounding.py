@@ -10,7 +10,7 @@ import math
 import numpy as np
 import pandas as pd
 
-from ..contrasts import Z95
+from ...refit.contrasts import Z95
 from .base import Context, Drawn, finite
 from .style import (
     LEGACY,
