@@ -17,13 +17,8 @@ from scipy import stats
 from helpers import bare_refit as _refit
 from unbin.models.base import Outcome
 from unbin.models.cox import fit_cox
-from unbin.questions.confounding import (
-    confounding_table,
-    resample_weights,
-    weighted_cox,
-    weighted_cox_designs,
-    weighted_glm,
-)
+from unbin.models.weighted import resample_weights, weighted_cox, weighted_cox_designs, weighted_glm
+from unbin.questions.confounding import confounding_table
 
 # Cochran 1968 (Biometrics 24:295): % of the bias removed by adjusting for a normal confounder
 # cut into c equal-frequency groups (his table, reproduced by cochran_formula below)

@@ -218,7 +218,7 @@ def test_subsample_start_reaches_lifelines_fit(
     # source: lifelines CoxPHFitter (statsmodels PHReg for Breslow). Data with many events
     # start Newton's method from a fit to a subsample; the event threshold is lowered here so
     # that this path (nested: 2000 rows -> 250 -> 32) runs on small data
-    import unbin.models.cox as engine
+    import unbin.models.cox.fit as engine
 
     monkeypatch.setattr(engine, "_WARM_EVENTS", 8)
     outcomes: list[bool] = []
@@ -541,7 +541,7 @@ def test_subsample_start_with_a_prepared_layout(
     sim: pd.DataFrame, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     # the subsample start (lowered event threshold, as above) runs on the prepared layout too
-    import unbin.models.cox as engine
+    import unbin.models.cox.fit as engine
 
     monkeypatch.setattr(engine, "_WARM_EVENTS", 8)
     layout = prepare_layout(sim["T"], sim["E"], strata=sim["S"])

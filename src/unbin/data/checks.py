@@ -1,95 +1,21 @@
-"""Reading extracts, checking columns against the spec, analysis samples and legacy grouping."""
+"""Checking an extract against the spec: columns present, types, categorical columns, and the
+legacy groupings' cells before any fit (the grouping preflight)."""
 
 from __future__ import annotations
 
 import difflib
-import hashlib
-from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from ..errors import DataError
-from ..spec import Analysis, Grouping, Spec
+from ..spec import Analysis, Spec
 from ..terms.grouped import GroupedTerm
+from ..terms.legacy import legacy_term
+from .extracts import extract_columns, read_extract
+from .sample import analysis_sample, coerce_numeric
 
-READERS = (".csv", ".parquet", ".pq", ".dta", ".sas7bdat")
 MAX_CATEGORICAL_LEVELS = 5  # a numeric column with this many distinct values or fewer is a factor
-
-
-def file_sha256(path: str | Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
-
-def extract_columns(path: Path) -> list[str]:
-    """Column names of an extract, read from its header or metadata only."""
-    suffix = path.suffix.lower()
-    if suffix == ".csv":
-        return list(pd.read_csv(path, nrows=0).columns)
-    if suffix in (".parquet", ".pq"):
-        import pyarrow.parquet as pq
-
-        return list(pq.read_schema(path).names)
-    if suffix == ".dta":
-        with pd.io.stata.StataReader(path) as rdr:
-            return list(rdr.variable_labels())  # keyed by variable name, in file order
-    if suffix == ".sas7bdat":
-        import pyreadstat
-
-        _, meta = pyreadstat.read_sas7bdat(str(path), metadataonly=True)
-        return list(meta.column_names)
-    raise DataError(f"extract {path.name!r}: unknown file type {suffix!r}; use one of "
-                    f"{', '.join(READERS)}.")
-
-
-def extract_rows(path: Path) -> int:
-    """Row count of an extract (cheap for parquet: read from the footer)."""
-    if path.suffix.lower() in (".parquet", ".pq"):
-        import pyarrow.parquet as pq
-
-        return int(pq.ParquetFile(path).metadata.num_rows)
-    first = extract_columns(path)[:1]
-    return len(read_extract(path, first))
-
-
-def read_extract(path: Path, columns: list[str] | tuple[str, ...]) -> pd.DataFrame:
-    """Read only ``columns`` of an extract. Missing columns raise a DataError with suggestions."""
-    if not path.is_file():
-        raise DataError(f"extract {str(path)!r} does not exist; fix 'cohorts[].path' in the spec "
-                        "(relative paths are relative to the spec file).")
-    present = extract_columns(path)
-    missing = [c for c in columns if c not in present]
-    if missing:
-        raise DataError("; ".join(missing_column_message(c, present, path) for c in missing))
-    cols = list(dict.fromkeys(columns))
-    suffix = path.suffix.lower()
-    if suffix == ".csv":
-        return pd.read_csv(path, usecols=cols, low_memory=False)[cols]
-    if suffix in (".parquet", ".pq"):
-        import pyarrow.parquet as pq
-
-        return pq.read_table(path, columns=cols).to_pandas()
-    if suffix == ".dta":
-        return pd.read_stata(path, columns=cols, convert_categoricals=False)
-    import pyreadstat
-
-    df, _ = pyreadstat.read_sas7bdat(str(path), usecols=cols)
-    return df[cols]
-
-
-def missing_column_message(col: str, present: list[str], path: Path) -> str:
-    close = difflib.get_close_matches(col, present, n=1, cutoff=0.6)
-    hint = f" Did you mean {close[0]!r}?" if close else ""
-    return (f"column {col!r} is not in extract {path.name!r}.{hint} Its columns are: "
-            f"{', '.join(present[:30])}{' ...' if len(present) > 30 else ''}")
-
-
-# --------------------------------------------------------------------------- types
 
 
 def is_categorical(s: pd.Series, declared: str | None = None) -> bool:
@@ -98,27 +24,6 @@ def is_categorical(s: pd.Series, declared: str | None = None) -> bool:
     if not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s):
         return True
     return bool(s.dropna().nunique() <= MAX_CATEGORICAL_LEVELS)
-
-
-def coerce_numeric(df: pd.DataFrame, col: str, role: str) -> pd.Series:
-    s = df[col]
-    if pd.api.types.is_bool_dtype(s):
-        return s.astype(float)
-    if pd.api.types.is_numeric_dtype(s):
-        return s.astype(float)
-    conv = pd.to_numeric(s, errors="coerce")
-    bad = s.notna() & conv.isna()
-    if bad.any():
-        examples = ", ".join(repr(v) for v in s[bad].astype(str).unique()[:3])
-        where = ""
-        first = s.index[np.flatnonzero(bad.to_numpy())[0]]
-        if isinstance(first, (int, np.integer)):  # the extract's row position (as read)
-            where = (f", the first in data row {int(first) + 1} (line {int(first) + 2} of a "
-                     "CSV file with one header line)")
-        raise DataError(f"column {col!r} ({role}) must be numeric but holds non-numeric values "
-                        f"such as {examples} in {int(bad.sum())} rows{where}; recode them (or "
-                        "set them to missing) in the extract.")
-    return conv.astype(float)
 
 
 def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> list[str]:
@@ -209,93 +114,6 @@ def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
             problems.append(f"column {col!r} (exposure) is constant ({s.dropna().iloc[0]:g}); "
                             "there is nothing to refit.")
     return problems
-
-
-# --------------------------------------------------------------------------- samples
-
-
-@dataclass(frozen=True)
-class Sample:
-    """The complete-case analysis sample shared by every fit of one analysis."""
-
-    frame: pd.DataFrame
-    n_input: int
-    dropped: tuple[tuple[str, int], ...]
-
-    @property
-    def n(self) -> int:
-        return len(self.frame)
-
-
-def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
-    """Apply filters, then drop incomplete rows, then rows with impossible follow-up.
-
-    Every step's dropped-row count is kept, in order, under a reason that names the column.
-    """
-    n0 = len(df)
-    dropped: list[tuple[str, int]] = []
-    cur = df
-    for f in a.filters:
-        s = cur[f.variable]
-        keep = pd.Series(True, index=cur.index)
-        if f.min is not None:
-            keep &= coerce_numeric(cur, f.variable, "filter") >= f.min
-        if f.max is not None:
-            keep &= coerce_numeric(cur, f.variable, "filter") <= f.max
-        if f.values is not None:
-            keep &= s.isin(list(f.values)) | s.astype(str).isin([str(v) for v in f.values])
-        dropped.append((f"filter: {f.describe()}", int((~keep).sum())))
-        cur = cur[keep]
-    cols = [c for c in a.columns if c not in {f.variable for f in a.filters}
-            or c in (a.exposure, *a.adjust, *a.strata, a.by, *a.outcome.columns)]
-    for c in cols:
-        miss = cur[c].isna()
-        dropped.append((f"missing {c}", int(miss.sum())))
-        cur = cur[~miss]
-    numeric = {a.exposure, *a.outcome.columns}
-    numeric |= {v for v in a.adjust if v in spec.groupings}
-    out = cur.copy()
-    for c in sorted(numeric):
-        out[c] = coerce_numeric(out, c, "analysis column")
-    o = a.outcome
-    if o.type == "survival":
-        assert o.time is not None
-        bad = out[o.time] <= 0
-        if o.entry:
-            bad |= (out[o.entry] < 0) | (out[o.entry] >= out[o.time])
-        dropped.append((f"non-positive follow-up ({o.time}"
-                        + (f" <= {o.entry}" if o.entry else " <= 0") + ")", int(bad.sum())))
-        out = out[~bad]
-    if o.type == "count":
-        assert o.persontime is not None
-        bad = out[o.persontime] <= 0
-        dropped.append((f"non-positive person-time ({o.persontime} <= 0)", int(bad.sum())))
-        out = out[~bad]
-    return Sample(frame=out.reset_index(drop=True), n_input=n0, dropped=tuple(dropped))
-
-
-# --------------------------------------------------------------------------- legacy grouping
-
-
-def resolve_cuts(x: np.ndarray, g: Grouping) -> tuple[float, ...]:
-    """The cut values of a grouping in this sample (quantile groupings use the sample)."""
-    if g.cuts is not None:
-        return g.cuts
-    assert g.quantiles is not None
-    qs = np.quantile(x, np.arange(1, g.quantiles) / g.quantiles)
-    return tuple(float(v) for v in qs)
-
-
-def legacy_term(x: np.ndarray, variable: str, spec: Spec) -> GroupedTerm:
-    """The legacy grouping of ``variable`` as design indicators, its cuts resolved in ``x``."""
-    g = spec.groupings[variable]
-    assert g.labels is not None
-    cuts = resolve_cuts(x, g)
-    ref = g.labels.index(g.reference) if g.reference in g.labels else 0
-    return GroupedTerm(variable, cuts, g.closed, g.labels, ref)
-
-
-# --------------------------------------------------------------------------- grouping preflight
 
 
 def group_problems(x: np.ndarray, term: GroupedTerm, min_cell: int) -> tuple[list[str], list[str]]:

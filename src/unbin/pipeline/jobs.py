@@ -24,7 +24,6 @@ from ..data import (
     analysis_sample,
     extract_rows,
     file_sha256,
-    legacy_term,
     read_extract,
 )
 from ..errors import DataError, UnbinError
@@ -32,6 +31,7 @@ from ..questions import QUESTION_TABLES, RESAMPLING_TABLES
 from ..results.provenance import provenance
 from ..results.tables import read_table, write_table
 from ..spec import Spec, digest, load_spec
+from ..terms.legacy import legacy_term
 
 if TYPE_CHECKING:
     from ..refit.analysis import Refit

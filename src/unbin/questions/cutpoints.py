@@ -74,10 +74,10 @@ from ..models.splitstats import (  # noqa: F401  (the corrected p-values are par
     p_lausen,
 )
 from ..models.splitstats import SurvivalLayout as _SurvivalLayout
+from ..models.weighted import resample_weights
 from ..refit.analysis import Refit, adjustment_terms, design, legacy_term
 from ..spec import Spec
 from ..terms import GroupedTerm
-from .confounding import resample_weights
 
 TABLE = "cutpoints"
 MAX_CANDIDATES = 500

@@ -21,7 +21,7 @@ import pandas as pd
 from scipy import stats
 
 from ..consortium.basis import CommonBasis, combine, sample_summary
-from ..data import Sample, is_categorical, legacy_term
+from ..data import Sample, is_categorical
 from ..models import Outcome, fit
 from ..models.base import FitResult, failed_fit
 from ..spec import Analysis, Spec
@@ -35,6 +35,7 @@ from ..terms import (
     default_knots,
 )
 from ..terms.fp import FP1_SET, FP2_SET
+from ..terms.legacy import legacy_term
 from .modifier import modifier_term
 
 ADJUSTMENTS = ("legacy", "continuous")

@@ -20,9 +20,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..data import is_categorical, legacy_term
+from ..data import is_categorical
 from ..spec import Analysis, Spec
 from ..terms import CategoricalTerm, GroupedTerm
+from ..terms.legacy import legacy_term
 
 LevelTerm = GroupedTerm | CategoricalTerm
 
