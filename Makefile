@@ -28,7 +28,7 @@ lint: $(STAMP)
 
 # Mutation testing of the statistics modules against their unit tests ([tool.mutmut] in
 # pyproject.toml); not part of CI. All modules take hours (~2,500 mutants); one module:
-# `make mutation MUTANTS='unbin.contrasts*'`. Survivors: `$(BIN)/mutmut results`.
+# `make mutation MUTANTS='unbin.refit.contrasts*'`. Survivors: `$(BIN)/mutmut results`.
 MUTANTS ?=
 mutation: $(STAMP)
 	$(BIN)/python -m pip install --quiet -c constraints.txt -e '.[dev,mutation]'

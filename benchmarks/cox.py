@@ -42,7 +42,7 @@ from _measure import fmt as _fmt  # noqa: E402
 from _measure import peak_mib as _peak_mib  # noqa: E402
 from _measure import timed  # noqa: E402
 
-from unbin.cox import fit_cox  # noqa: E402
+from unbin.models.cox import fit_cox  # noqa: E402
 from unbin.terms import SplineTerm  # noqa: E402
 
 SIZES = (10_000, 100_000, 200_000, 1_000_000)

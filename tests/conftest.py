@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from unbin.data import analysis_sample
-from unbin.refit import Refit, refit_analysis
+from unbin.refit.analysis import Refit, refit_analysis
 from unbin.spec import Spec, parse_spec
 
 

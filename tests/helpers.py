@@ -8,8 +8,8 @@ from typing import Any
 import pandas as pd
 
 from unbin.data import analysis_sample
-from unbin.refit import Refit
-from unbin.refit import bare_refit as _bare
+from unbin.refit.analysis import Refit
+from unbin.refit.analysis import bare_refit as _bare
 from unbin.spec import Spec, parse_spec
 
 

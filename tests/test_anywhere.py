@@ -17,8 +17,8 @@ import pytest
 import yaml
 
 from unbin.demo import COHORTS, demo_spec, simulate_registry
-from unbin.runner import snakemake_command
-from unbin.tables import read_table
+from unbin.pipeline.runner import snakemake_command
+from unbin.results.tables import read_table
 
 pytestmark = pytest.mark.workflow
 ROOT = Path(__file__).resolve().parents[1]

@@ -1,4 +1,4 @@
-"""Tests of residual confounding (unbin.confounding): Cochran's (1968) removed shares for a
+"""Tests of residual confounding (unbin.questions.confounding): Cochran's (1968) removed shares for a
 grouped normal confounder, the ranking of confounders, and the weighted refits behind the
 bootstrap against reference libraries."""
 
@@ -15,15 +15,10 @@ from lifelines.datasets import load_rossi
 from scipy import stats
 
 from helpers import bare_refit as _refit
-from unbin.confounding import (
-    confounding_table,
-    resample_weights,
-    weighted_cox,
-    weighted_cox_designs,
-    weighted_glm,
-)
-from unbin.cox import fit_cox
 from unbin.models.base import Outcome
+from unbin.models.cox import fit_cox
+from unbin.models.weighted import resample_weights, weighted_cox, weighted_cox_designs, weighted_glm
+from unbin.questions.confounding import confounding_table
 
 # Cochran 1968 (Biometrics 24:295): % of the bias removed by adjusting for a normal confounder
 # cut into c equal-frequency groups (his table, reproduced by cochran_formula below)
@@ -325,7 +320,7 @@ def _designs_by_hand(df: pd.DataFrame, r: Any, spec: Any, form: str) -> dict[str
     """Exposure column first, then adjustment: crude, the legacy groups of z (cuts -0.5, 0.5,
     closed left, built here) and z as unbin's restricted cubic spline (the basis is tested with
     the terms; what is checked here is the standardisation)."""
-    from unbin.refit import adjustment_terms, design
+    from unbin.refit.analysis import adjustment_terms, design
 
     x, z = df["x"].to_numpy(float), df["z"].to_numpy(float)
     e = x[:, None] if form == "linear" else (x >= 0).astype(float)[:, None]

@@ -13,14 +13,14 @@ import pandas as pd
 import pytest
 import yaml
 
-from unbin.bundles import BUNDLE_TABLES, make_bundle
-from unbin.common import combine, sample_summary
+from unbin.consortium.basis import combine, sample_summary
+from unbin.consortium.bundles import BUNDLE_TABLES, make_bundle
+from unbin.consortium.meta_analysis import pool_multivariate, pooled_curve
 from unbin.demo import COHORTS, demo_spec, simulate_registry
-from unbin.jobs import analyse
 from unbin.models import Outcome, fit
-from unbin.pooling import pool_multivariate, pooled_curve
+from unbin.pipeline.jobs import analyse
+from unbin.results.tables import read_table
 from unbin.spec import ContinuousOptions, parse_spec
-from unbin.tables import read_table
 from unbin.terms import GroupedTerm, SplineTerm
 
 
@@ -179,7 +179,7 @@ def _shifted_fp_spec() -> tuple[object, pd.DataFrame]:
 def test_fp_curve_on_a_wider_common_grid_is_missing_below_its_origin_not_an_error() -> None:
     """A common grid that reaches below this cohort's minimum (another cohort's exposure goes
     lower): the FP curve there is NaN with in_range false; the analysis keeps every table."""
-    from unbin.common import CommonBasis
+    from unbin.consortium.basis import CommonBasis
 
     spec, frame = _shifted_fp_spec()
     basis = CommonBasis("x", (-1.5, 0.0, 1.0, 2.5), 0.5, -4.0, 3.0, "cohorts", (-0.5, 1.8),
@@ -207,12 +207,12 @@ def test_fp_curve_on_a_wider_common_grid_is_missing_below_its_origin_not_an_erro
 
 
 def test_one_failing_question_keeps_the_other_tables(monkeypatch: pytest.MonkeyPatch) -> None:
-    import unbin.ranges
+    import unbin.questions.ranges
 
     def broken(r: object, spec: object) -> pd.DataFrame:
         raise ValueError("deliberately broken for the test")
 
-    monkeypatch.setattr(unbin.ranges, "ranges_table", broken)
+    monkeypatch.setattr(unbin.questions.ranges, "ranges_table", broken)
     spec, frame = _shifted_fp_spec()
     tables, status = analyse(spec, "sim", "a", frame, resampling=False)
     assert status["status"] == "partial"

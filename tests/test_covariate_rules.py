@@ -17,8 +17,8 @@ import statsmodels.api as sm
 import statsmodels.formula.api as smf
 
 from unbin.data import extract_columns, extract_rows, read_extract
-from unbin.fits import fits_table
-from unbin.jobs import analyse
+from unbin.pipeline.jobs import analyse
+from unbin.questions.fits import fits_table
 from unbin.spec import parse_spec
 
 

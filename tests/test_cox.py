@@ -1,4 +1,4 @@
-"""Checks of the proportional-hazards engine (unbin.cox) against outside references.
+"""Checks of the proportional-hazards engine (unbin.models.cox) against outside references.
 
 References: lifelines (CoxPHFitter, CoxTimeVaryingFitter, utils.concordance_index),
 statsmodels (PHReg with ties="breslow"), the published Rossi recidivism fit (Fox & Weisberg,
@@ -20,7 +20,8 @@ from lifelines import CoxPHFitter, CoxTimeVaryingFitter
 from lifelines.datasets import load_rossi
 from lifelines.utils import concordance_index
 
-from unbin.cox import (
+from unbin.models.base import Outcome
+from unbin.models.cox import (
     CoxFit,
     baseline_cumhaz,
     concordance,
@@ -29,8 +30,7 @@ from unbin.cox import (
     predict_risk,
     prepare_layout,
 )
-from unbin.discrimination import c_index
-from unbin.models.base import Outcome
+from unbin.models.discrimination import c_index
 from unbin.models.survival import fit_survival
 
 TIGHT = {"precision": 1e-14, "r_precision": 1e-16}
@@ -218,7 +218,7 @@ def test_subsample_start_reaches_lifelines_fit(
     # source: lifelines CoxPHFitter (statsmodels PHReg for Breslow). Data with many events
     # start Newton's method from a fit to a subsample; the event threshold is lowered here so
     # that this path (nested: 2000 rows -> 250 -> 32) runs on small data
-    import unbin.cox as engine
+    import unbin.models.cox.fit as engine
 
     monkeypatch.setattr(engine, "_WARM_EVENTS", 8)
     outcomes: list[bool] = []
@@ -370,7 +370,7 @@ def test_c_index_is_computed_once_per_linear_predictor(
 ) -> None:
     # source: lifelines.utils.concordance_index(time, -lp, event); the second request for the
     # same array is answered from outcome.cache, a new array is computed
-    import unbin.cox as engine
+    import unbin.models.cox as engine
 
     calls: list[int] = []
     real = engine.concordance
@@ -541,7 +541,7 @@ def test_subsample_start_with_a_prepared_layout(
     sim: pd.DataFrame, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     # the subsample start (lowered event threshold, as above) runs on the prepared layout too
-    import unbin.cox as engine
+    import unbin.models.cox.fit as engine
 
     monkeypatch.setattr(engine, "_WARM_EVENTS", 8)
     layout = prepare_layout(sim["T"], sim["E"], strata=sim["S"])
@@ -657,7 +657,7 @@ def test_chord_refits_near_a_start_reach_the_full_fit() -> None:
     the maximum that ``fit_cox`` finds, on Rossi data shipped by lifelines with its published
     Efron fit as the reference (lifelines CoxPHFitter); from a start far off it
     declines (None) rather than return a poor estimate."""
-    from unbin.cox import refit_near
+    from unbin.models.cox import refit_near
 
     ro = load_rossi()
     cols = ["fin", "age", "race", "wexp", "mar", "paro", "prio"]

@@ -1,4 +1,4 @@
-"""Tests of the cut-point audit (unbin.cutpoints): corrected p-values against the published
+"""Tests of the cut-point audit (unbin.questions.cutpoints): corrected p-values against the published
 formulas (Altman, Lausen, Sauerbrei & Schumacher 1994, JNCI 86:829; Miller & Siegmund 1982,
 Biometrics 38:1011; Lausen & Schumacher 1992, Biometrics 48:73), the split statistics (also
 adjusted for covariates) against reference libraries (statsmodels, lifelines, scipy), the
@@ -19,7 +19,8 @@ from scipy import stats
 from statsmodels.duration.hazard_regression import PHReg
 
 from helpers import bare_refit as _refit
-from unbin.cutpoints import (
+from unbin.models.base import Outcome
+from unbin.questions.cutpoints import (
     SplitSearch,
     altman_message,
     cutpoints_table,
@@ -27,7 +28,6 @@ from unbin.cutpoints import (
     p_lausen,
     summary_line,
 )
-from unbin.models.base import Outcome
 from unbin.spec import parse_spec
 
 

@@ -23,8 +23,8 @@ from tablerefs import (
     reference_fit,
     selected_row,
 )
-from unbin.effects import effects_table
-from unbin.fits import fits_table
+from unbin.questions.effects import effects_table
+from unbin.questions.fits import fits_table
 
 RATIO = {"binary": True, "count": True, "continuous": False, "survival": True}
 # Agreement with the reference libraries (relative, estimate and se): statsmodels is iterated to

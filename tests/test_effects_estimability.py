@@ -1,4 +1,4 @@
-"""The effects table's contrasts (unbin.effects): what cannot be estimated says so, the per-unit
+"""The effects table's contrasts (unbin.questions.effects): what cannot be estimated says so, the per-unit
 effect does not depend on the grouping, and every contrast reads "group vs reference".
 
 References: statsmodels OLS on the same explicit design (indicators, the exposure) — an
@@ -14,7 +14,7 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from unbin.effects import effects_table
+from unbin.questions.effects import effects_table
 
 CONTINUOUS = {"type": "continuous", "value": "y"}
 

@@ -15,11 +15,11 @@ from matplotlib.figure import Figure
 from PIL import Image
 
 from browser.demo import demo_output
-from unbin.figures import INDEX, STUDY_DIR, Context, draw_figures, load_tables, plan
-from unbin.figures import style as st
-from unbin.figures.curves import draw_rug, legacy_steps
+from unbin.present.figures import INDEX, STUDY_DIR, Context, draw_figures, load_tables, plan
+from unbin.present.figures import style as st
+from unbin.present.figures.curves import draw_rug, legacy_steps
+from unbin.results.tables import read_table
 from unbin.spec import load_spec
-from unbin.tables import read_table
 
 
 @pytest.fixture(scope="session")

@@ -20,8 +20,8 @@ from tablerefs import (
     lifelines_fit,
     reference_fit,
 )
-from unbin.fits import fits_table
-from unbin.jobs import QUESTION_TABLES, analyse
+from unbin.pipeline.jobs import QUESTION_TABLES, analyse
+from unbin.questions.fits import fits_table
 from unbin.spec import parse_spec
 
 # FP rows count their estimated powers differently (changed elsewhere); their parameter count is

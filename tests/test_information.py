@@ -1,4 +1,4 @@
-"""Information kept by a legacy grouping (unbin.refit + unbin.information) against the published
+"""Information kept by a legacy grouping (unbin.refit.analysis + unbin.questions.information) against the published
 large-sample efficiency of splitting a normal predictor (Cohen 1983; MacCallum et al. 2002).
 
 Tolerances come from the noncentrality. In the local regime LR_linear ~ (Z1 + sqrt(lam))^2 and
@@ -28,7 +28,7 @@ TWO_OVER_PI = 2.0 / np.pi
 def _information(refit_frame: Any, one_analysis: Any, frame: pd.DataFrame, outcome: dict[str, Any],
                  grouping: dict[str, Any]) -> pd.Series:
     """The information row of the unadjusted fits (linear and spline only: FP is not needed)."""
-    from unbin.information import information_table
+    from unbin.questions.information import information_table
 
     raw = one_analysis(outcome, "x", grouping, continuous={"forms": ["linear"],
                                                             "spline_knots": [3]})

@@ -1,5 +1,5 @@
 """Effect modification (``by``): the modifier enters every adjusted model as a factor of its
-levels, and the interaction models (unbin.interaction) hold the level main effects on both sides
+levels, and the interaction models (unbin.refit.interaction) hold the level main effects on both sides
 of their test. Checked against statsmodels fits of the same explicit designs (patsy natural cubic
 splines on the recorded knots), the type-I error of the interaction test under its null in a
 seeded replicate study, and per-level curves against a simulated truth."""
@@ -19,13 +19,13 @@ import statsmodels.api as sm
 import statsmodels.formula.api as smf
 from scipy import special, stats
 
-from unbin.curves import curves_table
 from unbin.data import analysis_sample
-from unbin.effects import effects_table
-from unbin.information import information_table
-from unbin.interaction import SPLINE, fit_level_model, interaction_spline
-from unbin.modifier import levels_from_terms
-from unbin.refit import Refit, adjustment_terms, bare_refit, refit_analysis
+from unbin.questions.curves import curves_table
+from unbin.questions.effects import effects_table
+from unbin.questions.information import information_table
+from unbin.refit.analysis import Refit, adjustment_terms, bare_refit, refit_analysis
+from unbin.refit.interaction import SPLINE, fit_level_model, interaction_spline
+from unbin.refit.modifier import levels_from_terms
 from unbin.spec import Spec, parse_spec
 from unbin.terms import GroupedTerm
 
@@ -209,7 +209,7 @@ def test_per_level_thresholds_plug_back_into_statsmodels(tmp_path: Path) -> None
     the level main effect: at each reported exposure value x*, the statsmodels GLM (binomial,
     patsy natural cubic spline on the recorded knots x C(level) + splines of z and w) gives the
     threshold risk at the same quantile of the level's linear predictors with x set to x*."""
-    from unbin.decisions import thresholds_table
+    from unbin.questions.decisions import thresholds_table
 
     frame = _null_frame(3000, 11)
     raw = _raw({"type": "binary", "event": "y"})
@@ -323,7 +323,7 @@ def demo_tables() -> tuple[Spec, dict[str, pd.DataFrame]]:
     """The demo's two analyses with a ``by`` on its first cohort, through ``jobs.analyse`` (the
     workflow's per-analysis function), without the resampling questions."""
     from unbin.demo import demo_spec, simulate_registry
-    from unbin.jobs import analyse
+    from unbin.pipeline.jobs import analyse
 
     raw = demo_spec()
     raw["analyses"] = [a for a in raw["analyses"]
@@ -377,8 +377,8 @@ def test_demo_effect_modification_recovers_its_truth(
 def test_demo_level_curves_figure(demo_tables: tuple[Spec, dict[str, pd.DataFrame]]) -> None:
     """The level-curves figure is drawn for an analysis with a ``by`` (one panel per level,
     the interaction test in its alt text) and skipped for one without per-level rows."""
-    from unbin.figures import Context
-    from unbin.figures.levels import draw
+    from unbin.present.figures import Context
+    from unbin.present.figures.levels import draw
 
     spec, t = demo_tables
     ctx = Context(t, spec)

@@ -1,4 +1,4 @@
-"""Tests of the pooled tables (unbin.pooled) on small hand-made bundle tables: which cohorts
+"""Tests of the pooled tables (unbin.consortium.pool) on small hand-made bundle tables: which cohorts
 count at each x, the multivariate pooled curve rebuilt by hand, the tau² trace, which contrasts
 pool (and with which cohorts), and the cut-median correlation."""
 
@@ -12,7 +12,7 @@ import pytest
 from scipy import stats
 from statsmodels.stats.meta_analysis import combine_effects
 
-from unbin.pooled import (
+from unbin.consortium.pool import (
     SINGLE,
     harmonisation,
     multivariate_curves,
@@ -270,8 +270,8 @@ def test_pooled_figure_leads_with_the_multivariate_spline_and_shows_k() -> None:
     from pathlib import Path
 
     from conftest import _one_analysis
-    from unbin.figures.base import Context
-    from unbin.figures.pooled import draw
+    from unbin.present.figures.base import Context
+    from unbin.present.figures.pooled import draw
     from unbin.spec import parse_spec
 
     rng = np.random.default_rng(5)

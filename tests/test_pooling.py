@@ -1,4 +1,4 @@
-"""Tests of the pooling core (unbin.pooling) against published values and reference libraries."""
+"""Tests of the pooling core (unbin.consortium.meta_analysis) against published values and reference libraries."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import statsmodels.api as sm
 from scipy import stats
 from statsmodels.stats.meta_analysis import CombineResults, combine_effects
 
-from unbin.pooling import (
+from unbin.consortium.meta_analysis import (
     PoolingInputError,
     pool_multivariate,
     pool_pointwise,
@@ -116,7 +116,7 @@ def test_univariate_truncates_where_statsmodels_tau2_is_negative() -> None:
 
 def test_univariate_single_cohort_convention() -> None:
     # Common practice: one study gives its own estimate; heterogeneity is not estimable
-    # (tau2 = 0, Q = 0 on 0 df, I2 undefined -> NaN as documented in unbin.pooling).
+    # (tau2 = 0, Q = 0 on 0 df, I2 undefined -> NaN as documented in unbin.consortium.meta_analysis).
     res = pool_univariate([1.7], [0.09])
     assert (res.k, res.tau2, res.q, res.q_df) == (1, 0.0, 0.0, 0)
     assert res.fe_mean == pytest.approx(1.7, rel=1e-15) and res.re_mean == res.fe_mean
@@ -468,7 +468,7 @@ def test_hksj_and_prediction_interval_formulas_with_dersimonian_laird() -> None:
 def test_reml_tau2_maximises_the_restricted_likelihood(seed: int) -> None:
     # Brute force: the restricted log-likelihood of the normal random-effects model
     # (Viechtbauer 2005, J Educ Behav Stat 30:261), maximised over tau2 >= 0 by scipy's bounded
-    # scalar search, against the fixed-point iteration in unbin.pooling.
+    # scalar search, against the fixed-point iteration in unbin.consortium.meta_analysis.
     from scipy.optimize import minimize_scalar
 
     y, v = _heterogeneous(np.random.default_rng(seed), 6, 0.4)

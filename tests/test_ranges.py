@@ -1,4 +1,4 @@
-"""Tests of range dependence (unbin.ranges): with a linear truth the legacy high-vs-low estimate
+"""Tests of range dependence (unbin.questions.ranges): with a linear truth the legacy high-vs-low estimate
 follows the truncated-normal means of the trimmed groups, while the continuous contrast between
 fixed values stays within its interval."""
 
@@ -13,7 +13,7 @@ from lifelines import CoxPHFitter
 from scipy import stats
 
 from helpers import bare_refit as _refit
-from unbin.ranges import ranges_table, trims
+from unbin.questions.ranges import ranges_table, trims
 
 
 def _raw(outcome: dict[str, Any], cuts: list[float], adjust: list[str],

@@ -1,4 +1,4 @@
-"""Tests of replication (unbin.replication) against a logistic fit by statsmodels on the Spector &
+"""Tests of replication (unbin.questions.replication) against a logistic fit by statsmodels on the Spector &
 Mazzeo data it ships, and of the demo filling every "what the grouping cost" table."""
 
 from __future__ import annotations
@@ -13,9 +13,9 @@ import statsmodels.api as sm
 
 from unbin.data import analysis_sample
 from unbin.demo import demo_spec, simulate_registry
-from unbin.jobs import analyse
-from unbin.refit import refit_analysis
-from unbin.replication import replication_table, reported_se
+from unbin.pipeline.jobs import analyse
+from unbin.questions.replication import replication_table, reported_se
+from unbin.refit.analysis import refit_analysis
 from unbin.spec import parse_spec
 
 Z95 = 1.959963984540054

@@ -20,11 +20,11 @@ import yaml
 
 from browser.cdp import IMAGES_JS, Chromium, install_chromium, open_report
 from browser.demo import demo_output
-from unbin.figures import Context, load_tables
-from unbin.report import Builder
-from unbin.runner import JobTracker
+from unbin.pipeline.runner import JobTracker
+from unbin.present.figures import Context, load_tables
+from unbin.present.report import Builder
+from unbin.results.tables import read_provenance
 from unbin.spec import load_spec
-from unbin.tables import read_provenance
 
 
 @pytest.fixture(scope="session")

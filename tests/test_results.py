@@ -15,11 +15,11 @@ import pytest
 import yaml
 
 from unbin.cli import main
-from unbin.jobs import analyse, compare_folders, run_analysis_job
-from unbin.provenance import provenance
+from unbin.pipeline.jobs import analyse, compare_folders, run_analysis_job
+from unbin.present.summary import information_summary
+from unbin.results.provenance import provenance
+from unbin.results.tables import read_provenance, read_table, write_table
 from unbin.spec import parse_spec
-from unbin.summary import information_summary
-from unbin.tables import read_provenance, read_table, write_table
 
 # --------------------------------------------------------------------------- compare
 
@@ -143,7 +143,7 @@ def test_printed_summary_names_the_failed_analysis_and_its_numbers(tmp_path: Pat
     # numbers as in its table and the failed one's status and message.
     from rich.console import Console
 
-    from unbin.summary import print_summary
+    from unbin.present.summary import print_summary
 
     prov = provenance([], "", 0, "t", "s")
     status = pd.DataFrame([

@@ -1,4 +1,4 @@
-"""Tests of absolute risk from fitted models (unbin.risk) against reference libraries:
+"""Tests of absolute risk from fitted models (unbin.refit.risk) against reference libraries:
 statsmodels predictions (logistic, Poisson per unit person-time, linear) and lifelines' Cox
 survival predictions at a horizon (strata), plus the links and the horizon notes."""
 
@@ -16,8 +16,8 @@ from lifelines import CoxPHFitter
 from scipy import special
 
 from unbin.data import analysis_sample
-from unbin.refit import Refit, refit_analysis
-from unbin.risk import absolute_risk, inverse_link, link, risk_fit, risk_scale
+from unbin.refit.analysis import Refit, refit_analysis
+from unbin.refit.risk import absolute_risk, inverse_link, link, risk_fit, risk_scale
 from unbin.spec import Spec, parse_spec
 
 TIGHT = {"precision": 1e-14, "r_precision": 1e-16}  # lifelines convergence, as in test_cox

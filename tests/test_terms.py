@@ -12,9 +12,8 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from unbin.data import resolve_cuts
 from unbin.models import Outcome, fit
-from unbin.refit import Refit
+from unbin.refit.analysis import Refit
 from unbin.spec import Grouping
 from unbin.terms import (
     FP_POWERS,
@@ -26,6 +25,7 @@ from unbin.terms import (
     fp_shift,
 )
 from unbin.terms.fp import FP1_SET, FP2_SET
+from unbin.terms.legacy import resolve_cuts
 
 # --------------------------------------------------------------------------- splines
 

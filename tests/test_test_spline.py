@@ -25,9 +25,9 @@ import statsmodels.api as sm
 
 from unbin.data import analysis_sample
 from unbin.errors import SpecError
-from unbin.fits import fits_table
-from unbin.information import information_table
-from unbin.refit import refit_analysis
+from unbin.questions.fits import fits_table
+from unbin.questions.information import information_table
+from unbin.refit.analysis import refit_analysis
 from unbin.spec import Spec, parse_spec
 
 ALPHA = 0.05

@@ -9,8 +9,8 @@ from pathlib import Path
 
 import pytest
 
-from unbin.compare import compare_commits
-from unbin.runner import spec_git
+from unbin.pipeline.runner import spec_git
+from unbin.results.compare import compare_commits
 
 pytestmark = pytest.mark.skipif(shutil.which("git") is None, reason="git is not installed")
 

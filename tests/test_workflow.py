@@ -13,9 +13,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from unbin.bundles import BUNDLE_TABLES
+from unbin.consortium.bundles import BUNDLE_TABLES
 from unbin.demo import COHORTS, true_loghr_egfr, true_logodds_sodium
-from unbin.tables import read_provenance, read_table
+from unbin.results.tables import read_provenance, read_table
 
 pytestmark = pytest.mark.workflow
 
@@ -107,8 +107,9 @@ def test_demo_grouping_keeps_the_share_of_variance_its_groups_explain(demo_out: 
     MacCallum et al. 2002 to any cuts), c computed here from the analysis sample. Tolerance 4
     delta-method sds of the log ratio, 2 sqrt((1/c - 1) / LR) (as in test_information). The
     urate cut was chosen from the data, so its share is optimistic and not checked."""
-    from unbin.data import analysis_sample, legacy_term, read_extract
+    from unbin.data import analysis_sample, read_extract
     from unbin.spec import load_spec
+    from unbin.terms.legacy import legacy_term
 
     spec = load_spec(demo_out / "spec.yaml").for_cohort("lindenfeld")
     a = spec.analysis("visits_bmi")

@@ -1,4 +1,4 @@
-"""Harrell's C of unbin (``unbin.cox.concordance``) against a brute-force pair count.
+"""Harrell's C of unbin (``unbin.models.cox.concordance``) against a brute-force pair count.
 
     python benchmarks/checks/concordance.py --replicates 200 --seed 1
 
@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from unbin.cox import concordance
+from unbin.models.cox import concordance
 
 
 def brute_force(t: np.ndarray, s: np.ndarray, e: np.ndarray, entry: np.ndarray,

@@ -4,7 +4,7 @@
 
 Each replicate simulates an invented registry sample (n = 500) in which a confounder z is
 independent of the exposure x but strongly predicts the binary outcome,
-logit P(y) = -0.5 + 0.5 x + 1.5 z, and runs ``unbin.confounding.confounding_table`` with z
+logit P(y) = -0.5 + 0.5 x + 1.5 z, and runs ``unbin.questions.confounding.confounding_table`` with z
 adjusted for in thirds (legacy) or as a spline. With no confounding the crude and adjusted
 standardised contrasts estimate the same quantity, so the 95% bootstrap interval of the marginal
 confounding (crude - continuous, primary scale: log risk ratio, 75th vs 25th percentile of x)
@@ -23,9 +23,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from unbin.confounding import confounding_table
 from unbin.data import analysis_sample
-from unbin.refit import bare_refit
+from unbin.questions.confounding import confounding_table
+from unbin.refit.analysis import bare_refit
 from unbin.spec import parse_spec
 
 N = 500

@@ -1,4 +1,4 @@
-"""Type-I error of the adjusted cut search (``unbin.cutpoints.SplitSearch`` with adjusters)
+"""Type-I error of the adjusted cut search (``unbin.questions.cutpoints.SplitSearch`` with adjusters)
 under a null with a confounder.
 
     python benchmarks/checks/cut_search_adjusted.py --replicates 1000 --seed 1
@@ -25,8 +25,8 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
-from unbin.cutpoints import SplitSearch, p_altman, p_lausen
 from unbin.models.base import Outcome
+from unbin.questions.cutpoints import SplitSearch, p_altman, p_lausen
 
 FAMILIES = ("continuous", "binary", "survival")
 

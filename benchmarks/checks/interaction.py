@@ -24,9 +24,9 @@ import pandas as pd
 from scipy import special
 
 from unbin.data import analysis_sample
-from unbin.interaction import fit_level_model, interaction_spline
-from unbin.modifier import levels_from_terms
-from unbin.refit import adjustment_terms, bare_refit
+from unbin.refit.analysis import adjustment_terms, bare_refit
+from unbin.refit.interaction import fit_level_model, interaction_spline
+from unbin.refit.modifier import levels_from_terms
 from unbin.spec import parse_spec
 
 ROWS = 1000

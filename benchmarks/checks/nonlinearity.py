@@ -38,8 +38,8 @@ except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
 
 from unbin.data import analysis_sample  # noqa: E402
-from unbin.information import information_table  # noqa: E402
-from unbin.refit import refit_analysis  # noqa: E402
+from unbin.questions.information import information_table  # noqa: E402
+from unbin.refit.analysis import refit_analysis  # noqa: E402
 from unbin.spec import Spec, parse_spec  # noqa: E402
 
 ALPHA = 0.05

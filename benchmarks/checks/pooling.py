@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from unbin.pooling import pool_pointwise
+from unbin.consortium.meta_analysis import pool_pointwise
 
 TAU2 = 0.04
 V_RANGE = (0.01, 0.09)

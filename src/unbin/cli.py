@@ -66,8 +66,8 @@ def cmd_check(args: argparse.Namespace) -> int:
 def _run(spec_path: Path, out: Path, cores: int, profile: str | None, quiet: bool) -> int:
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
-    from .runner import run_workflow
-    from .summary import print_summary
+    from .pipeline.runner import run_workflow
+    from .present.summary import print_summary
 
     console = _console(quiet)
     errors = _console()  # problems are printed even with --quiet: the exit code alone says little
@@ -111,8 +111,8 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 
 def cmd_pool(args: argparse.Namespace) -> int:
-    from .bundles import POOLED_TABLES
-    from .jobs import pool_job
+    from .consortium.bundles import POOLED_TABLES
+    from .pipeline.jobs import pool_job
 
     out = Path(args.out) / "tables"
     pool_job([Path(b) for b in args.bundles], out)
@@ -125,9 +125,9 @@ def cmd_pool(args: argparse.Namespace) -> int:
 def cmd_compare(args: argparse.Namespace) -> int:
     from rich.table import Table
 
-    from .jobs import compare_folders
-    from .provenance import provenance
-    from .tables import write_table
+    from .pipeline.jobs import compare_folders
+    from .results.provenance import provenance
+    from .results.tables import write_table
 
     changes = compare_folders(args.old, args.new, args.tolerance)
     out = Path(args.out) if args.out else Path(args.new) / "comparison.parquet"
@@ -151,14 +151,14 @@ def cmd_compare(args: argparse.Namespace) -> int:
 
 
 def cmd_summary(args: argparse.Namespace) -> int:
-    from .summary import print_summary
+    from .present.summary import print_summary
 
     print_summary(Path(args.out), _console())
     return 0
 
 
 def cmd_report(args: argparse.Namespace) -> int:
-    from .report import build_report, find_spec
+    from .present.report import build_report, find_spec
 
     out = Path(args.out)
     console = _console(args.quiet)

@@ -29,9 +29,9 @@ import yaml
 from unbin.cli import main
 from unbin.data import data_problems
 from unbin.errors import SpecError
-from unbin.jobs import analyse
+from unbin.pipeline.jobs import analyse
+from unbin.results.tables import read_table
 from unbin.spec import Spec, load_spec, parse_spec
-from unbin.tables import read_table
 
 N = 300
 
@@ -518,8 +518,8 @@ def test_check_warns_about_groups_below_min_cell(tmp_path: Path,
 def test_a_figure_that_cannot_be_drawn_says_why_and_the_rest_is_drawn(tmp_path: Path) -> None:
     """One figure kind that raises: the other figures are drawn, the index records the reason,
     and the report carries it in the figure's place."""
-    from unbin.figures import KINDS, Context, Kind, draw_figures, read_index
-    from unbin.report import Builder
+    from unbin.present.figures import KINDS, Context, Kind, draw_figures, read_index
+    from unbin.present.report import Builder
 
     def broken(ctx: Any, cohort: Any, analysis: Any) -> Any:
         raise KeyError("scale")

@@ -21,7 +21,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from unbin.cli import main
-from unbin.tables import read_table, write_table
+from unbin.results.tables import read_table, write_table
 
 from .test_bad_input import _flat, _write, base_raw, registry
 

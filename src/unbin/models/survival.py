@@ -1,9 +1,9 @@
-"""Cox proportional-hazards regression through unbin's own engine (``unbin.cox``): Efron ties,
+"""Cox proportional-hazards regression through unbin's own engine (``unbin.models.cox``): Efron ties,
 strata and delayed entry. Coefficients have no intercept; ``loglik`` is the log partial
 likelihood.
 
 Every fit of one analysis has the same rows, times, events, entry, strata and weights (only X
-differs), so the engine's sorted risk-set layout (``unbin.cox.prepare_layout``) is made at the
+differs), so the engine's sorted risk-set layout (``unbin.models.cox.prepare_layout``) is made at the
 first fit and kept in ``outcome.cache`` for the others."""
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ from ._glm import check_design
 from .base import FitResult, Outcome, failed_fit
 
 if TYPE_CHECKING:
-    from ..cox import Layout
+    from .cox import Layout
 
 _LAYOUT = "cox_layout"
 
@@ -24,7 +24,7 @@ _LAYOUT = "cox_layout"
 def cox_layout(outcome: Outcome) -> Layout:
     """The Cox layout of this outcome's sample: prepared on first use, then kept in
     ``outcome.cache`` (invalid outcome arrays raise ``ValueError`` as ``fit_cox`` does)."""
-    from ..cox import prepare_layout
+    from .cox import prepare_layout
 
     layout: Layout | None = outcome.cache.get(_LAYOUT)
     if layout is None:
@@ -36,7 +36,7 @@ def cox_layout(outcome: Outcome) -> Layout:
 
 
 def fit_survival(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
-    from ..cox import fit_cox
+    from .cox import fit_cox
 
     assert outcome.time is not None
     events = int(outcome.y.sum())

@@ -1,9 +1,9 @@
 """Rule script: draw the study-level figures and write the self-contained HTML report, with the
-cohorts' figures read from their own jobs' folders (unbin.report)."""
+cohorts' figures read from their own jobs' folders (unbin.present.report)."""
 
 from pathlib import Path
 
-from unbin.report import build_report
+from unbin.present.report import build_report
 from unbin.workflow_support import logging_to
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821

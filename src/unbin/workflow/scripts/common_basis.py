@@ -1,6 +1,6 @@
 """Rule script: the common basis of one analysis from the cohorts' summaries."""
 
-from unbin.jobs import common_basis_job
+from unbin.pipeline.jobs import common_basis_job
 from unbin.workflow_support import logging_to, spec_path
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821

@@ -1,8 +1,8 @@
-"""Rule script: draw one cohort's figures from the study-level tables (unbin.report)."""
+"""Rule script: draw one cohort's figures from the study-level tables (unbin.present.report)."""
 
 from pathlib import Path
 
-from unbin.report import draw_cohort_figures
+from unbin.present.report import draw_cohort_figures
 from unbin.workflow_support import logging_to
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821

@@ -2,7 +2,7 @@
 
 from pathlib import Path
 
-from unbin.jobs import run_analysis_job
+from unbin.pipeline.jobs import run_analysis_job
 from unbin.workflow_support import logging_to, spec_path
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821

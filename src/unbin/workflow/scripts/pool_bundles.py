@@ -2,7 +2,7 @@
 
 from pathlib import Path
 
-from unbin.jobs import pool_job
+from unbin.pipeline.jobs import pool_job
 from unbin.workflow_support import logging_to
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821

@@ -1,6 +1,6 @@
 """Rule script: a cohort's share-safe summary of one analysis' exposure."""
 
-from unbin.jobs import summarise_job
+from unbin.pipeline.jobs import summarise_job
 from unbin.workflow_support import logging_to, spec_path
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821

@@ -1,0 +1,1 @@
+"""Several cohorts: the common basis, the shareable bundles, and pooling them."""

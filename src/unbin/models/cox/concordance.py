@@ -1,0 +1,350 @@
+"""Harrell's C in O(n log n): the time order and tie counts of one sample
+(``concordance_order``), kept for the C-indices of many scores, and ``concordance``."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .layout import _as_1d, _check_finite, _event_array
+
+
+@dataclass(frozen=True)
+class _LateEntry:
+    """The pairs that delayed entry takes out: an event i and a row j of its stratum that had
+    not entered by i's time (entry_j >= t_i). Its items are the events (at their time) and the
+    entries (at their entry time) in order of stratum, then value, events first at equal values;
+    only items that form such a pair are kept, so an event item precedes a later entry item of
+    its stratum exactly when the pair is taken out."""
+
+    row: np.ndarray  # each item's position in TimeOrder.order
+    is_event: np.ndarray  # the item is an event (else an entry)
+    stratum: np.ndarray | None  # each item's stratum code (None with one stratum)
+    pairs: int  # (event, later entry) pairs within strata
+
+
+@dataclass(frozen=True)
+class TimeOrder:
+    """What Harrell's C needs of (time, event, entry, strata) alone, made by
+    :func:`concordance_order` and shared by every score of one sample: the rows in order of
+    stratum and time (at equal times events first), the number of comparable pairs, the events
+    that share their stratum and time with other events, and the pairs delayed entry removes."""
+
+    n: int
+    order: np.ndarray  # rows by stratum, then time; at equal times events before censored rows
+    event_s: np.ndarray  # event indicator in that order
+    pairs: int  # comparable pairs
+    tied_slots: np.ndarray  # positions (in order) of the events tied in time with others
+    tied_grp: np.ndarray  # their event time's group number (non-decreasing)
+    tied_at: np.ndarray  # (n,) every position's tied_grp; the dtype's largest value if none
+    stratum_s: np.ndarray | None = None  # stratum codes in that order (None: one stratum)
+    late: _LateEntry | None = None  # None without delayed entry (or when it removes no pair)
+
+
+def _stratum_codes(strata: Any | None, n: int) -> np.ndarray | None:
+    """Stratum codes 0..S-1 (sorted labels) in the smallest unsigned type, None for one."""
+    if strata is None:
+        return None
+    arr = np.asarray(strata)
+    if arr.ndim != 1 or arr.shape[0] != n:
+        raise ValueError(f"strata must be one-dimensional with {n} values, got {arr.shape}")
+    codes, labels = pd.factorize(arr, sort=True)
+    if (codes < 0).any():
+        raise ValueError(f"strata has {int((codes < 0).sum())} missing value(s)")
+    if len(labels) <= 1:
+        return None
+    return codes.astype(np.uint16 if len(labels) < 2**16 else np.int64)
+
+
+def _late_entry(t_s: np.ndarray, e_s: np.ndarray, en_s: np.ndarray,
+                c_s: np.ndarray | None) -> _LateEntry | None:
+    """The (event, not yet entered) pairs of rows laid out by :func:`concordance_order`."""
+    n = t_s.size
+    ev = np.flatnonzero(e_s)
+    rows = np.r_[ev, np.arange(n)]
+    value = np.r_[t_s[ev], en_s]
+    is_event = np.r_[np.ones(ev.size, dtype=bool), np.zeros(n, dtype=bool)]
+    keys = (~is_event, value) if c_s is None else (~is_event, value, c_s[rows])
+    srt = np.lexsort(keys)
+    rows, is_event = rows[srt], is_event[srt]
+    st = None if c_s is None else c_s[rows]
+    m = rows.size
+    idx = np.arange(m)
+    if st is None:
+        first, last = np.zeros(m, dtype=np.intp), np.full(m, m, dtype=np.intp)
+    else:
+        first = np.searchsorted(st, st, side="left")
+        last = np.searchsorted(st, st, side="right")
+    n_ev = np.r_[0, np.cumsum(is_event)]  # events among the first k items
+    n_en = idx + 1 - n_ev[1:]  # entries among the first k + 1 items
+    n_en = np.r_[0, n_en]
+    events_before = n_ev[idx] - n_ev[first]
+    entries_after = n_en[last] - n_en[idx + 1]
+    pairs = int(entries_after[is_event].sum())
+    if pairs == 0:
+        return None
+    keep = np.where(is_event, entries_after > 0, events_before > 0)
+    return _LateEntry(rows[keep], is_event[keep], None if st is None else st[keep], pairs)
+
+
+def concordance_order(time: Any, event: Any, entry: Any | None = None,
+                      strata: Any | None = None) -> TimeOrder:
+    """Check and order (time, event, entry, strata) once, for :func:`concordance` of any number
+    of scores.
+
+    Invalid input raises ``ValueError`` as :func:`concordance` does."""
+    t = _as_1d("time", time, None)
+    n = t.shape[0]
+    e = _event_array(event, n)
+    _check_finite("time", t)
+    code = _stratum_codes(strata, n)
+    en = None
+    if entry is not None:
+        en = np.asarray(entry, dtype=float)
+        if en.ndim != 1 or en.shape[0] != n:
+            raise ValueError(f"entry must be one-dimensional with {n} values, got {en.shape}")
+        _check_finite("entry", en)
+        bad = ~(t > en)
+        if bad.any():
+            first = int(np.flatnonzero(bad)[0])
+            raise ValueError(
+                f"time must be greater than entry (delayed entry): {int(bad.sum())} row(s) "
+                f"have time <= entry, e.g. row {first} with entry={float(en[first])}, "
+                f"time={float(t[first])}"
+            )
+    order = np.lexsort((~e, t)) if code is None else np.lexsort((~e, t, code))
+    t_s, e_s = t[order], e[order]
+    c_s = None if code is None else code[order]
+    ev = np.flatnonzero(e_s)
+    # pairs: every event with all rows after it in its stratum, less the events tied in time
+    end = np.full(ev.size, n) if c_s is None else np.searchsorted(c_s, c_s[ev], side="right")
+    pairs = int((end - 1 - ev).sum())
+    te = t_s[ev]
+    new_t = np.ones(te.size, dtype=bool)
+    np.not_equal(te[1:], te[:-1], out=new_t[1:])
+    if c_s is not None:
+        new_t[1:] |= c_s[ev][1:] != c_s[ev][:-1]
+    size_t = np.diff(np.r_[np.flatnonzero(new_t), te.size])
+    pairs -= int((size_t * (size_t - 1) // 2).sum())
+    grp = np.cumsum(new_t) - 1
+    tied = size_t[grp] > 1
+    slots, tied_grp = ev[tied], grp[tied]
+    # group numbers as small as they fit (a stable sort by a 16-bit key is a radix sort)
+    gtype = np.uint16 if tied_grp.size == 0 or tied_grp[-1] < 2**16 - 1 else np.int64
+    tied_grp = tied_grp.astype(gtype)
+    tied_at = np.full(n, np.iinfo(gtype).max, dtype=gtype)
+    tied_at[slots] = tied_grp
+    late = None if en is None else _late_entry(t_s, e_s, en[order], c_s)
+    if late is not None:
+        pairs -= late.pairs
+    return TimeOrder(n, order, e_s, pairs, slots, tied_grp, tied_at, c_s, late)
+
+
+def concordance(
+    time: Any, risk_score: Any, event: Any, *, entry: Any | None = None,
+    strata: Any | None = None, time_order: TimeOrder | None = None
+) -> float:
+    """Harrell's C: the share of comparable pairs in which the earlier event had the higher score.
+
+    A pair (i, j) is comparable when i is an event at t_i, j is in i's stratum, j was at risk at
+    t_i (entry_j < t_i, the Cox risk-set convention: a row entering at t_i is not at risk at
+    t_i) and j outlived i: t_j > t_i, or t_j = t_i with j censored (a row censored at an event
+    time is taken to outlive it); two events at the same time are not comparable. Pairs in
+    different strata are never compared. Tied scores count one half. Without strata and entry
+    this equals ``lifelines.utils.concordance_index(time, -risk_score, event)``. Returns NaN
+    when there is no comparable pair (e.g. no events). ``time_order`` (from
+    :func:`concordance_order` of the same time, event, entry and strata, which are then not
+    read again) saves the sort when one sample gets many scores.
+
+    O(n log n), exact in integers: the rows are laid out by stratum and time (the events tied in
+    time by increasing score, so that their pairs count as lower or tied, and the tied ones are
+    taken out again), and sorted once by (stratum, score) (ties by position), so that a later
+    row of another stratum never counts as lower; the events tied in time then move to their
+    slots by a stable (radix) sort of their time groups. Going down the bits of the position,
+    from the highest, each level splits every block of positions into an earlier and a later
+    half; with the rows of each block in score order, one cumulative count of the later half
+    gives, for every earlier event, the later rows with a lower score, and the same counts split
+    each block into its halves for the next level (a stable partition, O(n)). Delayed entry: a
+    later row that had not entered by the event's time (entry_j >= t_i, so t_j > t_i) was
+    counted; such pairs are counted the same way over a second sequence, the events at their
+    times and the entries at their entry times (events first at equal values), counting only
+    event-before-entry pairs, and subtracted.
+    """
+    s = np.asarray(risk_score, dtype=float)
+    if time_order is None:
+        time_order = concordance_order(time, event, entry, strata)
+    if s.ndim != 1 or s.shape[0] != time_order.n:
+        raise ValueError(
+            f"risk_score must be one-dimensional with {time_order.n} values, got shape {s.shape}"
+        )
+    _check_finite("risk_score", s)
+    T = time_order
+    n = T.n
+    if n < 2 or not T.event_s.any() or T.pairs <= 0:
+        return float("nan")
+    s_time = s[T.order]  # scores in time order
+    itype = np.int32 if n < 2**30 else np.int64
+    # positions sorted by (stratum, score), ties by position (stable sorts)
+    pos = _by_key(s_time, T.stratum_s, itype)
+    by_score = s_time[pos]
+    # the events tied in time take their time's slots by increasing score: the tied events in
+    # score order, grouped by their time (a stable sort, so still by score within a time)
+    same_time_same_score = 0
+    if T.tied_slots.size:
+        seq = pos[T.tied_at[pos] != np.iinfo(T.tied_at.dtype).max]  # tied events, by score
+        seq = seq[np.argsort(T.tied_at[seq], kind="stable")]  # by time, then score
+        st = s_time[seq]  # the scores at T.tied_slots after the move
+        moved = np.arange(n, dtype=itype)
+        moved[seq] = T.tied_slots
+        pos = moved[pos]  # still by score, ties by (new) position
+        # events tied in time and in score: counted as tied below, but not comparable
+        new_ts = np.ones(st.size, dtype=bool)
+        new_ts[1:] = (T.tied_grp[1:] != T.tied_grp[:-1]) | (st[1:] != st[:-1])
+        size_ts = np.diff(np.r_[np.flatnonzero(new_ts), st.size])
+        same_time_same_score = int((size_ts * (size_ts - 1) // 2).sum())
+    dead = T.event_s[pos]
+    # tied scores: every event with the later rows of its run of equal (stratum, score)
+    new_s = _new_runs(by_score, None if T.stratum_s is None else T.stratum_s[pos])
+    run_end = np.r_[np.flatnonzero(new_s)[1:], n]
+    idx = np.arange(n, dtype=itype)
+    run = np.cumsum(new_s) - 1
+    equal = int((run_end[run[dead]] - 1 - idx[dead]).sum()) - same_time_same_score
+    higher = _earlier_events_above_later(pos, dead, idx)
+    if T.late is not None:
+        late_higher, late_equal = _late_pairs(T.late, s_time, itype)
+        higher -= late_higher
+        equal -= late_equal
+    return (higher + 0.5 * equal) / T.pairs
+
+
+def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.ndarray:
+    """Positions sorted by (stratum, score), ties by position."""
+    pos = np.argsort(score, kind="stable")
+    if stratum is not None:
+        pos = pos[np.argsort(stratum[pos], kind="stable")]
+    return pos.astype(itype)
+
+
+def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
+    """Where a run of equal (stratum, value) starts, for values sorted by (stratum, value)."""
+    new = np.ones(values.size, dtype=bool)
+    np.not_equal(values[1:], values[:-1], out=new[1:])
+    if stratum is not None:
+        new[1:] |= stratum[1:] != stratum[:-1]
+    return new
+
+
+def _late_pairs(L: _LateEntry, s_time: np.ndarray, itype: Any) -> tuple[int, int]:
+    """Among the pairs delayed entry takes out (event item before an entry item of its
+    stratum), those where the event has the higher score, and those with equal scores."""
+    m = L.row.size
+    sc = s_time[L.row]
+    ip = _by_key(sc, L.stratum, itype)
+    first = L.is_event[ip]
+    higher = _earlier_events_above_later(ip, first, np.arange(m, dtype=itype), target=~first)
+    new = _new_runs(sc[ip], None if L.stratum is None else L.stratum[ip])
+    start = np.flatnonzero(new)[np.cumsum(new) - 1]  # each item's run start (sorted order)
+    n_ev = np.r_[0, np.cumsum(first)]
+    before = n_ev[np.arange(m)] - n_ev[start]  # events earlier in the run: earlier items
+    return higher, int(before[~first].sum())
+
+
+_BRUTE_BITS = 4  # pairs within blocks of 2^4 positions are compared directly
+
+
+def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray,
+                                target: np.ndarray | None = None) -> int:
+    """Count pairs of positions i < j with i an event and a higher score than j (and, with
+    ``target``, j a target: ``target`` is aligned with ``pos`` as ``dead`` is).
+
+    ``pos`` are the positions 0..n-1 sorted by score (ties by position), ``dead`` whether each
+    is an event, ``idx`` = arange(n) of pos's dtype. At the level of bit L the rows are arranged
+    in blocks of 2^(L+1) positions (block b at indices from b 2^(L+1), as the positions are a
+    permutation), each in score order; the later half of a block is bit L = 1. Its running count
+    before an earlier-half event is the number of later rows with a lower score (an equal score
+    sorts after, by position). That count is also each row's rank within its half, which
+    places it in the next level's arrangement (one scatter per level; the work arrays are
+    allocated once). The pairs within the smallest blocks (16 positions) are compared
+    directly, by each row's rank in the score order.
+    """
+    n = pos.size
+    if n < 2:
+        return 0
+    low = min(_BRUTE_BITS, (n - 1).bit_length())
+    higher = _within_blocks(pos, dead, idx, low, target)
+    pos, dead = pos.astype(np.intp), dead.copy()
+    tgt = None if target is None else target.copy()
+    at = np.arange(n, dtype=np.intp)
+    pos_next, dead_next = np.empty_like(pos), np.empty_like(dead)
+    tgt_next = None if tgt is None else np.empty_like(tgt)
+    later = np.empty(n, dtype=bool)
+    count, dest, tmp = (np.empty(n, dtype=np.intp) for _ in range(3))
+    count_t = None if tgt is None else np.empty(n, dtype=np.intp)
+    later_t = None if tgt is None else np.empty(n, dtype=bool)
+    for level in range((n - 1).bit_length() - 1, low - 1, -1):
+        size = 1 << (level + 1)  # the block
+        full = n // size * size
+        np.bitwise_and(pos, 1 << level, out=count)
+        np.not_equal(count, 0, out=later)
+        np.cumsum(later, out=count)
+        count -= later  # later rows before each row ...
+        _per_block(count, size, full)  # ... in its block
+        tally = count
+        if tgt is not None:
+            assert count_t is not None and later_t is not None
+            np.logical_and(later, tgt, out=later_t)
+            np.cumsum(later_t, out=count_t)
+            count_t -= later_t
+            _per_block(count_t, size, full)
+            tally = count_t
+        np.multiply(tally, dead, out=tmp)
+        np.multiply(tmp, ~later, out=tmp)
+        higher += int(tmp.sum())
+        if level > low:
+            np.subtract(at, count, out=dest)  # earlier half: its rank among the earlier rows
+            np.bitwise_and(at, ~(size - 1), out=tmp)  # later half: after the earlier half
+            tmp += 1 << level
+            tmp += count
+            np.copyto(dest, tmp, where=later)
+            pos_next[dest] = pos
+            dead_next[dest] = dead
+            pos, pos_next, dead, dead_next = pos_next, pos, dead_next, dead
+            if tgt is not None:
+                assert tgt_next is not None
+                tgt_next[dest] = tgt
+                tgt, tgt_next = tgt_next, tgt
+    return higher
+
+
+def _per_block(count: np.ndarray, size: int, full: int) -> None:
+    """Make running counts restart at every block of ``size`` (in place)."""
+    blocks = count[:full].reshape(-1, size)
+    blocks -= blocks[:, :1].copy()
+    if full < count.size:
+        count[full:] -= count[full]
+
+
+def _within_blocks(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray, bits: int,
+                   target: np.ndarray | None = None) -> int:
+    """The pairs of :func:`_earlier_events_above_later` within blocks of 2^bits positions."""
+    if bits == 0:
+        return 0
+    n, size = pos.size, 1 << bits
+    rows = -(-n // size)
+    rank = np.full(rows * size, n, dtype=pos.dtype)  # padding: never lower, never an event
+    rank[pos] = idx  # rank in the score order (ties by position) of each position
+    ev = np.zeros(rows * size, dtype=bool)
+    ev[pos] = dead
+    tg = np.zeros(rows * size, dtype=bool)
+    tg[pos] = True if target is None else target
+    rank2, ev2, tg2 = rank.reshape(rows, size), ev.reshape(rows, size), tg.reshape(rows, size)
+    total = 0
+    for i in range(size - 1):
+        above = rank2[:, i + 1 :] < rank2[:, i : i + 1]
+        above &= ev2[:, i : i + 1]
+        above &= tg2[:, i + 1 :]
+        total += int(np.count_nonzero(above))
+    return total

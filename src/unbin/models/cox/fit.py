@@ -1,0 +1,538 @@
+"""The Cox partial likelihood and its Newton fit: the likelihood, score and information at a
+coefficient vector (Efron or Breslow ties), step halving, the warm start from a subsample,
+``fit_cox`` and ``refit_near``."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from scipy import linalg
+
+from .layout import (
+    Layout,
+    _as_1d,
+    _check_finite,
+    _design,
+    _forward_cum,
+    _given_layout,
+    _prepare,
+    _risk_sums,
+    _scaled,
+    _shifted_eta,
+)
+
+
+@dataclass(frozen=True)
+class CoxFit:
+    """Result of :func:`fit_cox`.
+
+    ``coef`` are log hazard ratios per unit of each column of X; ``cov`` is the inverse of the
+    observed information at ``coef``. ``loglik``/``loglik0`` are the log partial likelihood at
+    ``coef`` and at zero (summed over strata). ``message`` is ``""`` when the fit is fine and
+    otherwise says what went wrong and what to try. When the information matrix is singular,
+    ``coef``/``cov`` are NaN (and ``message`` says so); when the iteration limit is reached or a
+    coefficient diverges, they hold the last iterate. ``n`` counts the rows given, ``events``
+    the rows with event = 1 (unweighted).
+    """
+
+    coef: np.ndarray
+    cov: np.ndarray
+    loglik: float
+    loglik0: float
+    iterations: int
+    converged: bool
+    message: str
+    n: int
+    events: int
+
+
+_BLOCK = 8192  # rows per block of the weighted cross-products (stays in cache)
+
+
+@dataclass(frozen=True)
+class _Design:
+    """The kept rows' covariates, sorted and standardised, with a leading column of ones."""
+
+    X1: np.ndarray  # (m, 1 + p), C-contiguous
+    xwe: np.ndarray  # (p,) sum over events of w x: the part of the score that never changes
+    reach: np.ndarray  # (p,) largest |x| of each standardised column (or a bound on it)
+    buf: np.ndarray  # (min(m, _BLOCK), 1 + p) scratch
+
+    @classmethod
+    def of(cls, X1: np.ndarray, we: np.ndarray, reach: np.ndarray) -> _Design:
+        buf = np.empty((min(X1.shape[0], _BLOCK), X1.shape[1]))
+        return cls(X1, X1[:, 1:].T @ we, reach, buf)
+
+
+def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
+    """``X1' diag(v) X1``, in blocks of rows that stay in cache."""
+    X1, buf = D.X1, D.buf
+    q = X1.shape[1]
+    out = np.zeros((q, q))
+    for start in range(0, X1.shape[0], _BLOCK):
+        block = X1[start : start + _BLOCK]
+        scaled = buf[: block.shape[0]]
+        np.multiply(block, v[start : start + _BLOCK, None], out=scaled)
+        out += block.T @ scaled
+    return out
+
+
+def _evaluate(
+    L: Layout, D: _Design, beta: np.ndarray, efron: bool, order: int = 2
+) -> tuple[float, np.ndarray, np.ndarray]:
+    """Log partial likelihood, score and observed information at ``beta``.
+
+    ``order`` 0 computes the log partial likelihood only, 1 adds the score (which needs the
+    risk-set sums of r only), 2 the information too; what is not computed is zeros.
+    """
+    X1 = D.X1
+    p = X1.shape[1] - 1
+    eta: np.ndarray | None = None
+    if p and beta.any():
+        eta = _shifted_eta(L, X1[:, 1:] @ beta)
+        with np.errstate(over="ignore", under="ignore"):
+            r = np.exp(eta)
+        if not L.unit_w:
+            r *= L.w
+    else:
+        r = L.w
+    efron_terms = efron and L.ties
+    order = order if p > 0 else 0
+    derivs = order == 2
+    # risk-set sums of r (row 0) and, for the information, of r x (rows 1..p) at each event time
+    if derivs:
+        sums = _risk_sums(L, _scaled(L, L.risk_op, r) @ X1)
+    else:
+        sums = _risk_sums(L, np.asarray(L.risk_op @ r)[:, None])
+    s0 = sums[0]
+    loglik = float(L.we_ev @ eta[L.ev]) if eta is not None else 0.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_s0 = np.log(s0)
+        if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
+            tied_sums = _scaled(L, L.tie_op, r) @ X1 if derivs else L.tie_op @ r
+            t0 = tied_sums[:, 0] if derivs else tied_sums
+            den = s0[L.tie_k][L.tie_grp] - L.tie_f * t0[L.tie_grp]
+            loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
+        else:  # Breslow, or no tied events: one term per event time
+            loglik -= float(L.wsum @ log_s0)
+    if order == 0 or not np.isfinite(loglik):
+        return loglik, np.zeros(p), np.zeros((p, p))
+    T = L.tie_k.size
+    # sum_k c_k sum_{i in R_k} r_i x_i x_i' = X' diag(v) X with v_i = r_i sum_{k: i in R_k} c_k;
+    # the risk-set means enter as sum_k a_k S1_k S1_k' (and, for tied events, one per event)
+    if efron_terms:
+        c = L.wsum_untied / s0
+        a = L.wsum_untied / s0**2
+        inv = 1.0 / den
+        c[L.tie_k] = np.bincount(L.tie_grp, weights=L.tie_wavg * inv, minlength=T)
+        bk = np.bincount(L.tie_grp, weights=L.tie_wavg * L.tie_f * inv, minlength=T)
+    else:
+        c = L.wsum / s0
+        a = c / s0
+    cum = _forward_cum(L, c)
+    v = r * (cum[L.b_idx] - cum[L.a_idx]) if L.late_entry else r * cum[L.b_idx]
+    if efron_terms:
+        v[L.tie_ev] -= r[L.tie_ev] * bk[L.tie_grp]
+    if order == 1:
+        return loglik, D.xwe - D.X1[:, 1:].T @ v, np.zeros((p, p))
+    gram = _weighted_gram(D, v)
+    score = D.xwe - gram[1:, 0]
+    S1 = sums[1:]
+    if efron_terms:
+        # each tied event's risk-set mean (S1 - (l/d) T1) / den, times sqrt(wavg)
+        tk = L.tie_k[L.tie_grp]
+        mean = S1[:, tk] - L.tie_f * tied_sums[L.tie_grp, 1:].T
+        mean *= inv * np.sqrt(L.tie_wavg)
+    S1 *= np.sqrt(a)
+    info = gram[1:, 1:] - S1 @ S1.T
+    if efron_terms:
+        info -= mean @ mean.T
+    info = (info + info.T) / 2.0
+    return loglik, score, info
+
+
+def _singular_message(info: np.ndarray, sd: np.ndarray) -> str:
+    if not np.isfinite(info).all():
+        return (
+            "the score or information is not finite (numerical overflow); rescale columns with "
+            "extreme values or give starting values (init)"
+        )
+    const = np.flatnonzero(sd == 0)
+    if const.size:
+        return (
+            f"information matrix is singular: column(s) {const.tolist()} are constant among "
+            "the rows at risk; drop them"
+        )
+    diag = np.sqrt(np.clip(np.diag(info), 1e-300, None))
+    vals, vecs = np.linalg.eigh(info / np.outer(diag, diag))
+    weak = vecs[:, 0]
+    involved = np.flatnonzero(np.abs(weak) > 0.1 * np.abs(weak).max()).tolist()
+    return (
+        "information matrix is singular (or not positive definite): columns "
+        f"{involved} are (nearly) collinear, or a coefficient is diverging "
+        f"(smallest scaled eigenvalue {vals[0]:.2g}); drop or combine those columns"
+    )
+
+
+def _solve(info: np.ndarray, score: np.ndarray) -> np.ndarray | None:
+    if not (np.isfinite(info).all() and np.isfinite(score).all()):
+        return None
+    try:
+        factor = linalg.cho_factor(info, check_finite=False)
+    except linalg.LinAlgError:
+        return None
+    step = linalg.cho_solve(factor, score, check_finite=False)
+    return step if np.isfinite(step).all() else None
+
+
+@dataclass
+class _Iterate:
+    """Where Newton's method stopped: ``status`` is converged, singular, max_iter or halving."""
+
+    beta: np.ndarray
+    loglik: float
+    score: np.ndarray
+    info: np.ndarray
+    iterations: int
+    status: str
+    last_change: float
+
+
+def _diverging(step: np.ndarray, beta: np.ndarray, tol: float) -> np.ndarray:
+    """Columns whose Newton step keeps them moving: a diverging coefficient's steps stay near
+    1 (standardised units), a converging one's shrink quadratically; 1e-4 tells them apart."""
+    big = (np.abs(step) > max(1e-4, 100.0 * tol)) & (np.abs(step) > np.sqrt(tol) * np.abs(beta))
+    return np.flatnonzero(big)
+
+
+def _settled(D: _Design, step: np.ndarray, tol: float) -> bool:
+    """The step changes no row's linear predictor by more than ``100 * tol``: first a bound
+    (``|step| . reach``), then, near that point only, the exact largest change."""
+    bound = float(np.abs(step) @ D.reach)
+    if bound <= 100.0 * tol:
+        return True
+    if bound > 1e-3:
+        return False
+    return float(np.abs(D.X1[:, 1:] @ step).max()) <= 100.0 * tol
+
+
+def _newton(
+    L: Layout, D: _Design, efron: bool, start: _Iterate, max_iter: int, tol: float
+) -> _Iterate:
+    """Newton steps with step halving from ``start`` (score and information evaluated there).
+
+    Converged when the next step would change no row's linear predictor by more than
+    ``100 * tol`` (checked only where the information is the full data's, that is after one
+    step at least), so that the information at the last point is, to about that fraction, the
+    one at the estimate; or, where rounding keeps the steps from getting that small, after
+    three steps in a row changed the log partial likelihood by at most
+    ``tol * max(1, |loglik|)``. Also stops, for the caller to report, when the log partial
+    likelihood has levelled off like that while a coefficient keeps moving. The last point
+    evaluated is returned, not the next step's.
+    """
+    beta, ll, score, info = start.beta, start.loglik, start.score, start.info
+    iterations = flat = 0
+    last_change = float("nan")
+    while True:
+        step = _solve(info, score)
+        if step is None:
+            return _Iterate(beta, ll, score, info, iterations, "singular", last_change)
+        if iterations:
+            levelled = abs(last_change) <= tol * max(1.0, abs(ll))
+            flat = flat + 1 if levelled else 0
+            diverging = levelled and _diverging(step, beta, tol).size > 0
+            if diverging or flat >= 3 or _settled(D, step, tol):
+                return _Iterate(beta, ll, score, info, iterations, "converged", last_change)
+        if iterations >= max_iter:
+            return _Iterate(beta, ll, score, info, iterations, "max_iter", last_change)
+        iterations += 1
+        halving = 0
+        while True:
+            cand = beta + step
+            ll_c, score_c, info_c = _evaluate(L, D, cand, efron)
+            if np.isfinite(ll_c) and ll_c >= ll - 1e-12 * max(1.0, abs(ll)):
+                break
+            halving += 1
+            step = step / 2.0
+            if halving > 40:
+                return _Iterate(beta, ll, score, info, iterations, "halving", last_change)
+        last_change = ll_c - ll
+        beta, ll, score, info = cand, ll_c, score_c, info_c
+
+
+# Starting values for large data: Newton's method from zero needs several steps before it
+# reaches the region where it converges quadratically. Those steps are taken on a systematic
+# subsample (every ``stride``-th row in time order, stride 4 to 8, at least _WARM_EVENTS
+# events), itself started the same way when it is large enough. The first step on the full
+# data uses the subsample's information scaled up to the full data (its error is of the order
+# of the subsample's sampling error, which the quadratic convergence absorbs), so the full data
+# need the score at the start and then about three full evaluations instead of six or seven.
+# The estimate is still the full data's maximum, and the information the full data's.
+_WARM_EVENTS = 2_500
+
+
+_WARM_MIN_STRIDE, _WARM_MAX_STRIDE = 4, 8
+
+
+def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndarray] | None:
+    """Standardised coefficients fitted on a subsample and its information scaled to the full
+    data, or None (too few events for a subsample to pay off, or no converged fit)."""
+    stride = min(L.events // _WARM_EVENTS, _WARM_MAX_STRIDE)
+    if stride < _WARM_MIN_STRIDE:
+        return None
+    pos = np.arange(0, L.order.size, stride)
+    sub = L.subsamples.get(stride)
+    if sub is None:
+        sub = L.subsamples[stride] = _prepare(
+            pos.size,
+            L.time_s[pos],
+            L.event_s[pos],
+            None if L.entry_s is None else L.entry_s[pos],
+            None if L.code_s is None else L.code_s[pos],
+            None if L.unit_w else L.w[pos],
+        )
+    if sub.events == 0:
+        return None
+    Dsub = _Design.of(D.X1[pos[sub.order]], sub.we, D.reach)
+    fit = _newton(sub, Dsub, efron, _start(sub, Dsub, efron), 30, 1e-5)
+    if fit.status != "converged" or not np.isfinite(fit.beta).all():
+        return None
+    nxt = _solve(fit.info, fit.score)
+    if nxt is None or np.abs(nxt).max() > 0.1:  # e.g. a coefficient diverging in the subsample
+        return None
+    return fit.beta, fit.info * (L.wsum.sum() / sub.wsum.sum())
+
+
+def _start(
+    L: Layout, D: _Design, efron: bool, ll0: float | None = None, warm_ok: bool = True
+) -> _Iterate:
+    """Where Newton's method starts without starting values: at a subsample's estimate (with
+    the score there and the subsample's information) when that pays off, otherwise at zero."""
+    zero = np.zeros(D.X1.shape[1] - 1)
+    warm = _warm_start(L, D, efron) if warm_ok else None
+    if warm is not None:
+        ll, score, _ = _evaluate(L, D, warm[0], efron, 1)
+        if ll0 is None:
+            ll0 = _evaluate(L, D, zero, efron, 0)[0]
+        if np.isfinite(ll) and ll >= ll0:
+            return _Iterate(warm[0], ll, score, warm[1], 0, "", ll)
+    ll, score, info = _evaluate(L, D, zero, efron)  # no (useful) subsample fit
+    return _Iterate(zero, ll, score, info, 0, "", ll)
+
+
+def _largest_abs(a: np.ndarray, rows: int = 256) -> np.ndarray:
+    """Largest |value| of each column of a C-contiguous (m, p) array. Reduced over blocks of
+    ``rows`` rows seen as one wide row (a plain reduction down 8 columns is ~8x slower)."""
+    m, p = a.shape
+    if p == 0:
+        return np.zeros(0)
+    k = m // rows * rows
+    wide = a[:k].reshape(-1, rows * p)
+    hi = wide.max(axis=0, initial=-np.inf).reshape(rows, p).max(axis=0)
+    lo = wide.min(axis=0, initial=np.inf).reshape(rows, p).min(axis=0)
+    hi = np.maximum(hi, a[k:].max(axis=0, initial=-np.inf))
+    lo = np.minimum(lo, a[k:].min(axis=0, initial=np.inf))
+    return np.maximum(hi, -lo)
+
+
+def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.ndarray]:
+    """The kept rows of X, sorted, centred and scaled, behind a column of ones; the scale of
+    each column (to map estimates back) and its standard deviation (0 for a constant column)."""
+    m, p = L.order.size, Xa.shape[1]
+    X1 = np.empty((m, 1 + p))
+    X1[:, 0] = 1.0
+    if m == 0:
+        return _Design.of(X1, L.we, np.zeros(p)), np.ones(p), np.zeros(p)
+    if Xa.flags.f_contiguous and not Xa.flags.c_contiguous:  # e.g. from a data frame
+        cols = np.empty((p, m))
+        for j in range(p):  # gather column by column: each column is contiguous
+            np.take(Xa[:, j], L.order, out=cols[j])
+        sorted_x = cols.T
+    else:
+        sorted_x = np.take(Xa, L.order, axis=0)
+    mean = np.ones(m) @ sorted_x / m
+    sorted_x -= mean
+    sd = np.sqrt(np.einsum("ij,ij->j", sorted_x, sorted_x) / m)
+    sd[sd <= 1e-12 * np.maximum(1.0, np.abs(mean))] = 0.0  # constant up to rounding
+    scale = np.where(sd > 0, sd, 1.0)
+    reach = _largest_abs(sorted_x) / scale
+    np.multiply(sorted_x, 1.0 / scale, out=X1[:, 1:])
+    return _Design.of(X1, L.we, reach), scale, sd
+
+
+def fit_cox(
+    X: Any,
+    time: Any,
+    event: Any,
+    *,
+    entry: Any | None = None,
+    strata: Any | None = None,
+    weights: Any | None = None,
+    ties: str = "efron",
+    max_iter: int = 50,
+    tol: float = 1e-9,
+    init: Any | None = None,
+    layout: Layout | None = None,
+) -> CoxFit:
+    """Fit a Cox proportional-hazards model by maximising the partial likelihood.
+
+    X: (n, p) covariates (p may be 0). time: exit times. event: 0/1 (or bool).
+    entry: optional entry times (delayed entry; a row is at risk at t when entry < t <= time).
+    strata: optional labels; each stratum has its own baseline hazard.
+    weights: optional positive case weights (the information is the model-based one, not a
+    robust sandwich). ties: "efron" (default) or "breslow".
+    Convergence: Newton steps with step halving until the next step would change no row's
+    linear predictor by more than ``100 * tol``; that step is then taken (``loglik`` is its
+    quadratic prediction, ``cov`` the inverse information at the last point evaluated, where
+    no weight exp(eta) differs by more than that fraction). A coefficient that keeps moving
+    once the log partial likelihood changes by less than ``tol * max(1, |loglik|)`` is
+    reported as diverging.
+    ``init`` are starting values on the scale of X; without them, data with many events
+    (10,000 or more) start from a fit to a subsample (``iterations`` counts the steps on the
+    full data only).
+    ``layout``: the sample prepared by :func:`prepare_layout` from the same time, event, entry,
+    strata and weights; those are then not read again (only the row count is checked), which
+    saves the sort and the risk-set layout when one sample gets many fits. The fit is
+    bit-for-bit the one without it.
+    """
+    if ties not in ("efron", "breslow"):
+        raise ValueError(f"ties must be 'efron' or 'breslow', got {ties!r}")
+    Xa = _design(X)
+    n, p = Xa.shape
+    _check_finite("X", Xa)
+    if layout is None:
+        L = _prepare(n, time, event, entry, strata, weights)
+    else:
+        L = _given_layout(layout, n)
+    efron = ties == "efron"
+    nan_coef, nan_cov = np.full(p, np.nan), np.full((p, p), np.nan)
+    if L.events == 0:
+        msg = "" if p == 0 else "no events: the coefficients are not estimable"
+        return CoxFit(nan_coef, nan_cov, 0.0, 0.0, 0, p == 0, msg, n, 0)
+
+    D, scale, sd = _standardised(Xa, L)
+    ll0 = _evaluate(L, D, np.zeros(p), efron, 0)[0]
+    if p == 0:
+        return CoxFit(np.zeros(0), np.zeros((0, 0)), ll0, ll0, 0, True, "", n, L.events)
+
+    if init is None:
+        # (with no step allowed, the information must be the full data's)
+        start = _start(L, D, efron, ll0, warm_ok=max_iter >= 1)
+    else:
+        init_arr = _as_1d("init", init, None)
+        if init_arr.shape[0] != p:
+            raise ValueError(f"init has {init_arr.shape[0]} values but X has {p} columns")
+        _check_finite("init", init_arr)
+        ll, score, info = _evaluate(L, D, init_arr * scale, efron)
+        if not np.isfinite(ll):
+            msg = (
+                "log partial likelihood is not finite at the starting values (init); "
+                "start from zero or from smaller values"
+            )
+            return CoxFit(nan_coef, nan_cov, ll, ll0, 0, False, msg, n, L.events)
+        start = _Iterate(init_arr * scale, ll, score, info, 0, "", ll)
+
+    def back(b: np.ndarray, inf: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        try:
+            cov_s = linalg.inv(inf, check_finite=True)
+        except (linalg.LinAlgError, ValueError):
+            return b / scale, nan_cov
+        return b / scale, cov_s / np.outer(scale, scale)
+
+    it = _newton(L, D, efron, start, max_iter, tol)
+    beta, ll, score, info, iterations = it.beta, it.loglik, it.score, it.info, it.iterations
+    message = ""
+    if it.status == "singular":
+        message = _singular_message(info, sd)
+        return CoxFit(nan_coef, nan_cov, ll, ll0, iterations, False, message, n, L.events)
+    if it.status == "max_iter":
+        message = (
+            f"no convergence after {max_iter} Newton iteration(s) (last change in log "
+            f"partial likelihood {it.last_change:.3g}); raise max_iter, start from better "
+            "values (init), or look for a covariate with extreme values or separation"
+        )
+    elif it.status == "halving":
+        message = (
+            "step halving could not improve the log partial likelihood "
+            f"(at {ll:.6g}); the model may be overparameterised or a covariate may have "
+            "extreme values - rescale or drop columns, or give init"
+        )
+    converged = it.status == "converged"
+    if converged:
+        # the Newton step from the last point: a coefficient that keeps moving although the
+        # likelihood stopped changing is going to infinity (monotone likelihood), as when one
+        # group has no events; otherwise the step is taken without evaluating its end point
+        # (its log partial likelihood is the quadratic prediction, error of the order of the
+        # step cubed; the information stays the last point's, where no weight exp(eta)
+        # differs from the estimate's by more than a fraction of about 100 * tol)
+        nxt = _solve(info, score)
+        if nxt is None:
+            message = _singular_message(info, sd)
+            coef, _ = back(beta, info)
+            return CoxFit(coef, nan_cov, ll, ll0, iterations, False, message, n, L.events)
+        diverging = _diverging(nxt, beta, tol)
+        if diverging.size:
+            converged = False
+            message = (
+                f"coefficient(s) of column(s) {diverging.tolist()} diverge while the log "
+                "partial likelihood has levelled off (monotone likelihood: e.g. no events in "
+                "one group of a binary column); the estimate is infinite - merge groups or "
+                "drop the column"
+            )
+        else:
+            ll += float(score @ nxt) / 2.0
+            beta = beta + nxt
+    coef, cov = back(beta, info)
+    if not np.isfinite(cov).all() and not message:
+        message = "the information matrix could not be inverted at the estimate"
+        converged = False
+    return CoxFit(coef, cov, float(ll), float(ll0), iterations, converged, message, n, L.events)
+
+
+def refit_near(
+    X: Any, layout: Layout, init: Any, *, ties: str = "efron", tol: float = 1e-9,
+    max_iter: int = 50,
+) -> np.ndarray | None:
+    """Coefficients only, for refits that start close to their estimate (bootstrap replicates
+    started at the full-sample estimate): one Newton step from ``init`` with the full
+    information, then chord steps that keep that information and recompute only the log
+    partial likelihood and the score (the risk-set sums of ``exp(eta)`` alone, no Gram
+    product). The score is exact, so the fixed point is the maximum ``fit_cox`` finds; each step
+    shrinks the error by about the relative change of the information between ``init`` and
+    the estimate. Stops by ``fit_cox``'s rule (the next step would change no row's linear
+    predictor by more than ``100 * tol``). Returns None when it does not settle, the likelihood
+    falls or the information is singular: the caller then fits with ``fit_cox``.
+    """
+    if ties not in ("efron", "breslow"):
+        raise ValueError(f"ties must be 'efron' or 'breslow', got {ties!r}")
+    Xa = _design(X)
+    n, p = Xa.shape
+    _check_finite("X", Xa)
+    L = _given_layout(layout, n)
+    init_arr = _as_1d("init", init, p)
+    if p == 0 or L.events == 0 or not np.isfinite(init_arr).all():
+        return None
+    efron = ties == "efron"
+    D, scale, _ = _standardised(Xa, L)
+    beta = init_arr * scale
+    ll, score, info = _evaluate(L, D, beta, efron)
+    if not np.isfinite(ll) or not (np.isfinite(info).all() and np.isfinite(score).all()):
+        return None
+    try:
+        factor = linalg.cho_factor(info, check_finite=False)
+    except linalg.LinAlgError:
+        return None
+    for _ in range(max_iter):
+        step = linalg.cho_solve(factor, score, check_finite=False)
+        if not np.isfinite(step).all():
+            return None
+        if _settled(D, step, tol):
+            return np.asarray((beta + step) / scale)
+        beta = beta + step
+        ll_next, score, _ = _evaluate(L, D, beta, efron, 1)
+        if not np.isfinite(ll_next) or ll_next < ll - tol * max(1.0, abs(ll)):
+            return None
+        ll = ll_next
+    return None

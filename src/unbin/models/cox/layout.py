@@ -1,0 +1,392 @@
+"""One survival sample laid out for the Cox engine: input checks, the sort by stratum and time,
+the risk-set index ranges and sparse operators (``prepare_layout``, made once for any number of
+fits), and the sums over event times they support."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import sparse
+
+
+def _as_1d(name: str, values: Any, n: int | None, dtype: Any = float) -> np.ndarray:
+    arr = np.asarray(values, dtype=dtype)
+    if arr.ndim != 1:
+        raise ValueError(f"{name} must be one-dimensional, got shape {arr.shape}")
+    if n is not None and arr.shape[0] != n:
+        raise ValueError(f"{name} has {arr.shape[0]} values but X has {n} rows")
+    return arr
+
+
+def _check_finite(name: str, arr: np.ndarray) -> None:
+    if arr.size == 0 or np.isfinite(np.add.reduce(arr, axis=None)):
+        return  # a finite sum means no NaN or infinity (fast path)
+    bad = ~np.isfinite(arr)
+    if not bad.any():
+        return
+    if bad.any():
+        first = int(np.flatnonzero(bad.reshape(bad.shape[0], -1).any(axis=1))[0])
+        raise ValueError(
+            f"{name} has {int(bad.sum())} missing or infinite value(s) (first at row {first}); "
+            "drop or impute those rows before fitting"
+        )
+
+
+def _event_array(event: Any, n: int | None) -> np.ndarray:
+    raw = np.asarray(event)
+    if raw.ndim != 1 or (n is not None and raw.shape[0] != n):
+        raise ValueError(f"event must be one-dimensional with {n} values, got shape {raw.shape}")
+    if raw.dtype == bool:
+        return raw
+    num = np.asarray(raw, dtype=float)
+    ok = (num == 0) | (num == 1)
+    if not ok.all():
+        bad = num[~ok][:3]
+        raise ValueError(
+            f"event must be 0/1 (or boolean); found {int((~ok).sum())} other value(s), "
+            f"e.g. {bad.tolist()}"
+        )
+    return num == 1
+
+
+def _design(X: Any) -> np.ndarray:
+    arr = np.asarray(X, dtype=float)
+    if arr.ndim != 2:
+        raise ValueError(f"X must be a 2-D (n, p) array, got shape {arr.shape}")
+    return arr
+
+
+@dataclass(frozen=True)
+class Layout:
+    """The data sorted once, with the at-risk index ranges and the sparse risk-set operator.
+
+    Made by :func:`prepare_layout` (or inside :func:`fit_cox`); it depends on time, event,
+    entry, strata and weights only, never on X, so every model of one sample can share it.
+    Treat it as opaque: its fields are the engine's working arrays.
+    """
+
+    order: np.ndarray  # rows of the input at risk at some event time, by (stratum, time)
+    w: np.ndarray  # weights of kept rows (sorted)
+    unit_w: bool  # no weights given (all ones)
+    we: np.ndarray  # weight * event of kept rows
+    ev: np.ndarray  # positions (in kept rows) of events, grouped by event time
+    we_ev: np.ndarray  # weights of those events
+    wavg: np.ndarray  # (K,) mean weight of the events tied at t_k
+    wsum: np.ndarray  # (K,) summed weight of the events at t_k
+    wsum_untied: np.ndarray  # (K,) wsum, with 0 at the event times holding tied events
+    risk_op: sparse.csr_matrix  # (K, m): +1 at b_i, -1 at a_i (entered after t_k)
+    plain_op: bool  # risk_op is one +1 per row in row order (no delayed entry)
+    tie_k: np.ndarray  # (T,) the event times holding more than one event
+    tie_ev: np.ndarray  # positions (in kept rows) of the events at those times, grouped
+    tie_grp: np.ndarray  # index into tie_k of each event in tie_ev
+    tie_f: np.ndarray  # l / d_k for each event in tie_ev (Efron), l = 0 .. d_k - 1
+    tie_wavg: np.ndarray  # wavg of the event time of each event in tie_ev
+    tie_op: sparse.csr_matrix  # (T, m): 1 for the events at tie_k
+    b_idx: np.ndarray  # b_i + 1 (index into a zero-padded cumulative array)
+    a_idx: np.ndarray  # a_i + 1 if entered after the stratum's first event time, else 0
+    seg_end: np.ndarray  # (K,) one past the last event-time index of t_k's stratum
+    seg_start: np.ndarray  # (K,) first event-time index of t_k's stratum
+    k_bounds: np.ndarray  # first event-time index of each stratum with events, then K
+    row_starts: np.ndarray  # start of each stratum among kept rows
+    row_counts: np.ndarray
+    k_stratum: np.ndarray  # (K,) stratum code of each event time
+    k_time: np.ndarray  # (K,) the event time t_k
+    labels: np.ndarray  # stratum labels (index = code)
+    n_strata: int
+    late_entry: bool  # some row enters after the first event time of its stratum
+    n: int
+    events: int
+    # the kept rows' own values, sorted (to lay out a subsample without checking it again)
+    time_s: np.ndarray
+    event_s: np.ndarray
+    entry_s: np.ndarray | None
+    code_s: np.ndarray | None  # stratum codes (None without strata)
+    # the layouts of subsamples for the start of Newton's method, by stride (made on first use:
+    # they too depend on the sample only, so the fits sharing this layout share them)
+    subsamples: dict[int, Layout] = field(default_factory=dict, compare=False, repr=False)
+
+    @property
+    def ties(self) -> bool:
+        """Some event time has more than one event."""
+        return self.tie_k.size > 0
+
+
+def _prepare(
+    n: int,
+    time: Any,
+    event: Any,
+    entry: Any | None,
+    strata: Any | None,
+    weights: Any | None,
+) -> Layout:
+    t = _as_1d("time", time, n)
+    _check_finite("time", t)
+    e = _event_array(event, n)
+    if weights is not None:
+        w = _as_1d("weights", weights, n)
+        _check_finite("weights", w)
+        if (w <= 0).any():
+            raise ValueError(
+                f"weights must be positive; {int((w <= 0).sum())} are zero or negative "
+                "(drop those rows instead)"
+            )
+    if entry is not None:
+        en = _as_1d("entry", entry, n)
+        _check_finite("entry", en)
+        late = ~(t > en)
+        if late.any():
+            first = int(np.flatnonzero(late)[0])
+            raise ValueError(
+                f"time must be greater than entry (delayed entry): {int(late.sum())} row(s) "
+                f"have time <= entry, e.g. row {first} with entry={float(en[first])}, "
+                f"time={float(t[first])}"
+            )
+    scode: np.ndarray | None = None
+    if strata is None:
+        labels = np.array([0])
+    else:
+        s_arr = np.asarray(strata)
+        if s_arr.ndim != 1 or s_arr.shape[0] != n:
+            raise ValueError(f"strata must be one-dimensional with {n} values, got {s_arr.shape}")
+        codes, uniq = pd.factorize(s_arr, sort=True)
+        if (codes < 0).any():
+            raise ValueError(f"strata has {int((codes < 0).sum())} missing value(s)")
+        scode = codes.astype(np.int64)
+        labels = np.asarray(uniq)
+
+    # sort once: by stratum, then time (a quicksort on time, then a stable pass on the codes)
+    order = np.argsort(t)
+    n_strata = int(labels.size)
+    if scode is not None and n_strata > 1:
+        codes_small = scode.astype(np.uint16) if n_strata < 2**16 else scode
+        order = order[np.argsort(codes_small[order], kind="stable")]
+    t_s, e_s = t[order], e[order]
+    sc_s = None if scode is None else scode[order]
+    # runs of rows sharing (stratum, time); the runs holding an event are the event times k
+    new_run = np.empty(n, dtype=bool)
+    new_run[:1] = True
+    np.not_equal(t_s[1:], t_s[:-1], out=new_run[1:])
+    if sc_s is not None and n_strata > 1:
+        new_run[1:] |= sc_s[1:] != sc_s[:-1]
+    run_id = np.cumsum(new_run) - 1
+    run_first = np.flatnonzero(new_run)
+    run_event = np.bincount(run_id[e_s], minlength=run_first.size) > 0
+    run_k = np.cumsum(run_event) - 1  # last event time at or before each run
+    b = run_k[run_id]  # a row is at risk at event times (a, b]
+    k_first = run_first[run_event]
+    k_time = t_s[k_first]
+    k_stratum = np.zeros(k_first.size, dtype=np.int64) if sc_s is None else sc_s[k_first]
+    K = int(k_first.size)
+
+    if sc_s is None or n_strata == 1:
+        s_first = np.zeros(min(n, 1), dtype=np.int64)
+    else:
+        s_first = np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
+    s_runs = run_id[s_first]
+    lo_stratum = run_k[s_runs] + 1 - run_event[s_runs]  # first event time of each stratum
+    if s_first.size <= 1:
+        lo = np.full(n, lo_stratum[0] if n else 0, dtype=np.int64)
+    else:
+        lo = np.repeat(lo_stratum, np.diff(np.r_[s_first, n]))
+    en_s = None
+    if entry is None:
+        a = lo - 1
+    else:
+        en_s = en[order]
+        if n_strata == 1:
+            a = np.searchsorted(k_time, en_s, side="right") - 1
+        else:
+            assert sc_s is not None
+            values = np.unique(k_time)
+            span = np.int64(values.size + 1)
+            k_key = k_stratum * span + np.searchsorted(values, k_time) + 1
+            row_key = sc_s * span + np.searchsorted(values, en_s, side="right")
+            a = np.searchsorted(k_key, row_key, side="right") - 1
+    keep = b > a  # at risk at one event time at least
+    if not keep.all():
+        kept = np.flatnonzero(keep)
+        order, b, a, lo, e_s, t_s = order[kept], b[kept], a[kept], lo[kept], e_s[kept], t_s[kept]
+        sc_s = None if sc_s is None else sc_s[kept]
+        en_s = None if en_s is None else en_s[kept]
+    m = order.size
+    w_s = np.ones(m) if weights is None else w[order]
+
+    ev = np.flatnonzero(e_s)
+    g = b[ev]
+    d = np.bincount(g, minlength=K)
+    we_ev = w_s[ev]
+    wsum = np.bincount(g, weights=we_ev, minlength=K) if weights is not None else d.astype(float)
+    wavg = wsum / np.maximum(d, 1)
+
+    # Efron's terms differ from Breslow's only at the event times with tied events
+    tied = d > 1
+    tie_k = np.flatnonzero(tied)
+    in_tied = tied[g]
+    tie_ev, tie_g = ev[in_tied], g[in_tied]
+    tie_grp = (np.cumsum(tied) - 1)[tie_g]
+    tie_d = d[tie_k]
+    tie_first = np.cumsum(tie_d) - tie_d
+    tie_f = (np.arange(tie_ev.size) - tie_first[tie_grp]) / tie_d[tie_grp]
+    # events are sorted by event time, so the tie operator's rows are runs of events
+    tie_op = sparse.csr_matrix(
+        (np.ones(tie_ev.size), tie_ev, np.r_[0, np.cumsum(tie_d)]), shape=(tie_k.size, m)
+    )
+
+    entered_late = a >= lo
+    n_late = int(entered_late.sum())
+    if n_late == 0:  # rows are sorted by b: the operator's rows are runs of consecutive rows
+        indptr = np.r_[0, np.cumsum(np.bincount(b, minlength=K))]
+        risk_op = sparse.csr_matrix((np.ones(m), np.arange(m), indptr), shape=(K, m))
+    else:
+        rows = np.concatenate([b, a[entered_late]])
+        cols = np.concatenate([np.arange(m), np.flatnonzero(entered_late)])
+        vals = np.concatenate([np.ones(m), -np.ones(n_late)])
+        risk_op = sparse.csr_matrix((vals, (rows, cols)), shape=(K, m))
+
+    if n_strata == 1:
+        seg_start, seg_end = np.zeros(K, dtype=np.int64), np.full(K, K, dtype=np.int64)
+        k_bounds = np.array([0, K])
+    else:
+        k_new = np.ones(K, dtype=bool)
+        k_new[1:] = k_stratum[1:] != k_stratum[:-1]
+        k_bounds = np.flatnonzero(k_new)
+        k_sizes = np.diff(np.r_[k_bounds, K])
+        seg_start = np.repeat(k_bounds, k_sizes)
+        seg_end = np.repeat(np.r_[k_bounds[1:], K], k_sizes)
+        k_bounds = np.r_[k_bounds, K]
+
+    if m == 0:
+        starts = np.zeros(0, dtype=np.int64)
+    elif sc_s is None or n_strata == 1:
+        starts = np.zeros(1, dtype=np.int64)
+    else:
+        starts = np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
+    counts = np.diff(np.r_[starts, m])
+    return Layout(
+        order=order,
+        w=w_s,
+        unit_w=weights is None,
+        we=w_s * e_s,
+        ev=ev,
+        we_ev=we_ev,
+        wavg=wavg,
+        wsum=wsum,
+        wsum_untied=np.where(tied, 0.0, wsum),
+        risk_op=risk_op,
+        plain_op=n_late == 0,
+        tie_k=tie_k,
+        tie_ev=tie_ev,
+        tie_grp=tie_grp,
+        tie_f=tie_f,
+        tie_wavg=wavg[tie_g],
+        tie_op=tie_op,
+        b_idx=b + 1,
+        a_idx=np.where(entered_late, a + 1, 0),
+        seg_end=seg_end,
+        seg_start=seg_start,
+        k_bounds=k_bounds,
+        row_starts=starts,
+        row_counts=counts,
+        k_stratum=k_stratum,
+        k_time=k_time,
+        labels=labels,
+        n_strata=n_strata,
+        late_entry=n_late > 0,
+        n=n,
+        events=int(e.sum()),
+        time_s=t_s,
+        event_s=e_s,
+        entry_s=en_s,
+        code_s=sc_s,
+    )
+
+
+def prepare_layout(
+    time: Any,
+    event: Any,
+    *,
+    entry: Any | None = None,
+    strata: Any | None = None,
+    weights: Any | None = None,
+) -> Layout:
+    """Check and sort one sample once, for any number of fits of it: pass the result as
+    ``layout=`` to :func:`fit_cox` or :func:`baseline_cumhaz` with an X of the same rows.
+
+    The arguments mean what they mean for :func:`fit_cox`, and the same invalid input raises
+    the same ``ValueError``. The sort (by stratum, then time), the risk-set index ranges and the
+    sparse risk-set and tie operators depend on these arrays only, so a layout made here gives
+    bit-for-bit the fit that :func:`fit_cox` computes when it prepares the layout itself.
+    """
+    t = np.asarray(time)
+    if t.ndim != 1:
+        raise ValueError(f"time must be one-dimensional, got shape {t.shape}")
+    return _prepare(t.shape[0], t, event, entry, strata, weights)
+
+
+def _given_layout(layout: Any, n: int) -> Layout:
+    """``layout`` after checking that it is one and that it was made for ``n`` rows."""
+    if not isinstance(layout, Layout):
+        raise ValueError(f"layout must come from prepare_layout, got {type(layout).__name__}")
+    if layout.n != n:
+        raise ValueError(
+            f"layout was prepared for {layout.n} rows but X has {n}; prepare it from the same "
+            "rows as X"
+        )
+    return layout
+
+
+_FEW_STRATA = 64  # up to this many strata, sums restart by looping over strata
+
+
+def _scaled(L: Layout, op: sparse.csr_matrix, r: np.ndarray) -> sparse.csr_matrix:
+    """``op @ diag(r)``: the operator's values times r of their rows (columns of op)."""
+    data = r if op is L.risk_op and L.plain_op else op.data * r[op.indices]
+    return sparse.csr_matrix((data, op.indices, op.indptr), shape=op.shape)
+
+
+def _risk_sums(L: Layout, contrib: np.ndarray) -> np.ndarray:
+    """Risk-set sums per event time from per-event-time contributions.
+
+    ``contrib`` is (K, q): for each event time, the summed values of the rows whose last event
+    time at risk it is, minus those of the rows that entered just after it. Returns (q, K): the
+    reverse cumulative sum over event times, restarted at every stratum.
+    """
+    K, q = contrib.shape
+    if L.k_bounds.size <= _FEW_STRATA + 1:
+        out = np.empty((q, K))
+        for lo, hi in zip(L.k_bounds[:-1], L.k_bounds[1:], strict=True):
+            for j in range(q):  # one 1-D pass per column: faster than a 2-D cumsum here
+                np.cumsum(contrib[lo:hi][::-1, j], out=out[j, lo:hi][::-1])
+        return out
+    # many strata: restarted per stratum by subtracting the later strata's total; in extended
+    # precision so that those totals do not swamp a stratum's small late risk sets
+    rev = np.zeros((q, K + 1), dtype=np.longdouble)
+    rev[:, :-1] = np.cumsum(contrib[::-1].T.astype(np.longdouble), axis=1)[:, ::-1]
+    return np.asarray(rev[:, :-1] - rev[:, L.seg_end], dtype=float)
+
+
+def _forward_cum(L: Layout, c: np.ndarray) -> np.ndarray:
+    """Cumulative sum of ``c`` over event times within each stratum, zero-padded in front."""
+    out = np.zeros(c.size + 1)
+    if L.k_bounds.size <= _FEW_STRATA + 1:
+        for lo, hi in zip(L.k_bounds[:-1], L.k_bounds[1:], strict=True):
+            np.cumsum(c[lo:hi], out=out[lo + 1 : hi + 1])
+        return out
+    cum = np.concatenate([[0.0], np.cumsum(c.astype(np.longdouble))])
+    out[1:] = cum[1:] - cum[L.seg_start]
+    return out
+
+
+def _shifted_eta(L: Layout, eta: np.ndarray) -> np.ndarray:
+    """``eta`` less its maximum within each stratum (in place)."""
+    if eta.size == 0:
+        return eta
+    if L.row_starts.size <= 1:
+        eta -= eta.max()
+        return eta
+    top = np.maximum.reduceat(eta, L.row_starts)
+    eta -= np.repeat(top, L.row_counts)
+    return eta

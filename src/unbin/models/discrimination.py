@@ -1,0 +1,57 @@
+"""Discrimination of a fitted linear predictor: the C-index (AUC for binary outcomes, Harrell's C
+for survival outcomes). Not defined here for count and continuous outcomes (NaN).
+
+Several tables ask for the C-index of the same fits, so ``c_index`` computes it once per linear
+predictor: the value is kept in ``outcome.cache``, keyed by the identity of the array and holding
+a reference to it (so that the identity cannot pass to another array while the entry exists);
+linear predictors are never changed in place. For survival, Harrell's C compares only pairs
+within a stratum in which the longer-lived row was at risk at the earlier event time (entry
+before it); the time order and the tie and delayed-entry bookkeeping depend on (time, event,
+entry, strata) only and are kept there too (``unbin.models.cox.concordance_order``), with references
+to the arrays they were made from, so that they serve only the same arrays."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from .base import Outcome
+
+
+def auc(y: np.ndarray, score: np.ndarray) -> float:
+    """Area under the ROC curve by the Mann–Whitney rank formula (ties count one half)."""
+    y = np.asarray(y, dtype=bool)
+    n1, n0 = int(y.sum()), int((~y).sum())
+    if n1 == 0 or n0 == 0:
+        return float("nan")
+    ranks = stats.rankdata(score)
+    return float((ranks[y].sum() - n1 * (n1 + 1) / 2) / (n1 * n0))
+
+
+_MEMO = "c_index"
+_TIME_ORDER = "concordance_order"
+
+
+def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
+    """AUC (binary) or Harrell's C (survival; within strata, pairs at risk together) of the
+    linear predictor ``lp`` of a fit to ``outcome``'s rows; NaN for other families or without ``lp``. Computed once per ``lp``."""
+    if lp is None or outcome.family not in ("binary", "survival"):
+        return float("nan")
+    memo: dict[int, tuple[np.ndarray, float]] = outcome.cache.setdefault(_MEMO, {})
+    hit = memo.get(id(lp))
+    if hit is not None and hit[0] is lp:
+        return hit[1]
+    if outcome.family == "binary":
+        value = auc(outcome.y, lp)
+    else:
+        from .cox import concordance, concordance_order
+
+        assert outcome.time is not None
+        source = (outcome.time, outcome.y, outcome.entry, outcome.strata)
+        kept = outcome.cache.get(_TIME_ORDER)
+        if kept is None or any(a is not b for a, b in zip(kept[0], source, strict=True)):
+            order = concordance_order(outcome.time, outcome.y, outcome.entry, outcome.strata)
+            kept = outcome.cache[_TIME_ORDER] = (source, order)
+        value = float(concordance(outcome.time, lp, outcome.y, time_order=kept[1]))
+    memo[id(lp)] = (lp, value)
+    return value

@@ -1,0 +1,1 @@
+"""Running the workflow: the jobs the rule scripts call, and the runner."""

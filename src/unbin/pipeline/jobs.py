@@ -1,0 +1,370 @@
+"""What the workflow's jobs do, as plain functions (the rule scripts only call these).
+
+``run_analysis_job`` fits one analysis on one cohort and writes its per-job tables;
+``collect_tables`` concatenates every job's tables into the study-level tables. Questions never
+read files; this module is where reading and writing happens.
+"""
+
+from __future__ import annotations
+
+import importlib
+import json
+import logging
+import traceback
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import pandas as pd
+
+from ..consortium.basis import CommonBasis, combine, sample_summary
+from ..consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
+from ..data import (
+    _type_problems,
+    analysis_sample,
+    extract_rows,
+    file_sha256,
+    read_extract,
+)
+from ..errors import DataError, UnbinError
+from ..questions import QUESTION_TABLES, RESAMPLING_TABLES
+from ..results.provenance import provenance
+from ..results.tables import read_table, write_table
+from ..spec import Spec, digest, load_spec
+from ..terms.legacy import legacy_term
+
+if TYPE_CHECKING:
+    from ..refit.analysis import Refit
+
+# The statistics modules are imported when a job needs them: light jobs (summaries, bundles,
+# pooling, collecting) then start without scipy.stats, statsmodels and friends.
+
+
+def _builder(target: str) -> Callable[[Refit, Spec], pd.DataFrame]:
+    """``package.module:function`` (under ``unbin``) -> the table builder; every builder takes
+    (refit, spec)."""
+    module, name = target.split(":")
+    fn: Callable[[Refit, Spec], pd.DataFrame] = getattr(
+        importlib.import_module(f"unbin.{module}"), name)
+    return fn
+
+
+log = logging.getLogger("unbin")
+
+FIT_JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "status")
+JOB_TABLES: tuple[str, ...] = (*FIT_JOB_TABLES, *RESAMPLING_TABLES)
+STUDY_TABLES = JOB_TABLES
+
+
+def input_record(spec: Spec, cohort: str) -> dict[str, Any]:
+    c = spec.cohort(cohort)
+    return {"cohort": cohort, "path": c.path_as_written, "sha256": file_sha256(c.path),
+            "rows": extract_rows(c.path)}
+
+
+def _keyed(df: pd.DataFrame, cohort: str, analysis: str) -> pd.DataFrame:
+    df = df.copy()
+    df.insert(0, "analysis", analysis)
+    df.insert(0, "cohort", cohort)
+    return df
+
+
+def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
+            basis: CommonBasis | None = None, resampling: bool = True
+            ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
+    """Every question's table for one analysis on one cohort's rows, plus its status record
+    (the resampling questions too unless ``resampling`` is false: the workflow runs those in
+    their own job, ``resample_job``).
+
+    Problems of this analysis (bad data, empty sample, a failing question) are recorded in the
+    status, never raised: the other analyses must complete.
+    """
+    a = spec.analysis(analysis)
+    status: dict[str, Any] = {"status": "ok", "message": "", "n_input": len(frame), "n_used": 0,
+                              "family": a.family, "exposure": a.exposure}
+    tables: dict[str, pd.DataFrame] = {}
+    samples = pd.DataFrame({"step": pd.Series(dtype=str), "rows": pd.Series(dtype="int64")})
+    try:
+        problems = _type_problems(a, frame, spec)
+        if problems:
+            raise DataError(" ".join(problems))
+        sample = analysis_sample(frame, a, spec)
+        samples = pd.DataFrame(
+            [("rows in extract", sample.n_input)]
+            + [(f"dropped: {reason}", n) for reason, n in sample.dropped]
+            + [("analysis sample", sample.n)], columns=["step", "rows"])
+        status["n_used"] = sample.n
+        if sample.n < 10:
+            step, lost = max(sample.dropped, key=lambda d: d[1], default=("", 0))
+            most = f" (most were dropped by '{step}': {lost} rows)" if lost else ""
+            raise DataError(f"only {sample.n} rows are left after filters, complete cases and "
+                            f"follow-up checks{most}; check the filters and missing values (see "
+                            "samples.parquet).")
+        event = a.outcome.event
+        if event is not None:
+            events = int(sample.frame[event].sum())
+            if events == 0 or (a.family == "binary" and events == sample.n):
+                raise DataError(f"no {'events' if events == 0 else 'non-events'} in the analysis "
+                                f"sample: {event!r} is {1 if events else 0} in all {sample.n} "
+                                "rows; there is no contrast to estimate. Check the outcome "
+                                "coding and the filters.")
+        from ..refit.analysis import refit_analysis
+
+        refit = refit_analysis(sample, a, spec, cohort, basis)
+        failed = [f"{f.form}/{f.adjustment}: {f.result.message}" for f in refit.fits
+                  if not f.result.ok and f.selected]
+        builders = {**QUESTION_TABLES, **(RESAMPLING_TABLES if resampling else {})}
+        lost_questions: list[str] = []
+        for name, target in builders.items():
+            # One question that fails loses its own table only, never the analysis' others.
+            try:
+                tables[name] = _builder(target)(refit, spec)
+            except Exception as exc:
+                if not isinstance(exc, UnbinError):
+                    log.error("internal error in %s/%s, question %s:\n%s", cohort, analysis,
+                              name, traceback.format_exc())
+                tables[name] = pd.DataFrame()
+                lost_questions.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its "
+                            "table is empty, the other tables are complete")
+        notes = refit.messages + failed + lost_questions
+        if failed or lost_questions:
+            status["status"] = "partial"
+        status["message"] = " | ".join(dict.fromkeys(notes))
+    except UnbinError as exc:
+        status.update(status="failed", message=str(exc))
+        tables = {}
+    except Exception as exc:  # an internal error must not stop the other analyses
+        log.error("internal error in %s/%s:\n%s", cohort, analysis, traceback.format_exc())
+        status.update(status="error",
+                      message=f"internal error ({type(exc).__name__}: {exc}); please report it "
+                              "with the log file of this job.")
+        tables = {}
+    tables["samples"] = samples
+    tables["status"] = pd.DataFrame([status])
+    return tables, status
+
+
+def run_analysis_job(spec_path: str | Path, cohort: str, analysis: str,
+                     outdir: str | Path, basis_path: str | Path | None = None) -> dict[str, Any]:
+    spec = load_spec(spec_path).for_cohort(cohort)
+    a = spec.analysis(analysis)
+    rec = input_record(spec, cohort)
+    prov_base = dict(inputs=[rec], spec_digest=digest(spec.slice_for(analysis, cohort)),
+                     seed=spec.seed, study=spec.study)
+    try:
+        frame = read_extract(spec.cohort(cohort).path, a.columns)
+    except UnbinError as exc:
+        frame = pd.DataFrame()
+        tables = {"samples": pd.DataFrame({"step": pd.Series(dtype=str),
+                                           "rows": pd.Series(dtype="int64")}),
+                  "status": pd.DataFrame([{"status": "failed", "message": str(exc), "n_input": 0,
+                                           "n_used": 0, "family": a.family,
+                                           "exposure": a.exposure}])}
+        status = tables["status"].iloc[0].to_dict()
+    else:
+        basis = None
+        if basis_path is not None:
+            basis = CommonBasis.from_dict(json.loads(Path(basis_path).read_text()))
+        tables, status = analyse(spec, cohort, analysis, frame, basis, resampling=False)
+    out = Path(outdir)
+    for name in FIT_JOB_TABLES:
+        df = tables.get(name, pd.DataFrame())
+        write_table(_keyed(df, cohort, analysis), out / f"{name}.parquet",
+                    provenance(table=name, **prov_base))  # type: ignore[arg-type]
+    log.info("%s/%s: %s %s", cohort, analysis, status["status"], status["message"])
+    return status
+
+
+def collect_tables(spec_path: str | Path, work: str | Path, tables_dir: str | Path) -> None:
+    spec = load_spec(spec_path)
+    inputs = [input_record(spec, c.name) for c in spec.cohorts]
+    for name in STUDY_TABLES:
+        parts = []
+        for c in spec.cohorts:
+            for a in spec.analyses:
+                df = read_table(Path(work) / c.name / a.name / f"{name}.parquet")
+                if len(df):
+                    parts.append(df)
+        if parts:
+            out = pd.concat(parts, ignore_index=True)
+        else:
+            out = pd.DataFrame({"cohort": pd.Series(dtype=str),
+                                "analysis": pd.Series(dtype=str)})
+        write_table(out, Path(tables_dir) / f"{name}.parquet",
+                    provenance(inputs, digest(spec.raw), spec.seed, name, spec.study))
+
+
+# --------------------------------------------------------------------------- consortium mode
+
+
+def summarise_job(spec_path: str | Path, cohort: str, analysis: str, out: str | Path) -> None:
+    """A cohort's share-safe summary of one analysis' exposure (for the common basis)."""
+    spec = load_spec(spec_path).for_cohort(cohort)
+    a = spec.analysis(analysis)
+    summary: dict[str, Any] = {"cohort": cohort, "analysis": analysis, "status": "ok"}
+    try:
+        frame = read_extract(spec.cohort(cohort).path, a.columns)
+        problems = _type_problems(a, frame, spec)
+        if problems:
+            raise DataError(" ".join(problems))
+        sample = analysis_sample(frame, a, spec)
+        if sample.n < 10:
+            raise DataError(f"only {sample.n} rows in the analysis sample")
+        x = sample.frame[a.exposure].to_numpy(float)
+        summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous,
+                                      spec.min_cell))
+    except UnbinError as exc:
+        summary.update(status="failed", message=str(exc))
+    Path(out).parent.mkdir(parents=True, exist_ok=True)
+    Path(out).write_text(json.dumps(summary, sort_keys=True, indent=1))
+
+
+def common_basis_job(spec_path: str | Path, analysis: str, summaries: list[str],
+                     out: str | Path) -> None:
+    spec = load_spec(spec_path)
+    a = spec.analysis(analysis)
+    usable = [d for d in (json.loads(Path(p).read_text()) for p in summaries)
+              if d["status"] == "ok"]
+    if not usable:
+        raise DataError(f"analysis {analysis!r}: no cohort could summarise its sample; see the "
+                        "summaries/ folder for each cohort's message.")
+    basis = combine(usable, a.continuous)
+    Path(out).parent.mkdir(parents=True, exist_ok=True)
+    Path(out).write_text(json.dumps(basis.to_dict(), sort_keys=True, indent=1))
+
+
+BUNDLE_SOURCES = ("fits", "curves", "effects", "coefficients", "common_contrasts", "status",
+                  "cutpoints")
+
+
+def bundle_job(spec_path: str | Path, cohort: str, work: str | Path,
+               bundle_dir: str | Path) -> None:
+    """The cohort's share-safe bundle, built from its job tables."""
+    spec = load_spec(spec_path).for_cohort(cohort)
+    tables = {}
+    for name in BUNDLE_SOURCES:
+        parts = [read_table(Path(work) / cohort / a.name / f"{name}.parquet")
+                 for a in spec.analyses]
+        parts = [p for p in parts if len(p)]
+        tables[name] = pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(
+            columns=["cohort", "analysis", "form", "adjustment", "contrast", "events",
+                     "row_type", "n_used", "status"])
+    from ..consortium.bundles import bundle_problems, make_bundle
+
+    bundle = make_bundle(tables, spec.min_cell)
+    rec = input_record(spec, cohort)
+    grid = max(a.continuous.grid_points for a in spec.analyses)
+    problems = bundle_problems(bundle, spec.min_cell, grid)
+    if problems:
+        raise DataError("the bundle is not share-safe: " + "; ".join(problems))
+    prov = dict(inputs=[rec], spec_digest=digest({a.name: spec.slice_for(a.name, cohort)
+                                                  for a in spec.analyses}),
+                seed=spec.seed, study=spec.study)
+    for name in BUNDLE_TABLES:
+        write_table(bundle[name], Path(bundle_dir) / f"{name}.parquet",
+                    provenance(table=f"bundle:{name}", **prov))  # type: ignore[arg-type]
+
+
+def read_bundle(bundle_dir: str | Path) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
+    d = Path(bundle_dir)
+    missing = [n for n in BUNDLE_TABLES if not (d / f"{n}.parquet").is_file()]
+    if missing:
+        raise DataError(f"{str(d)!r} is not a complete unbin bundle: {missing} missing; pass the "
+                        "folders under <out>/bundles/ of a finished run.")
+    from ..results.tables import read_provenance
+
+    return ({n: read_table(d / f"{n}.parquet") for n in BUNDLE_TABLES},
+            read_provenance(d / "curves.parquet"))
+
+
+def pool_job(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
+    """Pool cohort bundles (from one run or from separate runs) into the pooled tables."""
+    bundles, provs = {}, []
+    for d in bundle_dirs:
+        bundle, prov = read_bundle(d)
+        cohorts = bundle["counts"]["cohort"].unique() if len(bundle["counts"]) else [Path(d).name]
+        name = str(cohorts[0])
+        if name in bundles:
+            raise DataError(f"two bundles are for cohort {name!r}; pass each cohort once.")
+        bundles[name] = bundle
+        provs.append(prov)
+    from ..consortium.pool import pool_bundles
+
+    pooled = pool_bundles(dict(sorted(bundles.items())))  # the same tables in any order
+    inputs = [i for p in provs for i in p.get("inputs", [])]
+    prov = dict(inputs=inputs, spec_digest=digest(sorted(p.get("spec_digest", "") for p in provs)),
+                seed=provs[0].get("seed", 0) if provs else 0,
+                study=provs[0].get("study", "") if provs else "")
+    for name in POOLED_TABLES:
+        df = pooled.get(name, pd.DataFrame())
+        if df.empty:
+            df = pd.DataFrame({"analysis": pd.Series(dtype=str)})
+        write_table(df, Path(tables_dir) / f"{name}.parquet",
+                    provenance(table=name, **prov))
+
+
+# --------------------------------------------------------------------------- versioned updates
+
+
+def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.DataFrame:
+    """What changed between two result folders (see ``unbin.results.compare``)."""
+    from ..results.compare import (
+        COMPARED,
+        compare_commits,
+        compare_provenance,
+        compare_tables,
+        run_record,
+    )
+    from ..results.tables import read_provenance
+
+    def tables(root: Path) -> dict[str, pd.DataFrame]:
+        names = [*COMPARED, "status"]
+        return {n: read_table(root / "tables" / f"{n}.parquet") for n in names
+                if (root / "tables" / f"{n}.parquet").is_file()}
+
+    def provs(root: Path) -> dict[tuple[str, str], dict[str, Any]]:
+        out = {}
+        for p in sorted((root / "work").glob("*/*/status.parquet")):
+            out[(p.parent.parent.name, p.parent.name)] = read_provenance(p)
+        return out
+
+    o, n = Path(old), Path(new)
+    for root in (o, n):
+        if not (root / "tables" / "status.parquet").is_file():
+            raise DataError(f"{str(root)!r} is not a finished unbin result folder (no "
+                            "tables/status.parquet).")
+    changes = compare_tables(tables(o), tables(n), tolerance)
+    prov = compare_provenance(provs(o), provs(n))
+    commits = compare_commits(run_record(o), run_record(n))
+    parts = [d for d in (commits, prov, changes) if len(d)]
+    return pd.concat(parts, ignore_index=True) if parts else changes
+
+
+def resample_job(spec_path: str | Path, cohort: str, analysis: str, outdir: str | Path) -> None:
+    """The resampling questions of one analysis on one cohort (bootstrap, permutations), on the
+    analysis sample; an analysis that cannot run leaves empty tables (its fit job records why)."""
+    spec = load_spec(spec_path).for_cohort(cohort)
+    a = spec.analysis(analysis)
+    prov_base = dict(inputs=[input_record(spec, cohort)],
+                     spec_digest=digest(spec.slice_for(analysis, cohort)), seed=spec.seed,
+                     study=spec.study)
+    tables: dict[str, pd.DataFrame] = {}
+    try:
+        frame = read_extract(spec.cohort(cohort).path, a.columns)
+        if _type_problems(a, frame, spec):
+            raise DataError("the data do not fit the spec (see the fit job's status)")
+        sample = analysis_sample(frame, a, spec)
+        if sample.n < 10:
+            raise DataError("too few rows")
+        from ..refit.analysis import bare_refit
+
+        r = bare_refit(sample, a, spec, cohort)
+        for name, target in RESAMPLING_TABLES.items():
+            tables[name] = _builder(target)(r, spec)
+    except UnbinError as exc:
+        log.info("%s/%s: resampling questions not run: %s", cohort, analysis, exc)
+        tables = {}
+    for name in RESAMPLING_TABLES:
+        df = tables.get(name, pd.DataFrame())
+        write_table(_keyed(df, cohort, analysis), Path(outdir) / f"{name}.parquet",
+                    provenance(table=name, **prov_base))  # type: ignore[arg-type]

@@ -1,0 +1,1 @@
+"""What people read: the terminal summary, the HTML report and the figures."""

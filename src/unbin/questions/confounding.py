@@ -1,0 +1,409 @@
+"""Residual confounding: how much of the confounding the legacy grouped adjustment leaves.
+
+The exposure's effect is estimated three ways on the same sample: crude (no adjustment variables;
+survival strata are kept), with the legacy adjustment (grouped where a grouping is declared,
+other numeric variables linear, factors as factors) and with continuous adjustment (numeric
+variables as restricted cubic splines). The share of the confounding that the grouped adjustment
+leaves (Becher 1992, Stat Med 11:1747) is
+
+    share_left = (e_grouped - e_continuous) / (e_crude - e_continuous),
+
+``share_removed`` its complement: the quantity Cochran (1968, Biometrics 24:295) tabulated for a
+normal confounder cut into c equal-frequency groups (63.7, 79.3, 86.1, 89.7 % for c = 2..5).
+
+Contrast. Rows: the exposure linear (``exposure_form = "linear"``: its 75th vs 25th percentile)
+and in the legacy groups (``"legacy"``: the group farthest from the legacy reference group vs
+that reference). Both run in the legacy paper's direction, comparison vs reference: when the
+comparison group lies below the reference, the linear contrast is 25th vs 75th percentile.
+``comparison``/``reference`` name the two ends, ``x_value``/``x_reference`` their exposure values
+(group medians for the legacy form).
+
+Scales (``scale_kind``). Odds and hazard ratios are not collapsible: adjusting for a predictor of
+the outcome moves them even when it is independent of the exposure, so a change-in-estimate on
+the model scale mixes confounding with non-collapsibility (Greenland, Robins & Pearl 1999, Stat
+Sci 14:29). The ``"marginal"`` rows (``primary`` marks the default one) therefore compare
+standardised (g-computation) contrasts, ``unbin.refit.standardise``: each model's predictions with
+every row's exposure set to the comparison and to the reference value, averaged over the sample
+— risk ratio (log scale in ``estimate_*``) and risk difference (binary; survival: the risk by
+the analysis' ``horizon`` from the Cox model's standardised survival, Breslow baseline), rate
+ratio (count: expected events per person-time), mean difference (continuous). With no
+confounding the crude and adjusted marginal contrasts estimate the same quantity. Their ``se_*``
+are bootstrap standard deviations and ``lower_*``/``upper_*`` bootstrap percentile limits. The
+``"conditional"`` row keeps the model-scale contrast (log odds/hazard/rate ratio or mean
+difference; ``se_*`` from the model, Wald limits) and splits its
+change-in-estimate, ``confounding = e_crude - e_continuous``, into
+
+    change_confounding       = e_crude - m_continuous
+    change_noncollapsibility = m_continuous - e_continuous,
+
+where ``m_continuous`` is the continuously adjusted model's marginal contrast mapped to the model
+scale (``unbin.refit.standardise.on_model_scale``: the log odds ratio of the standardised risks; for
+survival the log ratio of the standardised cumulative hazards at the horizon; the log rate ratio
+or the mean difference, which equal the conditional ones, so the non-collapsibility part is 0
+for counts and linear models). The crude model's contrast is its own marginal one (except with
+survival strata, whose mixing then falls into the confounding part).
+
+Bootstrap. Intervals are percentiles over ``resampling.bootstrap`` case-resampling replicates
+drawn once and shared by every model, so all estimates of a replicate come from the same
+resampled data; groupings, knots and contrast values stay as in the full sample. A replicate is
+refitted by Newton's method from the full-sample estimate on frequency weights — vectorised over
+replicates for the linear, logistic and Poisson models; for survival ``unbin.models.cox.fit_cox`` on the
+resampled rows, whose sort and risk sets are laid out once per replicate for all designs — and
+its standardised means come from the refitted coefficients by matrix products (survival: the
+replicate's own Breslow baseline). A replicate fails for a row (counted in ``bootstrap_failed``,
+left out of ``bootstrap_ok``) when one of the row's three estimates is missing: a design column
+without variation, no convergence, (logistic) fitted risks running to 0 or 1, or an undefined
+standardised contrast. ``confounding_clear`` is false when the interval of the confounding
+(crude - continuous) covers 0 — the share is then a ratio of noise and should not be read.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..models import EFFECT_SCALE, fit
+from ..models.base import FitResult
+from ..models.survival import cox_layout
+from ..models.weighted import _CHUNK_CELLS, WeightedGLM, resample_weights, weighted_cox_designs
+from ..refit.analysis import Refit, adjustment_terms, design
+from ..refit.contrasts import Z95
+from ..refit.risk import horizon_for
+from ..refit.standardise import MEASURES, contrast, cox_risks, glm_means, on_model_scale
+from ..spec import Spec
+from ..terms import GroupedTerm, LinearTerm, Term
+
+TABLE = "confounding"
+
+
+@dataclass
+class _Design:
+    X: np.ndarray
+    k: int  # the exposure is X's first k columns
+    at: tuple[np.ndarray, np.ndarray]  # exposure basis at the comparison and reference values
+    res: FitResult
+
+
+class _Designs:
+    """Designs of one analysis, fitted once each (identical term lists share a fit)."""
+
+    def __init__(self, r: Refit, horizon: float | None):
+        self.r, self.horizon = r, horizon
+        self.items: dict[str, _Design] = {}
+        self.notes: dict[str, str] = {}
+        self._means: dict[str, np.ndarray] = {}
+
+    @property
+    def marginal_ok(self) -> bool:
+        return self.r.family != "survival" or self.horizon is not None
+
+    def add(self, exposure: tuple[Term, ...], adjust: tuple[Term, ...],
+            at: tuple[np.ndarray, np.ndarray]) -> str:
+        key = repr((exposure, adjust))
+        if key not in self.items:
+            X, names = design(self.r.sample.frame, self.r.x, exposure, adjust)
+            k = sum(len(t.names()) for t in exposure)
+            self.items[key] = _Design(X, k, at, fit(self.r.family, X, self.r.outcome, names))
+        return key
+
+    def _d(self, key: str) -> np.ndarray:
+        at = self.items[key].at
+        return at[0] - at[1]
+
+    def estimate(self, key: str) -> tuple[float, float]:
+        """The conditional contrast (model scale) and its standard error."""
+        it = self.items[key]
+        if not it.res.ok:
+            return float("nan"), float("nan")
+        lo = 1 if self.r.family != "survival" else 0  # after the intercept
+        b, V = it.res.coef[lo:lo + it.k], it.res.cov[lo:lo + it.k, lo:lo + it.k]
+        d = self._d(key)
+        return float(d @ b), float(np.sqrt(max(float(d @ V @ d), 0.0)))
+
+    def means(self, key: str) -> np.ndarray:
+        """Standardised means at the comparison and the reference value (full sample)."""
+        if key not in self._means:
+            it, o = self.items[key], self.r.outcome
+            out = np.full(2, np.nan)
+            if it.res.ok and self.marginal_ok:
+                if self.r.family == "survival":
+                    assert o.time is not None and self.horizon is not None
+                    out, self.notes[key] = cox_risks(it.X, it.k, it.res.coef, it.at, o.time, o.y,
+                                                     self.horizon, entry=o.entry,
+                                                     strata=o.strata, layout=cox_layout(o))
+                else:
+                    out = glm_means(self.r.family, it.X, it.k, it.res.coef, it.at,
+                                    np.ones((1, o.n)), o.offset)[0]
+            self._means[key] = out
+        return self._means[key]
+
+    def bootstrap(self, rng: np.random.Generator, replicates: int
+                  ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
+        """Per design, the conditional contrast (B,) and the standardised means (B, 2) in every
+        replicate; the replicates are shared by all designs, and the means come from each
+        replicate's coefficients by matrix products (no refit)."""
+        r, o = self.r, self.r.outcome
+        n = o.n
+        cond = {k: np.full(replicates, np.nan) for k in self.items}
+        marg = {k: np.full((replicates, 2), np.nan) for k in self.items}
+        p_max = max((v.X.shape[1] for v in self.items.values()), default=0)
+        chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
+        ok = [(key, it) for key, it in self.items.items() if it.res.ok]
+        prepared: list[WeightedGLM] = []
+        for c0 in range(0, replicates, chunk):
+            W = resample_weights(rng, n, min(chunk, replicates - c0))
+            if r.family == "survival":  # all designs on each replicate's rows and Cox layout
+                def risks(b: int, j: int, Xm: np.ndarray, m: np.ndarray, layout: Any,
+                          coef: np.ndarray, c0: int = c0) -> None:
+                    key, it = ok[j]
+                    assert o.time is not None and self.horizon is not None
+
+                    def pick(v: np.ndarray | None) -> np.ndarray | None:
+                        return None if v is None else v[m]
+
+                    try:
+                        marg[key][c0 + b] = cox_risks(Xm, it.k, coef, it.at, o.time[m], o.y[m],
+                                                      self.horizon, entry=pick(o.entry),
+                                                      strata=pick(o.strata), layout=layout)[0]
+                    except ValueError:
+                        pass
+                coefs = weighted_cox_designs([(it.X, it.res.coef) for _, it in ok], o, W,
+                                             risks if self.marginal_ok else None)
+                for (key, it), coef in zip(ok, coefs, strict=True):
+                    cond[key][c0:c0 + len(W)] = coef[:, :it.k] @ self._d(key)
+                continue
+            if not prepared:  # each design standardised once, for every chunk
+                prepared.extend(WeightedGLM(r.family, it.X, o, it.res.coef) for _, it in ok)
+            for (key, it), g in zip(ok, prepared, strict=True):
+                coef = g.coef(W)
+                cond[key][c0:c0 + len(W)] = coef[:, 1:1 + it.k] @ self._d(key)
+                marg[key][c0:c0 + len(W)] = glm_means(r.family, it.X, it.k, coef, it.at, W,
+                                                      o.offset)
+        return cond, marg
+
+
+@dataclass(frozen=True)
+class _Form:
+    form: str
+    terms: tuple[Term, ...]
+    comparison: str
+    reference: str
+    x_value: float
+    x_reference: float
+    at: tuple[np.ndarray, np.ndarray]
+
+    @property
+    def contrast(self) -> str:
+        if self.form == "linear":
+            return self.comparison.replace(" percentile", "") + f" vs {self.reference}"
+        return f"{self.comparison} vs {self.reference}"
+
+
+def _exposure_forms(r: Refit) -> list[_Form]:
+    """The linear form (75th vs 25th percentile) and the legacy groups (the group farthest from
+    the legacy reference vs the reference), both in the legacy paper's direction: when the
+    comparison group lies below the reference, the linear contrast is 25th vs 75th."""
+    term = r.legacy
+    codes = term.codes(r.x)
+    ref = term.reference
+    present = [g for g in range(len(term.labels)) if g != ref and np.any(codes == g)]
+    comp = max(present, key=lambda g: (abs(g - ref), g)) if present else None
+    up = comp is None or comp > ref
+    q25, q75 = (float(v) for v in np.percentile(r.x, [25, 75]))
+    lin = (LinearTerm(r.analysis.exposure),)
+    x1, x0, l1, l0 = ((q75, q25, "75th", "25th") if up else (q25, q75, "25th", "75th"))
+    forms = [_Form("linear", lin, f"{l1} percentile", f"{l0} percentile", x1, x0,
+                   (np.array([x1]), np.array([x0])))]
+    if comp is not None and np.any(codes == ref):
+        x1 = float(np.median(r.x[codes == comp]))
+        x0 = float(np.median(r.x[codes == ref]))
+        forms.append(_Form("legacy", (term,), term.labels[comp], term.labels[ref], x1, x0,
+                           (term.basis([x1])[0], term.basis([x0])[0])))
+    return forms
+
+
+COLUMNS = ["exposure_form", "contrast", "comparison", "reference", "x_value", "x_reference",
+           "scope", "grouping", "scale_kind", "scale", "primary", "horizon", "n",
+           *(f"{c}_{w}" for w in ("crude", "grouped", "continuous")
+             for c in ("estimate", "se", "lower", "upper")), "confounding", "confounding_lower", "confounding_upper",
+           "confounding_clear", "residual", "share_left", "share_left_lower", "share_left_upper",
+           "share_removed", "change_confounding", "change_confounding_lower",
+           "change_confounding_upper", "change_noncollapsibility",
+           "change_noncollapsibility_lower", "change_noncollapsibility_upper", "bootstrap",
+           "bootstrap_ok", "bootstrap_failed", "largest", "effect_crude", "effect_grouped",
+           "effect_continuous", "status", "message"]
+_RATIO_SCALES = {"odds ratio", "hazard ratio", "rate ratio", "risk ratio"}
+
+
+def _interval(v: np.ndarray) -> tuple[float, float]:
+    lo, hi = np.percentile(v, [2.5, 97.5])
+    return float(lo), float(hi)
+
+
+def _compare(est: np.ndarray, boot: np.ndarray | None, n_boot: int,
+             notes: list[str]) -> tuple[dict[str, Any], np.ndarray | None]:
+    """Confounding, residual and share from (crude, grouped, continuous) estimates, with
+    percentile intervals from the replicates ``boot`` (B, 3); a replicate in which any of the
+    three is missing counts as failed. Also returns the rows of the usable replicates."""
+    c, g, m = (float(v) for v in est)
+    total, resid = c - m, g - m
+    share = resid / total if np.isfinite(total) and total != 0 else float("nan")
+    row: dict[str, Any] = {"confounding": total, "residual": resid, "share_left": share,
+                           "share_removed": 1.0 - share}
+    if boot is None:
+        return row, None
+    ok = np.all(np.isfinite(boot), axis=1)
+    row["bootstrap_ok"], row["bootstrap_failed"] = int(ok.sum()), n_boot - int(ok.sum())
+    if ok.sum() < max(2, n_boot // 2):
+        notes.append(f"only {int(ok.sum())} of {n_boot} bootstrap replicates could be "
+                     "refitted; no interval")
+        return row, None
+    b = boot[ok]
+    tot = b[:, 0] - b[:, 2]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s = (b[:, 1] - b[:, 2]) / tot
+    if np.isfinite(s).sum() >= 2:
+        row["share_left_lower"], row["share_left_upper"] = _interval(s[np.isfinite(s)])
+    lo, hi = _interval(tot)
+    row["confounding_lower"], row["confounding_upper"] = lo, hi
+    row["confounding_clear"] = bool(lo > 0 or hi < 0)
+    if not row["confounding_clear"]:
+        notes.append("the confounding (crude - continuous) is not clearly different from zero "
+                     "(its bootstrap interval covers 0), so the share is unstable")
+    return row, b
+
+
+def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
+    """Residual confounding of one analysis (see the module docstring)."""
+    a = r.analysis
+    df = r.sample.frame
+    legacy_adj = adjustment_terms(df, a, spec, "legacy")
+    cont_adj = adjustment_terms(df, a, spec, "continuous")
+    if not legacy_adj:
+        return pd.DataFrame([{"exposure_form": "", "scope": "all", "n": r.outcome.n,
+                              "scale": EFFECT_SCALE[r.family], "status": "skipped",
+                              "message": "no adjustment variables: there is no confounding "
+                                         "adjustment to compare"}], columns=COLUMNS)
+    scopes: list[tuple[str, tuple[Term, ...]]] = [("all", legacy_adj)]
+    for t in legacy_adj:
+        if isinstance(t, GroupedTerm):
+            scopes.append((t.variable, tuple(t if u.variable == t.variable else u
+                                             for u in cont_adj)))
+    horizon = horizon_for(a, spec) if r.family == "survival" else None
+    designs = _Designs(r, horizon)
+    plan = []
+    for f in _exposure_forms(r):
+        crude = designs.add(f.terms, (), f.at)
+        cont = designs.add(f.terms, cont_adj, f.at)
+        for scope, adj in scopes:
+            plan.append((f, scope, adj, (crude, designs.add(f.terms, adj, f.at), cont)))
+    n_boot = spec.resampling.bootstrap
+    b_cond: dict[str, np.ndarray] = {}
+    b_marg: dict[str, np.ndarray] = {}
+    if n_boot > 0:
+        b_cond, b_marg = designs.bootstrap(spec.rng(a.name, "confounding-bootstrap"), n_boot)
+    fam = r.family
+    rows = []
+    for f, scope, adj, keys in plan:
+        base: dict[str, Any] = {
+            "exposure_form": f.form, "contrast": f.contrast, "comparison": f.comparison,
+            "reference": f.reference, "x_value": f.x_value, "x_reference": f.x_reference,
+            "scope": scope, "n": r.outcome.n, "bootstrap": n_boot, "horizon": horizon,
+            "grouping": "; ".join(f"{t.variable}: {t.describe()}" for t in adj
+                                  if isinstance(t, GroupedTerm)) or "none grouped"}
+        fails = [designs.items[k].res.message for k in keys if not designs.items[k].res.ok]
+        means = [designs.means(k) for k in keys]
+        for scale, kind in MEASURES[fam]:
+            notes = list(fails) + [designs.notes[k] for k in keys if designs.notes.get(k)]
+            est = np.array([contrast(kind, mu[0], mu[1]) for mu in means])
+            boot = (np.column_stack([contrast(kind, b_marg[k][:, 0], b_marg[k][:, 1])
+                                     for k in keys]) if b_marg else None)
+            row, used = _compare(est, boot, n_boot, notes)
+            sd, lims = np.full(3, np.nan), np.full((2, 3), np.nan)
+            if used is not None:
+                sd, lims = used.std(axis=0, ddof=1), np.percentile(used, [2.5, 97.5], axis=0)
+            row.update(base, scale_kind="marginal", scale=scale,
+                       primary=scale == MEASURES[fam][0][0])
+            for i, what in enumerate(("crude", "grouped", "continuous")):
+                row[f"estimate_{what}"], row[f"se_{what}"] = float(est[i]), float(sd[i])
+                row[f"lower_{what}"], row[f"upper_{what}"] = float(lims[0, i]), float(lims[1, i])
+            row["status"] = "ok" if np.isfinite(row["share_left"]) else "failed"
+            if not designs.marginal_ok:
+                row["status"] = "skipped"
+                notes = ["no horizon for the standardised risks: give outcome.horizon or the "
+                         "study-level horizon"]
+            row["message"] = "; ".join(dict.fromkeys(notes))
+            rows.append(row)
+        # the conditional (model-scale) contrasts, with the change-in-estimate decomposed
+        notes = list(fails)
+        cond = [designs.estimate(k) for k in keys]
+        est = np.array([e for e, _ in cond])
+        boot = np.column_stack([b_cond[k] for k in keys]) if b_cond else None
+        row, used = _compare(est, boot, n_boot, notes)
+        row.update(base, scale_kind="conditional", scale=EFFECT_SCALE[fam], primary=False)
+        for (e, se), what in zip(cond, ("crude", "grouped", "continuous"), strict=True):
+            row[f"estimate_{what}"], row[f"se_{what}"] = e, se
+            row[f"lower_{what}"], row[f"upper_{what}"] = e - Z95 * se, e + Z95 * se
+        marg_co = float(on_model_scale(fam, *means[2]))
+        row["change_confounding"] = est[0] - marg_co
+        row["change_noncollapsibility"] = marg_co - est[2]
+        if boot is not None and b_marg:
+            bm = on_model_scale(fam, b_marg[keys[2]][:, 0], b_marg[keys[2]][:, 1])
+            good = np.all(np.isfinite(boot), axis=1) & np.isfinite(bm)
+            if good.sum() >= max(2, n_boot // 2):
+                for col, v in (("change_confounding", boot[good, 0] - bm[good]),
+                               ("change_noncollapsibility", bm[good] - boot[good, 2])):
+                    row[f"{col}_lower"], row[f"{col}_upper"] = _interval(v)
+        row["status"] = "ok" if np.isfinite(row["share_left"]) else "failed"
+        row["message"] = "; ".join(dict.fromkeys(notes))
+        rows.append(row)
+    out = pd.DataFrame(rows, columns=COLUMNS)
+    for i in out.index:
+        sc = out.at[i, "scale"]
+        for what in ("crude", "grouped", "continuous"):
+            e = out.at[i, f"estimate_{what}"]
+            out.at[i, f"effect_{what}"] = float(np.exp(e)) if sc in _RATIO_SCALES else e
+    single = out["scope"] != "all"
+    out["largest"] = False
+    for _, g in out[single & out["share_left"].notna()].groupby(
+            ["exposure_form", "scale_kind", "scale"], sort=False):
+        out.loc[g["share_left"].idxmax(), "largest"] = True
+    for col in ("bootstrap", "bootstrap_ok", "bootstrap_failed", "n"):
+        out[col] = out[col].astype("Int64")
+    for col in ("largest", "primary"):
+        out[col] = out[col].fillna(False).astype(bool)
+    out["confounding_clear"] = out["confounding_clear"].astype("boolean")
+    return out
+
+
+def summary_line(df: pd.DataFrame) -> str:
+    """One line for the terminal summary: the share of the confounding the legacy adjustment
+    leaves, per analysis, on the marginal (standardised) scale for the linear exposure form,
+    and the confounder whose grouping leaves the most."""
+    if df.empty or "scope" not in df:
+        return "Residual confounding: no analyses."
+    parts = []
+    for name, g in df.groupby("analysis", sort=False):
+        lin = g[g["exposure_form"] == "linear"]
+        if "primary" in lin:
+            lin = lin[lin["primary"].fillna(False).astype(bool)]
+        allrow = lin[lin["scope"] == "all"]
+        if allrow.empty or pd.isna(allrow["share_left"].iloc[0]):
+            parts.append(f"{name} –")
+            continue
+        row = allrow.iloc[0]
+        clear = row["confounding_clear"]
+        if pd.notna(clear) and not bool(clear):
+            parts.append(f"{name} little confounding")
+            continue
+        ci = ""
+        if pd.notna(row["share_left_lower"]):
+            ci = f" ({100 * row['share_left_lower']:.0f}–{100 * row['share_left_upper']:.0f})"
+        worst = lin[lin["largest"].astype(bool)]
+        who = f", most by {worst['scope'].iloc[0]}" if len(worst) else ""
+        parts.append(f"{name} {100 * row['share_left']:.0f}%{ci}{who}")
+    return ("Residual confounding (share the legacy adjustment leaves; standardised contrast "
+            "of the exposure's quartiles): " + "; ".join(parts))

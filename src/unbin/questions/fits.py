@@ -1,0 +1,50 @@
+"""The fits table: one row per fitted model of an analysis (exposure form x adjustment coding)."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+
+from ..models.discrimination import c_index
+from ..refit.analysis import Refit
+from ..spec import Spec
+
+
+def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+    rows = []
+    nulls = {f.adjustment: f.result for f in r.fits if f.form == "null"}
+    for f in r.fits:
+        res = f.result
+        null = nulls.get(f.adjustment)
+        lr = 2 * (res.loglik - null.loglik) if (null is not None and null.ok and res.ok) else np.nan
+        df_exp = sum(t.df for t in f.exposure_terms)
+        basis = [t.to_dict() for t in f.exposure_terms]
+        lp = res.linear_predictor if res.ok else None
+        c = c_index(r.outcome, lp) if lp is not None else np.nan
+        rows.append({
+            "form": f.form,
+            "detail": f.detail,
+            "adjustment": f.adjustment,
+            "selected": bool(f.selected),
+            "n": res.n,
+            "events": res.events if res.events is not None else pd.NA,
+            "n_params": res.n_params,
+            "exposure_df": df_exp,
+            "loglik": res.loglik,
+            "lr_chi2": lr,
+            "aic": res.aic if res.ok else np.nan,
+            "bic": res.bic if res.ok else np.nan,
+            "c_index": c,
+            "r2": res.extra.get("r2", np.nan),
+            "converged": bool(res.converged),
+            "status": res.status,
+            "message": res.message,
+            "warnings": " | ".join(res.warnings),
+            "exposure_basis": json.dumps(basis, sort_keys=True),
+            "adjustment_terms": json.dumps([t.to_dict() for t in f.adjust_terms], sort_keys=True),
+        })
+    out = pd.DataFrame(rows)
+    out["events"] = out["events"].astype("Int64")
+    return out

@@ -1,0 +1,159 @@
+"""Standardised (g-computation) means of a fitted model with the exposure set to chosen values.
+
+A model's linear predictor splits into the exposure's part and the rest,
+``eta_i = e(x_i)'b + rest_i`` (``e`` the exposure basis; ``rest`` the intercept or the log
+baseline, the adjustment terms and, for counts, the log person-time offset). Setting every
+row's exposure to ``v`` and averaging the prediction over the sample gives the standardised
+mean at ``v`` (the g-formula, Robins 1986, Math Model 7:1393; standardisation of a fitted
+model, Lane & Nelder 1982, Biometrics 38:613). With frequency weights ``w`` (ones for the
+sample itself, resampling counts for a bootstrap replicate):
+
+- binary: ``R(v) = sum_i w_i expit(rest_i + e(v)'b) / sum_i w_i``, the standardised risk;
+- continuous: ``R(v) = sum_i w_i (rest_i + e(v)'b) / sum_i w_i``, the standardised mean;
+- count: ``R(v) = sum_i w_i t_i exp(r_i + e(v)'b) / sum_i w_i t_i`` with ``r_i`` the rest
+  without the offset and ``t_i`` the row's person-time: the standardised rate, events per unit
+  of person-time expected with every row's own follow-up;
+- survival: ``R(v) = 1 - sum_i w_i exp(-H0_s(h) exp(rest_i + e(v)'b)) / sum_i w_i``, one
+  minus the standardised survival at the horizon ``h``, with the Breslow baseline cumulative
+  hazard ``H0_s`` of the row's stratum ``s`` (``unbin.models.cox.baseline_cumhaz``, a step function,
+  held at its last value past the stratum's last event time).
+
+The contrasts of two standardised means (:data:`MEASURES`) are collapsible: with no confounding
+the crude and the adjusted contrasts estimate the same quantity, unlike odds and hazard ratios,
+whose conditional value moves with any adjustment for a predictor of the outcome.
+:func:`on_model_scale` maps the two means to the model's own scale (log odds ratio of the
+standardised risks; log ratio of the standardised cumulative hazards ``-log(1 - R)`` at the
+horizon) so a conditional estimate can be compared with its marginal counterpart.
+
+Predictions for many coefficient vectors (bootstrap replicates) come from matrix products of
+the design with the coefficient matrix, never from refits.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+from scipy import special
+
+from ..models.cox import Layout, baseline_cumhaz
+
+# The marginal contrasts reported per family: (name, kind); "ratio" contrasts are taken on the
+# log scale (log R1 - log R0), "difference" ones as R1 - R0.
+MEASURES: dict[str, tuple[tuple[str, str], ...]] = {
+    "binary": (("risk ratio", "ratio"), ("risk difference", "difference")),
+    "survival": (("risk ratio", "ratio"), ("risk difference", "difference")),
+    "count": (("rate ratio", "ratio"),),
+    "continuous": (("mean difference", "difference"),),
+}
+
+
+def contrast(kind: str, r1: np.ndarray, r0: np.ndarray) -> np.ndarray:
+    """R1 - R0 (``kind = "difference"``) or log R1 - log R0 (``"ratio"``); NaN where undefined."""
+    r1, r0 = np.asarray(r1, dtype=float), np.asarray(r0, dtype=float)
+    if kind == "difference":
+        return r1 - r0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = np.log(r1) - np.log(r0)
+    return np.where(np.isfinite(out), out, np.nan)
+
+
+def on_model_scale(family: str, r1: np.ndarray, r0: np.ndarray) -> np.ndarray:
+    """The contrast of two standardised means on the model's scale: logit R1 - logit R0
+    (binary), log(-log(1 - R1)) - log(-log(1 - R0)) (survival: the log ratio of the
+    standardised cumulative hazards at the horizon), log R1 - log R0 (count), R1 - R0
+    (continuous)."""
+    r1, r0 = np.asarray(r1, dtype=float), np.asarray(r0, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if family == "binary":
+            out = special.logit(r1) - special.logit(r0)
+        elif family == "survival":
+            out = np.log(-np.log1p(-r1)) - np.log(-np.log1p(-r0))
+        elif family == "count":
+            out = np.log(r1) - np.log(r0)
+        else:
+            out = r1 - r0
+    return np.where(np.isfinite(out), out, np.nan)
+
+
+def glm_means(family: str, X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
+              W: np.ndarray, offset: np.ndarray | None = None) -> np.ndarray:
+    """Standardised means (module docstring) of the linear, logistic or Poisson model for each
+    row of ``coef`` (shape (C, p + 1), intercept first, then X's columns; NaN rows give NaN)
+    with frequency weights ``W`` (shape (C, n)), at each exposure basis row in ``at`` (the
+    exposure is X's first ``k`` columns). Returns shape (C, len(at))."""
+    X = np.asarray(X, dtype=float)
+    coef = np.atleast_2d(np.asarray(coef, dtype=float))
+    W = np.atleast_2d(np.asarray(W, dtype=float))
+    rest = X[:, k:] @ coef[:, 1 + k:].T  # (n, C): adjustment part, exposure left out
+    rest = rest.T + coef[:, :1]  # (C, n)
+    if family == "count" and offset is not None:
+        W = W * np.exp(offset)  # person-time weights; the rate itself is without the offset
+    total = W.sum(axis=1)
+    out = np.empty((coef.shape[0], len(at)))
+    for j, a in enumerate(at):
+        shift = coef[:, 1:1 + k] @ np.asarray(a, dtype=float)  # (C,)
+        eta = rest + shift[:, None]
+        if family == "binary":
+            mu = special.expit(eta)
+        elif family == "count":
+            with np.errstate(over="ignore"):
+                mu = np.exp(eta)
+        else:
+            mu = eta
+        out[:, j] = np.einsum("cn,cn->c", W, mu) / total
+    return out
+
+
+def cumhaz_at(base: pd.DataFrame, strata: np.ndarray | None, n: int,
+              horizon: float) -> tuple[np.ndarray, list[str], list[str]]:
+    """H0_s(horizon) for each of ``n`` rows from a :func:`unbin.models.cox.baseline_cumhaz` table
+    (step function; 0 before the stratum's first event time, held at its last value past the
+    last one), with the strata whose baseline is held and those with no event by the horizon."""
+    h0 = np.zeros(n)
+    labels = np.zeros(n, dtype=np.int64) if strata is None else np.asarray(strata)
+    held: list[str] = []
+    for lab, part in base.groupby("stratum", sort=True):
+        t = part["time"].to_numpy(float)
+        pos = int(np.searchsorted(t, horizon, side="right")) - 1
+        if pos >= 0:
+            h0[labels == lab] = float(part["cumhaz"].to_numpy(float)[pos])
+            if horizon > t[-1]:
+                held.append(str(lab))
+    empty = [str(v) for v in np.unique(labels[h0 == 0])]
+    return h0, held, empty
+
+
+def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
+              time: np.ndarray, event: np.ndarray, horizon: float, *,
+              entry: np.ndarray | None = None, strata: np.ndarray | None = None,
+              layout: Layout | None = None) -> tuple[np.ndarray, str]:
+    """Standardised risks by ``horizon`` (module docstring) of the Cox model with coefficients
+    ``coef`` (no intercept) on the rows given (a replicate's rows repeated as drawn), at each
+    exposure basis row in ``at``; the baseline is Breslow's on the same rows (``layout`` as
+    for :func:`unbin.models.cox.baseline_cumhaz`). Returns (risks, note on the horizon)."""
+    X = np.asarray(X, dtype=float)
+    coef = np.asarray(coef, dtype=float)
+    eta = X @ coef
+    centre = float(np.mean(eta)) if eta.size else 0.0  # baseline at the centred predictor
+    base = baseline_cumhaz((eta - centre)[:, None], time, event, [1.0], entry=entry,
+                           strata=strata, layout=layout)
+    h0, held, empty = cumhaz_at(base, strata, X.shape[0], horizon)
+    rest = eta - centre - X[:, :k] @ coef[:k]
+    out = np.empty(len(at))
+    for j, a in enumerate(at):
+        shift = float(np.asarray(a, dtype=float) @ coef[:k])
+        with np.errstate(over="ignore"):
+            out[j] = 1.0 - float(np.mean(np.exp(-h0 * np.exp(rest + shift))))
+
+    def where(labs: list[str]) -> str:
+        return f" (stratum {', '.join(labs)})" if strata is not None else ""
+
+    notes = []
+    if held:
+        notes.append(f"the horizon {horizon:g} is past the last event time{where(held)}: the "
+                     "baseline is held at its last value, not extrapolated")
+    if empty:
+        notes.append(f"no event before the horizon {horizon:g}{where(empty)}: predicted risk 0")
+    return out, "; ".join(notes)

@@ -1,0 +1,1 @@
+"""Tables on disk, their provenance, and comparing two result folders."""
