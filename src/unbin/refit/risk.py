@@ -161,8 +161,14 @@ def survival_base(r: Refit, eta: np.ndarray, horizon: float) -> tuple[np.ndarray
             log_h0[rows] = np.log(c[pos]) - centre
     empty = [str(v) for v in np.unique(strata[np.isneginf(log_h0)])]
 
+    return log_h0, horizon_notes(horizon, held, empty, o.strata is not None)
+
+
+def horizon_notes(horizon: float, held: list[str], empty: list[str], stratified: bool) -> str:
+    """What the baseline at ``horizon`` had to assume, per stratum: held past the last event
+    time, or no event before the horizon (risk 0)."""
     def where(labels: list[str]) -> str:
-        return f" (stratum {', '.join(labels)})" if o.strata is not None else ""
+        return f" (stratum {', '.join(labels)})" if stratified else ""
 
     notes = []
     if held:
@@ -170,7 +176,7 @@ def survival_base(r: Refit, eta: np.ndarray, horizon: float) -> tuple[np.ndarray
                      "baseline is held at its last value, not extrapolated")
     if empty:
         notes.append(f"no event before the horizon {horizon:g}{where(empty)}: predicted risk 0")
-    return log_h0, "; ".join(notes)
+    return "; ".join(notes)
 
 
 def from_result(r: Refit, res: FitResult, scale: RiskScale, curve: ExposureCurve,

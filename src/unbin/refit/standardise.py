@@ -38,6 +38,7 @@ import pandas as pd
 from scipy import special
 
 from ..models.cox import Layout, baseline_cumhaz
+from .risk import horizon_notes
 
 # The marginal contrasts reported per family: (name, kind); "ratio" contrasts are taken on the
 # log scale (log R1 - log R0), "difference" ones as R1 - R0.
@@ -146,14 +147,4 @@ def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
         shift = float(np.asarray(a, dtype=float) @ coef[:k])
         with np.errstate(over="ignore"):
             out[j] = 1.0 - float(np.mean(np.exp(-h0 * np.exp(rest + shift))))
-
-    def where(labs: list[str]) -> str:
-        return f" (stratum {', '.join(labs)})" if strata is not None else ""
-
-    notes = []
-    if held:
-        notes.append(f"the horizon {horizon:g} is past the last event time{where(held)}: the "
-                     "baseline is held at its last value, not extrapolated")
-    if empty:
-        notes.append(f"no event before the horizon {horizon:g}{where(empty)}: predicted risk 0")
-    return out, "; ".join(notes)
+    return out, horizon_notes(horizon, held, empty, strata is not None)
