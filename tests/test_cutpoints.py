@@ -287,8 +287,10 @@ def test_data_derived_cut_search_row_and_reproducibility() -> None:
     assert search["p_naive"] == pytest.approx(p)
     assert search["p_altman"] == pytest.approx(p_altman(p, 0.05, 0.95), nan_ok=True)
     assert search["p_lausen"] == pytest.approx(p_lausen(p, 0.05, 0.95))
-    assert 1 / 100 <= search["p_permutation"] <= 1
-    assert search["boot_cut_p2_5"] <= search["boot_cut_p50"] <= search["boot_cut_p97_5"]
+    # A strong association (correlation about 0.33 at n = 600): no permuted maximum reaches the
+    # observed one, so the permutation p is its floor 1/(permutations + 1).
+    assert search["p_permutation"] == pytest.approx(1 / 100)
+    assert search["bootstrap_ok"] == 50 and search["bootstrap_failed"] == 0
     # seeded from the spec: the same spec gives the same table
     pd.testing.assert_frame_equal(tab, cutpoints_table(r, spec))
 
