@@ -213,7 +213,11 @@ def test_a_monotone_cox_likelihood_is_recorded_and_every_table_completes(
     assert len(legacy) == 6
     assert (legacy["status"] == "failed").all() and (~legacy["converged"].astype(bool)).all()
     assert legacy["message"].str.len().gt(20).all()
-    assert f"legacy/legacy: {legacy['message'].iloc[0]}" in status["message"]
+    first = legacy["message"].iloc[0]
+    assert status["message"].count(first) == 1  # one line per cause
+    fits_named = ("legacy/legacy, legacy+test_spline/legacy, legacy/continuous, "
+                  "legacy+test_spline/continuous, legacy/none, legacy+test_spline/none")
+    assert f"{fits_named}: {first}" in status["message"]
     others = fits[fits["form"].isin(("linear", "spline", "fp"))]
     assert (others["status"] == "ok").all() and others["converged"].astype(bool).all()
     eff = tables["effects"]

@@ -69,6 +69,16 @@ def _keyed(df: pd.DataFrame, cohort: str, analysis: str) -> pd.DataFrame:
     return df
 
 
+def failed_fit_messages(fits: Sequence[Any]) -> list[str]:
+    """One line per cause: the fits (form/adjustment) that failed for the same reason share it
+    ("legacy/legacy, legacy/continuous, legacy/none: <why>"), in the order first met."""
+    by_reason: dict[str, list[str]] = {}
+    for f in fits:
+        if not f.result.ok and f.selected:
+            by_reason.setdefault(f.result.message, []).append(f"{f.form}/{f.adjustment}")
+    return [f"{', '.join(which)}: {why}" for why, which in by_reason.items()]
+
+
 def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
             basis: CommonBasis | None = None, resampling: bool = True
             ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
@@ -111,8 +121,7 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
         from ..refit.analysis import refit_analysis
 
         refit = refit_analysis(sample, a, spec, cohort, basis)
-        failed = [f"{f.form}/{f.adjustment}: {f.result.message}" for f in refit.fits
-                  if not f.result.ok and f.selected]
+        failed = failed_fit_messages(refit.fits)
         builders = {**QUESTION_TABLES, **(RESAMPLING_TABLES if resampling else {})}
         lost_questions: list[str] = []
         for name, target in builders.items():
