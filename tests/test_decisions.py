@@ -116,7 +116,9 @@ def test_binary_implied_thresholds_plug_back_into_statsmodels(
     formulas = {
         "linear": f"y ~ x + C(g) + {_cr('z', z_knots)}",
         "spline": f"y ~ {_cr('x', X_KNOTS)} + C(g) + {_cr('z', z_knots)}",
-        "spline x g": f"y ~ {_cr('x', X_KNOTS)} * C(g) + {_cr('z', z_knots)}",
+        # the interaction model uses the test spline: 4 knots at the default quantiles
+        "spline x g": f"y ~ {_cr('x', np.quantile(frame['x'], Z_QUANTILES))} * C(g) + "
+                      f"{_cr('z', z_knots)}",
     }
     ref = {m: smf.glm(f, frame, family=sm.families.Binomial()).fit(tol=1e-12)
            for m, f in formulas.items()}
@@ -143,9 +145,10 @@ def test_interaction_lr_matches_statsmodels(binary_case: tuple[pd.DataFrame, Spe
     frame, spec, r = binary_case
     tab = thresholds_table(r, spec)
     z_knots = np.quantile(frame["z"], Z_QUANTILES)
-    main = smf.glm(f"y ~ {_cr('x', X_KNOTS)} + C(g) + {_cr('z', z_knots)}", frame,
+    x_knots = np.quantile(frame["x"], Z_QUANTILES)  # the test spline: 4 knots, default quantiles
+    main = smf.glm(f"y ~ {_cr('x', x_knots)} + C(g) + {_cr('z', z_knots)}", frame,
                    family=sm.families.Binomial()).fit(tol=1e-12)
-    full = smf.glm(f"y ~ {_cr('x', X_KNOTS)} * C(g) + {_cr('z', z_knots)}", frame,
+    full = smf.glm(f"y ~ {_cr('x', x_knots)} * C(g) + {_cr('z', z_knots)}", frame,
                    family=sm.families.Binomial()).fit(tol=1e-12)
     lr = 2 * (full.llf - main.llf)
     assert tab["df_interaction"].dropna().unique().tolist() == [2 * 3]

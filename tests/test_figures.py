@@ -32,7 +32,8 @@ def demo(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactor
 
 # Machado, Oliveira & Fernandes (2009), IEEE TVCG 15(6):1291-1298, simulation matrices for
 # dichromats (severity 1.0), applied to linear sRGB. Values as published in the authors' table;
-# each row sums to 1 so white stays white (a transcription guard, asserted where they are used).
+# each row sums to 1 so white stays white (checked where they are used: a typo in a copied
+# value would break it).
 MACHADO = {
     "protan": [[0.152286, 1.052583, -0.204868], [0.114503, 0.786281, 0.099216],
                [-0.003882, -0.048116, 1.051998]],
@@ -63,7 +64,7 @@ def test_series_colours_stay_apart_for_colour_blind_readers(vision: str | None) 
     """Every pair of series colours differs by ΔE*ab >= 20 (CIE 1976; ~2.3 is a just-noticeable
     difference, Sharma 2003) in normal vision and under each simulated dichromacy."""
     colours = st.SERIES
-    if vision:  # transcription guard on the published matrix, not a test of unbin
+    if vision:  # the copied matrix keeps white white: guards the values, not unbin
         np.testing.assert_allclose(np.sum(MACHADO[vision], axis=1), 1.0, atol=2e-6)
     for a, ca in colours.items():
         for b, cb in colours.items():

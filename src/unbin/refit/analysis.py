@@ -256,6 +256,13 @@ def with_powers_counted(res: FitResult, term: FPTerm) -> FitResult:
     return replace(res, n_params=res.n_params + len(term.powers))
 
 
+def test_spline_term(a: Analysis, x: np.ndarray) -> SplineTerm:
+    """The spline behind every test (nonlinearity, added beyond the groups, exposure x level
+    interaction): ``continuous.test_knots`` knots at the default quantiles of the exposure, fixed
+    before the outcome is seen. Raises ValueError when the exposure has too few values."""
+    return SplineTerm.at_quantiles(a.exposure, x, a.continuous.test_knots)
+
+
 def test_spline_detail(term: SplineTerm) -> str:
     """The test spline's description with its knots (what the information table cites)."""
     knots = ", ".join(f"{k:.4g}" for k in term.knots)
@@ -331,7 +338,7 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
                 r.messages.append(str(exc))
     test_term: SplineTerm | None = None
     try:
-        test_term = SplineTerm.at_quantiles(a.exposure, x, opts.test_knots)
+        test_term = test_spline_term(a, x)
     except ValueError as exc:
         r.messages.append(f"test spline ({opts.test_knots} knots; continuous.test_knots): {exc} "
                           "The nonlinearity and added-beyond-the-groups tests are not computed.")

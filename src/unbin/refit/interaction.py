@@ -4,10 +4,10 @@ For each adjustment coding (legacy, continuous) two interaction models, each bes
 main-effects model; BOTH hold the level main effects (the factor of :mod:`unbin.refit.modifier`, part
 of the coding's adjustment terms), so the interaction test compares like with like:
 
-- ``spline x level``: a restricted cubic spline of the exposure with knots FIXED before the
-  outcome is seen — the spec's ``spline_knots: {values: ...}`` when it fixes them, otherwise
-  :data:`INTERACTION_KNOTS` knots at the default quantiles of the exposure (never the spline
-  chosen by AIC, whose selection would invalidate the test) — plus the spline's columns times
+- ``spline x level``: the *test spline* (``continuous.test_knots`` knots at the default
+  quantiles of the exposure, fixed before the outcome is seen: never the spline chosen by AIC,
+  whose selection would invalidate the test; the same spline as the nonlinearity test's) —
+  plus the spline's columns times
   the indicator of every level but the reference. The likelihood-ratio test of the interaction
   has (levels - 1) x (knots - 1) df.
 - ``legacy x level``: the legacy groups plus their indicators times every non-reference level
@@ -29,10 +29,9 @@ from scipy import stats
 from ..models import fit
 from ..models.base import FitResult, failed_fit
 from ..terms import GroupedTerm, SplineTerm, Term
-from .analysis import Refit, design
+from .analysis import Refit, design, test_spline_term
 from .modifier import Levels, levels_from_terms
 
-INTERACTION_KNOTS = 4  # fixed count for the interaction test's spline (default quantiles)
 CODINGS = ("legacy", "continuous")
 SPLINE, LEGACY = "spline x level", "legacy x level"
 
@@ -88,12 +87,9 @@ class LevelModel:
 
 
 def interaction_spline(r: Refit) -> SplineTerm:
-    """The interaction test's spline: knots fixed before the outcome is seen (module
-    docstring). Raises ValueError when the exposure has too few distinct values."""
-    opts = r.analysis.continuous
-    if opts.knot_values is not None:
-        return SplineTerm(r.analysis.exposure, opts.knot_values)
-    return SplineTerm.at_quantiles(r.analysis.exposure, r.x, INTERACTION_KNOTS)
+    """The interaction test's spline: the test spline (module docstring). Raises ValueError
+    when the exposure has too few distinct values."""
+    return test_spline_term(r.analysis, r.x)
 
 
 def _empty_cells(term: GroupedTerm, x: np.ndarray, levels: Levels) -> list[str]:
