@@ -23,6 +23,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 from scipy import special
 
 from ..models.base import FitResult
@@ -145,23 +146,30 @@ def survival_base(r: Refit, eta: np.ndarray, horizon: float) -> tuple[np.ndarray
     centre = float(np.mean(eta)) if eta.size else 0.0
     base = baseline_cumhaz((eta - centre)[:, None], o.time, o.y, [1.0], entry=o.entry,
                            strata=o.strata, layout=cox_layout(o))
-    strata = o.strata if o.strata is not None else np.zeros(o.n, dtype=np.int64)
-    log_h0 = np.full(o.n, -np.inf)
+    h0, held, empty = cumhaz_at(base, o.strata, o.n, horizon)
+    with np.errstate(divide="ignore"):
+        log_h0 = np.log(h0) - centre  # -inf where no event precedes the horizon: risk 0
+
+    return log_h0, horizon_notes(horizon, held, empty, o.strata is not None)
+
+
+def cumhaz_at(base: pd.DataFrame, strata: np.ndarray | None, n: int,
+              horizon: float) -> tuple[np.ndarray, list[str], list[str]]:
+    """H0_s(horizon) for each of ``n`` rows from a :func:`unbin.models.cox.baseline_cumhaz` table
+    (step function; 0 before the stratum's first event time, held at its last value past the
+    last one), with the strata whose baseline is held and those with no event by the horizon."""
+    h0 = np.zeros(n)
+    labels = np.zeros(n, dtype=np.int64) if strata is None else np.asarray(strata)
     held: list[str] = []
     for lab, part in base.groupby("stratum", sort=True):
         t = part["time"].to_numpy(float)
-        c = part["cumhaz"].to_numpy(float)
         pos = int(np.searchsorted(t, horizon, side="right")) - 1
-        rows = strata == lab
-        if pos < 0:
-            continue
-        if horizon > t[-1]:
-            held.append(str(lab))
-        with np.errstate(divide="ignore"):
-            log_h0[rows] = np.log(c[pos]) - centre
-    empty = [str(v) for v in np.unique(strata[np.isneginf(log_h0)])]
-
-    return log_h0, horizon_notes(horizon, held, empty, o.strata is not None)
+        if pos >= 0:
+            h0[labels == lab] = float(part["cumhaz"].to_numpy(float)[pos])
+            if horizon > t[-1]:
+                held.append(str(lab))
+    empty = [str(v) for v in np.unique(labels[h0 == 0])]
+    return h0, held, empty
 
 
 def horizon_notes(horizon: float, held: list[str], empty: list[str], stratified: bool) -> str:

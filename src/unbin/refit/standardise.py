@@ -34,11 +34,10 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 import numpy as np
-import pandas as pd
 from scipy import special
 
 from ..models.cox import Layout, baseline_cumhaz
-from .risk import horizon_notes
+from .risk import cumhaz_at, horizon_notes
 
 # The marginal contrasts reported per family: (name, kind); "ratio" contrasts are taken on the
 # log scale (log R1 - log R0), "difference" ones as R1 - R0.
@@ -105,25 +104,6 @@ def glm_means(family: str, X: np.ndarray, k: int, coef: np.ndarray, at: Sequence
             mu = eta
         out[:, j] = np.einsum("cn,cn->c", W, mu) / total
     return out
-
-
-def cumhaz_at(base: pd.DataFrame, strata: np.ndarray | None, n: int,
-              horizon: float) -> tuple[np.ndarray, list[str], list[str]]:
-    """H0_s(horizon) for each of ``n`` rows from a :func:`unbin.models.cox.baseline_cumhaz` table
-    (step function; 0 before the stratum's first event time, held at its last value past the
-    last one), with the strata whose baseline is held and those with no event by the horizon."""
-    h0 = np.zeros(n)
-    labels = np.zeros(n, dtype=np.int64) if strata is None else np.asarray(strata)
-    held: list[str] = []
-    for lab, part in base.groupby("stratum", sort=True):
-        t = part["time"].to_numpy(float)
-        pos = int(np.searchsorted(t, horizon, side="right")) - 1
-        if pos >= 0:
-            h0[labels == lab] = float(part["cumhaz"].to_numpy(float)[pos])
-            if horizon > t[-1]:
-                held.append(str(lab))
-    empty = [str(v) for v in np.unique(labels[h0 == 0])]
-    return h0, held, empty
 
 
 def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
