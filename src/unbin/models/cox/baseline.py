@@ -7,17 +7,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .layout import (
-    Layout,
-    _as_1d,
-    _check_finite,
-    _design,
-    _forward_cum,
-    _given_layout,
-    _prepare,
-    _risk_sums,
-    _shifted_eta,
-)
+from .inputs import _as_1d, _check_finite, _design
+from .layout import Layout, _design_and_layout, _forward_cum, _risk_sums, _shifted_eta
 
 
 def baseline_cumhaz(
@@ -42,17 +33,12 @@ def baseline_cumhaz(
     ``coef``. If x = 0 is far outside the data, H0 may underflow: centre X first.
     ``layout`` is as for :func:`fit_cox`.
     """
-    Xa = _design(X)
-    n, p = Xa.shape
-    _check_finite("X", Xa)
+    Xa, L = _design_and_layout(X, layout, time, event, entry, strata, weights)
+    p = Xa.shape[1]
     b = _as_1d("coef", coef, None)
     if b.shape[0] != p:
         raise ValueError(f"coef has {b.shape[0]} values but X has {p} columns")
     _check_finite("coef", b)
-    if layout is None:
-        L = _prepare(n, time, event, entry, strata, weights)
-    else:
-        L = _given_layout(layout, n)
     eta = Xa[L.order] @ b if p else np.zeros(L.order.size)
     shifted = _shifted_eta(L, eta.copy())
     s0 = _risk_sums(L, np.asarray(L.risk_op @ (L.w * np.exp(shifted)))[:, None])[0]

@@ -7,9 +7,8 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-import pandas as pd
 
-from .layout import _as_1d, _check_finite, _event_array
+from .inputs import _as_1d, _check_finite, _entry_array, _event_array, _stratum_codes
 
 
 @dataclass(frozen=True)
@@ -44,16 +43,11 @@ class TimeOrder:
     late: _LateEntry | None = None  # None without delayed entry (or when it removes no pair)
 
 
-def _stratum_codes(strata: Any | None, n: int) -> np.ndarray | None:
+def _small_stratum_codes(strata: Any | None, n: int) -> np.ndarray | None:
     """Stratum codes 0..S-1 (sorted labels) in the smallest unsigned type, None for one."""
     if strata is None:
         return None
-    arr = np.asarray(strata)
-    if arr.ndim != 1 or arr.shape[0] != n:
-        raise ValueError(f"strata must be one-dimensional with {n} values, got {arr.shape}")
-    codes, labels = pd.factorize(arr, sort=True)
-    if (codes < 0).any():
-        raise ValueError(f"strata has {int((codes < 0).sum())} missing value(s)")
+    codes, labels = _stratum_codes(strata, n)
     if len(labels) <= 1:
         return None
     return codes.astype(np.uint16 if len(labels) < 2**16 else np.int64)
@@ -100,21 +94,8 @@ def concordance_order(time: Any, event: Any, entry: Any | None = None,
     n = t.shape[0]
     e = _event_array(event, n)
     _check_finite("time", t)
-    code = _stratum_codes(strata, n)
-    en = None
-    if entry is not None:
-        en = np.asarray(entry, dtype=float)
-        if en.ndim != 1 or en.shape[0] != n:
-            raise ValueError(f"entry must be one-dimensional with {n} values, got {en.shape}")
-        _check_finite("entry", en)
-        bad = ~(t > en)
-        if bad.any():
-            first = int(np.flatnonzero(bad)[0])
-            raise ValueError(
-                f"time must be greater than entry (delayed entry): {int(bad.sum())} row(s) "
-                f"have time <= entry, e.g. row {first} with entry={float(en[first])}, "
-                f"time={float(t[first])}"
-            )
+    code = _small_stratum_codes(strata, n)
+    en = None if entry is None else _entry_array(entry, t)
     order = np.lexsort((~e, t)) if code is None else np.lexsort((~e, t, code))
     t_s, e_s = t[order], e[order]
     c_s = None if code is None else code[order]

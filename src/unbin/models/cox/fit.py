@@ -1,6 +1,6 @@
-"""The Cox partial likelihood and its Newton fit: the likelihood, score and information at a
-coefficient vector (Efron or Breslow ties), step halving, the warm start from a subsample,
-``fit_cox`` and ``refit_near``."""
+"""The Newton fit of the Cox partial likelihood (evaluated in ``likelihood``): starting values
+(given, zero, or a subsample's estimate), Newton steps with step halving, the stopping rule and
+its messages, ``fit_cox`` and ``refit_near``."""
 
 from __future__ import annotations
 
@@ -10,18 +10,9 @@ from typing import Any
 import numpy as np
 from scipy import linalg
 
-from .layout import (
-    Layout,
-    _as_1d,
-    _check_finite,
-    _design,
-    _forward_cum,
-    _given_layout,
-    _prepare,
-    _risk_sums,
-    _scaled,
-    _shifted_eta,
-)
+from .inputs import _as_1d, _check_finite, _design
+from .layout import Layout, _design_and_layout, _given_layout, _prepare
+from .likelihood import _Design, _evaluate, _standardised
 
 
 @dataclass(frozen=True)
@@ -46,111 +37,6 @@ class CoxFit:
     message: str
     n: int
     events: int
-
-
-_BLOCK = 8192  # rows per block of the weighted cross-products (stays in cache)
-
-
-@dataclass(frozen=True)
-class _Design:
-    """The kept rows' covariates, sorted and standardised, with a leading column of ones."""
-
-    X1: np.ndarray  # (m, 1 + p), C-contiguous
-    xwe: np.ndarray  # (p,) sum over events of w x: the part of the score that never changes
-    reach: np.ndarray  # (p,) largest |x| of each standardised column (or a bound on it)
-    buf: np.ndarray  # (min(m, _BLOCK), 1 + p) scratch
-
-    @classmethod
-    def of(cls, X1: np.ndarray, we: np.ndarray, reach: np.ndarray) -> _Design:
-        buf = np.empty((min(X1.shape[0], _BLOCK), X1.shape[1]))
-        return cls(X1, X1[:, 1:].T @ we, reach, buf)
-
-
-def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
-    """``X1' diag(v) X1``, in blocks of rows that stay in cache."""
-    X1, buf = D.X1, D.buf
-    q = X1.shape[1]
-    out = np.zeros((q, q))
-    for start in range(0, X1.shape[0], _BLOCK):
-        block = X1[start : start + _BLOCK]
-        scaled = buf[: block.shape[0]]
-        np.multiply(block, v[start : start + _BLOCK, None], out=scaled)
-        out += block.T @ scaled
-    return out
-
-
-def _evaluate(
-    L: Layout, D: _Design, beta: np.ndarray, efron: bool, order: int = 2
-) -> tuple[float, np.ndarray, np.ndarray]:
-    """Log partial likelihood, score and observed information at ``beta``.
-
-    ``order`` 0 computes the log partial likelihood only, 1 adds the score (which needs the
-    risk-set sums of r only), 2 the information too; what is not computed is zeros.
-    """
-    X1 = D.X1
-    p = X1.shape[1] - 1
-    eta: np.ndarray | None = None
-    if p and beta.any():
-        eta = _shifted_eta(L, X1[:, 1:] @ beta)
-        with np.errstate(over="ignore", under="ignore"):
-            r = np.exp(eta)
-        if not L.unit_w:
-            r *= L.w
-    else:
-        r = L.w
-    efron_terms = efron and L.ties
-    order = order if p > 0 else 0
-    derivs = order == 2
-    # risk-set sums of r (row 0) and, for the information, of r x (rows 1..p) at each event time
-    if derivs:
-        sums = _risk_sums(L, _scaled(L, L.risk_op, r) @ X1)
-    else:
-        sums = _risk_sums(L, np.asarray(L.risk_op @ r)[:, None])
-    s0 = sums[0]
-    loglik = float(L.we_ev @ eta[L.ev]) if eta is not None else 0.0
-    with np.errstate(divide="ignore", invalid="ignore"):
-        log_s0 = np.log(s0)
-        if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
-            tied_sums = _scaled(L, L.tie_op, r) @ X1 if derivs else L.tie_op @ r
-            t0 = tied_sums[:, 0] if derivs else tied_sums
-            den = s0[L.tie_k][L.tie_grp] - L.tie_f * t0[L.tie_grp]
-            loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
-        else:  # Breslow, or no tied events: one term per event time
-            loglik -= float(L.wsum @ log_s0)
-    if order == 0 or not np.isfinite(loglik):
-        return loglik, np.zeros(p), np.zeros((p, p))
-    T = L.tie_k.size
-    # sum_k c_k sum_{i in R_k} r_i x_i x_i' = X' diag(v) X with v_i = r_i sum_{k: i in R_k} c_k;
-    # the risk-set means enter as sum_k a_k S1_k S1_k' (and, for tied events, one per event)
-    if efron_terms:
-        c = L.wsum_untied / s0
-        a = L.wsum_untied / s0**2
-        inv = 1.0 / den
-        c[L.tie_k] = np.bincount(L.tie_grp, weights=L.tie_wavg * inv, minlength=T)
-        bk = np.bincount(L.tie_grp, weights=L.tie_wavg * L.tie_f * inv, minlength=T)
-    else:
-        c = L.wsum / s0
-        a = c / s0
-    cum = _forward_cum(L, c)
-    v = r * (cum[L.b_idx] - cum[L.a_idx]) if L.late_entry else r * cum[L.b_idx]
-    if efron_terms:
-        v[L.tie_ev] -= r[L.tie_ev] * bk[L.tie_grp]
-    if order == 1:
-        return loglik, D.xwe - D.X1[:, 1:].T @ v, np.zeros((p, p))
-    gram = _weighted_gram(D, v)
-    score = D.xwe - gram[1:, 0]
-    S1 = sums[1:]
-    if efron_terms:
-        # each tied event's risk-set mean (S1 - (l/d) T1) / den, times sqrt(wavg)
-        tk = L.tie_k[L.tie_grp]
-        mean = S1[:, tk] - L.tie_f * tied_sums[L.tie_grp, 1:].T
-        mean *= inv * np.sqrt(L.tie_wavg)
-    S1 *= np.sqrt(a)
-    info = gram[1:, 1:] - S1 @ S1.T
-    if efron_terms:
-        info -= mean @ mean.T
-    info = (info + info.T) / 2.0
-    return loglik, score, info
 
 
 def _singular_message(info: np.ndarray, sd: np.ndarray) -> str:
@@ -322,46 +208,6 @@ def _start(
     return _Iterate(zero, ll, score, info, 0, "", ll)
 
 
-def _largest_abs(a: np.ndarray, rows: int = 256) -> np.ndarray:
-    """Largest |value| of each column of a C-contiguous (m, p) array. Reduced over blocks of
-    ``rows`` rows seen as one wide row (a plain reduction down 8 columns is ~8x slower)."""
-    m, p = a.shape
-    if p == 0:
-        return np.zeros(0)
-    k = m // rows * rows
-    wide = a[:k].reshape(-1, rows * p)
-    hi = wide.max(axis=0, initial=-np.inf).reshape(rows, p).max(axis=0)
-    lo = wide.min(axis=0, initial=np.inf).reshape(rows, p).min(axis=0)
-    hi = np.maximum(hi, a[k:].max(axis=0, initial=-np.inf))
-    lo = np.minimum(lo, a[k:].min(axis=0, initial=np.inf))
-    return np.maximum(hi, -lo)
-
-
-def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.ndarray]:
-    """The kept rows of X, sorted, centred and scaled, behind a column of ones; the scale of
-    each column (to map estimates back) and its standard deviation (0 for a constant column)."""
-    m, p = L.order.size, Xa.shape[1]
-    X1 = np.empty((m, 1 + p))
-    X1[:, 0] = 1.0
-    if m == 0:
-        return _Design.of(X1, L.we, np.zeros(p)), np.ones(p), np.zeros(p)
-    if Xa.flags.f_contiguous and not Xa.flags.c_contiguous:  # e.g. from a data frame
-        cols = np.empty((p, m))
-        for j in range(p):  # gather column by column: each column is contiguous
-            np.take(Xa[:, j], L.order, out=cols[j])
-        sorted_x = cols.T
-    else:
-        sorted_x = np.take(Xa, L.order, axis=0)
-    mean = np.ones(m) @ sorted_x / m
-    sorted_x -= mean
-    sd = np.sqrt(np.einsum("ij,ij->j", sorted_x, sorted_x) / m)
-    sd[sd <= 1e-12 * np.maximum(1.0, np.abs(mean))] = 0.0  # constant up to rounding
-    scale = np.where(sd > 0, sd, 1.0)
-    reach = _largest_abs(sorted_x) / scale
-    np.multiply(sorted_x, 1.0 / scale, out=X1[:, 1:])
-    return _Design.of(X1, L.we, reach), scale, sd
-
-
 def fit_cox(
     X: Any,
     time: Any,
@@ -397,16 +243,9 @@ def fit_cox(
     saves the sort and the risk-set layout when one sample gets many fits. The fit is
     bit-for-bit the one without it.
     """
-    if ties not in ("efron", "breslow"):
-        raise ValueError(f"ties must be 'efron' or 'breslow', got {ties!r}")
-    Xa = _design(X)
+    efron = _efron(ties)
+    Xa, L = _design_and_layout(X, layout, time, event, entry, strata, weights)
     n, p = Xa.shape
-    _check_finite("X", Xa)
-    if layout is None:
-        L = _prepare(n, time, event, entry, strata, weights)
-    else:
-        L = _given_layout(layout, n)
-    efron = ties == "efron"
     nan_coef, nan_cov = np.full(p, np.nan), np.full((p, p), np.nan)
     if L.events == 0:
         msg = "" if p == 0 else "no events: the coefficients are not estimable"
@@ -421,60 +260,98 @@ def fit_cox(
         # (with no step allowed, the information must be the full data's)
         start = _start(L, D, efron, ll0, warm_ok=max_iter >= 1)
     else:
-        init_arr = _as_1d("init", init, None)
-        if init_arr.shape[0] != p:
-            raise ValueError(f"init has {init_arr.shape[0]} values but X has {p} columns")
-        _check_finite("init", init_arr)
-        ll, score, info = _evaluate(L, D, init_arr * scale, efron)
-        if not np.isfinite(ll):
-            msg = (
-                "log partial likelihood is not finite at the starting values (init); "
-                "start from zero or from smaller values"
-            )
-            return CoxFit(nan_coef, nan_cov, ll, ll0, 0, False, msg, n, L.events)
-        start = _Iterate(init_arr * scale, ll, score, info, 0, "", ll)
+        start = _given_start(L, D, efron, init, scale)
+        if start.status == _BAD_START:
+            return CoxFit(nan_coef, nan_cov, start.loglik, ll0, 0, False, _BAD_START_MESSAGE,
+                          n, L.events)
+    stop = _newton(L, D, efron, start, max_iter, tol)
+    if stop.status == "singular":
+        message = _singular_message(stop.info, sd)
+        return CoxFit(nan_coef, nan_cov, stop.loglik, ll0, stop.iterations, False, message, n,
+                      L.events)
+    coef, cov, loglik, message = _estimate(stop, scale, sd, max_iter, tol)
+    converged = stop.status == "converged" and not message
+    return CoxFit(coef, cov, float(loglik), float(ll0), stop.iterations, converged, message, n,
+                  L.events)
 
-    def back(b: np.ndarray, inf: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        try:
-            cov_s = linalg.inv(inf, check_finite=True)
-        except (linalg.LinAlgError, ValueError):
-            return b / scale, nan_cov
-        return b / scale, cov_s / np.outer(scale, scale)
 
-    it = _newton(L, D, efron, start, max_iter, tol)
-    beta, ll, score, info, iterations = it.beta, it.loglik, it.score, it.info, it.iterations
-    message = ""
-    if it.status == "singular":
-        message = _singular_message(info, sd)
-        return CoxFit(nan_coef, nan_cov, ll, ll0, iterations, False, message, n, L.events)
-    if it.status == "max_iter":
-        message = (
+def _efron(ties: str) -> bool:
+    """True for Efron's handling of tied event times, False for Breslow's."""
+    if ties not in ("efron", "breslow"):
+        raise ValueError(f"ties must be 'efron' or 'breslow', got {ties!r}")
+    return ties == "efron"
+
+
+_BAD_START = "bad_start"
+_BAD_START_MESSAGE = (
+    "log partial likelihood is not finite at the starting values (init); "
+    "start from zero or from smaller values"
+)
+
+
+def _given_start(L: Layout, D: _Design, efron: bool, init: Any, scale: np.ndarray) -> _Iterate:
+    """Newton's start at the caller's values ``init`` (on the scale of X), checked; its status
+    is ``_BAD_START`` when the log partial likelihood is not finite there."""
+    init_arr = _as_1d("init", init, None)
+    if init_arr.shape[0] != scale.size:
+        raise ValueError(f"init has {init_arr.shape[0]} values but X has {scale.size} columns")
+    _check_finite("init", init_arr)
+    ll, score, info = _evaluate(L, D, init_arr * scale, efron)
+    status = "" if np.isfinite(ll) else _BAD_START
+    return _Iterate(init_arr * scale, ll, score, info, 0, status, ll)
+
+
+def _stop_message(stop: _Iterate, max_iter: int) -> str:
+    """What to tell the caller when Newton's method stopped without converging."""
+    if stop.status == "max_iter":
+        return (
             f"no convergence after {max_iter} Newton iteration(s) (last change in log "
-            f"partial likelihood {it.last_change:.3g}); raise max_iter, start from better "
+            f"partial likelihood {stop.last_change:.3g}); raise max_iter, start from better "
             "values (init), or look for a covariate with extreme values or separation"
         )
-    elif it.status == "halving":
-        message = (
+    if stop.status == "halving":
+        return (
             "step halving could not improve the log partial likelihood "
-            f"(at {ll:.6g}); the model may be overparameterised or a covariate may have "
-            "extreme values - rescale or drop columns, or give init"
+            f"(at {stop.loglik:.6g}); the model may be overparameterised or a covariate may "
+            "have extreme values - rescale or drop columns, or give init"
         )
-    converged = it.status == "converged"
-    if converged:
-        # the Newton step from the last point: a coefficient that keeps moving although the
-        # likelihood stopped changing is going to infinity (monotone likelihood), as when one
-        # group has no events; otherwise the step is taken without evaluating its end point
-        # (its log partial likelihood is the quadratic prediction, error of the order of the
-        # step cubed; the information stays the last point's, where no weight exp(eta)
-        # differs from the estimate's by more than a fraction of about 100 * tol)
-        nxt = _solve(info, score)
-        if nxt is None:
-            message = _singular_message(info, sd)
-            coef, _ = back(beta, info)
-            return CoxFit(coef, nan_cov, ll, ll0, iterations, False, message, n, L.events)
-        diverging = _diverging(nxt, beta, tol)
+    return ""
+
+
+def _unscaled(
+    beta: np.ndarray, info: np.ndarray, scale: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Coefficients and covariance (the inverse information) on the scale of X; the covariance
+    is NaN when the information cannot be inverted."""
+    try:
+        cov_s = linalg.inv(info, check_finite=True)
+    except (linalg.LinAlgError, ValueError):
+        return beta / scale, np.full((scale.size, scale.size), np.nan)
+    return beta / scale, cov_s / np.outer(scale, scale)
+
+
+def _estimate(
+    stop: _Iterate, scale: np.ndarray, sd: np.ndarray, max_iter: int, tol: float
+) -> tuple[np.ndarray, np.ndarray, float, str]:
+    """The estimate on the scale of X, its covariance and log partial likelihood, and a message
+    ("" when the fit is fine), from where Newton's method stopped (not at a singular point).
+
+    After convergence, the Newton step from the last point: a coefficient that keeps moving
+    although the likelihood stopped changing is going to infinity (monotone likelihood), as
+    when one group has no events; otherwise the step is taken without evaluating its end point
+    (its log partial likelihood is the quadratic prediction, error of the order of the step
+    cubed; the information stays the last point's, where no weight exp(eta) differs from the
+    estimate's by more than a fraction of about 100 * tol).
+    """
+    beta, loglik = stop.beta, stop.loglik
+    message = _stop_message(stop, max_iter)
+    if stop.status == "converged":
+        step = _solve(stop.info, stop.score)
+        if step is None:
+            nan_cov = np.full((scale.size, scale.size), np.nan)
+            return beta / scale, nan_cov, loglik, _singular_message(stop.info, sd)
+        diverging = _diverging(step, beta, tol)
         if diverging.size:
-            converged = False
             message = (
                 f"coefficient(s) of column(s) {diverging.tolist()} diverge while the log "
                 "partial likelihood has levelled off (monotone likelihood: e.g. no events in "
@@ -482,13 +359,12 @@ def fit_cox(
                 "drop the column"
             )
         else:
-            ll += float(score @ nxt) / 2.0
-            beta = beta + nxt
-    coef, cov = back(beta, info)
+            loglik += float(stop.score @ step) / 2.0
+            beta = beta + step
+    coef, cov = _unscaled(beta, stop.info, scale)
     if not np.isfinite(cov).all() and not message:
         message = "the information matrix could not be inverted at the estimate"
-        converged = False
-    return CoxFit(coef, cov, float(ll), float(ll0), iterations, converged, message, n, L.events)
+    return coef, cov, loglik, message
 
 
 def refit_near(
@@ -505,16 +381,14 @@ def refit_near(
     predictor by more than ``100 * tol``). Returns None when it does not settle, the likelihood
     falls or the information is singular: the caller then fits with ``fit_cox``.
     """
-    if ties not in ("efron", "breslow"):
-        raise ValueError(f"ties must be 'efron' or 'breslow', got {ties!r}")
+    efron = _efron(ties)
     Xa = _design(X)
-    n, p = Xa.shape
     _check_finite("X", Xa)
-    L = _given_layout(layout, n)
+    L = _given_layout(layout, Xa.shape[0])
+    p = Xa.shape[1]
     init_arr = _as_1d("init", init, p)
     if p == 0 or L.events == 0 or not np.isfinite(init_arr).all():
         return None
-    efron = ties == "efron"
     D, scale, _ = _standardised(Xa, L)
     beta = init_arr * scale
     ll, score, info = _evaluate(L, D, beta, efron)

@@ -1,5 +1,5 @@
-"""One survival sample laid out for the Cox engine: input checks, the sort by stratum and time,
-the risk-set index ranges and sparse operators (``prepare_layout``, made once for any number of
+"""One survival sample laid out for the Cox engine: the sort by stratum and time, the risk-set
+index ranges and sparse operators (``prepare_layout``, made once for any number of
 fits), and the sums over event times they support."""
 
 from __future__ import annotations
@@ -8,55 +8,9 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-import pandas as pd
 from scipy import sparse
 
-
-def _as_1d(name: str, values: Any, n: int | None, dtype: Any = float) -> np.ndarray:
-    arr = np.asarray(values, dtype=dtype)
-    if arr.ndim != 1:
-        raise ValueError(f"{name} must be one-dimensional, got shape {arr.shape}")
-    if n is not None and arr.shape[0] != n:
-        raise ValueError(f"{name} has {arr.shape[0]} values but X has {n} rows")
-    return arr
-
-
-def _check_finite(name: str, arr: np.ndarray) -> None:
-    if arr.size == 0 or np.isfinite(np.add.reduce(arr, axis=None)):
-        return  # a finite sum means no NaN or infinity (fast path)
-    bad = ~np.isfinite(arr)
-    if not bad.any():
-        return
-    if bad.any():
-        first = int(np.flatnonzero(bad.reshape(bad.shape[0], -1).any(axis=1))[0])
-        raise ValueError(
-            f"{name} has {int(bad.sum())} missing or infinite value(s) (first at row {first}); "
-            "drop or impute those rows before fitting"
-        )
-
-
-def _event_array(event: Any, n: int | None) -> np.ndarray:
-    raw = np.asarray(event)
-    if raw.ndim != 1 or (n is not None and raw.shape[0] != n):
-        raise ValueError(f"event must be one-dimensional with {n} values, got shape {raw.shape}")
-    if raw.dtype == bool:
-        return raw
-    num = np.asarray(raw, dtype=float)
-    ok = (num == 0) | (num == 1)
-    if not ok.all():
-        bad = num[~ok][:3]
-        raise ValueError(
-            f"event must be 0/1 (or boolean); found {int((~ok).sum())} other value(s), "
-            f"e.g. {bad.tolist()}"
-        )
-    return num == 1
-
-
-def _design(X: Any) -> np.ndarray:
-    arr = np.asarray(X, dtype=float)
-    if arr.ndim != 2:
-        raise ValueError(f"X must be a 2-D (n, p) array, got shape {arr.shape}")
-    return arr
+from .inputs import _check_finite, _checked_sample, _design
 
 
 @dataclass(frozen=True)
@@ -114,57 +68,30 @@ class Layout:
         return self.tie_k.size > 0
 
 
-def _prepare(
-    n: int,
-    time: Any,
-    event: Any,
-    entry: Any | None,
-    strata: Any | None,
-    weights: Any | None,
-) -> Layout:
-    t = _as_1d("time", time, n)
-    _check_finite("time", t)
-    e = _event_array(event, n)
-    if weights is not None:
-        w = _as_1d("weights", weights, n)
-        _check_finite("weights", w)
-        if (w <= 0).any():
-            raise ValueError(
-                f"weights must be positive; {int((w <= 0).sum())} are zero or negative "
-                "(drop those rows instead)"
-            )
-    if entry is not None:
-        en = _as_1d("entry", entry, n)
-        _check_finite("entry", en)
-        late = ~(t > en)
-        if late.any():
-            first = int(np.flatnonzero(late)[0])
-            raise ValueError(
-                f"time must be greater than entry (delayed entry): {int(late.sum())} row(s) "
-                f"have time <= entry, e.g. row {first} with entry={float(en[first])}, "
-                f"time={float(t[first])}"
-            )
-    scode: np.ndarray | None = None
-    if strata is None:
-        labels = np.array([0])
-    else:
-        s_arr = np.asarray(strata)
-        if s_arr.ndim != 1 or s_arr.shape[0] != n:
-            raise ValueError(f"strata must be one-dimensional with {n} values, got {s_arr.shape}")
-        codes, uniq = pd.factorize(s_arr, sort=True)
-        if (codes < 0).any():
-            raise ValueError(f"strata has {int((codes < 0).sum())} missing value(s)")
-        scode = codes.astype(np.int64)
-        labels = np.asarray(uniq)
-
-    # sort once: by stratum, then time (a quicksort on time, then a stable pass on the codes)
+def _stratum_time_order(t: np.ndarray, codes: np.ndarray | None, n_strata: int) -> np.ndarray:
+    """Rows by stratum, then time (a quicksort on time, then a stable pass on the codes)."""
     order = np.argsort(t)
-    n_strata = int(labels.size)
-    if scode is not None and n_strata > 1:
-        codes_small = scode.astype(np.uint16) if n_strata < 2**16 else scode
+    if codes is not None and n_strata > 1:
+        codes_small = codes.astype(np.uint16) if n_strata < 2**16 else codes
         order = order[np.argsort(codes_small[order], kind="stable")]
-    t_s, e_s = t[order], e[order]
-    sc_s = None if scode is None else scode[order]
+    return order
+
+
+@dataclass(frozen=True)
+class _EventTimes:
+    """The event times t_k of the sorted rows (k by stratum, then time) and, per sorted row,
+    the range of event-time indices of its stratum up to its own time."""
+
+    b: np.ndarray  # last event time at or before the row's time (a row is at risk at (a, b])
+    lo: np.ndarray  # first event time of the row's stratum
+    k_time: np.ndarray  # (K,)
+    k_stratum: np.ndarray  # (K,) stratum code of each event time
+
+
+def _event_times(
+    t_s: np.ndarray, e_s: np.ndarray, sc_s: np.ndarray | None, n_strata: int
+) -> _EventTimes:
+    n = t_s.size
     # runs of rows sharing (stratum, time); the runs holding an event are the event times k
     new_run = np.empty(n, dtype=bool)
     new_run[:1] = True
@@ -175,53 +102,60 @@ def _prepare(
     run_first = np.flatnonzero(new_run)
     run_event = np.bincount(run_id[e_s], minlength=run_first.size) > 0
     run_k = np.cumsum(run_event) - 1  # last event time at or before each run
-    b = run_k[run_id]  # a row is at risk at event times (a, b]
     k_first = run_first[run_event]
-    k_time = t_s[k_first]
     k_stratum = np.zeros(k_first.size, dtype=np.int64) if sc_s is None else sc_s[k_first]
-    K = int(k_first.size)
 
-    if sc_s is None or n_strata == 1:
-        s_first = np.zeros(min(n, 1), dtype=np.int64)
-    else:
-        s_first = np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
+    s_first = _stratum_starts(sc_s, n_strata, n)
     s_runs = run_id[s_first]
     lo_stratum = run_k[s_runs] + 1 - run_event[s_runs]  # first event time of each stratum
     if s_first.size <= 1:
         lo = np.full(n, lo_stratum[0] if n else 0, dtype=np.int64)
     else:
         lo = np.repeat(lo_stratum, np.diff(np.r_[s_first, n]))
-    en_s = None
-    if entry is None:
-        a = lo - 1
-    else:
-        en_s = en[order]
-        if n_strata == 1:
-            a = np.searchsorted(k_time, en_s, side="right") - 1
-        else:
-            assert sc_s is not None
-            values = np.unique(k_time)
-            span = np.int64(values.size + 1)
-            k_key = k_stratum * span + np.searchsorted(values, k_time) + 1
-            row_key = sc_s * span + np.searchsorted(values, en_s, side="right")
-            a = np.searchsorted(k_key, row_key, side="right") - 1
-    keep = b > a  # at risk at one event time at least
-    if not keep.all():
-        kept = np.flatnonzero(keep)
-        order, b, a, lo, e_s, t_s = order[kept], b[kept], a[kept], lo[kept], e_s[kept], t_s[kept]
-        sc_s = None if sc_s is None else sc_s[kept]
-        en_s = None if en_s is None else en_s[kept]
-    m = order.size
-    w_s = np.ones(m) if weights is None else w[order]
+    return _EventTimes(run_k[run_id], lo, t_s[k_first], k_stratum)
 
-    ev = np.flatnonzero(e_s)
-    g = b[ev]
-    d = np.bincount(g, minlength=K)
-    we_ev = w_s[ev]
-    wsum = np.bincount(g, weights=we_ev, minlength=K) if weights is not None else d.astype(float)
-    wavg = wsum / np.maximum(d, 1)
 
-    # Efron's terms differ from Breslow's only at the event times with tied events
+def _stratum_starts(sc_s: np.ndarray | None, n_strata: int, n: int) -> np.ndarray:
+    """Position of the first of each stratum's rows among ``n`` rows sorted by stratum."""
+    if n == 0:
+        return np.zeros(0, dtype=np.int64)
+    if sc_s is None or n_strata == 1:
+        return np.zeros(1, dtype=np.int64)
+    return np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
+
+
+def _last_before_entry(
+    en_s: np.ndarray, sc_s: np.ndarray | None, times: _EventTimes, n_strata: int
+) -> np.ndarray:
+    """For each sorted row, the last event time of its stratum at or before its entry (the row
+    is at risk from the next one on); -1, or one before the stratum's first, if none."""
+    if n_strata == 1:
+        return np.searchsorted(times.k_time, en_s, side="right") - 1
+    assert sc_s is not None
+    # one key per (stratum, time), ordered as the event times are
+    values = np.unique(times.k_time)
+    span = np.int64(values.size + 1)
+    k_key = times.k_stratum * span + np.searchsorted(values, times.k_time) + 1
+    row_key = sc_s * span + np.searchsorted(values, en_s, side="right")
+    return np.searchsorted(k_key, row_key, side="right") - 1
+
+
+@dataclass(frozen=True)
+class _Ties:
+    """Efron's terms differ from Breslow's only at the event times with tied events."""
+
+    tied: np.ndarray  # (K,) the event time holds more than one event
+    k: np.ndarray  # (T,) those event times
+    ev: np.ndarray  # positions (in kept rows) of their events, grouped
+    grp: np.ndarray  # index into k of each of those events
+    at: np.ndarray  # event-time index of each of those events
+    frac: np.ndarray  # l / d_k for each of those events, l = 0 .. d_k - 1
+    op: sparse.csr_matrix  # (T, m): 1 for the events at each tied event time
+
+
+def _tie_structure(ev: np.ndarray, g: np.ndarray, d: np.ndarray, m: int) -> _Ties:
+    """``ev``: positions of the events (sorted by event time), ``g`` their event-time index,
+    ``d`` the number of events at each event time, ``m`` the number of kept rows."""
     tied = d > 1
     tie_k = np.flatnonzero(tied)
     in_tied = tied[g]
@@ -234,69 +168,114 @@ def _prepare(
     tie_op = sparse.csr_matrix(
         (np.ones(tie_ev.size), tie_ev, np.r_[0, np.cumsum(tie_d)]), shape=(tie_k.size, m)
     )
+    return _Ties(tied, tie_k, tie_ev, tie_grp, tie_g, tie_f, tie_op)
 
-    entered_late = a >= lo
+
+def _risk_operator(
+    a: np.ndarray, b: np.ndarray, entered_late: np.ndarray, K: int
+) -> sparse.csr_matrix:
+    """The (K, m) risk-set operator: +1 at (b_i, i), and -1 at (a_i, i) for the rows that
+    entered after their stratum's first event time."""
+    m = b.size
     n_late = int(entered_late.sum())
     if n_late == 0:  # rows are sorted by b: the operator's rows are runs of consecutive rows
         indptr = np.r_[0, np.cumsum(np.bincount(b, minlength=K))]
-        risk_op = sparse.csr_matrix((np.ones(m), np.arange(m), indptr), shape=(K, m))
-    else:
-        rows = np.concatenate([b, a[entered_late]])
-        cols = np.concatenate([np.arange(m), np.flatnonzero(entered_late)])
-        vals = np.concatenate([np.ones(m), -np.ones(n_late)])
-        risk_op = sparse.csr_matrix((vals, (rows, cols)), shape=(K, m))
+        return sparse.csr_matrix((np.ones(m), np.arange(m), indptr), shape=(K, m))
+    rows = np.concatenate([b, a[entered_late]])
+    cols = np.concatenate([np.arange(m), np.flatnonzero(entered_late)])
+    vals = np.concatenate([np.ones(m), -np.ones(n_late)])
+    return sparse.csr_matrix((vals, (rows, cols)), shape=(K, m))
 
+
+def _stratum_segments(
+    k_stratum: np.ndarray, n_strata: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per event time, the first and one-past-last event-time index of its stratum; and the
+    first index of each stratum with events, then K."""
+    K = k_stratum.size
     if n_strata == 1:
-        seg_start, seg_end = np.zeros(K, dtype=np.int64), np.full(K, K, dtype=np.int64)
-        k_bounds = np.array([0, K])
-    else:
-        k_new = np.ones(K, dtype=bool)
-        k_new[1:] = k_stratum[1:] != k_stratum[:-1]
-        k_bounds = np.flatnonzero(k_new)
-        k_sizes = np.diff(np.r_[k_bounds, K])
-        seg_start = np.repeat(k_bounds, k_sizes)
-        seg_end = np.repeat(np.r_[k_bounds[1:], K], k_sizes)
-        k_bounds = np.r_[k_bounds, K]
+        return np.zeros(K, dtype=np.int64), np.full(K, K, dtype=np.int64), np.array([0, K])
+    k_new = np.ones(K, dtype=bool)
+    k_new[1:] = k_stratum[1:] != k_stratum[:-1]
+    k_bounds = np.flatnonzero(k_new)
+    k_sizes = np.diff(np.r_[k_bounds, K])
+    seg_start = np.repeat(k_bounds, k_sizes)
+    seg_end = np.repeat(np.r_[k_bounds[1:], K], k_sizes)
+    return seg_start, seg_end, np.r_[k_bounds, K]
 
-    if m == 0:
-        starts = np.zeros(0, dtype=np.int64)
-    elif sc_s is None or n_strata == 1:
-        starts = np.zeros(1, dtype=np.int64)
+
+def _prepare(
+    n: int,
+    time: Any,
+    event: Any,
+    entry: Any | None,
+    strata: Any | None,
+    weights: Any | None,
+) -> Layout:
+    sample = _checked_sample(n, time, event, entry, strata, weights)
+    n_strata = int(sample.labels.size)
+    order = _stratum_time_order(sample.time, sample.codes, n_strata)
+    t_s, e_s = sample.time[order], sample.event[order]
+    sc_s = None if sample.codes is None else sample.codes[order]
+    times = _event_times(t_s, e_s, sc_s, n_strata)
+    K = int(times.k_time.size)
+    b, lo = times.b, times.lo
+    en_s = None if sample.entry is None else sample.entry[order]
+    a = lo - 1 if en_s is None else _last_before_entry(en_s, sc_s, times, n_strata)
+    keep = b > a  # at risk at one event time at least
+    if not keep.all():
+        kept = np.flatnonzero(keep)
+        order, b, a, lo, e_s, t_s = order[kept], b[kept], a[kept], lo[kept], e_s[kept], t_s[kept]
+        sc_s = None if sc_s is None else sc_s[kept]
+        en_s = None if en_s is None else en_s[kept]
+    m = order.size
+    w_s = np.ones(m) if sample.weights is None else sample.weights[order]
+
+    ev = np.flatnonzero(e_s)
+    g = b[ev]
+    d = np.bincount(g, minlength=K)
+    we_ev = w_s[ev]
+    if sample.weights is None:
+        wsum = d.astype(float)
     else:
-        starts = np.flatnonzero(np.r_[True, sc_s[1:] != sc_s[:-1]])
-    counts = np.diff(np.r_[starts, m])
+        wsum = np.bincount(g, weights=we_ev, minlength=K)
+    wavg = wsum / np.maximum(d, 1)
+    ties = _tie_structure(ev, g, d, m)
+    entered_late = a >= lo
+    seg_start, seg_end, k_bounds = _stratum_segments(times.k_stratum, n_strata)
+    starts = _stratum_starts(sc_s, n_strata, m)
     return Layout(
         order=order,
         w=w_s,
-        unit_w=weights is None,
+        unit_w=sample.weights is None,
         we=w_s * e_s,
         ev=ev,
         we_ev=we_ev,
         wavg=wavg,
         wsum=wsum,
-        wsum_untied=np.where(tied, 0.0, wsum),
-        risk_op=risk_op,
-        plain_op=n_late == 0,
-        tie_k=tie_k,
-        tie_ev=tie_ev,
-        tie_grp=tie_grp,
-        tie_f=tie_f,
-        tie_wavg=wavg[tie_g],
-        tie_op=tie_op,
+        wsum_untied=np.where(ties.tied, 0.0, wsum),
+        risk_op=_risk_operator(a, b, entered_late, K),
+        plain_op=not entered_late.any(),
+        tie_k=ties.k,
+        tie_ev=ties.ev,
+        tie_grp=ties.grp,
+        tie_f=ties.frac,
+        tie_wavg=wavg[ties.at],
+        tie_op=ties.op,
         b_idx=b + 1,
         a_idx=np.where(entered_late, a + 1, 0),
         seg_end=seg_end,
         seg_start=seg_start,
         k_bounds=k_bounds,
         row_starts=starts,
-        row_counts=counts,
-        k_stratum=k_stratum,
-        k_time=k_time,
-        labels=labels,
+        row_counts=np.diff(np.r_[starts, m]),
+        k_stratum=times.k_stratum,
+        k_time=times.k_time,
+        labels=sample.labels,
         n_strata=n_strata,
-        late_entry=n_late > 0,
+        late_entry=bool(entered_late.any()),
         n=n,
-        events=int(e.sum()),
+        events=int(sample.event.sum()),
         time_s=t_s,
         event_s=e_s,
         entry_s=en_s,
@@ -336,6 +315,26 @@ def _given_layout(layout: Any, n: int) -> Layout:
             "rows as X"
         )
     return layout
+
+
+def _design_and_layout(
+    X: Any,
+    layout: Layout | None,
+    time: Any,
+    event: Any,
+    entry: Any | None = None,
+    strata: Any | None = None,
+    weights: Any | None = None,
+) -> tuple[np.ndarray, Layout]:
+    """X checked (2-D, finite) and the layout of its rows: ``layout`` when given (checked
+    against X's row count, the sample arrays are then not read), otherwise prepared from
+    time, event, entry, strata and weights."""
+    Xa = _design(X)
+    _check_finite("X", Xa)
+    n = Xa.shape[0]
+    if layout is None:
+        return Xa, _prepare(n, time, event, entry, strata, weights)
+    return Xa, _given_layout(layout, n)
 
 
 _FEW_STRATA = 64  # up to this many strata, sums restart by looping over strata
