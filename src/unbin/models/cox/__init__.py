@@ -1,5 +1,6 @@
-"""The proportional-hazards engine: Cox partial likelihood on numpy arrays (``layout``: the
-sorted sample and its risk sets; ``fit``: the likelihood and Newton fit; ``baseline``: baseline
+"""The proportional-hazards engine: Cox partial likelihood on numpy arrays (``inputs``: the
+checks of the arrays; ``layout``: the sorted sample and its risk sets; ``likelihood``: the log
+partial likelihood, score and information; ``fit``: the Newton fit; ``baseline``: baseline
 hazard and absolute risk; ``concordance``: Harrell's C).
 
 What it does
@@ -15,36 +16,12 @@ one sample once for any number of fits of it (``fit_cox(..., layout=...)``), and
 
 How it is fast
 --------------
-The data are sorted once, and the covariates gathered once into a sorted, standardised
-(n x (1 + p)) array whose first column is ones. Every event time t_k of every stratum gets an
-index k (sorted by stratum, then time), and every row the range of indices ``(a_i, b_i]`` of
-the event times at which it is at risk. A sparse (K x n) matrix with +1 at ``b_i`` and -1 at
-``a_i``, times that array, followed by a reverse cumulative sum over event times, gives the
-risk-set sums of ``w exp(eta)`` and ``w exp(eta) x`` at every event time in one sparse product
-(the -1 removes rows that have not yet entered). The second derivatives never need
-per-event-time p x p matrices: the sum over event times of ``c_k * sum_{i in R_k} r_i x_i x_i'``
-equals ``X' diag(r_i * sum_{k: i in R_k} c_k) X``, one matrix product (in row blocks that stay
-in cache; its first row is also the score's varying part), and the ``E[x] E[x]'`` part needs
-only the (event times x p) risk-set sums. Memory is therefore a few n x p arrays; nothing of
-size n x p x p (or n x p^2) is formed. Efron's tied-event terms touch only the event times
-that hold ties (one entry per tied event, ``l/d`` fractions, summed with ``np.bincount``), so
-there is no Python loop over event times or strata.
-
-One sample, many models: the sort, the index ranges and the sparse operators depend on time,
-event, entry, strata and weights only, never on X. ``prepare_layout`` builds them once; a fit
-given that layout starts at gathering X, and its result is bit for bit the one it computes
-when it lays the sample out itself. Harrell's C likewise keeps the time order and the tie
-counts of (time, event) (``concordance_order``), so each score costs one sort by score and
-O(n) passes per bit of n (see ``concordance``).
-
-Few evaluations: with many events, Newton's method starts from a fit to a systematic subsample
-(every 4th to 8th row in time order, itself started the same way when large), whose
-information, scaled up, serves for the first full-data step; the fit then usually needs two
-or three evaluations of the full information (the subsample's layout is kept with the full
-one, so the fits that share a prepared layout share it too). It stops when the next Newton
-step would change no row's linear predictor by more than ``100 * tol`` (so that no weight
-``exp(eta)``, hence no part of the information, changes by more than about that fraction);
-that last step is taken without a further evaluation.
+The sample is sorted and its risk sets laid out once, independently of X (``prepare_layout``),
+so one sample's many models share that work; each likelihood evaluation is then one sparse
+product, cumulative sums over event times and one blocked Gram product, with memory of a few
+n x p arrays and no Python loop over event times; with many events Newton's method starts from
+a subsample's estimate. DEVELOPERS.md ("The Cox engine's performance") explains the layout,
+the algebra and the starting values.
 
 Numerics
 --------

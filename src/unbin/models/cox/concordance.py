@@ -140,19 +140,8 @@ def concordance(
     :func:`concordance_order` of the same time, event, entry and strata, which are then not
     read again) saves the sort when one sample gets many scores.
 
-    O(n log n), exact in integers: the rows are laid out by stratum and time (the events tied in
-    time by increasing score, so that their pairs count as lower or tied, and the tied ones are
-    taken out again), and sorted once by (stratum, score) (ties by position), so that a later
-    row of another stratum never counts as lower; the events tied in time then move to their
-    slots by a stable (radix) sort of their time groups. Going down the bits of the position,
-    from the highest, each level splits every block of positions into an earlier and a later
-    half; with the rows of each block in score order, one cumulative count of the later half
-    gives, for every earlier event, the later rows with a lower score, and the same counts split
-    each block into its halves for the next level (a stable partition, O(n)). Delayed entry: a
-    later row that had not entered by the event's time (entry_j >= t_i, so t_j > t_i) was
-    counted; such pairs are counted the same way over a second sequence, the events at their
-    times and the entries at their entry times (events first at equal values), counting only
-    event-before-entry pairs, and subtracted.
+    O(n log n), exact in integers (a sort by score, then one stable partition per bit of the
+    position; DEVELOPERS.md, "The Cox engine's performance", describes the passes).
     """
     s = np.asarray(risk_score, dtype=float)
     if time_order is None:
