@@ -468,7 +468,7 @@ def test_hksj_and_prediction_interval_formulas_with_dersimonian_laird() -> None:
 def test_reml_tau2_maximises_the_restricted_likelihood(seed: int) -> None:
     # Brute force: the restricted log-likelihood of the normal random-effects model
     # (Viechtbauer 2005, J Educ Behav Stat 30:261), maximised over tau2 >= 0 by scipy's bounded
-    # scalar search, against the fixed-point iteration in unbin.consortium.meta_analysis.
+    # scalar search, against the fixed-point iteration in unbin.consortium.univariate.
     from scipy.optimize import minimize_scalar
 
     y, v = _heterogeneous(np.random.default_rng(seed), 6, 0.4)
