@@ -25,18 +25,18 @@ POOLED_TABLES = ("pooled_curves", "pooled_effects", "heterogeneity", "harmonisat
 CURVE_FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
 
 
-def coefficients_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+def coefficients_table(refit: Refit, spec: Spec | None = None) -> pd.DataFrame:
     """The common-knot spline's exposure coefficients and covariance, long (one row per (i, j)).
 
     Also written by every job (``coefficients.parquet``) so bundles can be built from tables."""
     rows = []
     for coding in ("legacy", "continuous"):
-        f = r.get("common_spline", coding)
-        if f is None or not f.result.ok:
+        form_fit = refit.get("common_spline", coding)
+        if form_fit is None or not form_fit.result.ok:
             continue
-        b, V = f.exposure_coef()
-        names = f.exposure_names
-        basis = json.dumps([t.to_dict() for t in f.exposure_terms], sort_keys=True)
+        b, V = form_fit.exposure_coef()
+        names = form_fit.exposure_names
+        basis = json.dumps([t.to_dict() for t in form_fit.exposure_terms], sort_keys=True)
         for i, ni in enumerate(names):
             for j, nj in enumerate(names):
                 rows.append({"adjustment": coding, "basis": basis, "row": ni, "col": nj,
@@ -49,7 +49,7 @@ COMMON_FORMS = ("linear", "spline", "fp", "common_spline")
 COMMON_QUARTILES = "common Q3 vs Q1"
 
 
-def common_contrasts_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+def common_contrasts_table(refit: Refit, spec: Spec | None = None) -> pd.DataFrame:
     """Each continuous form's contrasts at the common exposure values of the common basis
     (``unbin.consortium.basis``), so that every cohort estimates the same quantity and the contrasts
     pool: the common upper vs lower quartile (``contrast_type`` "common quartiles") and each
@@ -57,7 +57,7 @@ def common_contrasts_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     form is not defined at a value (a fractional polynomial below its origin)."""
     from ..refit.contrasts import contrast
 
-    basis = r.basis
+    basis = refit.basis
     cols = ["adjustment", "form", "contrast_type", "contrast", "x_value", "x_reference",
             "estimate", "se", "scale"]
     if basis is None:
@@ -66,23 +66,23 @@ def common_contrasts_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
 
     q1, q3 = basis.contrast_quartiles()
     points = [("common quartiles", COMMON_QUARTILES, q3, q1)]
-    ref_label = r.legacy.labels[r.legacy.reference]
+    ref_label = refit.legacy.labels[refit.legacy.reference]
     points += [("common group", f"{g} vs {ref_label} (common values)", v, basis.reference)
                for g, v in basis.group_values if g != ref_label]
     rows = []
     for coding in ("legacy", "continuous"):
         for form in COMMON_FORMS:
-            f = r.get(form, coding)
-            if f is None:
+            form_fit = refit.get(form, coding)
+            if form_fit is None:
                 continue
             x1 = np.array([p[2] for p in points])
             x0 = np.array([p[3] for p in points])
-            est, se = contrast(f, x1, x0)
+            est, se = contrast(form_fit, x1, x0)
             for (ctype, label, a, b), e, s_ in zip(points, est, se, strict=True):
                 rows.append({"adjustment": coding, "form": form, "contrast_type": ctype,
                              "contrast": label, "x_value": float(a), "x_reference": float(b),
                              "estimate": float(e), "se": float(s_),
-                             "scale": EFFECT_SCALE[r.family]})
+                             "scale": EFFECT_SCALE[refit.family]})
     return pd.DataFrame(rows, columns=cols)
 
 

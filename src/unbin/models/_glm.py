@@ -132,15 +132,15 @@ class _Family:
     information at one linear predictor, for the logistic or the Poisson model."""
 
     def __init__(self, family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-                 f: np.ndarray | None, const: float | None = None):
+                 freq: np.ndarray | None, const: float | None = None):
         self.binary = family == "binary"
-        self.Z, self.y, self.off, self.f = Z, y, off, f
+        self.Z, self.y, self.off, self.freq = Z, y, off, freq
         self.const = 0.0
         if not self.binary:  # the log(y!) term of the Poisson log-likelihood
-            self.const = poisson_constant(y, f) if const is None else const
+            self.const = poisson_constant(y, freq) if const is None else const
 
     def evaluate(self, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
-        Z, y, off, f = self.Z, self.y, self.off, self.f
+        Z, y, off, freq = self.Z, self.y, self.off, self.freq
         n, k = Z.shape
         ll, score, H = self.const, np.zeros(k), np.zeros((k, k))
         for r0 in range(0, n, _PASS_ROWS):
@@ -161,9 +161,9 @@ class _Family:
                 v = mu
                 terms = yb * eta - mu
             resid = yb - mu
-            if f is not None:
-                fb = f[r0:r1]
-                terms, resid, v = fb * terms, fb * resid, fb * v
+            if freq is not None:
+                freq_b = freq[r0:r1]
+                terms, resid, v = freq_b * terms, freq_b * resid, freq_b * v
             ll += float(terms.sum())
             score += Zb.T @ resid
             H += (Zb * v[:, None]).T @ Zb
@@ -174,28 +174,29 @@ class _Family:
         starting means, mu = (y + 1/2) / 2. Poisson: the intercept-only estimate with the
         offset, log(sum y / sum e^offset), other coefficients 0 (the customary start ignores
         the offset and, with person-time offsets, costs several more steps)."""
-        Z, y, f = self.Z, self.y, self.f
+        Z, y, freq = self.Z, self.y, self.freq
         if not self.binary:
             theta = np.zeros(Z.shape[1])
             t = np.ones_like(y) if self.off is None else np.exp(self.off)
-            total_y = float(y.sum() if f is None else f @ y)
-            total_t = float(t.sum() if f is None else f @ t)
+            total_y = float(y.sum() if freq is None else freq @ y)
+            total_t = float(t.sum() if freq is None else freq @ t)
             theta[0] = np.log(max(total_y, 1e-10) / total_t)
             return theta
         mu = (y + 0.5) / 2.0
         eta0 = np.log(mu / (1.0 - mu))
         v = mu * (1.0 - mu)
-        fv = v if f is None else f * v
-        cf = _cholesky(gram(Z, fv))
-        if cf is None:
+        freq_v = v if freq is None else freq * v
+        factor = _cholesky(gram(Z, freq_v))
+        if factor is None:
             return np.full(Z.shape[1], np.nan)
-        return linalg.cho_solve(cf, Z.T @ (fv * eta0 + (y - mu) * (1.0 if f is None else f)))
+        resid = y - mu if freq is None else freq * (y - mu)
+        return linalg.cho_solve(factor, Z.T @ (freq_v * eta0 + resid))
 
 
-def poisson_constant(y: np.ndarray, f: np.ndarray | None = None) -> float:
+def poisson_constant(y: np.ndarray, freq: np.ndarray | None = None) -> float:
     """The -sum log(y!) term of the Poisson log-likelihood (it does not depend on the fit)."""
     lg = special.gammaln(y + 1.0)
-    return -float(lg.sum() if f is None else f @ lg)
+    return -float(lg.sum() if freq is None else freq @ lg)
 
 
 def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
@@ -206,35 +207,35 @@ def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
 
 
 def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-            f: np.ndarray | None, const: float | None = None) -> _Solution:
+            freq: np.ndarray | None, const: float | None = None) -> _Solution:
     """Maximum likelihood of the logistic or Poisson model on the standardised design."""
-    fam = _Family(family, Z, y, off, f, const)
+    model = _Family(family, Z, y, off, freq, const)
     k = Z.shape[1]
     nan = _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0, "")
-    theta = fam.start()
+    theta = model.start()
     if not np.all(np.isfinite(theta)):
         nan.message = "the information matrix is singular at the start; check the design."
         return nan
     ll_prev, step = -np.inf, np.zeros(k)
     for it in range(1, MAX_ITER + 1):
-        ll, score, H = fam.evaluate(theta)
+        ll, score, H = model.evaluate(theta)
         halvings = 0
         while not (np.isfinite(ll) and ll >= ll_prev - _ABS_TOL) and halvings < 30:
             step /= 2.0
             theta = theta - step
-            ll, score, H = fam.evaluate(theta)
+            ll, score, H = model.evaluate(theta)
             halvings += 1
         if not np.isfinite(ll):
             nan.message = "the log-likelihood is not finite; check for extreme values."
             nan.iterations = it
             return nan
-        cf = _cholesky(H)
-        if cf is None:
+        factor = _cholesky(H)
+        if factor is None:
             nan.message = ("the information matrix became singular; check for separation or "
                            "an empty group.")
             nan.iterations = it
             return nan
-        step = linalg.cho_solve(cf, score)
+        step = linalg.cho_solve(factor, score)
         small_step = float(np.max(np.abs(step))) <= _STEP_TOL
         if small_step:
             # the last step is taken without evaluating its end point: its log-likelihood is
@@ -243,7 +244,7 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
             theta = theta + step
             ll += float(score @ step) / 2.0
         if abs(ll - ll_prev) <= _REL_TOL * abs(ll) + _ABS_TOL or small_step or halvings == 30:
-            cov = linalg.cho_solve(cf, np.eye(k))
+            cov = linalg.cho_solve(factor, np.eye(k))
             msg = "" if halvings < 30 else (
                 "step halving could not improve the log-likelihood; the model may be "
                 "overparameterised or a covariate may have extreme values.")
@@ -255,23 +256,23 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
                      "sparse groups.")
 
 
-def _least_squares(Z: np.ndarray, y: np.ndarray, f: np.ndarray | None) -> _Solution:
+def _least_squares(Z: np.ndarray, y: np.ndarray, freq: np.ndarray | None) -> _Solution:
     """The linear model by maximum likelihood (residual variance RSS / N), with the usual
     unbiased ``RSS / (N - p)`` in the covariance; frequency weights count as repeated rows."""
     k = Z.shape[1]
-    cf = _cholesky(gram(Z, f))
-    if cf is None:
+    factor = _cholesky(gram(Z, freq))
+    if factor is None:
         return _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0,
                          "the design's cross-product matrix is singular; check the design.")
     theta = np.zeros(k)
     resid = y.copy()
     for _ in range(3):  # the least-squares step, then two refinements
-        theta = theta + linalg.cho_solve(cf, Z.T @ (resid if f is None else f * resid))
+        theta = theta + linalg.cho_solve(factor, Z.T @ (resid if freq is None else freq * resid))
         resid = y - Z @ theta
-    N = float(y.size if f is None else f.sum())
-    rss = float(resid @ resid if f is None else f @ (resid * resid))
+    N = float(y.size if freq is None else freq.sum())
+    rss = float(resid @ resid if freq is None else freq @ (resid * resid))
     loglik = -N / 2.0 * (np.log(2.0 * np.pi * rss / N) + 1.0) if rss > 0 else float("inf")
-    cov = linalg.cho_solve(cf, np.eye(k)) * (rss / max(N - k, 1.0))
+    cov = linalg.cho_solve(factor, np.eye(k)) * (rss / max(N - k, 1.0))
     return _Solution(theta, cov, float(loglik), 3, "")
 
 
@@ -286,16 +287,16 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
     if problem:
         return failed_fit(family, all_names, n, events, problem)
     y = np.asarray(outcome.y, dtype=float)
-    f = None if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
+    freq = None if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
     if family == "continuous":
-        sol = _least_squares(Z, y, f)
+        sol = _least_squares(Z, y, freq)
     else:
         const = None
         if family == "count":  # the same for every fit of this outcome
             const = outcome.cache.get("poisson_constant")
             if const is None:
-                const = outcome.cache["poisson_constant"] = poisson_constant(y, f)
-        sol = _newton(family, Z, y, outcome.offset, f, const)
+                const = outcome.cache["poisson_constant"] = poisson_constant(y, freq)
+        sol = _newton(family, Z, y, outcome.offset, freq, const)
     if separation_check is not None and np.all(np.isfinite(sol.theta)):
         sep = separation_check(Z @ sol.theta)
         if sep:

@@ -452,11 +452,11 @@ def _efficient(i_dd: np.ndarray, i_dz: np.ndarray,
     """The efficient information I_DD - I_DZ I_ZZ^-1 I_ZD per candidate (NaN where it is not
     positive, relative to I_DD) and B = I_DZ I_ZZ^-1 (candidates x columns)."""
     try:
-        cf = linalg.cho_factor(i_zz)
+        factor = linalg.cho_factor(i_zz)
     except linalg.LinAlgError as exc:
         raise NullModelFailed("the adjustment variables' information matrix is singular") \
             from exc
-    B = linalg.cho_solve(cf, i_dz.T).T
+    B = linalg.cho_solve(factor, i_dz.T).T
     eff = i_dd - np.einsum("mj,mj->m", i_dz, B)
     return np.where(eff > 1e-10 * np.maximum(i_dd, 1e-300), eff, np.nan), B
 

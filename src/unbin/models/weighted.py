@@ -209,13 +209,13 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
             coef = refit_near(Xm, layout, init) if init is not None else None
             if coef is None:
                 try:  # far from the start, or not settling: the full fit decides
-                    f = fit_cox(Xm, time, event, entry=entry, strata=strata, init=init,
+                    fitted = fit_cox(Xm, time, event, entry=entry, strata=strata, init=init,
                                 layout=layout)
                 except ValueError:
                     continue
-                if not f.converged:
+                if not fitted.converged:
                     continue
-                coef = f.coef
+                coef = fitted.coef
             out[b] = coef
             if on_fit is not None:
                 on_fit(b, j, Xm, m, layout, coef)

@@ -182,13 +182,13 @@ def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndar
     if sub.events == 0:
         return None
     Dsub = _Design.of(D.X1[pos[sub.order]], sub.we, D.reach)
-    fit = _newton(sub, Dsub, efron, _start(sub, Dsub, efron), 30, 1e-5)
-    if fit.status != "converged" or not np.isfinite(fit.beta).all():
+    sub_stop = _newton(sub, Dsub, efron, _start(sub, Dsub, efron), 30, 1e-5)
+    if sub_stop.status != "converged" or not np.isfinite(sub_stop.beta).all():
         return None
-    nxt = _solve(fit.info, fit.score)
-    if nxt is None or np.abs(nxt).max() > 0.1:  # e.g. a coefficient diverging in the subsample
+    next_step = _solve(sub_stop.info, sub_stop.score)
+    if next_step is None or np.abs(next_step).max() > 0.1:  # e.g. a coefficient diverging in the subsample
         return None
-    return fit.beta, fit.info * (L.wsum.sum() / sub.wsum.sum())
+    return sub_stop.beta, sub_stop.info * (L.wsum.sum() / sub.wsum.sum())
 
 
 def _start(
