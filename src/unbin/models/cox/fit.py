@@ -75,7 +75,9 @@ def _solve(info: np.ndarray, score: np.ndarray) -> np.ndarray | None:
 
 @dataclass
 class _Iterate:
-    """Where Newton's method stopped: ``status`` is converged, singular, max_iter or halving."""
+    """Where Newton's method stopped (``status`` converged, singular, max_iter or halving) or
+    starts (``status`` "", or ``_BAD_START`` at given values where the likelihood is not
+    finite)."""
 
     beta: np.ndarray
     loglik: float
@@ -186,7 +188,7 @@ def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndar
     if sub_stop.status != "converged" or not np.isfinite(sub_stop.beta).all():
         return None
     next_step = _solve(sub_stop.info, sub_stop.score)
-    if next_step is None or np.abs(next_step).max() > 0.1:  # e.g. a coefficient diverging in the subsample
+    if next_step is None or np.abs(next_step).max() > 0.1:  # e.g. a coefficient diverging there
         return None
     return sub_stop.beta, sub_stop.info * (L.wsum.sum() / sub.wsum.sum())
 
