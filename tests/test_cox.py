@@ -652,6 +652,37 @@ def test_invalid_inputs_raise_value_errors() -> None:
         fit_cox(X, time, [0, 1, 1, 1, 0, 1], ties="exact")
 
 
+
+@pytest.mark.parametrize(
+    ("bad", "message"),
+    [
+        ({"entry": [0, 0, 3, 0, 0, 0]}, r"1 row\(s\) have time <= entry, e.g. row 2"),
+        ({"entry": [0, 0, 0]}, "entry has 3 values but time has 6 rows"),
+        ({"entry": [0, np.inf, 0, 0, 0, 0]}, r"entry has 1 missing or infinite value\(s\)"),
+        ({"strata": ["a", None, "b", "a", "b", "a"]}, r"strata has 1 missing value\(s\)"),
+        ({"strata": ["a", "b"]}, "strata must be one-dimensional with 6 values"),
+    ],
+)
+def test_every_entry_point_refuses_bad_entry_and_strata_alike(
+    bad: dict[str, object], message: str
+) -> None:
+    # common practice: one check of entry times and strata serves the fit, the prepared
+    # layout, the baseline hazard and Harrell's C, so each refuses the same input in the
+    # same words
+    X = np.arange(6.0)[:, None]
+    time = np.array([1.0, 2, 3, 4, 5, 6])
+    event = [0, 1, 1, 1, 0, 1]
+    calls = [
+        lambda: fit_cox(X, time, event, **bad),
+        lambda: prepare_layout(time, event, **bad),
+        lambda: baseline_cumhaz(X, time, event, [0.1], **bad),
+        lambda: concordance_order(time, event, **bad),
+        lambda: concordance(time, X[:, 0], event, **bad),
+    ]
+    for call in calls:
+        with pytest.raises(ValueError, match=message):
+            call()
+
 def test_chord_refits_near_a_start_reach_the_full_fit() -> None:
     """``refit_near`` (one Newton step, then chord steps with the start's information) reaches
     the maximum that ``fit_cox`` finds, on Rossi data shipped by lifelines with its published
