@@ -153,13 +153,13 @@ class _Ties:
     op: sparse.csr_matrix  # (T, m): 1 for the events at each tied event time
 
 
-def _tie_structure(ev: np.ndarray, g: np.ndarray, d: np.ndarray, m: int) -> _Ties:
-    """``ev``: positions of the events (sorted by event time), ``g`` their event-time index,
-    ``d`` the number of events at each event time, ``m`` the number of kept rows."""
+def _tie_structure(ev: np.ndarray, event_k: np.ndarray, d: np.ndarray, m: int) -> _Ties:
+    """``ev``: positions of the events (sorted by event time), ``event_k`` their event-time
+    index, ``d`` the number of events at each event time, ``m`` the number of kept rows."""
     tied = d > 1
     tie_k = np.flatnonzero(tied)
-    in_tied = tied[g]
-    tie_ev, tie_g = ev[in_tied], g[in_tied]
+    in_tied = tied[event_k]
+    tie_ev, tie_g = ev[in_tied], event_k[in_tied]
     tie_grp = (np.cumsum(tied) - 1)[tie_g]
     tie_d = d[tie_k]
     tie_first = np.cumsum(tie_d) - tie_d
@@ -212,6 +212,9 @@ def _prepare(
     strata: Any | None,
     weights: Any | None,
 ) -> Layout:
+    """Check one sample of ``n`` rows and lay it out (see :class:`Layout`): sort it by stratum
+    and time, give each row its range of event times at risk (from its entry on), drop the
+    rows at risk at no event time, and build the tie and risk-set operators."""
     sample = _checked_sample(n, time, event, entry, strata, weights)
     n_strata = int(sample.labels.size)
     order = _stratum_time_order(sample.time, sample.codes, n_strata)
@@ -232,15 +235,15 @@ def _prepare(
     w_s = np.ones(m) if sample.weights is None else sample.weights[order]
 
     ev = np.flatnonzero(e_s)
-    g = b[ev]
-    d = np.bincount(g, minlength=K)
+    event_k = b[ev]  # each event's event-time index
+    d = np.bincount(event_k, minlength=K)  # events at each event time
     we_ev = w_s[ev]
     if sample.weights is None:
         wsum = d.astype(float)
     else:
-        wsum = np.bincount(g, weights=we_ev, minlength=K)
+        wsum = np.bincount(event_k, weights=we_ev, minlength=K)
     wavg = wsum / np.maximum(d, 1)
-    ties = _tie_structure(ev, g, d, m)
+    ties = _tie_structure(ev, event_k, d, m)
     entered_late = a >= lo
     seg_start, seg_end, k_bounds = _stratum_segments(times.k_stratum, n_strata)
     starts = _stratum_starts(sc_s, n_strata, m)
