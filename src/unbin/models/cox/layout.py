@@ -204,6 +204,15 @@ def _stratum_segments(
     return seg_start, seg_end, np.r_[k_bounds, K]
 
 
+def _event_weight_sums(
+    event_k: np.ndarray, d: np.ndarray, event_weights: np.ndarray | None
+) -> np.ndarray:
+    """Summed weight of the events at each event time (their count without weights)."""
+    if event_weights is None:
+        return d.astype(float)
+    return np.bincount(event_k, weights=event_weights, minlength=d.size)
+
+
 def _prepare(
     n: int,
     time: Any,
@@ -238,10 +247,7 @@ def _prepare(
     event_k = b[ev]  # each event's event-time index
     d = np.bincount(event_k, minlength=K)  # events at each event time
     we_ev = w_s[ev]
-    if sample.weights is None:
-        wsum = d.astype(float)
-    else:
-        wsum = np.bincount(event_k, weights=we_ev, minlength=K)
+    wsum = _event_weight_sums(event_k, d, None if sample.weights is None else we_ev)
     wavg = wsum / np.maximum(d, 1)
     ties = _tie_structure(ev, event_k, d, m)
     entered_late = a >= lo
