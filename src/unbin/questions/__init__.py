@@ -17,8 +17,8 @@ QUESTION_TABLES: dict[str, str] = {
     "common_contrasts": "consortium.bundles:common_contrasts_table",
     "ranges": "questions.ranges:ranges_table",
     "replication": "questions.replication:replication_table",
-    "thresholds": "questions.decisions:thresholds_table",
-    "net_benefit": "questions.decisions:net_benefit_table",
+    "thresholds": "questions.thresholds:thresholds_table",
+    "net_benefit": "questions.net_benefit:net_benefit_table",
 }
 # Questions whose cost is resampling (bootstrap, permutations): a workflow job of their own per
 # (cohort, analysis), so they spread over cores or a cluster beside the fits. They need the
