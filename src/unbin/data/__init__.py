@@ -2,12 +2,10 @@
 the analysis sample (``sample``)."""
 
 from .checks import (
-    MAX_CATEGORICAL_LEVELS,
     _type_problems,
     data_problems,
     group_problems,
     grouping_warnings,
-    is_categorical,
 )
 from .extracts import (
     READERS,
@@ -20,8 +18,8 @@ from .extracts import (
 from .sample import Sample, analysis_sample, coerce_numeric
 
 __all__ = [
-    "MAX_CATEGORICAL_LEVELS", "READERS", "Sample", "_type_problems", "analysis_sample",
+    "READERS", "Sample", "_type_problems", "analysis_sample",
     "coerce_numeric", "data_problems", "extract_columns", "extract_rows", "file_sha256",
-    "group_problems", "grouping_warnings", "is_categorical", "missing_column_message",
+    "group_problems", "grouping_warnings", "missing_column_message",
     "read_extract",
 ]

@@ -78,6 +78,7 @@ from ..models.weighted import resample_weights
 from ..refit.analysis import Refit, adjustment_terms, design, legacy_term
 from ..spec import Spec
 from ..terms import GroupedTerm
+from ..terms.roles import is_grouped
 
 TABLE = "cutpoints"
 MAX_CANDIDATES = 500
@@ -352,11 +353,7 @@ def _suppress(counts: list[int | None], min_cell: int) -> list[int | None]:
 def _grouped_variables(r: Refit, spec: Spec) -> list[tuple[str, str]]:
     a = r.analysis
     out = [(a.exposure, "exposure")]
-    for v in a.adjust:
-        info = spec.variables.get(v)
-        if v in spec.groupings and not (info and info.type == "categorical"):
-            out.append((v, "adjustment"))
-    return out
+    return out + [(v, "adjustment") for v in a.adjust if is_grouped(v, spec)]
 
 
 def _events(r: Refit) -> np.ndarray | None:
