@@ -11,10 +11,12 @@ turn a cohort's result tables into bundle tables (``jobs`` does the reading and 
 from __future__ import annotations
 
 import json
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
+
+from ..questions.disclosure import is_small, primary_value
 
 if TYPE_CHECKING:
     from ..refit.analysis import Refit
@@ -86,13 +88,6 @@ def common_contrasts_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=cols)
 
 
-def _suppress(v: Any, min_cell: int) -> Any:
-    if v is None or pd.isna(v):
-        return pd.NA
-    iv = int(v)
-    return pd.NA if 0 < iv < min_cell else iv
-
-
 def make_bundle(tables: dict[str, pd.DataFrame], min_cell: int) -> dict[str, pd.DataFrame]:
     """Bundle tables from one cohort's study-level-style tables (fits, curves, effects,
     coefficients, common_contrasts, status, cutpoints); keys as in ``BUNDLE_TABLES``. The
@@ -120,9 +115,9 @@ def make_bundle(tables: dict[str, pd.DataFrame], min_cell: int) -> dict[str, pd.
     status = tables["status"]
     counts = pd.DataFrame({
         "cohort": status["cohort"], "analysis": status["analysis"], "status": status["status"],
-        "n": pd.array([_suppress(v, min_cell) for v in status["n_used"]], dtype="Int64"),
-        "events": pd.array([_suppress(events.get(a), min_cell) for a in status["analysis"]],
-                           dtype="Int64"),
+        "n": pd.array([primary_value(v, min_cell) for v in status["n_used"]], dtype="Int64"),
+        "events": pd.array([primary_value(events.get(a), min_cell)
+                            for a in status["analysis"]], dtype="Int64"),
     })
     cp = tables.get("cutpoints")
     if cp is not None and len(cp):
@@ -155,7 +150,7 @@ def bundle_problems(bundle: dict[str, pd.DataFrame], min_cell: int,
         for col in ("n", "events"):
             if col in df.columns:
                 vals = pd.to_numeric(df[col], errors="coerce").dropna()
-                if ((vals > 0) & (vals < min_cell)).any():
+                if is_small(vals.to_numpy(), min_cell).any():
                     problems.append(f"bundle table {name!r} column {col!r} holds a count below "
                                     f"{min_cell}")
     return problems

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError
+from ..questions.disclosure import is_small
 from ..spec import Analysis, Spec
 from ..terms.grouped import GroupedTerm
 from ..terms.legacy import legacy_term
@@ -134,7 +135,7 @@ def group_problems(x: np.ndarray, term: GroupedTerm, min_cell: int) -> tuple[lis
         problems.append(f"{what} empty in the analysis sample{cause}: the legacy contrasts "
                         f"{'against' if ref in empty else 'of'} it cannot be estimated; {fix}.")
     small = [(term.labels[j], int(counts[j])) for j in range(len(term.labels))
-             if 0 < counts[j] < min_cell]
+             if is_small(counts[j], min_cell)]
     if small:
         warnings.append(
             f"group(s) {', '.join(f'{lab!r} ({n} rows)' for lab, n in small)} of "

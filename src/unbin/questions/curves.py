@@ -16,6 +16,7 @@ from ..refit.analysis import Refit
 from ..refit.contrasts import contrast, domain, with_interval
 from ..refit.interaction import SPLINE, level_models, level_reference
 from ..spec import Spec
+from . import disclosure
 
 FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
 DENSITY_BINS = 40
@@ -89,7 +90,7 @@ def density_table(r: Refit, spec: Spec) -> pd.DataFrame:
     lo, hi = np.quantile(r.x, [0.01, 0.99])
     edges = np.linspace(lo, hi, DENSITY_BINS + 1)
     counts, _ = np.histogram(r.x[(r.x >= lo) & (r.x <= hi)], bins=edges)
-    suppressed = (counts > 0) & (counts < min_cell)
+    suppressed = disclosure.is_small(counts, min_cell)
     return pd.DataFrame({
         "bin_left": edges[:-1], "bin_right": edges[1:],
         "count": pd.array([None if s else int(c) for c, s in zip(counts, suppressed,

@@ -79,6 +79,7 @@ from ..refit.analysis import Refit, adjustment_terms, design, legacy_term
 from ..spec import Spec
 from ..terms import GroupedTerm
 from ..terms.roles import is_grouped
+from . import disclosure
 
 TABLE = "cutpoints"
 MAX_CANDIDATES = 500
@@ -338,18 +339,6 @@ def _nanmax(a: np.ndarray, axis: int | None = None) -> Any:
 # --------------------------------------------------------------------------- the table
 
 
-def _suppress(counts: list[int | None], min_cell: int) -> list[int | None]:
-    """Hide counts in 1..min_cell-1; if exactly one count of a set is hidden, hide the smallest
-    other positive count too (it could otherwise be recovered from the total)."""
-    out = [None if c is None or (0 < c < min_cell) else c for c in counts]
-    hidden = [i for i, c in enumerate(out) if c is None and counts[i] is not None]
-    if len(hidden) == 1:
-        others = [(c, i) for i, c in enumerate(out) if c is not None and c > 0]
-        if others:
-            out[min(others)[1]] = None
-    return out
-
-
 def _grouped_variables(r: Refit, spec: Spec) -> list[tuple[str, str]]:
     a = r.analysis
     out = [(a.exposure, "exposure")]
@@ -380,8 +369,9 @@ def _cut_and_group_rows(r: Refit, spec: Spec, variable: str, role: str, term: Gr
     ev = _events(r)
     ev_counts = (np.bincount(codes, weights=ev, minlength=len(term.labels)).round().astype(int)
                  .tolist() if ev is not None else [None] * len(counts))
-    n_shown = _suppress(counts, spec.min_cell)
-    e_shown = _suppress(ev_counts, spec.min_cell) if ev is not None else [None] * len(counts)
+    n_shown = disclosure.complementary(counts, spec.min_cell)
+    e_shown = (disclosure.complementary(ev_counts, spec.min_cell) if ev is not None
+               else [None] * len(counts))
     for j, label in enumerate(term.labels):
         rows.append({**base, "row_type": "group", "group": label,
                      "n": n_shown[j], "events": e_shown[j],
