@@ -12,6 +12,8 @@ from ..errors import DataError
 from ..spec import Analysis, Spec
 from ..terms.roles import is_grouped
 
+MIN_SAMPLE_ROWS = 10  # an analysis sample with fewer rows is recorded as failed, not analysed
+
 
 def coerce_numeric(df: pd.DataFrame, col: str, role: str) -> pd.Series:
     s = df[col]
