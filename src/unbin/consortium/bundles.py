@@ -27,10 +27,14 @@ POOLED_TABLES = ("pooled_curves", "pooled_effects", "heterogeneity", "harmonisat
 CURVE_FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
 
 
-def coefficients_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
-    """The common-knot spline's exposure coefficients and covariance, long (one row per (i, j)).
+COEFFICIENTS_COLUMNS = ("adjustment", "basis", "row", "col", "i", "j", "coef", "cov")
+COMMON_CONTRASTS_COLUMNS = ("adjustment", "form", "contrast_type", "contrast", "x_value",
+                            "x_reference", "estimate", "se", "scale")
 
-    Also written by every job (``coefficients.parquet``) so bundles can be built from tables."""
+
+def coefficients_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+    """The common-knot spline's exposure coefficients and covariance, one row per (i, j)."""
+    # Also written by every job (``coefficients.parquet``) so bundles can be built from tables.
     rows = []
     for coding in ("legacy", "continuous"):
         f = r.get("common_spline", coding)
@@ -43,8 +47,7 @@ def coefficients_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             for j, nj in enumerate(names):
                 rows.append({"adjustment": coding, "basis": basis, "row": ni, "col": nj,
                              "i": i, "j": j, "coef": float(b[i]), "cov": float(V[i, j])})
-    return pd.DataFrame(rows, columns=["adjustment", "basis", "row", "col", "i", "j", "coef",
-                                       "cov"])
+    return pd.DataFrame(rows, columns=list(COEFFICIENTS_COLUMNS))
 
 
 COMMON_FORMS = ("linear", "spline", "fp", "common_spline")
@@ -52,16 +55,16 @@ COMMON_QUARTILES = "common Q3 vs Q1"
 
 
 def common_contrasts_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
-    """Each continuous form's contrasts at the common exposure values of the common basis
-    (``unbin.consortium.basis``), so that every cohort estimates the same quantity and the contrasts
-    pool: the common upper vs lower quartile (``contrast_type`` "common quartiles") and each
-    legacy group's common median vs the common reference value ("common group"). NaN where a
-    form is not defined at a value (a fractional polynomial below its origin)."""
+    """Each continuous form's contrasts at the common basis' values, the ones that pool."""
+    # At the common exposure values of the common basis (``unbin.consortium.basis``), so that
+    # every cohort estimates the same quantity and the contrasts pool: the common upper vs lower
+    # quartile (``contrast_type`` "common quartiles") and each legacy group's common median vs the
+    # common reference value ("common group"). NaN where a form is not defined at a value (a
+    # fractional polynomial below its origin).
     from ..refit.contrasts import contrast
 
     basis = r.basis
-    cols = ["adjustment", "form", "contrast_type", "contrast", "x_value", "x_reference",
-            "estimate", "se", "scale"]
+    cols = list(COMMON_CONTRASTS_COLUMNS)
     if basis is None:
         return pd.DataFrame(columns=cols)
     from ..models import EFFECT_SCALE

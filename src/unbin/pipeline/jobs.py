@@ -28,7 +28,7 @@ from ..data import (
     read_extract,
 )
 from ..errors import DataError, UnbinError
-from ..questions import QUESTION_TABLES, RESAMPLING_TABLES
+from ..questions import KEY_COLUMNS, QUESTION_TABLES, RESAMPLING_TABLES
 from ..results.provenance import provenance
 from ..results.tables import read_table, write_table
 from ..spec import Spec, digest, load_spec
@@ -65,8 +65,8 @@ def input_record(spec: Spec, cohort: str) -> dict[str, Any]:
 
 def _keyed(df: pd.DataFrame, cohort: str, analysis: str) -> pd.DataFrame:
     df = df.copy()
-    df.insert(0, "analysis", analysis)
-    df.insert(0, "cohort", cohort)
+    for position, (key, value) in enumerate(zip(KEY_COLUMNS, (cohort, analysis), strict=True)):
+        df.insert(position, key, value)
     return df
 
 

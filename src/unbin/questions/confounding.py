@@ -287,8 +287,7 @@ _Planned = tuple[_Form, str, tuple[Term, ...], tuple[str, str, str]]
 
 
 def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
-    """Residual confounding of one analysis: the share of the confounding the legacy grouped
-    adjustment leaves, on the marginal and the conditional scale (see the module docstring)."""
+    """The share of the confounding the legacy grouped adjustment leaves (module docstring)."""
     a = r.analysis
     df = r.sample.frame
     legacy_adj = adjustment_terms(df, a, spec, "legacy")

@@ -452,12 +452,13 @@ def _boot_names(prefix: str) -> list[str]:
     return [f"{prefix}_p{str(p).replace('.', '_').removesuffix('_0')}" for p in BOOT_PERCENTILES]
 
 
-COLUMNS = ["row_type", "variable", "role", "derived_from_data", "group", "cut", "percentile",
+COLUMNS = ("row_type", "variable", "role", "derived_from_data", "group", "cut", "percentile",
            "median", "distance_to_median", "distance_percentile_points", "statistic", "p_naive",
            "n", "events", "suppressed", "statistic_name", "adjusted_for", "search_lower",
            "search_upper", "n_candidates", "p_altman", "p_altman_message", "p_lausen",
-           "permutations", "p_permutation", "simulations", "p_simulated", "bootstrap", "bootstrap_ok", "bootstrap_failed",
-           *_boot_names("boot_cut"), *_boot_names("boot_percentile"), "status", "message"]
+           "permutations", "p_permutation", "simulations", "p_simulated", "bootstrap",
+           "bootstrap_ok", "bootstrap_failed", *_boot_names("boot_cut"),
+           *_boot_names("boot_percentile"), "status", "message")
 
 
 def _adjustment(r: Refit, spec: Spec) -> tuple[np.ndarray, tuple[str, ...]]:
@@ -499,7 +500,7 @@ def cutpoints_table(r: Refit, spec: Spec) -> pd.DataFrame:
                          "message": f"the split search could not be set up: {search_error}"})
         else:
             rows += _search_rows(r, spec, search, r.legacy)
-    out = pd.DataFrame(rows, columns=COLUMNS)
+    out = pd.DataFrame(rows, columns=list(COLUMNS))
     for c in ("n", "events", "n_candidates", "permutations", "simulations", "bootstrap",
               "bootstrap_ok", "bootstrap_failed"):
         out[c] = out[c].astype("Int64")

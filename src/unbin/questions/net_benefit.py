@@ -1,8 +1,8 @@
 """Decision curves, one table per analysis (``net_benefit``).
 
-Vickers & Elkin 2006, Med Decis Making 26:565, over the threshold probabilities in :data:`NB_GRID` for treat-all, treat-none, the legacy rules (exposure
-beyond the legacy cut(s), on the side away from the reference group) and the risk rules of the
-fitted models (treat when the predicted risk is at least the threshold). Binary outcomes:
+Vickers & Elkin 2006, Med Decis Making 26:565, over the threshold probabilities in
+:data:`NB_GRID` for treat-all, treat-none, the legacy rules (exposure beyond the legacy cut(s), on
+the side away from the reference group) and the risk rules of the fitted models (treat when the predicted risk is at least the threshold). Binary outcomes:
 NB = TP/n - FP/n * p_t/(1-p_t). Survival outcomes, at the horizon, with Kaplan-Meier estimates
 (Vickers, Cronin, Elkin & Gonen 2008, BMC Med Inform Decis Mak 8:53):
 NB = (1 - S(h | positive)) P(positive) - S(h | positive) P(positive) p_t/(1-p_t); the
