@@ -300,23 +300,24 @@ def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
     horizon = horizon_for(a, spec) if r.family == "survival" else None
     designs = _Designs(r, horizon)
     plan = _plan(r, designs, _scopes(legacy_adj, cont_adj), cont_adj)
-    n_boot = spec.resampling.bootstrap
-    b_cond: dict[str, np.ndarray] = {}
-    b_marg: dict[str, np.ndarray] = {}
-    if n_boot > 0:
-        b_cond, b_marg = designs.bootstrap(spec.rng(a.name, "confounding-bootstrap"), n_boot)
+    n_bootstrap = spec.resampling.bootstrap
+    boot_conditional: dict[str, np.ndarray] = {}
+    boot_marginal: dict[str, np.ndarray] = {}
+    if n_bootstrap > 0:
+        boot_conditional, boot_marginal = designs.bootstrap(
+            spec.rng(a.name, "confounding-bootstrap"), n_bootstrap)
     rows = []
     for f, scope, adj, keys in plan:
         base: dict[str, Any] = {
             "exposure_form": f.form, "contrast": f.contrast, "comparison": f.comparison,
             "reference": f.reference, "x_value": f.x_value, "x_reference": f.x_reference,
-            "scope": scope, "n": r.outcome.n, "bootstrap": n_boot, "horizon": horizon,
+            "scope": scope, "n": r.outcome.n, "bootstrap": n_bootstrap, "horizon": horizon,
             "grouping": "; ".join(f"{t.variable}: {t.describe()}" for t in adj
                                   if isinstance(t, GroupedTerm)) or "none grouped"}
         fails = [designs.items[k].res.message for k in keys if not designs.items[k].res.ok]
-        rows += _marginal_rows(r.family, designs, keys, base, fails, b_marg, n_boot)
-        rows.append(_conditional_row(r.family, designs, keys, base, fails, b_cond, b_marg,
-                                     n_boot))
+        rows += _marginal_rows(r.family, designs, keys, base, fails, boot_marginal, n_bootstrap)
+        rows.append(_conditional_row(r.family, designs, keys, base, fails, boot_conditional,
+                                     boot_marginal, n_bootstrap))
     return _finish(pd.DataFrame(rows, columns=list(COLUMNS)))
 
 
@@ -345,24 +346,24 @@ def _plan(r: Refit, designs: _Designs, scopes: list[tuple[str, tuple[Term, ...]]
     return plan
 
 
-def _marginal_rows(fam: str, designs: _Designs, keys: tuple[str, str, str],
-                   base: dict[str, Any], fails: list[str], b_marg: dict[str, np.ndarray],
-                   n_boot: int) -> list[dict[str, Any]]:
+def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
+                   base: dict[str, Any], fails: list[str], boot_marginal: dict[str, np.ndarray],
+                   n_bootstrap: int) -> list[dict[str, Any]]:
     """One row per marginal (standardised) scale of the family: the three contrasts, their
     bootstrap SDs and percentile limits, and the confounding comparison."""
     means = [designs.means(k) for k in keys]
     rows = []
-    for scale, kind in MEASURES[fam]:
+    for scale, kind in MEASURES[family]:
         notes = list(fails) + [designs.notes[k] for k in keys if designs.notes.get(k)]
         est = np.array([contrast(kind, mu[0], mu[1]) for mu in means])
-        boot = (np.column_stack([contrast(kind, b_marg[k][:, 0], b_marg[k][:, 1])
-                                 for k in keys]) if b_marg else None)
-        row, used = _compare(est, boot, n_boot, notes)
+        boot = (np.column_stack([contrast(kind, boot_marginal[k][:, 0], boot_marginal[k][:, 1])
+                                 for k in keys]) if boot_marginal else None)
+        row, used = _compare(est, boot, n_bootstrap, notes)
         sd, lims = np.full(3, np.nan), np.full((2, 3), np.nan)
         if used is not None:
             sd, lims = used.std(axis=0, ddof=1), np.percentile(used, [2.5, 97.5], axis=0)
         row.update(base, scale_kind="marginal", scale=scale,
-                   primary=scale == MEASURES[fam][0][0])
+                   primary=scale == MEASURES[family][0][0])
         for i, what in enumerate(_ESTIMATES):
             row[f"estimate_{what}"], row[f"se_{what}"] = float(est[i]), float(sd[i])
             row[f"lower_{what}"], row[f"upper_{what}"] = float(lims[0, i]), float(lims[1, i])
@@ -376,27 +377,28 @@ def _marginal_rows(fam: str, designs: _Designs, keys: tuple[str, str, str],
     return rows
 
 
-def _conditional_row(fam: str, designs: _Designs, keys: tuple[str, str, str],
-                     base: dict[str, Any], fails: list[str], b_cond: dict[str, np.ndarray],
-                     b_marg: dict[str, np.ndarray], n_boot: int) -> dict[str, Any]:
+def _conditional_row(family: str, designs: _Designs, keys: tuple[str, str, str],
+                     base: dict[str, Any], fails: list[str],
+                     boot_conditional: dict[str, np.ndarray],
+                     boot_marginal: dict[str, np.ndarray], n_bootstrap: int) -> dict[str, Any]:
     """The conditional (model-scale) contrasts, Wald limits, and the change-in-estimate split
     into its confounding and non-collapsibility parts."""
     notes = list(fails)
     cond = [designs.estimate(k) for k in keys]
     est = np.array([e for e, _ in cond])
-    boot = np.column_stack([b_cond[k] for k in keys]) if b_cond else None
-    row, _ = _compare(est, boot, n_boot, notes)
-    row.update(base, scale_kind="conditional", scale=EFFECT_SCALE[fam], primary=False)
+    boot = np.column_stack([boot_conditional[k] for k in keys]) if boot_conditional else None
+    row, _ = _compare(est, boot, n_bootstrap, notes)
+    row.update(base, scale_kind="conditional", scale=EFFECT_SCALE[family], primary=False)
     for (e, se), what in zip(cond, _ESTIMATES, strict=True):
         row[f"estimate_{what}"], row[f"se_{what}"] = e, se
         row[f"lower_{what}"], row[f"upper_{what}"] = e - Z95 * se, e + Z95 * se
-    marg_co = float(on_model_scale(fam, *designs.means(keys[2])))
-    row["change_confounding"] = est[0] - marg_co
-    row["change_noncollapsibility"] = marg_co - est[2]
-    if boot is not None and b_marg:
-        bm = on_model_scale(fam, b_marg[keys[2]][:, 0], b_marg[keys[2]][:, 1])
+    marginal_continuous = float(on_model_scale(family, *designs.means(keys[2])))
+    row["change_confounding"] = est[0] - marginal_continuous
+    row["change_noncollapsibility"] = marginal_continuous - est[2]
+    if boot is not None and boot_marginal:
+        bm = on_model_scale(family, boot_marginal[keys[2]][:, 0], boot_marginal[keys[2]][:, 1])
         good = np.all(np.isfinite(boot), axis=1) & np.isfinite(bm)
-        if good.sum() >= max(2, n_boot // 2):
+        if good.sum() >= max(2, n_bootstrap // 2):
             for col, v in (("change_confounding", boot[good, 0] - bm[good]),
                            ("change_noncollapsibility", bm[good] - boot[good, 2])):
                 row[f"{col}_lower"], row[f"{col}_upper"] = _interval(v)

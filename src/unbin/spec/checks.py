@@ -77,30 +77,30 @@ def _grouping_problems(groupings: dict[str, Any], cohorts: list[dict[str, Any]])
     return problems
 
 
-def _one_grouping_problems(where: str, g: dict[str, Any]) -> list[str]:
-    has_cuts, has_q = "cuts" in g, "quantiles" in g
+def _one_grouping_problems(where: str, grouping: dict[str, Any]) -> list[str]:
+    has_cuts, has_q = "cuts" in grouping, "quantiles" in grouping
     if has_cuts == has_q:
         return [f"{where}: give exactly one of 'cuts' (cut points) or 'quantiles' "
-                f"(number of equal-frequency groups); got {sorted(g)}."]
+                f"(number of equal-frequency groups); got {sorted(grouping)}."]
     problems: list[str] = []
     if has_cuts:
-        cuts = [float(c) for c in g["cuts"]]
+        cuts = [float(c) for c in grouping["cuts"]]
         if any(b <= a for a, b in zip(cuts, cuts[1:], strict=False)):
-            problems.append(f"{where}.cuts: {g['cuts']} must be strictly increasing with no "
+            problems.append(f"{where}.cuts: {grouping['cuts']} must be strictly increasing with no "
                             f"repeats; write them as {sorted(set(cuts))}.")
-    labels = _labels_for(g)
-    n_groups = len(g["cuts"]) + 1 if has_cuts else int(g["quantiles"])
-    if "labels" in g:
-        if len(g["labels"]) != n_groups:
-            problems.append(f"{where}.labels: {len(g['labels'])} labels given for {n_groups} "
-                            f"groups; give one label per group, lowest group first.")
-        elif len(set(g["labels"])) != len(g["labels"]):
-            problems.append(f"{where}.labels: {g['labels']} contains repeats; labels must be "
-                            "distinct.")
-    if "reference" in g and labels is not None and g["reference"] not in labels:
-        close = difflib.get_close_matches(str(g["reference"]), labels, n=1)
+    labels = _labels_for(grouping)
+    n_groups = len(grouping["cuts"]) + 1 if has_cuts else int(grouping["quantiles"])
+    if "labels" in grouping:
+        if len(grouping["labels"]) != n_groups:
+            problems.append(f"{where}.labels: {len(grouping['labels'])} labels given for "
+                            f"{n_groups} groups; give one label per group, lowest group first.")
+        elif len(set(grouping["labels"])) != len(grouping["labels"]):
+            problems.append(f"{where}.labels: {grouping['labels']} contains repeats; labels "
+                            "must be distinct.")
+    if "reference" in grouping and labels is not None and grouping["reference"] not in labels:
+        close = difflib.get_close_matches(str(grouping["reference"]), labels, n=1)
         hint = f" Did you mean {close[0]!r}?" if close else ""
-        problems.append(f"{where}.reference: {g['reference']!r} is not one of the groups "
+        problems.append(f"{where}.reference: {grouping['reference']!r} is not one of the groups "
                         f"{labels}.{hint}")
     return problems
 
@@ -116,35 +116,35 @@ def _unique_name_problems(raw: dict[str, Any]) -> list[str]:
     return problems
 
 
-def _analysis_problems(i: int, a: dict[str, Any], groupings: dict[str, Any]) -> list[str]:
+def _analysis_problems(i: int, analysis: dict[str, Any], groupings: dict[str, Any]) -> list[str]:
     """One analysis: its outcome, thresholds, strata, exposure, variables, reported result,
     filters and continuous options."""
-    where = f"analyses[{i}] ({a.get('name')})"
-    kind = a["outcome"]["type"]
-    problems = _outcome_problems(where, a["outcome"])
-    problems += _threshold_problems(where, kind, a.get("risk_thresholds", []))
-    if a.get("strata") and kind != "survival":
+    where = f"analyses[{i}] ({analysis.get('name')})"
+    kind = analysis["outcome"]["type"]
+    problems = _outcome_problems(where, analysis["outcome"])
+    problems += _threshold_problems(where, kind, analysis.get("risk_thresholds", []))
+    if analysis.get("strata") and kind != "survival":
         problems.append(f"{where}.strata: strata are for survival (Cox) outcomes only; put "
-                        f"{a['strata']} under 'adjust' for a {kind} outcome.")
-    problems += _variable_problems(where, a, groupings)
-    if "reported" in a and a["exposure"] in groupings:
-        problems += _reported_problems(where, kind, a["reported"],
-                                       _labels_for(groupings[a["exposure"]]) or [],
-                                       a["exposure"])
-    problems += _filter_problems(where, a.get("filters", []))
-    problems += _continuous_problems(f"{where}.continuous", a.get("continuous", {}))
+                        f"{analysis['strata']} under 'adjust' for a {kind} outcome.")
+    problems += _variable_problems(where, analysis, groupings)
+    if "reported" in analysis and analysis["exposure"] in groupings:
+        problems += _reported_problems(where, kind, analysis["reported"],
+                                       _labels_for(groupings[analysis["exposure"]]) or [],
+                                       analysis["exposure"])
+    problems += _filter_problems(where, analysis.get("filters", []))
+    problems += _continuous_problems(f"{where}.continuous", analysis.get("continuous", {}))
     return problems
 
 
-def _outcome_problems(where: str, out: dict[str, Any]) -> list[str]:
+def _outcome_problems(where: str, outcome: dict[str, Any]) -> list[str]:
     """The outcome's required fields are there and no other outcome type's fields."""
-    kind = out["type"]
+    kind = outcome["type"]
     problems = [f"{where}.outcome: a {kind} outcome needs '{field}' (a column name); add it."
-                for field in OUTCOME_FIELDS[kind] if field not in out]
+                for field in OUTCOME_FIELDS[kind] if field not in outcome]
     allowed = set(OUTCOME_FIELDS[kind]) | set(OPTIONAL_OUTCOME_FIELDS[kind]) | {"type"}
     known = {k for fs in (*OUTCOME_FIELDS.values(), *OPTIONAL_OUTCOME_FIELDS.values())
              for k in fs}
-    for field in sorted((set(out) - allowed) & known):  # unknown keys: the schema reports them
+    for field in sorted((set(outcome) - allowed) & known):  # unknown keys: the schema reports them
         problems.append(f"{where}.outcome.{field}: not used by a {kind} outcome (it takes "
                         f"{sorted(allowed - {'type'})}); remove it.")
     return problems
@@ -161,41 +161,43 @@ def _threshold_problems(where: str, kind: str, thresholds: list[float]) -> list[
     return problems
 
 
-def _variable_problems(where: str, a: dict[str, Any], groupings: dict[str, Any]) -> list[str]:
+def _variable_problems(where: str, analysis: dict[str, Any],
+                       groupings: dict[str, Any]) -> list[str]:
     """The exposure has a grouping; no variable is named twice among an analysis' roles."""
     problems: list[str] = []
-    exposure = a["exposure"]
+    exposure = analysis["exposure"]
     if exposure not in groupings:
         problems.append(f"{where}.exposure: {exposure!r} has no entry under 'groupings'; declare "
                         "how the legacy analysis grouped it "
                         f"(groupings.{exposure}: {{cuts: [...]}}).")
-    lists = [a.get(k) for k in ("adjust", "strata")]  # not lists: the schema reports them
+    lists = [analysis.get(k) for k in ("adjust", "strata")]  # not lists: the schema reports them
     involved = ([exposure, *(v for vs in lists if isinstance(vs, list) for v in vs)]
-                + ([a["by"]] if "by" in a else []))
+                + ([analysis["by"]] if "by" in analysis else []))
     for v in sorted({v for v in involved if involved.count(v) > 1}):
         problems.append(f"{where}: variable {v!r} appears more than once among exposure, "
                         "adjust, strata and by; list it once.")
     return problems
 
 
-def _reported_problems(where: str, kind: str, rep: dict[str, Any], labels: list[str],
+def _reported_problems(where: str, kind: str, reported: dict[str, Any], labels: list[str],
                        exposure: str) -> list[str]:
     """The published contrast names two of the exposure's groups; its numbers are coherent."""
     problems: list[str] = []
-    parts = re.split(r"\s+vs\.?\s+", str(rep["contrast"]).strip(), maxsplit=1)
+    parts = re.split(r"\s+vs\.?\s+", str(reported["contrast"]).strip(), maxsplit=1)
     if len(parts) != 2:
-        problems.append(f"{where}.reported.contrast: {rep['contrast']!r} must read "
+        problems.append(f"{where}.reported.contrast: {reported['contrast']!r} must read "
                         f"'<group> vs <reference group>' with groups from {labels}.")
     else:
         for part in parts:
             if part.strip() not in labels:
                 problems.append(f"{where}.reported.contrast: group {part.strip()!r} is not "
                                 f"one of {exposure}'s groups {labels}.")
-    if "lower" in rep and "upper" in rep and not rep["lower"] <= rep["estimate"] <= rep["upper"]:
-        problems.append(f"{where}.reported: estimate {rep['estimate']} is not inside "
-                        f"[{rep['lower']}, {rep['upper']}]; check the published numbers.")
-    if kind != "continuous" and rep["estimate"] <= 0:
-        problems.append(f"{where}.reported.estimate: {rep['estimate']} must be a ratio > 0 "
+    if ("lower" in reported and "upper" in reported
+            and not reported["lower"] <= reported["estimate"] <= reported["upper"]):
+        problems.append(f"{where}.reported: estimate {reported['estimate']} is not inside "
+                        f"[{reported['lower']}, {reported['upper']}]; check the published numbers.")
+    if kind != "continuous" and reported["estimate"] <= 0:
+        problems.append(f"{where}.reported.estimate: {reported['estimate']} must be a ratio > 0 "
                         f"for a {kind} outcome (odds, hazard or rate ratio).")
     return problems
 
@@ -203,12 +205,13 @@ def _reported_problems(where: str, kind: str, rep: dict[str, Any], labels: list[
 def _filter_problems(where: str, filters: list[dict[str, Any]]) -> list[str]:
     """Each filter has a condition and a non-empty range."""
     problems: list[str] = []
-    for j, flt in enumerate(filters):
-        if not ({"min", "max", "in"} & set(flt)):
-            problems.append(f"{where}.filters[{j}]: filter on {flt['variable']!r} has no "
+    for j, condition in enumerate(filters):
+        if not ({"min", "max", "in"} & set(condition)):
+            problems.append(f"{where}.filters[{j}]: filter on {condition['variable']!r} has no "
                             "condition; give min, max or in.")
-        if "min" in flt and "max" in flt and flt["min"] > flt["max"]:
-            problems.append(f"{where}.filters[{j}]: min {flt['min']} > max {flt['max']}.")
+        if "min" in condition and "max" in condition and condition["min"] > condition["max"]:
+            problems.append(f"{where}.filters[{j}]: min {condition['min']} > max "
+                            f"{condition['max']}.")
     return problems
 
 
