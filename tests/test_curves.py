@@ -22,7 +22,8 @@ from tablerefs import (
     reference_fit,
     selected_row,
 )
-from unbin.questions.curves import curves_table, density_table
+from unbin.questions.curves import curves_table
+from unbin.questions.density import density_table
 from unbin.questions.fits import fits_table
 
 RATIO = {"binary": True, "count": True, "continuous": False, "survival": True}

@@ -1,4 +1,5 @@
-"""Tests of decisions on predicted risk (unbin.refit.risk, unbin.questions.decisions): implied exposure thresholds
+"""Tests of decisions on predicted risk (unbin.refit.risk, unbin.questions.thresholds and
+net_benefit): implied exposure thresholds
 plugged back into models refitted with reference libraries (statsmodels with patsy splines,
 lifelines), the interaction LR test, net benefit against Vickers & Elkin's worked values and
 lifelines' Kaplan-Meier estimates, and the demo's per-level thresholds against its truth."""
@@ -19,15 +20,9 @@ from scipy import optimize, special, stats
 
 from unbin.data import analysis_sample
 from unbin.errors import SpecError
-from unbin.questions.decisions import (
-    CAUTION,
-    NB_GRID,
-    crossings,
-    km_survival,
-    net_benefit_counts,
-    net_benefit_table,
-    thresholds_table,
-)
+from unbin.questions.decisions import CAUTION
+from unbin.questions.net_benefit import NB_GRID, km_survival, net_benefit_counts, net_benefit_table
+from unbin.questions.thresholds import crossings, thresholds_table
 from unbin.refit.analysis import Refit, refit_analysis
 from unbin.spec import Spec, parse_spec
 
@@ -406,7 +401,7 @@ def test_risk_rules_from_sorted_risks_equal_the_row_by_row_counts() -> None:
     """``net_benefit_risk`` (counts from sorted risks) equals ``net_benefit_counts`` on the
     explicit (thresholds x n) treatment matrix, including risks tied with a threshold
     (Vickers & Elkin 2006 definition: treat when risk >= p_t; common practice)."""
-    from unbin.questions.decisions import net_benefit_risk
+    from unbin.questions.net_benefit import net_benefit_risk
 
     rng = np.random.default_rng(9)
     n = 5000

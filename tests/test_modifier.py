@@ -209,7 +209,7 @@ def test_per_level_thresholds_plug_back_into_statsmodels(tmp_path: Path) -> None
     the level main effect: at each reported exposure value x*, the statsmodels GLM (binomial,
     patsy natural cubic spline on the recorded knots x C(level) + splines of z and w) gives the
     threshold risk at the same quantile of the level's linear predictors with x set to x*."""
-    from unbin.questions.decisions import thresholds_table
+    from unbin.questions.thresholds import thresholds_table
 
     frame = _null_frame(3000, 11)
     raw = _raw({"type": "binary", "event": "y"})

@@ -1,5 +1,6 @@
-"""The README is the reference: every column the demo writes and every key the spec schema
-accepts is documented there. A column or key added without a line in the README fails here."""
+"""The README is the reference: every column a table builder states (its module's COLUMNS), every
+column the demo writes and every key the spec schema accepts is documented there. A column or key
+added without a line in the README fails here."""
 
 from __future__ import annotations
 
@@ -11,6 +12,8 @@ from typing import Any
 
 import pandas as pd
 import pytest
+
+from unbin.questions import KEY_COLUMNS, QUESTION_TABLES, RESAMPLING_TABLES, table_columns
 
 ROOT = Path(__file__).resolve().parents[1]
 README = (ROOT / "README.md").read_text(encoding="utf-8")
@@ -84,3 +87,28 @@ def test_every_column_the_demo_writes_is_in_the_readme(demo_out: Path) -> None:
             if cols:
                 missing[f"{folder.name}/{path.stem}"] = cols
     assert not missing, f"columns missing from the README: {missing}"
+
+
+def readme_rows(text: str) -> dict[str, str]:
+    """The README's output-reference rows by table name: lines that read "| `table` | ...|"."""
+    return {m.group(1): m.group(0) for m in re.finditer(r"^\| `([a-z_]+)` \|.*$", text, re.M)}
+
+
+ROWS = readme_rows(README)
+
+
+def test_the_row_reading_is_itself_right() -> None:
+    rows = readme_rows("| `fits` | fitted model | `form`, `n` |\n| `cuts` | a | `cut` |\n")
+    assert set(rows) == {"fits", "cuts"} and "`form`" in rows["fits"]
+
+
+@pytest.mark.parametrize("table", sorted({**QUESTION_TABLES, **RESAMPLING_TABLES}))
+def test_every_column_a_builder_states_is_in_its_readme_row(table: str) -> None:
+    """Each builder's COLUMNS (no workflow run needed) against the README row of its own table;
+    the key columns are stated once, in the sentence on how every per-cohort table starts."""
+    assert table in ROWS, f"README has no row for the table {table!r}"
+    patterns = documented_names(ROWS[table])
+    missing = [c for c in table_columns(table) if not any(p.fullmatch(c) for p in patterns)]
+    assert not missing, f"columns of {table!r} missing from its README row: {missing}"
+    starts = re.search(r"Every per-cohort table starts with (.+?)\(", README, re.S)
+    assert starts and all(f"`{k}`" in starts.group(1) for k in KEY_COLUMNS)

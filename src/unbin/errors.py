@@ -17,7 +17,3 @@ class SpecError(UnbinError):
 
 class DataError(UnbinError):
     """An extract cannot be read or a column does not hold what the spec says it should."""
-
-
-class FitError(UnbinError):
-    """A model could not be fitted (separation, no events, singular design, no convergence)."""

@@ -25,6 +25,7 @@ from typing import Any
 
 import numpy as np
 
+from ..questions.disclosure import too_small_to_describe
 from ..spec import ContinuousOptions
 from ..terms import GroupedTerm, default_knots
 from ..terms.spline import KNOT_QUANTILES
@@ -83,7 +84,8 @@ def sample_summary(x: np.ndarray, legacy: GroupedTerm, opts: ContinuousOptions,
     p01, q25, q75, p99 = np.quantile(x, [0.01, 0.25, 0.75, 0.99])
     medians = {legacy.labels[g]: float(np.median(x[codes == g]))
                for g in range(len(legacy.labels))
-               if (codes == g).any() and (codes == g).sum() >= min_cell}
+               if (codes == g).any() and not too_small_to_describe(int((codes == g).sum()),
+                                                                   min_cell)}
     return {
         "variable": legacy.variable,
         "n": int(len(x)),

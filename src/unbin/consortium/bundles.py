@@ -11,10 +11,12 @@ turn a cohort's result tables into bundle tables (``jobs`` does the reading and 
 from __future__ import annotations
 
 import json
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
+
+from ..questions.disclosure import is_small, primary_value
 
 if TYPE_CHECKING:
     from ..refit.analysis import Refit
@@ -25,10 +27,14 @@ POOLED_TABLES = ("pooled_curves", "pooled_effects", "heterogeneity", "harmonisat
 CURVE_FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
 
 
-def coefficients_table(refit: Refit, spec: Spec | None = None) -> pd.DataFrame:
-    """The common-knot spline's exposure coefficients and covariance, long (one row per (i, j)).
+COEFFICIENTS_COLUMNS = ("adjustment", "basis", "row", "col", "i", "j", "coef", "cov")
+COMMON_CONTRASTS_COLUMNS = ("adjustment", "form", "contrast_type", "contrast", "x_value",
+                            "x_reference", "estimate", "se", "scale")
 
-    Also written by every job (``coefficients.parquet``) so bundles can be built from tables."""
+
+def coefficients_table(refit: Refit, spec: Spec | None = None) -> pd.DataFrame:
+    """The common-knot spline's exposure coefficients and covariance, one row per (i, j)."""
+    # Also written by every job (``coefficients.parquet``) so bundles can be built from tables.
     rows = []
     for coding in ("legacy", "continuous"):
         form_fit = refit.get("common_spline", coding)
@@ -41,8 +47,7 @@ def coefficients_table(refit: Refit, spec: Spec | None = None) -> pd.DataFrame:
             for j, nj in enumerate(names):
                 rows.append({"adjustment": coding, "basis": basis, "row": ni, "col": nj,
                              "i": i, "j": j, "coef": float(b[i]), "cov": float(V[i, j])})
-    return pd.DataFrame(rows, columns=["adjustment", "basis", "row", "col", "i", "j", "coef",
-                                       "cov"])
+    return pd.DataFrame(rows, columns=list(COEFFICIENTS_COLUMNS))
 
 
 COMMON_FORMS = ("linear", "spline", "fp", "common_spline")
@@ -50,16 +55,16 @@ COMMON_QUARTILES = "common Q3 vs Q1"
 
 
 def common_contrasts_table(refit: Refit, spec: Spec | None = None) -> pd.DataFrame:
-    """Each continuous form's contrasts at the common exposure values of the common basis
-    (``unbin.consortium.basis``), so that every cohort estimates the same quantity and the contrasts
-    pool: the common upper vs lower quartile (``contrast_type`` "common quartiles") and each
-    legacy group's common median vs the common reference value ("common group"). NaN where a
-    form is not defined at a value (a fractional polynomial below its origin)."""
+    """Each continuous form's contrasts at the common basis' values, the ones that pool."""
+    # At the common exposure values of the common basis (``unbin.consortium.basis``), so that
+    # every cohort estimates the same quantity and the contrasts pool: the common upper vs lower
+    # quartile (``contrast_type`` "common quartiles") and each legacy group's common median vs the
+    # common reference value ("common group"). NaN where a form is not defined at a value (a
+    # fractional polynomial below its origin).
     from ..refit.contrasts import contrast
 
     basis = refit.basis
-    cols = ["adjustment", "form", "contrast_type", "contrast", "x_value", "x_reference",
-            "estimate", "se", "scale"]
+    cols = list(COMMON_CONTRASTS_COLUMNS)
     if basis is None:
         return pd.DataFrame(columns=cols)
     from ..models import EFFECT_SCALE
@@ -84,13 +89,6 @@ def common_contrasts_table(refit: Refit, spec: Spec | None = None) -> pd.DataFra
                              "estimate": float(e), "se": float(s_),
                              "scale": EFFECT_SCALE[refit.family]})
     return pd.DataFrame(rows, columns=cols)
-
-
-def _suppress(v: Any, min_cell: int) -> Any:
-    if v is None or pd.isna(v):
-        return pd.NA
-    iv = int(v)
-    return pd.NA if 0 < iv < min_cell else iv
 
 
 def make_bundle(tables: dict[str, pd.DataFrame], min_cell: int) -> dict[str, pd.DataFrame]:
@@ -120,9 +118,9 @@ def make_bundle(tables: dict[str, pd.DataFrame], min_cell: int) -> dict[str, pd.
     status = tables["status"]
     counts = pd.DataFrame({
         "cohort": status["cohort"], "analysis": status["analysis"], "status": status["status"],
-        "n": pd.array([_suppress(v, min_cell) for v in status["n_used"]], dtype="Int64"),
-        "events": pd.array([_suppress(events.get(a), min_cell) for a in status["analysis"]],
-                           dtype="Int64"),
+        "n": pd.array([primary_value(v, min_cell) for v in status["n_used"]], dtype="Int64"),
+        "events": pd.array([primary_value(events.get(a), min_cell)
+                            for a in status["analysis"]], dtype="Int64"),
     })
     cp = tables.get("cutpoints")
     if cp is not None and len(cp):
@@ -155,7 +153,7 @@ def bundle_problems(bundle: dict[str, pd.DataFrame], min_cell: int,
         for col in ("n", "events"):
             if col in df.columns:
                 vals = pd.to_numeric(df[col], errors="coerce").dropna()
-                if ((vals > 0) & (vals < min_cell)).any():
+                if is_small(vals.to_numpy(), min_cell).any():
                     problems.append(f"bundle table {name!r} column {col!r} holds a count below "
                                     f"{min_cell}")
     return problems

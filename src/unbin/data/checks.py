@@ -9,21 +9,13 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError
+from ..questions.disclosure import is_small
 from ..spec import Analysis, Spec
 from ..terms.grouped import GroupedTerm
 from ..terms.legacy import legacy_term
+from ..terms.roles import is_grouped
 from .extracts import extract_columns, read_extract
 from .sample import analysis_sample, coerce_numeric
-
-MAX_CATEGORICAL_LEVELS = 5  # a numeric column with this many distinct values or fewer is a factor
-
-
-def is_categorical(s: pd.Series, declared: str | None = None) -> bool:
-    if declared is not None:
-        return declared == "categorical"
-    if not pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s):
-        return True
-    return bool(s.dropna().nunique() <= MAX_CATEGORICAL_LEVELS)
 
 
 def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> list[str]:
@@ -88,9 +80,9 @@ def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
     numeric_roles += [(c, f"outcome.{k}") for k, c in
                       (("value", o.value), ("count", o.count), ("persontime", o.persontime),
                        ("time", o.time), ("entry", o.entry), ("event", o.event)) if c]
-    for var in a.adjust:
-        if var in spec.groupings:
-            numeric_roles.append((var, "adjust (grouped)"))
+    numeric_roles += [(var, "adjust (grouped)") for var in a.adjust if is_grouped(var, spec)]
+    if a.by and is_grouped(a.by, spec):
+        numeric_roles.append((a.by, "by (grouped)"))
     for col, role in numeric_roles:
         if col not in df:
             continue
@@ -143,7 +135,7 @@ def group_problems(x: np.ndarray, term: GroupedTerm, min_cell: int) -> tuple[lis
         problems.append(f"{what} empty in the analysis sample{cause}: the legacy contrasts "
                         f"{'against' if ref in empty else 'of'} it cannot be estimated; {fix}.")
     small = [(term.labels[j], int(counts[j])) for j in range(len(term.labels))
-             if 0 < counts[j] < min_cell]
+             if is_small(counts[j], min_cell)]
     if small:
         warnings.append(
             f"group(s) {', '.join(f'{lab!r} ({n} rows)' for lab, n in small)} of "
@@ -174,13 +166,10 @@ def grouping_warnings(spec: Spec) -> list[str]:
                                  "cases and follow-up checks.", []).append(cohort.name)
                 continue
             grouped = [(a.exposure, "exposure")] + [(v, "adjust") for v in a.adjust
-                                                    if v in cspec.groupings]
-            if a.by and a.by in cspec.groupings:
+                                                    if is_grouped(v, cspec)]
+            if a.by and is_grouped(a.by, cspec):
                 grouped.append((a.by, "by"))
             for var, role in grouped:
-                info = cspec.variables.get(var)
-                if info is not None and info.type == "categorical":
-                    continue
                 x = coerce_numeric(sample.frame, var, role).to_numpy(float)
                 term = legacy_term(x, var, cspec)
                 probs, warns = group_problems(x, term, cspec.min_cell)

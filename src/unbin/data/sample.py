@@ -10,6 +10,9 @@ import pandas as pd
 
 from ..errors import DataError
 from ..spec import Analysis, Spec
+from ..terms.roles import is_grouped
+
+MIN_SAMPLE_ROWS = 10  # an analysis sample with fewer rows is recorded as failed, not analysed
 
 
 def coerce_numeric(df: pd.DataFrame, col: str, role: str) -> pd.Series:
@@ -72,7 +75,7 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
         dropped.append((f"missing {c}", int(miss.sum())))
         cur = cur[~miss]
     numeric = {a.exposure, *a.outcome.columns}
-    numeric |= {v for v in a.adjust if v in spec.groupings}
+    numeric |= {v for v in (*a.adjust, a.by) if v and is_grouped(v, spec)}
     out = cur.copy()
     for c in sorted(numeric):
         out[c] = coerce_numeric(out, c, "analysis column")

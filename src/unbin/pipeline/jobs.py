@@ -20,6 +20,7 @@ import pandas as pd
 from ..consortium.basis import CommonBasis, combine, sample_summary
 from ..consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
 from ..data import (
+    MIN_SAMPLE_ROWS,
     _type_problems,
     analysis_sample,
     extract_rows,
@@ -27,7 +28,7 @@ from ..data import (
     read_extract,
 )
 from ..errors import DataError, UnbinError
-from ..questions import QUESTION_TABLES, RESAMPLING_TABLES
+from ..questions import KEY_COLUMNS, QUESTION_TABLES, RESAMPLING_TABLES
 from ..results.provenance import provenance
 from ..results.tables import read_table, write_table
 from ..spec import Spec, digest, load_spec
@@ -64,8 +65,8 @@ def input_record(spec: Spec, cohort: str) -> dict[str, Any]:
 
 def _keyed(df: pd.DataFrame, cohort: str, analysis: str) -> pd.DataFrame:
     df = df.copy()
-    df.insert(0, "analysis", analysis)
-    df.insert(0, "cohort", cohort)
+    for position, (key, value) in enumerate(zip(KEY_COLUMNS, (cohort, analysis), strict=True)):
+        df.insert(position, key, value)
     return df
 
 
@@ -104,7 +105,7 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
             + [(f"dropped: {reason}", n) for reason, n in sample.dropped]
             + [("analysis sample", sample.n)], columns=["step", "rows"])
         status["n_used"] = sample.n
-        if sample.n < 10:
+        if sample.n < MIN_SAMPLE_ROWS:
             step, lost = max(sample.dropped, key=lambda d: d[1], default=("", 0))
             most = f" (most were dropped by '{step}': {lost} rows)" if lost else ""
             raise DataError(f"only {sample.n} rows are left after filters, complete cases and "
@@ -217,7 +218,7 @@ def summarise_job(spec_path: str | Path, cohort: str, analysis: str, out: str | 
         if problems:
             raise DataError(" ".join(problems))
         sample = analysis_sample(frame, a, spec)
-        if sample.n < 10:
+        if sample.n < MIN_SAMPLE_ROWS:
             raise DataError(f"only {sample.n} rows in the analysis sample")
         x = sample.frame[a.exposure].to_numpy(float)
         summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous,
@@ -363,7 +364,7 @@ def resample_job(spec_path: str | Path, cohort: str, analysis: str, outdir: str 
         if _type_problems(a, frame, spec):
             raise DataError("the data do not fit the spec (see the fit job's status)")
         sample = analysis_sample(frame, a, spec)
-        if sample.n < 10:
+        if sample.n < MIN_SAMPLE_ROWS:
             raise DataError("too few rows")
         from ..refit.analysis import bare_refit
 

@@ -187,10 +187,13 @@ class _Designs:
 
 @dataclass(frozen=True)
 class _Form:
+    """One exposure form of the contrast: its terms, the two ends compared (names and exposure
+    values) and the basis rows at which the models are evaluated."""
+
     form: str
-    terms: tuple[Term, ...]
     comparison: str
     reference: str
+    terms: tuple[Term, ...]
     x_value: float
     x_reference: float
     at: tuple[np.ndarray, np.ndarray]
@@ -215,26 +218,27 @@ def _exposure_forms(r: Refit) -> list[_Form]:
     q25, q75 = (float(v) for v in np.percentile(r.x, [25, 75]))
     lin = (LinearTerm(r.analysis.exposure),)
     x1, x0, l1, l0 = ((q75, q25, "75th", "25th") if up else (q25, q75, "25th", "75th"))
-    forms = [_Form("linear", lin, f"{l1} percentile", f"{l0} percentile", x1, x0,
+    forms = [_Form("linear", f"{l1} percentile", f"{l0} percentile", lin, x1, x0,
                    (np.array([x1]), np.array([x0])))]
     if comp is not None and np.any(codes == ref):
         x1 = float(np.median(r.x[codes == comp]))
         x0 = float(np.median(r.x[codes == ref]))
-        forms.append(_Form("legacy", (term,), term.labels[comp], term.labels[ref], x1, x0,
+        forms.append(_Form("legacy", term.labels[comp], term.labels[ref], (term,), x1, x0,
                            (term.basis([x1])[0], term.basis([x0])[0])))
     return forms
 
 
-COLUMNS = ["exposure_form", "contrast", "comparison", "reference", "x_value", "x_reference",
+COLUMNS = ("exposure_form", "contrast", "comparison", "reference", "x_value", "x_reference",
            "scope", "grouping", "scale_kind", "scale", "primary", "horizon", "n",
            *(f"{c}_{w}" for w in ("crude", "grouped", "continuous")
-             for c in ("estimate", "se", "lower", "upper")), "confounding", "confounding_lower", "confounding_upper",
+             for c in ("estimate", "se", "lower", "upper")),
+           "confounding", "confounding_lower", "confounding_upper",
            "confounding_clear", "residual", "share_left", "share_left_lower", "share_left_upper",
            "share_removed", "change_confounding", "change_confounding_lower",
            "change_confounding_upper", "change_noncollapsibility",
            "change_noncollapsibility_lower", "change_noncollapsibility_upper", "bootstrap",
            "bootstrap_ok", "bootstrap_failed", "largest", "effect_crude", "effect_grouped",
-           "effect_continuous", "status", "message"]
+           "effect_continuous", "status", "message")
 _RATIO_SCALES = {"odds ratio", "hazard ratio", "rate ratio", "risk ratio"}
 
 
@@ -276,8 +280,14 @@ def _compare(est: np.ndarray, boot: np.ndarray | None, n_boot: int,
     return row, b
 
 
+_ESTIMATES = ("crude", "grouped", "continuous")
+# A planned row: the exposure form, the scope, its adjustment terms, and the design keys of the
+# crude, grouped and continuous estimates.
+_Planned = tuple[_Form, str, tuple[Term, ...], tuple[str, str, str]]
+
+
 def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
-    """Residual confounding of one analysis (see the module docstring)."""
+    """The share of the confounding the legacy grouped adjustment leaves (module docstring)."""
     a = r.analysis
     df = r.sample.frame
     legacy_adj = adjustment_terms(df, a, spec, "legacy")
@@ -286,84 +296,123 @@ def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
         return pd.DataFrame([{"exposure_form": "", "scope": "all", "n": r.outcome.n,
                               "scale": EFFECT_SCALE[r.family], "status": "skipped",
                               "message": "no adjustment variables: there is no confounding "
-                                         "adjustment to compare"}], columns=COLUMNS)
-    scopes: list[tuple[str, tuple[Term, ...]]] = [("all", legacy_adj)]
-    for t in legacy_adj:
-        if isinstance(t, GroupedTerm):
-            scopes.append((t.variable, tuple(t if u.variable == t.variable else u
-                                             for u in cont_adj)))
+                                         "adjustment to compare"}], columns=list(COLUMNS))
     horizon = horizon_for(a, spec) if r.family == "survival" else None
     designs = _Designs(r, horizon)
-    plan = []
-    for f in _exposure_forms(r):
-        crude = designs.add(f.terms, (), f.at)
-        cont = designs.add(f.terms, cont_adj, f.at)
-        for scope, adj in scopes:
-            plan.append((f, scope, adj, (crude, designs.add(f.terms, adj, f.at), cont)))
-    n_boot = spec.resampling.bootstrap
-    b_cond: dict[str, np.ndarray] = {}
-    b_marg: dict[str, np.ndarray] = {}
-    if n_boot > 0:
-        b_cond, b_marg = designs.bootstrap(spec.rng(a.name, "confounding-bootstrap"), n_boot)
-    fam = r.family
+    plan = _plan(r, designs, _scopes(legacy_adj, cont_adj), cont_adj)
+    n_bootstrap = spec.resampling.bootstrap
+    boot_conditional: dict[str, np.ndarray] = {}
+    boot_marginal: dict[str, np.ndarray] = {}
+    if n_bootstrap > 0:
+        boot_conditional, boot_marginal = designs.bootstrap(
+            spec.rng(a.name, "confounding-bootstrap"), n_bootstrap)
     rows = []
     for f, scope, adj, keys in plan:
         base: dict[str, Any] = {
             "exposure_form": f.form, "contrast": f.contrast, "comparison": f.comparison,
             "reference": f.reference, "x_value": f.x_value, "x_reference": f.x_reference,
-            "scope": scope, "n": r.outcome.n, "bootstrap": n_boot, "horizon": horizon,
+            "scope": scope, "n": r.outcome.n, "bootstrap": n_bootstrap, "horizon": horizon,
             "grouping": "; ".join(f"{t.variable}: {t.describe()}" for t in adj
                                   if isinstance(t, GroupedTerm)) or "none grouped"}
         fails = [designs.items[k].res.message for k in keys if not designs.items[k].res.ok]
-        means = [designs.means(k) for k in keys]
-        for scale, kind in MEASURES[fam]:
-            notes = list(fails) + [designs.notes[k] for k in keys if designs.notes.get(k)]
-            est = np.array([contrast(kind, mu[0], mu[1]) for mu in means])
-            boot = (np.column_stack([contrast(kind, b_marg[k][:, 0], b_marg[k][:, 1])
-                                     for k in keys]) if b_marg else None)
-            row, used = _compare(est, boot, n_boot, notes)
-            sd, lims = np.full(3, np.nan), np.full((2, 3), np.nan)
-            if used is not None:
-                sd, lims = used.std(axis=0, ddof=1), np.percentile(used, [2.5, 97.5], axis=0)
-            row.update(base, scale_kind="marginal", scale=scale,
-                       primary=scale == MEASURES[fam][0][0])
-            for i, what in enumerate(("crude", "grouped", "continuous")):
-                row[f"estimate_{what}"], row[f"se_{what}"] = float(est[i]), float(sd[i])
-                row[f"lower_{what}"], row[f"upper_{what}"] = float(lims[0, i]), float(lims[1, i])
-            row["status"] = "ok" if np.isfinite(row["share_left"]) else "failed"
-            if not designs.marginal_ok:
-                row["status"] = "skipped"
-                notes = ["no horizon for the standardised risks: give outcome.horizon or the "
-                         "study-level horizon"]
-            row["message"] = "; ".join(dict.fromkeys(notes))
-            rows.append(row)
-        # the conditional (model-scale) contrasts, with the change-in-estimate decomposed
-        notes = list(fails)
-        cond = [designs.estimate(k) for k in keys]
-        est = np.array([e for e, _ in cond])
-        boot = np.column_stack([b_cond[k] for k in keys]) if b_cond else None
-        row, used = _compare(est, boot, n_boot, notes)
-        row.update(base, scale_kind="conditional", scale=EFFECT_SCALE[fam], primary=False)
-        for (e, se), what in zip(cond, ("crude", "grouped", "continuous"), strict=True):
-            row[f"estimate_{what}"], row[f"se_{what}"] = e, se
-            row[f"lower_{what}"], row[f"upper_{what}"] = e - Z95 * se, e + Z95 * se
-        marg_co = float(on_model_scale(fam, *means[2]))
-        row["change_confounding"] = est[0] - marg_co
-        row["change_noncollapsibility"] = marg_co - est[2]
-        if boot is not None and b_marg:
-            bm = on_model_scale(fam, b_marg[keys[2]][:, 0], b_marg[keys[2]][:, 1])
-            good = np.all(np.isfinite(boot), axis=1) & np.isfinite(bm)
-            if good.sum() >= max(2, n_boot // 2):
-                for col, v in (("change_confounding", boot[good, 0] - bm[good]),
-                               ("change_noncollapsibility", bm[good] - boot[good, 2])):
-                    row[f"{col}_lower"], row[f"{col}_upper"] = _interval(v)
+        rows += _marginal_rows(r.family, designs, keys, base, fails, boot_marginal, n_bootstrap)
+        rows.append(_conditional_row(r.family, designs, keys, base, fails, boot_conditional,
+                                     boot_marginal, n_bootstrap))
+    return _finish(pd.DataFrame(rows, columns=list(COLUMNS)))
+
+
+def _scopes(legacy_adj: tuple[Term, ...],
+            cont_adj: tuple[Term, ...]) -> list[tuple[str, tuple[Term, ...]]]:
+    """The adjustment of each grouped scope: every grouped variable as the legacy paper had it
+    ("all"), then each grouped variable alone grouped, the others continuous."""
+    scopes: list[tuple[str, tuple[Term, ...]]] = [("all", legacy_adj)]
+    for t in legacy_adj:
+        if isinstance(t, GroupedTerm):
+            scopes.append((t.variable, tuple(t if u.variable == t.variable else u
+                                             for u in cont_adj)))
+    return scopes
+
+
+def _plan(r: Refit, designs: _Designs, scopes: list[tuple[str, tuple[Term, ...]]],
+          cont_adj: tuple[Term, ...]) -> list[_Planned]:
+    """Registers every design once (the crude and continuous ones are shared by the scopes) and
+    lists the rows: exposure form x scope, with the keys of their three estimates."""
+    plan: list[_Planned] = []
+    for f in _exposure_forms(r):
+        crude = designs.add(f.terms, (), f.at)
+        cont = designs.add(f.terms, cont_adj, f.at)
+        for scope, adj in scopes:
+            plan.append((f, scope, adj, (crude, designs.add(f.terms, adj, f.at), cont)))
+    return plan
+
+
+def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
+                   base: dict[str, Any], fails: list[str], boot_marginal: dict[str, np.ndarray],
+                   n_bootstrap: int) -> list[dict[str, Any]]:
+    """One row per marginal (standardised) scale of the family: the three contrasts, their
+    bootstrap SDs and percentile limits, and the confounding comparison."""
+    means = [designs.means(k) for k in keys]
+    rows = []
+    for scale, kind in MEASURES[family]:
+        notes = list(fails) + [designs.notes[k] for k in keys if designs.notes.get(k)]
+        est = np.array([contrast(kind, mu[0], mu[1]) for mu in means])
+        boot = (np.column_stack([contrast(kind, boot_marginal[k][:, 0], boot_marginal[k][:, 1])
+                                 for k in keys]) if boot_marginal else None)
+        row, used = _compare(est, boot, n_bootstrap, notes)
+        sd, lims = np.full(3, np.nan), np.full((2, 3), np.nan)
+        if used is not None:
+            sd, lims = used.std(axis=0, ddof=1), np.percentile(used, [2.5, 97.5], axis=0)
+        row.update(base, scale_kind="marginal", scale=scale,
+                   primary=scale == MEASURES[family][0][0])
+        for i, what in enumerate(_ESTIMATES):
+            row[f"estimate_{what}"], row[f"se_{what}"] = float(est[i]), float(sd[i])
+            row[f"lower_{what}"], row[f"upper_{what}"] = float(lims[0, i]), float(lims[1, i])
         row["status"] = "ok" if np.isfinite(row["share_left"]) else "failed"
+        if not designs.marginal_ok:
+            row["status"] = "skipped"
+            notes = ["no horizon for the standardised risks: give outcome.horizon or the "
+                     "study-level horizon"]
         row["message"] = "; ".join(dict.fromkeys(notes))
         rows.append(row)
-    out = pd.DataFrame(rows, columns=COLUMNS)
+    return rows
+
+
+def _conditional_row(family: str, designs: _Designs, keys: tuple[str, str, str],
+                     base: dict[str, Any], fails: list[str],
+                     boot_conditional: dict[str, np.ndarray],
+                     boot_marginal: dict[str, np.ndarray], n_bootstrap: int) -> dict[str, Any]:
+    """The conditional (model-scale) contrasts, Wald limits, and the change-in-estimate split
+    into its confounding and non-collapsibility parts."""
+    notes = list(fails)
+    cond = [designs.estimate(k) for k in keys]
+    est = np.array([e for e, _ in cond])
+    boot = np.column_stack([boot_conditional[k] for k in keys]) if boot_conditional else None
+    row, _ = _compare(est, boot, n_bootstrap, notes)
+    row.update(base, scale_kind="conditional", scale=EFFECT_SCALE[family], primary=False)
+    for (e, se), what in zip(cond, _ESTIMATES, strict=True):
+        row[f"estimate_{what}"], row[f"se_{what}"] = e, se
+        row[f"lower_{what}"], row[f"upper_{what}"] = e - Z95 * se, e + Z95 * se
+    marginal_continuous = float(on_model_scale(family, *designs.means(keys[2])))
+    row["change_confounding"] = est[0] - marginal_continuous
+    row["change_noncollapsibility"] = marginal_continuous - est[2]
+    if boot is not None and boot_marginal:
+        bm = on_model_scale(family, boot_marginal[keys[2]][:, 0], boot_marginal[keys[2]][:, 1])
+        good = np.all(np.isfinite(boot), axis=1) & np.isfinite(bm)
+        if good.sum() >= max(2, n_bootstrap // 2):
+            for col, v in (("change_confounding", boot[good, 0] - bm[good]),
+                           ("change_noncollapsibility", bm[good] - boot[good, 2])):
+                row[f"{col}_lower"], row[f"{col}_upper"] = _interval(v)
+    row["status"] = "ok" if np.isfinite(row["share_left"]) else "failed"
+    row["message"] = "; ".join(dict.fromkeys(notes))
+    return row
+
+
+def _finish(out: pd.DataFrame) -> pd.DataFrame:
+    """The effects on the reported scale, the scope whose grouping leaves the most, and the
+    columns' dtypes."""
     for i in out.index:
         sc = out.at[i, "scale"]
-        for what in ("crude", "grouped", "continuous"):
+        for what in _ESTIMATES:
             e = out.at[i, f"estimate_{what}"]
             out.at[i, f"effect_{what}"] = float(np.exp(e)) if sc in _RATIO_SCALES else e
     single = out["scope"] != "all"

@@ -1,6 +1,6 @@
 """Curves: the partial effect of the exposure on a grid (1st–99th percentile) relative to the
 median of the legacy reference group, for every form and adjustment coding, with pointwise 95%
-intervals; and the binned distribution of the exposure for the rug, small cells suppressed.
+intervals.
 
 Across cohorts the grid and the reference value come from the common basis (``unbin.consortium.basis``),
 so that every cohort's curve is on the same grid relative to the same value; ``in_range`` marks
@@ -18,7 +18,8 @@ from ..refit.interaction import SPLINE, level_models, level_reference
 from ..spec import Spec
 
 FORMS = ("legacy", "linear", "spline", "fp", "common_spline")
-DENSITY_BINS = 40
+COLUMNS = ("adjustment", "form", "x", "x_reference", "in_range", "estimate", "se", "status",
+           "by_level", "lower", "upper", "effect", "effect_lower", "effect_upper", "scale")
 
 
 def grid(x: np.ndarray, points: int) -> np.ndarray:
@@ -27,6 +28,7 @@ def grid(x: np.ndarray, points: int) -> np.ndarray:
 
 
 def curves_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+    """Every form's curve on the grid relative to the reference value, with 95% bands."""
     points = r.analysis.continuous.grid_points
     xs = r.basis.grid(points) if r.basis is not None else grid(r.x, points)
     x_ref = r.curve_reference
@@ -47,10 +49,10 @@ def curves_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
                                        "status": f.result.status, "by_level": ""}))
     parts += _level_curves(r, xs)
     if not parts:
-        return pd.DataFrame()
+        return pd.DataFrame(columns=list(COLUMNS))
     out = with_interval(pd.concat(parts, ignore_index=True), r.family)
     out["scale"] = EFFECT_SCALE[r.family]
-    return out
+    return out[list(COLUMNS)]
 
 
 def _level_curves(r: Refit, xs: np.ndarray) -> list[pd.DataFrame]:
@@ -80,19 +82,3 @@ def _level_curves(r: Refit, xs: np.ndarray) -> list[pd.DataFrame]:
                                        "estimate": est, "se": se, "status": status,
                                        "by_level": label}))
     return parts
-
-
-def density_table(r: Refit, spec: Spec) -> pd.DataFrame:
-    """Counts of the exposure in equal-width bins over the 1st–99th percentile range; counts
-    below ``spec.min_cell`` (but above zero) are suppressed (NaN, ``suppressed`` true)."""
-    min_cell = spec.min_cell
-    lo, hi = np.quantile(r.x, [0.01, 0.99])
-    edges = np.linspace(lo, hi, DENSITY_BINS + 1)
-    counts, _ = np.histogram(r.x[(r.x >= lo) & (r.x <= hi)], bins=edges)
-    suppressed = (counts > 0) & (counts < min_cell)
-    return pd.DataFrame({
-        "bin_left": edges[:-1], "bin_right": edges[1:],
-        "count": pd.array([None if s else int(c) for c, s in zip(counts, suppressed,
-                                                                  strict=True)], dtype="Int64"),
-        "suppressed": suppressed,
-    })

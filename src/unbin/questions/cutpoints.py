@@ -78,6 +78,8 @@ from ..models.weighted import resample_weights
 from ..refit.analysis import Refit, adjustment_terms, design, legacy_term
 from ..spec import Spec
 from ..terms import GroupedTerm
+from ..terms.roles import is_grouped
+from . import disclosure
 
 TABLE = "cutpoints"
 MAX_CANDIDATES = 500
@@ -337,26 +339,10 @@ def _nanmax(a: np.ndarray, axis: int | None = None) -> Any:
 # --------------------------------------------------------------------------- the table
 
 
-def _suppress(counts: list[int | None], min_cell: int) -> list[int | None]:
-    """Hide counts in 1..min_cell-1; if exactly one count of a set is hidden, hide the smallest
-    other positive count too (it could otherwise be recovered from the total)."""
-    out = [None if c is None or (0 < c < min_cell) else c for c in counts]
-    hidden = [i for i, c in enumerate(out) if c is None and counts[i] is not None]
-    if len(hidden) == 1:
-        others = [(c, i) for i, c in enumerate(out) if c is not None and c > 0]
-        if others:
-            out[min(others)[1]] = None
-    return out
-
-
 def _grouped_variables(r: Refit, spec: Spec) -> list[tuple[str, str]]:
     a = r.analysis
     out = [(a.exposure, "exposure")]
-    for v in a.adjust:
-        info = spec.variables.get(v)
-        if v in spec.groupings and not (info and info.type == "categorical"):
-            out.append((v, "adjustment"))
-    return out
+    return out + [(v, "adjustment") for v in a.adjust if is_grouped(v, spec)]
 
 
 def _events(r: Refit) -> np.ndarray | None:
@@ -383,8 +369,9 @@ def _cut_and_group_rows(r: Refit, spec: Spec, variable: str, role: str, term: Gr
     ev = _events(r)
     ev_counts = (np.bincount(codes, weights=ev, minlength=len(term.labels)).round().astype(int)
                  .tolist() if ev is not None else [None] * len(counts))
-    n_shown = _suppress(counts, spec.min_cell)
-    e_shown = _suppress(ev_counts, spec.min_cell) if ev is not None else [None] * len(counts)
+    n_shown = disclosure.complementary(counts, spec.min_cell)
+    e_shown = (disclosure.complementary(ev_counts, spec.min_cell) if ev is not None
+               else [None] * len(counts))
     for j, label in enumerate(term.labels):
         rows.append({**base, "row_type": "group", "group": label,
                      "n": n_shown[j], "events": e_shown[j],
@@ -465,12 +452,13 @@ def _boot_names(prefix: str) -> list[str]:
     return [f"{prefix}_p{str(p).replace('.', '_').removesuffix('_0')}" for p in BOOT_PERCENTILES]
 
 
-COLUMNS = ["row_type", "variable", "role", "derived_from_data", "group", "cut", "percentile",
+COLUMNS = ("row_type", "variable", "role", "derived_from_data", "group", "cut", "percentile",
            "median", "distance_to_median", "distance_percentile_points", "statistic", "p_naive",
            "n", "events", "suppressed", "statistic_name", "adjusted_for", "search_lower",
            "search_upper", "n_candidates", "p_altman", "p_altman_message", "p_lausen",
-           "permutations", "p_permutation", "simulations", "p_simulated", "bootstrap", "bootstrap_ok", "bootstrap_failed",
-           *_boot_names("boot_cut"), *_boot_names("boot_percentile"), "status", "message"]
+           "permutations", "p_permutation", "simulations", "p_simulated", "bootstrap",
+           "bootstrap_ok", "bootstrap_failed", *_boot_names("boot_cut"),
+           *_boot_names("boot_percentile"), "status", "message")
 
 
 def _adjustment(r: Refit, spec: Spec) -> tuple[np.ndarray, tuple[str, ...]]:
@@ -512,7 +500,7 @@ def cutpoints_table(r: Refit, spec: Spec) -> pd.DataFrame:
                          "message": f"the split search could not be set up: {search_error}"})
         else:
             rows += _search_rows(r, spec, search, r.legacy)
-    out = pd.DataFrame(rows, columns=COLUMNS)
+    out = pd.DataFrame(rows, columns=list(COLUMNS))
     for c in ("n", "events", "n_candidates", "permutations", "simulations", "bootstrap",
               "bootstrap_ok", "bootstrap_failed"):
         out[c] = out[c].astype("Int64")

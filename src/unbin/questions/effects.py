@@ -22,9 +22,13 @@ from ..refit.interaction import LEGACY, SPLINE, level_models, level_reference
 from ..spec import Spec
 
 FORMS = ("legacy", "linear", "spline", "fp")
+COLUMNS = ("adjustment", "form", "status", "message", "contrast_type", "contrast", "group",
+           "x_value", "x_reference", "estimate", "se", "within_p10", "within_p90", "by_level",
+           "lower", "upper", "effect", "effect_lower", "effect_upper", "scale")
 
 
 def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+    """Legacy group contrasts beside each continuous form's, and IQR and per-unit contrasts."""
     rows = []
     term = r.legacy
     labels = term.labels
@@ -94,13 +98,13 @@ def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     rows += _level_effects(r)
     out = pd.DataFrame(rows)
     if out.empty:
-        return out
+        return pd.DataFrame(columns=list(COLUMNS))
     out = with_interval(out, r.family)
     ratio = r.family != "continuous"
     for c in ("within_p10", "within_p90"):
         out[c] = np.exp(out[c]) if ratio else out[c]
     out["scale"] = EFFECT_SCALE[r.family]
-    return out
+    return out[list(COLUMNS)]
 
 
 def _level_effects(r: Refit) -> list[dict[str, object]]:

@@ -11,8 +11,13 @@ from ..models.discrimination import c_index
 from ..refit.analysis import Refit
 from ..spec import Spec
 
+COLUMNS = ("form", "detail", "adjustment", "selected", "n", "events", "n_params", "exposure_df",
+           "loglik", "lr_chi2", "aic", "bic", "c_index", "r2", "converged", "status", "message",
+           "warnings", "exposure_basis", "adjustment_terms")
+
 
 def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+    """One row per fitted model: size, likelihood, AIC, concordance and its bases as JSON."""
     rows = []
     nulls = {f.adjustment: f.result for f in r.fits if f.form == "null"}
     for f in r.fits:
@@ -45,6 +50,6 @@ def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             "exposure_basis": json.dumps(basis, sort_keys=True),
             "adjustment_terms": json.dumps([t.to_dict() for t in f.adjust_terms], sort_keys=True),
         })
-    out = pd.DataFrame(rows)
+    out = pd.DataFrame(rows, columns=list(COLUMNS))
     out["events"] = out["events"].astype("Int64")
     return out

@@ -38,7 +38,16 @@ def _p(chi2: float, df: int) -> float:
     return float(stats.chi2.sf(max(chi2, 0.0), df)) if df > 0 and np.isfinite(chi2) else np.nan
 
 
+COLUMNS = ("adjustment", "lr_legacy", "df_legacy", "lr_linear", "df_linear", "lr_spline",
+           "df_spline", "lr_fp", "fp_detail", "lr_test_spline", "df_test_spline", "test_detail",
+           "lr_legacy_plus_spline", "info_kept", "added_lr", "added_df", "added_p",
+           "nonlinearity_lr", "nonlinearity_df", "nonlinearity_p", "c_legacy", "c_linear",
+           "c_spline", "c_fp", "delta_c", "aic_legacy", "aic_linear", "aic_spline", "aic_fp",
+           "best_form", "interaction_lr", "interaction_df", "interaction_p", "interaction_detail")
+
+
 def information_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
+    """Per adjustment coding: each form's LR chi-square, info_kept, the tests, C and AIC."""
     rows = []
     for coding in ("legacy", "continuous", "none"):
         get = {form: r.get(form, coding) for form in
@@ -97,7 +106,7 @@ def information_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             "best_form": best,
             **_interaction(r, coding),
         })
-    return pd.DataFrame(rows)
+    return pd.DataFrame(rows, columns=list(COLUMNS))
 
 
 def _interaction(r: Refit, coding: str) -> dict[str, object]:

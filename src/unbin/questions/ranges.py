@@ -180,10 +180,10 @@ def _fit_contrast(r: Refit, df: pd.DataFrame, x: np.ndarray, outcome: Any,
     return {"status": "ok", "reason": "", "estimate": float(est[0]), "se": float(se[0])}
 
 
-COLUMNS = ["trim", "share_lower", "share_upper", "bound_lower", "bound_upper", "n", "events",
+COLUMNS = ("trim", "share_lower", "share_upper", "bound_lower", "bound_upper", "n", "events",
            "adjustment", "form", "detail", "contrast", "x_value", "x_reference", "estimate", "se",
            "lower", "upper", "effect", "effect_lower", "effect_upper", "change",
-           "covers_untrimmed", "extrapolated", "scale", "status", "reason"]
+           "covers_untrimmed", "extrapolated", "scale", "status", "reason")
 
 
 def _finish(out: pd.DataFrame, family: str) -> pd.DataFrame:
@@ -203,7 +203,7 @@ def _finish(out: pd.DataFrame, family: str) -> pd.DataFrame:
     out["n"] = pd.array(out["n"], dtype="Int64")
     out["covers_untrimmed"] = out["covers_untrimmed"].astype("boolean")
     out["extrapolated"] = out["extrapolated"].astype("boolean")
-    return out[COLUMNS]
+    return out[list(COLUMNS)]
 
 
 def summary_line(df: pd.DataFrame) -> str:

@@ -35,11 +35,11 @@ from ..spec import Spec
 TABLE = "replication"
 SE_RATIO_TOLERANCE = 1.5
 
-COLUMNS = ["contrast", "adjustment", "reported_effect", "reported_lower", "reported_upper",
+COLUMNS = ("contrast", "adjustment", "reported_effect", "reported_lower", "reported_upper",
            "refit_effect", "refit_lower", "refit_upper", "reported_estimate", "reported_se",
            "estimate", "se", "difference", "difference_se_units", "reported_inside_refit_ci",
            "refit_inside_reported_ci", "se_ratio", "implied_n_ratio", "disagrees", "verdict",
-           "n", "events", "scale", "status", "message"]
+           "n", "events", "scale", "status", "message")
 
 
 def reported_se(lower: float | None, upper: float | None, ratio: bool) -> float:
@@ -58,7 +58,7 @@ def replication_table(r: Refit, spec: Spec) -> pd.DataFrame:
     """The reported estimate beside the refit legacy estimate (empty without ``reported``)."""
     rep = r.analysis.reported
     if rep is None:
-        return pd.DataFrame(columns=COLUMNS)
+        return pd.DataFrame(columns=list(COLUMNS))
     ratio = r.family in RATIO_FAMILIES
     g = np.log if ratio else (lambda v: v)
     row: dict[str, Any] = {"contrast": rep.contrast, "adjustment": "legacy",
@@ -83,7 +83,8 @@ def replication_table(r: Refit, spec: Spec) -> pd.DataFrame:
         if len(xa) == 0 or len(xb) == 0:
             problem = f"group {group if len(xa) == 0 else ref!r} is empty in the extract"
     if problem:
-        return pd.DataFrame([{**row, "status": "failed", "message": problem}], columns=COLUMNS)
+        return pd.DataFrame([{**row, "status": "failed", "message": problem}],
+                            columns=list(COLUMNS))
     assert f is not None
     est_a, se_a = contrast(f, np.array([np.median(xa)]), float(np.median(xb)))
     est, se = float(est_a[0]), float(se_a[0])
@@ -110,7 +111,7 @@ def replication_table(r: Refit, spec: Spec) -> pd.DataFrame:
                disagrees=not inside, verdict=verdict, status="ok",
                message="" if inside else "the extract may not be the data the paper used "
                                          "(or the sample, grouping or model differ)")
-    out = pd.DataFrame([row], columns=COLUMNS)
+    out = pd.DataFrame([row], columns=list(COLUMNS))
     out["events"] = out["events"].astype("Int64")
     out["refit_inside_reported_ci"] = out["refit_inside_reported_ci"].astype("boolean")
     return out

@@ -21,7 +21,7 @@ import pandas as pd
 from scipy import stats
 
 from ..consortium.basis import CommonBasis, combine, sample_summary
-from ..data import Sample, is_categorical
+from ..data import Sample
 from ..models import Outcome, fit
 from ..models.base import FitResult, failed_fit
 from ..spec import Analysis, Spec
@@ -36,6 +36,7 @@ from ..terms import (
 )
 from ..terms.fp import FP1_SET, FP2_SET
 from ..terms.legacy import legacy_term
+from ..terms.roles import variable_role
 from .modifier import modifier_term
 
 ADJUSTMENTS = ("legacy", "continuous")
@@ -138,20 +139,17 @@ def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> 
     terms: list[Term] = []
     by = modifier_term(df, a, spec)
     for v in dict.fromkeys([*a.adjust, *([a.by] if a.by else [])]):
-        info = spec.variables.get(v)
-        declared = info.type if info else None
+        role = variable_role(v, spec, df[v])
         if v == a.by and by is not None:
             # The modifier's factor enters below. Continuously adjusted, a grouped numeric
             # modifier also enters as its own spline, as any numeric adjuster does: the levels
             # then carry the step at the cuts, the spline the trend within them.
             if coding == "legacy" or not isinstance(by, GroupedTerm):
                 continue
-        if v in spec.groupings and declared != "categorical":
-            x = df[v].to_numpy(float)
-            if coding == "legacy":
-                terms.append(legacy_term(x, v, spec))
-                continue
-        elif is_categorical(df[v], declared):
+        if role == "grouped" and coding == "legacy":
+            terms.append(legacy_term(df[v].to_numpy(float), v, spec))
+            continue
+        if role == "factor":
             terms.append(CategoricalTerm.from_data(v, df[v]))
             continue
         x = df[v].to_numpy(float)

@@ -20,10 +20,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..data import is_categorical
 from ..spec import Analysis, Spec
 from ..terms import CategoricalTerm, GroupedTerm
 from ..terms.legacy import legacy_term
+from ..terms.roles import variable_role
 
 LevelTerm = GroupedTerm | CategoricalTerm
 
@@ -55,11 +55,10 @@ def modifier_term(df: pd.DataFrame, a: Analysis, spec: Spec) -> LevelTerm | None
     if not a.by:
         return None
     values = df[a.by]
-    info = spec.variables.get(a.by)
-    declared = info.type if info else None
-    if a.by in spec.groupings and declared != "categorical":
+    role = variable_role(a.by, spec, values)
+    if role == "grouped":
         return legacy_term(values.to_numpy(float), a.by, spec)
-    if is_categorical(values, declared):
+    if role == "factor":
         return CategoricalTerm.from_data(a.by, values)
     return None
 

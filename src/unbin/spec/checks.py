@@ -36,20 +36,36 @@ def _value_problems(node: Any, path: tuple[Any, ...] = ()) -> list[str]:
 
 
 def semantic_problems(raw: dict[str, Any]) -> list[str]:
-    """Checks the schema cannot express: sorted cuts, references, required outcome fields."""
+    """Checks the schema cannot express, one checker per spec section, in a fixed order."""
+    groupings = raw.get("groupings", {}) or {}
     problems: list[str] = _value_problems(raw)
-    # The schema's identifier pattern ends in '$', which also matches before a final line break;
-    # names become folders of the output, so they must be identifiers through to the end.
+    problems += _name_problems(raw)
+    problems += _grouping_problems(groupings, raw.get("cohorts", []))
+    problems += _unique_name_problems(raw)
+    for i, analysis in enumerate(raw.get("analyses", [])):
+        problems += _analysis_problems(i, analysis, groupings)
+    problems += _continuous_problems("continuous", raw.get("continuous", {}))
+    return problems
+
+
+def _name_problems(raw: dict[str, Any]) -> list[str]:
+    """Study, cohort and analysis names: identifiers through to the end.
+
+    The schema's identifier pattern ends in '$', which also matches before a final line break;
+    names become folders of the output, so they must be identifiers through to the end."""
     named = [("study", raw.get("study"))]
     named += [(f"{key}[{i}].name", item.get("name")) for key in ("cohorts", "analyses")
               for i, item in enumerate(raw.get(key, []))]
-    for where, name in named:
-        if isinstance(name, str) and name.endswith("\n"):
-            problems.append(f"{where}: {name!r} is not a valid identifier; use letters, digits, "
-                            "'_' and '-' (starting with a letter or digit).")
-    groupings = raw.get("groupings", {}) or {}
+    return [f"{where}: {name!r} is not a valid identifier; use letters, digits, '_' and '-' "
+            "(starting with a letter or digit)."
+            for where, name in named if isinstance(name, str) and name.endswith("\n")]
+
+
+def _grouping_problems(groupings: dict[str, Any], cohorts: list[dict[str, Any]]) -> list[str]:
+    """The study's groupings and the cohorts' own: cuts or quantiles, labels, references."""
+    problems: list[str] = []
     sources = [(f"groupings.{var}", g) for var, g in groupings.items()]
-    for i, c in enumerate(raw.get("cohorts", [])):
+    for i, c in enumerate(cohorts):
         for var, g in (c.get("groupings") or {}).items():
             sources.append((f"cohorts[{i}].groupings.{var}", g))
             if var not in groupings:
@@ -57,101 +73,150 @@ def semantic_problems(raw: dict[str, Any]) -> list[str]:
                                 f"grouping; declare groupings.{var} too (the cohorts' own cuts "
                                 "override it).")
     for where, g in sources:
-        has_cuts, has_q = "cuts" in g, "quantiles" in g
-        if has_cuts == has_q:
-            problems.append(f"{where}: give exactly one of 'cuts' (cut points) or 'quantiles' "
-                            f"(number of equal-frequency groups); got {sorted(g)}.")
-            continue
-        if has_cuts:
-            cuts = [float(c) for c in g["cuts"]]
-            if any(b <= a for a, b in zip(cuts, cuts[1:], strict=False)):
-                problems.append(f"{where}.cuts: {g['cuts']} must be strictly increasing with no "
-                                f"repeats; write them as {sorted(set(cuts))}.")
-        labels = _labels_for(g)
-        n_groups = len(g["cuts"]) + 1 if has_cuts else int(g["quantiles"])
-        if "labels" in g:
-            if len(g["labels"]) != n_groups:
-                problems.append(f"{where}.labels: {len(g['labels'])} labels given for {n_groups} "
-                                f"groups; give one label per group, lowest group first.")
-            elif len(set(g["labels"])) != len(g["labels"]):
-                problems.append(f"{where}.labels: {g['labels']} contains repeats; labels must be "
-                                "distinct.")
-        if "reference" in g and labels is not None and g["reference"] not in labels:
-            close = difflib.get_close_matches(str(g["reference"]), labels, n=1)
-            hint = f" Did you mean {close[0]!r}?" if close else ""
-            problems.append(f"{where}.reference: {g['reference']!r} is not one of the groups "
-                            f"{labels}.{hint}")
-    names = [c.get("name") for c in raw.get("cohorts", [])]
-    for dup in sorted({n for n in names if names.count(n) > 1}):
-        problems.append(f"cohorts: the name {dup!r} is used more than once; cohort names must be "
-                        "unique.")
-    anames = [a.get("name") for a in raw.get("analyses", [])]
-    for dup in sorted({n for n in anames if anames.count(n) > 1}):
-        problems.append(f"analyses: the name {dup!r} is used more than once; analysis names "
-                        "must be unique.")
-    for i, a in enumerate(raw.get("analyses", [])):
-        where = f"analyses[{i}] ({a.get('name')})"
-        out = a["outcome"]
-        kind = out["type"]
-        for f_ in OUTCOME_FIELDS[kind]:
-            if f_ not in out:
-                problems.append(f"{where}.outcome: a {kind} outcome needs '{f_}' (a column name); "
-                                "add it.")
-        allowed = set(OUTCOME_FIELDS[kind]) | set(OPTIONAL_OUTCOME_FIELDS[kind]) | {"type"}
-        known = {k for fs in (*OUTCOME_FIELDS.values(), *OPTIONAL_OUTCOME_FIELDS.values())
-                 for k in fs}
-        for f_ in sorted((set(out) - allowed) & known):  # unknown keys: the schema reports them
-            problems.append(f"{where}.outcome.{f_}: not used by a {kind} outcome (it takes "
-                            f"{sorted(allowed - {'type'})}); remove it.")
-        for t in a.get("risk_thresholds", []):
-            if (kind in ("binary", "survival") and not 0 < t < 1) or (kind == "count" and t <= 0):
-                scale = "a probability in (0, 1)" if kind != "count" else "a rate > 0"
-                problems.append(f"{where}.risk_thresholds: {t} is not {scale} (the risk scale of a "
-                                f"{kind} outcome).")
-        if a.get("strata") and kind != "survival":
-            problems.append(f"{where}.strata: strata are for survival (Cox) outcomes only; put "
-                            f"{a['strata']} under 'adjust' for a {kind} outcome.")
-        exp = a["exposure"]
-        if exp not in groupings:
-            problems.append(f"{where}.exposure: {exp!r} has no entry under 'groupings'; declare "
-                            f"how the legacy analysis grouped it (groupings.{exp}: {{cuts: [...]}}).")
-        lists = [a.get(k) for k in ("adjust", "strata")]  # not lists: the schema reports them
-        involved = ([exp, *(v for vs in lists if isinstance(vs, list) for v in vs)]
-                    + ([a["by"]] if "by" in a else []))
-        for v in sorted({v for v in involved if involved.count(v) > 1}):
-            problems.append(f"{where}: variable {v!r} appears more than once among exposure, "
-                            "adjust, strata and by; list it once.")
-        if "reported" in a and exp in groupings:
-            rep = a["reported"]
-            labels = _labels_for(groupings[exp]) or []
-            parts = re.split(r"\s+vs\.?\s+", str(rep["contrast"]).strip(), maxsplit=1)
-            if len(parts) != 2:
-                problems.append(f"{where}.reported.contrast: {rep['contrast']!r} must read "
-                                f"'<group> vs <reference group>' with groups from {labels}.")
-            else:
-                for part in parts:
-                    if part.strip() not in labels:
-                        problems.append(f"{where}.reported.contrast: group {part.strip()!r} is not "
-                                        f"one of {exp}'s groups {labels}.")
-            if "lower" in rep and "upper" in rep and not rep["lower"] <= rep["estimate"] <= rep["upper"]:
-                problems.append(f"{where}.reported: estimate {rep['estimate']} is not inside "
-                                f"[{rep['lower']}, {rep['upper']}]; check the published numbers.")
-            if kind != "continuous" and rep["estimate"] <= 0:
-                problems.append(f"{where}.reported.estimate: {rep['estimate']} must be a ratio > 0 "
-                                f"for a {kind} outcome (odds, hazard or rate ratio).")
-        for j, flt in enumerate(a.get("filters", [])):
-            if not ({"min", "max", "in"} & set(flt)):
-                problems.append(f"{where}.filters[{j}]: filter on {flt['variable']!r} has no "
-                                "condition; give min, max or in.")
-            if "min" in flt and "max" in flt and flt["min"] > flt["max"]:
-                problems.append(f"{where}.filters[{j}]: min {flt['min']} > max {flt['max']}.")
-        for opts_where, opts in ((f"{where}.continuous", a.get("continuous", {})),):
-            problems += _continuous_problems(opts_where, opts)
-    problems += _continuous_problems("continuous", raw.get("continuous", {}))
+        problems += _one_grouping_problems(where, g)
+    return problems
+
+
+def _one_grouping_problems(where: str, grouping: dict[str, Any]) -> list[str]:
+    has_cuts, has_q = "cuts" in grouping, "quantiles" in grouping
+    if has_cuts == has_q:
+        return [f"{where}: give exactly one of 'cuts' (cut points) or 'quantiles' "
+                f"(number of equal-frequency groups); got {sorted(grouping)}."]
+    problems: list[str] = []
+    if has_cuts:
+        cuts = [float(c) for c in grouping["cuts"]]
+        if any(b <= a for a, b in zip(cuts, cuts[1:], strict=False)):
+            problems.append(f"{where}.cuts: {grouping['cuts']} must be strictly increasing with no "
+                            f"repeats; write them as {sorted(set(cuts))}.")
+    labels = _labels_for(grouping)
+    n_groups = len(grouping["cuts"]) + 1 if has_cuts else int(grouping["quantiles"])
+    if "labels" in grouping:
+        if len(grouping["labels"]) != n_groups:
+            problems.append(f"{where}.labels: {len(grouping['labels'])} labels given for "
+                            f"{n_groups} groups; give one label per group, lowest group first.")
+        elif len(set(grouping["labels"])) != len(grouping["labels"]):
+            problems.append(f"{where}.labels: {grouping['labels']} contains repeats; labels "
+                            "must be distinct.")
+    if "reference" in grouping and labels is not None and grouping["reference"] not in labels:
+        close = difflib.get_close_matches(str(grouping["reference"]), labels, n=1)
+        hint = f" Did you mean {close[0]!r}?" if close else ""
+        problems.append(f"{where}.reference: {grouping['reference']!r} is not one of the groups "
+                        f"{labels}.{hint}")
+    return problems
+
+
+def _unique_name_problems(raw: dict[str, Any]) -> list[str]:
+    """Cohort names and analysis names are each used once."""
+    problems: list[str] = []
+    for key, what in (("cohorts", "cohort"), ("analyses", "analysis")):
+        names = [item.get("name") for item in raw.get(key, [])]
+        for dup in sorted({n for n in names if names.count(n) > 1}):
+            problems.append(f"{key}: the name {dup!r} is used more than once; {what} names "
+                            "must be unique.")
+    return problems
+
+
+def _analysis_problems(i: int, analysis: dict[str, Any], groupings: dict[str, Any]) -> list[str]:
+    """One analysis: its outcome, thresholds, strata, exposure, variables, reported result,
+    filters and continuous options."""
+    where = f"analyses[{i}] ({analysis.get('name')})"
+    kind = analysis["outcome"]["type"]
+    problems = _outcome_problems(where, analysis["outcome"])
+    problems += _threshold_problems(where, kind, analysis.get("risk_thresholds", []))
+    if analysis.get("strata") and kind != "survival":
+        problems.append(f"{where}.strata: strata are for survival (Cox) outcomes only; put "
+                        f"{analysis['strata']} under 'adjust' for a {kind} outcome.")
+    problems += _variable_problems(where, analysis, groupings)
+    if "reported" in analysis and analysis["exposure"] in groupings:
+        problems += _reported_problems(where, kind, analysis["reported"],
+                                       _labels_for(groupings[analysis["exposure"]]) or [],
+                                       analysis["exposure"])
+    problems += _filter_problems(where, analysis.get("filters", []))
+    problems += _continuous_problems(f"{where}.continuous", analysis.get("continuous", {}))
+    return problems
+
+
+def _outcome_problems(where: str, outcome: dict[str, Any]) -> list[str]:
+    """The outcome's required fields are there and no other outcome type's fields."""
+    kind = outcome["type"]
+    problems = [f"{where}.outcome: a {kind} outcome needs '{field}' (a column name); add it."
+                for field in OUTCOME_FIELDS[kind] if field not in outcome]
+    allowed = set(OUTCOME_FIELDS[kind]) | set(OPTIONAL_OUTCOME_FIELDS[kind]) | {"type"}
+    known = {k for fs in (*OUTCOME_FIELDS.values(), *OPTIONAL_OUTCOME_FIELDS.values())
+             for k in fs}
+    for field in sorted((set(outcome) - allowed) & known):  # unknown keys: the schema reports them
+        problems.append(f"{where}.outcome.{field}: not used by a {kind} outcome (it takes "
+                        f"{sorted(allowed - {'type'})}); remove it.")
+    return problems
+
+
+def _threshold_problems(where: str, kind: str, thresholds: list[float]) -> list[str]:
+    """Risk thresholds lie on the outcome's risk scale."""
+    problems: list[str] = []
+    for t in thresholds:
+        if (kind in ("binary", "survival") and not 0 < t < 1) or (kind == "count" and t <= 0):
+            scale = "a probability in (0, 1)" if kind != "count" else "a rate > 0"
+            problems.append(f"{where}.risk_thresholds: {t} is not {scale} (the risk scale of a "
+                            f"{kind} outcome).")
+    return problems
+
+
+def _variable_problems(where: str, analysis: dict[str, Any],
+                       groupings: dict[str, Any]) -> list[str]:
+    """The exposure has a grouping; no variable is named twice among an analysis' roles."""
+    problems: list[str] = []
+    exposure = analysis["exposure"]
+    if exposure not in groupings:
+        problems.append(f"{where}.exposure: {exposure!r} has no entry under 'groupings'; declare "
+                        "how the legacy analysis grouped it "
+                        f"(groupings.{exposure}: {{cuts: [...]}}).")
+    lists = [analysis.get(k) for k in ("adjust", "strata")]  # not lists: the schema reports them
+    involved = ([exposure, *(v for vs in lists if isinstance(vs, list) for v in vs)]
+                + ([analysis["by"]] if "by" in analysis else []))
+    for v in sorted({v for v in involved if involved.count(v) > 1}):
+        problems.append(f"{where}: variable {v!r} appears more than once among exposure, "
+                        "adjust, strata and by; list it once.")
+    return problems
+
+
+def _reported_problems(where: str, kind: str, reported: dict[str, Any], labels: list[str],
+                       exposure: str) -> list[str]:
+    """The published contrast names two of the exposure's groups; its numbers are coherent."""
+    problems: list[str] = []
+    parts = re.split(r"\s+vs\.?\s+", str(reported["contrast"]).strip(), maxsplit=1)
+    if len(parts) != 2:
+        problems.append(f"{where}.reported.contrast: {reported['contrast']!r} must read "
+                        f"'<group> vs <reference group>' with groups from {labels}.")
+    else:
+        for part in parts:
+            if part.strip() not in labels:
+                problems.append(f"{where}.reported.contrast: group {part.strip()!r} is not "
+                                f"one of {exposure}'s groups {labels}.")
+    if ("lower" in reported and "upper" in reported
+            and not reported["lower"] <= reported["estimate"] <= reported["upper"]):
+        problems.append(f"{where}.reported: estimate {reported['estimate']} is not inside "
+                        f"[{reported['lower']}, {reported['upper']}]; check the published numbers.")
+    if kind != "continuous" and reported["estimate"] <= 0:
+        problems.append(f"{where}.reported.estimate: {reported['estimate']} must be a ratio > 0 "
+                        f"for a {kind} outcome (odds, hazard or rate ratio).")
+    return problems
+
+
+def _filter_problems(where: str, filters: list[dict[str, Any]]) -> list[str]:
+    """Each filter has a condition and a non-empty range."""
+    problems: list[str] = []
+    for j, condition in enumerate(filters):
+        if not ({"min", "max", "in"} & set(condition)):
+            problems.append(f"{where}.filters[{j}]: filter on {condition['variable']!r} has no "
+                            "condition; give min, max or in.")
+        if "min" in condition and "max" in condition and condition["min"] > condition["max"]:
+            problems.append(f"{where}.filters[{j}]: min {condition['min']} > max "
+                            f"{condition['max']}.")
     return problems
 
 
 def _continuous_problems(where: str, opts: dict[str, Any]) -> list[str]:
+    """Fixed spline knots are strictly increasing."""
     knots = opts.get("spline_knots")
     if isinstance(knots, dict):
         vals = [float(v) for v in knots["values"]]

@@ -15,22 +15,9 @@ from typing import Any
 import yaml
 
 from ..errors import SpecError
+from . import model
 from .checks import _where, semantic_problems
-from .model import (
-    DEFAULT_SEED,
-    Analysis,
-    Cohort,
-    ContinuousOptions,
-    CutpointSearch,
-    Filter,
-    Grouping,
-    OutcomeSpec,
-    Reported,
-    Resampling,
-    Spec,
-    VariableInfo,
-    _labels_for,
-)
+from .model import DEFAULT_SEED, ContinuousOptions, Grouping, Spec, _labels_for
 
 
 @cache
@@ -287,29 +274,29 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
     for a in raw["analyses"]:
         o = a["outcome"]
         rep = a.get("reported")
-        analyses.append(Analysis(
+        analyses.append(model.Analysis(
             name=a["name"],
-            outcome=OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
-                                count=o.get("count"), persontime=o.get("persontime"),
-                                time=o.get("time"), entry=o.get("entry"),
-                                horizon=float(o["horizon"]) if "horizon" in o else None),
+            outcome=model.OutcomeSpec(
+                type=o["type"], event=o.get("event"), value=o.get("value"),
+                count=o.get("count"), persontime=o.get("persontime"), time=o.get("time"),
+                entry=o.get("entry"), horizon=float(o["horizon"]) if "horizon" in o else None),
             exposure=a["exposure"],
             adjust=tuple(a.get("adjust", [])),
             strata=tuple(a.get("strata", [])),
             by=a.get("by"),
-            filters=tuple(Filter(f["variable"], f.get("min"), f.get("max"),
-                                 tuple(f["in"]) if "in" in f else None)
+            filters=tuple(model.Filter(f["variable"], f.get("min"), f.get("max"),
+                                       tuple(f["in"]) if "in" in f else None)
                           for f in a.get("filters", [])),
-            reported=Reported(rep["contrast"], float(rep["estimate"]), rep.get("lower"),
-                              rep.get("upper")) if rep else None,
+            reported=model.Reported(rep["contrast"], float(rep["estimate"]), rep.get("lower"),
+                                    rep.get("upper")) if rep else None,
             continuous=_continuous(a.get("continuous", {}), study_cont),
             risk_thresholds=(tuple(float(t) for t in a["risk_thresholds"])
                              if "risk_thresholds" in a else None),
         ))
-    cohorts = tuple(Cohort(c["name"], (base / c["path"]).resolve(), c["path"],
-                           _groupings(c.get("groupings") or {}))
+    cohorts = tuple(model.Cohort(c["name"], (base / c["path"]).resolve(), c["path"],
+                                 _groupings(c.get("groupings") or {}))
                     for c in raw["cohorts"])
-    variables = {k: VariableInfo(v.get("label"), v.get("unit"), v.get("type"))
+    variables = {k: model.VariableInfo(v.get("label"), v.get("unit"), v.get("type"))
                  for k, v in (raw.get("variables") or {}).items()}
     return Spec(
         study=raw["study"],
@@ -323,8 +310,8 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
         seed=int(raw.get("seed", DEFAULT_SEED)),
         raw=raw,
         source=source,
-        resampling=Resampling(**(raw.get("resampling") or {})),
-        cutpoint_search=CutpointSearch(**{k: float(v) for k, v in
+        resampling=model.Resampling(**(raw.get("resampling") or {})),
+        cutpoint_search=model.CutpointSearch(**{k: float(v) for k, v in
                                           (raw.get("cutpoint_search") or {}).items()}),
         horizon=float(raw["horizon"]) if "horizon" in raw else None,
         report=bool(raw.get("report", True)),

@@ -7,7 +7,7 @@ import json
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 from ..errors import SpecError
 
@@ -215,18 +215,10 @@ class Spec:
         return replace(self, groupings={**self.groupings, **c.groupings})
 
     def analysis(self, name: str) -> Analysis:
-        for a in self.analyses:
-            if a.name == name:
-                return a
-        raise SpecError(f"analyses: no analysis named {name!r}; the spec has "
-                        f"{[a.name for a in self.analyses]}.")
+        return _named(self.analyses, name, "analyses", "analysis")
 
     def cohort(self, name: str) -> Cohort:
-        for c in self.cohorts:
-            if c.name == name:
-                return c
-        raise SpecError(f"cohorts: no cohort named {name!r}; the spec has "
-                        f"{[c.name for c in self.cohorts]}.")
+        return _named(self.cohorts, name, "cohorts", "cohort")
 
     def columns_for_cohort(self) -> tuple[str, ...]:
         cols: list[str] = []
@@ -305,3 +297,15 @@ def default_labels(cuts: tuple[float, ...], closed: str) -> list[str]:
     else:
         labels = [f"<={f[0]}"] + [f">{f[i]}-{f[i + 1]}" for i in range(len(f) - 1)] + [f">{f[-1]}"]
     return labels
+
+
+_Named = TypeVar("_Named", Analysis, Cohort)
+
+
+def _named(items: tuple[_Named, ...], name: str, section: str, what: str) -> _Named:
+    """The item of a spec section with this name; a SpecError listing the names otherwise."""
+    for item in items:
+        if item.name == name:
+            return item
+    raise SpecError(f"{section}: no {what} named {name!r}; the spec has "
+                    f"{[item.name for item in items]}.")

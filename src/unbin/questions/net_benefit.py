@@ -1,0 +1,196 @@
+"""Decision curves, one table per analysis (``net_benefit``).
+
+Vickers & Elkin 2006, Med Decis Making 26:565, over the threshold probabilities in
+:data:`NB_GRID` for treat-all, treat-none, the legacy rules (exposure beyond the legacy cut(s), on
+the side away from the reference group) and the risk rules of the fitted models (treat when the predicted risk is at least the threshold). Binary outcomes:
+NB = TP/n - FP/n * p_t/(1-p_t). Survival outcomes, at the horizon, with Kaplan-Meier estimates
+(Vickers, Cronin, Elkin & Gonen 2008, BMC Med Inform Decis Mak 8:53):
+NB = (1 - S(h | positive)) P(positive) - S(h | positive) P(positive) p_t/(1-p_t); the
+Kaplan-Meier estimate honours delayed entry and ignores strata. Count and continuous outcomes
+have no event probability, so no net benefit (a row says so). The risk rules are evaluated on
+the rows their models were fitted to: apparent net benefit, optimistic for a fitted model.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..refit.analysis import Refit
+from ..spec import Spec
+from ..terms import GroupedTerm
+from .decisions import EVENT_FAMILIES, decision_models, finish
+
+NB_GRID = np.arange(1, 100) / 100.0
+APPARENT = ("apparent: the model was fitted to these rows, so its net benefit is optimistic "
+            "(no validation)")
+
+
+def net_benefit_counts(y: np.ndarray, positive: np.ndarray,
+                       thresholds: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Binary outcome: (NB, TP/n, FP/n) per threshold, for ``positive`` of shape (n,) (one rule
+    at every threshold) or (thresholds, n). Vickers & Elkin 2006."""
+    y = np.asarray(y, dtype=float)
+    pos = np.broadcast_to(np.asarray(positive, dtype=float), (len(thresholds), len(y)))
+    n = len(y)
+    tp = pos @ y / n
+    fp = pos @ (1.0 - y) / n
+    return tp - fp * thresholds / (1.0 - thresholds), tp, fp
+
+
+def net_benefit_risk(y: np.ndarray, risk: np.ndarray,
+                     thresholds: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``net_benefit_counts`` of the rules "treat when risk >= p_t" at every threshold, from
+    the sorted risks of the events and of the others (no thresholds x n matrix: counting the
+    risks at or above p_t is ``len - searchsorted(sorted, p_t, 'left')``)."""
+    y = np.asarray(y, dtype=float) > 0
+    risk = np.asarray(risk, dtype=float)
+    n = len(y)
+    ev, non = np.sort(risk[y]), np.sort(risk[~y])
+    tp = (ev.size - np.searchsorted(ev, thresholds, side="left")) / n
+    fp = (non.size - np.searchsorted(non, thresholds, side="left")) / n
+    return tp - fp * thresholds / (1.0 - thresholds), tp, fp
+
+
+def km_survival(time: np.ndarray, event: np.ndarray, horizon: float,
+                entry: np.ndarray | None = None) -> float:
+    """Kaplan-Meier estimate of S(horizon): the product over event times u <= horizon of
+    1 - d_u / n_u, with n_u the rows at risk (entry < u <= time). 1 before the first event."""
+    t = np.asarray(time, dtype=float)
+    e = np.asarray(event, dtype=float) > 0
+    if t.size == 0:
+        return float("nan")
+    u, d = np.unique(t[e & (t <= horizon)], return_counts=True)
+    if u.size == 0:
+        return 1.0
+    exited = np.searchsorted(np.sort(t), u, side="left")  # rows with time < u
+    if entry is None:
+        entered = np.full(u.size, t.size)
+    else:
+        entered = np.searchsorted(np.sort(np.asarray(entry, dtype=float)), u, side="left")
+    at_risk = entered - exited
+    return float(np.prod(1.0 - d / at_risk))
+
+
+def net_benefit_km(time: np.ndarray, event: np.ndarray, entry: np.ndarray | None,
+                   positive: np.ndarray, horizon: float,
+                   thresholds: np.ndarray, risk: np.ndarray | None = None,
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Survival outcome at ``horizon``: (NB, (1 - S+) P+, S+ P+) per threshold (Vickers et al.
+    2008), ``positive`` of shape (n,) or (thresholds, n); with ``risk`` (n,), the rules "treat
+    when risk >= p_t" instead (``positive`` is then ignored; one row mask at a time). A rule
+    treating nobody has NB 0."""
+    pos = np.broadcast_to(np.asarray(positive, dtype=bool), (len(thresholds), len(time)))
+    tp = np.zeros(len(thresholds))
+    fp = np.zeros(len(thresholds))
+    cache: dict[bytes, tuple[float, float]] = {}
+    for g in range(len(thresholds)):
+        mask = pos[g] if risk is None else risk >= thresholds[g]
+        share = float(mask.mean())
+        if share == 0:
+            continue
+        key = np.packbits(mask).tobytes()
+        if key not in cache:
+            s = km_survival(time[mask], event[mask], horizon,
+                            None if entry is None else entry[mask])
+            cache[key] = ((1.0 - s) * share, s * share)
+        tp[g], fp[g] = cache[key]
+    return tp - fp * thresholds / (1.0 - thresholds), tp, fp
+
+
+def legacy_rules(term: GroupedTerm, x: np.ndarray) -> list[tuple[str, np.ndarray]]:
+    """Rules that treat exposure beyond the legacy cut(s), on the side away from the reference
+    group: one for the reference group's complement, and one per cut when there are several."""
+    codes = term.codes(x)
+    ref, cuts, v = term.reference, term.cuts, term.variable
+    low, high = ("<", ">=") if term.closed == "left" else ("<=", ">")
+
+    def side(j: int) -> tuple[str, np.ndarray]:
+        if ref <= j:
+            return f"{v} {high} {cuts[j]:g}", codes > j
+        return f"{v} {low} {cuts[j]:g}", codes <= j
+
+    parts = [side(j) for j in (ref - 1, ref) if 0 <= j < len(cuts)]
+    rules = [("legacy: " + " or ".join(p[0] for p in parts), codes != ref)]
+    if len(cuts) > 1:
+        rules += [(f"legacy: {name}", mask) for name, mask in map(side, range(len(cuts)))
+                  if not np.array_equal(mask, rules[0][1])]
+    return rules
+
+
+COLUMNS = ("rule", "rule_type", "model", "adjustment", "threshold", "net_benefit", "treated",
+              "true_positive", "false_positive", "risk_scale", "horizon", "method", "n", "status",
+              "reason", "note", "caution")
+
+
+def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
+    """Decision curves: net benefit of treat-all, treat-none, legacy and risk rules."""
+    d = decision_models(r, spec)
+    base: dict[str, Any] = {"risk_scale": d.scale.label, "horizon": d.scale.horizon,
+                            "n": len(r.x)}
+    if r.family not in EVENT_FAMILIES:
+        return finish([{**base, "status": "skipped", "reason":
+                         f"net benefit needs the probability of an event (binary or survival "
+                         f"outcome); a {r.family} outcome has none ({d.scale.label})"}],
+                       COLUMNS)
+    if d.reason:
+        return finish([{**base, "status": "skipped", "reason": d.reason}], COLUMNS)
+    pt = NB_GRID
+    o = r.outcome
+    held = ""
+    y = np.asarray(o.y, dtype=float)
+    if r.family == "binary":
+        method = "events/n"
+
+        def nb(positive: np.ndarray, risk: np.ndarray | None = None,
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            if risk is not None:
+                return net_benefit_risk(y, risk, pt)
+            return net_benefit_counts(y, positive, pt)
+    else:
+        assert o.time is not None and d.scale.horizon is not None
+        method = f"Kaplan-Meier at {d.scale.horizon:g}"
+        h = d.scale.horizon
+        time, entry = np.asarray(o.time, dtype=float), o.entry
+        if h > time.max():
+            held = (f"the horizon {h:g} is past the longest follow-up ({time.max():g}): "
+                    "Kaplan-Meier held at its last value")
+
+        def nb(positive: np.ndarray, risk: np.ndarray | None = None,
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            return net_benefit_km(time, y, entry, positive, h, pt, risk)
+
+    # (rule, kind, model, adjustment, who is treated: a row mask, or the risk of each row for
+    # the rules "treat when risk >= p_t" at every p_t, note)
+    rules: list[tuple[str, str, str, str, np.ndarray, np.ndarray | None, str]] = [
+        ("treat all", "reference", "", "", np.ones(len(y), dtype=bool), None, held),
+        ("treat none", "reference", "", "", np.zeros(len(y), dtype=bool), None, "")]
+    rules += [(name, "legacy", "", "", mask, None, held)
+              for name, mask in legacy_rules(r.legacy, r.x)]
+    fits = ([d.legacy] if d.legacy is not None else []) + list(d.curves)
+    none = np.zeros(len(y), dtype=bool)
+    for rf in fits:
+        note = " | ".join(v for v in (APPARENT, rf.note, held) if v)
+        rules.append((f"risk: {rf.model}", "model", rf.model, rf.adjustment, none,
+                      np.asarray(rf.risk, dtype=float), note))
+    rows: list[dict[str, Any]] = []
+    for model, adjustment, message in d.failed:
+        rows.append({**base, "rule": f"risk: {model}", "rule_type": "model", "model": model,
+                     "adjustment": adjustment, "method": method, "status": "failed",
+                     "reason": message})
+    parts = [finish(rows, COLUMNS)] if rows else []
+    for name, kind, model, adjustment, positive, risk, note in rules:
+        value, tp, fp = nb(positive, risk)
+        if risk is None:
+            treated = positive.mean() * np.ones(len(pt))
+        else:
+            srt = np.sort(risk)
+            treated = (srt.size - np.searchsorted(srt, pt, side="left")) / srt.size
+        part = pd.DataFrame({**base, "rule": name, "rule_type": kind, "model": model,
+                             "adjustment": adjustment, "threshold": pt, "net_benefit": value,
+                             "treated": treated, "true_positive": tp, "false_positive": fp,
+                             "method": method, "status": "ok", "reason": "", "note": note})
+        parts.append(finish(part, COLUMNS))
+    return pd.concat(parts, ignore_index=True)
