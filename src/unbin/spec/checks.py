@@ -8,6 +8,7 @@ import math
 import re
 from typing import Any
 
+from .extract_checks import csv_problems, followup_problems
 from .model import OPTIONAL_OUTCOME_FIELDS, OUTCOME_FIELDS, _labels_for
 
 
@@ -148,6 +149,7 @@ def semantic_problems(raw: dict[str, Any]) -> list[str]:
         for opts_where, opts in ((f"{where}.continuous", a.get("continuous", {})),):
             problems += _continuous_problems(opts_where, opts)
     problems += _continuous_problems("continuous", raw.get("continuous", {}))
+    problems += csv_problems(raw) + followup_problems(raw)
     return problems
 
 

@@ -17,12 +17,17 @@ import yaml
 from ..errors import SpecError
 from .checks import _where, semantic_problems
 from .model import (
+    AGE_AT_ENTRY,
+    ATTAINED_AGE,
     DEFAULT_SEED,
+    TIME_ON_STUDY,
     Analysis,
     Cohort,
     ContinuousOptions,
+    CsvDialect,
     CutpointSearch,
     Filter,
+    FollowUp,
     Grouping,
     OutcomeSpec,
     Reported,
@@ -112,10 +117,24 @@ def _shape_problem(raw: Any) -> str:
     return ""
 
 
+def _dates_as_text(node: Any) -> Any:
+    """YAML reads an unquoted 2025-06-30 as a date; the spec holds dates as ISO text."""
+    import datetime as dt
+
+    if isinstance(node, dt.date):
+        return node.isoformat()
+    if isinstance(node, dict):
+        return {k: _dates_as_text(v) for k, v in node.items()}
+    if isinstance(node, list):
+        return [_dates_as_text(v) for v in node]
+    return node
+
+
 def parse_spec(raw: dict[str, Any], base: Path, source: Path | None = None) -> Spec:
     shape = _shape_problem(raw)
     if shape:
         raise SpecError(shape)
+    raw = _dates_as_text(raw)
     problems = schema_problems(raw)
     # The semantic checks read the spec as the user meant it: a misspelled key with a close
     # match ('groupngs') is read as the suggestion, so its consequences (every exposure without
@@ -280,19 +299,52 @@ def _groupings(raw: dict[str, Any]) -> dict[str, Grouping]:
     return groupings
 
 
+def _outcome(o: dict[str, Any]) -> OutcomeSpec:
+    """The outcome; a survival time given as dates or on the attained-age scale gets its
+    ``followup`` and the analysis sample's names of the built columns."""
+    time, entry, followup = o.get("time"), o.get("entry"), None
+    scale = o.get("time_scale", "on_study")
+    if o["type"] == "survival" and (isinstance(time, dict) or scale == "attained_age"):
+        dates = time if isinstance(time, dict) else {}
+        followup = FollowUp(scale=scale, start=dates.get("start"), end=dates.get("end"),
+                            unit=dates.get("unit", "years"), study_end=dates.get("study_end"),
+                            duration=None if dates else time, entry=entry, age=o.get("age"))
+        if scale == "attained_age":
+            time, entry = ATTAINED_AGE, AGE_AT_ENTRY
+        else:
+            time = TIME_ON_STUDY
+    return OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
+                       count=o.get("count"), persontime=o.get("persontime"), time=time,
+                       entry=entry, horizon=float(o["horizon"]) if "horizon" in o else None,
+                       followup=followup)
+
+
+def _derived_variables(analyses: list[Analysis]) -> dict[str, VariableInfo]:
+    """Labels and units of the follow-up columns the analysis samples build (they say which
+    time scale a horizon and an absolute risk are on)."""
+    out: dict[str, VariableInfo] = {}
+    for a in analyses:
+        f = a.outcome.followup
+        if f is None:
+            continue
+        if f.scale == "attained_age":
+            out[ATTAINED_AGE] = VariableInfo("Attained age", "years")
+            out[AGE_AT_ENTRY] = VariableInfo("Age at entry", "years")
+        else:
+            out[TIME_ON_STUDY] = VariableInfo("Time on study", f.unit)
+    return out
+
+
 def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
     groupings = _groupings(raw.get("groupings") or {})
     study_cont = _continuous(raw.get("continuous", {}), ContinuousOptions())
-    analyses = []
+    analyses: list[Analysis] = []
     for a in raw["analyses"]:
         o = a["outcome"]
         rep = a.get("reported")
         analyses.append(Analysis(
             name=a["name"],
-            outcome=OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
-                                count=o.get("count"), persontime=o.get("persontime"),
-                                time=o.get("time"), entry=o.get("entry"),
-                                horizon=float(o["horizon"]) if "horizon" in o else None),
+            outcome=_outcome(o),
             exposure=a["exposure"],
             adjust=tuple(a.get("adjust", [])),
             strata=tuple(a.get("strata", [])),
@@ -307,10 +359,12 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
                              if "risk_thresholds" in a else None),
         ))
     cohorts = tuple(Cohort(c["name"], (base / c["path"]).resolve(), c["path"],
-                           _groupings(c.get("groupings") or {}))
+                           _groupings(c.get("groupings") or {}),
+                           CsvDialect(**c["csv"]) if c.get("csv") else None)
                     for c in raw["cohorts"])
-    variables = {k: VariableInfo(v.get("label"), v.get("unit"), v.get("type"))
-                 for k, v in (raw.get("variables") or {}).items()}
+    variables = {**_derived_variables(analyses),
+                 **{k: VariableInfo(v.get("label"), v.get("unit"), v.get("type"))
+                    for k, v in (raw.get("variables") or {}).items()}}
     return Spec(
         study=raw["study"],
         cohorts=cohorts,
