@@ -259,9 +259,10 @@ def test_value_labels_become_the_levels_of_a_categorical_adjuster(tmp_path: Path
 def _dated_cohort(n: int = 400, seed: int = 9) -> pd.DataFrame:
     rng = np.random.default_rng(seed)
     start = pd.Timestamp("2012-01-01") + pd.to_timedelta(rng.integers(0, 1500, n), unit="D")
-    days = rng.integers(1, 4000, n)
+    days = rng.integers(2, 4000, n)
     end = start + pd.to_timedelta(days, unit="D")
-    return pd.DataFrame({"enrolled": start, "exit": end,
+    recruited = start + pd.to_timedelta(np.floor(rng.uniform(0, 0.5, n) * days), unit="D")
+    return pd.DataFrame({"enrolled": start, "recruited": recruited, "exit": end,
                          "died": (rng.random(n) < 0.3).astype(float),
                          "ldl": np.round(rng.normal(3.4, 0.9, n), 2),
                          "age": np.round(rng.uniform(45, 75, n), 2)})
@@ -281,17 +282,21 @@ def test_durations_from_dates_equal_precomputed_durations_and_give_the_same_fit(
         tmp_path: Path, date_format: str | None) -> None:
     df = _dated_cohort()
     # Precomputed independently with the standard library's date arithmetic.
-    days = [(e.date() - s.date()).days for s, e in zip(df["enrolled"], df["exit"], strict=True)]
-    df["years"] = np.array(days) / 365.25
+    def years(col: str) -> np.ndarray:
+        return np.array([(e.date() - s.date()).days
+                         for s, e in zip(df["enrolled"], df[col], strict=True)]) / 365.25
+
+    df["years"], df["entry_years"] = years("exit"), years("recruited")
     written = df.copy()
     if date_format:
-        for c in ("enrolled", "exit"):
+        for c in ("enrolled", "recruited", "exit"):
             written[c] = written[c].dt.strftime(date_format)
     written.to_csv(tmp_path / "c.csv", sep=";", decimal=",", index=False)
     csv_block = {"csv": {"date_format": date_format}} if date_format else {}
     dated = _surv_spec(tmp_path, "c.csv", {"time": {"start": "enrolled", "end": "exit",
-                                                     "unit": "years"}}, **csv_block)
-    ready = _surv_spec(tmp_path, "c.csv", {"time": "years"})
+                                                     "entry": "recruited", "unit": "years"}},
+                       **csv_block)
+    ready = _surv_spec(tmp_path, "c.csv", {"time": "years", "entry": "entry_years"})
     assert data_problems(dated) == []
     samples = []
     for spec in (dated, ready):
@@ -299,7 +304,9 @@ def test_durations_from_dates_equal_precomputed_durations_and_give_the_same_fit(
         samples.append(analysis_sample(read_extract(spec.cohorts[0].path, a.columns,
                                                     spec.cohorts[0].csv), a, spec))
     s_dated, s_ready = samples
+    assert s_dated.n == s_ready.n == len(df)
     np.testing.assert_allclose(s_dated.frame["time_on_study"], df["years"], rtol=1e-9)
+    np.testing.assert_allclose(s_dated.frame["time_at_entry"], df["entry_years"], rtol=1e-9)
     fits = [fit_model(s.frame[["ldl"]].to_numpy(float), build_outcome(s, sp.analyses[0]), ("ldl",))
             for s, sp in ((s_dated, dated), (s_ready, ready))]
     np.testing.assert_allclose(fits[0].coef, fits[1].coef, rtol=1e-9)

@@ -76,7 +76,8 @@ def _column_fields(a: Analysis) -> list[tuple[str, str]]:
     if f is not None:  # the extract's follow-up columns, not the sample's built ones
         out = [(c, field) for c, field in
                ((a.outcome.event, "outcome.event"), (f.start, "outcome.time.start"),
-                (f.end, "outcome.time.end"), (f.duration, "outcome.time"),
+                (f.end, "outcome.time.end"), (f.entry_date, "outcome.time.entry"),
+                (f.duration, "outcome.time"),
                 (f.entry, "outcome.entry"), (f.age, "outcome.age")) if c]
     else:
         out = [(c, f"outcome.{k}") for k, c in vars(a.outcome).items()
@@ -133,7 +134,9 @@ def date_problems(a: Analysis, df: pd.DataFrame, date_format: str | None = None)
     csv.date_format)."""
     f = a.outcome.followup
     problems: list[str] = []
-    for col, role in ((f.start, "outcome.time.start"), (f.end, "outcome.time.end")) if f else ():
+    dated = (("outcome.time.start", f.start), ("outcome.time.end", f.end),
+             ("outcome.time.entry", f.entry_date)) if f else ()
+    for role, col in dated:
         if not col or col not in df:
             continue
         try:

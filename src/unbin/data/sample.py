@@ -11,7 +11,14 @@ import pandas as pd
 
 from ..errors import DataError
 from ..spec import Analysis, Spec
-from ..spec.model import AGE_AT_ENTRY, ATTAINED_AGE, DAYS_PER_UNIT, TIME_ON_STUDY, OutcomeSpec
+from ..spec.model import (
+    AGE_AT_ENTRY,
+    ATTAINED_AGE,
+    DAYS_PER_UNIT,
+    TIME_AT_ENTRY,
+    TIME_ON_STUDY,
+    OutcomeSpec,
+)
 
 
 def coerce_numeric(df: pd.DataFrame, col: str, role: str) -> pd.Series:
@@ -79,18 +86,26 @@ def _followup(out: pd.DataFrame, o: OutcomeSpec, date_format: str | None
                           f"{o.event} = 1)", int(late.sum())))
             out, start, end = out[~late], start[~late], end[~late]
             end = end.where(end <= stop, stop)  # later censoring dates: censored at the end
-        duration = (end - start) / pd.Timedelta(days=1) / DAYS_PER_UNIT[f.unit]
+        per_unit = pd.Timedelta(days=1) * DAYS_PER_UNIT[f.unit]
+        duration = (end - start) / per_unit
+        entered = out[f.entry] if f.entry else None
+        if f.entry_date:
+            entered = (coerce_dates(out, f.entry_date, "outcome.time.entry", date_format)
+                       - start) / per_unit
     else:
         assert f.duration is not None
         duration = out[f.duration]
+        entered = out[f.entry] if f.entry else None
     out = out.copy()
     if f.scale == "attained_age":
         assert f.age is not None
-        age_in = out[f.age] + (out[f.entry] if f.entry else 0.0)
+        age_in = out[f.age] + (entered if entered is not None else 0.0)
         out[AGE_AT_ENTRY] = age_in.astype(float)
         out[ATTAINED_AGE] = (out[f.age] + duration).astype(float)
     else:
         out[TIME_ON_STUDY] = duration.astype(float)
+        if f.entry_date and entered is not None:
+            out[TIME_AT_ENTRY] = entered.astype(float)
     return out, steps
 
 
@@ -156,7 +171,8 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
         dropped.append((f"missing {c}", int(miss.sum())))
         cur = cur[~miss]
     o = a.outcome
-    dates = {o.followup.start, o.followup.end} if o.followup else set()
+    fu = o.followup
+    dates = {fu.start, fu.end, fu.entry_date} if fu else set()
     numeric = {a.exposure, *o.columns} - dates
     numeric |= {v for v in a.adjust if v in spec.groupings}
     out = cur.copy()

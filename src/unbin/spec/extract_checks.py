@@ -66,6 +66,9 @@ def followup_problems(raw: dict[str, Any]) -> list[str]:
                 problems.append(f"{where}.time: start and end are the same column "
                                 f"{time.get('start')!r}; end is the date of the event or of "
                                 "the end of follow-up.")
+            if "entry" in time and "entry" in out:
+                problems.append(f"{where}: delayed entry is given twice (time.entry, a date "
+                                "column, and entry, a duration column); keep one.")
             if scale == "attained_age" and time.get("unit", "years") != "years":
                 problems.append(f"{where}.time.unit: {time.get('unit')!r} with time_scale "
                                 "attained_age; ages are in years, so use unit: years.")

@@ -20,6 +20,7 @@ from .model import (
     AGE_AT_ENTRY,
     ATTAINED_AGE,
     DEFAULT_SEED,
+    TIME_AT_ENTRY,
     TIME_ON_STUDY,
     Analysis,
     Cohort,
@@ -307,12 +308,14 @@ def _outcome(o: dict[str, Any]) -> OutcomeSpec:
     if o["type"] == "survival" and (isinstance(time, dict) or scale == "attained_age"):
         dates = time if isinstance(time, dict) else {}
         followup = FollowUp(scale=scale, start=dates.get("start"), end=dates.get("end"),
-                            unit=dates.get("unit", "years"), study_end=dates.get("study_end"),
+                            entry_date=dates.get("entry"), unit=dates.get("unit", "years"),
+                            study_end=dates.get("study_end"),
                             duration=None if dates else time, entry=entry, age=o.get("age"))
         if scale == "attained_age":
             time, entry = ATTAINED_AGE, AGE_AT_ENTRY
         else:
             time = TIME_ON_STUDY
+            entry = TIME_AT_ENTRY if followup.entry_date else entry
     return OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
                        count=o.get("count"), persontime=o.get("persontime"), time=time,
                        entry=entry, horizon=float(o["horizon"]) if "horizon" in o else None,
@@ -332,6 +335,7 @@ def _derived_variables(analyses: list[Analysis]) -> dict[str, VariableInfo]:
             out[AGE_AT_ENTRY] = VariableInfo("Age at entry", "years")
         else:
             out[TIME_ON_STUDY] = VariableInfo("Time on study", f.unit)
+            out[TIME_AT_ENTRY] = VariableInfo("Time on study at entry", f.unit)
     return out
 
 

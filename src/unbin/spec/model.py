@@ -31,8 +31,9 @@ DAYS_PER_UNIT = {"days": 1.0, "weeks": 7.0, "months": 365.25 / 12, "years": 365.
 # The analysis sample's names of follow-up columns built from the extract's columns.
 TIME_ON_STUDY = "time_on_study"
 ATTAINED_AGE = "attained_age"
+TIME_AT_ENTRY = "time_at_entry"
 AGE_AT_ENTRY = "age_at_entry"
-DERIVED_TIME_COLUMNS = (TIME_ON_STUDY, ATTAINED_AGE, AGE_AT_ENTRY)
+DERIVED_TIME_COLUMNS = (TIME_ON_STUDY, TIME_AT_ENTRY, ATTAINED_AGE, AGE_AT_ENTRY)
 
 
 @dataclass(frozen=True)
@@ -65,15 +66,16 @@ class Grouping:
 @dataclass(frozen=True)
 class FollowUp:
     """How a survival outcome's times are built from the extract, when they are not a ready
-    duration column on the time-on-study scale: from two date columns (``start``, ``end``; the
-    duration in ``unit``, optionally cut at the study's administrative end ``study_end``, an ISO
-    date) or a ready ``duration`` column; on the attained-age scale (``scale``) the times are
+    duration column on the time-on-study scale: from date columns (``start``, ``end`` and an
+    optional delayed ``entry_date``; durations in ``unit``, the end optionally cut at the
+    study's administrative end ``study_end``, an ISO date) or a ready ``duration`` column; on the attained-age scale (``scale``) the times are
     ages: entry at ``age`` (age in years at the start of follow-up, plus a delayed ``entry``
     when given) and exit at that age plus the duration."""
 
     scale: str = "on_study"
     start: str | None = None
     end: str | None = None
+    entry_date: str | None = None  # date column: delayed entry (recruitment) after the start
     unit: str = "years"
     study_end: str | None = None
     duration: str | None = None
@@ -82,7 +84,7 @@ class FollowUp:
 
     @property
     def columns(self) -> tuple[str, ...]:
-        cols = [self.start, self.end, self.duration, self.entry, self.age]
+        cols = [self.start, self.entry_date, self.end, self.duration, self.entry, self.age]
         return tuple(c for c in cols if c)
 
 
