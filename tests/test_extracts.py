@@ -145,6 +145,32 @@ def test_a_large_csv_is_read_by_pyarrow_not_by_the_pandas_parser(
     np.testing.assert_array_equal(back["id"].to_numpy(), np.arange(n))
 
 
+def test_a_value_that_does_not_fit_the_first_block_is_read_wider(tmp_path: Path) -> None:
+    """pyarrow infers types from its first 1 MiB block; a decimal or a text value far down
+    the file widens the column instead of failing the read (file written as plain text)."""
+    from unbin.data import coerce_numeric
+
+    n = 150_000
+    dose = [str(i % 50) for i in range(n)]
+    dose[-3] = "2,5"
+    when = [f"2020-01-0{1 + i % 9}" for i in range(n)]
+    when[-2] = "unknown"
+    path = tmp_path / "late.csv"
+    path.write_text("id;dose;when\n" + "".join(
+        f"{i};{d};{w}\n" for i, (d, w) in enumerate(zip(dose, when, strict=True))),
+        encoding="utf-8")
+    assert path.stat().st_size > 2 * (1 << 20)
+    back = read_extract(path, ["dose", "when"], CsvDialect(decimal=","))
+    expected = [float(d.replace(",", ".")) for d in dose]
+    np.testing.assert_array_equal(back["dose"].to_numpy(), expected)
+    assert back["when"].iloc[-2] == "unknown" and back["when"].iloc[-1] == "2020-01-06"
+    # Detected from the first 64 KiB (whole numbers only), the decimal mark stays '.'; the
+    # check then names the fix.
+    detected = read_extract(path, ["dose"])
+    with pytest.raises(DataError, match="decimal comma: set the cohort's csv.decimal: ','"):
+        coerce_numeric(detected, "dose", "exposure")
+
+
 def test_an_undecodable_csv_and_a_broken_gzip_are_clear_errors(tmp_path: Path) -> None:
     path = tmp_path / "x.csv"
     path.write_bytes("age;név\n1;é\n".encode("cp1252"))

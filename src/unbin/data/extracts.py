@@ -180,21 +180,34 @@ def _read_csv(path: Path, cols: list[str], dialect: CsvDialect) -> pd.DataFrame:
     import pyarrow.csv as pacsv
 
     assert dialect.delimiter is not None and dialect.decimal is not None
-    try:
-        table = pacsv.read_csv(
-            path,
-            read_options=pacsv.ReadOptions(encoding=dialect.encoding or "utf-8"),
-            parse_options=pacsv.ParseOptions(delimiter=dialect.delimiter),
-            convert_options=pacsv.ConvertOptions(include_columns=cols,
-                                                 decimal_point=dialect.decimal,
-                                                 strings_can_be_null=True),
-        )
-    except (pa.ArrowInvalid, UnicodeDecodeError) as exc:
-        raise DataError(f"extract {path.name!r} cannot be read as CSV with delimiter "
-                        f"{dialect.delimiter!r}, decimal mark {dialect.decimal!r} and encoding "
-                        f"{dialect.encoding!r}: {str(exc).splitlines()[0]}; set the cohort's csv "
-                        "block in the spec (delimiter, decimal, encoding) to match the "
-                        "file.") from None
+    header = _csv_header(path, dialect)
+    # pyarrow infers each column's type from the first block; a later value that does not fit
+    # (a decimal in a column of whole numbers, text in a date column) is read again wider:
+    # whole numbers as floats, anything else as text (then checked like any text column).
+    types: dict[str, Any] = {}
+    for _ in range(len(cols) + 1):
+        try:
+            table = pacsv.read_csv(
+                path,
+                read_options=pacsv.ReadOptions(encoding=dialect.encoding or "utf-8"),
+                parse_options=pacsv.ParseOptions(delimiter=dialect.delimiter),
+                convert_options=pacsv.ConvertOptions(include_columns=cols, column_types=types,
+                                                     decimal_point=dialect.decimal,
+                                                     strings_can_be_null=True),
+            )
+            break
+        except (pa.ArrowInvalid, UnicodeDecodeError) as exc:
+            m = re.search(r"CSV column #(\d+).*conversion error to (\w+)", str(exc))
+            name = header[int(m.group(1))] if m and int(m.group(1)) < len(header) else None
+            if name is None or types.get(name) == pa.string():
+                raise DataError(f"extract {path.name!r} cannot be read as CSV with delimiter "
+                                f"{dialect.delimiter!r}, decimal mark {dialect.decimal!r} and "
+                                f"encoding {dialect.encoding!r}: {str(exc).splitlines()[0]}; set "
+                                "the cohort's csv block in the spec (delimiter, decimal, "
+                                "encoding) to match the file.") from None
+            assert m is not None
+            wider = m.group(2) == "int64" and name not in types
+            types[name] = pa.float64() if wider else pa.string()
     df = table.to_pandas(date_as_object=False)[cols]
     df.attrs["csv_dialect"] = dialect
     return df

@@ -36,9 +36,12 @@ def coerce_numeric(df: pd.DataFrame, col: str, role: str) -> pd.Series:
         if isinstance(first, (int, np.integer)):  # the extract's row position (as read)
             where = (f", the first in data row {int(first) + 1} (line {int(first) + 2} of a "
                      "CSV file with one header line)")
+        comma = s[bad].astype(str).str.fullmatch(r"\s*[+-]?\d+,\d+\s*").all()
+        fix = ("these are numbers with a decimal comma: set the cohort's csv.decimal: ',' in "
+               "the spec" if comma else
+               "recode them (or set them to missing) in the extract")
         raise DataError(f"column {col!r} ({role}) must be numeric but holds non-numeric values "
-                        f"such as {examples} in {int(bad.sum())} rows{where}; recode them (or "
-                        "set them to missing) in the extract.")
+                        f"such as {examples} in {int(bad.sum())} rows{where}; {fix}.")
     return conv.astype(float)
 
 
