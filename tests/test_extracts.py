@@ -398,22 +398,25 @@ def _age_scale_cohort(n: int, seed: int, beta: float) -> pd.DataFrame:
                          "age": age0})
 
 
-def _age_spec(tmp_path: Path, path: str) -> Any:
+def _age_spec(tmp_path: Path, path: str, duration: str | None = None) -> Any:
+    time = duration or {"start": "recruited", "end": "last_seen", "unit": "years"}
     raw = {"study": "s", "cohorts": [{"name": "c", "path": path}],
            "groupings": {"x": {"cuts": [0]}},
            "analyses": [{"name": "a", "outcome": {
                "type": "survival", "event": "died", "time_scale": "attained_age", "age": "age",
-               "time": {"start": "recruited", "end": "last_seen", "unit": "years"},
-               "horizon": 80}, "exposure": "x"}]}
+               "time": time, "horizon": 80}, "exposure": "x"}]}
     return parse_spec(raw, base=tmp_path)
 
 
-def test_an_attained_age_cox_fit_equals_lifelines_with_entry_col(tmp_path: Path) -> None:
+@pytest.mark.parametrize("given", ["dates", "duration"])
+def test_an_attained_age_cox_fit_equals_lifelines_with_entry_col(tmp_path: Path, given: str
+                                                                  ) -> None:
     from lifelines import CoxPHFitter
 
     df = _age_scale_cohort(800, 4, beta=0.4)
+    df["years"] = (df["last_seen"] - df["recruited"]).dt.days / 365.25
     df.to_parquet(tmp_path / "c.parquet", index=False)
-    spec = _age_spec(tmp_path, "c.parquet")
+    spec = _age_spec(tmp_path, "c.parquet", "years" if given == "duration" else None)
     a = spec.analyses[0]
     sample = analysis_sample(read_extract(tmp_path / "c.parquet", a.columns), a, spec)
     ours = fit_model(sample.frame[["x"]].to_numpy(float), build_outcome(sample, a), ("x",))
@@ -467,6 +470,13 @@ def test_follow_up_and_csv_keys_are_checked(tmp_path: Path) -> None:
     assert "use unit: years" in problems({"time": {**dates, "unit": "months"},
                                           "time_scale": "attained_age", "age": "a"})
     assert "not a calendar date" in problems({"time": {**dates, "study_end": "2024-02-30"}})
+    assert "'31.12.2024' is not a date written YYYY-MM-DD" in problems(
+        {"time": {**dates, "study_end": "31.12.2024"}})
+    assert "unknown key 'ends'. Did you mean 'end'?" in problems({"time": {"start": "s0",
+                                                                           "ends": "s1"}})
+    assert "'end' is a required property" in problems({"time": {"start": "s0"}})
+    assert "is neither a column name nor" in problems({"time": 5})
+    assert "given twice" in problems({"time": {**dates, "entry": "r"}, "entry": "e"})
     assert "not a known text encoding" in problems({"time": "t"}, {"csv": {"encoding": "utf-9"}})
     assert "does not read back a whole date" in problems({"time": "t"},
                                                          {"csv": {"date_format": "%d.%m"}})

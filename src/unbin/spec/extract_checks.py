@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import codecs
 import datetime as dt
+import re
 from typing import Any
 
 
@@ -56,7 +57,7 @@ def followup_problems(raw: dict[str, Any]) -> list[str]:
         scale = out.get("time_scale", "on_study")
         if isinstance(time, dict):
             end = time.get("study_end")
-            if isinstance(end, str):
+            if isinstance(end, str) and re.fullmatch(r"\d{4}-\d{2}-\d{2}", end):
                 try:
                     dt.date.fromisoformat(end)
                 except ValueError:

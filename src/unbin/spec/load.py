@@ -251,12 +251,43 @@ def schema_problems(raw: dict[str, Any]) -> list[str]:
               and not isinstance(err.instance, bool)):
             problems.append(f"{where}: {err.instance!r} knots is not supported; use a whole "
                             "number of knots from 3 to 7 (4 is the usual choice).")
+        elif err.validator == "oneOf" and where.endswith("outcome.time"):
+            problems += _time_problems(where, err)
         elif err.validator == "oneOf" and where.endswith("spline_knots"):
             problems.append(f"{where}: {err.instance!r} is neither a list of knot counts (3–7) nor "
                             "{values: [at least 3 knot positions]}.")
         else:
             problems.append(f"{where}: {err.message}.")
     return problems
+
+
+def _time_problems(where: str, err: Any) -> list[str]:
+    """A survival time that is neither a column name nor a valid mapping of dates: what is
+    wrong inside the mapping, key by key."""
+    if not isinstance(err.instance, dict):
+        return [f"{where}: {err.instance!r} is neither a column name nor the follow-up's dates "
+                "{start: DATE_COLUMN, end: DATE_COLUMN}."]
+    out = []
+    allowed = sorted(err.validator_value[1]["properties"])
+    for e in err.context:
+        if not e.relative_schema_path or e.relative_schema_path[0] != 1:
+            continue
+        w = where + "".join(f".{p}" for p in e.relative_path)
+        if e.validator == "required":
+            out.append(f"{w}: {e.message}; add it (a date column).")
+        elif e.validator == "additionalProperties":
+            for key in sorted(set(e.instance) - set(allowed), key=str):
+                close = difflib.get_close_matches(str(key), allowed, n=1, cutoff=0.6)
+                hint = f" Did you mean {close[0]!r}?" if close else ""
+                out.append(f"{w}: unknown key {key!r}.{hint} Allowed keys: "
+                           f"{', '.join(allowed)}.")
+        elif e.validator == "enum":
+            out.append(f"{w}: {e.instance!r} is not one of {list(e.validator_value)}.")
+        elif e.validator == "pattern":
+            out.append(f"{w}: {e.instance!r} is not a date written YYYY-MM-DD.")
+        else:
+            out.append(f"{w}: {e.message}.")
+    return out or [f"{where}: {err.message}."]
 
 
 def _continuous(raw: dict[str, Any], base: ContinuousOptions) -> ContinuousOptions:
