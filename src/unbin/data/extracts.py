@@ -143,7 +143,7 @@ def _csv_header(path: Path, dialect: CsvDialect) -> list[str]:
     assert dialect.encoding is not None and dialect.delimiter is not None
     text = codecs.getincrementaldecoder(dialect.encoding)().decode(head, final=False)
     first = next(csv.reader(io.StringIO(text.lstrip("\ufeff")), delimiter=dialect.delimiter), [])
-    return [c.strip() for c in first]
+    return list(first)
 
 
 def extract_columns(path: Path, dialect: CsvDialect | None = None) -> list[str]:
