@@ -264,7 +264,7 @@ def joined_header_hint(present: list[str]) -> str:
     d, n = max(counts.items(), key=lambda kv: kv[1])
     if n == 0:
         return ""
-    return (f" The whole header was read as one column: the file looks "
+    return (f". The whole header was read as one column: the file looks "
             f"{_DELIMITER_NAMES[d]}-separated; set the cohort's csv.delimiter: {d!r} in the spec "
             "(or remove csv.delimiter to detect it).")
 

@@ -1,4 +1,5 @@
-"""A factor: indicators of every level but the first (sorted) level."""
+"""A factor: indicators of every level but the first (sorted; for a labelled factor, the
+lowest code) level."""
 
 from __future__ import annotations
 
