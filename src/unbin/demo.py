@@ -8,7 +8,8 @@ with:
 
 - ``readmission_sodium`` (binary): 30-day readmission is U-shaped in serum sodium (lowest risk at
   140 mmol/L); the legacy analysis used three clinical groups (<135, 135-<145, >=145).
-- ``death_egfr`` (survival, delayed entry, strata by centre): the log hazard rises linearly as
+- ``death_egfr`` (survival on the time-on-study scale, from the registry's dates of
+  diagnosis, recruitment (delayed entry) and exit; strata by centre): the log hazard rises linearly as
   kidney function falls below 60 and is flat above (an elbow); the legacy analysis split eGFR at
   60. Age confounds it strongly (older people have lower eGFR and die sooner) and the legacy
   analysis adjusted for age in decades — residual confounding.
@@ -19,6 +20,9 @@ with:
   7.1 mg/dL was chosen from the data.
 - ``readmission_sodium`` is also analysed by diabetes, which shifts the risk at every sodium (a
   main effect) without changing the U shape (no effect modification).
+
+Eastholm's registry delivers its extract as a ';'-separated CSV with decimal commas and
+day-first dates; the others deliver parquet.
 
 Every number here is invented; the random generator is seeded, so the files are identical on
 every run.
@@ -36,6 +40,11 @@ import yaml
 
 DEMO_SEED = 20260401
 DEMO_ROWS = 6000
+DAYS_PER_YEAR = 365.25
+# The cohort whose registry delivers a ';'-separated CSV with decimal commas and day-first
+# dates (dd.mm.yyyy) instead of durations, as many European registries export.
+CSV_COHORT = "eastholm"
+CSV_DATE_FORMAT = "%d.%m.%Y"
 
 # The true curves, used to simulate and by tests that check the demo recovers them.
 SODIUM_OPTIMUM = 140.0
@@ -138,13 +147,33 @@ def simulate_registry(n: int = DEMO_ROWS, seed: int = DEMO_SEED,
     # A little missingness, as in any registry extract.
     for col, share in (("sodium", 0.01), ("urate", 0.02), ("bmi", 0.005)):
         df.loc[rng.random(n) < share, col] = np.nan
+    # The registry's dates (a generator of their own, so every column above stays as it was):
+    # diagnosis (time zero), recruitment (delayed entry) and exit (death or censoring), the
+    # durations above rounded to whole days.
+    cal = np.random.default_rng([seed, 7])
+    diagnosed = pd.Timestamp("2008-01-01") + pd.to_timedelta(cal.integers(0, 3 * 365, n),
+                                                             unit="D")
+    df["diagnosed_on"] = diagnosed
+    df["recruited_on"] = diagnosed + pd.to_timedelta(np.round(entry * DAYS_PER_YEAR), unit="D")
+    df["exit_on"] = diagnosed + pd.to_timedelta(np.round(time * DAYS_PER_YEAR), unit="D")
     return df
 
 
-def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS) -> dict[str, Any]:
+def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
+              as_delivered: bool = False) -> dict[str, Any]:
+    """The demo's spec. ``as_delivered``: each cohort's extract in the format its registry
+    delivers (:func:`extract_path`, as :func:`write_demo` writes them); otherwise every
+    extract is ``data/<cohort>.parquet`` (for tests that write the frames themselves)."""
+    def path(name: str) -> str:
+        return extract_path(name) if as_delivered else f"data/{name}.parquet"
+
+    def dialect(name: str) -> dict[str, Any]:
+        return ({"csv": {"date_format": CSV_DATE_FORMAT}}
+                if as_delivered and name == CSV_COHORT else {})
+
     return {
         "study": "lindenfeld-registry-demo",
-        "cohorts": [{"name": c.name, "path": f"data/{c.name}.parquet",
+        "cohorts": [{"name": c.name, "path": path(c.name), **dialect(c.name),
                      **({"groupings": {"urate": {"cuts": [c.urate_cut],
                                                  "derived_from_data": True}}}
                         if c.urate_cut != 7.1 else {})}
@@ -172,8 +201,13 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS) -> dict[str, Any]:
              "reported": {"contrast": "low vs normal", "estimate": 1.9, "lower": 1.5,
                           "upper": 2.4}},
             {"name": "death_egfr",
-             "outcome": {"type": "survival", "time": "followup_years", "event": "died",
-                         "entry": "entry_years", "horizon": 5},
+             # time on study from the registry's dates: from diagnosis, at risk from
+             # recruitment (delayed entry) to death or censoring; the horizon is 5 years on
+             # that scale
+             "outcome": {"type": "survival", "event": "died",
+                         "time": {"start": "diagnosed_on", "entry": "recruited_on",
+                                  "end": "exit_on", "unit": "years"},
+                         "time_scale": "on_study", "horizon": 5},
              "exposure": "egfr", "adjust": ["age", "sex"], "strata": ["centre"],
              "reported": {"contrast": "<60 vs >=60", "estimate": 2.1, "lower": 1.8,
                           "upper": 2.5}},
@@ -196,6 +230,20 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS) -> dict[str, Any]:
     }
 
 
+def extract_path(cohort: str) -> str:
+    """Where the demo keeps a cohort's extract, in the format its registry delivers."""
+    return f"data/{cohort}.csv" if cohort == CSV_COHORT else f"data/{cohort}.parquet"
+
+
+def write_registry_csv(df: pd.DataFrame, path: Path) -> None:
+    """The registry's export: ';'-separated, decimal commas, dates as dd.mm.yyyy, the dates
+    instead of the durations."""
+    out = df.drop(columns=["entry_years", "followup_years"])
+    for col in ("diagnosed_on", "recruited_on", "exit_on"):
+        out[col] = out[col].dt.strftime(CSV_DATE_FORMAT)
+    out.to_csv(path, sep=";", decimal=",", index=False, encoding="utf-8")
+
+
 def write_demo(out: str | Path, n: int | None = None,
                cohorts: tuple[CohortProfile, ...] = COHORTS) -> Path:
     """Write the demo's extracts under ``out/data/`` and its spec at ``out/spec.yaml``
@@ -207,10 +255,15 @@ def write_demo(out: str | Path, n: int | None = None,
         cohorts = tuple(replace(c, n=n) for c in cohorts)
     (out / "data").mkdir(parents=True, exist_ok=True)
     for c in cohorts:
-        simulate_registry(profile=c).to_parquet(out / "data" / f"{c.name}.parquet", index=False)
+        df = simulate_registry(profile=c)
+        if c.name == CSV_COHORT:
+            write_registry_csv(df, out / extract_path(c.name))
+        else:
+            df.to_parquet(out / extract_path(c.name), index=False)
     spec_path = out / "spec.yaml"
     spec_path.write_text(
         "# unbin demo: an invented registry (all data simulated; see unbin.demo).\n"
-        + yaml.safe_dump(demo_spec(cohorts), sort_keys=False, allow_unicode=True),
+        + yaml.safe_dump(demo_spec(cohorts, as_delivered=True), sort_keys=False,
+                         allow_unicode=True),
         encoding="utf-8")
     return spec_path

@@ -14,8 +14,8 @@ from ..spec import Analysis, Spec
 from ..terms.grouped import GroupedTerm
 from ..terms.legacy import legacy_term
 from ..terms.roles import is_grouped
-from .extracts import extract_columns, read_extract
-from .sample import analysis_sample, coerce_numeric
+from .extracts import extract_columns, joined_header_hint, read_extract
+from .sample import analysis_sample, coerce_dates, coerce_numeric
 
 
 def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> list[str]:
@@ -31,7 +31,7 @@ def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> 
                             f"{cohort.path}); fix the path (relative to the spec file).")
             continue
         try:
-            present = extract_columns(cohort.path)
+            present = extract_columns(cohort.path, cohort.csv)
         except Exception as exc:  # unreadable file: report, don't crash
             problems.append(f"{where}.path: cannot read {cohort.path.name!r}: {exc}")
             continue
@@ -44,16 +44,18 @@ def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> 
                     hint = f" Did you mean {close[0]!r}?" if close else ""
                     msg = (f"analyses[{a.name}].{field}: column {col!r} is not in the extract."
                            f"{hint} Its columns are: {', '.join(present[:30])}"
-                           f"{' ...' if len(present) > 30 else ''}")
+                           f"{' ...' if len(present) > 30 else ''}"
+                           f"{joined_header_hint(present)}")
                     found.setdefault(msg, []).append(cohort.name)
                 else:
                     usable.append(col)
         cols = list(dict.fromkeys(usable))
         if not cols:
             continue
-        df = frames[cohort.name] if frames else read_extract(cohort.path, cols)
+        df = frames[cohort.name] if frames else read_extract(cohort.path, cols, cohort.csv)
+        date_format = cohort.csv.date_format if cohort.csv else None
         for a in cspec.analyses:
-            for p in _type_problems(a, df, cspec):
+            for p in _type_problems(a, df, cspec) + date_problems(a, df, date_format):
                 found.setdefault(f"analyses[{a.name}]: {p}", []).append(cohort.name)
     for msg, cohorts in found.items():
         label = "cohort" if len(cohorts) == 1 else "cohorts"
@@ -62,8 +64,16 @@ def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> 
 
 
 def _column_fields(a: Analysis) -> list[tuple[str, str]]:
-    out = [(c, f"outcome.{k}") for k, c in vars(a.outcome).items()
-           if k in ("event", "value", "count", "persontime", "time", "entry") and c]
+    f = a.outcome.followup
+    if f is not None:  # the extract's follow-up columns, not the sample's built ones
+        out = [(c, field) for c, field in
+               ((a.outcome.event, "outcome.event"), (f.start, "outcome.time.start"),
+                (f.end, "outcome.time.end"), (f.entry_date, "outcome.time.entry"),
+                (f.duration, "outcome.time"),
+                (f.entry, "outcome.entry"), (f.age, "outcome.age")) if c]
+    else:
+        out = [(c, f"outcome.{k}") for k, c in vars(a.outcome).items()
+               if k in ("event", "value", "count", "persontime", "time", "entry") and c]
     out.append((a.exposure, "exposure"))
     out += [(c, f"adjust[{i}]") for i, c in enumerate(a.adjust)]
     out += [(c, f"strata[{i}]") for i, c in enumerate(a.strata)]
@@ -77,9 +87,12 @@ def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
     problems: list[str] = []
     numeric_roles = [(a.exposure, "exposure")]
     o = a.outcome
+    f = o.followup
+    time, entry = (f.duration, f.entry) if f else (o.time, o.entry)
     numeric_roles += [(c, f"outcome.{k}") for k, c in
                       (("value", o.value), ("count", o.count), ("persontime", o.persontime),
-                       ("time", o.time), ("entry", o.entry), ("event", o.event)) if c]
+                       ("time", time), ("entry", entry), ("event", o.event),
+                       ("age", f.age if f else None)) if c]
     numeric_roles += [(var, "adjust (grouped)") for var in a.adjust if is_grouped(var, spec)]
     if a.by and is_grouped(a.by, spec):
         numeric_roles.append((a.by, "by (grouped)"))
@@ -105,6 +118,26 @@ def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
         if role == "exposure" and s.dropna().nunique() < 2:
             problems.append(f"column {col!r} (exposure) is constant ({s.dropna().iloc[0]:g}); "
                             "there is nothing to refit.")
+    return problems
+
+
+def date_problems(a: Analysis, df: pd.DataFrame, date_format: str | None = None) -> list[str]:
+    """The follow-up's date columns must hold dates (a CSV's text in ISO 8601 or the cohort's
+    csv.date_format)."""
+    f = a.outcome.followup
+    problems: list[str] = []
+    dated = (("outcome.time.start", f.start), ("outcome.time.end", f.end),
+             ("outcome.time.entry", f.entry_date)) if f else ()
+    for role, col in dated:
+        if not col or col not in df:
+            continue
+        try:
+            s = coerce_dates(df, col, role, date_format)
+        except DataError as exc:
+            problems.append(str(exc))
+            continue
+        if s.notna().sum() == 0:
+            problems.append(f"column {col!r} ({role}) is missing in every row; check the extract.")
     return problems
 
 
@@ -154,7 +187,7 @@ def grouping_warnings(spec: Spec) -> list[str]:
     for cohort in spec.cohorts:
         cspec = spec.for_cohort(cohort.name)
         cols = list(dict.fromkeys(c for a in cspec.analyses for c, _ in _column_fields(a)))
-        df = read_extract(cohort.path, cols)
+        df = read_extract(cohort.path, cols, cohort.csv)
         for a in cspec.analyses:
             try:
                 sample = analysis_sample(df, a, cspec)

@@ -60,7 +60,7 @@ STUDY_TABLES = JOB_TABLES
 def input_record(spec: Spec, cohort: str) -> dict[str, Any]:
     c = spec.cohort(cohort)
     return {"cohort": cohort, "path": c.path_as_written, "sha256": file_sha256(c.path),
-            "rows": extract_rows(c.path)}
+            "rows": extract_rows(c.path, c.csv)}
 
 
 def _keyed(df: pd.DataFrame, cohort: str, analysis: str) -> pd.DataFrame:
@@ -162,7 +162,7 @@ def run_analysis_job(spec_path: str | Path, cohort: str, analysis: str,
     prov_base = dict(inputs=[rec], spec_digest=digest(spec.slice_for(analysis, cohort)),
                      seed=spec.seed, study=spec.study)
     try:
-        frame = read_extract(spec.cohort(cohort).path, a.columns)
+        frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
     except UnbinError as exc:
         frame = pd.DataFrame()
         tables = {"samples": pd.DataFrame({"step": pd.Series(dtype=str),
@@ -213,7 +213,7 @@ def summarise_job(spec_path: str | Path, cohort: str, analysis: str, out: str | 
     a = spec.analysis(analysis)
     summary: dict[str, Any] = {"cohort": cohort, "analysis": analysis, "status": "ok"}
     try:
-        frame = read_extract(spec.cohort(cohort).path, a.columns)
+        frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
         problems = _type_problems(a, frame, spec)
         if problems:
             raise DataError(" ".join(problems))
@@ -360,7 +360,7 @@ def resample_job(spec_path: str | Path, cohort: str, analysis: str, outdir: str 
                      study=spec.study)
     tables: dict[str, pd.DataFrame] = {}
     try:
-        frame = read_extract(spec.cohort(cohort).path, a.columns)
+        frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
         if _type_problems(a, frame, spec):
             raise DataError("the data do not fit the spec (see the fit job's status)")
         sample = analysis_sample(frame, a, spec)

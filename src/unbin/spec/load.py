@@ -17,7 +17,22 @@ import yaml
 from ..errors import SpecError
 from . import model
 from .checks import _where, semantic_problems
-from .model import DEFAULT_SEED, ContinuousOptions, Grouping, Spec, _labels_for
+from .model import (
+    AGE_AT_ENTRY,
+    ATTAINED_AGE,
+    DEFAULT_SEED,
+    TIME_AT_ENTRY,
+    TIME_ON_STUDY,
+    Analysis,
+    ContinuousOptions,
+    CsvDialect,
+    FollowUp,
+    Grouping,
+    OutcomeSpec,
+    Spec,
+    VariableInfo,
+    _labels_for,
+)
 
 
 @cache
@@ -99,10 +114,24 @@ def _shape_problem(raw: Any) -> str:
     return ""
 
 
+def _dates_as_text(node: Any) -> Any:
+    """YAML reads an unquoted 2025-06-30 as a date; the spec holds dates as ISO text."""
+    import datetime as dt
+
+    if isinstance(node, dt.date):
+        return node.isoformat()
+    if isinstance(node, dict):
+        return {k: _dates_as_text(v) for k, v in node.items()}
+    if isinstance(node, list):
+        return [_dates_as_text(v) for v in node]
+    return node
+
+
 def parse_spec(raw: dict[str, Any], base: Path, source: Path | None = None) -> Spec:
     shape = _shape_problem(raw)
     if shape:
         raise SpecError(shape)
+    raw = _dates_as_text(raw)
     problems = schema_problems(raw)
     # The semantic checks read the spec as the user meant it: a misspelled key with a close
     # match ('groupngs') is read as the suggestion, so its consequences (every exposure without
@@ -218,12 +247,43 @@ def schema_problems(raw: dict[str, Any]) -> list[str]:
               and not isinstance(err.instance, bool)):
             problems.append(f"{where}: {err.instance!r} knots is not supported; use a whole "
                             "number of knots from 3 to 7 (4 is the usual choice).")
+        elif err.validator == "oneOf" and where.endswith("outcome.time"):
+            problems += _time_problems(where, err)
         elif err.validator == "oneOf" and where.endswith("spline_knots"):
             problems.append(f"{where}: {err.instance!r} is neither a list of knot counts (3–7) nor "
                             "{values: [at least 3 knot positions]}.")
         else:
             problems.append(f"{where}: {err.message}.")
     return problems
+
+
+def _time_problems(where: str, err: Any) -> list[str]:
+    """A survival time that is neither a column name nor a valid mapping of dates: what is
+    wrong inside the mapping, key by key."""
+    if not isinstance(err.instance, dict):
+        return [f"{where}: {err.instance!r} is neither a column name nor the follow-up's dates "
+                "{start: DATE_COLUMN, end: DATE_COLUMN}."]
+    out = []
+    allowed = sorted(err.validator_value[1]["properties"])
+    for e in err.context:
+        if not e.relative_schema_path or e.relative_schema_path[0] != 1:
+            continue
+        w = where + "".join(f".{p}" for p in e.relative_path)
+        if e.validator == "required":
+            out.append(f"{w}: {e.message}; add it (a date column).")
+        elif e.validator == "additionalProperties":
+            for key in sorted(set(e.instance) - set(allowed), key=str):
+                close = difflib.get_close_matches(str(key), allowed, n=1, cutoff=0.6)
+                hint = f" Did you mean {close[0]!r}?" if close else ""
+                out.append(f"{w}: unknown key {key!r}.{hint} Allowed keys: "
+                           f"{', '.join(allowed)}.")
+        elif e.validator == "enum":
+            out.append(f"{w}: {e.instance!r} is not one of {list(e.validator_value)}.")
+        elif e.validator == "pattern":
+            out.append(f"{w}: {e.instance!r} is not a date written YYYY-MM-DD.")
+        else:
+            out.append(f"{w}: {e.message}.")
+    return out or [f"{where}: {err.message}."]
 
 
 def _continuous(raw: dict[str, Any], base: ContinuousOptions) -> ContinuousOptions:
@@ -267,19 +327,55 @@ def _groupings(raw: dict[str, Any]) -> dict[str, Grouping]:
     return groupings
 
 
+def _outcome(o: dict[str, Any]) -> OutcomeSpec:
+    """The outcome; a survival time given as dates or on the attained-age scale gets its
+    ``followup`` and the analysis sample's names of the built columns."""
+    time, entry, followup = o.get("time"), o.get("entry"), None
+    scale = o.get("time_scale", "on_study")
+    if o["type"] == "survival" and (isinstance(time, dict) or scale == "attained_age"):
+        dates = time if isinstance(time, dict) else {}
+        followup = FollowUp(scale=scale, start=dates.get("start"), end=dates.get("end"),
+                            entry_date=dates.get("entry"), unit=dates.get("unit", "years"),
+                            study_end=dates.get("study_end"),
+                            duration=None if dates else time, entry=entry, age=o.get("age"))
+        if scale == "attained_age":
+            time, entry = ATTAINED_AGE, AGE_AT_ENTRY
+        else:
+            time = TIME_ON_STUDY
+            entry = TIME_AT_ENTRY if followup.entry_date else entry
+    return OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
+                       count=o.get("count"), persontime=o.get("persontime"), time=time,
+                       entry=entry, horizon=float(o["horizon"]) if "horizon" in o else None,
+                       followup=followup)
+
+
+def _derived_variables(analyses: list[Analysis]) -> dict[str, VariableInfo]:
+    """Labels and units of the follow-up columns the analysis samples build (they say which
+    time scale a horizon and an absolute risk are on)."""
+    out: dict[str, VariableInfo] = {}
+    for a in analyses:
+        f = a.outcome.followup
+        if f is None:
+            continue
+        if f.scale == "attained_age":
+            out[ATTAINED_AGE] = VariableInfo("Attained age", "years")
+            out[AGE_AT_ENTRY] = VariableInfo("Age at entry", "years")
+        else:
+            out[TIME_ON_STUDY] = VariableInfo("Time on study", f.unit)
+            out[TIME_AT_ENTRY] = VariableInfo("Time on study at entry", f.unit)
+    return out
+
+
 def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
     groupings = _groupings(raw.get("groupings") or {})
     study_cont = _continuous(raw.get("continuous", {}), ContinuousOptions())
-    analyses = []
+    analyses: list[Analysis] = []
     for a in raw["analyses"]:
         o = a["outcome"]
         rep = a.get("reported")
         analyses.append(model.Analysis(
             name=a["name"],
-            outcome=model.OutcomeSpec(
-                type=o["type"], event=o.get("event"), value=o.get("value"),
-                count=o.get("count"), persontime=o.get("persontime"), time=o.get("time"),
-                entry=o.get("entry"), horizon=float(o["horizon"]) if "horizon" in o else None),
+            outcome=_outcome(o),
             exposure=a["exposure"],
             adjust=tuple(a.get("adjust", [])),
             strata=tuple(a.get("strata", [])),
@@ -294,10 +390,12 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
                              if "risk_thresholds" in a else None),
         ))
     cohorts = tuple(model.Cohort(c["name"], (base / c["path"]).resolve(), c["path"],
-                                 _groupings(c.get("groupings") or {}))
+                           _groupings(c.get("groupings") or {}),
+                           CsvDialect(**c["csv"]) if c.get("csv") else None)
                     for c in raw["cohorts"])
-    variables = {k: model.VariableInfo(v.get("label"), v.get("unit"), v.get("type"))
-                 for k, v in (raw.get("variables") or {}).items()}
+    variables = {**_derived_variables(analyses),
+                 **{k: model.VariableInfo(v.get("label"), v.get("unit"), v.get("type"))
+                    for k, v in (raw.get("variables") or {}).items()}}
     return Spec(
         study=raw["study"],
         cohorts=cohorts,

@@ -24,8 +24,16 @@ OPTIONAL_OUTCOME_FIELDS = {
     "binary": (),
     "continuous": (),
     "count": (),
-    "survival": ("entry", "horizon"),
+    "survival": ("entry", "horizon", "time_scale", "age"),
 }
+TIME_SCALES = ("on_study", "attained_age")
+DAYS_PER_UNIT = {"days": 1.0, "weeks": 7.0, "months": 365.25 / 12, "years": 365.25}
+# The analysis sample's names of follow-up columns built from the extract's columns.
+TIME_ON_STUDY = "time_on_study"
+ATTAINED_AGE = "attained_age"
+TIME_AT_ENTRY = "time_at_entry"
+AGE_AT_ENTRY = "age_at_entry"
+DERIVED_TIME_COLUMNS = (TIME_ON_STUDY, TIME_AT_ENTRY, ATTAINED_AGE, AGE_AT_ENTRY)
 
 
 @dataclass(frozen=True)
@@ -56,7 +64,35 @@ class Grouping:
 
 
 @dataclass(frozen=True)
+class FollowUp:
+    """How a survival outcome's times are built from the extract, when they are not a ready
+    duration column on the time-on-study scale: from date columns (``start``, ``end`` and an
+    optional delayed ``entry_date``; durations in ``unit``, the end optionally cut at the
+    study's administrative end ``study_end``, an ISO date) or a ready ``duration`` column; on the attained-age scale (``scale``) the times are
+    ages: entry at ``age`` (age in years at the start of follow-up, plus a delayed ``entry``
+    when given) and exit at that age plus the duration."""
+
+    scale: str = "on_study"
+    start: str | None = None
+    end: str | None = None
+    entry_date: str | None = None  # date column: delayed entry (recruitment) after the start
+    unit: str = "years"
+    study_end: str | None = None
+    duration: str | None = None
+    entry: str | None = None
+    age: str | None = None
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        cols = [self.start, self.entry_date, self.end, self.duration, self.entry, self.age]
+        return tuple(c for c in cols if c)
+
+
+@dataclass(frozen=True)
 class OutcomeSpec:
+    """An outcome; ``time`` and ``entry`` name the analysis sample's columns (built from the
+    extract's columns by ``followup`` when it is given)."""
+
     type: str
     event: str | None = None
     value: str | None = None
@@ -65,9 +101,17 @@ class OutcomeSpec:
     time: str | None = None
     entry: str | None = None
     horizon: float | None = None
+    followup: FollowUp | None = None
+
+    @property
+    def time_scale(self) -> str:
+        return self.followup.scale if self.followup else "on_study"
 
     @property
     def columns(self) -> tuple[str, ...]:
+        """The extract's columns this outcome reads."""
+        if self.followup is not None:
+            return tuple(c for c in (self.event, *self.followup.columns) if c)
         cols = [self.event, self.value, self.count, self.persontime, self.time, self.entry]
         return tuple(c for c in cols if c)
 
@@ -155,11 +199,23 @@ class Analysis:
 
 
 @dataclass(frozen=True)
+class CsvDialect:
+    """How a CSV extract is written (the cohort's ``csv`` block). ``None`` in a field: detected
+    from the file."""
+
+    delimiter: str | None = None
+    decimal: str | None = None
+    encoding: str | None = None
+    date_format: str | None = None  # strptime format of date columns (default: ISO 8601)
+
+
+@dataclass(frozen=True)
 class Cohort:
     name: str
     path: Path
     path_as_written: str
     groupings: dict[str, Grouping] = field(default_factory=dict)
+    csv: CsvDialect | None = None
 
 
 @dataclass(frozen=True)
@@ -251,6 +307,8 @@ class Spec:
         groupings = self.raw.get("groupings", {})
         variables = self.raw.get("variables", {})
         used = set(a.columns)
+        cohort_csv = {c["name"]: c["csv"] for c in self.raw["cohorts"]
+                      if c.get("csv") and cohort in (None, c["name"])}
         cohort_groupings = {c["name"]: {k: v for k, v in sorted((c.get("groupings") or {}).items())
                                         if k in used}
                             for c in self.raw["cohorts"]
@@ -259,6 +317,7 @@ class Spec:
             "study": self.study,
             "analysis": raw_a,
             **({"cohort_groupings": cohort_groupings} if any(cohort_groupings.values()) else {}),
+            **({"cohort_csv": cohort_csv} if cohort_csv else {}),
             "groupings": {k: groupings[k] for k in sorted(groupings) if k in used},
             "variables": {k: variables[k] for k in sorted(variables) if k in used},
             "continuous": self.raw.get("continuous", {}),

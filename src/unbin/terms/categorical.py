@@ -1,4 +1,5 @@
-"""A factor: indicators of every level but the first (sorted) level."""
+"""A factor: indicators of every level but the first (sorted; for a labelled factor, the
+lowest code) level."""
 
 from __future__ import annotations
 
@@ -16,7 +17,11 @@ class CategoricalTerm:
 
     @classmethod
     def from_data(cls, variable: str, x: Any) -> CategoricalTerm:
-        values = pd.unique(pd.Series(x).dropna())
+        s = pd.Series(x)
+        if isinstance(s.dtype, pd.CategoricalDtype):  # labelled codes: the file's order
+            present = set(s.dropna())
+            return cls(variable, tuple(c for c in s.cat.categories if c in present))
+        values = pd.unique(s.dropna())
         try:
             levels = tuple(sorted(values.tolist()))
         except TypeError:
