@@ -19,6 +19,7 @@ QUESTION_TABLES: dict[str, str] = {
     "replication": "questions.replication:replication_table",
     "thresholds": "questions.decisions:thresholds_table",
     "net_benefit": "questions.decisions:net_benefit_table",
+    "hazards": "questions.hazards:hazards_table",
 }
 # Questions whose cost is resampling (bootstrap, permutations): a workflow job of their own per
 # (cohort, analysis), so they spread over cores or a cluster beside the fits. They need the
