@@ -292,7 +292,9 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
             outcome=OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
                                 count=o.get("count"), persontime=o.get("persontime"),
                                 time=o.get("time"), entry=o.get("entry"),
-                                horizon=float(o["horizon"]) if "horizon" in o else None),
+                                horizon=float(o["horizon"]) if "horizon" in o else None,
+                                follow_up_windows=tuple(
+                                    float(c) for c in o.get("follow_up_windows", []))),
             exposure=a["exposure"],
             adjust=tuple(a.get("adjust", [])),
             strata=tuple(a.get("strata", [])),

@@ -24,7 +24,7 @@ OPTIONAL_OUTCOME_FIELDS = {
     "binary": (),
     "continuous": (),
     "count": (),
-    "survival": ("entry", "horizon"),
+    "survival": ("entry", "horizon", "follow_up_windows"),
 }
 
 
@@ -65,6 +65,7 @@ class OutcomeSpec:
     time: str | None = None
     entry: str | None = None
     horizon: float | None = None
+    follow_up_windows: tuple[float, ...] = ()  # cuts of follow-up time (survival): windows
 
     @property
     def columns(self) -> tuple[str, ...]:
