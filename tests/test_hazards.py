@@ -202,6 +202,26 @@ def test_residuals_with_strata_entry_weights_equal_brute_force(ties: str) -> Non
                                rtol=1e-10, atol=1e-12)
 
 
+@pytest.mark.parametrize("transform", ["km", "rank", "identity"])
+def test_case_weights_act_as_replicated_rows(transform: str) -> None:
+    # Brute force: integer case weights with Breslow ties give the fit, the residuals, the time
+    # transform and the tests of the sample with each row repeated that many times (frequency
+    # weights), with strata, delayed entry and tied times.
+    s = _messy_sample(4)
+    rep = np.repeat(np.arange(s["X"].shape[0]), s["weights"].astype(int))
+    kw = {"entry": s["entry"], "strata": s["strata"]}
+    L_w = prepare_layout(s["time"], s["event"], weights=s["weights"], **kw)
+    L_r = prepare_layout(s["time"][rep], s["event"][rep], **{k: v[rep] for k, v in kw.items()})
+    out = []
+    for X, L in ((s["X"], L_w), (s["X"][rep], L_r)):
+        fit = fit_cox(X, None, None, layout=L, ties="breslow", tol=1e-12)
+        res = schoenfeld(X, fit.coef, layout=L, ties="breslow")
+        per, glob = ph_tests(res, fit.cov, time_transform(transform, res, L),
+                             {"x": [0], "z": [1, 2]})
+        out.append([per["x"].statistic, per["z"].statistic, glob.statistic, res.events])
+    np.testing.assert_allclose(out[0], out[1], rtol=1e-8)
+
+
 def test_km_transform_with_entry_and_weights_equals_lifelines() -> None:
     # lifelines KaplanMeierFitter with entry= (left truncation) and weights=, right-continuous.
     from lifelines import KaplanMeierFitter
