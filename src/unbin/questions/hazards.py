@@ -78,7 +78,9 @@ def _model_rows(r: Refit, f: FormFit, form: str, coding: str) -> list[dict[str, 
             raise ValueError(f"the design's columns {names} are not the fit's {res.names}")
         layout = cox_layout(r.outcome)
         resid = schoenfeld(X, res.coef, layout=layout, ties="efron")
-        g = time_transform(DEFAULT_TRANSFORM, resid, layout)
+        o = r.outcome
+        g = time_transform(DEFAULT_TRANSFORM, resid, o.time, o.y, entry=o.entry,
+                           weights=o.weights)
         groups = _term_groups(f)
         per, glob = ph_tests(resid, res.cov, g, {label: cols for label, _, cols in groups})
     except ValueError as exc:

@@ -135,8 +135,11 @@ def schoenfeld(
     return Schoenfeld(resid, L.k_time[event_k], stratum, L.w[L.ev].copy(), L.order[L.ev])
 
 
-def time_transform(name: str, res: Schoenfeld, layout: Layout) -> np.ndarray:
-    """g(t) at each event of ``res`` (see the module's notes for the transforms)."""
+def time_transform(name: str, res: Schoenfeld, time: Any, event: Any, *,
+                   entry: Any | None = None, weights: Any | None = None) -> np.ndarray:
+    """g(t) at each event of ``res`` (see the module's notes for the transforms). ``time``,
+    ``event``, ``entry`` and ``weights`` are the whole sample's (all rows, all strata: the
+    Kaplan-Meier estimate of ``km`` is pooled over strata)."""
     t = res.time
     if name == "identity":
         return t.astype(float)
@@ -151,24 +154,31 @@ def time_transform(name: str, res: Schoenfeld, layout: Layout) -> np.ndarray:
         before = np.cumsum(w_u) - w_u
         return (before + (w_u + 1.0) / 2.0)[inv]
     if name == "km":
-        return 1.0 - _kaplan_meier(layout, t)
+        tt = np.asarray(time, dtype=float)
+        ee = np.asarray(event, dtype=float) == 1
+        ww = np.ones(tt.shape) if weights is None else np.asarray(weights, dtype=float)
+        en = None if entry is None else np.asarray(entry, dtype=float)
+        return 1.0 - _kaplan_meier(tt, ee, en, ww, t)
     raise ValueError(f"time transform must be one of {', '.join(TIME_TRANSFORMS)}, got {name!r}")
 
 
-def _kaplan_meier(L: Layout, at: np.ndarray) -> np.ndarray:
-    """The weighted Kaplan-Meier estimate pooled over strata, with delayed entry (at risk at u
-    when entry < u <= time), right-continuous, at the times ``at``."""
-    t, w, e = L.time_s, L.w, L.event_s
+def _kaplan_meier(t: np.ndarray, e: np.ndarray, entry: np.ndarray | None, w: np.ndarray,
+                  at: np.ndarray) -> np.ndarray:
+    """The weighted Kaplan-Meier estimate of all rows (pooled over strata), with delayed entry
+    (at risk at u when entry < u <= time), right-continuous, at the event times ``at``."""
+    if not (t.shape == e.shape == w.shape) or (entry is not None and entry.shape != t.shape):
+        raise ValueError("time, event, entry and weights must have one value per row of the "
+                         "sample the residuals come from")
     u = np.unique(t[e])
     ts = np.argsort(t, kind="stable")
     t_sorted, w_by_t = t[ts], w[ts]
     cw = np.r_[0.0, np.cumsum(w_by_t)]
     out_before = cw[np.searchsorted(t_sorted, u, side="left")]  # left before u
     n_risk = cw[-1] - out_before
-    if L.entry_s is not None:
-        es = np.argsort(L.entry_s, kind="stable")
+    if entry is not None:
+        es = np.argsort(entry, kind="stable")
         cwe = np.r_[0.0, np.cumsum(w[es])]
-        n_risk -= cwe[-1] - cwe[np.searchsorted(L.entry_s[es], u, side="left")]  # entry >= u
+        n_risk -= cwe[-1] - cwe[np.searchsorted(entry[es], u, side="left")]  # entry >= u
     d = np.bincount(np.searchsorted(u, t[e]), weights=w[e], minlength=u.size)
     surv = np.cumprod(1.0 - d / n_risk)
     return surv[np.searchsorted(u, at)]
