@@ -33,7 +33,7 @@ def _rossi() -> tuple[pd.DataFrame, list[str]]:
 
 
 def _gt_by_hand(resid: np.ndarray, V: np.ndarray, g: np.ndarray, cols: list[int]) -> float:
-    """Grambsch & Therneau (1994), section 4, written out: the slopes of the scaled residuals
+    """Grambsch & Therneau (1994), written out: the slopes of the scaled residuals
     D V r_k on g - mean(g) and their covariance D V / sum (g - mean g)^2; the Wald statistic of
     the columns ``cols``."""
     D = resid.shape[0]

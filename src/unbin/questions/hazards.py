@@ -4,8 +4,8 @@ For a survival analysis, every fitted legacy, linear, spline (the AIC-chosen one
 fractional-polynomial model under each adjustment coding is tested on its scaled Schoenfeld
 residuals (unbin.models.cox.residuals): one row per model term (the exposure term, each
 adjuster term; a term's columns tested jointly: its spline basis, legacy group indicators or FP
-powers) and a GLOBAL row for all columns, against the time transform ``km`` (1 - Kaplan-Meier;
-Grambsch & Therneau 1994). A small p says the term's hazard ratio changes over follow-up. A
+powers) and a GLOBAL row for all columns, against the time transform ``km`` (1 - Kaplan-Meier)
+(Grambsch & Therneau 1994). A small p says the term's hazard ratio changes over follow-up. A
 model that did not fit, or whose residuals cannot be computed, gives one failed GLOBAL row
 with the reason; other analysis families give an empty table."""
 

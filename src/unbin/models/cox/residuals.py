@@ -19,13 +19,13 @@ average, I / D. Regressing them on a transform g of time estimates the slopes th
 a set J of columns (one term: its spline basis, legacy group indicators or FP powers) is the
 Wald statistic ``theta_J' (D V_JJ / S)^-1 theta_J`` on |J| df; for one column it is the
 per-column statistic ``D (V U)_j^2 / (V_jj S)``, and for all columns the global statistic
-``D U' V U / S`` (Grambsch & Therneau 1994, Biometrika 81:515-526, section 4; lifelines
+``D U' V U / S`` (Grambsch & Therneau 1994, Biometrika 81:515-526; lifelines
 0.30's ``proportional_hazard_test`` computes the per-column one the same way and has no joint
 or global test).
 
 Time transforms (g at an event time t): ``km`` (default) 1 - the Kaplan-Meier estimate at t
-(pooled over strata, weighted, risk sets from entry on: bounded and little moved by a few late
-events, the transform Grambsch & Therneau recommend); ``rank`` the mid-rank of t among the
+(pooled over strata, weighted, risk sets from entry on; bounded, so that a few late events do
+not dominate the test: our default); ``rank`` the mid-rank of t among the
 events (tied events share it; lifelines numbers tied events consecutively instead, so the two
 agree where no event times are tied); ``identity`` t; ``log`` log t.
 """
