@@ -26,6 +26,8 @@ QUESTION_TABLES: dict[str, str] = {
     "replication": "questions.replication:replication_table",
     "thresholds": "questions.thresholds:thresholds_table",
     "net_benefit": "questions.net_benefit:net_benefit_table",
+    "hazards": "questions.hazards:hazards_table",
+    "windows": "questions.windows:windows_table",
 }
 # Questions whose cost is resampling (bootstrap, permutations): a workflow job of their own per
 # (cohort, analysis), so they spread over cores or a cluster beside the fits. They need the

@@ -346,7 +346,8 @@ def _outcome(o: dict[str, Any]) -> OutcomeSpec:
     return OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
                        count=o.get("count"), persontime=o.get("persontime"), time=time,
                        entry=entry, horizon=float(o["horizon"]) if "horizon" in o else None,
-                       followup=followup)
+                       followup=followup,
+                       follow_up_windows=tuple(float(c) for c in o.get("follow_up_windows", [])))
 
 
 def _derived_variables(analyses: list[Analysis]) -> dict[str, VariableInfo]:

@@ -24,7 +24,7 @@ OPTIONAL_OUTCOME_FIELDS = {
     "binary": (),
     "continuous": (),
     "count": (),
-    "survival": ("entry", "horizon", "time_scale", "age"),
+    "survival": ("entry", "horizon", "time_scale", "age", "follow_up_windows"),
 }
 TIME_SCALES = ("on_study", "attained_age")
 DAYS_PER_UNIT = {"days": 1.0, "weeks": 7.0, "months": 365.25 / 12, "years": 365.25}
@@ -101,6 +101,7 @@ class OutcomeSpec:
     time: str | None = None
     entry: str | None = None
     horizon: float | None = None
+    follow_up_windows: tuple[float, ...] = ()  # cuts of follow-up time (survival): windows
     followup: FollowUp | None = None
 
     @property
