@@ -1,0 +1,315 @@
+"""Robust (sandwich) and cluster-robust variances, quasi-Poisson and negative binomial counts
+(unbin.models.robust, unbin.models.negbin) against statsmodels and lifelines on datasets the
+packages ship, a brute-force Efron score, and a seeded coverage simulation."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from lifelines.datasets import load_rossi
+from statsmodels.duration.hazard_regression import PHReg
+from statsmodels.tools.sm_exceptions import SpecificationWarning
+
+from unbin.models import Outcome, fit
+from unbin.models.cox import fit_cox
+from unbin.models.robust import cox_scores, robust_cov
+
+
+def _cluster_factor(g: np.ndarray) -> float:
+    G = len(np.unique(g))
+    return G / (G - 1.0)  # the small-sample factor unbin applies (Cameron & Miller 2015)
+
+
+@pytest.fixture(scope="module")
+def fair() -> pd.DataFrame:
+    d = sm.datasets.fair.load_pandas().data  # shipped by statsmodels
+    return d.iloc[::3].reset_index(drop=True)  # both outcomes: the file is sorted
+
+
+@pytest.fixture(scope="module")
+def grunfeld() -> pd.DataFrame:
+    return sm.datasets.grunfeld.load_pandas().data  # shipped by statsmodels
+
+
+@pytest.fixture(scope="module")
+def randhie() -> pd.DataFrame:
+    d = sm.datasets.randhie.load_pandas().data  # shipped by statsmodels
+    return d.iloc[:3000].reset_index(drop=True)
+
+
+def _weights(n: int, seed: int) -> np.ndarray:
+    # invented sampling weights (1 to 5) on the shipped data
+    return np.random.default_rng(seed).uniform(1.0, 5.0, n)
+
+
+# ---- GLMs: statsmodels GLM var_weights + cov_type HC0 / cluster ---------------------------
+
+def test_logistic_sampling_weights_match_statsmodels_hc0(fair: pd.DataFrame) -> None:
+    names = ("rate_marriage", "age", "yrs_married", "religious")
+    X = fair[list(names)].to_numpy(float)
+    y = (fair["affairs"] > 0).to_numpy(float)
+    w = _weights(len(y), 1)
+    res = fit("binary", X, Outcome("binary", y, weights=w, weight_kind="sampling"), names)
+    # Reference library: statsmodels GLM Binomial with var_weights, cov_type="HC0".
+    ref = sm.GLM(y, sm.add_constant(X), family=sm.families.Binomial(),
+                 var_weights=w).fit(cov_type="HC0")
+    np.testing.assert_allclose(res.coef, ref.params, rtol=1e-7)
+    np.testing.assert_allclose(res.cov, ref.cov_params(), rtol=1e-6, atol=1e-14)
+    assert res.extra["variance"] == "robust"
+    # the model-based covariance is kept and differs (the check above can fail)
+    assert not np.allclose(res.extra["model_cov"], res.cov, rtol=1e-3)
+
+
+def test_logistic_cluster_robust_matches_statsmodels(fair: pd.DataFrame) -> None:
+    names = ("rate_marriage", "age", "yrs_married")
+    X = fair[list(names)].to_numpy(float)
+    y = (fair["affairs"] > 0).to_numpy(float)
+    g = fair["occupation"].to_numpy(int)
+    res = fit("binary", X, Outcome("binary", y, cluster=g), names)
+    # Reference library: statsmodels GLM cov_type="cluster" without its own correction, times
+    # unbin's G / (G - 1).
+    ref = sm.GLM(y, sm.add_constant(X), family=sm.families.Binomial()).fit(
+        cov_type="cluster", cov_kwds={"groups": g, "use_correction": False})
+    np.testing.assert_allclose(res.cov, ref.cov_params() * _cluster_factor(g), rtol=1e-6)
+    assert res.extra["variance"] == f"cluster-robust ({len(np.unique(g))} clusters)"
+
+
+def test_linear_cluster_robust_with_frequency_weights_matches_statsmodels(
+        grunfeld: pd.DataFrame) -> None:
+    names = ("value", "capital")
+    X = grunfeld[list(names)].to_numpy(float)
+    y = grunfeld["invest"].to_numpy(float)
+    g = pd.factorize(grunfeld["firm"])[0]
+    f = np.random.default_rng(3).integers(1, 4, len(y)).astype(float)
+    res = fit("continuous", X, Outcome("continuous", y, weights=f, cluster=g), names)
+    # Reference library: statsmodels GLM Gaussian with freq_weights, cov_type="cluster".
+    with pytest.warns(SpecificationWarning):  # statsmodels: "not fully supported" (df only)
+        ref = sm.GLM(y, sm.add_constant(X), family=sm.families.Gaussian(),
+                     freq_weights=f).fit(cov_type="cluster",
+                                         cov_kwds={"groups": g, "use_correction": False})
+    np.testing.assert_allclose(res.coef, ref.params, rtol=1e-8)
+    np.testing.assert_allclose(res.cov, ref.cov_params() * _cluster_factor(g), rtol=1e-6)
+
+
+def test_linear_sampling_weights_match_statsmodels_hc0(grunfeld: pd.DataFrame) -> None:
+    names = ("value", "capital")
+    X = grunfeld[list(names)].to_numpy(float)
+    y = grunfeld["invest"].to_numpy(float)
+    w = _weights(len(y), 4)
+    res = fit("continuous", X, Outcome("continuous", y, weights=w, weight_kind="sampling"),
+              names)
+    # Reference library: statsmodels WLS with cov_type="HC0".
+    ref = sm.WLS(y, sm.add_constant(X), weights=w).fit(cov_type="HC0")
+    np.testing.assert_allclose(res.cov, ref.cov_params(), rtol=1e-6)
+
+
+def test_poisson_sampling_weights_and_cluster_match_statsmodels(randhie: pd.DataFrame) -> None:
+    names = ("lncoins", "idp", "lpi", "physlm", "disea")
+    X = randhie[list(names)].to_numpy(float)
+    y = randhie["mdvis"].to_numpy(float)
+    w = _weights(len(y), 5)
+    g = np.arange(len(y)) // 7  # invented households of 7 consecutive rows
+    res = fit("count", X, Outcome("count", y, weights=w, weight_kind="sampling", cluster=g),
+              names)
+    # Reference library: statsmodels GLM Poisson with var_weights, cov_type="cluster".
+    with pytest.warns(SpecificationWarning):  # statsmodels: "not fully supported" (df only)
+        ref = sm.GLM(y, sm.add_constant(X), family=sm.families.Poisson(),
+                     var_weights=w).fit(cov_type="cluster",
+                                        cov_kwds={"groups": g, "use_correction": False})
+    np.testing.assert_allclose(res.coef, ref.params, rtol=1e-7)
+    np.testing.assert_allclose(res.cov, ref.cov_params() * _cluster_factor(g), rtol=1e-6)
+
+
+# ---- counts: quasi-Poisson and NB2 ---------------------------------------------------------
+
+def test_quasi_poisson_scale_matches_statsmodels_pearson_scale(randhie: pd.DataFrame) -> None:
+    names = ("lncoins", "idp", "lpi", "physlm", "disea")
+    X = randhie[list(names)].to_numpy(float)
+    y = randhie["mdvis"].to_numpy(float)
+    res = fit("count", X, Outcome("count", y, dispersion="quasi-poisson"), names)
+    # Reference library: statsmodels GLM Poisson fitted with scale="X2" (Pearson chi2 / df).
+    ref = sm.GLM(y, sm.add_constant(X), family=sm.families.Poisson()).fit(scale="X2")
+    assert res.extra["dispersion"] == pytest.approx(ref.scale, rel=1e-8)
+    assert ref.scale > 2  # the doctor-visit counts are overdispersed
+    np.testing.assert_allclose(res.cov, ref.cov_params(), rtol=1e-6)
+    assert res.extra["variance"].startswith("quasi-Poisson")
+    # frequency weights count as repeated rows: the same scale as the replicated data
+    f = np.random.default_rng(6).integers(1, 4, len(y))
+    wres = fit("count", X, Outcome("count", y, weights=f.astype(float),
+                                   dispersion="quasi-poisson"), names)
+    rep = fit("count", np.repeat(X, f, axis=0),
+              Outcome("count", np.repeat(y, f), dispersion="quasi-poisson"), names)
+    assert wres.extra["dispersion"] == pytest.approx(rep.extra["dispersion"], rel=1e-9)
+    np.testing.assert_allclose(wres.cov, rep.cov, rtol=1e-6)
+
+
+def test_negative_binomial_matches_statsmodels(randhie: pd.DataFrame) -> None:
+    names = ("lncoins", "idp", "lpi", "physlm", "disea")
+    X = randhie[list(names)].to_numpy(float)
+    y = randhie["mdvis"].to_numpy(float)
+    res = fit("count", X, Outcome("count", y, dispersion="negative-binomial"), names)
+    # Reference library: statsmodels NegativeBinomial (NB2) by maximum likelihood.
+    ref = sm.NegativeBinomial(y, sm.add_constant(X), loglike_method="nb2").fit(
+        disp=0, method="newton", maxiter=200, tol=1e-12)
+    assert res.ok
+    np.testing.assert_allclose(res.coef, ref.params[:-1], rtol=1e-6)
+    assert res.extra["nb_alpha"] == pytest.approx(ref.params[-1], rel=1e-6)
+    assert res.extra["nb_alpha_se"] == pytest.approx(ref.bse[-1], rel=1e-5)
+    np.testing.assert_allclose(res.se(), ref.bse[:-1], rtol=1e-5)
+    assert res.loglik == pytest.approx(ref.llf, rel=1e-10)
+    assert res.n_params == len(names) + 2  # intercept and alpha counted
+    # with a cluster: the beta block of the joint sandwich
+    g = np.arange(len(y)) // 10
+    cres = fit("count", X, Outcome("count", y, dispersion="negative-binomial", cluster=g),
+               names)
+    cref = sm.NegativeBinomial(y, sm.add_constant(X), loglike_method="nb2").fit(
+        disp=0, method="newton", maxiter=200, tol=1e-12, cov_type="cluster",
+        cov_kwds={"groups": g, "use_correction": False})
+    k = len(names) + 1
+    np.testing.assert_allclose(cres.cov, cref.cov_params()[:k, :k] * _cluster_factor(g),
+                               rtol=1e-5)
+
+
+def test_negative_binomial_frequency_weights_equal_replicated_rows(randhie: pd.DataFrame
+                                                                   ) -> None:
+    # Brute force: a frequency weight f is f copies of the row.
+    d = randhie.iloc[:800]
+    names = ("lncoins", "physlm", "disea")
+    X = d[list(names)].to_numpy(float)
+    y = d["mdvis"].to_numpy(float)
+    f = np.random.default_rng(8).integers(1, 4, len(y))
+    w = fit("count", X, Outcome("count", y, weights=f.astype(float),
+                                dispersion="negative-binomial"), names)
+    r = fit("count", np.repeat(X, f, axis=0),
+            Outcome("count", np.repeat(y, f), dispersion="negative-binomial"), names)
+    np.testing.assert_allclose(w.coef, r.coef, rtol=1e-7)
+    np.testing.assert_allclose(w.cov, r.cov, rtol=1e-6)
+    assert w.extra["nb_alpha"] == pytest.approx(r.extra["nb_alpha"], rel=1e-7)
+
+
+# ---- Cox: lifelines robust=True / cluster_col, statsmodels PHReg groups, brute force --------
+
+def test_cox_cluster_robust_matches_statsmodels_phreg_without_ties() -> None:
+    # Reference library: statsmodels PHReg fit(groups=...) (Breslow ties; with no tied event
+    # times Breslow and Efron coincide, so unbin's default Efron fit must match). Times of the
+    # shipped rossi data jittered apart. (lifelines 0.30.3's robust=True / cluster_col variance
+    # disagrees with both statsmodels and the jackknife below, even without ties, so it is not
+    # used as a reference.)
+    r = load_rossi()
+    jitter = np.random.default_rng(12).uniform(0.0, 0.5, len(r))
+    time = (r["week"] - jitter).to_numpy(float)
+    names = ("age", "prio", "race")
+    X = r[list(names)].to_numpy(float)
+    event = r["arrest"].to_numpy(float)
+    g = np.arange(len(r)) // 3
+    res = fit("survival", X, Outcome("survival", event, time=time, cluster=g), names)
+    ref = PHReg(time, X, status=event, ties="breslow").fit(groups=g)
+    np.testing.assert_allclose(res.cov, ref.cov_params() * _cluster_factor(g), rtol=1e-6)
+    hc0 = fit("survival", X, Outcome("survival", event, time=time, weight_kind="sampling"),
+              names)
+    ref0 = PHReg(time, X, status=event, ties="breslow").fit(groups=np.arange(len(r)))
+    np.testing.assert_allclose(hc0.cov, ref0.cov_params(), rtol=1e-6)
+
+
+def test_weighted_efron_sandwich_agrees_with_the_leave_one_out_jackknife() -> None:
+    # Independent computation: the sandwich is the infinitesimal jackknife (Lin & Wei 1989), so
+    # the leave-one-out jackknife variance (n-1)/n sum (b_-i - mean)^2 of refits on the shipped
+    # rossi data (tied weeks, Efron, invented sampling weights) must be close; it runs a little
+    # larger in samples this size (Efron 1982). The model-based variance is far off.
+    r = load_rossi().iloc[:200]
+    names = ("age", "prio")
+    X = r[list(names)].to_numpy(float)
+    w = np.random.default_rng(2).uniform(0.5, 2.0, len(r))
+    out = Outcome("survival", r["arrest"].to_numpy(float), time=r["week"].to_numpy(float),
+                  weights=w, weight_kind="sampling")
+    res = fit("survival", X, out, names)
+    n = out.n
+    loo = []
+    for i in range(n):
+        keep = np.ones(n, dtype=bool)
+        keep[i] = False
+        loo.append(fit("survival", X[keep], out.subset(keep), names).coef)
+    b = np.array(loo)
+    jack = (n - 1) / n * (b - b.mean(0)).T @ (b - b.mean(0))
+    ratio = np.diag(jack) / np.diag(res.cov)
+    assert np.all((ratio > 0.95) & (ratio < 1.3)), ratio
+    model_ratio = np.diag(jack) / np.diag(res.extra["model_cov"])
+    assert np.all((model_ratio < 0.95) | (model_ratio > 1.3)), model_ratio
+
+
+def test_cox_breslow_with_strata_and_delayed_entry_matches_statsmodels_phreg() -> None:
+    r = load_rossi()  # shipped by lifelines; many tied weeks
+    names = ("age", "prio", "race")
+    X = r[list(names)].to_numpy(float)
+    time = r["week"].to_numpy(float)
+    # statsmodels keeps a row entering exactly at an event time in that risk set (entry <= t;
+    # unbin: entry < t), so the invented entries sit between the (whole-week) event times
+    entry = np.floor(time * np.random.default_rng(10).uniform(0.0, 0.6, len(r))) + 0.5
+    strata = r["fin"].to_numpy(int)
+    event = r["arrest"].to_numpy(float)
+    g = np.arange(len(r)) // 4
+    fitb = fit_cox(X, time, event, entry=entry, strata=strata, ties="breslow")
+    out = Outcome("survival", event, time=time, entry=entry, strata=strata, cluster=g)
+    from dataclasses import replace as _replace
+
+    from unbin.models.base import FitResult
+    res = FitResult("survival", names, np.asarray(fitb.coef), np.asarray(fitb.cov),
+                    fitb.loglik, len(r), int(event.sum()), 3, True,
+                    extra={"ties": "breslow"})
+    V, G = robust_cov(_replace(res, linear_predictor=X @ res.coef), X, out)
+    # Reference library: statsmodels PHReg (Breslow ties, entry, strata) fit(groups=...).
+    ref = PHReg(time, X, status=event, entry=entry, strata=strata, ties="breslow").fit(groups=g)
+    np.testing.assert_allclose(res.coef, ref.params, rtol=1e-6)
+    np.testing.assert_allclose(V, ref.cov_params() * _cluster_factor(g), rtol=1e-6)
+    assert G == len(np.unique(g))
+
+
+def _efron_score(beta: np.ndarray, X: np.ndarray, time: np.ndarray, event: np.ndarray,
+                 entry: np.ndarray, strata: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Brute force: the weighted Efron score, one loop over strata and event times (each tied
+    event time's d steps carry the tied events' mean weight; Efron 1977)."""
+    U = np.zeros(X.shape[1])
+    e = np.exp(X @ beta)
+    for s in np.unique(strata):
+        for t in np.unique(time[(strata == s) & (event == 1)]):
+            risk = (strata == s) & (entry < t) & (time >= t)
+            dead = risk & (time == t) & (event == 1)
+            d = int(dead.sum())
+            wavg = w[dead].mean()
+            U += (w[dead, None] * X[dead]).sum(0)
+            for ll in range(d):
+                c = np.where(dead, 1.0 - ll / d, 1.0) * risk
+                s0 = (c * w * e).sum()
+                s1 = ((c * w * e)[:, None] * X).sum(0)
+                U -= wavg * s1 / s0
+    return U
+
+
+def test_efron_score_residuals_are_the_weight_derivatives_of_a_brute_force_score() -> None:
+    # Brute force on rossi (lifelines ships it): the score residual U_i of the Efron score is
+    # d(score)/d(w_i) (Therneau & Grambsch 2000, sec. 4.6), checked by central differences,
+    # with ties, strata, delayed entry and weights together. They also sum to the score.
+    r = load_rossi().iloc[:150]
+    X = r[["age", "prio"]].to_numpy(float)
+    time = r["week"].to_numpy(float)
+    event = r["arrest"].to_numpy(float)
+    rng = np.random.default_rng(11)
+    entry = np.floor(time * rng.uniform(0.0, 0.5, len(r)))
+    strata = r["fin"].to_numpy(int)
+    w = rng.uniform(0.5, 2.0, len(r))
+    beta = np.array([-0.05, 0.1])  # any beta: the identity holds everywhere
+    out = Outcome("survival", event, time=time, entry=entry, strata=strata, weights=w)
+    S = cox_scores(X, out, beta, ties="efron")
+    assert np.sum(np.diff(np.unique(time[event == 1], return_counts=True)[1]) != 0) > 0
+    np.testing.assert_allclose(S.sum(0), _efron_score(beta, X, time, event, entry, strata, w),
+                               rtol=1e-10)
+    h = 1e-6
+    for i in range(0, len(r), 7):
+        wp, wm = w.copy(), w.copy()
+        wp[i] += h
+        wm[i] -= h
+        deriv = (_efron_score(beta, X, time, event, entry, strata, wp)
+                 - _efron_score(beta, X, time, event, entry, strata, wm)) / (2 * h)
+        np.testing.assert_allclose(S[i] / w[i], deriv, rtol=1e-5, atol=1e-7)
