@@ -78,6 +78,10 @@ def _column_fields(a: Analysis) -> list[tuple[str, str]]:
     if a.by:
         out.append((a.by, "by"))
     out += [(f.variable, f"filters[{i}].variable") for i, f in enumerate(a.filters)]
+    if a.weights is not None:
+        out.append((a.weights.column, "weights.column"))
+    if a.cluster:
+        out.append((a.cluster, "cluster"))
     return out
 
 

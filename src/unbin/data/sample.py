@@ -65,8 +65,10 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
             keep &= s.isin(list(f.values)) | s.astype(str).isin([str(v) for v in f.values])
         dropped.append((f"filter: {f.describe()}", int((~keep).sum())))
         cur = cur[keep]
-    cols = [c for c in a.columns if c not in {f.variable for f in a.filters}
-            or c in (a.exposure, *a.adjust, *a.strata, a.by, *a.outcome.columns)]
+    design_cols = (a.exposure, *a.adjust, *a.strata, a.by, *a.outcome.columns)
+    checked = design_weights(cur, a)
+    cols = [c for c in a.columns if (c not in {f.variable for f in a.filters} or c in design_cols)
+            and not (c in checked and c not in design_cols)]
     for c in cols:
         miss = cur[c].isna()
         dropped.append((f"missing {c}", int(miss.sum())))
@@ -90,4 +92,40 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
         bad = out[o.persontime] <= 0
         dropped.append((f"non-positive person-time ({o.persontime} <= 0)", int(bad.sum())))
         out = out[~bad]
+    if a.cluster and out[a.cluster].nunique() < 2:
+        raise DataError(f"column {a.cluster!r} (cluster) has a single cluster in the analysis "
+                        f"sample of {a.name!r}; a cluster-robust variance needs at least two "
+                        "(30 or more for trustworthy intervals). Remove cluster: from the "
+                        "analysis or name the column that marks the clusters.")
     return Sample(frame=out.reset_index(drop=True), n_input=n0, dropped=tuple(dropped))
+
+
+def design_weights(df: pd.DataFrame, a: Analysis) -> tuple[str, ...]:
+    """Check the weight and cluster columns before any row is dropped: a weight must be a
+    positive finite number and no cluster may be missing (dropping such rows would silently
+    change the population the weights describe). Returns the columns checked."""
+    checked: list[str] = []
+    if a.weights is not None:
+        col = a.weights.column
+        role = f"weights, {a.weights.kind}"
+        w = coerce_numeric(df, col, role)
+        bad = {"missing": int(w.isna().sum()), "negative": int((w < 0).sum()),
+               "zero": int((w == 0).sum()),
+               "infinite": int(np.isinf(w.to_numpy(float)).sum())}
+        found = [f"{n} {what}" for what, n in bad.items() if n]
+        if found:
+            raise DataError(f"column {col!r} ({role}) of analysis {a.name!r} has "
+                            f"{', '.join(found)} weight(s); every weight must be a positive "
+                            "number. Fix the weights in the extract, or drop those rows with a "
+                            "filter (filters: [{variable: " + col + ", min: ...}]) if they do "
+                            "not belong to the population.")
+        checked.append(col)
+    if a.cluster:
+        miss = int(df[a.cluster].isna().sum())
+        if miss:
+            raise DataError(f"column {a.cluster!r} (cluster) of analysis {a.name!r} is missing "
+                            f"in {miss} rows; every row needs its cluster (centre, family, "
+                            "person). Fill it in the extract (a row of its own can be its own "
+                            "cluster).")
+        checked.append(a.cluster)
+    return tuple(checked)

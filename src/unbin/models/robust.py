@@ -176,6 +176,12 @@ def cox_scores(X: np.ndarray, outcome: Outcome, beta: np.ndarray,
     return out
 
 
+def variance_label(res: FitResult) -> str:
+    """The covariance a result carries, for the tables' ``variance`` column: "model",
+    "quasi-Poisson (scale s)", "robust" or "cluster-robust (G clusters)"; "" for a failed fit."""
+    return str(res.extra.get("variance", "model")) if res.ok else ""
+
+
 def describe(G: int) -> str:
     """The ``variance`` label of a robust covariance."""
     return f"cluster-robust ({G} clusters)" if G else "robust"

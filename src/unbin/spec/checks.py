@@ -103,6 +103,9 @@ def semantic_problems(raw: dict[str, Any]) -> list[str]:
         for f_ in sorted((set(out) - allowed) & known):  # unknown keys: the schema reports them
             problems.append(f"{where}.outcome.{f_}: not used by a {kind} outcome (it takes "
                             f"{sorted(allowed - {'type'})}); remove it.")
+        if out.get("count_model", "poisson") != "poisson" and kind != "count":
+            problems.append(f"{where}.outcome.count_model: only count outcomes take a count "
+                            f"model (this outcome is {kind}); remove it.")
         for t in a.get("risk_thresholds", []):
             if (kind in ("binary", "survival") and not 0 < t < 1) or (kind == "count" and t <= 0):
                 scale = "a probability in (0, 1)" if kind != "count" else "a rate > 0"

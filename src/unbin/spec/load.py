@@ -29,6 +29,7 @@ from .model import (
     Resampling,
     Spec,
     VariableInfo,
+    Weighting,
     _labels_for,
 )
 
@@ -280,6 +281,10 @@ def _groupings(raw: dict[str, Any]) -> dict[str, Grouping]:
     return groupings
 
 
+def _weighting(raw: Any) -> Weighting | None:
+    return None if raw is None else Weighting(str(raw["column"]), str(raw["kind"]))
+
+
 def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
     groupings = _groupings(raw.get("groupings") or {})
     study_cont = _continuous(raw.get("continuous", {}), ContinuousOptions())
@@ -292,7 +297,8 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
             outcome=OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
                                 count=o.get("count"), persontime=o.get("persontime"),
                                 time=o.get("time"), entry=o.get("entry"),
-                                horizon=float(o["horizon"]) if "horizon" in o else None),
+                                horizon=float(o["horizon"]) if "horizon" in o else None,
+                                count_model=o.get("count_model", "poisson")),
             exposure=a["exposure"],
             adjust=tuple(a.get("adjust", [])),
             strata=tuple(a.get("strata", [])),
@@ -305,6 +311,9 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
             continuous=_continuous(a.get("continuous", {}), study_cont),
             risk_thresholds=(tuple(float(t) for t in a["risk_thresholds"])
                              if "risk_thresholds" in a else None),
+            # the analysis' own weights/cluster (null switches the study's off), else the study's
+            weights=_weighting(a["weights"] if "weights" in a else raw.get("weights")),
+            cluster=a["cluster"] if "cluster" in a else raw.get("cluster"),
         ))
     cohorts = tuple(Cohort(c["name"], (base / c["path"]).resolve(), c["path"],
                            _groupings(c.get("groupings") or {}))
