@@ -172,6 +172,21 @@ def test_negative_binomial_matches_statsmodels(randhie: pd.DataFrame) -> None:
                                rtol=1e-5)
 
 
+def test_negative_binomial_on_poisson_counts_falls_back_to_the_poisson_fit() -> None:
+    # Seeded Poisson counts (no overdispersion): the NB2 maximum sits at alpha = 0, where the
+    # model is the Poisson one (reference library: statsmodels GLM Poisson); alpha still counts.
+    rng = np.random.default_rng(14)  # a sample whose Pearson dispersion is below 1
+    x = rng.normal(size=400)
+    y = rng.poisson(np.exp(0.3 + 0.2 * x)).astype(float)
+    res = fit("count", x[:, None], Outcome("count", y, dispersion="negative-binomial"), ("x",))
+    ref = sm.GLM(y, sm.add_constant(x), family=sm.families.Poisson()).fit()
+    assert ref.pearson_chi2 / ref.df_resid < 1
+    assert res.extra["nb_alpha"] == 0.0 and "tends to 0" in " ".join(res.warnings)
+    np.testing.assert_allclose(res.coef, ref.params, rtol=1e-7)
+    np.testing.assert_allclose(res.cov, ref.cov_params(), rtol=1e-6)
+    assert res.n_params == 3
+
+
 def test_negative_binomial_frequency_weights_equal_replicated_rows(randhie: pd.DataFrame
                                                                    ) -> None:
     # Brute force: a frequency weight f is f copies of the row.

@@ -10,8 +10,10 @@ Newton's method runs on (beta, log alpha) jointly, from the Poisson estimate and
 estimate of alpha, with step halving; the derivatives are analytic. The covariance is the
 inverse of the joint observed information; its beta block is the result's ``cov`` (the same
 block whichever scale alpha is taken on, at the maximum), and alpha with its standard error is
-in ``extra`` (``nb_alpha``, ``nb_alpha_se``). ``n_params`` counts alpha. Weights multiply each
-row's log-likelihood (frequency weights; sampling weights add the sandwich, unbin.models.robust).
+in ``extra`` (``nb_alpha``, ``nb_alpha_se``). ``n_params`` counts alpha. When alpha runs to 0
+(no overdispersion) the Poisson fit is returned with alpha = 0, still counted in ``n_params``.
+Weights multiply each row's log-likelihood (frequency weights; sampling weights add the
+sandwich, unbin.models.robust).
 """
 
 from __future__ import annotations
@@ -116,7 +118,8 @@ def fit_negbin(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitRe
             break
     if params[k] < np.log(_ALPHA_FLOOR) + 1.0:
         # no overdispersion: NB2 degenerates to the Poisson model (alpha -> 0)
-        return replace(pois, warnings=(*pois.warnings, (
+        # alpha was estimated (at its boundary): counted, so AIC compares across forms
+        return replace(pois, n_params=pois.n_params + 1, warnings=(*pois.warnings, (
             "the negative binomial dispersion alpha tends to 0 (no overdispersion): the "
             "Poisson fit is reported.")), extra={**pois.extra, "nb_alpha": 0.0,
                                                  "nb_alpha_se": float("nan"),
