@@ -474,3 +474,20 @@ def test_cluster_robust_intervals_cover_at_the_nominal_rate() -> None:
         naive += abs(b - 0.4) <= 1.959964 * se0
     assert 0.90 <= hits / reps <= 0.99, hits / reps
     assert naive / reps < 0.85, naive / reps
+
+
+def test_unbin_check_reports_bad_weights_as_a_problem(tmp_path: object) -> None:
+    from pathlib import Path
+
+    from unbin.data import data_problems
+    from unbin.spec import parse_spec
+
+    base = Path(str(tmp_path))
+    df = _clustered_counts(25).assign(w=2.0)
+    df.loc[3, "w"] = 0.0
+    df.to_csv(base / "sim.csv", index=False)
+    raw = _count_raw(weights={"column": "w", "kind": "sampling"})
+    raw["cohorts"] = [{"name": "sim", "path": "sim.csv"}]
+    problems = data_problems(parse_spec(raw, base=base))
+    assert len(problems) == 1 and "column 'w' (weights, sampling)" in problems[0]
+    assert "1 zero weight(s)" in problems[0]

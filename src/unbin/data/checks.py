@@ -13,7 +13,7 @@ from ..spec import Analysis, Spec
 from ..terms.grouped import GroupedTerm
 from ..terms.legacy import legacy_term
 from .extracts import extract_columns, read_extract
-from .sample import analysis_sample, coerce_numeric
+from .sample import analysis_sample, coerce_numeric, design_weights, filtered
 
 MAX_CATEGORICAL_LEVELS = 5  # a numeric column with this many distinct values or fewer is a factor
 
@@ -87,6 +87,11 @@ def _column_fields(a: Analysis) -> list[tuple[str, str]]:
 
 def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
     problems: list[str] = []
+    if (a.weights is not None and a.weights.column in df) or (a.cluster and a.cluster in df):
+        try:  # bad weights or clusters stop the analysis: a problem, not a note
+            design_weights(filtered(df, a)[0], a)
+        except DataError as exc:
+            problems.append(str(exc))
     numeric_roles = [(a.exposure, "exposure")]
     o = a.outcome
     numeric_roles += [(c, f"outcome.{k}") for k, c in

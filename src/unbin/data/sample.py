@@ -46,12 +46,8 @@ class Sample:
         return len(self.frame)
 
 
-def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
-    """Apply filters, then drop incomplete rows, then rows with impossible follow-up.
-
-    Every step's dropped-row count is kept, in order, under a reason that names the column.
-    """
-    n0 = len(df)
+def filtered(df: pd.DataFrame, a: Analysis) -> tuple[pd.DataFrame, list[tuple[str, int]]]:
+    """The rows the analysis' filters keep, and each filter's dropped-row count."""
     dropped: list[tuple[str, int]] = []
     cur = df
     for f in a.filters:
@@ -65,6 +61,16 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
             keep &= s.isin(list(f.values)) | s.astype(str).isin([str(v) for v in f.values])
         dropped.append((f"filter: {f.describe()}", int((~keep).sum())))
         cur = cur[keep]
+    return cur, dropped
+
+
+def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
+    """Apply filters, then drop incomplete rows, then rows with impossible follow-up.
+
+    Every step's dropped-row count is kept, in order, under a reason that names the column.
+    """
+    n0 = len(df)
+    cur, dropped = filtered(df, a)
     design_cols = (a.exposure, *a.adjust, *a.strata, a.by, *a.outcome.columns)
     checked = design_weights(cur, a)
     cols = [c for c in a.columns if (c not in {f.variable for f in a.filters} or c in design_cols)
@@ -92,11 +98,8 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
         bad = out[o.persontime] <= 0
         dropped.append((f"non-positive person-time ({o.persontime} <= 0)", int(bad.sum())))
         out = out[~bad]
-    if a.cluster and out[a.cluster].nunique() < 2:
-        raise DataError(f"column {a.cluster!r} (cluster) has a single cluster in the analysis "
-                        f"sample of {a.name!r}; a cluster-robust variance needs at least two "
-                        "(30 or more for trustworthy intervals). Remove cluster: from the "
-                        "analysis or name the column that marks the clusters.")
+    if a.cluster:
+        single_cluster(out, a)
     return Sample(frame=out.reset_index(drop=True), n_input=n0, dropped=tuple(dropped))
 
 
@@ -127,5 +130,15 @@ def design_weights(df: pd.DataFrame, a: Analysis) -> tuple[str, ...]:
                             f"in {miss} rows; every row needs its cluster (centre, family, "
                             "person). Fill it in the extract (a row of its own can be its own "
                             "cluster).")
+        single_cluster(df, a)
         checked.append(a.cluster)
     return tuple(checked)
+
+
+def single_cluster(df: pd.DataFrame, a: Analysis) -> None:
+    assert a.cluster is not None
+    if df[a.cluster].nunique() < 2:
+        raise DataError(f"column {a.cluster!r} (cluster) has a single cluster in the analysis "
+                        f"sample of {a.name!r}; a cluster-robust variance needs at least two "
+                        "(and many more for trustworthy intervals). Remove cluster: from the "
+                        "analysis or name the column that marks the clusters.")
