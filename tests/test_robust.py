@@ -491,3 +491,31 @@ def test_unbin_check_reports_bad_weights_as_a_problem(tmp_path: object) -> None:
     problems = data_problems(parse_spec(raw, base=base))
     assert len(problems) == 1 and "column 'w' (weights, sampling)" in problems[0]
     assert "1 zero weight(s)" in problems[0]
+
+
+def test_quasi_poisson_information_divides_the_likelihood_ratios_by_the_pearson_scale(
+        refit_frame: object) -> None:
+    from unbin.questions.information import information_table
+    from unbin.refit.analysis import design
+
+    df = _clustered_counts(26)
+    raw = _count_raw(outcome={"type": "count", "count": "visits", "persontime": "pyears",
+                              "count_model": "quasi-poisson"})
+    spec, r = refit_frame(df, raw)  # type: ignore[operator]
+    row = information_table(r, spec).query("adjustment == 'none'").iloc[0]
+    assert row["statistic"] == "likelihood ratio / Pearson scale (quasi-Poisson)"
+    # Reference library: statsmodels GLM Poisson. The quasi-likelihood test (McCullagh &
+    # Nelder 1989, sec. 4.5): LR / (Pearson chi2 / df) of the largest model of the coding.
+    y, off = df["visits"].to_numpy(float), np.log(df["pyears"].to_numpy())
+    big = r.get("legacy+test_spline", "none")
+    Xb, _ = design(r.sample.frame, r.x, big.exposure_terms, big.adjust_terms)
+
+    def glm(X: np.ndarray) -> object:
+        return sm.GLM(y, sm.add_constant(X, has_constant="add"),
+                      family=sm.families.Poisson(), offset=off).fit()
+
+    ref_big = glm(Xb)
+    phi = ref_big.pearson_chi2 / ref_big.df_resid
+    lr = 2 * (glm(df[["marker"]].to_numpy(float)).llf - glm(np.zeros((len(y), 0))).llf)
+    assert phi > 1.3  # the frailty makes the counts overdispersed
+    assert row["lr_linear"] == pytest.approx(lr / phi, rel=1e-7)

@@ -25,7 +25,9 @@ the robust Wald statistic b' V^-1 b of the same coefficients, V the (cluster-)ro
 (unbin.models.robust), and ``info_kept`` the ratio of those Wald statistics; ``statistic`` says
 which. AIC stays that of the weighted pseudo-log-likelihood (comparable between forms fitted
 to the same rows and weights only). The interaction test stays a likelihood-ratio test and
-says so in ``interaction_detail``."""
+says so in ``interaction_detail``. With a quasi-Poisson count model every chi-square column is
+the likelihood ratio divided by the Pearson dispersion of the coding's largest model (the
+quasi-likelihood test; McCullagh & Nelder 1989, sec. 4.5)."""
 
 from __future__ import annotations
 
@@ -62,9 +64,25 @@ def _wald(f: FormFit | None, names: tuple[str, ...]) -> float:
         return np.nan
 
 
+def _quasi_scale(r: Refit, get: dict[str, FormFit | None]) -> float | None:
+    """The Pearson dispersion of a coding's largest model (legacy + test spline, else the test
+    spline, else adjustment only) when the count model is quasi-Poisson; one value per coding,
+    so that info_kept is the plain likelihood ratios' ratio."""
+    if r.family != "count" or r.analysis.outcome.count_model != "quasi-poisson":
+        return None
+    for form in ("legacy+test_spline", "test_spline", "null"):
+        f = get.get(form)
+        if f is not None and f.result.ok and "dispersion" in f.result.extra:
+            return float(f.result.extra["dispersion"])
+    return None
+
+
 def statistic_name(r: Refit) -> str:
-    """'likelihood ratio', or the robust Wald statistic with its covariance named."""
+    """'likelihood ratio', 'likelihood ratio / Pearson scale' (quasi-Poisson), or the robust
+    Wald statistic with its covariance named."""
     if not r.analysis.robust:
+        if r.family == "count" and r.analysis.outcome.count_model == "quasi-poisson":
+            return "likelihood ratio / Pearson scale (quasi-Poisson)"
         return "likelihood ratio"
     labels = {f.result.extra.get("variance") for f in r.fits if f.result.ok}
     labels.discard(None)
@@ -114,6 +132,10 @@ def information_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             lr = {form: _lr(ll(form), ll0) for form in forms}
             added = _lr(ll("legacy+test_spline"), ll("legacy"))
             nonlin = _lr(ll("test_spline"), ll("linear"))
+            phi = _quasi_scale(r, get)
+            if phi is not None:  # quasi-Poisson: LR / phi (McCullagh & Nelder 1989, sec. 4.5)
+                lr = {form: v / phi for form, v in lr.items()}
+                added, nonlin = added / phi, nonlin / phi
         aics = {form: f.result.aic for form in ("legacy", "linear", "spline", "fp")
                 if (f := get[form]) is not None and f.result.ok}
         best = min(aics, key=lambda k: aics[k]) if aics else ""
