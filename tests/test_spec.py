@@ -190,3 +190,32 @@ def test_yaml_errors_point_at_the_broken_line(tmp_path: Path, broken: str,
     assert "is not valid YAML at line 4," in msg, msg
     if what:
         assert f"the {what} that starts there is not closed" in msg
+
+
+def test_weights_cluster_and_count_model_keys(tmp_path: Path) -> None:
+    # an analysis' own weights/cluster override the study's; null switches the default off
+    raw = _minimal(weights={"column": "ipw", "kind": "sampling"})
+    raw["cluster"] = "centre"
+    raw["weights"] = {"column": "freq", "kind": "frequency"}
+    raw["analyses"].append({"name": "b", "outcome": {"type": "count", "count": "n",
+                                                      "persontime": "py",
+                                                      "count_model": "quasi-poisson"},
+                            "exposure": "egfr", "cluster": None})
+    spec = parse_spec(raw, base=tmp_path)
+    a, b = spec.analyses
+    assert a.weights is not None and (a.weights.column, a.weights.kind) == ("ipw", "sampling")
+    assert a.cluster == "centre" and a.robust and "centre" in a.columns and "ipw" in a.columns
+    assert b.weights is not None and b.weights.kind == "frequency" and b.cluster is None
+    assert not b.robust and b.outcome.count_model == "quasi-poisson"
+    assert spec.slice_for("b")["weights"] == {"column": "freq", "kind": "frequency"}
+
+
+def test_misspelt_weights_keys_and_a_stray_count_model_are_reported(tmp_path: Path) -> None:
+    raw = _minimal(weights={"colum": "ipw", "kind": "samplng"},
+                   outcome={"type": "binary", "event": "dead", "count_model": "quasi-poisson"})
+    with pytest.raises(SpecError) as err:
+        parse_spec(raw, base=tmp_path)
+    text = " ".join(err.value.problems)
+    assert "unknown key 'colum'. Did you mean 'column'?" in text
+    assert "'samplng' is not one of ['frequency', 'sampling']. Did you mean 'sampling'?" in text
+    assert "outcome.count_model: only count outcomes take a count model" in text

@@ -15,7 +15,13 @@ from ..terms.grouped import GroupedTerm
 from ..terms.legacy import legacy_term
 from ..terms.roles import is_grouped
 from .extracts import extract_columns, joined_header_hint, read_extract
-from .sample import analysis_sample, coerce_dates, coerce_numeric
+from .sample import (
+    analysis_sample,
+    coerce_dates,
+    coerce_numeric,
+    design_weights,
+    filtered,
+)
 
 
 def data_problems(spec: Spec, frames: dict[str, pd.DataFrame] | None = None) -> list[str]:
@@ -80,11 +86,20 @@ def _column_fields(a: Analysis) -> list[tuple[str, str]]:
     if a.by:
         out.append((a.by, "by"))
     out += [(f.variable, f"filters[{i}].variable") for i, f in enumerate(a.filters)]
+    if a.weights is not None:
+        out.append((a.weights.column, "weights.column"))
+    if a.cluster:
+        out.append((a.cluster, "cluster"))
     return out
 
 
 def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
     problems: list[str] = []
+    if (a.weights is not None and a.weights.column in df) or (a.cluster and a.cluster in df):
+        try:  # bad weights or clusters stop the analysis: a problem, not a note
+            design_weights(filtered(df, a)[0], a)
+        except DataError as exc:
+            problems.append(str(exc))
     numeric_roles = [(a.exposure, "exposure")]
     o = a.outcome
     f = o.followup

@@ -147,12 +147,8 @@ class Sample:
         return len(self.frame)
 
 
-def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
-    """Apply filters, then drop incomplete rows, then rows with impossible follow-up.
-
-    Every step's dropped-row count is kept, in order, under a reason that names the column.
-    """
-    n0 = len(df)
+def filtered(df: pd.DataFrame, a: Analysis) -> tuple[pd.DataFrame, list[tuple[str, int]]]:
+    """The rows the analysis' filters keep, and each filter's dropped-row count."""
     dropped: list[tuple[str, int]] = []
     cur = df
     for f in a.filters:
@@ -166,8 +162,20 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
             keep &= s.isin(list(f.values)) | s.astype(str).isin([str(v) for v in f.values])
         dropped.append((f"filter: {f.describe()}", int((~keep).sum())))
         cur = cur[keep]
-    cols = [c for c in a.columns if c not in {f.variable for f in a.filters}
-            or c in (a.exposure, *a.adjust, *a.strata, a.by, *a.outcome.columns)]
+    return cur, dropped
+
+
+def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
+    """Apply filters, then drop incomplete rows, then rows with impossible follow-up.
+
+    Every step's dropped-row count is kept, in order, under a reason that names the column.
+    """
+    n0 = len(df)
+    cur, dropped = filtered(df, a)
+    design_cols = (a.exposure, *a.adjust, *a.strata, a.by, *a.outcome.columns)
+    checked = design_weights(cur, a)
+    cols = [c for c in a.columns if (c not in {f.variable for f in a.filters} or c in design_cols)
+            and not (c in checked and c not in design_cols)]
     for c in cols:
         miss = cur[c].isna()
         dropped.append((f"missing {c}", int(miss.sum())))
@@ -199,4 +207,47 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
         bad = out[o.persontime] <= 0
         dropped.append((f"non-positive person-time ({o.persontime} <= 0)", int(bad.sum())))
         out = out[~bad]
+    if a.cluster:
+        single_cluster(out, a)
     return Sample(frame=out.reset_index(drop=True), n_input=n0, dropped=tuple(dropped))
+
+
+def design_weights(df: pd.DataFrame, a: Analysis) -> tuple[str, ...]:
+    """Check the weight and cluster columns before any row is dropped: a weight must be a
+    positive finite number and no cluster may be missing (dropping such rows would silently
+    change the population the weights describe). Returns the columns checked."""
+    checked: list[str] = []
+    if a.weights is not None:
+        col = a.weights.column
+        role = f"weights, {a.weights.kind}"
+        w = coerce_numeric(df, col, role)
+        bad = {"missing": int(w.isna().sum()), "negative": int((w < 0).sum()),
+               "zero": int((w == 0).sum()),
+               "infinite": int(np.isinf(w.to_numpy(float)).sum())}
+        found = [f"{n} {what}" for what, n in bad.items() if n]
+        if found:
+            raise DataError(f"column {col!r} ({role}) of analysis {a.name!r} has "
+                            f"{', '.join(found)} weight(s); every weight must be a positive "
+                            "number. Fix the weights in the extract, or drop those rows with a "
+                            "filter (filters: [{variable: " + col + ", min: ...}]) if they do "
+                            "not belong to the population.")
+        checked.append(col)
+    if a.cluster:
+        miss = int(df[a.cluster].isna().sum())
+        if miss:
+            raise DataError(f"column {a.cluster!r} (cluster) of analysis {a.name!r} is missing "
+                            f"in {miss} rows; every row needs its cluster (centre, family, "
+                            "person). Fill it in the extract (a row of its own can be its own "
+                            "cluster).")
+        single_cluster(df, a)
+        checked.append(a.cluster)
+    return tuple(checked)
+
+
+def single_cluster(df: pd.DataFrame, a: Analysis) -> None:
+    assert a.cluster is not None
+    if df[a.cluster].nunique() < 2:
+        raise DataError(f"column {a.cluster!r} (cluster) has a single cluster in the analysis "
+                        f"sample of {a.name!r}; a cluster-robust variance needs at least two "
+                        "(and many more for trustworthy intervals). Remove cluster: from the "
+                        "analysis or name the column that marks the clusters.")

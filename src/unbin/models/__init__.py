@@ -7,6 +7,7 @@ from collections.abc import Callable
 import numpy as np
 
 from .base import FitResult, Outcome, failed_fit
+from .robust import needs_robust, with_robust_variance
 
 EFFECT_SCALE = {
     "binary": "odds ratio",
@@ -38,11 +39,20 @@ def _fitter(family: str) -> Callable[[np.ndarray, Outcome, tuple[str, ...]], Fit
 
 
 def fit(family: str, X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
-    """Fit one model; numeric trouble is returned as a failed FitResult, never raised."""
+    """Fit one model; numeric trouble is returned as a failed FitResult, never raised.
+
+    With sampling weights or a cluster (``outcome.weight_kind``, ``outcome.cluster``) the
+    covariance is the (cluster-)robust sandwich (unbin.models.robust); ``extra["variance"]``
+    names the covariance the result carries."""
     X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
     if X.shape[1] != len(names):
         raise ValueError(f"design has {X.shape[1]} columns but {len(names)} names")
-    return _fitter(family)(X, outcome, tuple(names))
+    res = _fitter(family)(X, outcome, tuple(names))
+    if res.ok and needs_robust(outcome):
+        return with_robust_variance(res, X, outcome)
+    if res.ok and "variance" not in res.extra:
+        res.extra["variance"] = "model"
+    return res
 
 
 __all__ = ["EFFECT_SCALE", "RATIO_FAMILIES", "FitResult", "Outcome", "failed_fit", "fit"]

@@ -26,6 +26,14 @@ class Outcome:
     entry: np.ndarray | None = None
     strata: np.ndarray | None = None
     weights: np.ndarray | None = None
+    # How ``weights`` are meant: "frequency" (a row stands for that many identical rows; the
+    # model variance holds) or "sampling" (survey, inverse-probability or case-control sampling
+    # weights: the variance is the robust sandwich, unbin.models.robust).
+    weight_kind: str = "frequency"
+    # Cluster codes (centre, family, person): cluster-robust variances when given.
+    cluster: np.ndarray | None = None
+    # Count outcomes: "poisson", "quasi-poisson" (Pearson scale) or "negative-binomial" (NB2).
+    dispersion: str = "poisson"
     cache: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
@@ -44,6 +52,9 @@ class Outcome:
             pick(self.entry),
             pick(self.strata),
             pick(self.weights),
+            weight_kind=self.weight_kind,
+            cluster=pick(self.cluster),
+            dispersion=self.dispersion,
         )
 
 

@@ -21,18 +21,40 @@ def _zero_rate(eta: np.ndarray) -> str:
     return ""
 
 
+def pearson_dispersion(res: FitResult, outcome: Outcome) -> float:
+    """Pearson chi-square / residual df of a Poisson fit: sum f (y - mu)^2 / mu over
+    (sum f - p) with frequency weights (a row counts f times), over (n - p) otherwise."""
+    assert res.linear_predictor is not None
+    y = np.asarray(outcome.y, dtype=float)
+    eta = res.linear_predictor + res.extra["intercept"]
+    mu = np.exp(eta + outcome.offset) if outcome.offset is not None else np.exp(eta)
+    f = np.ones_like(y) if outcome.weights is None else np.asarray(outcome.weights, float)
+    rows = float(f.sum()) if outcome.weight_kind == "frequency" else float(y.size)
+    df_resid = max(rows - len(res.names), 1.0)
+    return float(f @ ((y - mu) ** 2 / mu) / df_resid)
+
+
 def fit_count(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
+    """Poisson (``outcome.dispersion`` "poisson"), quasi-Poisson (the Poisson estimates, the
+    covariance times the Pearson dispersion; Wedderburn 1974, McCullagh & Nelder 1989 sec. 4.5)
+    or negative binomial NB2 (unbin.models.negbin). The Pearson dispersion of the Poisson fit is
+    in ``extra["dispersion"]`` for the first two."""
+    if outcome.dispersion == "negative-binomial":
+        from .negbin import fit_negbin
+
+        return fit_negbin(X, outcome, names)
     y = outcome.y.astype(float)
     res = run_glm("count", X, names, outcome, int(y.sum()), separation_check=_zero_rate)
     if res.ok:
         # Pearson dispersion: > 1 signals overdispersion (the Poisson SEs are then too small).
-        eta = res.linear_predictor + res.extra["intercept"]
-        mu = np.exp(eta + outcome.offset) if outcome.offset is not None else np.exp(eta)
-        df_resid = max(outcome.n - len(res.names), 1)
-        disp = float(np.sum((y - mu) ** 2 / mu) / df_resid)
+        disp = pearson_dispersion(res, outcome)
         res.extra["dispersion"] = disp
-        if disp > 1.5:
+        if outcome.dispersion == "quasi-poisson":
+            res = replace(res, cov=res.cov * disp,
+                          extra={**res.extra, "variance": f"quasi-Poisson (scale {disp:.3g})"})
+        elif disp > 1.5:
             res = replace(res, warnings=(*res.warnings, (
                 f"Pearson dispersion {disp:.2f} > 1.5: the counts are overdispersed, so the "
-                "Poisson standard errors are too small.")))
+                "Poisson standard errors are too small; set outcome.overdispersion to "
+                "quasi-poisson or negative-binomial.")))
     return res

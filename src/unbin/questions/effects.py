@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ..models import EFFECT_SCALE
+from ..models.robust import variance_label
 from ..refit.analysis import Refit
 from ..refit.contrasts import contrast, with_interval
 from ..refit.interaction import LEGACY, SPLINE, level_models, level_reference
@@ -24,7 +25,7 @@ from ..spec import Spec
 FORMS = ("legacy", "linear", "spline", "fp")
 COLUMNS = ("adjustment", "form", "status", "message", "contrast_type", "contrast", "group",
            "x_value", "x_reference", "estimate", "se", "within_p10", "within_p90", "by_level",
-           "lower", "upper", "effect", "effect_lower", "effect_upper", "scale")
+           "lower", "upper", "effect", "effect_lower", "effect_upper", "scale", "variance")
 
 
 def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
@@ -44,7 +45,8 @@ def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             if f is None:
                 continue
             base = {"adjustment": coding, "form": form, "status": f.result.status,
-                    "message": f.result.message}
+                    "message": f.result.message,
+                    "variance": variance_label(f.result)}
             for g in range(len(labels)):
                 vals = r.group_values(g)
                 is_ref = g == term.reference
@@ -144,6 +146,7 @@ def _level_effects(r: Refit) -> list[dict[str, object]]:
                             spread = (float(sp[0]), float(sp[1]))
                     rows.append({
                         "adjustment": coding, "form": form, "status": status,
+                        "variance": variance_label(m.full),
                         "contrast_type": "group",
                         "contrast": (f"{labels[g]} ({where}) (reference)" if g == ref
                                      else f"{labels[g]} vs {labels[ref]} ({where})"),

@@ -8,11 +8,13 @@ import numpy as np
 import pandas as pd
 
 from ..models.discrimination import c_index
+from ..models.robust import variance_label
 from ..refit.analysis import Refit
 from ..spec import Spec
 
 COLUMNS = ("form", "detail", "adjustment", "selected", "n", "events", "n_params", "exposure_df",
-           "loglik", "lr_chi2", "aic", "bic", "c_index", "r2", "converged", "status", "message",
+           "loglik", "lr_chi2", "aic", "bic", "c_index", "r2", "variance",
+           "dispersion", "nb_alpha", "nb_alpha_se", "converged", "status", "message",
            "warnings", "exposure_basis", "adjustment_terms")
 
 
@@ -43,6 +45,10 @@ def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             "bic": res.bic if res.ok else np.nan,
             "c_index": c,
             "r2": res.extra.get("r2", np.nan),
+            "variance": variance_label(res),
+            "dispersion": res.extra.get("dispersion", np.nan),
+            "nb_alpha": res.extra.get("nb_alpha", np.nan),
+            "nb_alpha_se": res.extra.get("nb_alpha_se", np.nan),
             "converged": bool(res.converged),
             "status": res.status,
             "message": res.message,

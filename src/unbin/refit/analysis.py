@@ -116,18 +116,24 @@ class Refit:
 def build_outcome(sample: Sample, a: Analysis) -> Outcome:
     df = sample.frame
     o = a.outcome
+    # weights and clusters: every fit of the analysis carries them (unbin.models.robust)
+    w = df[a.weights.column].to_numpy(float) if a.weights is not None else None
+    kind = a.weights.kind if a.weights is not None else "frequency"
+    cl = np.asarray(pd.factorize(df[a.cluster], sort=True)[0]) if a.cluster else None
     if o.type == "binary":
-        return Outcome("binary", df[o.event].to_numpy(float))
+        return Outcome("binary", df[o.event].to_numpy(float), weights=w, weight_kind=kind, cluster=cl)
     if o.type == "continuous":
-        return Outcome("continuous", df[o.value].to_numpy(float))
+        return Outcome("continuous", df[o.value].to_numpy(float), weights=w, weight_kind=kind, cluster=cl)
     if o.type == "count":
         return Outcome("count", df[o.count].to_numpy(float),
-                       offset=np.log(df[o.persontime].to_numpy(float)))
+                       offset=np.log(df[o.persontime].to_numpy(float)),
+                       dispersion=o.count_model, weights=w, weight_kind=kind, cluster=cl)
     strata = None
     if a.strata:
         strata = df.groupby(list(a.strata), sort=True).ngroup().to_numpy()
     return Outcome("survival", df[o.event].to_numpy(float), time=df[o.time].to_numpy(float),
-                   entry=df[o.entry].to_numpy(float) if o.entry else None, strata=strata)
+                   entry=df[o.entry].to_numpy(float) if o.entry else None, strata=strata,
+                   weights=w, weight_kind=kind, cluster=cl)
 
 
 def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> tuple[Term, ...]:

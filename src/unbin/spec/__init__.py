@@ -35,6 +35,7 @@ from .model import (
     Resampling,
     Spec,
     VariableInfo,
+    Weighting,
     canonical_json,
     default_labels,
     digest,
@@ -44,7 +45,7 @@ __all__ = [
     "DEFAULT_KNOTS", "DEFAULT_SEED", "FORMS", "MAX_SPEC_DEPTH", "MAX_SPEC_NODES",
     "OPTIONAL_OUTCOME_FIELDS", "OUTCOME_FIELDS", "Analysis", "Cohort", "ContinuousOptions",
     "CutpointSearch", "Filter", "Grouping", "OutcomeSpec", "Reported", "Resampling", "Spec",
-    "VariableInfo", "canonical_json", "default_labels", "digest", "load_spec", "named_paths",
+    "VariableInfo", "Weighting", "canonical_json", "default_labels", "digest", "load_spec", "named_paths",
     "parse_spec", "read_yaml", "schema_problems", "semantic_problems", "spec_schema",
     "yaml_message",
 ]

@@ -149,6 +149,9 @@ def _outcome_problems(where: str, outcome: dict[str, Any]) -> list[str]:
     for field in sorted((set(outcome) - allowed) & known):  # unknown keys: the schema reports them
         problems.append(f"{where}.outcome.{field}: not used by a {kind} outcome (it takes "
                         f"{sorted(allowed - {'type'})}); remove it.")
+    if outcome.get("count_model", "poisson") != "poisson" and kind != "count":
+        problems.append(f"{where}.outcome.count_model: only count outcomes take a count "
+                        f"model (this outcome is {kind}); remove it.")
     return problems
 
 

@@ -31,6 +31,7 @@ from .model import (
     OutcomeSpec,
     Spec,
     VariableInfo,
+    Weighting,
     _labels_for,
 )
 
@@ -346,7 +347,7 @@ def _outcome(o: dict[str, Any]) -> OutcomeSpec:
     return OutcomeSpec(type=o["type"], event=o.get("event"), value=o.get("value"),
                        count=o.get("count"), persontime=o.get("persontime"), time=time,
                        entry=entry, horizon=float(o["horizon"]) if "horizon" in o else None,
-                       followup=followup,
+                       followup=followup, count_model=o.get("count_model", "poisson"),
                        follow_up_windows=tuple(float(c) for c in o.get("follow_up_windows", [])))
 
 
@@ -365,6 +366,10 @@ def _derived_variables(analyses: list[Analysis]) -> dict[str, VariableInfo]:
             out[TIME_ON_STUDY] = VariableInfo("Time on study", f.unit)
             out[TIME_AT_ENTRY] = VariableInfo("Time on study at entry", f.unit)
     return out
+
+
+def _weighting(raw: Any) -> Weighting | None:
+    return None if raw is None else Weighting(str(raw["column"]), str(raw["kind"]))
 
 
 def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
@@ -389,6 +394,9 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
             continuous=_continuous(a.get("continuous", {}), study_cont),
             risk_thresholds=(tuple(float(t) for t in a["risk_thresholds"])
                              if "risk_thresholds" in a else None),
+            # the analysis' own weights/cluster (null switches the study's off), else the study's
+            weights=_weighting(a["weights"] if "weights" in a else raw.get("weights")),
+            cluster=a["cluster"] if "cluster" in a else raw.get("cluster"),
         ))
     cohorts = tuple(model.Cohort(c["name"], (base / c["path"]).resolve(), c["path"],
                            _groupings(c.get("groupings") or {}),

@@ -101,6 +101,8 @@ class OutcomeSpec:
     time: str | None = None
     entry: str | None = None
     horizon: float | None = None
+    # count outcomes: poisson, quasi-poisson (Pearson scale) or negative-binomial (NB2)
+    count_model: str = "poisson"
     follow_up_windows: tuple[float, ...] = ()  # cuts of follow-up time (survival): windows
     followup: FollowUp | None = None
 
@@ -115,6 +117,16 @@ class OutcomeSpec:
             return tuple(c for c in (self.event, *self.followup.columns) if c)
         cols = [self.event, self.value, self.count, self.persontime, self.time, self.entry]
         return tuple(c for c in cols if c)
+
+
+@dataclass(frozen=True)
+class Weighting:
+    """A weight column and what its weights mean: ``frequency`` (a row stands for that many
+    identical rows; model-based variances) or ``sampling`` (survey, inverse-probability or
+    case-control sampling weights; robust sandwich variances)."""
+
+    column: str
+    kind: str
 
 
 @dataclass(frozen=True)
@@ -184,6 +196,16 @@ class Analysis:
     # Decision thresholds on this analysis' risk scale (probability; rate per person-time unit
     # for count outcomes; the mean for continuous ones); None: the study's risk_thresholds.
     risk_thresholds: tuple[float, ...] | None = None
+    # Row weights and the cluster column (centre, family, person): the analysis' own, else the
+    # study's; a cluster gives cluster-robust variances.
+    weights: Weighting | None = None
+    cluster: str | None = None
+
+    @property
+    def robust(self) -> bool:
+        """Robust (sandwich) variances: sampling weights or a cluster."""
+        return self.cluster is not None or (self.weights is not None
+                                            and self.weights.kind == "sampling")
 
     @property
     def family(self) -> str:
@@ -196,6 +218,10 @@ class Analysis:
         if self.by:
             cols.append(self.by)
         cols += [f.variable for f in self.filters]
+        if self.weights is not None:
+            cols.append(self.weights.column)
+        if self.cluster:
+            cols.append(self.cluster)
         return tuple(dict.fromkeys(cols))
 
 
@@ -325,8 +351,8 @@ class Spec:
             "risk_thresholds": self.raw.get("risk_thresholds", []),
             "disclosure": self.raw.get("disclosure", {}),
             "seed": self.seed,
-            **{k: self.raw[k] for k in ("resampling", "cutpoint_search", "horizon")
-               if k in self.raw},
+            **{k: self.raw[k] for k in ("resampling", "cutpoint_search", "horizon", "weights",
+                                        "cluster") if k in self.raw},
         }
 
 
