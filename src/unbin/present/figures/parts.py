@@ -95,3 +95,15 @@ def effect_panel(ax: Any, scale: str, ylim: tuple[float, float],
     effect_axis(ax, scale, *ylim)
     ax.set_xlim(*xlim)
     value_ticks(ax.xaxis)
+
+
+def row_axis(ax: Any, n: int, labels: Sequence[str] | None = None, low: float = -0.7,
+             high: float = 0.3) -> None:
+    """A chart with one row per item (top first): vertical grid lines only, row labels without
+    tick marks, rows from ``low`` to ``n - high``."""
+    ax.grid(True, axis="x")
+    ax.grid(False, axis="y")
+    ax.tick_params(axis="y", length=0)
+    ax.set_ylim(low, n - high)
+    if labels is not None:
+        ax.set_yticks(list(range(n))[::-1], list(labels))
