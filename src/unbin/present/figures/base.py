@@ -8,7 +8,7 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import pandas as pd
 
@@ -147,6 +147,26 @@ class Context:
 
 
 DrawFn = Callable[[Context, str | None, str | None], Drawn | None]
+
+
+T = TypeVar("T")
+
+
+def per_analysis(table: str, select: Callable[[pd.DataFrame], T | None]) -> Callable[
+        [Callable[[Context, T, str, str], Drawn | None]], DrawFn]:
+    """A per-(cohort, analysis) kind from its two halves: ``select`` turns the table's rows of
+    one (cohort, analysis) into plain data (None: nothing to draw), the decorated function draws
+    that data."""
+    def wrap(render: Callable[[Context, T, str, str], Drawn | None]) -> DrawFn:
+        def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
+            assert cohort is not None and analysis is not None
+            sel = select(ctx.rows(table, cohort, analysis))
+            return None if sel is None else render(ctx, sel, cohort, analysis)
+
+        draw.__doc__ = render.__doc__
+        return draw
+
+    return wrap
 
 
 @dataclass(frozen=True)

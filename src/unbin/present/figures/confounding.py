@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ...refit.contrasts import Z95
-from .base import Context, Drawn, finite
+from .base import Context, Drawn, finite, per_analysis
 from .parts import effect_text, row_axis
 from .style import (
     LEGACY,
@@ -168,11 +168,8 @@ def _footnote(sel: ConfoundingRows) -> str:
             "scale, with its bootstrap interval.")
 
 
-def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert cohort is not None and analysis is not None
-    sel = select_confounding(ctx.rows("confounding", cohort, analysis))
-    if sel is None:
-        return None
+@per_analysis("confounding", select_confounding)
+def draw(ctx: Context, sel: ConfoundingRows, cohort: str, analysis: str) -> Drawn | None:
     nrows = max(len(p.rows) for p in sel.panels)
     fig_, fig = new_figure(4.4 * len(sel.panels) + 1.4, 2.2 + 0.42 * nrows, _footnote(sel))
     same_rows = len({tuple(r[0] for r in p.rows) for p in sel.panels}) == 1

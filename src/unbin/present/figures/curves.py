@@ -16,7 +16,7 @@ import pandas as pd
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from .base import Context, Drawn, Exposure
+from .base import Context, Drawn, Exposure, per_analysis
 from .parts import (
     draw_curve,
     draw_steps,
@@ -79,7 +79,7 @@ def usable_rows(cur: pd.DataFrame) -> pd.DataFrame:
     if "status" in cur:
         cur = cur[cur["status"] == "ok"]
     if "in_range" in cur:
-        cur = cur[cur["in_range"].fillna(True).astype(bool)]
+        cur = cur[cur["in_range"].astype("boolean").fillna(True).astype(bool)]
     return cur[np.isfinite(cur["effect"].astype(float))]
 
 
@@ -136,20 +136,37 @@ def rug_bars(density: pd.DataFrame) -> tuple[pd.DataFrame, int]:
 
 def draw_rug(ax: Any, density: pd.DataFrame, xlim: tuple[float, float],
              label: bool = True) -> int:
-    """Bars of the exposure's binned counts on a count axis (0 and the largest count shown);
-    suppressed bins (small counts) are not drawn. Returns the number of bins hidden."""
+    """Bars of the exposure's binned counts on a count axis (0 and the largest count shown, on
+    the first panel only); suppressed bins (small counts) and empty ones are not drawn. Adjacent
+    bins are drawn as one shape (a tenth of the bytes of one shape per bar). Returns the
+    number of bins hidden."""
     bars, hidden = rug_bars(density)
-    ax.bar(bars["left"], bars["count"], width=bars["width"], align="edge", color=RUG, lw=0)
+    for run in _runs(bars):
+        edges = np.append(run["left"].to_numpy(float),
+                          float(run["left"].iloc[-1] + run["width"].iloc[-1]))
+        ax.stairs(run["count"].to_numpy(float), edges, fill=True, color=RUG, lw=0)
     ax.set_xlim(*xlim)
     top = float(bars["count"].max()) if len(bars) else 0.0
-    ax.set_yticks([0, top] if top > 0 else [0], ["0", f"{top:,.0f}"] if top > 0 else ["0"])
     if top > 0:
         ax.set_ylim(0, top * 1.08)
-    ax.tick_params(axis="y", labelsize=7, labelleft=label)
-    ax.grid(False)
     if label:
+        ax.set_yticks([0, top] if top > 0 else [0], ["0", f"{top:,.0f}"] if top > 0 else ["0"])
+        ax.tick_params(axis="y", labelsize=7)
         ax.set_ylabel(RUG_LABEL, rotation=0, ha="right", va="center", fontsize=7.5)
+    else:
+        ax.set_yticks([])
+    ax.grid(False)
     return hidden
+
+
+def _runs(bars: pd.DataFrame) -> list[pd.DataFrame]:
+    """The bars split where one bar's right edge is not the next one's left edge."""
+    if bars.empty:
+        return []
+    right = (bars["left"] + bars["width"]).to_numpy(float)
+    gap = ~np.isclose(bars["left"].to_numpy(float)[1:], right[:-1])
+    starts = [0, *(np.flatnonzero(gap) + 1), len(bars)]
+    return [bars.iloc[a:b] for a, b in zip(starts[:-1], starts[1:], strict=True)]
 
 
 def form_title(form: str, detail: str) -> str:
@@ -206,11 +223,8 @@ def curves_alt(sel: CurveRows, steps: list[dict[str, float]], ex: Exposure, outc
             f"{'; '.join(step(s) for s in steps)}. Curves: {curves}.{strip}")
 
 
-def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert cohort is not None and analysis is not None
-    sel = select_curves(ctx.rows("curves", cohort, analysis))
-    if sel is None:
-        return None
+@per_analysis("curves", select_curves)
+def draw(ctx: Context, sel: CurveRows, cohort: str, analysis: str) -> Drawn | None:
     ex = ctx.exposure(analysis)
     outcome = ctx.outcome_label(analysis)
     steps = legacy_steps(sel.form("legacy"), ctx.legacy_cuts(cohort, analysis))

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .base import Context, Drawn, finite
+from .base import Context, Drawn, finite, per_analysis
 from .parts import row_axis, value_ticks
 from .style import GRID, INK, LEGACY, MUTED, NEUTRAL, SPLINE, fmt_number, new_figure, title
 
@@ -33,14 +33,15 @@ def _p(v: object) -> str:
 # --------------------------------------------------------------------------- cut positions
 
 
-def select_positions(df: pd.DataFrame) -> dict[str, pd.DataFrame]:
-    """Per grouped variable (the exposure's first), its cut rows with a percentile, by cut."""
+def select_positions(df: pd.DataFrame) -> dict[str, pd.DataFrame] | None:
+    """Per grouped variable (the exposure's first), its cut rows with a percentile, by cut;
+    None when no cut has a percentile."""
     if df.empty or "row_type" not in df:
-        return {}
+        return None
     cuts = df[(df["row_type"] == "cut") & df["percentile"].notna()]
     variables = dict.fromkeys([*cuts.loc[cuts["role"] == "exposure", "variable"],
                                *cuts["variable"]])
-    return {str(v): cuts[cuts["variable"] == v].sort_values("cut") for v in variables}
+    return {str(v): cuts[cuts["variable"] == v].sort_values("cut") for v in variables} or None
 
 
 def positions_alt(rows: dict[str, pd.DataFrame], label: Any) -> str:
@@ -51,11 +52,8 @@ def positions_alt(rows: dict[str, pd.DataFrame], label: Any) -> str:
             "median. " + "; ".join(parts) + ".")
 
 
-def draw_positions(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert cohort is not None and analysis is not None
-    rows = select_positions(ctx.rows("cutpoints", cohort, analysis))
-    if not rows:
-        return None
+@per_analysis("cutpoints", select_positions)
+def draw_positions(ctx: Context, rows: dict[str, pd.DataFrame], cohort: str, analysis: str) -> Drawn | None:
     footnote = ("Each cut at its percentile in the analysis sample (the share of rows below it); "
                 "the sample median is at 50. Ember: the exposure's cuts; grey: cuts of grouped "
                 "adjustment variables.")
@@ -181,11 +179,8 @@ def profile_alt(sel: ProfileRows, label: str) -> str:
                f"{fmt_number(sel.boot[4])}" if sel.boot is not None else "") + ".")
 
 
-def draw_profile(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert cohort is not None and analysis is not None
-    sel = select_profile(ctx.rows("cutpoints", cohort, analysis))
-    if sel is None:
-        return None
+@per_analysis("cutpoints", select_profile)
+def draw_profile(ctx: Context, sel: ProfileRows, cohort: str, analysis: str) -> Drawn | None:
     footnote = (f"Statistic: {sel.search.get('statistic_name') or 'split statistic'}, over every "
                 "candidate cut in the search range. Dashed: the naive 5% level of one test "
                 "(χ², 1 df), which the maximum of many tests overstates.\n"

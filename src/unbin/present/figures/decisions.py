@@ -17,7 +17,7 @@ import pandas as pd
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter
 
-from .base import Context, Drawn
+from .base import Context, Drawn, per_analysis
 from .parts import row_axis, value_ticks
 from .style import (
     FORM_COLOURS,
@@ -150,11 +150,8 @@ def thresholds_alt(sel: ThresholdRows, exposure: str, cuts: list[float], unit: s
             "Crossing at the middle risk profile: " + ("; ".join(parts) or "none") + ".")
 
 
-def draw_thresholds(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert cohort is not None and analysis is not None
-    sel = select_thresholds(ctx.rows("thresholds", cohort, analysis))
-    if sel is None:
-        return None
+@per_analysis("thresholds", select_thresholds)
+def draw_thresholds(ctx: Context, sel: ThresholdRows, cohort: str, analysis: str) -> Drawn | None:
     ex = ctx.exposure(analysis)
     risk = ctx.risk_label(analysis)
     cuts = ctx.legacy_cuts(cohort, analysis)
@@ -275,7 +272,7 @@ def draw_rules(ax: Any, sel: NetBenefitRows) -> list[Line2D]:
         style = rule_style(rule, n_legacy)
         n_legacy += rule.kind == "legacy"
         c = rule.curve[(rule.curve["threshold"] >= lo) & (rule.curve["threshold"] <= hi)]
-        every = max(1, len(c) // 6)
+        every = max(1, len(c) // 5)
         (line,) = ax.plot(c["threshold"], c["net_benefit"], zorder=3, color=style["color"],
                           lw=style["lw"], ls=style["ls"], marker=style["marker"], ms=5,
                           mfc=style.get("mfc") or style["color"], mec=style["color"],

@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .base import Context, Drawn, Exposure, finite
+from .base import Context, Drawn, Exposure, finite, per_analysis
 from .curves import ADJUSTMENT_TEXT, usable_rows
 from .parts import draw_curve, effect_limits, effect_panel, effect_text, mark_reference, padded
 from .style import INK, SPLINE, effect_label, fmt_number, new_figure, title
@@ -83,11 +83,8 @@ def levels_alt(sel: LevelRows, ex: Exposure, outcome: str, by_label: str, test: 
             + "; ".join(parts) + ".")
 
 
-def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert cohort is not None and analysis is not None
-    sel = select_levels(ctx.rows("curves", cohort, analysis))
-    if sel is None:
-        return None
+@per_analysis("curves", select_levels)
+def draw(ctx: Context, sel: LevelRows, cohort: str, analysis: str) -> Drawn | None:
     ex = ctx.exposure(analysis)
     by = ctx.spec.analysis(analysis).by or ""
     by_info = ctx.spec.variables.get(by)

@@ -92,7 +92,7 @@ def select_pooled(pc: pd.DataFrame, curves: pd.DataFrame, analysis: str) -> Pool
     per = curves[(curves["analysis"] == analysis) & (curves["form"] == form)
                  & (curves["adjustment"] == adj)] if len(curves) else curves
     if "in_range" in per:
-        per = per[per["in_range"].fillna(True).astype(bool)]
+        per = per[per["in_range"].astype("boolean").fillna(True).astype(bool)]
     return PooledRows(form, adj, method, curve.reset_index(drop=True),
                       sel[sel["form"] == form].sort_values("x")[["x", "k"]],
                       pooled_legacy(sel[sel["form"] == "legacy"], scale),

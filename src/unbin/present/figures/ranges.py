@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.lines import Line2D
 
-from .base import Context, Drawn
+from .base import Context, Drawn, per_analysis
 from .style import (
     FORM_COLOURS,
     FORM_MARKERS,
@@ -168,11 +168,8 @@ def ranges_alt(sel: RangeRows, short: str) -> str:
             + (f" {sel.skipped} legacy estimate(s) could not be made." if sel.skipped else ""))
 
 
-def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert cohort is not None and analysis is not None
-    sel = select_ranges(ctx.rows("ranges", cohort, analysis))
-    if sel is None:
-        return None
+@per_analysis("ranges", select_ranges)
+def draw(ctx: Context, sel: RangeRows, cohort: str, analysis: str) -> Drawn | None:
     ex = ctx.exposure(analysis)
     footnote = ("Contrasts read group vs reference (legacy reference group second). Each point: "
                 "the estimate in the trimmed sample relative to the same model's "
