@@ -21,6 +21,7 @@ from unbin.present.figures import curves as cv
 from unbin.present.figures import cutpoints as cp
 from unbin.present.figures import decisions as dc
 from unbin.present.figures import information as inf
+from unbin.present.figures import levels as lv
 from unbin.present.figures import ranges as rg
 from unbin.present.figures import style as st
 from unbin.present.figures.curves import draw_rug, legacy_steps
@@ -487,3 +488,27 @@ def test_cut_profile_selection_and_alt() -> None:
     pos = cp.select_positions(tiny_tables()["cutpoints"])
     assert pos is not None and list(pos) == ["x"]
     assert "2 at the 41th percentile" in cp.positions_alt(pos, str)
+
+
+def test_level_selection_and_alt_state_each_level_and_the_interaction_test() -> None:
+    x = np.linspace(1.0, 3.0, 5)
+    rows = []
+    for level, slope, ref in (("young", 0.2, 2.0), ("old", 0.5, 2.5)):
+        eff = np.exp(slope * (x - ref))
+        rows.append(pd.DataFrame({"form": lv.FORM, "by_level": level, "adjustment": "continuous",
+                                  "x": x, "effect": eff, "effect_lower": eff / 1.2,
+                                  "effect_upper": eff * 1.2, "scale": "odds ratio",
+                                  "x_reference": ref, "status": "ok", "in_range": True}))
+    plain = tiny_curves().assign(by_level=None, status="ok", in_range=True)
+    sel = lv.select_levels(pd.concat([plain, *rows], ignore_index=True))
+    assert sel is not None and sel.levels == ["young", "old"] and sel.adjustment == "continuous"
+    info = pd.DataFrame({"adjustment": ["continuous"], "interaction_lr": [12.34],
+                         "interaction_df": [3], "interaction_p": [0.0063]})
+    test = lv.interaction_text(info, "continuous")
+    assert test == "interaction LR χ² 12.3 on 3 df, p = 0.0063"
+    alt = lv.levels_alt(sel, Context({}, tiny_spec()).exposure("a"), "d", "age group", test)
+    # exp(0.5 * (1 - 2.5)) and exp(0.5 * (3 - 2.5)), by hand
+    assert (f"old (reference 2.5 mg): from {st.fmt_ratio(np.exp(-0.75))} at 1 mg to "
+            f"{st.fmt_ratio(np.exp(0.25))} at 3 mg") in alt
+    assert "in 2 panels, one per level of age group" in alt
+    assert lv.select_levels(plain) is None
