@@ -444,6 +444,8 @@ def test_information_selection_joins_the_bootstrap_interval() -> None:
     alt = inf.information_alt(rows, ["a"], inf.lr_forms(rows))
     assert "a: groups keep 62% of the information, 95% bootstrap interval 51% to 70%" in alt
     assert "LR χ² legacy groups 31.0, linear 12.0, spline 50.0" in alt
+    older = inf.select_information(info.drop(columns="adjustment").iloc[:1], boot, jobs)
+    assert older[["kept_lower", "kept_upper"]].iloc[0].tolist() == [0.51, 0.7]
     failed = inf.select_information(info, boot.assign(status="failed"), jobs)
     assert failed["kept_lower"].isna().all()
     assert "bootstrap" not in inf.information_alt(failed, ["a"], inf.lr_forms(failed))
@@ -468,6 +470,13 @@ def test_decision_curves_span_where_the_risk_rules_differ() -> None:
     styles = [dc.rule_style(r, 0) for r in sel.rules]
     assert len({(s["ls"] if isinstance(s["ls"], str) else str(s["ls"]), s["marker"])
                 for s in styles}) == len(styles)   # told apart without colour
+
+
+@pytest.mark.parametrize(("thr", "percent", "text"), [
+    (0.07, True, "7%"), (0.1, True, "10%"), (0.025, True, "2.5%"), (140.0, False, "140"),
+    (1.5, False, "1.5")])
+def test_threshold_text(thr: float, percent: bool, text: str) -> None:
+    assert dc.threshold_text(thr, percent) == text
 
 
 def test_threshold_selection_and_alt_state_the_middle_crossing() -> None:

@@ -60,8 +60,11 @@ def probability_scale(risk_label: str) -> bool:
 
 
 def threshold_text(thr: float, percent: bool) -> str:
-    return f"{thr:.0%}" if percent and round(thr * 100) == thr * 100 else (
-        f"{thr:.1%}" if percent else f"{thr:g}")
+    """A threshold as its axis reads it: a probability in percent (0.07 -> '7%', 0.025 ->
+    '2.5%'), any other risk as a plain number."""
+    if not percent:
+        return f"{thr:g}"
+    return f"{thr:.0%}" if abs(thr * 100 - round(thr * 100)) < 1e-9 else f"{thr:.1%}"
 
 
 # --------------------------------------------------------------------------- implied thresholds

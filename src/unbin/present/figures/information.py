@@ -44,20 +44,25 @@ def select_information(info: pd.DataFrame, boot: pd.DataFrame,
     """One row per (cohort, analysis) with the legacy adjustment, in spec order: the information
     table's columns, plus ``kept_lower``, ``kept_upper``, ``level``, ``replicates`` and
     ``replicates_used`` from the bootstrap table's rows with status 'ok' (NaN without one)."""
-    if info.empty or "adjustment" not in info:
-        return info
-    info = info[info["adjustment"] == ADJUSTMENT]
-    order = {key: i for i, key in enumerate(jobs)}
-    keys = list(zip(info["cohort"], info["analysis"], strict=True))
-    info = info.assign(_order=[order.get(k, len(order)) for k in keys])
-    info = info.sort_values("_order").drop(columns="_order").reset_index(drop=True)
     extra = ["kept_lower", "kept_upper", "level", "replicates", "replicates_used"]
+    if info.empty:
+        return info
+    if "adjustment" in info:
+        info = info[info["adjustment"] == ADJUSTMENT]
+    order = {key: i for i, key in enumerate(jobs)}
+    jobs_of = list(zip(info["cohort"], info["analysis"], strict=True))
+    info = info.assign(_order=[order.get(k, len(order)) for k in jobs_of])
+    info = info.sort_values("_order").drop(columns="_order").reset_index(drop=True)
     if boot.empty or not set(KEYS) <= set(boot.columns) or "info_kept_lower" not in boot:
         return info.assign(**{c: np.nan for c in extra})
     ok = boot[boot["status"] == "ok"] if "status" in boot else boot
     ok = ok.rename(columns={"info_kept_lower": "kept_lower", "info_kept_upper": "kept_upper"})
-    ok = ok.drop_duplicates(KEYS)[[*KEYS, *[c for c in extra if c in ok]]]
-    merged = info.merge(ok, on=KEYS, how="left")
+    if "adjustment" in info:
+        keys = KEYS
+    else:  # an information table from before adjustment codings: its rows are the legacy one
+        keys, ok = KEYS[:2], ok[ok["adjustment"] == ADJUSTMENT]
+    ok = ok.drop_duplicates(keys)[[*keys, *[c for c in extra if c in ok]]]
+    merged = info.merge(ok, on=keys, how="left")
     return merged.assign(**{c: np.nan for c in extra if c not in merged})
 
 
