@@ -184,6 +184,7 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
             "bmi": {"label": "Body-mass index", "unit": "kg/m²"},
             "urate": {"label": "Serum urate", "unit": "mg/dL"},
             "age": {"label": "Age", "unit": "years"},
+            "followup_years": {"unit": "years"},  # the horizon reads "within 5 years"
             "centre": {"type": "categorical"},
         },
         "groupings": {

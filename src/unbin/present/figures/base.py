@@ -8,7 +8,7 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import pandas as pd
 
@@ -36,6 +36,16 @@ class FigureFile:
     png: Path | None
     svg: Path | None
     problem: str = ""    # why the figure could not be drawn (png and svg are then None)
+
+
+@dataclass(frozen=True)
+class Exposure:
+    """One analysis' exposure as the figures name it."""
+
+    name: str       # the column
+    label: str      # label with its unit in parentheses ('Serum sodium (mmol/L)')
+    short: str      # label alone ('Serum sodium')
+    unit: str       # ' mmol/L' (with its leading space) or ''
 
 
 @dataclass(frozen=True)
@@ -93,6 +103,39 @@ class Context:
         g = self.spec.groupings.get(a.exposure)
         return [float(c) for c in g.cuts] if g is not None and g.cuts else []
 
+    def exposure(self, analysis: str) -> Exposure:
+        """How the figures name one analysis' exposure."""
+        a = self.spec.analysis(analysis)
+        info = self.spec.variables.get(a.exposure)
+        return Exposure(a.exposure, self.spec.label(a.exposure),
+                        info.label if info and info.label else a.exposure,
+                        f" {info.unit}" if info and info.unit else "")
+
+    def risk_label(self, analysis: str) -> str:
+        """The absolute-risk scale of one analysis in words, horizon included: 'Risk of died
+        within 5 years' (survival), 'Risk of readmit30' (binary), 'Expected visits per
+        person_years' (count), 'Mean sbp' (continuous)."""
+        o = self.spec.analysis(analysis).outcome
+        if o.type == "survival":
+            h = o.horizon if o.horizon is not None else self.spec.horizon
+            if h is None:
+                return f"Risk of {self.spec.label(o.event or '')} (no horizon given)"
+            event = self.spec.label(o.event or "")
+            info = self.spec.variables.get(o.time or "")
+            if info and info.unit:
+                return f"Risk of {event} within {float(h):g} {info.unit}"
+            return f"Risk of {event} by {self.spec.label(o.time or '')} = {float(h):g}"
+        if o.type == "binary":
+            return f"Risk of {self.spec.label(o.event or '')}"
+        if o.type == "count":
+            return (f"Expected {self.spec.label(o.count or '')} per "
+                    f"{self.spec.label(o.persontime or '')}")
+        return f"Mean {self.spec.label(o.value or '')}"
+
+    def suffix(self, cohort: str | None) -> str:
+        """' — cohort' after a title when the study has several cohorts."""
+        return "" if cohort is None or len(self.spec.cohorts) == 1 else f" — {cohort}"
+
     def outcome_label(self, analysis: str) -> str:
         o = self.spec.analysis(analysis).outcome
         var = o.value or o.event or o.count or o.time or ""
@@ -104,6 +147,26 @@ class Context:
 
 
 DrawFn = Callable[[Context, str | None, str | None], Drawn | None]
+
+
+T = TypeVar("T")
+
+
+def per_analysis(table: str, select: Callable[[pd.DataFrame], T | None]) -> Callable[
+        [Callable[[Context, T, str, str], Drawn | None]], DrawFn]:
+    """A per-(cohort, analysis) kind from its two halves: ``select`` turns the table's rows of
+    one (cohort, analysis) into plain data (None: nothing to draw), the decorated function draws
+    that data."""
+    def wrap(render: Callable[[Context, T, str, str], Drawn | None]) -> DrawFn:
+        def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
+            assert cohort is not None and analysis is not None
+            sel = select(ctx.rows(table, cohort, analysis))
+            return None if sel is None else render(ctx, sel, cohort, analysis)
+
+        draw.__doc__ = render.__doc__
+        return draw
+
+    return wrap
 
 
 @dataclass(frozen=True)

@@ -1,34 +1,42 @@
 """The exposure's effect curve beside the legacy step function: one panel per continuous form
 (spline, fractional polynomial, linear), each over the same legacy steps, on a shared effect
-axis (log scale for ratios), with the exposure's binned distribution as a rug underneath."""
+axis (log scale for ratios), with the exposure's binned distribution as a counted strip
+underneath.
+
+Three parts: row selection (``select_curves``, ``legacy_steps``: tables to plain data), drawing
+(``draw_panel``, ``draw_rug``) and the alt text (``curves_alt``); ``draw`` joins them."""
 
 from __future__ import annotations
 
-import math
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
-from matplotlib.ticker import FuncFormatter, MaxNLocator
 
-from .base import Context, Drawn
+from .base import Context, Drawn, Exposure, per_analysis
+from .parts import (
+    draw_curve,
+    draw_steps,
+    effect_limits,
+    effect_panel,
+    effect_text,
+    mark_reference,
+    padded,
+    reference_handle,
+    steps_handle,
+    value_ticks,
+)
 from .style import (
     BAND_ALPHA,
     FORM_COLOURS,
     FORM_LINES,
     FORM_NAMES,
-    INK,
-    LEGACY,
-    LEGACY_HATCH,
     RUG,
-    clipped_span,
-    effect_axis,
     effect_label,
     fmt_number,
-    fmt_ratio,
-    is_ratio,
     new_figure,
     title,
 )
@@ -38,6 +46,21 @@ ADJUSTMENT_ORDER = ("legacy", "continuous", "none")
 ADJUSTMENT_TEXT = {"legacy": "adjusted as in the legacy analysis (grouped covariates)",
                    "continuous": "adjusted with continuous covariates",
                    "none": "unadjusted"}
+RUG_LABEL = "rows\nper bin"
+
+
+@dataclass(frozen=True)
+class CurveRows:
+    """The curves one figure draws: one adjustment coding, its continuous forms and legacy rows."""
+
+    adjustment: str
+    forms: list[str]
+    rows: pd.DataFrame       # every drawn row of the coding (continuous forms and legacy)
+    scale: str
+    x_reference: float
+
+    def form(self, form: str) -> pd.DataFrame:
+        return self.rows[self.rows["form"] == form].sort_values("x")
 
 
 def pick_adjustment(curves: pd.DataFrame) -> str | None:
@@ -48,6 +71,32 @@ def pick_adjustment(curves: pd.DataFrame) -> str | None:
         if c["form"].isin(PANEL_FORMS).any():
             return adj
     return None
+
+
+def usable_rows(cur: pd.DataFrame) -> pd.DataFrame:
+    """Rows fitted without trouble, with a finite effect, inside the cohort's own 1st-99th
+    percentiles (on a grid common to several cohorts)."""
+    if "status" in cur:
+        cur = cur[cur["status"] == "ok"]
+    if "in_range" in cur:
+        cur = cur[cur["in_range"].astype("boolean").fillna(True).astype(bool)]
+    return cur[np.isfinite(cur["effect"].astype(float))]
+
+
+def select_curves(curves: pd.DataFrame) -> CurveRows | None:
+    """The rows of the curves figure from one analysis' curves table; None when no continuous
+    form has a usable row."""
+    cur = usable_rows(curves) if len(curves) else curves
+    if cur.empty:
+        return None
+    adj = pick_adjustment(cur)
+    if adj is None:
+        return None
+    c = cur[cur["adjustment"] == adj]
+    forms = [f for f in PANEL_FORMS if (c["form"] == f).any()]
+    c = c[c["form"].isin([*forms, "legacy"])]
+    return CurveRows(adj, forms, c.reset_index(drop=True), str(c["scale"].iloc[0]),
+                     float(c["x_reference"].iloc[0]))
 
 
 def legacy_steps(legacy: pd.DataFrame, cuts: list[float]) -> list[dict[str, float]]:
@@ -71,150 +120,157 @@ def legacy_steps(legacy: pd.DataFrame, cuts: list[float]) -> list[dict[str, floa
              "lower": float(lo[s]), "upper": float(hi[s])} for j, s in enumerate(starts)]
 
 
-def draw_rug(ax: Any, density: pd.DataFrame, xlim: tuple[float, float]) -> int:
-    """Bars of the exposure's binned counts; suppressed bins (small counts) are not drawn.
-    Returns the number of bins hidden."""
-    hidden = 0
-    if len(density):
-        sup = density["suppressed"].fillna(False).astype(bool).to_numpy()
-        counts = pd.to_numeric(density["count"], errors="coerce").to_numpy(float)
-        show = ~sup & np.isfinite(counts) & (counts > 0)
-        hidden = int(sup.sum())
-        left = density["bin_left"].to_numpy(float)[show]
-        width = (density["bin_right"].to_numpy(float) - density["bin_left"].to_numpy(float))[show]
-        ax.bar(left, counts[show], width=width, align="edge", color=RUG, lw=0)
+def rug_bars(density: pd.DataFrame) -> tuple[pd.DataFrame, int]:
+    """The bins a distribution strip draws (left, width, count; suppressed and empty bins left
+    out) and how many bins the density table suppressed (small cells)."""
+    if density.empty:
+        return pd.DataFrame({"left": [], "width": [], "count": []}), 0
+    sup = density["suppressed"].fillna(False).astype(bool).to_numpy()
+    counts = pd.to_numeric(density["count"], errors="coerce").to_numpy(float)
+    show = ~sup & np.isfinite(counts) & (counts > 0)
+    left = density["bin_left"].to_numpy(float)
+    width = density["bin_right"].to_numpy(float) - left
+    return (pd.DataFrame({"left": left[show], "width": width[show], "count": counts[show]}),
+            int(sup.sum()))
+
+
+def draw_rug(ax: Any, density: pd.DataFrame, xlim: tuple[float, float],
+             label: bool = True) -> int:
+    """Bars of the exposure's binned counts on a count axis (0 and the largest count shown, on
+    the first panel only); suppressed bins (small counts) and empty ones are not drawn. Adjacent
+    bins are drawn as one shape (a tenth of the bytes of one shape per bar). Returns the
+    number of bins hidden."""
+    bars, hidden = rug_bars(density)
+    for run in _runs(bars):
+        edges = np.append(run["left"].to_numpy(float),
+                          float(run["left"].iloc[-1] + run["width"].iloc[-1]))
+        ax.stairs(run["count"].to_numpy(float), edges, fill=True, color=RUG, lw=0)
     ax.set_xlim(*xlim)
-    ax.set_yticks([])
+    top = float(bars["count"].max()) if len(bars) else 0.0
+    if top > 0:
+        ax.set_ylim(0, top * 1.08)
+    if label:
+        ax.set_yticks([0, top] if top > 0 else [0], ["0", f"{top:,.0f}"] if top > 0 else ["0"])
+        ax.tick_params(axis="y", labelsize=7)
+        ax.set_ylabel(RUG_LABEL, rotation=0, ha="right", va="center", fontsize=7.5)
+    else:
+        ax.set_yticks([])
     ax.grid(False)
-    ax.spines["left"].set_visible(False)
     return hidden
 
 
-def _describe_curve(c: pd.DataFrame, scale: str, unit: str) -> str:
-    ratio = is_ratio(scale)
-    f = fmt_ratio if ratio else (lambda v: fmt_number(v, 2))
+def _runs(bars: pd.DataFrame) -> list[pd.DataFrame]:
+    """The bars split where one bar's right edge is not the next one's left edge."""
+    if bars.empty:
+        return []
+    right = (bars["left"] + bars["width"]).to_numpy(float)
+    gap = ~np.isclose(bars["left"].to_numpy(float)[1:], right[:-1])
+    starts = [0, *(np.flatnonzero(gap) + 1), len(bars)]
+    return [bars.iloc[a:b] for a, b in zip(starts[:-1], starts[1:], strict=True)]
+
+
+def form_title(form: str, detail: str) -> str:
+    """A panel's title: the form's name with the selected fit's detail (knots, FP powers)."""
+    if form == "spline" and "knots" in detail:
+        return f"spline, {detail.rsplit(',', 1)[-1].strip()}"
+    if form == "fp" and detail.startswith("FP:"):
+        return f"fractional polynomial ({detail[3:].strip()})"
+    if form == "fp" and detail:
+        return f"fractional polynomial {detail}"
+    return FORM_NAMES[form]
+
+
+def draw_panel(ax: Any, sel: CurveRows, form: str, steps: list[dict[str, float]],
+               ylim: tuple[float, float], xlim: tuple[float, float]) -> None:
+    """One continuous form over the legacy steps on the shared effect axis."""
+    draw_steps(ax, steps, risers=True)
+    draw_curve(ax, sel.form(form), FORM_COLOURS[form], FORM_LINES[form])
+    mark_reference(ax, sel.x_reference, sel.scale)
+    effect_panel(ax, sel.scale, ylim, xlim)
+    ax.tick_params(labelbottom=False)
+
+
+def describe_curve(c: pd.DataFrame, scale: str, unit: str) -> str:
+    """A curve's ends, lowest and highest point in words."""
     xs, e = c["x"].to_numpy(float), c["effect"].to_numpy(float)
     lo_i, hi_i = int(np.nanargmin(e)), int(np.nanargmax(e))
-    return (f"from {f(e[0])} at {fmt_number(xs[0])}{unit} to {f(e[-1])} at {fmt_number(xs[-1])}"
-            f"{unit}, lowest {f(e[lo_i])} at {fmt_number(xs[lo_i])}, highest {f(e[hi_i])} at "
-            f"{fmt_number(xs[hi_i])}")
+    return (f"from {effect_text(e[0], scale)} at {fmt_number(xs[0])}{unit} to "
+            f"{effect_text(e[-1], scale)} at {fmt_number(xs[-1])}{unit}, lowest "
+            f"{effect_text(e[lo_i], scale)} at {fmt_number(xs[lo_i])}, highest "
+            f"{effect_text(e[hi_i], scale)} at {fmt_number(xs[hi_i])}")
 
 
-def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert cohort is not None and analysis is not None
-    cur = ctx.rows("curves", cohort, analysis)
-    if "status" in cur:
-        cur = cur[cur["status"] == "ok"]
-    cur = cur[np.isfinite(cur["effect"].astype(float))]
-    if "in_range" in cur:
-        # On a grid common to several cohorts, draw only this cohort's own 1st-99th percentiles.
-        cur = cur[cur["in_range"].fillna(True).astype(bool)]
-    if cur.empty:
-        return None
-    adj = pick_adjustment(cur)
-    if adj is None:
-        return None
-    c = cur[cur["adjustment"] == adj]
-    forms = [f for f in PANEL_FORMS if (c["form"] == f).any()]
-    legacy = c[c["form"] == "legacy"]
-    scale = str(c["scale"].iloc[0])
-    x_ref = float(c["x_reference"].iloc[0])
-    a = ctx.spec.analysis(analysis)
-    info = ctx.spec.variables.get(a.exposure)
-    unit = f" {info.unit}" if info and info.unit else ""
-    xlabel = ctx.spec.label(a.exposure)
-    short = info.label if info and info.label else a.exposure
-    steps = legacy_steps(legacy, ctx.legacy_cuts(cohort, analysis))
+def curves_alt(sel: CurveRows, steps: list[dict[str, float]], ex: Exposure, outcome: str,
+               bars: pd.DataFrame, hidden: int) -> str:
+    """The alt text: what is plotted, every legacy group's effect and each curve's key values,
+    and what the distribution strip counts."""
+    scale = sel.scale
+
+    def step(s: dict[str, float]) -> str:
+        head = f"{fmt_number(s['x0'])}–{fmt_number(s['x1'])}{ex.unit}: {effect_text(s['effect'], scale)}"
+        if s["upper"] > s["lower"]:
+            return head + f" ({effect_text(s['lower'], scale)} to {effect_text(s['upper'], scale)})"
+        return head + " (reference group)"
+
+    curves = "; ".join(f"{FORM_NAMES[f]} {describe_curve(sel.form(f), scale, ex.unit)}"
+                       for f in sel.forms)
+    strip = (f" A bar strip under each panel counts the rows in each bin of {ex.name} (largest "
+             f"bar {bars['count'].max():,.0f} rows)" if len(bars) else "")
+    strip += (f"; {hidden} small bin(s) hidden." if hidden else ".") if strip else ""
+    return (f"{scale[0].upper() + scale[1:]} of {outcome} against {ex.label}, "
+            f"{ADJUSTMENT_TEXT[sel.adjustment]}, {len(sel.forms)} panel(s), one per continuous "
+            f"form, each over the legacy step function. Legacy groups: "
+            f"{'; '.join(step(s) for s in steps)}. Curves: {curves}.{strip}")
+
+
+@per_analysis("curves", select_curves)
+def draw(ctx: Context, sel: CurveRows, cohort: str, analysis: str) -> Drawn | None:
+    ex = ctx.exposure(analysis)
+    outcome = ctx.outcome_label(analysis)
+    steps = legacy_steps(sel.form("legacy"), ctx.legacy_cuts(cohort, analysis))
     density = ctx.rows("density", cohort, analysis)
-    x_lo, x_hi = float(c["x"].min()), float(c["x"].max())
-    xlim = (x_lo - 0.01 * (x_hi - x_lo), x_hi + 0.01 * (x_hi - x_lo))
-
-    panel = c[c["form"].isin([*forms, "legacy"])]
-    y_lo, y_hi = clipped_span(panel["effect"].astype(float).tolist(),
-                              [*panel["effect_lower"].astype(float),
-                               *panel["effect_upper"].astype(float)], scale)
+    xlim = padded(sel.rows["x"])
+    ylim = effect_limits(sel.rows, sel.scale)
+    if not all(np.isfinite(ylim)):
+        return None
+    ref = f"{ex.short} {fmt_number(sel.x_reference)}{ex.unit}"
     footnote = (f"Bands (continuous) and hatching (legacy groups): pointwise 95% confidence "
-                f"intervals, clipped at the panel edge. Effects relative to {short} "
-                f"{fmt_number(x_ref)}{unit}; grid from the 1st to the 99th percentile.\nGrey bars: "
-                f"rows per bin of {a.exposure}; bins with fewer than {ctx.spec.min_cell} rows are "
-                f"not shown.")
-    fig_, fig = new_figure(0.8 + 3.3 * len(forms), 4.6, footnote)
-    gs = fig.add_gridspec(2, len(forms), height_ratios=[5, 1])
-    hidden = 0
-    for j, form in enumerate(forms):
+                f"intervals, clipped at the panel edge. Effects relative to {ref}; grid from the "
+                f"1st to the 99th percentile.\nGrey bars: rows per bin of {ex.name} (count axis "
+                f"at the left); bins with fewer than {ctx.spec.min_cell} rows are not shown.")
+    fig_, fig = new_figure(0.8 + 3.3 * len(sel.forms), 4.6, footnote)
+    gs = fig.add_gridspec(2, len(sel.forms), height_ratios=[5, 1])
+    for j, form in enumerate(sel.forms):
         # No shared axes (their sibling sets iterate in memory order, which made the layout
         # differ in the last bits between processes): the same limits are set on each instead.
-        ax = fig.add_subplot(gs[0, j])
-        rug = fig.add_subplot(gs[1, j])
-        colour = FORM_COLOURS[form]
-        for s in steps:
-            if s["upper"] > s["lower"]:
-                ax.fill_between([s["x0"], s["x1"]], s["lower"], s["upper"], facecolor="none",
-                                edgecolor=LEGACY, hatch=LEGACY_HATCH, lw=0, zorder=2)
-            ax.plot([s["x0"], s["x1"]], [s["effect"]] * 2, color=LEGACY, lw=2.4, zorder=3,
-                    solid_capstyle="butt")
-        for s0, s1 in zip(steps, steps[1:], strict=False):
-            ax.plot([s0["x1"]] * 2, [s0["effect"], s1["effect"]], color=LEGACY, lw=1,
-                    ls=(0, (1, 1.5)), zorder=3)
-        f = c[c["form"] == form].sort_values("x")
-        ax.fill_between(f["x"], f["effect_lower"], f["effect_upper"], color=colour,
-                        alpha=BAND_ALPHA, lw=0, zorder=2.5)
-        ax.plot(f["x"], f["effect"], color=colour, lw=2.0, ls=FORM_LINES[form], zorder=4)
-        ax.plot([x_ref], [1.0 if is_ratio(scale) else 0.0], marker="o", ms=5, mfc="white",
-                mec=INK, mew=1.1, zorder=5, ls="none")
-        detail = ctx.selected_detail(cohort, analysis, form, adj)
-        name = FORM_NAMES[form]
-        if form == "spline" and "knots" in detail:
-            name = f"spline, {detail.rsplit(',', 1)[-1].strip()}"
-        elif form == "fp" and detail.startswith("FP:"):
-            name = f"fractional polynomial ({detail[3:].strip()})"
-        elif form == "fp" and detail:
-            name = f"fractional polynomial {detail}"
-        ax.set_title(name, color=colour)
-        effect_axis(ax, scale, y_lo, y_hi)
-        ax.set_xlim(*xlim)
-        ax.xaxis.set_major_locator(MaxNLocator(nbins=6, steps=[1, 2, 2.5, 5, 10]))
-        ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
-        ax.tick_params(labelbottom=False)
+        ax, rug = fig.add_subplot(gs[0, j]), fig.add_subplot(gs[1, j])
+        draw_panel(ax, sel, form, steps, ylim, xlim)
+        ax.set_title(form_title(form, ctx.selected_detail(cohort, analysis, form,
+                                                          sel.adjustment)),
+                     color=FORM_COLOURS[form])
         if j == 0:
-            ax.set_ylabel(f"{effect_label(scale, ctx.outcome_label(analysis))}\nvs {short} "
-                          f"{fmt_number(x_ref)}{unit}")
+            ax.set_ylabel(f"{effect_label(sel.scale, outcome)}\nvs {ref}")
         else:
             ax.tick_params(labelleft=False)
-        hidden = draw_rug(rug, density, xlim)
-        rug.xaxis.set_major_locator(MaxNLocator(nbins=6, steps=[1, 2, 2.5, 5, 10]))
-        rug.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
-        rug.set_xlabel(xlabel)
-    handles: list[Any] = [(Patch(facecolor="none", edgecolor=LEGACY, hatch=LEGACY_HATCH, lw=0),
-                Line2D([], [], color=LEGACY, lw=2.4)),
-               *[(Patch(color=FORM_COLOURS[f], alpha=BAND_ALPHA, lw=0),
-                  Line2D([], [], color=FORM_COLOURS[f], lw=2, ls=FORM_LINES[f])) for f in forms],
-               Line2D([], [], marker="o", ms=5, mfc="white", mec=INK, ls="none")]
-    labels = ["legacy groups", *[FORM_NAMES[f] for f in forms],
-              f"reference ({short} {fmt_number(x_ref)}{unit})"]
-    fig.legend(handles, labels, loc="outside lower left", ncols=len(labels))
-    scale_name = scale[0].upper() + scale[1:]
-    head = f"{analysis}: {scale} by {xlabel}"
-    title(fig, head + ("" if len(ctx.spec.cohorts) == 1 else f" — {cohort}"))
-
-    def one(v: float) -> str:
-        return fmt_ratio(v) if is_ratio(scale) else fmt_number(v, 2)
-
-    groups = "; ".join(f"{fmt_number(s['x0'])}–{fmt_number(s['x1'])}{unit}: {one(s['effect'])}"
-                       + (f" ({one(s['lower'])} to {one(s['upper'])})"
-                          if s["upper"] > s["lower"] else " (reference group)") for s in steps)
-    curves_text = "; ".join(
-        f"{FORM_NAMES[f]} {_describe_curve(c[c['form'] == f].sort_values('x'), scale, unit)}"
-        for f in forms)
-    alt = (f"{scale_name} of {ctx.outcome_label(analysis)} against {xlabel}, "
-           f"{ADJUSTMENT_TEXT[adj]}, {len(forms)} panel(s), one per continuous form, each over "
-           f"the legacy step function. Legacy groups: {groups}. Curves: {curves_text}. A bar "
-           f"strip under each panel shows how many rows have each {a.exposure} value"
-           + (f" ({hidden} small bin(s) hidden)." if hidden else "."))
+        draw_rug(rug, density, xlim, label=j == 0)
+        value_ticks(rug.xaxis)
+        rug.set_xlabel(ex.label)
+    _legend(fig, sel.forms, ref)
+    head = f"{analysis}: {sel.scale} by {ex.label}"
+    title(fig, head + ctx.suffix(cohort))
+    bars, hidden = rug_bars(density)
     caption = (f"The legacy grouping's step function (ember, hatched interval) beside each "
-               f"continuous form fitted to the same sample, {ADJUSTMENT_TEXT[adj]}. Where a "
-               f"curve leaves a step's hatched interval, \"flat within the group\" misdescribes "
-               f"the data.")
-    if not math.isfinite(y_lo):
-        return None
-    return Drawn(fig_, head, alt, caption)
+               f"continuous form fitted to the same sample, {ADJUSTMENT_TEXT[sel.adjustment]}. "
+               f"Where a curve leaves a step's hatched interval, \"flat within the group\" "
+               f"misdescribes the data.")
+    return Drawn(fig_, head, curves_alt(sel, steps, ex, outcome, bars, hidden), caption)
+
+
+def _legend(fig: Any, forms: list[str], ref: str) -> None:
+    handles: list[Any] = [steps_handle(),
+                          *[(Patch(color=FORM_COLOURS[f], alpha=BAND_ALPHA, lw=0),
+                             Line2D([], [], color=FORM_COLOURS[f], lw=2, ls=FORM_LINES[f]))
+                            for f in forms],
+                          reference_handle()]
+    labels = ["legacy groups", *[FORM_NAMES[f] for f in forms], f"reference ({ref})"]
+    fig.legend(handles, labels, loc="outside lower left", ncols=len(labels))

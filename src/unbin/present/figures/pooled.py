@@ -1,35 +1,32 @@
 """Pooled curves: the common-knot spline pooled across cohorts (multivariate random effects:
 one function, so it does not jump where a cohort's own range ends), with each cohort's own
 curve drawn thinly behind it, the pooled legacy steps beside it, and underneath, the number of
-cohorts that count at each exposure value in the pointwise pooling (k)."""
+cohorts that count at each exposure value in the pointwise pooling (k).
+
+Row selection (``select_pooled``: the pooled and per-cohort tables to plain data), drawing
+(``draw_pooled_panel``, ``draw_k_strip``) and alt text (``pooled_alt``); ``draw`` joins them."""
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 from matplotlib.lines import Line2D
-from matplotlib.patches import Patch
-from matplotlib.ticker import FuncFormatter, MaxNLocator
 
-from .base import Context, Drawn
+from .base import Context, Drawn, Exposure
 from .curves import ADJUSTMENT_ORDER, ADJUSTMENT_TEXT, legacy_steps
-from .style import (
-    BAND_ALPHA,
-    INK,
-    LEGACY,
-    LEGACY_HATCH,
-    SPLINE,
-    clipped_span,
-    effect_axis,
-    effect_label,
-    fmt_number,
-    fmt_ratio,
-    is_ratio,
-    new_figure,
-    title,
+from .parts import (
+    draw_curve,
+    draw_steps,
+    effect_limits,
+    effect_text,
+    mark_reference,
+    steps_handle,
+    value_ticks,
 )
+from .style import INK, SPLINE, effect_axis, effect_label, fmt_number, new_figure, null_value, title
 
 COHORT_LINE = "#8d9bb0"
 CURVE_FORMS = ("common_spline", "spline")
@@ -40,120 +37,153 @@ METHOD_TEXT = {"multivariate random": "multivariate random-effects pooling of th
                                       "spline", "random": "pointwise random effects"}
 
 
-def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
-    assert analysis is not None
-    pc = ctx.rows("pooled_curves", None, analysis)
+@dataclass(frozen=True)
+class PooledRows:
+    form: str
+    adjustment: str
+    method: str
+    curve: pd.DataFrame      # the primary pooled curve, sorted by x
+    k_along: pd.DataFrame    # x and k of the pointwise pooling
+    legacy: pd.DataFrame     # pooled legacy rows (the reference group set to the null value)
+    cohorts: pd.DataFrame    # each cohort's own curve rows (within its own range)
+    scale: str
+
+    @property
+    def k(self) -> int:
+        if "k" in self.curve:
+            return int(self.curve["k"].max())
+        return int(self.cohorts["cohort"].nunique())
+
+
+def _first(pc: pd.DataFrame, column: str, options: tuple[str, ...]) -> str | None:
+    return next((v for v in options if (pc[column] == v).any()), None)
+
+
+def pooled_legacy(rows: pd.DataFrame, scale: str) -> pd.DataFrame:
+    """The pooled legacy rows to draw. Inside the reference group every cohort's contrast is
+    exactly null (no variance), so nothing is pooled there (k = 0): the pooled step is the null
+    value itself."""
+    legacy = rows.copy()
+    if "k" in legacy:
+        ref = (legacy["k"] == 0) & legacy["effect"].isna()
+        legacy.loc[ref, ["effect", "effect_lower", "effect_upper"]] = null_value(scale)
+    return legacy[np.isfinite(legacy["effect"].astype(float))]
+
+
+def select_pooled(pc: pd.DataFrame, curves: pd.DataFrame, analysis: str) -> PooledRows | None:
+    """The rows of the pooled-curves figure for one analysis, from the pooled_curves rows and
+    the study's curves table (each cohort's own curve); None when there is no pooled curve."""
     if pc.empty:
         return None
-    form = next((f for f in CURVE_FORMS if (pc["form"] == f).any()), None)
-    if form is None:
+    form = _first(pc, "form", CURVE_FORMS)
+    adj = None if form is None else _first(pc[pc["form"] == form], "adjustment",
+                                            ADJUSTMENT_ORDER)
+    if form is None or adj is None:
         return None
-    adj = next((a for a in ADJUSTMENT_ORDER
-                if ((pc["form"] == form) & (pc["adjustment"] == a)).any()), None)
-    if adj is None:
-        return None
-    method = next((m for m in PRIMARY_METHODS
-                   if ((pc["method"] == m) & (pc["form"] == form)
-                       & (pc["adjustment"] == adj)).any()), str(pc["method"].iloc[0]))
+    mine = pc[(pc["form"] == form) & (pc["adjustment"] == adj)]
+    method = _first(mine, "method", PRIMARY_METHODS) or str(pc["method"].iloc[0])
     pointwise = "random" if (pc["method"] == "random").any() else method
     sel = pc[(pc["adjustment"] == adj) & (pc["method"] == pointwise)]
-    curve = pc[(pc["adjustment"] == adj) & (pc["method"] == method) & (pc["form"] == form)
-               & np.isfinite(pc["effect"].astype(float))].sort_values("x")
+    curve = mine[(mine["method"] == method)
+                 & np.isfinite(mine["effect"].astype(float))].sort_values("x")
     if curve.empty:
         return None
-    kx = sel[sel["form"] == form].sort_values("x")[["x", "k"]]
     scale = str(curve["scale"].iloc[0])
-    legacy = sel[sel["form"] == "legacy"].copy()
-    if "k" in legacy:
-        # Inside the reference group every cohort's contrast is exactly null (no variance), so
-        # nothing is pooled there (k = 0): the pooled step is the null value itself.
-        ref = (legacy["k"] == 0) & legacy["effect"].isna()
-        null = 1.0 if is_ratio(scale) else 0.0
-        legacy.loc[ref, ["effect", "effect_lower", "effect_upper"]] = null
-    legacy = legacy[np.isfinite(legacy["effect"].astype(float))]
-    x_ref = float(curve["x_reference"].iloc[0])
-    a = ctx.spec.analysis(analysis)
-    info = ctx.spec.variables.get(a.exposure)
-    unit = f" {info.unit}" if info and info.unit else ""
-    short = info.label if info and info.label else a.exposure
-    cur = ctx.table("curves")
-    per = cur[(cur["analysis"] == analysis) & (cur["form"] == form)
-              & (cur["adjustment"] == adj)] if len(cur) else cur
-    k = int(curve["k"].max()) if "k" in curve else per["cohort"].nunique()
-    cuts = ctx.legacy_cuts(str(per["cohort"].iloc[0]), analysis) if len(per) else []
-    steps = legacy_steps(legacy, cuts) if len(legacy) else []
-    i2 = curve["i2"].astype(float) if "i2" in curve else pd.Series(dtype=float)
-    footnote = (f"Thick line and band: the curve pooled over {k} cohort(s) "
-                f"({METHOD_TEXT.get(method, method)}), 95% interval, relative to {short} "
-                f"{fmt_number(x_ref)}{unit}. Thin lines: each cohort's own curve on the same "
-                "basis, within its own 1st–99th percentile. Ember steps: the legacy groups "
-                "pooled (pointwise random effects). Strip below: cohorts counting at each value "
-                "in the pointwise pooling (k)."
-                + ((f" Multivariate I²: {float(np.nanmedian(i2)):.0%}."
-                    if method.startswith("multivariate")
-                    else f" Median I² over the grid: {float(np.nanmedian(i2)):.0%}.")
-                   if i2.notna().any() else ""))
-    fig_, fig = new_figure(8.0, 5.3, footnote)
-    ax, kax = fig.subplots(2, 1, height_ratios=[5, 0.8])
-    ys = [*curve["effect"].astype(float)]
-    bounds = [*curve["effect_lower"].astype(float), *curve["effect_upper"].astype(float)]
-    for _, g in (per.groupby("cohort", sort=True) if len(per) else []):
+    per = curves[(curves["analysis"] == analysis) & (curves["form"] == form)
+                 & (curves["adjustment"] == adj)] if len(curves) else curves
+    if "in_range" in per:
+        per = per[per["in_range"].astype("boolean").fillna(True).astype(bool)]
+    return PooledRows(form, adj, method, curve.reset_index(drop=True),
+                      sel[sel["form"] == form].sort_values("x")[["x", "k"]],
+                      pooled_legacy(sel[sel["form"] == "legacy"], scale),
+                      per.reset_index(drop=True), scale)
+
+
+def draw_pooled_panel(ax: Any, sel: PooledRows, steps: list[dict[str, float]]) -> None:
+    """Each cohort's curve thinly, the pooled legacy steps, the pooled curve over its band."""
+    for _, g in (sel.cohorts.groupby("cohort", sort=True) if len(sel.cohorts) else []):
         g = g.sort_values("x")
-        if "in_range" in g:
-            g = g[g["in_range"].fillna(True).astype(bool)]
         ax.plot(g["x"], g["effect"], color=COHORT_LINE, lw=1.0, zorder=2)
-        ys += g["effect"].astype(float).tolist()
-    for s in steps:
-        if s["upper"] > s["lower"]:
-            ax.fill_between([s["x0"], s["x1"]], s["lower"], s["upper"], facecolor="none",
-                            edgecolor=LEGACY, hatch=LEGACY_HATCH, lw=0, zorder=2)
-        ax.plot([s["x0"], s["x1"]], [s["effect"]] * 2, color=LEGACY, lw=2.4, zorder=3)
-        ys.append(s["effect"])
-    ax.fill_between(curve["x"], curve["effect_lower"], curve["effect_upper"], color=SPLINE,
-                    alpha=BAND_ALPHA, lw=0, zorder=2.5)
-    ax.plot(curve["x"], curve["effect"], color=SPLINE, lw=2.4, zorder=4)
-    ax.plot([x_ref], [1.0 if is_ratio(scale) else 0.0], marker="o", ms=5, mfc="white", mec=INK,
-            mew=1.1, ls="none", zorder=5)
-    lo, hi = clipped_span(ys, bounds, scale)
-    effect_axis(ax, scale, lo, hi)
-    ax.set_xlim(float(curve["x"].min()), float(curve["x"].max()))
-    ax.xaxis.set_major_locator(MaxNLocator(nbins=7, steps=[1, 2, 2.5, 5, 10]))
-    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v:g}"))
-    if len(kx):
-        kv = kx["k"].to_numpy(float)
-        kax.step(kx["x"], kv, where="mid", color=INK, lw=1.2)
+    draw_steps(ax, steps)
+    draw_curve(ax, sel.curve, SPLINE, lw=2.4)
+    mark_reference(ax, float(sel.curve["x_reference"].iloc[0]), sel.scale)
+    extra = [*sel.cohorts["effect"].astype(float)] if len(sel.cohorts) else []
+    lo, hi = effect_limits(sel.curve, sel.scale, [*extra, *(s["effect"] for s in steps)])
+    effect_axis(ax, sel.scale, lo, hi)
+    ax.set_xlim(float(sel.curve["x"].min()), float(sel.curve["x"].max()))
+    value_ticks(ax.xaxis, 7)
+    ax.tick_params(labelbottom=False)
+
+
+def draw_k_strip(kax: Any, sel: PooledRows) -> None:
+    """The number of cohorts counting at each exposure value in the pointwise pooling."""
+    if len(sel.k_along):
+        kv = sel.k_along["k"].to_numpy(float)
+        kax.step(sel.k_along["x"], kv, where="mid", color=INK, lw=1.2)
         top = int(max(float(np.nanmax(kv)), 1.0))
         kax.set_ylim(0, top + 0.6)
         kax.set_yticks([0, top])
     kax.set_ylabel("cohorts (k)", rotation=0, ha="right", va="center", labelpad=6)
-    kax.set_xlim(float(curve["x"].min()), float(curve["x"].max()))
-    kax.xaxis.set_major_locator(MaxNLocator(nbins=7, steps=[1, 2, 2.5, 5, 10]))
-    kax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v:g}"))
-    ax.tick_params(labelbottom=False)
-    kax.set_xlabel(ctx.spec.label(a.exposure))
-    ax.set_ylabel(f"{effect_label(scale, ctx.outcome_label(analysis))}\nvs {short} "
-                  f"{fmt_number(x_ref)}{unit}")
-    handles: list[Any] = [Line2D([], [], color=SPLINE, lw=2.4), Line2D([], [], color=COHORT_LINE, lw=1.0),
-               (Patch(facecolor="none", edgecolor=LEGACY, hatch=LEGACY_HATCH, lw=0),
-                Line2D([], [], color=LEGACY, lw=2.4))]
+    kax.set_xlim(float(sel.curve["x"].min()), float(sel.curve["x"].max()))
+    value_ticks(kax.xaxis, 7)
+
+
+def pooled_alt(sel: PooledRows, ex: Exposure) -> str:
+    """The alt text: the pooled curve's ends and extremes, the cohorts behind it, k along x."""
+    e, xs = sel.curve["effect"].to_numpy(float), sel.curve["x"].to_numpy(float)
+
+    def f(v: float) -> str:
+        return effect_text(v, sel.scale, 3)
+
+    kx = sel.k_along
+    n_cohorts = sel.cohorts["cohort"].nunique() if len(sel.cohorts) else 0
+    return (f"Line chart of the pooled {sel.scale} against {ex.label} "
+            f"({ADJUSTMENT_TEXT[sel.adjustment]}, {METHOD_TEXT.get(sel.method, sel.method)} over "
+            f"{sel.k} cohorts): from {f(e[0])} at {fmt_number(xs[0])} to {f(e[-1])} at "
+            f"{fmt_number(xs[-1])}, lowest {f(e.min())} at {fmt_number(xs[int(np.argmin(e))])}, "
+            f"highest {f(e.max())} at {fmt_number(xs[int(np.argmax(e))])}; {n_cohorts} cohort "
+            "curve(s) behind it and the pooled legacy step function"
+            + (f"; pointwise, {int(kx['k'].min())} to {int(kx['k'].max())} cohorts count "
+               "along the axis." if len(kx) else "."))
+
+
+def _footnote(sel: PooledRows, ref: str) -> str:
+    i2 = sel.curve["i2"].astype(float) if "i2" in sel.curve else pd.Series(dtype=float)
+    heterogeneity = ""
+    if i2.notna().any():
+        which = "Multivariate I²" if sel.method.startswith("multivariate") else \
+            "Median I² over the grid"
+        heterogeneity = f" {which}: {float(np.nanmedian(i2)):.0%}."
+    return (f"Thick line and band: the curve pooled over {sel.k} cohort(s) "
+            f"({METHOD_TEXT.get(sel.method, sel.method)}), 95% interval, relative to {ref}. "
+            "Thin lines: each cohort's own curve on the same basis, within its own 1st–99th "
+            "percentile. Ember steps: the legacy groups pooled (pointwise random effects). Strip "
+            "below: cohorts counting at each value in the pointwise pooling (k)." + heterogeneity)
+
+
+def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None:
+    assert analysis is not None
+    sel = select_pooled(ctx.rows("pooled_curves", None, analysis), ctx.table("curves"), analysis)
+    if sel is None:
+        return None
+    ex = ctx.exposure(analysis)
+    first = str(sel.cohorts["cohort"].iloc[0]) if len(sel.cohorts) else None
+    cuts = ctx.legacy_cuts(first, analysis) if first is not None else []
+    steps = legacy_steps(sel.legacy, cuts) if len(sel.legacy) else []
+    ref = f"{ex.short} {fmt_number(float(sel.curve['x_reference'].iloc[0]))}{ex.unit}"
+    fig_, fig = new_figure(8.0, 5.3, _footnote(sel, ref))
+    ax, kax = fig.subplots(2, 1, height_ratios=[5, 0.8])
+    draw_pooled_panel(ax, sel, steps)
+    draw_k_strip(kax, sel)
+    kax.set_xlabel(ex.label)
+    ax.set_ylabel(f"{effect_label(sel.scale, ctx.outcome_label(analysis))}\nvs {ref}")
+    handles: list[Any] = [Line2D([], [], color=SPLINE, lw=2.4),
+                          Line2D([], [], color=COHORT_LINE, lw=1.0), steps_handle()]
     fig.legend(handles, ["pooled spline", "each cohort", "pooled legacy groups"],
                loc="outside lower left", ncols=3)
-    head = f"{analysis}: {scale} by {ctx.spec.label(a.exposure)}, pooled over {k} cohorts"
+    head = f"{analysis}: {sel.scale} by {ex.label}, pooled over {sel.k} cohorts"
     title(fig, head)
-    f = fmt_ratio if is_ratio(scale) else (lambda v: fmt_number(v, 3))
-    e = curve["effect"].to_numpy(float)
-    xs = curve["x"].to_numpy(float)
-    alt = (f"Line chart of the pooled {scale} against {ctx.spec.label(a.exposure)} "
-           f"({ADJUSTMENT_TEXT[adj]}, {METHOD_TEXT.get(method, method)} over {k} cohorts): "
-           f"from {f(e[0])} at "
-           f"{fmt_number(xs[0])} to {f(e[-1])} at {fmt_number(xs[-1])}, lowest {f(e.min())} at "
-           f"{fmt_number(xs[int(np.argmin(e))])}, highest {f(e.max())} at "
-           f"{fmt_number(xs[int(np.argmax(e))])}; "
-           f"{per['cohort'].nunique() if len(per) else 0} cohort curve(s) "
-           "behind it and the pooled legacy step function"
-           + (f"; pointwise, {int(kx['k'].min())} to {int(kx['k'].max())} cohorts count "
-              "along the axis." if len(kx) else "."))
     caption = ("Cohorts share one spline basis (common knots and reference), so their "
                "coefficients pool into one curve; where the thin lines fan out, the cohorts "
                "disagree.")
-    return Drawn(fig_, head, alt, caption)
+    return Drawn(fig_, head, pooled_alt(sel, ex), caption)
