@@ -26,12 +26,12 @@ from typing import Any
 import pandas as pd
 import yaml
 
-from .. import __version__
-from ..data import file_sha256
-from ..errors import UnbinError
-from ..results.tables import read_provenance
-from ..spec import Spec, digest, load_spec
-from .figures import Context, FigureFile, draw_figures, finite, group_dir, load_tables, read_index
+from ... import __version__
+from ...data import file_sha256
+from ...errors import UnbinError
+from ...results.tables import read_provenance
+from ...spec import Spec, digest, load_spec
+from ..figures import Context, FigureFile, draw_figures, finite, group_dir, load_tables, read_index
 
 log = logging.getLogger(__name__)
 
