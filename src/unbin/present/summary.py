@@ -303,10 +303,11 @@ def net_benefit_rows(tables: Tables) -> Rows:
                 continue
             values = text.aligned([legacy["net_benefit"].iloc[0], spline["net_benefit"].iloc[0],
                                    treat_all["net_benefit"].iloc[0]])
-            scale = _of(th, cohort, analysis)["risk_scale"] if "risk_scale" in th else []
+            mine = _of(th, cohort, analysis)
+            scale = (mine["risk_scale"].iloc[0] if "risk_scale" in mine and len(mine) else "")
             rows.append({
                 "cohort": cohort, "analysis": analysis,
-                "risk threshold": threshold_value(t, scale.iloc[0] if len(scale) else ""),
+                "risk threshold": threshold_value(t, scale),
                 "legacy rule": values[0], "spline risk rule": values[1], "treat all": values[2]})
     return rows
 
