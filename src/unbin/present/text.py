@@ -19,8 +19,9 @@ The rules (stated once, tested in ``tests/test_text.py``):
 - **Values read side by side** (``aligned``) share the decimals that give the largest of them
   ``sig`` significant digits (``1.64`` and ``0.44``; net benefits ``0.195`` and ``0.023``).
 - **An estimate with its interval** (``interval``) prints the bounds with the same rule and the
-  same number of decimals as the estimate (trailing zeros kept, so ``5.70 (5.12 to 7.65)``), the
-  bounds joined by "to" so that negative values stay readable (``-12% (-42% to -1%)``). Ratios use
+  same number of decimals as the estimate (trailing zeros kept, so ``5.70 (5.12 to 7.65)``); an
+  estimate closer to zero than a tenth of the interval's half-width takes the decimals of the
+  half-width instead (``0.000 (-0.251 to 0.579)``). The bounds are joined by "to" so that negative values stay readable (``-12% (-42% to -1%)``). Ratios use
   the ratio rule for all three, percents the percent rule. Without finite bounds only the
   estimate prints.
 """
@@ -144,14 +145,13 @@ def interval(e: Any, lo: Any, hi: Any, kind: Kind = "number", sig: int = 3) -> s
         def part(v: float) -> str:
             return percent(v)
     else:
-        if f != 0 and abs(f) < 1e-4:
-            def part(v: float) -> str:
-                return number(v, sig)
-        else:
-            places = 0 if abs(f) >= 10 ** sig else _same_places(f, sig)
+        ref = f
+        if finite(lo) and finite(hi) and abs(f) < (float(hi) - float(lo)) / 20:
+            ref = (float(hi) - float(lo)) / 2     # an estimate near zero: the interval decides
+        places = 0 if abs(ref) >= 10 ** sig else _same_places(ref, sig)
 
-            def part(v: float) -> str:
-                return _fixed(v, places)
+        def part(v: float) -> str:
+            return _fixed(v, places)
     head = part(f)
     if finite(lo) and finite(hi) and float(hi) > float(lo):
         return f"{head} ({part(float(lo))} to {part(float(hi))})"
