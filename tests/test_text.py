@@ -79,6 +79,8 @@ def test_interval_shares_the_estimates_decimals() -> None:
     assert text.interval(5.7, 5.123, 7.6525) == "5.70 (5.12 to 7.65)"
     assert text.interval(-0.12, -0.42, -0.01, "percent") == "-12% (-42% to -1%)"
     assert text.interval(1.234, 0.95, 1.6, "ratio") == "1.23 (0.95 to 1.60)"
+    assert text.interval(4.64, 1.82, 11.807, "ratio") == "4.64 (1.82 to 11.81)"
+    assert text.interval(12.3, 9.87, 15.2, "ratio") == "12.3 (9.9 to 15.2)"
     assert text.interval(0.0123, -0.004, 0.031) == "0.0123 (-0.0040 to 0.0310)"
     assert text.interval(2.0, math.nan, 3.0) == "2.00"         # no bounds: the estimate only
     assert text.interval(2.0, 3.0, 3.0) == "2.00"              # degenerate interval

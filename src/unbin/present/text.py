@@ -18,12 +18,13 @@ The rules (stated once, tested in ``tests/test_text.py``):
   ``decimals`` when asked.
 - **Values read side by side** (``aligned``) share the decimals that give the largest of them
   ``sig`` significant digits (``1.64`` and ``0.44``; net benefits ``0.195`` and ``0.023``).
-- **An estimate with its interval** (``interval``) prints the bounds with the same rule and the
-  same number of decimals as the estimate (trailing zeros kept, so ``5.70 (5.12 to 7.65)``); an
-  estimate closer to zero than a tenth of the interval's half-width takes the decimals of the
-  half-width instead (``0.000 (-0.251 to 0.579)``). The bounds are joined by "to" so that negative values stay readable (``-12% (-42% to -1%)``). Ratios use
-  the ratio rule for all three, percents the percent rule. Without finite bounds only the
-  estimate prints.
+- **An estimate with its interval** (``interval``) prints the bounds with the same number of
+  decimals as the estimate (trailing zeros kept, so ``5.70 (5.12 to 7.65)``); an estimate
+  closer to zero than a tenth of the interval's half-width takes the decimals of the half-width
+  instead (``0.000 (-0.251 to 0.579)``). Ratios take the ratio rule's decimals of the estimate
+  (``4.64 (1.82 to 11.81)``), percents the percent rule. The bounds are joined by "to" so that
+  negative values stay readable (``-12% (-42% to -1%)``). Without finite bounds (or with a
+  degenerate interval) only the estimate prints.
 """
 
 from __future__ import annotations
@@ -139,8 +140,11 @@ def interval(e: Any, lo: Any, hi: Any, kind: Kind = "number", sig: int = 3) -> s
         return DASH
     f = float(e)
     if kind == "ratio":
+        rounded = round(f, ratio_places(f))
+        places_r = ratio_places(rounded) if rounded != 0 else ratio_places(f)
+
         def part(v: float) -> str:
-            return ratio(v)
+            return _fixed(v, places_r)
     elif kind == "percent":
         def part(v: float) -> str:
             return percent(v)
