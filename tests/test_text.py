@@ -81,6 +81,9 @@ def test_interval_shares_the_estimates_decimals() -> None:
     assert text.interval(1.234, 0.95, 1.6, "ratio") == "1.23 (0.95 to 1.60)"
     assert text.interval(4.64, 1.82, 11.807, "ratio") == "4.64 (1.82 to 11.81)"
     assert text.interval(12.3, 9.87, 15.2, "ratio") == "12.3 (9.9 to 15.2)"
+    # Bounds that would print as the estimate get more decimals (per-unit ratios near 1).
+    assert text.interval(0.9882, 0.9831, 0.9934, "ratio") == "0.988 (0.983 to 0.993)"
+    assert text.interval(0.05, 0.049, 0.051, "percent") == "5.0% (4.9% to 5.1%)"
     assert text.interval(0.0123, -0.004, 0.031) == "0.0123 (-0.0040 to 0.0310)"
     assert text.interval(2.0, math.nan, 3.0) == "2.00"         # no bounds: the estimate only
     assert text.interval(2.0, 3.0, 3.0) == "2.00"              # degenerate interval
@@ -93,6 +96,7 @@ def test_interval_shares_the_estimates_decimals() -> None:
         parts = re.findall(r"-?[\d,]+(?:\.\d+)?", shown)
         assert len(parts) == 3, shown
         assert len({_decimals(p) for p in parts}) == 1, shown
+        assert len(set(parts)) == 3 or not lo < e < hi, shown
         assert float(parts[0].replace(",", "")) == pytest.approx(e, abs=10 ** -_decimals(
             parts[0]) / 2 + 1e-12)
 

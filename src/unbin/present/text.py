@@ -22,8 +22,9 @@ The rules (stated once, tested in ``tests/test_text.py``):
   decimals as the estimate (trailing zeros kept, so ``5.70 (5.12 to 7.65)``); an estimate
   closer to zero than a tenth of the interval's half-width takes the decimals of the half-width
   instead (``0.000 (-0.251 to 0.579)``). Ratios take the ratio rule's decimals of the estimate
-  (``4.64 (1.82 to 11.81)``), percents the percent rule. The bounds are joined by "to" so that
-  negative values stay readable (``-12% (-42% to -1%)``). Without finite bounds (or with a
+  (``4.64 (1.82 to 11.81)``), percents the percent rule. A bound that would print the same as
+  the estimate gets up to two more decimals for all three (``0.988 (0.983 to 0.993)``). The
+  bounds are joined by "to" so that negative values stay readable (``-12% (-42% to -1%)``). Without finite bounds (or with a
   degenerate interval) only the estimate prints.
 """
 
@@ -132,34 +133,40 @@ def _same_places(e: float, sig: int) -> int:
     return decimals(rounded, sig) if rounded != 0 else max(sig - 1, 0)
 
 
+def _interval_places(f: float, lo: Any, hi: Any, kind: Kind, sig: int) -> int:
+    if kind == "ratio":
+        rounded = round(f, ratio_places(f))
+        return ratio_places(rounded) if rounded != 0 else ratio_places(f)
+    if kind == "percent":
+        return 0
+    ref = f
+    if finite(lo) and finite(hi) and abs(f) < (float(hi) - float(lo)) / 20:
+        ref = (float(hi) - float(lo)) / 2     # an estimate near zero: the interval decides
+    return 0 if abs(ref) >= 10 ** sig else _same_places(ref, sig)
+
+
 def interval(e: Any, lo: Any, hi: Any, kind: Kind = "number", sig: int = 3) -> str:
     """An estimate with its interval, every part with the estimate's decimals: ``5.70 (5.12 to
     7.65)``, ``1.23 (0.95 to 1.60)`` for ratios, ``-12% (-42% to -1%)`` for percents. Without
-    finite bounds (or with a degenerate interval) only the estimate prints."""
+    finite bounds (or with a degenerate interval) only the estimate prints. When a bound would
+    print the same as the estimate, up to two more decimals are shown (``0.988 (0.983 to
+    0.993)``, not ``0.99 (0.98 to 0.99)``)."""
     if not finite(e):
         return DASH
     f = float(e)
-    if kind == "ratio":
-        rounded = round(f, ratio_places(f))
-        places_r = ratio_places(rounded) if rounded != 0 else ratio_places(f)
+    places = _interval_places(f, lo, hi, kind, sig)
 
-        def part(v: float) -> str:
-            return _fixed(v, places_r)
-    elif kind == "percent":
-        def part(v: float) -> str:
-            return percent(v)
-    else:
-        ref = f
-        if finite(lo) and finite(hi) and abs(f) < (float(hi) - float(lo)) / 20:
-            ref = (float(hi) - float(lo)) / 2     # an estimate near zero: the interval decides
-        places = 0 if abs(ref) >= 10 ** sig else _same_places(ref, sig)
+    def part(v: float, places: int) -> str:
+        return percent(v, places) if kind == "percent" else _fixed(v, places)
 
-        def part(v: float) -> str:
-            return _fixed(v, places)
-    head = part(f)
-    if finite(lo) and finite(hi) and float(hi) > float(lo):
-        return f"{head} ({part(float(lo))} to {part(float(hi))})"
-    return head
+    if not (finite(lo) and finite(hi) and float(hi) > float(lo)):
+        return part(f, places)
+    a, b = float(lo), float(hi)
+    for _ in range(2):
+        if len({part(f, places), part(a, places), part(b, places)}) == 3 or not a < f < b:
+            break
+        places += 1
+    return f"{part(f, places)} ({part(a, places)} to {part(b, places)})"
 
 
 def span(lo: Any, hi: Any, kind: Kind = "number", sig: int = 3) -> str:

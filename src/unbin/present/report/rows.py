@@ -161,7 +161,8 @@ def cards(info: Any, kept_ci: str, counts: dict[str, str]) -> list[dict[str, str
          + f"LR χ² {text.number(get(info, 'lr_legacy'))} of "
            f"{text.number(get(info, 'lr_legacy_plus_spline'))}"},
         {"label": "a spline adds to the groups", "value": "p " + text.pvalue(get(info, "added_p")),
-         "sub": f"LR χ² {text.with_df(get(info, 'added_lr'), get(info, 'added_df'))} df"},
+         "sub": f"LR χ² {text.number(get(info, 'added_lr'))} on "
+                f"{text.count(get(info, 'added_df'))} df"},
         {"label": "departure from a straight line",
          "value": "p " + text.pvalue(get(info, "nonlinearity_p")),
          "sub": f"spline vs linear, {text.count(get(info, 'nonlinearity_df'))} df"},
