@@ -231,8 +231,9 @@ def cut_rows(tables: Tables) -> Rows:
             "naive p": text.pvalue(s.get("p_naive")) if ok else text.DASH,
             "corrected p": text.pvalue(s.get("p_lausen")) if ok else text.DASH,
             "resampled p": text.pvalue(resampled) if ok else text.DASH,
-            "bootstrap cut (95%)": text.span(s.get("boot_cut_p2_5"), s.get("boot_cut_p97_5"))
-            if ok else text.DASH})
+            "bootstrap cut (95%)": (f"{text.number(s.get('boot_cut_p2_5'))} to "
+                                    f"{text.number(s.get('boot_cut_p97_5'))}")
+            if ok and text.finite(s.get("boot_cut_p2_5")) else text.DASH})
     return rows
 
 

@@ -17,6 +17,7 @@ from markupsafe import Markup
 from .. import labels, text
 from ..figures import FigureFile
 
+NUMERIC = re.compile(r"^(?:[<>×±–-]|\d)")
 # Keys every multi-cohort table shows first.
 KEYS = ("cohort", "analysis")
 
@@ -72,11 +73,13 @@ def table(rows: pd.DataFrame | Iterable[Any], cols: Sequence[Col], caption: str,
 
 def records_table(rows: list[dict[str, str]], caption: str, note: str = "",
                   numeric: Iterable[str] = ()) -> TableView:
-    """A table of rows already formatted (dicts of header -> text), in the rows' key order."""
+    """A table of rows already formatted (dicts of header -> text), in the rows' key order.
+    Without ``numeric``, a column whose every cell reads as a number is right-aligned."""
     if not rows:
         return TableView(caption, [], [], note)
     heads = list(rows[0])
-    num = set(numeric)
+    num = set(numeric) or {h for h in heads
+                           if all(NUMERIC.match(r.get(h, "")) for r in rows)}
     return TableView(caption, [Column(h, h in num) for h in heads],
                      [[r.get(h, "") for h in heads] for r in rows], note)
 
