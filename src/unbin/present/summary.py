@@ -371,7 +371,8 @@ def _table(title: str, columns: list[str], rows: list[list[str]], right: set[str
               collapse_padding=True, title_style="bold")
     for i, col in enumerate(columns):
         width = max([len(r[i]) for r in rows] + [len(w) for w in col.split()])
-        t.add_column(col, justify="right" if col in right else "left", min_width=width)
+        t.add_column(col, justify="right" if col in right else "left", min_width=width,
+                     max_width=max(width, -(-len(col) // 2)))
     for r in rows:
         t.add_row(*r)
     return t
@@ -382,12 +383,13 @@ def information_summary(out: Path, tables: Tables | None = None) -> Table:
     tables = tables if tables is not None else _load(out)
     rows = analysis_rows(tables, _jobs(tables))
     many = len({r["cohort"] for r in rows}) > 1
-    cols = (["cohort"] if many else []) + [
-        "analysis", "status", "n", "events", "LR χ² groups (df)", "LR χ² spline (df)",
-        "info kept", "spline adds p", "nonlinear p", "best by AIC"]
-    cells = [[*([r["cohort"]] if many else []), r["analysis"], r["status"], r["n"], r["events"],
-              r["lr_groups"], r["lr_spline"], r["kept"], r["added_p"], r["nonlinear_p"],
-              r["best_short"]] for r in rows]
+    states = any(r["status"] != "ok" for r in rows)   # all ok: no status column
+    cols = (["cohort"] if many else []) + ["analysis"] + (["status"] if states else []) + [
+        "n", "events", "LR χ² groups (df)", "LR χ² spline (df)", "info kept", "spline adds p",
+        "nonlinear p", "best by AIC"]
+    cells = [[*([r["cohort"]] if many else []), r["analysis"], *([r["status"]] if states else []),
+              r["n"], r["events"], r["lr_groups"], r["lr_spline"], r["kept"], r["added_p"],
+              r["nonlinear_p"], r["best_short"]] for r in rows]
     return _table("What the legacy grouping kept (adjusted as in the legacy analysis)", cols,
                   cells, {"n", "events", "LR χ² groups (df)", "LR χ² spline (df)", "info kept",
                           "spline adds p", "nonlinear p"})
