@@ -157,7 +157,7 @@ def cards(info: Any, kept_ci: str, counts: dict[str, str]) -> list[dict[str, str
     return [
         {"label": "information kept by the legacy groups",
          "value": text.percent(get(info, "info_kept")),
-         "sub": (f"95% bootstrap interval {kept_ci}; " if kept_ci else "")
+         "sub": (f"bootstrap interval {kept_ci}; " if kept_ci else "")
          + f"LR χ² {text.number(get(info, 'lr_legacy'))} of "
            f"{text.number(get(info, 'lr_legacy_plus_spline'))}"},
         {"label": "a spline adds to the groups", "value": "p " + text.pvalue(get(info, "added_p")),
