@@ -195,6 +195,60 @@ def test_report_opens_in_chromium(demo: Path, chromium: str, tmp_path: Path) -> 
         shutil.copy(shot, Path(keep) / "report.png")
 
 
+LAYOUT_JS = """
+(() => {
+  document.querySelectorAll('details').forEach(d => { d.open = true; });
+  const width = document.documentElement.clientWidth;
+  const overflow = [];
+  for (const el of document.body.querySelectorAll('*')) {
+    if (el.closest('.scroll, pre')) continue;          // wide tables scroll inside their box
+    const r = el.getBoundingClientRect();
+    if (r.width > 0 && (r.right > width + 0.5 || r.left < -0.5)) {
+      overflow.push(`${el.tagName}.${el.className} ${Math.round(r.left)}-${Math.round(r.right)}`);
+    }
+  }
+  document.querySelectorAll('pre').forEach(p => p.remove());   // the spec as the user wrote it
+  return {width, scrollWidth: document.documentElement.scrollWidth, overflow,
+          text: document.body.innerText};
+})()
+"""
+
+# Codes of the tables' cells that are internal names too (the column names come from the tables).
+INTERNAL_CODES = ("common_spline", "test_spline", "legacy+test_spline", "per_unit")
+
+
+@pytest.mark.workflow
+def test_report_fits_1280_px_and_shows_no_internal_name(demo: Path, chromium: str,
+                                                        tmp_path: Path) -> None:
+    """At 1,280 px nothing sticks out of the page except inside the scroll boxes wide tables
+    live in, and no internal column name of any study-level table (the ones with an underscore:
+    the others are plain words) appears in the visible text, every fold opened."""
+    import pandas as pd
+
+    report = demo / "report.html"
+    assert report.stat().st_size < 3_000_000, report.stat().st_size
+    names = {c for p in (demo / "tables").glob("*.parquet")
+             for c in pd.read_parquet(p).columns if "_" in c} | set(INTERNAL_CODES)
+    assert {"q_df", "cut_rank", "lr_test_spline"} <= names
+    with tempfile.TemporaryDirectory() as profile, Chromium(chromium, Path(profile)) as browser:
+        page = open_report(browser, report)
+        page.call("Emulation.setDeviceMetricsOverride", width=1280, height=900,
+                  deviceScaleFactor=1, mobile=False)
+        got = page.evaluate(LAYOUT_JS)
+        page.screenshot(tmp_path / "report-1280.png", 1280, 900)
+    assert got["width"] == 1280 and got["scrollWidth"] <= 1280, got["scrollWidth"]
+    assert got["overflow"] == [], got["overflow"][:10]
+    visible = got["text"]
+    assert "Study summary" in visible and len(visible) > 10_000
+    raw = sorted(n for n in names
+                 if re.search(rf"(?<![\w.+]){re.escape(n)}(?![\w.+])", visible))
+    assert raw == [], raw
+    keep = os.environ.get("UNBIN_SCREENSHOTS")
+    if keep:
+        Path(keep).mkdir(parents=True, exist_ok=True)
+        shutil.copy(tmp_path / "report-1280.png", Path(keep) / "report-1280.png")
+
+
 # --------------------------------------------------------------------------- the terminal
 
 

@@ -123,11 +123,14 @@ def test_summary_numbers_are_the_legacy_rows_of_the_tables(tmp_path: Path,
     legacy, cont = info.loc["legacy"], info.loc["continuous"]
     assert f"{legacy['lr_spline']:.1f}" != f"{cont['lr_spline']:.1f}"  # the codings differ
     (row,) = _cells(information_summary(out))
-    assert row["analysis"] == "a" and row["status"] == "ok"
+    assert row["analysis"] == "a" and "status" not in row  # every analysis ok: no column
     assert row["n"] == str(n)
-    assert row["LR χ² groups (df)"] == f"{legacy['lr_legacy']:.1f} ({legacy['df_legacy']:.0f})"
-    assert row["LR χ² spline (df)"] == f"{legacy['lr_spline']:.1f} ({legacy['df_spline']:.0f})"
-    assert row["info kept"] == f"{legacy['info_kept']:.2f}"
+    # Three significant digits, trailing zeros dropped (present/text.py; below 1,000 that is
+    # Python's own "g" format); information kept as a whole percent.
+    assert legacy["lr_legacy"] < 1000 and legacy["lr_spline"] < 1000
+    assert row["LR χ² groups (df)"] == f"{legacy['lr_legacy']:.3g} ({legacy['df_legacy']:.0f})"
+    assert row["LR χ² spline (df)"] == f"{legacy['lr_spline']:.3g} ({legacy['df_spline']:.0f})"
+    assert row["info kept"] == f"{100 * legacy['info_kept']:.0f}%"
     p = legacy["nonlinearity_p"]
     assert row["nonlinear p"] == ("<0.001" if p < 0.001 else f"{p:.3f}")
     assert row["best by AIC"] == legacy["best_form"]
@@ -135,7 +138,7 @@ def test_summary_numbers_are_the_legacy_rows_of_the_tables(tmp_path: Path,
     fits = tables["fits"]
     fits = fits[(fits["adjustment"] == "legacy") & fits["selected"]].set_index("form")["loglik"]
     kept = (fits["legacy"] - fits["null"]) / (fits["legacy+test_spline"] - fits["null"])
-    assert float(row["info kept"]) == pytest.approx(kept, abs=0.005)
+    assert float(row["info kept"].rstrip("%")) / 100 == pytest.approx(kept, abs=0.005)
 
 
 def test_printed_summary_names_the_failed_analysis_and_its_numbers(tmp_path: Path) -> None:
@@ -163,9 +166,9 @@ def test_printed_summary_names_the_failed_analysis_and_its_numbers(tmp_path: Pat
     console = Console(record=True, width=200, color_system=None)
     print_summary(tmp_path, console)
     text = console.export_text()
-    assert "12.3 (2)" in text and "31.3 (3)" in text and "0.39" in text
+    assert "12.3 (2)" in text and "31.3 (3)" in text and "39%" in text
     assert "<0.001" in text and "0.031" in text and "480" in text
-    assert "99.9" not in text and "1.00" not in text  # the continuous coding is not shown
+    assert "99.9" not in text  # the continuous coding (LR 99.9) is not shown
     assert "north/visits_bmi failed: only 3 rows are left after filters" in text
 
 

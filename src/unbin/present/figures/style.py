@@ -195,21 +195,18 @@ def null_value(scale: str) -> float:
 
 
 def fmt_ratio(v: float) -> str:
-    if v >= 10:
-        return f"{v:.0f}"
-    if v >= 1:
-        return f"{v:.2f}".rstrip("0").rstrip(".")
-    return f"{v:.2g}"
+    """A ratio as the report prints it (``present.text.ratio``)."""
+    from .. import text
+
+    return text.ratio(v)
 
 
 def fmt_number(v: float, digits: int = 4) -> str:
-    """A short human number: ``digits`` significant digits, no trailing zeros, no exponent for
-    everyday magnitudes."""
-    if not math.isfinite(v):
-        return "–"
-    if abs(v) >= 10 ** digits:
-        return f"{v:,.0f}"
-    return f"{v:.{digits}g}"
+    """A short human number: ``digits`` significant digits, no trailing zeros (``present.text.
+    number``)."""
+    from .. import text
+
+    return text.number(v, digits)
 
 
 def tick_decimals(ticks: Sequence[float]) -> int:

@@ -1,0 +1,155 @@
+"""Human labels for what the tables hold: column names, form codes, adjustment codings, pooling
+methods. Every table the report or the terminal shows takes its headers and codes from here; a
+column no entry names (a future question's table) gets a readable label built from its name, so
+no internal name reaches a reader."""
+
+from __future__ import annotations
+
+import re
+
+COLUMNS: dict[str, str] = {
+    "cohort": "cohort", "analysis": "analysis", "adjustment": "adjustment",
+    "form": "form", "detail": "model", "status": "status", "message": "note",
+    "reason": "reason", "note": "note", "caution": "caution", "scale": "scale",
+    "n": "rows", "n_input": "rows in extract", "n_used": "rows used", "rows": "rows",
+    "events": "events", "person_time": "person-time", "follow_up": "follow-up",
+    "step": "step", "family": "outcome", "exposure": "exposure",
+    # fits
+    "selected": "selected", "n_params": "parameters", "exposure_df": "exposure df",
+    "loglik": "log-likelihood", "lr_chi2": "LR χ²", "aic": "AIC", "bic": "BIC",
+    "c_index": "C-index", "r2": "R²", "converged": "converged", "warnings": "warnings",
+    "exposure_basis": "exposure basis", "adjustment_terms": "adjustment terms",
+    # information
+    "lr_legacy": "LR χ² groups", "df_legacy": "df groups", "lr_linear": "LR χ² linear",
+    "df_linear": "df linear", "lr_spline": "LR χ² spline", "df_spline": "df spline",
+    "lr_fp": "LR χ² FP", "fp_detail": "FP powers", "lr_test_spline": "LR χ² test spline",
+    "df_test_spline": "df test spline", "test_detail": "test spline",
+    "lr_legacy_plus_spline": "LR χ² groups + spline", "info_kept": "information kept",
+    "info_kept_lower": "information kept, lower", "info_kept_upper": "information kept, upper",
+    "added_lr": "LR χ² spline beyond groups", "added_df": "df spline beyond groups",
+    "added_p": "spline adds, p", "nonlinearity_lr": "LR χ² nonlinearity",
+    "nonlinearity_df": "df nonlinearity", "nonlinearity_p": "nonlinear, p",
+    "c_legacy": "C groups", "c_linear": "C linear", "c_spline": "C spline", "c_fp": "C FP",
+    "delta_c": "ΔC (spline − groups)", "aic_legacy": "AIC groups", "aic_linear": "AIC linear",
+    "aic_spline": "AIC spline", "aic_fp": "AIC FP", "best_form": "best by AIC",
+    "interaction_lr": "LR χ² interaction", "interaction_df": "df interaction",
+    "interaction_p": "interaction, p", "interaction_detail": "interaction model",
+    "level": "level", "replicates": "replicates", "replicates_used": "replicates used",
+    # effects, curves
+    "contrast_type": "contrast kind", "contrast": "contrast", "group": "group",
+    "x_value": "exposure value", "x_reference": "reference value", "x": "exposure value",
+    "estimate": "estimate", "se": "SE", "lower": "lower", "upper": "upper",
+    "effect": "effect", "effect_lower": "effect, lower", "effect_upper": "effect, upper",
+    "within_p10": "spline in group, 10th pct", "within_p90": "spline in group, 90th pct",
+    "by_level": "level", "in_range": "in range", "bin_left": "bin from", "bin_right": "bin to",
+    "count": "count", "suppressed": "suppressed",
+    # pooled
+    "method": "pooling", "k": "cohorts (k)", "cohorts": "cohorts", "groups": "groups",
+    "pi_lower": "prediction, lower", "pi_upper": "prediction, upper",
+    "effect_pi_lower": "prediction effect, lower", "effect_pi_upper": "prediction effect, upper",
+    "tau2": "τ²", "tau2_method": "τ² estimator", "i2": "I²", "q": "Q", "q_df": "Q df",
+    "q_p": "Q p-value", "item": "pooled item",
+    # harmonisation, cut points
+    "variable": "variable", "role": "role", "cut": "cut", "percentile": "percentile",
+    "median": "median", "derived_from_data": "chosen from the data", "cut_rank": "cut number",
+    "cut_median_correlation": "cut–median correlation",
+    "mean_distance_from_p50": "mean distance from the median (percentile points)",
+    "distance_to_median": "distance to the median",
+    "distance_percentile_points": "distance (percentile points)",
+    "row_type": "row kind", "statistic": "statistic", "statistic_name": "statistic",
+    "p_naive": "naive p", "p_lausen": "corrected p (Lausen)", "p_altman": "corrected p (Altman)",
+    "p_permutation": "permutation p", "p_simulated": "simulated p",
+    "adjusted_for": "adjusted for", "n_candidates": "candidate cuts",
+    "search_lower": "search from", "search_upper": "search to",
+    "bootstrap": "bootstrap replicates", "bootstrap_ok": "bootstrap fits",
+    "bootstrap_failed": "bootstrap failures",
+    # replication, confounding, ranges, decisions
+    "reported_effect": "published", "reported_lower": "published, lower",
+    "reported_upper": "published, upper", "refit_effect": "refit", "refit_lower": "refit, lower",
+    "refit_upper": "refit, upper", "verdict": "verdict", "disagrees": "disagrees",
+    "share_left": "share of confounding left", "exposure_form": "exposure form",
+    "scope": "confounders", "trim": "trim", "change": "change",
+    "threshold": "risk threshold", "net_benefit": "net benefit", "rule": "rule",
+    "model": "model", "exposure_value": "exposure value", "nearest_cut": "nearest legacy cut",
+    "profile_quantile": "rest-of-risk quantile",
+}
+
+FORMS: dict[str, str] = {
+    "legacy": "legacy groups", "linear": "linear", "spline": "spline",
+    "fp": "fractional polynomial", "fp1": "fractional polynomial, degree 1",
+    "fp2": "fractional polynomial, degree 2", "null": "adjustment only",
+    "legacy+spline": "groups + spline", "legacy+test_spline": "groups + test spline",
+    "test_spline": "test spline (fixed knots)", "common_spline": "spline on common knots",
+    "legacy x level": "legacy groups × level", "spline x level": "spline × level",
+    "crude": "crude",
+}
+
+ADJUSTMENTS: dict[str, str] = {
+    "legacy": "as in the legacy analysis", "continuous": "confounders continuous",
+    "none": "unadjusted",
+}
+
+METHODS: dict[str, str] = {
+    "fixed": "fixed effect", "random": "random effects",
+    "random HKSJ": "random effects, HKSJ",
+    "multivariate fixed": "multivariate fixed", "multivariate random": "multivariate random",
+}
+
+CONTRAST_TYPES: dict[str, str] = {
+    "group": "legacy group", "iqr": "quartiles", "per_unit": "per unit",
+    "common group": "common group values", "common quartiles": "common quartiles",
+}
+
+FAMILIES: dict[str, str] = {
+    "binary": "binary (logistic)", "continuous": "continuous (linear)",
+    "count": "count (Poisson)", "survival": "time to event (Cox)",
+}
+
+# Abbreviations spelled out when a label is built from a column's name.
+_WORDS: dict[str, str] = {
+    "lr": "LR χ²", "p": "p", "df": "df", "se": "SE", "ci": "CI", "n": "rows", "aic": "AIC",
+    "bic": "BIC", "fp": "FP", "pi": "prediction", "tau2": "τ²", "i2": "I²", "q": "Q",
+    "c": "C", "info": "information", "pct": "percent", "lo": "lower", "hi": "upper",
+    "p50": "median", "x": "exposure",
+}
+
+
+def column(name: str) -> str:
+    """The header of a column: its label, or one built from its name (``q_df`` -> "Q df")."""
+    if name in COLUMNS:
+        return COLUMNS[name]
+    words = [w for w in re.split(r"[_\s]+", str(name)) if w]
+    if not words:
+        return str(name)
+    return " ".join(_WORDS.get(w.lower(), w) for w in words)
+
+
+def code(kind: str, value: object) -> str:
+    """A code in a table cell as words: ``code("form", "fp")`` -> "fractional polynomial"."""
+    text = str(value)
+    table = {"form": FORMS, "exposure_form": FORMS, "model": FORMS, "best_form": FORMS,
+             "adjustment": ADJUSTMENTS, "method": METHODS, "contrast_type": CONTRAST_TYPES,
+             "family": FAMILIES}.get(kind, {})
+    if text in table:
+        return table[text]
+    if kind in ("form", "exposure_form", "model", "best_form"):
+        return form(text)
+    return text
+
+
+def form(value: str) -> str:
+    """A form code as words, also for the composite codes (``spline x age``)."""
+    if value in FORMS:
+        return FORMS[value]
+    m = re.fullmatch(r"(\w+) x (.+)", value)
+    if m and m.group(1) in FORMS:
+        return f"{FORMS[m.group(1)]} × {m.group(2)}"
+    return value.replace("_", " ")
+
+
+SHORT_FORMS: dict[str, str] = {"fp": "FP", "legacy": "groups", "legacy+spline": "groups + spline"}
+
+
+def short_form(value: str) -> str:
+    """A form code for narrow columns (the terminal): "FP" for fractional polynomial."""
+    return SHORT_FORMS.get(value, form(value))
