@@ -235,3 +235,18 @@ def test_a_poisson_group_without_counts_is_not_reported_as_a_finite_fit(
         tables, status = _analyse(tmp_path, one_analysis, "count", frame)
     legacy = tables["fits"][tables["fits"]["form"] == "legacy"]
     assert (legacy["status"] == "failed").all()
+
+
+@pytest.mark.parametrize("family", ["survival", "count", "binary"])
+def test_person_time_is_the_samples_follow_up(refit_frame: Any, one_analysis: Any,
+                                              family: str) -> None:
+    # Reference: pandas sums of the extract's own follow-up column over the rows the fits used
+    # (the clinic frame has no missing values, so the sample is the whole frame).
+    frame, fits = _refit(refit_frame, one_analysis, family, 400, 57)
+    assert (fits["n"] == len(frame)).all()
+    if family == "binary":
+        assert fits["person_time"].isna().all()
+        return
+    column = OUTCOMES[family]["time" if family == "survival" else "persontime"]
+    expected = float(frame[column].sum())
+    assert np.allclose(fits["person_time"].to_numpy(float), expected, rtol=1e-12)

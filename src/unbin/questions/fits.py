@@ -7,20 +7,37 @@ import json
 import numpy as np
 import pandas as pd
 
+from ..models.base import Outcome
 from ..models.discrimination import c_index
 from ..models.robust import variance_label
 from ..refit.analysis import Refit
 from ..spec import Spec
 
-COLUMNS = ("form", "detail", "adjustment", "selected", "n", "events", "n_params", "exposure_df",
+COLUMNS = ("form", "detail", "adjustment", "selected", "n", "events", "person_time",
+           "n_params", "exposure_df",
            "loglik", "lr_chi2", "aic", "bic", "c_index", "r2", "variance",
            "dispersion", "nb_alpha", "nb_alpha_se", "converged", "status", "message",
            "warnings", "exposure_basis", "adjustment_terms")
 
 
+def person_time(outcome: Outcome) -> float:
+    """Follow-up summed over the sample's rows (frequency weights counted): time minus entry for a
+    time-to-event outcome, the person-time of a count outcome; NaN for the other families."""
+    if outcome.family == "survival" and outcome.time is not None:
+        each = outcome.time - (outcome.entry if outcome.entry is not None else 0.0)
+    elif outcome.family == "count" and outcome.offset is not None:
+        each = np.exp(outcome.offset)
+    else:
+        return float("nan")
+    if outcome.weights is not None and outcome.weight_kind == "frequency":
+        each = each * outcome.weights  # sampling weights: the sample's own follow-up
+    return float(np.sum(each))
+
+
 def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     """One row per fitted model: size, likelihood, AIC, concordance and its bases as JSON."""
     rows = []
+    follow_up = person_time(r.outcome)
     nulls = {f.adjustment: f.result for f in r.fits if f.form == "null"}
     for f in r.fits:
         res = f.result
@@ -37,6 +54,7 @@ def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             "selected": bool(f.selected),
             "n": res.n,
             "events": res.events if res.events is not None else pd.NA,
+            "person_time": follow_up,
             "n_params": res.n_params,
             "exposure_df": df_exp,
             "loglik": res.loglik,
