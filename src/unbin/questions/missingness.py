@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from ..data import Sample, coerce_numeric
+from ..errors import DataError
 from ..spec import Analysis, Spec
 from ..terms.legacy import legacy_term
 from ..terms.roles import variable_role
@@ -223,11 +224,17 @@ def _smd(values: pd.Series, complete: pd.Series, column: str, role: str, a: Anal
         return {**base, "note": "no row dropped"}
     if len(lost) == 0:
         return {**base, "note": "observed in no dropped row"}
+    if len(kept) == 0:
+        return {**base, "note": "no complete-case row"}
     if disclosure.too_small_to_describe(min(len(kept), len(lost)), min_cell):
         return {**base, "note": "withheld: fewer than min_cell rows on one side"}
     if kind == "levels":
         return {**base, "smd": smd_levels(kept, lost)}
     if min(len(kept), len(lost)) < 2:
         return {**base, "note": "one row on one side: no spread"}
-    value = smd_means(_numeric(kept, column).to_numpy(float), _numeric(lost, column).to_numpy(float))
+    try:
+        value = smd_means(_numeric(kept, column).to_numpy(float),
+                          _numeric(lost, column).to_numpy(float))
+    except DataError:
+        return {**base, "note": "not numeric: no difference computed"}
     return {**base, "smd": value, "note": "" if np.isfinite(value) else "no spread on either side"}
