@@ -292,3 +292,21 @@ def test_the_demo_fit_job_writes_a_keyed_missingness_table(tmp_path: Path) -> No
     assert cell["rows"] == len(rows) and rows["urate"].isna().sum() >= spec.min_cell
     assert cell["missing"] == rows["urate"].isna().sum()
     assert cell["share_missing"] == pytest.approx(rows["urate"].isna().mean(), abs=1e-15)
+
+
+def test_a_failing_missingness_table_loses_only_itself(tmp_path: Path,
+                                                       monkeypatch: pytest.MonkeyPatch) -> None:
+    import unbin.pipeline.jobs as jobs
+
+    def broken(*args: Any) -> pd.DataFrame:
+        raise ValueError("boom")
+
+    monkeypatch.setattr(jobs, "missingness_table", broken)
+    rng = np.random.default_rng(9)
+    n = 200
+    frame = pd.DataFrame({"marker": rng.normal(55, 12, n), "z": rng.normal(size=n),
+                          "y": (rng.random(n) < 0.3).astype(float)})
+    spec = _spec(tmp_path, {"type": "binary", "event": "y"}, adjust=["z"])
+    tables, status = analyse(spec, "sim", "a", frame, resampling=False)
+    assert status["status"] == "partial" and "missingness" in status["message"]
+    assert tables["missingness"].empty and len(tables["fits"]) > 0
