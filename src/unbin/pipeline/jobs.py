@@ -29,6 +29,8 @@ from ..data import (
 )
 from ..errors import DataError, UnbinError
 from ..questions import KEY_COLUMNS, QUESTION_TABLES, RESAMPLING_TABLES
+from ..questions.missingness import COLUMNS as MISSINGNESS_COLUMNS
+from ..questions.missingness import missingness_table
 from ..results.provenance import provenance
 from ..results.tables import read_table, write_table
 from ..spec import Spec, digest, load_spec
@@ -52,7 +54,7 @@ def _builder(target: str) -> Callable[[Refit, Spec], pd.DataFrame]:
 
 log = logging.getLogger("unbin")
 
-FIT_JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "status")
+FIT_JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "missingness", "status")
 JOB_TABLES: tuple[str, ...] = (*FIT_JOB_TABLES, *RESAMPLING_TABLES)
 STUDY_TABLES = JOB_TABLES
 
@@ -95,6 +97,8 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                               "family": a.family, "exposure": a.exposure}
     tables: dict[str, pd.DataFrame] = {}
     samples = pd.DataFrame({"step": pd.Series(dtype=str), "rows": pd.Series(dtype="int64")})
+    missing = pd.DataFrame(columns=list(MISSINGNESS_COLUMNS))
+    missing_note: list[str] = []
     try:
         problems = _type_problems(a, frame, spec)
         if problems:
@@ -105,6 +109,13 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
             + [(f"dropped: {reason}", n) for reason, n in sample.dropped]
             + [("analysis sample", sample.n)], columns=["step", "rows"])
         status["n_used"] = sample.n
+        try:  # built before the size check: it explains a sample that is too small
+            missing = missingness_table(frame, sample, a, spec)
+        except Exception as exc:
+            log.error("internal error in %s/%s, table missingness:\n%s", cohort, analysis,
+                      traceback.format_exc())
+            missing_note.append(f"table 'missingness' failed ({type(exc).__name__}: {exc}); "
+                                "it is empty, the other tables are complete")
         if sample.n < MIN_SAMPLE_ROWS:
             step, lost = max(sample.dropped, key=lambda d: d[1], default=("", 0))
             most = f" (most were dropped by '{step}': {lost} rows)" if lost else ""
@@ -136,8 +147,8 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                 tables[name] = pd.DataFrame()
                 lost_questions.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its "
                             "table is empty, the other tables are complete")
-        notes = refit.messages + failed + lost_questions
-        if failed or lost_questions:
+        notes = refit.messages + failed + lost_questions + missing_note
+        if failed or lost_questions or missing_note:
             status["status"] = "partial"
         status["message"] = " | ".join(dict.fromkeys(notes))
     except UnbinError as exc:
@@ -150,6 +161,7 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                               "with the log file of this job.")
         tables = {}
     tables["samples"] = samples
+    tables["missingness"] = missing
     tables["status"] = pd.DataFrame([status])
     return tables, status
 
