@@ -21,7 +21,7 @@ from unbin.pipeline.runner import snakemake_command
 from unbin.results.tables import read_table
 
 pytestmark = pytest.mark.workflow
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 
 
 def small_spec(folder: Path, n: int = 700) -> Path:

@@ -12,7 +12,7 @@ from typing import Any
 import pandas as pd
 import pytest
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 README = (ROOT / "README.md").read_text(encoding="utf-8")
 SCHEMA = ROOT / "src" / "unbin" / "workflow" / "schemas" / "spec.schema.json"
 
