@@ -7,7 +7,7 @@ from snakemake.utils import min_version, validate
 from unbin.consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
 from unbin.pipeline.jobs import FIT_JOB_TABLES, JOB_TABLES, RESAMPLING_TABLES, STUDY_TABLES
 from unbin.spec import load_spec
-from unbin.workflow_support import analysis_params, basis_params, cohort_params, study_params
+from unbin.pipeline.workflow_support import analysis_params, basis_params, cohort_params, study_params
 
 min_version("9.0")
 

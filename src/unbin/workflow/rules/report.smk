@@ -12,7 +12,6 @@ rule draw_figures:
     output:
         directory("figures/{cohort}"),
     params:
-        spec=UNBIN_SPEC_PATH,
         digests=study_params(UNBIN_SPEC),
     log:
         "logs/figures/{cohort}.log",
@@ -30,7 +29,6 @@ rule build_report:
         report="report.html",
         study=directory("figures/_study"),
     params:
-        spec=UNBIN_SPEC_PATH,
         digests=study_params(UNBIN_SPEC),
     log:
         "logs/report.log",
