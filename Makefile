@@ -17,14 +17,15 @@ install: $(STAMP)
 demo: $(STAMP)
 	$(BIN)/unbin demo --out demo-out --cores 2
 
-test: $(STAMP)
-	$(BIN)/ruff check src tests benchmarks workflow/scripts
-	$(BIN)/mypy
+# The rule files are formatted by snakefmt; `snakemake --lint` on the packaged Snakefile with the
+# tiny `.test/` config runs in pytest (tests/workflow/test_rules.py).
+test: lint
 	$(BIN)/python -m pytest
 
 lint: $(STAMP)
-	$(BIN)/ruff check src tests benchmarks workflow/scripts
+	$(BIN)/ruff check src tests benchmarks workflow/scripts .test
 	$(BIN)/mypy
+	$(BIN)/snakefmt --check src/unbin/workflow
 
 # Mutation testing of the statistics modules against their unit tests ([tool.mutmut] in
 # pyproject.toml); not part of CI. All modules take hours (~2,500 mutants); one module:

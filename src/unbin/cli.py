@@ -112,10 +112,10 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 def cmd_pool(args: argparse.Namespace) -> int:
     from .consortium.bundles import POOLED_TABLES
-    from .pipeline.jobs import pool_job
+    from .pipeline.jobs import pool_bundles
 
     out = Path(args.out) / "tables"
-    pool_job([Path(b) for b in args.bundles], out)
+    pool_bundles([Path(b) for b in args.bundles], out)
     console = _console(args.quiet)
     console.print(f"Pooled {len(args.bundles)} bundle(s): "
                   + ", ".join(str(out / f"{t}.parquet") for t in POOLED_TABLES), markup=False)

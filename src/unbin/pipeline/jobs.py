@@ -1,8 +1,11 @@
-"""What the workflow's jobs do, as plain functions (the rule scripts only call these).
+"""What the workflow's jobs do, as plain functions: one per rule, named after the rule (the rule
+scripts only call these). Questions never read files; this module is where reading and writing
+happens.
 
-``run_analysis_job`` fits one analysis on one cohort and writes its per-job tables;
-``collect_tables`` concatenates every job's tables into the study-level tables. Questions never
-read files; this module is where reading and writing happens.
+Per (cohort, analysis): ``fit_analysis`` (the fits and the question tables built from them) and
+``resample_analysis`` (the resampling questions). Study level: ``collect_tables``. Consortium
+mode: ``summarise_sample``, ``common_basis``, ``bundle_cohort``, ``pool_bundles``. Last:
+``draw_figures`` (one cohort's figures) and ``build_report``.
 """
 
 from __future__ import annotations
@@ -87,7 +90,7 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
             ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
     """Every question's table for one analysis on one cohort's rows, plus its status record
     (the resampling questions too unless ``resampling`` is false: the workflow runs those in
-    their own job, ``resample_job``).
+    their own job, ``resample_analysis``).
 
     Problems of this analysis (bad data, empty sample, a failing question) are recorded in the
     status, never raised: the other analyses must complete.
@@ -166,8 +169,8 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
     return tables, status
 
 
-def run_analysis_job(spec_path: str | Path, cohort: str, analysis: str,
-                     outdir: str | Path, basis_path: str | Path | None = None) -> dict[str, Any]:
+def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
+                 outdir: str | Path, basis_path: str | Path | None = None) -> dict[str, Any]:
     spec = load_spec(spec_path).for_cohort(cohort)
     a = spec.analysis(analysis)
     rec = input_record(spec, cohort)
@@ -219,7 +222,7 @@ def collect_tables(spec_path: str | Path, work: str | Path, tables_dir: str | Pa
 # --------------------------------------------------------------------------- consortium mode
 
 
-def summarise_job(spec_path: str | Path, cohort: str, analysis: str, out: str | Path) -> None:
+def summarise_sample(spec_path: str | Path, cohort: str, analysis: str, out: str | Path) -> None:
     """A cohort's share-safe summary of one analysis' exposure (for the common basis)."""
     spec = load_spec(spec_path).for_cohort(cohort)
     a = spec.analysis(analysis)
@@ -241,8 +244,8 @@ def summarise_job(spec_path: str | Path, cohort: str, analysis: str, out: str | 
     Path(out).write_text(json.dumps(summary, sort_keys=True, indent=1))
 
 
-def common_basis_job(spec_path: str | Path, analysis: str, summaries: list[str],
-                     out: str | Path) -> None:
+def common_basis(spec_path: str | Path, analysis: str, summaries: list[str],
+                 out: str | Path) -> None:
     spec = load_spec(spec_path)
     a = spec.analysis(analysis)
     usable = [d for d in (json.loads(Path(p).read_text()) for p in summaries)
@@ -259,8 +262,8 @@ BUNDLE_SOURCES = ("fits", "curves", "effects", "coefficients", "common_contrasts
                   "cutpoints")
 
 
-def bundle_job(spec_path: str | Path, cohort: str, work: str | Path,
-               bundle_dir: str | Path) -> None:
+def bundle_cohort(spec_path: str | Path, cohort: str, work: str | Path,
+                  bundle_dir: str | Path) -> None:
     """The cohort's share-safe bundle, built from its job tables."""
     spec = load_spec(spec_path).for_cohort(cohort)
     tables = {}
@@ -299,7 +302,7 @@ def read_bundle(bundle_dir: str | Path) -> tuple[dict[str, pd.DataFrame], dict[s
             read_provenance(d / "curves.parquet"))
 
 
-def pool_job(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
+def pool_bundles(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
     """Pool cohort bundles (from one run or from separate runs) into the pooled tables."""
     bundles, provs = {}, []
     for d in bundle_dirs:
@@ -310,9 +313,9 @@ def pool_job(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
             raise DataError(f"two bundles are for cohort {name!r}; pass each cohort once.")
         bundles[name] = bundle
         provs.append(prov)
-    from ..consortium.pool import pool_bundles
+    from ..consortium import pool
 
-    pooled = pool_bundles(dict(sorted(bundles.items())))  # the same tables in any order
+    pooled = pool.pool_bundles(dict(sorted(bundles.items())))  # the same tables in any order
     inputs = [i for p in provs for i in p.get("inputs", [])]
     prov = dict(inputs=inputs, spec_digest=digest(sorted(p.get("spec_digest", "") for p in provs)),
                 seed=provs[0].get("seed", 0) if provs else 0,
@@ -362,7 +365,7 @@ def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.Da
     return pd.concat(parts, ignore_index=True) if parts else changes
 
 
-def resample_job(spec_path: str | Path, cohort: str, analysis: str, outdir: str | Path) -> None:
+def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir: str | Path) -> None:
     """The resampling questions of one analysis on one cohort (bootstrap, permutations), on the
     analysis sample; an analysis that cannot run leaves empty tables (its fit job records why)."""
     spec = load_spec(spec_path).for_cohort(cohort)
@@ -390,3 +393,22 @@ def resample_job(spec_path: str | Path, cohort: str, analysis: str, outdir: str 
         df = tables.get(name, pd.DataFrame())
         write_table(_keyed(df, cohort, analysis), Path(outdir) / f"{name}.parquet",
                     provenance(table=name, **prov_base))  # type: ignore[arg-type]
+
+
+# --------------------------------------------------------------------------- figures and report
+
+
+def draw_figures(spec_path: str | Path, cohort: str, figures_dir: str | Path) -> None:
+    """One cohort's figures into ``figures_dir`` (``<run>/figures/<cohort>``), from the run's
+    study-level tables."""
+    from ..present import report
+
+    report.draw_cohort_figures(Path(figures_dir).parent.parent, spec_path, cohort)
+
+
+def build_report(spec_path: str | Path, report_path: str | Path) -> None:
+    """The study-level figures and the self-contained HTML report at ``report_path``
+    (``<run>/report.html``), with the cohorts' figures read from their own jobs' folders."""
+    from ..present import report
+
+    report.build_report(Path(report_path).parent, spec_path, draw_cohorts=False)

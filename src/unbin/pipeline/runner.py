@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import UnbinError
-from ..workflow_support import snakefile
+from .workflow_support import snakefile
 
 PROGRESS = re.compile(r"(\d+) of (\d+) steps \((\d+(?:\.\d+)?)%\) done")
 PROFILES = ("local", "slurm")

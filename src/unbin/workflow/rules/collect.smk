@@ -2,7 +2,6 @@
 
 
 rule collect_tables:
-    localrule: True
     input:
         expand(
             "work/{cohort}/{analysis}/{table}.parquet",
@@ -12,11 +11,12 @@ rule collect_tables:
         ),
     output:
         expand("tables/{table}.parquet", table=STUDY_TABLES),
-    params:
-        digests=study_params(UNBIN_SPEC),
     log:
         "logs/collect.log",
     benchmark:
         "benchmarks/collect_tables/all.tsv"
+    localrule: True
+    params:
+        digests=study_params(UNBIN_SPEC),
     script:
         "../scripts/collect_tables.py"

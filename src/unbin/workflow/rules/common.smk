@@ -6,8 +6,13 @@ from snakemake.utils import min_version, validate
 
 from unbin.consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
 from unbin.pipeline.jobs import FIT_JOB_TABLES, JOB_TABLES, RESAMPLING_TABLES, STUDY_TABLES
+from unbin.pipeline.workflow_support import (
+    analysis_params,
+    basis_params,
+    cohort_params,
+    study_params,
+)
 from unbin.spec import load_spec
-from unbin.workflow_support import analysis_params, basis_params, cohort_params, study_params
 
 min_version("9.0")
 
@@ -19,7 +24,9 @@ validate(config, str(UNBIN_RULES_DIR.parent / "schemas" / "config.schema.json"))
 UNBIN_SPEC_PATH = str(Path(config["spec"]).resolve())
 UNBIN_SPEC = load_spec(UNBIN_SPEC_PATH)
 # Snakemake's validate fills schema defaults in place: validate a copy, keep the spec as written.
-validate(copy.deepcopy(UNBIN_SPEC.raw), str(UNBIN_RULES_DIR.parent / "schemas" / "spec.schema.json"))
+validate(
+    copy.deepcopy(UNBIN_SPEC.raw), str(UNBIN_RULES_DIR.parent / "schemas" / "spec.schema.json")
+)
 
 UNBIN_COHORTS = [c.name for c in UNBIN_SPEC.cohorts]
 UNBIN_ANALYSES = [a.name for a in UNBIN_SPEC.analyses]
@@ -34,7 +41,7 @@ UNBIN_DERIVED_BASIS = {
 # (`localrule: True`), which survives a consumer's `use rule * from unbin as unbin_*` (a
 # `localrules:` list names the unprefixed rules and is lost there).
 
+
 wildcard_constraints:
     cohort="[A-Za-z0-9][A-Za-z0-9_-]*",
     analysis="[A-Za-z0-9][A-Za-z0-9_-]*",
-

@@ -8,52 +8,56 @@ rule summarise_sample:
         extract=lambda w: str(UNBIN_SPEC.cohort(w.cohort).path),
     output:
         "summaries/{cohort}/{analysis}.json",
-    params:
-        digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     log:
         "logs/summarise/{cohort}/{analysis}.log",
     benchmark:
         "benchmarks/summarise_sample/{cohort}/{analysis}.tsv"
+    params:
+        digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     script:
         "../scripts/summarise_sample.py"
 
 
 rule common_basis:
-    localrule: True
     input:
-        lambda w: expand("summaries/{cohort}/{analysis}.json", cohort=UNBIN_COHORTS,
-                         analysis=w.analysis),
+        lambda w: expand(
+            "summaries/{cohort}/{analysis}.json", cohort=UNBIN_COHORTS, analysis=w.analysis
+        ),
     output:
         "common/{analysis}.json",
-    params:
-        digests=lambda w: basis_params(UNBIN_SPEC, w.analysis),
     log:
         "logs/common/{analysis}.log",
     benchmark:
         "benchmarks/common_basis/{analysis}.tsv"
+    localrule: True
+    params:
+        digests=lambda w: basis_params(UNBIN_SPEC, w.analysis),
     script:
         "../scripts/common_basis.py"
 
 
 rule bundle_cohort:
-    localrule: True
     input:
-        lambda w: expand("work/{cohort}/{analysis}/{table}.parquet", cohort=w.cohort,
-                         analysis=UNBIN_ANALYSES, table=JOB_TABLES),
+        lambda w: expand(
+            "work/{cohort}/{analysis}/{table}.parquet",
+            cohort=w.cohort,
+            analysis=UNBIN_ANALYSES,
+            table=JOB_TABLES,
+        ),
     output:
         expand("bundles/{{cohort}}/{table}.parquet", table=BUNDLE_TABLES),
-    params:
-        digests=lambda w: cohort_params(UNBIN_SPEC, w.cohort),
     log:
         "logs/bundle/{cohort}.log",
     benchmark:
         "benchmarks/bundle_cohort/{cohort}.tsv"
+    localrule: True
+    params:
+        digests=lambda w: cohort_params(UNBIN_SPEC, w.cohort),
     script:
         "../scripts/bundle_cohort.py"
 
 
 rule pool_bundles:
-    localrule: True
     input:
         expand("bundles/{cohort}/{table}.parquet", cohort=UNBIN_COHORTS, table=BUNDLE_TABLES),
     output:
@@ -62,5 +66,6 @@ rule pool_bundles:
         "logs/pool.log",
     benchmark:
         "benchmarks/pool_bundles/all.tsv"
+    localrule: True
     script:
         "../scripts/pool_bundles.py"

@@ -10,8 +10,6 @@ rule fit_analysis:
         basis=lambda w: f"common/{w.analysis}.json" if UNBIN_DERIVED_BASIS[w.analysis] else [],
     output:
         expand("work/{{cohort}}/{{analysis}}/{table}.parquet", table=FIT_JOB_TABLES),
-    params:
-        digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     log:
         "logs/fit/{cohort}/{analysis}.log",
     benchmark:
@@ -19,6 +17,8 @@ rule fit_analysis:
     threads: 1
     resources:
         mem_mb=lambda w, attempt: 1000 * attempt,
+    params:
+        digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     script:
         "../scripts/fit_analysis.py"
 
@@ -30,8 +30,6 @@ rule resample_analysis:
         extract=lambda w: str(UNBIN_SPEC.cohort(w.cohort).path),
     output:
         expand("work/{{cohort}}/{{analysis}}/{table}.parquet", table=RESAMPLING_TABLES),
-    params:
-        digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     log:
         "logs/resample/{cohort}/{analysis}.log",
     benchmark:
@@ -39,5 +37,7 @@ rule resample_analysis:
     threads: 1
     resources:
         mem_mb=lambda w, attempt: 1000 * attempt,
+    params:
+        digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     script:
         "../scripts/resample_analysis.py"

@@ -11,13 +11,12 @@ rule draw_figures:
         expand("tables/{table}.parquet", table=UNBIN_REPORT_TABLES),
     output:
         directory("figures/{cohort}"),
-    params:
-        spec=UNBIN_SPEC_PATH,
-        digests=study_params(UNBIN_SPEC),
     log:
         "logs/figures/{cohort}.log",
     benchmark:
         "benchmarks/draw_figures/{cohort}.tsv"
+    params:
+        digests=study_params(UNBIN_SPEC),
     script:
         "../scripts/draw_figures.py"
 
@@ -29,12 +28,11 @@ rule build_report:
     output:
         report="report.html",
         study=directory("figures/_study"),
-    params:
-        spec=UNBIN_SPEC_PATH,
-        digests=study_params(UNBIN_SPEC),
     log:
         "logs/report.log",
     benchmark:
         "benchmarks/build_report/all.tsv"
+    params:
+        digests=study_params(UNBIN_SPEC),
     script:
         "../scripts/build_report.py"

@@ -3,7 +3,7 @@
 from pathlib import Path
 
 from unbin.pipeline.jobs import collect_tables
-from unbin.workflow_support import logging_to, spec_path
+from unbin.pipeline.workflow_support import logging_to, spec_path
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821
 

@@ -2,12 +2,12 @@
 
 from pathlib import Path
 
-from unbin.pipeline.jobs import run_analysis_job
-from unbin.workflow_support import logging_to, spec_path
+from unbin.pipeline.jobs import fit_analysis
+from unbin.pipeline.workflow_support import logging_to, spec_path
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821
 
 with logging_to(sm.log[0]):
     basis = sm.input.get("basis") or None
-    run_analysis_job(spec_path(sm), sm.wildcards.cohort, sm.wildcards.analysis,
-                     Path(sm.output[0]).parent, basis_path=basis)
+    fit_analysis(spec_path(sm), sm.wildcards.cohort, sm.wildcards.analysis,
+                 Path(sm.output[0]).parent, basis_path=basis)

@@ -1,9 +1,9 @@
 """Rule script: a cohort's share-safe summary of one analysis' exposure."""
 
-from unbin.pipeline.jobs import summarise_job
-from unbin.workflow_support import logging_to, spec_path
+from unbin.pipeline.jobs import summarise_sample
+from unbin.pipeline.workflow_support import logging_to, spec_path
 
 sm = snakemake  # type: ignore[name-defined]  # noqa: F821
 
 with logging_to(sm.log[0]):
-    summarise_job(spec_path(sm), sm.wildcards.cohort, sm.wildcards.analysis, sm.output[0])
+    summarise_sample(spec_path(sm), sm.wildcards.cohort, sm.wildcards.analysis, sm.output[0])

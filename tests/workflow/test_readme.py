@@ -15,7 +15,7 @@ import pytest
 
 from unbin.questions import KEY_COLUMNS, QUESTION_TABLES, RESAMPLING_TABLES, table_columns
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 README = (ROOT / "README.md").read_text(encoding="utf-8")
 SCHEMA = ROOT / "src" / "unbin" / "workflow" / "schemas" / "spec.schema.json"
 

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from tablerefs import MARKER_GROUPING, OUTCOMES, clinic_frame, selected_row, term_columns
+from reference.tablerefs import MARKER_GROUPING, OUTCOMES, clinic_frame, selected_row, term_columns
 from unbin.errors import SpecError
 from unbin.models.cox import fit_cox
 from unbin.questions.fits import fits_table

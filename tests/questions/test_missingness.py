@@ -274,7 +274,7 @@ def test_the_fit_job_writes_it_for_failed_samples_too(tmp_path: Path) -> None:
 def test_the_demo_fit_job_writes_a_keyed_missingness_table(tmp_path: Path) -> None:
     # Through the job function without Snakemake, on a small demo cohort.
     from unbin.demo import COHORTS, write_demo
-    from unbin.pipeline.jobs import run_analysis_job
+    from unbin.pipeline.jobs import fit_analysis
     from unbin.results.tables import read_table
     from unbin.spec import load_spec
 
@@ -282,7 +282,7 @@ def test_the_demo_fit_job_writes_a_keyed_missingness_table(tmp_path: Path) -> No
     spec = load_spec(spec_path)
     cohort = spec.cohorts[0].name
     a = spec.analysis("sbp_urate")
-    status = run_analysis_job(spec_path, cohort, a.name, tmp_path / "work")
+    status = fit_analysis(spec_path, cohort, a.name, tmp_path / "work")
     assert status["status"] in ("ok", "partial"), status["message"]
     t = read_table(tmp_path / "work" / "missingness.parquet")
     assert tuple(t.columns) == ("cohort", "analysis", *COLUMNS)

@@ -18,7 +18,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from tablerefs import MARKER_GROUPING, OUTCOMES, clinic_frame, selected_row, term_columns
+from reference.tablerefs import MARKER_GROUPING, OUTCOMES, clinic_frame, selected_row, term_columns
 from unbin.models.cox import fit_cox, prepare_layout
 from unbin.models.cox.residuals import ph_tests, schoenfeld, time_transform
 from unbin.questions.fits import fits_table

@@ -236,7 +236,7 @@ def test_per_level_thresholds_plug_back_into_statsmodels(tmp_path: Path) -> None
 
 def _check_module() -> Any:
     """benchmarks/checks/interaction.py, imported from its path (it is not a package)."""
-    path = Path(__file__).resolve().parents[1] / "benchmarks" / "checks" / "interaction.py"
+    path = Path(__file__).resolve().parents[2] / "benchmarks" / "checks" / "interaction.py"
     spec = importlib.util.spec_from_file_location("interaction_check", path)
     assert spec is not None and spec.loader is not None
     module = importlib.util.module_from_spec(spec)

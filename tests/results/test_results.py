@@ -15,7 +15,7 @@ import pytest
 import yaml
 
 from unbin.cli import main
-from unbin.pipeline.jobs import analyse, compare_folders, run_analysis_job
+from unbin.pipeline.jobs import analyse, compare_folders, fit_analysis
 from unbin.present.summary import information_summary
 from unbin.results.provenance import provenance
 from unbin.results.tables import read_provenance, read_table, write_table
@@ -198,7 +198,7 @@ def test_provenance_hashes_are_the_inputs_and_the_spec_entries(tmp_path: Path) -
     spec_path = tmp_path / "spec.yaml"
     spec_path.write_text(yaml.safe_dump(raw, sort_keys=False), encoding="utf-8")
     out = tmp_path / "work"
-    status = run_analysis_job(spec_path, "north", "flare_marker", out)
+    status = fit_analysis(spec_path, "north", "flare_marker", out)
     assert status["status"] == "ok", status["message"]
     want_slice = {"study": "provenance-check", "analysis": analysis,
                   "groupings": {"marker": {"cuts": [45, 75]}},
@@ -224,6 +224,6 @@ def test_provenance_hashes_are_the_inputs_and_the_spec_entries(tmp_path: Path) -
         raw2 = json.loads(json.dumps(raw))
         raw2[key[0]][key[1]] = value
         spec_path.write_text(yaml.safe_dump(raw2, sort_keys=False), encoding="utf-8")
-        run_analysis_job(spec_path, "north", "flare_marker", tmp_path / "again")
+        fit_analysis(spec_path, "north", "flare_marker", tmp_path / "again")
         again = read_provenance(tmp_path / "again" / "fits.parquet")["spec_digest"]
         assert (again == want_digest) is same, key

@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from tablerefs import (
+from reference.tablerefs import (
     MARKER_GROUPING,
     OUTCOMES,
     auc_pairs,

@@ -21,7 +21,7 @@ from unbin.pipeline.runner import snakemake_command
 from unbin.results.tables import read_table
 
 pytestmark = pytest.mark.workflow
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 
 
 def small_spec(folder: Path, n: int = 700) -> Path:
@@ -192,13 +192,17 @@ def test_module_from_installed_wheel(tmp_path: Path) -> None:
     env_dir = tmp_path / "venv"
     venv.EnvBuilder(with_pip=True).create(env_dir)
     py = env_dir / "bin" / "python"
+    # Without PYTHONPATH: a source tree on it (a run from a checkout with PYTHONPATH=src) holds
+    # the build's unbin.egg-info, and pip would take unbin as installed already.
+    clean = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}
     subprocess.run([str(py), "-m", "pip", "install", "-q", "--no-deps", str(wheel)], check=True,
-                   timeout=600)
+                   timeout=600, env=clean)
     site = next(p for p in sys.path if p.endswith("site-packages"))
     env = dict(os.environ, PYTHONPATH=site)
     where = subprocess.run([str(py), "-c", "import unbin, unbin.workflow_support as w; "
                             "print(unbin.__file__); print(w.snakefile())"], capture_output=True,
-                           text=True, env=env, check=True)
+                           text=True, env=env)
+    assert where.returncode == 0, where.stdout + where.stderr
     assert str(env_dir) in where.stdout and str(ROOT / "src") not in where.stdout
     consumer = tmp_path / "consumer"
     consumer.mkdir()

@@ -561,7 +561,7 @@ def test_pooling_check_script_reports_coverage_with_its_mc_error() -> None:
     import importlib.util
     from pathlib import Path
 
-    path = Path(__file__).resolve().parents[1] / "benchmarks" / "checks" / "pooling.py"
+    path = Path(__file__).resolve().parents[2] / "benchmarks" / "checks" / "pooling.py"
     spec = importlib.util.spec_from_file_location("pooling_check", path)
     assert spec is not None and spec.loader is not None
     mod = importlib.util.module_from_spec(spec)
