@@ -147,15 +147,16 @@ def replicate_shares(family: str, models: list[_Model], outcome: Outcome,
     return share
 
 
-def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
+def _point_rows(r: Refit, spec: Spec) -> tuple[list[dict[str, object]], list[_Model], list[int]]:
+    """One row per coding with the point estimate (or why there is none), the fitted models of
+    the rows that have one (consecutive null, legacy, legacy + test spline) and those rows."""
     a = r.analysis
-    replicates = spec.resampling.bootstrap
     df = r.sample.frame
     codings: list[tuple[str, tuple[Term, ...]]] = [
         (c, adjustment_terms(df, a, spec, c)) for c in ADJUSTMENTS]
     codings.append(("none", ()))
     base = {"info_kept": np.nan, "info_kept_lower": np.nan, "info_kept_upper": np.nan,
-            "level": LEVEL, "replicates": replicates, "replicates_used": 0}
+            "level": LEVEL, "replicates": spec.resampling.bootstrap, "replicates_used": 0}
     why = _empty_groups(r)
     test_term = None
     if not why:
@@ -165,8 +166,8 @@ def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
             why = (f"test spline ({a.continuous.test_knots} knots; continuous.test_knots): "
                    f"{exc} The share kept is not computed.")
     if why or test_term is None:
-        return pd.DataFrame([{"adjustment": c, **base, "status": "failed", "message": why}
-                             for c, _ in codings])
+        return ([{"adjustment": c, **base, "status": "failed", "message": why}
+                 for c, _ in codings], [], [])
 
     fitted: dict[str, _Model] = {}  # identical designs (no adjustment variables) fitted once
 
@@ -184,7 +185,7 @@ def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
     ok_rows: list[int] = []
     for coding, adjust in codings:
         trio = [model(exposures[form], adjust) for form in FORMS]
-        row = {"adjustment": coding, **base, "status": "ok", "message": ""}
+        row: dict[str, object] = {"adjustment": coding, **base, "status": "ok", "message": ""}
         failed = [f"{form}: {mod.res.message}" for form, mod in zip(FORMS, trio, strict=True)
                   if not mod.res.ok]
         if failed:
@@ -200,30 +201,50 @@ def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
                 ok_models.extend(trio)
                 ok_rows.append(len(rows))
         rows.append(row)
+    return rows, ok_models, ok_rows
+
+
+def bootstrap_shares(r: Refit, spec: Spec) -> dict[str, np.ndarray]:
+    """The share kept in each of the ``resampling.bootstrap`` replicates, per adjustment coding
+    that has a point estimate (NaN where a replicate failed)."""
+    rows, models, ok_rows = _point_rows(r, spec)
+    if not ok_rows or spec.resampling.bootstrap <= 0:
+        return {}
+    shares = replicate_shares(r.family, models, r.outcome,
+                              spec.rng(r.analysis.name, "information-bootstrap"),
+                              spec.resampling.bootstrap)
+    return {str(rows[i]["adjustment"]): shares[:, j] for j, i in enumerate(ok_rows)}
+
+
+def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
+    """The ``information_bootstrap`` table: per adjustment coding, the share kept (equal to the
+    ``information`` table's) and its percentile interval over the bootstrap replicates."""
+    replicates = spec.resampling.bootstrap
+    rows, models, ok_rows = _point_rows(r, spec)
     if replicates <= 0:
         for row in rows:
             if row["status"] == "ok":
                 row.update(status="skipped", message="resampling.bootstrap is 0: no interval")
         return pd.DataFrame(rows)
-    if ok_rows:
-        shares = replicate_shares(r.family, ok_models, r.outcome,
-                                  spec.rng(a.name, "information-bootstrap"), replicates)
-        for j, i in enumerate(ok_rows):
-            s = shares[:, j]
-            s = s[np.isfinite(s)]
-            row = rows[i]
-            row["replicates_used"] = len(s)
-            if len(s) < MIN_REPLICATES:
-                row.update(status="failed", message=(
-                    f"only {len(s)} of {replicates} bootstrap replicates could be refitted "
-                    f"(at least {MIN_REPLICATES} are needed for an interval)"))
-                continue
-            alpha = (1 - LEVEL) / 2
-            lo, hi = np.quantile(s, [alpha, 1 - alpha])
-            row.update(info_kept_lower=float(lo), info_kept_upper=float(hi))
-            if len(s) < replicates:
-                row["message"] = (
-                    f"{replicates - len(s)} of {replicates} bootstrap replicates left out (a "
-                    "model did not converge or a design column did not vary among the drawn "
-                    "rows)")
+    if not ok_rows:
+        return pd.DataFrame(rows)
+    shares = replicate_shares(r.family, models, r.outcome,
+                              spec.rng(r.analysis.name, "information-bootstrap"), replicates)
+    alpha = (1 - LEVEL) / 2
+    for j, i in enumerate(ok_rows):
+        s = shares[:, j]
+        s = s[np.isfinite(s)]
+        row = rows[i]
+        row["replicates_used"] = len(s)
+        if len(s) < MIN_REPLICATES:
+            row.update(status="failed", message=(
+                f"only {len(s)} of {replicates} bootstrap replicates could be refitted (at "
+                f"least {MIN_REPLICATES} are needed for an interval)"))
+            continue
+        lo, hi = np.quantile(s, [alpha, 1 - alpha])
+        row.update(info_kept_lower=float(lo), info_kept_upper=float(hi))
+        if len(s) < replicates:
+            row["message"] = (
+                f"{replicates - len(s)} of {replicates} bootstrap replicates left out (a model "
+                "did not converge or a design column did not vary among the drawn rows)")
     return pd.DataFrame(rows)
