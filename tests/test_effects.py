@@ -196,3 +196,99 @@ def test_per_unit_and_iqr_intervals_cover_the_truth(refit_frame: Any, one_analys
             hits[key] += int(row["lower"] <= truth <= row["upper"])
     for key, h in hits.items():
         assert abs(h / reps - 0.95) <= band, (key, h / reps)
+
+
+def test_estimable_rows_say_ok_and_carry_the_scale(refit_frame: Any, one_analysis: Any) -> None:
+    # Every estimable row is "ok" with no message, names its scale (the README's effect scales)
+    # and has no level; the reference group's own row is the null contrast.
+    frame = clinic_frame("count", 800, seed=21)
+    spec, r = refit_frame(frame, _raw(one_analysis, "count"))
+    eff = effects_table(r, spec)
+    assert (eff["status"] == "ok").all() and (eff["message"] == "").all()
+    assert (eff["scale"] == "rate ratio").all() and (eff["by_level"] == "").all()
+    own = eff[eff["contrast"] == "5-<9 (reference)"]
+    assert len(own) == 11 and (own["effect"] == 1.0).all()  # 4 forms x 2 codings + 3 crude
+
+
+def _linear_slope(frame: pd.DataFrame) -> float:
+    """Reference library: statsmodels OLS of the score on the marker alone."""
+    import statsmodels.api as sm
+
+    return float(sm.OLS(frame["score"], sm.add_constant(frame["marker"])).fit().params["marker"])
+
+
+def test_an_empty_legacy_group_gives_not_estimable_rows_and_the_others_go_on(
+        refit_frame: Any, one_analysis: Any) -> None:
+    # A middle legacy group with no rows: its contrast in every form is "not_estimable" with a
+    # message naming it; the groups after it are still estimated (linear form, no adjustment:
+    # the OLS slope times the distance between the group medians, numpy and statsmodels by
+    # hand). Forms without a spline: the FP rows still follow the missing spline's place.
+    frame = clinic_frame("continuous", 900, seed=22)
+    frame = frame[(frame["marker"] < 5.0) | (frame["marker"] >= 6.0)].reset_index(drop=True)
+    grouping = {"cuts": [2.5, 5.0, 6.0, 9.0], "reference": "6-<9"}
+    raw = one_analysis(OUTCOMES["continuous"], "marker", grouping,
+                       continuous={"forms": ["linear", "fp"]})
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    x = frame["marker"].to_numpy()
+    x_ref = float(np.median(x[(x >= 6.0) & (x < 9.0)]))
+    empty = eff[(eff["contrast_type"] == "group") & (eff["group"] == "5-<6")]
+    assert set(empty["form"]) == {"legacy", "linear", "spline", "fp"}  # spline: crude only
+    assert (empty["status"] == "not_estimable").all()
+    assert empty["message"].str.contains("'5-<6' has no rows").all()
+    assert empty["estimate"].isna().all() and empty["x_value"].isna().all()
+    np.testing.assert_allclose(empty["x_reference"], x_ref, rtol=1e-12)
+    assert (empty["contrast"] == "5-<6 vs 6-<9").all()
+    slope = _linear_slope(frame)
+    lin = eff[(eff["form"] == "linear") & (eff["adjustment"] == "none")
+              & (eff["contrast_type"] == "group") & (eff["status"] == "ok")].set_index("group")
+    assert sorted(lin.index) == ["2.5-<5", "6-<9", "<2.5", ">=9"]
+    for label, lo, hi in (("<2.5", -np.inf, 2.5), ("2.5-<5", 2.5, 5.0), (">=9", 9.0, np.inf)):
+        x_g = float(np.median(x[(x >= lo) & (x < hi)]))
+        assert lin.loc[label, "x_value"] == pytest.approx(x_g, rel=1e-12)
+        assert lin.loc[label, "estimate"] == pytest.approx(slope * (x_g - x_ref), rel=1e-9)
+    for coding in ("legacy", "continuous"):
+        fp = eff[(eff["form"] == "fp") & (eff["adjustment"] == coding)]
+        assert len(fp) == 6  # five groups and the IQR contrast
+
+
+def test_an_empty_reference_group_makes_every_group_contrast_not_estimable(
+        refit_frame: Any, one_analysis: Any) -> None:
+    frame = clinic_frame("continuous", 600, seed=23)
+    frame = frame[(frame["marker"] < 5.0) | (frame["marker"] >= 9.0)].reset_index(drop=True)
+    raw = one_analysis(OUTCOMES["continuous"], "marker", dict(MARKER_GROUPING),
+                       continuous={"forms": ["linear"]})
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    groups = eff[eff["contrast_type"] == "group"]
+    assert len(groups) and (groups["status"] == "not_estimable").all()
+    assert groups["x_reference"].isna().all() and groups["estimate"].isna().all()
+    # each row names the group without rows: its own when it is empty, else the reference
+    assert groups["message"].str.contains("'5-<9' has no rows").all()
+    # the IQR and per-unit contrasts do not need the reference group (OLS slope, statsmodels)
+    lin = eff[(eff["form"] == "linear") & (eff["adjustment"] == "none")].set_index(
+        "contrast_type")
+    assert lin.loc["per_unit", "estimate"] == pytest.approx(_linear_slope(frame), rel=1e-9)
+    assert lin.loc["per_unit", "status"] == "ok"
+
+
+def test_quartiles_in_one_legacy_group_make_only_the_legacy_iqr_not_estimable(
+        refit_frame: Any, one_analysis: Any) -> None:
+    # Cuts outside the interquartile range: the grouped model gives both quartiles the same
+    # value, so its IQR contrast is "not_estimable" (NaN, a message naming the percentiles and
+    # the group); the linear form's IQR contrast is the OLS slope times the IQR (statsmodels).
+    frame = clinic_frame("continuous", 700, seed=24)
+    raw = one_analysis(OUTCOMES["continuous"], "marker", {"cuts": [1.0, 20.0]},
+                       continuous={"forms": ["linear"]})
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    iqr = eff[(eff["contrast_type"] == "iqr") & (eff["adjustment"] == "none")].set_index("form")
+    q25, q75 = np.quantile(frame["marker"], [0.25, 0.75])
+    assert iqr.loc["legacy", "status"] == "not_estimable"
+    assert np.isnan(iqr.loc["legacy", "estimate"]) and np.isnan(iqr.loc["legacy", "se"])
+    assert iqr.loc["legacy", "message"] == (
+        f"the 25th and 75th percentiles ({q25:g}, {q75:g}) fall in the same legacy group "
+        "'1-<20': the grouped model cannot contrast them")
+    assert iqr.loc["linear", "status"] == "ok" and iqr.loc["linear", "message"] == ""
+    assert iqr.loc["linear", "estimate"] == pytest.approx(_linear_slope(frame) * (q75 - q25),
+                                                          rel=1e-9)
