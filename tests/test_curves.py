@@ -180,3 +180,62 @@ def test_a_linear_curve_misses_a_curved_truth(refit_frame: Any, one_analysis: An
     95%."""
     cover = _coverage(refit_frame, one_analysis, _curved, "linear", seed=9, reps=50)
     assert cover[:2].max() < 0.5, cover
+
+
+def test_rows_carry_status_scale_and_no_level(refit_frame: Any, one_analysis: Any) -> None:
+    frame = clinic_frame("count", 700, seed=41)
+    raw = one_analysis(OUTCOMES["count"], "marker", dict(MARKER_GROUPING),
+                       continuous={"forms": ["linear", "spline"], "grid_points": 15})
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    assert (cur["status"] == "ok").all() and (cur["scale"] == "rate ratio").all()
+    assert (cur["by_level"] == "").all()
+    assert cur.groupby(["adjustment", "form"]).size().eq(15).all()
+
+
+def test_a_fixed_grid_marks_points_outside_the_cohorts_range(refit_frame: Any,
+                                                            one_analysis: Any) -> None:
+    # The spec's grid_range and reference_value (README) replace the cohort's own; in_range is
+    # true exactly inside this cohort's 1st-99th percentile range (numpy by hand), and the
+    # estimates stay the reference library's (statsmodels OLS slope x distance) outside it too.
+    import statsmodels.api as sm
+
+    frame = clinic_frame("continuous", 800, seed=42)
+    raw = one_analysis(OUTCOMES["continuous"], "marker", dict(MARKER_GROUPING),
+                       continuous={"forms": ["linear"], "grid_range": [0.0, 40.0],
+                                   "reference_value": 7.0, "grid_points": 41})
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    x = frame["marker"].to_numpy()
+    lo, hi = np.quantile(x, [0.01, 0.99])
+    grid = np.linspace(0.0, 40.0, 41)
+    c = cur[(cur["form"] == "linear") & (cur["adjustment"] == "none")].sort_values("x")
+    np.testing.assert_allclose(c["x"], grid, rtol=1e-12)
+    assert (c["x_reference"] == 7.0).all()
+    expected = (grid >= lo) & (grid <= hi)
+    assert expected.any() and (~expected).any()
+    assert c["in_range"].tolist() == expected.tolist()
+    slope = sm.OLS(frame["score"], sm.add_constant(frame["marker"])).fit().params["marker"]
+    np.testing.assert_allclose(c["estimate"], slope * (grid - 7.0), rtol=1e-9, atol=1e-9)
+
+
+def test_a_failed_form_keeps_its_status_and_the_others_are_drawn(refit_frame: Any,
+                                                                one_analysis: Any) -> None:
+    # An empty legacy group: the grouped fit fails and its curve rows say so (NaN estimates),
+    # while the linear curve still matches statsmodels OLS.
+    import statsmodels.api as sm
+
+    frame = clinic_frame("continuous", 700, seed=43)
+    frame = frame[(frame["marker"] < 5.0) | (frame["marker"] >= 6.0)].reset_index(drop=True)
+    raw = one_analysis(OUTCOMES["continuous"], "marker",
+                       {"cuts": [2.5, 5.0, 6.0, 9.0], "reference": "6-<9"},
+                       continuous={"forms": ["linear"], "grid_points": 11})
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    leg = cur[cur["form"] == "legacy"]
+    assert len(leg) and (leg["status"] == "failed").all() and leg["estimate"].isna().all()
+    lin = cur[(cur["form"] == "linear") & (cur["adjustment"] == "none")]
+    assert (lin["status"] == "ok").all()
+    slope = sm.OLS(frame["score"], sm.add_constant(frame["marker"])).fit().params["marker"]
+    np.testing.assert_allclose(lin["estimate"], slope * (lin["x"] - lin["x_reference"]),
+                               rtol=1e-9, atol=1e-9)
