@@ -235,3 +235,33 @@ def test_a_poisson_group_without_counts_is_not_reported_as_a_finite_fit(
         tables, status = _analyse(tmp_path, one_analysis, "count", frame)
     legacy = tables["fits"][tables["fits"]["form"] == "legacy"]
     assert (legacy["status"] == "failed").all()
+
+
+def test_exposure_df_selection_and_small_sample_warnings(refit_frame: Any,
+                                                         one_analysis: Any) -> None:
+    # exposure_df by hand (groups - 1, 1 for linear, knots - 1 for a spline, both for
+    # legacy + test spline); per coding exactly one candidate spline is selected, the one with
+    # the lowest AIC (recomputed from statsmodels' own AIC of each candidate); few events per
+    # coefficient are flagged (Peduzzi et al. 1996: at least 10).
+    frame, fits = _refit(refit_frame, one_analysis, "binary", 180, 44,
+                         spline_knots=[3, 4, 5], forms=["linear", "spline"])
+    df_of = {"null": 0, "legacy": 3, "linear": 1, "test_spline": 3, "legacy+test_spline": 6}
+    for form, want in df_of.items():
+        assert (fits.loc[fits["form"] == form, "exposure_df"] == want).all(), form
+    for coding in ("legacy", "continuous", "none"):
+        cand = fits[(fits["form"] == "spline") & (fits["adjustment"] == coding)]
+        assert len(cand) == 3 and cand["selected"].sum() == 1
+        assert sorted(cand["exposure_df"]) == [2, 3, 4]
+        aic = {}
+        for _, row in cand.iterrows():
+            ref = reference_fit(row, frame, "binary", "marker", OUTCOMES["binary"])
+            aic[row["exposure_df"]] = ref.aic
+            assert row["aic"] == pytest.approx(ref.aic, rel=1e-9)
+        assert int(cand.loc[cand["selected"], "exposure_df"].iloc[0]) == min(aic, key=aic.get)
+    events = int(frame["flare"].sum())
+    k_needed = min(events, len(frame) - events) / 10
+    wide = fits[(fits["form"] == "legacy+test_spline") & (fits["adjustment"] == "continuous")]
+    row = wide.iloc[0]
+    assert int(row["n_params"]) - 1 > k_needed  # too many coefficients for the events: the warning must show
+    assert "per coefficient" in row["warnings"]
+    assert (fits.loc[fits["form"] == "null", "warnings"] == "").all()
