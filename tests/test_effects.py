@@ -235,7 +235,7 @@ def test_an_empty_legacy_group_gives_not_estimable_rows_and_the_others_go_on(
     empty = eff[(eff["contrast_type"] == "group") & (eff["group"] == "5-<6")]
     assert set(empty["form"]) == {"legacy", "linear", "spline", "fp"}  # spline: crude only
     assert (empty["status"] == "not_estimable").all()
-    assert empty["message"].str.contains("'5-<6' has no rows").all()
+    assert (empty["message"] == "legacy group '5-<6' has no rows in the analysis sample").all()
     assert empty["estimate"].isna().all() and empty["x_value"].isna().all()
     np.testing.assert_allclose(empty["x_reference"], x_ref, rtol=1e-12)
     assert (empty["contrast"] == "5-<6 vs 6-<9").all()
@@ -264,7 +264,10 @@ def test_an_empty_reference_group_makes_every_group_contrast_not_estimable(
     assert len(groups) and (groups["status"] == "not_estimable").all()
     assert groups["x_reference"].isna().all() and groups["estimate"].isna().all()
     # each row names the group without rows: its own when it is empty, else the reference
-    assert groups["message"].str.contains("'5-<9' has no rows").all()
+    assert (groups["message"] == "legacy group '5-<9' has no rows in the analysis sample").all()
+    assert set(groups["contrast"]) == {"<2.5 vs 5-<9", "2.5-<5 vs 5-<9", "5-<9 (reference)",
+                                       ">=9 vs 5-<9"}
+    assert groups["x_value"].notna().sum() == 0 and (groups["contrast_type"] == "group").all()
     # the IQR and per-unit contrasts do not need the reference group (OLS slope, statsmodels)
     lin = eff[(eff["form"] == "linear") & (eff["adjustment"] == "none")].set_index(
         "contrast_type")
