@@ -295,3 +295,74 @@ def test_quartiles_in_one_legacy_group_make_only_the_legacy_iqr_not_estimable(
     assert iqr.loc["linear", "status"] == "ok" and iqr.loc["linear", "message"] == ""
     assert iqr.loc["linear", "estimate"] == pytest.approx(_linear_slope(frame) * (q75 - q25),
                                                           rel=1e-9)
+
+
+def _cr(var: str, knots: Any) -> str:
+    """patsy's natural cubic spline on the given knots, centred: the same function space as the
+    restricted cubic spline without its constant (Durrleman & Simon 1989)."""
+    k = [float(v) for v in knots]
+    return (f"cr({var}, knots={k[1:-1]}, lower_bound={k[0]}, upper_bound={k[-1]}, "
+            "constraints='center')")
+
+
+def test_spline_by_level_group_contrasts_match_statsmodels(refit_frame: Any) -> None:
+    # The spline x level rows (continuous adjustment): per level of the modifier w, each legacy
+    # group's median vs the reference group's median within the level, and the spread at the
+    # group's 10th/90th percentiles, equal statsmodels GLM (binomial) contrasts d'b with SE
+    # sqrt(d'Vd) on patsy's natural spline with the same knots x C(level), the level main
+    # effect and the continuous adjusters' splines in the model (default 4-knot quantiles).
+    import patsy
+    import statsmodels.api as sm
+
+    from unbin.refit.interaction import interaction_spline
+
+    rng = np.random.default_rng(31)
+    n = 2500
+    w = rng.uniform(0, 100, n)
+    x = 50 + 0.15 * (w - 50) + rng.normal(0, 10, n)
+    z = rng.normal(0, 1, n)
+    lp = -1 + 0.04 * (x - 50) + 0.8 * (w >= 50) + 0.3 * z + 0.02 * (w >= 50) * (x - 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": z,
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"]}}]}
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    quant = [0.05, 0.35, 0.65, 0.95]
+    zk, wk = np.quantile(z, quant), np.quantile(w, quant)
+    f = frame.assign(lvl=np.where(w >= 50, "b", "a"))
+    yv, X = patsy.dmatrices(
+        f"y ~ {_cr('x', interaction_spline(r).knots)} * C(lvl) + {_cr('z', zk)} + "
+        f"{_cr('w', wk)}", f, return_type="dataframe")
+    fit = sm.GLM(yv, X, family=sm.families.Binomial()).fit(tol=1e-12)
+    b, V, di = fit.params.to_numpy(), fit.cov_params().to_numpy(), X.design_info
+
+    def contrast(xs: np.ndarray, x_ref: float, lvl: str) -> tuple[np.ndarray, np.ndarray]:
+        new = pd.DataFrame({"x": xs, "lvl": lvl, "z": 0.0, "w": 50.0})
+        D = (np.asarray(patsy.build_design_matrices([di], new)[0])
+             - np.asarray(patsy.build_design_matrices([di], new.assign(x=x_ref))[0]))
+        return D @ b, np.sqrt(np.einsum("ij,jk,ik->i", D, V, D))
+
+    rows = eff[(eff["form"] == "spline x level") & (eff["adjustment"] == "continuous")]
+    assert len(rows) == 4
+    for label, lvl, in_lvl in (("<50", "a", w < 50), (">=50", "b", w >= 50)):
+        x_ref = float(np.median(x[in_lvl & (x < 60)]))
+        for group, in_grp in (("<60", x < 60), (">=60", x >= 60)):
+            row = rows[(rows["by_level"] == label) & (rows["group"] == group)].iloc[0]
+            vals = x[in_lvl & in_grp]
+            x_g = float(np.median(vals))
+            est, se = contrast(np.array([x_g]), x_ref, lvl)
+            spread, _ = contrast(np.quantile(vals, [0.10, 0.90]), x_ref, lvl)
+            assert row["status"] == "ok"
+            assert row["contrast"] == (f"<60 (w = {label}) (reference)" if group == "<60"
+                                       else f">=60 vs <60 (w = {label})")
+            assert row["x_value"] == pytest.approx(x_g, rel=1e-12)
+            assert row["x_reference"] == pytest.approx(x_ref, rel=1e-12)
+            assert row["estimate"] == pytest.approx(est[0], rel=1e-5, abs=1e-7)
+            assert row["se"] == pytest.approx(se[0], rel=1e-5, abs=1e-9)
+            np.testing.assert_allclose([row["within_p10"], row["within_p90"]], np.exp(spread),
+                                       rtol=1e-5)
+            assert row["scale"] == "odds ratio"
