@@ -236,6 +236,10 @@ def test_an_empty_legacy_group_gives_not_estimable_rows_and_the_others_go_on(
     assert set(empty["form"]) == {"legacy", "linear", "spline", "fp"}  # spline: crude only
     assert (empty["status"] == "not_estimable").all()
     assert (empty["message"] == "legacy group '5-<6' has no rows in the analysis sample").all()
+    assert list(eff.columns) == [  # the README's columns, nothing else
+        "adjustment", "form", "status", "message", "contrast_type", "contrast", "group",
+        "x_value", "x_reference", "estimate", "se", "within_p10", "within_p90", "by_level",
+        "lower", "upper", "effect", "effect_lower", "effect_upper", "scale"]
     assert empty["estimate"].isna().all() and empty["x_value"].isna().all()
     np.testing.assert_allclose(empty["x_reference"], x_ref, rtol=1e-12)
     assert (empty["contrast"] == "5-<6 vs 6-<9").all()
