@@ -208,6 +208,10 @@ def test_estimable_rows_say_ok_and_carry_the_scale(refit_frame: Any, one_analysi
     assert (eff["scale"] == "rate ratio").all() and (eff["by_level"] == "").all()
     own = eff[eff["contrast"] == "5-<9 (reference)"]
     assert len(own) == 11 and (own["effect"] == 1.0).all()  # 4 forms x 2 codings + 3 crude
+    labels = eff.groupby("contrast_type")["contrast"].agg(set)
+    assert labels["per_unit"] == {"per unit"}
+    assert labels["iqr"] == {"75th vs 25th percentile"}
+    assert (eff.loc[eff["contrast_type"] != "group", "group"] == "").all()
 
 
 def _linear_slope(frame: pd.DataFrame) -> float:
