@@ -239,3 +239,41 @@ def test_a_failed_form_keeps_its_status_and_the_others_are_drawn(refit_frame: An
     slope = sm.OLS(frame["score"], sm.add_constant(frame["marker"])).fit().params["marker"]
     np.testing.assert_allclose(lin["estimate"], slope * (lin["x"] - lin["x_reference"]),
                                rtol=1e-9, atol=1e-9)
+
+
+def test_level_curves_lie_on_the_grid_relative_to_each_levels_reference(
+        refit_frame: Any) -> None:
+    # With an effect modifier: per level and coding, the spline x level curve is on the same
+    # grid, relative to the median of the legacy reference group within the level, and in_range
+    # marks the level's own 1st-99th percentile range (numpy by hand). Its estimates are
+    # checked against statsmodels in tests/test_modifier.py.
+    rng = np.random.default_rng(44)
+    n = 1500
+    w = rng.uniform(0, 100, n)
+    x = 50 + 0.3 * (w - 50) + rng.normal(0, 8, n)
+    lp = -1 + 0.04 * (x - 50) + 0.5 * (w >= 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": rng.normal(size=n),
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"], "grid_points": 30}}]}
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    grid = np.linspace(*np.quantile(x, [0.01, 0.99]), 30)
+    lv = cur[cur["by_level"] != ""]
+    assert lv.groupby(["form", "adjustment", "by_level"]).size().to_dict() == {
+        ("spline x level", c, level): 30 for c in ("legacy", "continuous")
+        for level in ("<50", ">=50")}
+    for label, in_lvl in (("<50", w < 50), (">=50", w >= 50)):
+        lo, hi = np.quantile(x[in_lvl], [0.01, 0.99])
+        for coding in ("legacy", "continuous"):
+            c = lv[(lv["by_level"] == label) & (lv["adjustment"] == coding)].sort_values("x")
+            np.testing.assert_allclose(c["x"], grid, rtol=1e-12)
+            np.testing.assert_allclose(c["x_reference"], np.median(x[in_lvl & (x < 60)]),
+                                       rtol=1e-12)
+            inside = (grid >= lo) & (grid <= hi)
+            assert inside.any() and (~inside).any()
+            assert c["in_range"].tolist() == inside.tolist()
+            assert (c["status"] == "ok").all() and c["estimate"].notna().all()

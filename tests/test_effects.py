@@ -354,8 +354,11 @@ def test_spline_by_level_group_contrasts_match_statsmodels(refit_frame: Any) -> 
              - np.asarray(patsy.build_design_matrices([di], new.assign(x=x_ref))[0]))
         return D @ b, np.sqrt(np.einsum("ij,jk,ik->i", D, V, D))
 
+    levels = eff[eff["by_level"] != ""]
+    assert levels.groupby(["form", "adjustment"]).size().to_dict() == {
+        ("legacy x level", "continuous"): 4, ("legacy x level", "legacy"): 4,
+        ("spline x level", "continuous"): 4, ("spline x level", "legacy"): 4}
     rows = eff[(eff["form"] == "spline x level") & (eff["adjustment"] == "continuous")]
-    assert len(rows) == 4
     for label, lvl, in_lvl in (("<50", "a", w < 50), (">=50", "b", w >= 50)):
         x_ref = float(np.median(x[in_lvl & (x < 60)]))
         for group, in_grp in (("<60", x < 60), (">=60", x >= 60)):
