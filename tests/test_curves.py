@@ -191,6 +191,7 @@ def test_rows_carry_status_scale_and_no_level(refit_frame: Any, one_analysis: An
     assert (cur["status"] == "ok").all() and (cur["scale"] == "rate ratio").all()
     assert (cur["by_level"] == "").all()
     assert cur.groupby(["adjustment", "form"]).size().eq(15).all()
+    assert cur.index.equals(pd.RangeIndex(len(cur)))  # one row label per row
 
 
 def test_a_fixed_grid_marks_points_outside_the_cohorts_range(refit_frame: Any,
