@@ -4,6 +4,7 @@ and what the table records when fits fail (separation, a monotone likelihood).""
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 from typing import Any
 
@@ -265,3 +266,9 @@ def test_exposure_df_selection_and_small_sample_warnings(refit_frame: Any,
     assert int(row["n_params"]) - 1 > k_needed  # too many coefficients for the events: the warning must show
     assert "per coefficient" in row["warnings"]
     assert (fits.loc[fits["form"] == "null", "warnings"] == "").all()
+    # R^2 is the linear model's only: a missing number (float NaN) for the logistic rows
+    assert fits["r2"].dtype == np.float64 and fits["r2"].isna().all()
+    # the recorded designs are canonical JSON (sorted keys), so reruns compare byte for byte
+    for col in ("exposure_basis", "adjustment_terms"):
+        for s in fits[col]:
+            assert s == json.dumps(json.loads(s), sort_keys=True)
