@@ -313,6 +313,38 @@ def _cr(var: str, knots: Any) -> str:
             "constraints='center')")
 
 
+def _modifier_case(cuts: list[float]) -> tuple[pd.DataFrame, dict[str, Any]]:
+    """Exposure x (legacy ``cuts``), effect modifier w (legacy cut at 50), adjuster z; logistic
+    with a modest x by level interaction."""
+    rng = np.random.default_rng(31)
+    n = 2500
+    w = rng.uniform(0, 100, n)
+    x = 50 + 0.15 * (w - 50) + rng.normal(0, 10, n)
+    z = rng.normal(0, 1, n)
+    lp = -1 + 0.04 * (x - 50) + 0.8 * (w >= 50) + 0.3 * z + 0.02 * (w >= 50) * (x - 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": z,
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": cuts}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"]}}]}
+    return frame, raw
+
+
+def test_level_rows_of_the_spline_remain_when_the_grouped_level_model_fails(
+        refit_frame: Any) -> None:
+    # An empty legacy group (cut above every value) makes the legacy x level model impossible;
+    # the spline x level rows are still there, per coding and level, for the groups with rows.
+    frame, raw = _modifier_case([60, 500])
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    levels = eff[eff["by_level"] != ""]
+    assert levels.groupby(["form", "adjustment"]).size().to_dict() == {
+        ("spline x level", "continuous"): 4, ("spline x level", "legacy"): 4}
+    assert (levels["status"] == "ok").all() and levels["estimate"].notna().all()
+
+
 def test_spline_by_level_group_contrasts_match_statsmodels(refit_frame: Any) -> None:
     # The spline x level rows (continuous adjustment): per level of the modifier w, each legacy
     # group's median vs the reference group's median within the level, and the spread at the
@@ -324,19 +356,8 @@ def test_spline_by_level_group_contrasts_match_statsmodels(refit_frame: Any) -> 
 
     from unbin.refit.interaction import interaction_spline
 
-    rng = np.random.default_rng(31)
-    n = 2500
-    w = rng.uniform(0, 100, n)
-    x = 50 + 0.15 * (w - 50) + rng.normal(0, 10, n)
-    z = rng.normal(0, 1, n)
-    lp = -1 + 0.04 * (x - 50) + 0.8 * (w >= 50) + 0.3 * z + 0.02 * (w >= 50) * (x - 50)
-    frame = pd.DataFrame({"x": x, "w": w, "z": z,
-                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
-    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
-           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
-           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
-                         "exposure": "x", "adjust": ["z"], "by": "w",
-                         "continuous": {"forms": ["linear"]}}]}
+    frame, raw = _modifier_case([60])
+    x, w, z = (frame[c].to_numpy() for c in ("x", "w", "z"))
     spec, r = refit_frame(frame, raw)
     eff = effects_table(r, spec)
     quant = [0.05, 0.35, 0.65, 0.95]
@@ -377,3 +398,35 @@ def test_spline_by_level_group_contrasts_match_statsmodels(refit_frame: Any) -> 
             np.testing.assert_allclose([row["within_p10"], row["within_p90"]], np.exp(spread),
                                        rtol=1e-5)
             assert row["scale"] == "odds ratio"
+
+
+def _level_without_reference_rows() -> tuple[pd.DataFrame, dict[str, Any]]:
+    """x rises steeply with the modifier w: in the level w >= 50 no row lies in the legacy
+    reference group x < 60, so that level has no reference value."""
+    rng = np.random.default_rng(45)
+    n = 1500
+    w = rng.uniform(0, 100, n)
+    x = 40 + 0.6 * w + rng.normal(0, 3, n)
+    lp = -1 + 0.04 * (x - 50) + 0.5 * (w >= 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": rng.normal(size=n),
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    assert not ((w >= 50) & (x < 60)).any()
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"], "grid_points": 10}}]}
+    return frame, raw
+
+
+def test_a_level_without_reference_rows_gives_not_estimable_level_contrasts(
+        refit_frame: Any) -> None:
+    frame, raw = _level_without_reference_rows()
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    lv = eff[eff["by_level"] == ">=50"]
+    assert set(lv["form"]) == {"spline x level", "legacy x level"} and len(lv) == 4
+    assert (lv["status"] == "not_estimable").all() and lv["estimate"].isna().all()
+    assert (lv["group"] == ">=60").all()  # the level's only group with rows
+    spline = eff[(eff["by_level"] == "<50") & (eff["form"] == "spline x level")]
+    assert len(spline) == 4 and (spline["status"] == "ok").all()
