@@ -266,6 +266,11 @@ def test_exposure_df_selection_and_small_sample_warnings(refit_frame: Any,
     assert int(row["n_params"]) - 1 > k_needed  # too many coefficients for the events: the warning must show
     assert "per coefficient" in row["warnings"]
     assert (fits.loc[fits["form"] == "null", "warnings"] == "").all()
+    assert fits["events"].dtype == "Int64" and "EVENTS" not in fits.columns
+    assert list(fits.columns) == [  # the README's columns, nothing else
+        "form", "detail", "adjustment", "selected", "n", "events", "n_params", "exposure_df",
+        "loglik", "lr_chi2", "aic", "bic", "c_index", "r2", "converged", "status", "message",
+        "warnings", "exposure_basis", "adjustment_terms"]
     # R^2 is the linear model's only: a missing number (float NaN) for the logistic rows
     assert fits["r2"].dtype == np.float64 and fits["r2"].isna().all()
     # the recorded designs are canonical JSON (sorted keys), so reruns compare byte for byte
