@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -12,6 +13,17 @@ import pytest
 from unbin.data import analysis_sample
 from unbin.refit.analysis import Refit, refit_analysis
 from unbin.spec import Spec, parse_spec
+
+
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+    """Simulations marked ``long`` (many minutes each) run only with UNBIN_LONG_CHECKS=1; a
+    shorter version of each runs always."""
+    if os.environ.get("UNBIN_LONG_CHECKS") == "1":
+        return
+    skip = pytest.mark.skip(reason="long simulation: set UNBIN_LONG_CHECKS=1 to run it")
+    for item in items:
+        if "long" in item.keywords:
+            item.add_marker(skip)
 
 
 def _one_analysis(outcome: dict[str, Any], exposure: str, grouping: dict[str, Any],

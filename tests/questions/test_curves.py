@@ -181,3 +181,132 @@ def test_a_linear_curve_misses_a_curved_truth(refit_frame: Any, one_analysis: An
     95%."""
     cover = _coverage(refit_frame, one_analysis, _curved, "linear", seed=9, reps=50)
     assert cover[:2].max() < 0.5, cover
+
+
+def test_rows_carry_status_scale_and_no_level(refit_frame: Any, one_analysis: Any) -> None:
+    frame = clinic_frame("count", 700, seed=41)
+    raw = one_analysis(OUTCOMES["count"], "marker", dict(MARKER_GROUPING),
+                       continuous={"forms": ["linear", "spline"], "grid_points": 15})
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    assert (cur["status"] == "ok").all() and (cur["scale"] == "rate ratio").all()
+    assert (cur["by_level"] == "").all()
+    assert cur.groupby(["adjustment", "form"]).size().eq(15).all()
+    assert cur.index.equals(pd.RangeIndex(len(cur)))  # one row label per row
+
+
+def test_a_fixed_grid_marks_points_outside_the_cohorts_range(refit_frame: Any,
+                                                            one_analysis: Any) -> None:
+    # The spec's grid_range and reference_value (README) replace the cohort's own; in_range is
+    # true exactly inside this cohort's 1st-99th percentile range (numpy by hand), and the
+    # estimates stay the reference library's (statsmodels OLS slope x distance) outside it too.
+    import statsmodels.api as sm
+
+    frame = clinic_frame("continuous", 800, seed=42)
+    raw = one_analysis(OUTCOMES["continuous"], "marker", dict(MARKER_GROUPING),
+                       continuous={"forms": ["linear"], "grid_range": [0.0, 40.0],
+                                   "reference_value": 7.0, "grid_points": 41})
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    x = frame["marker"].to_numpy()
+    lo, hi = np.quantile(x, [0.01, 0.99])
+    grid = np.linspace(0.0, 40.0, 41)
+    c = cur[(cur["form"] == "linear") & (cur["adjustment"] == "none")].sort_values("x")
+    np.testing.assert_allclose(c["x"], grid, rtol=1e-12)
+    assert (c["x_reference"] == 7.0).all()
+    expected = (grid >= lo) & (grid <= hi)
+    assert expected.any() and (~expected).any()
+    assert c["in_range"].tolist() == expected.tolist()
+    slope = sm.OLS(frame["score"], sm.add_constant(frame["marker"])).fit().params["marker"]
+    np.testing.assert_allclose(c["estimate"], slope * (grid - 7.0), rtol=1e-9, atol=1e-9)
+
+
+def test_a_failed_form_keeps_its_status_and_the_others_are_drawn(refit_frame: Any,
+                                                                one_analysis: Any) -> None:
+    # An empty legacy group: the grouped fit fails and its curve rows say so (NaN estimates),
+    # while the linear curve still matches statsmodels OLS.
+    import statsmodels.api as sm
+
+    frame = clinic_frame("continuous", 700, seed=43)
+    frame = frame[(frame["marker"] < 5.0) | (frame["marker"] >= 6.0)].reset_index(drop=True)
+    raw = one_analysis(OUTCOMES["continuous"], "marker",
+                       {"cuts": [2.5, 5.0, 6.0, 9.0], "reference": "6-<9"},
+                       continuous={"forms": ["linear"], "grid_points": 11})
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    leg = cur[cur["form"] == "legacy"]
+    assert len(leg) and (leg["status"] == "failed").all() and leg["estimate"].isna().all()
+    lin = cur[(cur["form"] == "linear") & (cur["adjustment"] == "none")]
+    assert (lin["status"] == "ok").all()
+    slope = sm.OLS(frame["score"], sm.add_constant(frame["marker"])).fit().params["marker"]
+    np.testing.assert_allclose(lin["estimate"], slope * (lin["x"] - lin["x_reference"]),
+                               rtol=1e-9, atol=1e-9)
+
+
+def test_level_curves_lie_on_the_grid_relative_to_each_levels_reference(
+        refit_frame: Any) -> None:
+    # With an effect modifier: per level and coding, the spline x level curve is on the same
+    # grid, relative to the median of the legacy reference group within the level, and in_range
+    # marks the level's own 1st-99th percentile range (numpy by hand). Its estimates are
+    # checked against statsmodels in tests/test_modifier.py.
+    rng = np.random.default_rng(44)
+    n = 1500
+    w = rng.uniform(0, 100, n)
+    x = 50 + 0.3 * (w - 50) + rng.normal(0, 8, n)
+    lp = -1 + 0.04 * (x - 50) + 0.5 * (w >= 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": rng.normal(size=n),
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"], "grid_points": 30}}]}
+    spec, r = refit_frame(frame, raw)
+    cur = curves_table(r, spec)
+    grid = np.linspace(*np.quantile(x, [0.01, 0.99]), 30)
+    lv = cur[cur["by_level"] != ""]
+    assert lv.groupby(["form", "adjustment", "by_level"]).size().to_dict() == {
+        ("spline x level", c, level): 30 for c in ("legacy", "continuous")
+        for level in ("<50", ">=50")}
+    for label, in_lvl in (("<50", w < 50), (">=50", w >= 50)):
+        lo, hi = np.quantile(x[in_lvl], [0.01, 0.99])
+        for coding in ("legacy", "continuous"):
+            c = lv[(lv["by_level"] == label) & (lv["adjustment"] == coding)].sort_values("x")
+            np.testing.assert_allclose(c["x"], grid, rtol=1e-12)
+            np.testing.assert_allclose(c["x_reference"], np.median(x[in_lvl & (x < 60)]),
+                                       rtol=1e-12)
+            inside = (grid >= lo) & (grid <= hi)
+            assert inside.any() and (~inside).any()
+            assert c["in_range"].tolist() == inside.tolist()
+            assert (c["status"] == "ok").all() and c["estimate"].notna().all()
+
+
+def _level_without_reference_rows() -> tuple[pd.DataFrame, dict[str, Any]]:
+    """x rises steeply with the modifier w: in the level w >= 50 no row lies in the legacy
+    reference group x < 60, so that level has no reference value."""
+    rng = np.random.default_rng(45)
+    n = 1500
+    w = rng.uniform(0, 100, n)
+    x = 40 + 0.6 * w + rng.normal(0, 3, n)
+    lp = -1 + 0.04 * (x - 50) + 0.5 * (w >= 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": rng.normal(size=n),
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    assert not ((w >= 50) & (x < 60)).any()
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"], "grid_points": 10}}]}
+    return frame, raw
+
+
+def test_a_level_without_reference_rows_is_not_estimable(refit_frame: Any) -> None:
+    frame, raw = _level_without_reference_rows()
+    spec, r = refit_frame(frame, raw)
+    lv = curves_table(r, spec).query("by_level != ''")
+    gone = lv[lv["by_level"] == ">=50"]
+    assert len(gone) == 20 and (gone["status"] == "not_estimable").all()
+    assert gone["estimate"].isna().all() and gone["x_reference"].isna().all()
+    assert lv["in_range"].dtype == bool and not gone["in_range"].any()
+    kept = lv[lv["by_level"] == "<50"]
+    assert len(kept) == 20 and (kept["status"] == "ok").all() and kept["estimate"].notna().all()

@@ -196,3 +196,238 @@ def test_per_unit_and_iqr_intervals_cover_the_truth(refit_frame: Any, one_analys
             hits[key] += int(row["lower"] <= truth <= row["upper"])
     for key, h in hits.items():
         assert abs(h / reps - 0.95) <= band, (key, h / reps)
+
+
+def test_estimable_rows_say_ok_and_carry_the_scale(refit_frame: Any, one_analysis: Any) -> None:
+    # Every estimable row is "ok" with no message, names its scale (the README's effect scales)
+    # and has no level; the reference group's own row is the null contrast.
+    frame = clinic_frame("count", 800, seed=21)
+    spec, r = refit_frame(frame, _raw(one_analysis, "count"))
+    eff = effects_table(r, spec)
+    assert (eff["status"] == "ok").all() and (eff["message"] == "").all()
+    assert (eff["scale"] == "rate ratio").all() and (eff["by_level"] == "").all()
+    own = eff[eff["contrast"] == "5-<9 (reference)"]
+    assert len(own) == 11 and (own["effect"] == 1.0).all()  # 4 forms x 2 codings + 3 crude
+    labels = eff.groupby("contrast_type")["contrast"].agg(set)
+    assert labels["per_unit"] == {"per unit"}
+    assert labels["iqr"] == {"75th vs 25th percentile"}
+    assert (eff.loc[eff["contrast_type"] != "group", "group"] == "").all()
+
+
+def _linear_slope(frame: pd.DataFrame) -> float:
+    """Reference library: statsmodels OLS of the score on the marker alone."""
+    import statsmodels.api as sm
+
+    return float(sm.OLS(frame["score"], sm.add_constant(frame["marker"])).fit().params["marker"])
+
+
+def test_an_empty_legacy_group_gives_not_estimable_rows_and_the_others_go_on(
+        refit_frame: Any, one_analysis: Any) -> None:
+    # A middle legacy group with no rows: its contrast in every form is "not_estimable" with a
+    # message naming it; the groups after it are still estimated (linear form, no adjustment:
+    # the OLS slope times the distance between the group medians, numpy and statsmodels by
+    # hand). Forms without a spline: the FP rows still follow the missing spline's place.
+    frame = clinic_frame("continuous", 900, seed=22)
+    frame = frame[(frame["marker"] < 5.0) | (frame["marker"] >= 6.0)].reset_index(drop=True)
+    grouping = {"cuts": [2.5, 5.0, 6.0, 9.0], "reference": "6-<9"}
+    raw = one_analysis(OUTCOMES["continuous"], "marker", grouping,
+                       continuous={"forms": ["linear", "fp"]})
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    x = frame["marker"].to_numpy()
+    x_ref = float(np.median(x[(x >= 6.0) & (x < 9.0)]))
+    empty = eff[(eff["contrast_type"] == "group") & (eff["group"] == "5-<6")]
+    assert set(empty["form"]) == {"legacy", "linear", "spline", "fp"}  # spline: crude only
+    assert (empty["status"] == "not_estimable").all()
+    assert (empty["message"] == "legacy group '5-<6' has no rows in the analysis sample").all()
+    assert list(eff.columns) == [  # the README's columns, nothing else
+        "adjustment", "form", "status", "message", "contrast_type", "contrast", "group",
+        "x_value", "x_reference", "estimate", "se", "within_p10", "within_p90", "by_level",
+        "lower", "upper", "effect", "effect_lower", "effect_upper", "scale", "variance"]
+    assert (eff["variance"] == "model").all()  # no weights, no cluster: model-based SEs
+    assert empty["estimate"].isna().all() and empty["x_value"].isna().all()
+    np.testing.assert_allclose(empty["x_reference"], x_ref, rtol=1e-12)
+    assert (empty["contrast"] == "5-<6 vs 6-<9").all()
+    slope = _linear_slope(frame)
+    lin = eff[(eff["form"] == "linear") & (eff["adjustment"] == "none")
+              & (eff["contrast_type"] == "group") & (eff["status"] == "ok")].set_index("group")
+    assert sorted(lin.index) == ["2.5-<5", "6-<9", "<2.5", ">=9"]
+    for label, lo, hi in (("<2.5", -np.inf, 2.5), ("2.5-<5", 2.5, 5.0), (">=9", 9.0, np.inf)):
+        x_g = float(np.median(x[(x >= lo) & (x < hi)]))
+        assert lin.loc[label, "x_value"] == pytest.approx(x_g, rel=1e-12)
+        assert lin.loc[label, "estimate"] == pytest.approx(slope * (x_g - x_ref), rel=1e-9)
+    for coding in ("legacy", "continuous"):
+        fp = eff[(eff["form"] == "fp") & (eff["adjustment"] == coding)]
+        assert len(fp) == 6  # five groups and the IQR contrast
+
+
+def test_an_empty_reference_group_makes_every_group_contrast_not_estimable(
+        refit_frame: Any, one_analysis: Any) -> None:
+    frame = clinic_frame("continuous", 600, seed=23)
+    frame = frame[(frame["marker"] < 5.0) | (frame["marker"] >= 9.0)].reset_index(drop=True)
+    raw = one_analysis(OUTCOMES["continuous"], "marker", dict(MARKER_GROUPING),
+                       continuous={"forms": ["linear"]})
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    groups = eff[eff["contrast_type"] == "group"]
+    assert len(groups) and (groups["status"] == "not_estimable").all()
+    assert groups["x_reference"].isna().all() and groups["estimate"].isna().all()
+    # each row names the group without rows: its own when it is empty, else the reference
+    assert (groups["message"] == "legacy group '5-<9' has no rows in the analysis sample").all()
+    assert set(groups["contrast"]) == {"<2.5 vs 5-<9", "2.5-<5 vs 5-<9", "5-<9 (reference)",
+                                       ">=9 vs 5-<9"}
+    assert groups["x_value"].notna().sum() == 0 and (groups["contrast_type"] == "group").all()
+    # the IQR and per-unit contrasts do not need the reference group (OLS slope, statsmodels)
+    lin = eff[(eff["form"] == "linear") & (eff["adjustment"] == "none")].set_index(
+        "contrast_type")
+    assert lin.loc["per_unit", "estimate"] == pytest.approx(_linear_slope(frame), rel=1e-9)
+    assert lin.loc["per_unit", "status"] == "ok"
+
+
+def test_quartiles_in_one_legacy_group_make_only_the_legacy_iqr_not_estimable(
+        refit_frame: Any, one_analysis: Any) -> None:
+    # Cuts outside the interquartile range: the grouped model gives both quartiles the same
+    # value, so its IQR contrast is "not_estimable" (NaN, a message naming the percentiles and
+    # the group); the linear form's IQR contrast is the OLS slope times the IQR (statsmodels).
+    frame = clinic_frame("continuous", 700, seed=24)
+    raw = one_analysis(OUTCOMES["continuous"], "marker", {"cuts": [1.0, 20.0]},
+                       continuous={"forms": ["linear"]})
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    iqr = eff[(eff["contrast_type"] == "iqr") & (eff["adjustment"] == "none")].set_index("form")
+    q25, q75 = np.quantile(frame["marker"], [0.25, 0.75])
+    assert iqr.loc["legacy", "status"] == "not_estimable"
+    assert np.isnan(iqr.loc["legacy", "estimate"]) and np.isnan(iqr.loc["legacy", "se"])
+    assert iqr.loc["legacy", "message"] == (
+        f"the 25th and 75th percentiles ({q25:g}, {q75:g}) fall in the same legacy group "
+        "'1-<20': the grouped model cannot contrast them")
+    assert iqr.loc["linear", "status"] == "ok" and iqr.loc["linear", "message"] == ""
+    assert iqr.loc["linear", "estimate"] == pytest.approx(_linear_slope(frame) * (q75 - q25),
+                                                          rel=1e-9)
+
+
+def _cr(var: str, knots: Any) -> str:
+    """patsy's natural cubic spline on the given knots, centred: the same function space as the
+    restricted cubic spline without its constant (Durrleman & Simon 1989)."""
+    k = [float(v) for v in knots]
+    return (f"cr({var}, knots={k[1:-1]}, lower_bound={k[0]}, upper_bound={k[-1]}, "
+            "constraints='center')")
+
+
+def _modifier_case(cuts: list[float]) -> tuple[pd.DataFrame, dict[str, Any]]:
+    """Exposure x (legacy ``cuts``), effect modifier w (legacy cut at 50), adjuster z; logistic
+    with a modest x by level interaction."""
+    rng = np.random.default_rng(31)
+    n = 2500
+    w = rng.uniform(0, 100, n)
+    x = 50 + 0.15 * (w - 50) + rng.normal(0, 10, n)
+    z = rng.normal(0, 1, n)
+    lp = -1 + 0.04 * (x - 50) + 0.8 * (w >= 50) + 0.3 * z + 0.02 * (w >= 50) * (x - 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": z,
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": cuts}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"]}}]}
+    return frame, raw
+
+
+def test_level_rows_of_the_spline_remain_when_the_grouped_level_model_fails(
+        refit_frame: Any) -> None:
+    # An empty legacy group (cut above every value) makes the legacy x level model impossible;
+    # the spline x level rows are still there, per coding and level, for the groups with rows.
+    frame, raw = _modifier_case([60, 500])
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    levels = eff[eff["by_level"] != ""]
+    assert levels.groupby(["form", "adjustment"]).size().to_dict() == {
+        ("spline x level", "continuous"): 4, ("spline x level", "legacy"): 4}
+    assert (levels["status"] == "ok").all() and levels["estimate"].notna().all()
+
+
+def test_spline_by_level_group_contrasts_match_statsmodels(refit_frame: Any) -> None:
+    # The spline x level rows (continuous adjustment): per level of the modifier w, each legacy
+    # group's median vs the reference group's median within the level, and the spread at the
+    # group's 10th/90th percentiles, equal statsmodels GLM (binomial) contrasts d'b with SE
+    # sqrt(d'Vd) on patsy's natural spline with the same knots x C(level), the level main
+    # effect and the continuous adjusters' splines in the model (default 4-knot quantiles).
+    import patsy
+    import statsmodels.api as sm
+
+    from unbin.refit.interaction import interaction_spline
+
+    frame, raw = _modifier_case([60])
+    x, w, z = (frame[c].to_numpy() for c in ("x", "w", "z"))
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    quant = [0.05, 0.35, 0.65, 0.95]
+    zk, wk = np.quantile(z, quant), np.quantile(w, quant)
+    f = frame.assign(lvl=np.where(w >= 50, "b", "a"))
+    yv, X = patsy.dmatrices(
+        f"y ~ {_cr('x', interaction_spline(r).knots)} * C(lvl) + {_cr('z', zk)} + "
+        f"{_cr('w', wk)}", f, return_type="dataframe")
+    fit = sm.GLM(yv, X, family=sm.families.Binomial()).fit(tol=1e-12)
+    b, V, di = fit.params.to_numpy(), fit.cov_params().to_numpy(), X.design_info
+
+    def contrast(xs: np.ndarray, x_ref: float, lvl: str) -> tuple[np.ndarray, np.ndarray]:
+        new = pd.DataFrame({"x": xs, "lvl": lvl, "z": 0.0, "w": 50.0})
+        D = (np.asarray(patsy.build_design_matrices([di], new)[0])
+             - np.asarray(patsy.build_design_matrices([di], new.assign(x=x_ref))[0]))
+        return D @ b, np.sqrt(np.einsum("ij,jk,ik->i", D, V, D))
+
+    levels = eff[eff["by_level"] != ""]
+    assert levels.groupby(["form", "adjustment"]).size().to_dict() == {
+        ("legacy x level", "continuous"): 4, ("legacy x level", "legacy"): 4,
+        ("spline x level", "continuous"): 4, ("spline x level", "legacy"): 4}
+    rows = eff[(eff["form"] == "spline x level") & (eff["adjustment"] == "continuous")]
+    for label, lvl, in_lvl in (("<50", "a", w < 50), (">=50", "b", w >= 50)):
+        x_ref = float(np.median(x[in_lvl & (x < 60)]))
+        for group, in_grp in (("<60", x < 60), (">=60", x >= 60)):
+            row = rows[(rows["by_level"] == label) & (rows["group"] == group)].iloc[0]
+            vals = x[in_lvl & in_grp]
+            x_g = float(np.median(vals))
+            est, se = contrast(np.array([x_g]), x_ref, lvl)
+            spread, _ = contrast(np.quantile(vals, [0.10, 0.90]), x_ref, lvl)
+            assert row["status"] == "ok"
+            assert row["contrast"] == (f"<60 (w = {label}) (reference)" if group == "<60"
+                                       else f">=60 vs <60 (w = {label})")
+            assert row["x_value"] == pytest.approx(x_g, rel=1e-12)
+            assert row["x_reference"] == pytest.approx(x_ref, rel=1e-12)
+            assert row["estimate"] == pytest.approx(est[0], rel=1e-5, abs=1e-7)
+            assert row["se"] == pytest.approx(se[0], rel=1e-5, abs=1e-9)
+            np.testing.assert_allclose([row["within_p10"], row["within_p90"]], np.exp(spread),
+                                       rtol=1e-5)
+            assert row["scale"] == "odds ratio"
+
+
+def _level_without_reference_rows() -> tuple[pd.DataFrame, dict[str, Any]]:
+    """x rises steeply with the modifier w: in the level w >= 50 no row lies in the legacy
+    reference group x < 60, so that level has no reference value."""
+    rng = np.random.default_rng(45)
+    n = 1500
+    w = rng.uniform(0, 100, n)
+    x = 40 + 0.6 * w + rng.normal(0, 3, n)
+    lp = -1 + 0.04 * (x - 50) + 0.5 * (w >= 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": rng.normal(size=n),
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    assert not ((w >= 50) & (x < 60)).any()
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"], "grid_points": 10}}]}
+    return frame, raw
+
+
+def test_a_level_without_reference_rows_gives_not_estimable_level_contrasts(
+        refit_frame: Any) -> None:
+    frame, raw = _level_without_reference_rows()
+    spec, r = refit_frame(frame, raw)
+    eff = effects_table(r, spec)
+    lv = eff[eff["by_level"] == ">=50"]
+    assert set(lv["form"]) == {"spline x level", "legacy x level"} and len(lv) == 4
+    assert (lv["status"] == "not_estimable").all() and lv["estimate"].isna().all()
+    assert (lv["group"] == ">=60").all()  # the level's only group with rows
+    spline = eff[(eff["by_level"] == "<50") & (eff["form"] == "spline x level")]
+    assert len(spline) == 4 and (spline["status"] == "ok").all()

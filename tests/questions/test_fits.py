@@ -4,6 +4,7 @@ and what the table records when fits fail (separation, a monotone likelihood).""
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 from typing import Any
 
@@ -250,3 +251,45 @@ def test_person_time_is_the_samples_follow_up(refit_frame: Any, one_analysis: An
     column = OUTCOMES[family]["time" if family == "survival" else "persontime"]
     expected = float(frame[column].sum())
     assert np.allclose(fits["person_time"].to_numpy(float), expected, rtol=1e-12)
+
+
+def test_exposure_df_selection_and_small_sample_warnings(refit_frame: Any,
+                                                         one_analysis: Any) -> None:
+    # exposure_df by hand (groups - 1, 1 for linear, knots - 1 for a spline, both for
+    # legacy + test spline); per coding exactly one candidate spline is selected, the one with
+    # the lowest AIC (recomputed from statsmodels' own AIC of each candidate); few events per
+    # coefficient are flagged (Peduzzi et al. 1996: at least 10).
+    frame, fits = _refit(refit_frame, one_analysis, "binary", 180, 44,
+                         spline_knots=[3, 4, 5], forms=["linear", "spline"])
+    df_of = {"null": 0, "legacy": 3, "linear": 1, "test_spline": 3, "legacy+test_spline": 6}
+    for form, want in df_of.items():
+        assert (fits.loc[fits["form"] == form, "exposure_df"] == want).all(), form
+    for coding in ("legacy", "continuous", "none"):
+        cand = fits[(fits["form"] == "spline") & (fits["adjustment"] == coding)]
+        assert len(cand) == 3 and cand["selected"].sum() == 1
+        assert sorted(cand["exposure_df"]) == [2, 3, 4]
+        aic = {}
+        for _, row in cand.iterrows():
+            ref = reference_fit(row, frame, "binary", "marker", OUTCOMES["binary"])
+            aic[row["exposure_df"]] = ref.aic
+            assert row["aic"] == pytest.approx(ref.aic, rel=1e-9)
+        assert int(cand.loc[cand["selected"], "exposure_df"].iloc[0]) == min(aic, key=aic.get)
+    events = int(frame["flare"].sum())
+    k_needed = min(events, len(frame) - events) / 10
+    wide = fits[(fits["form"] == "legacy+test_spline") & (fits["adjustment"] == "continuous")]
+    row = wide.iloc[0]
+    assert int(row["n_params"]) - 1 > k_needed  # too many coefficients for the events: the warning must show
+    assert "per coefficient" in row["warnings"]
+    assert (fits.loc[fits["form"] == "null", "warnings"] == "").all()
+    assert fits["events"].dtype == "Int64" and "EVENTS" not in fits.columns
+    assert list(fits.columns) == [  # the README's columns, nothing else
+        "form", "detail", "adjustment", "selected", "n", "events", "person_time", "n_params",
+        "exposure_df", "loglik", "lr_chi2", "aic", "bic", "c_index", "r2", "variance",
+        "dispersion", "nb_alpha", "nb_alpha_se", "converged", "status", "message",
+        "warnings", "exposure_basis", "adjustment_terms"]
+    # R^2 is the linear model's only: a missing number (float NaN) for the logistic rows
+    assert fits["r2"].dtype == np.float64 and fits["r2"].isna().all()
+    # the recorded designs are canonical JSON (sorted keys), so reruns compare byte for byte
+    for col in ("exposure_basis", "adjustment_terms"):
+        for s in fits[col]:
+            assert s == json.dumps(json.loads(s), sort_keys=True)

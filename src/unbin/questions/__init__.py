@@ -35,6 +35,7 @@ QUESTION_TABLES: dict[str, str] = {
 RESAMPLING_TABLES: dict[str, str] = {
     "confounding": "questions.confounding:confounding_table",
     "cutpoints": "questions.cutpoints:cutpoints_table",
+    "information_bootstrap": "questions.kept:information_bootstrap_table",
 }
 
 

@@ -1,0 +1,254 @@
+"""Information kept, with a bootstrap interval: how sure the share of the exposure's association
+that the legacy grouping keeps is.
+
+Per adjustment coding (the ``information`` table's: legacy, continuous, none), the share kept is
+
+    info_kept = LR(legacy) / LR(legacy + test spline),
+
+each LR the likelihood-ratio chi-square of the exposure against the adjustment-only (null) model,
+exactly as the ``information`` table computes it (the same designs, the same fitter, so the point
+estimates are equal). Its interval is the percentile interval over ``resampling.bootstrap``
+case-resampling replicates (Efron & Tibshirani 1993, ch. 13): each replicate draws n rows with
+replacement (``unbin.models.weighted.resample_weights``, from the spec's seeded generator, so a
+rerun gives the same draws), refits the null, legacy and legacy + test spline models of every
+coding on the drawn rows and forms the replicate's share from their log-likelihoods. The
+replicates are shared by all codings and models. The legacy cuts and the test spline's knots stay
+as in the full sample (the spline was fixed before the outcome was seen; the cuts are the paper's).
+
+Refits: the linear, logistic and Poisson models by the vectorised Newton solver on frequency
+weights (``unbin.models.weighted.WeightedGLM``), started at the full-sample estimate; Cox models
+by ``unbin.models.cox.fit_cox`` (Efron ties) on the drawn rows repeated as often as drawn, started
+there too (a repeated row counts as tied events, as in the full-sample likelihood). The replicate
+log-likelihoods are the frequency-weighted ones: logistic sum w (y eta - log(1 + e^eta)); Poisson
+sum w (y eta - mu) (the log y! term cancels in the LR); linear -N/2 log(RSS / N) with N = sum w
+and RSS the weighted residual sum of squares (the maximum-likelihood variance, as the full-sample
+fit's); Cox the log partial likelihood. A replicate in which a model fails (a design column
+without variation among the drawn rows, no convergence, fitted risks running to 0 or 1) or whose
+LR(legacy + test spline) is not positive is left out (``replicates_used`` counts the rest).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from ..models import fit
+from ..models.base import FitResult, Outcome
+from ..models.weighted import _CHUNK_CELLS, WeightedGLM, resample_weights
+from ..refit.analysis import (
+    ADJUSTMENTS,
+    Refit,
+    adjustment_terms,
+    design,
+    test_spline_term,
+)
+from ..spec import Spec
+from ..terms import Term
+
+TABLE = "information_bootstrap"
+LEVEL = 0.95
+MIN_REPLICATES = 10  # fewer usable replicates than this: no interval (common practice)
+FORMS = ("null", "legacy", "legacy+test_spline")
+
+
+@dataclass
+class _Model:
+    X: np.ndarray
+    res: FitResult
+
+
+def _empty_groups(r: Refit) -> str:
+    counts = np.bincount(r.legacy.codes(r.x), minlength=len(r.legacy.labels))
+    empty = [r.legacy.labels[j] for j in range(len(r.legacy.labels)) if counts[j] == 0]
+    if not empty:
+        return ""
+    return (f"legacy group(s) {empty} of {r.legacy.variable!r} are empty in the analysis sample "
+            f"(cuts {list(r.legacy.cuts)}); the share kept cannot be estimated. Check the cuts "
+            "against the data's range.")
+
+
+def glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
+                W: np.ndarray) -> np.ndarray:
+    """The frequency-weighted log-likelihood (up to a constant that cancels in an LR between
+    models of the same outcome) of each replicate: coefficients ``coef`` (B, p + 1, intercept
+    first) on weights ``W`` (B, n). NaN where the coefficients are."""
+    y = np.asarray(outcome.y, dtype=float)
+    eta = coef[:, :1] + coef[:, 1:] @ np.asarray(X, dtype=float).T
+    if outcome.offset is not None:
+        eta = eta + outcome.offset
+    if family == "binary":
+        terms = y * eta - np.logaddexp(0.0, eta)
+    elif family == "count":
+        terms = y * eta - np.exp(np.minimum(eta, 700.0))
+    else:  # linear: the profile log-likelihood at the maximum-likelihood variance
+        N = W.sum(axis=1)
+        rss = np.sum(W * (y - eta) ** 2, axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.asarray(-0.5 * N * np.log(rss / N))
+    return np.asarray(np.sum(W * terms, axis=1))
+
+
+def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray) -> list[np.ndarray]:
+    from ..models.cox import fit_cox, prepare_layout
+
+    assert outcome.time is not None
+    out = [np.full(len(W), np.nan) for _ in models]
+    for b, w in enumerate(W):
+        m = np.repeat(np.arange(len(w)), np.asarray(w).astype(np.int64))
+        time, event = outcome.time[m], outcome.y[m]
+        entry = outcome.entry[m] if outcome.entry is not None else None
+        strata = outcome.strata[m] if outcome.strata is not None else None
+        try:
+            layout = prepare_layout(time, event, entry=entry, strata=strata)
+        except ValueError:
+            continue
+        for j, mod in enumerate(models):
+            try:
+                f = fit_cox(mod.X[m], time, event, entry=entry, strata=strata,
+                            init=mod.res.coef, layout=layout)
+            except ValueError:
+                continue
+            if f.converged:
+                out[j][b] = f.loglik
+    return out
+
+
+def replicate_shares(family: str, models: list[_Model], outcome: Outcome,
+                     rng: np.random.Generator, replicates: int) -> np.ndarray:
+    """The share kept in each replicate, for consecutive triples (null, legacy, legacy + test
+    spline) of ``models``: shape (replicates, len(models) // 3), NaN where a replicate failed."""
+    n = outcome.n
+    k = len(models) // 3
+    # a model shared by several codings (no adjustment variables) is refitted once
+    unique = list({id(mod): mod for mod in models}.values())
+    col = {id(mod): j for j, mod in enumerate(unique)}
+    ll_unique = np.full((replicates, len(unique)), np.nan)
+    p_max = max(mod.X.shape[1] for mod in unique)
+    chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
+    prepared: list[WeightedGLM] = []
+    for c0 in range(0, replicates, chunk):
+        W = resample_weights(rng, n, min(chunk, replicates - c0))
+        if family == "survival":
+            for j, v in enumerate(_cox_logliks(unique, outcome, W)):
+                ll_unique[c0:c0 + len(W), j] = v
+            continue
+        if not prepared:
+            prepared.extend(WeightedGLM(family, mod.X, outcome, mod.res.coef) for mod in unique)
+        for j, (mod, g) in enumerate(zip(unique, prepared, strict=True)):
+            ll_unique[c0:c0 + len(W), j] = glm_logliks(family, mod.X, g.coef(W), outcome, W)
+    ll = ll_unique[:, [col[id(mod)] for mod in models]].reshape(replicates, k, 3)
+    lr_legacy = 2 * (ll[:, :, 1] - ll[:, :, 0])
+    lr_full = 2 * (ll[:, :, 2] - ll[:, :, 0])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = lr_legacy / lr_full
+    share[~(lr_full > 0) | ~np.isfinite(share)] = np.nan
+    return share
+
+
+def _point_rows(r: Refit, spec: Spec) -> tuple[list[dict[str, object]], list[_Model], list[int]]:
+    """One row per coding with the point estimate (or why there is none), the fitted models of
+    the rows that have one (consecutive null, legacy, legacy + test spline) and those rows."""
+    a = r.analysis
+    df = r.sample.frame
+    codings: list[tuple[str, tuple[Term, ...]]] = [
+        (c, adjustment_terms(df, a, spec, c)) for c in ADJUSTMENTS]
+    codings.append(("none", ()))
+    base = {"info_kept": np.nan, "info_kept_lower": np.nan, "info_kept_upper": np.nan,
+            "level": LEVEL, "replicates": spec.resampling.bootstrap, "replicates_used": 0}
+    why = _empty_groups(r)
+    test_term = None
+    if not why:
+        try:
+            test_term = test_spline_term(a, r.x)
+        except ValueError as exc:
+            why = (f"test spline ({a.continuous.test_knots} knots; continuous.test_knots): "
+                   f"{exc} The share kept is not computed.")
+    if why or test_term is None:
+        return ([{"adjustment": c, **base, "status": "failed", "message": why}
+                 for c, _ in codings], [], [])
+
+    fitted: dict[str, _Model] = {}  # identical designs (no adjustment variables) fitted once
+
+    def model(exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> _Model:
+        key = repr((exposure, adjust))
+        if key not in fitted:
+            X, names = design(df, r.x, exposure, adjust)
+            fitted[key] = _Model(X, fit(r.family, X, r.outcome, names))
+        return fitted[key]
+
+    exposures: dict[str, tuple[Term, ...]] = {
+        "null": (), "legacy": (r.legacy,), "legacy+test_spline": (r.legacy, test_term)}
+    rows: list[dict[str, object]] = []
+    ok_models: list[_Model] = []
+    ok_rows: list[int] = []
+    for coding, adjust in codings:
+        trio = [model(exposures[form], adjust) for form in FORMS]
+        row: dict[str, object] = {"adjustment": coding, **base, "status": "ok", "message": ""}
+        failed = [f"{form}: {mod.res.message}" for form, mod in zip(FORMS, trio, strict=True)
+                  if not mod.res.ok]
+        if failed:
+            row.update(status="failed", message="; ".join(failed))
+        else:
+            ll0, ll1, ll2 = (mod.res.loglik for mod in trio)
+            full = 2 * (ll2 - ll0)
+            if not (np.isfinite(full) and full > 0):
+                row.update(status="failed", message="the LR of legacy + test spline is not "
+                           "positive: there is no association to share")
+            else:
+                row["info_kept"] = 2 * (ll1 - ll0) / full
+                ok_models.extend(trio)
+                ok_rows.append(len(rows))
+        rows.append(row)
+    return rows, ok_models, ok_rows
+
+
+def bootstrap_shares(r: Refit, spec: Spec) -> dict[str, np.ndarray]:
+    """The share kept in each of the ``resampling.bootstrap`` replicates, per adjustment coding
+    that has a point estimate (NaN where a replicate failed)."""
+    rows, models, ok_rows = _point_rows(r, spec)
+    if not ok_rows or spec.resampling.bootstrap <= 0:
+        return {}
+    shares = replicate_shares(r.family, models, r.outcome,
+                              spec.rng(r.analysis.name, "information-bootstrap"),
+                              spec.resampling.bootstrap)
+    return {str(rows[i]["adjustment"]): shares[:, j] for j, i in enumerate(ok_rows)}
+
+
+COLUMNS = ("adjustment", "info_kept", "info_kept_lower", "info_kept_upper", "level",
+           "replicates", "replicates_used", "status", "message")
+
+
+def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
+    """The ``information_bootstrap`` table: per adjustment coding, the share kept (equal to the
+    ``information`` table's) and its percentile interval over the bootstrap replicates."""
+    replicates = spec.resampling.bootstrap
+    rows, models, ok_rows = _point_rows(r, spec)
+    if replicates <= 0:
+        for row in rows:
+            if row["status"] == "ok":
+                row.update(status="skipped", message="resampling.bootstrap is 0: no interval")
+        return pd.DataFrame(rows, columns=list(COLUMNS))
+    if not ok_rows:
+        return pd.DataFrame(rows, columns=list(COLUMNS))
+    shares = replicate_shares(r.family, models, r.outcome,
+                              spec.rng(r.analysis.name, "information-bootstrap"), replicates)
+    alpha = (1 - LEVEL) / 2
+    for j, i in enumerate(ok_rows):
+        s = shares[:, j]
+        s = s[np.isfinite(s)]
+        row = rows[i]
+        row["replicates_used"] = len(s)
+        if len(s) < MIN_REPLICATES:
+            row.update(status="failed", message=(
+                f"only {len(s)} of {replicates} bootstrap replicates could be refitted (at "
+                f"least {MIN_REPLICATES} are needed for an interval)"))
+            continue
+        lo, hi = np.quantile(s, [alpha, 1 - alpha])
+        row.update(info_kept_lower=float(lo), info_kept_upper=float(hi))
+        if len(s) < replicates:
+            row["message"] = (
+                f"{replicates - len(s)} of {replicates} bootstrap replicates left out (a model "
+                "did not converge or a design column did not vary among the drawn rows)")
+    return pd.DataFrame(rows, columns=list(COLUMNS))
