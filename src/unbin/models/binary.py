@@ -21,5 +21,13 @@ def _separation(lp: np.ndarray) -> str:
 
 
 def fit_binary(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
+    if outcome.strata is not None:  # matched sets: conditional logistic regression
+        from .matched import fit_matched
+
+        return fit_matched(X, outcome, names)
+    if outcome.penalty == "firth":
+        from .firth import fit_firth_logistic
+
+        return fit_firth_logistic(X, outcome, names)
     events = int(outcome.y.sum())
     return run_glm("binary", X, names, outcome, events, separation_check=_separation)
