@@ -337,7 +337,14 @@ def test_case_control_decisions_need_the_prevalence(refit_frame: RefitFrame) -> 
     w = np.where(y == 1, tau / ybar, (1 - tau) / (1 - ybar))
     assert np.average(risk, weights=w) == pytest.approx(tau, rel=0.08)
     th = thresholds_table(r, spec)
-    assert (th["status"] == "ok").any()
+    # the implied threshold of the linear model (no adjustment variables) is where the
+    # population risk expit(-3.4 + 0.8 x) reaches 0.2: x = (logit 0.2 + 3.4) / 0.8 = 2.52
+    # (seeded truth; tolerance 0.25, several Monte-Carlo standard errors)
+    row = th[(th["model"] == "linear") & (th["status"] == "ok")].iloc[0]
+    assert row["threshold"] == 0.2
+    assert row["exposure_value"] == pytest.approx((special.logit(0.2) + 3.4) / 0.8, abs=0.25)
+    # without the recalibration (the extract's own case fraction of 1/3) it would sit far lower
+    assert row["exposure_value"] > 2.0
 
 
 # ----------------------------------------------------------------------------- the spec
@@ -362,3 +369,14 @@ def test_design_prevalence_outside_zero_one_is_refused_by_the_schema() -> None:
 
     problems = schema_problems(_binary_raw(design={"prevalence": 1.5}))
     assert any("prevalence" in p for p in problems), problems
+
+
+def test_a_missing_matched_set_column_is_named_before_any_fit(tmp_path: Any) -> None:
+    from unbin.data.checks import data_problems
+    from unbin.spec import parse_spec
+
+    _sparse_frame(1).to_parquet(tmp_path / "sim.parquet")
+    spec = parse_spec(_binary_raw(design={"matched_set": "centr"}), base=tmp_path)
+    problems = data_problems(spec)
+    assert any("design.matched_set: column 'centr' is not in the extract" in p
+               and "Did you mean 'centre'" in p for p in problems), problems
