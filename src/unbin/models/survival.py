@@ -47,6 +47,10 @@ def fit_survival(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> Fit
     problem = check_design(X, names)
     if problem:
         return failed_fit("survival", names, n, events, problem)
+    if outcome.penalty == "firth":
+        from .firth_cox import fit_firth_cox
+
+        return fit_firth_cox(X, outcome, names)
     fit = fit_cox(X, outcome.time, outcome.y, entry=outcome.entry, strata=outcome.strata,
                   weights=outcome.weights, ties="efron", layout=cox_layout(outcome))
     if not fit.converged:

@@ -135,7 +135,8 @@ def build_outcome(sample: Sample, a: Analysis) -> Outcome:
         strata = df.groupby(list(a.strata), sort=True).ngroup().to_numpy()
     return Outcome("survival", df[o.event].to_numpy(float), time=df[o.time].to_numpy(float),
                    entry=df[o.entry].to_numpy(float) if o.entry else None, strata=strata,
-                   weights=w, weight_kind=kind, cluster=cl)
+                   weights=w, weight_kind=kind, cluster=cl,
+                   penalty="firth" if a.design.firth else "none")
 
 
 def binary_design(df: pd.DataFrame, a: Analysis) -> dict[str, Any]:

@@ -39,6 +39,9 @@ def absolute_risk_reason(a: Analysis) -> str:
 def marginal_reason(a: Analysis) -> str:
     """Why the marginal (g-computation) and bootstrap comparison of the confounding table is
     not computed for this design ('' when it is)."""
+    if a.design.firth:
+        return ("the fits are Firth-penalised and the confounding table's bootstrap refits "
+                "are not; it is not computed")
     if a.family != "binary":
         return ""
     if a.design.matched_set:
@@ -46,9 +49,6 @@ def marginal_reason(a: Analysis) -> str:
     if a.design.sampled_on_outcome:
         return ("a case-control extract does not give population marginal risks (the "
                 "confounding comparison standardises absolute risks over the sample)")
-    if a.design.firth:
-        return ("the fits are Firth-penalised and the confounding table's bootstrap refits "
-                "are not; it is not computed")
     return ""
 
 

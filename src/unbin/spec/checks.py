@@ -140,15 +140,20 @@ def _analysis_problems(i: int, analysis: dict[str, Any], groupings: dict[str, An
 
 
 def design_problems(where: str, analysis: dict[str, Any]) -> list[str]:
-    """The ``design`` block: binary outcomes only; a matched-set column that is not also the
-    exposure or an adjustment variable; no Firth penalty on a conditional (matched) fit."""
+    """The ``design`` block: binary outcomes (survival ones take firth only); a matched-set
+    column that is not also the exposure or an adjustment variable; no Firth penalty on a
+    conditional (matched) fit."""
     design = analysis.get("design") or {}
     if not design:
         return []
     kind = analysis["outcome"]["type"]
+    if kind == "survival" and set(design) <= {"firth"}:
+        return []  # Firth's penalised partial likelihood (Heinze & Schemper 2001)
     if kind != "binary":
-        return [f"{where}.design: the design block is for binary outcomes; a {kind} outcome "
-                "takes none (remove it, or stratify a survival outcome with 'strata')."]
+        return [f"{where}.design: the design block is for binary outcomes (and firth for "
+                f"survival ones); a {kind} outcome takes none of "
+                f"{sorted(k for k in design if kind != 'survival' or k != 'firth')} (remove "
+                "them, or stratify a survival outcome with 'strata')."]
     problems: list[str] = []
     matched = design.get("matched_set")
     if matched and matched in (analysis.get("exposure"), *analysis.get("adjust", []),

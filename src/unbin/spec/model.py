@@ -184,7 +184,8 @@ class ContinuousOptions:
 
 @dataclass(frozen=True)
 class Design:
-    """How the extract was sampled and fitted (the analysis' ``design`` block; binary outcomes):
+    """How the extract was sampled and fitted (the analysis' ``design`` block; binary outcomes,
+    and ``firth`` for survival ones):
     ``matched_set`` the column naming each matched set (conditional logistic regression);
     ``case_control`` an extract sampled on the outcome; ``prevalence`` the population's outcome
     frequency (implies ``case_control``; absolute risks are recalibrated to it); ``firth``
