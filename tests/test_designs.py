@@ -456,3 +456,47 @@ def test_a_missing_matched_set_column_is_named_before_any_fit(tmp_path: Any) -> 
     problems = data_problems(spec)
     assert any("design.matched_set: column 'centr' is not in the extract" in p
                and "Did you mean 'centre'" in p for p in problems), problems
+
+
+def _every_table(refit_frame: RefitFrame, df: pd.DataFrame,
+                 raw: dict[str, Any]) -> dict[str, pd.DataFrame]:
+    import importlib
+
+    import unbin.questions as q
+
+    raw["resampling"] = {"bootstrap": 10, "permutations": 19}
+    spec, r = refit_frame(df, raw)
+    out = {}
+    for name, ref in {**q.QUESTION_TABLES, **q.RESAMPLING_TABLES}.items():
+        module, fn = ref.split(":")
+        out[name] = getattr(importlib.import_module(f"unbin.{module}"), fn)(r, spec)
+    return out
+
+
+def test_every_table_runs_for_a_matched_design_with_a_modifier(refit_frame: RefitFrame) -> None:
+    d = _matched(3, 150, 0.5)
+    df = pd.DataFrame({"case": d["y"], "marker": d["x"], "smoker": (d["z"] > 0).astype(float),
+                       "statin": (d["z"] > 0.5).astype(float), "set_id": d["set"]})
+    raw = _binary_raw(outcome={"type": "binary", "event": "case"}, adjust=["smoker"],
+                      by="statin", design={"matched_set": "set_id"})
+    raw["groupings"] = {"marker": {"cuts": [0.0]}}
+    tables = _every_table(refit_frame, df, raw)
+    for name in ("fits", "effects", "curves", "ranges"):
+        assert set(tables[name]["status"]) == {"ok"}, (name, tables[name]["message"].unique())
+    for name in ("thresholds", "net_benefit"):
+        assert set(tables[name]["status"]) == {"skipped"}
+
+
+def test_every_table_runs_for_a_firth_cox_analysis_with_an_empty_group(
+        refit_frame: RefitFrame) -> None:
+    s = _sparse_survival(3, 300)
+    marker = (2 * s["X"][:, 1] + s["X"][:, 0]
+              + np.random.default_rng(1).uniform(0.0, 0.9, 300))  # groups 0, 1, 2 -> cuts 1, 2
+    df = pd.DataFrame({"t": s["time"], "e": s["event"], "marker": marker, "age": s["X"][:, 2]})
+    raw = _binary_raw(outcome={"type": "survival", "event": "e", "time": "t", "horizon": 1.0},
+                      adjust=["age"], design={"firth": True})
+    raw["groupings"] = {"marker": {"cuts": [1.0, 2.0]}}
+    tables = _every_table(refit_frame, df, raw)
+    for name in ("fits", "effects", "curves", "thresholds", "net_benefit"):
+        assert set(tables[name]["status"]) == {"ok"}, (name, tables[name]["status"].unique())
+    assert set(tables["confounding"]["status"]) == {"skipped"}

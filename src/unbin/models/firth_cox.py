@@ -6,7 +6,9 @@ engine's standardised design (``unbin.models.cox``: the same risk sets, ties, st
 weights as the unpenalised fit) by Newton steps ``I^-1 U*`` with the modified score
 ``U*_r = U_r + 1/2 tr(I^-1 dI/db_r)``, the derivatives of the information taken by central
 differences (step 1e-5 on the standardised scale), each step halved while it lowers l* and
-capped at 5. Convergence: no standardised coefficient moves by more than 1e-8.
+capped at 5. Convergence: no standardised coefficient moves by more than 1e-8, or the step's
+predicted gain in l* (U*' step / 2) is below 1e-9 (the differenced derivatives leave noise of
+about that size in nearly collinear directions, such as a spline's, which barely move the fit).
 
 As for the logistic model (``unbin.models.firth``): ``cov`` is the inverse information at the
 penalised estimate (Wald intervals), ``loglik`` the ordinary log partial likelihood there,
@@ -22,6 +24,7 @@ from .base import FitResult, Outcome, failed_fit
 
 _H = 1e-5
 _STEP_TOL = 1e-8
+_GAIN_TOL = 1e-9
 _MAX_STEP = 5.0
 _MAX_ITER = 100
 
@@ -62,9 +65,10 @@ def fit_firth_cox(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> Fi
                           "the information matrix is singular at the start; check the design.")
     for it in range(1, _MAX_ITER + 1):
         ll, pll, score, info = cur
-        step = linalg.solve(info, modified_score(beta, score, info), assume_a="pos")
+        mscore = modified_score(beta, score, info)
+        step = linalg.solve(info, mscore, assume_a="pos")
         big = float(np.max(np.abs(step))) if p else 0.0
-        if big <= _STEP_TOL:
+        if big <= _STEP_TOL or float(mscore @ step) / 2.0 <= _GAIN_TOL:
             coef = beta / scale
             cov = linalg.inv(info) / np.outer(scale, scale)
             return FitResult(
