@@ -500,3 +500,21 @@ def test_every_table_runs_for_a_firth_cox_analysis_with_an_empty_group(
     for name in ("fits", "effects", "curves", "thresholds", "net_benefit"):
         assert set(tables[name]["status"]) == {"ok"}, (name, tables[name]["status"].unique())
     assert set(tables["confounding"]["status"]) == {"skipped"}
+
+
+def test_the_report_line_names_the_cluster_and_the_design() -> None:
+    from pathlib import Path
+
+    from unbin.refit.sampling_design import design_notes
+    from unbin.spec import parse_spec
+
+    raw = _binary_raw(cluster="centre", design={"prevalence": 0.04, "firth": True})
+    raw["variables"] = {"centre": {"label": "Treating centre"}}
+    spec = parse_spec(raw, base=Path())
+    assert design_notes(spec.analyses[0], spec.label) == [
+        "cluster-robust variances by Treating centre",
+        "case-control extract, risks recalibrated to a prevalence of 0.04",
+        "Firth-penalised fits"]
+    spec = parse_spec(_binary_raw(design={"matched_set": "centre"}), base=Path())
+    assert design_notes(spec.analyses[0]) == [
+        "matched sets centre (conditional logistic regression)"]

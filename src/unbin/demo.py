@@ -190,6 +190,7 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
             "age": {"label": "Age", "unit": "years"},
             "followup_years": {"unit": "years"},  # the horizon reads "within 5 years"
             "centre": {"type": "categorical"},
+            "practice": {"label": "General practice"},
         },
         "groupings": {
             "sodium": {"cuts": [135, 145], "labels": ["low", "normal", "high"],

@@ -14,6 +14,8 @@ with the population prevalence ``tau`` the intercept is corrected by the prior c
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 
 from ..models.base import Outcome
@@ -62,3 +64,24 @@ def prior_shift(a: Analysis, outcome: Outcome) -> float:
     w = np.ones_like(y) if outcome.weights is None else np.asarray(outcome.weights, float)
     ybar = float(w @ y / w.sum())
     return float(np.log(tau / (1.0 - tau)) - np.log(ybar / (1.0 - ybar)))
+
+
+def design_notes(a: Analysis, label: Callable[[str], str] = str) -> list[str]:
+    """Short phrases for the report's line about an analysis: the cluster, sampling weights
+    and the design block (``label`` turns a column into its human label)."""
+    notes = []
+    if a.cluster:
+        notes.append(f"cluster-robust variances by {label(a.cluster)}")
+    if a.weights is not None and a.weights.kind == "sampling":
+        notes.append(f"sampling weights {label(a.weights.column)} (robust variances)")
+    if a.design.matched_set:
+        notes.append(f"matched sets {label(a.design.matched_set)} (conditional logistic "
+                     "regression)")
+    if a.design.prevalence is not None:
+        notes.append(f"case-control extract, risks recalibrated to a prevalence of "
+                     f"{a.design.prevalence:g}")
+    elif a.design.case_control:
+        notes.append("case-control extract (no absolute risks without a prevalence)")
+    if a.design.firth:
+        notes.append("Firth-penalised fits")
+    return notes
