@@ -255,6 +255,26 @@ def test_firth_cox_approaches_the_partial_likelihood_estimate_as_the_sample_grow
     assert gaps[2] / gaps[0] < 0.1
 
 
+def test_firth_cox_wald_intervals_cover_in_small_samples() -> None:
+    # Seeded simulation with a known truth (log hazard ratio 1 per unit, n = 40, about 60%
+    # events; 300 replicates): the Wald interval at the penalised estimate covers within a
+    # two-sided Monte-Carlo band (0.95 +- 0.035, about 3 MC standard errors), and the
+    # estimate is close to unbiased (Heinze & Schemper 2001).
+    rng = np.random.default_rng(21)
+    reps, n, beta = 300, 40, 1.0
+    est, cover = [], []
+    for _ in range(reps):
+        x = rng.normal(size=n)
+        t = rng.exponential(1.0 / np.exp(beta * x))
+        c = rng.exponential(1.5, n)
+        res = fit("survival", x[:, None], Outcome("survival", (t <= c).astype(float),
+                                                  time=np.minimum(t, c), penalty="firth"), ("x",))
+        est.append(res.coef[0])
+        cover.append(abs(res.coef[0] - beta) <= 1.959964 * res.se()[0])
+    assert 0.915 <= np.mean(cover) <= 0.985
+    assert abs(np.mean(est) - beta) < 0.05  # MC standard error about 0.015
+
+
 # ----------------------------------------------------------------------------- matched sets
 
 
