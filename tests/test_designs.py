@@ -309,6 +309,23 @@ def test_matched_sets_match_statsmodels_conditional_logit() -> None:
     assert res.extra["variance"] == "model; conditional on the matched set"
 
 
+def test_matched_c_index_counts_case_control_pairs_within_sets() -> None:
+    from unbin.models.discrimination import c_index
+
+    d = _matched(4, 80, 0.6, cases_per_set=2)
+    lp = np.round(d["x"], 1)  # ties within sets count one half
+    # brute force: every (case, control) pair of one set
+    hits = pairs = 0.0
+    for s in np.unique(d["set"]):
+        idx = d["set"] == s
+        case, ctrl = lp[idx & (d["y"] == 1)], lp[idx & (d["y"] == 0)]
+        diff = case[:, None] - ctrl[None, :]
+        hits += np.sum(diff > 0) + 0.5 * np.sum(diff == 0)
+        pairs += diff.size
+    got = c_index(Outcome("binary", d["y"], strata=d["set"]), lp)
+    assert got == pytest.approx(hits / pairs, abs=1e-12)
+
+
 def test_matched_sets_with_several_cases_warn_of_the_approximation() -> None:
     d = _matched(2, 60, 0.6, cases_per_set=2)
     res = fit("binary", d["x"][:, None], Outcome("binary", d["y"], strata=d["set"]), ("x",))
