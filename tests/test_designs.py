@@ -74,7 +74,7 @@ def test_firth_maximises_the_penalised_likelihood_written_out_independently() ->
     X, y = _sparse_legacy_design(3)
     # the ML fit separates (the reference group has no events)
     ml = fit("binary", X, Outcome("binary", y), ("g1", "g2", "age"))
-    assert not ml.ok and "separation" in ml.message
+    assert not ml.ok and "separation" in ml.message and "design: {firth: true}" in ml.message
     res = _firth(X, y, ("g1", "g2", "age"))
     X1 = np.c_[np.ones(len(y)), X]
     # Independent computation: scipy's BFGS on the penalised log-likelihood written out above,
@@ -227,7 +227,7 @@ def test_firth_cox_maximises_the_penalised_partial_likelihood_written_out() -> N
     d = _sparse_survival(3, 150)
     names = ("g1", "g2", "age")
     ml = fit("survival", d["X"], Outcome("survival", d["event"], time=d["time"]), names)
-    assert not ml.ok and "monotone likelihood" in ml.message
+    assert not ml.ok and "monotone likelihood" in ml.message and "firth: true" in ml.message
     res = fit("survival", d["X"], Outcome("survival", d["event"], time=d["time"],
                                           penalty="firth"), names)
     assert res.ok and res.extra["variance"] == "model; Firth-penalised"

@@ -16,7 +16,8 @@ def _separation(lp: np.ndarray) -> str:
     if np.any(np.abs(lp) > 20):
         return ("perfect or quasi-complete separation: some fitted probabilities are 0 or 1 "
                 "(a group with no events or only events?); the estimates are infinite. "
-                "Merge sparse groups or use a continuous form.")
+                "Merge sparse groups, use a continuous form, or set design: {firth: true} in the "
+                "analysis for Firth-penalised (finite) estimates.")
     return ""
 
 
