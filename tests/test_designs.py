@@ -50,7 +50,7 @@ def test_firth_on_a_two_by_two_table_adds_one_half_to_every_cell(a: int, b: int,
 
 
 def _penalised_loglik(beta: np.ndarray, X1: np.ndarray, y: np.ndarray) -> float:
-    """log L + 1/2 log|X' W X| written out (Firth 1993, eq. 2, Jeffreys prior)."""
+    """log L + 1/2 log|X' W X| written out (Firth 1993: the Jeffreys-prior penalty)."""
     eta = X1 @ beta
     mu = special.expit(eta)
     ll = float(np.sum(y * eta - np.logaddexp(0.0, eta)))
@@ -212,7 +212,7 @@ def test_a_legacy_group_without_events_is_reproduced_by_the_firth_option(
 def _penalised_partial_loglik(beta: np.ndarray, X: np.ndarray, time: np.ndarray,
                               event: np.ndarray) -> float:
     """l(b) + 1/2 log|I(b)| of the Cox model, written out over event times (no tied times:
-    Breslow = Efron = exact); Heinze & Schemper 2001, eq. 2."""
+    Breslow = Efron = exact); Heinze & Schemper 2001."""
     eta = X @ beta
     ll, info = 0.0, np.zeros((X.shape[1], X.shape[1]))
     for i in np.flatnonzero(event):

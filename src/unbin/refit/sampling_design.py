@@ -5,7 +5,7 @@ Matched sets are fitted conditionally (``unbin.models.matched``): there is no in
 no absolute risk, implied threshold or net benefit. A case-control extract estimates odds
 ratios correctly, but its intercept reflects the sampled case fraction, not the population's;
 with the population prevalence ``tau`` the intercept is corrected by the prior correction
-(King & Zeng 2001, eq. 8; the same shift as Rothman's case-control odds adjustment):
+(King & Zeng 2001, "prior correction"):
 
     intercept* = intercept - log[ ((1 - tau) / tau) * (ybar / (1 - ybar)) ],
 
