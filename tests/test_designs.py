@@ -36,7 +36,7 @@ def _firth(X: np.ndarray, y: np.ndarray, names: tuple[str, ...] | None = None,
                                                   (12, 0, 4, 9)])
 def test_firth_on_a_two_by_two_table_adds_one_half_to_every_cell(a: int, b: int, c: int,
                                                                  d: int) -> None:
-    # Published property (Firth 1993; Heinze & Schemper 2002, section 2): with one binary
+    # Published property (Firth 1993; Heinze & Schemper 2002): with one binary
     # covariate, Firth's estimates equal the log odds with 1/2 added to each cell, also when a
     # cell is empty (separation; the ML estimate is then infinite).
     x = np.r_[np.zeros(a + b), np.ones(c + d)]
