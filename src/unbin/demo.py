@@ -13,7 +13,8 @@ with:
   kidney function falls below 60 and is flat above (an elbow); the legacy analysis split eGFR at
   60. Age confounds it strongly (older people have lower eGFR and die sooner) and the legacy
   analysis adjusted for age in decades — residual confounding.
-- ``visits_bmi`` (count, person-years offset): the clinic-visit rate is log-linear in BMI.
+- ``visits_bmi`` (count, person-years offset): the clinic-visit rate is log-linear in BMI;
+  people are clustered in general practices (``practice``), so its variances are cluster-robust.
 - ``sbp_urate`` (continuous): systolic pressure rises linearly with serum urate, more steeply
   in older patients (a real effect modification: the slope differs between the age groups
   <50, 50-<60, 60-<70, >=70, which the analysis takes as its ``by``); the legacy cut at
@@ -156,6 +157,9 @@ def simulate_registry(n: int = DEMO_ROWS, seed: int = DEMO_SEED,
     df["diagnosed_on"] = diagnosed
     df["recruited_on"] = diagnosed + pd.to_timedelta(np.round(entry * DAYS_PER_YEAR), unit="D")
     df["exit_on"] = diagnosed + pd.to_timedelta(np.round(time * DAYS_PER_YEAR), unit="D")
+    # The general practice that follows each person (80 practices; a generator of its own):
+    # the cluster of the visits analysis.
+    df["practice"] = np.random.default_rng([seed, 11]).integers(1, 81, n)
     return df
 
 
@@ -186,6 +190,7 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
             "age": {"label": "Age", "unit": "years"},
             "followup_years": {"unit": "years"},  # the horizon reads "within 5 years"
             "centre": {"type": "categorical"},
+            "practice": {"label": "General practice"},
         },
         "groupings": {
             "sodium": {"cuts": [135, 145], "labels": ["low", "normal", "high"],
@@ -214,7 +219,7 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
                           "upper": 2.5}},
             {"name": "visits_bmi",
              "outcome": {"type": "count", "count": "visits", "persontime": "person_years"},
-             "exposure": "bmi", "adjust": ["age", "diabetes"],
+             "exposure": "bmi", "adjust": ["age", "diabetes"], "cluster": "practice",
              "risk_thresholds": [1.5]},  # clinic visits per person-year
             {"name": "sbp_urate",
              "outcome": {"type": "continuous", "value": "sbp"},

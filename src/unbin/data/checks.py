@@ -90,6 +90,8 @@ def _column_fields(a: Analysis) -> list[tuple[str, str]]:
         out.append((a.weights.column, "weights.column"))
     if a.cluster:
         out.append((a.cluster, "cluster"))
+    if a.design.matched_set:
+        out.append((a.design.matched_set, "design.matched_set"))
     return out
 
 

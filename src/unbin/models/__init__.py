@@ -49,9 +49,24 @@ def fit(family: str, X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) ->
         raise ValueError(f"design has {X.shape[1]} columns but {len(names)} names")
     res = _fitter(family)(X, outcome, tuple(names))
     if res.ok and needs_robust(outcome):
-        return with_robust_variance(res, X, outcome)
+        res = with_robust_variance(res, X, outcome)
     if res.ok and "variance" not in res.extra:
         res.extra["variance"] = "model"
+    return _design_labelled(res)
+
+
+def _design_labelled(res: FitResult) -> FitResult:
+    """A penalised or conditional (matched-set) fit says so in its ``variance`` label."""
+    if not res.ok:
+        return res
+    if res.extra.get("penalty") == "firth":
+        from .firth import LABEL
+
+        res.extra["variance"] = f"{res.extra['variance']}; {LABEL}"
+    if res.extra.get("matched"):
+        from .matched import LABEL as MATCHED
+
+        res.extra["variance"] = f"{res.extra['variance']}; {MATCHED}"
     return res
 
 

@@ -34,6 +34,10 @@ class Outcome:
     cluster: np.ndarray | None = None
     # Count outcomes: "poisson", "quasi-poisson" (Pearson scale) or "negative-binomial" (NB2).
     dispersion: str = "poisson"
+    # Binary outcomes: "firth" for Firth's penalised likelihood (unbin.models.firth); with
+    # ``strata`` set, a binary outcome is a matched design (conditional logistic regression,
+    # unbin.models.matched).
+    penalty: str = "none"
     cache: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
@@ -55,6 +59,7 @@ class Outcome:
             weight_kind=self.weight_kind,
             cluster=pick(self.cluster),
             dispersion=self.dispersion,
+            penalty=self.penalty,
         )
 
 

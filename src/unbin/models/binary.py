@@ -16,10 +16,19 @@ def _separation(lp: np.ndarray) -> str:
     if np.any(np.abs(lp) > 20):
         return ("perfect or quasi-complete separation: some fitted probabilities are 0 or 1 "
                 "(a group with no events or only events?); the estimates are infinite. "
-                "Merge sparse groups or use a continuous form.")
+                "Merge sparse groups, use a continuous form, or set design: {firth: true} in the "
+                "analysis for Firth-penalised (finite) estimates.")
     return ""
 
 
 def fit_binary(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
+    if outcome.strata is not None:  # matched sets: conditional logistic regression
+        from .matched import fit_matched
+
+        return fit_matched(X, outcome, names)
+    if outcome.penalty == "firth":
+        from .firth import fit_firth_logistic
+
+        return fit_firth_logistic(X, outcome, names)
     events = int(outcome.y.sum())
     return run_glm("binary", X, names, outcome, events, separation_check=_separation)

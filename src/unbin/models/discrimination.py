@@ -28,6 +28,24 @@ def auc(y: np.ndarray, score: np.ndarray) -> float:
     return float((ranks[y].sum() - n1 * (n1 + 1) / 2) / (n1 * n0))
 
 
+def matched_auc(y: np.ndarray, score: np.ndarray, sets: np.ndarray) -> float:
+    """The AUC within matched sets: over every (case, control) pair of the same set, the share
+    in which the case has the higher score (ties one half); pairs across sets, which the
+    conditional model does not order, are not counted. Per set, the Mann-Whitney count from
+    the ranks within the set."""
+    import pandas as pd
+
+    y = np.asarray(y, dtype=float)
+    sets = np.asarray(sets)
+    ranks = pd.Series(np.asarray(score, dtype=float)).groupby(sets).rank().to_numpy()
+    n1 = np.bincount(pd.factorize(sets)[0], weights=y)
+    n = np.bincount(pd.factorize(sets)[0])
+    pairs = float(np.sum(n1 * (n - n1)))
+    if pairs == 0:
+        return float("nan")
+    return float((ranks @ y - np.sum(n1 * (n1 + 1) / 2)) / pairs)
+
+
 _MEMO = "c_index"
 _TIME_ORDER = "concordance_order"
 
@@ -41,7 +59,9 @@ def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
     hit = memo.get(id(lp))
     if hit is not None and hit[0] is lp:
         return hit[1]
-    if outcome.family == "binary":
+    if outcome.family == "binary" and outcome.strata is not None:
+        value = matched_auc(outcome.y, lp, outcome.strata)
+    elif outcome.family == "binary":
         value = auc(outcome.y, lp)
     else:
         from .cox import concordance, concordance_order

@@ -194,6 +194,10 @@ def robust_cov(res: FitResult, X: np.ndarray, outcome: Outcome) -> tuple[np.ndar
     if res.family == "survival":
         scores = cox_scores(X, outcome, res.coef, ties=str(res.extra.get("ties", "efron")))
         return sandwich(res.cov, scores, outcome.cluster)
+    if res.extra.get("matched"):  # conditional logistic: the Cox scores at one common time
+        timed = replace(outcome, time=np.ones(outcome.n), cache={})
+        scores = cox_scores(X, timed, res.coef, ties="breslow")
+        return sandwich(res.cov, scores, outcome.cluster)
     if float(res.extra.get("nb_alpha", 0.0)) > 0:
         from .negbin import nb_scores_information
 

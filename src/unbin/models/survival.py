@@ -47,11 +47,18 @@ def fit_survival(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> Fit
     problem = check_design(X, names)
     if problem:
         return failed_fit("survival", names, n, events, problem)
+    if outcome.penalty == "firth":
+        from .firth_cox import fit_firth_cox
+
+        return fit_firth_cox(X, outcome, names)
     fit = fit_cox(X, outcome.time, outcome.y, entry=outcome.entry, strata=outcome.strata,
                   weights=outcome.weights, ties="efron", layout=cox_layout(outcome))
     if not fit.converged:
-        return failed_fit("survival", names, n, events,
-                          fit.message or "Cox fit did not converge.")
+        message = fit.message or "Cox fit did not converge."
+        if "monotone likelihood" in message:
+            message += ("; or set design: {firth: true} in the analysis for Firth-penalised "
+                        "(finite) estimates")
+        return failed_fit("survival", names, n, events, message)
     return FitResult(
         family="survival", names=names, coef=np.asarray(fit.coef), cov=np.asarray(fit.cov),
         loglik=float(fit.loglik), n=n, events=events, n_params=len(names), converged=True,

@@ -72,6 +72,7 @@ from ..models.weighted import _CHUNK_CELLS, WeightedGLM, resample_weights, weigh
 from ..refit.analysis import Refit, adjustment_terms, design
 from ..refit.contrasts import Z95
 from ..refit.risk import horizon_for
+from ..refit.sampling_design import marginal_reason
 from ..refit.standardise import MEASURES, contrast, cox_risks, glm_means, on_model_scale
 from ..spec import Spec
 from ..terms import GroupedTerm, LinearTerm, Term
@@ -297,6 +298,10 @@ def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
                               "scale": EFFECT_SCALE[r.family], "status": "skipped",
                               "message": "no adjustment variables: there is no confounding "
                                          "adjustment to compare"}], columns=list(COLUMNS))
+    if marginal_reason(a):
+        return pd.DataFrame([{"exposure_form": "", "scope": "all", "n": r.outcome.n,
+                              "scale": EFFECT_SCALE[r.family], "status": "skipped",
+                              "message": marginal_reason(a)}], columns=list(COLUMNS))
     horizon = horizon_for(a, spec) if r.family == "survival" else None
     designs = _Designs(r, horizon)
     plan = _plan(r, designs, _scopes(legacy_adj, cont_adj), cont_adj)

@@ -475,6 +475,8 @@ def cutpoints_table(r: Refit, spec: Spec) -> pd.DataFrame:
     search_error = ""
     lo, hi = spec.cutpoint_search.lower, spec.cutpoint_search.upper
     try:
+        if r.analysis.design.matched_set:  # the split statistics are unconditional
+            raise ValueError("the split search does not condition on matched sets")
         search = SplitSearch.build(r.family, r.x, r.outcome, r.legacy.closed, lo, hi,
                                    adjust=_adjustment(r, spec))
         a = r.analysis

@@ -21,6 +21,7 @@ from ..refit.analysis import Refit
 from ..refit.interaction import SPLINE, level_models
 from ..refit.modifier import Levels
 from ..refit.risk import RiskFit, RiskScale, from_result, risk_fit, risk_scale
+from ..refit.sampling_design import absolute_risk_reason
 from ..spec import Analysis, Spec
 
 TABLES = ("thresholds", "net_benefit")
@@ -118,6 +119,9 @@ def _build(r: Refit, spec: Spec) -> Decisions:
     scale = risk_scale(a, spec)
     levels = modifier_levels(r, spec)
     thresholds = thresholds_for(a, spec)
+    design_reason = absolute_risk_reason(a)
+    if design_reason:
+        return Decisions(scale, thresholds, levels, (), None, (), InteractionTest(), design_reason)
     if scale.family == "survival" and scale.horizon is None:
         return Decisions(scale, thresholds, levels, (), None, (), InteractionTest(),
                          "no horizon for the survival risk: give outcome.horizon or the "

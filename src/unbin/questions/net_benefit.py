@@ -54,6 +54,17 @@ def net_benefit_risk(y: np.ndarray, risk: np.ndarray,
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
 
 
+def reweighted(tp: np.ndarray, fp: np.ndarray, y: np.ndarray, prevalence: float,
+               thresholds: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """A case-control extract's (NB, TP/n, FP/n) in the population: the true-positive fraction
+    is sensitivity x prevalence and the false-positive one (1 - specificity) x (1 - prevalence)
+    (the sample's TP/n and FP/n rescaled from its own case fraction)."""
+    ybar = float(np.mean(y))
+    tp_pop = tp * prevalence / ybar
+    fp_pop = fp * (1.0 - prevalence) / (1.0 - ybar)
+    return tp_pop - fp_pop * thresholds / (1.0 - thresholds), tp_pop, fp_pop
+
+
 def km_survival(time: np.ndarray, event: np.ndarray, horizon: float,
                 entry: np.ndarray | None = None) -> float:
     """Kaplan-Meier estimate of S(horizon): the product over event times u <= horizon of
@@ -141,14 +152,17 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
     o = r.outcome
     held = ""
     y = np.asarray(o.y, dtype=float)
+    prevalence = r.analysis.design.prevalence if r.family == "binary" else None
     if r.family == "binary":
         method = "events/n"
+        if prevalence is not None:
+            method = f"events/n, cases and controls reweighted to the prevalence {prevalence:g}"
 
         def nb(positive: np.ndarray, risk: np.ndarray | None = None,
                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-            if risk is not None:
-                return net_benefit_risk(y, risk, pt)
-            return net_benefit_counts(y, positive, pt)
+            out = (net_benefit_risk(y, risk, pt) if risk is not None
+                   else net_benefit_counts(y, positive, pt))
+            return out if prevalence is None else reweighted(out[1], out[2], y, prevalence, pt)
     else:
         assert o.time is not None and d.scale.horizon is not None
         method = f"Kaplan-Meier at {d.scale.horizon:g}"
@@ -183,7 +197,9 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
     parts = [finish(rows, COLUMNS)] if rows else []
     for name, kind, model, adjustment, positive, risk, note in rules:
         value, tp, fp = nb(positive, risk)
-        if risk is None:
+        if prevalence is not None:
+            treated = tp + fp
+        elif risk is None:
             treated = positive.mean() * np.ones(len(pt))
         else:
             srt = np.sort(risk)

@@ -15,6 +15,7 @@ their AIC is comparable with the other forms'."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -121,7 +122,8 @@ def build_outcome(sample: Sample, a: Analysis) -> Outcome:
     kind = a.weights.kind if a.weights is not None else "frequency"
     cl = np.asarray(pd.factorize(df[a.cluster], sort=True)[0]) if a.cluster else None
     if o.type == "binary":
-        return Outcome("binary", df[o.event].to_numpy(float), weights=w, weight_kind=kind, cluster=cl)
+        return Outcome("binary", df[o.event].to_numpy(float), weights=w, weight_kind=kind,
+                       cluster=cl, **binary_design(df, a))
     if o.type == "continuous":
         return Outcome("continuous", df[o.value].to_numpy(float), weights=w, weight_kind=kind, cluster=cl)
     if o.type == "count":
@@ -133,7 +135,19 @@ def build_outcome(sample: Sample, a: Analysis) -> Outcome:
         strata = df.groupby(list(a.strata), sort=True).ngroup().to_numpy()
     return Outcome("survival", df[o.event].to_numpy(float), time=df[o.time].to_numpy(float),
                    entry=df[o.entry].to_numpy(float) if o.entry else None, strata=strata,
-                   weights=w, weight_kind=kind, cluster=cl)
+                   weights=w, weight_kind=kind, cluster=cl,
+                   penalty="firth" if a.design.firth else "none")
+
+
+def binary_design(df: pd.DataFrame, a: Analysis) -> dict[str, Any]:
+    """The Outcome fields of the analysis' design block: the matched sets as strata
+    (conditional logistic regression) and Firth's penalty."""
+    out: dict[str, Any] = {}
+    if a.design.matched_set:
+        out["strata"] = np.asarray(pd.factorize(df[a.design.matched_set], sort=True)[0])
+    if a.design.firth:
+        out["penalty"] = "firth"
+    return out
 
 
 def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> tuple[Term, ...]:

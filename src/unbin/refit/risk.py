@@ -202,7 +202,10 @@ def from_result(r: Refit, res: FitResult, scale: RiskScale, curve: ExposureCurve
                              "horizon)")
         base, note = survival_base(r, lp, scale.horizon)
     else:
-        base = np.full(lp.shape, float(res.extra["intercept"]))
+        from .sampling_design import prior_shift  # a case-control extract: recalibrated intercept
+
+        base = np.full(lp.shape, float(res.extra["intercept"]) + prior_shift(r.analysis,
+                                                                            r.outcome))
     return RiskFit(model, adjustment, detail, scale, curve, exposure_rows,
                    base + lp - exposure_rows, note)
 

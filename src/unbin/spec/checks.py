@@ -135,6 +135,38 @@ def _analysis_problems(i: int, analysis: dict[str, Any], groupings: dict[str, An
                                        analysis["exposure"])
     problems += _filter_problems(where, analysis.get("filters", []))
     problems += _continuous_problems(f"{where}.continuous", analysis.get("continuous", {}))
+    problems += design_problems(where, analysis)
+    return problems
+
+
+def design_problems(where: str, analysis: dict[str, Any]) -> list[str]:
+    """The ``design`` block: binary outcomes (survival ones take firth only); a matched-set
+    column that is not also the exposure or an adjustment variable; no Firth penalty on a
+    conditional (matched) fit."""
+    design = analysis.get("design") or {}
+    if not design:
+        return []
+    kind = analysis["outcome"]["type"]
+    if kind == "survival" and set(design) <= {"firth"}:
+        return []  # Firth's penalised partial likelihood (Heinze & Schemper 2001)
+    if kind != "binary":
+        return [f"{where}.design: the design block is for binary outcomes (and firth for "
+                f"survival ones); a {kind} outcome takes none of "
+                f"{sorted(k for k in design if kind != 'survival' or k != 'firth')} (remove "
+                "them, or stratify a survival outcome with 'strata')."]
+    problems: list[str] = []
+    matched = design.get("matched_set")
+    if matched and matched in (analysis.get("exposure"), *analysis.get("adjust", []),
+                               analysis.get("by")):
+        problems.append(f"{where}.design.matched_set: {matched!r} is also the exposure, an "
+                        "adjustment variable or 'by'; the matched set is conditioned on, so "
+                        "remove it from the others.")
+    if matched and design.get("firth"):
+        problems.append(f"{where}.design: firth is not available for a matched-set "
+                        "(conditional) fit; remove 'firth' or 'matched_set'.")
+    if design.get("case_control") is False and "prevalence" in design:
+        problems.append(f"{where}.design: a prevalence is given but case_control is false; a "
+                        "prevalence describes a case-control extract, so remove one of them.")
     return problems
 
 

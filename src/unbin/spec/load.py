@@ -372,6 +372,17 @@ def _weighting(raw: Any) -> Weighting | None:
     return None if raw is None else Weighting(str(raw["column"]), str(raw["kind"]))
 
 
+def _design(raw: Any) -> model.Design:
+    """The analysis' ``design`` block (sampling and fitting of binary outcomes)."""
+    if not raw:
+        return model.Design()
+    prevalence = raw.get("prevalence")
+    return model.Design(matched_set=raw.get("matched_set"),
+                        case_control=bool(raw.get("case_control", False)),
+                        prevalence=None if prevalence is None else float(prevalence),
+                        firth=bool(raw.get("firth", False)))
+
+
 def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
     groupings = _groupings(raw.get("groupings") or {})
     study_cont = _continuous(raw.get("continuous", {}), ContinuousOptions())
@@ -397,6 +408,7 @@ def _build(raw: dict[str, Any], base: Path, source: Path | None) -> Spec:
             # the analysis' own weights/cluster (null switches the study's off), else the study's
             weights=_weighting(a["weights"] if "weights" in a else raw.get("weights")),
             cluster=a["cluster"] if "cluster" in a else raw.get("cluster"),
+            design=_design(a.get("design")),
         ))
     cohorts = tuple(model.Cohort(c["name"], (base / c["path"]).resolve(), c["path"],
                            _groupings(c.get("groupings") or {}),

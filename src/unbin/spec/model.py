@@ -183,6 +183,25 @@ class ContinuousOptions:
 
 
 @dataclass(frozen=True)
+class Design:
+    """How the extract was sampled and fitted (the analysis' ``design`` block; binary outcomes,
+    and ``firth`` for survival ones):
+    ``matched_set`` the column naming each matched set (conditional logistic regression);
+    ``case_control`` an extract sampled on the outcome; ``prevalence`` the population's outcome
+    frequency (implies ``case_control``; absolute risks are recalibrated to it); ``firth``
+    Firth's penalised likelihood for every fit."""
+
+    matched_set: str | None = None
+    case_control: bool = False
+    prevalence: float | None = None
+    firth: bool = False
+
+    @property
+    def sampled_on_outcome(self) -> bool:
+        return self.case_control or self.prevalence is not None or self.matched_set is not None
+
+
+@dataclass(frozen=True)
 class Analysis:
     name: str
     outcome: OutcomeSpec
@@ -200,6 +219,7 @@ class Analysis:
     # study's; a cluster gives cluster-robust variances.
     weights: Weighting | None = None
     cluster: str | None = None
+    design: Design = field(default_factory=Design)
 
     @property
     def robust(self) -> bool:
@@ -222,6 +242,8 @@ class Analysis:
             cols.append(self.weights.column)
         if self.cluster:
             cols.append(self.cluster)
+        if self.design.matched_set:
+            cols.append(self.design.matched_set)
         return tuple(dict.fromkeys(cols))
 
 

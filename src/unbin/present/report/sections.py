@@ -13,6 +13,7 @@ from pathlib import Path
 import pandas as pd
 from markupsafe import Markup
 
+from ...refit.sampling_design import design_notes
 from .. import labels, summary, text
 from ..figures import Context, FigureFile
 from . import rows as R
@@ -152,7 +153,8 @@ class Builder:
                 f"adjusted for {', '.join(self.spec.label(v) for v in a.adjust)}" if a.adjust
                 else "no adjustment",
                 f"by {self.spec.label(a.by)}" if a.by else "",
-                f"strata {', '.join(self.spec.label(v) for v in a.strata)}" if a.strata else ""]
+                f"strata {', '.join(self.spec.label(v) for v in a.strata)}" if a.strata else "",
+                *design_notes(a, self.spec.label)]
         return " · ".join(m for m in meta if m)
 
     def _outcome(self, analysis: str) -> str:
