@@ -1,7 +1,7 @@
 """The one place where unbin turns numbers into text: the report, the terminal summary and the
 figures' alt texts and captions all format through these functions.
 
-The rules (stated once, tested in ``tests/test_text.py``):
+The rules (stated once, tested in ``tests/present/test_text.py``):
 
 - **Missing** (None, NaN, ±inf, pandas NA) prints as an en dash ``–``.
 - **A number** (``number``) shows ``sig`` significant digits (3 unless asked), trailing zeros

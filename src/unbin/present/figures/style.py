@@ -6,7 +6,7 @@ is always ``LEGACY`` (a light ember), each continuous form always its own darker
 were chosen so that each pair stays apart for readers with protan, deutan or tritan colour vision
 and so that the legacy colour differs in lightness from every continuous form (readable when
 printed in grey); line styles and hatching carry the same distinction a second time.
-``tests/test_figures.py`` checks these properties.
+``tests/present/test_figures.py`` checks these properties.
 """
 
 from __future__ import annotations
