@@ -179,7 +179,8 @@ def hamling_counts(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
     if got is None:
         raise ValueError("no effective counts reproduce these ratios and variances")
     r = residuals(A0, O0)
-    return got[0], got[1], float(np.max(np.abs(r))) if r is not None else float("nan")
+    other = got[1] * (size.sum() / got[1].sum()) if kind == "rate" else got[1]
+    return got[0], other, float(np.max(np.abs(r))) if r is not None else float("nan")
 
 
 def study_covariance(kind: str, log_ratios: np.ndarray, variances: np.ndarray,

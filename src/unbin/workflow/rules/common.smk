@@ -6,7 +6,9 @@ from snakemake.utils import min_version, validate
 
 from unbin.consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
 from unbin.pipeline.jobs import FIT_JOB_TABLES, JOB_TABLES, RESAMPLING_TABLES, STUDY_TABLES
-from unbin.spec import load_spec
+from unbin.published.spec import published_studies
+from unbin.published.tables import PUBLISHED_TABLES
+from unbin.spec import digest, load_spec
 from unbin.workflow_support import analysis_params, basis_params, cohort_params, study_params
 
 min_version("9.0")
@@ -26,6 +28,8 @@ UNBIN_ANALYSES = [a.name for a in UNBIN_SPEC.analyses]
 # Several cohorts: common bases from cohort summaries (unless the spec fixes knots, reference
 # and grid of an analysis), then pooling.
 UNBIN_CONSORTIUM = len(UNBIN_COHORTS) > 1
+# Studies known only from their published grouped table join the pooled curves.
+UNBIN_PUBLISHED_TABLES = list(PUBLISHED_TABLES) if UNBIN_CONSORTIUM and published_studies(UNBIN_SPEC.raw) else []
 UNBIN_DERIVED_BASIS = {
     a.name: UNBIN_CONSORTIUM and not a.continuous.basis_fixed for a in UNBIN_SPEC.analyses
 }

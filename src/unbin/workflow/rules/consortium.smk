@@ -57,7 +57,9 @@ rule pool_bundles:
     input:
         expand("bundles/{cohort}/{table}.parquet", cohort=UNBIN_COHORTS, table=BUNDLE_TABLES),
     output:
-        expand("tables/{table}.parquet", table=POOLED_TABLES),
+        expand("tables/{table}.parquet", table=list(POOLED_TABLES) + UNBIN_PUBLISHED_TABLES),
+    params:
+        published=lambda w: digest(UNBIN_SPEC.raw.get("published")),
     log:
         "logs/pool.log",
     benchmark:
