@@ -267,3 +267,92 @@ def test_pooled_published_curve_covers_the_truth_and_nonlinearity_test_holds_its
     assert 0.912 <= cover_spl / reps <= 0.988
     assert 0.033 <= rej_study / (5 * reps) <= 0.067
     assert 0.012 <= rej_pool / reps <= 0.088
+
+
+# --- the spec section ---------------------------------------------------------------------------
+
+def _spec_with(published: dict) -> dict:
+    from unbin.demo import demo_spec
+
+    raw = demo_spec()
+    raw["published"] = published
+    return raw
+
+
+def _study(**over: object) -> dict:
+    s = {"name": "tideford", "analysis": "visits_bmi", "scale": "RR",
+         "design": "cohort_person_time", "groups": [
+             {"upper": 25, "cases": 100, "person_time": 90.0, "ratio": 1},
+             {"lower": 25, "upper": 30, "median": 27, "cases": 140, "person_time": 100.0,
+              "ratio": 1.3, "ratio_lower": 1.0, "ratio_upper": 1.69},
+             {"lower": 30, "cases": 90, "person_time": 50.0, "ratio": 1.6, "ratio_lower": 1.2,
+              "ratio_upper": 2.13}]}
+    s.update(over)
+    return s
+
+
+def _problems(published: dict) -> str:
+    from pathlib import Path
+
+    from unbin.errors import SpecError
+    from unbin.spec import parse_spec
+
+    with pytest.raises(SpecError) as err:
+        parse_spec(_spec_with(published), Path("."))
+    return str(err.value)
+
+
+def test_a_valid_published_section_parses_with_its_rules() -> None:
+    from pathlib import Path
+
+    from unbin.published.spec import published_studies
+    from unbin.published.tables import prepare
+    from unbin.spec import parse_spec
+
+    spec = parse_spec(_spec_with({"studies": [_study()]}), Path("."))
+    (s,) = published_studies(spec.raw)
+    assert s.kind == "rate" and s.scale_label == "rate ratio" and s.reference == 0
+    p = prepare(s)
+    assert p.rules == ("open group: adjacent width", "reported median",
+                       "open group: adjacent width")
+    assert p.assigned == (22.5, 27.0, 32.5)  # 25 - 5/2; median; 30 + 5/2
+    assert p.covariance.method == "greenland_longnecker"
+
+
+def test_published_spec_errors_name_the_field_and_the_fix() -> None:
+    bad = _study()
+    bad["groups"][1]["ratio"] = 2.5  # outside [1.0, 1.69]
+    bad["groups"][0]["ratio"] = 0.9  # the reference is not 1
+    msg = _problems({"studies": [bad]})
+    assert "published.studies[tideford].groups[2]: the interval [1.0, 1.69] does not " \
+           "contain the ratio 2.5" in msg
+    assert "published.studies[tideford].groups[1].ratio: the reference group's ratio is 0.9" in msg
+    msg = _problems({"studies": [_study(total_cases=400)]})
+    assert "total_cases: 400 but the groups' cases add up to 330" in msg
+    msg = _problems({"studies": [_study(analysis="visits_bmx", design="cohort_persontime")]})
+    assert "'visits_bmx' is not an analysis of this spec" in msg
+    assert "is not one of ['case_control', 'cohort_person_time', 'cohort_participants']" in msg
+    gaps = _study()
+    del gaps["groups"][1]["cases"]
+    assert "'cases' is given for some groups only" in _problems({"studies": [gaps]})
+
+
+def test_a_study_that_cannot_be_fitted_is_recorded_and_the_rest_completes() -> None:
+    import pandas as pd
+
+    from unbin.published.spec import published_studies
+    from unbin.published.tables import published_tables
+
+    two = _study(name="two_groups", groups=_study()["groups"][:2])
+    raw = _spec_with({"studies": [_study(), _study(name="second"), two]})
+    got = published_tables(published_studies(raw), pd.DataFrame(), pd.DataFrame(),
+                           {"visits_bmi": None}, {"visits_bmi": 3})
+    fits = got["published_fits"]
+    row = fits[(fits["study"] == "two_groups") & (fits["form"] == "spline")].iloc[0]
+    assert row["status"] == "failed" and "cannot identify" in row["message"]
+    ok = fits[(fits["study"] == "two_groups") & (fits["form"] == "linear")].iloc[0]
+    assert ok["status"] == "ok"
+    pooled = fits[fits["study"] == "pooled: all contributors"].iloc[0]
+    assert pooled["status"] == "ok" and pooled["k"] == 2
+    assert set(got["published_curves"]["curve"]) >= {"tideford", "second",
+                                                     "pooled: all contributors"}
