@@ -62,6 +62,9 @@ COLUMNS: dict[str, str] = {
     "nonlinear_chi2": "Wald χ² nonlinearity", "nonlinear_df": "df nonlinearity",
     "nonlinear_p": "nonlinear, p", "curve": "curve",
     "max_shift_without_published": "largest shift without published tables",
+    "table_estimate": "slope from the table", "table_se": "slope from the table, SE",
+    "individual_estimate": "slope from the rows", "individual_se": "slope from the rows, SE",
+    "information_ratio": "information kept by the table",
     # harmonisation, cut points
     "variable": "variable", "role": "role", "cut": "cut", "percentile": "percentile",
     "median": "median", "derived_from_data": "chosen from the data", "cut_rank": "cut number",

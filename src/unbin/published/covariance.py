@@ -100,8 +100,8 @@ def _reference_part(kind: str, A0: float, O0: float) -> float:
 
 
 def hamling_counts(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
-                   group_sizes: np.ndarray, total_cases: float | None = None
-                   ) -> tuple[np.ndarray, np.ndarray, float]:
+                   group_sizes: np.ndarray, total_cases: float | None = None,
+                   sizes_of: str = "total") -> tuple[np.ndarray, np.ndarray, float]:
     """Effective counts (A, other, misfit) after Hamling et al. (2008), reference first.
 
     For a reference (A_0, O_0), every other group's counts follow from its ratio and variance:
@@ -110,7 +110,9 @@ def hamling_counts(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
     and T_j/T_0 = (A_j/A_0)/RR_j. (A_0, O_0) — for rate, A_0 alone with T_0 = 1 — minimise the
     squared log differences between the implied and the reported shares of ``group_sizes``
     (participants, or person-time for rate) and, when ``total_cases`` is given (odds, risk),
-    the ratio of non-cases to cases."""
+    the ratio of non-cases to cases. ``sizes_of``: for odds, whether ``group_sizes`` are the
+    groups' totals (``total``: participants) or their non-cases (``other``: a case-control
+    table's controls)."""
     if kind not in KINDS:
         raise ValueError(f"unknown formulation {kind!r}")
     lr = np.asarray(log_ratios, dtype=float)
@@ -142,11 +144,12 @@ def hamling_counts(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
         if got is None:
             return None
         A, Oth = got
-        size_implied = A + Oth if kind == "odds" else Oth
+        size_implied = A + Oth if kind == "odds" and sizes_of == "total" else Oth
         res = np.log(size_implied / size_implied.sum()) - share
         if total_cases is not None and kind != "rate":
-            non = size_implied.sum() - A.sum()
-            target = (size.sum() - total_cases) / total_cases
+            non = float(Oth.sum()) if kind == "odds" else float(Oth.sum() - A.sum())
+            target = (size.sum() - total_cases) / total_cases if sizes_of == "total" \
+                else size.sum() / total_cases
             res = np.append(res, np.log(non / A.sum()) - np.log(target))
         return res
 
@@ -186,7 +189,8 @@ def hamling_counts(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
 def study_covariance(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
                      cases: np.ndarray | None = None, other: np.ndarray | None = None,
                      group_sizes: np.ndarray | None = None,
-                     total_cases: float | None = None) -> StudyCovariance:
+                     total_cases: float | None = None,
+                     sizes_of: str = "total") -> StudyCovariance:
     """The covariance by the best route the reported numbers allow (module docstring)."""
     v = np.asarray(variances, dtype=float)
     J = v.size
@@ -197,7 +201,7 @@ def study_covariance(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
         np.fill_diagonal(cov, v)
         return StudyCovariance(cov, "greenland_longnecker", kind, A, Oth)
     if group_sizes is not None and J >= 2:
-        A, Oth, err = hamling_counts(kind, log_ratios, v, group_sizes, total_cases)
+        A, Oth, err = hamling_counts(kind, log_ratios, v, group_sizes, total_cases, sizes_of)
         c = _reference_part(kind, float(A[0]), float(Oth[0]))
         cov = np.full((J, J), c)
         np.fill_diagonal(cov, v)

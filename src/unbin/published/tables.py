@@ -82,12 +82,17 @@ def prepare(study: PublishedStudy) -> PreparedStudy:
     have_cases = all(c is not None for c in cases)
     have_other = all(o is not None for o in other)
     kind = study.kind
+    # odds ratios of a cohort with participants: the odds formulation wants the non-cases
+    participants_odds = kind == "odds" and study.design == "cohort_participants"
     if have_cases and have_other:
-        cov = study_covariance(kind, lr, var, np.array(cases, float), np.array(other, float))
+        o = np.array(other, float)
+        c = np.array(cases, float)
+        cov = study_covariance(kind, lr, var, c, o - c if participants_odds else o)
     elif have_other:
         sizes = np.array(other, float)
         cov = study_covariance(kind, lr, var, group_sizes=sizes,
-                               total_cases=study.total_cases if kind != "rate" else None)
+                               total_cases=study.total_cases if kind != "rate" else None,
+                               sizes_of="other" if study.design == "case_control" else "total")
     else:
         cov = study_covariance(kind, lr, var)
     return PreparedStudy(study, np.array([vals[i] for i in order]), tuple(rules), tuple(vals),
