@@ -159,7 +159,8 @@ def _group_problems(where: str, s: dict[str, Any]) -> list[str]:
         gw = f"{where}.groups[{j + 1}]"
         lo, hi = g.get("lower"), g.get("upper")
         if lo is not None and hi is not None and not lo < hi:
-            problems.append(f"{gw}: lower bound {lo} is not below upper bound {hi}; fix the bounds.")
+            problems.append(f"{gw}: lower bound {lo} is not below upper bound {hi}; "
+                            "fix the bounds.")
         for key in ("median", "mean"):
             v = g.get(key)
             if v is not None and ((lo is not None and v < lo) or (hi is not None and v > hi)):

@@ -53,8 +53,8 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
         "Thick line and band: the common-knot spline pooled over every contributor (data "
         "cohorts and published tables; multivariate random effects), 95% interval, relative to "
         f"{ref}. Dashed: pooled over the individual data only. Thin lines: each published "
-        "study's GLS spline over its own groups; markers: its published ratios at the groups' assigned exposures, "
-        "moved onto its curve's reference."))
+        "study's GLS spline over its own groups; markers: its published ratios at the groups' "
+        "assigned exposures, moved onto its curve's reference."))
     ax = fig.subplots(1, 1)
     handles: list[Any] = []
     labels: list[str] = []
@@ -99,7 +99,8 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
         d = np.abs(pooled["estimate"].to_numpy(float) - data_only["estimate"].to_numpy(float)) \
             if len(data_only) == len(pooled) else np.array([np.nan])
         if np.isfinite(d).any():
-            shift = f"; the largest log-scale shift from adding them is {fmt_number(float(np.nanmax(d)), 3)}"
+            top = fmt_number(float(np.nanmax(d)), 3)
+            shift = f"; the largest log-scale shift from adding them is {top}"
     alt = (f"Line chart of the {scale} against {ex.label}: the curve pooled over all "
            f"contributors runs from {effect_text(e[0], scale, 3)} at {fmt_number(xs[0])} to "
            f"{effect_text(e[-1], scale, 3)} at {fmt_number(xs[-1])}; {len(studies)} published "
