@@ -35,6 +35,13 @@ COLUMNS = ("row_type", "group", "reference", "lower", "upper", "median", "cases"
            "table_estimate", "table_se", "individual_estimate", "individual_se",
            "information_ratio", "covariance_method", "scale", "status", "message")
 
+# One dtype per column whatever the rows hold, so tables of several analyses concatenate
+# cleanly (an all-missing column keeps its type).
+TEXT = ("row_type", "group", "design", "form", "covariance_method", "scale", "status", "message")
+DTYPES: dict[str, str] = {c: ("object" if c in TEXT else "Int64" if c == "cases"
+                              else "boolean" if c == "reference" else "float64")
+                          for c in COLUMNS}
+
 DESIGN = {"binary": "cohort_participants", "count": "cohort_person_time",
           "survival": "cohort_person_time"}
 
@@ -54,7 +61,7 @@ def _other_counts(r: Refit, codes: np.ndarray, k: int) -> np.ndarray:
 def as_published_table(r: Refit, spec: Spec) -> pd.DataFrame:
     """The legacy grouped table as a paper would print it, and the table route vs the rows."""
     if r.family not in RATIO_FAMILIES:
-        return pd.DataFrame(columns=list(COLUMNS))
+        return pd.DataFrame(columns=list(COLUMNS)).astype(DTYPES)
     scale = EFFECT_SCALE[r.family]
     f = r.get("legacy", "legacy")
     lg = r.legacy
@@ -94,9 +101,13 @@ def as_published_table(r: Refit, spec: Spec) -> pd.DataFrame:
         rows.append(row)
     rows.append(_route(r, scale, codes, cases, other, medians, est, se, shown, k))
     out = pd.DataFrame(rows, columns=list(COLUMNS))
-    for c in ("cases",):
-        out[c] = pd.array(out[c], dtype="Int64")
-    return out
+    for c in TEXT:
+        out[c] = out[c].where(out[c].notna(), "")
+    out["cases"] = pd.array([None if v is None or v != v else int(v) for v in out["cases"]],
+                            dtype="Int64")
+    out["reference"] = pd.array([None if v is None or v != v else bool(v)
+                                 for v in out["reference"]], dtype="boolean")
+    return out.astype(DTYPES)
 
 
 def _route(r: Refit, scale: str, codes: np.ndarray, cases: np.ndarray, other: np.ndarray,
