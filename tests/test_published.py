@@ -464,3 +464,35 @@ def test_demo_pooled_curve_with_published_studies_covers_the_truth(demo_out: Pat
     pooled = fits[fits["study"] == "pooled: all contributors"]
     assert set(pooled["k"]) == {5}
     assert set(fits["evidence"]) == {"published table", "individual data", "pooled"}
+
+
+@pytest.mark.parametrize("reference", [0, 2])
+def test_rate_table_slope_equals_weighted_least_squares_on_log_rates(reference: int) -> None:
+    # Brute force: with crude rate ratios, log rate_j has variance 1/a_j and the groups are
+    # independent, so the GLS slope of the correlated log ratios against any reference group is
+    # the weighted least-squares slope of log(a_j / T_j) on x_j with an intercept, weights a_j.
+    from unbin.published.spec import PublishedGroup, PublishedStudy
+    from unbin.published.tables import prepare
+
+    a = np.array([40.0, 75.0, 120.0, 95.0, 60.0])
+    T = np.array([900.0, 1200.0, 1500.0, 900.0, 450.0])
+    x = np.array([1.0, 3.0, 5.5, 8.0, 11.0])
+    rate = a / T
+    se = np.sqrt(1 / a + 1 / a[reference])
+    groups = []
+    for j in range(5):
+        r = rate[j] / rate[reference]
+        groups.append(PublishedGroup(None, None, float(x[j]), None, float(a[j]), float(T[j]),
+                                     1.0 if j == reference else float(r),
+                                     None if j == reference else float(r * np.exp(-Z95 * se[j])),
+                                     None if j == reference else float(r * np.exp(Z95 * se[j]))))
+    study = PublishedStudy("s", "an", "", "RR", "cohort_person_time", tuple(groups), reference,
+                           None, "adjacent_width")
+    p = prepare(study)
+    fit = fit_trend("linear", p.exposures, p.log_ratios, p.covariance.cov)
+    W = np.diag(a)
+    X = np.column_stack([np.ones(5), x])
+    cov = np.linalg.inv(X.T @ W @ X)
+    beta = cov @ X.T @ W @ np.log(rate)
+    assert fit.coef[0] == pytest.approx(beta[1], rel=1e-9)
+    assert fit.cov[0, 0] == pytest.approx(cov[1, 1], rel=1e-9)
