@@ -115,7 +115,7 @@ def cmd_pool(args: argparse.Namespace) -> int:
     from .pipeline.jobs import pool_bundles
 
     out = Path(args.out) / "tables"
-    pool_bundles([Path(b) for b in args.bundles], out)
+    pool_bundles([Path(b) for b in args.bundles], out, args.spec)
     console = _console(args.quiet)
     console.print(f"Pooled {len(args.bundles)} bundle(s): "
                   + ", ".join(str(out / f"{t}.parquet") for t in POOLED_TABLES), markup=False)
@@ -203,6 +203,8 @@ def build_parser() -> argparse.ArgumentParser:
     sp = sub.add_parser("pool", help="pool cohort bundles (folders under <out>/bundles/)")
     sp.add_argument("bundles", nargs="+", help="bundle folders, one per cohort")
     sp.add_argument("--out", required=True, help="output folder (tables go to OUT/tables/)")
+    sp.add_argument("--spec", default=None,
+                    help="a spec whose 'published' studies join the pooled curves")
     sp.add_argument("--quiet", action="store_true", help="print nothing")
     sp.set_defaults(func=cmd_pool)
 

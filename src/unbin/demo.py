@@ -39,6 +39,8 @@ import numpy as np
 import pandas as pd
 import yaml
 
+from .published.demo_tables import demo_published
+
 DEMO_SEED = 20260401
 DEMO_ROWS = 6000
 DAYS_PER_YEAR = 365.25
@@ -233,6 +235,8 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
         # Smaller than the defaults (200, 1000) so that the demo stays quick.
         "resampling": {"bootstrap": 100, "permutations": 199},
         "seed": DEMO_SEED,
+        # two invented studies known only from their published grouped tables
+        "published": demo_published(DEMO_SEED, TRUE_VISITS_PER_BMI),
     }
 
 

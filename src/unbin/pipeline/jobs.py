@@ -302,8 +302,10 @@ def read_bundle(bundle_dir: str | Path) -> tuple[dict[str, pd.DataFrame], dict[s
             read_provenance(d / "curves.parquet"))
 
 
-def pool_bundles(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> None:
-    """Pool cohort bundles (from one run or from separate runs) into the pooled tables."""
+def pool_bundles(bundle_dirs: Sequence[str | Path], tables_dir: str | Path,
+             spec_path: str | Path | None = None) -> None:
+    """Pool cohort bundles (from one run or from separate runs) into the pooled tables; with a
+    spec that has ``published`` studies, they join the pooled curves (``unbin.published``)."""
     bundles, provs = {}, []
     for d in bundle_dirs:
         bundle, prov = read_bundle(d)
@@ -316,11 +318,19 @@ def pool_bundles(bundle_dirs: Sequence[str | Path], tables_dir: str | Path) -> N
     from ..consortium import pool
 
     pooled = pool.pool_bundles(dict(sorted(bundles.items())))  # the same tables in any order
+    names = list(POOLED_TABLES)
+    if spec_path is not None:
+        from ..published.job import add_published
+        from ..published.tables import PUBLISHED_TABLES
+
+        spec = load_spec(spec_path)
+        pooled = add_published(spec, dict(sorted(bundles.items())), pooled)
+        names += [n for n in PUBLISHED_TABLES if n in pooled]
     inputs = [i for p in provs for i in p.get("inputs", [])]
     prov = dict(inputs=inputs, spec_digest=digest(sorted(p.get("spec_digest", "") for p in provs)),
                 seed=provs[0].get("seed", 0) if provs else 0,
                 study=provs[0].get("study", "") if provs else "")
-    for name in POOLED_TABLES:
+    for name in names:
         df = pooled.get(name, pd.DataFrame())
         if df.empty:
             df = pd.DataFrame({"analysis": pd.Series(dtype=str)})

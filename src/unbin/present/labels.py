@@ -49,6 +49,22 @@ COLUMNS: dict[str, str] = {
     "effect_pi_lower": "prediction effect, lower", "effect_pi_upper": "prediction effect, upper",
     "tau2": "τ²", "tau2_method": "τ² estimator", "i2": "I²", "q": "Q", "q_df": "Q df",
     "q_p": "Q p-value", "item": "pooled item",
+    # published grouped tables
+    "study": "study", "evidence": "evidence", "design": "design",
+    "covariance_method": "covariance from", "reference": "reference group",
+    "assigned_exposure": "assigned exposure", "exposure_rule": "exposure from",
+    "ratio": "published ratio", "ratio_lower": "published, lower",
+    "ratio_upper": "published, upper", "cases": "cases", "other_count": "non-cases or time",
+    "fitted_cases": "fitted cases", "fitted_other": "fitted non-cases or time",
+    "plotted_log_ratio": "log ratio on the curve", "knots": "knots",
+    "coefficients": "coefficients", "slope": "slope (log ratio per unit)", "slope_se": "slope SE",
+    "gof_q": "goodness-of-fit Q", "gof_df": "goodness-of-fit df", "gof_p": "goodness of fit, p",
+    "nonlinear_chi2": "Wald χ² nonlinearity", "nonlinear_df": "df nonlinearity",
+    "nonlinear_p": "nonlinear, p", "curve": "curve",
+    "max_shift_without_published": "largest shift without published tables",
+    "table_estimate": "slope from the table", "table_se": "slope from the table, SE",
+    "individual_estimate": "slope from the rows", "individual_se": "slope from the rows, SE",
+    "information_ratio": "information kept by the table",
     # harmonisation, cut points
     "variable": "variable", "role": "role", "cut": "cut", "percentile": "percentile",
     "median": "median", "derived_from_data": "chosen from the data", "cut_rank": "cut number",
@@ -93,6 +109,7 @@ METHODS: dict[str, str] = {
     "fixed": "fixed effect", "random": "random effects",
     "random HKSJ": "random effects, HKSJ",
     "multivariate fixed": "multivariate fixed", "multivariate random": "multivariate random",
+    "multivariate random, with published tables": "multivariate random, with published tables",
 }
 
 CONTRAST_TYPES: dict[str, str] = {

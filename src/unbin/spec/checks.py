@@ -8,6 +8,7 @@ import math
 import re
 from typing import Any
 
+from ..published.spec import published_problems
 from .extract_checks import csv_problems, followup_problems
 from .model import OPTIONAL_OUTCOME_FIELDS, OUTCOME_FIELDS, _labels_for
 
@@ -47,6 +48,7 @@ def semantic_problems(raw: dict[str, Any]) -> list[str]:
         problems += _analysis_problems(i, analysis, groupings)
     problems += _continuous_problems("continuous", raw.get("continuous", {}))
     problems += csv_problems(raw) + followup_problems(raw)
+    problems += published_problems(raw)
     return problems
 
 

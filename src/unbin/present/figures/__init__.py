@@ -36,11 +36,22 @@ INDEX = "index.json"     # what a folder of figures holds, for the report
 
 
 def _kinds() -> tuple[Kind, ...]:
-    from . import confounding, curves, cutpoints, decisions, information, levels, pooled, ranges
+    from . import (
+        confounding,
+        curves,
+        cutpoints,
+        decisions,
+        information,
+        levels,
+        pooled,
+        published,
+        ranges,
+    )
 
     return (
         Kind("information", "information", "study", information.draw),
         Kind("pooled-curves", "pooled_curves", "pooled", pooled.draw),
+        Kind("published-tables", "published_curves", "pooled", published.draw),
         Kind("curves", "curves", "analysis", curves.draw),
         Kind("level-curves", "curves", "analysis", levels.draw),
         Kind("ranges", "ranges", "analysis", ranges.draw),

@@ -3,6 +3,7 @@
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import pandas as pd
@@ -186,3 +187,44 @@ def suppressed(r: Any, key: str, min_cell: int) -> str:
     if get(r, "suppressed") is True:
         return f"<{min_cell}"
     return text.count(get(r, key))
+
+
+COVARIANCE_TEXT = {"greenland_longnecker": "Greenland–Longnecker", "hamling": "Hamling",
+                   "independence": "independence (flagged)"}
+
+
+def published_fit_rows(fits: pd.DataFrame) -> list[dict[str, str]]:
+    """The published-tables block: per contributor and form, where its evidence comes from,
+    its per-unit ratio (linear form), the nonlinearity and goodness-of-fit p-values; the pooled
+    rows with I² and how far the published tables move the pooled curve."""
+    if fits.empty:
+        return []
+    adj = "continuous" if (fits["adjustment"] == "continuous").any() else \
+        str(fits["adjustment"].iloc[0])
+    out = []
+    for _, r in fits[fits["adjustment"] == adj].iterrows():
+        slope = get(r, "slope")
+        scale = str(get(r, "scale") or "")
+        per_unit = text.DASH
+        if text.finite(slope):
+            per_unit = (text.ratio(math.exp(float(slope))) if scale.endswith("ratio")
+                        else text.number(slope))
+        failed = str(get(r, "status")) not in ("ok",)
+        out.append({
+            "contributor": str(get(r, "study")),
+            "evidence": str(get(r, "evidence")),
+            "form": str(get(r, "form")),
+            "covariance from": COVARIANCE_TEXT.get(str(get(r, "covariance_method") or ""),
+                                                   text.DASH),
+            "per unit": per_unit,
+            "nonlinear, p": text.pvalue(get(r, "nonlinear_p")),
+            "goodness of fit, p": text.pvalue(get(r, "gof_p")),
+            "I²": text.percent(get(r, "i2")) if text.finite(get(r, "i2")) else text.DASH,
+            "shift without published": (text.number(get(r, "max_shift_without_published"))
+                                        if text.finite(get(r, "max_shift_without_published"))
+                                        else text.DASH),
+            "note": str(get(r, "message") or "") if failed else
+            ("independence approximation" if get(r, "covariance_method") == "independence"
+             else ""),
+        })
+    return out

@@ -40,7 +40,8 @@ KNOWN_TABLES = frozenset({"fits", "information", "effects", "curves", "density",
                           "status", "ranges", "confounding", "cutpoints", "replication",
                           "thresholds", "net_benefit", "pooled_curves", "pooled_effects",
                           "heterogeneity", "harmonisation", "coefficients",
-                          "common_contrasts", "information_bootstrap"})
+                          "common_contrasts", "information_bootstrap", "published_groups",
+                          "published_fits", "published_curves"})
 FAMILY_TEXT = {"binary": "binary outcome (logistic model)",
                "continuous": "continuous outcome (linear model)",
                "count": "count outcome (Poisson model with person-time)",
@@ -415,6 +416,16 @@ class Builder:
             if het:
                 blocks.append(Block(fold="Heterogeneity between cohorts", tables=[
                     records_table(het, f"{a.name}: heterogeneity (Q, I², τ²)")]))
+            pub = R.published_fit_rows(self.ctx.rows("published_fits", None, a.name))
+            if pub:
+                blocks.append(Block(
+                    f"{a.name}: published grouped tables",
+                    figures=self.fig_views(None, a.name, "published-tables"),
+                    tables=[records_table(pub, f"{a.name}: published-only studies beside the "
+                                               "data cohorts (GLS trends on the common knots)",
+                                          numeric=["per unit", "nonlinear, p",
+                                                   "goodness of fit, p", "I²",
+                                                   "shift without published"])]))
         harm = self.ctx.table("harmonisation")
         if len(harm):
             blocks.append(Block(fold="Where each cohort's legacy cuts sit", tables=[

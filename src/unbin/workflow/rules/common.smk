@@ -12,7 +12,9 @@ from unbin.pipeline.workflow_support import (
     cohort_params,
     study_params,
 )
-from unbin.spec import load_spec
+from unbin.published.spec import published_studies
+from unbin.published.tables import PUBLISHED_TABLES
+from unbin.spec import digest, load_spec
 
 min_version("9.0")
 
@@ -33,6 +35,10 @@ UNBIN_ANALYSES = [a.name for a in UNBIN_SPEC.analyses]
 # Several cohorts: common bases from cohort summaries (unless the spec fixes knots, reference
 # and grid of an analysis), then pooling.
 UNBIN_CONSORTIUM = len(UNBIN_COHORTS) > 1
+# Studies known only from their published grouped table join the pooled curves.
+UNBIN_PUBLISHED_TABLES = (
+    list(PUBLISHED_TABLES) if UNBIN_CONSORTIUM and published_studies(UNBIN_SPEC.raw) else []
+)
 UNBIN_DERIVED_BASIS = {
     a.name: UNBIN_CONSORTIUM and not a.continuous.basis_fixed for a in UNBIN_SPEC.analyses
 }

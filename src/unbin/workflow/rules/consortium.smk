@@ -61,11 +61,13 @@ rule pool_bundles:
     input:
         expand("bundles/{cohort}/{table}.parquet", cohort=UNBIN_COHORTS, table=BUNDLE_TABLES),
     output:
-        expand("tables/{table}.parquet", table=POOLED_TABLES),
+        expand("tables/{table}.parquet", table=list(POOLED_TABLES) + UNBIN_PUBLISHED_TABLES),
     log:
         "logs/pool.log",
     benchmark:
         "benchmarks/pool_bundles/all.tsv"
     localrule: True
+    params:
+        digests=lambda w: digest(UNBIN_SPEC.raw.get("published")),
     script:
         "../scripts/pool_bundles.py"

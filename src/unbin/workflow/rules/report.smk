@@ -3,7 +3,9 @@
 # study-level tables and the spec; reruns give the same bytes.
 
 # Every study-level table the run writes (the pooled ones too in consortium mode).
-UNBIN_REPORT_TABLES = list(STUDY_TABLES) + (list(POOLED_TABLES) if UNBIN_CONSORTIUM else [])
+UNBIN_REPORT_TABLES = (
+    list(STUDY_TABLES) + (list(POOLED_TABLES) if UNBIN_CONSORTIUM else []) + UNBIN_PUBLISHED_TABLES
+)
 
 
 rule draw_figures:

@@ -9,4 +9,4 @@ sm = snakemake  # type: ignore[name-defined]  # noqa: F821
 
 with logging_to(sm.log[0]):
     bundle_dirs = sorted({str(Path(p).parent) for p in sm.input})
-    pool_bundles(bundle_dirs, Path(sm.output[0]).parent)
+    pool_bundles(bundle_dirs, Path(sm.output[0]).parent, sm.config["spec"])
