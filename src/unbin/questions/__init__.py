@@ -36,6 +36,7 @@ QUESTION_TABLES: dict[str, str] = {
 RESAMPLING_TABLES: dict[str, str] = {
     "confounding": "questions.confounding:confounding_table",
     "cutpoints": "questions.cutpoints:cutpoints_table",
+    "decision_resampling": "questions.decision_resampling:decision_resampling_table",
 }
 
 
