@@ -284,6 +284,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
                          f"(small-cell suppression, min_cell {min_cell})"})
             continue
         if survival:
+            assert h is not None
             obs, lo, hi = km_risk(time[inside], y[inside], h,
                                   None if entry is None else entry[inside])
             m = f"Kaplan-Meier at {h:g}, Greenwood log(-log) limits"
@@ -299,6 +300,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
     if np.unique(pred).size >= SMOOTH_MIN_DISTINCT and hi_p > lo_p:
         grid = np.linspace(lo_p, hi_p, SMOOTH_POINTS)
         if survival:
+            assert h is not None
             obs_s, lo_s, hi_s = smooth_survival(rf, outcome, grid, h)
             m = f"Cox on a {SMOOTH_KNOTS}-knot spline of log(-log(1 - p)), at {h:g}"
         else:
