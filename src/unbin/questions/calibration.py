@@ -131,25 +131,42 @@ def logistic_intercept(y: np.ndarray, lp: np.ndarray) -> tuple[float, float]:
     return a, float(1.0 / np.sqrt(np.sum(mu * (1 - mu))))
 
 
-def survival_expected(rf: RiskFit, time: np.ndarray, event: np.ndarray, entry: np.ndarray | None,
-                      strata: np.ndarray | None, horizon: float) -> np.ndarray:
-    """Each row's expected events up to the horizon, ``H_i(min(t_i, h)) - H_i(entry_i)``, from
-    the Breslow baseline of the model's linear predictor (log cumulative hazard at h)."""
-    z = rf.exposure_rows + rf.rest
+def survival_expected(z: np.ndarray, time: np.ndarray, event: np.ndarray,
+                      entry: np.ndarray | None, strata: np.ndarray | None,
+                      horizon: float) -> np.ndarray:
+    """Each row's expected events up to the horizon under the predictions ``z`` (the log
+    cumulative hazard at the horizon, ``log(-log(1 - p))``): ``exp(z_i)`` spread over time in
+    the shape of the Breslow baseline of ``z`` in the row's stratum, ``exp(z_i) (B(min(t_i, h)) -
+    B(entry_i)) / B(h)``. The shape is estimated; the level is the prediction's own, so a risk
+    predicted too high gives O/E below 1 (for a Cox model's own predictions O = E)."""
     centre = float(np.mean(z))
     base = baseline_cumhaz((z - centre)[:, None], time, event, [1.0], entry=entry, strata=strata)
     labels = np.zeros(len(z), dtype=np.int64) if strata is None else np.asarray(strata)
     stop = np.minimum(time, horizon)
-    h_stop = np.zeros(len(z))
-    h_start = np.zeros(len(z))
+    out = np.zeros(len(z))
     for lab, part in base.groupby("stratum", sort=True):
         tt = part["time"].to_numpy(float)
         ch = np.concatenate([[0.0], part["cumhaz"].to_numpy(float)])
+        at_h = ch[np.searchsorted(tt, horizon, side="right")]
         rows = labels == lab
-        h_stop[rows] = ch[np.searchsorted(tt, stop[rows], side="right")]
+        if at_h <= 0:
+            continue
+        share = ch[np.searchsorted(tt, stop[rows], side="right")]
         if entry is not None:
-            h_start[rows] = ch[np.searchsorted(tt, entry[rows], side="right")]
-    return (h_stop - h_start) * np.exp(z - centre)
+            share = share - ch[np.searchsorted(tt, entry[rows], side="right")]
+        out[rows] = np.exp(z[rows]) * np.maximum(share, 0.0) / at_h
+    return out
+
+
+def oe_intercept(z: np.ndarray, time: np.ndarray, event: np.ndarray, entry: np.ndarray | None,
+                 strata: np.ndarray | None, horizon: float) -> tuple[float, float]:
+    """Calibration-in-the-large at the horizon: log(O/E) (the intercept of a Poisson model of
+    the events up to the horizon with log expected events as offset) and its SE 1/sqrt(O)."""
+    expected = float(np.sum(survival_expected(z, time, event, entry, strata, horizon)))
+    observed = float(np.sum(np.asarray(event, dtype=float)[np.asarray(time) <= horizon]))
+    if observed <= 0 or expected <= 0:
+        return float("nan"), float("nan")
+    return float(np.log(observed / expected)), float(1.0 / np.sqrt(observed))
 
 
 def _spline(lp: np.ndarray) -> SplineTerm | None:
@@ -239,11 +256,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
             return [{**common, "status": "failed",
                      "reason": "predicted risk 0 for some rows (no event before the horizon); "
                                "choose a later horizon"}]
-        expected = survival_expected(rf, time, y, entry, outcome.strata, h)
-        observed = float(np.sum(y[time <= h]))
-        e_sum = float(np.sum(expected))
-        a = float(np.log(observed / e_sum)) if observed > 0 and e_sum > 0 else float("nan")
-        se_a = 1.0 / np.sqrt(observed) if observed > 0 else float("nan")
+        a, se_a = oe_intercept(z, time, y, entry, outcome.strata, h)
         rows.append({**common, "row_kind": "intercept", "estimate": a, "lower": a - Z95 * se_a,
                      "upper": a + Z95 * se_a,
                      "method": f"log(O/E), Poisson with expected events up to {h:g}"})
