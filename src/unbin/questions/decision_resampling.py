@@ -121,11 +121,27 @@ class _Sample:
     def slope(self, z: np.ndarray) -> float:
         """Calibration slope of the linear predictor on the risk's link scale (Cox 1958)."""
         if self.family == "binary":
-            res = fit("binary", z[:, None], Outcome("binary", self.y), ("z",))
-            return float(res.coef[1]) if res.ok else float("nan")
+            return logistic_slope(self.y, z)
         o = Outcome("survival", self.y, time=self.time, entry=self.entry, strata=self.strata)
         res = fit("survival", (z - z.mean())[:, None], o, ("z",))
         return float(res.coef[0]) if res.ok else float("nan")
+
+
+def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
+    """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence."""
+    Z = np.column_stack([np.ones(len(z)), z - z.mean()])
+    theta = np.array([special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6)), 1.0])
+    for _ in range(50):
+        mu = special.expit(Z @ theta)
+        H = (Z * (mu * (1 - mu))[:, None]).T @ Z
+        try:
+            step = np.linalg.solve(H, Z.T @ (y - mu))
+        except np.linalg.LinAlgError:
+            return float("nan")
+        theta = theta + step
+        if np.max(np.abs(step)) < 1e-10:
+            return float(theta[1])
+    return float("nan")
 
 
 def _log_base(r: Refit, m: np.ndarray, lp_m: np.ndarray, horizon: float,
@@ -149,8 +165,11 @@ def _models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], _Model], list[s
     notes: list[str] = []
     models: dict[tuple[str, str], _Model] = {}
     cache: dict[str, np.ndarray] = {}
+    same_adjust: tuple[Term, ...] | None = None
     for coding in CODINGS:
         adjust = adjustment_terms(df, a, spec, coding)
+        if same_adjust is None:
+            same_adjust = adjust
         cands: dict[str, list[tuple[Term, ...]]] = {
             "legacy": [(r.legacy,)], "linear": [(LinearTerm(a.exposure),)]}
         if opts.knot_values is not None:
@@ -164,6 +183,10 @@ def _models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], _Model], list[s
                     continue
         for form in FORMS:
             best: _Model | None = None
+            same = models.get((form, CODINGS[0]))
+            if coding != CODINGS[0] and same is not None and adjust == same_adjust:
+                models[(form, coding)] = same  # no adjusters coded differently: one model
+                continue
             for terms in cands[form]:
                 X, names = design(df, x, terms, adjust, cache)
                 res = fit(r.family, X, r.outcome, names)
@@ -217,12 +240,15 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
     # the replicates: weights, the refitted coefficients of every model
     W = resample_weights(spec.rng(a.name, PURPOSE), n, B)
     keys = list(models)
+    unique = list({id(models[k]): k for k in keys}.values())  # a shared model is refitted once
     if r.family == "binary":
-        coefs = {k: WeightedGLM("binary", models[k].X, o, models[k].res.coef).coef(W)
-                 for k in keys}
+        fitted = {k: WeightedGLM("binary", models[k].X, o, models[k].res.coef).coef(W)
+                  for k in unique}
     else:
-        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in keys], o, W)
-        coefs = dict(zip(keys, outs, strict=True))
+        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o, W)
+        fitted = dict(zip(unique, outs, strict=True))
+    first = {id(models[k]): k for k in unique}
+    coefs = {k: fitted[first[id(models[k])]] for k in keys}
     full = _Sample(r, np.arange(n), horizon)
     pt = np.asarray(thresholds_for(a, spec), dtype=float)
     rules = legacy_rules(r.legacy, r.x)[:1]
@@ -246,22 +272,30 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
 
     # what each quantity is in one (model, rows) evaluation
     def measures(coef_by: dict[tuple[str, str], np.ndarray], fit_rows: np.ndarray,
-                 on: _Sample, rest_rows: np.ndarray) -> dict[tuple[Any, ...], float]:
+                 on: _Sample, rest_rows: np.ndarray,
+                 apparent_run: bool = False) -> dict[tuple[Any, ...], float]:
         out: dict[tuple[Any, ...], float] = {}
+        seen: dict[int, tuple[np.ndarray | None, float]] = {}
         for k in keys:
             c = coef_by[k]
             if not np.all(np.isfinite(c)):
                 continue
-            z = z_of(k, c, fit_rows)
+            if id(models[k]) not in seen:
+                zk = z_of(k, c, fit_rows)
+                seen[id(models[k])] = (zk, on.c_index(zk[on.idx]) if zk is not None
+                                       else float("nan"))
+            z, cix = seen[id(models[k])]
             if z is None:
                 continue
             zo = z[on.idx]
-            out[("c_index", k)] = on.c_index(zo)
+            out[("c_index", k)] = cix
             if k in RISK_MODELS:
                 nb = on.net_benefit(pt, risk=risk(zo)) if pt.size else np.zeros(0)
                 for t, v in zip(pt, nb, strict=True):
                     out[("net_benefit", f"risk: {k[0]}", t)] = float(v)
-                out[("calibration_slope", k)] = on.slope(zo)
+                # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
+                out[("calibration_slope", k)] = (1.0 if on.idx is fit_rows and not apparent_run
+                                                 else on.slope(zo))
             if k in CURVE_MODELS:
                 f = _curve(models[k], c, r.family)
                 rest = float(np.median((z - f(r.x))[rest_rows]))
@@ -284,7 +318,8 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
         return out
 
     everything = np.arange(n)
-    apparent = measures({k: models[k].res.coef for k in keys}, everything, full, everything)
+    apparent = measures({k: models[k].res.coef for k in keys}, everything, full, everything,
+                        apparent_run=True)
     boot: list[dict[tuple[Any, ...], float]] = []
     test: list[dict[tuple[Any, ...], float]] = []
     for b in range(B):
