@@ -81,12 +81,13 @@ COUNTS = ("crossing", "replicates_matched", "bootstrap_ok", "bootstrap_failed")
 
 
 @dataclass
-class _Model:
+class Model:
     form: str
     coding: str
     X: np.ndarray
     k: int  # exposure columns first
     terms: tuple[Term, ...]
+    adjust: tuple[Term, ...]
     res: FitResult
 
 
@@ -159,11 +160,11 @@ def _log_base(r: Refit, m: np.ndarray, lp_m: np.ndarray, horizon: float,
         return np.log(h0), centre
 
 
-def _models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], _Model], list[str]]:
+def fitted_models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], Model], list[str]]:
     a, df, x = r.analysis, r.sample.frame, r.x
     opts = a.continuous
     notes: list[str] = []
-    models: dict[tuple[str, str], _Model] = {}
+    models: dict[tuple[str, str], Model] = {}
     cache: dict[str, np.ndarray] = {}
     same_adjust: tuple[Term, ...] | None = None
     for coding in CODINGS:
@@ -182,7 +183,7 @@ def _models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], _Model], list[s
                 except ValueError:
                     continue
         for form in FORMS:
-            best: _Model | None = None
+            best: Model | None = None
             same = models.get((form, CODINGS[0]))
             if coding != CODINGS[0] and same is not None and adjust == same_adjust:
                 models[(form, coding)] = same  # no adjusters coded differently: one model
@@ -192,7 +193,7 @@ def _models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], _Model], list[s
                 res = fit(r.family, X, r.outcome, names)
                 k = sum(len(t.names()) for t in terms)
                 if res.ok and (best is None or res.aic < best.res.aic):
-                    best = _Model(form, coding, X, k, terms, res)
+                    best = Model(form, coding, X, k, terms, adjust, res)
             if best is None:
                 notes.append(f"{form} with {coding} adjustment did not fit")
             else:
@@ -200,7 +201,7 @@ def _models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], _Model], list[s
     return models, notes
 
 
-def _curve(mdl: _Model, coef: np.ndarray, family: str) -> Callable[[np.ndarray], np.ndarray]:
+def _curve(mdl: Model, coef: np.ndarray, family: str) -> Callable[[np.ndarray], np.ndarray]:
     lo = 1 if family == "binary" else 0
     b = coef[lo:lo + mdl.k]
 
@@ -235,7 +236,7 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
     if B <= 0:
         return _finish([{**base, "status": "skipped",
                          "reason": "resampling.bootstrap is 0 (switched off)"}])
-    models, notes = _models(r, spec)
+    models, notes = fitted_models(r, spec)
     o, n = r.outcome, r.outcome.n
     # the replicates: weights, the refitted coefficients of every model
     W = resample_weights(spec.rng(a.name, PURPOSE), n, B)
