@@ -436,3 +436,32 @@ def test_optimism_correction_recovers_held_out_performance() -> None:
         se = d_cor.std() / np.sqrt(len(res))
         assert abs(d_cor.mean()) < 3 * se, (q, d_cor.mean(), se)
         assert d_app.mean() > 3 * d_app.std() / np.sqrt(len(res)), (q, d_app.mean())
+
+
+# --------------------------------------------------------------------------- figure
+
+
+def test_calibration_figure_draws_and_redraws_to_the_same_bytes(tmp_path: Path) -> None:
+    from unbin.present.figures import Context
+    from unbin.present.figures.calibration import draw
+    from unbin.present.figures.style import save
+
+    df = _frame(np.random.default_rng(3), 600)
+    raw = _raw({"type": "binary", "event": "y"}, bootstrap=10)
+    spec = parse_spec(raw, base=Path("."))
+    a = spec.analyses[0]
+    r = refit_analysis(analysis_sample(df, a, spec), a, spec, "sim")
+    keyed = {"cohort": "sim", "analysis": "a"}
+    r2, _ = bare_refit(df, raw)
+    tables = {"calibration": calibration_table(r, spec).assign(**keyed),
+              "decision_resampling": decision_resampling_table(r2, spec).assign(**keyed)}
+    sizes = []
+    for k in range(2):
+        drawn = draw(Context(tables, spec), "sim", "a")
+        assert drawn is not None
+        assert "corrected slope" in drawn.alt and "spline" in drawn.alt
+        png, svg = save(drawn.figure, tmp_path / f"cal{k}")
+        sizes.append((png.read_bytes(), svg.read_bytes()))
+    assert sizes[0] == sizes[1] and len(sizes[0][0]) > 10_000
+    empty = {"calibration": tables["calibration"].assign(status="skipped")}
+    assert draw(Context(empty, spec), "sim", "a") is None

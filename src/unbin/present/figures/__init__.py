@@ -36,7 +36,17 @@ INDEX = "index.json"     # what a folder of figures holds, for the report
 
 
 def _kinds() -> tuple[Kind, ...]:
-    from . import confounding, curves, cutpoints, decisions, information, levels, pooled, ranges
+    from . import (
+        calibration,
+        confounding,
+        curves,
+        cutpoints,
+        decisions,
+        information,
+        levels,
+        pooled,
+        ranges,
+    )
 
     return (
         Kind("information", "information", "study", information.draw),
@@ -49,6 +59,7 @@ def _kinds() -> tuple[Kind, ...]:
         Kind("cut-profile", "cutpoints", "analysis", cutpoints.draw_profile),
         Kind("thresholds", "thresholds", "analysis", decisions.draw_thresholds),
         Kind("decision-curves", "net_benefit", "analysis", decisions.draw_net_benefit),
+        Kind("calibration", "calibration", "analysis", calibration.draw),
     )
 
 

@@ -318,7 +318,8 @@ class Builder:
         if th_ok.empty and nb_ok.empty:
             return ""
         figs = (self.fig_views(cohort, analysis, "thresholds")
-                + self.fig_views(cohort, analysis, "decision-curves"))
+                + self.fig_views(cohort, analysis, "decision-curves")
+                + self.fig_views(cohort, analysis, "calibration"))
         out = [Block("Decisions on predicted risk", figures=figs)]
         if len(th_ok):
             cross = th_ok[th_ok["position"] == "crossing"]
