@@ -2,9 +2,11 @@
 (``decision_resampling``).
 
 The models are those the decision questions read (:mod:`unbin.questions.decisions`), refitted
-here on the analysis sample: the legacy groups, the linear exposure and the spline (knot count
-by AIC, as in the refit) each with legacy and with continuous adjustment; the risk rules use the
-legacy groups with legacy adjustment and the linear and spline forms with continuous adjustment.
+here on the analysis sample: the legacy groups and the spline (knot count by AIC, as in the
+refit) each with legacy and with continuous adjustment (for ``delta_c`` in both codings, as in
+the ``information`` table), and the linear exposure with continuous adjustment; the risk rules
+use the legacy groups with legacy adjustment and the linear and spline forms with continuous
+adjustment.
 Fractional polynomials are not resampled (their power selection would have to be repeated in
 every replicate). With an effect modifier, the implied thresholds here are read at the median
 risk profile of the whole sample (``level`` all), not per level.
@@ -53,7 +55,7 @@ from scipy import special
 
 from ..models import Outcome, fit
 from ..models.base import FitResult
-from ..models.cox import baseline_cumhaz, concordance
+from ..models.cox import baseline_cumhaz, concordance, concordance_order, prepare_layout
 from ..models.discrimination import auc
 from ..models.weighted import WeightedGLM, resample_weights, weighted_cox_designs
 from ..refit.analysis import Refit, adjustment_terms, design
@@ -69,6 +71,8 @@ FORMS = ("legacy", "linear", "spline")
 CODINGS = ("legacy", "continuous")
 RISK_MODELS = (("legacy", "legacy"), ("linear", "continuous"), ("spline", "continuous"))
 CURVE_MODELS = (("linear", "continuous"), ("spline", "continuous"))
+# the models refitted: the risk rules', and legacy and spline in both codings for delta C
+NEEDED = frozenset({*RISK_MODELS, *((f, c) for f in ("legacy", "spline") for c in CODINGS)})
 
 COLUMNS = ("quantity", "rule", "model", "adjustment", "threshold", "crossing", "estimate",
            "lower", "upper", "apparent", "optimism", "corrected", "replicates_matched",
@@ -102,11 +106,24 @@ class _Sample:
         self.time = None if o.time is None else o.time[idx]
         self.entry = None if o.entry is None else o.entry[idx]
         self.strata = None if o.strata is None else o.strata[idx]
+        self._order: Any = None
+        self._layout: Any = None
+        self._outcome: Outcome | None = None
+
+    def layout(self) -> Any:
+        """The Cox layout of these rows (sort, risk sets), made once and shared by the models."""
+        if self._layout is None:
+            self._layout = prepare_layout(self.time, self.y, entry=self.entry,
+                                          strata=self.strata)
+        return self._layout
 
     def c_index(self, lp: np.ndarray) -> float:
         if self.family == "binary":
             return auc(self.y, lp)
-        return float(concordance(self.time, lp, self.y, entry=self.entry, strata=self.strata))
+        if self._order is None:
+            self._order = concordance_order(self.time, self.y, self.entry, self.strata)
+        return float(concordance(self.time, lp, self.y, entry=self.entry, strata=self.strata,
+                                 time_order=self._order))
 
     def net_benefit(self, pt: np.ndarray, risk: np.ndarray | None = None,
                     positive: np.ndarray | None = None) -> np.ndarray:
@@ -123,8 +140,10 @@ class _Sample:
         """Calibration slope of the linear predictor on the risk's link scale (Cox 1958)."""
         if self.family == "binary":
             return logistic_slope(self.y, z)
-        o = Outcome("survival", self.y, time=self.time, entry=self.entry, strata=self.strata)
-        res = fit("survival", (z - z.mean())[:, None], o, ("z",))
+        if self._outcome is None:  # one Outcome, so its cached layout serves every model
+            self._outcome = Outcome("survival", self.y, time=self.time, entry=self.entry,
+                                    strata=self.strata)
+        res = fit("survival", (z - z.mean())[:, None], self._outcome, ("z",))
         return float(res.coef[0]) if res.ok else float("nan")
 
 
@@ -145,17 +164,15 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     return float("nan")
 
 
-def _log_base(r: Refit, m: np.ndarray, lp_m: np.ndarray, horizon: float,
-              strata_all: np.ndarray | None) -> tuple[np.ndarray, float]:
-    """log H0_s(h) per stratum label from the Breslow baseline of rows ``m`` with linear
-    predictor ``lp_m`` (centred), as a lookup for every row of the sample, and the centre."""
-    o = r.outcome
-    assert o.time is not None
+def _log_base(on: _Sample, lp_m: np.ndarray, horizon: float, strata_all: np.ndarray | None,
+              n: int) -> tuple[np.ndarray, float]:
+    """log H0_s(h) per stratum label from the Breslow baseline of the rows of ``on`` with
+    linear predictor ``lp_m`` (centred), as a lookup for every row of the sample, and the
+    centre."""
     centre = float(np.mean(lp_m))
-    st = None if o.strata is None else o.strata[m]
-    base = baseline_cumhaz((lp_m - centre)[:, None], o.time[m], o.y[m], [1.0],
-                           entry=None if o.entry is None else o.entry[m], strata=st)
-    h0, _, _ = cumhaz_at(base, strata_all, r.outcome.n, horizon)
+    base = baseline_cumhaz((lp_m - centre)[:, None], on.time, on.y, [1.0], entry=on.entry,
+                           strata=on.strata, layout=on.layout())
+    h0, _, _ = cumhaz_at(base, strata_all, n, horizon)
     with np.errstate(divide="ignore"):
         return np.log(h0), centre
 
@@ -183,6 +200,8 @@ def fitted_models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], Model], l
                 except ValueError:
                     continue
         for form in FORMS:
+            if (form, coding) not in NEEDED:
+                continue
             best: Model | None = None
             same = models.get((form, CODINGS[0]))
             if coding != CODINGS[0] and same is not None and adjust == same_adjust:
@@ -255,39 +274,46 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
     rules = legacy_rules(r.legacy, r.x)[:1]
     strata_all = o.strata
 
-    def z_of(k: tuple[str, str], coef: np.ndarray, fit_rows: np.ndarray) -> np.ndarray | None:
+    def z_of(k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
         """Every row's linear predictor on the risk's link scale (log odds; survival the log
-        cumulative hazard at the horizon, baseline from the fitting rows)."""
+        cumulative hazard at the horizon, baseline from the fitting rows ``fit``)."""
         X = models[k].X
         if r.family == "binary":
             return np.asarray(coef[0] + X @ coef[1:])
         assert horizon is not None
         lp = X @ coef
-        log_h0, centre = _log_base(r, fit_rows, lp[fit_rows], horizon, strata_all)
+        log_h0, centre = _log_base(fit, lp[fit.idx], horizon, strata_all, n)
         z = log_h0 + lp - centre
         return z if np.all(np.isfinite(z)) else None
+
+    def predictors(coef_by: dict[tuple[str, str], np.ndarray], fit: _Sample,
+                   ) -> dict[int, np.ndarray | None]:
+        """z of every distinct model (by identity) fitted on ``fit``'s rows."""
+        out: dict[int, np.ndarray | None] = {}
+        for k in keys:
+            if id(models[k]) not in out:
+                c = coef_by[k]
+                out[id(models[k])] = z_of(k, c, fit) if np.all(np.isfinite(c)) else None
+        return out
 
     def risk(z: np.ndarray) -> np.ndarray:
         return (np.asarray(special.expit(z)) if r.family == "binary"
                 else np.asarray(-np.expm1(-np.exp(z))))
 
     # what each quantity is in one (model, rows) evaluation
-    def measures(coef_by: dict[tuple[str, str], np.ndarray], fit_rows: np.ndarray,
-                 on: _Sample, rest_rows: np.ndarray,
+    def measures(coef_by: dict[tuple[str, str], np.ndarray], zs: dict[int, np.ndarray | None],
+                 fit: _Sample, on: _Sample,
                  apparent_run: bool = False) -> dict[tuple[Any, ...], float]:
         out: dict[tuple[Any, ...], float] = {}
-        seen: dict[int, tuple[np.ndarray | None, float]] = {}
+        cixs: dict[int, float] = {}
         for k in keys:
             c = coef_by[k]
-            if not np.all(np.isfinite(c)):
-                continue
-            if id(models[k]) not in seen:
-                zk = z_of(k, c, fit_rows)
-                seen[id(models[k])] = (zk, on.c_index(zk[on.idx]) if zk is not None
-                                       else float("nan"))
-            z, cix = seen[id(models[k])]
+            z = zs[id(models[k])]
             if z is None:
                 continue
+            if id(models[k]) not in cixs:
+                cixs[id(models[k])] = on.c_index(z[on.idx])
+            cix = cixs[id(models[k])]
             zo = z[on.idx]
             out[("c_index", k)] = cix
             if k in RISK_MODELS:
@@ -295,11 +321,11 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
                 for t, v in zip(pt, nb, strict=True):
                     out[("net_benefit", f"risk: {k[0]}", t)] = float(v)
                 # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
-                out[("calibration_slope", k)] = (1.0 if on.idx is fit_rows and not apparent_run
+                out[("calibration_slope", k)] = (1.0 if on is fit and not apparent_run
                                                  else on.slope(zo))
             if k in CURVE_MODELS:
                 f = _curve(models[k], c, r.family)
-                rest = float(np.median((z - f(r.x))[rest_rows]))
+                rest = float(np.median((z - f(r.x))[fit.idx]))
                 lo_x, hi_x = float(r.x.min()), float(r.x.max())
                 for t in pt:
                     found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
@@ -319,15 +345,16 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
         return out
 
     everything = np.arange(n)
-    apparent = measures({k: models[k].res.coef for k in keys}, everything, full, everything,
-                        apparent_run=True)
+    own = {k: models[k].res.coef for k in keys}
+    apparent = measures(own, predictors(own, full), full, full, apparent_run=True)
     boot: list[dict[tuple[Any, ...], float]] = []
     test: list[dict[tuple[Any, ...], float]] = []
     for b in range(B):
-        m = np.repeat(everything, W[b].astype(np.int64))
+        drawn = _Sample(r, np.repeat(everything, W[b].astype(np.int64)), horizon)
         cb = {k: coefs[k][b] for k in keys}
-        boot.append(measures(cb, m, _Sample(r, m, horizon), m))
-        test.append(measures(cb, m, full, m))
+        zs = predictors(cb, drawn)
+        boot.append(measures(cb, zs, drawn, drawn))
+        test.append(measures(cb, zs, drawn, full))
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
     rows: list[dict[str, Any]] = []
     note = " | ".join(notes)
