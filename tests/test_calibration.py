@@ -294,13 +294,13 @@ def test_resampling_apparent_values_match_independent_computations() -> None:
     fit = sm.Logit(y, sm.add_constant(x)).fit(disp=0)  # statsmodels
     lp = fit.params[0] + fit.params[1] * x
     u = stats.mannwhitneyu(lp[y == 1], lp[y == 0]).statistic  # scipy: AUC = U / (n1 n0)
-    c_lin = tab[(tab.quantity == "c_index") & (tab.model == "linear")
+    c_lin = tab[(tab.quantity == "C index") & (tab.model == "linear")
                 & (tab.adjustment == "continuous")]["estimate"].iloc[0]
     assert c_lin == pytest.approx(u / ((y == 1).sum() * (y == 0).sum()), abs=1e-12)
-    thr = tab[(tab.quantity == "implied_threshold") & (tab.model == "linear")].iloc[0]
+    thr = tab[(tab.quantity == "implied threshold") & (tab.model == "linear")].iloc[0]
     assert thr["estimate"] == pytest.approx((special.logit(0.2) - fit.params[0]) / fit.params[1],
                                             abs=1e-6)  # closed form of the linear logistic
-    nb = tab[(tab.quantity == "net_benefit") & (tab.rule == "risk: linear")].iloc[0]
+    nb = tab[(tab.quantity == "net benefit") & (tab.rule == "risk: linear")].iloc[0]
     p = special.expit(lp)
     tp, fp = np.mean((p >= 0.2) & (y == 1)), np.mean((p >= 0.2) & (y == 0))
     assert nb["estimate"] == pytest.approx(tp - fp * 0.25, abs=1e-6)  # Vickers & Elkin 2006
@@ -310,12 +310,12 @@ def test_resampling_apparent_values_match_independent_computations() -> None:
                         spec_f, "sim")
     nbt = net_benefit_table(rf, spec_f)
     ref = nbt[(nbt.rule == "risk: spline") & np.isclose(nbt.threshold, 0.2)]["net_benefit"]
-    got = tab[(tab.quantity == "net_benefit") & (tab.rule == "risk: spline")]["estimate"]
+    got = tab[(tab.quantity == "net benefit") & (tab.rule == "risk: spline")]["estimate"]
     assert got.iloc[0] == pytest.approx(ref.iloc[0], abs=1e-9)
     # fixed rules are not fitted: no optimism; the calibration slope's apparent value is 1
-    fixed = tab[(tab.quantity == "net_benefit") & ~tab.rule.str.startswith("risk: ")]
+    fixed = tab[(tab.quantity == "net benefit") & ~tab.rule.str.startswith("risk: ")]
     assert (fixed["optimism"] == 0).all()
-    assert np.allclose(tab[tab.quantity == "calibration_slope"]["apparent"], 1, atol=1e-6)
+    assert np.allclose(tab[tab.quantity == "calibration slope"]["apparent"], 1, atol=1e-6)
 
 
 def test_resampling_survival_c_matches_lifelines() -> None:
@@ -327,11 +327,11 @@ def test_resampling_survival_c_matches_lifelines() -> None:
     m = models[("spline", "continuous")]
     lp = m.X @ m.res.coef
     ref = concordance_index(df["time"], -lp, df["ev"])  # lifelines: higher score, longer life
-    got = tab[(tab.quantity == "c_index") & (tab.model == "spline")
+    got = tab[(tab.quantity == "C index") & (tab.model == "spline")
               & (tab.adjustment == "continuous")]["estimate"].iloc[0]
     assert got == pytest.approx(ref, abs=1e-9)
     assert (tab["bootstrap_ok"] > 0).all()
-    lower_ok = tab[tab.quantity == "c_index"]
+    lower_ok = tab[tab.quantity == "C index"]
     assert (lower_ok["lower"] <= lower_ok["estimate"]).all()
     assert (lower_ok["estimate"] <= lower_ok["upper"]).all()
 
@@ -348,7 +348,7 @@ def _threshold_coverage(reps: int, bootstrap: int, seed: int) -> tuple[np.ndarra
         r, spec = bare_refit(_frame(rng, 400), _raw({"type": "binary", "event": "y"},
                                                     bootstrap=bootstrap))
         tab = decision_resampling_table(r, spec)
-        it = tab[tab.quantity == "implied_threshold"].sort_values("model")
+        it = tab[tab.quantity == "implied threshold"].sort_values("model")
         assert list(it["model"]) == ["linear", "spline"]
         hits.append(((it["lower"] <= truth) & (truth <= it["upper"])).to_numpy())
         widths.append((it["upper"] - it["lower"]).to_numpy())
@@ -405,9 +405,9 @@ def _optimism_run(reps: int, bootstrap: int, seed: int) -> pd.DataFrame:
         yb = big["y"].to_numpy(float)
         held_c = auc(yb, lp)
         held_nb = float(net_benefit_risk(yb, special.expit(lp), np.array([0.2]))[0][0])
-        c = tab[(tab.quantity == "c_index") & (tab.model == "spline")
+        c = tab[(tab.quantity == "C index") & (tab.model == "spline")
                 & (tab.adjustment == "continuous")].iloc[0]
-        nb = tab[(tab.quantity == "net_benefit") & (tab.rule == "risk: spline")].iloc[0]
+        nb = tab[(tab.quantity == "net benefit") & (tab.rule == "risk: spline")].iloc[0]
         out.append({"c_app": c["apparent"], "c_cor": c["corrected"], "c_held": held_c,
                     "nb_app": nb["apparent"], "nb_cor": nb["corrected"], "nb_held": held_nb})
     return pd.DataFrame(out)

@@ -80,7 +80,7 @@ COLUMNS: dict[str, str] = {
     "replicates_matched": "replicates with as many crossings",
     "beyond_central_range": "outside 1st–99th percentile",
     "exposure_p01": "exposure 1st percentile", "exposure_p99": "exposure 99th percentile",
-    "risk_scale": "risk", "horizon": "horizon",
+    "risk_scale": "risk", "horizon": "horizon", "computed_by": "computed by",
 }
 
 FORMS: dict[str, str] = {

@@ -66,7 +66,7 @@ APPARENT = ("apparent: judged on the rows the model was fitted to (intercept 0 a
 
 COLUMNS = ("model", "adjustment", "detail", "row_kind", "group", "n_rows", "events",
            "mean_predicted", "observed", "observed_lower", "observed_upper", "estimate",
-           "lower", "upper", "risk_scale", "horizon", "method", "status", "reason", "note",
+           "lower", "upper", "risk_scale", "horizon", "computed_by", "status", "reason", "note",
            "caution")
 
 
@@ -259,7 +259,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
         a, se_a = oe_intercept(z, time, y, entry, outcome.strata, h)
         rows.append({**common, "row_kind": "intercept", "estimate": a, "lower": a - Z95 * se_a,
                      "upper": a + Z95 * se_a,
-                     "method": f"log(O/E), Poisson with expected events up to {h:g}"})
+                     "computed_by": f"log(O/E), Poisson with expected events up to {h:g}"})
         o = Outcome("survival", y, time=time, entry=entry, strata=outcome.strata)
         res = fit("survival", z[:, None], o, ("cloglog_risk",))
         method = "Cox model on log(-log(1 - p))"
@@ -268,16 +268,16 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
         lp = np.asarray(link("binary", np.clip(pred, 1e-12, 1 - 1e-12)))
         a, se_a = logistic_intercept(y, lp)
         rows.append({**common, "row_kind": "intercept", "estimate": a, "lower": a - Z95 * se_a,
-                     "upper": a + Z95 * se_a, "method": "logistic, logit(p) as offset"})
+                     "upper": a + Z95 * se_a, "computed_by": "logistic, logit(p) as offset"})
         res = fit("binary", lp[:, None], Outcome("binary", y), ("logit_risk",))
         method = "logistic on logit(p)"
         slope_i = 1
     if res.ok:
         b, se_b = float(res.coef[slope_i]), float(np.sqrt(res.cov[slope_i, slope_i]))
         rows.append({**common, "row_kind": "slope", "estimate": b, "lower": b - Z95 * se_b,
-                     "upper": b + Z95 * se_b, "method": method})
+                     "upper": b + Z95 * se_b, "computed_by": method})
     else:
-        rows.append({**common, "row_kind": "slope", "method": method, "status": "failed",
+        rows.append({**common, "row_kind": "slope", "computed_by": method, "status": "failed",
                      "reason": res.message})
     # tenths of predicted risk
     codes = risk_groups(pred)
@@ -307,7 +307,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
             lo, hi = float(lo_a[0]), float(hi_a[0])
             m = "events/n, Wilson limits"
         rows.append({**row, "events": ev_g[k], "observed": obs, "observed_lower": lo,
-                     "observed_upper": hi, "method": m})
+                     "observed_upper": hi, "computed_by": m})
     # the flexible curve
     lo_p, hi_p = np.quantile(pred, [0.01, 0.99])
     if np.unique(pred).size >= SMOOTH_MIN_DISTINCT and hi_p > lo_p:
@@ -322,7 +322,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
         for k in range(len(grid)):
             rows.append({**common, "row_kind": "smooth", "group": float(k + 1),
                          "mean_predicted": grid[k], "observed": obs_s[k],
-                         "observed_lower": lo_s[k], "observed_upper": hi_s[k], "method": m})
+                         "observed_lower": lo_s[k], "observed_upper": hi_s[k], "computed_by": m})
     return rows
 
 
@@ -351,8 +351,8 @@ def calibration_table(r: Refit, spec: Spec) -> pd.DataFrame:
     return _finish(rows)
 
 
-TEXT = ("model", "adjustment", "detail", "row_kind", "risk_scale", "method", "status", "reason",
-        "note", "caution")
+TEXT = ("model", "adjustment", "detail", "row_kind", "risk_scale", "computed_by", "status",
+        "reason", "note", "caution")
 COUNTS = ("group", "n_rows", "events")
 
 

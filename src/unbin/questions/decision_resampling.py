@@ -21,8 +21,8 @@ for the risk at the horizon).
 
 Rows (``quantity``):
 
-- ``c_index`` per model and adjustment, ``delta_c`` (spline minus legacy groups) per
-  adjustment, ``net_benefit`` per rule and spec threshold, ``calibration_slope`` per risk model:
+- "C index" per model and adjustment, "delta C" (spline minus legacy groups) per
+  adjustment, "net benefit" per rule and spec threshold, "calibration slope" per risk model:
   ``estimate`` is the full-sample (apparent) value, ``lower``/``upper`` the 2.5th and 97.5th
   percentiles of the replicates' values in their own bootstrap samples (percentile interval),
   and Harrell's bootstrap optimism correction (Harrell, Lee & Mark 1996, Stat Med 15:361;
@@ -31,7 +31,7 @@ Rows (``quantity``):
   ``apparent`` - ``optimism``. A rule that is not fitted (treat all, the legacy cut rule) has
   optimism 0. The calibration slope's apparent value is 1 (maximum likelihood); its corrected
   value is the mean slope of the replicate models in the original sample (the shrinkage factor).
-- ``implied_threshold`` per model, spec threshold and crossing: the exposure value at which the
+- "implied threshold" per model, spec threshold and crossing: the exposure value at which the
   model's risk at the median risk profile (the rest of the linear predictor at its median in the
   sample; in a replicate, in its bootstrap sample) crosses the threshold, as in the
   ``thresholds`` table; the interval is over the replicates with the same number of crossings
@@ -77,10 +77,10 @@ NEEDED = frozenset({*RISK_MODELS, *((f, c) for f in ("legacy", "spline") for c i
 COLUMNS = ("quantity", "rule", "model", "adjustment", "threshold", "crossing", "estimate",
            "lower", "upper", "apparent", "optimism", "corrected", "replicates_matched",
            "beyond_central_range", "exposure_p01", "exposure_p99", "bootstrap_ok",
-           "bootstrap_failed", "risk_scale", "horizon", "method", "status", "reason", "note",
-           "caution")
-TEXT = ("quantity", "rule", "model", "adjustment", "risk_scale", "method", "status", "reason",
-        "note", "caution")
+           "bootstrap_failed", "risk_scale", "horizon", "computed_by", "status", "reason",
+           "note", "caution")
+TEXT = ("quantity", "rule", "model", "adjustment", "risk_scale", "computed_by", "status",
+        "reason", "note", "caution")
 COUNTS = ("crossing", "replicates_matched", "bootstrap_ok", "bootstrap_failed")
 
 
@@ -315,13 +315,13 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
                 cixs[id(models[k])] = on.c_index(z[on.idx])
             cix = cixs[id(models[k])]
             zo = z[on.idx]
-            out[("c_index", k)] = cix
+            out[("C index", k)] = cix
             if k in RISK_MODELS:
                 nb = on.net_benefit(pt, risk=risk(zo)) if pt.size else np.zeros(0)
                 for t, v in zip(pt, nb, strict=True):
-                    out[("net_benefit", f"risk: {k[0]}", t)] = float(v)
+                    out[("net benefit", f"risk: {k[0]}", t)] = float(v)
                 # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
-                out[("calibration_slope", k)] = (1.0 if on is fit and not apparent_run
+                out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
                                                  else on.slope(zo))
             if k in CURVE_MODELS:
                 f = _curve(models[k], c, r.family)
@@ -329,19 +329,20 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
                 lo_x, hi_x = float(r.x.min()), float(r.x.max())
                 for t in pt:
                     found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
-                    out[("n_cross", k, t)] = float(len(found))
+                    out[("crossings", k, t)] = float(len(found))
                     for j, (xv, _d) in enumerate(found, start=1):
-                        out[("implied_threshold", k, t, j)] = xv
+                        out[("implied threshold", k, t, j)] = xv
         for coding in CODINGS:
-            s, g = out.get(("c_index", ("spline", coding))), out.get(("c_index", ("legacy", coding)))
+            s = out.get(("C index", ("spline", coding)))
+            g = out.get(("C index", ("legacy", coding)))
             if s is not None and g is not None:
-                out[("delta_c", coding)] = s - g
+                out[("delta C", coding)] = s - g
         for name, mask in rules:
             for t, v in zip(pt, on.net_benefit(pt, positive=mask[on.idx]), strict=True):
-                out[("net_benefit", name, t)] = float(v)
+                out[("net benefit", name, t)] = float(v)
         for t, v in zip(pt, on.net_benefit(pt, positive=np.ones(len(on.idx), dtype=bool)),
                         strict=True):
-            out[("net_benefit", "treat all", t)] = float(v)
+            out[("net benefit", "treat all", t)] = float(v)
         return out
 
     everything = np.arange(n)
@@ -360,32 +361,32 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
     note = " | ".join(notes)
     for key, est in apparent.items():
         kind = key[0]
-        if kind == "n_cross":
+        if kind == "crossings":
             continue
         row: dict[str, Any] = {**base, "quantity": kind, "estimate": est, "status": "ok",
                                "reason": "", "note": note}
-        if kind in ("c_index", "calibration_slope"):
+        if kind in ("C index", "calibration slope"):
             row.update(model=key[1][0], adjustment=key[1][1])
-        elif kind == "delta_c":
+        elif kind == "delta C":
             row.update(model="spline - legacy", adjustment=key[1])
-        elif kind == "net_benefit":
+        elif kind == "net benefit":
             row.update(rule=key[1], threshold=key[2])
             if key[1].startswith("risk: "):
                 mk = next(k for k in RISK_MODELS if key[1] == f"risk: {k[0]}")
                 row.update(model=mk[0], adjustment=mk[1])
-        else:  # implied_threshold
+        else:  # implied threshold
             k, t, j = key[1], key[2], key[3]
             row.update(model=k[0], adjustment=k[1], threshold=t, crossing=j,
                        exposure_p01=q01, exposure_p99=q99,
                        beyond_central_range=float(not q01 <= est <= q99))
-        if kind == "implied_threshold":
-            n_full = apparent[("n_cross", key[1], key[2])]
+        if kind == "implied threshold":
+            n_full = apparent[("crossings", key[1], key[2])]
             same = [bt.get(key, np.nan) for bt in boot
-                    if bt.get(("n_cross", key[1], key[2])) == n_full]
+                    if bt.get(("crossings", key[1], key[2])) == n_full]
             vals = np.asarray(same, dtype=float)
             row["replicates_matched"] = int(np.isfinite(vals).sum())
             row["lower"], row["upper"] = _percentiles(vals)
-            row["method"] = "percentile bootstrap over replicates with as many crossings"
+            row["computed_by"] = "percentile bootstrap over replicates with as many crossings"
         else:
             vals = np.asarray([bt.get(key, np.nan) for bt in boot], dtype=float)
             row["lower"], row["upper"] = _percentiles(vals)
@@ -393,12 +394,12 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
                                 for bt, tt in zip(boot, test, strict=True)], dtype=float)
             ok = np.isfinite(diffs)
             opt = float(diffs[ok].mean()) if ok.any() else float("nan")
-            if kind == "net_benefit" and not str(row["rule"]).startswith("risk: "):
+            if kind == "net benefit" and not str(row["rule"]).startswith("risk: "):
                 opt = 0.0  # a fixed rule (treat all, the legacy cut) is not fitted
-            if kind == "calibration_slope":  # 1 in every bootstrap sample: no interval
+            if kind == "calibration slope":  # 1 in every bootstrap sample: no interval
                 row["lower"] = row["upper"] = float("nan")
             row.update(apparent=est, optimism=opt, corrected=est - opt)
-            row["method"] = "percentile bootstrap; Harrell's optimism correction"
+            row["computed_by"] = "percentile bootstrap; Harrell's optimism correction"
             vals = diffs
         row["bootstrap_ok"] = int(np.isfinite(vals).sum())
         row["bootstrap_failed"] = B - row["bootstrap_ok"]

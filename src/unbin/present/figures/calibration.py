@@ -36,7 +36,7 @@ def corrected_slopes(df: pd.DataFrame) -> dict[str, float]:
     """The optimism-corrected calibration slope per model, from ``decision_resampling`` rows."""
     if df.empty or "quantity" not in df:
         return {}
-    rows = df[(df["quantity"] == "calibration_slope") & (df["status"] == "ok")]
+    rows = df[(df["quantity"] == "calibration slope") & (df["status"] == "ok")]
     return {str(m): float(v) for m, v in zip(rows["model"], rows["corrected"], strict=True)
             if np.isfinite(v)}
 
