@@ -491,3 +491,30 @@ def test_resampling_delta_c_is_the_information_tables() -> None:
         assert got == pytest.approx(want["delta_c"], abs=1e-12)
         c = tab[(tab.quantity == "C index") & (tab.model == "spline") & (tab.adjustment == coding)]
         assert c["estimate"].iloc[0] == pytest.approx(want["c_spline"], abs=1e-12)
+
+
+def test_report_rows_of_the_decision_bootstrap() -> None:
+    """Hand-made rows; expected cells written out from present/text.py's rules."""
+    from unbin.present import text
+    from unbin.present.report.rows import decision_resampling_rows
+
+    df = pd.DataFrame([
+        {"quantity": "delta C", "rule": "", "model": "spline - legacy", "adjustment": "legacy",
+         "threshold": np.nan, "estimate": 0.0402, "lower": 0.021, "upper": 0.061,
+         "optimism": 0.0031, "corrected": 0.0371, "beyond_central_range": pd.NA,
+         "status": "ok"},
+        {"quantity": "implied threshold", "rule": "", "model": "spline",
+         "adjustment": "continuous", "threshold": 0.075, "estimate": 61.2, "lower": 55.0,
+         "upper": 70.4, "optimism": np.nan, "corrected": np.nan, "beyond_central_range": True,
+         "status": "ok"},
+        {"quantity": "net benefit", "rule": "treat all", "model": "", "adjustment": "",
+         "threshold": 0.2, "estimate": np.nan, "status": "skipped"}])
+    rows = decision_resampling_rows(df)
+    assert len(rows) == 2
+    assert rows[0]["model or rule"] == "spline - legacy, as in the legacy analysis"
+    # three significant digits, the bounds with the estimate's decimals
+    assert rows[0]["estimate (95% bootstrap interval)"] == "0.0402 (0.0210 to 0.0610)"
+    assert rows[0]["risk threshold"] == text.DASH
+    assert rows[1]["risk threshold"] == "7.5%"
+    assert rows[1]["note"] == "outside the 1st–99th percentile"
+    assert decision_resampling_rows(pd.DataFrame()) == []

@@ -39,7 +39,8 @@ KNOWN_TABLES = frozenset({"fits", "information", "effects", "curves", "density",
                           "status", "ranges", "confounding", "cutpoints", "replication",
                           "thresholds", "net_benefit", "pooled_curves", "pooled_effects",
                           "heterogeneity", "harmonisation", "coefficients",
-                          "common_contrasts", "information_bootstrap"})
+                          "common_contrasts", "information_bootstrap", "calibration",
+                          "decision_resampling"})
 FAMILY_TEXT = {"binary": "binary outcome (logistic model)",
                "continuous": "continuous outcome (linear model)",
                "count": "count outcome (Poisson model with person-time)",
@@ -337,6 +338,11 @@ class Builder:
             ], "Exposure values at which predicted risk crosses each threshold")]))
         if len(nb_ok):
             out.append(self.net_benefit_block(nb_ok))
+        boot = R.decision_resampling_rows(self.ctx.rows("decision_resampling", cohort, analysis))
+        if boot:
+            out.append(Block(fold="Bootstrap intervals and optimism", tables=[records_table(
+                boot, "Decision numbers: bootstrap percentile intervals and Harrell's optimism "
+                "correction (corrected = apparent − optimism)", CAUTION)]))
         return self.blocks(*out)
 
     def net_benefit_block(self, nb_ok: pd.DataFrame) -> Block:
