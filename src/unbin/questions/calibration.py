@@ -12,8 +12,9 @@ hierarchy (Van Calster et al. 2016, J Clin Epidemiol 74:167):
   mean predicted risk equals the observed one). Survival at the horizon ``h``: ``log(O/E)``,
   the intercept of a Poisson model of the events up to ``h`` with the expected numbers as offset
   (Crowson, Atkinson & Therneau 2016, Stat Methods Med Res 25:1692): ``E_i`` is the row's
-  cumulative hazard over its follow-up up to ``h`` (after delayed entry), read from the Breslow
-  baseline of the model's own predictor.
+  predicted cumulative hazard at ``h``, ``-log(1 - p_i)``, spread over its follow-up up to ``h``
+  (after delayed entry) in the shape of the Breslow baseline of the predictions
+  (:func:`survival_expected`; for a Cox model's own predictions O = E exactly).
 - ``row_kind = "slope"`` (Cox 1958, Biometrika 45:562). Binary: ``b`` in
   ``logit P(y) = a + b logit(p)``. Survival: the coefficient of a Cox model (same strata and
   delayed entry) on ``log(-log(1 - p))``, the log cumulative hazard at the horizon. 1 is ideal;
@@ -28,8 +29,9 @@ hierarchy (Van Calster et al. 2016, J Clin Epidemiol 74:167):
   risks between the 1st and 99th percentile of the predictions: binary, a logistic model of
   ``y`` on a restricted cubic spline (:data:`SMOOTH_KNOTS` knots) of ``logit(p)``; survival, a
   Cox model on a spline of ``log(-log(1 - p))`` read at the horizon through its Breslow baseline
-  (Austin, Harrell & van Klaveren 2020, Stat Med 39:2714). Pointwise 95% limits by the delta
-  method (survival: the baseline held fixed).
+  (Austin, Harrell & van Klaveren 2020, Stat Med 39:2714; strata ignored). Pointwise 95%
+  limits by the delta method (survival: the baseline held fixed). Not drawn for fewer than
+  :data:`SMOOTH_MIN_DISTINCT` distinct predicted risks (the legacy groups: tenths only).
 
 The models are judged on the rows they were fitted to: maximum likelihood makes the apparent
 intercept 0 and slope 1 for every model with its own intercept or baseline, so those two rows
