@@ -88,6 +88,15 @@ COLUMNS: dict[str, str] = {
     "threshold": "risk threshold", "net_benefit": "net benefit", "rule": "rule",
     "model": "model", "exposure_value": "exposure value", "nearest_cut": "nearest legacy cut",
     "profile_quantile": "rest-of-risk quantile",
+    # calibration, decision resampling
+    "row_kind": "row kind", "n_rows": "rows", "mean_predicted": "mean predicted risk",
+    "observed": "observed risk", "observed_lower": "observed, lower",
+    "observed_upper": "observed, upper", "quantity": "quantity", "crossing": "crossing",
+    "apparent": "apparent", "optimism": "optimism", "corrected": "optimism-corrected",
+    "replicates_matched": "replicates with as many crossings",
+    "beyond_central_range": "outside 1st–99th percentile",
+    "exposure_p01": "exposure 1st percentile", "exposure_p99": "exposure 99th percentile",
+    "risk_scale": "risk", "horizon": "horizon", "computed_by": "computed by",
 }
 
 FORMS: dict[str, str] = {

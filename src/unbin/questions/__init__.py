@@ -29,6 +29,7 @@ QUESTION_TABLES: dict[str, str] = {
     "hazards": "questions.hazards:hazards_table",
     "windows": "questions.windows:windows_table",
     "as_published": "questions.as_published:as_published_table",
+    "calibration": "questions.calibration:calibration_table",
 }
 # Questions whose cost is resampling (bootstrap, permutations): a workflow job of their own per
 # (cohort, analysis), so they spread over cores or a cluster beside the fits. They need the
@@ -37,6 +38,7 @@ RESAMPLING_TABLES: dict[str, str] = {
     "confounding": "questions.confounding:confounding_table",
     "cutpoints": "questions.cutpoints:cutpoints_table",
     "information_bootstrap": "questions.kept:information_bootstrap_table",
+    "decision_resampling": "questions.decision_resampling:decision_resampling_table",
 }
 
 

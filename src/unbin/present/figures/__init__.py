@@ -37,6 +37,7 @@ INDEX = "index.json"     # what a folder of figures holds, for the report
 
 def _kinds() -> tuple[Kind, ...]:
     from . import (
+        calibration,
         confounding,
         curves,
         cutpoints,
@@ -60,6 +61,7 @@ def _kinds() -> tuple[Kind, ...]:
         Kind("cut-profile", "cutpoints", "analysis", cutpoints.draw_profile),
         Kind("thresholds", "thresholds", "analysis", decisions.draw_thresholds),
         Kind("decision-curves", "net_benefit", "analysis", decisions.draw_net_benefit),
+        Kind("calibration", "calibration", "analysis", calibration.draw),
     )
 
 

@@ -228,3 +228,30 @@ def published_fit_rows(fits: pd.DataFrame) -> list[dict[str, str]]:
              else ""),
         })
     return out
+
+
+def decision_resampling_rows(df: pd.DataFrame) -> list[dict[str, str]]:
+    """The bootstrap of the decision numbers (``decision_resampling``, status ok): per quantity
+    and model or rule, the estimate with its percentile interval, the optimism and the
+    optimism-corrected value; implied thresholds flagged outside the 1st–99th percentile."""
+    if df.empty or "quantity" not in df:
+        return []
+    rows = []
+    for r in df[df["status"] == "ok"].to_dict("records"):
+        what = str(r.get("rule") or "") or labels.form(str(r.get("model") or ""))
+        adj = str(r.get("adjustment") or "")
+        if adj:
+            what += f", {labels.code('adjustment', adj)}"
+        thr = r.get("threshold")
+        at = text.percent(thr, 1 if text.finite(thr) and round(thr * 100) != thr * 100 else 0)
+        flag = r.get("beyond_central_range")
+        note = ("outside the 1st–99th percentile" if flag is True or flag == 1.0 else "")
+        rows.append({
+            "quantity": str(r["quantity"]), "model or rule": what,
+            "risk threshold": at if text.finite(thr) else text.DASH,
+            "estimate (95% bootstrap interval)": text.interval(r.get("estimate"), r.get("lower"),
+                                                              r.get("upper")),
+            "optimism": text.number(r.get("optimism")),
+            "corrected": text.number(r.get("corrected")),
+            "note": note})
+    return rows

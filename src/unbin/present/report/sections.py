@@ -41,7 +41,8 @@ KNOWN_TABLES = frozenset({"fits", "information", "effects", "curves", "density",
                           "thresholds", "net_benefit", "pooled_curves", "pooled_effects",
                           "heterogeneity", "harmonisation", "coefficients",
                           "common_contrasts", "information_bootstrap", "published_groups",
-                          "published_fits", "published_curves"})
+                          "published_fits", "published_curves", "calibration",
+                          "decision_resampling"})
 FAMILY_TEXT = {"binary": "binary outcome (logistic model)",
                "continuous": "continuous outcome (linear model)",
                "count": "count outcome (Poisson model with person-time)",
@@ -321,7 +322,8 @@ class Builder:
         if th_ok.empty and nb_ok.empty:
             return ""
         figs = (self.fig_views(cohort, analysis, "thresholds")
-                + self.fig_views(cohort, analysis, "decision-curves"))
+                + self.fig_views(cohort, analysis, "decision-curves")
+                + self.fig_views(cohort, analysis, "calibration"))
         out = [Block("Decisions on predicted risk", figures=figs)]
         if len(th_ok):
             cross = th_ok[th_ok["position"] == "crossing"]
@@ -339,6 +341,11 @@ class Builder:
             ], "Exposure values at which predicted risk crosses each threshold")]))
         if len(nb_ok):
             out.append(self.net_benefit_block(nb_ok))
+        boot = R.decision_resampling_rows(self.ctx.rows("decision_resampling", cohort, analysis))
+        if boot:
+            out.append(Block(fold="Bootstrap intervals and optimism", tables=[records_table(
+                boot, "Decision numbers: bootstrap percentile intervals and Harrell's optimism "
+                "correction (corrected = apparent − optimism)", CAUTION)]))
         return self.blocks(*out)
 
     def net_benefit_block(self, nb_ok: pd.DataFrame) -> Block:

@@ -1,0 +1,431 @@
+"""Bootstrap intervals and optimism for the decision numbers, one table per analysis
+(``decision_resampling``).
+
+The models are those the decision questions read (:mod:`unbin.questions.decisions`), refitted
+here on the analysis sample: the legacy groups and the spline (knot count by AIC, as in the
+refit) each with legacy and with continuous adjustment (for ``delta_c`` in both codings, as in
+the ``information`` table), and the linear exposure with continuous adjustment; the risk rules
+use the legacy groups with legacy adjustment and the linear and spline forms with continuous
+adjustment.
+Fractional polynomials are not resampled (their power selection would have to be repeated in
+every replicate). With an effect modifier, the implied thresholds here are read at the median
+risk profile of the whole sample (``level`` all), not per level.
+
+``resampling.bootstrap`` case-resampling replicates (seeded from the spec:
+``spec.rng(analysis, "decision_resampling")``) are drawn once and shared by every model. Knots,
+legacy cuts and the spline's knot count stay as in the full sample. Each replicate's models are
+refitted by Newton's method from the full-sample estimates on frequency weights (logistic:
+vectorised over replicates, :class:`unbin.models.weighted.WeightedGLM`; survival:
+:func:`unbin.models.weighted.weighted_cox_designs`, with the replicate's own Breslow baseline
+for the risk at the horizon).
+
+Rows (``quantity``):
+
+- "C index" per model and adjustment, "delta C" (spline minus legacy groups) per
+  adjustment, "net benefit" per rule and spec threshold, "calibration slope" per risk model:
+  ``estimate`` is the full-sample (apparent) value, ``lower``/``upper`` the 2.5th and 97.5th
+  percentiles of the replicates' values in their own bootstrap samples (percentile interval),
+  and Harrell's bootstrap optimism correction (Harrell, Lee & Mark 1996, Stat Med 15:361;
+  Steyerberg 2019, ch. 17): ``optimism`` is the mean over replicates of (the replicate model's
+  value in its bootstrap sample minus its value in the original sample), ``corrected`` =
+  ``apparent`` - ``optimism``. A rule that is not fitted (treat all, the legacy cut rule) has
+  optimism 0. The calibration slope's apparent value is 1 (maximum likelihood); its corrected
+  value is the mean slope of the replicate models in the original sample (the shrinkage factor).
+- "implied threshold" per model, spec threshold and crossing: the exposure value at which the
+  model's risk at the median risk profile (the rest of the linear predictor at its median in the
+  sample; in a replicate, in its bootstrap sample) crosses the threshold, as in the
+  ``thresholds`` table; the interval is over the replicates with the same number of crossings
+  (``replicates_matched`` says how many); ``beyond_central_range`` is true when the estimate
+  lies outside the exposure's 1st-99th percentile (``exposure_p01``, ``exposure_p99``), where
+  the curve rests on few rows.
+
+Binary and survival outcomes only (a row says so for the others). Every row carries the
+caution on thresholds and decision rules.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import special
+
+from ..models import Outcome, fit
+from ..models.base import FitResult
+from ..models.cox import baseline_cumhaz, concordance, concordance_order, prepare_layout
+from ..models.discrimination import auc
+from ..models.weighted import WeightedGLM, resample_weights, weighted_cox_designs
+from ..refit.analysis import Refit, adjustment_terms, design
+from ..refit.risk import cumhaz_at, horizon_for, link, risk_scale
+from ..spec import Spec
+from ..terms import LinearTerm, SplineTerm, Term
+from .decisions import CAUTION, EVENT_FAMILIES, thresholds_for
+from .net_benefit import legacy_rules, net_benefit_counts, net_benefit_km, net_benefit_risk
+from .thresholds import crossings
+
+PURPOSE = "decision_resampling"
+FORMS = ("legacy", "linear", "spline")
+CODINGS = ("legacy", "continuous")
+RISK_MODELS = (("legacy", "legacy"), ("linear", "continuous"), ("spline", "continuous"))
+CURVE_MODELS = (("linear", "continuous"), ("spline", "continuous"))
+# the models refitted: the risk rules', and legacy and spline in both codings for delta C
+NEEDED = frozenset({*RISK_MODELS, *((f, c) for f in ("legacy", "spline") for c in CODINGS)})
+
+COLUMNS = ("quantity", "rule", "model", "adjustment", "threshold", "crossing", "estimate",
+           "lower", "upper", "apparent", "optimism", "corrected", "replicates_matched",
+           "beyond_central_range", "exposure_p01", "exposure_p99", "bootstrap_ok",
+           "bootstrap_failed", "risk_scale", "horizon", "computed_by", "status", "reason",
+           "note", "caution")
+TEXT = ("quantity", "rule", "model", "adjustment", "risk_scale", "computed_by", "status",
+        "reason", "note", "caution")
+COUNTS = ("crossing", "replicates_matched", "bootstrap_ok", "bootstrap_failed")
+
+
+@dataclass
+class Model:
+    form: str
+    coding: str
+    X: np.ndarray
+    k: int  # exposure columns first
+    terms: tuple[Term, ...]
+    adjust: tuple[Term, ...]
+    res: FitResult
+
+
+class _Sample:
+    """The rows a model is judged on (indices into the analysis sample) and what is read there:
+    risk at the horizon, C-index, net benefit, calibration slope."""
+
+    def __init__(self, r: Refit, idx: np.ndarray, horizon: float | None):
+        o = r.outcome
+        self.idx, self.family, self.h = idx, r.family, horizon
+        self.y = np.asarray(o.y, dtype=float)[idx]
+        self.time = None if o.time is None else o.time[idx]
+        self.entry = None if o.entry is None else o.entry[idx]
+        self.strata = None if o.strata is None else o.strata[idx]
+        self._order: Any = None
+        self._layout: Any = None
+        self._outcome: Outcome | None = None
+
+    def layout(self) -> Any:
+        """The Cox layout of these rows (sort, risk sets), made once and shared by the models."""
+        if self._layout is None:
+            self._layout = prepare_layout(self.time, self.y, entry=self.entry,
+                                          strata=self.strata)
+        return self._layout
+
+    def c_index(self, lp: np.ndarray) -> float:
+        if self.family == "binary":
+            return auc(self.y, lp)
+        if self._order is None:
+            self._order = concordance_order(self.time, self.y, self.entry, self.strata)
+        return float(concordance(self.time, lp, self.y, entry=self.entry, strata=self.strata,
+                                 time_order=self._order))
+
+    def net_benefit(self, pt: np.ndarray, risk: np.ndarray | None = None,
+                    positive: np.ndarray | None = None) -> np.ndarray:
+        if positive is None:
+            positive = np.zeros(len(self.y), dtype=bool)
+        if self.family == "binary":
+            out = (net_benefit_risk(self.y, risk, pt) if risk is not None
+                   else net_benefit_counts(self.y, positive, pt))
+            return out[0]
+        assert self.time is not None and self.h is not None
+        return net_benefit_km(self.time, self.y, self.entry, positive, self.h, pt, risk)[0]
+
+    def slope(self, z: np.ndarray) -> float:
+        """Calibration slope of the linear predictor on the risk's link scale (Cox 1958)."""
+        if self.family == "binary":
+            return logistic_slope(self.y, z)
+        if self._outcome is None:  # one Outcome, so its cached layout serves every model
+            self._outcome = Outcome("survival", self.y, time=self.time, entry=self.entry,
+                                    strata=self.strata)
+        res = fit("survival", (z - z.mean())[:, None], self._outcome, ("z",))
+        return float(res.coef[0]) if res.ok else float("nan")
+
+
+def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
+    """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence."""
+    Z = np.column_stack([np.ones(len(z)), z - z.mean()])
+    theta = np.array([special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6)), 1.0])
+    for _ in range(50):
+        mu = special.expit(Z @ theta)
+        H = (Z * (mu * (1 - mu))[:, None]).T @ Z
+        try:
+            step = np.linalg.solve(H, Z.T @ (y - mu))
+        except np.linalg.LinAlgError:
+            return float("nan")
+        theta = theta + step
+        if np.max(np.abs(step)) < 1e-10:
+            return float(theta[1])
+    return float("nan")
+
+
+def _log_base(on: _Sample, lp_m: np.ndarray, horizon: float, strata_all: np.ndarray | None,
+              n: int) -> tuple[np.ndarray, float]:
+    """log H0_s(h) per stratum label from the Breslow baseline of the rows of ``on`` with
+    linear predictor ``lp_m`` (centred), as a lookup for every row of the sample, and the
+    centre."""
+    centre = float(np.mean(lp_m))
+    base = baseline_cumhaz((lp_m - centre)[:, None], on.time, on.y, [1.0], entry=on.entry,
+                           strata=on.strata, layout=on.layout())
+    h0, _, _ = cumhaz_at(base, strata_all, n, horizon)
+    with np.errstate(divide="ignore"):
+        return np.log(h0), centre
+
+
+def fitted_models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], Model], list[str]]:
+    a, df, x = r.analysis, r.sample.frame, r.x
+    opts = a.continuous
+    notes: list[str] = []
+    models: dict[tuple[str, str], Model] = {}
+    cache: dict[str, np.ndarray] = {}
+    same_adjust: tuple[Term, ...] | None = None
+    for coding in CODINGS:
+        adjust = adjustment_terms(df, a, spec, coding)
+        if same_adjust is None:
+            same_adjust = adjust
+        cands: dict[str, list[tuple[Term, ...]]] = {
+            "legacy": [(r.legacy,)], "linear": [(LinearTerm(a.exposure),)]}
+        if opts.knot_values is not None:
+            cands["spline"] = [(SplineTerm(a.exposure, opts.knot_values),)]
+        else:
+            cands["spline"] = []
+            for k in opts.spline_knots:
+                try:
+                    cands["spline"].append((SplineTerm.at_quantiles(a.exposure, x, k),))
+                except ValueError:
+                    continue
+        for form in FORMS:
+            if (form, coding) not in NEEDED:
+                continue
+            best: Model | None = None
+            same = models.get((form, CODINGS[0]))
+            if coding != CODINGS[0] and same is not None and adjust == same_adjust:
+                models[(form, coding)] = same  # no adjusters coded differently: one model
+                continue
+            for terms in cands[form]:
+                X, names = design(df, x, terms, adjust, cache)
+                res = fit(r.family, X, r.outcome, names)
+                k = sum(len(t.names()) for t in terms)
+                if res.ok and (best is None or res.aic < best.res.aic):
+                    best = Model(form, coding, X, k, terms, adjust, res)
+            if best is None:
+                notes.append(f"{form} with {coding} adjustment did not fit")
+            else:
+                models[(form, coding)] = best
+    return models, notes
+
+
+def _curve(mdl: Model, coef: np.ndarray, family: str) -> Callable[[np.ndarray], np.ndarray]:
+    lo = 1 if family == "binary" else 0
+    b = coef[lo:lo + mdl.k]
+
+    def f(v: np.ndarray) -> np.ndarray:
+        B = np.column_stack([t.basis(np.atleast_1d(v)) for t in mdl.terms])
+        return np.asarray(B @ b, dtype=float)
+
+    return f
+
+
+def _percentiles(values: np.ndarray) -> tuple[float, float]:
+    v = values[np.isfinite(values)]
+    if v.size < 2:
+        return float("nan"), float("nan")
+    lo, hi = np.quantile(v, [0.025, 0.975])
+    return float(lo), float(hi)
+
+
+def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
+    """Bootstrap intervals and optimism-corrected values of C, net benefit and thresholds."""
+    a = r.analysis
+    horizon = horizon_for(a, spec) if r.family == "survival" else None
+    base: dict[str, Any] = {"risk_scale": risk_scale(a, spec).label, "horizon": horizon}
+    B = spec.resampling.bootstrap
+    if r.family not in EVENT_FAMILIES:
+        return _finish([{**base, "status": "skipped", "reason": f"the decision numbers need the "
+                         f"probability of an event (binary or survival); a {r.family} outcome "
+                         "has none"}])
+    if r.family == "survival" and horizon is None:
+        return _finish([{**base, "status": "skipped", "reason": "no horizon for the survival "
+                         "risk: give outcome.horizon or the study-level horizon"}])
+    if B <= 0:
+        return _finish([{**base, "status": "skipped",
+                         "reason": "resampling.bootstrap is 0 (switched off)"}])
+    models, notes = fitted_models(r, spec)
+    o, n = r.outcome, r.outcome.n
+    # the replicates: weights, the refitted coefficients of every model
+    W = resample_weights(spec.rng(a.name, PURPOSE), n, B)
+    keys = list(models)
+    unique = list({id(models[k]): k for k in keys}.values())  # a shared model is refitted once
+    if r.family == "binary":
+        fitted = {k: WeightedGLM("binary", models[k].X, o, models[k].res.coef).coef(W)
+                  for k in unique}
+    else:
+        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o, W)
+        fitted = dict(zip(unique, outs, strict=True))
+    first = {id(models[k]): k for k in unique}
+    coefs = {k: fitted[first[id(models[k])]] for k in keys}
+    full = _Sample(r, np.arange(n), horizon)
+    pt = np.asarray(thresholds_for(a, spec), dtype=float)
+    rules = legacy_rules(r.legacy, r.x)[:1]
+    strata_all = o.strata
+
+    def z_of(k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
+        """Every row's linear predictor on the risk's link scale (log odds; survival the log
+        cumulative hazard at the horizon, baseline from the fitting rows ``fit``)."""
+        X = models[k].X
+        if r.family == "binary":
+            return np.asarray(coef[0] + X @ coef[1:])
+        assert horizon is not None
+        lp = X @ coef
+        log_h0, centre = _log_base(fit, lp[fit.idx], horizon, strata_all, n)
+        z = log_h0 + lp - centre
+        return z if np.all(np.isfinite(z)) else None
+
+    def predictors(coef_by: dict[tuple[str, str], np.ndarray], fit: _Sample,
+                   ) -> dict[int, np.ndarray | None]:
+        """z of every distinct model (by identity) fitted on ``fit``'s rows."""
+        out: dict[int, np.ndarray | None] = {}
+        for k in keys:
+            if id(models[k]) not in out:
+                c = coef_by[k]
+                out[id(models[k])] = z_of(k, c, fit) if np.all(np.isfinite(c)) else None
+        return out
+
+    def risk(z: np.ndarray) -> np.ndarray:
+        return (np.asarray(special.expit(z)) if r.family == "binary"
+                else np.asarray(-np.expm1(-np.exp(z))))
+
+    # what each quantity is in one (model, rows) evaluation
+    def measures(coef_by: dict[tuple[str, str], np.ndarray], zs: dict[int, np.ndarray | None],
+                 fit: _Sample, on: _Sample,
+                 apparent_run: bool = False) -> dict[tuple[Any, ...], float]:
+        out: dict[tuple[Any, ...], float] = {}
+        cixs: dict[int, float] = {}
+        for k in keys:
+            c = coef_by[k]
+            z = zs[id(models[k])]
+            if z is None:
+                continue
+            if id(models[k]) not in cixs:
+                cixs[id(models[k])] = on.c_index(z[on.idx])
+            cix = cixs[id(models[k])]
+            zo = z[on.idx]
+            out[("C index", k)] = cix
+            if k in RISK_MODELS:
+                nb = on.net_benefit(pt, risk=risk(zo)) if pt.size else np.zeros(0)
+                for t, v in zip(pt, nb, strict=True):
+                    out[("net benefit", f"risk: {k[0]}", t)] = float(v)
+                # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
+                out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
+                                                 else on.slope(zo))
+            if k in CURVE_MODELS:
+                f = _curve(models[k], c, r.family)
+                rest = float(np.median((z - f(r.x))[fit.idx]))
+                lo_x, hi_x = float(r.x.min()), float(r.x.max())
+                for t in pt:
+                    found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
+                    out[("crossings", k, t)] = float(len(found))
+                    for j, (xv, _d) in enumerate(found, start=1):
+                        out[("implied threshold", k, t, j)] = xv
+        for coding in CODINGS:
+            s = out.get(("C index", ("spline", coding)))
+            g = out.get(("C index", ("legacy", coding)))
+            if s is not None and g is not None:
+                out[("delta C", coding)] = s - g
+        for name, mask in rules:
+            for t, v in zip(pt, on.net_benefit(pt, positive=mask[on.idx]), strict=True):
+                out[("net benefit", name, t)] = float(v)
+        for t, v in zip(pt, on.net_benefit(pt, positive=np.ones(len(on.idx), dtype=bool)),
+                        strict=True):
+            out[("net benefit", "treat all", t)] = float(v)
+        return out
+
+    everything = np.arange(n)
+    own = {k: models[k].res.coef for k in keys}
+    apparent = measures(own, predictors(own, full), full, full, apparent_run=True)
+    boot: list[dict[tuple[Any, ...], float]] = []
+    test: list[dict[tuple[Any, ...], float]] = []
+    for b in range(B):
+        drawn = _Sample(r, np.repeat(everything, W[b].astype(np.int64)), horizon)
+        cb = {k: coefs[k][b] for k in keys}
+        zs = predictors(cb, drawn)
+        boot.append(measures(cb, zs, drawn, drawn))
+        test.append(measures(cb, zs, drawn, full))
+    q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
+    rows: list[dict[str, Any]] = []
+    note = " | ".join(notes)
+    for key, est in apparent.items():
+        kind = key[0]
+        if kind == "crossings":
+            continue
+        row: dict[str, Any] = {**base, "quantity": kind, "estimate": est, "status": "ok",
+                               "reason": "", "note": note}
+        if kind in ("C index", "calibration slope"):
+            row.update(model=key[1][0], adjustment=key[1][1])
+        elif kind == "delta C":
+            row.update(model="spline - legacy", adjustment=key[1])
+        elif kind == "net benefit":
+            row.update(rule=key[1], threshold=key[2])
+            if key[1].startswith("risk: "):
+                mk = next(k for k in RISK_MODELS if key[1] == f"risk: {k[0]}")
+                row.update(model=mk[0], adjustment=mk[1])
+        else:  # implied threshold
+            k, t, j = key[1], key[2], key[3]
+            row.update(model=k[0], adjustment=k[1], threshold=t, crossing=j,
+                       exposure_p01=q01, exposure_p99=q99,
+                       beyond_central_range=float(not q01 <= est <= q99))
+        if kind == "implied threshold":
+            n_full = apparent[("crossings", key[1], key[2])]
+            same = [bt.get(key, np.nan) for bt in boot
+                    if bt.get(("crossings", key[1], key[2])) == n_full]
+            vals = np.asarray(same, dtype=float)
+            row["replicates_matched"] = int(np.isfinite(vals).sum())
+            row["lower"], row["upper"] = _percentiles(vals)
+            row["computed_by"] = "percentile bootstrap over replicates with as many crossings"
+        else:
+            vals = np.asarray([bt.get(key, np.nan) for bt in boot], dtype=float)
+            row["lower"], row["upper"] = _percentiles(vals)
+            diffs = np.asarray([bt.get(key, np.nan) - tt.get(key, np.nan)
+                                for bt, tt in zip(boot, test, strict=True)], dtype=float)
+            ok = np.isfinite(diffs)
+            opt = float(diffs[ok].mean()) if ok.any() else float("nan")
+            if kind == "net benefit" and not str(row["rule"]).startswith("risk: "):
+                opt = 0.0  # a fixed rule (treat all, the legacy cut) is not fitted
+            if kind == "calibration slope":  # 1 in every bootstrap sample: no interval
+                row["lower"] = row["upper"] = float("nan")
+            row.update(apparent=est, optimism=opt, corrected=est - opt)
+            row["computed_by"] = "percentile bootstrap; Harrell's optimism correction"
+            vals = diffs
+        row["bootstrap_ok"] = int(np.isfinite(vals).sum())
+        row["bootstrap_failed"] = B - row["bootstrap_ok"]
+        rows.append(row)
+    if not rows:
+        rows.append({**base, "status": "failed", "reason": note or "no model could be fitted"})
+    return _finish(rows)
+
+
+def _finish(rows: list[dict[str, Any]]) -> pd.DataFrame:
+    """The rows in :data:`COLUMNS` order with the caution, text as str, counts as Int64."""
+    out = pd.DataFrame(rows)
+    for c in COLUMNS:
+        if c not in out:
+            out[c] = np.nan
+    out = out[list(COLUMNS)].copy()
+    out["caution"] = CAUTION
+    for c in COLUMNS:
+        if c in TEXT:
+            out[c] = out[c].fillna("").astype(str)
+        elif c in COUNTS:
+            out[c] = pd.array([None if v is None or pd.isna(v) else int(v) for v in out[c]],
+                              dtype="Int64")
+        elif c == "beyond_central_range":
+            out[c] = pd.array([None if pd.isna(v) else bool(v) for v in out[c]],
+                              dtype="boolean")
+        else:
+            out[c] = out[c].astype(float)
+    return out
