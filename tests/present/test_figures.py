@@ -397,7 +397,7 @@ def test_curve_alt_states_the_table_values() -> None:
     assert f"linear from {st.fmt_ratio(first)} at 0.5 mg to {st.fmt_ratio(last)} at 4.5 mg" in alt
     assert f"0.5–2 mg: {st.fmt_ratio(np.exp(0.5))} ({st.fmt_ratio(np.exp(0.3))} to " \
            f"{st.fmt_ratio(np.exp(0.7))})" in alt
-    assert "2–4.5 mg: 1 (reference group)" in alt
+    assert f"2–4.5 mg: {st.fmt_ratio(1.0)} (reference group)" in alt
     assert "(largest bar 120 rows); 1 small bin(s) hidden." in alt
 
 

@@ -329,7 +329,8 @@ def test_no_usable_follow_up_fails_the_analysis_naming_the_step(tmp_path: Path) 
     assert status["message"].startswith(
         "only 0 rows are left after filters, complete cases and follow-up checks (most were "
         f"dropped by 'non-positive follow-up (years <= 0)': {N} rows)")
-    assert set(tables) == {"samples", "status"}  # no fit tables from a failed analysis
+    # no fit tables from a failed analysis; the missingness table says what the sample lost
+    assert set(tables) == {"missingness", "samples", "status"}
 
 
 def test_events_coded_only_zero_fail_the_analysis(tmp_path: Path) -> None:

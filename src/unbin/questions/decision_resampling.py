@@ -60,6 +60,7 @@ from ..models.discrimination import auc
 from ..models.weighted import WeightedGLM, resample_weights, weighted_cox_designs
 from ..refit.analysis import Refit, adjustment_terms, design
 from ..refit.risk import cumhaz_at, horizon_for, link, risk_scale
+from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import LinearTerm, SplineTerm, Term
 from .decisions import CAUTION, EVENT_FAMILIES, thresholds_for
@@ -255,6 +256,8 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
     if B <= 0:
         return _finish([{**base, "status": "skipped",
                          "reason": "resampling.bootstrap is 0 (switched off)"}])
+    if bootstrap_reason(a):
+        return _finish([{**base, "status": "skipped", "reason": bootstrap_reason(a)}])
     models, notes = fitted_models(r, spec)
     o, n = r.outcome, r.outcome.n
     # the replicates: weights, the refitted coefficients of every model

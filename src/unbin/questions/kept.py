@@ -44,6 +44,7 @@ from ..refit.analysis import (
     design,
     test_spline_term,
 )
+from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import Term
 
@@ -225,6 +226,11 @@ def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
     ``information`` table's) and its percentile interval over the bootstrap replicates."""
     replicates = spec.resampling.bootstrap
     rows, models, ok_rows = _point_rows(r, spec)
+    if bootstrap_reason(r.analysis):
+        for row in rows:
+            if row["status"] == "ok":
+                row.update(status="skipped", message=bootstrap_reason(r.analysis))
+        return pd.DataFrame(rows, columns=list(COLUMNS))
     if replicates <= 0:
         for row in rows:
             if row["status"] == "ok":

@@ -38,6 +38,19 @@ def absolute_risk_reason(a: Analysis) -> str:
     return ""
 
 
+def bootstrap_reason(a: Analysis) -> str:
+    """Why the row-resampling bootstrap refits (``information_bootstrap``,
+    ``decision_resampling``) do not apply to this design ('' when they do): they refit the
+    ordinary likelihood on resampled single rows, not Firth's penalty or matched sets."""
+    if a.design.firth:
+        return ("the fits are Firth-penalised and the bootstrap refits are not; no interval is "
+                "computed")
+    if a.design.matched_set:
+        return ("the bootstrap resamples single rows, not matched sets; no interval is "
+                "computed")
+    return ""
+
+
 def marginal_reason(a: Analysis) -> str:
     """Why the marginal (g-computation) and bootstrap comparison of the confounding table is
     not computed for this design ('' when it is)."""
