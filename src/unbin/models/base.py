@@ -34,6 +34,10 @@ class Outcome:
     cluster: np.ndarray | None = None
     # Count outcomes: "poisson", "quasi-poisson" (Pearson scale) or "negative-binomial" (NB2).
     dispersion: str = "poisson"
+    # Survival with competing events: every row's cause code (0 censored) and the code of the
+    # event of interest; ``y`` is then the indicator of the event of interest (cause-specific).
+    cause: np.ndarray | None = None
+    event_of_interest: int = 1
     cache: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
@@ -55,6 +59,8 @@ class Outcome:
             weight_kind=self.weight_kind,
             cluster=pick(self.cluster),
             dispersion=self.dispersion,
+            cause=pick(self.cause),
+            event_of_interest=self.event_of_interest,
         )
 
 

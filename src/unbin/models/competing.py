@@ -75,8 +75,10 @@ def step_at(times: np.ndarray, values: np.ndarray, at: np.ndarray | float,
             before: bool = False) -> np.ndarray:
     """A right-continuous step function through (times, values), 0 before the first time, read
     at ``at`` (``before``: its left limit, the value just before ``at``)."""
-    pos = np.searchsorted(times, np.asarray(at, dtype=float),
-                          side="left" if before else "right") - 1
+    at_ = np.asarray(at, dtype=float)
+    if len(times) == 0:
+        return np.zeros(at_.shape)
+    pos = np.searchsorted(times, at_, side="left" if before else "right") - 1
     return np.where(pos >= 0, np.asarray(values)[np.maximum(pos, 0)], 0.0)
 
 

@@ -61,6 +61,10 @@ def interaction_model(r: Refit, levels: Levels,
     LR test."""
     if not levels.active:
         return None, InteractionTest(reason=levels.note or "no effect modifier")
+    if r.outcome.cause is not None:
+        return None, InteractionTest(reason="with competing events the risk comes from "
+                                            "Fine–Gray models; the spline x level model's is "
+                                            "not computed")
     lm = level_models(r)
     m = lm.get(SPLINE, "continuous")
     if m is None:
