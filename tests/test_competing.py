@@ -17,6 +17,8 @@ from unbin.errors import SpecError
 from unbin.models.base import Outcome
 from unbin.models.competing import aalen_johansen, fine_gray_data, fit_fine_gray, step_at
 from unbin.questions.net_benefit import net_benefit_table
+from unbin.questions.subdistribution import COLUMNS as SUB_COLUMNS
+from unbin.questions.subdistribution import subdistribution_table
 from unbin.refit.analysis import Refit, refit_analysis
 from unbin.refit.risk import fine_gray_fit, from_result, risk_fit, risk_scale
 from unbin.spec import Spec, parse_spec
@@ -297,3 +299,25 @@ def test_event_codes_outside_the_declared_ones_are_named(tmp_path: Path) -> None
                for p in problems), problems
     ok = parse_spec(_cr_raw({**COMPETING, "competing": [2, 3]}), base=tmp_path)
     assert not [p for p in data_problems(ok) if "outcome.event" in p]
+
+
+def test_subdistribution_table_recovers_the_simulated_ratio() -> None:
+    # Fine & Gray's design (log SHR 0.05 per unit of x): the linear form's group contrast is
+    # within 3 SE of 0.05 (x_value - x_reference); its cause-specific ratio is lifelines'
+    # CoxPHFitter coefficient (competing events censored) times the same distance
+    df = _cr_frame(n=2000, seed=9)
+    spec, r = _cr_refit(df, COMPETING)
+    tab = subdistribution_table(r, spec)
+    assert list(tab.columns) == list(SUB_COLUMNS)
+    row = tab[(tab["form"] == "linear") & (tab["adjustment"] == "legacy")].iloc[0]
+    dx = row["x_value"] - row["x_reference"]
+    assert abs(row["estimate"] - 0.05 * dx) < 3 * row["se"]
+    cs = df.assign(d=(df["ev"] == 1).astype(int))
+    ref = CoxPHFitter().fit(cs[["t", "d", "x", "z"]], "t", "d")
+    assert np.log(row["cs_effect"]) == pytest.approx(ref.params_["x"] * dx, rel=1e-5)
+    assert row["events"] == int((df["ev"] == 1).sum())
+    assert set(tab["status"]) == {"ok"}
+    # an analysis without competing events gives an empty table with its columns
+    _, plain = _cr_refit(df.assign(ev=(df["ev"] == 1).astype(int)),
+                         {"type": "survival", "event": "ev", "time": "t", "horizon": 1.0})
+    assert subdistribution_table(plain, spec).empty

@@ -28,6 +28,7 @@ QUESTION_TABLES: dict[str, str] = {
     "net_benefit": "questions.net_benefit:net_benefit_table",
     "hazards": "questions.hazards:hazards_table",
     "windows": "questions.windows:windows_table",
+    "subdistribution": "questions.subdistribution:subdistribution_table",
 }
 # Questions whose cost is resampling (bootstrap, permutations): a workflow job of their own per
 # (cohort, analysis), so they spread over cores or a cluster beside the fits. They need the
