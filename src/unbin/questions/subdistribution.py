@@ -11,7 +11,7 @@ ratio of the same contrast from the analysis' own Cox fit (competing events cens
 answer different questions: the cause-specific ratio is about the rate of the event among
 those still free of any event; the subdistribution ratio is about the cumulative incidence
 (who has had the event by a time), which the risk at the horizon, the implied thresholds and
-the net benefit use. Counts of events below ``min_cell`` are suppressed."""
+the net benefit use (Putter, Fiocco & Geskus 2007). Counts of events below ``min_cell`` are suppressed."""
 
 from __future__ import annotations
 
