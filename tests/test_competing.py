@@ -349,3 +349,23 @@ def test_demo_survival_analysis_has_competing_deaths_and_a_fading_effect(demo_ou
     sub = rows("subdistribution")
     assert set(sub["form"]) == {"legacy", "linear", "spline", "fp"}
     assert (sub["status"] == "ok").all() and (sub["competing_events"] > 0).all()
+
+
+def test_a_fine_gray_model_that_fails_is_recorded_not_raised(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    # error path: every Fine–Gray fit fails; the decision tables name it per model and go on
+    import unbin.models.competing as competing
+    from unbin.models.base import failed_fit
+
+    def failing(X: np.ndarray, outcome: Outcome, cause: np.ndarray, interest: int,
+                names: tuple[str, ...]):  # type: ignore[no-untyped-def]
+        return failed_fit("survival", names, outcome.n, 0, "singular information (simulated)")
+
+    monkeypatch.setattr(competing, "fit_fine_gray", failing)
+    df = _cr_frame(n=400)
+    spec, r = _cr_refit(df, COMPETING)
+    nb = net_benefit_table(r, spec)
+    bad = nb[nb["status"] == "failed"]
+    assert set(bad["model"]) == {"legacy", "linear"}
+    assert bad["reason"].str.contains("singular information").all()
+    assert (nb.loc[nb["rule"] == "treat all", "status"] == "ok").all()
