@@ -31,7 +31,7 @@ CHECKS_DIR = Path(__file__).resolve().parent / "checks"
 # Replicates per check by default: 2,000 (a Monte-Carlo SE of 0.005 at a 5% rate), except the
 # confounding check (1,000), each of whose replicates is itself a 200-replicate bootstrap.
 DEFAULT_REPLICATES = 2000
-REPLICATES = {"confounding": 1000}
+REPLICATES = {"confounding": 1000, "fine_gray": 1000}
 
 
 def available() -> list[str]:
@@ -70,7 +70,7 @@ def _flatten(prefix: str, value: Any) -> list[tuple[str, Any]]:
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--replicates", type=int, default=None,
-                        help="replicates per simulation (default 2000; 1000 for confounding)")
+                        help="replicates per simulation (default 2000; 1000 for confounding and fine_gray)")
     parser.add_argument("--seed", type=int, default=20261203, help="base seed")
     parser.add_argument("--only", action="append", choices=available(),
                         help="run only this check (repeatable)")

@@ -9,10 +9,14 @@ with:
 - ``readmission_sodium`` (binary): 30-day readmission is U-shaped in serum sodium (lowest risk at
   140 mmol/L); the legacy analysis used three clinical groups (<135, 135-<145, >=145).
 - ``death_egfr`` (survival on the time-on-study scale, from the registry's dates of
-  diagnosis, recruitment (delayed entry) and exit; strata by centre): the log hazard rises linearly as
-  kidney function falls below 60 and is flat above (an elbow); the legacy analysis split eGFR at
-  60. Age confounds it strongly (older people have lower eGFR and die sooner) and the legacy
-  analysis adjusted for age in decades — residual confounding.
+  diagnosis, recruitment (delayed entry) and exit; strata by centre): the cause-specific log
+  hazard of cardiorenal death rises linearly as kidney function falls below 60 and is flat
+  above (an elbow); the legacy analysis split eGFR at 60. The elbow's effect fades: from
+  :data:`EGFR_FADE_AFTER` years on it is :data:`EGFR_FADE` times as large (the analysis' follow-up
+  windows show it). Death from other causes competes (``death_cause`` 2; its hazard rises with
+  age, not with eGFR), so the risk at the horizon is a cumulative incidence. Age confounds it
+  strongly (older people have lower eGFR and die sooner) and the legacy analysis adjusted for
+  age in decades — residual confounding.
 - ``visits_bmi`` (count, person-years offset): the clinic-visit rate is log-linear in BMI;
   people are clustered in general practices (``practice``), so its variances are cluster-robust.
 - ``sbp_urate`` (continuous): systolic pressure rises linearly with serum urate, more steeply
@@ -59,8 +63,14 @@ def true_logodds_sodium(na: np.ndarray) -> np.ndarray:
 
 
 def true_loghr_egfr(egfr: np.ndarray) -> np.ndarray:
-    """Elbow: +0.04 per mL/min/1.73m2 below 60, flat above."""
-    return 0.04 * np.clip(60.0 - egfr, 0.0, None)
+    """Elbow: +0.05 per mL/min/1.73m2 below 60, flat above (the cause-specific log hazard
+    ratio of cardiorenal death before :data:`EGFR_FADE_AFTER` years; times :data:`EGFR_FADE`
+    after)."""
+    return 0.05 * np.clip(60.0 - egfr, 0.0, None)
+
+
+EGFR_FADE_AFTER = 5.0  # years on study: the eGFR effect fades from here on
+EGFR_FADE = 0.25  # the share of the early log hazard ratio that remains later
 
 
 TRUE_VISITS_PER_BMI = 0.04  # log rate ratio per kg/m2
@@ -122,16 +132,26 @@ def simulate_registry(n: int = DEMO_ROWS, seed: int = DEMO_SEED,
     lo = -2.3 + true_logodds_sodium(sodium) + 0.02 * (age - 63) + 0.5 * diabetes
     readmit = (rng.random(n) < 1 / (1 + np.exp(-lo))).astype(int)
 
-    # Survival: Weibull-ish hazard with age as a strong confounder, delayed entry, censoring.
-    lin = true_loghr_egfr(egfr) + 0.07 * (age - 63) + 0.3 * sex + 0.1 * (centre - 2.5)
-    t_event = rng.exponential(1.0, n) / (0.03 * np.exp(lin))
+    # Survival: cardiorenal death with age as a strong confounder and an eGFR effect that
+    # fades after EGFR_FADE_AFTER years (piecewise-constant hazard, drawn by inverting its
+    # cumulative hazard), death from other causes competing, delayed entry, censoring.
+    rest = 0.07 * (age - 63) + 0.3 * sex + 0.1 * (centre - 2.5)
+    early = 0.05 * np.exp(rest + true_loghr_egfr(egfr))
+    late = 0.05 * np.exp(rest + EGFR_FADE * true_loghr_egfr(egfr))
+    draw = rng.exponential(1.0, n)
+    t_event = np.where(draw < early * EGFR_FADE_AFTER, draw / early,
+                       EGFR_FADE_AFTER + (draw - early * EGFR_FADE_AFTER) / late)
     entry = np.round(rng.uniform(0, 2.0, n), 2)
     censor = entry + rng.uniform(2, 10, n)
-    time = np.minimum(t_event, censor)
-    died = (t_event <= censor).astype(int)
+    # other causes: a generator of their own, so the draws above stay as they were
+    t_other = (np.random.default_rng([seed, 11]).exponential(1.0, n)
+               / (0.012 * np.exp(0.06 * (age - 63))))
+    time = np.minimum(np.minimum(t_event, t_other), censor)
+    cause = np.where(time == censor, 0, np.where(t_event <= t_other, 1, 2))
     keep_surv = time > entry + 0.01  # people who died before entering the registry never enter
     time = np.where(keep_surv, time, np.nan).round(3)
-    died = np.where(keep_surv, died, 0)
+    cause = np.where(keep_surv, cause, 0)
+    died = (cause > 0).astype(int)
 
     pyears = np.round(rng.uniform(0.5, 5.0, n), 2)
     rate = 1.2 * np.exp(TRUE_VISITS_PER_BMI * (bmi - 27) + 0.01 * (age - 63) + 0.3 * diabetes)
@@ -144,7 +164,9 @@ def simulate_registry(n: int = DEMO_ROWS, seed: int = DEMO_SEED,
         "patient_id": np.arange(1, n + 1), "centre": centre, "age": age, "sex": sex,
         "diabetes": diabetes, "bmi": bmi, "sodium": sodium, "egfr": egfr, "urate": urate,
         "readmit30": readmit, "entry_years": entry, "followup_years": time,
-        "died": np.where(np.isnan(time), np.nan, died), "visits": visits, "person_years": pyears,
+        "died": np.where(np.isnan(time), np.nan, died),
+        "death_cause": np.where(np.isnan(time), np.nan, cause), "visits": visits,
+        "person_years": pyears,
         "sbp": sbp,
     })
     # A little missingness, as in any registry extract.
@@ -191,6 +213,7 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
             "urate": {"label": "Serum urate", "unit": "mg/dL"},
             "age": {"label": "Age", "unit": "years"},
             "followup_years": {"unit": "years"},  # the horizon reads "within 5 years"
+            "death_cause": {"label": "Cause of death (1 cardiorenal, 2 other)"},
             "centre": {"type": "categorical"},
             "practice": {"label": "General practice"},
         },
@@ -211,8 +234,10 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
             {"name": "death_egfr",
              # time on study from the registry's dates: from diagnosis, at risk from
              # recruitment (delayed entry) to death or censoring; the horizon is 5 years on
-             # that scale
-             "outcome": {"type": "survival", "event": "died",
+             # that scale; death from other causes (code 2) competes with cardiorenal death
+             # (1), and the eGFR effect is read per follow-up window (before and after 5 years)
+             "outcome": {"type": "survival", "event": "death_cause",
+                         "event_of_interest": 1, "competing": [2], "follow_up_windows": [5],
                          "time": {"start": "diagnosed_on", "entry": "recruited_on",
                                   "end": "exit_on", "unit": "years"},
                          "time_scale": "on_study", "horizon": 5},

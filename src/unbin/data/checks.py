@@ -124,7 +124,9 @@ def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
         if s.notna().sum() == 0:
             problems.append(f"column {col!r} ({role}) is missing in every row; check the extract.")
             continue
-        if role == "outcome.event":
+        if role == "outcome.event" and a.outcome.has_competing:
+            problems += event_code_problems(col, s, a)
+        elif role == "outcome.event":
             vals = set(np.unique(s.dropna()))
             if not vals <= {0.0, 1.0}:
                 shown = ", ".join(f"{float(v):g}" for v in sorted(vals)[:6])
@@ -136,6 +138,20 @@ def _type_problems(a: Analysis, df: pd.DataFrame, spec: Spec) -> list[str]:
             problems.append(f"column {col!r} (exposure) is constant ({s.dropna().iloc[0]:g}); "
                             "there is nothing to refit.")
     return problems
+
+
+def event_code_problems(col: str, s: pd.Series, a: Analysis) -> list[str]:
+    """A competing-risks event column holds only 0 (censored), the event of interest and the
+    competing codes."""
+    o = a.outcome
+    allowed = {0.0, float(o.event_of_interest), *(float(c) for c in o.competing)}
+    vals = set(np.unique(s.dropna()))
+    if vals <= allowed:
+        return []
+    other = ", ".join(f"{float(v):g}" for v in sorted(vals - allowed)[:6])
+    return [f"column {col!r} (outcome.event) holds codes {other} that are neither 0 (censored), "
+            f"the event of interest ({o.event_of_interest}) nor competing ({list(o.competing)}); "
+            "add them to outcome.competing or recode them."]
 
 
 def date_problems(a: Analysis, df: pd.DataFrame, date_format: str | None = None) -> list[str]:

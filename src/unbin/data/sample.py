@@ -87,9 +87,10 @@ def _followup(out: pd.DataFrame, o: OutcomeSpec, date_format: str | None
         out, start, end = out[~bad], start[~bad], end[~bad]
         if f.study_end:
             stop = pd.Timestamp(f.study_end)
-            late = (out[o.event] == 1) & (end > stop)
+            late = (out[o.event].fillna(0) != 0) & (end > stop)  # any cause's event, when competing
             steps.append((f"event after the study end ({f.end} > {f.study_end} with "
-                          f"{o.event} = 1)", int(late.sum())))
+                          f"{o.event} {'not 0' if o.has_competing else '= 1'})",
+                          int(late.sum())))
             out, start, end = out[~late], start[~late], end[~late]
             end = end.where(end <= stop, stop)  # later censoring dates: censored at the end
         per_unit = pd.Timedelta(days=1) * DAYS_PER_UNIT[f.unit]

@@ -38,6 +38,10 @@ class Outcome:
     # ``strata`` set, a binary outcome is a matched design (conditional logistic regression,
     # unbin.models.matched).
     penalty: str = "none"
+    # Survival with competing events: every row's cause code (0 censored) and the code of the
+    # event of interest; ``y`` is then the indicator of the event of interest (cause-specific).
+    cause: np.ndarray | None = None
+    event_of_interest: int = 1
     cache: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
@@ -60,6 +64,8 @@ class Outcome:
             cluster=pick(self.cluster),
             dispersion=self.dispersion,
             penalty=self.penalty,
+            cause=pick(self.cause),
+            event_of_interest=self.event_of_interest,
         )
 
 

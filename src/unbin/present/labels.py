@@ -43,6 +43,10 @@ COLUMNS: dict[str, str] = {
     "within_p10": "spline in group, 10th pct", "within_p90": "spline in group, 90th pct",
     "by_level": "level", "in_range": "in range", "bin_left": "bin from", "bin_right": "bin to",
     "count": "count", "suppressed": "suppressed",
+    # subdistribution (competing events)
+    "cs_effect": "cause-specific HR", "cs_effect_lower": "cause-specific HR, lower",
+    "cs_effect_upper": "cause-specific HR, upper", "competing_events": "competing events",
+    "expanded_rows": "rows after expansion",
     # pooled
     "method": "pooling", "k": "cohorts (k)", "cohorts": "cohorts", "groups": "groups",
     "pi_lower": "prediction, lower", "pi_upper": "prediction, upper",

@@ -30,6 +30,7 @@ QUESTION_TABLES: dict[str, str] = {
     "windows": "questions.windows:windows_table",
     "as_published": "questions.as_published:as_published_table",
     "calibration": "questions.calibration:calibration_table",
+    "subdistribution": "questions.subdistribution:subdistribution_table",
 }
 # Questions whose cost is resampling (bootstrap, permutations): a workflow job of their own per
 # (cohort, analysis), so they spread over cores or a cluster beside the fits. They need the

@@ -78,6 +78,8 @@ from ..spec import Spec
 from ..terms import GroupedTerm, LinearTerm, Term
 
 TABLE = "confounding"
+CAUSE_SPECIFIC = ("with competing events these risks are one minus the cause-specific "
+                  "survival (competing events censored), not the cumulative incidence")
 
 
 @dataclass
@@ -135,6 +137,9 @@ class _Designs:
                     out, self.notes[key] = cox_risks(it.X, it.k, it.res.coef, it.at, o.time, o.y,
                                                      self.horizon, entry=o.entry,
                                                      strata=o.strata, layout=cox_layout(o))
+                    if o.cause is not None:  # competing events: cause-specific, stated
+                        self.notes[key] = "; ".join(v for v in (self.notes[key], CAUSE_SPECIFIC)
+                                                    if v)
                 else:
                     out = glm_means(self.r.family, it.X, it.k, it.res.coef, it.at,
                                     np.ones((1, o.n)), o.offset)[0]

@@ -62,6 +62,10 @@ def interaction_model(r: Refit, levels: Levels,
     LR test."""
     if not levels.active:
         return None, InteractionTest(reason=levels.note or "no effect modifier")
+    if r.outcome.cause is not None:
+        return None, InteractionTest(reason="with competing events the risk comes from "
+                                            "Fine–Gray models; the spline x level model's is "
+                                            "not computed")
     lm = level_models(r)
     m = lm.get(SPLINE, "continuous")
     if m is None:
@@ -135,16 +139,24 @@ def _build(r: Refit, spec: Spec) -> Decisions:
         if not f.result.ok:
             failed.append((form, "continuous", f.result.message))
             continue
-        curves.append(risk_fit(r, f, scale))
+        try:
+            curves.append(risk_fit(r, f, scale))
+        except ValueError as exc:  # a competing-risks (Fine–Gray) model that did not fit
+            failed.append((form, "continuous", str(exc)))
     inter, test = interaction_model(r, levels, scale)
     if inter is not None:
         curves.append(inter)
     elif test.status == "failed":
         failed.append((f"spline x {levels.variable}", "continuous", test.reason))
     lf = r.get("legacy", "legacy")
-    legacy = risk_fit(r, lf, scale) if lf is not None and lf.result.ok else None
+    legacy, message = None, lf.result.message if lf is not None else ""
+    if lf is not None and lf.result.ok:
+        try:
+            legacy = risk_fit(r, lf, scale)
+        except ValueError as exc:
+            message = str(exc)
     if lf is not None and legacy is None:
-        failed.append(("legacy", "legacy", lf.result.message))
+        failed.append(("legacy", "legacy", message))
     return Decisions(scale, thresholds, levels, tuple(curves), legacy, tuple(failed), test)
 
 

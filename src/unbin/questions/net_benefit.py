@@ -6,7 +6,10 @@ the side away from the reference group) and the risk rules of the fitted models 
 NB = TP/n - FP/n * p_t/(1-p_t). Survival outcomes, at the horizon, with Kaplan-Meier estimates
 (Vickers, Cronin, Elkin & Gonen 2008, BMC Med Inform Decis Mak 8:53):
 NB = (1 - S(h | positive)) P(positive) - S(h | positive) P(positive) p_t/(1-p_t); the
-Kaplan-Meier estimate honours delayed entry and ignores strata. Count and continuous outcomes
+Kaplan-Meier estimate honours delayed entry and ignores strata. With competing events the
+event probability is the Aalen–Johansen cumulative incidence F(h | positive) in place of
+1 - S(h | positive) (net benefit under competing risks; Aalen & Johansen 1978 for the estimate).
+Count and continuous outcomes
 have no event probability, so no net benefit (a row says so). The risk rules are evaluated on
 the rows their models were fitted to: apparent net benefit, optimistic for a fitted model.
 """
@@ -85,14 +88,25 @@ def km_survival(time: np.ndarray, event: np.ndarray, horizon: float,
     return float(np.prod(1.0 - d / at_risk))
 
 
+def cif_at(time: np.ndarray, cause: np.ndarray, event_of_interest: int, horizon: float,
+           entry: np.ndarray | None = None) -> float:
+    """The Aalen–Johansen cumulative incidence of ``event_of_interest`` at ``horizon``."""
+    from ..models.competing import aalen_johansen, step_at
+
+    aj = aalen_johansen(time, cause, event_of_interest, entry=entry)
+    return float(step_at(aj["time"].to_numpy(), aj["cif"].to_numpy(), horizon))
+
+
 def net_benefit_km(time: np.ndarray, event: np.ndarray, entry: np.ndarray | None,
                    positive: np.ndarray, horizon: float,
                    thresholds: np.ndarray, risk: np.ndarray | None = None,
+                   cause: np.ndarray | None = None, event_of_interest: int = 1,
                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Survival outcome at ``horizon``: (NB, (1 - S+) P+, S+ P+) per threshold (Vickers et al.
     2008), ``positive`` of shape (n,) or (thresholds, n); with ``risk`` (n,), the rules "treat
     when risk >= p_t" instead (``positive`` is then ignored; one row mask at a time). A rule
-    treating nobody has NB 0."""
+    treating nobody has NB 0. With ``cause`` (competing events), S+ is one minus the
+    Aalen–Johansen cumulative incidence of ``event_of_interest`` among the treated."""
     pos = np.broadcast_to(np.asarray(positive, dtype=bool), (len(thresholds), len(time)))
     tp = np.zeros(len(thresholds))
     fp = np.zeros(len(thresholds))
@@ -104,8 +118,10 @@ def net_benefit_km(time: np.ndarray, event: np.ndarray, entry: np.ndarray | None
             continue
         key = np.packbits(mask).tobytes()
         if key not in cache:
-            s = km_survival(time[mask], event[mask], horizon,
-                            None if entry is None else entry[mask])
+            sub_entry = None if entry is None else entry[mask]
+            s = (km_survival(time[mask], event[mask], horizon, sub_entry) if cause is None
+                 else 1.0 - cif_at(time[mask], cause[mask], event_of_interest, horizon,
+                                   sub_entry))
             cache[key] = ((1.0 - s) * share, s * share)
         tp[g], fp[g] = cache[key]
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
@@ -165,16 +181,18 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
             return out if prevalence is None else reweighted(out[1], out[2], y, prevalence, pt)
     else:
         assert o.time is not None and d.scale.horizon is not None
-        method = f"Kaplan-Meier at {d.scale.horizon:g}"
+        estimator = "Kaplan-Meier" if o.cause is None else "Aalen-Johansen"
+        method = f"{estimator} at {d.scale.horizon:g}"
         h = d.scale.horizon
         time, entry = np.asarray(o.time, dtype=float), o.entry
         if h > time.max():
             held = (f"the horizon {h:g} is past the longest follow-up ({time.max():g}): "
-                    "Kaplan-Meier held at its last value")
+                    f"{estimator} held at its last value")
 
         def nb(positive: np.ndarray, risk: np.ndarray | None = None,
                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-            return net_benefit_km(time, y, entry, positive, h, pt, risk)
+            return net_benefit_km(time, y, entry, positive, h, pt, risk, o.cause,
+                                  o.event_of_interest)
 
     # (rule, kind, model, adjustment, who is treated: a row mask, or the risk of each row for
     # the rules "treat when risk >= p_t" at every p_t, note)

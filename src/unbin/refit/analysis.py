@@ -133,9 +133,13 @@ def build_outcome(sample: Sample, a: Analysis) -> Outcome:
     strata = None
     if a.strata:
         strata = df.groupby(list(a.strata), sort=True).ngroup().to_numpy()
-    return Outcome("survival", df[o.event].to_numpy(float), time=df[o.time].to_numpy(float),
+    event = df[o.event].to_numpy(float)
+    cause = event if o.has_competing else None  # competing events: censored in y
+    return Outcome("survival", (event == o.event_of_interest).astype(float) if o.has_competing
+                   else event, time=df[o.time].to_numpy(float),
                    entry=df[o.entry].to_numpy(float) if o.entry else None, strata=strata,
-                   weights=w, weight_kind=kind, cluster=cl,
+                   weights=w, weight_kind=kind, cluster=cl, cause=cause,
+                   event_of_interest=o.event_of_interest,
                    penalty="firth" if a.design.firth else "none")
 
 

@@ -6,6 +6,13 @@ Every family's prediction is an inverse link of one linear predictor ``z``:
 - survival: the risk of the event by the horizon, ``1 - exp(-H0_s(h) exp(X b))``, i.e.
   ``1 - exp(-exp(z))`` with ``z = log H0_s(h) + X b`` (Breslow baseline of the row's stratum
   ``s`` from :func:`unbin.models.cox.baseline_cumhaz`, read as a step function at the horizon ``h``);
+  with competing events (``outcome.competing``) the risk is the cumulative incidence of the
+  event of interest by the horizon from the Fine–Gray model of the same design (same exposure
+  form, same adjusters), ``1 - exp(-Lambda0_s(h) exp(X b))`` with the subdistribution
+  hazard's coefficients and baseline (:mod:`unbin.models.competing`; Fine & Gray 1999), so
+  ``z = log Lambda0_s(h) + X b`` with the Fine–Gray ``b``: the same inverse link, a different
+  model. (One minus the cause-specific model's survival would overstate the risk: the
+  competing events remove people before they can have the event of interest.)
 - count: the expected number of events per one unit of person-time, ``exp(z)`` with
   ``z = intercept + X b`` (the log person-time offset left out);
 - continuous: the predicted mean, ``z`` itself (a "threshold" is then one on the mean).
@@ -66,6 +73,11 @@ def risk_scale(a: Analysis, spec: Spec) -> RiskScale:
     if o.type == "survival":
         h = horizon_for(a, spec)
         when = " ".join(v for v in (f"{h:g}" if h is not None else "", _unit(spec, o.time)) if v)
+        if o.has_competing:
+            codes = ", ".join(str(c) for c in o.competing)
+            return RiskScale("survival", f"cumulative incidence of {o.event} = "
+                                         f"{o.event_of_interest} (competing: {codes}) by "
+                                         f"{o.time} = {when or '(no horizon)'}", h)
         return RiskScale("survival", f"probability of {o.event} by {o.time} = "
                                      f"{when or '(no horizon)'}", h)
     if o.type == "count":
@@ -211,7 +223,10 @@ def from_result(r: Refit, res: FitResult, scale: RiskScale, curve: ExposureCurve
 
 
 def risk_fit(r: Refit, f: FormFit, scale: RiskScale) -> RiskFit:
-    """A fitted exposure form (any FormFit of the refit) on the risk scale."""
+    """A fitted exposure form (any FormFit of the refit) on the risk scale (the Fine–Gray model
+    of its design when the outcome has competing events: module docstring)."""
+    if scale.family == "survival" and r.outcome.cause is not None:
+        return competing_risk_fit(r, f, scale)
     b, _ = f.exposure_coef()
 
     def curve(x: np.ndarray, level: int = 0) -> np.ndarray:
@@ -227,3 +242,51 @@ def absolute_risk(r: Refit, f: FormFit, spec: Spec) -> np.ndarray:
     docstring for the scale of each family)."""
     return risk_fit(r, f, risk_scale(r.analysis, spec)).risk
 
+
+
+FINE_GRAY_NOTE = "cumulative incidence from the Fine–Gray model of this design"
+
+
+def fine_gray_fit(r: Refit, f: FormFit) -> FitResult:
+    """The Fine–Gray model of a form's design (exposure terms, then adjustment terms), fitted
+    once per refit (kept in the outcome's cache)."""
+    from ..models.competing import fit_fine_gray
+    from .analysis import design
+
+    o = r.outcome
+    assert o.cause is not None
+    key = "fine_gray:" + "|".join(repr(t) for t in (*f.exposure_terms, *f.adjust_terms))
+    res: FitResult | None = o.cache.get(key)
+    if res is None:
+        X, names = design(r.sample.frame, r.x, f.exposure_terms, f.adjust_terms)
+        res = fit_fine_gray(X, o, o.cause, o.event_of_interest, names)
+        o.cache[key] = res
+    return res
+
+
+def competing_risk_fit(r: Refit, f: FormFit, scale: RiskScale) -> RiskFit:
+    """A form on the cumulative-incidence scale: its Fine–Gray model's exposure curve and, for
+    every row, log Lambda0_s(horizon) plus the adjusters' part."""
+    if scale.horizon is None:
+        raise ValueError("a survival risk needs a horizon (outcome.horizon or the study-level "
+                         "horizon)")
+    res = fine_gray_fit(r, f)
+    if not res.ok or res.linear_predictor is None:
+        raise ValueError(f"the Fine–Gray model of {f.form!r} did not fit: {res.message}")
+    names = f.exposure_names
+    b = res.coef[res.index(names)] if names else np.zeros(0)
+
+    def curve(x: np.ndarray, level: int = 0) -> np.ndarray:
+        if b.size == 0:
+            return np.zeros(np.atleast_1d(x).shape)
+        return np.asarray(f.exposure_basis(x) @ b, dtype=float)
+
+    o = r.outcome
+    h0, held, empty = cumhaz_at(res.extra["baseline"], o.strata, o.n, scale.horizon)
+    with np.errstate(divide="ignore"):
+        log_h0 = np.log(h0)
+    rows = curve(r.x)
+    lp = np.asarray(res.linear_predictor, dtype=float)
+    note = "; ".join(v for v in (FINE_GRAY_NOTE, horizon_notes(scale.horizon, held, empty,
+                                                                 o.strata is not None)) if v)
+    return RiskFit(f.form, f.adjustment, f.detail, scale, curve, rows, log_h0 + lp - rows, note)

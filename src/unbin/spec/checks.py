@@ -126,6 +126,7 @@ def _analysis_problems(i: int, analysis: dict[str, Any], groupings: dict[str, An
     where = f"analyses[{i}] ({analysis.get('name')})"
     kind = analysis["outcome"]["type"]
     problems = _outcome_problems(where, analysis["outcome"])
+    problems += _competing_problems(where, analysis["outcome"])
     problems += _threshold_problems(where, kind, analysis.get("risk_thresholds", []))
     if analysis.get("strata") and kind != "survival":
         problems.append(f"{where}.strata: strata are for survival (Cox) outcomes only; put "
@@ -186,6 +187,26 @@ def _outcome_problems(where: str, outcome: dict[str, Any]) -> list[str]:
     if outcome.get("count_model", "poisson") != "poisson" and kind != "count":
         problems.append(f"{where}.outcome.count_model: only count outcomes take a count "
                         f"model (this outcome is {kind}); remove it.")
+    return problems
+
+
+def _competing_problems(where: str, outcome: dict[str, Any]) -> list[str]:
+    """The event of interest is a non-zero code that is not also listed as competing."""
+    if outcome.get("type") != "survival":
+        return []
+    interest = outcome.get("event_of_interest", 1)
+    competing = outcome.get("competing", [])
+    problems: list[str] = []
+    if interest == 0:
+        problems.append(f"{where}.outcome.event_of_interest: 0 is the censoring code; give the "
+                        "event column's code of the event of interest (e.g. 1).")
+    if isinstance(competing, list) and interest in competing:
+        problems.append(f"{where}.outcome.competing: {competing} lists the event of interest "
+                        f"({interest}); list only the other causes' codes, e.g. [2].")
+    if "event_of_interest" in outcome and "competing" not in outcome and interest != 1:
+        problems.append(f"{where}.outcome.event_of_interest: without 'competing' the event "
+                        "column is 0/1; list the competing codes (competing: [2]) or drop "
+                        "event_of_interest.")
     return problems
 
 

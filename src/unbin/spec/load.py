@@ -348,7 +348,16 @@ def _outcome(o: dict[str, Any]) -> OutcomeSpec:
                        count=o.get("count"), persontime=o.get("persontime"), time=time,
                        entry=entry, horizon=float(o["horizon"]) if "horizon" in o else None,
                        followup=followup, count_model=o.get("count_model", "poisson"),
-                       follow_up_windows=tuple(float(c) for c in o.get("follow_up_windows", [])))
+                       follow_up_windows=tuple(float(c) for c in o.get("follow_up_windows", [])),
+                       **_competing_fields(o))
+
+
+def _competing_fields(o: dict[str, Any]) -> dict[str, Any]:
+    """A survival outcome's competing-risks keys (``event_of_interest``, ``competing``)."""
+    if "competing" not in o and "event_of_interest" not in o:
+        return {}
+    return {"event_of_interest": int(o.get("event_of_interest", 1)),
+            "competing": tuple(int(c) for c in o.get("competing", []))}
 
 
 def _derived_variables(analyses: list[Analysis]) -> dict[str, VariableInfo]:

@@ -24,7 +24,8 @@ OPTIONAL_OUTCOME_FIELDS = {
     "binary": (),
     "continuous": (),
     "count": (),
-    "survival": ("entry", "horizon", "time_scale", "age", "follow_up_windows"),
+    "survival": ("entry", "horizon", "time_scale", "age", "follow_up_windows",
+                 "event_of_interest", "competing"),
 }
 TIME_SCALES = ("on_study", "attained_age")
 DAYS_PER_UNIT = {"days": 1.0, "weeks": 7.0, "months": 365.25 / 12, "years": 365.25}
@@ -104,11 +105,20 @@ class OutcomeSpec:
     # count outcomes: poisson, quasi-poisson (Pearson scale) or negative-binomial (NB2)
     count_model: str = "poisson"
     follow_up_windows: tuple[float, ...] = ()  # cuts of follow-up time (survival): windows
+    # survival with competing risks: the event column's code of the event of interest and
+    # the codes of the competing events (none: the event column is 0/1)
+    event_of_interest: int = 1
+    competing: tuple[int, ...] = ()
     followup: FollowUp | None = None
 
     @property
     def time_scale(self) -> str:
         return self.followup.scale if self.followup else "on_study"
+
+    @property
+    def has_competing(self) -> bool:
+        """A survival outcome whose event column also codes competing events."""
+        return self.type == "survival" and bool(self.competing)
 
     @property
     def columns(self) -> tuple[str, ...]:
