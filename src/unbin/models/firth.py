@@ -41,14 +41,20 @@ Evaluation = tuple[float, float, np.ndarray, np.ndarray]
 def improving_step(evaluate: Callable[[np.ndarray], Evaluation | None], at: np.ndarray,
                    step: np.ndarray, pll: float) -> tuple[np.ndarray, Evaluation] | None:
     """Halve ``step`` (at most 30 times) until the penalised log-likelihood at ``at + step`` is
-    no lower than ``pll`` (to a relative 1e-10): the step taken and the evaluation there, or
+    no lower than ``pll`` (to a relative 1e-10): the new point and the evaluation there, or
     None when no halving improves it (``evaluate`` returns None where it cannot evaluate)."""
     for _ in range(30):
         nxt = evaluate(at + step)
         if nxt is not None and nxt[1] >= pll - 1e-10 * abs(pll):
-            return step, nxt
+            return at + step, nxt
         step = step / 2.0
     return None
+
+
+def halving_failed(what: str) -> str:
+    """The message of a fit whose step halving found no improvement of the penalised ``what``."""
+    return (f"step halving could not improve the penalised {what}; check the design for extreme "
+            "values.")
 
 
 def _finite(ev: Evaluation | None) -> Evaluation | None:
@@ -117,10 +123,7 @@ def fit_firth_logistic(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) 
             )
         found = improving_step(lambda t: _finite(_evaluate(Z, y, freq, t)), theta, step, pll)
         if found is None:
-            return failed_fit("binary", all_names, n, events,
-                              "step halving could not improve the penalised log-likelihood; "
-                              "check the design for extreme values.")
-        step, cur = found
-        theta = theta + step
+            return failed_fit("binary", all_names, n, events, halving_failed("log-likelihood"))
+        theta, cur = found
     return failed_fit("binary", all_names, n, events,
                       f"the Firth-penalised fit did not converge within {MAX_ITER} iterations.")

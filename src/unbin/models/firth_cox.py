@@ -32,7 +32,7 @@ _MAX_ITER = 100
 def fit_firth_cox(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
     from .cox.layout import _design_and_layout
     from .cox.likelihood import _evaluate, _standardised
-    from .firth import PENALTY, improving_step
+    from .firth import PENALTY, halving_failed, improving_step
     from .survival import cox_layout
 
     n, events = outcome.n, int(outcome.y.sum())
@@ -84,10 +84,7 @@ def fit_firth_cox(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> Fi
             step *= _MAX_STEP / big
         found = improving_step(penalised, beta, step, pll)
         if found is None:
-            return failed_fit("survival", names, n, events,
-                              "step halving could not improve the penalised partial "
-                              "likelihood; check the design for extreme values.")
-        step, cur = found
-        beta = beta + step
+            return failed_fit("survival", names, n, events, halving_failed("partial likelihood"))
+        beta, cur = found
     return failed_fit("survival", names, n, events, "the Firth-penalised Cox fit did not "
                       f"converge within {_MAX_ITER} iterations.")
