@@ -20,6 +20,8 @@ l* on the original column scale. ``extra["penalty"] = "firth"`` marks the fit, a
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 from scipy import linalg
 
@@ -32,8 +34,35 @@ PENALTY = "firth"
 LABEL = "Firth-penalised"
 
 
+# (log-likelihood, penalised log-likelihood, score, information) at one parameter vector
+Evaluation = tuple[float, float, np.ndarray, np.ndarray]
+
+
+def improving_step(evaluate: Callable[[np.ndarray], Evaluation | None], at: np.ndarray,
+                   step: np.ndarray, pll: float) -> tuple[np.ndarray, Evaluation] | None:
+    """Halve ``step`` (at most 30 times) until the penalised log-likelihood at ``at + step`` is
+    no lower than ``pll`` (to a relative 1e-10): the new point and the evaluation there, or
+    None when no halving improves it (``evaluate`` returns None where it cannot evaluate)."""
+    for _ in range(30):
+        nxt = evaluate(at + step)
+        if nxt is not None and nxt[1] >= pll - 1e-10 * abs(pll):
+            return at + step, nxt
+        step = step / 2.0
+    return None
+
+
+def halving_failed(what: str) -> str:
+    """The message of a fit whose step halving found no improvement of the penalised ``what``."""
+    return (f"step halving could not improve the penalised {what}; check the design for extreme "
+            "values.")
+
+
+def _finite(ev: Evaluation | None) -> Evaluation | None:
+    return ev if ev is not None and np.isfinite(ev[1]) else None
+
+
 def _evaluate(Z: np.ndarray, y: np.ndarray, freq: np.ndarray | None,
-              theta: np.ndarray) -> tuple[float, float, np.ndarray, np.ndarray] | None:
+              theta: np.ndarray) -> Evaluation | None:
     """(log-likelihood, penalised log-likelihood on Z's scale, modified score, information),
     or None when the information is singular."""
     eta = Z @ theta
@@ -92,18 +121,9 @@ def fit_firth_logistic(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) 
                        # l* on the original scale: log|I| gains 2 sum(log sd) from Z's scaling
                        "penalised_loglik": pll + float(np.sum(np.log(sd)))},
             )
-        nxt = None
-        for _ in range(30):
-            nxt = _evaluate(Z, y, freq, theta + step)
-            if nxt is not None and np.isfinite(nxt[1]) and nxt[1] >= pll - 1e-10 * abs(pll):
-                break
-            step /= 2.0
-            nxt = None
-        if nxt is None:
-            return failed_fit("binary", all_names, n, events,
-                              "step halving could not improve the penalised log-likelihood; "
-                              "check the design for extreme values.")
-        theta = theta + step
-        cur = nxt
+        found = improving_step(lambda t: _finite(_evaluate(Z, y, freq, t)), theta, step, pll)
+        if found is None:
+            return failed_fit("binary", all_names, n, events, halving_failed("log-likelihood"))
+        theta, cur = found
     return failed_fit("binary", all_names, n, events,
                       f"the Firth-penalised fit did not converge within {MAX_ITER} iterations.")

@@ -32,7 +32,7 @@ _MAX_ITER = 100
 def fit_firth_cox(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> FitResult:
     from .cox.layout import _design_and_layout
     from .cox.likelihood import _evaluate, _standardised
-    from .firth import PENALTY
+    from .firth import PENALTY, halving_failed, improving_step
     from .survival import cox_layout
 
     n, events = outcome.n, int(outcome.y.sum())
@@ -82,18 +82,9 @@ def fit_firth_cox(X: np.ndarray, outcome: Outcome, names: tuple[str, ...]) -> Fi
             )
         if big > _MAX_STEP:
             step *= _MAX_STEP / big
-        nxt = None
-        for _ in range(30):
-            nxt = penalised(beta + step)
-            if nxt is not None and nxt[1] >= pll - 1e-10 * abs(pll):
-                break
-            step /= 2.0
-            nxt = None
-        if nxt is None:
-            return failed_fit("survival", names, n, events,
-                              "step halving could not improve the penalised partial "
-                              "likelihood; check the design for extreme values.")
-        beta = beta + step
-        cur = nxt
+        found = improving_step(penalised, beta, step, pll)
+        if found is None:
+            return failed_fit("survival", names, n, events, halving_failed("partial likelihood"))
+        beta, cur = found
     return failed_fit("survival", names, n, events, "the Firth-penalised Cox fit did not "
                       f"converge within {_MAX_ITER} iterations.")

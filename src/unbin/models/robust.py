@@ -93,6 +93,88 @@ def glm_scores(res: FitResult, X: np.ndarray, outcome: Outcome
     return Z * (w * (y - mu))[:, None], bread, mean, sd
 
 
+def _risk_sum(v: np.ndarray, lo: np.ndarray, hi: np.ndarray, K: int) -> np.ndarray:
+    """Sums of ``v`` over the rows at risk at each of the K event times (a difference array over
+    each row's range [lo, hi) of event-time indices)."""
+    return np.cumsum(np.bincount(lo, v, K + 1) - np.bincount(hi, v, K + 1))[:K]
+
+
+def _columns(kk: np.ndarray, v: np.ndarray, K: int) -> np.ndarray:
+    """Per event time, the sums of each column of ``v`` over the steps or rows ``kk`` maps to it."""
+    p = v.shape[1]
+    return np.column_stack([np.bincount(kk, v[:, j], K) for j in range(p)]) if p \
+        else np.zeros((K, 0))
+
+
+def _efron_increments(S0: np.ndarray, S1: np.ndarray, r: np.ndarray, x: np.ndarray,
+                      ev: np.ndarray, k_ev: np.ndarray, d: np.ndarray, wsum: np.ndarray
+                      ) -> tuple[np.ndarray, ...]:
+    """Efron ties: per event time the hazard increments ``A`` and ``B`` (= sum of h * xbar),
+    the tied events' own shares ``A_ev``, ``B_ev`` and the mean ``xbar`` over the steps."""
+    K = S0.size
+    T0 = np.bincount(k_ev, r[ev], K)
+    T1 = _columns(k_ev, (r[:, None] * x)[ev], K)
+    # one step per tied event: (k, l) pairs, l = 0..d_k - 1
+    kk = np.repeat(np.arange(K), d.astype(int))
+    start = np.concatenate([[0], np.cumsum(d)[:-1]]).astype(int)
+    ll = np.arange(kk.size) - start[kk]
+    frac = ll / d[kk]
+    S0l = S0[kk] - frac * T0[kk]
+    xbar = (S1[kk] - frac[:, None] * T1[kk]) / S0l[:, None]
+    h = (wsum / d)[kk] / S0l  # the step's hazard increment
+    A = np.bincount(kk, h, K)
+    B = _columns(kk, h[:, None] * xbar, K)
+    own = 1.0 - frac  # a tied event's share of step l
+    A_ev = np.bincount(kk, own * h, K)
+    B_ev = _columns(kk, (own * h)[:, None] * xbar, K)
+    xavg = _columns(kk, xbar, K) / d[:, None]
+    return A, B, A_ev, B_ev, xavg
+
+
+def _breslow_increments(S0: np.ndarray, S1: np.ndarray, wsum: np.ndarray
+                        ) -> tuple[np.ndarray, ...]:
+    """Breslow ties: the same increments as ``_efron_increments``, tied events fully at risk."""
+    A = wsum / S0
+    xavg = S1 / S0[:, None]
+    B = A[:, None] * xavg
+    return A, B, A, B, xavg
+
+
+def _stratum_scores(x: np.ndarray, t: np.ndarray, ev: np.ndarray, wi: np.ndarray,
+                    eta: np.ndarray, entry: np.ndarray | None, efron: bool) -> np.ndarray | None:
+    """The weighted score residuals of one stratum's rows, or None when it has no events."""
+    p = x.shape[1]
+    et = np.unique(t[ev])
+    K = et.size
+    if K == 0:
+        return None
+    eta = eta - eta.max()
+    e = np.exp(eta)
+    r = wi * e
+    hi = np.searchsorted(et, t, side="right")  # at risk at event times [lo, hi)
+    lo = (np.searchsorted(et, entry, side="right") if entry is not None
+          else np.zeros(t.size, dtype=int))
+    S0 = _risk_sum(r, lo, hi, K)
+    S1 = np.column_stack([_risk_sum(r * x[:, j], lo, hi, K) for j in range(p)]) if p \
+        else np.zeros((K, 0))
+    k_ev = hi[ev] - 1  # the event time index of each event row
+    d = np.bincount(k_ev, minlength=K).astype(float)
+    wsum = np.bincount(k_ev, wi[ev], K)
+    A, B, A_ev, B_ev, xavg = (_efron_increments(S0, S1, r, x, ev, k_ev, d, wsum) if efron
+                              else _breslow_increments(S0, S1, wsum))
+    cumA = np.concatenate([[0.0], np.cumsum(A)])
+    cumB = np.vstack([np.zeros((1, p)), np.cumsum(B, axis=0)])
+    a_i = cumA[hi] - cumA[lo]
+    b_i = cumB[hi] - cumB[lo]
+    U = -e[:, None] * (x * a_i[:, None] - b_i)
+    evi = np.flatnonzero(ev)
+    k = k_ev
+    U[evi] += x[evi] - xavg[k]
+    # a tied event is at risk at its own time only with its Efron fractions
+    U[evi] += e[evi, None] * (x[evi] * (A[k] - A_ev[k])[:, None] - (B[k] - B_ev[k]))
+    return U * wi[:, None]
+
+
 def cox_scores(X: np.ndarray, outcome: Outcome, beta: np.ndarray,
                ties: str = "efron") -> np.ndarray:
     """Weighted Cox score residuals ``w_i U_i`` (n x p), rows in the order given.
@@ -112,67 +194,12 @@ def cox_scores(X: np.ndarray, outcome: Outcome, beta: np.ndarray,
     Xc = X - X.mean(axis=0)  # residuals are invariant to shifting a column
     eta_all = Xc @ np.asarray(beta, dtype=float) if p else np.zeros(n)
     out = np.zeros((n, p))
-    efron = ties == "efron"
     for s in np.unique(strata):
         idx = np.flatnonzero(strata == s)
-        t, ev, wi, x = time[idx], event[idx], w[idx], Xc[idx]
-        et = np.unique(t[ev])
-        K = et.size
-        if K == 0:
-            continue
-        eta = eta_all[idx] - eta_all[idx].max()
-        e = np.exp(eta)
-        r = wi * e
-        hi = np.searchsorted(et, t, side="right")  # at risk at event times [lo, hi)
-        lo = (np.searchsorted(et, entry[idx], side="right") if entry is not None
-              else np.zeros(idx.size, dtype=int))
-
-        def risk_sum(v: np.ndarray, lo: np.ndarray = lo, hi: np.ndarray = hi,
-                     K: int = K) -> np.ndarray:
-            return np.cumsum(np.bincount(lo, v, K + 1) - np.bincount(hi, v, K + 1))[:K]
-
-        S0 = risk_sum(r)
-        S1 = np.column_stack([risk_sum(r * x[:, j]) for j in range(p)]) if p else np.zeros((K, 0))
-        k_ev = hi[ev] - 1  # the event time index of each event row
-        d = np.bincount(k_ev, minlength=K).astype(float)
-        wsum = np.bincount(k_ev, wi[ev], K)
-        if efron:
-            T0 = np.bincount(k_ev, r[ev], K)
-            T1 = (np.column_stack([np.bincount(k_ev, (r * x[:, j])[ev], K) for j in range(p)])
-                  if p else np.zeros((K, 0)))
-            # one step per tied event: (k, l) pairs, l = 0..d_k - 1
-            kk = np.repeat(np.arange(K), d.astype(int))
-            start = np.concatenate([[0], np.cumsum(d)[:-1]]).astype(int)
-            ll = np.arange(kk.size) - start[kk]
-            frac = ll / d[kk]
-            S0l = S0[kk] - frac * T0[kk]
-            xbar = (S1[kk] - frac[:, None] * T1[kk]) / S0l[:, None]
-            h = (wsum / d)[kk] / S0l  # the step's hazard increment
-            A = np.bincount(kk, h, K)
-            B = np.column_stack([np.bincount(kk, h * xbar[:, j], K) for j in range(p)]) \
-                if p else np.zeros((K, 0))
-            own = 1.0 - frac  # a tied event's share of step l
-            A_ev = np.bincount(kk, own * h, K)
-            B_ev = np.column_stack([np.bincount(kk, own * h * xbar[:, j], K)
-                                    for j in range(p)]) if p else np.zeros((K, 0))
-            xavg = np.column_stack([np.bincount(kk, xbar[:, j], K) for j in range(p)]) \
-                / d[:, None] if p else np.zeros((K, 0))
-        else:
-            A = wsum / S0
-            xavg = S1 / S0[:, None]
-            B = A[:, None] * xavg
-            A_ev, B_ev = A, B
-        cumA = np.concatenate([[0.0], np.cumsum(A)])
-        cumB = np.vstack([np.zeros((1, p)), np.cumsum(B, axis=0)])
-        a_i = cumA[hi] - cumA[lo]
-        b_i = cumB[hi] - cumB[lo]
-        U = -e[:, None] * (x * a_i[:, None] - b_i)
-        evi = np.flatnonzero(ev)
-        k = k_ev
-        U[evi] += x[evi] - xavg[k]
-        # a tied event is at risk at its own time only with its Efron fractions
-        U[evi] += e[evi, None] * (x[evi] * (A[k] - A_ev[k])[:, None] - (B[k] - B_ev[k]))
-        out[idx] = U * wi[:, None]
+        U = _stratum_scores(Xc[idx], time[idx], event[idx], w[idx], eta_all[idx],
+                            None if entry is None else entry[idx], ties == "efron")
+        if U is not None:
+            out[idx] = U
     return out
 
 

@@ -5,14 +5,17 @@ one prepared layout."""
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
-from typing import Any
+from collections.abc import Callable, Iterator, Sequence
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy import special
 
 from ._glm import gram, standardise
 from .base import Outcome
+
+if TYPE_CHECKING:
+    from .cox import Layout
 
 _CHUNK_CELLS = 4_000_000
 _MAX_NEWTON = 30
@@ -177,6 +180,29 @@ def weighted_cox(X: np.ndarray, outcome: Outcome, W: np.ndarray,
     return weighted_cox_designs([(X, start)], outcome, W)[0]
 
 
+CoxSample = tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None]
+
+
+def resampled_cox_samples(outcome: Outcome, W: np.ndarray
+                          ) -> Iterator[tuple[int, np.ndarray, CoxSample, Layout]]:
+    """Per frequency-weight row ``b`` of ``W``: the repeated row indices ``m``, the survival
+    arrays (time, event, entry, strata) of those rows and their prepared Cox layout; a replicate
+    whose layout cannot be prepared is skipped."""
+    from .cox import prepare_layout
+
+    assert outcome.time is not None
+    for b, w in enumerate(W):
+        m = np.repeat(np.arange(len(w)), np.asarray(w).astype(np.int64))
+        time, event = outcome.time[m], outcome.y[m]
+        entry = outcome.entry[m] if outcome.entry is not None else None
+        strata = outcome.strata[m] if outcome.strata is not None else None
+        try:
+            layout = prepare_layout(time, event, entry=entry, strata=strata)
+        except ValueError:
+            continue
+        yield b, m, (time, event, entry, strata), layout
+
+
 def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]],
                          outcome: Outcome, W: np.ndarray,
                          on_fit: OnCoxFit | None = None) -> list[np.ndarray]:
@@ -187,7 +213,7 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
     (``unbin.models.cox.refit_near``), falling back to ``fit_cox`` when those do not settle.
     ``on_fit(b, j, Xm, m, layout, coef)`` is called after each successful fit of design ``j``
     in replicate ``b`` (``m`` the repeated row indices, ``Xm`` their design rows)."""
-    from .cox import fit_cox, prepare_layout, refit_near
+    from .cox import fit_cox, refit_near
 
     assert outcome.time is not None
     Xs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X, _ in designs]
@@ -195,15 +221,7 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
              for _, start in designs]
     W = np.atleast_2d(W)
     outs = [np.full((W.shape[0], X.shape[1]), np.nan) for X in Xs]
-    for b, w in enumerate(W):
-        m = np.repeat(np.arange(len(w)), np.asarray(w).astype(np.int64))
-        time, event = outcome.time[m], outcome.y[m]
-        entry = outcome.entry[m] if outcome.entry is not None else None
-        strata = outcome.strata[m] if outcome.strata is not None else None
-        try:
-            layout = prepare_layout(time, event, entry=entry, strata=strata)
-        except ValueError:
-            continue
+    for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
         for j, (X, init, out) in enumerate(zip(Xs, inits, outs, strict=True)):
             Xm = X[m]
             coef = refit_near(Xm, layout, init) if init is not None else None

@@ -7,19 +7,26 @@ from __future__ import annotations
 
 import re
 
-COLUMNS: dict[str, str] = {
+# Labels of columns many tables share.
+_COMMON: dict[str, str] = {
     "cohort": "cohort", "analysis": "analysis", "adjustment": "adjustment",
     "form": "form", "detail": "model", "status": "status", "message": "note",
     "reason": "reason", "note": "note", "caution": "caution", "scale": "scale",
     "n": "rows", "n_input": "rows in extract", "n_used": "rows used", "rows": "rows",
     "events": "events", "person_time": "person-time", "follow_up": "follow-up",
     "step": "step", "family": "outcome", "exposure": "exposure",
-    # fits
+}
+
+# Labels of the fits table.
+_FITS: dict[str, str] = {
     "selected": "selected", "n_params": "parameters", "exposure_df": "exposure df",
     "loglik": "log-likelihood", "lr_chi2": "LR χ²", "aic": "AIC", "bic": "BIC",
     "c_index": "C-index", "r2": "R²", "converged": "converged", "warnings": "warnings",
     "exposure_basis": "exposure basis", "adjustment_terms": "adjustment terms",
-    # information
+}
+
+# Labels of the information table.
+_INFORMATION: dict[str, str] = {
     "lr_legacy": "LR χ² groups", "df_legacy": "df groups", "lr_linear": "LR χ² linear",
     "df_linear": "df linear", "lr_spline": "LR χ² spline", "df_spline": "df spline",
     "lr_fp": "LR χ² FP", "fp_detail": "FP powers", "lr_test_spline": "LR χ² test spline",
@@ -35,7 +42,10 @@ COLUMNS: dict[str, str] = {
     "interaction_lr": "LR χ² interaction", "interaction_df": "df interaction",
     "interaction_p": "interaction, p", "interaction_detail": "interaction model",
     "level": "level", "replicates": "replicates", "replicates_used": "replicates used",
-    # effects, curves
+}
+
+# Labels of effects and curves.
+_EFFECTS: dict[str, str] = {
     "contrast_type": "contrast kind", "contrast": "contrast", "group": "group",
     "x_value": "exposure value", "x_reference": "reference value", "x": "exposure value",
     "estimate": "estimate", "se": "SE", "lower": "lower", "upper": "upper",
@@ -47,7 +57,10 @@ COLUMNS: dict[str, str] = {
     "cs_effect": "cause-specific HR", "cs_effect_lower": "cause-specific HR, lower",
     "cs_effect_upper": "cause-specific HR, upper", "competing_events": "competing events",
     "expanded_rows": "rows after expansion",
-    # pooled
+}
+
+# Labels of pooled results.
+_POOLED: dict[str, str] = {
     "method": "pooling", "k": "cohorts (k)", "cohorts": "cohorts", "groups": "groups",
     "pi_lower": "prediction, lower", "pi_upper": "prediction, upper",
     "effect_pi_lower": "prediction effect, lower", "effect_pi_upper": "prediction effect, upper",
@@ -69,7 +82,10 @@ COLUMNS: dict[str, str] = {
     "table_estimate": "slope from the table", "table_se": "slope from the table, SE",
     "individual_estimate": "slope from the rows", "individual_se": "slope from the rows, SE",
     "information_ratio": "information kept by the table",
-    # harmonisation, cut points
+}
+
+# Labels of harmonisation and cut points.
+_CUTS: dict[str, str] = {
     "variable": "variable", "role": "role", "cut": "cut", "percentile": "percentile",
     "median": "median", "derived_from_data": "chosen from the data", "cut_rank": "cut number",
     "cut_median_correlation": "cut–median correlation",
@@ -83,7 +99,10 @@ COLUMNS: dict[str, str] = {
     "search_lower": "search from", "search_upper": "search to",
     "bootstrap": "bootstrap replicates", "bootstrap_ok": "bootstrap fits",
     "bootstrap_failed": "bootstrap failures",
-    # replication, confounding, ranges, decisions
+}
+
+# Labels of replication, confounding, ranges and decisions.
+_QUESTIONS: dict[str, str] = {
     "reported_effect": "published", "reported_lower": "published, lower",
     "reported_upper": "published, upper", "refit_effect": "refit", "refit_lower": "refit, lower",
     "refit_upper": "refit, upper", "verdict": "verdict", "disagrees": "disagrees",
@@ -102,6 +121,9 @@ COLUMNS: dict[str, str] = {
     "exposure_p01": "exposure 1st percentile", "exposure_p99": "exposure 99th percentile",
     "risk_scale": "risk", "horizon": "horizon", "computed_by": "computed by",
 }
+
+COLUMNS: dict[str, str] = {**_COMMON, **_FITS, **_INFORMATION, **_EFFECTS, **_POOLED, **_CUTS,
+                           **_QUESTIONS}
 
 FORMS: dict[str, str] = {
     "legacy": "legacy groups", "linear": "linear", "spline": "spline",

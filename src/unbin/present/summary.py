@@ -49,6 +49,15 @@ def _of(df: pd.DataFrame, cohort: str, analysis: str) -> pd.DataFrame:
     return df[keep]
 
 
+def _per_analysis(tables: Tables, name: str, needed: str
+                  ) -> list[tuple[str, str, pd.DataFrame]]:
+    """(cohort, analysis, its rows) of table ``name``; none when it is empty or lacks ``needed``."""
+    df = _t(tables, name)
+    if df.empty or needed not in df:
+        return []
+    return [(cohort, analysis, _of(df, cohort, analysis)) for cohort, analysis in _pairs(df)]
+
+
 def _flag(s: pd.Series) -> pd.Series:
     return s.astype("boolean").fillna(False).astype(bool)
 
@@ -155,12 +164,8 @@ def analysis_rows(tables: Tables, jobs: list[tuple[str, str]]) -> list[dict[str,
 def range_rows(tables: Tables) -> Rows:
     """Per analysis: the largest move of the legacy estimate and of the spline contrast when the
     exposure's range is trimmed (ratios as a factor, differences as ±)."""
-    df = _t(tables, "ranges")
-    if df.empty or "form" not in df:
-        return []
     rows = []
-    for cohort, analysis in _pairs(df):
-        g = _of(df, cohort, analysis)
+    for cohort, analysis, g in _per_analysis(tables, "ranges", "form"):
         ok = g[(g["status"] == "ok") & ~_flag(g["extrapolated"])]
         ratio = is_ratio(g["scale"].iloc[0])
 
@@ -182,12 +187,8 @@ def range_rows(tables: Tables) -> Rows:
 def confounding_rows(tables: Tables) -> Rows:
     """Per analysis: the share of the confounding the legacy adjustment leaves (linear exposure
     contrast, standardised scale) and the confounder whose grouping leaves the most."""
-    df = _t(tables, "confounding")
-    if df.empty or "scope" not in df:
-        return []
     rows = []
-    for cohort, analysis in _pairs(df):
-        lin = _of(df, cohort, analysis)
+    for cohort, analysis, lin in _per_analysis(tables, "confounding", "scope"):
         lin = lin[lin["exposure_form"] == "linear"]
         if "primary" in lin:
             lin = lin[_flag(lin["primary"])]

@@ -36,7 +36,12 @@ import pandas as pd
 
 from ..models import fit
 from ..models.base import FitResult, Outcome
-from ..models.weighted import _CHUNK_CELLS, WeightedGLM, resample_weights
+from ..models.weighted import (
+    _CHUNK_CELLS,
+    WeightedGLM,
+    resample_weights,
+    resampled_cox_samples,
+)
 from ..refit.analysis import (
     ADJUSTMENTS,
     Refit,
@@ -92,19 +97,10 @@ def glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
 
 
 def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray) -> list[np.ndarray]:
-    from ..models.cox import fit_cox, prepare_layout
+    from ..models.cox import fit_cox
 
-    assert outcome.time is not None
     out = [np.full(len(W), np.nan) for _ in models]
-    for b, w in enumerate(W):
-        m = np.repeat(np.arange(len(w)), np.asarray(w).astype(np.int64))
-        time, event = outcome.time[m], outcome.y[m]
-        entry = outcome.entry[m] if outcome.entry is not None else None
-        strata = outcome.strata[m] if outcome.strata is not None else None
-        try:
-            layout = prepare_layout(time, event, entry=entry, strata=strata)
-        except ValueError:
-            continue
+    for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
         for j, mod in enumerate(models):
             try:
                 f = fit_cox(mod.X[m], time, event, entry=entry, strata=strata,

@@ -7,7 +7,17 @@ from __future__ import annotations
 import codecs
 import datetime as dt
 import re
+from collections.abc import Callable
 from typing import Any
+
+
+def _fails(read: Callable[[str], object], value: str, error: type[Exception]) -> bool:
+    """Whether ``read(value)`` raises ``error``."""
+    try:
+        read(value)
+    except error:
+        return True
+    return False
 
 
 def csv_problems(raw: dict[str, Any]) -> list[str]:
@@ -22,12 +32,9 @@ def csv_problems(raw: dict[str, Any]) -> list[str]:
             problems.append(f"{where}: the csv block applies to .csv and .csv.gz extracts only; "
                             f"remove it for {c.get('path')!r}.")
         enc = opts.get("encoding")
-        if isinstance(enc, str):
-            try:
-                codecs.lookup(enc)
-            except LookupError:
-                problems.append(f"{where}.encoding: {enc!r} is not a known text encoding; use "
-                                "for example utf-8, cp1252 or latin-1.")
+        if isinstance(enc, str) and _fails(codecs.lookup, enc, LookupError):
+            problems.append(f"{where}.encoding: {enc!r} is not a known text encoding; use "
+                            "for example utf-8, cp1252 or latin-1.")
         if opts.get("delimiter") is not None and opts.get("delimiter") == opts.get("decimal"):
             problems.append(f"{where}: the delimiter and the decimal mark are both "
                             f"{opts['decimal']!r}; a file with decimal commas is separated by "
@@ -57,12 +64,10 @@ def followup_problems(raw: dict[str, Any]) -> list[str]:
         scale = out.get("time_scale", "on_study")
         if isinstance(time, dict):
             end = time.get("study_end")
-            if isinstance(end, str) and re.fullmatch(r"\d{4}-\d{2}-\d{2}", end):
-                try:
-                    dt.date.fromisoformat(end)
-                except ValueError:
-                    problems.append(f"{where}.time.study_end: {end!r} is not a calendar date; "
-                                    "write it as YYYY-MM-DD.")
+            if (isinstance(end, str) and re.fullmatch(r"\d{4}-\d{2}-\d{2}", end)
+                    and _fails(dt.date.fromisoformat, end, ValueError)):
+                problems.append(f"{where}.time.study_end: {end!r} is not a calendar date; "
+                                "write it as YYYY-MM-DD.")
             if time.get("start") is not None and time.get("start") == time.get("end"):
                 problems.append(f"{where}.time: start and end are the same column "
                                 f"{time.get('start')!r}; end is the date of the event or of "
