@@ -57,7 +57,7 @@ from ..refit.risk import RiskFit, link
 from ..spec import Spec
 from ..terms import SplineTerm
 from . import disclosure
-from .decisions import CAUTION, EVENT_FAMILIES, decision_models
+from .decisions import EVENT_FAMILIES, decision_models, typed_table
 
 TENTHS = 10
 SMOOTH_POINTS = 25
@@ -360,19 +360,5 @@ COUNTS = ("group", "n_rows", "events")
 
 def _finish(rows: list[dict[str, Any]]) -> pd.DataFrame:
     """The rows in :data:`COLUMNS` order with the caution, text as str, counts as Int64."""
-    out = pd.DataFrame(rows)
-    for c in COLUMNS:
-        if c not in out:
-            out[c] = np.nan
-    out = out[list(COLUMNS)].copy()
-    out["caution"] = CAUTION
-    for c in COLUMNS:
-        if c in TEXT:
-            out[c] = out[c].fillna("").astype(str)
-        elif c in COUNTS:
-            out[c] = pd.array([None if v is None or pd.isna(v) else int(v) for v in out[c]],
-                              dtype="Int64")
-        else:
-            out[c] = out[c].astype(float)
-    return out
+    return typed_table(rows, COLUMNS, TEXT, COUNTS, ())
 

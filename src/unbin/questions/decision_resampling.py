@@ -63,7 +63,7 @@ from ..refit.risk import cumhaz_at, horizon_for, link, risk_scale
 from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import LinearTerm, SplineTerm, Term
-from .decisions import CAUTION, EVENT_FAMILIES, thresholds_for
+from .decisions import EVENT_FAMILIES, thresholds_for, typed_table
 from .net_benefit import legacy_rules, net_benefit_counts, net_benefit_km, net_benefit_risk
 from .thresholds import crossings
 
@@ -414,21 +414,4 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
 
 def _finish(rows: list[dict[str, Any]]) -> pd.DataFrame:
     """The rows in :data:`COLUMNS` order with the caution, text as str, counts as Int64."""
-    out = pd.DataFrame(rows)
-    for c in COLUMNS:
-        if c not in out:
-            out[c] = np.nan
-    out = out[list(COLUMNS)].copy()
-    out["caution"] = CAUTION
-    for c in COLUMNS:
-        if c in TEXT:
-            out[c] = out[c].fillna("").astype(str)
-        elif c in COUNTS:
-            out[c] = pd.array([None if v is None or pd.isna(v) else int(v) for v in out[c]],
-                              dtype="Int64")
-        elif c == "beyond_central_range":
-            out[c] = pd.array([None if pd.isna(v) else bool(v) for v in out[c]],
-                              dtype="boolean")
-        else:
-            out[c] = out[c].astype(float)
-    return out
+    return typed_table(rows, COLUMNS, TEXT, COUNTS, ("beyond_central_range",))

@@ -238,3 +238,27 @@ def summary_lines(thresholds: pd.DataFrame, net_benefit: pd.DataFrame) -> list[s
                      + "; ".join(nb_parts))
     lines.append("Caution: " + CAUTION)
     return lines
+
+
+def typed_table(rows: list[dict[str, Any]], columns: tuple[str, ...], text: tuple[str, ...],
+                counts: tuple[str, ...], flags: tuple[str, ...] = ()) -> pd.DataFrame:
+    """The rows in ``columns`` order with the patient-care caution: ``text`` columns as str,
+    ``counts`` as Int64, ``flags`` as nullable booleans, the rest as float."""
+    out = pd.DataFrame(rows)
+    for c in columns:
+        if c not in out:
+            out[c] = np.nan
+    out = out[list(columns)].copy()
+    out["caution"] = CAUTION
+    for c in columns:
+        if c in text:
+            out[c] = out[c].fillna("").astype(str)
+        elif c in counts:
+            out[c] = pd.array([None if v is None or pd.isna(v) else int(v) for v in out[c]],
+                              dtype="Int64")
+        elif c in flags:
+            out[c] = pd.array([None if pd.isna(v) else bool(v) for v in out[c]],
+                              dtype="boolean")
+        else:
+            out[c] = out[c].astype(float)
+    return out

@@ -223,13 +223,8 @@ def schema_problems(raw: dict[str, Any]) -> list[str]:
         where = _where(err.absolute_path)
         if err.validator == "additionalProperties":
             allowed = _allowed_keys(schema, list(err.absolute_path))
-            extras = (sorted(set(err.instance) - set(allowed), key=str)
-                      if isinstance(err.instance, dict) else [])
-            for key in extras:
-                close = difflib.get_close_matches(str(key), allowed, n=1, cutoff=0.6)
-                hint = f" Did you mean {close[0]!r}?" if close else ""
-                problems.append(f"{where}: unknown key {key!r}.{hint} Allowed keys: "
-                                f"{', '.join(allowed)}.")
+            if isinstance(err.instance, dict):
+                problems += unknown_keys(where, err.instance, allowed)
         elif err.validator == "required":
             problems.append(f"{where}: {err.message}; add it.")
         elif err.validator == "enum":
@@ -258,6 +253,16 @@ def schema_problems(raw: dict[str, Any]) -> list[str]:
     return problems
 
 
+def unknown_keys(where: str, given: dict[str, Any], allowed: list[str]) -> list[str]:
+    """One message per key the schema does not allow, with the closest allowed key."""
+    out = []
+    for key in sorted(set(given) - set(allowed), key=str):
+        close = difflib.get_close_matches(str(key), allowed, n=1, cutoff=0.6)
+        hint = f" Did you mean {close[0]!r}?" if close else ""
+        out.append(f"{where}: unknown key {key!r}.{hint} Allowed keys: {', '.join(allowed)}.")
+    return out
+
+
 def _time_problems(where: str, err: Any) -> list[str]:
     """A survival time that is neither a column name nor a valid mapping of dates: what is
     wrong inside the mapping, key by key."""
@@ -273,11 +278,7 @@ def _time_problems(where: str, err: Any) -> list[str]:
         if e.validator == "required":
             out.append(f"{w}: {e.message}; add it (a date column).")
         elif e.validator == "additionalProperties":
-            for key in sorted(set(e.instance) - set(allowed), key=str):
-                close = difflib.get_close_matches(str(key), allowed, n=1, cutoff=0.6)
-                hint = f" Did you mean {close[0]!r}?" if close else ""
-                out.append(f"{w}: unknown key {key!r}.{hint} Allowed keys: "
-                           f"{', '.join(allowed)}.")
+            out += unknown_keys(w, e.instance, allowed)
         elif e.validator == "enum":
             out.append(f"{w}: {e.instance!r} is not one of {list(e.validator_value)}.")
         elif e.validator == "pattern":
