@@ -13,6 +13,7 @@ import pandas as pd
 import pytest
 import yaml
 
+from helpers import keep_analyses
 from unbin.consortium.basis import combine, sample_summary
 from unbin.consortium.bundles import BUNDLE_TABLES, make_bundle
 from unbin.consortium.meta_analysis import pool_multivariate, pooled_curve
@@ -28,7 +29,7 @@ def _small_spec(tmp: Path, cohorts: list[str], n: int, fixed: bool) -> Path:
     """A quick demo-style spec: one analysis (binary, U shape), no FP search, small resampling;
     with ``fixed`` the common basis comes from the spec (knots, reference, grid)."""
     raw = demo_spec(tuple(c for c in COHORTS if c.name in cohorts))
-    raw["analyses"] = [a for a in raw["analyses"] if a["name"] == "readmission_sodium"]
+    keep_analyses(raw, "readmission_sodium")
     raw["continuous"] = {"forms": ["linear", "spline"], "spline_knots": [4]}
     if fixed:
         raw["analyses"][0]["continuous"] = {"spline_knots": {"values": [132, 137, 141, 146]},
@@ -74,7 +75,7 @@ def test_bundle_holds_no_row_level_data_and_no_small_counts() -> None:
     """The bundle's shape does not grow with the number of people (doubling the cohort leaves
     every bundle table's row count unchanged) and no count is below the disclosure threshold."""
     raw = demo_spec(COHORTS[:1])
-    raw["analyses"] = [a for a in raw["analyses"] if a["name"] in ("visits_bmi", "sbp_urate")]
+    keep_analyses(raw, "visits_bmi", "sbp_urate")
     raw["continuous"] = {"forms": ["linear", "spline"], "spline_knots": [4]}
     raw["resampling"] = {"bootstrap": 5, "permutations": 9}
     raw["disclosure"] = {"min_cell": 2000}  # large, so that suppression must happen

@@ -18,6 +18,7 @@ import statsmodels.formula.api as smf
 from lifelines import CoxPHFitter, KaplanMeierFitter
 from scipy import optimize, special, stats
 
+from helpers import keep_analyses
 from unbin.data import analysis_sample
 from unbin.errors import SpecError
 from unbin.questions.decisions import CAUTION
@@ -363,7 +364,7 @@ def test_demo_thresholds_differ_by_diabetes_as_the_truth_says(tmp_path: Path) ->
     from unbin.demo import SODIUM_OPTIMUM, demo_spec, simulate_registry, true_logodds_sodium
 
     raw = demo_spec()
-    raw["analyses"] = [a for a in raw["analyses"] if a["name"] == "readmission_sodium"]
+    keep_analyses(raw, "readmission_sodium")
     raw["continuous"] = {**raw.get("continuous", {}), "forms": ["spline"]}
     spec = parse_spec(raw, base=tmp_path)
     a = spec.analyses[0]

@@ -19,6 +19,7 @@ import statsmodels.api as sm
 import statsmodels.formula.api as smf
 from scipy import special, stats
 
+from helpers import keep_analyses
 from unbin.data import analysis_sample
 from unbin.questions.curves import curves_table
 from unbin.questions.effects import effects_table
@@ -326,8 +327,7 @@ def demo_tables() -> tuple[Spec, dict[str, pd.DataFrame]]:
     from unbin.pipeline.jobs import analyse
 
     raw = demo_spec()
-    raw["analyses"] = [a for a in raw["analyses"]
-                       if a["name"] in ("readmission_sodium", "sbp_urate")]
+    keep_analyses(raw, "readmission_sodium", "sbp_urate")
     spec = parse_spec(raw, base=Path("."))
     frame = simulate_registry()
     out: dict[str, list[pd.DataFrame]] = {}

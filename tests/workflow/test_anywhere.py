@@ -16,6 +16,7 @@ import pandas as pd
 import pytest
 import yaml
 
+from helpers import keep_analyses
 from unbin.demo import COHORTS, demo_spec, simulate_registry
 from unbin.pipeline.runner import snakemake_command
 from unbin.results.tables import read_table
@@ -28,8 +29,7 @@ def small_spec(folder: Path, n: int = 700) -> Path:
     """Two invented cohorts, two analyses, fixed common basis (so cohorts rerun independently),
     small resampling: quick to run."""
     raw = demo_spec(COHORTS[:2])
-    raw["analyses"] = [a for a in raw["analyses"]
-                       if a["name"] in ("readmission_sodium", "visits_bmi")]
+    keep_analyses(raw, "readmission_sodium", "visits_bmi")
     raw["continuous"] = {"forms": ["linear", "spline"], "spline_knots": [4]}
     raw["analyses"][0]["continuous"] = {"spline_knots": {"values": [132, 137, 141, 146]},
                                         "reference_value": 140, "grid_range": [130, 150]}
