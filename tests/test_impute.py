@@ -224,3 +224,74 @@ def test_combine_tables_uses_rubin_and_refuses_mismatched_rows():
     assert out["n"].tolist() == [100, 100]
     _, msg = combine_tables([a, b.assign(form=["linear", "fp"])])
     assert "not combined" in msg
+
+
+def _registry_frame(n: int = 600, seed: int = 1) -> pd.DataFrame:
+    """Invented: a biomarker x, a confounder z missing more often in events, a binary event."""
+    rng = np.random.default_rng(seed)
+    z = rng.standard_normal(n)
+    x = 60 + 10 * (0.5 * z + rng.standard_normal(n))
+    lp = -1 + 0.04 * (x - 60) + 0.6 * z
+    y = (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)
+    zm = np.where(rng.random(n) < np.where(y == 1, 0.4, 0.15), np.nan, z)
+    return pd.DataFrame({"x": x, "z": zm, "y": y})
+
+
+def _spec(missing: dict | None):
+    from pathlib import Path
+
+    from unbin.spec import parse_spec
+
+    a = {"name": "a", "outcome": {"type": "binary", "event": "y"}, "exposure": "x",
+         "adjust": ["z"], "continuous": {"spline_knots": [3, 4]}}
+    if missing is not None:
+        a["missing"] = missing
+    raw = {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
+           "groupings": {"x": {"cuts": [55, 65]}}, "analyses": [a], "seed": 3}
+    return parse_spec(raw, base=Path("."))
+
+
+def test_pipeline_combines_like_statsmodels_mice_on_its_imputed_sets():
+    # Reference: statsmodels Logit on each of the analysis' imputed sets, combined by
+    # statsmodels' MICE.combine; the per-unit linear effect (legacy coding: z linear) and the
+    # information table's linear statistic (D1 with k = 1 = estimate^2 / T).
+    from unbin.pipeline.imputed import _targets, incomplete_sample, outcome_auxiliary
+    from unbin.pipeline.jobs import analyse
+
+    frame = _registry_frame()
+    spec = _spec({"method": "impute", "imputations": 4, "iterations": 5})
+    a = spec.analyses[0]
+    tables, status = analyse(spec, "c", "a", frame, resampling=False)
+    assert status["status"] == "ok", status["message"]
+    sample, counts = incomplete_sample(frame, a, spec)
+    assert counts["z"] == int(frame["z"].isna().sum())
+    sets = impute_chained(sample.frame, _targets(sample, a, spec), outcome_auxiliary(sample, a),
+                          4, 5, spec.rng("a", "imputation\x00c"))
+    fits = [sm.Logit(s["y"].to_numpy(float), sm.add_constant(s[["x", "z"]].to_numpy())).fit(
+        disp=0) for s in sets]
+    mice = MICE("y ~ x + z", sm.Logit, MICEData(frame.assign(z=frame["z"])))
+    mice.results_list = fits
+    mice.exog_names, mice.endog_names = ["const", "x", "z"], "y"
+    ref = mice.combine()
+    e = tables["effects"]
+    row = e[(e.adjustment == "legacy") & (e.form == "linear") & (e.contrast_type == "per_unit")]
+    assert row["estimate"].iloc[0] == pytest.approx(ref.params[1], rel=1e-6)
+    assert row["se"].iloc[0] == pytest.approx(ref.bse[1], rel=1e-5)
+    assert row["missing_method"].iloc[0] == "imputed (M = 4)"
+    info = tables["information"].set_index("adjustment")
+    assert info.loc["legacy", "lr_linear"] == pytest.approx((ref.params[1] / ref.bse[1]) ** 2,
+                                                            rel=1e-5)
+    # the imputed analysis keeps every row; complete cases drop those with z missing
+    cc, _ = analyse(_spec(None), "c", "a", frame, resampling=False)
+    assert tables["status"]["n_used"].iloc[0] == len(frame)
+    assert cc["status"]["n_used"].iloc[0] == int(frame["z"].notna().sum())
+
+
+def test_complete_case_key_leaves_the_tables_unchanged():
+    from unbin.pipeline.jobs import analyse
+
+    frame = _registry_frame(300)
+    plain, _ = analyse(_spec(None), "c", "a", frame, resampling=False)
+    keyed, _ = analyse(_spec({"method": "complete_case"}), "c", "a", frame, resampling=False)
+    for name, df in plain.items():
+        pd.testing.assert_frame_equal(df, keyed[name])

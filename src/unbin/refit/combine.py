@@ -10,6 +10,7 @@
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -115,6 +116,53 @@ def d1(coefs: Sequence[np.ndarray], covs: Sequence[np.ndarray]) -> D1:
     return D1(stat, k, float(df), p, r)
 
 
+@dataclass(frozen=True)
+class D2:
+    """Chi-square statistics combined over imputations (D2; Li, Meng, Raghunathan & Rubin
+    1991; van Buuren 2018, sec. 5.3.4): F on (k, df), p and the relative increase in variance."""
+
+    statistic: float
+    k: int
+    df: float
+    p: float
+    r: float
+
+    @property
+    def chi2(self) -> float:
+        return self.k * self.statistic
+
+    @property
+    def fmi(self) -> float:
+        return self.r / (1 + self.r)
+
+
+def d2(chi2: Sequence[float], k: int) -> D2:
+    """D2 from M chi-square statistics on ``k`` df each (for tests whose coefficients are not
+    comparable across the imputed sets, or whose statistic is all that is kept)."""
+    d = np.asarray(chi2, float)
+    m = d.size
+    if m < 2 or k < 1 or not np.isfinite(d).all():
+        return D2(np.nan, k, np.nan, np.nan, np.nan)
+    root = np.sqrt(np.maximum(d, 0.0))
+    r = float((1 + 1 / m) * root.var(ddof=1))
+    stat = float((d.mean() / k - (m + 1) / (m - 1) * r) / (1 + r))
+    stat = max(stat, 0.0)
+    df = float(k ** (-3 / m) * (m - 1) * (1 + 1 / r) ** 2) if r > 0 else np.inf
+    p = float(stats.f.sf(stat, k, df)) if np.isfinite(df) else float(stats.chi2.sf(stat * k, k))
+    return D2(stat, k, df, p, r)
+
+
+# Text columns that describe a basis built from each imputed set's own values (knots at its
+# quantiles, FP shift and scale) or explain a row: the first set's text is kept.
+VARYING_TEXT = ("detail", "test_detail", "exposure_basis", "adjustment_terms", "fp_detail",
+                "interaction_detail", "basis", "message", "warnings", "reason", "note",
+                "variance", "status")
+
+
+def _is_p(column: str) -> bool:
+    return column == "p" or column.startswith("p_") or column.endswith("_p")
+
+
 def _same(values: list[pd.Series]) -> bool:
     first = values[0].astype(str).to_numpy()
     return all(np.array_equal(first, v.astype(str).to_numpy()) for v in values[1:])
@@ -128,9 +176,12 @@ def combine_tables(tables: Sequence[pd.DataFrame], effect_transform: bool = True
     positions); otherwise the first set's table is returned with a message. ``estimate`` and
     ``se`` are combined by Rubin's rules; ``lower``/``upper`` become t intervals on Barnard-Rubin
     degrees of freedom and, with ``effect`` columns, the effects are the exponentiated ones when
-    the first set's effects were (ratio scales); ``fmi`` is added. Any other numeric column is
-    averaged over the sets (descriptive values such as group medians of the imputed exposure;
-    counts are rounded back to integers). Returns the table and a message ("" when combined)."""
+    the first set's effects were (ratio scales); ``fmi`` and ``df_imputation`` are added. A
+    table with ``statistic``, ``df`` and ``p`` columns (a chi-square test per row) gets them
+    combined by D2; other p-value columns are set missing (p-values are not averaged). Any other
+    numeric column is averaged over the sets (descriptive values such as group medians of the
+    imputed exposure; counts are rounded back to integers). Text columns in ``VARYING_TEXT``
+    keep the first set's text. Returns the table and a message ("" when combined)."""
     first = tables[0]
     if len(tables) == 1 or first.empty:
         return first.copy(), ""
@@ -139,21 +190,38 @@ def combine_tables(tables: Sequence[pd.DataFrame], effect_transform: bool = True
                               "imputed set's table is shown, not combined")
     text = [c for c in first.columns if not pd.api.types.is_numeric_dtype(first[c])
             or pd.api.types.is_bool_dtype(first[c])]
-    text = [c for c in text if c not in ("status", "message", "warnings", "reason", "note")]
-    if not all(_same([t[c] for t in tables]) for c in text):
-        return first.copy(), ("the imputed sets gave tables whose rows differ; the first "
-                              "imputed set's table is shown, not combined")
+    differing = [c for c in text if c not in VARYING_TEXT and not _same([t[c] for t in tables])]
+    if differing:
+        return first.copy(), ("the imputed sets gave tables whose rows differ (in "
+                              f"{', '.join(differing)}); the first imputed set's table is "
+                              "shown, not combined")
     out = first.copy()
-    numeric = [c for c in first.columns if c not in text and c not in
-               ("status", "message", "warnings", "reason", "note")
-               and pd.api.types.is_numeric_dtype(first[c])
-               and not pd.api.types.is_bool_dtype(first[c])]
+    numeric = [c for c in first.columns if c not in text]
+    tested = {"statistic", "df", "p"} <= set(first.columns)
+    if tested:
+        for i in range(len(first)):
+            k = first["df"].iloc[i]
+            if np.isfinite(k) and k >= 1:
+                res = d2([t["statistic"].iloc[i] for t in tables], int(k))
+                out.loc[out.index[i], "statistic"] = res.chi2
+                out.loc[out.index[i], "p"] = res.p
+            else:
+                out.loc[out.index[i], ["statistic", "p"]] = np.nan
+        numeric = [c for c in numeric if c not in ("statistic", "p", "df")]
+    for c in [c for c in numeric if _is_p(c)]:
+        out[c] = np.nan  # p-values are not averaged; the tests are combined in information
+    numeric = [c for c in numeric if not _is_p(c)]
     for c in numeric:
-        stack = np.vstack([t[c].to_numpy(float) for t in tables])
-        with np.errstate(invalid="ignore"):
-            mean = np.nanmean(stack, axis=0) if np.isfinite(stack).any() else stack[0]
+        stack = np.vstack([t[c].to_numpy(float, na_value=np.nan) for t in tables])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-missing columns stay missing
+            mean = np.nanmean(stack, axis=0)
         if pd.api.types.is_integer_dtype(first[c]):
-            out[c] = np.round(mean).astype(first[c].dtype)
+            rounded = pd.Series(np.round(mean), index=out.index)
+            if rounded.notna().all() or pd.api.types.is_extension_array_dtype(first[c]):
+                out[c] = rounded.astype(first[c].dtype)
+            else:
+                out[c] = rounded
         else:
             out[c] = mean
     if "estimate" in first.columns and "se" in first.columns:
