@@ -19,6 +19,10 @@ COLUMNS: dict[str, str] = {
     "loglik": "log-likelihood", "lr_chi2": "LR χ²", "aic": "AIC", "bic": "BIC",
     "c_index": "C-index", "r2": "R²", "converged": "converged", "warnings": "warnings",
     "exposure_basis": "exposure basis", "adjustment_terms": "adjustment terms",
+    # multiple imputation
+    "missing_method": "missing values", "fmi": "missing information",
+    "df_imputation": "df (imputation)", "fmi_added": "missing information, spline adds",
+    "fmi_nonlinearity": "missing information, nonlinearity",
     # information
     "lr_legacy": "LR χ² groups", "df_legacy": "df groups", "lr_linear": "LR χ² linear",
     "df_linear": "df linear", "lr_spline": "LR χ² spline", "df_spline": "df spline",
