@@ -301,3 +301,37 @@ def test_complete_case_key_leaves_the_tables_unchanged():
     keyed, _ = analyse(_spec({"method": "complete_case"}), "c", "a", frame, resampling=False)
     for name, df in plain.items():
         pd.testing.assert_frame_equal(df, keyed[name])
+
+
+@pytest.mark.parametrize("missing, words", [
+    ({"method": "impute", "imputations": 1}, ["imputations", "minimum"]),
+    ({"method": "multiple"}, ["method", "impute"]),
+    ({"method": "impute", "draws": 5}, ["draws"]),
+])
+def test_bad_missing_block_is_a_spec_error_naming_the_field(missing, words):
+    from unbin.errors import SpecError
+
+    with pytest.raises(SpecError) as err:
+        _spec(missing)
+    text = str(err.value)
+    assert "missing" in text
+    assert all(w in text for w in words), text
+
+
+def test_study_level_missing_is_the_default_and_an_analysis_overrides_it():
+    from pathlib import Path
+
+    from unbin.spec import parse_spec
+    from unbin.spec.missing import missing_options
+
+    base = {"outcome": {"type": "binary", "event": "y"}, "exposure": "x"}
+    raw = {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
+           "groupings": {"x": {"cuts": [55, 65]}},
+           "missing": {"method": "impute", "imputations": 7},
+           "analyses": [{"name": "a", **base},
+                        {"name": "b", **base, "missing": {"method": "complete_case"}}]}
+    spec = parse_spec(raw, base=Path("."))
+    assert missing_options(spec, "a").imputations == 7
+    assert missing_options(spec, "a").iterations == 10
+    assert not missing_options(spec, "b").imputed
+    assert "missing" in spec.slice_for("a")  # a study-level change reruns the analysis
