@@ -335,3 +335,49 @@ def test_study_level_missing_is_the_default_and_an_analysis_overrides_it():
     assert missing_options(spec, "a").iterations == 10
     assert not missing_options(spec, "b").imputed
     assert "missing" in spec.slice_for("a")  # a study-level change reruns the analysis
+
+
+@pytest.mark.parametrize("family", ["binary", "continuous", "count", "survival"])
+def test_every_family_runs_imputed_with_combined_tables(family):
+    # Smoke over the families (an exposure, a confounder and a factor modifier all with missing
+    # values): every row is kept, the combined tables carry fmi in [0, 1] and their method.
+    from pathlib import Path
+
+    from unbin.pipeline.jobs import analyse
+    from unbin.spec import parse_spec
+
+    rng = np.random.default_rng(7)
+    n = 300
+    x = rng.normal(60, 15, n)
+    z = rng.normal(size=n) + 0.02 * (x - 60)
+    lp = -1 + 0.03 * (x - 60) + 0.5 * z
+    t = rng.exponential(10 / np.exp(0.5 * lp))
+    frame = pd.DataFrame({
+        "x": np.where(rng.random(n) < 0.05, np.nan, x),
+        "z": np.where(rng.random(n) < 0.15, np.nan, z),
+        "site": np.where(rng.random(n) < 0.05, np.nan, rng.integers(0, 3, n).astype(float)),
+        "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int),
+        "v": lp + rng.normal(size=n), "c": rng.poisson(np.exp(lp)), "pt": np.ones(n),
+        "t": np.minimum(t, 8.0), "d": (t < 8.0).astype(int)})
+    outcome = {"binary": {"type": "binary", "event": "y"},
+               "continuous": {"type": "continuous", "value": "v"},
+               "count": {"type": "count", "count": "c", "persontime": "pt"},
+               "survival": {"type": "survival", "time": "t", "event": "d", "horizon": 5}}
+    raw = {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
+           "groupings": {"x": {"cuts": [50, 60, 70]}},
+           "analyses": [{"name": "a", "outcome": outcome[family], "exposure": "x",
+                         "adjust": ["z"], "by": "site",
+                         "missing": {"method": "impute", "imputations": 2, "iterations": 2}}],
+           "continuous": {"spline_knots": [3, 4]}, "seed": 3}
+    spec = parse_spec(raw, base=Path("."))
+    tables, status = analyse(spec, "c", "a", frame, resampling=False)
+    assert status["status"] == "ok", status["message"]
+    assert status["n_used"] == n
+    for name in ("effects", "curves", "common_contrasts"):
+        df = tables[name]
+        assert len(df) and (df["missing_method"] == "imputed (M = 2)").all()
+        fmi = df["fmi"].dropna()
+        assert len(fmi) and ((fmi >= 0) & (fmi <= 1)).all()
+    info = tables["information"]
+    assert info["statistic"].str.startswith("D1 Wald").all()
+    assert info["nonlinearity_p"].between(0, 1).all()

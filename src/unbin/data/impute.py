@@ -196,6 +196,9 @@ def impute_chained(frame: pd.DataFrame, targets: Sequence[Target], auxiliary: np
                 else:
                     orig = frame[t.column]
                     s = cur[t.column].where(~miss, orig)
-                    cur.loc[miss, t.column] = _categorical(X, s, miss, rng)
+                    drawn = _categorical(X, s, miss, rng)
+                    if pd.api.types.is_numeric_dtype(cur[t.column].dtype):
+                        drawn = drawn.astype(cur[t.column].dtype)
+                    cur.loc[miss, t.column] = drawn
         out.append(cur)
     return out

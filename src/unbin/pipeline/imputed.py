@@ -304,6 +304,8 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                     combined, msg = combine_information(per_set, refits, opts.imputations)
                 elif name == "coefficients":
                     combined, msg = combine_coefficients(per_set)
+                elif name == "density":  # descriptive, suppressed per set: the first set's
+                    combined, msg = per_set[0], ""
                 else:
                     combined, msg = combine_tables(per_set)
                 if msg:

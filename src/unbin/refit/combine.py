@@ -152,11 +152,13 @@ def d2(chi2: Sequence[float], k: int) -> D2:
     return D2(stat, k, df, p, r)
 
 
-# Text columns that describe a basis built from each imputed set's own values (knots at its
-# quantiles, FP shift and scale) or explain a row: the first set's text is kept.
+# Text (and flag) columns that describe a basis built from each imputed set's own values (knots
+# at its quantiles, FP shift and scale), a row's range flags, or explain a row: the first set's
+# are kept.
 VARYING_TEXT = ("detail", "test_detail", "exposure_basis", "adjustment_terms", "fp_detail",
                 "interaction_detail", "basis", "message", "warnings", "reason", "note",
-                "variance", "status")
+                "variance", "status", "in_range", "covers_untrimmed", "extrapolated",
+                "best_form")
 
 
 def _is_p(column: str) -> bool:
