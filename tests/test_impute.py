@@ -386,8 +386,8 @@ def test_every_family_runs_imputed_with_combined_tables(family):
 @pytest.mark.workflow
 def test_demo_sets_complete_cases_beside_imputation(demo_out):
     # The demo (unbin.demo): Marrowby's ages are missing more often after a readmission. The
-    # complete-case analysis drops exactly the rows the imputed one fills, and both are in the
-    # same study-level tables.
+    # complete-case analysis drops the rows the imputed one fills, and both are in the same
+    # study-level tables.
     from unbin.results.tables import read_table
 
     status = read_table(demo_out / "tables" / "status.parquet").set_index(["cohort", "analysis"])
@@ -395,7 +395,9 @@ def test_demo_sets_complete_cases_beside_imputation(demo_out):
     mb = samples[samples["cohort"] == "marrowby"]
     cc = mb[mb["analysis"] == "readmission_sodium"].set_index("step")["rows"]
     mi = mb[mb["analysis"] == "readmission_sodium_imputed"].set_index("step")["rows"]
-    assert cc["dropped: missing age"] == mi["imputed: missing age"] > 0
+    # complete cases drop a row missing both sodium and age at "missing sodium"
+    extra = mi["imputed: missing age"] - cc["dropped: missing age"]
+    assert cc["dropped: missing age"] > 0 and 0 <= extra <= cc["dropped: missing sodium"]
     n_input = status.loc[("marrowby", "readmission_sodium"), "n_input"]
     assert status.loc[("marrowby", "readmission_sodium_imputed"), "n_used"] == n_input
     assert status.loc[("marrowby", "readmission_sodium"), "n_used"] < n_input
