@@ -212,10 +212,6 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
              "exposure": "sodium", "adjust": ["age", "sex"], "by": "diabetes",
              "reported": {"contrast": "low vs normal", "estimate": 1.9, "lower": 1.5,
                           "upper": 2.4}},
-            {"name": "readmission_sodium_imputed",  # the same, missing ages imputed
-             "outcome": {"type": "binary", "event": "readmit30"},
-             "exposure": "sodium", "adjust": ["age", "sex"], "by": "diabetes",
-             "missing": {"method": "impute", "imputations": 5, "iterations": 5}},
             {"name": "death_egfr",
              # time on study from the registry's dates: from diagnosis, at risk from
              # recruitment (delayed entry) to death or censoring; the horizon is 5 years on
@@ -236,6 +232,10 @@ def demo_spec(cohorts: tuple[CohortProfile, ...] = COHORTS,
              "exposure": "urate", "adjust": ["sex"], "by": "age",
              "risk_thresholds": [140],  # predicted mean systolic pressure, mmHg
              "filters": [{"variable": "age", "min": 18}]},
+            {"name": "readmission_sodium_imputed",  # readmission_sodium, ages imputed
+             "outcome": {"type": "binary", "event": "readmit30"},
+             "exposure": "sodium", "adjust": ["age", "sex"], "by": "diabetes",
+             "missing": {"method": "impute", "imputations": 5, "iterations": 5}},
         ],
         "continuous": {"forms": ["linear", "spline", "fp"], "spline_knots": [3, 4, 5]},
         "risk_thresholds": [0.1, 0.2],
