@@ -12,7 +12,8 @@ FP function selection) is recorded, and every set, the first included, is then r
 spline's knots fixed at the chosen ones, the chosen FP1, FP2 and FP functions (their powers,
 shift and scale) and the first set's common basis (curve grid and reference), so the sets'
 tables match row for row. The cost is one full refit plus M refits of some thirty fixed designs,
-not M full FP searches. Each question's table is built per set and combined
+not M full FP searches; the sets are refitted one at a time, each set's tables built and its
+fits kept without their per-row linear predictors, so memory holds one set's refit at a time. Each question's table is built per set and combined
 (:func:`unbin.refit.combine.combine_tables`: Rubin's rules with Barnard–Rubin degrees of
 freedom); the information table's tests by D1 (Wald) on each form's exposure coefficients and
 the interaction test by D2.
@@ -147,6 +148,25 @@ def _refit_fixed(sample: Sample, a: Analysis, fixed: Analysis, spec: Spec, cohor
             r.fits.append(FormFit(ff.form, coding, terms, null.adjust_terms, res, ff.detail,
                                   ff.selected))
     return r
+
+
+class FitsOnly:
+    """The fits of one refit without their per-row linear predictors (what combining the
+    tests needs, and what refitting a set with the first set's choices reads)."""
+
+    def __init__(self, fits: list[Any]):
+        self.fits = fits
+
+    def get(self, form: str, adjustment: str) -> Any:
+        for f in self.fits:
+            if f.form == form and f.adjustment == adjustment and f.selected:
+                return f
+        return None
+
+
+def stripped(fits: list[Any]) -> list[Any]:
+    """The fits without their n-long linear predictors (memory: M sets of some thirty fits)."""
+    return [replace(f, result=replace(f.result, linear_predictor=None)) for f in fits]
 
 
 def _with_method(df: pd.DataFrame, method: str) -> pd.DataFrame:
@@ -284,35 +304,57 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
             raise DataError(f"the imputation models could not be fitted ({exc}); check the "
                             "missing values of " + ", ".join(imputed_columns(a))) from exc
         samples_m = [Sample(s, sample.n_input, sample.dropped) for s in sets]
-        first = refit_analysis(samples_m[0], a, spec, cohort, basis)
-        fixed = _fixed_analysis(a, first)
-        refits = [_refit_fixed(s, a, fixed, spec, cohort, basis or first.basis, first)
-                  for s in samples_m]
+        full = refit_analysis(samples_m[0], a, spec, cohort, basis)  # the choices, once
+        fixed = _fixed_analysis(a, full)
         spline = fixed.continuous.knot_values
         choice = ("choices made on the first imputed set and kept in every set: spline knots "
                   + (", ".join(f"{k:.4g}" for k in spline) if spline else "as specified")
-                  + "; FP " + "; ".join(f"{f.adjustment}: {f.detail}" for f in first.fits
+                  + "; FP " + "; ".join(f"{f.adjustment}: {f.detail}" for f in full.fits
                                         if f.form == "fp")
                   + "; curve grid and reference of the first set")
         notes = [f"{method} of {', '.join(c for c, n in counts.items() if n)}; {choice}"]
-        notes += refits[0].messages + failed_fit_messages(refits[0].fits)
-        partial = bool(failed_fit_messages(refits[0].fits))
-        for name, target in QUESTION_TABLES.items():
+        partial = False
+        common = basis or full.basis
+        first = FitsOnly(stripped(full.fits))  # what the refits of the sets need of it
+        del full
+        per_set: dict[str, list[pd.DataFrame]] = {n: [] for n in QUESTION_TABLES}
+        errors: dict[str, Exception] = {}
+        light: list[FitsOnly] = []
+        # One set at a time: its refit, its tables, then only its coefficients are kept.
+        for k, s in enumerate(samples_m):
+            r = _refit_fixed(s, a, fixed, spec, cohort, common, first)
+            if k == 0:
+                notes += r.messages + failed_fit_messages(r.fits)
+                partial = bool(failed_fit_messages(r.fits))
+            for name, target in QUESTION_TABLES.items():
+                if name in errors:
+                    continue
+                try:
+                    per_set[name].append(_builder(target)(r, spec))
+                except Exception as exc:
+                    if not isinstance(exc, UnbinError):
+                        log.error("internal error in %s/%s, question %s:\n%s", cohort,
+                                  analysis, name, traceback.format_exc())
+                    errors[name] = exc
+            light.append(FitsOnly(stripped(r.fits)))
+            del r
+        for name in QUESTION_TABLES:
             try:
-                per_set = [_builder(target)(r, spec) for r in refits]
+                if name in errors:
+                    raise errors[name]
                 if name == "information":
-                    combined, msg = combine_information(per_set, refits, opts.imputations)
+                    combined, msg = combine_information(per_set[name], light, opts.imputations)
                 elif name == "coefficients":
-                    combined, msg = combine_coefficients(per_set)
+                    combined, msg = combine_coefficients(per_set[name])
                 elif name == "density":  # descriptive, suppressed per set: the first set's
-                    combined, msg = per_set[0], ""
+                    combined, msg = per_set[name][0], ""
                 else:
-                    combined, msg = combine_tables(per_set)
+                    combined, msg = combine_tables(per_set[name])
                 if msg:
                     notes.append(f"{name}: {msg}")
                 tables[name] = _with_method(combined, method)
             except Exception as exc:
-                if not isinstance(exc, UnbinError):
+                if not isinstance(exc, UnbinError) and name not in errors:
                     log.error("internal error in %s/%s, question %s:\n%s", cohort, analysis,
                               name, traceback.format_exc())
                 tables[name] = pd.DataFrame()
