@@ -99,7 +99,19 @@ def simulate(n: int, seed: int = SEED) -> pd.DataFrame:
     return df
 
 
-def spec(bootstrap: int, permutations: int) -> dict[str, Any]:
+def spec(bootstrap: int, permutations: int, imputations: int = 0,
+         only: tuple[str, ...] = ()) -> dict[str, Any]:
+    """The benchmark's spec; ``imputations`` > 0: the missing-data variant (every analysis
+    imputes its missing values, M sets of 5 iterations); ``only``: these analyses alone."""
+    out = _spec(bootstrap, permutations)
+    if imputations:
+        out["missing"] = {"method": "impute", "imputations": imputations, "iterations": 5}
+    if only:
+        out["analyses"] = [a for a in out["analyses"] if a["name"] in only]
+    return out
+
+
+def _spec(bootstrap: int, permutations: int) -> dict[str, Any]:
     surv = {"type": "survival", "time": "followup_years", "event": "died"}
     return {
         "study": "registry-benchmark",
@@ -145,12 +157,14 @@ def spec(bootstrap: int, permutations: int) -> dict[str, Any]:
     }
 
 
-def write_inputs(folder: Path, rows: int, bootstrap: int, permutations: int) -> Path:
+def write_inputs(folder: Path, rows: int, bootstrap: int, permutations: int,
+                 imputations: int = 0, only: tuple[str, ...] = ()) -> Path:
     (folder / "data").mkdir(parents=True, exist_ok=True)
     simulate(rows).to_parquet(folder / "data" / "registry.parquet", index=False)
     path = folder / "spec.yaml"
     path.write_text("# Invented registry for benchmarks/registry.py\n"
-                    + yaml.safe_dump(spec(bootstrap, permutations), sort_keys=False),
+                    + yaml.safe_dump(spec(bootstrap, permutations, imputations, only),
+                                     sort_keys=False),
                     encoding="utf-8")
     return path
 
@@ -238,8 +252,8 @@ def slowest_jobs(out: Path, k: int = 5) -> list[dict[str, Any]]:
 
 
 def measure(rows: int, cores: int, bootstrap: int, permutations: int,
-            folder: Path) -> dict[str, Any]:
-    spec_path = write_inputs(folder, rows, bootstrap, permutations)
+            folder: Path, imputations: int = 0, only: tuple[str, ...] = ()) -> dict[str, Any]:
+    spec_path = write_inputs(folder, rows, bootstrap, permutations, imputations, only)
     extract = folder / "data" / "registry.parquet"
     ref = reference_fit_seconds(extract)
     result = run_unbin(spec_path, folder / "out", cores)
@@ -249,7 +263,8 @@ def measure(rows: int, cores: int, bootstrap: int, permutations: int,
 
     return {
         "rows": rows, "columns": len(pq.read_schema(extract).names),
-        "analyses": len(spec(bootstrap, permutations)["analyses"]), "cores": cores,
+        "analyses": len(spec(bootstrap, permutations, imputations, only)["analyses"]),
+        "cores": cores, "imputations": imputations,
         "bootstrap": bootstrap,
         "permutations": permutations, "extract_mb": round(extract.stat().st_size / 2**20, 1),
         **result,
@@ -290,11 +305,17 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--keep", type=Path, default=None,
                         help="write inputs and results here and keep them (default: a temporary "
                              "folder, removed afterwards)")
+    parser.add_argument("--imputations", type=int, default=0,
+                        help="the missing-data variant: impute every analysis' missing values "
+                             "(M sets; 0, the default: complete cases)")
+    parser.add_argument("--only", default="",
+                        help="comma-separated analysis names to run (default: all ten)")
     parser.add_argument("--json", action="store_true", help="print one JSON object")
     args = parser.parse_args(argv)
     folder = args.keep or Path(tempfile.mkdtemp(prefix="unbin-registry-"))
     try:
-        result = measure(args.rows, args.cores, args.bootstrap, args.permutations, folder)
+        result = measure(args.rows, args.cores, args.bootstrap, args.permutations, folder,
+                         args.imputations, tuple(n for n in args.only.split(",") if n))
     finally:
         if args.keep is None:
             shutil.rmtree(folder, ignore_errors=True)

@@ -151,7 +151,7 @@ def _load_or_spec_error(raw: Any, base: Path) -> Spec | None:
 
 def test_the_unmutated_spec_is_usable(tmp_path: Path) -> None:
     spec = _load_or_spec_error(full_spec(), tmp_path)
-    assert spec is not None and len(spec.analyses) == 4
+    assert spec is not None and len(spec.analyses) == 5
 
 
 @settings(FUZZ, max_examples=1000)

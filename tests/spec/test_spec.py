@@ -48,9 +48,10 @@ def test_demo_spec_passes_check(demo: tuple[Path, dict[str, Any]],
     # note (counts suppressed), not a problem.
     notes = out.count("hold fewer than disclosure.min_cell = 10 rows")
     assert rc == 0 and listed == notes
-    assert "is usable: 3 cohort(s), 4 analysis(es)" in out
+    assert "is usable: 3 cohort(s), 5 analysis(es)" in out
     spec = load_spec(spec_path)
-    assert [a.family for a in spec.analyses] == ["binary", "survival", "count", "continuous"]
+    assert [a.family for a in spec.analyses] == ["binary", "survival", "count", "continuous",
+                                                "binary"]
 
 
 def test_unknown_key_and_unsorted_cuts_are_each_reported(

@@ -41,8 +41,8 @@ def test_demo_command_contract(demo_out: Path) -> None:
 
 def test_every_analysis_completed(demo_out: Path) -> None:
     status = read_table(demo_out / "tables" / "status.parquet")
-    assert set(status["analysis"]) == {"readmission_sodium", "death_egfr", "visits_bmi",
-                                       "sbp_urate"}
+    assert set(status["analysis"]) == {"readmission_sodium", "readmission_sodium_imputed",
+                                       "death_egfr", "visits_bmi", "sbp_urate"}
     assert set(status["cohort"]) == {c.name for c in COHORTS}
     assert (status["status"] == "ok").all(), status[["analysis", "status", "message"]]
 

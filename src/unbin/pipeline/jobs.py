@@ -37,7 +37,9 @@ from ..questions.missingness import missingness_table
 from ..results.provenance import provenance
 from ..results.tables import read_table, write_table
 from ..spec import Spec, digest, load_spec
+from ..spec.missing import missing_options
 from ..terms.legacy import legacy_term
+from .imputed import analyse_imputed
 
 if TYPE_CHECKING:
     from ..refit.analysis import Refit
@@ -96,6 +98,8 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
     status, never raised: the other analyses must complete.
     """
     a = spec.analysis(analysis)
+    if missing_options(spec, analysis).imputed:  # multiple imputation: its own module
+        return analyse_imputed(spec, cohort, analysis, frame, basis, resampling=resampling)
     status: dict[str, Any] = {"status": "ok", "message": "", "n_input": len(frame), "n_used": 0,
                               "family": a.family, "exposure": a.exposure}
     tables: dict[str, pd.DataFrame] = {}

@@ -23,6 +23,10 @@ _FITS: dict[str, str] = {
     "loglik": "log-likelihood", "lr_chi2": "LR χ²", "aic": "AIC", "bic": "BIC",
     "c_index": "C-index", "r2": "R²", "converged": "converged", "warnings": "warnings",
     "exposure_basis": "exposure basis", "adjustment_terms": "adjustment terms",
+    # multiple imputation
+    "missing_method": "missing values", "fmi": "missing information",
+    "df_imputation": "df (imputation)", "fmi_added": "missing information, spline adds",
+    "fmi_nonlinearity": "missing information, nonlinearity",
 }
 
 # Labels of the information table.

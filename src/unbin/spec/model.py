@@ -384,7 +384,7 @@ class Spec:
             "disclosure": self.raw.get("disclosure", {}),
             "seed": self.seed,
             **{k: self.raw[k] for k in ("resampling", "cutpoint_search", "horizon", "weights",
-                                        "cluster") if k in self.raw},
+                                        "cluster", "missing") if k in self.raw},
         }
 
 

@@ -1,0 +1,402 @@
+"""An analysis under multiple imputation (``missing: {method: impute}``).
+
+The analysis sample keeps the rows whose exposure, adjusters or ``by`` are missing (filters,
+a missing outcome, stratum, weight or cluster and impossible follow-up still drop rows, as with
+complete cases); :func:`unbin.data.impute.impute_chained` fills them M times, with the outcome
+in every imputation model (binary: the event; continuous: the value; count: the count and the
+log person-time; survival: the event and the Nelson–Aalen cumulative hazard, White & Royston
+2009). Splines, legacy groups and FP powers are then built from each set's imputed raw values.
+
+Choices are made once, on the first imputed set: the full refit there (spline knots by AIC, the
+FP function selection) is recorded, and every set, the first included, is then refitted with the
+spline's knots fixed at the chosen ones, the chosen FP1, FP2 and FP functions (their powers,
+shift and scale) and the first set's common basis (curve grid and reference), so the sets'
+tables match row for row. The cost is one full refit plus M refits of some thirty fixed designs,
+not M full FP searches; the sets are refitted one at a time, each set's tables built and its
+fits kept without their per-row linear predictors, so memory holds one set's refit at a time. Each question's table is built per set and combined
+(:func:`unbin.refit.combine.combine_tables`: Rubin's rules with Barnard–Rubin degrees of
+freedom); the information table's tests by D1 (Wald) on each form's exposure coefficients and
+the interaction test by D2.
+"""
+
+from __future__ import annotations
+
+import logging
+import traceback
+from dataclasses import replace
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..consortium.basis import CommonBasis
+from ..data import MIN_SAMPLE_ROWS, Sample, _type_problems, analysis_sample
+from ..data.impute import Target, impute_chained, nelson_aalen
+from ..errors import DataError, UnbinError
+from ..spec import Analysis, Spec
+from ..spec.missing import MissingOptions, missing_options
+from ..terms.roles import variable_role
+
+log = logging.getLogger("unbin")
+
+ROW = "__unbin_row"
+METHOD_COLUMN = "missing_method"
+
+
+def imputed_columns(a: Analysis) -> tuple[str, ...]:
+    """The columns imputation fills: the exposure, the adjusters and ``by`` (never the outcome,
+    strata, weights or clusters)."""
+    fixed = {*a.outcome.columns, *a.strata, *((a.weights.column,) if a.weights else ()),
+             *((a.cluster,) if a.cluster else ())}
+    return tuple(c for c in dict.fromkeys([a.exposure, *a.adjust, *([a.by] if a.by else [])])
+                 if c not in fixed)
+
+
+def incomplete_sample(frame: pd.DataFrame, a: Analysis, spec: Spec
+                      ) -> tuple[Sample, dict[str, int]]:
+    """The analysis sample with the imputed columns' missing values kept (NaN), and the count of
+    missing values per imputed column in it."""
+    cols = imputed_columns(a)
+    work = frame.copy()
+    work[ROW] = np.arange(len(work))
+    masks = {c: work[c].isna().to_numpy() for c in cols}
+    for c in cols:
+        observed = work[c].dropna()
+        if observed.empty:
+            raise DataError(f"column {c!r} is missing in every row of the extract; it cannot be "
+                            "imputed. Remove it from the analysis or fill it in the extract.")
+        work.loc[masks[c], c] = observed.iloc[0]  # a placeholder, removed again below
+    sample = analysis_sample(work, a, spec)
+    out = sample.frame
+    rows = out[ROW].to_numpy()
+    counts = {}
+    for c in cols:
+        miss = masks[c][rows]
+        out.loc[miss, c] = np.nan
+        counts[c] = int(miss.sum())
+    dropped = tuple(d for d in sample.dropped
+                    if not (d[0].startswith("missing ") and d[0][8:] in cols))
+    return Sample(out.drop(columns=ROW), sample.n_input, dropped), counts
+
+
+def outcome_auxiliary(sample: Sample, a: Analysis) -> np.ndarray:
+    """The outcome as it enters every imputation model (White & Royston 2009 for survival)."""
+    df = sample.frame
+    o = a.outcome
+    if a.family == "binary":
+        return df[[o.event]].to_numpy(float)
+    if a.family == "continuous":
+        return df[[o.value]].to_numpy(float)
+    if a.family == "count":
+        assert o.count is not None and o.persontime is not None
+        return np.column_stack([df[o.count].to_numpy(float),
+                                np.log(df[o.persontime].to_numpy(float))])
+    assert o.time is not None and o.event is not None
+    entry = df[o.entry].to_numpy(float) if o.entry else None
+    event = df[o.event].to_numpy(float)
+    return np.column_stack([event, nelson_aalen(df[o.time].to_numpy(float), event, entry)])
+
+
+def _targets(sample: Sample, a: Analysis, spec: Spec) -> list[Target]:
+    out = []
+    for c in imputed_columns(a):
+        s = sample.frame[c]
+        numeric = (pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)
+                   and variable_role(c, spec, s) != "factor")
+        out.append(Target(c, "numeric" if numeric else "categorical"))
+    return out
+
+
+def _fixed_analysis(a: Analysis, first: Any) -> Analysis:
+    """The analysis with the first set's choices fixed: the drawn spline's knots (AIC chose
+    them there; the continuous coding's choice, else the legacy one's) and no FP search (the
+    chosen FP functions are refitted by :func:`_refit_fixed`)."""
+    spline = first.get("spline", "continuous") or first.get("spline", "legacy")
+    knots = None
+    if spline is not None and spline.exposure_terms:
+        knots = tuple(float(k) for k in spline.exposure_terms[0].knots)
+    forms = tuple(f for f in a.continuous.forms if f != "fp")
+    if not forms:
+        forms = ("linear",)
+    opts = replace(a.continuous, forms=forms,
+                   knot_values=knots if knots is not None else a.continuous.knot_values)
+    return replace(a, continuous=opts)
+
+
+def _refit_fixed(sample: Sample, a: Analysis, fixed: Analysis, spec: Spec, cohort: str,
+                 basis: CommonBasis | None, first: Any) -> Any:
+    """One imputed set refitted with the first set's choices."""
+    from ..refit.analysis import FormFit, _Fitter, refit_analysis, with_powers_counted
+    from ..terms import FPTerm
+
+    r = refit_analysis(sample, fixed, spec, cohort, basis)
+    r = replace(r, analysis=a)
+    if "fp" not in a.continuous.forms:
+        return r
+    f = _Fitter(r, sample.frame)
+    for coding in ("legacy", "continuous"):
+        null = r.get("null", coding)
+        if null is None:
+            continue
+        for ff in first.fits:
+            if ff.adjustment != coding or ff.form not in ("fp1", "fp2", "fp"):
+                continue
+            res = f.run(ff.exposure_terms, null.adjust_terms)
+            terms = ff.exposure_terms
+            if len(terms) == 1 and isinstance(terms[0], FPTerm):
+                res = with_powers_counted(res, terms[0])
+            r.fits.append(FormFit(ff.form, coding, terms, null.adjust_terms, res, ff.detail,
+                                  ff.selected))
+    return r
+
+
+class FitsOnly:
+    """The fits of one refit without their per-row linear predictors (what combining the
+    tests needs, and what refitting a set with the first set's choices reads)."""
+
+    def __init__(self, fits: list[Any]):
+        self.fits = fits
+
+    def get(self, form: str, adjustment: str) -> Any:
+        for f in self.fits:
+            if f.form == form and f.adjustment == adjustment and f.selected:
+                return f
+        return None
+
+
+def stripped(fits: list[Any]) -> list[Any]:
+    """The fits without their n-long linear predictors (memory: M sets of some thirty fits)."""
+    return [replace(f, result=replace(f.result, linear_predictor=None)) for f in fits]
+
+
+def _with_method(df: pd.DataFrame, method: str) -> pd.DataFrame:
+    df = df.copy()
+    df[METHOD_COLUMN] = method
+    return df
+
+
+def combine_information(tables: list[pd.DataFrame], refits: list[Any], m: int
+                        ) -> tuple[pd.DataFrame, str]:
+    """The information table over the sets: each form's exposure statistic by D1 (Wald, on the
+    chi-square scale: k x F), info_kept their ratio, the added-beyond-the-groups and
+    nonlinearity tests by D1 on the test spline's coefficients, the interaction test by D2;
+    C-indices and AICs averaged over the sets (best_form from the averaged AICs)."""
+    from ..refit.combine import combine_tables, d1, d2
+
+    out, msg = combine_tables(tables)
+    if msg or out.empty:
+        return out, msg
+    forms = {"legacy": "legacy", "linear": "linear", "spline": "spline", "fp": "fp",
+             "test_spline": "test_spline", "legacy_plus_spline": "legacy+test_spline"}
+
+    def test(fits: list[Any], names: list[tuple[str, ...]]) -> Any:
+        if any(ff is None or not ff.result.ok for ff in fits) or not names[0]:
+            return None
+        idx = [ff.result.index(n) for ff, n in zip(fits, names, strict=True)]
+        try:
+            return d1([ff.result.coef[i] for ff, i in zip(fits, idx, strict=True)],
+                      [ff.result.cov[np.ix_(i, i)] for ff, i in zip(fits, idx, strict=True)])
+        except (np.linalg.LinAlgError, ValueError):
+            return None
+
+    fmi_added, fmi_nonlin = [], []
+    for i, coding in enumerate(out["adjustment"]):
+        chi2 = {}
+        for key, form in forms.items():
+            fits = [r.get(form, coding) for r in refits]
+            res = test(fits, [ff.exposure_names if ff is not None else () for ff in fits])
+            chi2[key] = res.chi2 if res is not None else np.nan
+            col = f"lr_{key}"
+            out.loc[out.index[i], col] = chi2[key]
+        full = chi2["legacy_plus_spline"]
+        out.loc[out.index[i], "info_kept"] = (chi2["legacy"] / full if np.isfinite(full)
+                                              and full > 0 else np.nan)
+        tests = [r.get("test_spline", coding) for r in refits]
+        both = [r.get("legacy+test_spline", coding) for r in refits]
+        names = [t.exposure_names if t is not None else () for t in tests]
+        added = test(both, names)
+        nonlin = test(tests, [n[1:] for n in names])
+        for prefix, res in (("added", added), ("nonlinearity", nonlin)):
+            out.loc[out.index[i], f"{prefix}_lr"] = res.chi2 if res is not None else np.nan
+            out.loc[out.index[i], f"{prefix}_p"] = res.p if res is not None else np.nan
+        fmi_added.append(added.fmi if added is not None else np.nan)
+        fmi_nonlin.append(nonlin.fmi if nonlin is not None else np.nan)
+        k = out["interaction_df"].iloc[i]
+        if np.isfinite(k) and k >= 1:
+            inter = d2([t["interaction_lr"].iloc[i] for t in tables], int(k))
+            out.loc[out.index[i], "interaction_lr"] = inter.chi2
+            out.loc[out.index[i], "interaction_p"] = inter.p
+        aics = {f: out[f"aic_{f}"].iloc[i] for f in ("legacy", "linear", "spline", "fp")}
+        aics = {f: v for f, v in aics.items() if np.isfinite(v)}
+        out.loc[out.index[i], "best_form"] = min(aics, key=lambda f: aics[f]) if aics else ""
+    out["statistic"] = (f"D1 Wald, combined over {m} imputed sets (k x F; Li, Raghunathan & "
+                        "Rubin 1991)")
+    out["fmi_added"] = fmi_added
+    out["fmi_nonlinearity"] = fmi_nonlin
+    return out, ""
+
+
+def combine_coefficients(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]:
+    """The common-knot spline's coefficients over the sets (long: one row per pair i, j): the
+    mean coefficient and Rubin's total covariance W + (1 + 1/M) B, B the between-set
+    covariance of the coefficient vectors, so that pooling across cohorts sees the imputation
+    uncertainty."""
+    from ..refit.combine import combine_tables
+
+    out, msg = combine_tables(tables)
+    if msg or out.empty:
+        return out, msg
+    m = len(tables)
+    for coding in out["adjustment"].unique():
+        rows = (out["adjustment"] == coding).to_numpy()
+        i = out.loc[rows, "i"].to_numpy(int)
+        j = out.loc[rows, "j"].to_numpy(int)
+        diag = i == j
+        order = np.argsort(i[diag])
+        vectors = np.vstack([t.loc[rows, "coef"].to_numpy(float)[diag][order] for t in tables])
+        between = np.atleast_2d(np.cov(vectors.T, ddof=1))
+        idx = np.searchsorted(i[diag][order], i), np.searchsorted(i[diag][order], j)
+        out.loc[rows, "cov"] = (out.loc[rows, "cov"].to_numpy(float)
+                                + (1 + 1 / m) * between[idx])
+    return out, ""
+
+
+def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
+                    basis: CommonBasis | None = None, opts: MissingOptions | None = None,
+                    resampling: bool = False
+                    ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
+    """Every fit-job table of one analysis under multiple imputation, and its status record
+    (problems recorded, never raised, as in :func:`unbin.pipeline.jobs.analyse`); with
+    ``resampling`` also the resampling tables, on complete cases."""
+    from ..pipeline.jobs import _builder, failed_fit_messages
+    from ..questions import QUESTION_TABLES
+    from ..refit.analysis import refit_analysis
+    from ..refit.combine import combine_tables
+
+    a = spec.analysis(analysis)
+    opts = opts or missing_options(spec, analysis)
+    method = f"imputed (M = {opts.imputations})"
+    status: dict[str, Any] = {"status": "ok", "message": "", "n_input": len(frame), "n_used": 0,
+                              "family": a.family, "exposure": a.exposure}
+    tables: dict[str, pd.DataFrame] = {}
+    samples = pd.DataFrame({"step": pd.Series(dtype=str), "rows": pd.Series(dtype="int64")})
+    try:
+        problems = _type_problems(a, frame, spec)
+        if problems:
+            raise DataError(" ".join(problems))
+        sample, counts = incomplete_sample(frame, a, spec)
+        samples = pd.DataFrame(
+            [("rows in extract", sample.n_input)]
+            + [(f"dropped: {reason}", n) for reason, n in sample.dropped]
+            + [(f"imputed: missing {c}", n) for c, n in counts.items()]
+            + [("analysis sample", sample.n), ("imputed sets", opts.imputations)],
+            columns=["step", "rows"])
+        status["n_used"] = sample.n
+        if sample.n < MIN_SAMPLE_ROWS:
+            raise DataError(f"only {sample.n} rows are left after filters and follow-up checks; "
+                            "check the filters (see samples.parquet).")
+        aux = outcome_auxiliary(sample, a)
+        rng = spec.rng(analysis, f"imputation\x00{cohort}")
+        try:
+            sets = impute_chained(sample.frame, _targets(sample, a, spec), aux,
+                                  opts.imputations, opts.iterations, rng)
+        except (ValueError, np.linalg.LinAlgError) as exc:
+            raise DataError(f"the imputation models could not be fitted ({exc}); check the "
+                            "missing values of " + ", ".join(imputed_columns(a))) from exc
+        samples_m = [Sample(s, sample.n_input, sample.dropped) for s in sets]
+        full = refit_analysis(samples_m[0], a, spec, cohort, basis)  # the choices, once
+        fixed = _fixed_analysis(a, full)
+        spline = fixed.continuous.knot_values
+        choice = ("choices made on the first imputed set and kept in every set: spline knots "
+                  + (", ".join(f"{k:.4g}" for k in spline) if spline else "as specified")
+                  + "; FP " + "; ".join(f"{f.adjustment}: {f.detail}" for f in full.fits
+                                        if f.form == "fp")
+                  + "; curve grid and reference of the first set")
+        notes = [f"{method} of {', '.join(c for c, n in counts.items() if n)}; {choice}"]
+        partial = False
+        common = basis or full.basis
+        first = FitsOnly(stripped(full.fits))  # what the refits of the sets need of it
+        del full
+        per_set: dict[str, list[pd.DataFrame]] = {n: [] for n in QUESTION_TABLES}
+        errors: dict[str, Exception] = {}
+        light: list[FitsOnly] = []
+        # One set at a time: its refit, its tables, then only its coefficients are kept.
+        for k, s in enumerate(samples_m):
+            r = _refit_fixed(s, a, fixed, spec, cohort, common, first)
+            if k == 0:
+                notes += r.messages + failed_fit_messages(r.fits)
+                partial = bool(failed_fit_messages(r.fits))
+            for name, target in QUESTION_TABLES.items():
+                if name in errors:
+                    continue
+                try:
+                    per_set[name].append(_builder(target)(r, spec))
+                except Exception as exc:
+                    if not isinstance(exc, UnbinError):
+                        log.error("internal error in %s/%s, question %s:\n%s", cohort,
+                                  analysis, name, traceback.format_exc())
+                    errors[name] = exc
+            light.append(FitsOnly(stripped(r.fits)))
+            del r
+        for name in QUESTION_TABLES:
+            try:
+                if name in errors:
+                    raise errors[name]
+                if name == "information":
+                    combined, msg = combine_information(per_set[name], light, opts.imputations)
+                elif name == "coefficients":
+                    combined, msg = combine_coefficients(per_set[name])
+                elif name == "density":  # descriptive, suppressed per set: the first set's
+                    combined, msg = per_set[name][0], ""
+                else:
+                    combined, msg = combine_tables(per_set[name])
+                if msg:
+                    notes.append(f"{name}: {msg}")
+                tables[name] = _with_method(combined, method)
+            except Exception as exc:
+                if not isinstance(exc, UnbinError) and name not in errors:
+                    log.error("internal error in %s/%s, question %s:\n%s", cohort, analysis,
+                              name, traceback.format_exc())
+                tables[name] = pd.DataFrame()
+                partial = True
+                notes.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its "
+                             "table is empty, the other tables are complete")
+        notes.append("the resampling tables (confounding, cutpoints) use complete cases")
+        if partial:
+            status["status"] = "partial"
+        status["message"] = " | ".join(dict.fromkeys(notes))
+    except UnbinError as exc:
+        status.update(status="failed", message=str(exc))
+        tables = {}
+    except Exception as exc:  # an internal error must not stop the other analyses
+        log.error("internal error in %s/%s:\n%s", cohort, analysis, traceback.format_exc())
+        status.update(status="error",
+                      message=f"internal error ({type(exc).__name__}: {exc}); please report it "
+                              "with the log file of this job.")
+        tables = {}
+    if resampling and status["status"] in ("ok", "partial"):
+        tables.update(_complete_case_resampling(spec, cohort, analysis, frame, method))
+    tables["samples"] = samples
+    tables["status"] = pd.DataFrame([status])
+    return tables, status
+
+
+def _complete_case_resampling(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
+                              method: str) -> dict[str, pd.DataFrame]:
+    """The resampling questions on the complete-case sample (they are not imputed)."""
+    from ..pipeline.jobs import _builder
+    from ..questions import RESAMPLING_TABLES
+    from ..refit.analysis import bare_refit
+
+    a = spec.analysis(analysis)
+    out: dict[str, pd.DataFrame] = {}
+    try:
+        sample = analysis_sample(frame, a, spec)
+        if sample.n < MIN_SAMPLE_ROWS:
+            return out
+        r = bare_refit(sample, a, spec, cohort)
+        for name, target in RESAMPLING_TABLES.items():
+            out[name] = _builder(target)(r, spec)
+    except UnbinError:
+        pass
+    return out

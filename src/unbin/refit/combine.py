@@ -1,0 +1,247 @@
+"""Combining the analyses of M imputed data sets.
+
+- :func:`rubin`: Rubin's rules (Rubin 1987) for scalar estimates, with the degrees of freedom of
+  Barnard & Rubin (1999) and the fraction of missing information.
+- :func:`d1`: the multivariate Wald test of several coefficients combined over imputations (D1;
+  Li, Raghunathan & Rubin 1991; van Buuren 2018, sec. 5.3.3), with its denominator degrees of
+  freedom and fraction of missing information.
+- :func:`combine_tables`: one question's per-imputation tables, row by row, into one table.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+Z = 0.975  # two-sided 95% intervals
+
+
+@dataclass(frozen=True)
+class Pooled:
+    """Rubin's rules, elementwise: the pooled estimate, within, between and total variance,
+    the degrees of freedom, lambda = (1 + 1/M) B / T and the fraction of missing information
+    (Rubin 1987, eq. 3.1.10; van Buuren 2018, eq. 2.24)."""
+
+    estimate: np.ndarray
+    within: np.ndarray
+    between: np.ndarray
+    total: np.ndarray
+    df: np.ndarray
+    lam: np.ndarray
+    fmi: np.ndarray
+
+    @property
+    def se(self) -> np.ndarray:
+        return np.sqrt(self.total)
+
+    def interval(self, level: float = Z) -> tuple[np.ndarray, np.ndarray]:
+        t = stats.t.ppf(level, np.where(np.isfinite(self.df), self.df, 1e12))
+        return self.estimate - t * self.se, self.estimate + t * self.se
+
+
+def rubin(estimates: np.ndarray, ses: np.ndarray, df_complete: float = np.inf) -> Pooled:
+    """Rubin's rules over the first axis (imputations) of ``estimates`` and ``ses``.
+
+    Degrees of freedom: Barnard & Rubin (1999) with the complete-data ``df_complete`` (infinite
+    by default: then Rubin's 1987 (M - 1) / lambda^2); infinite when nothing varies between
+    imputations."""
+    q = np.asarray(estimates, float)
+    u = np.asarray(ses, float) ** 2
+    m = q.shape[0]
+    if m < 2:
+        raise ValueError("Rubin's rules need at least two imputations")
+    qbar = q.mean(axis=0)
+    w = u.mean(axis=0)
+    b = q.var(axis=0, ddof=1)
+    total = w + (1 + 1 / m) * b
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lam = np.where(total > 0, (1 + 1 / m) * b / total, 0.0)
+        df_old = np.where(lam > 0, (m - 1) / lam**2, np.inf)
+        if np.isfinite(df_complete):
+            df_obs = (df_complete + 1) / (df_complete + 3) * df_complete * (1 - lam)
+            df = np.where(np.isfinite(df_old), df_old * df_obs / (df_old + df_obs), df_obs)
+        else:
+            df = df_old
+        r = np.where(w > 0, (1 + 1 / m) * b / w, 0.0)
+        fmi = np.where(np.isfinite(df), (r + 2 / (df + 3)) / (1 + r), lam)
+    return Pooled(qbar, w, b, total, df, lam, fmi)
+
+
+@dataclass(frozen=True)
+class D1:
+    """The combined Wald test: F statistic on (k, df) degrees of freedom, its p-value, the
+    relative increase in variance r and the fraction of missing information r / (1 + r)."""
+
+    statistic: float
+    k: int
+    df: float
+    p: float
+    r: float
+
+    @property
+    def chi2(self) -> float:
+        """k x F, the statistic on the chi-square scale of the other information columns."""
+        return self.k * self.statistic
+
+    @property
+    def fmi(self) -> float:
+        return self.r / (1 + self.r)
+
+
+def d1(coefs: Sequence[np.ndarray], covs: Sequence[np.ndarray]) -> D1:
+    """D1 of H0: theta = 0 for k coefficients, from their estimates and covariances in M
+    imputed sets (Li, Raghunathan & Rubin 1991; van Buuren 2018, eqs. 5.4-5.7)."""
+    q = np.asarray(coefs, float)
+    if q.ndim == 1:
+        q = q[:, None]
+    m, k = q.shape
+    ubar = np.mean(np.asarray(covs, float).reshape(m, k, k), axis=0)
+    qbar = q.mean(axis=0)
+    b = np.atleast_2d(np.cov(q.T, ddof=1))
+    r = float((1 + 1 / m) * np.trace(b @ np.linalg.inv(ubar)) / k)
+    stat = float(qbar @ np.linalg.solve(ubar, qbar) / (k * (1 + r)))
+    t = k * (m - 1)
+    if r <= 0:
+        df = np.inf
+    elif t > 4:
+        df = 4 + (t - 4) * (1 + (1 - 2 / t) / r) ** 2
+    else:
+        df = t * (1 + 1 / k) * (1 + r) ** 2 / 2
+    p = float(stats.f.sf(stat, k, df)) if np.isfinite(df) else float(stats.chi2.sf(stat * k, k))
+    return D1(stat, k, float(df), p, r)
+
+
+@dataclass(frozen=True)
+class D2:
+    """Chi-square statistics combined over imputations (D2; Li, Meng, Raghunathan & Rubin
+    1991; van Buuren 2018, sec. 5.3.4): F on (k, df), p and the relative increase in variance."""
+
+    statistic: float
+    k: int
+    df: float
+    p: float
+    r: float
+
+    @property
+    def chi2(self) -> float:
+        return self.k * self.statistic
+
+    @property
+    def fmi(self) -> float:
+        return self.r / (1 + self.r)
+
+
+def d2(chi2: Sequence[float], k: int) -> D2:
+    """D2 from M chi-square statistics on ``k`` df each (for tests whose coefficients are not
+    comparable across the imputed sets, or whose statistic is all that is kept)."""
+    d = np.asarray(chi2, float)
+    m = d.size
+    if m < 2 or k < 1 or not np.isfinite(d).all():
+        return D2(np.nan, k, np.nan, np.nan, np.nan)
+    root = np.sqrt(np.maximum(d, 0.0))
+    r = float((1 + 1 / m) * root.var(ddof=1))
+    stat = float((d.mean() / k - (m + 1) / (m - 1) * r) / (1 + r))
+    stat = max(stat, 0.0)
+    df = float(k ** (-3 / m) * (m - 1) * (1 + 1 / r) ** 2) if r > 0 else np.inf
+    p = float(stats.f.sf(stat, k, df)) if np.isfinite(df) else float(stats.chi2.sf(stat * k, k))
+    return D2(stat, k, df, p, r)
+
+
+# Text (and flag) columns that describe a basis built from each imputed set's own values (knots
+# at its quantiles, FP shift and scale), a row's range flags, or explain a row: the first set's
+# are kept.
+VARYING_TEXT = ("detail", "test_detail", "exposure_basis", "adjustment_terms", "fp_detail",
+                "interaction_detail", "basis", "message", "warnings", "reason", "note",
+                "variance", "status", "in_range", "covers_untrimmed", "extrapolated",
+                "best_form")
+
+
+def _is_p(column: str) -> bool:
+    return column == "p" or column.startswith("p_") or column.endswith("_p")
+
+
+def _same(values: list[pd.Series]) -> bool:
+    first = values[0].astype(str).to_numpy()
+    return all(np.array_equal(first, v.astype(str).to_numpy()) for v in values[1:])
+
+
+def combine_tables(tables: Sequence[pd.DataFrame], effect_transform: bool = True
+                   ) -> tuple[pd.DataFrame, str]:
+    """Combine one question's tables from M imputed sets into one.
+
+    The tables must match row for row in every text column (the same forms, contrasts, grid
+    positions); otherwise the first set's table is returned with a message. ``estimate`` and
+    ``se`` are combined by Rubin's rules; ``lower``/``upper`` become t intervals on Barnard-Rubin
+    degrees of freedom and, with ``effect`` columns, the effects are the exponentiated ones when
+    the first set's effects were (ratio scales); ``fmi`` and ``df_imputation`` are added. A
+    table with ``statistic``, ``df`` and ``p`` columns (a chi-square test per row) gets them
+    combined by D2; other p-value columns are set missing (p-values are not averaged). Any other
+    numeric column is averaged over the sets (descriptive values such as group medians of the
+    imputed exposure; counts are rounded back to integers). Text columns in ``VARYING_TEXT``
+    keep the first set's text. Returns the table and a message ("" when combined)."""
+    first = tables[0]
+    if len(tables) == 1 or first.empty:
+        return first.copy(), ""
+    if any(len(t) != len(first) or list(t.columns) != list(first.columns) for t in tables[1:]):
+        return first.copy(), ("the imputed sets gave tables of different shapes; the first "
+                              "imputed set's table is shown, not combined")
+    text = [c for c in first.columns if not pd.api.types.is_numeric_dtype(first[c])
+            or pd.api.types.is_bool_dtype(first[c])]
+    differing = [c for c in text if c not in VARYING_TEXT and not _same([t[c] for t in tables])]
+    if differing:
+        return first.copy(), ("the imputed sets gave tables whose rows differ (in "
+                              f"{', '.join(differing)}); the first imputed set's table is "
+                              "shown, not combined")
+    out = first.copy()
+    numeric = [c for c in first.columns if c not in text]
+    tested = {"statistic", "df", "p"} <= set(first.columns)
+    if tested:
+        for i in range(len(first)):
+            k = first["df"].iloc[i]
+            if np.isfinite(k) and k >= 1:
+                res = d2([t["statistic"].iloc[i] for t in tables], int(k))
+                out.loc[out.index[i], "statistic"] = res.chi2
+                out.loc[out.index[i], "p"] = res.p
+            else:
+                out.loc[out.index[i], ["statistic", "p"]] = np.nan
+        numeric = [c for c in numeric if c not in ("statistic", "p", "df")]
+    for c in [c for c in numeric if _is_p(c)]:
+        out[c] = np.nan  # p-values are not averaged; the tests are combined in information
+    numeric = [c for c in numeric if not _is_p(c)]
+    for c in numeric:
+        stack = np.vstack([t[c].to_numpy(float, na_value=np.nan) for t in tables])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-missing columns stay missing
+            mean = np.nanmean(stack, axis=0)
+        if pd.api.types.is_integer_dtype(first[c]):
+            rounded = pd.Series(np.round(mean), index=out.index)
+            if rounded.notna().all() or pd.api.types.is_extension_array_dtype(first[c]):
+                out[c] = rounded.astype(first[c].dtype)
+            else:
+                out[c] = rounded
+        else:
+            out[c] = mean
+    if "estimate" in first.columns and "se" in first.columns:
+        est = np.vstack([t["estimate"].to_numpy(float) for t in tables])
+        se = np.vstack([t["se"].to_numpy(float) for t in tables])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            pooled = rubin(est, se)
+            lo, hi = pooled.interval()
+        out["estimate"], out["se"] = pooled.estimate, pooled.se
+        if "lower" in out.columns and "upper" in out.columns:
+            out["lower"], out["upper"] = lo, hi
+        if effect_transform and "effect" in out.columns:
+            ratio = np.allclose(first["effect"].to_numpy(float),
+                                np.exp(first["estimate"].to_numpy(float)), equal_nan=True)
+            f = np.exp if ratio else (lambda v: v)
+            out["effect"] = f(pooled.estimate)
+            if "effect_lower" in out.columns:
+                out["effect_lower"], out["effect_upper"] = f(lo), f(hi)
+        out["fmi"] = pooled.fmi
+        out["df_imputation"] = pooled.df
+    return out, ""
