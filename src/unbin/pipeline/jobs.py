@@ -24,6 +24,7 @@ from ..consortium.basis import CommonBasis, combine, sample_summary
 from ..consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
 from ..data import (
     MIN_SAMPLE_ROWS,
+    Sample,
     _type_problems,
     analysis_sample,
     extract_rows,
@@ -36,7 +37,7 @@ from ..questions.missingness import COLUMNS as MISSINGNESS_COLUMNS
 from ..questions.missingness import missingness_table
 from ..results.provenance import provenance
 from ..results.tables import read_table, write_table
-from ..spec import Spec, digest, load_spec
+from ..spec import Analysis, Spec, digest, load_spec
 from ..spec.missing import missing_options
 from ..terms.legacy import legacy_term
 from .imputed import analyse_imputed
@@ -87,6 +88,43 @@ def failed_fit_messages(fits: Sequence[Any]) -> list[str]:
     return [f"{', '.join(which)}: {why}" for why, which in by_reason.items()]
 
 
+def check_sample_usable(sample: Sample, a: Analysis) -> None:
+    """A DataError when the analysis sample cannot be analysed: fewer than MIN_SAMPLE_ROWS rows
+    (naming the step that dropped most), or an outcome without events (or non-events)."""
+    if sample.n < MIN_SAMPLE_ROWS:
+        step, lost = max(sample.dropped, key=lambda d: d[1], default=("", 0))
+        most = f" (most were dropped by '{step}': {lost} rows)" if lost else ""
+        raise DataError(f"only {sample.n} rows are left after filters, complete cases and "
+                        f"follow-up checks{most}; check the filters and missing values (see "
+                        "samples.parquet).")
+    event = a.outcome.event
+    if event is not None:
+        events = int(sample.frame[event].sum())
+        if events == 0 or (a.family == "binary" and events == sample.n):
+            raise DataError(f"no {'events' if events == 0 else 'non-events'} in the analysis "
+                            f"sample: {event!r} is {1 if events else 0} in all {sample.n} "
+                            "rows; there is no contrast to estimate. Check the outcome "
+                            "coding and the filters.")
+
+
+def _answer_questions(builders: dict[str, str], refit: Refit, spec: Spec,
+                      tables: dict[str, pd.DataFrame], where: str) -> list[str]:
+    """Each question's table into ``tables``; one question that fails loses its own table only
+    (an empty one), never the analysis' others. Returns the failures' messages."""
+    lost: list[str] = []
+    for name, target in builders.items():
+        try:
+            tables[name] = _builder(target)(refit, spec)
+        except Exception as exc:
+            if not isinstance(exc, UnbinError):
+                log.error("internal error in %s, question %s:\n%s", where, name,
+                          traceback.format_exc())
+            tables[name] = pd.DataFrame()
+            lost.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its table is "
+                        "empty, the other tables are complete")
+    return lost
+
+
 def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
             basis: CommonBasis | None = None, resampling: bool = True
             ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
@@ -123,37 +161,13 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                       traceback.format_exc())
             missing_note.append(f"table 'missingness' failed ({type(exc).__name__}: {exc}); "
                                 "it is empty, the other tables are complete")
-        if sample.n < MIN_SAMPLE_ROWS:
-            step, lost = max(sample.dropped, key=lambda d: d[1], default=("", 0))
-            most = f" (most were dropped by '{step}': {lost} rows)" if lost else ""
-            raise DataError(f"only {sample.n} rows are left after filters, complete cases and "
-                            f"follow-up checks{most}; check the filters and missing values (see "
-                            "samples.parquet).")
-        event = a.outcome.event
-        if event is not None:
-            events = int(sample.frame[event].sum())
-            if events == 0 or (a.family == "binary" and events == sample.n):
-                raise DataError(f"no {'events' if events == 0 else 'non-events'} in the analysis "
-                                f"sample: {event!r} is {1 if events else 0} in all {sample.n} "
-                                "rows; there is no contrast to estimate. Check the outcome "
-                                "coding and the filters.")
+        check_sample_usable(sample, a)
         from ..refit.analysis import refit_analysis
 
         refit = refit_analysis(sample, a, spec, cohort, basis)
         failed = failed_fit_messages(refit.fits)
         builders = {**QUESTION_TABLES, **(RESAMPLING_TABLES if resampling else {})}
-        lost_questions: list[str] = []
-        for name, target in builders.items():
-            # One question that fails loses its own table only, never the analysis' others.
-            try:
-                tables[name] = _builder(target)(refit, spec)
-            except Exception as exc:
-                if not isinstance(exc, UnbinError):
-                    log.error("internal error in %s/%s, question %s:\n%s", cohort, analysis,
-                              name, traceback.format_exc())
-                tables[name] = pd.DataFrame()
-                lost_questions.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its "
-                            "table is empty, the other tables are complete")
+        lost_questions = _answer_questions(builders, refit, spec, tables, f"{cohort}/{analysis}")
         notes = refit.messages + failed + lost_questions + missing_note
         if failed or lost_questions or missing_note:
             status["status"] = "partial"
