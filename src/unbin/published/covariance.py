@@ -99,6 +99,84 @@ def _reference_part(kind: str, A0: float, O0: float) -> float:
     return 1.0 / A0
 
 
+@dataclass(frozen=True)
+class _HamlingFit:
+    """The reported numbers of one table and the least-squares misfit of a reference
+    (A_0, O_0) against them (:func:`hamling_counts`)."""
+    kind: str
+    rr: np.ndarray  # the ratios, reference excluded
+    v: np.ndarray  # their variances
+    size: np.ndarray  # the groups' reported sizes, reference first
+    share: np.ndarray  # log share of each group in the total size
+    total_cases: float | None
+    sizes_of: str
+
+    def implied(self, A0: float, O0: float) -> tuple[np.ndarray, np.ndarray] | None:
+        """Every group's (A, other) given the reference's, or None when impossible."""
+        kind, rr = self.kind, self.rr
+        rest = self.v - _reference_part(kind, A0, O0)
+        if (rest <= 0).any():
+            return None
+        if kind == "odds":
+            c = rr * A0 / O0
+            B = (1.0 + 1.0 / c) / rest
+            return np.concatenate([[A0], c * B]), np.concatenate([[O0], B])
+        if kind == "risk":
+            r = rr * A0 / O0
+            if (r >= 1).any():
+                return None
+            Aj = (1.0 - r) / rest
+            return np.concatenate([[A0], Aj]), np.concatenate([[O0], Aj / r])
+        Aj = 1.0 / rest
+        return np.concatenate([[A0], Aj]), np.concatenate([[1.0], (Aj / A0) / rr])
+
+    def residuals(self, A0: float, O0: float) -> np.ndarray | None:
+        """Log differences of the implied from the reported shares (and non-cases per case)."""
+        kind, size, total_cases = self.kind, self.size, self.total_cases
+        got = self.implied(A0, O0)
+        if got is None:
+            return None
+        A, Oth = got
+        size_implied = A + Oth if kind == "odds" and self.sizes_of == "total" else Oth
+        res = np.log(size_implied / size_implied.sum()) - self.share
+        if total_cases is not None and kind != "rate":
+            non = float(Oth.sum()) if kind == "odds" else float(Oth.sum() - A.sum())
+            target = (size.sum() - total_cases) / total_cases if self.sizes_of == "total" \
+                else size.sum() / total_cases
+            res = np.append(res, np.log(non / A.sum()) - np.log(target))
+        return res
+
+
+def _hamling_reference(h: _HamlingFit) -> tuple[float, float]:
+    """The reference (A_0, O_0) of least squared misfit: for rate, 1/A_0 on (0, min v) with
+    O_0 = 1; otherwise (log A_0, log O_0) by Nelder-Mead from a grid of starts."""
+    vmin = float(h.v.min())
+    if h.kind == "rate":
+        def obj1(s: float) -> float:
+            r = h.residuals(1.0 / s, 1.0)
+            return float(r @ r) if r is not None else 1e300
+        best = optimize.minimize_scalar(obj1, bounds=(vmin * 1e-9, vmin * (1 - 1e-9)),
+                                        method="bounded", options={"xatol": vmin * 1e-13})
+        return 1.0 / float(best.x), 1.0
+
+    def obj2(t: np.ndarray) -> float:
+        A0, O0 = float(np.exp(t[0])), float(np.exp(t[1]))
+        r = h.residuals(A0, O0)
+        return float(r @ r) if r is not None else 1e300
+    starts = [np.log([f / vmin, g / vmin]) for f in (4.0, 10.0, 40.0)
+              for g in (4.0, 10.0, 40.0)]
+    if h.kind == "risk":
+        starts = [np.log([4.0 / vmin, 4.0 * g / vmin]) for g in (2.0, 10.0, 50.0, 200.0)]
+    fits = [optimize.minimize(obj2, s, method="Nelder-Mead",
+                              options={"xatol": 1e-10, "fatol": 1e-14, "maxiter": 4000})
+            for s in starts]
+    fits = [f for f in fits if f.fun < 1e299]
+    if not fits:
+        raise ValueError("no effective counts reproduce these ratios and variances")
+    best_t = min(fits, key=lambda f: f.fun).x
+    return float(np.exp(best_t[0])), float(np.exp(best_t[1]))
+
+
 def hamling_counts(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
                    group_sizes: np.ndarray, total_cases: float | None = None,
                    sizes_of: str = "total") -> tuple[np.ndarray, np.ndarray, float]:
@@ -115,73 +193,15 @@ def hamling_counts(kind: str, log_ratios: np.ndarray, variances: np.ndarray,
     table's controls)."""
     if kind not in KINDS:
         raise ValueError(f"unknown formulation {kind!r}")
-    lr = np.asarray(log_ratios, dtype=float)
-    v = np.asarray(variances, dtype=float)
     size = np.asarray(group_sizes, dtype=float)
-    share = np.log(size / size.sum())
-    rr = np.exp(lr)
-    vmin = float(v.min())
-
-    def implied(A0: float, O0: float) -> tuple[np.ndarray, np.ndarray] | None:
-        rest = v - _reference_part(kind, A0, O0)
-        if (rest <= 0).any():
-            return None
-        if kind == "odds":
-            c = rr * A0 / O0
-            B = (1.0 + 1.0 / c) / rest
-            return np.concatenate([[A0], c * B]), np.concatenate([[O0], B])
-        if kind == "risk":
-            r = rr * A0 / O0
-            if (r >= 1).any():
-                return None
-            Aj = (1.0 - r) / rest
-            return np.concatenate([[A0], Aj]), np.concatenate([[O0], Aj / r])
-        Aj = 1.0 / rest
-        return np.concatenate([[A0], Aj]), np.concatenate([[1.0], (Aj / A0) / rr])
-
-    def residuals(A0: float, O0: float) -> np.ndarray | None:
-        got = implied(A0, O0)
-        if got is None:
-            return None
-        A, Oth = got
-        size_implied = A + Oth if kind == "odds" and sizes_of == "total" else Oth
-        res = np.log(size_implied / size_implied.sum()) - share
-        if total_cases is not None and kind != "rate":
-            non = float(Oth.sum()) if kind == "odds" else float(Oth.sum() - A.sum())
-            target = (size.sum() - total_cases) / total_cases if sizes_of == "total" \
-                else size.sum() / total_cases
-            res = np.append(res, np.log(non / A.sum()) - np.log(target))
-        return res
-
-    if kind == "rate":
-        # s = 1/A_0 in (0, min v): one unknown.
-        def obj1(s: float) -> float:
-            r = residuals(1.0 / s, 1.0)
-            return float(r @ r) if r is not None else 1e300
-        best = optimize.minimize_scalar(obj1, bounds=(vmin * 1e-9, vmin * (1 - 1e-9)),
-                                        method="bounded", options={"xatol": vmin * 1e-13})
-        A0, O0 = 1.0 / float(best.x), 1.0
-    else:
-        def obj2(t: np.ndarray) -> float:
-            A0, O0 = float(np.exp(t[0])), float(np.exp(t[1]))
-            r = residuals(A0, O0)
-            return float(r @ r) if r is not None else 1e300
-        starts = [np.log([f / vmin, g / vmin]) for f in (4.0, 10.0, 40.0)
-                  for g in (4.0, 10.0, 40.0)]
-        if kind == "risk":
-            starts = [np.log([4.0 / vmin, 4.0 * g / vmin]) for g in (2.0, 10.0, 50.0, 200.0)]
-        fits = [optimize.minimize(obj2, s, method="Nelder-Mead",
-                                  options={"xatol": 1e-10, "fatol": 1e-14, "maxiter": 4000})
-                for s in starts]
-        fits = [f for f in fits if f.fun < 1e299]
-        if not fits:
-            raise ValueError("no effective counts reproduce these ratios and variances")
-        best_t = min(fits, key=lambda f: f.fun).x
-        A0, O0 = float(np.exp(best_t[0])), float(np.exp(best_t[1]))
-    got = implied(A0, O0)
+    h = _HamlingFit(kind, np.exp(np.asarray(log_ratios, dtype=float)),
+                    np.asarray(variances, dtype=float), size, np.log(size / size.sum()),
+                    total_cases, sizes_of)
+    A0, O0 = _hamling_reference(h)
+    got = h.implied(A0, O0)
     if got is None:
         raise ValueError("no effective counts reproduce these ratios and variances")
-    r = residuals(A0, O0)
+    r = h.residuals(A0, O0)
     other = got[1] * (size.sum() / got[1].sum()) if kind == "rate" else got[1]
     return got[0], other, float(np.max(np.abs(r))) if r is not None else float("nan")
 

@@ -22,6 +22,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from ..consortium.bundles import coefficient_arrays
 from ..consortium.meta_analysis import pool_multivariate, pooled_curve
@@ -240,6 +241,132 @@ def published_tables(studies: Sequence[PublishedStudy], coefs: pd.DataFrame,
     }
 
 
+def _study_fits(analysis: str, adj: str, p: PreparedStudy, knots: tuple[float, ...],
+                xs: np.ndarray, ref: float, fits_rows: list[dict[str, Any]],
+                curve_parts: list[pd.DataFrame]) -> dict[str, TrendFit]:
+    """One published study's linear and spline GLS trends: their fit rows and curves."""
+    s = p.study
+    scale = s.scale_label
+    base = dict(scale=scale, design=s.design, covariance_method=p.covariance.method,
+                groups=len(s.groups))
+    msg = ("independence approximation: the table gives neither cases nor group sizes, "
+           "so the log ratios' correlation is ignored (last resort)"
+           if p.covariance.method == "independence" else "")
+    fits: dict[str, TrendFit] = {}
+    for form in ("linear", "spline"):
+        try:
+            fits[form] = fit_trend(form, p.exposures, p.log_ratios, p.covariance.cov, knots)
+            fits_rows.append(_fit_row(analysis, adj, s.name, EVIDENCE_TABLE, fits[form],
+                                      message=msg, k=1, **base))
+        except (ValueError, np.linalg.LinAlgError) as exc:
+            fits_rows.append(_fit_row(analysis, adj, s.name, EVIDENCE_TABLE, None, form=form,
+                                      status="failed", message=str(exc), **base))
+            continue
+        est, se = trend_curve(fits[form], xs, ref)
+        curve_parts.append(_curve_rows(analysis, adj, s.name, EVIDENCE_TABLE, form, xs, ref,
+                                       est, se, scale))
+    return fits
+
+
+def _group_rows(analysis: str, p: PreparedStudy, spline: TrendFit | None,
+                ref: float) -> list[dict[str, Any]]:
+    """One published study's ``published_groups`` rows; the plotted log ratios are shifted
+    onto the study's spline at its reference exposure."""
+    s = p.study
+    shift = 0.0
+    if spline is not None:
+        at = trend_curve(spline, np.array([p.exposures[0]]), ref)[0][0]
+        shift = float(at)
+    ratios = np.concatenate([[0.0], p.log_ratios])
+    fitted_a = p.covariance.cases
+    fitted_o = p.covariance.other
+    rows: list[dict[str, Any]] = []
+    for pos, i in enumerate(p.order):
+        g = s.groups[i]
+        rows.append({
+            "analysis": analysis, "study": s.name, "group": i + 1,
+            "reference": i == s.reference, "lower": g.lower, "upper": g.upper,
+            "assigned_exposure": p.assigned[i], "exposure_rule": p.rules[i],
+            "ratio": g.ratio, "ratio_lower": g.ratio_lower, "ratio_upper": g.ratio_upper,
+            "cases": g.cases, "other_count": g.other,
+            "fitted_cases": float(fitted_a[pos]) if fitted_a.size else np.nan,
+            "fitted_other": float(fitted_o[pos]) if fitted_o.size else np.nan,
+            "covariance_method": p.covariance.method,
+            "plotted_log_ratio": float(ratios[pos]) + shift})
+    return rows
+
+
+@dataclass(frozen=True)
+class _PoolingGrid:
+    """What every pooled set of one analysis and adjustment shares."""
+    analysis: str
+    adj: str
+    knots: tuple[float, ...]
+    xs: np.ndarray
+    ref: float
+    scale: str
+    scale_note: str
+    basis_g: np.ndarray  # the spline basis on the grid and at the reference
+    basis_r: np.ndarray
+
+
+def _pool_set(g: _PoolingGrid, key: str, label: str,
+              contributors: list[tuple[str, str, np.ndarray, np.ndarray]],
+              fits_rows: list[dict[str, Any]], curve_parts: list[pd.DataFrame],
+              pooled_parts: list[pd.DataFrame], het_rows: list[dict[str, Any]],
+              ) -> np.ndarray | None:
+    """One pooled set (all, data only, published only): its fit row and curve, and for all
+    contributors with a published table the pooled-curve and heterogeneity rows; the pooled
+    curve, or None when there is nothing to pool."""
+    analysis, adj, xs, ref = g.analysis, g.adj, g.xs, g.ref
+    chosen = [c for c in contributors if key == "all"
+              or (key == "data" and c[1] == EVIDENCE_DATA)
+              or (key == "published" and c[1] == EVIDENCE_TABLE)]
+    name = f"pooled: {label}"
+    if len(chosen) < 2:
+        if key == "all" or chosen:
+            fits_rows.append(_fit_row(analysis, adj, name, EVIDENCE_POOLED, None,
+                                      form="spline", k=len(chosen), status="single cohort",
+                                      message="fewer than two contributors; nothing to pool"))
+        return None
+    try:
+        mv = pool_multivariate(np.array([c[2] for c in chosen]),
+                               np.array([c[3] for c in chosen]))
+    except PoolingInputError as exc:
+        fits_rows.append(_fit_row(analysis, adj, name, EVIDENCE_POOLED, None, form="spline",
+                                  k=len(chosen), status="failed", message=str(exc)))
+        return None
+    est, se = pooled_curve(mv.re_mean, mv.re_cov, g.basis_g, g.basis_r)
+    bn = mv.re_mean[1:]
+    chi2 = float(bn @ np.linalg.solve(mv.re_cov[1:, 1:], bn)) if bn.size else np.nan
+    pooled_fit = TrendFit("spline", mv.re_mean, mv.re_cov, mv.q, mv.q_df, mv.q_pvalue,
+                          chi2, int(bn.size),
+                          float(stats.chi2.sf(chi2, bn.size)) if bn.size else np.nan, g.knots)
+    members = ", ".join(sorted(f"{c[0]} ({c[1]})" for c in chosen))
+    note = f"; {g.scale_note}" if g.scale_note else ""
+    fits_rows.append(_fit_row(analysis, adj, name, EVIDENCE_POOLED, pooled_fit,
+                              scale=g.scale, k=len(chosen), i2=mv.i2,
+                              message=f"multivariate random effects (method of moments) of "
+                                      f"{members}" + note))
+    curve_parts.append(_curve_rows(analysis, adj, name, EVIDENCE_POOLED, "spline", xs, ref,
+                                   est, se, g.scale))
+    if key == "all" and any(c[1] == EVIDENCE_TABLE for c in chosen):
+        pooled_parts.append(pd.DataFrame({
+            "analysis": analysis, "adjustment": adj, "form": "common_spline",
+            "method": "multivariate random, with published tables", "x": xs,
+            "x_reference": ref, "k": len(chosen), "estimate": est, "se": se,
+            "lower": est - Z95 * se, "upper": est + Z95 * se, "pi_lower": np.nan,
+            "pi_upper": np.nan, "tau2": np.nan, "tau2_method": "MM", "i2": mv.i2,
+            "q": mv.q, "scale": g.scale}))
+        het_rows.append({"analysis": analysis, "adjustment": adj,
+                         "item": "common-knot spline (multivariate, with published tables)",
+                         "k": len(chosen), "q": mv.q, "q_df": mv.q_df, "q_p": mv.q_pvalue,
+                         "i2": mv.i2, "tau2": float(np.trace(mv.psi)), "tau2_method": "MM",
+                         "status": "ok", "message": f"{mv.n_truncated} negative "
+                                                    "eigenvalue(s) truncated at 0" + note})
+    return est
+
+
 def _one_adjustment(analysis: str, adj: str, prepared: list[PreparedStudy],
                     knots: tuple[float, ...], data_cohorts: list[tuple[str, np.ndarray,
                                                                         np.ndarray]],
@@ -247,115 +374,37 @@ def _one_adjustment(analysis: str, adj: str, prepared: list[PreparedStudy],
                     groups_rows: list[dict[str, Any]], fits_rows: list[dict[str, Any]],
                     curve_parts: list[pd.DataFrame], pooled_parts: list[pd.DataFrame],
                     het_rows: list[dict[str, Any]], first: bool) -> None:
+    """Per study trends, the data cohorts' rows and the pooled sets of one analysis and
+    adjustment, appended to the row lists (the groups rows only for the first adjustment)."""
     contributors: list[tuple[str, str, np.ndarray, np.ndarray]] = []
     scales = {data_scale} if data_scale else set()
     for p in prepared:
-        s = p.study
-        scale = s.scale_label
-        scales.add(scale)
-        base = dict(scale=scale, design=s.design, covariance_method=p.covariance.method,
-                    groups=len(s.groups))
-        msg = ("independence approximation: the table gives neither cases nor group sizes, "
-               "so the log ratios' correlation is ignored (last resort)"
-               if p.covariance.method == "independence" else "")
-        fits: dict[str, TrendFit] = {}
-        for form in ("linear", "spline"):
-            try:
-                fits[form] = fit_trend(form, p.exposures, p.log_ratios, p.covariance.cov, knots)
-                fits_rows.append(_fit_row(analysis, adj, s.name, EVIDENCE_TABLE, fits[form],
-                                          message=msg, k=1, **base))
-            except (ValueError, np.linalg.LinAlgError) as exc:
-                fits_rows.append(_fit_row(analysis, adj, s.name, EVIDENCE_TABLE, None, form=form,
-                                          status="failed", message=str(exc), **base))
-                continue
-            est, se = trend_curve(fits[form], xs, ref)
-            curve_parts.append(_curve_rows(analysis, adj, s.name, EVIDENCE_TABLE, form, xs, ref,
-                                           est, se, scale))
+        scales.add(p.study.scale_label)
+        fits = _study_fits(analysis, adj, p, knots, xs, ref, fits_rows, curve_parts)
         if "spline" in fits:
-            contributors.append((s.name, EVIDENCE_TABLE, fits["spline"].coef,
+            contributors.append((p.study.name, EVIDENCE_TABLE, fits["spline"].coef,
                                  fits["spline"].cov))
         if first:
-            shift = 0.0
-            if "spline" in fits:
-                at = trend_curve(fits["spline"], np.array([p.exposures[0]]), ref)[0][0]
-                shift = float(at)
-            ratios = np.concatenate([[0.0], p.log_ratios])
-            fitted_a = p.covariance.cases
-            fitted_o = p.covariance.other
-            for pos, i in enumerate(p.order):
-                g = s.groups[i]
-                groups_rows.append({
-                    "analysis": analysis, "study": s.name, "group": i + 1,
-                    "reference": i == s.reference, "lower": g.lower, "upper": g.upper,
-                    "assigned_exposure": p.assigned[i], "exposure_rule": p.rules[i],
-                    "ratio": g.ratio, "ratio_lower": g.ratio_lower, "ratio_upper": g.ratio_upper,
-                    "cases": g.cases, "other_count": g.other,
-                    "fitted_cases": float(fitted_a[pos]) if fitted_a.size else np.nan,
-                    "fitted_other": float(fitted_o[pos]) if fitted_o.size else np.nan,
-                    "covariance_method": p.covariance.method,
-                    "plotted_log_ratio": float(ratios[pos]) + shift})
+            groups_rows.extend(_group_rows(analysis, p, fits.get("spline"), ref))
     for cohort, b, V in data_cohorts:
         contributors.append((cohort, EVIDENCE_DATA, b, V))
-        fit_row = _fit_row(analysis, adj, cohort, EVIDENCE_DATA, None, form="spline",
-                           scale=data_scale, k=1, knots=", ".join(f"{v:.6g}" for v in knots),
-                           coefficients=json.dumps([float(v) for v in b]))
-        fits_rows.append(fit_row)
+        fits_rows.append(_fit_row(analysis, adj, cohort, EVIDENCE_DATA, None, form="spline",
+                                  scale=data_scale, k=1,
+                                  knots=", ".join(f"{v:.6g}" for v in knots),
+                                  coefficients=json.dumps([float(v) for v in b])))
     mixed = len(scales) > 1
     scale_note = (f"mixed effect scales ({', '.join(sorted(scales))}) pooled as one log ratio; "
                   "read as approximate (rare outcome)" if mixed else "")
-    pooled_scale = data_scale or (sorted(scales)[0] if scales else "")
-    basis_g = trend_basis("spline", knots, xs)
-    basis_r = trend_basis("spline", knots, np.array([ref]))[0]
+    grid = _PoolingGrid(analysis, adj, knots, xs, ref,
+                        data_scale or (sorted(scales)[0] if scales else ""), scale_note,
+                        trend_basis("spline", knots, xs),
+                        trend_basis("spline", knots, np.array([ref]))[0])
     curves_by_set: dict[str, np.ndarray] = {}
     for key, label in POOLED_SETS:
-        chosen = [c for c in contributors if key == "all"
-                  or (key == "data" and c[1] == EVIDENCE_DATA)
-                  or (key == "published" and c[1] == EVIDENCE_TABLE)]
-        name = f"pooled: {label}"
-        if len(chosen) < 2:
-            if key == "all" or chosen:
-                fits_rows.append(_fit_row(analysis, adj, name, EVIDENCE_POOLED, None,
-                                          form="spline", k=len(chosen), status="single cohort",
-                                          message="fewer than two contributors; nothing to pool"))
-            continue
-        try:
-            mv = pool_multivariate(np.array([c[2] for c in chosen]),
-                                   np.array([c[3] for c in chosen]))
-        except PoolingInputError as exc:
-            fits_rows.append(_fit_row(analysis, adj, name, EVIDENCE_POOLED, None, form="spline",
-                                      k=len(chosen), status="failed", message=str(exc)))
-            continue
-        est, se = pooled_curve(mv.re_mean, mv.re_cov, basis_g, basis_r)
-        curves_by_set[key] = est
-        bn = mv.re_mean[1:]
-        chi2 = float(bn @ np.linalg.solve(mv.re_cov[1:, 1:], bn)) if bn.size else np.nan
-        from scipy import stats
-
-        pooled_fit = TrendFit("spline", mv.re_mean, mv.re_cov, mv.q, mv.q_df, mv.q_pvalue,
-                              chi2, int(bn.size),
-                              float(stats.chi2.sf(chi2, bn.size)) if bn.size else np.nan, knots)
-        members = ", ".join(sorted(f"{c[0]} ({c[1]})" for c in chosen))
-        fits_rows.append(_fit_row(analysis, adj, name, EVIDENCE_POOLED, pooled_fit,
-                                  scale=pooled_scale, k=len(chosen), i2=mv.i2,
-                                  message=f"multivariate random effects (method of moments) of "
-                                          f"{members}" + (f"; {scale_note}" if scale_note else "")))
-        curve_parts.append(_curve_rows(analysis, adj, name, EVIDENCE_POOLED, "spline", xs, ref,
-                                       est, se, pooled_scale))
-        if key == "all" and any(c[1] == EVIDENCE_TABLE for c in chosen):
-            pooled_parts.append(pd.DataFrame({
-                "analysis": analysis, "adjustment": adj, "form": "common_spline",
-                "method": "multivariate random, with published tables", "x": xs,
-                "x_reference": ref, "k": len(chosen), "estimate": est, "se": se,
-                "lower": est - Z95 * se, "upper": est + Z95 * se, "pi_lower": np.nan,
-                "pi_upper": np.nan, "tau2": np.nan, "tau2_method": "MM", "i2": mv.i2,
-                "q": mv.q, "scale": pooled_scale}))
-            het_rows.append({"analysis": analysis, "adjustment": adj,
-                             "item": "common-knot spline (multivariate, with published tables)",
-                             "k": len(chosen), "q": mv.q, "q_df": mv.q_df, "q_p": mv.q_pvalue,
-                             "i2": mv.i2, "tau2": float(np.trace(mv.psi)), "tau2_method": "MM",
-                             "status": "ok", "message": f"{mv.n_truncated} negative "
-                                                        "eigenvalue(s) truncated at 0"
-                                        + (f"; {scale_note}" if scale_note else "")})
+        est = _pool_set(grid, key, label, contributors, fits_rows, curve_parts, pooled_parts,
+                        het_rows)
+        if est is not None:
+            curves_by_set[key] = est
     if "all" in curves_by_set and "data" in curves_by_set:
         shift = float(np.max(np.abs(curves_by_set["all"] - curves_by_set["data"])))
         for r in fits_rows:

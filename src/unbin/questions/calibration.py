@@ -237,43 +237,28 @@ def smooth_survival(rf: RiskFit, outcome: Outcome, grid: np.ndarray, horizon: fl
 # --------------------------------------------------------------------------- one model
 
 
-def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[str, Any]]:
-    """Every calibration row of one model on the risk scale (module docstring)."""
-    pred = np.asarray(rf.risk, dtype=float)
-    y = np.asarray(outcome.y, dtype=float)
-    common = {"model": rf.model, "adjustment": rf.adjustment, "detail": rf.detail,
-              "status": "ok", "reason": "",
-              "note": " | ".join(v for v in (APPARENT, rf.note) if v)}
-    if not np.all(np.isfinite(pred)):
-        return [{**common, "status": "failed",
-                 "reason": "predicted risks are not finite for some rows"}]
-    rows: list[dict[str, Any]] = []
+def _intercept_and_slope(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.ndarray,
+                         z: np.ndarray | None, common: dict[str, Any]) -> list[dict[str, Any]]:
+    """The calibration intercept and slope rows (``z``: survival's log(-log(1 - p)))."""
     h = rf.scale.horizon
-    survival = rf.family == "survival"
-    if survival:
+    if z is not None:
         assert outcome.time is not None and h is not None
-        time, entry = outcome.time, outcome.entry
-        z = rf.exposure_rows + rf.rest
-        if not np.all(np.isfinite(z)):
-            return [{**common, "status": "failed",
-                     "reason": "predicted risk 0 for some rows (no event before the horizon); "
-                               "choose a later horizon"}]
-        a, se_a = oe_intercept(z, time, y, entry, outcome.strata, h)
-        rows.append({**common, "row_kind": "intercept", "estimate": a, "lower": a - Z95 * se_a,
-                     "upper": a + Z95 * se_a,
-                     "computed_by": f"log(O/E), Poisson with expected events up to {h:g}"})
-        o = Outcome("survival", y, time=time, entry=entry, strata=outcome.strata)
+        a, se_a = oe_intercept(z, outcome.time, y, outcome.entry, outcome.strata, h)
+        by = f"log(O/E), Poisson with expected events up to {h:g}"
+        o = Outcome("survival", y, time=outcome.time, entry=outcome.entry,
+                    strata=outcome.strata)
         res = fit("survival", z[:, None], o, ("cloglog_risk",))
         method = "Cox model on log(-log(1 - p))"
         slope_i = 0
     else:
         lp = np.asarray(link("binary", np.clip(pred, 1e-12, 1 - 1e-12)))
         a, se_a = logistic_intercept(y, lp)
-        rows.append({**common, "row_kind": "intercept", "estimate": a, "lower": a - Z95 * se_a,
-                     "upper": a + Z95 * se_a, "computed_by": "logistic, logit(p) as offset"})
+        by = "logistic, logit(p) as offset"
         res = fit("binary", lp[:, None], Outcome("binary", y), ("logit_risk",))
         method = "logistic on logit(p)"
         slope_i = 1
+    rows = [{**common, "row_kind": "intercept", "estimate": a, "lower": a - Z95 * se_a,
+             "upper": a + Z95 * se_a, "computed_by": by}]
     if res.ok:
         b, se_b = float(res.coef[slope_i]), float(np.sqrt(res.cov[slope_i, slope_i]))
         rows.append({**common, "row_kind": "slope", "estimate": b, "lower": b - Z95 * se_b,
@@ -281,15 +266,23 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
     else:
         rows.append({**common, "row_kind": "slope", "computed_by": method, "status": "failed",
                      "reason": res.message})
-    # tenths of predicted risk
+    return rows
+
+
+def _tenth_rows(pred: np.ndarray, y: np.ndarray, outcome: Outcome, h: float | None,
+                survival: bool, min_cell: int, common: dict[str, Any]) -> list[dict[str, Any]]:
+    """Observed against mean predicted risk in tenths of predicted risk, small cells withheld."""
+    time, entry = outcome.time, outcome.entry
     codes = risk_groups(pred)
     groups = np.unique(codes)
     n_g = np.array([int(np.sum(codes == g)) for g in groups])
     if survival:
+        assert time is not None
         ev_g = np.array([int(np.sum(y[(codes == g) & (time <= h)])) for g in groups])
     else:
         ev_g = np.array([int(np.sum(y[codes == g])) for g in groups])
     shown = disclosure.complementary([int(v) for v in ev_g], min_cell)
+    rows: list[dict[str, Any]] = []
     for k, g in enumerate(groups):
         inside = codes == g
         row = {**common, "row_kind": "tenth", "group": float(k + 1), "n_rows": n_g[k],
@@ -299,7 +292,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
                          f"(small-cell suppression, min_cell {min_cell})"})
             continue
         if survival:
-            assert h is not None
+            assert h is not None and time is not None
             obs, lo, hi = km_risk(time[inside], y[inside], h,
                                   None if entry is None else entry[inside])
             m = f"Kaplan-Meier at {h:g}, Greenwood log(-log) limits"
@@ -310,22 +303,51 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
             m = "events/n, Wilson limits"
         rows.append({**row, "events": ev_g[k], "observed": obs, "observed_lower": lo,
                      "observed_upper": hi, "computed_by": m})
-    # the flexible curve
-    lo_p, hi_p = np.quantile(pred, [0.01, 0.99])
-    if np.unique(pred).size >= SMOOTH_MIN_DISTINCT and hi_p > lo_p:
-        grid = np.linspace(lo_p, hi_p, SMOOTH_POINTS)
-        if survival:
-            assert h is not None
-            obs_s, lo_s, hi_s = smooth_survival(rf, outcome, grid, h)
-            m = f"Cox on a {SMOOTH_KNOTS}-knot spline of log(-log(1 - p)), at {h:g}"
-        else:
-            obs_s, lo_s, hi_s = smooth_binary(y, pred, grid)
-            m = f"logistic on a {SMOOTH_KNOTS}-knot spline of logit(p)"
-        for k in range(len(grid)):
-            rows.append({**common, "row_kind": "smooth", "group": float(k + 1),
-                         "mean_predicted": grid[k], "observed": obs_s[k],
-                         "observed_lower": lo_s[k], "observed_upper": hi_s[k], "computed_by": m})
     return rows
+
+
+def _smooth_rows(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.ndarray,
+                 h: float | None, survival: bool, common: dict[str, Any]) -> list[dict[str, Any]]:
+    """The flexible calibration curve between the 1st and 99th percentiles of predicted risk
+    (none when too few distinct predictions)."""
+    lo_p, hi_p = np.quantile(pred, [0.01, 0.99])
+    if not (np.unique(pred).size >= SMOOTH_MIN_DISTINCT and hi_p > lo_p):
+        return []
+    grid = np.linspace(lo_p, hi_p, SMOOTH_POINTS)
+    if survival:
+        assert h is not None
+        obs_s, lo_s, hi_s = smooth_survival(rf, outcome, grid, h)
+        m = f"Cox on a {SMOOTH_KNOTS}-knot spline of log(-log(1 - p)), at {h:g}"
+    else:
+        obs_s, lo_s, hi_s = smooth_binary(y, pred, grid)
+        m = f"logistic on a {SMOOTH_KNOTS}-knot spline of logit(p)"
+    return [{**common, "row_kind": "smooth", "group": float(k + 1), "mean_predicted": grid[k],
+             "observed": obs_s[k], "observed_lower": lo_s[k], "observed_upper": hi_s[k],
+             "computed_by": m} for k in range(len(grid))]
+
+
+def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[str, Any]]:
+    """Every calibration row of one model on the risk scale (module docstring)."""
+    pred = np.asarray(rf.risk, dtype=float)
+    y = np.asarray(outcome.y, dtype=float)
+    common = {"model": rf.model, "adjustment": rf.adjustment, "detail": rf.detail,
+              "status": "ok", "reason": "",
+              "note": " | ".join(v for v in (APPARENT, rf.note) if v)}
+    if not np.all(np.isfinite(pred)):
+        return [{**common, "status": "failed",
+                 "reason": "predicted risks are not finite for some rows"}]
+    h = rf.scale.horizon
+    survival = rf.family == "survival"
+    z = None
+    if survival:
+        z = rf.exposure_rows + rf.rest
+        if not np.all(np.isfinite(z)):
+            return [{**common, "status": "failed",
+                     "reason": "predicted risk 0 for some rows (no event before the horizon); "
+                               "choose a later horizon"}]
+    return (_intercept_and_slope(rf, outcome, pred, y, z, common)
+            + _tenth_rows(pred, y, outcome, h, survival, min_cell, common)
+            + _smooth_rows(rf, outcome, pred, y, h, survival, common))
 
 
 def calibration_table(r: Refit, spec: Spec) -> pd.DataFrame:

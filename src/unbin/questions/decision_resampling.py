@@ -240,30 +240,25 @@ def _percentiles(values: np.ndarray) -> tuple[float, float]:
     return float(lo), float(hi)
 
 
-def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
-    """Bootstrap intervals and optimism-corrected values of C, net benefit and thresholds."""
-    a = r.analysis
-    horizon = horizon_for(a, spec) if r.family == "survival" else None
-    base: dict[str, Any] = {"risk_scale": risk_scale(a, spec).label, "horizon": horizon}
-    B = spec.resampling.bootstrap
+def _skip_reason(r: Refit, spec: Spec, horizon: float | None) -> str | None:
+    """Why the table has nothing to resample for this analysis, or None."""
     if r.family not in EVENT_FAMILIES:
-        return _finish([{**base, "status": "skipped", "reason": f"the decision numbers need the "
-                         f"probability of an event (binary or survival); a {r.family} outcome "
-                         "has none"}])
+        return (f"the decision numbers need the probability of an event (binary or survival); "
+                f"a {r.family} outcome has none")
     if r.family == "survival" and horizon is None:
-        return _finish([{**base, "status": "skipped", "reason": "no horizon for the survival "
-                         "risk: give outcome.horizon or the study-level horizon"}])
-    if B <= 0:
-        return _finish([{**base, "status": "skipped",
-                         "reason": "resampling.bootstrap is 0 (switched off)"}])
-    if bootstrap_reason(a):
-        return _finish([{**base, "status": "skipped", "reason": bootstrap_reason(a)}])
-    models, notes = fitted_models(r, spec)
-    o, n = r.outcome, r.outcome.n
-    # the replicates: weights, the refitted coefficients of every model
-    W = resample_weights(spec.rng(a.name, PURPOSE), n, B)
+        return "no horizon for the survival risk: give outcome.horizon or the study-level horizon"
+    if spec.resampling.bootstrap <= 0:
+        return "resampling.bootstrap is 0 (switched off)"
+    return bootstrap_reason(r.analysis) or None
+
+
+def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarray,
+                     ) -> dict[tuple[str, str], np.ndarray]:
+    """Every model's coefficients refitted in every replicate (rows of the result); a model
+    shared by two keys is refitted once."""
+    o = r.outcome
     keys = list(models)
-    unique = list({id(models[k]): k for k in keys}.values())  # a shared model is refitted once
+    unique = list({id(models[k]): k for k in keys}.values())
     if r.family == "binary":
         fitted = {k: WeightedGLM("binary", models[k].X, o, models[k].res.coef).coef(W)
                   for k in unique}
@@ -271,141 +266,193 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
         outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o, W)
         fitted = dict(zip(unique, outs, strict=True))
     first = {id(models[k]): k for k in unique}
-    coefs = {k: fitted[first[id(models[k])]] for k in keys}
-    full = _Sample(r, np.arange(n), horizon)
-    pt = np.asarray(thresholds_for(a, spec), dtype=float)
-    rules = legacy_rules(r.legacy, r.x)[:1]
-    strata_all = o.strata
+    return {k: fitted[first[id(models[k])]] for k in keys}
 
-    def z_of(k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
+
+class _Evaluator:
+    """What each quantity is in one evaluation: the models' coefficients, the rows they were
+    fitted on and the rows they are judged on."""
+
+    def __init__(self, r: Refit, models: dict[tuple[str, str], Model], pt: np.ndarray,
+                 horizon: float | None):
+        self.r, self.models, self.pt, self.horizon = r, models, pt, horizon
+        self.keys = list(models)
+        self.rules = legacy_rules(r.legacy, r.x)[:1]
+
+    def z_of(self, k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
         """Every row's linear predictor on the risk's link scale (log odds; survival the log
         cumulative hazard at the horizon, baseline from the fitting rows ``fit``)."""
-        X = models[k].X
-        if r.family == "binary":
+        X = self.models[k].X
+        if self.r.family == "binary":
             return np.asarray(coef[0] + X @ coef[1:])
-        assert horizon is not None
+        assert self.horizon is not None
         lp = X @ coef
-        log_h0, centre = _log_base(fit, lp[fit.idx], horizon, strata_all, n)
+        log_h0, centre = _log_base(fit, lp[fit.idx], self.horizon, self.r.outcome.strata,
+                                   self.r.outcome.n)
         z = log_h0 + lp - centre
         return z if np.all(np.isfinite(z)) else None
 
-    def predictors(coef_by: dict[tuple[str, str], np.ndarray], fit: _Sample,
+    def predictors(self, coef_by: dict[tuple[str, str], np.ndarray], fit: _Sample,
                    ) -> dict[int, np.ndarray | None]:
         """z of every distinct model (by identity) fitted on ``fit``'s rows."""
         out: dict[int, np.ndarray | None] = {}
-        for k in keys:
-            if id(models[k]) not in out:
+        for k in self.keys:
+            if id(self.models[k]) not in out:
                 c = coef_by[k]
-                out[id(models[k])] = z_of(k, c, fit) if np.all(np.isfinite(c)) else None
+                out[id(self.models[k])] = (self.z_of(k, c, fit) if np.all(np.isfinite(c))
+                                           else None)
         return out
 
-    def risk(z: np.ndarray) -> np.ndarray:
-        return (np.asarray(special.expit(z)) if r.family == "binary"
+    def risk(self, z: np.ndarray) -> np.ndarray:
+        return (np.asarray(special.expit(z)) if self.r.family == "binary"
                 else np.asarray(-np.expm1(-np.exp(z))))
 
-    # what each quantity is in one (model, rows) evaluation
-    def measures(coef_by: dict[tuple[str, str], np.ndarray], zs: dict[int, np.ndarray | None],
-                 fit: _Sample, on: _Sample,
+    def measures(self, coef_by: dict[tuple[str, str], np.ndarray],
+                 zs: dict[int, np.ndarray | None], fit: _Sample, on: _Sample,
                  apparent_run: bool = False) -> dict[tuple[Any, ...], float]:
+        """Every quantity of the models with coefficients ``coef_by`` (fitted on ``fit``)
+        judged on ``on``'s rows."""
         out: dict[tuple[Any, ...], float] = {}
         cixs: dict[int, float] = {}
-        for k in keys:
-            c = coef_by[k]
-            z = zs[id(models[k])]
+        for k in self.keys:
+            z = zs[id(self.models[k])]
             if z is None:
                 continue
-            if id(models[k]) not in cixs:
-                cixs[id(models[k])] = on.c_index(z[on.idx])
-            cix = cixs[id(models[k])]
-            zo = z[on.idx]
-            out[("C index", k)] = cix
+            if id(self.models[k]) not in cixs:
+                cixs[id(self.models[k])] = on.c_index(z[on.idx])
+            out[("C index", k)] = cixs[id(self.models[k])]
             if k in RISK_MODELS:
-                nb = on.net_benefit(pt, risk=risk(zo)) if pt.size else np.zeros(0)
-                for t, v in zip(pt, nb, strict=True):
-                    out[("net benefit", f"risk: {k[0]}", t)] = float(v)
-                # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
-                out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
-                                                 else on.slope(zo))
+                self._risk_measures(out, k, z[on.idx], fit, on, apparent_run)
             if k in CURVE_MODELS:
-                f = _curve(models[k], c, r.family)
-                rest = float(np.median((z - f(r.x))[fit.idx]))
-                lo_x, hi_x = float(r.x.min()), float(r.x.max())
-                for t in pt:
-                    found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
-                    out[("crossings", k, t)] = float(len(found))
-                    for j, (xv, _d) in enumerate(found, start=1):
-                        out[("implied threshold", k, t, j)] = xv
+                self._crossings(out, k, coef_by[k], z, fit)
         for coding in CODINGS:
             s = out.get(("C index", ("spline", coding)))
             g = out.get(("C index", ("legacy", coding)))
             if s is not None and g is not None:
                 out[("delta C", coding)] = s - g
-        for name, mask in rules:
+        self._fixed_rules(out, on)
+        return out
+
+    def _risk_measures(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
+                       zo: np.ndarray, fit: _Sample, on: _Sample, apparent_run: bool) -> None:
+        """Net benefit of the model's risk rule and its calibration slope on ``on``."""
+        pt = self.pt
+        nb = on.net_benefit(pt, risk=self.risk(zo)) if pt.size else np.zeros(0)
+        for t, v in zip(pt, nb, strict=True):
+            out[("net benefit", f"risk: {k[0]}", t)] = float(v)
+        # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
+        out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
+                                         else on.slope(zo))
+
+    def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
+                   c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:
+        """The implied thresholds of the model's curve at the median risk profile of ``fit``."""
+        r = self.r
+        f = _curve(self.models[k], c, r.family)
+        rest = float(np.median((z - f(r.x))[fit.idx]))
+        lo_x, hi_x = float(r.x.min()), float(r.x.max())
+        for t in self.pt:
+            found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
+            out[("crossings", k, t)] = float(len(found))
+            for j, (xv, _d) in enumerate(found, start=1):
+                out[("implied threshold", k, t, j)] = xv
+
+    def _fixed_rules(self, out: dict[tuple[Any, ...], float], on: _Sample) -> None:
+        """Net benefit of the rules that are not fitted: the legacy cut and treat all."""
+        pt = self.pt
+        for name, mask in self.rules:
             for t, v in zip(pt, on.net_benefit(pt, positive=mask[on.idx]), strict=True):
                 out[("net benefit", name, t)] = float(v)
         for t, v in zip(pt, on.net_benefit(pt, positive=np.ones(len(on.idx), dtype=bool)),
                         strict=True):
             out[("net benefit", "treat all", t)] = float(v)
-        return out
 
-    everything = np.arange(n)
-    own = {k: models[k].res.coef for k in keys}
-    apparent = measures(own, predictors(own, full), full, full, apparent_run=True)
+
+def _row_labels(key: tuple[Any, ...], est: float, q01: float, q99: float) -> dict[str, Any]:
+    """The columns that say which quantity a row is (model, adjustment, rule, threshold...)."""
+    kind = key[0]
+    if kind in ("C index", "calibration slope"):
+        return {"model": key[1][0], "adjustment": key[1][1]}
+    if kind == "delta C":
+        return {"model": "spline - legacy", "adjustment": key[1]}
+    if kind == "net benefit":
+        out: dict[str, Any] = {"rule": key[1], "threshold": key[2]}
+        if key[1].startswith("risk: "):
+            mk = next(k for k in RISK_MODELS if key[1] == f"risk: {k[0]}")
+            out.update(model=mk[0], adjustment=mk[1])
+        return out
+    k, t, j = key[1], key[2], key[3]  # implied threshold
+    return {"model": k[0], "adjustment": k[1], "threshold": t, "crossing": j,
+            "exposure_p01": q01, "exposure_p99": q99,
+            "beyond_central_range": float(not q01 <= est <= q99)}
+
+
+def _row_interval(row: dict[str, Any], key: tuple[Any, ...], est: float,
+                  apparent: dict[tuple[Any, ...], float], boot: list[dict[tuple[Any, ...], float]],
+                  test: list[dict[tuple[Any, ...], float]], B: int) -> None:
+    """The row's percentile interval, optimism and replicate counts (module docstring)."""
+    kind = key[0]
+    if kind == "implied threshold":
+        n_full = apparent[("crossings", key[1], key[2])]
+        same = [bt.get(key, np.nan) for bt in boot
+                if bt.get(("crossings", key[1], key[2])) == n_full]
+        vals = np.asarray(same, dtype=float)
+        row["replicates_matched"] = int(np.isfinite(vals).sum())
+        row["lower"], row["upper"] = _percentiles(vals)
+        row["computed_by"] = "percentile bootstrap over replicates with as many crossings"
+    else:
+        vals = np.asarray([bt.get(key, np.nan) for bt in boot], dtype=float)
+        row["lower"], row["upper"] = _percentiles(vals)
+        diffs = np.asarray([bt.get(key, np.nan) - tt.get(key, np.nan)
+                            for bt, tt in zip(boot, test, strict=True)], dtype=float)
+        ok = np.isfinite(diffs)
+        opt = float(diffs[ok].mean()) if ok.any() else float("nan")
+        if kind == "net benefit" and not str(row["rule"]).startswith("risk: "):
+            opt = 0.0  # a fixed rule (treat all, the legacy cut) is not fitted
+        if kind == "calibration slope":  # 1 in every bootstrap sample: no interval
+            row["lower"] = row["upper"] = float("nan")
+        row.update(apparent=est, optimism=opt, corrected=est - opt)
+        row["computed_by"] = "percentile bootstrap; Harrell's optimism correction"
+        vals = diffs
+    row["bootstrap_ok"] = int(np.isfinite(vals).sum())
+    row["bootstrap_failed"] = B - row["bootstrap_ok"]
+
+
+def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
+    """Bootstrap intervals and optimism-corrected values of C, net benefit and thresholds."""
+    a = r.analysis
+    horizon = horizon_for(a, spec) if r.family == "survival" else None
+    base: dict[str, Any] = {"risk_scale": risk_scale(a, spec).label, "horizon": horizon}
+    B = spec.resampling.bootstrap
+    skip = _skip_reason(r, spec, horizon)
+    if skip is not None:
+        return _finish([{**base, "status": "skipped", "reason": skip}])
+    models, notes = fitted_models(r, spec)
+    n = r.outcome.n
+    W = resample_weights(spec.rng(a.name, PURPOSE), n, B)
+    coefs = _replicate_coefs(r, models, W)
+    ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
+    full = _Sample(r, np.arange(n), horizon)
+    own = {k: models[k].res.coef for k in ev.keys}
+    apparent = ev.measures(own, ev.predictors(own, full), full, full, apparent_run=True)
     boot: list[dict[tuple[Any, ...], float]] = []
     test: list[dict[tuple[Any, ...], float]] = []
     for b in range(B):
-        drawn = _Sample(r, np.repeat(everything, W[b].astype(np.int64)), horizon)
-        cb = {k: coefs[k][b] for k in keys}
-        zs = predictors(cb, drawn)
-        boot.append(measures(cb, zs, drawn, drawn))
-        test.append(measures(cb, zs, drawn, full))
+        drawn = _Sample(r, np.repeat(np.arange(n), W[b].astype(np.int64)), horizon)
+        cb = {k: coefs[k][b] for k in ev.keys}
+        zs = ev.predictors(cb, drawn)
+        boot.append(ev.measures(cb, zs, drawn, drawn))
+        test.append(ev.measures(cb, zs, drawn, full))
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
     rows: list[dict[str, Any]] = []
     note = " | ".join(notes)
     for key, est in apparent.items():
-        kind = key[0]
-        if kind == "crossings":
+        if key[0] == "crossings":
             continue
-        row: dict[str, Any] = {**base, "quantity": kind, "estimate": est, "status": "ok",
+        row: dict[str, Any] = {**base, "quantity": key[0], "estimate": est, "status": "ok",
                                "reason": "", "note": note}
-        if kind in ("C index", "calibration slope"):
-            row.update(model=key[1][0], adjustment=key[1][1])
-        elif kind == "delta C":
-            row.update(model="spline - legacy", adjustment=key[1])
-        elif kind == "net benefit":
-            row.update(rule=key[1], threshold=key[2])
-            if key[1].startswith("risk: "):
-                mk = next(k for k in RISK_MODELS if key[1] == f"risk: {k[0]}")
-                row.update(model=mk[0], adjustment=mk[1])
-        else:  # implied threshold
-            k, t, j = key[1], key[2], key[3]
-            row.update(model=k[0], adjustment=k[1], threshold=t, crossing=j,
-                       exposure_p01=q01, exposure_p99=q99,
-                       beyond_central_range=float(not q01 <= est <= q99))
-        if kind == "implied threshold":
-            n_full = apparent[("crossings", key[1], key[2])]
-            same = [bt.get(key, np.nan) for bt in boot
-                    if bt.get(("crossings", key[1], key[2])) == n_full]
-            vals = np.asarray(same, dtype=float)
-            row["replicates_matched"] = int(np.isfinite(vals).sum())
-            row["lower"], row["upper"] = _percentiles(vals)
-            row["computed_by"] = "percentile bootstrap over replicates with as many crossings"
-        else:
-            vals = np.asarray([bt.get(key, np.nan) for bt in boot], dtype=float)
-            row["lower"], row["upper"] = _percentiles(vals)
-            diffs = np.asarray([bt.get(key, np.nan) - tt.get(key, np.nan)
-                                for bt, tt in zip(boot, test, strict=True)], dtype=float)
-            ok = np.isfinite(diffs)
-            opt = float(diffs[ok].mean()) if ok.any() else float("nan")
-            if kind == "net benefit" and not str(row["rule"]).startswith("risk: "):
-                opt = 0.0  # a fixed rule (treat all, the legacy cut) is not fitted
-            if kind == "calibration slope":  # 1 in every bootstrap sample: no interval
-                row["lower"] = row["upper"] = float("nan")
-            row.update(apparent=est, optimism=opt, corrected=est - opt)
-            row["computed_by"] = "percentile bootstrap; Harrell's optimism correction"
-            vals = diffs
-        row["bootstrap_ok"] = int(np.isfinite(vals).sum())
-        row["bootstrap_failed"] = B - row["bootstrap_ok"]
+        row.update(_row_labels(key, est, q01, q99))
+        _row_interval(row, key, est, apparent, boot, test, B)
         rows.append(row)
     if not rows:
         rows.append({**base, "status": "failed", "reason": note or "no model could be fitted"})
