@@ -268,10 +268,7 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
     """Every fit-job table of one analysis under multiple imputation, and its status record
     (problems recorded, never raised, as in :func:`unbin.pipeline.jobs.analyse`); with
     ``resampling`` also the resampling tables, on complete cases."""
-    from ..pipeline.jobs import _builder, failed_fit_messages
-    from ..questions import QUESTION_TABLES
     from ..refit.analysis import refit_analysis
-    from ..refit.combine import combine_tables
 
     a = spec.analysis(analysis)
     opts = opts or missing_options(spec, analysis)
@@ -313,54 +310,15 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                                         if f.form == "fp")
                   + "; curve grid and reference of the first set")
         notes = [f"{method} of {', '.join(c for c, n in counts.items() if n)}; {choice}"]
-        partial = False
         common = basis or full.basis
         first = FitsOnly(stripped(full.fits))  # what the refits of the sets need of it
         del full
-        per_set: dict[str, list[pd.DataFrame]] = {n: [] for n in QUESTION_TABLES}
-        errors: dict[str, Exception] = {}
-        light: list[FitsOnly] = []
-        # One set at a time: its refit, its tables, then only its coefficients are kept.
-        for k, s in enumerate(samples_m):
-            r = _refit_fixed(s, a, fixed, spec, cohort, common, first)
-            if k == 0:
-                notes += r.messages + failed_fit_messages(r.fits)
-                partial = bool(failed_fit_messages(r.fits))
-            for name, target in QUESTION_TABLES.items():
-                if name in errors:
-                    continue
-                try:
-                    per_set[name].append(_builder(target)(r, spec))
-                except Exception as exc:
-                    if not isinstance(exc, UnbinError):
-                        log.error("internal error in %s/%s, question %s:\n%s", cohort,
-                                  analysis, name, traceback.format_exc())
-                    errors[name] = exc
-            light.append(FitsOnly(stripped(r.fits)))
-            del r
-        for name in QUESTION_TABLES:
-            try:
-                if name in errors:
-                    raise errors[name]
-                if name == "information":
-                    combined, msg = combine_information(per_set[name], light, opts.imputations)
-                elif name == "coefficients":
-                    combined, msg = combine_coefficients(per_set[name])
-                elif name == "density":  # descriptive, suppressed per set: the first set's
-                    combined, msg = per_set[name][0], ""
-                else:
-                    combined, msg = combine_tables(per_set[name])
-                if msg:
-                    notes.append(f"{name}: {msg}")
-                tables[name] = _with_method(combined, method)
-            except Exception as exc:
-                if not isinstance(exc, UnbinError) and name not in errors:
-                    log.error("internal error in %s/%s, question %s:\n%s", cohort, analysis,
-                              name, traceback.format_exc())
-                tables[name] = pd.DataFrame()
-                partial = True
-                notes.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its "
-                             "table is empty, the other tables are complete")
+        per_set, errors, light, messages, failed = _tables_per_set(
+            samples_m, a, fixed, spec, cohort, common, first)
+        notes += messages + failed
+        lost = _combine_sets(per_set, errors, light, opts, method, tables, notes,
+                             f"{cohort}/{analysis}")
+        partial = bool(failed) or lost
         notes.append("the resampling tables (confounding, cutpoints) use complete cases")
         if partial:
             status["status"] = "partial"
@@ -379,6 +337,75 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
     tables["samples"] = samples
     tables["status"] = pd.DataFrame([status])
     return tables, status
+
+
+def _tables_per_set(samples_m: list[Sample], a: Analysis, fixed: Analysis, spec: Spec,
+                    cohort: str, common: CommonBasis | None, first: FitsOnly
+                    ) -> tuple[dict[str, list[pd.DataFrame]], dict[str, Exception],
+                               list[FitsOnly], list[str], list[str]]:
+    """Every question's table in every imputed set, one set at a time (its refit, its tables,
+    then only its coefficients are kept): the tables per question, the questions that failed,
+    the sets' coefficients, and the first set's messages and failed fits."""
+    from ..pipeline.jobs import _builder, failed_fit_messages
+    from ..questions import QUESTION_TABLES
+
+    per_set: dict[str, list[pd.DataFrame]] = {n: [] for n in QUESTION_TABLES}
+    errors: dict[str, Exception] = {}
+    light: list[FitsOnly] = []
+    messages: list[str] = []
+    failed: list[str] = []
+    for k, s in enumerate(samples_m):
+        r = _refit_fixed(s, a, fixed, spec, cohort, common, first)
+        if k == 0:
+            messages, failed = list(r.messages), failed_fit_messages(r.fits)
+        for name, target in QUESTION_TABLES.items():
+            if name in errors:
+                continue
+            try:
+                per_set[name].append(_builder(target)(r, spec))
+            except Exception as exc:
+                if not isinstance(exc, UnbinError):
+                    log.error("internal error in %s/%s, question %s:\n%s", cohort, a.name,
+                              name, traceback.format_exc())
+                errors[name] = exc
+        light.append(FitsOnly(stripped(r.fits)))
+        del r
+    return per_set, errors, light, messages, failed
+
+
+def _combine_sets(per_set: dict[str, list[pd.DataFrame]], errors: dict[str, Exception],
+                  light: list[FitsOnly], opts: MissingOptions, method: str,
+                  tables: dict[str, pd.DataFrame], notes: list[str], where: str) -> bool:
+    """Each question's tables of the imputed sets combined into ``tables`` (Rubin's rules; the
+    information tests by D1; the coefficients' total covariance; the first set's density);
+    notes appended. True when a question was lost."""
+    from ..refit.combine import combine_tables
+
+    lost = False
+    for name in per_set:
+        try:
+            if name in errors:
+                raise errors[name]
+            if name == "information":
+                combined, msg = combine_information(per_set[name], light, opts.imputations)
+            elif name == "coefficients":
+                combined, msg = combine_coefficients(per_set[name])
+            elif name == "density":  # descriptive, suppressed per set: the first set's
+                combined, msg = per_set[name][0], ""
+            else:
+                combined, msg = combine_tables(per_set[name])
+            if msg:
+                notes.append(f"{name}: {msg}")
+            tables[name] = _with_method(combined, method)
+        except Exception as exc:
+            if not isinstance(exc, UnbinError) and name not in errors:
+                log.error("internal error in %s, question %s:\n%s", where, name,
+                          traceback.format_exc())
+            tables[name] = pd.DataFrame()
+            lost = True
+            notes.append(f"question {name!r} failed ({type(exc).__name__}: {exc}); its "
+                         "table is empty, the other tables are complete")
+    return lost
 
 
 def _complete_case_resampling(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
