@@ -323,14 +323,10 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
         if partial:
             status["status"] = "partial"
         status["message"] = " | ".join(dict.fromkeys(notes))
-    except UnbinError as exc:
-        status.update(status="failed", message=str(exc))
-        tables = {}
-    except Exception as exc:  # an internal error must not stop the other analyses
-        log.error("internal error in %s/%s:\n%s", cohort, analysis, traceback.format_exc())
-        status.update(status="error",
-                      message=f"internal error ({type(exc).__name__}: {exc}); please report it "
-                              "with the log file of this job.")
+    except Exception as exc:  # recorded, never raised: the other analyses must complete
+        from ..pipeline.jobs import failure_status
+
+        status.update(failure_status(exc, f"{cohort}/{analysis}"))
         tables = {}
     if resampling and status["status"] in ("ok", "partial"):
         tables.update(_complete_case_resampling(spec, cohort, analysis, frame, method))

@@ -88,6 +88,16 @@ def failed_fit_messages(fits: Sequence[Any]) -> list[str]:
     return [f"{', '.join(which)}: {why}" for why, which in by_reason.items()]
 
 
+def failure_status(exc: Exception, where: str) -> dict[str, str]:
+    """The status of an analysis that stopped: ``failed`` with the message of an UnbinError (bad
+    data, an empty sample), ``error`` for an internal error (logged with its traceback)."""
+    if isinstance(exc, UnbinError):
+        return {"status": "failed", "message": str(exc)}
+    log.error("internal error in %s:\n%s", where, traceback.format_exc())
+    return {"status": "error", "message": f"internal error ({type(exc).__name__}: {exc}); please "
+            "report it with the log file of this job."}
+
+
 def check_sample_usable(sample: Sample, a: Analysis) -> None:
     """A DataError when the analysis sample cannot be analysed: fewer than MIN_SAMPLE_ROWS rows
     (naming the step that dropped most), or an outcome without events (or non-events)."""
@@ -172,14 +182,8 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
         if failed or lost_questions or missing_note:
             status["status"] = "partial"
         status["message"] = " | ".join(dict.fromkeys(notes))
-    except UnbinError as exc:
-        status.update(status="failed", message=str(exc))
-        tables = {}
-    except Exception as exc:  # an internal error must not stop the other analyses
-        log.error("internal error in %s/%s:\n%s", cohort, analysis, traceback.format_exc())
-        status.update(status="error",
-                      message=f"internal error ({type(exc).__name__}: {exc}); please report it "
-                              "with the log file of this job.")
+    except Exception as exc:  # recorded, never raised: the other analyses must complete
+        status.update(failure_status(exc, f"{cohort}/{analysis}"))
         tables = {}
     tables["samples"] = samples
     tables["missingness"] = missing

@@ -73,9 +73,10 @@ def rubin(estimates: np.ndarray, ses: np.ndarray, df_complete: float = np.inf) -
 
 
 @dataclass(frozen=True)
-class D1:
-    """The combined Wald test: F statistic on (k, df) degrees of freedom, its p-value, the
-    relative increase in variance r and the fraction of missing information r / (1 + r)."""
+class CombinedTest:
+    """A test combined over imputed sets: F statistic on (k, df) degrees of freedom, its
+    p-value, the relative increase in variance r and the fraction of missing information
+    r / (1 + r)."""
 
     statistic: float
     k: int
@@ -91,6 +92,10 @@ class D1:
     @property
     def fmi(self) -> float:
         return self.r / (1 + self.r)
+
+
+class D1(CombinedTest):
+    """The combined Wald test (D1)."""
 
 
 def d1(coefs: Sequence[np.ndarray], covs: Sequence[np.ndarray]) -> D1:
@@ -116,24 +121,9 @@ def d1(coefs: Sequence[np.ndarray], covs: Sequence[np.ndarray]) -> D1:
     return D1(stat, k, float(df), p, r)
 
 
-@dataclass(frozen=True)
-class D2:
+class D2(CombinedTest):
     """Chi-square statistics combined over imputations (D2; Li, Meng, Raghunathan & Rubin
     1991; van Buuren 2018, sec. 5.3.4): F on (k, df), p and the relative increase in variance."""
-
-    statistic: float
-    k: int
-    df: float
-    p: float
-    r: float
-
-    @property
-    def chi2(self) -> float:
-        return self.k * self.statistic
-
-    @property
-    def fmi(self) -> float:
-        return self.r / (1 + self.r)
 
 
 def d2(chi2: Sequence[float], k: int) -> D2:
