@@ -169,3 +169,22 @@ def test_one_message_per_cause() -> None:
                            ("north", "b", "ok", ""), ("south", "b", "failed", "separation"))])
     assert summary.messages({"status": st}) == ["north/a, south/a failed: only 3 rows",
                                                 "south/b failed: separation"]
+
+
+def test_compact_svg_keeps_what_is_drawn_and_referenced() -> None:
+    # Hand-written SVG: the prolog, doctype, metadata and line breaks between elements go, an
+    # id nothing references goes, a clip path's id that a url(#...) uses stays, text stays.
+    from unbin.present.report.html import compact_svg, svg_data_uri
+
+    svg = ('<?xml version="1.0" encoding="utf-8"?>\n<!DOCTYPE svg PUBLIC "x" "y">\n'
+           '<svg xmlns="http://www.w3.org/2000/svg">\n <metadata>\n  <rdf/>\n </metadata>\n'
+           ' <defs>\n  <clipPath id="c1"><rect width="1" height="1"/></clipPath>\n </defs>\n'
+           ' <g id="figure_1" clip-path="url(#c1)">\n  <text x="1">a &amp; b</text>\n </g>\n'
+           '</svg>\n')
+    out = compact_svg(svg)
+    assert out == ('<svg xmlns="http://www.w3.org/2000/svg"><defs><clipPath id="c1"><rect '
+                   'width="1" height="1"/></clipPath></defs><g clip-path="url(#c1)"><text '
+                   'x="1">a &amp; b</text></g></svg>')
+    uri = svg_data_uri(svg.encode())
+    assert uri.startswith("data:image/svg+xml;charset=utf-8,<svg")
+    assert '"' not in uri and "#" not in uri and "&" not in uri  # escaped: %22, %23, %26

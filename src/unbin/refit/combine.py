@@ -184,9 +184,9 @@ def combine_tables(tables: Sequence[pd.DataFrame], effect_transform: bool = True
             or pd.api.types.is_bool_dtype(first[c])]
     differing = [c for c in text if c not in VARYING_TEXT and not _same([t[c] for t in tables])]
     if differing:
-        return first.copy(), ("the imputed sets gave tables whose rows differ (in "
-                              f"{', '.join(differing)}); the first imputed set's table is "
-                              "shown, not combined")
+        where = ", ".join(c.replace("_", " ") for c in differing)  # read in the report too
+        return first.copy(), (f"the imputed sets gave tables whose rows differ (in {where}); "
+                              "the first imputed set's table is shown, not combined")
     out = first.copy()
     numeric = [c for c in first.columns if c not in text]
     tested = {"statistic", "df", "p"} <= set(first.columns)

@@ -135,13 +135,33 @@ class FigureView:
     problem: str
 
 
-_URI_ESCAPES = {c: f"%{ord(c):02X}" for c in '%"#<>&\n\r\t'}
+# What would end the double-quoted attribute or the URI, or be read as a character reference;
+# "<" and ">" stay as they are (allowed inside a quoted HTML attribute, and read as is in a data
+# URI by the browsers), which keeps the inlined figures about a tenth smaller.
+_URI_ESCAPES = {c: f"%{ord(c):02X}" for c in '%"#&\n\r\t'}
+
+
+_PROLOG = re.compile(r"<\?xml[^>]*\?>|<!DOCTYPE[^>]*>|<metadata>.*?</metadata>", re.S)
+_ID = re.compile(r' id="([^"]*)"')
+_REFERENCE = re.compile(r'(?:url\(#|href="#)([^)"]+)')
+
+
+def compact_svg(text: str) -> str:
+    """The figure as drawn, lighter to inline: no XML prolog, doctype or metadata, no line
+    breaks between elements (whitespace-only text between tags; figures hold no tspans), and
+    no element ids that nothing references. What is drawn is unchanged; the files beside the
+    report keep the full SVG."""
+    text = _PROLOG.sub("", text)
+    text = re.sub(r">\s+<", "><", text).strip()
+    used = set(_REFERENCE.findall(text))
+    return _ID.sub(lambda m: m.group(0) if m.group(1) in used else "", text)
 
 
 def svg_data_uri(svg: bytes) -> str:
-    """The SVG as a UTF-8 data URI with only the characters that would end the attribute or
-    the URI escaped: about a tenth larger than the file, where base64 is a third larger."""
-    decoded = svg.decode("utf-8")
+    """The SVG (compacted) as a UTF-8 data URI with only the characters that would end the
+    attribute or the URI escaped: about a tenth larger than the text, where base64 is a third
+    larger."""
+    decoded = compact_svg(svg.decode("utf-8"))
     return "data:image/svg+xml;charset=utf-8," + "".join(_URI_ESCAPES.get(c, c) for c in decoded)
 
 
