@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 from unbin.data import analysis_sample
@@ -32,3 +33,22 @@ def keep_analyses(raw: dict[str, Any], *names: str) -> dict[str, Any]:
         else:
             raw.pop("published")
     return raw
+
+
+def level_without_reference_rows() -> tuple[pd.DataFrame, dict[str, Any]]:
+    """x rises steeply with the modifier w: in the level w >= 50 no row lies in the legacy
+    reference group x < 60, so that level has no reference value."""
+    rng = np.random.default_rng(45)
+    n = 1500
+    w = rng.uniform(0, 100, n)
+    x = 40 + 0.6 * w + rng.normal(0, 3, n)
+    lp = -1 + 0.04 * (x - 50) + 0.5 * (w >= 50)
+    frame = pd.DataFrame({"x": x, "w": w, "z": rng.normal(size=n),
+                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
+    assert not ((w >= 50) & (x < 60)).any()
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"], "by": "w",
+                         "continuous": {"forms": ["linear"], "grid_points": 10}}]}
+    return frame, raw

@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from helpers import level_without_reference_rows
 from reference.tablerefs import (
     MARKER_GROUPING,
     OUTCOMES,
@@ -281,27 +282,8 @@ def test_level_curves_lie_on_the_grid_relative_to_each_levels_reference(
             assert (c["status"] == "ok").all() and c["estimate"].notna().all()
 
 
-def _level_without_reference_rows() -> tuple[pd.DataFrame, dict[str, Any]]:
-    """x rises steeply with the modifier w: in the level w >= 50 no row lies in the legacy
-    reference group x < 60, so that level has no reference value."""
-    rng = np.random.default_rng(45)
-    n = 1500
-    w = rng.uniform(0, 100, n)
-    x = 40 + 0.6 * w + rng.normal(0, 3, n)
-    lp = -1 + 0.04 * (x - 50) + 0.5 * (w >= 50)
-    frame = pd.DataFrame({"x": x, "w": w, "z": rng.normal(size=n),
-                          "y": (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)})
-    assert not ((w >= 50) & (x < 60)).any()
-    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
-           "groupings": {"x": {"cuts": [60]}, "w": {"cuts": [50]}},
-           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
-                         "exposure": "x", "adjust": ["z"], "by": "w",
-                         "continuous": {"forms": ["linear"], "grid_points": 10}}]}
-    return frame, raw
-
-
 def test_a_level_without_reference_rows_is_not_estimable(refit_frame: Any) -> None:
-    frame, raw = _level_without_reference_rows()
+    frame, raw = level_without_reference_rows()
     spec, r = refit_frame(frame, raw)
     lv = curves_table(r, spec).query("by_level != ''")
     gone = lv[lv["by_level"] == ">=50"]

@@ -65,7 +65,7 @@ def incomplete_sample(frame: pd.DataFrame, a: Analysis, spec: Spec
         if observed.empty:
             raise DataError(f"column {c!r} is missing in every row of the extract; it cannot be "
                             "imputed. Remove it from the analysis or fill it in the extract.")
-        work.loc[masks[c], c] = observed.iloc[0]  # a placeholder, removed again below
+        work.loc[masks[c], c] = observed.iloc[0]  # keeps the row past the complete-case step; NaN again below
     sample = analysis_sample(work, a, spec)
     out = sample.frame
     rows = out[ROW].to_numpy()
