@@ -13,8 +13,6 @@ comparable pair (where both must give NaN; a disagreement there is counted in ``
 
 from __future__ import annotations
 
-import argparse
-import json
 from typing import Any
 
 import numpy as np
@@ -66,13 +64,7 @@ def run(replicates: int, seed: int) -> dict[str, Any]:
             "max_abs_difference": worst}
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--replicates", type=int, default=200)
-    ap.add_argument("--seed", type=int, default=1)
-    args = ap.parse_args()
-    print(json.dumps(run(args.replicates, args.seed)))
-
-
 if __name__ == "__main__":
-    main()
+    from _command import command_line  # run as a script: this folder is on sys.path
+
+    command_line(run, __doc__, replicates=200, seed=1)

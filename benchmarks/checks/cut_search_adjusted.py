@@ -18,8 +18,6 @@ Lausen-corrected p (confounded), each with its Monte-Carlo standard error.
 
 from __future__ import annotations
 
-import argparse
-import json
 from typing import Any
 
 import numpy as np
@@ -80,13 +78,7 @@ def run(replicates: int, seed: int, n: int = 200, rho: float = 0.7) -> dict[str,
     return out
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--replicates", type=int, default=1000)
-    ap.add_argument("--seed", type=int, default=1)
-    args = ap.parse_args()
-    print(json.dumps(run(args.replicates, args.seed)))
-
-
 if __name__ == "__main__":
-    main()
+    from _command import command_line  # run as a script: this folder is on sys.path
+
+    command_line(run, __doc__, replicates=1000, seed=1)

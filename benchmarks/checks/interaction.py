@@ -12,8 +12,6 @@ at ``alpha`` estimates the type-I error; its Monte-Carlo SE is sqrt(rate (1 - ra
 
 from __future__ import annotations
 
-import argparse
-import json
 import math
 import tempfile
 from pathlib import Path
@@ -81,13 +79,7 @@ def run(replicates: int, seed: int, n: int = ROWS, alpha: float = ALPHA) -> dict
             "mean_lr": float(np.mean(lrs)) if lrs else float("nan"), "failed": failed}
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--replicates", type=int, default=2000)
-    ap.add_argument("--seed", type=int, default=2026)
-    args = ap.parse_args()
-    print(json.dumps(run(args.replicates, args.seed), indent=1))
-
-
 if __name__ == "__main__":
-    main()
+    from _command import command_line  # run as a script: this folder is on sys.path
+
+    command_line(run, __doc__, replicates=2000, seed=2026)

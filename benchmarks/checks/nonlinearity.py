@@ -23,8 +23,6 @@ two-sided band 0.05 +- 3 SE; ``within_band`` says whether the rate lies inside i
 
 from __future__ import annotations
 
-import argparse
-import json
 import sys
 from pathlib import Path
 from typing import Any
@@ -121,14 +119,7 @@ def run(replicates: int = 2000, seed: int = 20240, families: tuple[str, ...] = F
             "aic_knot_candidates": [3, 4, 5], "results": results}
 
 
-def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--replicates", type=int, default=2000)
-    ap.add_argument("--seed", type=int, default=20240)
-    args = ap.parse_args(argv)
-    print(json.dumps(run(args.replicates, args.seed), indent=2))
-    return 0
-
-
 if __name__ == "__main__":
-    sys.exit(main())
+    from _command import command_line  # run as a script: this folder is on sys.path
+
+    command_line(run, __doc__, replicates=2000, seed=20240)

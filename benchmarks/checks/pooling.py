@@ -16,8 +16,6 @@ same code path as the pooled curves.
 
 from __future__ import annotations
 
-import argparse
-import json
 from typing import Any
 
 import numpy as np
@@ -58,13 +56,7 @@ def run(replicates: int, seed: int) -> dict[str, Any]:
             "results": [simulate(k, replicates, rng) for k in (3, 5)]}
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--replicates", type=int, default=4000)
-    ap.add_argument("--seed", type=int, default=20260)
-    args = ap.parse_args()
-    print(json.dumps(run(args.replicates, args.seed), indent=1))
-
-
 if __name__ == "__main__":
-    main()
+    from _command import command_line  # run as a script: this folder is on sys.path
+
+    command_line(run, __doc__, replicates=4000, seed=20260)

@@ -14,8 +14,6 @@ the power (reversal); their Monte-Carlo SE is sqrt(rate (1 - rate) / R).
 
 from __future__ import annotations
 
-import argparse
-import json
 from typing import Any
 
 import numpy as np
@@ -76,13 +74,7 @@ def run(replicates: int, seed: int, n: int = ROWS, alpha: float = ALPHA) -> dict
             "power": rates(power_reps, seed + 1, -0.5, n, alpha)}
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--replicates", type=int, default=2000)
-    ap.add_argument("--seed", type=int, default=2026)
-    args = ap.parse_args()
-    print(json.dumps(run(args.replicates, args.seed), indent=1))
-
-
 if __name__ == "__main__":
-    main()
+    from _command import command_line  # run as a script: this folder is on sys.path
+
+    command_line(run, __doc__, replicates=2000, seed=2026)

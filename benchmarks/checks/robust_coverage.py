@@ -22,8 +22,6 @@ one, with the Monte-Carlo SE.
 
 from __future__ import annotations
 
-import argparse
-import json
 from typing import Any
 
 import numpy as np
@@ -100,13 +98,7 @@ def run(replicates: int, seed: int) -> dict[str, Any]:
     return out
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--replicates", type=int, default=2000)
-    ap.add_argument("--seed", type=int, default=1)
-    args = ap.parse_args()
-    print(json.dumps(run(args.replicates, args.seed), indent=2))
-
-
 if __name__ == "__main__":
-    main()
+    from _command import command_line  # run as a script: this folder is on sys.path
+
+    command_line(run, __doc__, replicates=2000, seed=1)
