@@ -37,7 +37,7 @@ def supports(outcome: Outcome) -> bool:
         return outcome.strata is None
     if outcome.family == "count":
         return outcome.dispersion == "poisson"
-    return outcome.family in ("continuous", "survival") and outcome.cause is None
+    return outcome.family in ("continuous", "survival")  # competing events: cause-specific
 
 
 def loglik_at(X: np.ndarray, outcome: Outcome, names: tuple[str, ...], coef: np.ndarray
