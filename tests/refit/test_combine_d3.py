@@ -4,7 +4,6 @@ D1 in a large sample, and its type-I error in seeded simulations."""
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
@@ -99,7 +98,6 @@ def test_d3_type_one_error_short():
 
 @pytest.mark.slow
 @pytest.mark.long
-@pytest.mark.skipif(os.environ.get("UNBIN_LONG_CHECKS") != "1", reason="UNBIN_LONG_CHECKS=1")
 def test_d3_type_one_error_long():
     # As above with 1,000 replicates: Monte-Carlo SE 0.69 points; two-sided band 2.9%-7.1%
     # (5% +- 3 SE).
