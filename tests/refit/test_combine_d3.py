@@ -176,3 +176,32 @@ def test_imputed_cox_information_is_d3_of_lifelines_fits():
     info = tables["information"].set_index("adjustment")
     assert info.loc["legacy", "lr_linear"] == pytest.approx(at.mean() / (1 + r3), rel=1e-5)
     assert info.loc["legacy", "statistic"].startswith("D3 likelihood ratio")
+
+
+def test_quasi_poisson_imputed_tests_fall_back_to_d1_and_say_so():
+    # A quasi-likelihood has no plain likelihood to evaluate at the pooled coefficients: the
+    # tests are D1 Wald on the quasi-Poisson covariance, and the statistic column says so.
+    from unbin.pipeline.jobs import analyse
+    from unbin.spec import parse_spec
+
+    rng = np.random.default_rng(5)
+    n = 300
+    z = rng.standard_normal(n)
+    x = 0.5 * z + rng.standard_normal(n)
+    c = rng.negative_binomial(2, 2 / (2 + np.exp(0.5 + 0.3 * x + 0.3 * z)))
+    frame = pd.DataFrame({"x": x, "z": np.where(rng.random(n) < 0.3, np.nan, z), "c": c,
+                          "pt": np.ones(n)})
+    raw = {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
+           "groupings": {"x": {"cuts": [-0.5, 0.5]}},
+           "analyses": [{"name": "a", "outcome": {"type": "count", "count": "c",
+                                                  "persontime": "pt",
+                                                  "count_model": "quasi-poisson"},
+                         "exposure": "x", "adjust": ["z"],
+                         "missing": {"method": "impute", "imputations": 3, "iterations": 2}}],
+           "continuous": {"spline_knots": [3]}, "seed": 4}
+    tables, status = analyse(parse_spec(raw, base=Path(".")), "c", "a", frame, resampling=False)
+    assert status["status"] == "ok", status["message"]
+    info = tables["information"]
+    assert info["statistic"].str.startswith("D1 Wald").all()
+    assert info["statistic"].str.contains("quasi-Poisson").all()
+    assert info["nonlinearity_p"].between(0, 1).all()
