@@ -84,7 +84,7 @@ def test_d1_with_one_coefficient_is_the_squared_rubin_t():
 
 def test_d1_type_one_error_under_the_null():
     # Seeded simulation: two null coefficients of x1, x2 in a linear model with 40% of x2
-    # missing at random given y; D1 over M = 5 PMM sets should reject about 5%.
+    # missing at random given y; D1 over M = 5 imputed sets should reject about 5%.
     # 400 replicates: Monte-Carlo SE 1.1 points; two-sided band 2%-9% (common practice: the
     # tests are mildly conservative under congenial imputation, van Buuren 2018 sec. 5.3).
     rng = np.random.default_rng(2026)
