@@ -88,7 +88,7 @@ def _numeric(X: np.ndarray, y: np.ndarray, miss: np.ndarray, rng: np.random.Gene
     The normal linear model of the column on ``X`` is fitted to the observed rows; its
     coefficients are drawn from their posterior (flat prior) and predict the missing rows,
     while the observed rows are predicted with the estimates (type-1 matching; van Buuren 2018,
-    sec. 3.4.2). Each missing row then takes one of its ``donors`` observed rows nearest in
+    sec. 3.4). Each missing row then takes one of its ``donors`` observed rows nearest in
     predicted mean, at random, and
 
     - ``"matching"`` (predictive mean matching; Morris, White & Royston 2014) imputes the

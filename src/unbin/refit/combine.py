@@ -153,7 +153,7 @@ def d2(chi2: Sequence[float], k: int) -> D2:
 
 class D3(CombinedTest):
     """Likelihood-ratio tests combined over imputations (D3; Meng & Rubin 1992; van Buuren
-    2018, sec. 5.3.5)."""
+    2018, sec. 5.3)."""
 
 
 def d3(lr: Sequence[float], lr_pooled: Sequence[float], k: int) -> D3:
@@ -164,7 +164,7 @@ def d3(lr: Sequence[float], lr_pooled: Sequence[float], k: int) -> D3:
     pooled over the sets (the means of theta1_m and of theta0_m), 2 (l1_m(theta1) -
     l0_m(theta0)). With d = mean(lr) and d~ = mean(lr_pooled): r3 = (M + 1) / (k (M - 1))
     (d - d~), truncated at 0 (it can fall below in a finite sample); D3 = d~ / (k (1 + r3)) on
-    F(k, v), v as for D1 with r3 (Meng & Rubin 1992, eqs. 2.7-2.10)."""
+    F(k, v), v as for D1 with r3 (Meng & Rubin 1992, from memory)."""
     d = np.asarray(lr, float)
     dp = np.asarray(lr_pooled, float)
     m = d.size
