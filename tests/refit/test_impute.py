@@ -10,7 +10,7 @@ import statsmodels.api as sm
 from scipy import stats
 from statsmodels.imputation.mice import MICE, MICEData
 
-from unbin.data.impute import Target, impute_chained, multinomial_fit, nelson_aalen
+from unbin.data.impute import DONORS, Target, impute_chained, multinomial_fit, nelson_aalen
 from unbin.refit.combine import combine_tables, d1, rubin
 
 
@@ -28,9 +28,11 @@ def _confounded(n: int, rng: np.random.Generator, beta_x: float = 0.5
     return frame, y
 
 
-def _sets(frame: pd.DataFrame, y: np.ndarray, m: int, seed: int) -> list[pd.DataFrame]:
+def _sets(frame: pd.DataFrame, y: np.ndarray, m: int, seed: int, numeric: str = "residual",
+          donors: int = DONORS) -> list[pd.DataFrame]:
     return impute_chained(frame, [Target("x", "numeric"), Target("z", "numeric")], y[:, None],
-                          imputations=m, iterations=5, rng=np.random.default_rng(seed))
+                          imputations=m, iterations=5, rng=np.random.default_rng(seed),
+                          donors=donors, numeric=numeric)
 
 
 def test_rubin_matches_statsmodels_mice_combining_on_the_same_sets():
@@ -82,7 +84,7 @@ def test_d1_with_one_coefficient_is_the_squared_rubin_t():
 
 def test_d1_type_one_error_under_the_null():
     # Seeded simulation: two null coefficients of x1, x2 in a linear model with 40% of x2
-    # missing at random given y; D1 over M = 5 PMM sets should reject about 5%.
+    # missing at random given y; D1 over M = 5 imputed sets should reject about 5%.
     # 400 replicates: Monte-Carlo SE 1.1 points; two-sided band 2%-9% (common practice: the
     # tests are mildly conservative under congenial imputation, van Buuren 2018 sec. 5.3).
     rng = np.random.default_rng(2026)
@@ -103,13 +105,14 @@ def test_d1_type_one_error_under_the_null():
     assert 0.02 <= rejections / reps <= 0.09
 
 
-def _coverage(reps: int, seed: int) -> tuple[float, float, float, float]:
+def _coverage(reps: int, seed: int, numeric: str = "residual", donors: int = DONORS
+              ) -> tuple[float, float, float, float]:
     rng = np.random.default_rng(seed)
     truth = 0.5
     mi_est, cc_est, covered = [], [], 0
     for _ in range(reps):
         frame, y = _confounded(1000, rng, truth)
-        sets = _sets(frame, y, 5, int(rng.integers(2**31)))
+        sets = _sets(frame, y, 5, int(rng.integers(2**31)), numeric, donors)
         fits = [sm.OLS(y, sm.add_constant(s[["x", "z"]].to_numpy())).fit() for s in sets]
         pooled = rubin(np.array([f.params[1] for f in fits])[:, None],
                        np.array([f.bse[1] for f in fits])[:, None])
@@ -125,43 +128,62 @@ def _coverage(reps: int, seed: int) -> tuple[float, float, float, float]:
 
 def test_imputation_removes_the_complete_case_bias_and_covers():
     # Seeded simulation with a known truth (slope 0.5), n = 1,000, about 35% of the confounder
-    # missing, more often at high y. 200 replicates: the imputed mean must be within 3
-    # Monte-Carlo SEs of the truth, complete cases biased by more than 5 of them;
-    # coverage: Monte-Carlo SE 1.5 points at 95%, two-sided band 90.5%-99.5% (3 SE).
+    # missing, more often at high y; M = 5 sets by local residual draws (10 donors).
+    # 200 replicates: the imputed mean must be within 3 Monte-Carlo SEs of the truth, complete
+    # cases biased by more than 5 of them. Coverage: the target band 93%-97% (Monte-Carlo SE
+    # 1.5 points at 95%, so the band is +-1.3 SE: it holds this seeded run to the target; the
+    # long test below gives the precise rate). Measured (seed 77): 94.0%, bias -0.003 (MC SE
+    # 0.003); predictive mean matching with 5 donors on the same seed: 93.5%, +0.004.
     cover, bias, mc_se, cc_bias = _coverage(200, 77)
     assert abs(bias) < 3 * mc_se
     assert abs(cc_bias) > 5 * mc_se
-    assert 0.905 <= cover <= 0.995
+    assert 0.93 <= cover <= 0.97
 
 
 @pytest.mark.slow
 @pytest.mark.long
 def test_imputation_coverage_over_1000_replicates():
     # As above with 1,000 replicates (Monte-Carlo SE of the coverage 0.7 points). Measured
-    # (seed 78): coverage 92.9%, imputed bias +0.008 (MC SE 0.0014), complete cases -0.021.
-    # Predictive mean matching cannot draw beyond the observed values, and here the missing
+    # (seed 78): local residual draws, 10 donors: see README's check table; predictive mean
+    # matching with 5 donors (before): coverage 92.9%, bias +0.008 (MC SE 0.0014), complete
+    # cases -0.021. Matching cannot draw beyond the observed values, and here the missing
     # confounder values crowd at high y where few are observed, so the donors pull them to the
-    # centre (van Buuren 2018, sec. 3.4): a bias of 1.6% of the slope, more than Monte-Carlo
-    # error at this size. Checked: imputation removes most of the complete-case bias, and the
-    # coverage is within 5 Monte-Carlo SEs of 95% (91.5%-98.5%).
+    # centre (bias growing with the donors: +0.004 with 1, +0.013 with 10, +0.022 with 20),
+    # while few donors are shared by the crowded rows in every set, a common part of the
+    # imputations that the between-set variance misses (an empirical SD 5% above the mean
+    # SE). A normal-model draw on the same seed (no donors) covered 94.9%, bias +0.001: the
+    # donor step was the cause. Checked: target band 93%-97%, bias within 3 MC SEs, and
+    # matching's bias beyond 4 of them (what the residual draws fix).
     cover, bias, mc_se, cc_bias = _coverage(1000, 78)
-    assert abs(bias) < 0.5 * abs(cc_bias)
+    assert abs(bias) < 3 * mc_se
     assert abs(cc_bias) > 10 * mc_se
-    assert 0.915 <= cover <= 0.985
+    assert 0.93 <= cover <= 0.97
+    _, pmm_bias, pmm_se, _ = _coverage(1000, 78, "matching", 5)
+    assert pmm_bias > 4 * pmm_se
 
 
-def test_pmm_imputes_only_observed_values_and_is_seeded():
+def test_numeric_draws_stay_in_the_observed_range_and_are_seeded():
     rng = np.random.default_rng(5)
     frame, y = _confounded(300, rng)
-    a = _sets(frame, y, 2, 99)
-    b = _sets(frame, y, 2, 99)
-    for s, t in zip(a, b, strict=True):
-        pd.testing.assert_frame_equal(s, t)
-        assert s["z"].notna().all()
-        # predictive mean matching draws from the observed values only (Morris et al. 2014)
-        assert set(s["z"]) <= set(frame["z"].dropna())
-        pd.testing.assert_series_equal(s["x"], frame["x"])
-    assert not a[0]["z"].equals(a[1]["z"])
+    observed = frame["z"].dropna()
+    for numeric in ("residual", "matching"):
+        a = _sets(frame, y, 2, 99, numeric)
+        b = _sets(frame, y, 2, 99, numeric)
+        for s, t in zip(a, b, strict=True):
+            pd.testing.assert_frame_equal(s, t)
+            assert s["z"].notna().all()
+            assert s["z"].between(observed.min(), observed.max()).all()
+            pd.testing.assert_series_equal(s["x"], frame["x"])
+            imputed = set(s["z"]) - set(observed)
+            if numeric == "matching":
+                # predictive mean matching draws from the observed values only (Morris et al.
+                # 2014)
+                assert not imputed
+            else:  # residual draws: the row's own mean plus a donor's residual
+                assert len(imputed) > 0.9 * frame["z"].isna().sum()
+        assert not a[0]["z"].equals(a[1]["z"])
+    with pytest.raises(ValueError, match="numeric"):
+        _sets(frame, y, 2, 99, "nearest")
 
 
 def test_multinomial_fit_matches_statsmodels_mnlogit():
@@ -286,8 +308,21 @@ def test_pipeline_combines_like_statsmodels_mice_on_its_imputed_sets():
     assert row["se"].iloc[0] == pytest.approx(ref.bse[1], rel=1e-5)
     assert row["missing_method"].iloc[0] == "imputed (M = 4)"
     info = tables["information"].set_index("adjustment")
-    assert info.loc["legacy", "lr_linear"] == pytest.approx((ref.params[1] / ref.bse[1]) ** 2,
-                                                            rel=1e-5)
+    # lr_linear: Meng & Rubin's (1992) D3 written out on statsmodels' Logit log-likelihoods,
+    # at each set's estimates and at the estimates averaged over the sets (k = 1, M = 4)
+    def logit(s: pd.DataFrame, cols: list[str]) -> sm.Logit:
+        return sm.Logit(s["y"].to_numpy(float), sm.add_constant(s[cols].to_numpy()))
+
+    nulls = [logit(s, ["z"]).fit(disp=0) for s in sets]
+    lr = np.array([2 * (f.llf - g.llf) for f, g in zip(fits, nulls, strict=True)])
+    b1 = np.mean([f.params for f in fits], axis=0)
+    b0 = np.mean([g.params for g in nulls], axis=0)
+    at_pooled = np.array([2 * (logit(s, ["x", "z"]).loglike(b1) - logit(s, ["z"]).loglike(b0))
+                          for s in sets])
+    r3 = max((4 + 1) / (1 * (4 - 1)) * (lr.mean() - at_pooled.mean()), 0.0)
+    assert info.loc["legacy", "lr_linear"] == pytest.approx(at_pooled.mean() / (1 + r3),
+                                                            rel=1e-6)
+    assert info.loc["legacy", "statistic"].startswith("D3 likelihood ratio")
     # the imputed analysis keeps every row; complete cases drop those with z missing
     cc, _ = analyse(_spec(None), "c", "a", frame, resampling=False)
     assert tables["status"]["n_used"].iloc[0] == len(frame)
@@ -380,7 +415,7 @@ def test_every_family_runs_imputed_with_combined_tables(family):
         fmi = df["fmi"].dropna()
         assert len(fmi) and ((fmi >= 0) & (fmi <= 1)).all()
     info = tables["information"]
-    assert info["statistic"].str.startswith("D1 Wald").all()
+    assert info["statistic"].str.startswith("D3 likelihood ratio").all()
     assert info["nonlinearity_p"].between(0, 1).all()
 
 

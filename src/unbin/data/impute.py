@@ -2,10 +2,11 @@
 analysis variables.
 
 Each incomplete variable is imputed in turn from all the others and from the outcome
-(van Buuren 2018, ch. 4): numeric columns by predictive mean matching (Morris, White & Royston
+(van Buuren 2018, ch. 4): numeric columns by local residual draws (Morris, White & Royston
 2014: the regression coefficients drawn from their approximate posterior, each missing value
-taking the observed value of one of the ``donors`` rows whose predicted means are closest), and
-categorical ones (two or more levels) by a multinomial logistic model whose coefficients are
+its own predicted mean plus the residual of one of the ``donors`` observed rows whose predicted
+means are closest, kept inside the observed range; predictive mean matching, which imputes the
+donor's value itself, on request), and categorical ones (two or more levels) by a multinomial logistic model whose coefficients are
 drawn from their approximate (normal) posterior. The outcome enters every imputation model as
 the ``auxiliary`` columns the caller passes (White & Royston 2009: the event indicator and the
 Nelson–Aalen cumulative hazard for survival; see :func:`outcome_auxiliaries`). Splines, legacy
@@ -22,7 +23,11 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-DONORS = 5  # predictive mean matching: donors per missing value (Morris et al. 2014)
+# Donors per missing value. With 5, the rows crowded at one end share the same few donors in
+# every set, a common part of their imputations that no set-to-set variation shows: the
+# imputed-slope interval covered 93.1% in the README's check (1,000 replicates), 94.7% with 10.
+DONORS = 10
+NUMERIC = ("residual", "matching")  # how numeric columns are drawn (see _numeric)
 RIDGE = 1e-4  # relative ridge on the imputation models' information (stability under separation)
 
 
@@ -76,12 +81,25 @@ def _design(frame: pd.DataFrame, columns: Sequence[Target], skip: str,
     return np.hstack(parts)
 
 
-def _pmm(X: np.ndarray, y: np.ndarray, miss: np.ndarray, rng: np.random.Generator,
-         donors: int) -> np.ndarray:
-    """Predictive mean matching (Morris et al. 2014, type-1 matching): coefficients drawn from
-    the posterior of the normal linear model (flat prior) predict the missing rows; the
-    observed rows are predicted with the estimates; each missing row takes the value of one of
-    its ``donors`` nearest observed rows, chosen at random."""
+def _numeric(X: np.ndarray, y: np.ndarray, miss: np.ndarray, rng: np.random.Generator,
+             donors: int, how: str) -> np.ndarray:
+    """One numeric column's missing values, drawn near their predicted means.
+
+    The normal linear model of the column on ``X`` is fitted to the observed rows; its
+    coefficients are drawn from their posterior (flat prior) and predict the missing rows,
+    while the observed rows are predicted with the estimates (type-1 matching; van Buuren 2018,
+    sec. 3.4). Each missing row then takes one of its ``donors`` observed rows nearest in
+    predicted mean, at random, and
+
+    - ``"matching"`` (predictive mean matching; Morris, White & Royston 2014) imputes the
+      donor's observed value;
+    - ``"residual"`` (local residual draws; Morris, White & Royston 2014) imputes the row's
+      own predicted mean plus the donor's residual (observed minus predicted), kept inside
+      the observed range. Where the missing rows' predicted means lie beyond most observed
+      ones (missingness tied to an extreme outcome), the nearest donors sit on the centre
+      side and matching pulls the imputed values towards the centre; the residual keeps the
+      row's own mean and borrows only the donor's deviation from it.
+    """
     Xo, yo = X[~miss], y[~miss]
     n, p = Xo.shape
     gram = Xo.T @ Xo
@@ -103,7 +121,10 @@ def _pmm(X: np.ndarray, y: np.ndarray, miss: np.ndarray, rng: np.random.Generato
     dist = np.abs(sorted_pred[window] - pred_mis[:, None])
     nearest = np.argsort(dist, axis=1, kind="stable")[:, :k]
     pick = nearest[np.arange(len(pred_mis)), rng.integers(0, k, len(pred_mis))]
-    return yo[order[window[np.arange(len(pred_mis)), pick]]]
+    donor = order[window[np.arange(len(pred_mis)), pick]]
+    if how == "matching":
+        return yo[donor]
+    return np.clip(pred_mis + resid[donor], yo.min(), yo.max())
 
 
 def multinomial_fit(X: np.ndarray, codes: np.ndarray, k: int, max_iter: int = 50
@@ -163,11 +184,14 @@ def _categorical(X: np.ndarray, s: pd.Series, miss: np.ndarray,
 
 def impute_chained(frame: pd.DataFrame, targets: Sequence[Target], auxiliary: np.ndarray,
                    imputations: int, iterations: int, rng: np.random.Generator,
-                   donors: int = DONORS) -> list[pd.DataFrame]:
+                   donors: int = DONORS, numeric: str = "residual") -> list[pd.DataFrame]:
     """``imputations`` completed copies of ``frame``: one chain each, ``iterations`` cycles over
     the incomplete targets (fewest missing first), started from random draws of the observed
     values. Columns that are not targets are returned unchanged; ``auxiliary`` (n x a, complete)
-    enters every imputation model."""
+    enters every imputation model. ``numeric``: local residual draws (default) or predictive
+    mean matching for the numeric targets (:func:`_numeric`)."""
+    if numeric not in NUMERIC:
+        raise ValueError(f"numeric must be one of {NUMERIC}, got {numeric!r}")
     aux = np.asarray(auxiliary, float).reshape(len(frame), -1)
     if aux.size:
         sd = aux.std(axis=0)
@@ -192,7 +216,7 @@ def impute_chained(frame: pd.DataFrame, targets: Sequence[Target], auxiliary: np
                 X = _design(cur, targets, t.column, aux)
                 if t.kind == "numeric":
                     y = cur[t.column].to_numpy(float)
-                    cur.loc[miss, t.column] = _pmm(X, y, miss, rng, donors)
+                    cur.loc[miss, t.column] = _numeric(X, y, miss, rng, donors, numeric)
                 else:
                     orig = frame[t.column]
                     s = cur[t.column].where(~miss, orig)

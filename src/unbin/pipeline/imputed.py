@@ -8,15 +8,20 @@ log person-time; survival: the event and the Nelson–Aalen cumulative hazard, W
 2009). Splines, legacy groups and FP powers are then built from each set's imputed raw values.
 
 Choices are made once, on the first imputed set: the full refit there (spline knots by AIC, the
-FP function selection) is recorded, and every set, the first included, is then refitted with the
-spline's knots fixed at the chosen ones, the chosen FP1, FP2 and FP functions (their powers,
-shift and scale) and the first set's common basis (curve grid and reference), so the sets'
-tables match row for row. The cost is one full refit plus M refits of some thirty fixed designs,
-not M full FP searches; the sets are refitted one at a time, each set's tables built and its
-fits kept without their per-row linear predictors, so memory holds one set's refit at a time. Each question's table is built per set and combined
-(:func:`unbin.refit.combine.combine_tables`: Rubin's rules with Barnard–Rubin degrees of
-freedom); the information table's tests by D1 (Wald) on each form's exposure coefficients and
-the interaction test by D2.
+FP function selection) is the first set's refit, and every other set repeats its fits with its
+terms (:func:`_refit_fixed`): the chosen spline's knots, the chosen FP1, FP2 and FP functions
+(their powers, shift and scale), the test spline's and the adjusters' knots, the legacy
+grouping and the common basis (curve grid and reference). The sets' tables therefore match
+row for row, and every coefficient means the same in every set, which Rubin's rules, D1 and
+D3 need. The cost is one full refit plus M - 1 refits of some thirty fixed designs, not M full
+FP searches; the sets are refitted one at a time, each set's tables built and its fits kept
+without their per-row linear predictors, so memory holds one set's refit at a time. Each
+question's table is built per set and combined (:func:`unbin.refit.combine.combine_tables`:
+Rubin's rules with Barnard–Rubin degrees of freedom); the information table's tests by D3
+(likelihood ratio; Meng & Rubin 1992: each set's tested models evaluated again at the
+coefficients averaged over the sets, :func:`pooled_logliks`), or by D1 (Wald) where the fits
+maximise no plain likelihood (penalised, matched, quasi-Poisson, negative binomial, sampling
+weights or a cluster), and the interaction test by D2.
 """
 
 from __future__ import annotations
@@ -33,6 +38,7 @@ from ..consortium.basis import CommonBasis
 from ..data import MIN_SAMPLE_ROWS, Sample, _type_problems, analysis_sample
 from ..data.impute import Target, impute_chained, nelson_aalen
 from ..errors import DataError, UnbinError
+from ..models import Outcome
 from ..spec import Analysis, Spec
 from ..spec.missing import MissingOptions, missing_options
 from ..terms.roles import variable_role
@@ -107,61 +113,78 @@ def _targets(sample: Sample, a: Analysis, spec: Spec) -> list[Target]:
     return out
 
 
-def _fixed_analysis(a: Analysis, first: Any) -> Analysis:
-    """The analysis with the first set's choices fixed: the drawn spline's knots (AIC chose
-    them there; the continuous coding's choice, else the legacy one's) and no FP search (the
-    chosen FP functions are refitted by :func:`_refit_fixed`)."""
-    spline = first.get("spline", "continuous") or first.get("spline", "legacy")
-    knots = None
-    if spline is not None and spline.exposure_terms:
-        knots = tuple(float(k) for k in spline.exposure_terms[0].knots)
-    forms = tuple(f for f in a.continuous.forms if f != "fp")
-    if not forms:
-        forms = ("linear",)
-    opts = replace(a.continuous, forms=forms,
-                   knot_values=knots if knots is not None else a.continuous.knot_values)
-    return replace(a, continuous=opts)
-
-
-def _refit_fixed(sample: Sample, a: Analysis, fixed: Analysis, spec: Spec, cohort: str,
-                 basis: CommonBasis | None, first: Any) -> Any:
-    """One imputed set refitted with the first set's choices."""
-    from ..refit.analysis import FormFit, _Fitter, refit_analysis, with_powers_counted
-    from ..terms import FPTerm
-
-    r = refit_analysis(sample, fixed, spec, cohort, basis)
-    r = replace(r, analysis=a)
-    if "fp" not in a.continuous.forms:
-        return r
-    f = _Fitter(r, sample.frame)
-    for coding in ("legacy", "continuous"):
-        null = r.get("null", coding)
-        if null is None:
-            continue
-        for ff in first.fits:
-            if ff.adjustment != coding or ff.form not in ("fp1", "fp2", "fp"):
-                continue
-            res = f.run(ff.exposure_terms, null.adjust_terms)
-            terms = ff.exposure_terms
-            if len(terms) == 1 and isinstance(terms[0], FPTerm):
-                res = with_powers_counted(res, terms[0])
-            r.fits.append(FormFit(ff.form, coding, terms, null.adjust_terms, res, ff.detail,
-                                  ff.selected))
-    return r
+# What an outcome's fitters keep in ``Outcome.cache`` that depends on the outcome alone (the
+# imputed sets share their outcome: it is never imputed); anything keyed by terms is left out,
+# as the sets' designs differ.
+SHARED_CACHE = ("cox_layout", "matched_layout", "poisson_constant")
 
 
 class FitsOnly:
     """The fits of one refit without their per-row linear predictors (what combining the
-    tests needs, and what refitting a set with the first set's choices reads)."""
+    tests needs, and what refitting a set with the first set's choices reads), with the
+    first set's messages and legacy grouping."""
 
-    def __init__(self, fits: list[Any]):
+    def __init__(self, fits: list[Any], messages: tuple[str, ...] = (), legacy: Any = None):
         self.fits = fits
+        self.messages = messages
+        self.legacy = legacy
 
     def get(self, form: str, adjustment: str) -> Any:
         for f in self.fits:
             if f.form == form and f.adjustment == adjustment and f.selected:
                 return f
         return None
+
+
+def replayed(ff: Any) -> bool:
+    """The first set's fits every set repeats: all but the spline candidates AIC did not pick
+    (the choice is the first set's)."""
+    return not (ff.form == "spline" and not ff.selected)
+
+
+def _refit_fixed(sample: Sample, a: Analysis, spec: Spec, cohort: str,
+                 basis: CommonBasis | None, first: FitsOnly, shared: Outcome) -> Any:
+    """One imputed set refitted with the first set's choices: every fit of the first set (but
+    the spline candidates AIC did not pick) with the first set's terms, so that the spline,
+    test-spline and adjusters' knots, the FP functions (powers, shift and scale) and the legacy
+    grouping are the same in every set and each coefficient means the same in all of them
+    (Rubin's rules, D1 and D3 average them)."""
+    from ..models import failed_fit
+    from ..refit.analysis import (
+        FormFit,
+        Refit,
+        _empty_group_message,
+        _Fitter,
+        build_outcome,
+        with_powers_counted,
+    )
+    from ..terms import FPTerm
+
+    outcome = build_outcome(sample, a)
+    for key in SHARED_CACHE:
+        if key in shared.cache:
+            outcome.cache[key] = shared.cache[key]
+    x = sample.frame[a.exposure].to_numpy(float)
+    r = Refit(a, cohort, sample, outcome, x, first.legacy, basis, messages=list(first.messages))
+    f = _Fitter(r, sample.frame)
+    empty = _empty_group_message(first.legacy, x)
+    for ff in first.fits:
+        if not replayed(ff):
+            continue
+        terms = ff.exposure_terms
+        if ff.form in ("fp", "fp1", "fp2") and not ff.result.ok and not terms:
+            r.fits.append(ff)  # the selection itself failed: nothing to refit
+            continue
+        if empty and any(t is first.legacy for t in terms):
+            null = f.run((), ff.adjust_terms)
+            res = failed_fit(a.family, null.names, null.n, null.events, empty)
+        else:
+            res = f.run(terms, ff.adjust_terms)
+        if ff.form in ("fp", "fp1", "fp2") and len(terms) == 1 and isinstance(terms[0], FPTerm):
+            res = with_powers_counted(res, terms[0])
+        r.fits.append(FormFit(ff.form, ff.adjustment, terms, ff.adjust_terms, res, ff.detail,
+                              ff.selected))
+    return r
 
 
 def stripped(fits: list[Any]) -> list[Any]:
@@ -175,13 +198,58 @@ def _with_method(df: pd.DataFrame, method: str) -> pd.DataFrame:
     return df
 
 
-def combine_information(tables: list[pd.DataFrame], refits: list[Any], m: int
+# The models the information table's tests compare (each form against the adjustment-only
+# "null"; the added test: legacy + test spline against legacy; nonlinearity: test spline
+# against linear).
+TESTED_FORMS = ("null", "legacy", "linear", "spline", "fp", "test_spline", "legacy+test_spline")
+
+
+def pooled_logliks(samples_m: list[Sample], a: Analysis, light: list[FitsOnly],
+                   outcome: Outcome) -> dict[tuple[str, str], np.ndarray] | None:
+    """Each tested model's log-likelihood in every imputed set at its coefficients averaged
+    over the sets (what D3 re-evaluates; Meng & Rubin 1992), by (form, coding); None when the
+    outcome's fits maximise no plain likelihood (penalised, matched, quasi- or negative
+    binomial, sampling weights, cluster): their tests are combined by D1 instead. The sets
+    share the outcome and every fit's terms (the first set's), so each design is rebuilt from
+    a set's own imputed values and evaluated at the pooled coefficients."""
+    from ..models.loglik import loglik_at, supports
+    from ..refit.analysis import design
+
+    if not supports(outcome):
+        return None
+    pooled: dict[tuple[str, str], tuple[Any, np.ndarray]] = {}
+    for ff in light[0].fits:
+        if ff.form not in TESTED_FORMS or not ff.selected:
+            continue
+        fits = [lf.get(ff.form, ff.adjustment) for lf in light]
+        if all(g is not None and g.result.ok for g in fits):
+            pooled[(ff.form, ff.adjustment)] = (ff, np.mean([g.result.coef for g in fits],
+                                                            axis=0))
+    out = {key: np.full(len(samples_m), np.nan) for key in pooled}
+    for m, s in enumerate(samples_m):
+        x = s.frame[a.exposure].to_numpy(float)
+        columns: dict[str, np.ndarray] = {}  # the adjustment columns, built once per set
+        for key, (ff, coef) in pooled.items():
+            X, _ = design(s.frame, x, ff.exposure_terms, ff.adjust_terms, columns)
+            try:
+                out[key][m] = loglik_at(X, outcome, ff.result.names, coef)
+            except (ValueError, FloatingPointError):  # left missing: that test is not combined
+                log.warning("D3: no log-likelihood of %s (%s) at the pooled coefficients",
+                            key[0], key[1])
+    return out
+
+
+def combine_information(tables: list[pd.DataFrame], refits: list[Any], m: int,
+                        pooled: dict[tuple[str, str], np.ndarray] | None = None
                         ) -> tuple[pd.DataFrame, str]:
-    """The information table over the sets: each form's exposure statistic by D1 (Wald, on the
-    chi-square scale: k x F), info_kept their ratio, the added-beyond-the-groups and
-    nonlinearity tests by D1 on the test spline's coefficients, the interaction test by D2;
+    """The information table over the sets: each form's exposure statistic (against the
+    adjustment-only model), the added-beyond-the-groups test (legacy + test spline against
+    legacy) and the nonlinearity test (test spline against linear) by D3 (likelihood ratio;
+    Meng & Rubin 1992) when ``pooled`` holds the models' log-likelihoods at the pooled
+    coefficients (:func:`pooled_logliks`), else by D1 (Wald, on the chosen covariance), each on
+    the chi-square scale (k x F); info_kept their ratio; the interaction test by D2;
     C-indices and AICs averaged over the sets (best_form from the averaged AICs)."""
-    from ..refit.combine import combine_tables, d1, d2
+    from ..refit.combine import combine_tables, d1, d2, d3
 
     out, msg = combine_tables(tables)
     if msg or out.empty:
@@ -189,10 +257,28 @@ def combine_information(tables: list[pd.DataFrame], refits: list[Any], m: int
     forms = {"legacy": "legacy", "linear": "linear", "spline": "spline", "fp": "fp",
              "test_spline": "test_spline", "legacy_plus_spline": "legacy+test_spline"}
 
-    def test(fits: list[Any], names: list[tuple[str, ...]]) -> Any:
-        if any(ff is None or not ff.result.ok for ff in fits) or not names[0]:
+    def test(coding: str, alt: str, null: str, drop_first: bool = False) -> Any:
+        """The combined test of model ``alt`` against the nested ``null`` (same coding) on the
+        coefficients ``alt`` has beyond ``null``'s exposure terms."""
+        fits = [r.get(alt, coding) for r in refits]
+        nulls = [r.get(null, coding) for r in refits]
+        if any(ff is None or not ff.result.ok for ff in fits + nulls):
             return None
-        idx = [ff.result.index(n) for ff, n in zip(fits, names, strict=True)]
+        names = fits[0].exposure_names
+        if null == "legacy":  # the added test: the test spline's coefficients
+            names = tuple(n for n in names if n not in nulls[0].exposure_names)
+        if drop_first:  # nonlinearity: the test spline beyond its linear term
+            names = names[1:]
+        if not names:
+            return None
+        if pooled is not None:
+            if (alt, coding) not in pooled or (null, coding) not in pooled:
+                return None
+            lr = [2 * (ff.result.loglik - g.result.loglik) for ff, g in zip(fits, nulls,
+                                                                          strict=True)]
+            at_pooled = 2 * (pooled[(alt, coding)] - pooled[(null, coding)])
+            return d3(lr, at_pooled, len(names))
+        idx = [ff.result.index(names) for ff in fits]
         try:
             return d1([ff.result.coef[i] for ff, i in zip(fits, idx, strict=True)],
                       [ff.result.cov[np.ix_(i, i)] for ff, i in zip(fits, idx, strict=True)])
@@ -203,19 +289,14 @@ def combine_information(tables: list[pd.DataFrame], refits: list[Any], m: int
     for i, coding in enumerate(out["adjustment"]):
         chi2 = {}
         for key, form in forms.items():
-            fits = [r.get(form, coding) for r in refits]
-            res = test(fits, [ff.exposure_names if ff is not None else () for ff in fits])
+            res = test(coding, form, "null")
             chi2[key] = res.chi2 if res is not None else np.nan
-            col = f"lr_{key}"
-            out.loc[out.index[i], col] = chi2[key]
+            out.loc[out.index[i], f"lr_{key}"] = chi2[key]
         full = chi2["legacy_plus_spline"]
         out.loc[out.index[i], "info_kept"] = (chi2["legacy"] / full if np.isfinite(full)
                                               and full > 0 else np.nan)
-        tests = [r.get("test_spline", coding) for r in refits]
-        both = [r.get("legacy+test_spline", coding) for r in refits]
-        names = [t.exposure_names if t is not None else () for t in tests]
-        added = test(both, names)
-        nonlin = test(tests, [n[1:] for n in names])
+        added = test(coding, "legacy+test_spline", "legacy")
+        nonlin = test(coding, "test_spline", "linear", drop_first=True)
         for prefix, res in (("added", added), ("nonlinearity", nonlin)):
             out.loc[out.index[i], f"{prefix}_lr"] = res.chi2 if res is not None else np.nan
             out.loc[out.index[i], f"{prefix}_p"] = res.p if res is not None else np.nan
@@ -229,8 +310,13 @@ def combine_information(tables: list[pd.DataFrame], refits: list[Any], m: int
         aics = {f: out[f"aic_{f}"].iloc[i] for f in ("legacy", "linear", "spline", "fp")}
         aics = {f: v for f, v in aics.items() if np.isfinite(v)}
         out.loc[out.index[i], "best_form"] = min(aics, key=lambda f: aics[f]) if aics else ""
-    out["statistic"] = (f"D1 Wald, combined over {m} imputed sets (k x F; Li, Raghunathan & "
-                        "Rubin 1991)")
+    if pooled is not None:
+        out["statistic"] = (f"D3 likelihood ratio, combined over {m} imputed sets (k x F; "
+                            "Meng & Rubin 1992)")
+    else:
+        per_set = str(tables[0]["statistic"].iloc[0]) if "statistic" in tables[0] else ""
+        out["statistic"] = (f"D1 Wald, combined over {m} imputed sets (k x F; Li, Raghunathan "
+                            "& Rubin 1991)" + (f"; per set: {per_set}" if per_set else ""))
     out["fmi_added"] = fmi_added
     out["fmi_nonlinearity"] = fmi_nonlin
     return out, ""
@@ -302,22 +388,19 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                             "missing values of " + ", ".join(imputed_columns(a))) from exc
         samples_m = [Sample(s, sample.n_input, sample.dropped) for s in sets]
         full = refit_analysis(samples_m[0], a, spec, cohort, basis)  # the choices, once
-        fixed = _fixed_analysis(a, full)
-        spline = fixed.continuous.knot_values
-        choice = ("choices made on the first imputed set and kept in every set: spline knots "
-                  + (", ".join(f"{k:.4g}" for k in spline) if spline else "as specified")
-                  + "; FP " + "; ".join(f"{f.adjustment}: {f.detail}" for f in full.fits
-                                        if f.form == "fp")
-                  + "; curve grid and reference of the first set")
-        notes = [f"{method} of {', '.join(c for c, n in counts.items() if n)}; {choice}"]
-        common = basis or full.basis
-        first = FitsOnly(stripped(full.fits))  # what the refits of the sets need of it
+        notes = [f"{method} of {', '.join(c for c, n in counts.items() if n)}; "
+                 + choices_note(full)]
+        first = FitsOnly(stripped(full.fits), tuple(full.messages), full.legacy)
+        outcome, common = full.outcome, full.basis
+        # the first set's refit is handed over (and dropped after its tables: memory)
+        set0 = [replace(full, fits=[ff for ff in full.fits if replayed(ff)])]
         del full
         per_set, errors, light, messages, failed = _tables_per_set(
-            samples_m, a, fixed, spec, cohort, common, first)
+            samples_m, a, spec, cohort, set0, first, outcome, common)
+        pooled = pooled_logliks(samples_m, a, light, outcome)
         notes += messages + failed
         lost = _combine_sets(per_set, errors, light, opts, method, tables, notes,
-                             f"{cohort}/{analysis}")
+                             f"{cohort}/{analysis}", pooled)
         partial = bool(failed) or lost
         notes.append("the resampling tables (confounding, cutpoints) use complete cases")
         if partial:
@@ -335,13 +418,33 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
     return tables, status
 
 
-def _tables_per_set(samples_m: list[Sample], a: Analysis, fixed: Analysis, spec: Spec,
-                    cohort: str, common: CommonBasis | None, first: FitsOnly
+def choices_note(full: Any) -> str:
+    """What the first imputed set chose and every set keeps (the status message says it)."""
+    knots = []
+    for coding in ("legacy", "continuous", "none"):
+        f = full.get("spline", coding)
+        if f is not None and f.exposure_terms:
+            knots.append(f"{coding}: " + ", ".join(f"{k:.4g}"
+                                                   for k in f.exposure_terms[0].knots))
+    return ("choices made on the first imputed set and kept in every set: spline knots "
+            + ("; ".join(knots) if knots else "as specified")
+            + "; FP " + "; ".join(f"{f.adjustment}: {f.detail}" for f in full.fits
+                                  if f.form == "fp")
+            + "; the test spline's and the adjusters' knots, the legacy grouping, and the "
+            "curve grid and reference of the first set")
+
+
+def _tables_per_set(samples_m: list[Sample], a: Analysis, spec: Spec, cohort: str,
+                    set0: list[Any], first: FitsOnly, outcome: Outcome,
+                    common: CommonBasis | None
                     ) -> tuple[dict[str, list[pd.DataFrame]], dict[str, Exception],
                                list[FitsOnly], list[str], list[str]]:
     """Every question's table in every imputed set, one set at a time (its refit, its tables,
     then only its coefficients are kept): the tables per question, the questions that failed,
-    the sets' coefficients, and the first set's messages and failed fits."""
+    the sets' coefficients, and the first set's messages and failed fits. The first set's
+    refit is ``set0``'s one element (the choices' refit without the spline candidates AIC did
+    not pick; taken out of the list, so that its memory goes with its tables); the other sets
+    repeat its fits (:func:`_refit_fixed`)."""
     from ..pipeline.jobs import _builder, failed_fit_messages
     from ..questions import QUESTION_TABLES
 
@@ -351,9 +454,11 @@ def _tables_per_set(samples_m: list[Sample], a: Analysis, fixed: Analysis, spec:
     messages: list[str] = []
     failed: list[str] = []
     for k, s in enumerate(samples_m):
-        r = _refit_fixed(s, a, fixed, spec, cohort, common, first)
         if k == 0:
+            r = set0.pop()
             messages, failed = list(r.messages), failed_fit_messages(r.fits)
+        else:
+            r = _refit_fixed(s, a, spec, cohort, common, first, outcome)
         for name, target in QUESTION_TABLES.items():
             if name in errors:
                 continue
@@ -371,7 +476,8 @@ def _tables_per_set(samples_m: list[Sample], a: Analysis, fixed: Analysis, spec:
 
 def _combine_sets(per_set: dict[str, list[pd.DataFrame]], errors: dict[str, Exception],
                   light: list[FitsOnly], opts: MissingOptions, method: str,
-                  tables: dict[str, pd.DataFrame], notes: list[str], where: str) -> bool:
+                  tables: dict[str, pd.DataFrame], notes: list[str], where: str,
+                  pooled: dict[tuple[str, str], np.ndarray] | None = None) -> bool:
     """Each question's tables of the imputed sets combined into ``tables`` (Rubin's rules; the
     information tests by D1; the coefficients' total covariance; the first set's density);
     notes appended. True when a question was lost."""
@@ -383,7 +489,8 @@ def _combine_sets(per_set: dict[str, list[pd.DataFrame]], errors: dict[str, Exce
             if name in errors:
                 raise errors[name]
             if name == "information":
-                combined, msg = combine_information(per_set[name], light, opts.imputations)
+                combined, msg = combine_information(per_set[name], light, opts.imputations,
+                                                    pooled)
             elif name == "coefficients":
                 combined, msg = combine_coefficients(per_set[name])
             elif name == "density":  # descriptive, suppressed per set: the first set's

@@ -5,6 +5,9 @@
 - :func:`d1`: the multivariate Wald test of several coefficients combined over imputations (D1;
   Li, Raghunathan & Rubin 1991; van Buuren 2018, sec. 5.3.3), with its denominator degrees of
   freedom and fraction of missing information.
+- :func:`d2`: chi-square statistics combined (D2; Li, Meng, Raghunathan & Rubin 1991).
+- :func:`d3`: likelihood-ratio tests combined (D3; Meng & Rubin 1992), from each set's
+  likelihood-ratio statistic and the same statistic re-evaluated at the pooled estimates.
 - :func:`combine_tables`: one question's per-imputation tables, row by row, into one table.
 """
 
@@ -98,6 +101,18 @@ class D1(CombinedTest):
     """The combined Wald test (D1)."""
 
 
+def _df_d1_d3(k: int, m: int, r: float) -> float:
+    """The denominator degrees of freedom of D1 and D3 (Li, Raghunathan & Rubin 1991; Meng &
+    Rubin 1992): t = k (M - 1); 4 + (t - 4) (1 + (1 - 2/t) / r)^2 when t > 4, else
+    t (1 + 1/k) (1 + r)^2 / 2; infinite when r = 0 (nothing varies between the sets)."""
+    t = k * (m - 1)
+    if r <= 0:
+        return np.inf
+    if t > 4:
+        return 4 + (t - 4) * (1 + (1 - 2 / t) / r) ** 2
+    return t * (1 + 1 / k) * (1 + r) ** 2 / 2
+
+
 def d1(coefs: Sequence[np.ndarray], covs: Sequence[np.ndarray]) -> D1:
     """D1 of H0: theta = 0 for k coefficients, from their estimates and covariances in M
     imputed sets (Li, Raghunathan & Rubin 1991; van Buuren 2018, eqs. 5.4-5.7)."""
@@ -110,13 +125,7 @@ def d1(coefs: Sequence[np.ndarray], covs: Sequence[np.ndarray]) -> D1:
     b = np.atleast_2d(np.cov(q.T, ddof=1))
     r = float((1 + 1 / m) * np.trace(b @ np.linalg.inv(ubar)) / k)
     stat = float(qbar @ np.linalg.solve(ubar, qbar) / (k * (1 + r)))
-    t = k * (m - 1)
-    if r <= 0:
-        df = np.inf
-    elif t > 4:
-        df = 4 + (t - 4) * (1 + (1 - 2 / t) / r) ** 2
-    else:
-        df = t * (1 + 1 / k) * (1 + r) ** 2 / 2
+    df = _df_d1_d3(k, m, r)
     p = float(stats.f.sf(stat, k, df)) if np.isfinite(df) else float(stats.chi2.sf(stat * k, k))
     return D1(stat, k, float(df), p, r)
 
@@ -140,6 +149,32 @@ def d2(chi2: Sequence[float], k: int) -> D2:
     df = float(k ** (-3 / m) * (m - 1) * (1 + 1 / r) ** 2) if r > 0 else np.inf
     p = float(stats.f.sf(stat, k, df)) if np.isfinite(df) else float(stats.chi2.sf(stat * k, k))
     return D2(stat, k, df, p, r)
+
+
+class D3(CombinedTest):
+    """Likelihood-ratio tests combined over imputations (D3; Meng & Rubin 1992; van Buuren
+    2018, sec. 5.3)."""
+
+
+def d3(lr: Sequence[float], lr_pooled: Sequence[float], k: int) -> D3:
+    """D3 of a likelihood-ratio test on ``k`` df from its M imputed sets.
+
+    ``lr``: each set's likelihood-ratio statistic at its own estimates, 2 (l1_m(theta1_m) -
+    l0_m(theta0_m)); ``lr_pooled``: the same statistic of each set evaluated at the estimates
+    pooled over the sets (the means of theta1_m and of theta0_m), 2 (l1_m(theta1) -
+    l0_m(theta0)). With d = mean(lr) and d~ = mean(lr_pooled): r3 = (M + 1) / (k (M - 1))
+    (d - d~), truncated at 0 (it can fall below in a finite sample); D3 = d~ / (k (1 + r3)) on
+    F(k, v), v as for D1 with r3 (Meng & Rubin 1992, from memory)."""
+    d = np.asarray(lr, float)
+    dp = np.asarray(lr_pooled, float)
+    m = d.size
+    if m < 2 or dp.size != m or k < 1 or not (np.isfinite(d).all() and np.isfinite(dp).all()):
+        return D3(np.nan, k, np.nan, np.nan, np.nan)
+    r = max(float((m + 1) / (k * (m - 1)) * (d.mean() - dp.mean())), 0.0)
+    stat = max(float(dp.mean() / (k * (1 + r))), 0.0)
+    df = float(_df_d1_d3(k, m, r))
+    p = float(stats.f.sf(stat, k, df)) if np.isfinite(df) else float(stats.chi2.sf(stat * k, k))
+    return D3(stat, k, df, p, r)
 
 
 # Text (and flag) columns that describe a basis built from each imputed set's own values (knots
