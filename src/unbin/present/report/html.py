@@ -16,6 +16,7 @@ from markupsafe import Markup
 
 from .. import labels, text
 from ..figures import FigureFile
+from .inline_svg import lighten
 
 NUMERIC = re.compile(r"^(?:[<>×±–-]|\d)")
 # Keys every multi-cohort table shows first.
@@ -157,11 +158,18 @@ def compact_svg(text: str) -> str:
     return _ID.sub(lambda m: m.group(0) if m.group(1) in used else "", text)
 
 
+def inline_svg(text: str) -> str:
+    """The figure as the report inlines it: compacted (``compact_svg``), then lightened
+    (``inline_svg.lighten``: compact path data, polylines simplified within 0.1 pt, styles as
+    classes)."""
+    return lighten(compact_svg(text))
+
+
 def svg_data_uri(svg: bytes) -> str:
     """The SVG (compacted) as a UTF-8 data URI with only the characters that would end the
     attribute or the URI escaped: about a tenth larger than the text, where base64 is a third
     larger."""
-    decoded = compact_svg(svg.decode("utf-8"))
+    decoded = inline_svg(svg.decode("utf-8"))
     return "data:image/svg+xml;charset=utf-8," + "".join(_URI_ESCAPES.get(c, c) for c in decoded)
 
 
