@@ -103,9 +103,10 @@ def cell(key: str, v: Any) -> str:
 
 
 def plain_table(df: pd.DataFrame, caption: str, limit: int = 60,
-                keep_keys: bool = False) -> TableView:
+                keep_keys: bool = False, note: str = "") -> TableView:
     """Any table as it is (for tables this report does not lay out itself): human headers,
-    formatted cells, the cohort and analysis columns first when ``keep_keys``."""
+    formatted cells, the cohort and analysis columns first when ``keep_keys``; ``note`` under
+    it (else one saying how many rows were left out)."""
     if not keep_keys:
         df = df.drop(columns=[c for c in KEYS if c in df])
     else:
@@ -114,7 +115,8 @@ def plain_table(df: pd.DataFrame, caption: str, limit: int = 60,
     cols = [Col(labels.column(str(c)), _getter(str(c)),
                 pd.api.types.is_numeric_dtype(df[c]) and not pd.api.types.is_bool_dtype(df[c]))
             for c in df.columns]
-    note = f"First {limit} of {len(df)} rows." if len(df) > limit else ""
+    if not note and len(df) > limit:
+        note = f"First {limit} of {len(df)} rows."
     return table(shown, cols, caption, note)
 
 
