@@ -22,6 +22,7 @@ from typing import Any
 import matplotlib as mpl
 import numpy as np
 from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure, FigureBase, SubFigure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 from matplotlib.transforms import Bbox
@@ -136,6 +137,9 @@ def save(fig: Figure, base: Path) -> tuple[Path, Path]:
     png, svg = base.with_suffix(".png"), base.with_suffix(".svg")
     with styled():
         fig.set_dpi(DPI)
+        # An Agg canvas of its own: the layout and the PNG then use one renderer, so the
+        # PNG's drawing reuses the text measurements the layout made.
+        FigureCanvasAgg(fig)
         engine = fig.get_layout_engine()
         if engine is not None:
             # The constrained layout, computed once (without drawing every artist once more
