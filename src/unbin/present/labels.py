@@ -126,8 +126,15 @@ _QUESTIONS: dict[str, str] = {
     "risk_scale": "risk", "horizon": "horizon", "computed_by": "computed by",
 }
 
+# Labels of the missingness table.
+_MISSING: dict[str, str] = {
+    "column": "column", "subset": "rows of", "missing": "missing",
+    "share_missing": "share missing", "smd": "standardised difference (complete − dropped)",
+    "smd_method": "difference of",
+}
+
 COLUMNS: dict[str, str] = {**_COMMON, **_FITS, **_INFORMATION, **_EFFECTS, **_POOLED, **_CUTS,
-                           **_QUESTIONS}
+                           **_QUESTIONS, **_MISSING}
 
 FORMS: dict[str, str] = {
     "legacy": "legacy groups", "linear": "linear", "spline": "spline",

@@ -22,6 +22,7 @@ from typing import Any
 import matplotlib as mpl
 import numpy as np
 from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure, FigureBase, SubFigure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 from matplotlib.transforms import Bbox
@@ -136,7 +137,14 @@ def save(fig: Figure, base: Path) -> tuple[Path, Path]:
     png, svg = base.with_suffix(".png"), base.with_suffix(".svg")
     with styled():
         fig.set_dpi(DPI)
-        fig.draw_without_rendering()     # the constrained layout, computed once
+        # An Agg canvas of its own: the layout and the PNG then use one renderer, so the
+        # PNG's drawing reuses the text measurements the layout made.
+        FigureCanvasAgg(fig)
+        engine = fig.get_layout_engine()
+        if engine is not None:
+            # The constrained layout, computed once (without drawing every artist once more
+            # with a renderer that discards the drawing).
+            engine.execute(fig)
         freeze_layout(fig)
         fig.savefig(png, format="png", dpi=DPI, metadata={"Software": None})
         fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
@@ -178,7 +186,9 @@ def freeze_layout(fig: Figure, digits: int = 9) -> None:
             text.set_position((round(float(x), digits), round(float(y), digits)))
 
     visit(fig)
-    fig.set_layout_engine("none")
+    # No engine at all (not "none", whose placeholder makes every savefig draw the figure once
+    # more before drawing it for the file): the rounded positions are final.
+    fig.set_layout_engine(None)
 
 
 # --------------------------------------------------------------------------- effect scales

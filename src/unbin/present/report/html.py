@@ -16,6 +16,7 @@ from markupsafe import Markup
 
 from .. import labels, text
 from ..figures import FigureFile
+from .inline_svg import lighten
 
 NUMERIC = re.compile(r"^(?:[<>×±–-]|\d)")
 # Keys every multi-cohort table shows first.
@@ -102,9 +103,10 @@ def cell(key: str, v: Any) -> str:
 
 
 def plain_table(df: pd.DataFrame, caption: str, limit: int = 60,
-                keep_keys: bool = False) -> TableView:
+                keep_keys: bool = False, note: str = "") -> TableView:
     """Any table as it is (for tables this report does not lay out itself): human headers,
-    formatted cells, the cohort and analysis columns first when ``keep_keys``."""
+    formatted cells, the cohort and analysis columns first when ``keep_keys``; ``note`` under
+    it (else one saying how many rows were left out)."""
     if not keep_keys:
         df = df.drop(columns=[c for c in KEYS if c in df])
     else:
@@ -113,7 +115,8 @@ def plain_table(df: pd.DataFrame, caption: str, limit: int = 60,
     cols = [Col(labels.column(str(c)), _getter(str(c)),
                 pd.api.types.is_numeric_dtype(df[c]) and not pd.api.types.is_bool_dtype(df[c]))
             for c in df.columns]
-    note = f"First {limit} of {len(df)} rows." if len(df) > limit else ""
+    if not note and len(df) > limit:
+        note = f"First {limit} of {len(df)} rows."
     return table(shown, cols, caption, note)
 
 
@@ -157,11 +160,18 @@ def compact_svg(text: str) -> str:
     return _ID.sub(lambda m: m.group(0) if m.group(1) in used else "", text)
 
 
+def inline_svg(text: str) -> str:
+    """The figure as the report inlines it: compacted (``compact_svg``), then lightened
+    (``inline_svg.lighten``: compact path data, polylines simplified within 0.1 pt, styles as
+    classes)."""
+    return lighten(compact_svg(text))
+
+
 def svg_data_uri(svg: bytes) -> str:
     """The SVG (compacted) as a UTF-8 data URI with only the characters that would end the
     attribute or the URI escaped: about a tenth larger than the text, where base64 is a third
     larger."""
-    decoded = compact_svg(svg.decode("utf-8"))
+    decoded = inline_svg(svg.decode("utf-8"))
     return "data:image/svg+xml;charset=utf-8," + "".join(_URI_ESCAPES.get(c, c) for c in decoded)
 
 

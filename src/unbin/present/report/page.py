@@ -87,7 +87,8 @@ def assemble(b: Builder) -> str:
     n_used = int(status["n_used"].sum()) if len(status) and "n_used" in status else 0
     facts = [("cohorts", str(len(b.spec.cohorts))), ("analyses", str(len(b.spec.analyses))),
              ("rows analysed", text.count(n_used)), ("figures", str(len(b.figures)))]
-    body = [b.guarded("study summary", b.summary), b.guarded("pooled results", b.pooled)]
+    body = [b.guarded("study summary", b.summary), b.guarded("pooled results", b.pooled),
+            b.guarded("missing values", b.missing)]
     body += [b.guarded(f"{a} ({c})", partial(b.analysis, c, a)) for c, a in b.ctx.jobs()]
     body += [b.guarded("cautions", b.cautions), b.guarded("provenance", partial(provenance, b))]
     return str(render("page.html.j2", version=__version__, study=b.spec.study, css=css(),

@@ -255,3 +255,27 @@ def decision_resampling_rows(df: pd.DataFrame) -> list[dict[str, str]]:
             "corrected": text.number(r.get("corrected")),
             "note": note})
     return rows
+
+
+# Row kinds of a generic table that hold a curve's grid (one row per grid point): left out of
+# the report's generic tables, kept in the parquet.
+GRID_ROW_TYPES = ("curve",)
+
+
+def generic_rows(df: pd.DataFrame, name: str, limit: int = 60) -> tuple[pd.DataFrame, str]:
+    """What a generic table (one the report does not lay out itself) shows of one analysis'
+    rows: no grid rows of a curve, at most ``limit`` rows, no column empty in every shown row;
+    and the note saying what was left out and where every row is."""
+    shown, left = df, []
+    if "row_type" in df:
+        grid = df["row_type"].astype(str).isin(GRID_ROW_TYPES)
+        if grid.any() and not grid.all():
+            shown = df[~grid]
+            left.append(f"{int(grid.sum())} curve rows (one per grid point)")
+    if len(shown) > limit:
+        left.append(f"{len(shown) - limit} rows after the first {limit}")
+        shown = shown.head(limit)
+    shown = shown.dropna(axis=1, how="all")
+    note = (f"Not shown: {' and '.join(left)}; every row is in tables/{name}.parquet."
+            if left else "")
+    return shown.reset_index(drop=True), note

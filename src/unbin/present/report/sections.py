@@ -16,6 +16,7 @@ from markupsafe import Markup
 from ...refit.sampling_design import design_notes
 from .. import labels, summary, text
 from ..figures import Context, FigureFile
+from . import missing as M
 from . import rows as R
 from .html import (
     Block,
@@ -42,7 +43,7 @@ KNOWN_TABLES = frozenset({"fits", "information", "effects", "curves", "density",
                           "heterogeneity", "harmonisation", "coefficients",
                           "common_contrasts", "information_bootstrap", "published_groups",
                           "published_fits", "published_curves", "calibration",
-                          "decision_resampling"})
+                          "decision_resampling", "missingness"})
 FAMILY_TEXT = {"binary": "binary outcome (logistic model)",
                "continuous": "continuous outcome (linear model)",
                "count": "count outcome (Poisson model with person-time)",
@@ -53,6 +54,13 @@ KEPT_NOTE = ("Information kept = LR χ²(legacy groups) / LR χ²(groups + splin
              "effect departs from a straight line.")
 
 
+MISSING_NOTE = ("Share missing: of the rows the complete-case step starts from (after filters). "
+                "Standardised difference: complete-case rows minus dropped rows where the "
+                "column is observed (means: signed; levels: multi-category, unsigned); 0.1 or "
+                "more is usually read as a notable imbalance. The share missing by exposure "
+                "group and by outcome is in tables/missingness.parquet.")
+
+
 class Builder:
     def __init__(self, ctx: Context, figures: list[FigureFile], out: Path) -> None:
         self.ctx = ctx
@@ -61,6 +69,7 @@ class Builder:
         self.out = out
         self.many = len(self.spec.cohorts) > 1
         self.has_pooled = False
+        self.has_missing = False
 
     # ---- helpers
     def guarded(self, what: str, build: Callable[[], str]) -> Markup:
@@ -375,7 +384,8 @@ class Builder:
                 continue
             df = self.ctx.rows(name, cohort, analysis)
             if len(df) and "analysis" in self.ctx.tables[name]:
-                tables.append(plain_table(df, labels.column(name).capitalize()))
+                shown, note = R.generic_rows(df, name)
+                tables.append(plain_table(shown, labels.column(name).capitalize(), note=note))
         return self.blocks(Block(fold="Other tables", tables=tables))
 
     def fits_and_sample(self, cohort: str, analysis: str) -> str:
@@ -440,6 +450,43 @@ class Builder:
                             keep_keys=True)]))
         return str(render("pooled.html.j2", blocks=blocks))
 
+    # ---- missing values
+    def missing(self) -> str:
+        """Which rows the complete-case step dropped and what they were like, and each imputed
+        analysis beside its complete-case twin."""
+        cohorts = [c.name for c in self.spec.cohorts]
+        twins = M.imputation_twins(self.spec.raw.get("analyses", []))
+        effects, status = self.ctx.table("effects"), self.ctx.table("status")
+        tables = []
+        for a in self.spec.analyses:
+            cols = M.column_rows(self.ctx.table("missingness"), a.name, self.spec.label,
+                                 self.spec.min_cell)
+            if cols:
+                tables.append(records_table(
+                    cols, f"{a.name}: missing values per column, and the columns whose "
+                    "complete-case rows differ most from the dropped rows",
+                    numeric=["rows", "missing", "share missing", "standardised difference"]))
+        blocks = [Block(notes=[MISSING_NOTE], tables=tables)] if tables else []
+        for complete, imputed in twins:
+            rows = M.twin_rows(effects, cohorts, complete, imputed) if len(effects) else []
+            if not rows:
+                continue
+            blocks.append(Block(
+                f"{imputed} beside {complete}",
+                notes=[M.twin_reading(effects, status, c, complete, imputed) for c in cohorts
+                       if len(M.paired(effects, c, complete, imputed))],
+                tables=[records_table(
+                    rows, "Complete cases and multiple imputation, side by side (adjusted as in "
+                    "the legacy analysis, 95% CI)",
+                    "Shift: |imputed − complete-case| on the model scale (log for ratios) over "
+                    "the complete-case interval's half-width. Quartiles: 75th vs 25th "
+                    "percentile, a summary of each continuous curve.",
+                    ["complete cases", "imputed", "shift (share of the half-interval)"])]))
+        if not blocks:
+            return ""
+        self.has_missing = True
+        return str(render("missing.html.j2", blocks=blocks))
+
     # ---- cautions
     def caution_items(self, cohort: str, analysis: str) -> list[str]:
         who = self.heading(cohort, analysis)
@@ -500,6 +547,8 @@ class Builder:
         items = [("summary", "Study summary")]
         if self.has_pooled:
             items.append(("pooled", "Pooled across cohorts"))
+        if self.has_missing:
+            items.append(("missing", "Missing values"))
         items += [(slug("a", c, a), self.heading(c, a)) for c, a in self.ctx.jobs()]
         return items + [("cautions", "Cautions"), ("provenance", "Provenance")]
 
