@@ -210,8 +210,9 @@ def test_quasi_poisson_imputed_tests_fall_back_to_d1_and_say_so():
 
 def _pipeline_nonlinearity(reps: int, seed: int) -> tuple[float, float]:
     """Rejection rates at 5% of the information table's nonlinearity and added-beyond-the-
-    groups tests (continuous coding), imputed analyses of a logistic model linear in x, with
-    x 15% and the confounder z 30% missing, both more often in events."""
+    groups tests (continuous coding), imputed analyses of a logistic model in which x has no
+    effect given its confounder z (so that both nulls hold: linear with slope 0, and nothing
+    beyond the groups), with x about 15% and z 30% missing, both more often in events."""
     from unbin.pipeline.jobs import analyse
     from unbin.spec import parse_spec
 
@@ -228,7 +229,7 @@ def _pipeline_nonlinearity(reps: int, seed: int) -> tuple[float, float]:
         n = 400
         z = rng.standard_normal(n)
         x = 0.5 * z + rng.standard_normal(n)
-        y = (rng.random(n) < 1 / (1 + np.exp(-(-0.5 + 0.5 * x + 0.5 * z)))).astype(int)
+        y = (rng.random(n) < 1 / (1 + np.exp(-(-0.5 + 0.8 * z)))).astype(int)
         frame = pd.DataFrame({
             "x": np.where(rng.random(n) < np.where(y == 1, 0.25, 0.1), np.nan, x),
             "z": np.where(rng.random(n) < np.where(y == 1, 0.45, 0.2), np.nan, z), "y": y})
@@ -246,8 +247,11 @@ def _pipeline_nonlinearity(reps: int, seed: int) -> tuple[float, float]:
 def test_imputed_nonlinearity_and_added_tests_keep_their_level():
     # Seeded simulation through the whole imputed analysis (chained equations, the sets'
     # refits, D3 on the test spline against linear and legacy + test spline against legacy)
-    # under a linear truth: 200 replicates, Monte-Carlo SE 1.54 points at 5%; two-sided band
-    # 0.5%-9.6% (5% +- 3 SE; a test that never rejects fails too).
+    # with no effect of x given z: 200 replicates, Monte-Carlo SE 1.54 points at 5%; two-sided band
+    # 0.5%-9.6% (5% +- 3 SE; a test that never rejects fails too). Measured (seed 77): 1.5%
+    # and 1.5%: conservative. The imputation models are linear in the exposure, so the sets
+    # carry no curvature and no steps of their own; the tests of those then lean towards the
+    # null (uncongenial imputation; Meng 1994, from memory).
     nonlin, added = _pipeline_nonlinearity(200, 77)
     assert 0.005 <= nonlin <= 0.096
     assert 0.005 <= added <= 0.096

@@ -33,7 +33,7 @@ RIDGE = 1e-4  # relative ridge on the imputation models' information (stability 
 
 @dataclass(frozen=True)
 class Target:
-    """One column to impute: ``numeric`` (predictive mean matching) or ``categorical``
+    """One column to impute: ``numeric`` (local residual draws) or ``categorical``
     (multinomial logistic draws over its observed levels)."""
 
     column: str
