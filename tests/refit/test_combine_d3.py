@@ -249,7 +249,7 @@ def test_imputed_nonlinearity_and_added_tests_keep_their_level():
     # refits, D3 on the test spline against linear and legacy + test spline against legacy)
     # with no effect of x given z: 200 replicates, Monte-Carlo SE 1.54 points at 5%; two-sided band
     # 0.5%-9.6% (5% +- 3 SE; a test that never rejects fails too). Measured (seed 77): 1.5%
-    # and 1.5%: conservative. The imputation models are linear in the exposure, so the sets
+    # and 1.5%: conservative, as D1 on the same replicates (1.0% and 0.5%). The imputation models are linear in the exposure, so the sets
     # carry no curvature and no steps of their own; the tests of those then lean towards the
     # null (uncongenial imputation; Meng 1994, from memory).
     nonlin, added = _pipeline_nonlinearity(200, 77)
