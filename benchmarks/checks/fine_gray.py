@@ -54,11 +54,11 @@ def simulate(n: int, beta: float, rng: np.random.Generator, delayed: bool,
     return a[:, :1], o, a[:, 2]
 
 
-def run(replicates: int, seed: int, bootstrap: int = 0,
-        delayed_only: bool = False) -> dict[str, Any]:
+def run(replicates: int, seed: int, bootstrap: int = 0, delayed_only: bool = False,
+        betas: tuple[float, ...] = (0.0, 0.5)) -> dict[str, Any]:
     rng = np.random.default_rng(seed)
     out: dict[str, Any] = {"n": N, "replicates": replicates, "bootstrap": bootstrap}
-    for beta in (0.0, 0.5):
+    for beta in betas:
         for delayed in (True,) if delayed_only else (False, True):
             est, robust, model, boot = [], 0, 0, 0
             for i in range(replicates):
@@ -96,8 +96,11 @@ def main() -> None:
                     help="bootstrap resamples per fit (0: the sandwich only)")
     ap.add_argument("--delayed-only", action="store_true",
                     help="only the designs with delayed entry")
+    ap.add_argument("--beta", type=float, action="append",
+                    help="a true log SHR to simulate (repeatable; default 0 and 0.5)")
     args = ap.parse_args()
-    print(json.dumps(run(args.replicates, args.seed, args.bootstrap, args.delayed_only),
+    betas = tuple(args.beta) if args.beta else (0.0, 0.5)
+    print(json.dumps(run(args.replicates, args.seed, args.bootstrap, args.delayed_only, betas),
                      indent=2))
 
 
