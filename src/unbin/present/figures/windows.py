@@ -41,6 +41,7 @@ from .style import (
 )
 
 CURVE_FORM = "test_spline"
+MAX_POINTS = 50
 GROUP_FORM = "legacy"
 
 
@@ -133,9 +134,12 @@ def p_text(p: float) -> str:
 
 def draw_window(ax: Any, sel: WindowRows, w: Window, ylim: tuple[float, float],
                 xlim: tuple[float, float]) -> None:
-    """One window: the spline's curve over its band, the legacy groups' estimates with their
+    """One window: the spline's curve over its band (at most ``MAX_POINTS`` of its grid
+    points: a smooth curve, and a light report), the legacy groups' estimates with their
     intervals, the reference value on the null line."""
-    draw_curve(ax, w.curve, SPLINE)
+    keep = np.unique(np.linspace(0, len(w.curve) - 1, min(len(w.curve), MAX_POINTS))
+                     .round().astype(int))
+    draw_curve(ax, w.curve.iloc[keep], SPLINE)
     if len(w.groups):
         e = w.groups["effect"].to_numpy(float)
         lo = np.minimum(w.groups["effect_lower"].to_numpy(float), e)
