@@ -294,8 +294,8 @@ def test_fine_gray_bootstrap_coverage_with_heavy_delayed_entry(beta: float) -> N
     # 400 seeded replicates of Fine & Gray's design with heavy delayed entry (entry uniform on
     # 0-1.5; Beyersmann et al. 2009), n = 300, 100 bootstrap resamples each: the Wald interval
     # with the bootstrap covariance covers the true log SHR in 0.95 of them within two-sided
-    # binomial bounds (0.001 and 0.999 quantiles: about 0.925 to 0.97), where the sandwich's
-    # falls short (benchmarks/checks/fine_gray.py, README's checks table).
+    # binomial bounds (0.001 and 0.999 quantiles: 0.9125 to 0.98), where the sandwich's falls
+    # short (benchmarks/checks/fine_gray.py, README's checks table).
     rng = np.random.default_rng(71 + int(10 * beta))
     z = stats.norm.ppf(0.975)
     hits = 0
