@@ -198,7 +198,7 @@ def draw(ctx: Context, cohort: str | None, analysis: str | None) -> Drawn | None
     n = len(sel.windows)
     ref = f"{ex.short} {fmt_number(sel.x_reference)}{ex.unit}"
     footnote = (f"Band: pointwise 95% confidence interval of the spline (clipped at the panel "
-                f"edge); squares: legacy groups at their median {ex.name}, with 95% intervals. "
+                f"edge); squares: legacy groups at their median {ex.short}, with 95% intervals. "
                 f"Effects relative to {ref}, {ADJUSTMENT_TEXT[sel.adjustment]}; adjusters "
                 f"common to all windows. Events per window below {ctx.spec.min_cell} are not "
                 f"shown.")
