@@ -24,6 +24,7 @@ from unbin.present.figures import information as inf
 from unbin.present.figures import levels as lv
 from unbin.present.figures import ranges as rg
 from unbin.present.figures import style as st
+from unbin.present.figures import windows as wn
 from unbin.present.figures.curves import draw_rug, legacy_steps
 from unbin.results.tables import read_table
 from unbin.spec import Spec, load_spec, parse_spec
@@ -258,6 +259,37 @@ def tiny_curves() -> pd.DataFrame:
     return _keyed(pd.concat(parts, ignore_index=True))
 
 
+def tiny_windows() -> pd.DataFrame:
+    """A windows table with cuts [1] (windows 0-1 and 1+ of t in years): the spline's curve
+    log HR 0.3 (x - 2.5) before t = 1 and 0 after, two groups at medians 1.2 and 3.6 mg, the
+    reference group at 2.5 mg; an unadjusted coding too; the curve's rows listed last first."""
+    x = np.linspace(0.5, 4.5, 9)[::-1]
+    parts = []
+    for adj in ("none", "legacy"):
+        for window, lo, hi, slope, events in (("0-1", 0.0, 1.0, 0.3, 40), ("1+", 1.0, np.inf,
+                                                                           0.0, 25)):
+            est = slope * (x - 2.5)
+            parts.append(pd.DataFrame({
+                "row_type": "curve", "form": "test_spline", "adjustment": adj, "window": window,
+                "window_lower": lo, "window_upper": hi, "events": events, "x": x,
+                "x_reference": 2.5, "effect": np.exp(est), "effect_lower": np.exp(est - 0.2),
+                "effect_upper": np.exp(est + 0.2), "scale": "hazard ratio", "status": "ok"}))
+            g = np.array([slope * (1.2 - 2.5), slope * (3.6 - 2.5)])
+            parts.append(pd.DataFrame({
+                "row_type": "group", "form": "legacy", "adjustment": adj, "window": window,
+                "window_lower": lo, "window_upper": hi, "events": events,
+                "group": ["<2 vs 2-3", ">=3 vs 2-3"], "x": [1.2, 3.6], "x_reference": 2.5,
+                "effect": np.exp(g), "effect_lower": np.exp(g - 0.3),
+                "effect_upper": np.exp(g + 0.3), "scale": "hazard ratio", "status": "ok"}))
+        for form, p in (("legacy", 0.2), ("test_spline", 0.0004)):
+            parts.append(pd.DataFrame({"row_type": ["test"], "form": form, "adjustment": adj,
+                                       "window": "all", "p": p if adj == "legacy" else 0.5,
+                                       "scale": "hazard ratio", "status": "ok"}))
+    # the spline of the legacy coding failed in no window; the unadjusted one lost a window
+    out = pd.concat(parts, ignore_index=True)
+    return _keyed(out)
+
+
 def tiny_tables() -> dict[str, pd.DataFrame]:
     thr = np.round(np.arange(0.01, 1.0, 0.01), 2)
     nb = []
@@ -299,7 +331,8 @@ def tiny_tables() -> dict[str, pd.DataFrame]:
     density = pd.DataFrame({"bin_left": [0.5, 1.5, 2.5, 3.5], "bin_right": [1.5, 2.5, 3.5, 4.5],
                             "count": pd.array([40, 120, None, 30], dtype="Int64"),
                             "suppressed": [False, False, True, False]})
-    return {"curves": tiny_curves(), "net_benefit": _keyed(pd.concat(nb, ignore_index=True)),
+    return {"curves": tiny_curves(), "windows": tiny_windows(),
+            "net_benefit": _keyed(pd.concat(nb, ignore_index=True)),
             "cutpoints": _keyed(pd.concat([prof, cut_rows], ignore_index=True)),
             "thresholds": _keyed(thresholds), "ranges": _keyed(ranges),
             "confounding": _keyed(confounding), "information": _keyed(information),
@@ -314,7 +347,7 @@ def test_every_kind_draws_from_the_oldest_table_shapes(tmp_path: Path) -> None:
     drawn = {f.kind for f in done if f.svg is not None}
     assert not [f.problem for f in done if f.problem]
     assert drawn == {"information", "curves", "ranges", "confounding", "cut-positions",
-                     "cut-profile", "thresholds", "decision-curves"}
+                     "cut-profile", "thresholds", "decision-curves", "windows"}
     index = json.loads((tmp_path / "sim" / INDEX).read_text())
     assert {r["kind"] for r in index} == drawn - {"information"}
 
@@ -521,3 +554,56 @@ def test_level_selection_and_alt_state_each_level_and_the_interaction_test() -> 
             f"{st.fmt_ratio(np.exp(0.25))} at 3 mg") in alt
     assert "in 2 panels, one per level of age group" in alt
     assert lv.select_levels(plain) is None
+
+
+def test_window_selection_follows_the_table() -> None:
+    tab = tiny_windows()
+    sel = wn.select_windows(tab, "years")
+    assert sel is not None and sel.adjustment == "legacy" and sel.scale == "hazard ratio"
+    assert [w.label for w in sel.windows] == ["0–1 years", "1+ years"]
+    assert [w.events for w in sel.windows] == [40.0, 25.0]
+    assert sel.x_reference == 2.5
+    assert sel.p_curve == pytest.approx(0.0004) and sel.p_groups == pytest.approx(0.2)
+    first = sel.windows[0]
+    # the curve sorted by x, its values those of the table's rows (exp(0.3 (x - 2.5)) by hand)
+    np.testing.assert_allclose(first.curve["x"], np.linspace(0.5, 4.5, 9))
+    np.testing.assert_allclose(first.curve["effect"], np.exp(0.3 * (np.linspace(0.5, 4.5, 9)
+                                                                     - 2.5)))
+    assert list(first.groups["group"]) == ["<2 vs 2-3", ">=3 vs 2-3"]
+    np.testing.assert_allclose(first.groups["effect_upper"], np.exp(0.3 * np.array(
+        [-1.3, 1.1]) + 0.3))
+    np.testing.assert_allclose(sel.windows[1].curve["effect"], 1.0)
+    # a coding whose spline misses a window is passed over; failed rows are dropped
+    lost = tab[~((tab["adjustment"] == "legacy") & (tab["window"] == "1+"))
+               & ~((tab["adjustment"] == "none") & (tab["row_type"] == "test"))]
+    sel = wn.select_windows(lost)
+    assert sel is not None and sel.adjustment == "none"
+    assert [w.label for w in sel.windows] == ["0–1", "1+"]
+    assert np.isnan(sel.p_curve)
+    failed = tab.assign(status=np.where(tab["row_type"] == "curve", "failed", "ok"))
+    assert wn.select_windows(failed) is None
+    assert wn.select_windows(tab[tab["row_type"] == "test"]) is None
+    # older tables without group positions: the groups are left out, the curve still drawn
+    sel = wn.select_windows(tab.assign(x=np.where(tab["row_type"] == "group", np.nan, tab["x"])))
+    assert sel is not None and all(w.groups.empty for w in sel.windows)
+
+
+def test_window_alt_and_title_state_the_table_values(tmp_path: Path) -> None:
+    sel = wn.select_windows(tiny_windows(), "years")
+    assert sel is not None
+    alt = wn.windows_alt(sel, Context({}, tiny_spec()).exposure("a"), "d")
+    # exp(0.3 * (0.5 - 2.5)) and exp(0.3 * (4.5 - 2.5)) by hand
+    assert (f"0–1 years, 40 events: spline from {st.fmt_ratio(np.exp(-0.6))} at 0.5 mg to "
+            f"{st.fmt_ratio(np.exp(0.6))} at 4.5 mg") in alt
+    assert (f"legacy groups <2 vs 2-3 {st.fmt_ratio(np.exp(-0.39))} "
+            f"({st.fmt_ratio(np.exp(-0.69))} to {st.fmt_ratio(np.exp(-0.09))})") in alt
+    assert "spline p < 0.001, legacy groups p = 0.200." in alt
+    ctx = Context({"windows": tiny_windows()}, tiny_spec())
+    drawn = wn.draw(ctx, "sim", "a")
+    assert drawn is not None
+    heads = [t.get_text() for t in drawn.figure.subfigs[0].texts]
+    assert any("spline p < 0.001, groups p = 0.200" in h for h in heads)
+    axes = drawn.figure.subfigs[0].axes
+    assert [a.get_title() for a in axes] == ["0–1 years · 40 events", "1+ years · 25 events"]
+    assert all(a.get_yscale() == "log" for a in axes)
+    assert axes[0].get_ylim() == axes[1].get_ylim()

@@ -18,6 +18,7 @@ import pytest
 from reference.tablerefs import MARKER_GROUPING, OUTCOMES, clinic_frame, selected_row, term_columns
 from unbin.errors import SpecError
 from unbin.models.cox import fit_cox
+from unbin.present.figures.windows import select_windows
 from unbin.questions.fits import fits_table
 from unbin.questions.windows import COLUMNS, windows_table
 from unbin.refit.windows import fit_windows, split_episodes, window_labels
@@ -194,6 +195,13 @@ def test_windows_table_equals_lifelines_time_varying_fits(refit_frame: Any,
             if form == "legacy":
                 np.testing.assert_allclose(rows["estimate"], bw, rtol=1e-5, atol=1e-7)
                 np.testing.assert_allclose(rows["se"], np.sqrt(np.diag(Vw)), rtol=1e-5)
+                # placed at each group's median marker, the reference group's as x_reference
+                # (groups from the recorded indicator columns, medians by numpy)
+                marker = frame["marker"].to_numpy(float)
+                G = term_columns(term, marker)
+                np.testing.assert_allclose(rows["x"], [np.median(marker[G[:, j] == 1])
+                                                       for j in range(k)])
+                assert (rows["x_reference"] == np.median(marker[G.sum(axis=1) == 0])).all()
             else:
                 xs = rows["x"].to_numpy()
                 x_ref = float(rows["x_reference"].iloc[0])
@@ -202,6 +210,19 @@ def test_windows_table_equals_lifelines_time_varying_fits(refit_frame: Any,
                 np.testing.assert_allclose(rows["se"], np.sqrt(np.einsum(
                     "ij,jk,ik->i", D, Vw, D)), rtol=1e-5, atol=1e-9)
             np.testing.assert_allclose(rows["effect"], np.exp(rows["estimate"]), rtol=1e-12)
+    # the figure's selection holds the table's rows of the legacy coding, window by window
+    sel = select_windows(tab, "years")
+    assert sel is not None and sel.adjustment == "legacy"
+    assert [w.label for w in sel.windows] == ["0–1 years", "1–3 years", "3+ years"]
+    for w, label in zip(sel.windows, ["0-1", "1-3", "3+"], strict=True):
+        rows = tab[(tab["window"] == label) & (tab["adjustment"] == "legacy")]
+        curve = rows[rows["row_type"] == "curve"].sort_values("x")
+        np.testing.assert_array_equal(w.curve["effect"], curve["effect"])
+        np.testing.assert_array_equal(w.groups["x"], np.sort(rows.loc[rows["row_type"] == "group",
+                                                                      "x"]))
+    tests = tab[(tab["row_type"] == "test") & (tab["adjustment"] == "legacy")].set_index("form")
+    assert sel.p_curve == tests.loc["test_spline", "p"]
+    assert sel.p_groups == tests.loc["legacy", "p"]
 
 
 def test_windows_table_empty_without_windows_or_survival(refit_frame: Any,

@@ -20,12 +20,20 @@ the competing events lower; ``1 - Kaplan–Meier`` overstates it.
   and entry are taken as independent of the covariates and of the strata (one G and one H for
   the sample). The covariance is the cluster-robust sandwich with each person as a cluster
   (the expanded rows of one person are not independent); the person's own cluster column,
-  when the analysis has one, is used instead.
+  when the analysis has one, is used instead. Each person's score term is their rows' Cox
+  score residuals plus the influence of their row on the estimated ``G`` and ``H``
+  (:func:`weight_estimation_scores`; Fine & Gray 1999's censoring term, here with the entry
+  term of the delayed-entry weights too).
+- :func:`fine_gray_bootstrap_cov`: the nonparametric bootstrap over persons (or clusters),
+  which re-estimates ``G`` and ``H`` in every resample before the refit;
+  ``fit_fine_gray(..., bootstrap=B)`` returns that covariance (the sandwich stays in
+  ``extra["robust_cov"]``). With heavy delayed entry at n = 300 the sandwich's intervals
+  fall short of 95% (``benchmarks/checks/fine_gray.py``; README's checks table).
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -198,14 +206,17 @@ def fine_gray_outcome(outcome: Outcome, cause: np.ndarray, event_of_interest: in
 
 
 def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_interest: int,
-                  names: tuple[str, ...]) -> FitResult:
+                  names: tuple[str, ...], bootstrap: int = 0, seed: int = 0) -> FitResult:
     """The Fine–Gray model of one design: coefficients are log subdistribution hazard ratios,
-    the covariance cluster-robust (module docstring); ``linear_predictor`` is per sample row
-    and ``extra["baseline"]`` the Breslow baseline cumulative subdistribution hazard (per
-    stratum, at covariates 0; :func:`unbin.models.cox.baseline_cumhaz`). A failed fit is
-    returned, never raised."""
+    the covariance cluster-robust (module docstring), or with ``bootstrap`` = B > 0 the
+    covariance of B bootstrap refits (:func:`fine_gray_bootstrap_cov`; the sandwich is then in
+    ``extra["robust_cov"]``, the refits that failed counted in ``extra["bootstrap_failed"]``);
+    ``linear_predictor`` is per sample row and ``extra["baseline"]`` the Breslow baseline
+    cumulative subdistribution hazard (per stratum, at covariates 0;
+    :func:`unbin.models.cox.baseline_cumhaz`). A failed fit is returned, never raised."""
     from . import fit
     from .cox import baseline_cumhaz
+    from .robust import cox_scores, sandwich
     from .survival import cox_layout
 
     X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
@@ -225,8 +236,178 @@ def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_i
                            entry=expanded.entry, strata=expanded.strata,
                            weights=expanded.weights, layout=cox_layout(expanded))
     base = base.assign(cumhaz=base["cumhaz"].to_numpy(float) * np.exp(-centre))
-    return FitResult(family="survival", names=res.names, coef=res.coef, cov=res.cov,
+    cov, cov_known = res.cov, res.cov
+    if "model_cov" in res.extra:  # the sandwich, with the weights' estimation terms
+        scores = np.zeros((outcome.n, X.shape[1]))
+        np.add.at(scores, data.person, cox_scores(Xe, expanded, res.coef,
+                                                  ties=str(res.extra.get("ties", "efron"))))
+        scores += weight_estimation_scores(X, outcome, cause, event_of_interest, data, res.coef)
+        clusters = np.arange(outcome.n) if outcome.cluster is None else outcome.cluster
+        V, _ = sandwich(np.asarray(res.extra["model_cov"]), scores, clusters)
+        if np.all(np.isfinite(V)):
+            cov = V
+    extra: dict[str, object] = {**res.extra, "baseline": base,
+                                "expanded_rows": int(data.stop.size),
+                                "cov_weights_known": cov_known}
+    if bootstrap > 0:
+        extra.update(robust_cov=cov, bootstrap=bootstrap)
+        cov, extra["bootstrap_failed"] = fine_gray_bootstrap_cov(
+            X, outcome, cause, event_of_interest, names, bootstrap, seed)
+    return FitResult(family="survival", names=res.names, coef=res.coef, cov=cov,
                      loglik=res.loglik, n=outcome.n, events=events, n_params=res.n_params,
                      converged=True, iterations=res.iterations, warnings=res.warnings,
-                     linear_predictor=lp,
-                     extra={**res.extra, "baseline": base, "expanded_rows": int(data.stop.size)})
+                     linear_predictor=lp, extra=extra)
+
+
+def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
+                            event_of_interest: int, names: tuple[str, ...], replicates: int,
+                            seed: int = 0) -> tuple[np.ndarray, int]:
+    """The covariance of the Fine–Gray coefficients over ``replicates`` nonparametric bootstrap
+    resamples of the persons (of the clusters when the outcome has them, Efron & Tibshirani
+    1993, ch. 6), the censoring and entry distributions re-estimated in each (module
+    docstring), and how many refits failed (left out; all NaN when fewer than two fitted)."""
+    from . import fit
+
+    X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
+    c = np.asarray(cause)
+    rng = np.random.default_rng(seed)
+    if outcome.cluster is None:
+        units, members = np.arange(outcome.n), None
+    else:
+        codes, inverse = np.unique(np.asarray(outcome.cluster), return_inverse=True)
+        units = np.arange(codes.size)
+        members = [np.flatnonzero(inverse == u) for u in units]
+    draws, failed = [], 0
+    for _ in range(replicates):
+        pick = rng.choice(units, size=units.size, replace=True)
+        rows = pick if members is None else np.concatenate([members[u] for u in pick])
+        o = outcome.subset(rows)
+        # each drawn row is its own person (a person drawn twice is two people)
+        o = replace(o, cluster=None if members is None else np.repeat(
+            np.arange(pick.size), [members[u].size for u in pick]))
+        try:
+            expanded, data = fine_gray_outcome(o, c[rows], event_of_interest)
+        except ValueError:
+            failed += 1
+            continue
+        res = fit("survival", data.take(X[rows]), expanded, names)
+        if res.ok and np.all(np.isfinite(res.coef)):
+            draws.append(res.coef)
+        else:
+            failed += 1
+    if len(draws) < 2:
+        return np.full((X.shape[1], X.shape[1]), np.nan), failed
+    return np.atleast_2d(np.cov(np.asarray(draws), rowvar=False)), failed
+
+
+def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
+                             event_of_interest: int, data: FineGrayData,
+                             coef: np.ndarray) -> np.ndarray:
+    """Each person's influence, through the estimated censoring and entry distributions, on
+    the Fine–Gray score at ``coef`` (n x p): the derivative of the score with respect to the
+    person's weight in ``G`` and ``H`` alone (an infinitesimal jackknife; Fine & Gray 1999,
+    sec. 3, for ``G``).
+
+    A competing-event person j's row at event time t_k carries ``G(t_k-) H(t_k) / (G(T_j-)
+    H(T_j))``; its log changes by ``-dLc(u) / (1 - dLc(u))`` for each censoring-hazard step
+    ``dLc(u)`` at T_j <= u < t_k and by ``dLe(s) / (1 - dLe(s))`` for each reversed-time entry
+    hazard step ``dLe(s) = d(s) / R(s)`` at T_j <= s < t_k. The score moves with that row's
+    weight by ``-a_jk``, ``a_jk = (x_j - xbar(t_k)) w_jk r_j dN1(t_k) / S0(t_k)`` (Breslow
+    form). With ``q(u)`` the sums of ``a_jk`` over the rows spanning u, a person l's term is
+    ``sum_u q(u) / (1 - dLc(u)) w_l (dNc_l(u) - Yc_l(u) dLc(u)) / Yc(u)`` for censoring minus
+    the same sum over the entry steps with ``1(entry_l = s) - 1(entry_l <= s < time_l) dLe(s)``
+    and ``R(s)``."""
+    assert outcome.time is not None
+    time = np.asarray(outcome.time, dtype=float)
+    n = time.size
+    X = np.asarray(X, dtype=float).reshape(n, -1)
+    p = X.shape[1]
+    w = np.ones(n) if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
+    c = np.asarray(cause)
+    out = np.zeros((n, p))
+    added = np.flatnonzero(np.arange(data.stop.size) >= n)
+    if p == 0 or added.size == 0:
+        return out
+    a = _weight_row_terms(X, outcome, c == event_of_interest, data, coef, added)
+    spans = (time[data.person[added]], data.stop[added])
+    cens = c == 0
+    ct = np.unique(time[cens])
+    if ct.size:
+        lo = (np.zeros(n, dtype=int) if outcome.entry is None
+              else np.searchsorted(ct, outcome.entry, side="right"))
+        hi = np.searchsorted(ct, time, side="right")
+        Y = _at_risk(lo, hi, w, ct.size)
+        jumps = np.bincount(hi[cens] - 1, w[cens], ct.size)
+        qY, dL = _spanned(a, ct, spans, Y, jumps)
+        own = np.zeros((n, p))
+        own[cens] = qY[hi[cens] - 1]
+        out += w[:, None] * (own - _range_sums(qY * dL[:, None], lo, hi))
+    if outcome.entry is not None:
+        entry = np.asarray(outcome.entry, dtype=float)
+        st = np.unique(entry)
+        lo = np.searchsorted(st, entry, side="left")
+        hi = np.searchsorted(st, time, side="left")
+        R = _at_risk(lo, hi, w, st.size)
+        qR, dA = _spanned(a, st, spans, R, np.bincount(lo, w, st.size))
+        out -= w[:, None] * (qR[lo] - _range_sums(qR * dA[:, None], lo, hi))
+    return out
+
+
+def _at_risk(lo: np.ndarray, hi: np.ndarray, w: np.ndarray, K: int) -> np.ndarray:
+    """Weighted counts at risk at grid points lo <= k < hi."""
+    return np.cumsum(np.bincount(lo, w, K + 1) - np.bincount(hi, w, K + 1))[:K]
+
+
+def _range_sums(v: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Per row, the sum of ``v``'s grid rows lo <= k < hi."""
+    cum = np.vstack([np.zeros(v.shape[1]), np.cumsum(v, axis=0)])
+    return np.asarray(cum[hi] - cum[lo])
+
+
+def _spanned(a: np.ndarray, grid: np.ndarray, spans: tuple[np.ndarray, np.ndarray],
+             at_risk: np.ndarray, jumps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``q(u) / ((1 - dL(u)) Y(u))`` on the grid (rows of ``a`` summed over the grid points u
+    with start <= u < stop of their span) and the hazard steps ``dL = jumps / Y``; 0 where
+    nobody is at risk or a step is 1."""
+    K = grid.size
+    q = np.zeros((K + 1, a.shape[1]))
+    np.add.at(q, np.searchsorted(grid, spans[0], side="left"), a)
+    np.add.at(q, np.searchsorted(grid, spans[1], side="left"), -a)
+    q = np.cumsum(q, axis=0)[:K]
+    safe = at_risk > 0
+    dL = np.where(safe, jumps / np.where(safe, at_risk, 1.0), 0.0)
+    ok = safe & (dL < 1.0)
+    scale = np.where(ok, 1.0 / (np.where(safe, at_risk, 1.0) * np.where(ok, 1.0 - dL, 1.0)), 0.0)
+    return q * scale[:, None], dL
+
+
+def _weight_row_terms(X: np.ndarray, outcome: Outcome, mine: np.ndarray, data: FineGrayData,
+                      coef: np.ndarray, added: np.ndarray) -> np.ndarray:
+    """``a_jk`` (weight_estimation_scores) for the added rows of the expansion, per stratum."""
+    Xe = data.take(X)
+    eta = Xe @ np.asarray(coef, dtype=float)
+    r = np.exp(eta - (eta.max() if eta.size else 0.0))
+    tk = np.unique(np.asarray(outcome.time)[mine])
+    K, p = tk.size, Xe.shape[1]
+    srow = (np.zeros(data.stop.size, dtype=np.int64) if outcome.strata is None
+            else np.asarray(outcome.strata)[data.person])
+    is_added = np.zeros(data.stop.size, dtype=bool)
+    is_added[added] = True
+    a = np.zeros((data.stop.size, p))
+    for s in np.unique(srow):
+        rows = np.flatnonzero(srow == s)
+        lo = np.searchsorted(tk, data.start[rows], side="right")
+        hi = np.searchsorted(tk, data.stop[rows], side="right")
+        wr = data.weight[rows] * r[rows]
+        S0 = _at_risk(lo, hi, wr, K)
+        S1 = np.column_stack([_at_risk(lo, hi, wr * Xe[rows, j], K) for j in range(p)])
+        ev = rows[data.event[rows] > 0]
+        d1 = np.bincount(np.searchsorted(tk, data.stop[ev]), data.weight[ev], K)
+        safe = S0 > 0
+        xbar = S1 / np.where(safe, S0, 1.0)[:, None]
+        h = np.where(safe, d1 / np.where(safe, S0, 1.0), 0.0)
+        mine_rows = rows[is_added[rows]]
+        k = np.searchsorted(tk, data.stop[mine_rows])
+        a[mine_rows] = (Xe[mine_rows] - xbar[k]) * (data.weight[mine_rows] * r[mine_rows]
+                                                     * h[k])[:, None]
+    return a[added]

@@ -25,7 +25,10 @@ Sci 14:29). The ``"marginal"`` rows (``primary`` marks the default one) therefor
 standardised (g-computation) contrasts, ``unbin.refit.standardise``: each model's predictions with
 every row's exposure set to the comparison and to the reference value, averaged over the sample
 — risk ratio (log scale in ``estimate_*``) and risk difference (binary; survival: the risk by
-the analysis' ``horizon`` from the Cox model's standardised survival, Breslow baseline), rate
+the analysis' ``horizon`` from the Cox model's standardised survival, Breslow baseline; with
+competing events the standardised cumulative incidence of the event of interest from
+cause-specific Cox models of every cause on the same design, ``cif_risks``, so that competing
+events lower the risk as they do in the decision tables; ``risk_kind`` says which), rate
 ratio (count: expected events per person-time), mean difference (continuous). With no
 confounding the crude and adjusted marginal contrasts estimate the same quantity. Their ``se_*``
 are bootstrap standard deviations and ``lower_*``/``upper_*`` bootstrap percentile limits. The
@@ -38,9 +41,11 @@ change-in-estimate, ``confounding = e_crude - e_continuous``, into
 
 where ``m_continuous`` is the continuously adjusted model's marginal contrast mapped to the model
 scale (``unbin.refit.standardise.on_model_scale``: the log odds ratio of the standardised risks; for
-survival the log ratio of the standardised cumulative hazards at the horizon; the log rate ratio
-or the mean difference, which equal the conditional ones, so the non-collapsibility part is 0
-for counts and linear models). The crude model's contrast is its own marginal one (except with
+survival the log ratio of the standardised cumulative hazards at the horizon — with competing
+events those of the cause-specific model, one minus its standardised cause-specific survival,
+the scale of the conditional cause-specific hazard ratio; the log rate ratio or the mean
+difference, which equal the conditional ones, so the non-collapsibility part is 0 for counts
+and linear models). The crude model's contrast is its own marginal one (except with
 survival strata, whose mixing then falls into the confounding part).
 
 Bootstrap. Intervals are percentiles over ``resampling.bootstrap`` case-resampling replicates
@@ -50,7 +55,8 @@ refitted by Newton's method from the full-sample estimate on frequency weights �
 replicates for the linear, logistic and Poisson models; for survival ``unbin.models.cox.fit_cox`` on the
 resampled rows, whose sort and risk sets are laid out once per replicate for all designs — and
 its standardised means come from the refitted coefficients by matrix products (survival: the
-replicate's own Breslow baseline). A replicate fails for a row (counted in ``bootstrap_failed``,
+replicate's own Breslow baseline; with competing events each competing cause's Cox model is
+refitted on the replicate's rows too, from its full-sample estimate). A replicate fails for a row (counted in ``bootstrap_failed``,
 left out of ``bootstrap_ok``) when one of the row's three estimates is missing: a design column
 without variation, no convergence, (logistic) fitted risks running to 0 or 1, or an undefined
 standardised contrast. ``confounding_clear`` is false when the interval of the confounding
@@ -59,27 +65,37 @@ standardised contrast. ``confounding_clear`` is false when the interval of the c
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from ..models import EFFECT_SCALE, fit
-from ..models.base import FitResult
+from ..models.base import FitResult, Outcome
+from ..models.cox import Layout, fit_cox, prepare_layout
 from ..models.survival import cox_layout
 from ..models.weighted import _CHUNK_CELLS, WeightedGLM, resample_weights, weighted_cox_designs
 from ..refit.analysis import Refit, adjustment_terms, design
 from ..refit.contrasts import Z95
 from ..refit.risk import horizon_for
 from ..refit.sampling_design import marginal_reason
-from ..refit.standardise import MEASURES, contrast, cox_risks, glm_means, on_model_scale
+from ..refit.standardise import (
+    MEASURES,
+    cif_risks,
+    contrast,
+    cox_risks,
+    glm_means,
+    on_model_scale,
+)
 from ..spec import Spec
 from ..terms import GroupedTerm, LinearTerm, Term
 
 TABLE = "confounding"
-CAUSE_SPECIFIC = ("with competing events these risks are one minus the cause-specific "
-                  "survival (competing events censored), not the cumulative incidence")
+# ``risk_kind``: what the standardised absolute risks of a survival row are
+RISK_SURVIVAL = "1 - survival (Cox model)"
+RISK_INCIDENCE = "cumulative incidence (cause-specific Cox models of every cause)"
+RISK_CAUSE_SPECIFIC = "1 - cause-specific survival (competing events censored)"
 
 
 @dataclass
@@ -88,6 +104,7 @@ class _Design:
     k: int  # the exposure is X's first k columns
     at: tuple[np.ndarray, np.ndarray]  # exposure basis at the comparison and reference values
     res: FitResult
+    others: tuple[FitResult, ...] = field(default=())  # competing causes' Cox models
 
 
 class _Designs:
@@ -98,6 +115,17 @@ class _Designs:
         self.items: dict[str, _Design] = {}
         self.notes: dict[str, str] = {}
         self._means: dict[str, np.ndarray] = {}
+        self._cs_means: dict[str, np.ndarray] = {}
+        o = r.outcome
+        # competing events: the event of interest first, then every other cause in the sample
+        self.causes: tuple[int, ...] = ()
+        self._cause_outcomes: list[Outcome] = []
+        if r.family == "survival" and o.cause is not None:
+            others = [int(c) for c in np.unique(o.cause) if c != 0 and c != o.event_of_interest]
+            if others:
+                self.causes = (o.event_of_interest, *others)
+                self._cause_outcomes = [replace(o, y=(o.cause == c).astype(float), cause=None,
+                                                cache={}) for c in others]
 
     @property
     def marginal_ok(self) -> bool:
@@ -109,8 +137,17 @@ class _Designs:
         if key not in self.items:
             X, names = design(self.r.sample.frame, self.r.x, exposure, adjust)
             k = sum(len(t.names()) for t in exposure)
-            self.items[key] = _Design(X, k, at, fit(self.r.family, X, self.r.outcome, names))
+            others = tuple(fit("survival", X, oc, names) for oc in self._cause_outcomes)
+            self.items[key] = _Design(X, k, at, fit(self.r.family, X, self.r.outcome, names),
+                                      others)
         return key
+
+    @property
+    def risk_kind(self) -> str:
+        """What the marginal rows' absolute risks are (``""`` outside survival)."""
+        if self.r.family != "survival":
+            return ""
+        return RISK_INCIDENCE if self.causes else RISK_SURVIVAL
 
     def _d(self, key: str) -> np.ndarray:
         at = self.items[key].at
@@ -127,34 +164,60 @@ class _Designs:
         return float(d @ b), float(np.sqrt(max(float(d @ V @ d), 0.0)))
 
     def means(self, key: str) -> np.ndarray:
-        """Standardised means at the comparison and the reference value (full sample)."""
+        """Standardised means at the comparison and the reference value (full sample); with
+        competing events the standardised cumulative incidences of the event of interest."""
+        if not self.causes:
+            return self.cs_means(key)
         if key not in self._means:
+            it, o = self.items[key], self.r.outcome
+            out = np.full(2, np.nan)
+            failed = [f"the Cox model of competing cause {c} did not fit: {f.message}"
+                      for c, f in zip(self.causes[1:], it.others, strict=True) if not f.ok]
+            if failed:
+                self.notes[key] = "; ".join(failed)
+            elif it.res.ok and self.marginal_ok:
+                assert o.time is not None and o.cause is not None and self.horizon is not None
+                out, self.notes[key] = cif_risks(
+                    it.X, it.k, [it.res.coef, *(f.coef for f in it.others)], it.at, o.time,
+                    o.cause, self.causes, self.horizon, entry=o.entry, strata=o.strata,
+                    layout=cox_layout(o))
+            self._means[key] = out
+        return self._means[key]
+
+    def cs_means(self, key: str) -> np.ndarray:
+        """Standardised means of the design's own model (full sample): for survival one minus
+        the standardised (cause-specific, with competing events) survival by the horizon."""
+        if key not in self._cs_means:
             it, o = self.items[key], self.r.outcome
             out = np.full(2, np.nan)
             if it.res.ok and self.marginal_ok:
                 if self.r.family == "survival":
                     assert o.time is not None and self.horizon is not None
-                    out, self.notes[key] = cox_risks(it.X, it.k, it.res.coef, it.at, o.time, o.y,
-                                                     self.horizon, entry=o.entry,
-                                                     strata=o.strata, layout=cox_layout(o))
-                    if o.cause is not None:  # competing events: cause-specific, stated
-                        self.notes[key] = "; ".join(v for v in (self.notes[key], CAUSE_SPECIFIC)
-                                                    if v)
+                    out, note = cox_risks(it.X, it.k, it.res.coef, it.at, o.time, o.y,
+                                          self.horizon, entry=o.entry, strata=o.strata,
+                                          layout=cox_layout(o))
+                    if not self.causes:
+                        self.notes[key] = note
                 else:
                     out = glm_means(self.r.family, it.X, it.k, it.res.coef, it.at,
                                     np.ones((1, o.n)), o.offset)[0]
-            self._means[key] = out
-        return self._means[key]
+            self._cs_means[key] = out
+        return self._cs_means[key]
 
     def bootstrap(self, rng: np.random.Generator, replicates: int
-                  ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray]]:
-        """Per design, the conditional contrast (B,) and the standardised means (B, 2) in every
-        replicate; the replicates are shared by all designs, and the means come from each
-        replicate's coefficients by matrix products (no refit)."""
+                  ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray], dict[str, np.ndarray]]:
+        """Per design, the conditional contrast (B,), the standardised means (B, 2) and those
+        of the design's own model (``cs_means``; the same dict without competing events) in
+        every replicate; the replicates are shared by all designs, and the means come from
+        each replicate's coefficients by matrix products (no refit of the design's model;
+        with competing events each other cause's model is refitted)."""
         r, o = self.r, self.r.outcome
         n = o.n
         cond = {k: np.full(replicates, np.nan) for k in self.items}
         marg = {k: np.full((replicates, 2), np.nan) for k in self.items}
+        marg_cs = ({k: np.full((replicates, 2), np.nan) for k in self.items} if self.causes
+                   else marg)
+        layouts: dict[tuple[int, int], Layout | None] = {}
         p_max = max((v.X.shape[1] for v in self.items.values()), default=0)
         chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
         ok = [(key, it) for key, it in self.items.items() if it.res.ok]
@@ -171,9 +234,13 @@ class _Designs:
                         return None if v is None else v[m]
 
                     try:
-                        marg[key][c0 + b] = cox_risks(Xm, it.k, coef, it.at, o.time[m], o.y[m],
-                                                      self.horizon, entry=pick(o.entry),
-                                                      strata=pick(o.strata), layout=layout)[0]
+                        marg_cs[key][c0 + b] = cox_risks(Xm, it.k, coef, it.at, o.time[m],
+                                                         o.y[m], self.horizon,
+                                                         entry=pick(o.entry),
+                                                         strata=pick(o.strata), layout=layout)[0]
+                        if self.causes:
+                            marg[key][c0 + b] = self._replicate_incidence(
+                                c0 + b, it, Xm, m, coef, layout, layouts)
                     except ValueError:
                         pass
                 coefs = weighted_cox_designs([(it.X, it.res.coef) for _, it in ok], o, W,
@@ -188,7 +255,41 @@ class _Designs:
                 cond[key][c0:c0 + len(W)] = coef[:, 1:1 + it.k] @ self._d(key)
                 marg[key][c0:c0 + len(W)] = glm_means(r.family, it.X, it.k, coef, it.at, W,
                                                       o.offset)
-        return cond, marg
+        return cond, marg, marg_cs
+
+    def _replicate_incidence(self, b: int, it: _Design, Xm: np.ndarray, m: np.ndarray,
+                             coef: np.ndarray, layout: Layout,
+                             layouts: dict[tuple[int, int], Layout | None]) -> np.ndarray:
+        """A replicate's standardised cumulative incidences of one design: each competing
+        cause's Cox model refitted on the replicate's rows ``m`` (from its full-sample
+        estimate; the layouts of a replicate shared by the designs), NaN when one fails."""
+        o = self.r.outcome
+        assert o.time is not None and o.cause is not None and self.horizon is not None
+        entry = None if o.entry is None else o.entry[m]
+        strata = None if o.strata is None else o.strata[m]
+        cause = o.cause[m]
+        coefs = [coef]
+        for c, full in zip(self.causes[1:], it.others, strict=True):
+            if not full.ok:
+                return np.full(2, np.nan)
+            if (b, c) not in layouts:
+                for old in [k for k in layouts if k[0] != b]:
+                    del layouts[old]
+                try:
+                    layouts[(b, c)] = prepare_layout(o.time[m], (cause == c).astype(float),
+                                                     entry=entry, strata=strata)
+                except ValueError:
+                    layouts[(b, c)] = None
+            lay = layouts[(b, c)]
+            if lay is None:
+                return np.full(2, np.nan)
+            fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,
+                             strata=strata, init=full.coef, layout=lay)
+            if not fitted.converged or not np.all(np.isfinite(fitted.coef)):
+                return np.full(2, np.nan)
+            coefs.append(fitted.coef)
+        return cif_risks(Xm, it.k, coefs, it.at, o.time[m], cause, self.causes, self.horizon,
+                         entry=entry, strata=strata, layout=layout)[0]
 
 
 @dataclass(frozen=True)
@@ -235,7 +336,7 @@ def _exposure_forms(r: Refit) -> list[_Form]:
 
 
 COLUMNS = ("exposure_form", "contrast", "comparison", "reference", "x_value", "x_reference",
-           "scope", "grouping", "scale_kind", "scale", "primary", "horizon", "n",
+           "scope", "grouping", "scale_kind", "scale", "primary", "horizon", "risk_kind", "n",
            *(f"{c}_{w}" for w in ("crude", "grouped", "continuous")
              for c in ("estimate", "se", "lower", "upper")),
            "confounding", "confounding_lower", "confounding_upper",
@@ -313,8 +414,9 @@ def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
     n_bootstrap = spec.resampling.bootstrap
     boot_conditional: dict[str, np.ndarray] = {}
     boot_marginal: dict[str, np.ndarray] = {}
+    boot_own: dict[str, np.ndarray] = {}  # the designs' own models' means (conditional split)
     if n_bootstrap > 0:
-        boot_conditional, boot_marginal = designs.bootstrap(
+        boot_conditional, boot_marginal, boot_own = designs.bootstrap(
             spec.rng(a.name, "confounding-bootstrap"), n_bootstrap)
     rows = []
     for f, scope, adj, keys in plan:
@@ -327,7 +429,7 @@ def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
         fails = [designs.items[k].res.message for k in keys if not designs.items[k].res.ok]
         rows += _marginal_rows(r.family, designs, keys, base, fails, boot_marginal, n_bootstrap)
         rows.append(_conditional_row(r.family, designs, keys, base, fails, boot_conditional,
-                                     boot_marginal, n_bootstrap))
+                                     boot_own, n_bootstrap))
     return _finish(pd.DataFrame(rows, columns=list(COLUMNS)))
 
 
@@ -373,7 +475,7 @@ def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
         if used is not None:
             sd, lims = used.std(axis=0, ddof=1), np.percentile(used, [2.5, 97.5], axis=0)
         row.update(base, scale_kind="marginal", scale=scale,
-                   primary=scale == MEASURES[family][0][0])
+                   primary=scale == MEASURES[family][0][0], risk_kind=designs.risk_kind)
         for i, what in enumerate(_ESTIMATES):
             row[f"estimate_{what}"], row[f"se_{what}"] = float(est[i]), float(sd[i])
             row[f"lower_{what}"], row[f"upper_{what}"] = float(lims[0, i]), float(lims[1, i])
@@ -398,11 +500,12 @@ def _conditional_row(family: str, designs: _Designs, keys: tuple[str, str, str],
     est = np.array([e for e, _ in cond])
     boot = np.column_stack([boot_conditional[k] for k in keys]) if boot_conditional else None
     row, _ = _compare(est, boot, n_bootstrap, notes)
-    row.update(base, scale_kind="conditional", scale=EFFECT_SCALE[family], primary=False)
+    row.update(base, scale_kind="conditional", scale=EFFECT_SCALE[family], primary=False,
+               risk_kind=RISK_CAUSE_SPECIFIC if designs.causes else designs.risk_kind)
     for (e, se), what in zip(cond, _ESTIMATES, strict=True):
         row[f"estimate_{what}"], row[f"se_{what}"] = e, se
         row[f"lower_{what}"], row[f"upper_{what}"] = e - Z95 * se, e + Z95 * se
-    marginal_continuous = float(on_model_scale(family, *designs.means(keys[2])))
+    marginal_continuous = float(on_model_scale(family, *designs.cs_means(keys[2])))
     row["change_confounding"] = est[0] - marginal_continuous
     row["change_noncollapsibility"] = marginal_continuous - est[2]
     if boot is not None and boot_marginal:

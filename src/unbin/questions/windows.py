@@ -86,19 +86,27 @@ def _form_rows(r: Refit, f: FormFit, form: str, coding: str, cuts: tuple[float, 
                 "window_upper": highs[w], "events": n_ev if n_ev >= min_cell else np.nan,
                 "detail": f.detail, "status": "ok", "message": ""}
         if form == "legacy":
-            rows += _group_rows(f, wf, w, base)
+            rows += _group_rows(r, f, wf, w, base)
         else:
             rows += _curve_rows(r, f, wf, w, base)
     return rows
 
 
-def _group_rows(f: FormFit, wf: WindowFit, w: int, base: dict[str, object]
+def _group_rows(r: Refit, f: FormFit, wf: WindowFit, w: int, base: dict[str, object]
                 ) -> list[dict[str, object]]:
+    """Each group's contrast in window ``w``, placed (``x``, ``x_reference``) at the group's and
+    the reference group's median exposure."""
     term = f.exposure_terms[0]
     assert isinstance(term, GroupedTerm)
     se = np.sqrt(np.clip(np.diag(wf.cov[w]), 0.0, None))
+
+    def median(g: int) -> float:
+        v = r.x[term.codes(r.x) == g]
+        return float(np.median(v)) if v.size else np.nan
+
     return [{**base, "row_type": "group",
              "group": f"{term.labels[g]} vs {term.labels[term.reference]}",
+             "x": median(g), "x_reference": median(term.reference),
              "estimate": float(wf.coef[w][j]), "se": float(se[j])}
             for j, g in enumerate(term.others)]
 

@@ -47,6 +47,7 @@ def _kinds() -> tuple[Kind, ...]:
         pooled,
         published,
         ranges,
+        windows,
     )
 
     return (
@@ -62,6 +63,7 @@ def _kinds() -> tuple[Kind, ...]:
         Kind("thresholds", "thresholds", "analysis", decisions.draw_thresholds),
         Kind("decision-curves", "net_benefit", "analysis", decisions.draw_net_benefit),
         Kind("calibration", "calibration", "analysis", calibration.draw),
+        Kind("windows", "windows", "analysis", windows.draw),
     )
 
 

@@ -184,6 +184,7 @@ class Builder:
         pieces: list[tuple[str, Callable[[str, str], str]]] = [
             ("curves", partial(self.figs_of, "curves")),
             ("curves by level", partial(self.figs_of, "level-curves")),
+            ("follow-up windows", partial(self.figs_of, "windows")),
             ("effects", self.effects), ("information", self.information),
             ("range dependence", self.ranges), ("residual confounding", self.confounding),
             ("cut points", self.cutpoints), ("replication", self.replication),
