@@ -203,6 +203,24 @@ def test_survival_slope_matches_lifelines_and_oe_a_direct_count() -> None:
     assert a["estimate"] == pytest.approx(np.log(o / e), abs=1e-10)
 
 
+def test_survival_predictions_that_round_to_certainty_give_a_finite_smooth_curve() -> None:
+    """Predicted risks of 1.0 in floating point (a horizon far beyond most follow-up, high-risk
+    rows): the smooth curve's grid reaches p = 1 and must not take log(-log(0)) (a warning,
+    an error under strict warnings). Its rows stay finite and within [0, 1] (common practice:
+    clip the risk before the complementary log-log, as the binary curve clips before the logit)."""
+    rng = np.random.default_rng(11)
+    time, event, _ = _survival(rng, 400, 0.0, 1.0)
+    z = np.linspace(-2.0, 4.5, 400)  # exp(-exp(4.5)) underflows: p == 1.0 for the top rows
+    assert (-np.expm1(-np.exp(z)) == 1.0).sum() > 10
+    scale = RiskScale("survival", "probability of d", 5.0)
+    rf = RiskFit("external", "", "", scale, lambda x, level=0: np.zeros(np.atleast_1d(x).shape),
+                 z, np.zeros(len(z)))
+    smooth = _rows(calibration_rows(rf, Outcome("survival", event, time=time), 1), "smooth")
+    assert len(smooth) > 0 and smooth["mean_predicted"].max() == 1.0
+    vals = smooth[["observed", "observed_lower", "observed_upper"]].to_numpy(float)
+    assert np.isfinite(vals).all() and (vals >= 0).all() and (vals <= 1).all()
+
+
 def test_survival_calibration_recovers_a_known_miscalibration() -> None:
     """Seeded simulation, 200 replicates: (i) predicted cumulative hazards exp(-0.3) times the
     true ones (slope 1): log(O/E) has mean 0.3 and its interval covers it; (ii) predictions

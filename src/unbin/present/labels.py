@@ -111,7 +111,7 @@ _QUESTIONS: dict[str, str] = {
     "reported_upper": "published, upper", "refit_effect": "refit", "refit_lower": "refit, lower",
     "refit_upper": "refit, upper", "verdict": "verdict", "disagrees": "disagrees",
     "share_left": "share of confounding left", "exposure_form": "exposure form",
-    "scope": "confounders", "trim": "trim", "change": "change",
+    "scope": "confounders", "trim": "trim", "change": "change", "risk_kind": "kind of risk",
     "threshold": "risk threshold", "net_benefit": "net benefit", "rule": "rule",
     "model": "model", "exposure_value": "exposure value", "nearest_cut": "nearest legacy cut",
     "profile_quantile": "rest-of-risk quantile",

@@ -224,7 +224,8 @@ def smooth_survival(rf: RiskFit, outcome: Outcome, grid: np.ndarray, horizon: fl
     if pos < 0:
         return nan, nan, nan
     h0 = float(base["cumhaz"].to_numpy(float)[pos])
-    G = np.asarray(term.basis(link("survival", grid)), dtype=float) - X.mean(axis=0)
+    G = np.asarray(term.basis(link("survival", np.clip(grid, 1e-12, 1 - 1e-12))),
+                   dtype=float) - X.mean(axis=0)
     eta = G @ res.coef
     se = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", G, res.cov, G), 0.0))
 
