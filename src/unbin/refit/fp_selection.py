@@ -21,9 +21,13 @@ cost. How:
    above. At the maximum U = 0 and the bound is the maximum itself; after each Newton step its
    slack shrinks quadratically. The linear model needs no bound: its maximum at the null fit's
    residuals is exact (RSS - U' I^-1 U).
-3. Candidates in order of their score statistic at the null fit: Newton steps on each (from
-   the null fit, the first step from the shared information) until its bound falls below the
-   best log-likelihood reached so far (it cannot win) or it converges.
+3. Candidates in order of their score statistic at the null fit: Newton steps on each until
+   its bound falls below the best log-likelihood reached so far (it cannot win) or it
+   converges. The first candidate starts at the null fit (its first step from the shared
+   information); the others at the maximum, over their own coefficients, of the quadratic
+   expansion of the log-likelihood at an anchor: the shared design evaluated once more at the
+   best estimate so far (for FP2, first the best FP1's). Most candidates' curves lie close to
+   the anchor's, so that start is close to their estimate and one evaluation decides.
 4. The candidates whose bound is within a rounding margin of the best are fitted in full, the
    usual way; the best of those wins, ties going to the earlier candidate in the usual order,
    as in the exhaustive search. Should a full fit fail, the remaining candidates are checked
@@ -55,6 +59,7 @@ if TYPE_CHECKING:
 _MARGIN = 1e-7
 _MAX_STEPS = 30
 _MAX_HALVINGS = 20
+_REANCHOR = 2
 ENV_SWITCH = "UNBIN_FP_SEARCH"
 
 
@@ -120,6 +125,11 @@ def _fp_columns(x: np.ndarray, variable: str) -> tuple[np.ndarray, dict[tuple[fl
 class _Bound:
     lower: float  # a log-likelihood the candidate reaches
     upper: float  # no coefficients give it more (inf: not bounded)
+    at: np.ndarray | None = None  # where it reaches ``lower`` (the shared design's coefficients)
+
+
+# The shared design's log-likelihood, score and information at one of its coefficient vectors.
+_Point = tuple[np.ndarray, tuple[float, np.ndarray, np.ndarray]]
 
 
 class _Screen:
@@ -142,6 +152,7 @@ class _Screen:
             self.Z = D.X1  # (m, 1 + k): ones, then the columns, sorted and standardised
             theta = np.concatenate([np.zeros(self.n_fp), adj_coef * scale[self.n_fp:]])
             self.theta0 = theta
+            self.D = D
             self.shared = self._cox_evaluate(D, theta)
         else:
             from ..models._glm import standardise
@@ -203,25 +214,54 @@ class _Screen:
             return lo >= -1.0
         return hi - lo <= 1.0  # Cox: the change against each risk set's mean
 
-    def bound(self, fp_cols: list[int], incumbent: float) -> _Bound:
-        """Newton steps on one candidate from the null fit until its upper bound falls below
-        ``incumbent`` less the margin, or it converges."""
+    def at(self, theta: np.ndarray) -> _Point:
+        """The shared design evaluated at ``theta`` (every candidate's score and information
+        there are parts of it)."""
+        if self.family == "survival":
+            return theta, self._cox_evaluate(self.D, theta)
+        return theta, self._glm_evaluate(self.Z, theta)
+
+    def _evaluate(self, Zc: np.ndarray, D: object, theta: np.ndarray,
+                  ) -> tuple[float, np.ndarray, np.ndarray]:
+        if self.family == "survival":
+            return self._cox_evaluate(D, theta)
+        return self._glm_evaluate(Zc, theta)
+
+    def bound(self, fp_cols: list[int], incumbent: float, anchor: _Point | None = None,
+              ) -> _Bound:
+        """Newton steps on one candidate until its upper bound falls below ``incumbent`` less
+        the margin, or it converges. The first step is taken from the null fit with the shared
+        score and information; with an ``anchor`` (the shared design at another candidate's
+        estimate), from the maximum of the log-likelihood's quadratic expansion there over
+        this candidate's coefficients (one Newton step from a point outside its span: close
+        to its estimate when its curve is close to the anchor's)."""
         idx = self.coefficients(fp_cols)
         ll, U_all, I_all = self.shared
         U, I_ = U_all[idx], I_all[np.ix_(idx, idx)]
         if self.family == "continuous":
             return self._least_squares_bound(ll, U, I_)
         theta = self.theta0[idx]
+        D: object = None
         if self.family == "survival":
             Zc = np.ascontiguousarray(self.Z[:, [0, *(idx + 1)]])
             D = self._design_of.of(Zc, self.layout.we, np.zeros(idx.size))
         else:
             Zc = np.ascontiguousarray(self.Z[:, idx])
+        if anchor is not None:
+            theta_a, (_, U_a, I_a) = anchor
+            start = _solve(I_a[np.ix_(idx, idx)], U_a[idx] + I_a[idx] @ theta_a)
+            if start is not None:
+                ll_s, U_s, I_s = self._evaluate(Zc, D, start)
+                if np.isfinite(ll_s) and ll_s >= ll:
+                    theta, ll, U, I_ = start, ll_s, U_s, I_s
         out = _Bound(-np.inf, np.inf)
         for _ in range(_MAX_STEPS):
             if not np.isfinite(ll):
                 return out
-            out.lower = max(out.lower, ll)
+            if ll > out.lower:
+                out.lower = ll
+                out.at = np.zeros_like(self.theta0)
+                out.at[idx] = theta
             step = _solve(I_, U)
             if step is None:
                 return out
@@ -235,10 +275,7 @@ class _Screen:
                 return out  # converged: lower and upper agree
             for _halving in range(_MAX_HALVINGS):
                 trial = theta + step
-                if self.family == "survival":
-                    ll_next, U_next, I_next = self._cox_evaluate(D, trial)
-                else:
-                    ll_next, U_next, I_next = self._glm_evaluate(Zc, trial)
+                ll_next, U_next, I_next = self._evaluate(Zc, D, trial)
                 if np.isfinite(ll_next) and ll_next >= ll - _margin(ll):
                     break
                 step = step / 2.0
@@ -289,8 +326,11 @@ def screened_best(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable:
     X_fp, where = _fp_columns(x, variable)
     X_adj, _ = design(f.df, x, (), adjust, f.columns)
     screen = _Screen(family, outcome, X_fp, X_adj, null)
+    best_at: np.ndarray | None = None
+    incumbent_fp1 = -np.inf
     shape = FPTerm.from_data(variable, x, (1.0,))
     best: Best = {}
+    anchor: _Point | None = None
     for degree, powers_set in ((1, FP1_SET), (2, FP2_SET)):
         # FPTerm.from_data's shift and scale, computed once (each call sorts x)
         terms = [FPTerm(variable, tuple(float(p) for p in powers), shape.shift, shape.scale)
@@ -298,10 +338,23 @@ def screened_best(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable:
         order = sorted(range(len(terms)), key=lambda i: -screen.score_statistic(where[terms[i].powers]))
         bounds: dict[int, _Bound] = {}
         incumbent = -np.inf
+        # Candidates start from the quadratic expansion at an anchor: the first candidate's
+        # estimate (FP2: the best FP1's), moved (up to _REANCHOR times) to a candidate that
+        # does clearly better, whose curve the others are then likely to be near.
+        anchor_ll, anchors = -np.inf, 0
+        if degree == 2 and best_at is not None:
+            anchor, anchor_ll, anchors = screen.at(best_at), incumbent_fp1, 1
+        best_at = None
         for i in order:
-            b = screen.bound(where[terms[i].powers], incumbent)
+            b = screen.bound(where[terms[i].powers], incumbent, anchor)
             bounds[i] = b
-            incumbent = max(incumbent, b.lower)
+            if b.lower > incumbent:
+                incumbent, best_at = b.lower, b.at
+            if (family != "continuous" and best_at is not None and anchors <= _REANCHOR
+                    and (anchors == 0 or incumbent > anchor_ll + 1.0)):
+                anchor, anchor_ll = screen.at(best_at), incumbent
+                anchors += 1
+        incumbent_fp1 = incumbent
         fitted: dict[int, FitResult] = {}
         while True:
             ok = [r.loglik for r in fitted.values() if r.ok]
