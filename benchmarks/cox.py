@@ -97,6 +97,7 @@ def measure(
     repeats: int = 3,
     lifelines: bool = True,
     memory: bool = True,
+    clock: str = "wall",
 ) -> dict[str, Any]:
     """One size: unbin and (optionally) lifelines, timed in this process."""
     X, time_, event = simulate(n, p, seed, time_unit, raw_basis)
@@ -105,13 +106,14 @@ def measure(
     times = []
     fit = None
     for _ in range(max(1, repeats)):
-        seconds, fit = timed(run_unbin)
+        seconds, fit = timed(run_unbin, clock)
         times.append(seconds)
     assert fit is not None
     row: dict[str, Any] = {
         "n": n,
         "p": p,
         "time_unit": time_unit,
+        "clock": clock,
         "events": int(event.sum()),
         "unbin_seconds": statistics.median(times),
         "unbin_iterations": fit.iterations,
@@ -134,7 +136,7 @@ def measure(
         run_ref = lambda: CoxPHFitter().fit(frame, "time", "event")  # noqa: E731
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            seconds, ref = timed(run_ref)
+            seconds, ref = timed(run_ref, clock)
         row["lifelines_converged"] = not any("converge" in str(w.message).lower() for w in caught)
         row["lifelines_loglik_minus_unbin"] = float(ref.log_likelihood_ - fit.loglik)
         row["lifelines_seconds"] = seconds
@@ -187,6 +189,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--force-lifelines", action="store_true", help="run lifelines at any n")
     parser.add_argument("--no-memory", action="store_true", help="skip the tracemalloc runs")
     parser.add_argument("--seed", type=int, default=2011)
+    parser.add_argument("--clock", choices=("wall", "cpu"), default="wall",
+                        help="wall: elapsed seconds; cpu: this process' CPU seconds (steadier on "
+                             "a shared machine)")
     args = parser.parse_args(argv)
     if args.json and args.n is None:
         parser.error("--json needs --n")
@@ -201,6 +206,7 @@ def main(argv: list[str] | None = None) -> int:
             repeats=args.repeats,
             lifelines=args.force_lifelines or n <= args.lifelines_max_n,
             memory=not args.no_memory,
+            clock=args.clock,
         )
 
     if args.n is not None:

@@ -146,3 +146,31 @@ def test_survival_horizon_outside_follow_up_is_noted(tmp_path: Path) -> None:
     rf = risk_fit(r, f, risk_scale(r.analysis, spec))
     assert "no event before the horizon" in rf.note
     assert np.all(rf.risk == 0)
+
+
+def test_cumhaz_at_equals_a_per_stratum_step_lookup() -> None:
+    """``cumhaz_at`` against the step function read stratum by stratum (brute force): 0
+    before a stratum's first event time, held at its last value past its last one, 0 for a
+    stratum without events; with the strata whose baseline is held or empty named."""
+    from unbin.refit.risk import cumhaz_at
+
+    rng = np.random.default_rng(8)
+    base = pd.concat([
+        pd.DataFrame({"stratum": s, "time": np.sort(rng.uniform(0, top, k)),
+                      "cumhaz": np.cumsum(rng.uniform(0.01, 0.1, k))})
+        for s, top, k in ((4, 10.0, 7), (1, 3.0, 5), (2, 8.0, 1), (7, 20.0, 4))])
+    labels = rng.choice([1, 2, 3, 4, 7], 300)  # stratum 3 has no event time
+    for horizon in (0.5, 2.0, 5.0, 9.0, 25.0):
+        h0, held, empty = cumhaz_at(base, labels, labels.size, horizon)
+        expect = np.zeros(labels.size)
+        want_held = []
+        for s in (1, 2, 4, 7):
+            part = base[base["stratum"] == s]
+            before = part[part["time"] <= horizon]
+            if len(before):
+                expect[labels == s] = before["cumhaz"].iloc[-1]
+                if horizon > part["time"].max():
+                    want_held.append(str(s))
+        np.testing.assert_array_equal(h0, expect)
+        assert held == want_held
+        assert empty == [str(v) for v in np.unique(labels[expect == 0])]

@@ -55,8 +55,15 @@ from scipy import special
 
 from ..models import Outcome, fit
 from ..models.base import FitResult
-from ..models.cox import baseline_cumhaz, concordance, concordance_order, prepare_layout
+from ..models.cox import (
+    baseline_cumhaz,
+    concordance,
+    concordance_order,
+    prepare_layout,
+    refit_near,
+)
 from ..models.discrimination import auc
+from ..models.survival import cox_layout
 from ..models.weighted import WeightedGLM, resample_weights, weighted_cox_designs
 from ..refit.analysis import Refit, adjustment_terms, design
 from ..refit.risk import cumhaz_at, horizon_for, link, risk_scale
@@ -144,7 +151,12 @@ class _Sample:
         if self._outcome is None:  # one Outcome, so its cached layout serves every model
             self._outcome = Outcome("survival", self.y, time=self.time, entry=self.entry,
                                     strata=self.strata)
-        res = fit("survival", (z - z.mean())[:, None], self._outcome, ("z",))
+        zc = (z - z.mean())[:, None]
+        if self.y.any():  # from a slope of 1, which the replicate models are near
+            near = refit_near(zc, cox_layout(self._outcome), [1.0])
+            if near is not None:
+                return float(near[0])
+        res = fit("survival", zc, self._outcome, ("z",))
         return float(res.coef[0]) if res.ok else float("nan")
 
 

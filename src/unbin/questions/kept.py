@@ -17,8 +17,9 @@ as in the full sample (the spline was fixed before the outcome was seen; the cut
 
 Refits: the linear, logistic and Poisson models by the vectorised Newton solver on frequency
 weights (``unbin.models.weighted.WeightedGLM``), started at the full-sample estimate; Cox models
-by ``unbin.models.cox.fit_cox`` (Efron ties) on the drawn rows repeated as often as drawn, started
-there too (a repeated row counts as tied events, as in the full-sample likelihood). The replicate
+on the drawn rows repeated as often as drawn (Efron ties), started there too, by chord steps
+(``unbin.models.cox.refit_near_loglik``; ``unbin.models.cox.fit_cox`` where they do not settle;
+a repeated row counts as tied events, as in the full-sample likelihood). The replicate
 log-likelihoods are the frequency-weighted ones: logistic sum w (y eta - log(1 + e^eta)); Poisson
 sum w (y eta - mu) (the log y! term cancels in the LR); linear -N/2 log(RSS / N) with N = sum w
 and RSS the weighted residual sum of squares (the maximum-likelihood variance, as the full-sample
@@ -97,13 +98,20 @@ def glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
 
 
 def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray) -> list[np.ndarray]:
-    from ..models.cox import fit_cox
+    from ..models.cox import fit_cox, refit_near_loglik
 
     out = [np.full(len(W), np.nan) for _ in models]
     for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
         for j, mod in enumerate(models):
+            Xm = mod.X[m]
+            # chord steps from the full-sample estimate (one information evaluation); the
+            # full fit where they do not settle (or the model has no columns)
+            near = refit_near_loglik(Xm, layout, mod.res.coef)
+            if near is not None:
+                out[j][b] = near[1]
+                continue
             try:
-                f = fit_cox(mod.X[m], time, event, entry=entry, strata=strata,
+                f = fit_cox(Xm, time, event, entry=entry, strata=strata,
                             init=mod.res.coef, layout=layout)
             except ValueError:
                 continue

@@ -19,7 +19,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from ..consortium.basis import CommonBasis, combine, sample_summary
 from ..data import Sample
@@ -35,9 +34,9 @@ from ..terms import (
     Term,
     default_knots,
 )
-from ..terms.fp import FP1_SET, FP2_SET
 from ..terms.legacy import legacy_term
 from ..terms.roles import variable_role
+from .fp_selection import select_fp
 from .modifier import modifier_term
 
 ADJUSTMENTS = ("legacy", "continuous")
@@ -289,51 +288,6 @@ def test_spline_detail(term: SplineTerm) -> str:
     """The test spline's description with its knots (what the information table cites)."""
     knots = ", ".join(f"{k:.4g}" for k in term.knots)
     return f"restricted cubic spline, {len(term.knots)} fixed knots at {knots}"
-
-
-def select_fp(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable: str, alpha: float,
-              null: FitResult, linear: FitResult) -> tuple[list[FormFit], FormFit]:
-    """Function selection procedure (closed test; Royston & Sauerbrei 2008): FP2 vs null (4 df),
-    FP2 vs linear (3 df), FP2 vs FP1 (2 df). Returns the best FP1/FP2 fits and the chosen one."""
-    best: dict[int, tuple[FPTerm, FitResult]] = {}
-    for degree, powers_set in ((1, FP1_SET), (2, FP2_SET)):
-        for powers in powers_set:
-            term = FPTerm.from_data(variable, x, powers)
-            res = f.run((term,), adjust)
-            if res.ok and (degree not in best or res.loglik > best[degree][1].loglik):
-                if degree in best:
-                    f.drop_predictor((best[degree][0],), adjust)
-                best[degree] = (term, res)
-            else:
-                f.drop_predictor((term,), adjust)
-    if 2 not in best or 1 not in best:
-        msg = "no fractional polynomial could be fitted (every candidate failed)"
-        failed = failed_fit(f.r.family, null.names, null.n, null.events, msg)
-        return [], FormFit("fp", "", (), adjust, failed, "FP: failed")
-    rows: list[FormFit] = []
-    for degree in (1, 2):
-        term, res = best[degree]
-        rows.append(FormFit(f"fp{degree}", "", (term,), adjust, with_powers_counted(res, term),
-                            term.describe(), False))
-    dev = {k: -2 * v[1].loglik for k, v in best.items()}
-    p_null = stats.chi2.sf(-2 * null.loglik - dev[2], 4)
-    p_lin = stats.chi2.sf(-2 * linear.loglik - dev[2], 3)
-    p_fp1 = stats.chi2.sf(dev[1] - dev[2], 2)
-    tests = f"closed test p: FP2 vs null {p_null:.3g}, vs linear {p_lin:.3g}, vs FP1 {p_fp1:.3g}"
-    if p_null >= alpha:
-        chosen = FormFit("fp", "", (), adjust, null, f"FP: no association ({tests})")
-    elif p_lin >= alpha:
-        chosen = FormFit("fp", "", (LinearTerm(variable),), adjust, linear,
-                         f"FP: linear ({tests})")
-    elif p_fp1 >= alpha:
-        term, res = best[1]
-        chosen = FormFit("fp", "", (term,), adjust, with_powers_counted(res, term),
-                         f"{term.describe()} ({tests})")
-    else:
-        term, res = best[2]
-        chosen = FormFit("fp", "", (term,), adjust, with_powers_counted(res, term),
-                         f"{term.describe()} ({tests})")
-    return rows, chosen
 
 
 def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,

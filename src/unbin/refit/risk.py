@@ -170,16 +170,27 @@ def cumhaz_at(base: pd.DataFrame, strata: np.ndarray | None, n: int,
     """H0_s(horizon) for each of ``n`` rows from a :func:`unbin.models.cox.baseline_cumhaz` table
     (step function; 0 before the stratum's first event time, held at its last value past the
     last one), with the strata whose baseline is held and those with no event by the horizon."""
-    h0 = np.zeros(n)
     labels = np.zeros(n, dtype=np.int64) if strata is None else np.asarray(strata)
     held: list[str] = []
-    for lab, part in base.groupby("stratum", sort=True):
-        t = part["time"].to_numpy(float)
-        pos = int(np.searchsorted(t, horizon, side="right")) - 1
+    # the table's rows run by stratum, then time (one block of event times per stratum)
+    st = base["stratum"].to_numpy()
+    t, ch = base["time"].to_numpy(float), base["cumhaz"].to_numpy(float)
+    order = np.argsort(st, kind="stable")
+    st, t, ch = st[order], t[order], ch[order]
+    uniq, first = np.unique(st, return_index=True)
+    ends = np.r_[first[1:], st.size]
+    value = np.zeros(uniq.size)
+    for j, (lab, a, b) in enumerate(zip(uniq, first, ends, strict=True)):
+        pos = int(np.searchsorted(t[a:b], horizon, side="right")) - 1
         if pos >= 0:
-            h0[labels == lab] = float(part["cumhaz"].to_numpy(float)[pos])
-            if horizon > t[-1]:
+            value[j] = ch[a + pos]
+            if horizon > t[b - 1]:
                 held.append(str(lab))
+    h0 = np.zeros(n)
+    if uniq.size:
+        at = np.minimum(np.searchsorted(uniq, labels), uniq.size - 1)
+        found = uniq[at] == labels
+        h0[found] = value[at[found]]
     empty = [str(v) for v in np.unique(labels[h0 == 0])]
     return h0, held, empty
 

@@ -42,7 +42,7 @@ to try (iteration limit, singular information, diverging coefficient, non-finite
 
 from .baseline import baseline_cumhaz, predict_risk
 from .concordance import TimeOrder, concordance, concordance_order
-from .fit import CoxFit, fit_cox, refit_near
+from .fit import CoxFit, fit_cox, refit_near, refit_near_loglik
 from .layout import Layout, prepare_layout
 
 __all__ = [
@@ -56,4 +56,5 @@ __all__ = [
     "predict_risk",
     "prepare_layout",
     "refit_near",
+    "refit_near_loglik",
 ]

@@ -383,6 +383,23 @@ def refit_near(
     predictor by more than ``100 * tol``). Returns None when it does not settle, the likelihood
     falls or the information is singular: the caller then fits with ``fit_cox``.
     """
+    out = _near(X, layout, init, ties, tol, max_iter, False)
+    return None if out is None else out[0]
+
+
+def refit_near_loglik(
+    X: Any, layout: Layout, init: Any, *, ties: str = "efron", tol: float = 1e-9,
+    max_iter: int = 50,
+) -> tuple[np.ndarray, float] | None:
+    """:func:`refit_near` with the log partial likelihood at the estimate (evaluated there,
+    not predicted), for refits whose likelihood is what is wanted (the bootstrap of the
+    information kept)."""
+    return _near(X, layout, init, ties, tol, max_iter, True)
+
+
+def _near(
+    X: Any, layout: Layout, init: Any, ties: str, tol: float, max_iter: int, with_loglik: bool,
+) -> tuple[np.ndarray, float] | None:
     efron = _efron(ties)
     Xa = _design(X)
     _check_finite("X", Xa)
@@ -405,7 +422,9 @@ def refit_near(
         if not np.isfinite(step).all():
             return None
         if _settled(D, step, tol):
-            return np.asarray((beta + step) / scale)
+            beta = beta + step
+            ll_end = _evaluate(L, D, beta, efron, 0)[0] if with_loglik else float("nan")
+            return np.asarray(beta / scale), float(ll_end)
         beta = beta + step
         ll_next, score, _ = _evaluate(L, D, beta, efron, 1)
         if not np.isfinite(ll_next) or ll_next < ll - tol * max(1.0, abs(ll)):

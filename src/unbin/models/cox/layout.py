@@ -37,6 +37,7 @@ class Layout:
     tie_ev: np.ndarray  # positions (in kept rows) of the events at those times, grouped
     tie_grp: np.ndarray  # index into tie_k of each event in tie_ev
     tie_f: np.ndarray  # l / d_k for each event in tie_ev (Efron), l = 0 .. d_k - 1
+    tie_at: np.ndarray  # event-time index of each event in tie_ev (tie_k[tie_grp])
     tie_wavg: np.ndarray  # wavg of the event time of each event in tie_ev
     tie_op: sparse.csr_matrix  # (T, m): 1 for the events at tie_k
     b_idx: np.ndarray  # b_i + 1 (index into a zero-padded cumulative array)
@@ -269,6 +270,7 @@ def _prepare(
         tie_ev=ties.ev,
         tie_grp=ties.grp,
         tie_f=ties.frac,
+        tie_at=ties.at,
         tie_wavg=wavg[ties.at],
         tie_op=ties.op,
         b_idx=b + 1,

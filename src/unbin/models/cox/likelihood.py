@@ -74,7 +74,7 @@ def _evaluate(
         if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
             tied_sums = _scaled(L, L.tie_op, r) @ X1 if derivs else L.tie_op @ r
             t0 = tied_sums[:, 0] if derivs else tied_sums
-            den = s0[L.tie_k][L.tie_grp] - L.tie_f * t0[L.tie_grp]
+            den = s0[L.tie_at] - L.tie_f * t0[L.tie_grp]
             loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
         else:  # Breslow, or no tied events: one term per event time
             loglik -= float(L.wsum @ log_s0)
@@ -87,8 +87,10 @@ def _evaluate(
         c = L.wsum_untied / s0
         a = L.wsum_untied / s0**2
         inv = 1.0 / den
-        c[L.tie_k] = np.bincount(L.tie_grp, weights=L.tie_wavg * inv, minlength=T)
-        bk = np.bincount(L.tie_grp, weights=L.tie_wavg * L.tie_f * inv, minlength=T)
+        w_inv = L.tie_wavg * inv
+        fw_inv = L.tie_f * w_inv
+        c[L.tie_k] = np.bincount(L.tie_grp, weights=w_inv, minlength=T)
+        bk = np.bincount(L.tie_grp, weights=fw_inv, minlength=T)
     else:
         c = L.wsum / s0
         a = c / s0
@@ -102,14 +104,19 @@ def _evaluate(
     score = D.xwe - gram[1:, 0]
     S1 = sums[1:]
     if efron_terms:
-        # each tied event's risk-set mean (S1 - (l/d) T1) / den, times sqrt(wavg)
-        tk = L.tie_k[L.tie_grp]
-        mean = S1[:, tk] - L.tie_f * tied_sums[L.tie_grp, 1:].T
-        mean *= inv * np.sqrt(L.tie_wavg)
-    S1 *= np.sqrt(a)
-    info = gram[1:, 1:] - S1 @ S1.T
-    if efron_terms:
-        info -= mean @ mean.T
+        # Each tied event's risk-set mean is (S1_k - f T1_k) / den (f = l/d), so the sum over
+        # the d_k events of wavg * mean mean' is, per tied event time, S1 S1' a0 - (S1 T1' +
+        # T1 S1') a1 + T1 T1' a2 with a_j = sum over its events of wavg f^j / den^2: three
+        # sums per tied event time instead of a p-vector per tied event.
+        a0 = np.bincount(L.tie_grp, weights=w_inv * inv, minlength=T)
+        a1 = np.bincount(L.tie_grp, weights=fw_inv * inv, minlength=T)
+        a2 = np.bincount(L.tie_grp, weights=fw_inv * L.tie_f * inv, minlength=T)
+        a[L.tie_k] = a0
+        T1 = tied_sums[:, 1:]  # (T, p)
+        cross = (S1[:, L.tie_k] * a1) @ T1
+        info = gram[1:, 1:] - (S1 * a) @ S1.T + cross + cross.T - (T1.T * a2) @ T1
+    else:
+        info = gram[1:, 1:] - (S1 * a) @ S1.T
     info = (info + info.T) / 2.0
     return loglik, score, info
 
