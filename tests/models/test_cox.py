@@ -19,6 +19,7 @@ import statsmodels.api as sm
 from lifelines import CoxPHFitter, CoxTimeVaryingFitter
 from lifelines.datasets import load_rossi
 from lifelines.utils import concordance_index
+from scipy import stats
 
 from unbin.models.base import Outcome
 from unbin.models.cox import (
@@ -388,6 +389,32 @@ def test_c_index_is_computed_once_per_linear_predictor(
     assert len(calls) == 1
     assert c_index(outcome, lp.copy()) == pytest.approx(ref, abs=1e-12)
     assert len(calls) == 2
+
+
+@pytest.mark.parametrize("family", ["survival", "binary"])
+def test_c_index_counts_rounding_level_differences_as_ties(family: str) -> None:
+    """A linear predictor with many exact ties, and the same predictor moved by rounding-level
+    amounts (~1e-15, what another order of operations gives): the same C-index, equal to
+    X
+    (binary) on the exactly tied scores, ties counting one half."""
+    rng = np.random.default_rng(21)
+    n = 600
+    lp = rng.integers(0, 6, n) * 0.1 + rng.integers(0, 3, n) * 0.3  # sums tie exactly or nearly
+    nudged = lp + rng.choice([-1.0, 0.0, 1.0], n) * 4e-16 * np.maximum(np.abs(lp), 1)
+    assert (nudged != lp).sum() > 100
+    t = rng.exponential(1 / np.exp(lp))
+    e = (rng.random(n) < 0.7).astype(float)
+    exact = np.round(lp, 12)
+    if family == "survival":
+        outcome = Outcome("survival", e, time=t)
+        ref = concordance_index(t, -exact, e)  # lifelines, ties one half
+    else:
+        outcome = Outcome("binary", e)
+        ranks = stats.rankdata(exact)  # Mann-Whitney: ties get average ranks (scipy)
+        n1 = e.sum()
+        ref = (ranks[e > 0].sum() - n1 * (n1 + 1) / 2) / (n1 * (n - n1))
+    assert c_index(outcome, lp) == pytest.approx(ref, abs=1e-12)
+    assert c_index(outcome, nudged) == pytest.approx(ref, abs=1e-12)
 
 
 def _brute_c(t: np.ndarray, s: np.ndarray, e: np.ndarray, entry: np.ndarray | None = None,

@@ -48,21 +48,28 @@ def matched_auc(y: np.ndarray, score: np.ndarray, sets: np.ndarray) -> float:
 
 _MEMO = "c_index"
 _TIME_ORDER = "concordance_order"
+# Linear predictors are compared to this many decimals: two rows whose predictors differ by less
+# are tied. Differences that small are floating-point rounding (the same model reached by another
+# order of operations moves a predictor by ~1e-15), and an exact comparison would let them turn
+# a tie into an ordered pair, so that the C-index of one fit depended on how it was computed.
+SCORE_DECIMALS = 10
 
 
 def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
     """AUC (binary) or Harrell's C (survival; within strata, pairs at risk together) of the
-    linear predictor ``lp`` of a fit to ``outcome``'s rows; NaN for other families or without ``lp``. Computed once per ``lp``."""
+    linear predictor ``lp`` of a fit to ``outcome``'s rows, compared to ``SCORE_DECIMALS``
+    decimals; NaN for other families or without ``lp``. Computed once per ``lp``."""
     if lp is None or outcome.family not in ("binary", "survival"):
         return float("nan")
     memo: dict[int, tuple[np.ndarray, float]] = outcome.cache.setdefault(_MEMO, {})
     hit = memo.get(id(lp))
     if hit is not None and hit[0] is lp:
         return hit[1]
+    score = np.round(np.asarray(lp, dtype=float), SCORE_DECIMALS)
     if outcome.family == "binary" and outcome.strata is not None:
-        value = matched_auc(outcome.y, lp, outcome.strata)
+        value = matched_auc(outcome.y, score, outcome.strata)
     elif outcome.family == "binary":
-        value = auc(outcome.y, lp)
+        value = auc(outcome.y, score)
     else:
         from .cox import concordance, concordance_order
 
@@ -72,6 +79,6 @@ def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
         if kept is None or any(a is not b for a, b in zip(kept[0], source, strict=True)):
             order = concordance_order(outcome.time, outcome.y, outcome.entry, outcome.strata)
             kept = outcome.cache[_TIME_ORDER] = (source, order)
-        value = float(concordance(outcome.time, lp, outcome.y, time_order=kept[1]))
+        value = float(concordance(outcome.time, score, outcome.y, time_order=kept[1]))
     memo[id(lp)] = (lp, value)
     return value
