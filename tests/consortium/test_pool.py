@@ -16,6 +16,7 @@ from statsmodels.stats.meta_analysis import combine_effects
 from unbin.consortium.pool import (
     SINGLE,
     _effect_columns,
+    group_signatures,
     harmonisation,
     multivariate_curves,
     pool_bundles,
@@ -103,8 +104,8 @@ def _moments(Y: np.ndarray, S: np.ndarray) -> dict[str, object]:
 
 
 def _bundles() -> dict[str, dict[str, pd.DataFrame]]:
-    """Three cohorts; analyses listed in a different order in each; cohort C has no
-    coefficients table at all."""
+    """Three cohorts; C lists its analyses and contrasts in reverse, B its coefficients; C
+    has no coefficients table at all."""
     rng = np.random.default_rng(12)
     xs = np.array([1.0, 2.0, 3.0])
     grid = np.linspace(0.5, 4.5, 5)
@@ -113,21 +114,25 @@ def _bundles() -> dict[str, dict[str, pd.DataFrame]]:
         parts = [_curves(c, a, xs, np.array([-.2, 0, .3]) + 0.1 * i * (xs - 2) + j,
                          np.array([.1, 0, .1]) * (1 + i / 4), np.ones(3, bool))
                  for j, a in enumerate(("a", "b"))]
-        parts.append(_curves(c, "a", grid, 0.2 * (grid - 2.5), np.full(5, 0.1),
-                             np.ones(5, bool), form="common_spline", ref=2.5))
-        if i % 2:
+        parts += [_curves(c, a, grid, 0.2 * (grid - 2.5), np.full(5, 0.1), np.ones(5, bool),
+                          form="common_spline", ref=2.5) for a in ("a", "b")]
+        contrasts = [_contrast(c, "legacy", "group", "hi vs lo", 0.4 + 0.2 * i, 0.1),
+                     _contrast(c, "spline", "common quartiles", "common Q3 vs Q1",
+                               0.3 - 0.1 * i, 0.08, 6.5, 3.5)]
+        if c == "C":
             parts.reverse()
+            contrasts.reverse()
         bundle = {"curves": pd.concat(parts, ignore_index=True),
-                  "contrasts": pd.DataFrame([
-                      _contrast(c, "legacy", "group", "hi vs lo", 0.4 + 0.2 * i, 0.1),
-                      _contrast(c, "spline", "common quartiles", "common Q3 vs Q1",
-                                0.3 - 0.1 * i, 0.08, 6.5, 3.5)]),
+                  "contrasts": pd.DataFrame(contrasts),
                   "counts": pd.DataFrame(),
                   "cuts": pd.DataFrame(_cuts(c, [5.0], 5.0 + i))}
         if c != "C":
-            A = rng.normal(size=(3, 6))
-            bundle["coefficients"] = _coefs(c, "a", np.array([0.5, -0.3, 0.2]) * (1 + i),
-                                            A @ A.T * 0.01, KNOTS)
+            coefs = []
+            for a in ("b", "a") if c == "B" else ("a", "b"):
+                A = rng.normal(size=(3, 6))
+                coefs.append(_coefs(c, a, np.array([0.5, -0.3, 0.2]) * (1 + i), A @ A.T * 0.01,
+                                    KNOTS))
+            bundle["coefficients"] = pd.concat(coefs, ignore_index=True)
         out[c] = bundle
     return out
 
@@ -138,7 +143,7 @@ def test_tables_have_the_documented_columns_and_do_not_depend_on_the_bundle_orde
     # and numeric columns stored as floats.
     bundles = _bundles()
     out = pool_bundles(bundles)
-    again = pool_bundles({c: bundles[c] for c in "CAB"})
+    again = pool_bundles({c: bundles[c] for c in "CBA"})
     assert set(out["pooled_curves"].columns) == CURVE_COLUMNS
     assert set(out["pooled_effects"].columns) == EFFECT_COLUMNS
     assert set(out["heterogeneity"].columns) == HET_COLUMNS
@@ -282,7 +287,9 @@ def test_pooled_effects_rows_in_full() -> None:
         _contrast("D", "legacy", "group", "hi vs lo", 0.20, 0.11),  # no cuts reported: alone
         _contrast("A", "spline", "common quartiles", "common Q3 vs Q1", 0.30, 0.10, 6.5, 3.5),
         _contrast("B", "spline", "common quartiles", "common Q3 vs Q1", 0.45, 0.08,
-                  6.5 + 3e-10, 3.5),  # the same value up to rounding
+                  6.5 + 3e-10, 3.5 - 3e-10),  # the same values up to rounding
+        _contrast("A", "linear", "common group", "common hi vs lo", np.nan, 0.1, 7.0, 3.0),
+        _contrast("B", "linear", "common group", "common hi vs lo", 0.3, np.inf, 7.0, 3.0),
         _contrast("C", "spline", "common quartiles", "common Q3 vs Q1", np.nan, 0.08, 6.5, 3.5),
         _contrast("D", "spline", "common quartiles", "common Q3 vs Q1", 0.50, 0.0, 6.5, 3.5),
         _contrast("A", "spline", "common group", "common hi vs lo", 0.3, 0.1, 7.0, 3.0),
@@ -297,6 +304,8 @@ def test_pooled_effects_rows_in_full() -> None:
                         + _cuts("B", [40.0], 50.0, "adjustment", "age"))
     eff, het = pooled_effects(pd.DataFrame(rows), cuts)
     assert isinstance(eff.index, pd.RangeIndex) and isinstance(het.index, pd.RangeIndex)
+    assert not (eff["contrast_type"] == "common group").any()  # nothing usable, or alone
+    assert "linear: common hi vs lo" not in set(het["item"])
     single = het[het["status"] == SINGLE].set_index("item")
     assert sorted(single.index) == ["legacy: hi vs lo (cuts at 4)",
                                     "legacy: hi vs lo (cuts not reported)",
@@ -350,6 +359,15 @@ def test_harmonisation_edges() -> None:
     assert isinstance(out.index, pd.RangeIndex) and "index" not in out
     flat = cuts.assign(median=5.0)
     assert harmonisation(flat)["cut_median_correlation"].isna().all()
+
+
+def test_group_signatures_read_exposure_cuts_and_cuts_without_a_role() -> None:
+    # The groups text lists the exposure's cuts in increasing order; adjustment cuts do not
+    # enter it; cuts written without a role column are all the exposure's.
+    cuts = pd.DataFrame(_cuts("A", [6.0, 5.0], 5.0) + _cuts("A", [30.0], 50.0, "adjustment",
+                                                            "age"))
+    assert group_signatures(cuts) == {("A", "a"): "cuts at 5, 6"}
+    assert group_signatures(cuts.iloc[:2].drop(columns="role")) == {("A", "a"): "cuts at 5, 6"}
 
 
 def test_effect_columns_without_limits_use_normal_limits() -> None:
