@@ -141,3 +141,29 @@ def test_quasi_poisson_divides_every_statistic_by_the_pearson_scale(refit_frame:
     assert phi > 1.3  # the gamma frailty makes the counts overdispersed
     assert row["added_lr"] == pytest.approx(2 * (big.llf - legacy.llf) / phi, rel=1e-6)
     assert row["nonlinearity_lr"] == pytest.approx(2 * (test.llf - linear.llf) / phi, rel=1e-6)
+
+
+def test_interaction_with_the_levels_of_a_modifier(refit_frame: Any, one_analysis: Any) -> None:
+    # Reference library: statsmodels GLM Binomial. The LR test of spline x level: the
+    # fixed-knot spline (Harrell's 4 default quantiles) with the level main effect, with and
+    # without the spline's products with the level (3 df); scipy's chi-square for p.
+    df = _binary_frame(11, 800)
+    rng = np.random.default_rng(12)
+    df["g"] = (rng.random(len(df)) < 0.5).astype(float)
+    raw = one_analysis({"type": "binary", "event": "y"}, "x", {"cuts": [50.0]},
+                       continuous={"forms": ["linear"], "spline_knots": [3]})
+    raw["analyses"][0]["by"] = "g"
+    spec, r = refit_frame(df, raw)
+    table = information_table(r, spec).set_index("adjustment")
+    x, y, g = df["x"].to_numpy(), df["y"].to_numpy(), df["g"].to_numpy()
+    s = rcs_columns(x, list(np.quantile(x, QUANTILES[4])))
+    main = _logit(y, np.column_stack([g, s]))
+    full = _logit(y, np.column_stack([g, s, s * g[:, None]]))
+    lr = 2 * (full.llf - main.llf)
+    for coding in ("legacy", "continuous"):
+        row = table.loc[coding]
+        assert row["interaction_lr"] == pytest.approx(lr, rel=1e-6), coding
+        assert row["interaction_df"] == 3
+        assert row["interaction_p"] == pytest.approx(stats.chi2.sf(lr, 3), rel=1e-5)
+    assert np.isnan(table.loc["none", "interaction_lr"])
+    assert table.loc["none", "interaction_detail"] == "no adjustment, so no level main effects"
