@@ -117,6 +117,7 @@ def _bundles() -> dict[str, dict[str, pd.DataFrame]]:
         parts += [_curves(c, a, grid, 0.2 * (grid - 2.5), np.full(5, 0.1), np.ones(5, bool),
                           form="common_spline", ref=2.5) for a in ("a", "b")]
         contrasts = [_contrast(c, "legacy", "group", "hi vs lo", 0.4 + 0.2 * i, 0.1),
+                     _contrast(c, "legacy", "group", "mid vs lo", 0.2 + 0.1 * i, 0.1),
                      _contrast(c, "spline", "common quartiles", "common Q3 vs Q1",
                                0.3 - 0.1 * i, 0.08, 6.5, 3.5)]
         if c == "C":
