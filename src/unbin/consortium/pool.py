@@ -83,7 +83,8 @@ def pooled_curves(curves: pd.DataFrame) -> pd.DataFrame:
         refs = g["x_reference"].round(12).unique()
         if len(refs) != 1:
             raise UnbinError(f"pooling {analysis}: the cohorts' curves use different reference "
-                             f"values {sorted(refs)}; fix continuous.reference_value in the spec.")
+                             f"values {sorted(float(r) for r in refs)}; fix "
+                             "continuous.reference_value in the spec.")
         Y = g.pivot(index="cohort", columns="x", values="estimate")
         S = g.pivot(index="cohort", columns="x", values="se")
         R = g.pivot(index="cohort", columns="x", values="in_range").fillna(False).astype(bool)

@@ -260,9 +260,9 @@ def pool_univariate(y: object, v: object, tau2_method: str = "dl") -> PooledEsti
         raise PoolingInputError("nothing to pool: y and v are empty")
     for i in range(ya.size):
         if not np.isfinite(ya[i]):
-            raise PoolingInputError(f"estimate y of cohort {i} is {ya[i]!r}; it must be finite")
+            raise PoolingInputError(f"estimate y of cohort {i} is {float(ya[i])!r}; it must be finite")
         if not (np.isfinite(va[i]) and va[i] > 0):
-            raise PoolingInputError(_bad_variance_message("variance v", va[i], f"of cohort {i}"))
+            raise PoolingInputError(_bad_variance_message("variance v", float(va[i]), f"of cohort {i}"))
     res = _pool_columns(ya[:, None], va[:, None], np.ones((ya.size, 1), dtype=bool), tau2_method)
     return PooledEstimate(
         k=int(res["k"][0]),
