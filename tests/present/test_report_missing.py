@@ -153,6 +153,10 @@ def test_the_reading_names_the_largest_shift_and_counts_the_inside_estimates() -
                       eff[eff["analysis"] == "cc"].assign(analysis="imp")])
     line = M.twin_reading(same, status, "north", "cc", "imp")
     assert "largest shift is 0%" in line and "11 of 11" in line and ", small against" in line
+    # intervals of zero width: nothing to measure a shift by, and the line says so
+    flat = same.assign(lower=same["estimate"], upper=same["estimate"])
+    assert "no complete-case interval has a width" in M.twin_reading(flat, status, "north",
+                                                                     "cc", "imp")
 
 
 def test_generic_tables_leave_out_grid_rows_and_say_where_they_are() -> None:

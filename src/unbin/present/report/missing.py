@@ -179,6 +179,9 @@ def twin_reading(effects: pd.DataFrame, status: pd.DataFrame, cohort: str, compl
         st = status[(status["cohort"] == cohort) & (status["analysis"] == analysis)]
         return text.count(st["n_used"].iloc[0]) if len(st) and "n_used" in st else text.DASH
 
+    if not both["shift"].notna().any():
+        return (f"{cohort}: {rows(complete)} rows with complete values, {rows(imputed)} with "
+                "imputation; no complete-case interval has a width to measure the shifts by.")
     worst = both.loc[both["shift"].fillna(-1).idxmax()]
     size = ("small against the intervals" if float(worst["shift"]) < SMALL_SHIFT
             else "not small against the intervals: read both analyses")

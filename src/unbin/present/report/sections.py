@@ -464,8 +464,8 @@ class Builder:
                                  self.spec.min_cell)
             if cols:
                 tables.append(records_table(
-                    cols, f"{a.name}: missing values per column, and the columns whose "
-                    "complete-case rows differ most from the dropped rows",
+                    cols, f"{a.name}: share missing and the largest differences, complete "
+                    "vs dropped rows",
                     numeric=["rows", "missing", "share missing", "standardised difference"]))
         blocks = [Block(notes=[MISSING_NOTE], tables=tables)] if tables else []
         for complete, imputed in twins:
