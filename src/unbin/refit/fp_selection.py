@@ -44,9 +44,10 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
-from scipy import linalg, stats
+from scipy import stats
 
 from ..models.base import FitResult, Outcome, failed_fit
+from ..models.cox.fit import newton_step
 from ..terms import FPTerm, LinearTerm, Term
 from ..terms.fp import FP1_SET, FP2_SET, FP_POWERS
 
@@ -249,7 +250,7 @@ class _Screen:
             Zc = np.ascontiguousarray(self.Z[:, idx])
         if anchor is not None:
             theta_a, (_, U_a, I_a) = anchor
-            start = _solve(I_a[np.ix_(idx, idx)], U_a[idx] + I_a[idx] @ theta_a)
+            start = newton_step(I_a[np.ix_(idx, idx)], U_a[idx] + I_a[idx] @ theta_a)
             if start is not None:
                 ll_s, U_s, I_s = self._evaluate(Zc, D, start)
                 if np.isfinite(ll_s) and ll_s >= ll:
@@ -262,7 +263,7 @@ class _Screen:
                 out.lower = ll
                 out.at = np.zeros_like(self.theta0)
                 out.at[idx] = theta
-            step = _solve(I_, U)
+            step = newton_step(I_, U)
             if step is None:
                 return out
             gain = float(U @ step)
@@ -286,7 +287,7 @@ class _Screen:
 
     def _least_squares_bound(self, ll: float, U: np.ndarray, G: np.ndarray) -> _Bound:
         """The linear model's maximum, from the null fit's residual sum of squares: exact."""
-        step = _solve(G, U)
+        step = newton_step(G, U)
         if step is None:
             return _Bound(-np.inf, np.inf)
         N = float(self.y.size if self.freq is None else self.freq.sum())
@@ -299,19 +300,8 @@ class _Screen:
     def score_statistic(self, fp_cols: list[int]) -> float:
         idx = self.coefficients(fp_cols)
         _, U_all, I_all = self.shared
-        step = _solve(I_all[np.ix_(idx, idx)], U_all[idx])
+        step = newton_step(I_all[np.ix_(idx, idx)], U_all[idx])
         return float(U_all[idx] @ step) if step is not None else np.inf
-
-
-def _solve(info: np.ndarray, score: np.ndarray) -> np.ndarray | None:
-    if not (np.isfinite(info).all() and np.isfinite(score).all()):
-        return None
-    try:
-        factor = linalg.cho_factor(info, check_finite=False)
-    except linalg.LinAlgError:
-        return None
-    step = linalg.cho_solve(factor, score, check_finite=False)
-    return step if np.isfinite(step).all() else None
 
 
 def screened_best(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable: str,

@@ -62,7 +62,9 @@ def _singular_message(info: np.ndarray, sd: np.ndarray) -> str:
     )
 
 
-def _solve(info: np.ndarray, score: np.ndarray) -> np.ndarray | None:
+def newton_step(info: np.ndarray, score: np.ndarray) -> np.ndarray | None:
+    """``info⁻¹ score`` by Cholesky, or None when the information is not finite and positive
+    definite or the step is not finite."""
     if not (np.isfinite(info).all() and np.isfinite(score).all()):
         return None
     try:
@@ -124,7 +126,7 @@ def _newton(
     iterations = flat = 0
     last_change = float("nan")
     while True:
-        step = _solve(info, score)
+        step = newton_step(info, score)
         if step is None:
             return _Iterate(beta, ll, score, info, iterations, "singular", last_change)
         if iterations:
@@ -187,7 +189,7 @@ def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndar
     sub_stop = _newton(sub, Dsub, efron, _start(sub, Dsub, efron), 30, 1e-5)
     if sub_stop.status != "converged" or not np.isfinite(sub_stop.beta).all():
         return None
-    next_step = _solve(sub_stop.info, sub_stop.score)
+    next_step = newton_step(sub_stop.info, sub_stop.score)
     if next_step is None or np.abs(next_step).max() > 0.1:  # e.g. a coefficient diverging there
         return None
     return sub_stop.beta, sub_stop.info * (L.wsum.sum() / sub.wsum.sum())
@@ -348,7 +350,7 @@ def _estimate(
     beta, loglik = stop.beta, stop.loglik
     message = _stop_message(stop, max_iter)
     if stop.status == "converged":
-        step = _solve(stop.info, stop.score)
+        step = newton_step(stop.info, stop.score)
         if step is None:
             nan_cov = np.full((scale.size, scale.size), np.nan)
             return beta / scale, nan_cov, loglik, _singular_message(stop.info, sd)
