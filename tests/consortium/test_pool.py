@@ -5,11 +5,10 @@ harmonisation edges, and independence from the order the bundles come in."""
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import pandas as pd
 import pytest
+from bundle_rows import coef_rows, contrast_row, curve_rows, cut_rows, rcs_basis
 from scipy import stats
 from statsmodels.stats.meta_analysis import combine_effects
 
@@ -42,48 +41,6 @@ HET_COLUMNS = {"analysis", "adjustment", "item", "k", "q", "q_df", "q_p", "i2", 
 KNOTS = [1.0, 2.0, 3.0, 4.0]
 
 
-def _curves(cohort: str, analysis: str, xs: np.ndarray, est: np.ndarray, se: np.ndarray,
-            in_range: np.ndarray, form: str = "spline", ref: float = 2.0) -> pd.DataFrame:
-    return pd.DataFrame({"cohort": cohort, "analysis": analysis, "adjustment": "legacy",
-                         "form": form, "x": xs, "x_reference": ref, "in_range": in_range,
-                         "estimate": est, "se": se, "scale": "odds ratio"})
-
-
-def _coefs(cohort: str, analysis: str, b: np.ndarray, V: np.ndarray,
-           knots: list[float]) -> pd.DataFrame:
-    basis = json.dumps([{"term": "spline", "variable": "x", "knots": knots}], sort_keys=True)
-    return pd.DataFrame([{"cohort": cohort, "analysis": analysis, "adjustment": "legacy",
-                          "basis": basis, "row": f"c{i}", "col": f"c{j}", "i": i, "j": j,
-                          "coef": b[i], "cov": V[i, j]}
-                         for i in range(len(b)) for j in range(len(b))])
-
-
-def _contrast(cohort: str, form: str, ctype: str, label: str, est: float, se: float,
-              xv: float = np.nan, xr: float = np.nan) -> dict[str, object]:
-    return {"cohort": cohort, "analysis": "a", "adjustment": "legacy", "form": form,
-            "contrast_type": ctype, "contrast": label, "x_value": xv, "x_reference": xr,
-            "estimate": est, "se": se, "scale": "odds ratio"}
-
-
-def _cuts(cohort: str, cuts: list[float], median: float, role: str = "exposure",
-          variable: str = "x") -> list[dict[str, object]]:
-    return [{"cohort": cohort, "analysis": "a", "variable": variable, "role": role, "cut": c,
-             "percentile": 40.0 + 10 * j, "median": median, "derived_from_data": False}
-            for j, c in enumerate(cuts)]
-
-
-def _rcs(x: np.ndarray, t: np.ndarray) -> np.ndarray:
-    """Restricted cubic spline basis, Durrleman & Simon 1989 (Stat Med 8:551), written out."""
-    k = len(t)
-    cols = [x]
-    for j in range(k - 2):
-        s = (np.maximum(x - t[j], 0) ** 3
-             - np.maximum(x - t[k - 2], 0) ** 3 * (t[k - 1] - t[j]) / (t[k - 1] - t[k - 2])
-             + np.maximum(x - t[k - 1], 0) ** 3 * (t[k - 2] - t[j]) / (t[k - 1] - t[k - 2]))
-        cols.append(s / (t[k - 1] - t[0]) ** 2)
-    return np.column_stack(cols)
-
-
 def _moments(Y: np.ndarray, S: np.ndarray) -> dict[str, object]:
     """Jackson, White & Thompson 2010 (Stat Med 29:1282), written out in numpy."""
     k, p = Y.shape
@@ -111,14 +68,14 @@ def _bundles() -> dict[str, dict[str, pd.DataFrame]]:
     grid = np.linspace(0.5, 4.5, 5)
     out = {}
     for i, c in enumerate("ABC"):
-        parts = [_curves(c, a, xs, np.array([-.2, 0, .3]) + 0.1 * i * (xs - 2) + j,
+        parts = [curve_rows(c, a, xs, np.array([-.2, 0, .3]) + 0.1 * i * (xs - 2) + j,
                          np.array([.1, 0, .1]) * (1 + i / 4), np.ones(3, bool))
                  for j, a in enumerate(("a", "b"))]
-        parts += [_curves(c, a, grid, 0.2 * (grid - 2.5), np.full(5, 0.1), np.ones(5, bool),
+        parts += [curve_rows(c, a, grid, 0.2 * (grid - 2.5), np.full(5, 0.1), np.ones(5, bool),
                           form="common_spline", ref=2.5) for a in ("a", "b")]
-        contrasts = [_contrast(c, "legacy", "group", "hi vs lo", 0.4 + 0.2 * i, 0.1),
-                     _contrast(c, "legacy", "group", "mid vs lo", 0.2 + 0.1 * i, 0.1),
-                     _contrast(c, "spline", "common quartiles", "common Q3 vs Q1",
+        contrasts = [contrast_row(c, "legacy", "group", "hi vs lo", 0.4 + 0.2 * i, 0.1),
+                     contrast_row(c, "legacy", "group", "mid vs lo", 0.2 + 0.1 * i, 0.1),
+                     contrast_row(c, "spline", "common quartiles", "common Q3 vs Q1",
                                0.3 - 0.1 * i, 0.08, 6.5, 3.5)]
         if c == "C":
             parts.reverse()
@@ -126,12 +83,12 @@ def _bundles() -> dict[str, dict[str, pd.DataFrame]]:
         bundle = {"curves": pd.concat(parts, ignore_index=True),
                   "contrasts": pd.DataFrame(contrasts),
                   "counts": pd.DataFrame(),
-                  "cuts": pd.DataFrame(_cuts(c, [5.0], 5.0 + i))}
+                  "cuts": pd.DataFrame(cut_rows(c, [5.0], 5.0 + i))}
         if c != "C":
             coefs = []
             for a in ("b", "a") if c == "B" else ("a", "b"):
                 A = rng.normal(size=(3, 6))
-                coefs.append(_coefs(c, a, np.array([0.5, -0.3, 0.2]) * (1 + i), A @ A.T * 0.01,
+                coefs.append(coef_rows(c, a, np.array([0.5, -0.3, 0.2]) * (1 + i), A @ A.T * 0.01,
                                     KNOTS))
             bundle["coefficients"] = pd.concat(coefs, ignore_index=True)
         out[c] = bundle
@@ -167,11 +124,11 @@ def test_pointwise_rows_at_the_reference_at_one_cohort_and_where_none_counts() -
     # against statsmodels combine_effects (DL; PM with HKSJ) and the prediction interval on
     # t_1 (Higgins, Thompson & Spiegelhalter 2009) written out with scipy.
     xs = np.arange(6.0)
-    a = _curves("A", "a", xs, np.array([-.4, -.2, 0, .3, .5, .1]),
+    a = curve_rows("A", "a", xs, np.array([-.4, -.2, 0, .3, .5, .1]),
                 np.array([.1, .1, 0, .1, .12, .1]), np.array([1, 1, 1, 1, 1, 0], bool))
-    b = _curves("B", "a", xs, np.array([-.1, -.3, 0, .1, .9, .1]),
+    b = curve_rows("B", "a", xs, np.array([-.1, -.3, 0, .1, .9, .1]),
                 np.array([.2, .15, 0, .1, .2, .1]), np.array([0, 1, 1, 1, 1, 0], bool))
-    c = _curves("C", "a", xs, np.array([.3, .4, 0, .2, .2, .1]),
+    c = curve_rows("C", "a", xs, np.array([.3, .4, 0, .2, .2, .1]),
                 np.array([.1, .1, 0, .1, .3, .1]), np.array([0, 1, 0, 1, 0, 0], bool))
     pc = pooled_curves(pd.concat([a, b, c], ignore_index=True))
     assert isinstance(pc.index, pd.RangeIndex)
@@ -205,8 +162,8 @@ def test_pointwise_rows_at_the_reference_at_one_cohort_and_where_none_counts() -
 def test_reference_values_equal_to_rounding_pool_and_different_ones_are_named() -> None:
     xs = np.array([1.0, 2.0, 3.0])
     one = np.ones(3, bool)
-    a = _curves("A", "a", xs, np.array([-.2, 0, .3]), np.array([.1, 0, .1]), one)
-    b = _curves("B", "a", xs, np.array([-.1, 0, .2]), np.array([.1, 0, .1]), one,
+    a = curve_rows("A", "a", xs, np.array([-.2, 0, .3]), np.array([.1, 0, .1]), one)
+    b = curve_rows("B", "a", xs, np.array([-.1, 0, .2]), np.array([.1, 0, .1]), one,
                 ref=2.0 + 2e-13)
     pc = pooled_curves(pd.concat([a, b], ignore_index=True))
     assert (pc["x_reference"] == 2.0).all() and (pc["k"] == 2).all()
@@ -231,15 +188,15 @@ def test_multivariate_rows_and_heterogeneity_rows_in_full() -> None:
             A = rng.normal(size=(3, 6))
             y, S = np.array([0.5, -0.3, 0.2]) + rng.normal(0, 0.3, 3), A @ A.T * 0.01
             knots = [1.0, 2.0, 3.0, 4.0 + i] if analysis == "a" else KNOTS
-            coefs.append(_coefs(c, analysis, y, S, knots))
-            curves.append(_curves(c, analysis, grid, np.zeros(7), np.ones(7), np.ones(7, bool),
+            coefs.append(coef_rows(c, analysis, y, S, knots))
+            curves.append(curve_rows(c, analysis, grid, np.zeros(7), np.ones(7), np.ones(7, bool),
                                   form="common_spline", ref=2.5))
-            curves.append(_curves(c, analysis, grid + 0.1, np.zeros(7), np.ones(7),
+            curves.append(curve_rows(c, analysis, grid + 0.1, np.zeros(7), np.ones(7),
                                   np.ones(7, bool), form="spline", ref=2.5))
             if analysis == "c":
                 Ys.append(y)
                 Ss.append(S)
-    other = _curves("A", "z", grid + 0.2, np.zeros(7), np.ones(7), np.ones(7, bool),
+    other = curve_rows("A", "z", grid + 0.2, np.zeros(7), np.ones(7), np.ones(7, bool),
                     form="common_spline", ref=1.0)
     rows, het = multivariate_curves(pd.concat([other, *curves], ignore_index=True),
                                     pd.concat(coefs, ignore_index=True))
@@ -262,7 +219,7 @@ def test_multivariate_rows_and_heterogeneity_rows_in_full() -> None:
         got = h.loc["c", key]
         assert got == (pytest.approx(value, rel=1e-9, abs=1e-14) if isinstance(value, float)
                        else value), key
-    D = _rcs(grid, np.array(KNOTS)) - _rcs(np.array([2.5]), np.array(KNOTS))
+    D = rcs_basis(grid, np.array(KNOTS)) - rcs_basis(np.array([2.5]), np.array(KNOTS))
     for method, beta, cov, tm in (("multivariate fixed", ref["fe"], ref["fe_cov"], ""),
                                   ("multivariate random", ref["re"], ref["re_cov"], "MM")):
         got = rows[rows["method"] == method]
@@ -282,27 +239,27 @@ def test_pooled_effects_rows_in_full() -> None:
     # Which contrasts pool (module docstring) and every column of the pooled and
     # heterogeneity rows, against statsmodels combine_effects and scipy.
     rows = [
-        _contrast("A", "legacy", "group", "hi vs lo", 0.40, 0.10),
-        _contrast("B", "legacy", "group", "hi vs lo", 0.60, 0.12),
-        _contrast("C", "legacy", "group", "hi vs lo", 0.10, 0.11),  # cuts at 4: alone
-        _contrast("D", "legacy", "group", "hi vs lo", 0.20, 0.11),  # no cuts reported: alone
-        _contrast("A", "spline", "common quartiles", "common Q3 vs Q1", 0.30, 0.10, 6.5, 3.5),
-        _contrast("B", "spline", "common quartiles", "common Q3 vs Q1", 0.45, 0.08,
+        contrast_row("A", "legacy", "group", "hi vs lo", 0.40, 0.10),
+        contrast_row("B", "legacy", "group", "hi vs lo", 0.60, 0.12),
+        contrast_row("C", "legacy", "group", "hi vs lo", 0.10, 0.11),  # cuts at 4: alone
+        contrast_row("D", "legacy", "group", "hi vs lo", 0.20, 0.11),  # no cuts reported: alone
+        contrast_row("A", "spline", "common quartiles", "common Q3 vs Q1", 0.30, 0.10, 6.5, 3.5),
+        contrast_row("B", "spline", "common quartiles", "common Q3 vs Q1", 0.45, 0.08,
                   6.5 + 3e-10, 3.5 - 3e-10),  # the same values up to rounding
-        _contrast("A", "linear", "common group", "common hi vs lo", np.nan, 0.1, 7.0, 3.0),
-        _contrast("B", "linear", "common group", "common hi vs lo", 0.3, np.inf, 7.0, 3.0),
-        _contrast("C", "spline", "common quartiles", "common Q3 vs Q1", np.nan, 0.08, 6.5, 3.5),
-        _contrast("D", "spline", "common quartiles", "common Q3 vs Q1", 0.50, 0.0, 6.5, 3.5),
-        _contrast("A", "spline", "common group", "common hi vs lo", 0.3, 0.1, 7.0, 3.0),
-        _contrast("B", "spline", "common group", "common hi vs lo", 0.3, 0.1, 7.0, 4.0),
-        _contrast("A", "linear", "common quartiles", "common Q3 vs Q1", 0.2, 0.05, 6.5, 3.5),
-        _contrast("B", "linear", "common quartiles", "common Q3 vs Q1", 0.3, 0.05, 6.5, 3.5),
-        _contrast("A", "linear", "per_unit", "per unit", 0.05, 0.01, 5.0, 4.0),
-        _contrast("B", "linear", "per_unit", "per unit", 0.12, 0.02, 4.0, 3.0),
+        contrast_row("A", "linear", "common group", "common hi vs lo", np.nan, 0.1, 7.0, 3.0),
+        contrast_row("B", "linear", "common group", "common hi vs lo", 0.3, np.inf, 7.0, 3.0),
+        contrast_row("C", "spline", "common quartiles", "common Q3 vs Q1", np.nan, 0.08, 6.5, 3.5),
+        contrast_row("D", "spline", "common quartiles", "common Q3 vs Q1", 0.50, 0.0, 6.5, 3.5),
+        contrast_row("A", "spline", "common group", "common hi vs lo", 0.3, 0.1, 7.0, 3.0),
+        contrast_row("B", "spline", "common group", "common hi vs lo", 0.3, 0.1, 7.0, 4.0),
+        contrast_row("A", "linear", "common quartiles", "common Q3 vs Q1", 0.2, 0.05, 6.5, 3.5),
+        contrast_row("B", "linear", "common quartiles", "common Q3 vs Q1", 0.3, 0.05, 6.5, 3.5),
+        contrast_row("A", "linear", "per_unit", "per unit", 0.05, 0.01, 5.0, 4.0),
+        contrast_row("B", "linear", "per_unit", "per unit", 0.12, 0.02, 4.0, 3.0),
     ]
-    cuts = pd.DataFrame(_cuts("A", [5.0, 6.0], 5.1) + _cuts("B", [6.0, 5.0], 4.9)
-                        + _cuts("C", [4.0], 5.5) + _cuts("A", [30.0], 50.0, "adjustment", "age")
-                        + _cuts("B", [40.0], 50.0, "adjustment", "age"))
+    cuts = pd.DataFrame(cut_rows("A", [5.0, 6.0], 5.1) + cut_rows("B", [6.0, 5.0], 4.9)
+                        + cut_rows("C", [4.0], 5.5) + cut_rows("A", [30.0], 50.0, "adjustment", "age")
+                        + cut_rows("B", [40.0], 50.0, "adjustment", "age"))
     eff, het = pooled_effects(pd.DataFrame(rows), cuts)
     assert isinstance(eff.index, pd.RangeIndex) and isinstance(het.index, pd.RangeIndex)
     assert not (eff["contrast_type"] == "common group").any()  # nothing usable, or alone
@@ -351,7 +308,7 @@ def test_harmonisation_edges() -> None:
     # numpy.corrcoef across three cohorts (two distinct cuts, two distinct medians); medians
     # that do not vary leave the correlation undefined (NaN, without a warning); the mean
     # |percentile - 50| by hand.
-    cuts = pd.DataFrame(_cuts("A", [5.0], 4.0) + _cuts("B", [5.0], 6.0) + _cuts("C", [7.0], 6.0))
+    cuts = pd.DataFrame(cut_rows("A", [5.0], 4.0) + cut_rows("B", [5.0], 6.0) + cut_rows("C", [7.0], 6.0))
     cuts["percentile"] = [40.0, 65.0, 52.0]
     out = harmonisation(cuts)
     assert out["cut_median_correlation"].iloc[0] == pytest.approx(
@@ -365,7 +322,7 @@ def test_harmonisation_edges() -> None:
 def test_group_signatures_read_exposure_cuts_and_cuts_without_a_role() -> None:
     # The groups text lists the exposure's cuts in increasing order; adjustment cuts do not
     # enter it; cuts written without a role column are all the exposure's.
-    cuts = pd.DataFrame(_cuts("A", [6.0, 5.0], 5.0) + _cuts("A", [30.0], 50.0, "adjustment",
+    cuts = pd.DataFrame(cut_rows("A", [6.0, 5.0], 5.0) + cut_rows("A", [30.0], 50.0, "adjustment",
                                                             "age"))
     assert group_signatures(cuts) == {("A", "a"): "cuts at 5, 6"}
     assert group_signatures(cuts.iloc[:2].drop(columns="role")) == {("A", "a"): "cuts at 5, 6"}

@@ -4,11 +4,10 @@ pool (and with which cohorts), and the cut-median correlation."""
 
 from __future__ import annotations
 
-import json
-
 import numpy as np
 import pandas as pd
 import pytest
+from bundle_rows import coef_rows, contrast_row, curve_rows, cut_rows, rcs_basis
 from scipy import stats
 from statsmodels.stats.meta_analysis import combine_effects
 
@@ -24,11 +23,8 @@ from unbin.consortium.pool import (
 Z = stats.norm.ppf(0.975)
 
 
-def _curve_rows(cohort: str, xs: np.ndarray, est: np.ndarray, se: np.ndarray,
-                in_range: np.ndarray, form: str = "spline", ref: float = 2.0) -> pd.DataFrame:
-    return pd.DataFrame({"cohort": cohort, "analysis": "a", "adjustment": "legacy", "form": form,
-                         "x": xs, "x_reference": ref, "in_range": in_range, "estimate": est,
-                         "se": se, "scale": "odds ratio"})
+def _cuts(cohort: str, cuts: list[float], median: float) -> list[dict[str, object]]:
+    return cut_rows(cohort, cuts, median, first_percentile=30.0)
 
 
 # --------------------------------------------------------------------------- pointwise: k rule
@@ -40,11 +36,11 @@ def test_pointwise_k_counts_only_cohorts_in_their_own_range() -> None:
     # the contrast is 0 by construction. Values checked against inverse-variance formulas
     # written out here and against statsmodels combine_effects (DL) where k >= 2.
     xs = np.array([0.0, 1.0, 2.0, 3.0, 4.0])
-    a = _curve_rows("A", xs, np.array([-.4, -.2, 0., .3, .5]), np.array([.10, .10, 0., .10, .12]),
+    a = curve_rows("A", "a", xs, np.array([-.4, -.2, 0., .3, .5]), np.array([.10, .10, 0., .10, .12]),
                     np.array([True, True, True, True, True]))
-    b = _curve_rows("B", xs, np.array([-.1, -.3, 0., .1, .9]), np.array([.20, .15, 0., .10, .2]),
+    b = curve_rows("B", "a", xs, np.array([-.1, -.3, 0., .1, .9]), np.array([.20, .15, 0., .10, .2]),
                     np.array([False, True, True, True, True]))
-    c = _curve_rows("C", xs, np.array([.3, .1, 0., np.nan, .2]), np.array([.1, .1, 0., .1, .3]),
+    c = curve_rows("C", "a", xs, np.array([.3, .1, 0., np.nan, .2]), np.array([.1, .1, 0., .1, .3]),
                     np.array([False, True, True, True, False]))  # missing at x=3 (e.g. FP domain)
     pc = pooled_curves(pd.concat([a, b, c], ignore_index=True))
     fixed = pc[pc["method"] == "fixed"].set_index("x")
@@ -76,26 +72,6 @@ def test_pointwise_k_counts_only_cohorts_in_their_own_range() -> None:
 # --------------------------------------------------------------------------- multivariate
 
 
-def _rcs(x: np.ndarray, t: np.ndarray) -> np.ndarray:
-    """Restricted cubic spline basis, Durrleman & Simon 1989 (Stat Med 8:551), written out."""
-    k = len(t)
-    cols = [x]
-    for j in range(k - 2):
-        s = (np.maximum(x - t[j], 0) ** 3
-             - np.maximum(x - t[k - 2], 0) ** 3 * (t[k - 1] - t[j]) / (t[k - 1] - t[k - 2])
-             + np.maximum(x - t[k - 1], 0) ** 3 * (t[k - 2] - t[j]) / (t[k - 1] - t[k - 2]))
-        cols.append(s / (t[k - 1] - t[0]) ** 2)
-    return np.column_stack(cols)
-
-
-def _coef_rows(cohort: str, b: np.ndarray, V: np.ndarray, knots: list[float]) -> pd.DataFrame:
-    basis = json.dumps([{"term": "spline", "variable": "x", "knots": knots}], sort_keys=True)
-    rows = [{"cohort": cohort, "analysis": "a", "adjustment": "legacy", "basis": basis,
-             "row": f"c{i}", "col": f"c{j}", "i": i, "j": j, "coef": b[i], "cov": V[i, j]}
-            for i in range(len(b)) for j in range(len(b))]
-    return pd.DataFrame(rows)
-
-
 def test_multivariate_curve_rebuilt_by_hand_from_bundle_coefficients() -> None:
     # Jackson, White & Thompson 2010 (Stat Med 29:1282) method of moments, written out in numpy
     # from the bundle's long coefficient rows; the pooled curve and its delta-method SE on the
@@ -110,10 +86,10 @@ def test_multivariate_curve_rebuilt_by_hand_from_bundle_coefficients() -> None:
         y = np.array([0.5, -0.3, 0.2]) + rng.normal(0, 0.3, p)
         Ys.append(y)
         Ss.append(S)
-        parts.append(_coef_rows(f"c{i}", y, S, knots))
+        parts.append(coef_rows(f"c{i}", "a", y, S, knots))
     coefs = pd.concat(parts, ignore_index=True)
     xs = np.linspace(0.5, 4.5, 9)
-    curves = pd.concat([_curve_rows(f"c{i}", xs, np.zeros(9), np.ones(9), np.ones(9, bool),
+    curves = pd.concat([curve_rows(f"c{i}", "a", xs, np.zeros(9), np.ones(9), np.ones(9, bool),
                                     form="common_spline", ref=2.5) for i in range(k)])
     rows, het = multivariate_curves(curves, coefs)
 
@@ -131,7 +107,7 @@ def test_multivariate_curve_rebuilt_by_hand_from_bundle_coefficients() -> None:
     Wr = np.linalg.inv(S + psi)
     re_cov = np.linalg.inv(Wr.sum(0))
     re = re_cov @ np.einsum("ipq,iq->p", Wr, Y)
-    D = _rcs(xs, np.array(knots)) - _rcs(np.array([2.5]), np.array(knots))
+    D = rcs_basis(xs, np.array(knots)) - rcs_basis(np.array([2.5]), np.array(knots))
     for method, beta, cov in (("multivariate fixed", fe, fe_cov),
                               ("multivariate random", re, re_cov)):
         got = rows[rows["method"] == method].sort_values("x")
@@ -152,36 +128,23 @@ def test_multivariate_curve_rebuilt_by_hand_from_bundle_coefficients() -> None:
 # --------------------------------------------------------------------------- contrasts
 
 
-def _contrast(cohort: str, form: str, ctype: str, label: str, est: float, se: float,
-              xv: float = np.nan, xr: float = np.nan) -> dict[str, object]:
-    return {"cohort": cohort, "analysis": "a", "adjustment": "legacy", "form": form,
-            "contrast_type": ctype, "contrast": label, "x_value": xv, "x_reference": xr,
-            "estimate": est, "se": se, "scale": "odds ratio"}
-
-
-def _cuts(cohort: str, cuts: list[float], median: float) -> list[dict[str, object]]:
-    return [{"cohort": cohort, "analysis": "a", "variable": "x", "role": "exposure", "cut": c,
-             "percentile": 30.0 + 10 * j, "median": median, "derived_from_data": False}
-            for j, c in enumerate(cuts)]
-
-
 def test_pooled_effects_pool_only_what_means_the_same_in_every_cohort() -> None:
     # Legacy contrasts pool only across cohorts with the same cuts; continuous forms only at
     # the common values; own-value contrasts (own quartiles, own group medians) never; one
     # cohort is "single cohort", not a pooled row. Numbers against statsmodels combine_effects.
     rows = [
-        _contrast("A", "legacy", "group", "hi vs lo", 0.40, 0.10, 7.0, 3.0),
-        _contrast("B", "legacy", "group", "hi vs lo", 0.60, 0.12, 8.0, 2.5),
-        _contrast("C", "legacy", "group", "hi vs lo", 0.10, 0.11, 9.0, 2.0),  # other cuts
-        _contrast("A", "spline", "iqr", "75th vs 25th percentile", 0.3, 0.1, 6.0, 4.0),
-        _contrast("B", "spline", "iqr", "75th vs 25th percentile", 0.5, 0.1, 7.0, 3.0),
-        _contrast("A", "spline", "group", "hi vs lo", 0.3, 0.1, 7.0, 3.0),
-        _contrast("B", "spline", "group", "hi vs lo", 0.3, 0.1, 8.0, 2.5),
-        _contrast("A", "spline", "common quartiles", "common Q3 vs Q1", 0.30, 0.10, 6.5, 3.5),
-        _contrast("B", "spline", "common quartiles", "common Q3 vs Q1", 0.45, 0.08, 6.5, 3.5),
-        _contrast("C", "spline", "common quartiles", "common Q3 vs Q1", 0.20, 0.09, 6.5, 3.5),
-        _contrast("A", "linear", "per_unit", "per unit", 0.05, 0.01, 5.0, 4.0),
-        _contrast("B", "linear", "per_unit", "per unit", 0.07, 0.02, 4.0, 3.0),
+        contrast_row("A", "legacy", "group", "hi vs lo", 0.40, 0.10, 7.0, 3.0),
+        contrast_row("B", "legacy", "group", "hi vs lo", 0.60, 0.12, 8.0, 2.5),
+        contrast_row("C", "legacy", "group", "hi vs lo", 0.10, 0.11, 9.0, 2.0),  # other cuts
+        contrast_row("A", "spline", "iqr", "75th vs 25th percentile", 0.3, 0.1, 6.0, 4.0),
+        contrast_row("B", "spline", "iqr", "75th vs 25th percentile", 0.5, 0.1, 7.0, 3.0),
+        contrast_row("A", "spline", "group", "hi vs lo", 0.3, 0.1, 7.0, 3.0),
+        contrast_row("B", "spline", "group", "hi vs lo", 0.3, 0.1, 8.0, 2.5),
+        contrast_row("A", "spline", "common quartiles", "common Q3 vs Q1", 0.30, 0.10, 6.5, 3.5),
+        contrast_row("B", "spline", "common quartiles", "common Q3 vs Q1", 0.45, 0.08, 6.5, 3.5),
+        contrast_row("C", "spline", "common quartiles", "common Q3 vs Q1", 0.20, 0.09, 6.5, 3.5),
+        contrast_row("A", "linear", "per_unit", "per unit", 0.05, 0.01, 5.0, 4.0),
+        contrast_row("B", "linear", "per_unit", "per unit", 0.07, 0.02, 4.0, 3.0),
     ]
     cuts = pd.DataFrame(_cuts("A", [5.0], 5.1) + _cuts("B", [5.0], 4.9) + _cuts("C", [6.0], 5.5))
     eff, het = pooled_effects(pd.DataFrame(rows), cuts)
@@ -215,8 +178,8 @@ def test_pooled_effects_pool_only_what_means_the_same_in_every_cohort() -> None:
 def test_common_contrasts_with_different_values_do_not_pool_together() -> None:
     # Two cohorts whose "common" values differ (bundles from different bases) stay apart: each
     # is a single cohort, and nothing is reported as pooled.
-    rows = [_contrast("A", "spline", "common quartiles", "common Q3 vs Q1", 0.3, 0.1, 6.5, 3.5),
-            _contrast("B", "spline", "common quartiles", "common Q3 vs Q1", 0.4, 0.1, 7.0, 3.5)]
+    rows = [contrast_row("A", "spline", "common quartiles", "common Q3 vs Q1", 0.3, 0.1, 6.5, 3.5),
+            contrast_row("B", "spline", "common quartiles", "common Q3 vs Q1", 0.4, 0.1, 7.0, 3.5)]
     eff, het = pooled_effects(pd.DataFrame(rows))
     assert eff.empty
     assert het["status"].tolist() == [SINGLE, SINGLE]
@@ -246,11 +209,11 @@ def test_pool_bundles_end_to_end_on_hand_made_bundles() -> None:
     bundles = {}
     for i, (c, shift) in enumerate((("A", 0.0), ("B", 0.1), ("C", -0.05))):
         bundles[c] = {
-            "curves": _curve_rows(c, xs, np.array([-.2, 0, .3]) + shift * (xs - 2),
+            "curves": curve_rows(c, "a", xs, np.array([-.2, 0, .3]) + shift * (xs - 2),
                                   np.array([.1, 0, .1]) * (1 + i / 4), np.ones(3, bool),
                                   ref=2.0),
             "coefficients": pd.DataFrame(),
-            "contrasts": pd.DataFrame([_contrast(c, "legacy", "group", "hi vs lo",
+            "contrasts": pd.DataFrame([contrast_row(c, "legacy", "group", "hi vs lo",
                                                  0.4 + shift, 0.1)]),
             "counts": pd.DataFrame(),
             "cuts": pd.DataFrame(_cuts(c, [5.0], 5.0 + i)),
@@ -281,9 +244,9 @@ def test_pooled_figure_leads_with_the_multivariate_spline_and_shows_k() -> None:
     for i, c in enumerate(("A", "B", "C")):
         A = rng.normal(size=(3, 6))
         b = np.array([0.5, -0.3, 0.2]) + rng.normal(0, 0.1, 3)
-        coefs.append(_coef_rows(c, b, A @ A.T * 0.01, knots))
-        D = _rcs(xs, np.array(knots)) - _rcs(np.array([2.5]), np.array(knots))
-        curves.append(_curve_rows(c, xs, D @ b, np.where(xs == 2.5, 0.0, 0.1), xs <= 4.5 - i,
+        coefs.append(coef_rows(c, "a", b, A @ A.T * 0.01, knots))
+        D = rcs_basis(xs, np.array(knots)) - rcs_basis(np.array([2.5]), np.array(knots))
+        curves.append(curve_rows(c, "a", xs, D @ b, np.where(xs == 2.5, 0.0, 0.1), xs <= 4.5 - i,
                                   form="common_spline", ref=2.5))
     bundles = {c: {"curves": cv, "coefficients": cf, "contrasts": pd.DataFrame(),
                    "counts": pd.DataFrame(), "cuts": pd.DataFrame()}
