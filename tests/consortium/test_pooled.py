@@ -7,10 +7,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from bundle_rows import coef_rows, contrast_row, curve_rows, cut_rows, rcs_basis
 from scipy import stats
 from statsmodels.stats.meta_analysis import combine_effects
 
+from bundle_rows import coef_rows, contrast_row, curve_rows, cut_rows, rcs_basis
 from unbin.consortium.pool import (
     SINGLE,
     harmonisation,
