@@ -52,3 +52,16 @@ def level_without_reference_rows() -> tuple[pd.DataFrame, dict[str, Any]]:
                          "exposure": "x", "adjust": ["z"], "by": "w",
                          "continuous": {"forms": ["linear"], "grid_points": 10}}]}
     return frame, raw
+
+
+def load_check(name: str) -> Any:
+    """``benchmarks/checks/<name>.py``, imported from its path (the folder is not a package), so
+    that a test runs the same simulation as the check script."""
+    import importlib.util
+
+    path = Path(__file__).resolve().parents[1] / "benchmarks" / "checks" / f"{name}.py"
+    spec = importlib.util.spec_from_file_location(f"unbin_check_{name}", path)
+    assert spec is not None and spec.loader is not None
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module

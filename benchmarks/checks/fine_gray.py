@@ -32,8 +32,14 @@ Z = 1.959963984540054
 N = 300
 
 
-def simulate(n: int, beta: float, rng: np.random.Generator, delayed: bool,
-             p: float = 0.3) -> tuple[np.ndarray, Outcome, np.ndarray]:
+def draw(n: int, beta: float, rng: np.random.Generator, delayed: bool,
+         p: float = 0.3) -> np.ndarray:
+    """Fine & Gray's (1999, sec. 5) design, as in Beyersmann et al. (2009): the cumulative
+    incidence of cause 1 is F1(t|x) = 1 - [1 - p(1 - exp(-t))]^exp(beta x), a proportional
+    subdistribution hazard with log ratio beta; cause 2 (probability 1 - F1(inf|x)) follows an
+    exponential with rate exp(0.5 x). Censoring uniform on (0, 3); optionally delayed entry
+    uniform on (0, 1.5) (people whose event or censoring falls before entry are never seen).
+    Columns: x, observed time, cause (0 censored), entry."""
     rows: list[np.ndarray] = []
     while sum(r.shape[0] for r in rows) < n:
         x = rng.normal(size=n)
@@ -48,7 +54,12 @@ def simulate(n: int, beta: float, rng: np.random.Generator, delayed: bool,
         obs = np.minimum(T, C)
         cause = np.where(T <= C, np.where(is1, 1, 2), 0)
         rows.append(np.column_stack([x, obs, cause, L])[obs > L])
-    a = np.vstack(rows)[:n]
+    return np.vstack(rows)[:n]
+
+
+def simulate(n: int, beta: float, rng: np.random.Generator, delayed: bool,
+             p: float = 0.3) -> tuple[np.ndarray, Outcome, np.ndarray]:
+    a = draw(n, beta, rng, delayed, p)
     o = Outcome("survival", (a[:, 2] == 1).astype(float), time=a[:, 1],
                 entry=a[:, 3] if delayed else None)
     return a[:, :1], o, a[:, 2]

@@ -558,15 +558,9 @@ def test_pooling_check_script_reports_coverage_with_its_mc_error() -> None:
     # slow test above, at 2000 replicates; HKSJ within [0.92, 0.97] (its known small shortfall,
     # IntHout et al. 2014, plus 3.5 MC SE), DL-normal below HKSJ, and the MC SE it reports
     # equal to sqrt(c (1 - c) / n).
-    import importlib.util
-    from pathlib import Path
+    from helpers import load_check
 
-    path = Path(__file__).resolve().parents[2] / "benchmarks" / "checks" / "pooling.py"
-    spec = importlib.util.spec_from_file_location("pooling_check", path)
-    assert spec is not None and spec.loader is not None
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    out = mod.run(2000, 9)
+    out = load_check("pooling").run(2000, 9)
     assert [r["k"] for r in out["results"]] == [3, 5]
     for r in out["results"]:
         c = r["pm_hksj"]["coverage"]

@@ -11,6 +11,7 @@ import pytest
 from lifelines import AalenJohansenFitter, CoxPHFitter
 from scipy import optimize, stats
 
+from helpers import load_check
 from unbin.data import analysis_sample
 from unbin.data.checks import data_problems
 from unbin.errors import SpecError
@@ -104,28 +105,11 @@ def test_fine_gray_solves_the_weighted_score_equation_on_a_small_example() -> No
 
 def _simulate(n: int, beta: float, rng: np.random.Generator, p: float = 0.3,
               delayed: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
-    """Fine & Gray's (1999, sec. 5) design, as in Beyersmann et al. (2009): the cumulative
-    incidence of cause 1 is F1(t|x) = 1 - [1 - p(1 - exp(-t))]^exp(beta x), a proportional
-    subdistribution hazard with log ratio beta; cause 2 (probability 1 - F1(inf|x)) follows an
-    exponential with rate exp(0.5 x). Censoring uniform on (0, 3); optionally delayed entry
-    uniform on (0, 1.5) (people whose event or censoring falls before entry are never seen;
-    without the entry-time weights H the mean estimate is about 0.62, far outside the bound)."""
-    rows: list[np.ndarray] = []
-    while sum(r.shape[0] for r in rows) < n:
-        x = rng.normal(size=n)
-        f1_inf = 1 - (1 - p) ** np.exp(beta * x)
-        is1 = rng.random(n) < f1_inf
-        u = rng.random(n)
-        t1 = -np.log(1 - (1 - (1 - u * f1_inf) ** np.exp(-beta * x)) / p)
-        t2 = rng.exponential(1 / np.exp(0.5 * x))
-        T = np.where(is1, t1, t2)
-        C = rng.uniform(0, 3, n)
-        L = rng.uniform(0, 1.5, n) if delayed else np.zeros(n)
-        obs = np.minimum(T, C)
-        cause = np.where(T <= C, np.where(is1, 1, 2), 0)
-        seen = obs > L
-        rows.append(np.column_stack([x, obs, cause, L])[seen])
-    a = np.vstack(rows)[:n]
+    """Fine & Gray's (1999, sec. 5) design as the check script draws it
+    (``benchmarks/checks/fine_gray.py``, Beyersmann et al. 2009): a proportional subdistribution
+    hazard with log ratio beta; without the entry-time weights H the mean estimate under delayed
+    entry is about 0.62, far outside the bound."""
+    a = load_check("fine_gray").draw(n, beta, rng, delayed, p)
     return a[:, 0], a[:, 1], a[:, 2], (a[:, 3] if delayed else None)
 
 

@@ -6,7 +6,6 @@ seeded replicate study, and per-level curves against a simulated truth."""
 
 from __future__ import annotations
 
-import importlib.util
 import warnings
 from pathlib import Path
 from typing import Any
@@ -19,7 +18,7 @@ import statsmodels.api as sm
 import statsmodels.formula.api as smf
 from scipy import special, stats
 
-from helpers import keep_analyses
+from helpers import keep_analyses, load_check
 from unbin.data import analysis_sample
 from unbin.questions.curves import curves_table
 from unbin.questions.effects import effects_table
@@ -235,22 +234,12 @@ def test_per_level_thresholds_plug_back_into_statsmodels(tmp_path: Path) -> None
         assert abs(special.expit(lp) - row.threshold) < 1e-6, row
 
 
-def _check_module() -> Any:
-    """benchmarks/checks/interaction.py, imported from its path (it is not a package)."""
-    path = Path(__file__).resolve().parents[2] / "benchmarks" / "checks" / "interaction.py"
-    spec = importlib.util.spec_from_file_location("interaction_check", path)
-    assert spec is not None and spec.loader is not None
-    module = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(module)
-    return module
-
-
 def test_interaction_type_one_error_in_replicates(tmp_path: Path) -> None:
     """Type-I error of the interaction LR test at 5% under its null (main step of the modifier,
     no interaction): 200 seeded replicates of n = 1000, logistic; the rejection rate must lie in
     0.05 +- 3 sqrt(0.05 x 0.95 / 200) (two-sided Monte-Carlo band, common practice). Uses the
     same functions as the workflow (adjustment_terms, interaction_spline, fit_level_model)."""
-    out = _check_module().run(200, 2026)
+    out = load_check("interaction").run(200, 2026)
     band = 3 * np.sqrt(0.05 * 0.95 / 200)
     assert out["failed"] == 0
     assert abs(out["type1_error"] - 0.05) <= band, out

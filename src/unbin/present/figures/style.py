@@ -186,8 +186,9 @@ def freeze_layout(fig: Figure, digits: int = 9) -> None:
             text.set_position((round(float(x), digits), round(float(y), digits)))
 
     visit(fig)
-    # No engine at all (not "none", whose placeholder makes every savefig draw the figure once
-    # more before drawing it for the file): the rounded positions are final.
+    # No engine at all (not "none": matplotlib then keeps its PlaceHolderLayoutEngine, which
+    # makes every savefig draw the figure once more before drawing it for the file): the rounded
+    # positions are final.
     fig.set_layout_engine(None)
 
 
