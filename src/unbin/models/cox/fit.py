@@ -12,7 +12,7 @@ from scipy import linalg
 
 from .inputs import _as_1d, _check_finite, _design
 from .layout import Layout, _design_and_layout, _given_layout, _prepare
-from .likelihood import _Design, _evaluate, _standardised
+from .likelihood import _Design, _evaluate, _information, _Point, _point, _score, _standardised
 
 
 @dataclass(frozen=True)
@@ -88,6 +88,10 @@ class _Iterate:
     iterations: int
     status: str
     last_change: float
+    # False when ``info`` is another point's (a subsample's, or the previous iterate's); the
+    # point's partial evaluation then completes it (see ``_newton``)
+    exact: bool = True
+    point: _Point | None = None
 
 
 def _diverging(step: np.ndarray, beta: np.ndarray, tol: float) -> np.ndarray:
@@ -97,59 +101,104 @@ def _diverging(step: np.ndarray, beta: np.ndarray, tol: float) -> np.ndarray:
     return np.flatnonzero(big)
 
 
-def _settled(D: _Design, step: np.ndarray, tol: float) -> bool:
-    """The step changes no row's linear predictor by more than ``100 * tol``: first a bound
-    (``|step| . reach``), then, near that point only, the exact largest change."""
+def _settled(D: _Design, step: np.ndarray, tol: float, limit: float | None = None) -> bool:
+    """The step changes no row's linear predictor by more than ``limit`` (``100 * tol``): first
+    a bound (``|step| . reach``), then, near that point only, the exact largest change."""
+    limit = 100.0 * tol if limit is None else limit
     bound = float(np.abs(step) @ D.reach)
-    if bound <= 100.0 * tol:
+    if bound <= limit:
         return True
-    if bound > 1e-3:
+    if bound > max(1e-3, 10.0 * limit):
         return False
-    return float(np.abs(D.X1[:, 1:] @ step).max()) <= 100.0 * tol
+    return float(np.abs(D.X1[:, 1:] @ step).max()) <= limit
+
+
+# A chord step (the previous point's information with this point's score) is taken while the
+# steps shrink at least this much from one to the next; otherwise the information is evaluated.
+_CHORD_CONTRACTION = 0.01
 
 
 def _newton(
-    L: Layout, D: _Design, efron: bool, start: _Iterate, max_iter: int, tol: float
+    L: Layout, D: _Design, efron: bool, start: _Iterate, max_iter: int, tol: float,
+    rough: float | None = None,
 ) -> _Iterate:
-    """Newton steps with step halving from ``start`` (score and information evaluated there).
+    """Newton steps with step halving from ``start`` (score, and an information that may be
+    another point's, evaluated there).
 
-    Converged when the next step would change no row's linear predictor by more than
-    ``100 * tol`` (checked only where the information is the full data's, that is after one
-    step at least), so that the information at the last point is, to about that fraction, the
-    one at the estimate; or, where rounding keeps the steps from getting that small, after
-    three steps in a row changed the log partial likelihood by at most
-    ``tol * max(1, |loglik|)``. Also stops, for the caller to report, when the log partial
+    Each new point gets its log partial likelihood and score only (the risk-set sums of r); its
+    information (the Gram product and the sums of r x, about two thirds of an evaluation) only
+    when it is needed: when the step that the previous information gives (a chord step)
+    shrank by less than ``_CHORD_CONTRACTION`` from the step before, when it would stop, and
+    at any stop. Chord steps converge to the same maximum (the score is exact); they are the
+    cheap steps near the estimate, where the information hardly changes.
+
+    Converged when the next step, with the point's own information, would change no row's
+    linear predictor by more than ``100 * tol`` (checked only where the information is the full
+    data's, that is after one step at least), so that the information at the last point is, to
+    about that fraction, the one at the estimate; or, where rounding keeps the steps from
+    getting that small, after three steps in a row changed the log partial likelihood by at
+    most ``tol * max(1, |loglik|)``. Also stops, for the caller to report, when the log partial
     likelihood has levelled off like that while a coefficient keeps moving. The last point
-    evaluated is returned, not the next step's.
+    evaluated is returned, not the next step's, always with its own information.
+
+    ``rough`` (a start for a larger sample): also converged as soon as a step, chord or not,
+    would change no row's linear predictor by more than ``rough``; the information returned
+    may then be the previous point's.
     """
     beta, ll, score, info = start.beta, start.loglik, start.score, start.info
+    exact, pt = start.exact, start.point
     iterations = flat = 0
     last_change = float("nan")
+    last_size = float("inf")  # largest |component| of the step that led here (none: a chord)
+
+    def stop(status: str) -> _Iterate:
+        nonlocal score, info
+        if not exact:
+            assert pt is not None
+            score, info = _information(L, D, pt)
+        return _Iterate(beta, ll, score, info, iterations, status, last_change)
+
     while True:
         step = newton_step(info, score)
+        if rough is not None and iterations and step is not None and _settled(D, step, tol, rough):
+            return _Iterate(beta, ll, score, info, iterations, "converged", last_change)
+        if not exact:
+            assert pt is not None
+            if (
+                step is None
+                or iterations >= max_iter
+                or not np.abs(step).max() <= _CHORD_CONTRACTION * last_size
+                or _settled(D, step, tol)
+            ):
+                score, info = _information(L, D, pt)
+                exact = True
+                step = newton_step(info, score)
         if step is None:
-            return _Iterate(beta, ll, score, info, iterations, "singular", last_change)
-        if iterations:
+            return stop("singular")
+        if iterations and exact:
             levelled = abs(last_change) <= tol * max(1.0, abs(ll))
             flat = flat + 1 if levelled else 0
             diverging = levelled and _diverging(step, beta, tol).size > 0
             if diverging or flat >= 3 or _settled(D, step, tol):
-                return _Iterate(beta, ll, score, info, iterations, "converged", last_change)
+                return stop("converged")
         if iterations >= max_iter:
-            return _Iterate(beta, ll, score, info, iterations, "max_iter", last_change)
+            return stop("max_iter")
         iterations += 1
         halving = 0
         while True:
             cand = beta + step
-            ll_c, score_c, info_c = _evaluate(L, D, cand, efron)
+            pt_c = _point(L, D, cand, efron, False)
+            ll_c = pt_c.loglik
             if np.isfinite(ll_c) and ll_c >= ll - 1e-12 * max(1.0, abs(ll)):
                 break
             halving += 1
             step = step / 2.0
             if halving > 40:
-                return _Iterate(beta, ll, score, info, iterations, "halving", last_change)
+                return stop("halving")
         last_change = ll_c - ll
-        beta, ll, score, info = cand, ll_c, score_c, info_c
+        last_size = float(np.abs(step).max()) if halving == 0 else float("nan")
+        beta, ll, pt, exact = cand, ll_c, pt_c, False
+        score = _score(L, D, pt_c)
 
 
 # Starting values for large data: Newton's method from zero needs several steps before it
@@ -164,6 +213,7 @@ _WARM_EVENTS = 2_500
 
 
 _WARM_MIN_STRIDE, _WARM_MAX_STRIDE = 4, 8
+_WARM_ROUGH = 0.05
 
 
 def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndarray] | None:
@@ -186,13 +236,16 @@ def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndar
     if sub.events == 0:
         return None
     Dsub = _Design.of(D.X1[pos[sub.order]], sub.we, D.reach)
-    sub_stop = _newton(sub, Dsub, efron, _start(sub, Dsub, efron), 30, 1e-5)
+    # the subsample's estimate differs from the full data's by its sampling error (of the
+    # order of 1 / sqrt(its events)), so it stops once a step would change no linear predictor
+    # by more than _WARM_ROUGH, and takes that step
+    sub_stop = _newton(sub, Dsub, efron, _start(sub, Dsub, efron), 30, 1e-5, _WARM_ROUGH)
     if sub_stop.status != "converged" or not np.isfinite(sub_stop.beta).all():
         return None
     next_step = newton_step(sub_stop.info, sub_stop.score)
     if next_step is None or np.abs(next_step).max() > 0.1:  # e.g. a coefficient diverging there
         return None
-    return sub_stop.beta, sub_stop.info * (L.wsum.sum() / sub.wsum.sum())
+    return sub_stop.beta + next_step, sub_stop.info * (L.wsum.sum() / sub.wsum.sum())
 
 
 def _start(
@@ -203,11 +256,12 @@ def _start(
     zero = np.zeros(D.X1.shape[1] - 1)
     warm = _warm_start(L, D, efron) if warm_ok else None
     if warm is not None:
-        ll, score, _ = _evaluate(L, D, warm[0], efron, 1)
+        pt = _point(L, D, warm[0], efron, False)
         if ll0 is None:
             ll0 = _evaluate(L, D, zero, efron, 0)[0]
-        if np.isfinite(ll) and ll >= ll0:
-            return _Iterate(warm[0], ll, score, warm[1], 0, "", ll)
+        if np.isfinite(pt.loglik) and pt.loglik >= ll0:
+            return _Iterate(warm[0], pt.loglik, _score(L, D, pt), warm[1], 0, "", pt.loglik,
+                            exact=False, point=pt)
     ll, score, info = _evaluate(L, D, zero, efron)  # no (useful) subsample fit
     return _Iterate(zero, ll, score, info, 0, "", ll)
 

@@ -40,14 +40,25 @@ def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
     return out
 
 
-def _evaluate(
-    L: Layout, D: _Design, beta: np.ndarray, efron: bool, order: int = 2
-) -> tuple[float, np.ndarray, np.ndarray]:
-    """Log partial likelihood, score and observed information at ``beta``.
+@dataclass
+class _Point:
+    """One coefficient vector's log partial likelihood and the per-row and per-event-time
+    terms its score and information share (see :func:`_evaluate`)."""
 
-    ``order`` 0 computes the log partial likelihood only, 1 adds the score (which needs the
-    risk-set sums of r only), 2 the information too; what is not computed is zeros.
-    """
+    loglik: float
+    r: np.ndarray  # w exp(eta), eta shifted within strata
+    sums: np.ndarray  # (1, K) risk-set sums of r, or (1 + p, K) with those of r x
+    tied_sums: np.ndarray | None  # Efron: (T,) or (T, 1 + p) sums of r (and r x) at tied times
+    den: np.ndarray | None  # Efron: each tied event's denominator S0 - f T0
+    v: np.ndarray | None = None  # r_i sum_{k: i in R_k} c_k (the Gram's row weights)
+    a: np.ndarray | None = None  # (K,) the weights of S1 S1' (filled at the tied times later)
+    w_inv: np.ndarray | None = None  # Efron: wavg / den per tied event
+    fw_inv: np.ndarray | None = None  # Efron: f wavg / den per tied event
+
+
+def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -> _Point:
+    """The log partial likelihood at ``beta`` with the risk-set sums of r (``with_x``: and of
+    r x, which only the information needs)."""
     X1 = D.X1
     p = X1.shape[1] - 1
     eta: np.ndarray | None = None
@@ -60,65 +71,111 @@ def _evaluate(
     else:
         r = L.w
     efron_terms = efron and L.ties
-    order = order if p > 0 else 0
-    derivs = order == 2
     # risk-set sums of r (row 0) and, for the information, of r x (rows 1..p) at each event time
-    if derivs:
+    if with_x:
         sums = _risk_sums(L, _scaled(L, L.risk_op, r) @ X1)
     else:
         sums = _risk_sums(L, np.asarray(L.risk_op @ r)[:, None])
     s0 = sums[0]
     loglik = float(L.we_ev @ eta[L.ev]) if eta is not None else 0.0
+    tied_sums = den = None
     with np.errstate(divide="ignore", invalid="ignore"):
         log_s0 = np.log(s0)
         if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
-            tied_sums = _scaled(L, L.tie_op, r) @ X1 if derivs else L.tie_op @ r
-            t0 = tied_sums[:, 0] if derivs else tied_sums
+            tied_sums = _scaled(L, L.tie_op, r) @ X1 if with_x else L.tie_op @ r
+            t0 = tied_sums[:, 0] if with_x else tied_sums
             den = s0[L.tie_at] - L.tie_f * t0[L.tie_grp]
             loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
         else:  # Breslow, or no tied events: one term per event time
             loglik -= float(L.wsum @ log_s0)
-    if order == 0 or not np.isfinite(loglik):
-        return loglik, np.zeros(p), np.zeros((p, p))
-    T = L.tie_k.size
+    return _Point(loglik, r, sums, tied_sums, den)
+
+
+def _row_weights(L: Layout, pt: _Point) -> None:
+    """Fill ``pt.v`` (and the event-time weights the information needs)."""
+    if pt.v is not None:
+        return
+    s0, r, T = pt.sums[0], pt.r, L.tie_k.size
     # sum_k c_k sum_{i in R_k} r_i x_i x_i' = X' diag(v) X with v_i = r_i sum_{k: i in R_k} c_k;
     # the risk-set means enter as sum_k a_k S1_k S1_k' (and, for tied events, one per event)
-    if efron_terms:
+    if pt.den is not None:
         c = L.wsum_untied / s0
-        a = L.wsum_untied / s0**2
-        inv = 1.0 / den
-        w_inv = L.tie_wavg * inv
-        fw_inv = L.tie_f * w_inv
-        c[L.tie_k] = np.bincount(L.tie_grp, weights=w_inv, minlength=T)
-        bk = np.bincount(L.tie_grp, weights=fw_inv, minlength=T)
+        pt.a = L.wsum_untied / s0**2
+        inv = 1.0 / pt.den
+        pt.w_inv = L.tie_wavg * inv
+        pt.fw_inv = L.tie_f * pt.w_inv
+        c[L.tie_k] = np.bincount(L.tie_grp, weights=pt.w_inv, minlength=T)
+        bk = np.bincount(L.tie_grp, weights=pt.fw_inv, minlength=T)
     else:
         c = L.wsum / s0
-        a = c / s0
+        pt.a = c / s0
     cum = _forward_cum(L, c)
     v = r * (cum[L.b_idx] - cum[L.a_idx]) if L.late_entry else r * cum[L.b_idx]
-    if efron_terms:
+    if pt.den is not None:
         v[L.tie_ev] -= r[L.tie_ev] * bk[L.tie_grp]
-    if order == 1:
-        return loglik, D.xwe - D.X1[:, 1:].T @ v, np.zeros((p, p))
-    gram = _weighted_gram(D, v)
+    pt.v = v
+
+
+def _score(L: Layout, D: _Design, pt: _Point) -> np.ndarray:
+    """The score at the point (from the risk-set sums of r only)."""
+    _row_weights(L, pt)
+    assert pt.v is not None
+    return D.xwe - D.X1[:, 1:].T @ pt.v
+
+
+def _information(L: Layout, D: _Design, pt: _Point) -> tuple[np.ndarray, np.ndarray]:
+    """The score and observed information at the point (computing the risk-set sums of r x
+    when ``pt`` has only those of r)."""
+    X1 = D.X1
+    if pt.sums.shape[0] == 1:  # add the sums of r x
+        pt.sums = _risk_sums(L, _scaled(L, L.risk_op, pt.r) @ X1)
+        if pt.den is not None:
+            pt.tied_sums = _scaled(L, L.tie_op, pt.r) @ X1
+    _row_weights(L, pt)
+    assert pt.v is not None and pt.a is not None
+    gram = _weighted_gram(D, pt.v)
     score = D.xwe - gram[1:, 0]
-    S1 = sums[1:]
-    if efron_terms:
+    S1 = pt.sums[1:]
+    a = pt.a
+    if pt.den is not None:
+        assert pt.tied_sums is not None and pt.w_inv is not None and pt.fw_inv is not None
         # Each tied event's risk-set mean is (S1_k - f T1_k) / den (f = l/d), so the sum over
         # the d_k events of wavg * mean mean' is, per tied event time, S1 S1' a0 - (S1 T1' +
         # T1 S1') a1 + T1 T1' a2 with a_j = sum over its events of wavg f^j / den^2: three
         # sums per tied event time instead of a p-vector per tied event.
-        a0 = np.bincount(L.tie_grp, weights=w_inv * inv, minlength=T)
-        a1 = np.bincount(L.tie_grp, weights=fw_inv * inv, minlength=T)
-        a2 = np.bincount(L.tie_grp, weights=fw_inv * L.tie_f * inv, minlength=T)
+        T = L.tie_k.size
+        inv = 1.0 / pt.den
+        a0 = np.bincount(L.tie_grp, weights=pt.w_inv * inv, minlength=T)
+        a1 = np.bincount(L.tie_grp, weights=pt.fw_inv * inv, minlength=T)
+        a2 = np.bincount(L.tie_grp, weights=pt.fw_inv * L.tie_f * inv, minlength=T)
+        a = a.copy()
         a[L.tie_k] = a0
-        T1 = tied_sums[:, 1:]  # (T, p)
+        T1 = pt.tied_sums[:, 1:]  # (T, p)
         cross = (S1[:, L.tie_k] * a1) @ T1
         info = gram[1:, 1:] - (S1 * a) @ S1.T + cross + cross.T - (T1.T * a2) @ T1
     else:
         info = gram[1:, 1:] - (S1 * a) @ S1.T
     info = (info + info.T) / 2.0
-    return loglik, score, info
+    return score, info
+
+
+def _evaluate(
+    L: Layout, D: _Design, beta: np.ndarray, efron: bool, order: int = 2
+) -> tuple[float, np.ndarray, np.ndarray]:
+    """Log partial likelihood, score and observed information at ``beta``.
+
+    ``order`` 0 computes the log partial likelihood only, 1 adds the score (which needs the
+    risk-set sums of r only), 2 the information too; what is not computed is zeros.
+    """
+    p = D.X1.shape[1] - 1
+    order = order if p > 0 else 0
+    pt = _point(L, D, beta, efron, order == 2)
+    if order == 0 or not np.isfinite(pt.loglik):
+        return pt.loglik, np.zeros(p), np.zeros((p, p))
+    if order == 1:
+        return pt.loglik, _score(L, D, pt), np.zeros((p, p))
+    score, info = _information(L, D, pt)
+    return pt.loglik, score, info
 
 
 def _largest_abs(a: np.ndarray, rows: int = 256) -> np.ndarray:
