@@ -70,12 +70,29 @@ class Layout:
 
 
 def _stratum_time_order(t: np.ndarray, codes: np.ndarray | None, n_strata: int) -> np.ndarray:
-    """Rows by stratum, then time (a quicksort on time, then a stable pass on the codes)."""
-    order = np.argsort(t)
+    """Rows by stratum, then time (a sort on time, then a stable pass on the codes)."""
+    order = _time_order(t)
     if codes is not None and n_strata > 1:
         codes_small = codes.astype(np.uint16) if n_strata < 2**16 else codes
         order = order[np.argsort(codes_small[order], kind="stable")]
     return order
+
+
+_RADIX_MIN_ROWS = 4096  # below this a plain sort is as fast as the check
+
+
+def _time_order(t: np.ndarray) -> np.ndarray:
+    """``argsort(t)``. Times that are whole numbers spanning fewer than 2**16 values (e.g. days,
+    as registries store them) are sorted as 16-bit integers by numpy's radix sort, several
+    times faster on such heavily tied data; rows tied in time keep their input order."""
+    if t.size >= _RADIX_MIN_ROWS:
+        lo = t.min()
+        if t.max() - lo < 2**16 - 1:
+            offset = t - lo
+            small = offset.astype(np.uint16)
+            if np.array_equal(small, offset):
+                return np.argsort(small, kind="stable")
+    return np.argsort(t)
 
 
 @dataclass(frozen=True)
