@@ -142,8 +142,7 @@ def _newton(
     evaluated is returned, not the next step's, always with its own information.
 
     ``rough`` (a start for a larger sample): also converged as soon as a step, chord or not,
-    would change no row's linear predictor by more than ``rough``; the information returned
-    may then be the previous point's.
+    would change no row's linear predictor by more than ``rough``.
     """
     beta, ll, score, info = start.beta, start.loglik, start.score, start.info
     exact, pt = start.exact, start.point
@@ -161,7 +160,7 @@ def _newton(
     while True:
         step = newton_step(info, score)
         if rough is not None and iterations and step is not None and _settled(D, step, tol, rough):
-            return _Iterate(beta, ll, score, info, iterations, "converged", last_change)
+            return stop("converged")
         if not exact:
             assert pt is not None
             if (
@@ -204,7 +203,9 @@ def _newton(
 # Starting values for large data: Newton's method from zero needs several steps before it
 # reaches the region where it converges quadratically. Those steps are taken on a systematic
 # subsample (every ``stride``-th row in time order, stride 4 to 8, at least _WARM_EVENTS
-# events), itself started the same way when it is large enough. The first step on the full
+# events), itself started the same way when it is large enough (a subsample's own subsample
+# needs only half as many events: its estimate serves a fit that stops early, at _WARM_ROUGH,
+# and its steps cost an eighth of the subsample's). The first step on the full
 # data uses the subsample's information scaled up to the full data (its error is of the order
 # of the subsample's sampling error, which the quadratic convergence absorbs), so the full data
 # need the score at the start and then about three full evaluations instead of six or seven.
@@ -216,10 +217,14 @@ _WARM_MIN_STRIDE, _WARM_MAX_STRIDE = 4, 8
 _WARM_ROUGH = 0.05
 
 
-def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndarray] | None:
+def _warm_start(
+    L: Layout, D: _Design, efron: bool, nested: bool = False
+) -> tuple[np.ndarray, np.ndarray] | None:
     """Standardised coefficients fitted on a subsample and its information scaled to the full
-    data, or None (too few events for a subsample to pay off, or no converged fit)."""
-    stride = min(L.events // _WARM_EVENTS, _WARM_MAX_STRIDE)
+    data, or None (too few events for a subsample to pay off, or no converged fit).
+    ``nested``: ``L`` is itself a subsample."""
+    per_stride = max(1, _WARM_EVENTS // 2) if nested else _WARM_EVENTS
+    stride = min(L.events // per_stride, _WARM_MAX_STRIDE)
     if stride < _WARM_MIN_STRIDE:
         return None
     pos = np.arange(0, L.order.size, stride)
@@ -239,7 +244,8 @@ def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndar
     # the subsample's estimate differs from the full data's by its sampling error (of the
     # order of 1 / sqrt(its events)), so it stops once a step would change no linear predictor
     # by more than _WARM_ROUGH, and takes that step
-    sub_stop = _newton(sub, Dsub, efron, _start(sub, Dsub, efron), 30, 1e-5, _WARM_ROUGH)
+    sub_start = _start(sub, Dsub, efron, nested=True)
+    sub_stop = _newton(sub, Dsub, efron, sub_start, 30, 1e-5, _WARM_ROUGH)
     if sub_stop.status != "converged" or not np.isfinite(sub_stop.beta).all():
         return None
     next_step = newton_step(sub_stop.info, sub_stop.score)
@@ -249,12 +255,13 @@ def _warm_start(L: Layout, D: _Design, efron: bool) -> tuple[np.ndarray, np.ndar
 
 
 def _start(
-    L: Layout, D: _Design, efron: bool, ll0: float | None = None, warm_ok: bool = True
+    L: Layout, D: _Design, efron: bool, ll0: float | None = None, warm_ok: bool = True,
+    nested: bool = False,
 ) -> _Iterate:
     """Where Newton's method starts without starting values: at a subsample's estimate (with
     the score there and the subsample's information) when that pays off, otherwise at zero."""
     zero = np.zeros(D.X1.shape[1] - 1)
-    warm = _warm_start(L, D, efron) if warm_ok else None
+    warm = _warm_start(L, D, efron, nested) if warm_ok else None
     if warm is not None:
         pt = _point(L, D, warm[0], efron, False)
         if ll0 is None:
