@@ -772,3 +772,112 @@ def test_chord_refit_with_loglik_equals_the_full_fit(sim: pd.DataFrame) -> None:
     ref = fit_cox(X[m], t, e, entry=en, strata=st, tol=1e-13)
     np.testing.assert_allclose(near[0], ref.coef, rtol=1e-7, atol=1e-9)
     assert near[1] == pytest.approx(ref.loglik, rel=1e-12, abs=1e-9)
+
+
+# ------------------------------------------------------------ times in days, chord steps
+
+
+@pytest.fixture(scope="module")
+def days() -> pd.DataFrame:
+    """A registry-like cohort whose times are whole days (about 1,100 distinct values for
+    6,000 rows, so most event times are tied), with strata, late entry in whole days and
+    integer weights: large enough for the layout's integer sort (4,096 rows or more)."""
+    rng = np.random.default_rng(365)
+    n = 6000
+    x = np.column_stack([rng.normal(size=n), rng.binomial(1, 0.3, n), rng.uniform(40, 80, n)])
+    stratum = rng.integers(0, 2, n)
+    latent = rng.exponential(1 / np.exp(x @ np.array([0.4, 0.5, 0.02]) - 1.6 + 0.2 * stratum))
+    follow = np.minimum(rng.exponential(4.0, n), 3.0)
+    time = np.ceil(np.minimum(latent, follow) * 365.25)
+    late = rng.uniform(size=n) < 0.3
+    entry = np.floor(rng.uniform(0, 0.7, n) * time * late)
+    return pd.DataFrame(x, columns=COLS).assign(
+        T=time, E=(latent <= follow).astype(int), S=stratum, entry=entry,
+        W=rng.integers(1, 3, n),
+    )
+
+
+def test_time_order_of_whole_days_is_numpys_stable_sort() -> None:
+    # reference: numpy's stable argsort of the float times (brute force, written here);
+    # whole numbers of small span take the 16-bit path, others the general sort
+    from unbin.models.cox.layout import _time_order
+
+    rng = np.random.default_rng(7)
+    days = np.ceil(rng.exponential(400.0, 10_000))
+    for t in (days, days - 5_000.0, np.minimum(days, 3.0)):  # ties, negative, nearly all tied
+        assert np.array_equal(_time_order(t), np.argsort(t, kind="stable"))
+    for t in (days + 0.25, days * 70.0, rng.normal(size=10_000)):  # fractions; span >= 2**16
+        order = _time_order(t)
+        assert np.array_equal(np.sort(order), np.arange(t.size))
+        assert np.all(np.diff(t[order]) >= 0)
+
+
+def test_times_in_days_match_lifelines(days: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter (Efron ties; strata, entry_col, weights_col) and
+    # statsmodels PHReg (Breslow ties), on times in whole days
+    assert days["T"].nunique() < 1200 and days["E"].sum() > 1000
+    X = _x(days)
+    fit = fit_cox(X, days["T"], days["E"])
+    cph = CoxPHFitter().fit(days[COLS + ["T", "E"]], "T", "E", fit_options=TIGHT)
+    _assert_matches_lifelines(fit, cph)
+    fit = fit_cox(X, days["T"], days["E"], entry=days["entry"], strata=days["S"],
+                  weights=days["W"])
+    cph = CoxPHFitter().fit(days[COLS + ["T", "E", "S", "entry", "W"]], "T", "E",
+                            weights_col="W", entry_col="entry", strata=["S"], fit_options=TIGHT)
+    _assert_matches_lifelines(fit, cph)
+    fit = fit_cox(X, days["T"], days["E"], ties="breslow")
+    res = sm.PHReg(days["T"].to_numpy(float), X, status=days["E"].to_numpy(),
+                   ties="breslow").fit()
+    np.testing.assert_allclose(fit.coef, res.params, rtol=1e-6)
+    np.testing.assert_allclose(_se(fit), res.bse, rtol=1e-6)
+
+
+@pytest.mark.parametrize("extras", ["none", "strata_entry_weights", "breslow"])
+def test_chord_steps_reach_the_plain_newton_fit(
+    days: pd.DataFrame, extras: str, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # reference: the same engine with the information evaluated at every point (plain Newton,
+    # an independent path to the maximum), and lifelines CoxPHFitter above. The subsample
+    # start is forced (lowered event threshold) so that the full data take chord steps.
+    import unbin.models.cox.fit as engine
+    import unbin.models.cox.likelihood as lik
+
+    monkeypatch.setattr(engine, "_WARM_EVENTS", 200)
+    kwargs: dict[str, object] = {}
+    if extras == "strata_entry_weights":
+        kwargs = {"entry": days["entry"], "strata": days["S"], "weights": days["W"]}
+    elif extras == "breslow":
+        kwargs = {"ties": "breslow"}
+    X = _x(days)
+    calls = {"point": 0, "information": 0}
+    real_point, real_information = engine._point, engine._information
+
+    def point(*args):  # type: ignore[no-untyped-def]
+        calls["point"] += 1
+        return real_point(*args)
+
+    def information(*args):  # type: ignore[no-untyped-def]
+        calls["information"] += 1
+        return real_information(*args)
+
+    monkeypatch.setattr(engine, "_point", point)
+    monkeypatch.setattr(engine, "_information", information)
+    chord = fit_cox(X, days["T"], days["E"], **kwargs)  # type: ignore[arg-type]
+    assert calls["information"] < calls["point"]  # some points had no information of their own
+    monkeypatch.setattr(engine, "_CHORD_CONTRACTION", 0.0)  # every point gets its information
+    plain = fit_cox(X, days["T"], days["E"], **kwargs)  # type: ignore[arg-type]
+    assert chord.converged and plain.converged and chord.message == plain.message == ""
+    np.testing.assert_allclose(chord.coef, plain.coef, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(chord.cov, plain.cov, rtol=1e-7)
+    assert chord.loglik == pytest.approx(plain.loglik, abs=1e-8)
+    if extras == "none":
+        cph = CoxPHFitter().fit(days[COLS + ["T", "E"]], "T", "E", fit_options=TIGHT)
+        _assert_matches_lifelines(chord, cph)
+    # the covariance is the inverse of the information at the estimate (evaluated here afresh;
+    # the fit's is the last point's, where no exp(eta) differs by more than about 1e-7)
+    sample = {k: v for k, v in kwargs.items() if k != "ties"}
+    L = prepare_layout(days["T"], days["E"], **sample)  # type: ignore[arg-type]
+    D, scale, _ = lik._standardised(X, L)
+    info = lik._evaluate(L, D, chord.coef * scale, extras != "breslow")[2]
+    np.testing.assert_allclose(np.linalg.inv(info) / np.outer(scale, scale), chord.cov,
+                               rtol=1e-6)
