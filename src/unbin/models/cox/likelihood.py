@@ -40,6 +40,12 @@ def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
     return out
 
 
+def _per_tied_time(L: Layout, values: np.ndarray) -> np.ndarray:
+    """Sums of per-tied-event values (ordered as ``L.tie_ev``) by tied event time: the events
+    of one time are a run (the tie operator's row), so one ``reduceat`` adds them."""
+    return np.add.reduceat(values, L.tie_op.indptr[:-1])
+
+
 @dataclass
 class _Point:
     """One coefficient vector's log partial likelihood and the per-row and per-event-time
@@ -84,7 +90,8 @@ def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -
         if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
             tied_sums = _scaled(L, L.tie_op, r) @ X1 if with_x else L.tie_op @ r
             t0 = tied_sums[:, 0] if with_x else tied_sums
-            den = s0[L.tie_at] - L.tie_f * t0[L.tie_grp]
+            counts = np.diff(L.tie_op.indptr)
+            den = np.repeat(s0[L.tie_k], counts) - L.tie_f * np.repeat(t0, counts)
             loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
         else:  # Breslow, or no tied events: one term per event time
             loglik -= float(L.wsum @ log_s0)
@@ -95,7 +102,7 @@ def _row_weights(L: Layout, pt: _Point) -> None:
     """Fill ``pt.v`` (and the event-time weights the information needs)."""
     if pt.v is not None:
         return
-    s0, r, T = pt.sums[0], pt.r, L.tie_k.size
+    s0, r = pt.sums[0], pt.r
     # sum_k c_k sum_{i in R_k} r_i x_i x_i' = X' diag(v) X with v_i = r_i sum_{k: i in R_k} c_k;
     # the risk-set means enter as sum_k a_k S1_k S1_k' (and, for tied events, one per event)
     if pt.den is not None:
@@ -104,15 +111,15 @@ def _row_weights(L: Layout, pt: _Point) -> None:
         inv = 1.0 / pt.den
         pt.w_inv = L.tie_wavg * inv
         pt.fw_inv = L.tie_f * pt.w_inv
-        c[L.tie_k] = np.bincount(L.tie_grp, weights=pt.w_inv, minlength=T)
-        bk = np.bincount(L.tie_grp, weights=pt.fw_inv, minlength=T)
+        c[L.tie_k] = _per_tied_time(L, pt.w_inv)
+        bk = _per_tied_time(L, pt.fw_inv)
     else:
         c = L.wsum / s0
         pt.a = c / s0
     cum = _forward_cum(L, c)
     v = r * (cum[L.b_idx] - cum[L.a_idx]) if L.late_entry else r * cum[L.b_idx]
     if pt.den is not None:
-        v[L.tie_ev] -= r[L.tie_ev] * bk[L.tie_grp]
+        v[L.tie_ev] -= r[L.tie_ev] * np.repeat(bk, np.diff(L.tie_op.indptr))
     pt.v = v
 
 
@@ -143,11 +150,10 @@ def _information(L: Layout, D: _Design, pt: _Point) -> tuple[np.ndarray, np.ndar
         # the d_k events of wavg * mean mean' is, per tied event time, S1 S1' a0 - (S1 T1' +
         # T1 S1') a1 + T1 T1' a2 with a_j = sum over its events of wavg f^j / den^2: three
         # sums per tied event time instead of a p-vector per tied event.
-        T = L.tie_k.size
         inv = 1.0 / pt.den
-        a0 = np.bincount(L.tie_grp, weights=pt.w_inv * inv, minlength=T)
-        a1 = np.bincount(L.tie_grp, weights=pt.fw_inv * inv, minlength=T)
-        a2 = np.bincount(L.tie_grp, weights=pt.fw_inv * L.tie_f * inv, minlength=T)
+        a0 = _per_tied_time(L, pt.w_inv * inv)
+        a1 = _per_tied_time(L, pt.fw_inv * inv)
+        a2 = _per_tied_time(L, pt.fw_inv * L.tie_f * inv)
         a = a.copy()
         a[L.tie_k] = a0
         T1 = pt.tied_sums[:, 1:]  # (T, p)
