@@ -160,3 +160,62 @@ def test_cluster_bootstrap_intervals_cover_the_true_slope(sims: int) -> None:
     assert cov["cluster"][0.95] >= lo95, cov
     assert lo80 <= cov["cluster"][0.80] <= hi80, cov
     assert cov["row"][0.80] < lo80, cov
+
+
+def _rossi() -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The shipped rossi data (lifelines) with the weeks jittered apart (no tied times, so
+    Breslow and Efron coincide), clusters of 4 consecutive rows."""
+    from lifelines.datasets import load_rossi
+
+    r = load_rossi()
+    time = (r["week"] - np.random.default_rng(12).uniform(0.0, 0.5, len(r))).to_numpy(float)
+    X = r[["age", "prio"]].to_numpy(float)
+    return X, time, r["arrest"].to_numpy(float), np.arange(len(r)) // 4
+
+
+def test_cox_replicates_with_sampling_weights_equal_lifelines_on_the_drawn_data_set() -> None:
+    # Reference library: lifelines CoxPHFitter(weights_col) on the drawn data set written out
+    # (each drawn cluster's rows repeated, each copy with its sampling weight).
+    import pandas as pd
+    from lifelines import CoxPHFitter
+
+    from unbin.models.weighted import weighted_cox_designs
+
+    X, time, event, g = _rossi()
+    w = np.random.default_rng(3).uniform(0.5, 2.0, len(time))
+    o = Outcome("survival", event, time=time, weights=w, weight_kind="sampling", cluster=g)
+    W = design_resample_weights(np.random.default_rng(8), o, 2)
+    coef = weighted_cox_designs([(X, None)], o, W)[0]
+    for b in range(2):
+        m, case = replicate_rows(o, W[b])
+        d = pd.DataFrame({"age": X[m, 0], "prio": X[m, 1], "t": time[m], "e": event[m],
+                          "w": case})
+        ref = CoxPHFitter().fit(d, "t", "e", weights_col="w", robust=True)
+        np.testing.assert_allclose(coef[b], ref.params_[["age", "prio"]].to_numpy(),
+                                   rtol=1e-5)
+
+
+def test_cox_replicate_robust_wald_equals_statsmodels_phreg_on_the_drawn_data_set() -> None:
+    # Reference library: statsmodels PHReg fit(groups=...) on the drawn data set (every copy
+    # of a cluster its own group), covariance times G / (G - 1) as unbin's sandwich.
+    from statsmodels.duration.hazard_regression import PHReg
+
+    from unbin.models.cox import fit_cox
+    from unbin.models.weighted import cox_robust_wald
+
+    X, time, event, g = _rossi()
+    o = Outcome("survival", event, time=time, cluster=g)
+    W = design_resample_weights(np.random.default_rng(4), o, 2)
+    for b in range(2):
+        m, case = replicate_rows(o, W[b])
+        groups = replicate_clusters(o, m)
+        assert groups is not None and case is None
+        # Breslow ties here: the copies of a drawn row tie, and PHReg has Breslow's only
+        f = fit_cox(X[m], time[m], event[m], ties="breslow")
+        wald = cox_robust_wald(X[m], (time[m], event[m], None, None), None, groups, f.coef,
+                               f.cov, 2, ties="breslow")
+        ref = PHReg(time[m], X[m], status=event[m], ties="breslow").fit(groups=groups)
+        G = len(np.unique(groups))
+        V = np.asarray(ref.cov_params()) * G / (G - 1)
+        bref = np.asarray(ref.params)
+        assert wald == pytest.approx(float(bref @ np.linalg.solve(V, bref)), rel=1e-5)

@@ -419,11 +419,12 @@ def glm_robust_wald(family: str, X: np.ndarray, outcome: Outcome, coef: np.ndarr
 
 def cox_robust_wald(Xm: np.ndarray, sample: CoxSample, case: np.ndarray | None,
                     clusters: np.ndarray | None, coef: np.ndarray, cov: np.ndarray,
-                    k: int) -> float:
+                    k: int, ties: str = "efron") -> float:
     """The robust Wald statistic of the first ``k`` Cox coefficients on one drawn data set (rows
     ``Xm`` with survival arrays ``sample``, case weights ``case`` and replicate cluster codes
     ``clusters``, ``replicate_clusters``): the sandwich of ``unbin.models.robust`` with the
-    fit's inverse information ``cov`` as bread and the Efron score residuals."""
+    fit's inverse information ``cov`` as bread and the score residuals (``ties`` as the fit's;
+    a drawn copy ties with its original)."""
     from .robust import cox_scores, sandwich
 
     if k == 0:
@@ -431,7 +432,7 @@ def cox_robust_wald(Xm: np.ndarray, sample: CoxSample, case: np.ndarray | None,
     time, event, entry, strata = sample
     o = Outcome("survival", np.asarray(event, dtype=float), time=time, entry=entry,
                 strata=strata, weights=case, cluster=clusters)
-    V, _ = sandwich(cov, cox_scores(Xm, o, coef, ties="efron"), clusters)
+    V, _ = sandwich(cov, cox_scores(Xm, o, coef, ties=ties), clusters)
     b = coef[:k]
     try:
         return float(b @ np.linalg.solve(V[:k, :k], b))
