@@ -28,7 +28,7 @@ from collections.abc import Callable, Iterator, Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
-from scipy import special
+from scipy import sparse, special
 
 from ._glm import gram, standardise
 from .base import Outcome
@@ -375,6 +375,11 @@ def glm_robust_wald(family: str, X: np.ndarray, outcome: Outcome, coef: np.ndarr
     chunk = max(1, _CHUNK_CELLS // (outcome.n * Z.shape[1]))
     cl = None if outcome.cluster is None else np.unique(np.asarray(outcome.cluster),
                                                         return_inverse=True)[1].ravel()
+    if cl is not None:  # membership (n, G): one sparse product sums a column over clusters
+        G = int(cl.max()) + 1
+        member = sparse.csr_matrix((np.ones(cl.size), (np.arange(cl.size), cl)),
+                                   shape=(cl.size, G))
+        size = np.bincount(cl, minlength=G).astype(float)
     for c0 in range(0, B, chunk):
         sl = slice(c0, min(B, c0 + chunk))
         cf = np.nan_to_num(coef[sl])
@@ -394,11 +399,10 @@ def glm_robust_wald(family: str, X: np.ndarray, outcome: Outcome, coef: np.ndarr
         if cl is None:
             M = _information(Z, copies[sl] * r * r, pairs)
         else:
-            G = int(cl.max()) + 1
-            S = np.stack([np.stack([np.bincount(cl, rb * Z[:, j], G) for j in range(Z.shape[1])],
-                                   axis=1) for rb in r])  # (C, G, q) per-cluster score sums
-            kg = np.stack([np.bincount(cl, cb, G) / np.bincount(cl, minlength=G)
-                           for cb in copies[sl]])  # a cluster's draw count
+            # (C, G, q): per replicate the score sums of each cluster
+            S = np.stack([np.asarray(member.T @ (r * Z[:, j]).T).T for j in range(Z.shape[1])],
+                         axis=2)
+            kg = np.asarray(member.T @ copies[sl].T).T / size  # a cluster's draw count
             M = np.einsum("cg,cgq,cgr->cqr", kg, S, S) * (G / (G - 1.0))
         for i, b in enumerate(range(sl.start, sl.stop)):
             if not good[b]:
