@@ -1,7 +1,26 @@
-"""Refits on many frequency-weight vectors at once (the bootstrap replicates of the residual
-confounding and cut-point questions): case-resampling weights, the linear, logistic and Poisson
+"""Refits on many weight vectors at once (the bootstrap replicates of the resampling questions):
+the design-aware resampling draw (``design_resample_weights``), the linear, logistic and Poisson
 models by a vectorised Newton solver (``WeightedGLM``), and Cox models through the engine with
-one prepared layout."""
+one prepared layout.
+
+The draw resamples the unit the analysis' sampling design makes independent (Davison & Hinkley
+1997, sec. 3.8; Field & Welsh 2007):
+
+* no weights, no cluster: rows, n draws with replacement (``resample_weights``);
+* ``cluster``: whole clusters, G draws with replacement from the G clusters; every row of a
+  cluster drawn k times is in the replicate k times (each copy a cluster of its own);
+* sampling weights: the rows (or clusters) as above, each copy keeping its sampling weight, so
+  a row's refit weight is its draw count x its weight (the replicate's weighted
+  pseudo-likelihood, as the full sample's);
+* frequency weights without a cluster: the units are the N = sum w individuals the rows stand
+  for; drawing N of them with replacement gives each row a multinomial(N, w / N) count of
+  individuals, which is its refit weight (the same distribution as resampling the expanded
+  data, without expanding it). With a cluster, whole clusters are drawn and every copy keeps
+  its frequency weight.
+
+A replicate is then the full-sample computation applied to the drawn data set: its rows
+(``replicate_rows``: indices, a row drawn k times repeated k times) with its own weight column
+(the outcome's weights; with frequency weights and no cluster the counts of individuals)."""
 
 from __future__ import annotations
 
@@ -9,7 +28,7 @@ from collections.abc import Callable, Iterator, Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
-from scipy import special
+from scipy import sparse, special
 
 from ._glm import gram, standardise
 from .base import Outcome
@@ -28,6 +47,71 @@ def resample_weights(rng: np.random.Generator, n: int, replicates: int) -> np.nd
     idx = rng.integers(0, n, size=(replicates, n))
     flat = (np.arange(replicates)[:, None] * n + idx).ravel()
     return np.bincount(flat, minlength=replicates * n).reshape(replicates, n).astype(float)
+
+
+def _base_weights(outcome: Outcome) -> np.ndarray | None:
+    return None if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
+
+
+def _individuals(outcome: Outcome) -> bool:
+    """Frequency weights without a cluster: the resampled units are the individuals."""
+    return (outcome.weights is not None and outcome.weight_kind == "frequency"
+            and outcome.cluster is None)
+
+
+def design_resample_counts(rng: np.random.Generator, outcome: Outcome,
+                           replicates: int) -> np.ndarray:
+    """How often each row is in each replicate when the analysis' independent units are drawn
+    with replacement, shape (replicates, n): whole clusters when ``outcome.cluster`` is set (a
+    row's count is its cluster's draw count), single rows otherwise (``resample_weights``, the
+    same draws from the same generator). Weights are not looked at."""
+    if outcome.cluster is None:
+        return resample_weights(rng, outcome.n, replicates)
+    _, inverse = np.unique(np.asarray(outcome.cluster), return_inverse=True)
+    drawn = resample_weights(rng, int(inverse.max()) + 1, replicates)
+    return np.asarray(drawn[:, inverse.ravel()])
+
+
+def design_resample_weights(rng: np.random.Generator, outcome: Outcome,
+                            replicates: int) -> np.ndarray:
+    """The refit weights of ``replicates`` bootstrap replicates that resample the analysis'
+    sampling design (module docstring), shape (replicates, n): the draw counts of rows or
+    clusters times the rows' weights; with frequency weights and no cluster the multinomial
+    counts of the N = sum w individuals (N rounded to a whole number)."""
+    w = _base_weights(outcome)
+    if w is not None and _individuals(outcome):
+        total = float(w.sum())
+        N = max(1, int(round(total)))
+        return rng.multinomial(N, w / total, size=replicates).astype(float)
+    counts = design_resample_counts(rng, outcome, replicates)
+    return counts if w is None else counts * w
+
+
+def replicate_copies(outcome: Outcome, W: np.ndarray) -> np.ndarray:
+    """How many times each row is repeated in the drawn data sets of refit weights ``W``
+    (``design_resample_weights``): the draw counts; with frequency weights and no cluster 1 for
+    every row drawn at least once (the drawn count then is the row's weight)."""
+    W = np.asarray(W, dtype=float)
+    w = _base_weights(outcome)
+    if w is None:
+        return W
+    if _individuals(outcome):
+        return (W > 0).astype(float)
+    return np.rint(W / w)
+
+
+def replicate_rows(outcome: Outcome, w_row: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+    """One replicate's drawn data set: the row indices (a row repeated as often as it is in the
+    replicate) and the weights of those rows (None without weights); ``w_row`` one row of
+    ``design_resample_weights``. Its total weight per row is ``w_row``."""
+    copies = replicate_copies(outcome, w_row)
+    m = np.repeat(np.arange(len(copies)), copies.astype(np.int64))
+    w = _base_weights(outcome)
+    if w is None:
+        return m, None
+    if _individuals(outcome):
+        return m, np.asarray(w_row, dtype=float)[m]
+    return m, w[m]
 
 
 class WeightedGLM:
@@ -185,19 +269,21 @@ CoxSample = tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None]
 
 def resampled_cox_samples(outcome: Outcome, W: np.ndarray
                           ) -> Iterator[tuple[int, np.ndarray, CoxSample, Layout]]:
-    """Per frequency-weight row ``b`` of ``W``: the repeated row indices ``m``, the survival
-    arrays (time, event, entry, strata) of those rows and their prepared Cox layout; a replicate
-    whose layout cannot be prepared is skipped."""
+    """Per refit-weight row ``b`` of ``W`` (``design_resample_weights``): the drawn data set's
+    row indices ``m`` (``replicate_rows``), the survival arrays (time, event, entry, strata) of
+    those rows and their prepared Cox layout, which carries the rows' case weights (the
+    outcome's weights, or the counts of individuals); a replicate whose layout cannot be
+    prepared is skipped."""
     from .cox import prepare_layout
 
     assert outcome.time is not None
     for b, w in enumerate(W):
-        m = np.repeat(np.arange(len(w)), np.asarray(w).astype(np.int64))
+        m, case = replicate_rows(outcome, w)
         time, event = outcome.time[m], outcome.y[m]
         entry = outcome.entry[m] if outcome.entry is not None else None
         strata = outcome.strata[m] if outcome.strata is not None else None
         try:
-            layout = prepare_layout(time, event, entry=entry, strata=strata)
+            layout = prepare_layout(time, event, entry=entry, strata=strata, weights=case)
         except ValueError:
             continue
         yield b, m, (time, event, entry, strata), layout
@@ -226,7 +312,8 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
             Xm = X[m]
             coef = refit_near(Xm, layout, init) if init is not None else None
             if coef is None:
-                try:  # far from the start, or not settling: the full fit decides
+                try:  # far from the start, or not settling: the full fit decides (the layout
+                    # carries the case weights)
                     fitted = fit_cox(Xm, time, event, entry=entry, strata=strata, init=init,
                                 layout=layout)
                 except ValueError:
@@ -238,3 +325,120 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
             if on_fit is not None:
                 on_fit(b, j, Xm, m, layout, coef)
     return outs
+
+
+# -- robust Wald statistics of the replicates ----------------------------------------------------
+
+
+def replicate_clusters(outcome: Outcome, m: np.ndarray) -> np.ndarray | None:
+    """Cluster codes of a drawn data set's rows ``m`` (``replicate_rows``): every copy of a
+    cluster drawn k times is a cluster of its own (None without a cluster, where every row is
+    its own unit)."""
+    if outcome.cluster is None:
+        return None
+    _, code = np.unique(np.asarray(outcome.cluster), return_inverse=True)
+    code = code.ravel()
+    m = np.asarray(m, dtype=np.int64)
+    if m.size == 0:
+        return code[m]
+    # the j-th copy of a row: its position among the repeats of that row (rows repeat in runs)
+    start = np.flatnonzero(np.r_[True, m[1:] != m[:-1]])
+    run = np.repeat(start, np.diff(np.r_[start, m.size]))
+    copy = np.arange(m.size) - run
+    return np.asarray(code[m] * (int(copy.max()) + 1) + copy)
+
+
+def glm_robust_wald(family: str, X: np.ndarray, outcome: Outcome, coef: np.ndarray,
+                    W: np.ndarray, k: int) -> np.ndarray:
+    """The robust Wald statistic b' V^-1 b of the first ``k`` columns of ``X`` in each replicate:
+    ``coef`` (B, p + 1, intercept first) refitted on refit weights ``W`` (B, n,
+    ``design_resample_weights``), V the replicate's own (cluster-)robust covariance, exactly as
+    ``unbin.models.robust.robust_cov`` forms it on the drawn data set: the bread
+    (sum_i W_i v_i z_i z_i')^-1 and the meat sum over the drawn units of s s', s = sum over a
+    unit's rows of w_i z_i (y_i - mu_i) (w the outcome's weight, 1 without), a cluster drawn k
+    times counting as k clusters, with the G / (G - 1) factor when clustered (G clusters drawn).
+    Without a cluster every drawn row is its own unit (HC0). On the standardised design (the
+    slopes' Wald statistic does not change with the columns' scale). NaN where ``coef`` is."""
+    X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
+    coef = np.atleast_2d(np.asarray(coef, dtype=float))
+    W = np.atleast_2d(np.asarray(W, dtype=float))
+    B = coef.shape[0]
+    if k == 0:
+        return np.where(np.all(np.isfinite(coef), axis=1), 0.0, np.nan)
+    Z, _, sd = standardise(X)
+    y = np.asarray(outcome.y, dtype=float)
+    w = np.ones_like(y) if outcome.weights is None else np.asarray(outcome.weights, float)
+    copies = replicate_copies(outcome, W)
+    out = np.full(B, np.nan)
+    good = np.all(np.isfinite(coef), axis=1)
+    pairs = _Pairs(Z)
+    chunk = max(1, _CHUNK_CELLS // (outcome.n * Z.shape[1]))
+    cl = None if outcome.cluster is None else np.unique(np.asarray(outcome.cluster),
+                                                        return_inverse=True)[1].ravel()
+    if cl is not None:  # membership (n, G): one sparse product sums a column over clusters
+        G = int(cl.max()) + 1
+        member = sparse.csr_matrix((np.ones(cl.size), (np.arange(cl.size), cl)),
+                                   shape=(cl.size, G))
+        size = np.bincount(cl, minlength=G).astype(float)
+    for c0 in range(0, B, chunk):
+        sl = slice(c0, min(B, c0 + chunk))
+        cf = np.nan_to_num(coef[sl])
+        eta = cf[:, :1] + cf[:, 1:] @ X.T
+        if outcome.offset is not None:
+            eta = eta + outcome.offset
+        if family == "binary":
+            mu = special.expit(eta)
+            v = mu * (1 - mu)
+        elif family == "count":
+            mu = np.exp(np.clip(eta, None, 700))
+            v = mu
+        else:
+            mu, v = eta, np.ones_like(eta)
+        H = _information(Z, W[sl] * v, pairs)
+        r = w * (y - mu)  # (C, n): a copy's score is r_i z_i
+        if cl is None:
+            M = _information(Z, copies[sl] * r * r, pairs)
+        else:
+            # (C, G, q): per replicate the score sums of each cluster
+            S = np.stack([np.asarray(member.T @ (r * Z[:, j]).T).T for j in range(Z.shape[1])],
+                         axis=2)
+            kg = np.asarray(member.T @ copies[sl].T).T / size  # a cluster's draw count
+            M = np.einsum("cg,cgq,cgr->cqr", kg, S, S) * (G / (G - 1.0))
+        for i, b in enumerate(range(sl.start, sl.stop)):
+            if not good[b]:
+                continue
+            try:
+                bread = np.linalg.inv(H[i])
+            except np.linalg.LinAlgError:
+                continue
+            V = bread @ M[i] @ bread
+            V = (V + V.T) / 2.0
+            beta = coef[b, 1:1 + k] * sd[:k]  # slopes on the standardised scale
+            try:
+                out[b] = float(beta @ np.linalg.solve(V[1:1 + k, 1:1 + k], beta))
+            except np.linalg.LinAlgError:
+                pass
+    return out
+
+
+def cox_robust_wald(Xm: np.ndarray, sample: CoxSample, case: np.ndarray | None,
+                    clusters: np.ndarray | None, coef: np.ndarray, cov: np.ndarray,
+                    k: int, ties: str = "efron") -> float:
+    """The robust Wald statistic of the first ``k`` Cox coefficients on one drawn data set (rows
+    ``Xm`` with survival arrays ``sample``, case weights ``case`` and replicate cluster codes
+    ``clusters``, ``replicate_clusters``): the sandwich of ``unbin.models.robust`` with the
+    fit's inverse information ``cov`` as bread and the score residuals (``ties`` as the fit's;
+    a drawn copy ties with its original)."""
+    from .robust import cox_scores, sandwich
+
+    if k == 0:
+        return 0.0
+    time, event, entry, strata = sample
+    o = Outcome("survival", np.asarray(event, dtype=float), time=time, entry=entry,
+                strata=strata, weights=case, cluster=clusters)
+    V, _ = sandwich(cov, cox_scores(Xm, o, coef, ties=ties), clusters)
+    b = coef[:k]
+    try:
+        return float(b @ np.linalg.solve(V[:k, :k], b))
+    except np.linalg.LinAlgError:
+        return float("nan")

@@ -48,8 +48,10 @@ difference, which equal the conditional ones, so the non-collapsibility part is 
 and linear models). The crude model's contrast is its own marginal one (except with
 survival strata, whose mixing then falls into the confounding part).
 
-Bootstrap. Intervals are percentiles over ``resampling.bootstrap`` case-resampling replicates
-drawn once and shared by every model, so all estimates of a replicate come from the same
+Bootstrap. Intervals are percentiles over ``resampling.bootstrap`` replicates that resample
+the analysis' design (``unbin.models.weighted.design_resample_weights``: rows; whole clusters
+with ``cluster``; each copy keeping its sampling or frequency weight; without a cluster,
+frequency-weighted rows by the individuals they stand for), drawn once and shared by every model, so all estimates of a replicate come from the same
 resampled data; groupings, knots and contrast values stay as in the full sample. A replicate is
 refitted by Newton's method from the full-sample estimate on frequency weights — vectorised over
 replicates for the linear, logistic and Poisson models; for survival ``unbin.models.cox.fit_cox`` on the
@@ -75,7 +77,14 @@ from ..models import EFFECT_SCALE, fit
 from ..models.base import FitResult, Outcome
 from ..models.cox import Layout, fit_cox, prepare_layout
 from ..models.survival import cox_layout
-from ..models.weighted import _CHUNK_CELLS, WeightedGLM, resample_weights, weighted_cox_designs
+from ..models.weighted import (
+    _CHUNK_CELLS,
+    WeightedGLM,
+    design_resample_weights,
+    replicate_copies,
+    replicate_rows,
+    weighted_cox_designs,
+)
 from ..refit.analysis import Refit, adjustment_terms, design
 from ..refit.contrasts import Z95
 from ..refit.risk import horizon_for
@@ -223,10 +232,10 @@ class _Designs:
         ok = [(key, it) for key, it in self.items.items() if it.res.ok]
         prepared: list[WeightedGLM] = []
         for c0 in range(0, replicates, chunk):
-            W = resample_weights(rng, n, min(chunk, replicates - c0))
+            W = design_resample_weights(rng, o, min(chunk, replicates - c0))
             if r.family == "survival":  # all designs on each replicate's rows and Cox layout
                 def risks(b: int, j: int, Xm: np.ndarray, m: np.ndarray, layout: Any,
-                          coef: np.ndarray, c0: int = c0) -> None:
+                          coef: np.ndarray, c0: int = c0, W: np.ndarray = W) -> None:
                     key, it = ok[j]
                     assert o.time is not None and self.horizon is not None
 
@@ -240,7 +249,8 @@ class _Designs:
                                                          strata=pick(o.strata), layout=layout)[0]
                         if self.causes:
                             marg[key][c0 + b] = self._replicate_incidence(
-                                c0 + b, it, Xm, m, coef, layout, layouts)
+                                c0 + b, it, Xm, m, coef, layout, layouts,
+                                replicate_rows(o, W[b])[1])
                     except ValueError:
                         pass
                 coefs = weighted_cox_designs([(it.X, it.res.coef) for _, it in ok], o, W,
@@ -253,13 +263,15 @@ class _Designs:
             for (key, it), g in zip(ok, prepared, strict=True):
                 coef = g.coef(W)
                 cond[key][c0:c0 + len(W)] = coef[:, 1:1 + it.k] @ self._d(key)
-                marg[key][c0:c0 + len(W)] = glm_means(r.family, it.X, it.k, coef, it.at, W,
-                                                      o.offset)
+                # standardised over the drawn rows as the full sample's over its rows
+                marg[key][c0:c0 + len(W)] = glm_means(r.family, it.X, it.k, coef, it.at,
+                                                      replicate_copies(o, W), o.offset)
         return cond, marg, marg_cs
 
     def _replicate_incidence(self, b: int, it: _Design, Xm: np.ndarray, m: np.ndarray,
                              coef: np.ndarray, layout: Layout,
-                             layouts: dict[tuple[int, int], Layout | None]) -> np.ndarray:
+                             layouts: dict[tuple[int, int], Layout | None],
+                             case: np.ndarray | None = None) -> np.ndarray:
         """A replicate's standardised cumulative incidences of one design: each competing
         cause's Cox model refitted on the replicate's rows ``m`` (from its full-sample
         estimate; the layouts of a replicate shared by the designs), NaN when one fails."""
@@ -277,14 +289,14 @@ class _Designs:
                     del layouts[old]
                 try:
                     layouts[(b, c)] = prepare_layout(o.time[m], (cause == c).astype(float),
-                                                     entry=entry, strata=strata)
+                                                     entry=entry, strata=strata, weights=case)
                 except ValueError:
                     layouts[(b, c)] = None
             lay = layouts[(b, c)]
             if lay is None:
                 return np.full(2, np.nan)
             fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,
-                             strata=strata, init=full.coef, layout=lay)
+                             strata=strata, weights=case, init=full.coef, layout=lay)
             if not fitted.converged or not np.all(np.isfinite(fitted.coef)):
                 return np.full(2, np.nan)
             coefs.append(fitted.coef)

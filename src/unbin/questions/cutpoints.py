@@ -20,7 +20,18 @@ For an exposure grouping flagged ``derived_from_data``:
   (the exposure permuted against the outcome — within strata for survival — and the whole search
   repeated; p = (1 + #{max* >= max}) / (1 + permutations));
 - the **bootstrap spread** of the re-derived "optimal" cut (case resampling; percentiles), with
-  the replicates that gave no cut counted (``bootstrap_failed``) and their reasons.
+  the replicates that gave no cut counted (``bootstrap_failed``) and their reasons. The
+  resampled unit is the row, or with ``cluster`` the whole cluster
+  (``unbin.models.weighted.design_resample_counts``; Davison & Hinkley 1997, sec. 3.8), and a
+  replicate's low-group shares are of its own drawn rows.
+
+With ``cluster`` there is no permutation p-value (nor ``p_simulated``): under the null the
+outcome is still correlated within clusters and so, often, is the exposure; permuting the
+exposure over rows makes the rows exchangeable that are not, and its null distribution of the
+maximal statistic is too narrow. Permuting within clusters tests only the within-cluster
+association, and permuting whole clusters' exposures needs clusters of equal size with
+cluster-level exposure; neither is general, so the table says so in ``message``. The split
+statistics count rows: weights (``weights``) are not used in this table, whose message says so.
 
 Without adjustment variables the split statistic is the score (Rao) chi-square of a binary split
 in the analysis's family, computed for all candidates at once from cumulative sums over the
@@ -74,7 +85,7 @@ from ..models.splitstats import (  # noqa: F401  (the corrected p-values are par
     p_lausen,
 )
 from ..models.splitstats import SurvivalLayout as _SurvivalLayout
-from ..models.weighted import resample_weights
+from ..models.weighted import design_resample_counts
 from ..refit.analysis import Refit, adjustment_terms, design, legacy_term
 from ..spec import Spec
 from ..terms import GroupedTerm
@@ -92,6 +103,11 @@ STATISTIC = {
     "count": "Poisson score chi-square with person-time offset",
     "survival": "log-rank chi-square (hypergeometric variance, strata, delayed entry)",
 }
+
+NO_NULL_DRAWS_WITH_CLUSTERS = (
+    "no permutation or simulated p-value with clusters: permuting the exposure over rows breaks "
+    "the dependence within clusters that the null distribution must keep, and the simulated "
+    "null assumes independent rows; p_naive, p_altman and p_lausen assume independent rows too")
 
 # --------------------------------------------------------------------------- the split search
 
@@ -115,6 +131,7 @@ class SplitSearch:
     null_error: list[str] = field(default_factory=list)  # why the adjusted null model failed
     name: str = ""  # the statistic, for the table (STATISTIC[family] when not adjusted)
     adjusted_for: str = ""  # adjustment variables and strata the statistic accounts for
+    cluster: np.ndarray | None = None  # cluster codes in sorted order (the resampled units)
 
     @classmethod
     def build(cls, family: str, x: np.ndarray, outcome: Outcome, closed: str = "left",
@@ -156,8 +173,10 @@ class SplitSearch:
             adjusted = AdjustedScore(family, np.asarray(adjust[0], dtype=float)[order],
                                      adjust[1], y, srt(outcome.offset), srt(outcome.time),
                                      srt(outcome.entry), srt(outcome.strata), surv)
+        cluster = (None if outcome.cluster is None
+                   else np.unique(np.asarray(outcome.cluster), return_inverse=True)[1].ravel()[order])
         return cls(family, closed, lower, upper, xs, k.astype(np.int64), cand, y, t, surv,
-                   adjusted, name=STATISTIC.get(family, ""))
+                   adjusted, name=STATISTIC.get(family, ""), cluster=cluster)
 
     @property
     def n(self) -> int:
@@ -253,6 +272,8 @@ class SplitSearch:
         if self.adjusted is not None:
             raise ValueError("a permutation of the exposure ignores the adjusters; the adjusted "
                              "search has no permutation p-value")
+        if self.cluster is not None:
+            raise ValueError(NO_NULL_DRAWS_WITH_CLUSTERS)
         out = np.empty(permutations)
         if self.family == "survival":
             assert self.surv is not None
@@ -291,8 +312,10 @@ class SplitSearch:
         done = 0
         while done < replicates:
             size = min(chunk, replicates - done) if not one_by_one else 1
-            W = resample_weights(rng, n, size)
-            share = _cum(W)[:, self.k] / n
+            # rows, or whole clusters (unbin.models.weighted.design_resample_counts)
+            W = design_resample_counts(rng, Outcome(self.family, self.y, cluster=self.cluster),
+                                       size)
+            share = _cum(W)[:, self.k] / W.sum(axis=1, keepdims=True)
             if self.adjusted is not None:
                 try:
                     stat = self.adjusted.profile(self.k, W[0])[None, :]
@@ -415,7 +438,13 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
                      "binary splits")
     n_perm = spec.resampling.permutations
     summary["permutations"] = n_perm
-    if n_perm > 0 and search.adjusted is not None:
+    if a.weights is not None:
+        notes.append(f"the split search counts rows; the weights ({a.weights.column}) are not "
+                     "used in this table")
+    if n_perm > 0 and search.cluster is not None:
+        summary["permutations"] = 0
+        notes.append(NO_NULL_DRAWS_WITH_CLUSTERS)
+    elif n_perm > 0 and search.adjusted is not None:
         summary["permutations"] = 0
         sim = search.adjusted.simulate_max(search.k, spec.rng(a.name, "cutpoints-simulation"),
                                            n_perm)

@@ -11,8 +11,12 @@ Fractional polynomials are not resampled (their power selection would have to be
 every replicate). With an effect modifier, the implied thresholds here are read at the median
 risk profile of the whole sample (``level`` all), not per level.
 
-``resampling.bootstrap`` case-resampling replicates (seeded from the spec:
-``spec.rng(analysis, "decision_resampling")``) are drawn once and shared by every model. Knots,
+``resampling.bootstrap`` replicates (seeded from the spec:
+``spec.rng(analysis, "decision_resampling")``) are drawn once and shared by every model; they
+resample the analysis' design (``unbin.models.weighted.design_resample_weights``: rows, whole
+clusters with ``cluster``, each copy keeping its weight; frequency-weighted rows without a
+cluster by the individuals they stand for), and each replicate's measures are read on its drawn
+rows as the full sample's are on its rows. Knots,
 legacy cuts and the spline's knot count stay as in the full sample. Each replicate's models are
 refitted by Newton's method from the full-sample estimates on frequency weights (logistic:
 vectorised over replicates, :class:`unbin.models.weighted.WeightedGLM`; survival:
@@ -64,7 +68,12 @@ from ..models.cox import (
 )
 from ..models.discrimination import auc
 from ..models.survival import cox_layout
-from ..models.weighted import WeightedGLM, resample_weights, weighted_cox_designs
+from ..models.weighted import (
+    WeightedGLM,
+    design_resample_weights,
+    replicate_rows,
+    weighted_cox_designs,
+)
 from ..refit.analysis import Refit, adjustment_terms, design
 from ..refit.risk import cumhaz_at, horizon_for, link, risk_scale
 from ..refit.sampling_design import bootstrap_reason
@@ -441,7 +450,7 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
         return _finish([{**base, "status": "skipped", "reason": skip}])
     models, notes = fitted_models(r, spec)
     n = r.outcome.n
-    W = resample_weights(spec.rng(a.name, PURPOSE), n, B)
+    W = design_resample_weights(spec.rng(a.name, PURPOSE), r.outcome, B)
     coefs = _replicate_coefs(r, models, W)
     ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
     full = _Sample(r, np.arange(n), horizon)
@@ -450,7 +459,7 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
     boot: list[dict[tuple[Any, ...], float]] = []
     test: list[dict[tuple[Any, ...], float]] = []
     for b in range(B):
-        drawn = _Sample(r, np.repeat(np.arange(n), W[b].astype(np.int64)), horizon)
+        drawn = _Sample(r, replicate_rows(r.outcome, W[b])[0], horizon)
         cb = {k: coefs[k][b] for k in ev.keys}
         zs = ev.predictors(cb, drawn)
         boot.append(ev.measures(cb, zs, drawn, drawn))

@@ -7,11 +7,19 @@ Per adjustment coding (the ``information`` table's: legacy, continuous, none), t
 
 each LR the likelihood-ratio chi-square of the exposure against the adjustment-only (null) model,
 exactly as the ``information`` table computes it (the same designs, the same fitter, so the point
-estimates are equal). Its interval is the percentile interval over ``resampling.bootstrap``
-case-resampling replicates (Efron & Tibshirani 1993, ch. 13): each replicate draws n rows with
-replacement (``unbin.models.weighted.resample_weights``, from the spec's seeded generator, so a
-rerun gives the same draws), refits the null, legacy and legacy + test spline models of every
-coding on the drawn rows and forms the replicate's share from their log-likelihoods. The
+estimates are equal). With sampling weights or a cluster each LR is replaced, as in the
+``information`` table, by the robust Wald statistic b' V^-1 b of the exposure's coefficients, V
+the (cluster-)robust covariance. Its interval is the percentile interval over
+``resampling.bootstrap`` replicates (Efron & Tibshirani 1993, ch. 13) that resample the
+analysis' design (``unbin.models.weighted.design_resample_weights``, from the spec's seeded
+generator, so a rerun gives the same draws): n rows with replacement; with ``cluster`` whole
+clusters (G of the G, Davison & Hinkley 1997, sec. 3.8; Field & Welsh 2007); every drawn copy
+keeps its sampling or frequency weight; with frequency weights and no cluster the N = sum w
+individuals the rows stand for. Each replicate refits the null, legacy and legacy + test
+spline models of every coding on the drawn data and forms the replicate's share with the
+point estimate's statistic: from the log-likelihoods, or from robust Wald statistics with the
+replicate's own sandwich (``unbin.models.weighted.glm_robust_wald``, ``cox_robust_wald``: a
+cluster drawn k times counts as k clusters, with the G / (G - 1) factor). The
 replicates are shared by all codings and models. The legacy cuts and the test spline's knots stay
 as in the full sample (the spline was fixed before the outcome was seen; the cuts are the paper's).
 
@@ -40,7 +48,11 @@ from ..models.base import FitResult, Outcome
 from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
-    resample_weights,
+    cox_robust_wald,
+    design_resample_weights,
+    glm_robust_wald,
+    replicate_clusters,
+    replicate_rows,
     resampled_cox_samples,
 )
 from ..refit.analysis import (
@@ -64,6 +76,20 @@ FORMS = ("null", "legacy", "legacy+test_spline")
 class _Model:
     X: np.ndarray
     res: FitResult
+    k: int = 0  # the exposure is X's first k columns
+
+    def wald(self) -> float:
+        """The Wald statistic of the exposure's coefficients with the fit's own (robust)
+        covariance, as the ``information`` table forms it; 0 without exposure columns."""
+        if self.k == 0:
+            return 0.0
+        lo = 0 if self.res.family == "survival" else 1
+        b = self.res.coef[lo:lo + self.k]
+        V = self.res.cov[lo:lo + self.k, lo:lo + self.k]
+        try:
+            return float(b @ np.linalg.solve(V, b))
+        except np.linalg.LinAlgError:
+            return float("nan")
 
 
 def _empty_groups(r: Refit) -> str:
@@ -97,13 +123,29 @@ def glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
     return np.asarray(np.sum(W * terms, axis=1))
 
 
-def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray) -> list[np.ndarray]:
+def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
+                 robust: bool = False) -> list[np.ndarray]:
+    """Per model, each replicate's log partial likelihood, or (``robust``) the robust Wald
+    statistic of its exposure with the replicate's own sandwich."""
     from ..models.cox import fit_cox, refit_near_loglik
 
     out = [np.full(len(W), np.nan) for _ in models]
     for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
+        if robust:
+            case = replicate_rows(outcome, W[b])[1]
+            clusters = replicate_clusters(outcome, m)
         for j, mod in enumerate(models):
             Xm = mod.X[m]
+            if robust:  # the full fit: its inverse information is the sandwich's bread
+                try:
+                    f = fit_cox(Xm, time, event, entry=entry, strata=strata,
+                                init=mod.res.coef, layout=layout)
+                except ValueError:
+                    continue
+                if f.converged and np.all(np.isfinite(f.coef)):
+                    out[j][b] = cox_robust_wald(Xm, (time, event, entry, strata), case,
+                                                clusters, f.coef, f.cov, mod.k)
+                continue
             # chord steps from the full-sample estimate (one information evaluation); the
             # full fit where they do not settle (or the model has no columns)
             near = refit_near_loglik(Xm, layout, mod.res.coef)
@@ -121,10 +163,22 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray) -> list[
 
 
 def replicate_shares(family: str, models: list[_Model], outcome: Outcome,
-                     rng: np.random.Generator, replicates: int) -> np.ndarray:
+                     rng: np.random.Generator, replicates: int,
+                     robust: bool = False) -> np.ndarray:
     """The share kept in each replicate, for consecutive triples (null, legacy, legacy + test
-    spline) of ``models``: shape (replicates, len(models) // 3), NaN where a replicate failed."""
+    spline) of ``models``: shape (replicates, len(models) // 3), NaN where a replicate failed.
+    The replicates resample the design (``design_resample_weights``); ``robust``: the share is
+    the ratio of the replicates' robust Wald statistics (as the point estimate's), else of
+    their likelihood ratios."""
+    W = design_resample_weights(rng, outcome, replicates)
+    return shares_on(family, models, outcome, W, robust)
+
+
+def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: np.ndarray,
+              robust: bool = False) -> np.ndarray:
+    """:func:`replicate_shares` on given refit weights ``W_all`` (replicates, n)."""
     n = outcome.n
+    replicates = W_all.shape[0]
     k = len(models) // 3
     # a model shared by several codings (no adjustment variables) is refitted once
     unique = list({id(mod): mod for mod in models}.values())
@@ -134,18 +188,24 @@ def replicate_shares(family: str, models: list[_Model], outcome: Outcome,
     chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
     prepared: list[WeightedGLM] = []
     for c0 in range(0, replicates, chunk):
-        W = resample_weights(rng, n, min(chunk, replicates - c0))
+        W = W_all[c0:c0 + chunk]
         if family == "survival":
-            for j, v in enumerate(_cox_logliks(unique, outcome, W)):
+            for j, v in enumerate(_cox_logliks(unique, outcome, W, robust)):
                 ll_unique[c0:c0 + len(W), j] = v
             continue
         if not prepared:
             prepared.extend(WeightedGLM(family, mod.X, outcome, mod.res.coef) for mod in unique)
         for j, (mod, g) in enumerate(zip(unique, prepared, strict=True)):
-            ll_unique[c0:c0 + len(W), j] = glm_logliks(family, mod.X, g.coef(W), outcome, W)
+            coef = g.coef(W)
+            ll_unique[c0:c0 + len(W), j] = (
+                glm_robust_wald(family, mod.X, outcome, coef, W, mod.k) if robust
+                else glm_logliks(family, mod.X, coef, outcome, W))
     ll = ll_unique[:, [col[id(mod)] for mod in models]].reshape(replicates, k, 3)
-    lr_legacy = 2 * (ll[:, :, 1] - ll[:, :, 0])
-    lr_full = 2 * (ll[:, :, 2] - ll[:, :, 0])
+    if robust:  # robust Wald statistics of the exposure (0 for the null model)
+        lr_legacy, lr_full = ll[:, :, 1], ll[:, :, 2]
+    else:
+        lr_legacy = 2 * (ll[:, :, 1] - ll[:, :, 0])
+        lr_full = 2 * (ll[:, :, 2] - ll[:, :, 0])
     with np.errstate(divide="ignore", invalid="ignore"):
         share = lr_legacy / lr_full
     share[~(lr_full > 0) | ~np.isfinite(share)] = np.nan
@@ -180,7 +240,8 @@ def _point_rows(r: Refit, spec: Spec) -> tuple[list[dict[str, object]], list[_Mo
         key = repr((exposure, adjust))
         if key not in fitted:
             X, names = design(df, r.x, exposure, adjust)
-            fitted[key] = _Model(X, fit(r.family, X, r.outcome, names))
+            fitted[key] = _Model(X, fit(r.family, X, r.outcome, names),
+                                 sum(len(t.names()) for t in exposure))
         return fitted[key]
 
     exposures: dict[str, tuple[Term, ...]] = {
@@ -197,12 +258,14 @@ def _point_rows(r: Refit, spec: Spec) -> tuple[list[dict[str, object]], list[_Mo
             row.update(status="failed", message="; ".join(failed))
         else:
             ll0, ll1, ll2 = (mod.res.loglik for mod in trio)
-            full = 2 * (ll2 - ll0)
+            part, full = 2 * (ll1 - ll0), 2 * (ll2 - ll0)
+            if a.robust:  # robust Wald statistics, as the information table's
+                part, full = trio[1].wald(), trio[2].wald()
             if not (np.isfinite(full) and full > 0):
                 row.update(status="failed", message="the LR of legacy + test spline is not "
                            "positive: there is no association to share")
             else:
-                row["info_kept"] = 2 * (ll1 - ll0) / full
+                row["info_kept"] = part / full
                 ok_models.extend(trio)
                 ok_rows.append(len(rows))
         rows.append(row)
@@ -217,7 +280,7 @@ def bootstrap_shares(r: Refit, spec: Spec) -> dict[str, np.ndarray]:
         return {}
     shares = replicate_shares(r.family, models, r.outcome,
                               spec.rng(r.analysis.name, "information-bootstrap"),
-                              spec.resampling.bootstrap)
+                              spec.resampling.bootstrap, r.analysis.robust)
     return {str(rows[i]["adjustment"]): shares[:, j] for j, i in enumerate(ok_rows)}
 
 
@@ -243,7 +306,8 @@ def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
     if not ok_rows:
         return pd.DataFrame(rows, columns=list(COLUMNS))
     shares = replicate_shares(r.family, models, r.outcome,
-                              spec.rng(r.analysis.name, "information-bootstrap"), replicates)
+                              spec.rng(r.analysis.name, "information-bootstrap"), replicates,
+                              r.analysis.robust)
     alpha = (1 - LEVEL) / 2
     for j, i in enumerate(ok_rows):
         s = shares[:, j]

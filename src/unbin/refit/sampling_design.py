@@ -39,15 +39,16 @@ def absolute_risk_reason(a: Analysis) -> str:
 
 
 def bootstrap_reason(a: Analysis) -> str:
-    """Why the row-resampling bootstrap refits (``information_bootstrap``,
-    ``decision_resampling``) do not apply to this design ('' when they do): they refit the
-    ordinary likelihood on resampled single rows, not Firth's penalty or matched sets."""
+    """Why the bootstrap refits (``information_bootstrap``, ``decision_resampling``) do not
+    apply to this design ('' when they do): they refit the ordinary (weighted) likelihood on
+    resampled rows or clusters (``unbin.models.weighted.design_resample_weights``), not
+    Firth's penalty or the conditional likelihood of matched sets."""
     if a.design.firth:
         return ("the fits are Firth-penalised and the bootstrap refits are not; no interval is "
                 "computed")
     if a.design.matched_set:
-        return ("the bootstrap resamples single rows, not matched sets; no interval is "
-                "computed")
+        return ("the bootstrap refits the unconditional likelihood, not the conditional one of "
+                "matched sets; no interval is computed")
     return ""
 
 
