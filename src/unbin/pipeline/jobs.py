@@ -449,10 +449,10 @@ def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir:
 
 def draw_figures(spec_path: str | Path, cohort: str, figures_dir: str | Path) -> None:
     """One cohort's figures into ``figures_dir`` (``<run>/figures/<cohort>``), from the run's
-    study-level tables."""
+    study-level tables of the cohorts' jobs (the pooled ones are the report's)."""
     from ..present import report
 
-    report.draw_cohort_figures(Path(figures_dir).parent.parent, spec_path, cohort)
+    report.draw_cohort_figures(Path(figures_dir).parent.parent, spec_path, cohort, STUDY_TABLES)
 
 
 def build_report(spec_path: str | Path, report_path: str | Path) -> None:
