@@ -45,7 +45,8 @@ from collections.abc import Sequence
 import numpy as np
 from scipy import special
 
-from ..models.cox import Layout, baseline_cumhaz
+from ..models.cox import Layout
+from ..models.cox.baseline import baseline_steps
 from .risk import cumhaz_at, horizon_notes
 
 # The marginal contrasts reported per family: (name, kind); "ratio" contrasts are taken on the
@@ -127,8 +128,8 @@ def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
     coef = np.asarray(coef, dtype=float)
     eta = X @ coef
     centre = float(np.mean(eta)) if eta.size else 0.0  # baseline at the centred predictor
-    base = baseline_cumhaz((eta - centre)[:, None], time, event, [1.0], entry=entry,
-                           strata=strata, layout=layout)
+    base = baseline_steps((eta - centre)[:, None], time, event, [1.0], entry=entry,
+                          strata=strata, layout=layout)
     h0, held, empty = cumhaz_at(base, strata, X.shape[0], horizon)
     rest = eta - centre - X[:, :k] @ coef[:k]
     out = np.empty(len(at))
@@ -172,15 +173,14 @@ def cif_risks(X: np.ndarray, k: int, coefs: Sequence[np.ndarray], at: Sequence[n
         b = np.asarray(b, dtype=float)
         eta = X @ b
         centre = float(np.mean(eta)) if eta.size else 0.0
-        base = baseline_cumhaz((eta - centre)[:, None], time, (cause == c).astype(float), [1.0],
-                               entry=entry, strata=strata,
-                               layout=layout if j == 0 else (
-                                   None if other_layouts is None else other_layouts[j - 1]))
+        base = baseline_steps((eta - centre)[:, None], time, (cause == c).astype(float), [1.0],
+                              entry=entry, strata=strata,
+                              layout=layout if j == 0 else (
+                                  None if other_layouts is None else other_layouts[j - 1]))
         if j == 0:
             _, held, empty = cumhaz_at(base, strata, n, horizon)
             note = horizon_notes(horizon, held, empty, strata is not None)
-        bases.append((base["stratum"].to_numpy(), base["time"].to_numpy(float),
-                      base["cumhaz"].to_numpy(float)))
+        bases.append(base)
         rests.append(eta - centre - X[:, :k] @ b[:k])
         slopes.append(b[:k])
     shifts = np.array([[float(np.asarray(a, dtype=float) @ s) for s in slopes] for a in at])
