@@ -41,8 +41,11 @@ def derived_basis_analyses(spec: Spec) -> list[str]:
     return [a.name for a in spec.analyses if not a.continuous.basis_fixed]
 
 
-def basis_params(spec: Spec, analyses: Sequence[str]) -> str:
-    """What decides whether the analyses' common bases are recomputed (beyond their inputs)."""
+def basis_params(spec: Spec, analyses: str | Sequence[str]) -> str:
+    """What decides whether an analysis' common basis (or, given several, their common bases)
+    is recomputed (beyond the inputs)."""
+    if isinstance(analyses, str):
+        return f"spec={digest(spec.slice_for(analyses))} unbin={__version__}"
     return f"spec={digest({a: spec.slice_for(a) for a in analyses})} unbin={__version__}"
 
 
