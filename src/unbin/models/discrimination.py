@@ -13,8 +13,8 @@ to the arrays they were made from, so that they serve only the same arrays."""
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
+from ..distributions import stats
 from .base import Outcome
 
 

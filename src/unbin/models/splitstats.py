@@ -43,8 +43,9 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import linalg, special, stats
+from scipy import linalg, special
 
+from ..distributions import stats
 from . import fit
 from .base import Outcome
 

@@ -40,7 +40,7 @@ from ..results.tables import read_table, write_table
 from ..spec import Analysis, Spec, digest, load_spec
 from ..spec.missing import missing_options
 from ..terms.legacy import legacy_term
-from .imputed import analyse_imputed
+from .workflow_support import derived_basis_analyses
 
 if TYPE_CHECKING:
     from ..refit.analysis import Refit
@@ -147,6 +147,8 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
     """
     a = spec.analysis(analysis)
     if missing_options(spec, analysis).imputed:  # multiple imputation: its own module
+        from .imputed import analyse_imputed
+
         return analyse_imputed(spec, cohort, analysis, frame, basis, resampling=resampling)
     status: dict[str, Any] = {"status": "ok", "message": "", "n_input": len(frame), "n_used": 0,
                               "family": a.family, "exposure": a.exposure}
@@ -199,6 +201,12 @@ def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
     prov_base = dict(inputs=[rec], spec_digest=digest(spec.slice_for(analysis, cohort)),
                      seed=spec.seed, study=spec.study)
     try:
+        basis = None
+        if basis_path is not None:
+            saved = json.loads(Path(basis_path).read_text())
+            if saved.get("status") == "failed":
+                raise DataError(saved["message"])
+            basis = CommonBasis.from_dict(saved)
         frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
     except UnbinError as exc:
         frame = pd.DataFrame()
@@ -209,9 +217,6 @@ def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
                                            "exposure": a.exposure}])}
         status = tables["status"].iloc[0].to_dict()
     else:
-        basis = None
-        if basis_path is not None:
-            basis = CommonBasis.from_dict(json.loads(Path(basis_path).read_text()))
         tables, status = analyse(spec, cohort, analysis, frame, basis, resampling=False)
     out = Path(outdir)
     for name in FIT_JOB_TABLES:
@@ -244,40 +249,52 @@ def collect_tables(spec_path: str | Path, work: str | Path, tables_dir: str | Pa
 # --------------------------------------------------------------------------- consortium mode
 
 
-def summarise_sample(spec_path: str | Path, cohort: str, analysis: str, out: str | Path) -> None:
-    """A cohort's share-safe summary of one analysis' exposure (for the common basis)."""
+def summarise_sample(spec_path: str | Path, cohort: str, outdir: str | Path) -> None:
+    """A cohort's share-safe summaries of the exposures of the analyses whose common basis is
+    derived (for the common bases), one file per analysis: ``outdir/<analysis>.json``."""
+    analyses = derived_basis_analyses(load_spec(spec_path))
     spec = load_spec(spec_path).for_cohort(cohort)
-    a = spec.analysis(analysis)
-    summary: dict[str, Any] = {"cohort": cohort, "analysis": analysis, "status": "ok"}
-    try:
-        frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
-        problems = _type_problems(a, frame, spec)
-        if problems:
-            raise DataError(" ".join(problems))
-        sample = analysis_sample(frame, a, spec)
-        if sample.n < MIN_SAMPLE_ROWS:
-            raise DataError(f"only {sample.n} rows in the analysis sample")
-        x = sample.frame[a.exposure].to_numpy(float)
-        summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous,
-                                      spec.min_cell))
-    except UnbinError as exc:
-        summary.update(status="failed", message=str(exc))
-    Path(out).parent.mkdir(parents=True, exist_ok=True)
-    Path(out).write_text(json.dumps(summary, sort_keys=True, indent=1))
+    Path(outdir).mkdir(parents=True, exist_ok=True)
+    for analysis in analyses:
+        a = spec.analysis(analysis)
+        summary: dict[str, Any] = {"cohort": cohort, "analysis": analysis, "status": "ok"}
+        try:
+            frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
+            problems = _type_problems(a, frame, spec)
+            if problems:
+                raise DataError(" ".join(problems))
+            sample = analysis_sample(frame, a, spec)
+            if sample.n < MIN_SAMPLE_ROWS:
+                raise DataError(f"only {sample.n} rows in the analysis sample")
+            x = sample.frame[a.exposure].to_numpy(float)
+            summary.update(sample_summary(x, legacy_term(x, a.exposure, spec), a.continuous,
+                                          spec.min_cell))
+        except UnbinError as exc:
+            summary.update(status="failed", message=str(exc))
+        (Path(outdir) / f"{analysis}.json").write_text(json.dumps(summary, sort_keys=True,
+                                                                  indent=1))
 
 
-def common_basis(spec_path: str | Path, analysis: str, summaries: list[str],
-                 out: str | Path) -> None:
+def common_basis(spec_path: str | Path, summary_dirs: Sequence[str | Path],
+                 outdir: str | Path) -> None:
+    """The common basis (``outdir/<analysis>.json``) of each analysis that derives one, from
+    the cohorts' summaries (``<summary_dir>/<analysis>.json``, one folder per cohort). An
+    analysis that no cohort could summarise gets a file with ``status: failed`` and the
+    reason, which its fit jobs record; the other analyses go on."""
     spec = load_spec(spec_path)
-    a = spec.analysis(analysis)
-    usable = [d for d in (json.loads(Path(p).read_text()) for p in summaries)
-              if d["status"] == "ok"]
-    if not usable:
-        raise DataError(f"analysis {analysis!r}: no cohort could summarise its sample; see the "
-                        "summaries/ folder for each cohort's message.")
-    basis = combine(usable, a.continuous)
-    Path(out).parent.mkdir(parents=True, exist_ok=True)
-    Path(out).write_text(json.dumps(basis.to_dict(), sort_keys=True, indent=1))
+    Path(outdir).mkdir(parents=True, exist_ok=True)
+    for analysis in derived_basis_analyses(spec):
+        a = spec.analysis(analysis)
+        usable = [d for d in (json.loads((Path(p) / f"{analysis}.json").read_text())
+                              for p in summary_dirs) if d["status"] == "ok"]
+        if usable:
+            out = combine(usable, a.continuous).to_dict()
+        else:
+            out = {"status": "failed",
+                   "message": f"analysis {analysis!r}: no cohort could summarise its sample "
+                              "for the common basis; see the summaries/ folder for each "
+                              "cohort's message."}
+        (Path(outdir) / f"{analysis}.json").write_text(json.dumps(out, sort_keys=True, indent=1))
 
 
 BUNDLE_SOURCES = ("fits", "curves", "effects", "coefficients", "common_contrasts", "status",
@@ -432,10 +449,10 @@ def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir:
 
 def draw_figures(spec_path: str | Path, cohort: str, figures_dir: str | Path) -> None:
     """One cohort's figures into ``figures_dir`` (``<run>/figures/<cohort>``), from the run's
-    study-level tables."""
+    study-level tables of the cohorts' jobs (the pooled ones are the report's)."""
     from ..present import report
 
-    report.draw_cohort_figures(Path(figures_dir).parent.parent, spec_path, cohort)
+    report.draw_cohort_figures(Path(figures_dir).parent.parent, spec_path, cohort, STUDY_TABLES)
 
 
 def build_report(spec_path: str | Path, report_path: str | Path) -> None:

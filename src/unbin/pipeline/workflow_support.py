@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import logging
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from functools import cache
 from importlib import resources
@@ -33,9 +33,27 @@ def analysis_params(spec: Spec, cohort: str, analysis: str) -> str:
             f"unbin={__version__}")
 
 
-def basis_params(spec: Spec, analysis: str) -> str:
-    """What decides whether an analysis' common basis is recomputed (beyond its inputs)."""
-    return f"spec={digest(spec.slice_for(analysis))} unbin={__version__}"
+def derived_basis_analyses(spec: Spec) -> list[str]:
+    """The analyses whose common basis (knots, reference, grid) is derived from the cohorts'
+    summaries: with several cohorts, those whose spec does not fix it."""
+    if len(spec.cohorts) < 2:
+        return []
+    return [a.name for a in spec.analyses if not a.continuous.basis_fixed]
+
+
+def basis_params(spec: Spec, analyses: str | Sequence[str]) -> str:
+    """What decides whether an analysis' common basis (or, given several, their common bases)
+    is recomputed (beyond the inputs)."""
+    if isinstance(analyses, str):
+        return f"spec={digest(spec.slice_for(analyses))} unbin={__version__}"
+    return f"spec={digest({a: spec.slice_for(a) for a in analyses})} unbin={__version__}"
+
+
+def basis_cohort_params(spec: Spec, cohort: str, analyses: Sequence[str]) -> str:
+    """What decides whether a cohort's summaries of the analyses are recomputed."""
+    c = spec.cohort(cohort)
+    slices = {a: spec.slice_for(a, cohort) for a in analyses}
+    return f"extract={_sha(str(c.path))} spec={digest(slices)} unbin={__version__}"
 
 
 def cohort_params(spec: Spec, cohort: str) -> str:

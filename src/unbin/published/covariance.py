@@ -25,7 +25,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import optimize
+
+from ..distributions import stats
 
 Z95 = float(stats.norm.ppf(0.975))
 KINDS = ("odds", "risk", "rate")

@@ -15,8 +15,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
+from ..distributions import stats
 from ..terms import SplineTerm
 
 

@@ -280,7 +280,7 @@ class _Designs:
         entry = None if o.entry is None else o.entry[m]
         strata = None if o.strata is None else o.strata[m]
         cause = o.cause[m]
-        coefs = [coef]
+        coefs, lays = [coef], []
         for c, full in zip(self.causes[1:], it.others, strict=True):
             if not full.ok:
                 return np.full(2, np.nan)
@@ -300,8 +300,9 @@ class _Designs:
             if not fitted.converged or not np.all(np.isfinite(fitted.coef)):
                 return np.full(2, np.nan)
             coefs.append(fitted.coef)
+            lays.append(lay)
         return cif_risks(Xm, it.k, coefs, it.at, o.time[m], cause, self.causes, self.horizon,
-                         entry=entry, strata=strata, layout=layout)[0]
+                         entry=entry, strata=strata, layout=layout, other_layouts=lays)[0]
 
 
 @dataclass(frozen=True)

@@ -73,8 +73,8 @@ from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from ..distributions import stats
 from ..models.base import Outcome
 from ..models.splitstats import (  # noqa: F401  (the corrected p-values are part of this API)
     ALTMAN_COEFFICIENTS,

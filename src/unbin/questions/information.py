@@ -33,8 +33,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from ..distributions import stats
 from ..models.discrimination import c_index
 from ..refit.analysis import FormFit, Refit
 from ..refit.interaction import SPLINE, level_models

@@ -19,7 +19,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+
+from ..distributions import stats
 
 Z = 0.975  # two-sided 95% intervals
 

@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from ..distributions import stats
 from ..models import RATIO_FAMILIES
 from .analysis import FormFit
 

@@ -44,8 +44,8 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
-from scipy import stats
 
+from ..distributions import stats
 from ..models.base import FitResult, Outcome, failed_fit
 from ..models.cox.fit import newton_step
 from ..terms import FPTerm, LinearTerm, Term

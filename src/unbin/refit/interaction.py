@@ -24,8 +24,8 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
+from ..distributions import stats
 from ..models import fit
 from ..models.base import FitResult, failed_fit
 from ..terms import GroupedTerm, SplineTerm, Term

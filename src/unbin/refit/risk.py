@@ -165,16 +165,21 @@ def survival_base(r: Refit, eta: np.ndarray, horizon: float) -> tuple[np.ndarray
     return log_h0, horizon_notes(horizon, held, empty, o.strata is not None)
 
 
-def cumhaz_at(base: pd.DataFrame, strata: np.ndarray | None, n: int,
+def cumhaz_at(base: pd.DataFrame | tuple[np.ndarray, np.ndarray, np.ndarray],
+              strata: np.ndarray | None, n: int,
               horizon: float) -> tuple[np.ndarray, list[str], list[str]]:
     """H0_s(horizon) for each of ``n`` rows from a :func:`unbin.models.cox.baseline_cumhaz` table
-    (step function; 0 before the stratum's first event time, held at its last value past the
-    last one), with the strata whose baseline is held and those with no event by the horizon."""
+    (or its columns from :func:`unbin.models.cox.baseline.baseline_steps`; a step function, 0
+    before the stratum's first event time, held at its last value past the last one), with the
+    strata whose baseline is held and those with no event by the horizon."""
     labels = np.zeros(n, dtype=np.int64) if strata is None else np.asarray(strata)
     held: list[str] = []
     # the table's rows run by stratum, then time (one block of event times per stratum)
-    st = base["stratum"].to_numpy()
-    t, ch = base["time"].to_numpy(float), base["cumhaz"].to_numpy(float)
+    if isinstance(base, tuple):
+        st, t, ch = base[0], np.asarray(base[1], dtype=float), np.asarray(base[2], dtype=float)
+    else:
+        st = base["stratum"].to_numpy()
+        t, ch = base["time"].to_numpy(float), base["cumhaz"].to_numpy(float)
     order = np.argsort(st, kind="stable")
     st, t, ch = st[order], t[order], ch[order]
     uniq, first = np.unique(st, return_index=True)

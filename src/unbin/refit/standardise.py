@@ -45,7 +45,8 @@ from collections.abc import Sequence
 import numpy as np
 from scipy import special
 
-from ..models.cox import Layout, baseline_cumhaz
+from ..models.cox import Layout
+from ..models.cox.baseline import baseline_steps
 from .risk import cumhaz_at, horizon_notes
 
 # The marginal contrasts reported per family: (name, kind); "ratio" contrasts are taken on the
@@ -127,8 +128,8 @@ def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
     coef = np.asarray(coef, dtype=float)
     eta = X @ coef
     centre = float(np.mean(eta)) if eta.size else 0.0  # baseline at the centred predictor
-    base = baseline_cumhaz((eta - centre)[:, None], time, event, [1.0], entry=entry,
-                           strata=strata, layout=layout)
+    base = baseline_steps((eta - centre)[:, None], time, event, [1.0], entry=entry,
+                          strata=strata, layout=layout)
     h0, held, empty = cumhaz_at(base, strata, X.shape[0], horizon)
     rest = eta - centre - X[:, :k] @ coef[:k]
     out = np.empty(len(at))
@@ -139,15 +140,28 @@ def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
     return out, horizon_notes(horizon, held, empty, strata is not None)
 
 
+def _distinct_rows(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct rows of the 2-d array ``a`` (in lexicographic order) and how often each
+    occurs."""
+    if a.shape[0] == 0:
+        return a, np.zeros(0, dtype=np.int64)
+    s = a[np.lexsort(a.T[::-1])]
+    first = np.flatnonzero(np.r_[True, np.any(s[1:] != s[:-1], axis=1)])
+    return s[first], np.diff(np.r_[first, a.shape[0]])
+
+
 def cif_risks(X: np.ndarray, k: int, coefs: Sequence[np.ndarray], at: Sequence[np.ndarray],
               time: np.ndarray, cause: np.ndarray, causes: Sequence[int], horizon: float, *,
               entry: np.ndarray | None = None, strata: np.ndarray | None = None,
-              layout: Layout | None = None, block: int = 512) -> tuple[np.ndarray, str]:
+              layout: Layout | None = None,
+              other_layouts: Sequence[Layout | None] | None = None,
+              block: int = 256) -> tuple[np.ndarray, str]:
     """Standardised cumulative incidences of ``causes[0]`` by ``horizon`` (module docstring)
     from the cause-specific Cox models of every cause in ``causes`` (``coefs[j]`` the
     coefficients of cause ``causes[j]`` on ``X``; no intercept), on the rows given, at each
     exposure basis row in ``at``. ``layout`` is the Cox layout of ``causes[0]``'s event
-    indicator (the other causes lay theirs out here). Rows are taken ``block`` at a time.
+    indicator; ``other_layouts`` those of ``causes[1:]`` (laid out here when not given). Rows
+    are taken ``block`` at a time.
     Returns (incidences, note on the horizon)."""
     X = np.asarray(X, dtype=float)
     cause = np.asarray(cause)
@@ -159,36 +173,43 @@ def cif_risks(X: np.ndarray, k: int, coefs: Sequence[np.ndarray], at: Sequence[n
         b = np.asarray(b, dtype=float)
         eta = X @ b
         centre = float(np.mean(eta)) if eta.size else 0.0
-        base = baseline_cumhaz((eta - centre)[:, None], time, (cause == c).astype(float), [1.0],
-                               entry=entry, strata=strata, layout=layout if j == 0 else None)
+        base = baseline_steps((eta - centre)[:, None], time, (cause == c).astype(float), [1.0],
+                              entry=entry, strata=strata,
+                              layout=layout if j == 0 else (
+                                  None if other_layouts is None else other_layouts[j - 1]))
         if j == 0:
             _, held, empty = cumhaz_at(base, strata, n, horizon)
             note = horizon_notes(horizon, held, empty, strata is not None)
         bases.append(base)
         rests.append(eta - centre - X[:, :k] @ b[:k])
         slopes.append(b[:k])
+    shifts = np.array([[float(np.asarray(a, dtype=float) @ s) for s in slopes] for a in at])
+    rest_all = np.column_stack(rests)  # (n, causes)
     out = np.zeros(len(at))
     for lab in np.unique(labels):
-        rows = np.flatnonzero(labels == lab)
+        rows = labels == lab
         steps = []
         for base in bases:
-            part = base[(base["stratum"] == lab) & (base["time"] <= horizon)]
-            cum = part["cumhaz"].to_numpy(float)
-            steps.append((part["time"].to_numpy(float), np.diff(cum, prepend=0.0)))
+            st, t, cum = base
+            part = (st == lab) & (t <= horizon)
+            steps.append((t[part], np.diff(cum[part], prepend=0.0)))
         grid = np.unique(np.concatenate([t for t, _ in steps]))
         if grid.size == 0:
             continue
         D = np.zeros((len(steps), grid.size))  # baseline increments of each cause on the grid
         for j, (t, d) in enumerate(steps):
             D[j, np.searchsorted(grid, t)] = d
-        for a_i, a in enumerate(at):
-            shift = [float(np.asarray(a, dtype=float) @ s) for s in slopes]
-            for r0 in range(0, rows.size, block):
-                rb = rows[r0:r0 + block]
+        # rows with the same predictors (a replicate's rows drawn more than once) share one
+        # incidence, counted as often as they occur
+        rest_u, count = _distinct_rows(rest_all[rows])
+        for a_i, shift in enumerate(shifts):
+            for r0 in range(0, count.size, block):
                 with np.errstate(over="ignore"):
-                    risk = [np.exp(rest[rb] + sh) for rest, sh in zip(rests, shift, strict=True)]
-                inc = [r[:, None] * D[j][None, :] for j, r in enumerate(risk)]
-                factor = np.clip(1.0 - np.sum(inc, axis=0), 0.0, None)
-                before = np.cumprod(np.hstack([np.ones((rb.size, 1)), factor[:, :-1]]), axis=1)
-                out[a_i] += float(np.sum(before * inc[0]))
+                    risk = np.exp(rest_u[r0:r0 + block] + shift)  # (rows, causes)
+                # S_i(t-) is the product of the factors before t: F_i = sum_t S_i(t-) dL_1i(t)
+                factor = 1.0 - risk @ D
+                np.maximum(factor, 0.0, out=factor)
+                np.cumprod(factor, axis=1, out=factor)
+                before_d = D[0, 0] + factor[:, :-1] @ D[0, 1:]
+                out[a_i] += float(count[r0:r0 + block] @ (risk[:, 0] * before_d))
     return out / n, note

@@ -3,6 +3,7 @@ No timestamps: the same inputs give byte-identical results."""
 
 from __future__ import annotations
 
+from functools import cache
 from importlib import metadata
 from typing import Any
 
@@ -13,13 +14,19 @@ METADATA_KEY = b"unbin"
 
 
 def versions() -> dict[str, str]:
+    return dict(_versions())
+
+
+@cache
+def _versions() -> tuple[tuple[str, str], ...]:
+    """Looked up once per process (each lookup scans the installed packages' metadata)."""
     out = {"unbin": __version__}
     for dep in DEPENDENCIES:
         try:
             out[dep] = metadata.version(dep)
         except metadata.PackageNotFoundError:
             out[dep] = "not installed"
-    return out
+    return tuple(out.items())
 
 
 def provenance(inputs: list[dict[str, Any]], spec_digest: str, seed: int, table: str,

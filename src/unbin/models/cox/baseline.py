@@ -33,6 +33,24 @@ def baseline_cumhaz(
     ``coef``. If x = 0 is far outside the data, H0 may underflow: centre X first.
     ``layout`` is as for :func:`fit_cox`.
     """
+    stratum, times, cum = baseline_steps(X, time, event, coef, entry=entry, strata=strata,
+                                         weights=weights, layout=layout)
+    return pd.DataFrame({"stratum": stratum, "time": times, "cumhaz": cum})
+
+
+def baseline_steps(
+    X: Any,
+    time: Any,
+    event: Any,
+    coef: Any,
+    *,
+    entry: Any | None = None,
+    strata: Any | None = None,
+    weights: Any | None = None,
+    layout: Layout | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The columns of :func:`baseline_cumhaz` as arrays (stratum, time, cumhaz), for callers
+    that need many baselines (a bootstrap) and no table."""
     Xa, L = _design_and_layout(X, layout, time, event, entry, strata, weights)
     p = Xa.shape[1]
     b = _as_1d("coef", coef, None)
@@ -44,7 +62,7 @@ def baseline_cumhaz(
     s0 = _risk_sums(L, np.asarray(L.risk_op @ (L.w * np.exp(shifted)))[:, None])[0]
     K = L.wsum.size
     if K == 0:
-        return pd.DataFrame({"stratum": L.labels[:0], "time": np.zeros(0), "cumhaz": np.zeros(0)})
+        return L.labels[:0], np.zeros(0), np.zeros(0)
     # undo the per-stratum shift of eta: H0 = sum(W / S0_shifted) * exp(-shift); the strata
     # with rows at risk are exactly those with event times, in code order
     shift_of_stratum = np.zeros(L.n_strata)
@@ -52,7 +70,7 @@ def baseline_cumhaz(
     with np.errstate(over="ignore", under="ignore"):
         hazard = L.wsum / s0 * np.exp(-shift_of_stratum[L.k_stratum])
     cum = _forward_cum(L, hazard)[1:]
-    return pd.DataFrame({"stratum": L.labels[L.k_stratum], "time": L.k_time, "cumhaz": cum})
+    return L.labels[L.k_stratum], L.k_time, cum
 
 
 def predict_risk(

@@ -36,8 +36,9 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import linalg, stats
+from scipy import linalg
 
+from ...distributions import stats
 from .inputs import _check_finite, _design
 from .layout import Layout, _given_layout, _prepare, _risk_sums, _scaled, _shifted_eta
 

@@ -70,9 +70,11 @@ def _kinds() -> tuple[Kind, ...]:
 KINDS: tuple[Kind, ...] = _kinds()
 
 
-def load_tables(tables_dir: str | Path) -> dict[str, pd.DataFrame]:
-    """Every study-level table in ``tables_dir`` by name."""
-    return {p.stem: read_table(p) for p in sorted(Path(tables_dir).glob("*.parquet"))}
+def load_tables(tables_dir: str | Path,
+                names: Sequence[str] | None = None) -> dict[str, pd.DataFrame]:
+    """Every study-level table in ``tables_dir`` (or those of ``names`` there) by name."""
+    paths = sorted(Path(tables_dir).glob("*.parquet"))
+    return {p.stem: read_table(p) for p in paths if names is None or p.stem in names}
 
 
 def group_dir(figures_dir: Path, cohort: str | None) -> Path:

@@ -13,8 +13,8 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from ...distributions import stats
 from .base import Context, Drawn, finite, per_analysis
 from .parts import row_axis, value_ticks
 from .style import GRID, INK, LEGACY, MUTED, NEUTRAL, SPLINE, fmt_number, new_figure, title

@@ -5,6 +5,7 @@ beyond the spec's own: the same tables and spec give the same bytes."""
 from __future__ import annotations
 
 import shutil
+from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import partial
 from importlib import metadata, resources
@@ -111,12 +112,14 @@ def check_spec_matches(spec: Spec, tables_dir: Path) -> None:
                          "the workflow.")
 
 
-def draw_cohort_figures(out: str | Path, spec_path: str | Path, cohort: str) -> list[FigureFile]:
-    """One cohort's figures (a workflow job of their own) into ``out/figures/<cohort>/``."""
+def draw_cohort_figures(out: str | Path, spec_path: str | Path, cohort: str,
+                        tables: Sequence[str] | None = None) -> list[FigureFile]:
+    """One cohort's figures (a workflow job of their own) into ``out/figures/<cohort>/``, from
+    the study-level tables named in ``tables`` (None: every one in ``out/tables``)."""
     out = Path(out)
     spec = load_spec(spec_path)
     check_spec_matches(spec, out / "tables")
-    ctx = Context(load_tables(out / "tables"), spec)
+    ctx = Context(load_tables(out / "tables", tables), spec)
     return draw_figures(ctx, out / FIGURES_DIR, cohorts=[cohort], study=False)
 
 

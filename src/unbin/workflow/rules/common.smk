@@ -8,8 +8,10 @@ from unbin.consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
 from unbin.pipeline.jobs import FIT_JOB_TABLES, JOB_TABLES, RESAMPLING_TABLES, STUDY_TABLES
 from unbin.pipeline.workflow_support import (
     analysis_params,
+    basis_cohort_params,
     basis_params,
     cohort_params,
+    derived_basis_analyses,
     study_params,
 )
 from unbin.published.spec import published_studies
@@ -39,9 +41,8 @@ UNBIN_CONSORTIUM = len(UNBIN_COHORTS) > 1
 UNBIN_PUBLISHED_TABLES = (
     list(PUBLISHED_TABLES) if UNBIN_CONSORTIUM and published_studies(UNBIN_SPEC.raw) else []
 )
-UNBIN_DERIVED_BASIS = {
-    a.name: UNBIN_CONSORTIUM and not a.continuous.basis_fixed for a in UNBIN_SPEC.analyses
-}
+UNBIN_BASIS_ANALYSES = derived_basis_analyses(UNBIN_SPEC)
+UNBIN_DERIVED_BASIS = {a: a in UNBIN_BASIS_ANALYSES for a in UNBIN_ANALYSES}
 
 # Bookkeeping rules run in the main process, not as cluster jobs: each says so itself
 # (`localrule: True`), which survives a consumer's `use rule * from unbin as unbin_*` (a

@@ -3,35 +3,35 @@
 # sample summaries (never from pooled rows), and the bundles are pooled into tables/pooled_*.
 
 
+# One job per cohort summarises every analysis that needs a derived common basis
+# (summaries/<cohort>/<analysis>.json); one job derives all the common bases from them.
 rule summarise_sample:
     input:
         extract=lambda w: str(UNBIN_SPEC.cohort(w.cohort).path),
     output:
-        "summaries/{cohort}/{analysis}.json",
+        directory("summaries/{cohort}"),
     log:
-        "logs/summarise/{cohort}/{analysis}.log",
+        "logs/summarise/{cohort}.log",
     benchmark:
-        "benchmarks/summarise_sample/{cohort}/{analysis}.tsv"
+        "benchmarks/summarise_sample/{cohort}.tsv"
     params:
-        digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
+        digests=lambda w: basis_cohort_params(UNBIN_SPEC, w.cohort, UNBIN_BASIS_ANALYSES),
     script:
         "../scripts/summarise_sample.py"
 
 
 rule common_basis:
     input:
-        lambda w: expand(
-            "summaries/{cohort}/{analysis}.json", cohort=UNBIN_COHORTS, analysis=w.analysis
-        ),
+        expand("summaries/{cohort}", cohort=UNBIN_COHORTS),
     output:
-        "common/{analysis}.json",
+        expand("common/{analysis}.json", analysis=UNBIN_BASIS_ANALYSES),
     log:
-        "logs/common/{analysis}.log",
+        "logs/common.log",
     benchmark:
-        "benchmarks/common_basis/{analysis}.tsv"
+        "benchmarks/common_basis/all.tsv"
     localrule: True
     params:
-        digests=lambda w: basis_params(UNBIN_SPEC, w.analysis),
+        digests=basis_params(UNBIN_SPEC, UNBIN_BASIS_ANALYSES),
     script:
         "../scripts/common_basis.py"
 

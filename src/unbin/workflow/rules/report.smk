@@ -8,9 +8,11 @@ UNBIN_REPORT_TABLES = (
 )
 
 
+# A cohort's figures need only the tables of the cohorts' jobs: they are drawn while the
+# bundles are pooled.
 rule draw_figures:
     input:
-        expand("tables/{table}.parquet", table=UNBIN_REPORT_TABLES),
+        expand("tables/{table}.parquet", table=STUDY_TABLES),
     output:
         directory("figures/{cohort}"),
     log:
