@@ -533,9 +533,7 @@ def test_frequency_weights_split_statistics(tables: Any, expanded: Any) -> None:
 # --------------------------------------------------------------------- the run summary
 
 
-@pytest.mark.parametrize("name", [_marks(n, dict.fromkeys(
-    ("sampling", "cluster", "imputed"), "the summary pairs information's info_kept with the "
-    "interval of information_bootstrap's own, different, info_kept")) for n in DESIGNS])
+@pytest.mark.parametrize("name", DESIGNS)
 def test_summary_pairs_the_point_with_its_own_interval(tables: Any, name: str) -> None:
     """The summary's "info kept" shows a bootstrap interval only beside the point that the
     bootstrap resampled: the interval's own table must print that same point."""
