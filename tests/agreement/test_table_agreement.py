@@ -481,8 +481,6 @@ def test_frequency_weights_count_persons(tables: Any, expanded: Any) -> None:
           ["form", "detail", "adjustment"], ["n", "events", "bic"])
 
 
-@pytest.mark.xfail(strict=True, reason="as_published counts rows, not the persons frequency "
-                   "weights stand for")
 def test_frequency_weights_published_table_counts_persons(tables: Any, expanded: Any) -> None:
     """The grouped table a paper would print counts persons: cases, participants, the group
     medians and the table route's slope equal the expanded rows'."""
