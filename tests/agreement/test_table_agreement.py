@@ -430,6 +430,8 @@ def test_frequency_weights_match_statsmodels_on_expanded_rows(tables: Any) -> No
     f = fits[(fits["form"] == "legacy") & (fits["adjustment"] == "legacy")].iloc[0]
     np.testing.assert_allclose(f["loglik"], fit.llf, rtol=1e-8)
     np.testing.assert_allclose(f["aic"], fit.aic, rtol=1e-8)
+    np.testing.assert_allclose(f["bic"], fit.bic_llf, rtol=1e-8)
+    assert f["n"] == len(rows) and f["events"] == rows["y"].sum()
 
 
 def _same(a: pd.DataFrame, b: pd.DataFrame, keys: list[str], cols: list[str]) -> None:
@@ -468,17 +470,12 @@ def test_frequency_weights_equal_expanded_rows_in_the_fits(tables: Any, expanded
           ["ratio", "ratio_lower", "ratio_upper"])
 
 
-FREQ_COUNTS = ("with frequency weights the counts are rows, not the persons they stand for: "
-               "FitResult.n and events (models/binary.py, count.py, survival.py, _glm.py count "
-               "outcome.n and y.sum() unweighted), hence fits n, events and bic (log n), "
-               "replication n and events, ranges n")
-
-
-@pytest.mark.xfail(strict=True, reason=FREQ_COUNTS)
 def test_frequency_weights_count_persons(tables: Any, expanded: Any) -> None:
+    """fits' n, events and BIC (log n) and replication's n and events are the expanded rows'."""
     a, b = tables["frequency"], expanded
     _same(a["fits"].query(FIXED_DESIGNS), b["fits"].query(FIXED_DESIGNS),
           ["form", "detail", "adjustment"], ["n", "events", "bic"])
+    _same(a["replication"], b["replication"], ["contrast"], ["n", "events"])
 
 
 def test_frequency_weights_published_table_counts_persons(tables: Any, expanded: Any) -> None:
