@@ -395,6 +395,58 @@ def test_curves_agree_with_effects(tables: Any, name: str) -> None:
             groups["x_value"] - groups["x_reference"]), rtol=1e-7, atol=1e-10)
 
 
+@pytest.mark.parametrize("name", DESIGNS)
+def test_information_repeats_the_fits(tables: Any, name: str) -> None:
+    """``information``'s per-form columns are the selected fits' (C, AIC, exposure df; and the
+    LR χ² wherever ``statistic`` says likelihood ratio: robust Wald and imputation-combined
+    statistics are other quantities, named so)."""
+    t = tables[name]
+    info = t["information"].set_index("adjustment")
+    fits = t["fits"]
+    fits = fits[fits["selected"].astype(bool) & fits["form"].isin(["legacy", "linear", "spline",
+                                                                   "fp"])]
+    assert len(fits) >= 11
+    for r in fits.itertuples():
+        row = info.loc[r.adjustment]
+        np.testing.assert_allclose(row[f"aic_{r.form}"], r.aic, rtol=1e-12)
+        if name not in ("count", "linear", "cluster"):
+            np.testing.assert_allclose(row[f"c_{r.form}"], r.c_index, rtol=1e-12)
+        if f"df_{r.form}" in row:
+            assert row[f"df_{r.form}"] == r.exposure_df
+        if row["statistic"] == "likelihood ratio":
+            np.testing.assert_allclose(row[f"lr_{r.form}"], r.lr_chi2, rtol=1e-9)
+    np.testing.assert_allclose(info["delta_c"], info["c_spline"] - info["c_legacy"], rtol=1e-9,
+                               atol=1e-15)
+    if name in ("plain", "frequency", "competing", "strata", "count", "linear"):
+        assert (info["statistic"] == "likelihood ratio").all()
+
+
+def test_subdistribution_cause_specific_columns_are_the_effects(tables: Any) -> None:
+    """``subdistribution``'s cause-specific hazard ratios are ``effects``' contrasts of the same
+    groups at the same exposure values."""
+    t = tables["competing"]
+    sd, e = t["subdistribution"], t["effects"]
+    e = e[(e["contrast_type"] == "group") & (e["by_level"] == "")]
+    m = sd.merge(e, on=["form", "adjustment", "group"], suffixes=("", "_e"), validate="one_to_one")
+    assert len(m) == len(sd) >= 12
+    for a, b in (("x_value", "x_value_e"), ("x_reference", "x_reference_e"),
+                 ("cs_effect", "effect_e"), ("cs_effect_lower", "effect_lower_e"),
+                 ("cs_effect_upper", "effect_upper_e")):
+        np.testing.assert_allclose(m[a], m[b], rtol=1e-9, err_msg=a)
+
+
+@pytest.mark.parametrize("name", RISK_DESIGNS)
+def test_thresholds_cross_at_their_threshold(tables: Any, name: str) -> None:
+    """At an implied threshold the model's risk is the threshold (its definition), and the
+    crossing lies inside the range searched."""
+    th = tables[name]["thresholds"]
+    c = th[(th["crossing"] > 0) & (th["status"] == "ok")]
+    assert len(c) >= 1
+    np.testing.assert_allclose(c["risk_at_value"], c["threshold"], atol=1e-9)
+    assert ((c["exposure_value"] >= c["range_lower"]) & (c["exposure_value"]
+                                                          <= c["range_upper"])).all()
+
+
 # --------------------------------------------------------------------- frequency weights
 
 
