@@ -447,6 +447,55 @@ def test_thresholds_cross_at_their_threshold(tables: Any, name: str) -> None:
                                                           <= c["range_upper"])).all()
 
 
+def _effect(e: pd.DataFrame, form: str, adjustment: str, contrast_type: str,
+            x_value: float | None = None) -> pd.Series:
+    rows = e[(e["form"] == form) & (e["adjustment"] == adjustment)
+             & (e["contrast_type"] == contrast_type) & (e["by_level"] == "")]
+    if x_value is not None:
+        rows = rows[np.isclose(rows["x_value"].astype(float), x_value, rtol=1e-12)]
+    assert len(rows) == 1, (form, adjustment, contrast_type, x_value)
+    return rows.iloc[0]
+
+
+@pytest.mark.parametrize("name", [n for n in DESIGNS if n != "imputed"])
+def test_confounding_conditional_rows_are_the_effects(tables: Any, name: str) -> None:
+    """``confounding``'s conditional (model-scale) rows are ``effects``' contrasts: the linear
+    exposure's 75th vs 25th percentile and the legacy group farthest from the reference, crude
+    (adjustment none), grouped (legacy) and continuous adjustment, same values and SEs. (An
+    imputed analysis' confounding table is on complete cases, as documented.)"""
+    t = tables[name]
+    c = t["confounding"]
+    c = c[(c["scale_kind"] == "conditional") & (c["scope"] == "all")]
+    assert set(c["exposure_form"]) == {"linear", "legacy"}
+    for r in c.to_dict("records"):
+        for column, adjustment in (("crude", "none"), ("grouped", "legacy"),
+                                   ("continuous", "continuous")):
+            if r["exposure_form"] == "linear":
+                e = _effect(t["effects"], "linear", adjustment, "iqr")
+            else:
+                e = _effect(t["effects"], "legacy", adjustment, "group", r["x_value"])
+            np.testing.assert_allclose([r["x_value"], r["x_reference"]],
+                                       [e["x_value"], e["x_reference"]], rtol=1e-12)
+            np.testing.assert_allclose([r[f"estimate_{column}"], r[f"se_{column}"]],
+                                       [e["estimate"], e["se"]], rtol=1e-7,
+                                       err_msg=f"{r['exposure_form']} {column}")
+
+
+@pytest.mark.parametrize("name", DESIGNS)
+def test_untrimmed_ranges_are_the_effects(tables: Any, name: str) -> None:
+    """``ranges``' untrimmed rows are ``effects``' contrasts of the same form, coding and
+    exposure values."""
+    t = tables[name]
+    r = t["ranges"]
+    r = r[(r["trim"] == "none") & (r["status"] == "ok")]
+    assert len(r) >= 3
+    for row in r.to_dict("records"):
+        e = _effect(t["effects"], row["form"], row["adjustment"], "group", row["x_value"])
+        np.testing.assert_allclose([row["x_reference"], row["estimate"], row["se"]],
+                                   [e["x_reference"], e["estimate"], e["se"]], rtol=1e-7,
+                                   err_msg=f"{row['form']}/{row['adjustment']}")
+
+
 # --------------------------------------------------------------------- frequency weights
 
 
