@@ -255,6 +255,20 @@ def test_a_question_that_cannot_apply_says_so(tables: Any, name: str) -> None:
                 assert (text.str.strip() != "").all(), (table, bad.head())
 
 
+@pytest.mark.parametrize("name", RISK_DESIGNS)
+def test_decision_tables_that_ignore_weights_say_so(tables: Any, name: str) -> None:
+    """``net_benefit`` and ``calibration`` count every row once (README: not yet weighted);
+    under weights each of their rows says so, without weights none does."""
+    for table in ("net_benefit", "calibration"):
+        df = tables[name][table]
+        ok = df[df["status"] == "ok"]
+        said = ok["note"].astype(str).str.contains("weights are not used here")
+        weighted = name in ("frequency", "sampling")
+        assert len(ok) and (said.all() if weighted else not said.any()), table
+        if weighted:
+            assert ok["note"].astype(str).str.contains(f"{name} weights").all()
+
+
 # --------------------------------------------------------------------- one quantity, one number
 
 
