@@ -323,6 +323,43 @@ def test_c_index_information_vs_decision_resampling(tables: Any, name: str) -> N
         np.testing.assert_allclose(r.estimate, info.loc[r.adjustment, "delta_c"], rtol=1e-9)
 
 
+COMPETING_DECISIONS = ("with competing events decision_resampling ignores them "
+                       "(questions/decision_resampling.py calls net_benefit_km without the cause "
+                       "codes, and its risks are 1 - cause-specific survival): its net benefit is "
+                       "by 1 - Kaplan-Meier with competing events censored and its calibration "
+                       "slope is 1 by construction, while net_benefit uses Aalen-Johansen and the "
+                       "Fine-Gray risks (treat all at 0.2: 0.217 against 0.160) and calibration "
+                       "gives 1.09")
+IMPUTED_DECISIONS = ("under missing: impute decision_resampling runs on complete cases, while "
+                     "net_benefit and calibration are averaged over the imputed sets")
+
+
+@pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS,
+                                             "imputed": IMPUTED_DECISIONS})
+                                  for n in RISK_DESIGNS])
+def test_decision_resampling_estimates_are_the_decision_tables(tables: Any, name: str) -> None:
+    """decision_resampling's full-sample net benefits and calibration slopes are the
+    ``net_benefit`` and ``calibration`` tables' numbers for the same rule and threshold."""
+    t = tables[name]
+    dr = t["decision_resampling"]
+    nb, cal = t["net_benefit"], t["calibration"]
+    q = dr[(dr["quantity"] == "net benefit") & (dr["status"] == "ok")]
+    assert len(q) >= 4
+    for r in q.to_dict("records"):
+        m = nb[(nb["rule"] == r["rule"]) & (nb["adjustment"] == r["adjustment"])
+               & np.isclose(nb["threshold"].astype(float), r["threshold"], atol=1e-9)]
+        assert len(m) == 1, r["rule"]
+        np.testing.assert_allclose(r["estimate"], m["net_benefit"].iloc[0], rtol=1e-9,
+                                   atol=1e-12, err_msg=r["rule"])
+    slopes = dr[(dr["quantity"] == "calibration slope") & (dr["status"] == "ok")]
+    assert len(slopes) >= 3
+    for r in slopes.to_dict("records"):
+        m = cal[(cal["row_kind"] == "slope") & (cal["model"] == r["model"])
+                & (cal["adjustment"] == r["adjustment"])]
+        np.testing.assert_allclose(r["apparent"], m["estimate"].iloc[0], rtol=1e-7,
+                                   err_msg=r["model"])
+
+
 def test_c_index_against_scipy(tables: Any) -> None:
     """The legacy model's C (an AUC for a binary outcome) against the Mann-Whitney U statistic
     of statsmodels' fitted linear predictor (scipy.stats.mannwhitneyu; Hanley & McNeil 1982)."""
