@@ -331,7 +331,7 @@ COMPETING_DECISIONS = ("with competing events decision_resampling ignores them "
                        "Fine-Gray risks (treat all at 0.2: 0.217 against 0.160) and calibration "
                        "gives 1.09")
 IMPUTED_DECISIONS = ("under missing: impute decision_resampling runs on complete cases, while "
-                     "net_benefit and calibration are averaged over the imputed sets")
+                     "net_benefit, calibration and thresholds come from the imputed sets")
 
 
 @pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS,
@@ -358,6 +358,26 @@ def test_decision_resampling_estimates_are_the_decision_tables(tables: Any, name
                 & (cal["adjustment"] == r["adjustment"])]
         np.testing.assert_allclose(r["apparent"], m["estimate"].iloc[0], rtol=1e-7,
                                    err_msg=r["model"])
+
+
+@pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS,
+                                             "imputed": IMPUTED_DECISIONS})
+                                  for n in RISK_DESIGNS])
+def test_decision_resampling_thresholds_are_the_thresholds_table(tables: Any, name: str) -> None:
+    """decision_resampling's implied thresholds (median risk profile) are the ``thresholds``
+    table's crossings at profile quantile 0.5."""
+    t = tables[name]
+    dr, th = t["decision_resampling"], t["thresholds"]
+    q = dr[(dr["quantity"] == "implied threshold") & (dr["status"] == "ok")]
+    mid = th[(th["profile_quantile"] == 0.5) & (th["crossing"] > 0) & (th["level"] == "all")
+             & th["model"].isin(["legacy", "linear", "spline"])]  # the resampled models
+    assert len(q) == len(mid)  # the same crossings (none when the median profile has none)
+    for r in q.to_dict("records"):
+        m = mid[(mid["model"] == r["model"]) & (mid["adjustment"] == r["adjustment"])
+                & (mid["crossing"] == r["crossing"])
+                & np.isclose(mid["threshold"].astype(float), r["threshold"], atol=1e-9)]
+        assert len(m) == 1, (r["model"], r["crossing"])
+        np.testing.assert_allclose(r["estimate"], m["exposure_value"].iloc[0], rtol=1e-7)
 
 
 def test_c_index_against_scipy(tables: Any) -> None:
