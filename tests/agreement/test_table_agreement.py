@@ -567,6 +567,31 @@ def test_untrimmed_ranges_are_the_effects(tables: Any, name: str) -> None:
                                    err_msg=f"{row['form']}/{row['adjustment']}")
 
 
+def test_windows_agree_with_fits_effects_and_the_rows() -> None:
+    """Follow-up windows (strata design, a cut at 2): each window's events are the rows' events
+    in it (counted here) and add up to the fits' events; the group rows sit at effects' group
+    medians; each change test has (windows - 1) x the form's columns as df."""
+    frame, raw = design("strata")
+    raw["analyses"][0]["outcome"]["follow_up_windows"] = [2]
+    raw["resampling"] = {"bootstrap": 0, "permutations": 0}
+    t = run(frame, raw)
+    w, e, fits = t["windows"], t["effects"], t["fits"]
+    groups = w[w["row_type"] == "group"]
+    per_window = groups.groupby("window")["events"].first()
+    died = frame["e"] == 1
+    assert per_window["0-2"] == int((died & (frame["t"] <= 2)).sum())
+    assert per_window["2+"] == int((died & (frame["t"] > 2)).sum())
+    assert per_window.sum() == fits["events"].iloc[0]
+    for r in groups.to_dict("records"):
+        g = _effect(e, "legacy", r["adjustment"], "group", r["x"])
+        assert g["contrast"] == r["group"]
+        np.testing.assert_allclose(r["x_reference"], g["x_reference"], rtol=1e-12)
+    tests = w[w["row_type"] == "test"].set_index(["form", "adjustment"])
+    assert (tests.xs("legacy", level="form")["df"] == 2).all()  # 2 group columns x 1
+    assert (tests.xs("test_spline", level="form")["df"] == 3).all()  # 4 knots: 3 columns
+    assert (tests["lr"] >= 0).all() and (tests["status"] == "ok").all()
+
+
 # --------------------------------------------------------------------- frequency weights
 
 
