@@ -269,6 +269,20 @@ def test_decision_tables_that_ignore_weights_say_so(tables: Any, name: str) -> N
             assert ok["note"].astype(str).str.contains(f"{name} weights").all()
 
 
+@pytest.mark.parametrize("name", DESIGNS)
+def test_replicate_counts_add_up(tables: Any, name: str) -> None:
+    """Every resampling table ran the spec's 30 replicates: used or failed, none lost."""
+    t = tables[name]
+    ib = t["information_bootstrap"]
+    assert (ib["replicates"] == 30).all() and (ib["replicates_used"] <= 30).all()
+    c = t["confounding"]
+    assert ((c["bootstrap_ok"] + c["bootstrap_failed"]) == c["bootstrap"]).all()
+    assert (c["bootstrap"] == 30).all()
+    dr = t["decision_resampling"]
+    dr = dr[dr["status"] == "ok"]
+    assert ((dr["bootstrap_ok"] + dr["bootstrap_failed"]) == 30).all()
+
+
 # --------------------------------------------------------------------- one quantity, one number
 
 
