@@ -48,6 +48,15 @@ class Outcome:
     def n(self) -> int:
         return int(self.y.shape[0])
 
+    def counted(self, values: np.ndarray | None = None) -> float:
+        """A count over the sample's rows (of ``values`` per row, else of rows) with each row
+        counted as the persons it stands for: its frequency weight; sampling weights estimate,
+        they do not count, so the rows count once then."""
+        v = np.ones(self.n) if values is None else np.asarray(values, dtype=float)
+        if self.weights is not None and self.weight_kind == "frequency":
+            return float(np.asarray(self.weights, dtype=float) @ v)
+        return float(v.sum())
+
     def subset(self, mask: np.ndarray) -> Outcome:
         def pick(a: np.ndarray | None) -> np.ndarray | None:
             return None if a is None else a[mask]

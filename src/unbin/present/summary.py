@@ -76,9 +76,11 @@ def effect(e: Any, lo: Any, hi: Any, scale: Any) -> str:
 
 def kept_interval(tables: Tables, cohort: str, analysis: str, adjustment: str = "legacy") -> str:
     """The bootstrap interval of the information kept, when the ``information_bootstrap`` table
-    exists and has an ok row for this analysis; else an empty string."""
+    exists and has an ok row for this analysis whose own ``info_kept`` is the ``information``
+    table's (an interval of another quantity, e.g. a resampled likelihood-ratio share beside a
+    robust Wald share, is never printed beside the point); else an empty string."""
     boot = _t(tables, "information_bootstrap")
-    need = {"cohort", "analysis", "adjustment", "info_kept_lower", "info_kept_upper"}
+    need = {"cohort", "analysis", "adjustment", "info_kept", "info_kept_lower", "info_kept_upper"}
     if boot.empty or not need <= set(boot.columns):
         return ""
     rows = _of(boot, cohort, analysis)
@@ -88,6 +90,15 @@ def kept_interval(tables: Tables, cohort: str, analysis: str, adjustment: str = 
     if rows.empty:
         return ""
     r = rows.iloc[0]
+    info = _t(tables, "information")
+    if info.empty or not {"analysis", "adjustment", "info_kept"} <= set(info.columns):
+        return ""
+    point = _of(info, cohort, analysis)
+    point = point.loc[point["adjustment"].astype(str) == adjustment, "info_kept"]
+    if point.empty or not (text.finite(point.iloc[0]) and text.finite(r["info_kept"])
+                           and math.isclose(float(point.iloc[0]), float(r["info_kept"]),
+                                            rel_tol=1e-9, abs_tol=1e-12)):
+        return ""
     return text.span(r["info_kept_lower"], r["info_kept_upper"], "percent")
 
 

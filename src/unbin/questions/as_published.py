@@ -7,6 +7,8 @@ Rows ``row_type`` = "group": per legacy group its bounds, median, cases and the 
 adjusted ratio against the reference group with its 95% interval — the rows a ``published:``
 study in the spec takes. Counts partition the sample, so they go through complementary
 suppression (``questions.disclosure``); a table with a withheld count is not re-analysed.
+Under frequency weights a row counts as the persons it stands for (counts, person-time and the
+group medians are those of the rows repeated by their weights).
 
 Rows ``row_type`` = "route": the per-unit log-ratio slope from the table (assigned exposures =
 the group medians, Greenland–Longnecker covariance, GLS; ``unbin.published``) beside the same
@@ -46,16 +48,38 @@ DESIGN = {"binary": "cohort_participants", "count": "cohort_person_time",
           "survival": "cohort_person_time"}
 
 
-def _other_counts(r: Refit, codes: np.ndarray, k: int) -> np.ndarray:
+def _persons(r: Refit) -> np.ndarray:
+    """How many persons each row stands for: its frequency weight, else 1 (sampling weights
+    estimate, they do not count: the table counts the extract's rows)."""
+    o = r.outcome
+    if o.weights is not None and o.weight_kind == "frequency":
+        return np.asarray(o.weights, dtype=float)
+    return np.ones(len(r.x))
+
+
+def _median(x: np.ndarray, w: np.ndarray) -> float:
+    """The median of ``x`` with each value repeated ``w`` times (the plain median when every
+    w is 1): the mean of the middle one or two of the repeated values."""
+    if not len(x):
+        return float("nan")
+    order = np.argsort(x, kind="stable")
+    xs, cw = x[order], np.cumsum(w[order])
+    total = cw[-1]
+    lo, hi = np.floor((total - 1) / 2), np.ceil((total - 1) / 2)
+    pick = np.searchsorted(cw, [lo, hi], side="right").clip(0, len(xs) - 1)
+    return float(xs[pick].mean())
+
+
+def _other_counts(r: Refit, codes: np.ndarray, k: int, persons: np.ndarray) -> np.ndarray:
     o = r.outcome
     if r.family == "binary":
-        return np.bincount(codes, minlength=k).astype(float)
+        return np.bincount(codes, weights=persons, minlength=k)
     if r.family == "count":
         pt = np.exp(o.offset) if o.offset is not None else np.ones(len(codes))
     else:
         start = o.entry if o.entry is not None else np.zeros(len(codes))
         pt = np.asarray(o.time, dtype=float) - np.asarray(start, dtype=float)
-    return np.bincount(codes, weights=pt, minlength=k)
+    return np.bincount(codes, weights=pt * persons, minlength=k)
 
 
 def as_published_table(r: Refit, spec: Spec) -> pd.DataFrame:
@@ -67,14 +91,16 @@ def as_published_table(r: Refit, spec: Spec) -> pd.DataFrame:
     lg = r.legacy
     k = len(lg.labels)
     codes = lg.codes(r.x)
-    cases = np.bincount(codes, weights=np.asarray(r.outcome.y, dtype=float), minlength=k)
-    other = _other_counts(r, codes, k)
+    persons = _persons(r)
+    cases = np.bincount(codes, weights=np.asarray(r.outcome.y, dtype=float) * persons,
+                        minlength=k)
+    other = _other_counts(r, codes, k, persons)
     shown = complementary([int(round(c)) for c in cases], spec.min_cell)
     if r.family == "binary":
-        shown_other: list[Any] = complementary([int(v) for v in other], spec.min_cell)
+        shown_other: list[Any] = complementary([int(round(v)) for v in other], spec.min_cell)
     else:
         shown_other = [float(v) for v in other]
-    medians = [float(np.median(r.x[codes == g])) if (codes == g).any() else np.nan
+    medians = [_median(r.x[codes == g], persons[codes == g]) if (codes == g).any() else np.nan
                for g in range(k)]
     ref = lg.reference
     rows: list[dict[str, Any]] = []

@@ -57,7 +57,7 @@ from ..refit.risk import RiskFit, link
 from ..spec import Spec
 from ..terms import SplineTerm
 from . import disclosure
-from .decisions import EVENT_FAMILIES, decision_models, typed_table
+from .decisions import EVENT_FAMILIES, decision_models, design_not_used, typed_table
 
 TENTHS = 10
 SMOOTH_POINTS = 25
@@ -333,7 +333,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
     y = np.asarray(outcome.y, dtype=float)
     common = {"model": rf.model, "adjustment": rf.adjustment, "detail": rf.detail,
               "status": "ok", "reason": "",
-              "note": " | ".join(v for v in (APPARENT, rf.note) if v)}
+              "note": " | ".join(v for v in (APPARENT, rf.note, design_not_used(outcome)) if v)}
     if not np.all(np.isfinite(pred)):
         return [{**common, "status": "failed",
                  "reason": "predicted risks are not finite for some rows"}]

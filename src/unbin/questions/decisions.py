@@ -31,6 +31,18 @@ CURVE_FORMS = ("linear", "spline", "fp")
 EVENT_FAMILIES = frozenset({"binary", "survival"})
 
 
+def design_not_used(outcome: Any, clusters: bool = True) -> str:
+    """The note of a decision table that counts every row once: which of the analysis' weights
+    (and, for tables with intervals, clusters) it does not use; "" when there are none."""
+    parts = [f"{outcome.weight_kind} weights"] if outcome.weights is not None else []
+    if clusters and outcome.cluster is not None:
+        parts.append("clusters")
+    if not parts:
+        return ""
+    return (f"the analysis' {' and '.join(parts)} are not used here: every row counts once, "
+            "as an independent row (the models' fitted risks do use them)")
+
+
 def thresholds_for(a: Analysis, spec: Spec) -> tuple[float, ...]:
     """The analysis' own thresholds, else the study's (binary and survival outcomes only)."""
     if a.risk_thresholds is not None:

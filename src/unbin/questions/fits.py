@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pandas as pd
 
-from ..models.base import Outcome
+from ..models.base import FitResult, Outcome
 from ..models.discrimination import c_index
 from ..models.robust import variance_label
 from ..refit.analysis import Refit
@@ -34,6 +34,24 @@ def person_time(outcome: Outcome) -> float:
     return float(np.sum(each))
 
 
+def frequency_weighted(outcome: Outcome) -> bool:
+    return outcome.weights is not None and outcome.weight_kind == "frequency"
+
+
+def counted(res: FitResult, outcome: Outcome) -> tuple[int, int | None, float]:
+    """A fit's n, events and BIC with each row counted as the persons its frequency weight
+    says (the expanded rows' numbers; a count outcome's events are its counts summed); the
+    fit's own without frequency weights."""
+    if not frequency_weighted(outcome):
+        return res.n, res.events, res.bic
+    n = int(round(outcome.counted()))
+    events = (None if res.events is None
+              else int(round(outcome.counted(np.asarray(outcome.y, dtype=float)))))
+    # BIC: events as n for Cox models (Volinsky & Raftery 2000), rows otherwise
+    n_eff = events if (res.family == "survival" and events) else n
+    return n, events, float(-2.0 * res.loglik + np.log(max(n_eff, 1)) * res.n_params)
+
+
 def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     """One row per fitted model: size, likelihood, AIC, concordance and its bases as JSON."""
     rows = []
@@ -41,6 +59,7 @@ def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     nulls = {f.adjustment: f.result for f in r.fits if f.form == "null"}
     for f in r.fits:
         res = f.result
+        n, events, bic = counted(res, r.outcome)
         null = nulls.get(f.adjustment)
         lr = 2 * (res.loglik - null.loglik) if (null is not None and null.ok and res.ok) else np.nan
         df_exp = sum(t.df for t in f.exposure_terms)
@@ -52,15 +71,15 @@ def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             "detail": f.detail,
             "adjustment": f.adjustment,
             "selected": bool(f.selected),
-            "n": res.n,
-            "events": res.events if res.events is not None else pd.NA,
+            "n": n,
+            "events": events if events is not None else pd.NA,
             "person_time": follow_up,
             "n_params": res.n_params,
             "exposure_df": df_exp,
             "loglik": res.loglik,
             "lr_chi2": lr,
             "aic": res.aic if res.ok else np.nan,
-            "bic": res.bic if res.ok else np.nan,
+            "bic": bic if res.ok else np.nan,
             "c_index": c,
             "r2": res.extra.get("r2", np.nan),
             "variance": variance_label(res),

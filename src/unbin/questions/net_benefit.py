@@ -24,7 +24,7 @@ import pandas as pd
 from ..refit.analysis import Refit
 from ..spec import Spec
 from ..terms import GroupedTerm
-from .decisions import EVENT_FAMILIES, decision_models, finish
+from .decisions import EVENT_FAMILIES, decision_models, design_not_used, finish
 
 NB_GRID = np.arange(1, 100) / 100.0
 APPARENT = ("apparent: the model was fitted to these rows, so its net benefit is optimistic "
@@ -213,7 +213,9 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
                      "adjustment": adjustment, "method": method, "status": "failed",
                      "reason": message})
     parts = [finish(rows, COLUMNS)] if rows else []
+    unused = design_not_used(r.outcome, clusters=False)  # no intervals: clusters do not matter
     for name, kind, model, adjustment, positive, risk, note in rules:
+        note = " | ".join(v for v in (note, unused) if v)
         value, tp, fp = nb(positive, risk)
         if prevalence is not None:
             treated = tp + fp

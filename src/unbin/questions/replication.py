@@ -64,9 +64,9 @@ def replication_table(r: Refit, spec: Spec) -> pd.DataFrame:
     row: dict[str, Any] = {"contrast": rep.contrast, "adjustment": "legacy",
                            "reported_effect": rep.estimate, "reported_lower": rep.lower,
                            "reported_upper": rep.upper, "scale": EFFECT_SCALE[r.family],
-                           "n": r.outcome.n}
+                           "n": int(round(r.outcome.counted()))}  # persons: frequency weights
     if r.family != "continuous":
-        row["events"] = int(round(float(np.sum(r.outcome.y))))
+        row["events"] = int(round(r.outcome.counted(np.asarray(r.outcome.y, dtype=float))))
     row["reported_estimate"] = float(g(rep.estimate))
     row["reported_se"] = reported_se(rep.lower, rep.upper, ratio)
     group, ref = rep.groups()
