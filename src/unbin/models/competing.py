@@ -206,7 +206,8 @@ def fine_gray_outcome(outcome: Outcome, cause: np.ndarray, event_of_interest: in
 
 
 def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_interest: int,
-                  names: tuple[str, ...], bootstrap: int = 0, seed: int = 0) -> FitResult:
+                  names: tuple[str, ...], bootstrap: int = 0,
+                  seed: int | np.random.Generator = 0) -> FitResult:
     """The Fine–Gray model of one design: coefficients are log subdistribution hazard ratios,
     the covariance cluster-robust (module docstring), or with ``bootstrap`` = B > 0 the
     covariance of B bootstrap refits (:func:`fine_gray_bootstrap_cov`; the sandwich is then in
@@ -261,11 +262,12 @@ def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_i
 
 def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
                             event_of_interest: int, names: tuple[str, ...], replicates: int,
-                            seed: int = 0) -> tuple[np.ndarray, int]:
+                            seed: int | np.random.Generator = 0) -> tuple[np.ndarray, int]:
     """The covariance of the Fine–Gray coefficients over ``replicates`` nonparametric bootstrap
     resamples of the persons (of the clusters when the outcome has them, Efron & Tibshirani
     1993, ch. 6), the censoring and entry distributions re-estimated in each (module
-    docstring), and how many refits failed (left out; all NaN when fewer than two fitted)."""
+    docstring), and how many refits failed (left out; all NaN when fewer than two fitted).
+    ``seed`` is an integer or a numpy Generator (drawn from as given)."""
     from . import fit
 
     X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
