@@ -54,5 +54,7 @@ def test_incidence_intervals_cover_the_true_standardised_contrast() -> None:
 def test_incidence_intervals_coverage_500_replicates() -> None:
     """As above with 500 replicates of n = 400 and 100 bootstrap replicates each (the check's
     defaults): coverage 0.925..0.975 (about the 99% binomial band around 0.95, MC SD 1.0
-    point), half-width ratio 0.85..1.15 (the SD's relative MC SE is about 3%)."""
+    point), half-width ratio 0.85..1.15 (the SD's relative MC SE is about 3%). Measured so
+    far (README's checks table): 92.9% and 92.6% over 350 replicates, so this test sits near
+    its lower limit and may fail if the percentile intervals run narrow at n = 400."""
     _check(CHECK.run(500, 1), 0.925, 0.975, (0.85, 1.15))
