@@ -31,7 +31,7 @@ CHECKS_DIR = Path(__file__).resolve().parent / "checks"
 # Replicates per check by default: 2,000 (a Monte-Carlo SE of 0.005 at a 5% rate), except the
 # confounding check (1,000), each of whose replicates is itself a 200-replicate bootstrap.
 DEFAULT_REPLICATES = 2000
-REPLICATES = {"confounding": 1000, "fine_gray": 1000}
+REPLICATES = {"confounding": 1000, "fine_gray": 1000, "competing_confounding": 500}
 
 
 def available() -> list[str]:

@@ -215,6 +215,59 @@ def test_weight_estimation_scores_are_the_derivative_of_the_score(delayed: bool)
     assert np.abs(got).max() > 1e-3  # the terms are not all zero
 
 
+@pytest.mark.parametrize("delayed", [False, True])
+def test_weight_estimation_scores_under_efron_ties(delayed: bool) -> None:
+    """Heavily tied times (rounded up to 0.1, so every event time holds several events): the
+    Efron-form terms (the fit's default ties) against central finite differences (step 1e-5)
+    of the Efron score summed from ``cox_scores(ties="efron")`` (itself checked against a
+    brute-force weighted Efron score, Efron 1977, in tests/models/test_robust.py), over an
+    expansion whose censoring and entry
+    weights are recomputed with the perturbed weights; case weights not all 1; tolerance 1e-6
+    absolute. The Breslow-form terms miss the same derivative by more (the check can fail)."""
+    from unbin.models.competing import (
+        censoring_survival_before,
+        entry_distribution,
+        weight_estimation_scores,
+    )
+    from unbin.models.robust import cox_scores
+
+    rng = np.random.default_rng(59)
+    x, t, c, entry = _simulate(120, 0.5, rng, delayed=delayed)
+    t = np.ceil(t * 10) / 10  # still after entry
+    X = np.column_stack([x, rng.normal(size=t.size)])
+    w = rng.uniform(0.5, 2.0, t.size)
+    o = Outcome("survival", (c == 1).astype(float), time=t, entry=entry, weights=w,
+                weight_kind="sampling")
+    res = fit_fine_gray(X, o, c, 1, ("x", "z"))
+    data = fine_gray_data(t, c, 1, entry=entry, weights=w)
+    assert np.bincount(np.unique(t[c == 1], return_inverse=True)[1]).max() >= 3
+    got = weight_estimation_scores(X, o, c, 1, data, res.coef, ties="efron")
+    breslow = weight_estimation_scores(X, o, c, 1, data, res.coef, ties="breslow")
+    n = t.size
+    who, stop = data.person[n:], data.stop[n:]
+
+    def score(v: np.ndarray) -> np.ndarray:
+        ratio = (censoring_survival_before(t, c, entry, v, stop)
+                 * entry_distribution(t, entry, v, stop)
+                 / (censoring_survival_before(t, c, entry, v, t[who])
+                    * entry_distribution(t, entry, v, t[who])))
+        ex = Outcome("survival", data.event, time=data.stop, entry=data.start,
+                     weights=np.concatenate([w, w[who] * ratio]))
+        return cox_scores(data.take(X), ex, res.coef, ties="efron").sum(axis=0)
+
+    h = 1e-5
+    miss = 0.0
+    for person in range(0, n, 5):
+        up, down = w.copy(), w.copy()
+        up[person] += h
+        down[person] -= h
+        fd = w[person] * (score(up) - score(down)) / (2 * h)
+        np.testing.assert_allclose(got[person], fd, atol=1e-6)
+        miss = max(miss, float(np.abs(breslow[person] - fd).max()))
+    assert miss > 1e-4  # 100 times the tolerance
+    assert np.abs(got).max() > 1e-3  # the terms are not all zero
+
+
 def test_fine_gray_bootstrap_covariance_equals_refits_by_hand() -> None:
     """The bootstrap covariance (``bootstrap=B``) against B resamples drawn here with the same
     generator calls, each expanded afresh (its own censoring and entry weights) and refitted

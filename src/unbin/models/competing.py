@@ -206,7 +206,8 @@ def fine_gray_outcome(outcome: Outcome, cause: np.ndarray, event_of_interest: in
 
 
 def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_interest: int,
-                  names: tuple[str, ...], bootstrap: int = 0, seed: int = 0) -> FitResult:
+                  names: tuple[str, ...], bootstrap: int = 0,
+                  seed: int | np.random.Generator = 0) -> FitResult:
     """The Fine–Gray model of one design: coefficients are log subdistribution hazard ratios,
     the covariance cluster-robust (module docstring), or with ``bootstrap`` = B > 0 the
     covariance of B bootstrap refits (:func:`fine_gray_bootstrap_cov`; the sandwich is then in
@@ -241,7 +242,8 @@ def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_i
         scores = np.zeros((outcome.n, X.shape[1]))
         np.add.at(scores, data.person, cox_scores(Xe, expanded, res.coef,
                                                   ties=str(res.extra.get("ties", "efron"))))
-        scores += weight_estimation_scores(X, outcome, cause, event_of_interest, data, res.coef)
+        scores += weight_estimation_scores(X, outcome, cause, event_of_interest, data, res.coef,
+                                           ties=str(res.extra.get("ties", "efron")))
         clusters = np.arange(outcome.n) if outcome.cluster is None else outcome.cluster
         V, _ = sandwich(np.asarray(res.extra["model_cov"]), scores, clusters)
         if np.all(np.isfinite(V)):
@@ -261,11 +263,12 @@ def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_i
 
 def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
                             event_of_interest: int, names: tuple[str, ...], replicates: int,
-                            seed: int = 0) -> tuple[np.ndarray, int]:
+                            seed: int | np.random.Generator = 0) -> tuple[np.ndarray, int]:
     """The covariance of the Fine–Gray coefficients over ``replicates`` nonparametric bootstrap
     resamples of the persons (of the clusters when the outcome has them, Efron & Tibshirani
     1993, ch. 6), the censoring and entry distributions re-estimated in each (module
-    docstring), and how many refits failed (left out; all NaN when fewer than two fitted)."""
+    docstring), and how many refits failed (left out; all NaN when fewer than two fitted).
+    ``seed`` is an integer or a numpy Generator (drawn from as given)."""
     from . import fit
 
     X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
@@ -302,7 +305,7 @@ def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
 
 def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
                              event_of_interest: int, data: FineGrayData,
-                             coef: np.ndarray) -> np.ndarray:
+                             coef: np.ndarray, ties: str = "efron") -> np.ndarray:
     """Each person's influence, through the estimated censoring and entry distributions, on
     the Fine–Gray score at ``coef`` (n x p): the derivative of the score with respect to the
     person's weight in ``G`` and ``H`` alone (an infinitesimal jackknife; Fine & Gray 1999,
@@ -312,8 +315,14 @@ def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
     H(T_j))``; its log changes by ``-dLc(u) / (1 - dLc(u))`` for each censoring-hazard step
     ``dLc(u)`` at T_j <= u < t_k and by ``dLe(s) / (1 - dLe(s))`` for each reversed-time entry
     hazard step ``dLe(s) = d(s) / R(s)`` at T_j <= s < t_k. The score moves with that row's
-    weight by ``-a_jk``, ``a_jk = (x_j - xbar(t_k)) w_jk r_j dN1(t_k) / S0(t_k)`` (Breslow
-    form). With ``q(u)`` the sums of ``a_jk`` over the rows spanning u, a person l's term is
+    weight by ``-a_jk``, ``a_jk = (x_j - xbar(t_k)) w_jk r_j dN1(t_k) / S0(t_k)`` in the
+    Breslow form (``ties="breslow"``, or no tied events). In Efron's form (``ties="efron"``,
+    the fit's default) the d tied events at t_k each carry the mean weight ``wavg`` of the
+    tied events and the denominators ``S0 - f T0``, f = 0, 1/d, ..., (d-1)/d (T0, T1: the
+    tied events' sums of ``w r`` and ``w r x``), so ``a_jk = w_jk r_j sum_f wavg (x_j -
+    xbar_f) / (S0 - f T0)`` with ``xbar_f = (S1 - f T1) / (S0 - f T0)`` (the added rows are
+    never events, so they are in no tied set). With ``q(u)`` the sums of ``a_jk`` over the
+    rows spanning u, a person l's term is
     ``sum_u q(u) / (1 - dLc(u)) w_l (dNc_l(u) - Yc_l(u) dLc(u)) / Yc(u)`` for censoring minus
     the same sum over the entry steps with ``1(entry_l = s) - 1(entry_l <= s < time_l) dLe(s)``
     and ``R(s)``."""
@@ -328,7 +337,8 @@ def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
     added = np.flatnonzero(np.arange(data.stop.size) >= n)
     if p == 0 or added.size == 0:
         return out
-    a = _weight_row_terms(X, outcome, c == event_of_interest, data, coef, added)
+    a = _weight_row_terms(X, outcome, c == event_of_interest, data, coef, added,
+                          efron=ties == "efron")
     spans = (time[data.person[added]], data.stop[added])
     cens = c == 0
     ct = np.unique(time[cens])
@@ -382,8 +392,9 @@ def _spanned(a: np.ndarray, grid: np.ndarray, spans: tuple[np.ndarray, np.ndarra
 
 
 def _weight_row_terms(X: np.ndarray, outcome: Outcome, mine: np.ndarray, data: FineGrayData,
-                      coef: np.ndarray, added: np.ndarray) -> np.ndarray:
-    """``a_jk`` (weight_estimation_scores) for the added rows of the expansion, per stratum."""
+                      coef: np.ndarray, added: np.ndarray, efron: bool = False) -> np.ndarray:
+    """``a_jk`` (weight_estimation_scores) for the added rows of the expansion, per stratum
+    (``efron``: Efron's form at the event times holding tied events)."""
     Xe = data.take(X)
     eta = Xe @ np.asarray(coef, dtype=float)
     r = np.exp(eta - (eta.max() if eta.size else 0.0))
@@ -402,12 +413,48 @@ def _weight_row_terms(X: np.ndarray, outcome: Outcome, mine: np.ndarray, data: F
         S0 = _at_risk(lo, hi, wr, K)
         S1 = np.column_stack([_at_risk(lo, hi, wr * Xe[rows, j], K) for j in range(p)])
         ev = rows[data.event[rows] > 0]
-        d1 = np.bincount(np.searchsorted(tk, data.stop[ev]), data.weight[ev], K)
+        kev = np.searchsorted(tk, data.stop[ev])
+        d1 = np.bincount(kev, data.weight[ev], K)
         safe = S0 > 0
-        xbar = S1 / np.where(safe, S0, 1.0)[:, None]
-        h = np.where(safe, d1 / np.where(safe, S0, 1.0), 0.0)
+        S0s = np.where(safe, S0, 1.0)
+        # per event time: A0 = sum over its events of wavg / den, A1 = sum wavg S1_f / den^2;
+        # Breslow (one event, or ties="breslow"): A0 = d1 / S0, A1 = d1 S1 / S0^2
+        A0 = np.where(safe, d1 / S0s, 0.0)
+        A1 = S1 * (A0 / S0s)[:, None]
+        counts = np.bincount(kev, minlength=K)
+        if efron and np.any(counts > 1):
+            A0, A1 = _efron_sums(A0, A1, S0, S1, kev, counts, data.weight[ev],
+                                 (data.weight[ev] * r[ev])[:, None] * Xe[ev],
+                                 data.weight[ev] * r[ev])
         mine_rows = rows[is_added[rows]]
         k = np.searchsorted(tk, data.stop[mine_rows])
-        a[mine_rows] = (Xe[mine_rows] - xbar[k]) * (data.weight[mine_rows] * r[mine_rows]
-                                                     * h[k])[:, None]
+        a[mine_rows] = ((Xe[mine_rows] * A0[k][:, None] - A1[k])
+                        * (data.weight[mine_rows] * r[mine_rows])[:, None])
     return a[added]
+
+
+def _efron_sums(A0: np.ndarray, A1: np.ndarray, S0: np.ndarray, S1: np.ndarray,
+                kev: np.ndarray, counts: np.ndarray, w_ev: np.ndarray, wrx_ev: np.ndarray,
+                wr_ev: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``A0``, ``A1`` of _weight_row_terms in Efron's form at the event times holding tied
+    events (index ``kev`` of each event; ``counts`` events per time): one term per tied event,
+    f = l / d, l = 0..d-1, each with the mean weight of its time's events."""
+    K = counts.size
+    T0 = np.bincount(kev, wr_ev, K)
+    T1 = np.column_stack([np.bincount(kev, wrx_ev[:, j], K) for j in range(wrx_ev.shape[1])])
+    wavg = np.bincount(kev, w_ev, K) / np.maximum(counts, 1)
+    tied = np.flatnonzero(counts > 1)
+    at = np.repeat(tied, counts[tied])  # one entry per tied event
+    f = (np.arange(at.size) - np.repeat(np.cumsum(counts[tied]) - counts[tied],
+                                        counts[tied])) / counts[at]
+    den = S0[at] - f * T0[at]
+    ok = den > 0
+    inv = np.where(ok, 1.0 / np.where(ok, den, 1.0), 0.0)
+    A0, A1 = A0.copy(), A1.copy()
+    A0[tied] = 0.0
+    A1[tied] = 0.0
+    A0 += np.bincount(at, wavg[at] * inv, K)
+    num = (S1[at] - f[:, None] * T1[at]) * (wavg[at] * inv ** 2)[:, None]
+    for j in range(A1.shape[1]):
+        A1[:, j] += np.bincount(at, num[:, j], K)
+    return A0, A1

@@ -46,6 +46,7 @@ def semantic_problems(raw: dict[str, Any]) -> list[str]:
     problems += _unique_name_problems(raw)
     for i, analysis in enumerate(raw.get("analyses", [])):
         problems += _analysis_problems(i, analysis, groupings)
+        problems += _subdistribution_variance_problems(i, analysis, raw)
     problems += _continuous_problems("continuous", raw.get("continuous", {}))
     problems += csv_problems(raw) + followup_problems(raw)
     problems += published_problems(raw)
@@ -208,6 +209,26 @@ def _competing_problems(where: str, outcome: dict[str, Any]) -> list[str]:
                         "column is 0/1; list the competing codes (competing: [2]) or drop "
                         "event_of_interest.")
     return problems
+
+
+def _subdistribution_variance_problems(i: int, analysis: dict[str, Any],
+                                       raw: dict[str, Any]) -> list[str]:
+    """``outcome.subdistribution_variance`` needs competing events, and its bootstrap needs
+    resampling draws."""
+    outcome = analysis.get("outcome") or {}
+    choice = outcome.get("subdistribution_variance")
+    if choice is None or outcome.get("type") != "survival":
+        return []  # other outcome types: _outcome_problems names the key
+    where = f"analyses[{i}] ({analysis.get('name')}).outcome.subdistribution_variance"
+    if not outcome.get("competing"):
+        return [f"{where}: the Fine–Gray variance applies only with competing events; list "
+                "their codes under 'competing' (e.g. competing: [2]) or remove the key."]
+    draws = (raw.get("resampling") or {}).get("bootstrap", 200)
+    if choice == "bootstrap" and isinstance(draws, int) and draws < 2:
+        return [f"{where}: 'bootstrap' takes its resamples from resampling.bootstrap, which is "
+                f"{draws}; set resampling.bootstrap to 2 or more (200 or more for a stable "
+                "covariance) or use 'sandwich'."]
+    return []
 
 
 def _threshold_problems(where: str, kind: str, thresholds: list[float]) -> list[str]:

@@ -354,11 +354,14 @@ def _outcome(o: dict[str, Any]) -> OutcomeSpec:
 
 
 def _competing_fields(o: dict[str, Any]) -> dict[str, Any]:
-    """A survival outcome's competing-risks keys (``event_of_interest``, ``competing``)."""
+    """A survival outcome's competing-risks keys (``event_of_interest``, ``competing``,
+    ``subdistribution_variance``)."""
+    variance = ({"subdistribution_variance": o["subdistribution_variance"]}
+                if "subdistribution_variance" in o else {})
     if "competing" not in o and "event_of_interest" not in o:
-        return {}
+        return variance
     return {"event_of_interest": int(o.get("event_of_interest", 1)),
-            "competing": tuple(int(c) for c in o.get("competing", []))}
+            "competing": tuple(int(c) for c in o.get("competing", [])), **variance}
 
 
 def _derived_variables(analyses: list[Analysis]) -> dict[str, VariableInfo]:

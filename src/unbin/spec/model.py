@@ -25,7 +25,7 @@ OPTIONAL_OUTCOME_FIELDS = {
     "continuous": (),
     "count": (),
     "survival": ("entry", "horizon", "time_scale", "age", "follow_up_windows",
-                 "event_of_interest", "competing"),
+                 "event_of_interest", "competing", "subdistribution_variance"),
 }
 TIME_SCALES = ("on_study", "attained_age")
 DAYS_PER_UNIT = {"days": 1.0, "weeks": 7.0, "months": 365.25 / 12, "years": 365.25}
@@ -109,6 +109,8 @@ class OutcomeSpec:
     # the codes of the competing events (none: the event column is 0/1)
     event_of_interest: int = 1
     competing: tuple[int, ...] = ()
+    # the Fine–Gray estimates' variance: "sandwich" or "bootstrap" (resampling.bootstrap draws)
+    subdistribution_variance: str = "sandwich"
     followup: FollowUp | None = None
 
     @property
