@@ -757,3 +757,47 @@ def test_incidence_on_repeated_rows_matches_a_row_by_row_g_formula() -> None:
                     surv *= max(1.0 - sum(steps), 0.0)
                 total += cif
         assert got[a_i] == pytest.approx(total / len(m), abs=1e-12)
+
+
+def test_incidence_over_the_cell_limit_is_withheld_with_its_reason(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    """The standardised cumulative incidence costs rows x event times per design and
+    evaluation; past the limit its bootstrap (or the rows) are withheld, the message says why,
+    and what is still computed is unchanged (the conditional rows; the estimates when only the
+    bootstrap is withheld). Equality with the unlimited run is the reference (common practice:
+    a resource limit must not change any number it lets through)."""
+    import unbin.questions.confounding as conf
+
+    df = _competing_frame(300, 29, True)
+    outcome = {"type": "survival", "time": "T", "event": "E", "horizon": 2.0, "entry": "L",
+               "event_of_interest": 1, "competing": [2]}
+    raw = _raw(outcome, {"x": {"cuts": [0.0]}, "z": {"cuts": [-0.5, 0.5]}}, ["z"],
+               resampling={"bootstrap": 20})
+    r, spec = _refit(df, raw)
+    full = confounding_table(r, spec)
+    designs = conf._Designs(r, 2.0)
+    conf._plan(r, designs, conf._scopes(
+        conf.adjustment_terms(df, r.analysis, spec, "legacy"),
+        conf.adjustment_terms(df, r.analysis, spec, "continuous")),
+        conf.adjustment_terms(df, r.analysis, spec, "continuous"))
+    cells = designs.incidence_cells()
+    events = np.unique(df.loc[(df["E"] != 0) & (df["T"] <= 2.0), "T"]).size
+    assert cells == 300 * events * 2 * len(designs.items)
+
+    marg = full["scale_kind"] == "marginal"
+    monkeypatch.setattr(conf, "INCIDENCE_CELLS", cells * 5)  # the point, not 21 evaluations
+    r, spec = _refit(df, raw)
+    some = confounding_table(r, spec)
+    assert (some.loc[marg, "status"] == "ok").all()
+    assert some.loc[marg, "message"].str.contains("without an interval").all()
+    assert some.loc[marg, "lower_crude"].isna().all()
+    np.testing.assert_allclose(some.loc[marg, "estimate_crude"], full.loc[marg, "estimate_crude"],
+                               rtol=0, atol=1e-12)
+    pd.testing.assert_frame_equal(some[~marg], full[~marg])
+
+    monkeypatch.setattr(conf, "INCIDENCE_CELLS", cells / 2)  # not even the point
+    r, spec = _refit(df, raw)
+    none = confounding_table(r, spec)
+    assert (none.loc[marg, "status"] == "skipped").all()
+    assert none.loc[marg, "message"].str.contains("not computed").all()
+    pd.testing.assert_frame_equal(none[~marg], full[~marg])

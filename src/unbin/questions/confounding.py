@@ -105,6 +105,13 @@ TABLE = "confounding"
 RISK_SURVIVAL = "1 - survival (Cox model)"
 RISK_INCIDENCE = "cumulative incidence (cause-specific Cox models of every cause)"
 RISK_CAUSE_SPECIFIC = "1 - cause-specific survival (competing events censored)"
+# The standardised cumulative incidence walks every row through every event time up to the
+# horizon (refit/standardise.cif_risks), so its cost is rows x event times x exposure values per
+# design and evaluation. Above this many cells (about a CPU-minute; a limit of the
+# implementation, not a statistical choice) the bootstrap of those rows, or the rows themselves,
+# are not computed and the message says why (the demo's largest analysis: about 1e8 cells per
+# evaluation, at roughly a nanosecond each).
+INCIDENCE_CELLS = 5e10
 
 
 @dataclass
@@ -128,6 +135,9 @@ class _Designs:
         o = r.outcome
         # competing events: the event of interest first, then every other cause in the sample
         self.causes: tuple[int, ...] = ()
+        # why the standardised cumulative incidences (or their bootstrap) are not computed
+        self.incidence_off = ""
+        self.incidence_boot_off = ""
         self._cause_outcomes: list[Outcome] = []
         if r.family == "survival" and o.cause is not None:
             others = [int(c) for c in np.unique(o.cause) if c != 0 and c != o.event_of_interest]
@@ -150,6 +160,33 @@ class _Designs:
             self.items[key] = _Design(X, k, at, fit(self.r.family, X, self.r.outcome, names),
                                       others)
         return key
+
+    def incidence_cells(self) -> float:
+        """Cells of one evaluation of every design's standardised cumulative incidences: rows x
+        distinct event times up to the horizon x the two exposure values x designs."""
+        o = self.r.outcome
+        if not self.causes or self.horizon is None or o.time is None or o.cause is None:
+            return 0.0
+        times = np.unique(o.time[(o.cause != 0) & (o.time <= self.horizon)])
+        return float(o.n) * times.size * 2 * len(self.items)
+
+    def limit_incidence(self, replicates: int) -> None:
+        """Switches the standardised cumulative incidences, or their bootstrap, off when they
+        would exceed ``INCIDENCE_CELLS`` (the reason kept for the rows' message)."""
+        cells = self.incidence_cells()
+        size = (f"{self.r.outcome.n:,} rows x the event times up to the horizon x "
+                f"{len(self.items)} designs")
+        if cells > INCIDENCE_CELLS:
+            self.incidence_off = (
+                f"the standardised cumulative incidence would take {cells:.1e} row-time cells "
+                f"({size}; limit {INCIDENCE_CELLS:.0e}): not computed; the conditional rows "
+                "and the 1 - cause-specific survival of the other tables still are")
+        elif replicates > 0 and cells * (replicates + 1) > INCIDENCE_CELLS:
+            self.incidence_boot_off = (
+                f"the bootstrap of the standardised cumulative incidence would take "
+                f"{cells * (replicates + 1):.1e} row-time cells ({size}, {replicates} "
+                f"replicates; limit {INCIDENCE_CELLS:.0e}): the estimates are shown without an "
+                "interval; lower resampling.bootstrap for one")
 
     @property
     def risk_kind(self) -> str:
@@ -184,6 +221,8 @@ class _Designs:
                       for c, f in zip(self.causes[1:], it.others, strict=True) if not f.ok]
             if failed:
                 self.notes[key] = "; ".join(failed)
+            elif self.incidence_off:
+                self.notes[key] = self.incidence_off
             elif it.res.ok and self.marginal_ok:
                 assert o.time is not None and o.cause is not None and self.horizon is not None
                 out, self.notes[key] = cif_risks(
@@ -247,7 +286,8 @@ class _Designs:
                                                          o.y[m], self.horizon,
                                                          entry=pick(o.entry),
                                                          strata=pick(o.strata), layout=layout)[0]
-                        if self.causes:
+                        if self.causes and not (self.incidence_off
+                                                or self.incidence_boot_off):
                             marg[key][c0 + b] = self._replicate_incidence(
                                 c0 + b, it, Xm, m, coef, layout, layouts,
                                 replicate_rows(o, W[b])[1])
@@ -425,6 +465,7 @@ def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
     designs = _Designs(r, horizon)
     plan = _plan(r, designs, _scopes(legacy_adj, cont_adj), cont_adj)
     n_bootstrap = spec.resampling.bootstrap
+    designs.limit_incidence(n_bootstrap)
     boot_conditional: dict[str, np.ndarray] = {}
     boot_marginal: dict[str, np.ndarray] = {}
     boot_own: dict[str, np.ndarray] = {}  # the designs' own models' means (conditional split)
@@ -483,6 +524,9 @@ def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
         est = np.array([contrast(kind, mu[0], mu[1]) for mu in means])
         boot = (np.column_stack([contrast(kind, boot_marginal[k][:, 0], boot_marginal[k][:, 1])
                                  for k in keys]) if boot_marginal else None)
+        if designs.incidence_boot_off and boot is not None:
+            boot = None
+            notes.append(designs.incidence_boot_off)
         row, used = _compare(est, boot, n_bootstrap, notes)
         sd, lims = np.full(3, np.nan), np.full((2, 3), np.nan)
         if used is not None:
@@ -493,6 +537,8 @@ def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
             row[f"estimate_{what}"], row[f"se_{what}"] = float(est[i]), float(sd[i])
             row[f"lower_{what}"], row[f"upper_{what}"] = float(lims[0, i]), float(lims[1, i])
         row["status"] = "ok" if np.isfinite(row["share_left"]) else "failed"
+        if designs.incidence_off:
+            row["status"] = "skipped"
         if not designs.marginal_ok:
             row["status"] = "skipped"
             notes = ["no horizon for the standardised risks: give outcome.horizon or the "
