@@ -96,14 +96,28 @@ def simulate(n: int, seed: int = SEED) -> pd.DataFrame:
     })
     for col, share in (("sodium", 0.01), ("urate", 0.02), ("bmi", 0.005), ("hba1c", 0.03)):
         df.loc[rng.random(n) < share, col] = np.nan
+    # the cause of death for the competing-risk variant (drawn last: the other columns keep
+    # their values): 1 kidney-related, more often at low eGFR; 2 any other cause
+    kidney = 1 / (1 + np.exp(-(-0.5 + 0.03 * (60 - egfr))))
+    df["death_cause"] = np.where(died == 1, np.where(rng.random(n) < kidney, 1, 2),
+                                 0).astype(np.int8)
     return df
 
 
 def spec(bootstrap: int, permutations: int, imputations: int = 0,
-         only: tuple[str, ...] = ()) -> dict[str, Any]:
+         only: tuple[str, ...] = (), competing: bool = False) -> dict[str, Any]:
     """The benchmark's spec; ``imputations`` > 0: the missing-data variant (every analysis
-    imputes its missing values, M sets of 5 iterations); ``only``: these analyses alone."""
+    imputes its missing values, M sets of 5 iterations); ``competing``: an eleventh analysis,
+    death from a kidney-related cause with other deaths competing (``death_egfr_competing``);
+    ``only``: these analyses alone."""
     out = _spec(bootstrap, permutations)
+    if competing:
+        out["analyses"].append(
+            {"name": "death_egfr_competing",
+             "outcome": {"type": "survival", "time": "followup_years", "event": "death_cause",
+                         "event_of_interest": 1, "competing": [2], "entry": "entry_years",
+                         "horizon": 5},
+             "exposure": "egfr", "adjust": ["age", "sex"]})
     if imputations:
         out["missing"] = {"method": "impute", "imputations": imputations, "iterations": 5}
     if only:
@@ -158,12 +172,13 @@ def _spec(bootstrap: int, permutations: int) -> dict[str, Any]:
 
 
 def write_inputs(folder: Path, rows: int, bootstrap: int, permutations: int,
-                 imputations: int = 0, only: tuple[str, ...] = ()) -> Path:
+                 imputations: int = 0, only: tuple[str, ...] = (),
+                 competing: bool = False) -> Path:
     (folder / "data").mkdir(parents=True, exist_ok=True)
     simulate(rows).to_parquet(folder / "data" / "registry.parquet", index=False)
     path = folder / "spec.yaml"
     path.write_text("# Invented registry for benchmarks/registry.py\n"
-                    + yaml.safe_dump(spec(bootstrap, permutations, imputations, only),
+                    + yaml.safe_dump(spec(bootstrap, permutations, imputations, only, competing),
                                      sort_keys=False),
                     encoding="utf-8")
     return path
@@ -252,8 +267,10 @@ def slowest_jobs(out: Path, k: int = 5) -> list[dict[str, Any]]:
 
 
 def measure(rows: int, cores: int, bootstrap: int, permutations: int,
-            folder: Path, imputations: int = 0, only: tuple[str, ...] = ()) -> dict[str, Any]:
-    spec_path = write_inputs(folder, rows, bootstrap, permutations, imputations, only)
+            folder: Path, imputations: int = 0, only: tuple[str, ...] = (),
+            competing: bool = False) -> dict[str, Any]:
+    spec_path = write_inputs(folder, rows, bootstrap, permutations, imputations, only,
+                             competing)
     extract = folder / "data" / "registry.parquet"
     ref = reference_fit_seconds(extract)
     result = run_unbin(spec_path, folder / "out", cores)
@@ -263,7 +280,8 @@ def measure(rows: int, cores: int, bootstrap: int, permutations: int,
 
     return {
         "rows": rows, "columns": len(pq.read_schema(extract).names),
-        "analyses": len(spec(bootstrap, permutations, imputations, only)["analyses"]),
+        "analyses": len(spec(bootstrap, permutations, imputations, only,
+                             competing)["analyses"]),
         "cores": cores, "imputations": imputations,
         "bootstrap": bootstrap,
         "permutations": permutations, "extract_mb": round(extract.stat().st_size / 2**20, 1),
@@ -310,12 +328,15 @@ def main(argv: list[str] | None = None) -> int:
                              "(M sets; 0, the default: complete cases)")
     parser.add_argument("--only", default="",
                         help="comma-separated analysis names to run (default: all ten)")
+    parser.add_argument("--competing", action="store_true",
+                        help="add the competing-risk analysis death_egfr_competing")
     parser.add_argument("--json", action="store_true", help="print one JSON object")
     args = parser.parse_args(argv)
     folder = args.keep or Path(tempfile.mkdtemp(prefix="unbin-registry-"))
     try:
         result = measure(args.rows, args.cores, args.bootstrap, args.permutations, folder,
-                         args.imputations, tuple(n for n in args.only.split(",") if n))
+                         args.imputations, tuple(n for n in args.only.split(",") if n),
+                         args.competing)
     finally:
         if args.keep is None:
             shutil.rmtree(folder, ignore_errors=True)
