@@ -724,15 +724,13 @@ def test_frequency_weights_c_index_counts_persons(tables: Any, expanded: Any) ->
           ["model", "adjustment"], ["estimate", "apparent"])
 
 
-FREQ_SPLIT = ("with frequency weights the cut table's split statistic (score chi-square at the "
-              "legacy cuts, questions/cutpoints.py) and its group counts ignore the weights")
-
-
-@pytest.mark.xfail(strict=True, reason=FREQ_SPLIT)
 def test_frequency_weights_split_statistics(tables: Any, expanded: Any) -> None:
+    """The cut table counts persons: the adjusted split statistic at the legacy cuts, the cuts'
+    percentiles and the sample median, and the groups' counts equal the expanded rows'."""
     a, b = tables["frequency"]["cutpoints"], expanded["cutpoints"]
     rows = "row_type in ['cut', 'group']"
-    _same(a.query(rows), b.query(rows), ["row_type", "group"], ["statistic", "n", "events"])
+    _same(a.query(rows), b.query(rows), ["row_type", "group"],
+          ["statistic", "p_naive", "percentile", "median", "n", "events"])
 
 
 def _weighted_pair(name: str) -> tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame],
