@@ -337,20 +337,22 @@ def _dense(values: np.ndarray) -> np.ndarray:
 
 
 def _sum_above(q_group: np.ndarray, q_key: np.ndarray, q_w: np.ndarray,
-               t_group: np.ndarray, t_key: np.ndarray, t_w: np.ndarray) -> float:
+               t_group: np.ndarray, t_key: np.ndarray, t_w: np.ndarray,
+               n_groups: int) -> float:
     """Sum over queries i of q_w_i times the summed t_w_j of the targets j of i's group with
-    t_key_j > q_key_i (groups and keys non-negative integers)."""
+    t_key_j > q_key_i (groups 0..n_groups-1 and keys non-negative integers)."""
     if q_w.size == 0 or t_w.size == 0:
         return 0.0
-    code = _dense(np.r_[q_group, t_group])
-    qc, tc = code[: q_group.size], code[q_group.size :]
     span = int(max(q_key.max(), t_key.max())) + 2
-    t_comb = tc * span + t_key
-    srt = np.argsort(t_comb, kind="stable")
+    if n_groups * span >= 2**62:  # the combined key would not fit: number the groups used
+        code = _dense(np.r_[q_group, t_group])
+        q_group, t_group = code[: q_group.size], code[q_group.size :]
+    t_comb = t_group * span + t_key
+    srt = np.argsort(t_comb)
     t_comb = t_comb[srt]
     cum = np.r_[0.0, np.cumsum(t_w[srt])]
-    lo = np.searchsorted(t_comb, qc * span + q_key, side="right")
-    hi = np.searchsorted(t_comb, qc * span + span - 1, side="right")
+    lo = np.searchsorted(t_comb, q_group * span + q_key, side="right")
+    hi = np.searchsorted(t_comb, (q_group + 1) * span, side="left")
     return float(q_w @ (cum[hi] - cum[lo]))
 
 
@@ -364,26 +366,25 @@ def weighted_pair_sums(q_group: np.ndarray, q_key: np.ndarray, q_rank: np.ndarra
     The lower-rank sum splits the ranks below r_i into the aligned blocks of the binary
     expansion of r_i (one block of 2^L ranks for every bit L set in r_i, the Fenwick-tree
     decomposition); within a block the condition on the rank holds for every target, so each
-    block is a group of :func:`_sum_above`. O(n log^2 n); with integer weights every sum is
-    exact in floating point below 2^53."""
+    level L is one :func:`_sum_above` with the block as part of the group. O(n log^2 n); with
+    integer weights every sum is exact in floating point below 2^53."""
     q_group, t_group = q_group.astype(np.int64), t_group.astype(np.int64)
-    total = _sum_above(q_group, q_key, q_w, t_group, t_key, t_w)
-    # equal rank: the rank joins the group
+    q_rank, t_rank = q_rank.astype(np.int64), t_rank.astype(np.int64)
+    groups = int(max(q_group.max(initial=0), t_group.max(initial=0))) + 1
+    total = _sum_above(q_group, q_key, q_w, t_group, t_key, t_w, groups)
     top = int(max(q_rank.max(initial=0), t_rank.max(initial=0))) + 1
-    equal = _sum_above(q_group * top + q_rank, q_key, q_w, t_group * top + t_rank, t_key, t_w)
-    bits = max(1, (top - 1).bit_length())
-    qg, qk, qw, tg, tk, tw = [], [], [], [], [], []
-    for level in range(bits):
+    # equal rank: the rank joins the group
+    equal = _sum_above(q_group * top + q_rank, q_key, q_w, t_group * top + t_rank, t_key, t_w,
+                       groups * top)
+    lower = 0.0
+    for level in range(max(1, (top - 1).bit_length())):
         has = (q_rank >> level) & 1 == 1
-        # group (group, level, block): block of the 2^level ranks just below r_i's prefix
-        qg.append((q_group[has] * bits + level) * (top + 1) + (q_rank[has] >> level) - 1)
-        qk.append(q_key[has])
-        qw.append(q_w[has])
-        tg.append((t_group * bits + level) * (top + 1) + (t_rank >> level))
-        tk.append(t_key)
-        tw.append(t_w)
-    lower = _sum_above(np.concatenate(qg), np.concatenate(qk), np.concatenate(qw),
-                       np.concatenate(tg), np.concatenate(tk), np.concatenate(tw))
+        if not has.any():
+            continue
+        # the block of 2^level ranks just below r_i's higher bits, as part of the group
+        lower += _sum_above(q_group[has] * (top + 1) + (q_rank[has] >> level) - 1, q_key[has],
+                            q_w[has], t_group * (top + 1) + (t_rank >> level), t_key, t_w,
+                            groups * (top + 1))
     return total, equal, lower
 
 
