@@ -170,3 +170,18 @@ def test_sampling_weights_estimate_the_population_c() -> None:
     assert abs(mean[1] - true_auc) > 4 * se[1]
     assert abs(mean[2] - true_c) < 4 * se[2]
     assert abs(mean[3] - true_c) > 4 * se[3]
+
+
+def test_pair_sums_renumber_groups_when_the_combined_key_would_overflow() -> None:
+    # source: brute-force sum over all (query, target) pairs written here; group numbers near
+    # 2^40 with keys up to 2^23 make group x key overflow int64, so the groups are renumbered
+    from unbin.models.cox.concordance import _sum_above
+
+    rng = np.random.default_rng(18)
+    qg, tg = rng.integers(0, 3, 40) * 2**40, rng.integers(0, 3, 50) * 2**40
+    qk, tk = rng.integers(0, 2**23, 40), rng.integers(0, 2**23, 50)
+    tk[:10] = qk[:10]  # equal keys do not count
+    qw, tw = rng.integers(1, 4, 40).astype(float), rng.integers(1, 4, 50).astype(float)
+    ref = sum(qw[i] * tw[j] for i in range(40) for j in range(50)
+              if qg[i] == tg[j] and tk[j] > qk[i])
+    assert _sum_above(qg, qk, qw, tg, tk, tw, 2**41 + 1) == ref
