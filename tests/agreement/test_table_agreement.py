@@ -708,28 +708,29 @@ def test_frequency_weights_place_knots_and_medians_on_persons(tables: Any,
           ["x_value", "x_reference", "estimate", "se"])
 
 
-FREQ_C = ("with frequency weights the C index counts pairs of rows, not of the persons they "
-          "stand for (models/discrimination.py takes no weights; README: the C-index is "
-          "unweighted), so fits c_index, information c_* and decision_resampling's C differ from "
-          "the expanded rows'")
-
-
-@pytest.mark.xfail(strict=True, reason=FREQ_C)
 def test_frequency_weights_c_index_counts_persons(tables: Any, expanded: Any) -> None:
+    """The C index counts pairs of persons (each pair of rows w_i w_j times): fits' c_index,
+    information's c_* and decision_resampling's full-sample C of the models without data-chosen
+    positions equal the expanded rows' (the Mann-Whitney AUC of the repeated rows)."""
     a, b = tables["frequency"], expanded
     _same(a["fits"].query(FIXED_DESIGNS), b["fits"].query(FIXED_DESIGNS),
           ["form", "detail", "adjustment"], ["c_index"])
+    keep = "adjustment != 'continuous'"
+    _same(a["information"].query(keep), b["information"].query(keep), ["adjustment"],
+          ["c_legacy", "c_linear", "c_fp"])
+    c = ("quantity == 'C index' and status == 'ok' and model in ['legacy', 'linear'] "
+         "and adjustment == 'legacy'")
+    _same(a["decision_resampling"].query(c), b["decision_resampling"].query(c),
+          ["model", "adjustment"], ["estimate", "apparent"])
 
 
-FREQ_SPLIT = ("with frequency weights the cut table's split statistic (score chi-square at the "
-              "legacy cuts, questions/cutpoints.py) and its group counts ignore the weights")
-
-
-@pytest.mark.xfail(strict=True, reason=FREQ_SPLIT)
 def test_frequency_weights_split_statistics(tables: Any, expanded: Any) -> None:
+    """The cut table counts persons: the adjusted split statistic at the legacy cuts, the cuts'
+    percentiles and the sample median, and the groups' counts equal the expanded rows'."""
     a, b = tables["frequency"]["cutpoints"], expanded["cutpoints"]
     rows = "row_type in ['cut', 'group']"
-    _same(a.query(rows), b.query(rows), ["row_type", "group"], ["statistic", "n", "events"])
+    _same(a.query(rows), b.query(rows), ["row_type", "group"],
+          ["statistic", "p_naive", "percentile", "median", "n", "events"])
 
 
 def _weighted_pair(name: str) -> tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame],

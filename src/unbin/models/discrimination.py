@@ -8,7 +8,13 @@ linear predictors are never changed in place. For survival, Harrell's C compares
 within a stratum in which the longer-lived row was at risk at the earlier event time (entry
 before it); the time order and the tie and delayed-entry bookkeeping depend on (time, event,
 entry, strata) only and are kept there too (``unbin.models.cox.concordance_order``), with references
-to the arrays they were made from, so that they serve only the same arrays."""
+to the arrays they were made from, so that they serve only the same arrays.
+
+With weights (``outcome.weights``, either kind) every pair (i, j) counts w_i w_j. Frequency
+weights then give exactly the C-index of the rows repeated by their weights (a row stands for
+w_i persons: its w_i copies tie with each other in time or outcome and form no pair); sampling
+weights give the usual estimate of the population's C-index, each sampled pair standing for
+w_i w_j pairs of the population."""
 
 from __future__ import annotations
 
@@ -26,6 +32,27 @@ def auc(y: np.ndarray, score: np.ndarray) -> float:
         return float("nan")
     ranks = stats.rankdata(score)
     return float((ranks[y].sum() - n1 * (n1 + 1) / 2) / (n1 * n0))
+
+
+def weighted_auc(y: np.ndarray, score: np.ndarray, weights: np.ndarray,
+                 sets: np.ndarray | None = None) -> float:
+    """The AUC with every (case, control) pair counted w_case w_control (ties one half); with
+    ``sets``, only pairs within a matched set (as :func:`matched_auc`)."""
+    import pandas as pd
+
+    from .cox.concordance import _dense, weighted_pair_sums
+
+    y = np.asarray(y, dtype=bool)
+    w = np.asarray(weights, dtype=float)
+    rank = _dense(np.asarray(score, dtype=float))
+    group = (np.zeros(y.size, dtype=np.int64) if sets is None
+             else pd.factorize(np.asarray(sets))[0].astype(np.int64))
+    zero, one = np.zeros(y.size, dtype=np.int64), np.ones(y.size, dtype=np.int64)
+    total, equal, lower = weighted_pair_sums(group[y], zero[y], rank[y], w[y],
+                                             group[~y], one[~y], rank[~y], w[~y])
+    if not total > 0:
+        return float("nan")
+    return (lower + 0.5 * equal) / total
 
 
 def matched_auc(y: np.ndarray, score: np.ndarray, sets: np.ndarray) -> float:
@@ -58,7 +85,8 @@ SCORE_DECIMALS = 10
 def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
     """AUC (binary) or Harrell's C (survival; within strata, pairs at risk together) of the
     linear predictor ``lp`` of a fit to ``outcome``'s rows, compared to ``SCORE_DECIMALS``
-    decimals; NaN for other families or without ``lp``. Computed once per ``lp``."""
+    decimals, pairs weighted w_i w_j under ``outcome.weights``; NaN for other families or
+    without ``lp``. Computed once per ``lp``."""
     if lp is None or outcome.family not in ("binary", "survival"):
         return float("nan")
     memo: dict[int, tuple[np.ndarray, float]] = outcome.cache.setdefault(_MEMO, {})
@@ -66,7 +94,15 @@ def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
     if hit is not None and hit[0] is lp:
         return hit[1]
     score = np.round(np.asarray(lp, dtype=float), SCORE_DECIMALS)
-    if outcome.family == "binary" and outcome.strata is not None:
+    w = outcome.weights
+    if w is not None and outcome.family == "binary":
+        value = weighted_auc(outcome.y, score, w, outcome.strata)
+    elif w is not None:
+        from .cox import weighted_concordance
+
+        value = weighted_concordance(outcome.time, score, outcome.y, w, entry=outcome.entry,
+                                     strata=outcome.strata)
+    elif outcome.family == "binary" and outcome.strata is not None:
         value = matched_auc(outcome.y, score, outcome.strata)
     elif outcome.family == "binary":
         value = auc(outcome.y, score)

@@ -21,17 +21,20 @@ For an exposure grouping flagged ``derived_from_data``:
   repeated; p = (1 + #{max* >= max}) / (1 + permutations));
 - the **bootstrap spread** of the re-derived "optimal" cut (case resampling; percentiles), with
   the replicates that gave no cut counted (``bootstrap_failed``) and their reasons. The
-  resampled unit is the row, or with ``cluster`` the whole cluster
-  (``unbin.models.weighted.design_resample_counts``; Davison & Hinkley 1997, sec. 3.8), and a
-  replicate's low-group shares are of its own drawn rows.
+  resampled unit is the row (under frequency weights the person), or with ``cluster`` the whole
+  cluster (``unbin.models.weighted.design_resample_weights``; Davison & Hinkley 1997, sec.
+  3.8), and a replicate's low-group shares are of its own drawn rows.
 
 With ``cluster`` there is no permutation p-value (nor ``p_simulated``): under the null the
 outcome is still correlated within clusters and so, often, is the exposure; permuting the
 exposure over rows makes the rows exchangeable that are not, and its null distribution of the
 maximal statistic is too narrow. Permuting within clusters tests only the within-cluster
 association, and permuting whole clusters' exposures needs clusters of equal size with
-cluster-level exposure; neither is general, so the table says so in ``message``. The split
-statistics count rows: weights (``weights``) are not used in this table, whose message says so.
+cluster-level exposure; neither is general, so the table says so in ``message``. Under
+frequency weights (a row stands for w persons) every statistic, share, count, median and
+bootstrap draw counts persons, equal to the rows repeated by their weights; the permutation
+p-value permutes those repeated rows (whole weights only). Sampling weights are not used in
+this table (the split statistics count rows), whose message says so.
 
 Without adjustment variables the split statistic is the score (Rao) chi-square of a binary split
 in the analysis's family, computed for all candidates at once from cumulative sums over the
@@ -85,7 +88,7 @@ from ..models.splitstats import (  # noqa: F401  (the corrected p-values are par
     p_lausen,
 )
 from ..models.splitstats import SurvivalLayout as _SurvivalLayout
-from ..models.weighted import design_resample_counts
+from ..models.weighted import design_resample_weights
 from ..refit.analysis import Refit, adjustment_terms, design, legacy_term
 from ..spec import Spec
 from ..terms import GroupedTerm
@@ -132,6 +135,9 @@ class SplitSearch:
     name: str = ""  # the statistic, for the table (STATISTIC[family] when not adjusted)
     adjusted_for: str = ""  # adjustment variables and strata the statistic accounts for
     cluster: np.ndarray | None = None  # cluster codes in sorted order (the resampled units)
+    # frequency weights in sorted order (a row stands for w persons), None without them; the
+    # statistics, shares and bootstrap draws then count persons
+    w: np.ndarray | None = None
 
     @classmethod
     def build(cls, family: str, x: np.ndarray, outcome: Outcome, closed: str = "left",
@@ -151,7 +157,9 @@ class SplitSearch:
         else:  # low group x <= c: a cut at each distinct value but the largest
             cand = values[:-1]
             k = np.searchsorted(xs, cand, side="right")
-        share = k / n
+        w = (np.asarray(outcome.weights, dtype=float)[order]
+             if outcome.weights is not None and outcome.weight_kind == "frequency" else None)
+        share = k / n if w is None else _cum(w)[0, k] / w.sum()
         keep = (share >= lower - 1e-12) & (share <= upper + 1e-12)
         cand, k = cand[keep], k[keep]
         if len(k) > max_candidates:
@@ -176,7 +184,7 @@ class SplitSearch:
         cluster = (None if outcome.cluster is None
                    else np.unique(np.asarray(outcome.cluster), return_inverse=True)[1].ravel()[order])
         return cls(family, closed, lower, upper, xs, k.astype(np.int64), cand, y, t, surv,
-                   adjusted, name=STATISTIC.get(family, ""), cluster=cluster)
+                   adjusted, name=STATISTIC.get(family, ""), cluster=cluster, w=w)
 
     @property
     def n(self) -> int:
@@ -184,7 +192,13 @@ class SplitSearch:
 
     @property
     def percentiles(self) -> np.ndarray:
-        return 100.0 * self.k / self.n
+        return self.share_below(self.k)
+
+    def share_below(self, k: np.ndarray) -> np.ndarray:
+        """Percent of the sample (persons under frequency weights) in the first k rows."""
+        if self.w is None:
+            return 100.0 * np.asarray(k) / self.n
+        return 100.0 * _cum(self.w)[0, np.asarray(k)] / self.w.sum()
 
     def statistic_at(self, cut: float) -> float:
         """The split statistic at one cut value (any value, not only a candidate)."""
@@ -201,14 +215,14 @@ class SplitSearch:
         ``null_error``, when the adjusted null model cannot be fitted)."""
         if self.adjusted is not None:
             try:
-                return self.adjusted.profile(self.k)
+                return self.adjusted.profile(self.k, self.w)
             except NullModelFailed as exc:
                 self.null_error.append(str(exc) or "the adjusted null model failed")
                 return np.full(len(self.k), np.nan)
         if self.family == "survival":
             assert self.surv is not None
-            return self.surv.logrank(self.k, self.surv.w_unit)
-        return self._glm_stat(None, None)[0]
+            return self.surv.logrank(self.k, self.surv.w_unit if self.w is None else self.w)
+        return self._glm_stat(None if self.w is None else self.w[None, :], None)[0]
 
     def _glm_stat(self, W: np.ndarray | None, perm: np.ndarray | None) -> np.ndarray:
         """Statistic per (replicate, candidate). ``W`` (B x n) are frequency weights in sorted
@@ -312,9 +326,10 @@ class SplitSearch:
         done = 0
         while done < replicates:
             size = min(chunk, replicates - done) if not one_by_one else 1
-            # rows, or whole clusters (unbin.models.weighted.design_resample_counts)
-            W = design_resample_counts(rng, Outcome(self.family, self.y, cluster=self.cluster),
-                                       size)
+            # rows (frequency-weighted: persons), or whole clusters
+            # (unbin.models.weighted.design_resample_weights)
+            W = design_resample_weights(rng, Outcome(self.family, self.y, weights=self.w,
+                                                     cluster=self.cluster), size)
             share = _cum(W)[:, self.k] / W.sum(axis=1, keepdims=True)
             if self.adjusted is not None:
                 try:
@@ -372,15 +387,34 @@ def _events(r: Refit) -> np.ndarray | None:
     return None if r.family == "continuous" else np.asarray(r.outcome.y, dtype=float)
 
 
+def _frequency_weights(r: Refit) -> np.ndarray | None:
+    """The analysis sample's frequency weights (a row stands for w persons), else None."""
+    o = r.outcome
+    return (np.asarray(o.weights, dtype=float)
+            if o.weights is not None and o.weight_kind == "frequency" else None)
+
+
+def _person_median(x: np.ndarray, w: np.ndarray) -> float:
+    """The median of the persons the rows stand for: of the rows repeated by their (whole)
+    frequency weights, the middle person's value, or the mean of the two middle ones."""
+    order = np.argsort(x, kind="stable")
+    xs, cw = np.asarray(x, dtype=float)[order], np.cumsum(w[order])
+    total = cw[-1]
+    mid = [(total - 1) / 2] if round(total) % 2 else [total / 2 - 1, total / 2]
+    at = np.minimum(np.searchsorted(cw, mid, side="right"), xs.size - 1)
+    return float(np.mean(xs[at]))
+
+
 def _cut_and_group_rows(r: Refit, spec: Spec, variable: str, role: str, term: GroupedTerm,
                         x: np.ndarray, search: SplitSearch | None) -> list[dict[str, Any]]:
     rows: list[dict[str, Any]] = []
     g = spec.groupings[variable]
     codes = term.codes(x)
-    med = float(np.median(x))
+    fw = _frequency_weights(r)
+    med = float(np.median(x)) if fw is None else _person_median(x, fw)
     base = {"variable": variable, "role": role, "derived_from_data": bool(g.derived_from_data)}
     for j, c in enumerate(term.cuts):
-        pct = 100.0 * float(np.mean(codes <= j))
+        pct = 100.0 * float(np.average(codes <= j, weights=fw))
         stat = search.statistic_at(c) if search is not None else float("nan")
         named = {"statistic_name": search.name} if search is not None else {}
         rows.append({**base, **named, "row_type": "cut", "cut": float(c), "percentile": pct,
@@ -388,9 +422,10 @@ def _cut_and_group_rows(r: Refit, spec: Spec, variable: str, role: str, term: Gr
                      "distance_percentile_points": pct - 50.0, "statistic": stat,
                      "p_naive": float(stats.chi2.sf(stat, 1)) if np.isfinite(stat) else np.nan,
                      "group": f"{term.labels[j]} | {term.labels[j + 1]}"})
-    counts = np.bincount(codes, minlength=len(term.labels)).astype(int).tolist()
+    counts = np.bincount(codes, weights=fw, minlength=len(term.labels)).round().astype(int).tolist()
     ev = _events(r)
-    ev_counts = (np.bincount(codes, weights=ev, minlength=len(term.labels)).round().astype(int)
+    ev_counts = (np.bincount(codes, weights=ev if fw is None else ev * fw,
+                             minlength=len(term.labels)).round().astype(int)
                  .tolist() if ev is not None else [None] * len(counts))
     n_shown = disclosure.complementary(counts, spec.min_cell)
     e_shown = (disclosure.complementary(ev_counts, spec.min_cell) if ev is not None
@@ -438,12 +473,16 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
                      "binary splits")
     n_perm = spec.resampling.permutations
     summary["permutations"] = n_perm
-    if a.weights is not None:
-        notes.append(f"the split search counts rows; the weights ({a.weights.column}) are not "
-                     "used in this table")
+    if a.weights is not None and search.w is None:
+        notes.append(f"the split search counts rows; the sampling weights ({a.weights.column}) "
+                     "are not used in this table")
     if n_perm > 0 and search.cluster is not None:
         summary["permutations"] = 0
         notes.append(NO_NULL_DRAWS_WITH_CLUSTERS)
+    elif n_perm > 0 and search.adjusted is not None and search.w is not None:
+        summary["permutations"] = 0
+        notes.append("no permutation or simulated p-value for an adjusted search with frequency "
+                     "weights (the simulated null does not take the weights yet); use p_lausen")
     elif n_perm > 0 and search.adjusted is not None:
         summary["permutations"] = 0
         sim = search.adjusted.simulate_max(search.k, spec.rng(a.name, "cutpoints-simulation"),
@@ -452,8 +491,13 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
         summary.update(simulations=n_perm, p_simulated=(1 + ge) / (1 + n_perm))
         notes.append("no permutation p-value under adjustment (permuting the exposure would "
                      "also break its association with the adjusters); p_simulated instead")
+    elif n_perm > 0 and search.w is not None and not np.all(search.w == np.round(search.w)):
+        summary["permutations"] = 0
+        notes.append("no permutation p-value with frequency weights that are not whole numbers "
+                     "(the persons permuted must be whole)")
     elif n_perm > 0:
-        perm_max = search.permutation_max(spec.rng(a.name, "cutpoints-permutation"), n_perm)
+        persons = search if search.w is None else _person_search(r, search)
+        perm_max = persons.permutation_max(spec.rng(a.name, "cutpoints-permutation"), n_perm)
         ge = int(np.sum(np.nan_to_num(perm_max, nan=-np.inf) >= max_stat * (1 - 1e-10)))
         summary["p_permutation"] = (1 + ge) / (1 + n_perm)
     n_boot = spec.resampling.bootstrap
@@ -465,7 +509,7 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
         summary["bootstrap_failed"] = n_boot - len(ok)
         if len(ok):
             q = np.percentile(ok, BOOT_PERCENTILES)
-            pct = 100.0 * np.searchsorted(search.xs, q, side=_side(search.closed)) / search.n
+            pct = search.share_below(np.searchsorted(search.xs, q, side=_side(search.closed)))
             for name, v, p in zip(_boot_names("boot_cut"), q, pct, strict=True):
                 summary[name] = float(v)
                 summary[name.replace("boot_cut", "boot_percentile")] = float(p)
@@ -475,6 +519,16 @@ def _search_rows(r: Refit, spec: Spec, search: SplitSearch,
                          f"({why}); the boot_* columns use the other {len(ok)}")
     summary["message"] = "; ".join(notes)
     return [*rows, summary]
+
+
+def _person_search(r: Refit, search: SplitSearch) -> SplitSearch:
+    """The unadjusted search on the rows repeated by their (whole) frequency weights: the
+    persons, whose exposures a permutation shuffles."""
+    w = np.asarray(r.outcome.weights, dtype=float)
+    rows = np.repeat(np.arange(w.size), np.round(w).astype(np.int64))
+    outcome = replace(r.outcome.subset(rows), weights=None)
+    return SplitSearch.build(r.family, r.x[rows], outcome, search.closed, search.lower,
+                             search.upper)
 
 
 def _boot_names(prefix: str) -> list[str]:

@@ -66,7 +66,7 @@ from ..models.cox import (
     prepare_layout,
     refit_near,
 )
-from ..models.discrimination import auc
+from ..models.discrimination import auc, c_index
 from ..models.survival import cox_layout
 from ..models.weighted import (
     WeightedGLM,
@@ -116,9 +116,11 @@ class _Sample:
     """The rows a model is judged on (indices into the analysis sample) and what is read there:
     risk at the horizon, C-index, net benefit, calibration slope."""
 
-    def __init__(self, r: Refit, idx: np.ndarray, horizon: float | None):
+    def __init__(self, r: Refit, idx: np.ndarray, horizon: float | None,
+                 weights: np.ndarray | None = None):
         o = r.outcome
         self.idx, self.family, self.h = idx, r.family, horizon
+        self.w = weights if weights is not None or o.weights is None else o.weights[idx]
         self.y = np.asarray(o.y, dtype=float)[idx]
         self.time = None if o.time is None else o.time[idx]
         self.entry = None if o.entry is None else o.entry[idx]
@@ -135,6 +137,9 @@ class _Sample:
         return self._layout
 
     def c_index(self, lp: np.ndarray) -> float:
+        if self.w is not None:  # pairs weighted w_i w_j (unbin.models.discrimination)
+            return c_index(Outcome(self.family, self.y, time=self.time, entry=self.entry,
+                                   strata=self.strata, weights=self.w), lp)
         if self.family == "binary":
             return auc(self.y, lp)
         if self._order is None:
@@ -459,7 +464,8 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
     boot: list[dict[tuple[Any, ...], float]] = []
     test: list[dict[tuple[Any, ...], float]] = []
     for b in range(B):
-        drawn = _Sample(r, replicate_rows(r.outcome, W[b])[0], horizon)
+        rows_b, weights_b = replicate_rows(r.outcome, W[b])
+        drawn = _Sample(r, rows_b, horizon, weights_b)
         cb = {k: coefs[k][b] for k in ev.keys}
         zs = ev.predictors(cb, drawn)
         boot.append(ev.measures(cb, zs, drawn, drawn))

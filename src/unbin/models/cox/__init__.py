@@ -41,7 +41,7 @@ to try (iteration limit, singular information, diverging coefficient, non-finite
 """
 
 from .baseline import baseline_cumhaz, predict_risk
-from .concordance import TimeOrder, concordance, concordance_order
+from .concordance import TimeOrder, concordance, concordance_order, weighted_concordance
 from .fit import CoxFit, fit_cox, refit_near, refit_near_loglik
 from .layout import Layout, prepare_layout
 
@@ -52,6 +52,7 @@ __all__ = [
     "baseline_cumhaz",
     "concordance",
     "concordance_order",
+    "weighted_concordance",
     "fit_cox",
     "predict_risk",
     "prepare_layout",
