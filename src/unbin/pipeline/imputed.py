@@ -347,6 +347,81 @@ def combine_coefficients(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]
     return out, ""
 
 
+def combine_published(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]:
+    """The ``as_published`` table over the sets: the groups' ratios and limits by Rubin's rules
+    on the log scale (each set's log ratio and its SE from its Wald limits), so that they are
+    the ``effects`` table's legacy contrasts; the route's individual and table slopes by
+    Rubin's rules (mean estimate, total SE) and ``information_ratio`` from the combined SEs;
+    counts and medians averaged (:func:`unbin.refit.combine.combine_tables`)."""
+    from ..refit.combine import combine_estimates, combine_log_ratios, combine_tables
+    from ..refit.contrasts import Z95
+
+    out, msg = combine_tables(tables)
+    if msg or out.empty:
+        return out, msg
+    combine_log_ratios(tables, out, "ratio", "ratio_lower", "ratio_upper", Z95)
+    for est, se in (("individual_estimate", "individual_se"), ("table_estimate", "table_se")):
+        combine_estimates(tables, out, est, se)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out["information_ratio"] = (out["individual_se"] / out["table_se"]) ** 2
+    return out, ""
+
+
+# replication's columns that follow from the refit estimate and its interval: recomputed from
+# the combined ones (a set's own verdict is not the combined analysis')
+REPLICATION_DERIVED = ("reported_inside_refit_ci", "refit_inside_reported_ci", "disagrees",
+                       "verdict", "message")
+
+
+def combine_replication(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]:
+    """The ``replication`` table over the sets: the refit log ratio (or difference) and SE by
+    Rubin's rules (:func:`unbin.refit.combine.combine_tables`), its limits the t interval on
+    Barnard-Rubin degrees of freedom (as ``effects``' legacy contrasts), and every column that
+    follows from them (difference, SE ratio, the verdict) recomputed from the combined ones."""
+    from ..questions.replication import SE_RATIO_TOLERANCE
+    from ..refit.combine import combine_tables, rubin
+
+    if not tables or tables[0].empty or (tables[0]["status"] != "ok").any():
+        return combine_tables(tables)
+    first = tables[0]
+    same = [t.assign(**{c: first[c] for c in REPLICATION_DERIVED}) for t in tables]
+    out, msg = combine_tables(same)
+    if msg:
+        return out, msg
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pooled = rubin(np.vstack([t["estimate"].to_numpy(float) for t in tables]),
+                       np.vstack([t["se"].to_numpy(float) for t in tables]))
+        lo, hi = pooled.interval()
+    ratio = not np.allclose(first["refit_effect"].to_numpy(float),
+                            first["estimate"].to_numpy(float))
+    tr = np.exp if ratio else (lambda v: v)
+    est, se = pooled.estimate, pooled.se
+    rep_est, rep_se = (out[c].to_numpy(float) for c in ("reported_estimate", "reported_se"))
+    rep_lo, rep_hi = (out[c].to_numpy(float, na_value=np.nan)
+                      for c in ("reported_lower", "reported_upper"))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        se_ratio = np.where(se > 0, rep_se / se, np.nan)
+        out["refit_effect"], out["refit_lower"], out["refit_upper"] = tr(est), tr(lo), tr(hi)
+        out["difference"] = est - rep_est
+        out["difference_se_units"] = np.where(se > 0, (est - rep_est) / se, np.nan)
+        out["se_ratio"] = se_ratio
+        out["implied_n_ratio"] = np.where(np.isfinite(se_ratio) & (se_ratio > 0),
+                                          1 / se_ratio ** 2, np.nan)
+    inside = (lo <= rep_est) & (rep_est <= hi)
+    refit_in = [bool(a <= tr(e) <= b) if np.isfinite(a) and np.isfinite(b) else None
+                for a, b, e in zip(rep_lo, rep_hi, est, strict=True)]
+    out["reported_inside_refit_ci"] = inside
+    out["refit_inside_reported_ci"] = pd.array(refit_in, dtype="boolean")
+    out["disagrees"] = ~inside
+    out["verdict"] = np.where(~inside, "estimate differs", np.where(
+        np.isfinite(se_ratio) & ~((1 / SE_RATIO_TOLERANCE <= se_ratio)
+                                  & (se_ratio <= SE_RATIO_TOLERANCE)),
+        "precision differs", "agrees"))
+    out["message"] = np.where(inside, "", "the extract may not be the data the paper used (or "
+                              "the sample, grouping or model differ)")
+    return out, ""
+
+
 def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                     basis: CommonBasis | None = None, opts: MissingOptions | None = None,
                     resampling: bool = False
@@ -493,6 +568,10 @@ def _combine_sets(per_set: dict[str, list[pd.DataFrame]], errors: dict[str, Exce
                                                     pooled)
             elif name == "coefficients":
                 combined, msg = combine_coefficients(per_set[name])
+            elif name == "as_published":
+                combined, msg = combine_published(per_set[name])
+            elif name == "replication":
+                combined, msg = combine_replication(per_set[name])
             elif name == "density":  # descriptive, suppressed per set: the first set's
                 combined, msg = per_set[name][0], ""
             else:

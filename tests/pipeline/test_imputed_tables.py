@@ -1,0 +1,116 @@
+"""Tables of imputed analyses combined over the sets (``unbin.pipeline.imputed``): the
+published-style ratios and the replication row by Rubin's rules on the log scale, against the
+rules written out here (Rubin 1987: mean of the estimates, total variance W + (1 + 1/M) B; t
+limits on Rubin's (M - 1) / lambda^2 degrees of freedom, which Barnard & Rubin 1999 reduce to
+with infinite complete-data df)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from unbin.pipeline.imputed import combine_published, combine_replication
+from unbin.questions.as_published import COLUMNS as PUBLISHED_COLUMNS
+from unbin.questions.replication import COLUMNS as REPLICATION_COLUMNS
+from unbin.refit.contrasts import Z95
+
+# three imputed sets: the non-reference groups' log odds ratios and SEs, and the route's slopes
+LOG_OR = np.array([[0.21, 0.55], [0.18, 0.71], [0.25, 0.62]])
+SE = np.array([[0.20, 0.24], [0.21, 0.25], [0.19, 0.23]])
+SLOPE = np.array([0.031, 0.036, 0.029])
+SLOPE_SE = np.array([0.010, 0.011, 0.010])
+TABLE_SLOPE = np.array([0.030, 0.034, 0.027])
+TABLE_SE = np.array([0.013, 0.012, 0.014])
+
+
+def by_hand(q: np.ndarray, se: np.ndarray) -> tuple[float, float, float]:
+    """Rubin's rules written out: the pooled estimate, total SE and t quantile."""
+    m = len(q)
+    w, b = np.mean(se ** 2), np.var(q, ddof=1)
+    total = w + (1 + 1 / m) * b
+    lam = (1 + 1 / m) * b / total
+    return float(np.mean(q)), float(np.sqrt(total)), float(stats.t.ppf(0.975, (m - 1) / lam ** 2))
+
+
+def published_set(m: int) -> pd.DataFrame:
+    rows = [{"row_type": "group", "group": "<45", "reference": True, "ratio": 1.0,
+             "cases": 40 + m, "median": 40.0 + m, "status": "ok"}]
+    for g, label in enumerate(("45-<55", ">=55")):
+        b, s = LOG_OR[m, g], SE[m, g]
+        rows.append({"row_type": "group", "group": label, "reference": False,
+                     "ratio": np.exp(b), "ratio_lower": np.exp(b - Z95 * s),
+                     "ratio_upper": np.exp(b + Z95 * s), "cases": 50 + m, "median": 50.0,
+                     "status": "ok"})
+    rows.append({"row_type": "route", "form": "linear", "individual_estimate": SLOPE[m],
+                 "individual_se": SLOPE_SE[m], "table_estimate": TABLE_SLOPE[m],
+                 "table_se": TABLE_SE[m], "information_ratio": (SLOPE_SE[m] / TABLE_SE[m]) ** 2,
+                 "status": "ok"})
+    out = pd.DataFrame(rows, columns=list(PUBLISHED_COLUMNS))
+    for c in ("row_type", "group", "form", "design", "covariance_method", "scale", "status",
+              "message"):
+        out[c] = out[c].where(out[c].notna(), "")
+    out["cases"] = out["cases"].astype("Int64")
+    out["reference"] = out["reference"].astype("boolean")
+    return out
+
+
+def test_published_ratios_by_rubins_rules_on_the_log_scale() -> None:
+    out, msg = combine_published([published_set(m) for m in range(3)])
+    assert msg == ""
+    assert out.loc[0, "ratio"] == 1.0 and np.isnan(out.loc[0, "ratio_lower"])
+    for g in range(2):
+        q, s, t = by_hand(LOG_OR[:, g], SE[:, g])
+        row = out.iloc[g + 1]
+        np.testing.assert_allclose([row["ratio"], row["ratio_lower"], row["ratio_upper"]],
+                                   np.exp([q, q - t * s, q + t * s]), rtol=1e-10)
+        # not the ratios averaged on the ratio scale (what a plain column mean gives)
+        assert abs(row["ratio"] - np.mean(np.exp(LOG_OR[:, g]))) > 1e-4
+    route = out.iloc[3]
+    q, s, _ = by_hand(SLOPE, SLOPE_SE)
+    qt, st, _ = by_hand(TABLE_SLOPE, TABLE_SE)
+    np.testing.assert_allclose([route["individual_estimate"], route["individual_se"],
+                                route["table_estimate"], route["table_se"],
+                                route["information_ratio"]], [q, s, qt, st, (s / st) ** 2],
+                               rtol=1e-10)
+    assert out["cases"].iloc[:3].tolist() == [41, 51, 51]  # counts averaged, rounded
+
+
+def replication_set(m: int) -> pd.DataFrame:
+    b, s = LOG_OR[m, 1], SE[m, 1]
+    rep = np.log(1.5)
+    rep_se = (np.log(2.2) - np.log(1.0)) / (2 * Z95)
+    row = {"contrast": ">=55 vs <45", "adjustment": "legacy", "reported_effect": 1.5,
+           "reported_lower": 1.0, "reported_upper": 2.2, "refit_effect": np.exp(b),
+           "refit_lower": np.exp(b - Z95 * s), "refit_upper": np.exp(b + Z95 * s),
+           "reported_estimate": rep, "reported_se": rep_se, "estimate": b, "se": s,
+           "difference": b - rep, "difference_se_units": (b - rep) / s,
+           # a set whose own interval leaves the reported value out (the second): the
+           # combined verdict is recomputed, not taken from a set
+           "reported_inside_refit_ci": m != 1, "refit_inside_reported_ci": True,
+           "se_ratio": rep_se / s, "implied_n_ratio": (s / rep_se) ** 2, "disagrees": m == 1,
+           "verdict": "agrees" if m != 1 else "estimate differs", "n": 400, "events": 150,
+           "scale": "odds ratio", "status": "ok", "message": ""}
+    out = pd.DataFrame([row], columns=list(REPLICATION_COLUMNS))
+    out["events"] = out["events"].astype("Int64")
+    out["refit_inside_reported_ci"] = out["refit_inside_reported_ci"].astype("boolean")
+    return out
+
+
+def test_replication_by_rubins_rules_and_its_verdict_recomputed() -> None:
+    out, msg = combine_replication([replication_set(m) for m in range(3)])
+    assert msg == ""
+    q, s, t = by_hand(LOG_OR[:, 1], SE[:, 1])
+    row = out.iloc[0]
+    np.testing.assert_allclose([row["estimate"], row["se"], row["refit_effect"],
+                                row["refit_lower"], row["refit_upper"]],
+                               [q, s, np.exp(q), np.exp(q - t * s), np.exp(q + t * s)],
+                               rtol=1e-10)
+    rep = np.log(1.5)
+    rep_se = (np.log(2.2) - np.log(1.0)) / (2 * Z95)
+    np.testing.assert_allclose([row["difference"], row["difference_se_units"], row["se_ratio"]],
+                               [q - rep, (q - rep) / s, rep_se / s], rtol=1e-10)
+    inside = bool(q - t * s <= rep <= q + t * s)
+    assert bool(row["reported_inside_refit_ci"]) is inside
+    assert bool(row["disagrees"]) is (not inside)
+    assert row["verdict"] == ("estimate differs" if not inside else "agrees")
