@@ -114,3 +114,57 @@ def test_replication_by_rubins_rules_and_its_verdict_recomputed() -> None:
     assert bool(row["reported_inside_refit_ci"]) is inside
     assert bool(row["disagrees"]) is (not inside)
     assert row["verdict"] == ("estimate differs" if not inside else "agrees")
+
+
+# ------------------------------------------------- the resampling tables of an imputed analysis
+
+
+def _imputed_study(seed: int, n: int = 300, bootstrap: int = 20) -> tuple[pd.DataFrame, dict]:
+    """An invented binary study whose adjuster z is missing in a fifth of the rows."""
+    rng = np.random.default_rng(seed)
+    z = rng.normal(size=n)
+    x = 50 + 10 * rng.normal(size=n) + 3 * z
+    lp = -1 + 0.004 * (x - 50) ** 2 + 0.03 * (x - 50) + 0.5 * z
+    y = (rng.random(n) < 1 / (1 + np.exp(-lp))).astype(int)
+    frame = pd.DataFrame({"x": x, "z": np.where(rng.random(n) < 0.2, np.nan, z), "y": y})
+    raw = {"study": "sim", "cohorts": [{"name": "sim", "path": "sim.parquet"}],
+           "groupings": {"x": {"cuts": [45, 55]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["z"],
+                         "continuous": {"forms": ["linear", "spline"], "spline_knots": [3],
+                                        "grid_points": 10},
+                         "missing": {"method": "impute", "imputations": 2, "iterations": 2}}],
+           "resampling": {"bootstrap": bootstrap, "permutations": 20}, "seed": 3,
+           "risk_thresholds": [0.2]}
+    return frame, raw
+
+
+def test_resampling_job_gives_the_tables_of_the_whole_analysis() -> None:
+    """The workflow's resampling job (only the tables it reads, again) writes the same
+    resampling tables as the analysis run with every question; the replicates are split over
+    the sets and all counted."""
+    from pathlib import Path
+
+    from unbin.pipeline.imputed import resampling_tables
+    from unbin.pipeline.jobs import analyse
+    from unbin.spec import parse_spec
+
+    frame, raw = _imputed_study(11, bootstrap=21)
+    spec = parse_spec(raw, base=Path("."))
+    whole, status = analyse(spec, "sim", "a", frame, resampling=True)
+    assert status["status"] == "ok", status["message"]
+    job = resampling_tables(spec, "sim", "a", frame)
+    for name in ("information_bootstrap", "decision_resampling", "confounding", "cutpoints"):
+        pd.testing.assert_frame_equal(job[name], whole[name], obj=name)
+    ib = whole["information_bootstrap"]
+    assert (ib["status"] == "ok").all() and (ib["replicates"] == 21).all()
+    assert (ib["replicates_used"] <= 21).all() and (ib["replicates_used"] >= 18).all()
+    info = whole["information"].set_index("adjustment")["info_kept"]
+    np.testing.assert_allclose(ib["info_kept"], info.loc[ib["adjustment"]], rtol=1e-12)
+    assert ((ib["info_kept_lower"] < ib["info_kept"]) & (ib["info_kept"] < ib["info_kept_upper"])
+            ).all()
+    dr = whole["decision_resampling"]
+    ok = dr[dr["status"] == "ok"]
+    assert ((ok["bootstrap_ok"] + ok["bootstrap_failed"]) == 21).all()
+    for name in ("confounding", "cutpoints"):
+        assert whole[name]["message"].str.startswith("complete cases").all()

@@ -424,11 +424,13 @@ def combine_replication(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]:
 
 def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                     basis: CommonBasis | None = None, opts: MissingOptions | None = None,
-                    resampling: bool = False
+                    resampling: bool = False, questions: tuple[str, ...] | None = None
                     ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
     """Every fit-job table of one analysis under multiple imputation, and its status record
     (problems recorded, never raised, as in :func:`unbin.pipeline.jobs.analyse`); with
-    ``resampling`` also the resampling tables (:func:`imputed_resampling`)."""
+    ``resampling`` also the resampling tables (:func:`imputed_resampling`); ``questions``:
+    only these fit-job tables (default all; the resampling job needs only the ones whose
+    numbers its tables repeat, :data:`RESAMPLING_READS`)."""
     from ..refit.analysis import refit_analysis
 
     a = spec.analysis(analysis)
@@ -471,7 +473,7 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
         set0 = [replace(full, fits=[ff for ff in full.fits if replayed(ff)])]
         del full
         per_set, errors, light, messages, failed = _tables_per_set(
-            samples_m, a, spec, cohort, set0, first, outcome, common)
+            samples_m, a, spec, cohort, set0, first, outcome, common, questions)
         pooled = pooled_logliks(samples_m, a, light, outcome)
         notes += messages + failed
         lost = _combine_sets(per_set, errors, light, opts, method, tables, notes,
@@ -515,7 +517,7 @@ def choices_note(full: Any) -> str:
 
 def _tables_per_set(samples_m: list[Sample], a: Analysis, spec: Spec, cohort: str,
                     set0: list[Any], first: FitsOnly, outcome: Outcome,
-                    common: CommonBasis | None
+                    common: CommonBasis | None, questions: tuple[str, ...] | None = None
                     ) -> tuple[dict[str, list[pd.DataFrame]], dict[str, Exception],
                                list[FitsOnly], list[str], list[str]]:
     """Every question's table in every imputed set, one set at a time (its refit, its tables,
@@ -527,7 +529,8 @@ def _tables_per_set(samples_m: list[Sample], a: Analysis, spec: Spec, cohort: st
     from ..pipeline.jobs import _builder, failed_fit_messages
     from ..questions import QUESTION_TABLES
 
-    per_set: dict[str, list[pd.DataFrame]] = {n: [] for n in QUESTION_TABLES}
+    builders = {n: t for n, t in QUESTION_TABLES.items() if questions is None or n in questions}
+    per_set: dict[str, list[pd.DataFrame]] = {n: [] for n in builders}
     errors: dict[str, Exception] = {}
     light: list[FitsOnly] = []
     messages: list[str] = []
@@ -538,7 +541,7 @@ def _tables_per_set(samples_m: list[Sample], a: Analysis, spec: Spec, cohort: st
             messages, failed = list(r.messages), failed_fit_messages(r.fits)
         else:
             r = _refit_fixed(s, a, spec, cohort, common, first, outcome)
-        for name, target in QUESTION_TABLES.items():
+        for name, target in builders.items():
             if name in errors:
                 continue
             try:
@@ -788,6 +791,22 @@ def _median_profile_crossings(thresholds: pd.DataFrame | None) -> pd.DataFrame |
     q = thresholds["profile_quantile"].astype(float)
     return thresholds[(q == 0.5) & (thresholds["crossing"].astype(float) > 0)
                       & (thresholds["level"] == "all")]
+
+
+# the fit-job tables whose combined numbers the pooled resampling tables repeat
+RESAMPLING_READS = ("information", "thresholds")
+
+
+def resampling_tables(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
+                      basis: CommonBasis | None = None) -> dict[str, pd.DataFrame]:
+    """The resampling tables of an imputed analysis for the workflow's resampling job: the
+    imputation and the sets' fits again (the same seeded draws as the fit job), only the
+    tables the resampling tables read, then :func:`imputed_resampling`."""
+    from ..questions import RESAMPLING_TABLES
+
+    tables, _ = analyse_imputed(spec, cohort, analysis, frame, basis, resampling=True,
+                                questions=RESAMPLING_READS)
+    return {n: tables[n] for n in RESAMPLING_TABLES if n in tables}
 
 
 COMPLETE_CASES = ("complete cases: the rows with a missing value are left out of this table "
