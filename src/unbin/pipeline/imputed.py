@@ -854,9 +854,10 @@ def imputed_resampling(spec: Spec, cohort: str, a: Analysis, frame: pd.DataFrame
             refits, spec, first, information if information is not None else pd.DataFrame()),
         "decision_resampling": lambda: pooled_decision_resampling(refits, spec, first,
                                                                   thresholds)}
+    method = f"imputed (M = {len(samples_m)})"
     for name, build in builders.items():
         try:
-            out[name] = build()
+            out[name] = _with_method(build(), method)
         except Exception as exc:
             if not isinstance(exc, UnbinError):
                 log.error("internal error in %s/%s, question %s:\n%s", cohort, a.name, name,

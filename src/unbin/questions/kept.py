@@ -108,6 +108,12 @@ def glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
     models of the same outcome) of each replicate: coefficients ``coef`` (B, p + 1, intercept
     first) on weights ``W`` (B, n). NaN where the coefficients are."""
     y = np.asarray(outcome.y, dtype=float)
+    with np.errstate(invalid="ignore"):  # a failed replicate's NaN coefficients stay NaN
+        return _glm_logliks(family, X, coef, outcome, W, y)
+
+
+def _glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
+                 W: np.ndarray, y: np.ndarray) -> np.ndarray:
     eta = coef[:, :1] + coef[:, 1:] @ np.asarray(X, dtype=float).T
     if outcome.offset is not None:
         eta = eta + outcome.offset
