@@ -847,7 +847,12 @@ def imputed_resampling(spec: Spec, cohort: str, a: Analysis, frame: pd.DataFrame
     """The resampling tables of an imputed analysis: information_bootstrap and
     decision_resampling bootstrap within the imputed sets and pool the replicates;
     confounding and cutpoints are on complete cases (their rows say so)."""
-    out = _complete_case_resampling(spec, cohort, a.name, frame)
+    try:
+        out = _complete_case_resampling(spec, cohort, a.name, frame)
+    except Exception:  # logged; the imputed tables and the pooled ones still complete
+        log.error("internal error in %s/%s, complete-case resampling:\n%s", cohort, a.name,
+                  traceback.format_exc())
+        out = {}
     refits = set_refits(samples_m, a, cohort, first.legacy, basis)
     builders = {
         "information_bootstrap": lambda: pooled_information_bootstrap(
