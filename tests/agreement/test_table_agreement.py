@@ -292,19 +292,13 @@ def _info_pairs(t: dict[str, pd.DataFrame]) -> pd.DataFrame:
         suffixes=("_information", "_bootstrap"))
 
 
-IMPUTED_BUG = ("under missing: impute the resampling tables run on complete cases "
-               "(pipeline/imputed.py, _complete_case_resampling), so information_bootstrap's "
-               "info_kept and interval are the complete-case share while information holds the "
-               "D3 share combined over the imputed sets")
-
-
 def _marks(name: str, bugs: dict[str, str]) -> Any:
     if name in bugs:
         return pytest.param(name, marks=pytest.mark.xfail(strict=True, reason=bugs[name]))
     return name
 
 
-@pytest.mark.parametrize("name", [_marks(n, {"imputed": IMPUTED_BUG}) for n in DESIGNS])
+@pytest.mark.parametrize("name", DESIGNS)
 def test_info_kept_is_one_number(tables: Any, name: str) -> None:
     """``information_bootstrap.info_kept`` is documented as equal to ``information``'s."""
     pairs = _info_pairs(tables[name])
@@ -313,11 +307,7 @@ def test_info_kept_is_one_number(tables: Any, name: str) -> None:
                                rtol=1e-9)
 
 
-IMPUTED_C = ("under missing: impute decision_resampling runs on complete cases, so its apparent C "
-             "index is not information's C (averaged over the imputed sets)")
-
-
-@pytest.mark.parametrize("name", [_marks(n, {"imputed": IMPUTED_C}) for n in RISK_DESIGNS])
+@pytest.mark.parametrize("name", RISK_DESIGNS)
 def test_c_index_information_vs_decision_resampling(tables: Any, name: str) -> None:
     t = tables[name]
     dr = t["decision_resampling"]
@@ -340,12 +330,9 @@ COMPETING_DECISIONS = ("with competing events decision_resampling ignores them "
                        "slope is 1 by construction, while net_benefit uses Aalen-Johansen and the "
                        "Fine-Gray risks (treat all at 0.2: 0.217 against 0.160) and calibration "
                        "gives 1.09")
-IMPUTED_DECISIONS = ("under missing: impute decision_resampling runs on complete cases, while "
-                     "net_benefit, calibration and thresholds come from the imputed sets")
 
 
-@pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS,
-                                             "imputed": IMPUTED_DECISIONS})
+@pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS})
                                   for n in RISK_DESIGNS])
 def test_decision_resampling_estimates_are_the_decision_tables(tables: Any, name: str) -> None:
     """decision_resampling's full-sample net benefits and calibration slopes are the
@@ -370,8 +357,7 @@ def test_decision_resampling_estimates_are_the_decision_tables(tables: Any, name
                                    err_msg=r["model"])
 
 
-@pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS,
-                                             "imputed": IMPUTED_DECISIONS})
+@pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS})
                                   for n in RISK_DESIGNS])
 def test_decision_resampling_thresholds_are_the_thresholds_table(tables: Any, name: str) -> None:
     """decision_resampling's implied thresholds (median risk profile) are the ``thresholds``
@@ -402,14 +388,7 @@ def test_c_index_against_scipy(tables: Any) -> None:
     np.testing.assert_allclose(info.loc["legacy", "c_legacy"], auc, rtol=1e-9)
 
 
-IMPUTED_PUBLISHED = ("under missing: impute as_published's group ratios and limits are averaged "
-                     "over the imputed sets on the ratio scale (refit/combine.py, combine_tables "
-                     "averages every numeric column without estimate/se), not combined by Rubin's "
-                     "rules as effects' legacy contrasts are")
-
-
-@pytest.mark.parametrize("name", [_marks(n, {"imputed": IMPUTED_PUBLISHED})
-                                  for n in DESIGNS if n != "linear"])
+@pytest.mark.parametrize("name", [n for n in DESIGNS if n != "linear"])
 def test_legacy_contrasts_agree_across_tables(tables: Any, name: str) -> None:
     """The legacy model's group contrasts (legacy adjustment) are one set of numbers in
     ``effects``, ``as_published`` and ``replication``."""

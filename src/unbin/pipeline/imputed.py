@@ -347,13 +347,90 @@ def combine_coefficients(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]
     return out, ""
 
 
+def combine_published(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]:
+    """The ``as_published`` table over the sets: the groups' ratios and limits by Rubin's rules
+    on the log scale (each set's log ratio and its SE from its Wald limits), so that they are
+    the ``effects`` table's legacy contrasts; the route's individual and table slopes by
+    Rubin's rules (mean estimate, total SE) and ``information_ratio`` from the combined SEs;
+    counts and medians averaged (:func:`unbin.refit.combine.combine_tables`)."""
+    from ..refit.combine import combine_estimates, combine_log_ratios, combine_tables
+    from ..refit.contrasts import Z95
+
+    out, msg = combine_tables(tables)
+    if msg or out.empty:
+        return out, msg
+    combine_log_ratios(tables, out, "ratio", "ratio_lower", "ratio_upper", Z95)
+    for est, se in (("individual_estimate", "individual_se"), ("table_estimate", "table_se")):
+        combine_estimates(tables, out, est, se)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out["information_ratio"] = (out["individual_se"] / out["table_se"]) ** 2
+    return out, ""
+
+
+# replication's columns that follow from the refit estimate and its interval: recomputed from
+# the combined ones (a set's own verdict is not the combined analysis')
+REPLICATION_DERIVED = ("reported_inside_refit_ci", "refit_inside_reported_ci", "disagrees",
+                       "verdict", "message")
+
+
+def combine_replication(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]:
+    """The ``replication`` table over the sets: the refit log ratio (or difference) and SE by
+    Rubin's rules (:func:`unbin.refit.combine.combine_tables`), its limits the t interval on
+    Barnard-Rubin degrees of freedom (as ``effects``' legacy contrasts), and every column that
+    follows from them (difference, SE ratio, the verdict) recomputed from the combined ones."""
+    from ..questions.replication import SE_RATIO_TOLERANCE
+    from ..refit.combine import combine_tables, rubin
+
+    if not tables or tables[0].empty or (tables[0]["status"] != "ok").any():
+        return combine_tables(tables)
+    first = tables[0]
+    same = [t.assign(**{c: first[c] for c in REPLICATION_DERIVED}) for t in tables]
+    out, msg = combine_tables(same)
+    if msg:
+        return out, msg
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pooled = rubin(np.vstack([t["estimate"].to_numpy(float) for t in tables]),
+                       np.vstack([t["se"].to_numpy(float) for t in tables]))
+        lo, hi = pooled.interval()
+    ratio = not np.allclose(first["refit_effect"].to_numpy(float),
+                            first["estimate"].to_numpy(float))
+    tr = np.exp if ratio else (lambda v: v)
+    est, se = pooled.estimate, pooled.se
+    rep_est, rep_se = (out[c].to_numpy(float) for c in ("reported_estimate", "reported_se"))
+    rep_lo, rep_hi = (out[c].to_numpy(float, na_value=np.nan)
+                      for c in ("reported_lower", "reported_upper"))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        se_ratio = np.where(se > 0, rep_se / se, np.nan)
+        out["refit_effect"], out["refit_lower"], out["refit_upper"] = tr(est), tr(lo), tr(hi)
+        out["difference"] = est - rep_est
+        out["difference_se_units"] = np.where(se > 0, (est - rep_est) / se, np.nan)
+        out["se_ratio"] = se_ratio
+        out["implied_n_ratio"] = np.where(np.isfinite(se_ratio) & (se_ratio > 0),
+                                          1 / se_ratio ** 2, np.nan)
+    inside = (lo <= rep_est) & (rep_est <= hi)
+    refit_in = [bool(a <= tr(e) <= b) if np.isfinite(a) and np.isfinite(b) else None
+                for a, b, e in zip(rep_lo, rep_hi, est, strict=True)]
+    out["reported_inside_refit_ci"] = inside
+    out["refit_inside_reported_ci"] = pd.array(refit_in, dtype="boolean")
+    out["disagrees"] = ~inside
+    out["verdict"] = np.where(~inside, "estimate differs", np.where(
+        np.isfinite(se_ratio) & ~((1 / SE_RATIO_TOLERANCE <= se_ratio)
+                                  & (se_ratio <= SE_RATIO_TOLERANCE)),
+        "precision differs", "agrees"))
+    out["message"] = np.where(inside, "", "the extract may not be the data the paper used (or "
+                              "the sample, grouping or model differ)")
+    return out, ""
+
+
 def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                     basis: CommonBasis | None = None, opts: MissingOptions | None = None,
-                    resampling: bool = False
+                    resampling: bool = False, questions: tuple[str, ...] | None = None
                     ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
     """Every fit-job table of one analysis under multiple imputation, and its status record
     (problems recorded, never raised, as in :func:`unbin.pipeline.jobs.analyse`); with
-    ``resampling`` also the resampling tables, on complete cases."""
+    ``resampling`` also the resampling tables (:func:`imputed_resampling`); ``questions``:
+    only these fit-job tables (default all; the resampling job needs only the ones whose
+    numbers its tables repeat, :data:`RESAMPLING_READS`)."""
     from ..refit.analysis import refit_analysis
 
     a = spec.analysis(analysis)
@@ -396,13 +473,19 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
         set0 = [replace(full, fits=[ff for ff in full.fits if replayed(ff)])]
         del full
         per_set, errors, light, messages, failed = _tables_per_set(
-            samples_m, a, spec, cohort, set0, first, outcome, common)
+            samples_m, a, spec, cohort, set0, first, outcome, common, questions)
         pooled = pooled_logliks(samples_m, a, light, outcome)
         notes += messages + failed
         lost = _combine_sets(per_set, errors, light, opts, method, tables, notes,
                              f"{cohort}/{analysis}", pooled)
         partial = bool(failed) or lost
-        notes.append("the resampling tables (confounding, cutpoints) use complete cases")
+        notes.append("information_bootstrap and decision_resampling bootstrap within the "
+                     "imputed sets (replicates pooled); confounding and cutpoints use complete "
+                     "cases")
+        if resampling:
+            tables.update(imputed_resampling(spec, cohort, a, frame, samples_m, first, common,
+                                             tables.get("information"),
+                                             tables.get("thresholds")))
         if partial:
             status["status"] = "partial"
         status["message"] = " | ".join(dict.fromkeys(notes))
@@ -411,8 +494,6 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
 
         status.update(failure_status(exc, f"{cohort}/{analysis}"))
         tables = {}
-    if resampling and status["status"] in ("ok", "partial"):
-        tables.update(_complete_case_resampling(spec, cohort, analysis, frame, method))
     tables["samples"] = samples
     tables["status"] = pd.DataFrame([status])
     return tables, status
@@ -436,7 +517,7 @@ def choices_note(full: Any) -> str:
 
 def _tables_per_set(samples_m: list[Sample], a: Analysis, spec: Spec, cohort: str,
                     set0: list[Any], first: FitsOnly, outcome: Outcome,
-                    common: CommonBasis | None
+                    common: CommonBasis | None, questions: tuple[str, ...] | None = None
                     ) -> tuple[dict[str, list[pd.DataFrame]], dict[str, Exception],
                                list[FitsOnly], list[str], list[str]]:
     """Every question's table in every imputed set, one set at a time (its refit, its tables,
@@ -448,7 +529,8 @@ def _tables_per_set(samples_m: list[Sample], a: Analysis, spec: Spec, cohort: st
     from ..pipeline.jobs import _builder, failed_fit_messages
     from ..questions import QUESTION_TABLES
 
-    per_set: dict[str, list[pd.DataFrame]] = {n: [] for n in QUESTION_TABLES}
+    builders = {n: t for n, t in QUESTION_TABLES.items() if questions is None or n in questions}
+    per_set: dict[str, list[pd.DataFrame]] = {n: [] for n in builders}
     errors: dict[str, Exception] = {}
     light: list[FitsOnly] = []
     messages: list[str] = []
@@ -459,7 +541,7 @@ def _tables_per_set(samples_m: list[Sample], a: Analysis, spec: Spec, cohort: st
             messages, failed = list(r.messages), failed_fit_messages(r.fits)
         else:
             r = _refit_fixed(s, a, spec, cohort, common, first, outcome)
-        for name, target in QUESTION_TABLES.items():
+        for name, target in builders.items():
             if name in errors:
                 continue
             try:
@@ -493,6 +575,10 @@ def _combine_sets(per_set: dict[str, list[pd.DataFrame]], errors: dict[str, Exce
                                                     pooled)
             elif name == "coefficients":
                 combined, msg = combine_coefficients(per_set[name])
+            elif name == "as_published":
+                combined, msg = combine_published(per_set[name])
+            elif name == "replication":
+                combined, msg = combine_replication(per_set[name])
             elif name == "density":  # descriptive, suppressed per set: the first set's
                 combined, msg = per_set[name][0], ""
             else:
@@ -511,9 +597,227 @@ def _combine_sets(per_set: dict[str, list[pd.DataFrame]], errors: dict[str, Exce
     return lost
 
 
+def replicates_per_set(total: int, m: int) -> list[int]:
+    """``total`` bootstrap replicates split over ``m`` imputed sets (the first ``total % m`` sets
+    take one more), so the pooled bootstrap costs what one bootstrap of ``total`` does."""
+    return [total // m + (1 if k < total % m else 0) for k in range(m)]
+
+
+def set_refits(samples_m: list[Sample], a: Analysis, cohort: str, legacy: Any,
+               basis: CommonBasis | None) -> list[Any]:
+    """Each imputed set as the resampling questions read it: its sample, outcome and exposure,
+    with the first set's legacy grouping, and no fits."""
+    from ..refit.analysis import Refit, build_outcome
+
+    return [Refit(a, cohort, s, build_outcome(s, a), s.frame[a.exposure].to_numpy(float),
+                  legacy, basis) for s in samples_m]
+
+
+def pooled_information_bootstrap(refits: list[Any], spec: Spec, first: FitsOnly,
+                                 information: pd.DataFrame) -> pd.DataFrame:
+    """``information_bootstrap`` of an imputed analysis: the bootstrap within the imputed sets,
+    replicates pooled ("MI Boot pooled", Schomaker & Heumann 2018). The
+    ``resampling.bootstrap`` replicates are split over the M sets
+    (:func:`replicates_per_set`); in set m they resample that set's rows
+    (``unbin.questions.kept.replicate_shares``, seeded per set from the spec) and refit the
+    null, legacy and legacy + test spline models with the first set's test-spline and
+    adjustment knots (the designs the ``information`` table combines); the interval is the
+    percentile interval of the shares of all replicates together. The share itself is the
+    ``information`` table's, combined over the sets (D3, or D1 where the fits maximise no
+    plain likelihood)."""
+    from ..questions import kept
+
+    a = refits[0].analysis
+    m = len(refits)
+    B = spec.resampling.bootstrap
+    share = (dict(zip(information["adjustment"], information["info_kept"].astype(float),
+                      strict=True)) if "info_kept" in information else {})
+    test = first.get("test_spline", "legacy")
+    test_term = test.exposure_terms[0] if test is not None and test.exposure_terms else None
+    adjust = {c: ff.adjust_terms for c in ("legacy", "continuous")
+              if (ff := first.get("null", c)) is not None}
+    if B <= 0 or kept.bootstrap_reason(a):  # no interval: the rows say why
+        template = kept.information_bootstrap_table(refits[0], spec)
+        template["info_kept"] = [share.get(c, np.nan) for c in template["adjustment"]]
+        return template
+    pooled: dict[str, list[np.ndarray]] = {}
+    rows: list[dict[str, object]] = []
+    for k, (r, b) in enumerate(zip(refits, replicates_per_set(B, m), strict=True)):
+        set_rows, models, ok_rows = kept._point_rows(r, spec, test_term, adjust)
+        if k == 0:
+            rows = set_rows
+        if not ok_rows or b <= 0:
+            continue
+        shares = kept.replicate_shares(r.family, models, r.outcome,
+                                       spec.rng(a.name, f"information-bootstrap\x00set {k}"),
+                                       b, a.robust)
+        for j, i in enumerate(ok_rows):
+            pooled.setdefault(str(set_rows[i]["adjustment"]), []).append(shares[:, j])
+    alpha = (1 - kept.LEVEL) / 2
+    method = (f"bootstrap within each of the {m} imputed sets ({B} replicates split over "
+              "them), replicates pooled; the share is the information table's, combined over "
+              "the sets")
+    for row in rows:
+        coding = str(row["adjustment"])
+        point = float(share.get(coding, np.nan))
+        row["info_kept"] = point
+        if not np.isfinite(point):
+            row.update(status="failed", message=str(row["message"]) or (
+                "the information table has no combined share for this coding"))
+            continue
+        s = np.concatenate(pooled.get(coding, [np.zeros(0)]))
+        s = s[np.isfinite(s)]
+        row.update(status="ok", replicates_used=len(s), message=method)
+        if len(s) < kept.MIN_REPLICATES:
+            row.update(status="failed", message=(
+                f"only {len(s)} of {B} bootstrap replicates over the imputed sets could be "
+                f"refitted (at least {kept.MIN_REPLICATES} are needed for an interval)"))
+            continue
+        lo, hi = np.quantile(s, [alpha, 1 - alpha])
+        row.update(info_kept_lower=float(lo), info_kept_upper=float(hi))
+        if len(s) < B:
+            row["message"] = (f"{method}; {B - len(s)} of {B} replicates left out (a model did "
+                              "not converge or a design column did not vary among the drawn "
+                              "rows)")
+    return pd.DataFrame(rows, columns=list(kept.COLUMNS))
+
+
+def _first_choices(first: FitsOnly) -> dict[str, Any]:
+    """The first set's adjustment terms and chosen spline by coding (what decision_resampling
+    refits in every set, as the decision tables' models are the first set's)."""
+    out: dict[str, Any] = {"adjust": {}, "spline": {}}
+    for coding in ("legacy", "continuous"):
+        null = first.get("null", coding)
+        if null is not None:
+            out["adjust"][coding] = null.adjust_terms
+        spline = first.get("spline", coding)
+        if spline is not None and spline.exposure_terms:
+            out["spline"][coding] = spline.exposure_terms
+    return out
+
+
+def pooled_decision_resampling(refits: list[Any], spec: Spec, first: FitsOnly,
+                               thresholds: pd.DataFrame | None = None) -> pd.DataFrame:
+    """``decision_resampling`` of an imputed analysis: the bootstrap within the imputed sets,
+    replicates pooled ("MI Boot pooled", Schomaker & Heumann 2018). The ``resampling.bootstrap``
+    replicates are split over the M sets (:func:`replicates_per_set`); each set refits the
+    decision models with the first set's choices (spline knots, adjustment terms, legacy
+    grouping) and judges each replicate's models in its bootstrap sample and in the set's full
+    sample. The percentile intervals and the optimism are over all replicates together;
+    ``estimate`` (= ``apparent``) is the per-set values averaged over the sets, as the
+    ``net_benefit``, ``calibration``, ``thresholds`` and ``information`` tables combine them
+    (the implied thresholds: the combined ``thresholds`` table's at the median risk profile,
+    whose numbers of crossings also pick the replicates matched)."""
+    from ..questions import decision_resampling as dr
+
+    m = len(refits)
+    B = spec.resampling.bootstrap
+    fixed = _first_choices(first)
+    runs: list[dict[str, Any]] = []
+    for k, (r, b) in enumerate(zip(refits, replicates_per_set(B, m), strict=True)):
+        got: dict[str, Any] = {}
+        table = dr.decision_resampling_table(r, spec, replicates=max(b, 1),
+                                             purpose=f"{dr.PURPOSE}\x00set {k}", fixed=fixed,
+                                             collect=got)
+        if not got:  # skipped or nothing fitted: the first set's table says why
+            return table if k == 0 else dr.decision_resampling_table(refits[0], spec)
+        if b <= 0:  # fewer replicates than sets: this set gives its apparent values only
+            got["boot"], got["test"] = [], []
+        runs.append(got)
+    apparent = _combined_apparent([g["apparent"] for g in runs], thresholds)
+    boot = [bt for g in runs for bt in g["boot"]]
+    test = [tt for g in runs for tt in g["test"]]
+    x = np.concatenate([r.x for r in refits])
+    q01, q99 = (float(v) for v in np.quantile(x, [0.01, 0.99]))
+    method = (f"bootstrap within each of the {m} imputed sets ({B} replicates split over "
+              "them), replicates pooled; estimates combined over the sets")
+    note = " | ".join(dict.fromkeys([n for g in runs for n in g["notes"]] + [method]))
+    rows: list[dict[str, Any]] = []
+    for key, est in apparent.items():
+        if key[0] == "crossings":
+            continue
+        row: dict[str, Any] = {**runs[0]["base"], "quantity": key[0], "estimate": est,
+                               "status": "ok", "reason": "", "note": note}
+        row.update(dr._row_labels(key, est, q01, q99))
+        dr._row_interval(row, key, est, apparent, boot, test, B)
+        row["computed_by"] = f"{row['computed_by']} (imputed sets pooled)"
+        rows.append(row)
+    if not rows:
+        rows.append({**runs[0]["base"], "status": "failed",
+                     "reason": note or "no model could be fitted"})
+    return dr._finish(rows)
+
+
+def _combined_apparent(sets: list[dict[tuple[Any, ...], float]],
+                       thresholds: pd.DataFrame | None = None
+                       ) -> dict[tuple[Any, ...], float]:
+    """Each quantity's value averaged over the sets that have it; the implied thresholds (and
+    their numbers of crossings) those of the combined ``thresholds`` table at the median risk
+    profile, else averaged when every set has the same numbers of crossings, else the first
+    set's."""
+    def crossing_keys(d: dict[tuple[Any, ...], float]) -> dict[tuple[Any, ...], float]:
+        return {k: v for k, v in d.items() if k[0] == "crossings"}
+
+    same = all(crossing_keys(d) == crossing_keys(sets[0]) for d in sets[1:])
+    out: dict[tuple[Any, ...], float] = {}
+    table = _median_profile_crossings(thresholds)
+    for key in sets[0]:
+        if key[0] in ("crossings", "implied threshold") and table is not None:
+            continue
+        if key[0] in ("crossings", "implied threshold") and not same:
+            out[key] = sets[0][key]
+            continue
+        values = [d[key] for d in sets if key in d and np.isfinite(d[key])]
+        out[key] = float(np.mean(values)) if values else float("nan")
+    if table is not None:
+        for key in crossing_keys(sets[0]):
+            (model, coding), t = key[1], key[2]
+            rows = table[(table["model"] == model) & (table["adjustment"] == coding)
+                         & np.isclose(table["threshold"].astype(float), t, atol=1e-12)]
+            rows = rows.sort_values("crossing")
+            out[key] = float(len(rows))
+            for j, v in enumerate(rows["exposure_value"].astype(float), start=1):
+                out[("implied threshold", key[1], t, j)] = float(v)
+    return out
+
+
+def _median_profile_crossings(thresholds: pd.DataFrame | None) -> pd.DataFrame | None:
+    """The combined ``thresholds`` table's crossings at the median risk profile of the whole
+    sample (what decision_resampling resamples), or None without that table."""
+    need = {"model", "adjustment", "threshold", "profile_quantile", "crossing", "level",
+            "exposure_value"}
+    if thresholds is None or thresholds.empty or not need <= set(thresholds.columns):
+        return None
+    q = thresholds["profile_quantile"].astype(float)
+    return thresholds[(q == 0.5) & (thresholds["crossing"].astype(float) > 0)
+                      & (thresholds["level"] == "all")]
+
+
+# the fit-job tables whose combined numbers the pooled resampling tables repeat
+RESAMPLING_READS = ("information", "thresholds")
+
+
+def resampling_tables(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
+                      basis: CommonBasis | None = None) -> dict[str, pd.DataFrame]:
+    """The resampling tables of an imputed analysis for the workflow's resampling job: the
+    imputation and the sets' fits again (the same seeded draws as the fit job), only the
+    tables the resampling tables read, then :func:`imputed_resampling`."""
+    from ..questions import RESAMPLING_TABLES
+
+    tables, _ = analyse_imputed(spec, cohort, analysis, frame, basis, resampling=True,
+                                questions=RESAMPLING_READS)
+    return {n: tables[n] for n in RESAMPLING_TABLES if n in tables}
+
+
+COMPLETE_CASES = ("complete cases: the rows with a missing value are left out of this table "
+                  "(it is not imputed)")
+
+
 def _complete_case_resampling(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
-                              method: str) -> dict[str, pd.DataFrame]:
-    """The resampling questions on the complete-case sample (they are not imputed)."""
+                              only: tuple[str, ...] = ("confounding", "cutpoints")
+                              ) -> dict[str, pd.DataFrame]:
+    """The resampling questions ``only`` on the complete-case sample (they are not imputed);
+    every row's message says so."""
     from ..pipeline.jobs import _builder
     from ..questions import RESAMPLING_TABLES
     from ..refit.analysis import bare_refit
@@ -525,8 +829,43 @@ def _complete_case_resampling(spec: Spec, cohort: str, analysis: str, frame: pd.
         if sample.n < MIN_SAMPLE_ROWS:
             return out
         r = bare_refit(sample, a, spec, cohort)
-        for name, target in RESAMPLING_TABLES.items():
-            out[name] = _builder(target)(r, spec)
+        for name in only:
+            df = _builder(RESAMPLING_TABLES[name])(r, spec)
+            if "message" in df and len(df):
+                df["message"] = [COMPLETE_CASES + (f"; {m}" if isinstance(m, str) and m else "")
+                                 for m in df["message"]]
+            out[name] = df
     except UnbinError:
         pass
+    return out
+
+
+def imputed_resampling(spec: Spec, cohort: str, a: Analysis, frame: pd.DataFrame,
+                       samples_m: list[Sample], first: FitsOnly, basis: CommonBasis | None,
+                       information: pd.DataFrame | None,
+                       thresholds: pd.DataFrame | None = None) -> dict[str, pd.DataFrame]:
+    """The resampling tables of an imputed analysis: information_bootstrap and
+    decision_resampling bootstrap within the imputed sets and pool the replicates;
+    confounding and cutpoints are on complete cases (their rows say so)."""
+    try:
+        out = _complete_case_resampling(spec, cohort, a.name, frame)
+    except Exception:  # logged; the imputed tables and the pooled ones still complete
+        log.error("internal error in %s/%s, complete-case resampling:\n%s", cohort, a.name,
+                  traceback.format_exc())
+        out = {}
+    refits = set_refits(samples_m, a, cohort, first.legacy, basis)
+    builders = {
+        "information_bootstrap": lambda: pooled_information_bootstrap(
+            refits, spec, first, information if information is not None else pd.DataFrame()),
+        "decision_resampling": lambda: pooled_decision_resampling(refits, spec, first,
+                                                                  thresholds)}
+    method = f"imputed (M = {len(samples_m)})"
+    for name, build in builders.items():
+        try:
+            out[name] = _with_method(build(), method)
+        except Exception as exc:
+            if not isinstance(exc, UnbinError):
+                log.error("internal error in %s/%s, question %s:\n%s", cohort, a.name, name,
+                          traceback.format_exc())
+            out[name] = pd.DataFrame()
     return out

@@ -416,7 +416,8 @@ def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.Da
 
 def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir: str | Path) -> None:
     """The resampling questions of one analysis on one cohort (bootstrap, permutations), on the
-    analysis sample; an analysis that cannot run leaves empty tables (its fit job records why)."""
+    analysis sample (an imputed analysis: :func:`unbin.pipeline.imputed.resampling_tables`); an
+    analysis that cannot run leaves empty tables (its fit job records why)."""
     spec = load_spec(spec_path).for_cohort(cohort)
     a = spec.analysis(analysis)
     prov_base = dict(inputs=[input_record(spec, cohort)],
@@ -427,14 +428,19 @@ def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir:
         frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
         if _type_problems(a, frame, spec):
             raise DataError("the data do not fit the spec (see the fit job's status)")
-        sample = analysis_sample(frame, a, spec)
-        if sample.n < MIN_SAMPLE_ROWS:
-            raise DataError("too few rows")
-        from ..refit.analysis import bare_refit
+        if missing_options(spec, analysis).imputed:  # within the imputed sets
+            from .imputed import resampling_tables
 
-        r = bare_refit(sample, a, spec, cohort)
-        for name, target in RESAMPLING_TABLES.items():
-            tables[name] = _builder(target)(r, spec)
+            tables = resampling_tables(spec, cohort, analysis, frame)
+        else:
+            sample = analysis_sample(frame, a, spec)
+            if sample.n < MIN_SAMPLE_ROWS:
+                raise DataError("too few rows")
+            from ..refit.analysis import bare_refit
+
+            r = bare_refit(sample, a, spec, cohort)
+            for name, target in RESAMPLING_TABLES.items():
+                tables[name] = _builder(target)(r, spec)
     except UnbinError as exc:
         log.info("%s/%s: resampling questions not run: %s", cohort, analysis, exc)
         tables = {}

@@ -204,7 +204,11 @@ def _log_base(on: _Sample, lp_m: np.ndarray, horizon: float, strata_all: np.ndar
         return np.log(h0), centre
 
 
-def fitted_models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], Model], list[str]]:
+def fitted_models(r: Refit, spec: Spec, fixed: dict[str, Any] | None = None
+                  ) -> tuple[dict[tuple[str, str], Model], list[str]]:
+    """The models refitted (module docstring); ``fixed`` (an imputed set: the first set's
+    choices) gives, by coding, the adjustment terms (``"adjust"``) and the spline's terms
+    (``"spline"``) instead of placing them on this sample."""
     a, df, x = r.analysis, r.sample.frame, r.x
     opts = a.continuous
     notes: list[str] = []
@@ -212,12 +216,15 @@ def fitted_models(r: Refit, spec: Spec) -> tuple[dict[tuple[str, str], Model], l
     cache: dict[str, np.ndarray] = {}
     same_adjust: tuple[Term, ...] | None = None
     for coding in CODINGS:
-        adjust = adjustment_terms(df, a, spec, coding)
+        adjust = (fixed["adjust"][coding] if fixed and coding in fixed["adjust"]
+                  else adjustment_terms(df, a, spec, coding))
         if same_adjust is None:
             same_adjust = adjust
         cands: dict[str, list[tuple[Term, ...]]] = {
             "legacy": [(r.legacy,)], "linear": [(LinearTerm(a.exposure),)]}
-        if opts.knot_values is not None:
+        if fixed and coding in fixed["spline"]:
+            cands["spline"] = [fixed["spline"][coding]]
+        elif opts.knot_values is not None:
             cands["spline"] = [(SplineTerm(a.exposure, opts.knot_values),)]
         else:
             cands["spline"] = []
@@ -444,18 +451,24 @@ def _row_interval(row: dict[str, Any], key: tuple[Any, ...], est: float,
     row["bootstrap_failed"] = B - row["bootstrap_ok"]
 
 
-def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
-    """Bootstrap intervals and optimism-corrected values of C, net benefit and thresholds."""
+def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = None,
+                              purpose: str = PURPOSE, fixed: dict[str, Any] | None = None,
+                              collect: dict[str, Any] | None = None) -> pd.DataFrame:
+    """Bootstrap intervals and optimism-corrected values of C, net benefit and thresholds.
+
+    For an imputed set (``unbin.pipeline.imputed``): ``replicates`` of them drawn from
+    ``spec.rng(analysis, purpose)``, the first set's choices ``fixed`` (:func:`fitted_models`),
+    and ``collect`` receives the apparent values and each replicate's (to be pooled)."""
     a = r.analysis
     horizon = horizon_for(a, spec) if r.family == "survival" else None
     base: dict[str, Any] = {"risk_scale": risk_scale(a, spec).label, "horizon": horizon}
-    B = spec.resampling.bootstrap
+    B = spec.resampling.bootstrap if replicates is None else replicates
     skip = _skip_reason(r, spec, horizon)
     if skip is not None:
         return _finish([{**base, "status": "skipped", "reason": skip}])
-    models, notes = fitted_models(r, spec)
+    models, notes = fitted_models(r, spec, fixed)
     n = r.outcome.n
-    W = design_resample_weights(spec.rng(a.name, PURPOSE), r.outcome, B)
+    W = design_resample_weights(spec.rng(a.name, purpose), r.outcome, B)
     coefs = _replicate_coefs(r, models, W)
     ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
     full = _Sample(r, np.arange(n), horizon)
@@ -471,6 +484,8 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
         boot.append(ev.measures(cb, zs, drawn, drawn))
         test.append(ev.measures(cb, zs, drawn, full))
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
+    if collect is not None:
+        collect.update(apparent=apparent, boot=boot, test=test, notes=notes, base=base)
     rows: list[dict[str, Any]] = []
     note = " | ".join(notes)
     for key, est in apparent.items():

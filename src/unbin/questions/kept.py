@@ -108,6 +108,12 @@ def glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
     models of the same outcome) of each replicate: coefficients ``coef`` (B, p + 1, intercept
     first) on weights ``W`` (B, n). NaN where the coefficients are."""
     y = np.asarray(outcome.y, dtype=float)
+    with np.errstate(invalid="ignore"):  # a failed replicate's NaN coefficients stay NaN
+        return _glm_logliks(family, X, coef, outcome, W, y)
+
+
+def _glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
+                 W: np.ndarray, y: np.ndarray) -> np.ndarray:
     eta = coef[:, :1] + coef[:, 1:] @ np.asarray(X, dtype=float).T
     if outcome.offset is not None:
         eta = eta + outcome.offset
@@ -212,19 +218,23 @@ def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: np.nda
     return share
 
 
-def _point_rows(r: Refit, spec: Spec) -> tuple[list[dict[str, object]], list[_Model], list[int]]:
+def _point_rows(r: Refit, spec: Spec, test_term: Term | None = None,
+                adjust_by: dict[str, tuple[Term, ...]] | None = None
+                ) -> tuple[list[dict[str, object]], list[_Model], list[int]]:
     """One row per coding with the point estimate (or why there is none), the fitted models of
-    the rows that have one (consecutive null, legacy, legacy + test spline) and those rows."""
+    the rows that have one (consecutive null, legacy, legacy + test spline) and those rows.
+    ``test_term`` and ``adjust_by`` (by coding): the test spline and adjustment terms to use (an
+    imputed set takes the first set's knots); by default they are placed on the sample."""
     a = r.analysis
     df = r.sample.frame
     codings: list[tuple[str, tuple[Term, ...]]] = [
-        (c, adjustment_terms(df, a, spec, c)) for c in ADJUSTMENTS]
+        (c, adjust_by[c] if adjust_by and c in adjust_by else adjustment_terms(df, a, spec, c))
+        for c in ADJUSTMENTS]
     codings.append(("none", ()))
     base = {"info_kept": np.nan, "info_kept_lower": np.nan, "info_kept_upper": np.nan,
             "level": LEVEL, "replicates": spec.resampling.bootstrap, "replicates_used": 0}
     why = _empty_groups(r)
-    test_term = None
-    if not why:
+    if not why and test_term is None:
         try:
             test_term = test_spline_term(a, r.x)
         except ValueError as exc:

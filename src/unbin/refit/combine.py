@@ -271,3 +271,33 @@ def combine_tables(tables: Sequence[pd.DataFrame], effect_transform: bool = True
         out["fmi"] = pooled.fmi
         out["df_imputation"] = pooled.df
     return out, ""
+
+
+def combine_log_ratios(tables: Sequence[pd.DataFrame], out: pd.DataFrame, ratio: str,
+                       lower: str, upper: str, z: float) -> None:
+    """Ratio columns combined by Rubin's rules on the log scale, in place in ``out`` (the
+    combined table, row for row the per-set ``tables``): each set's log ratio and its standard
+    error, (log upper - log lower) / (2 z), back from its Wald limits exp(b -/+ z se); the
+    pooled ratio exp(mean b) with t limits on Barnard-Rubin degrees of freedom (Rubin 1987;
+    Barnard & Rubin 1999), as ``effect``, ``effect_lower`` and ``effect_upper`` are combined.
+    A row without limits in some set (a reference row, ratio 1) keeps the geometric mean ratio
+    and no limits."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        est = np.vstack([np.log(t[ratio].to_numpy(float, na_value=np.nan)) for t in tables])
+        se = np.vstack([(np.log(t[upper].to_numpy(float, na_value=np.nan))
+                         - np.log(t[lower].to_numpy(float, na_value=np.nan))) / (2 * z)
+                        for t in tables])
+        pooled = rubin(est, se)
+        lo, hi = pooled.interval()
+    out[ratio] = np.exp(pooled.estimate)
+    out[lower], out[upper] = np.exp(lo), np.exp(hi)
+
+
+def combine_estimates(tables: Sequence[pd.DataFrame], out: pd.DataFrame, estimate: str,
+                      se: str) -> None:
+    """An estimate and its standard error combined by Rubin's rules, in place in ``out``: the
+    mean estimate and the total SE sqrt(W + (1 + 1/M) B) (Rubin 1987)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pooled = rubin(np.vstack([t[estimate].to_numpy(float, na_value=np.nan) for t in tables]),
+                       np.vstack([t[se].to_numpy(float, na_value=np.nan) for t in tables]))
+    out[estimate], out[se] = pooled.estimate, pooled.se
