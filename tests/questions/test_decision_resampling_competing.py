@@ -1,7 +1,8 @@
 """decision_resampling with competing events (unbin.questions.decision_resampling): the net
 benefits' observed incidence is the Aalen–Johansen cumulative incidence, in the full sample and
 in every replicate, and its percentile interval covers the truth of a simulation with known
-cause-specific hazards."""
+cause-specific hazards; every replicate refits the Fine–Gray risk models, so the optimism
+correction of their calibration slope moves it towards the held-out slope."""
 
 from __future__ import annotations
 
@@ -11,14 +12,20 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pytest
-from lifelines import AalenJohansenFitter
+from lifelines import AalenJohansenFitter, CoxPHFitter
 
 from helpers import bare_refit
 from unbin.data import analysis_sample
+from unbin.models.competing import fit_fine_gray
 from unbin.models.weighted import design_resample_weights
-from unbin.questions.decision_resampling import PURPOSE, decision_resampling_table
+from unbin.questions.decision_resampling import (
+    PURPOSE,
+    decision_resampling_table,
+    fitted_models,
+)
 from unbin.questions.net_benefit import net_benefit_table
-from unbin.refit.analysis import refit_analysis
+from unbin.refit.analysis import design, refit_analysis
+from unbin.refit.risk import cumhaz_at
 from unbin.spec import parse_spec
 
 HORIZON = 3.0
@@ -161,3 +168,52 @@ def test_treat_all_interval_coverage() -> None:
     a 95% interval over 200 replicates is 0.91-0.99)."""
     hits, _, _ = _coverage(200, 200, 250, 6)
     assert 0.90 <= hits.mean() <= 0.98, hits.mean()
+
+
+def _slope_run(reps: int, bootstrap: int, seed: int) -> pd.DataFrame:
+    """200 rows with four noise adjusters (continuous adjustment: a spline each), so the
+    models overfit. Per sample: the spline risk model's apparent and optimism-corrected
+    calibration slope and its held-out slope: lifelines' CoxPHFitter of cause 1 (cause 2
+    censored) on the same fitted Fine–Gray model's log(-log(1 - p)) in 20,000 new rows."""
+    rng = np.random.default_rng(seed)
+    noise = [f"n{j}" for j in range(4)]
+
+    def frame(n: int) -> pd.DataFrame:
+        f = _frame(rng, n, delayed=False)
+        for v in noise:
+            f[v] = rng.normal(size=len(f))
+        return f
+
+    big = frame(20_000)
+    out = []
+    for _ in range(reps):
+        df = frame(200)
+        raw = _raw(bootstrap, delayed=False)
+        raw["analyses"][0]["adjust"] = ["z", *noise]
+        r, spec = bare_refit(df, raw)
+        tab = decision_resampling_table(r, spec)
+        mdl = fitted_models(r, spec)[0][("spline", "continuous")]
+        o = r.outcome
+        assert o.cause is not None
+        res = fit_fine_gray(mdl.X, o, o.cause, 1, mdl.res.names)
+        h0 = float(cumhaz_at(res.extra["baseline"], None, 1, HORIZON)[0][0])
+        Xb, _ = design(big, big["x"].to_numpy(float), mdl.terms, mdl.adjust)
+        zb = np.log(h0) + Xb @ res.coef
+        cph = CoxPHFitter().fit(pd.DataFrame({"t": big["t"], "d": (big["e"] == 1).astype(int),
+                                              "z": zb}), "t", "d")
+        s = tab[(tab["quantity"] == "calibration slope") & (tab["model"] == "spline")].iloc[0]
+        out.append({"app": s["apparent"], "cor": s["corrected"],
+                    "held": float(cph.params_["z"])})
+    return pd.DataFrame(out)
+
+
+@pytest.mark.slow
+def test_corrected_slope_moves_towards_held_out_fast() -> None:
+    """Every replicate refits the Fine–Gray models, so Harrell's correction sees their
+    overfitting: over 5 seeded samples (25 draws each) the corrected slope is nearer the
+    held-out slope than the apparent one by more than 3 Monte-Carlo SEs of the mean gain.
+    Measured over 8 samples: apparent 0.92-1.05, corrected 0.56-0.76, held-out 0.40-0.61 (a
+    residual under-correction, as for heavily overfitted models: Steyerberg et al. 2001)."""
+    res = _slope_run(5, 25, 3)
+    gain = (res["app"] - res["held"]).abs() - (res["cor"] - res["held"]).abs()
+    assert gain.mean() > 3 * gain.std() / np.sqrt(len(res)), res
