@@ -17,10 +17,11 @@ from lifelines import AalenJohansenFitter, CoxPHFitter
 from helpers import bare_refit
 from unbin.data import analysis_sample
 from unbin.models.competing import fit_fine_gray
-from unbin.models.weighted import design_resample_weights
+from unbin.models.weighted import design_resample_weights, replicate_rows
 from unbin.questions.decision_resampling import (
     PURPOSE,
     decision_resampling_table,
+    fine_gray_risks,
     fitted_models,
 )
 from unbin.questions.net_benefit import net_benefit_table
@@ -217,3 +218,25 @@ def test_corrected_slope_moves_towards_held_out_fast() -> None:
     res = _slope_run(5, 25, 3)
     gain = (res["app"] - res["held"]).abs() - (res["cor"] - res["held"]).abs()
     assert gain.mean() > 3 * gain.std() / np.sqrt(len(res)), res
+
+
+def test_replicate_fine_gray_refits_are_the_full_fits() -> None:
+    """A replicate's coefficients-only refit from the full-sample estimate (no sandwich) gives
+    fit_fine_gray's coefficients and risks on the drawn rows (to its convergence tolerance),
+    delayed entry and repeated rows included."""
+    df = _frame(np.random.default_rng(4), 300, delayed=True)
+    r, spec = bare_refit(df, _raw(3, delayed=True))
+    models, _ = fitted_models(r, spec)
+    full, _ = fine_gray_risks(r, models, HORIZON)
+    W = design_resample_weights(spec.rng("a", PURPOSE), r.outcome, 3)
+    for w in W:
+        rows, weights = replicate_rows(r.outcome, w)
+        near, _ = fine_gray_risks(r, models, HORIZON, rows, weights, full)
+        ref, _ = fine_gray_risks(r, models, HORIZON, rows, weights)
+        assert set(near) == set(ref) == {("legacy", "legacy"), ("linear", "continuous"),
+                                         ("spline", "continuous")}
+        for k, got in near.items():
+            want = ref[k]
+            assert got is not None and want is not None
+            np.testing.assert_allclose(got[0], want[0], rtol=1e-5, atol=1e-6, err_msg=str(k))
+            np.testing.assert_allclose(got[1], want[1], rtol=0, atol=1e-6, err_msg=str(k))

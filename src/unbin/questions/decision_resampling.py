@@ -31,8 +31,9 @@ the Aalen–Johansen estimate (:func:`unbin.questions.net_benefit.net_benefit_km
 cause codes), so the full-sample net benefits, calibration slopes and implied thresholds are
 the ``net_benefit``, ``calibration`` and ``thresholds`` tables' numbers. Each replicate
 refits those Fine–Gray models on its drawn rows (the censoring and entry weights
-re-estimated there, as in :func:`unbin.models.competing.fine_gray_bootstrap_cov`) and reads
-their risks with its own baseline. The C index and delta C stay those of the cause-specific
+re-estimated there, as in :func:`unbin.models.competing.fine_gray_bootstrap_cov`; Newton
+steps from the full-sample estimate, coefficients and baseline only) and reads their risks
+with its own baseline. The C index and delta C stay those of the cause-specific
 Cox models (as in the ``information`` table). The calibration slope (a Cox model of the event
 of interest, competing events censored, on the Fine–Gray ``log(-log(1 - p))``) is then not 1
 by construction in the sample the model was fitted to: it gets a percentile interval too.
@@ -74,7 +75,7 @@ from scipy import special
 
 from ..models import Outcome, fit
 from ..models.base import FitResult
-from ..models.competing import fit_fine_gray
+from ..models.competing import fine_gray_outcome, fit_fine_gray
 from ..models.cox import (
     baseline_cumhaz,
     concordance,
@@ -317,6 +318,7 @@ RiskZ = tuple[np.ndarray, np.ndarray] | None
 
 def fine_gray_risks(r: Refit, models: dict[tuple[str, str], Model], horizon: float,
                     rows: np.ndarray | None = None, weights: np.ndarray | None = None,
+                    starts: dict[tuple[str, str], RiskZ] | None = None,
                     ) -> tuple[dict[tuple[str, str], RiskZ], list[str]]:
     """Competing events: the Fine–Gray model of each risk model's design (as
     :func:`unbin.refit.risk.competing_risk_fit` reads the decision tables' risks) fitted on
@@ -324,7 +326,8 @@ def fine_gray_risks(r: Refit, models: dict[tuple[str, str], Model], horizon: flo
     analysis sample), the censoring and entry weights re-estimated on them
     (:func:`unbin.models.competing.fit_fine_gray`), and every sample row's
     ``z = log Lambda0_s(h) + X b`` with that fit's baseline; and a note per model that did
-    not fit."""
+    not fit. A replicate's fits start from the full-sample ones (``starts``: this function's
+    result on the analysis sample; :func:`_fine_gray_near`)."""
     o = r.outcome
     assert o.cause is not None
     sample = o if rows is None else replace(o.subset(rows), weights=weights, cluster=None)
@@ -337,23 +340,57 @@ def fine_gray_risks(r: Refit, models: dict[tuple[str, str], Model], horizon: flo
             continue
         if id(m) not in done:
             X = m.X if rows is None else m.X[rows]
-            res = fit_fine_gray(X, sample, np.asarray(sample.cause), o.event_of_interest,
-                                m.res.names)
+            start = None if rows is None or starts is None else starts.get(k)
+            if start is None:
+                res = fit_fine_gray(X, sample, np.asarray(sample.cause), o.event_of_interest,
+                                    m.res.names)
+                coef = res.coef if res.ok and np.all(np.isfinite(res.coef)) else None
+                base = res.extra.get("baseline") if coef is not None else None
+                message = res.message
+            else:  # a replicate: coefficients only, from the full-sample estimate
+                coef, base = _fine_gray_near(X, sample, start[0])
+                message = "no convergence from the full-sample estimate"
             got: RiskZ = None
-            if res.ok and np.all(np.isfinite(res.coef)):
-                h0, _, _ = cumhaz_at(res.extra["baseline"], o.strata, o.n, horizon)
+            if coef is not None:
+                h0, _, _ = cumhaz_at(base, o.strata, o.n, horizon)
                 with np.errstate(divide="ignore"):
-                    z = np.log(h0) + m.X @ res.coef
-                got = (np.asarray(res.coef, dtype=float), z) if np.all(np.isfinite(z)) else None
+                    z = np.log(h0) + m.X @ coef
+                got = (np.asarray(coef, dtype=float), z) if np.all(np.isfinite(z)) else None
                 if got is None:
                     notes.append(f"{k[0]} with {k[1]} adjustment: the Fine–Gray risk is 0 for "
                                  "some rows (no event of interest before the horizon)")
             else:
                 notes.append(f"the Fine–Gray model of {k[0]} with {k[1]} adjustment did not "
-                             f"fit: {res.message}")
+                             f"fit: {message}")
             done[id(m)] = got
         out[k] = done[id(m)]
     return out, notes
+
+
+def _fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray,
+                    ) -> tuple[np.ndarray | None, Any]:
+    """A replicate's Fine–Gray coefficients and Breslow baseline (at covariates 0) as
+    :func:`unbin.models.competing.fit_fine_gray` gives them, on the same counting-process
+    expansion (:func:`unbin.models.competing.fine_gray_outcome`), without its sandwich
+    variance, which the replicate does not need: Newton steps from ``start``
+    (:func:`unbin.models.cox.refit_near`), else a full fit."""
+    assert sample.cause is not None
+    expanded, data = fine_gray_outcome(sample, np.asarray(sample.cause),
+                                       sample.event_of_interest)
+    Xe = data.take(X)
+    layout = cox_layout(expanded)
+    coef = refit_near(Xe, layout, start)
+    if coef is None:
+        res = fit("survival", Xe, expanded, tuple(f"x{j}" for j in range(X.shape[1])))
+        if not res.ok or not np.all(np.isfinite(res.coef)):
+            return None, None
+        coef = res.coef
+    lp = X @ coef
+    centre = float(np.mean(lp)) if lp.size else 0.0
+    base = baseline_cumhaz((data.take(lp) - centre)[:, None], expanded.time, expanded.y, [1.0],
+                           entry=expanded.entry, strata=expanded.strata,
+                           weights=expanded.weights, layout=layout)
+    return coef, base.assign(cumhaz=base["cumhaz"].to_numpy(float) * np.exp(-centre))
 
 
 class _Evaluator:
@@ -551,7 +588,7 @@ def decision_resampling_table(r: Refit, spec: Spec) -> pd.DataFrame:
         risks_b = None
         if ev.competing:  # the Fine–Gray models refitted on the drawn rows
             assert horizon is not None
-            risks_b = fine_gray_risks(r, models, horizon, rows_b, weights_b)[0]
+            risks_b = fine_gray_risks(r, models, horizon, rows_b, weights_b, risks)[0]
         boot.append(ev.measures(cb, zs, drawn, drawn, risks=risks_b))
         test.append(ev.measures(cb, zs, drawn, full, risks=risks_b))
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
