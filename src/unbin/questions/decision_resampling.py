@@ -49,8 +49,9 @@ Rows (``quantity``):
   value in its bootstrap sample minus its value in the original sample), ``corrected`` =
   ``apparent`` - ``optimism``. A rule that is not fitted (treat all, the legacy cut rule) has
   optimism 0. The calibration slope's apparent value is 1 (maximum likelihood); its corrected
-  value is the mean slope of the replicate models in the original sample (the shrinkage factor;
-  with competing events apparent minus optimism as for the other rows, above).
+  value is the mean slope of the replicate models in the original sample (the shrinkage
+  factor). With competing events (above) the apparent slope is the calibration table's and
+  ``corrected`` is apparent minus optimism, as for the other rows.
 - "implied threshold" per model, spec threshold and crossing: the exposure value at which the
   model's risk at the median risk profile (the rest of the linear predictor at its median in the
   sample; in a replicate, in its bootstrap sample) crosses the threshold, as in the
