@@ -323,17 +323,7 @@ def test_c_index_information_vs_decision_resampling(tables: Any, name: str) -> N
         np.testing.assert_allclose(r.estimate, info.loc[r.adjustment, "delta_c"], rtol=1e-9)
 
 
-COMPETING_DECISIONS = ("with competing events decision_resampling ignores them "
-                       "(questions/decision_resampling.py calls net_benefit_km without the cause "
-                       "codes, and its risks are 1 - cause-specific survival): its net benefit is "
-                       "by 1 - Kaplan-Meier with competing events censored and its calibration "
-                       "slope is 1 by construction, while net_benefit uses Aalen-Johansen and the "
-                       "Fine-Gray risks (treat all at 0.2: 0.217 against 0.160) and calibration "
-                       "gives 1.09")
-
-
-@pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS})
-                                  for n in RISK_DESIGNS])
+@pytest.mark.parametrize("name", RISK_DESIGNS)
 def test_decision_resampling_estimates_are_the_decision_tables(tables: Any, name: str) -> None:
     """decision_resampling's full-sample net benefits and calibration slopes are the
     ``net_benefit`` and ``calibration`` tables' numbers for the same rule and threshold."""
@@ -357,8 +347,7 @@ def test_decision_resampling_estimates_are_the_decision_tables(tables: Any, name
                                    err_msg=r["model"])
 
 
-@pytest.mark.parametrize("name", [_marks(n, {"competing": COMPETING_DECISIONS})
-                                  for n in RISK_DESIGNS])
+@pytest.mark.parametrize("name", RISK_DESIGNS)
 def test_decision_resampling_thresholds_are_the_thresholds_table(tables: Any, name: str) -> None:
     """decision_resampling's implied thresholds (median risk profile) are the ``thresholds``
     table's crossings at profile quantile 0.5."""

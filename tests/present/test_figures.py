@@ -607,3 +607,25 @@ def test_window_alt_and_title_state_the_table_values(tmp_path: Path) -> None:
     assert [a.get_title() for a in axes] == ["0–1 years · 40 events", "1+ years · 25 events"]
     assert all(a.get_yscale() == "log" for a in axes)
     assert axes[0].get_ylim() == axes[1].get_ylim()
+
+
+def test_information_interval_is_drawn_only_beside_its_own_point() -> None:
+    """A bootstrap row whose info_kept is not the information table's (e.g. a complete-case
+    share beside one combined over imputed sets) gives no whisker and no interval in the alt
+    text; one that agrees to 1e-9 does (the pairing rule of present/summary.kept_interval)."""
+    info = tiny_tables()["information"]
+    jobs = [("sim", "a")]
+    point = float(info.loc[info["adjustment"] == "legacy", "info_kept"].iloc[0])
+    boot = _keyed(pd.DataFrame({"adjustment": ["legacy"], "info_kept": [point + 0.05],
+                                "info_kept_lower": [0.51], "info_kept_upper": [0.7],
+                                "level": 0.95, "replicates": 200, "replicates_used": [198],
+                                "status": "ok", "message": ""}))
+    other = inf.select_information(info, boot, jobs)
+    assert other[["kept_lower", "kept_upper", "level", "replicates_used"]].isna().all().all()
+    assert "bootstrap" not in inf.information_alt(other, ["a"], inf.lr_forms(other))
+    assert "Whiskers" not in inf._footnote(other)
+    same = inf.select_information(info, boot.assign(info_kept=point * (1 + 1e-12)), jobs)
+    assert same[["kept_lower", "kept_upper"]].iloc[0].tolist() == [0.51, 0.7]
+    assert "bootstrap interval 51% to 70%" in inf.information_alt(same, ["a"],
+                                                                  inf.lr_forms(same))
+    assert "_boot_kept" not in same

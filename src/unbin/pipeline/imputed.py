@@ -739,7 +739,10 @@ def pooled_decision_resampling(refits: list[Any], spec: Spec, first: FitsOnly,
         row: dict[str, Any] = {**runs[0]["base"], "quantity": key[0], "estimate": est,
                                "status": "ok", "reason": "", "note": note}
         row.update(dr._row_labels(key, est, q01, q99))
-        dr._row_interval(row, key, est, apparent, boot, test, B)
+        # under competing events the Fine–Gray slope is not 1 by construction: it has an interval
+        dr._row_interval(row, key, est, apparent, boot, test, B,
+                         slope_is_one=not (refits[0].family == "survival"
+                                               and refits[0].outcome.cause is not None))
         row["computed_by"] = f"{row['computed_by']} (imputed sets pooled)"
         rows.append(row)
     if not rows:

@@ -23,6 +23,21 @@ vectorised over replicates, :class:`unbin.models.weighted.WeightedGLM`; survival
 :func:`unbin.models.weighted.weighted_cox_designs`, with the replicate's own Breslow baseline
 for the risk at the horizon).
 
+Competing events (``outcome.competing``): the risks are those of the decision tables
+(:func:`unbin.refit.risk.competing_risk_fit`), the cumulative incidence of the event of
+interest by the horizon from the Fine–Gray model of each risk model's design
+(:func:`unbin.models.competing.fit_fine_gray`), and every net benefit's observed incidence is
+the Aalen–Johansen estimate (:func:`unbin.questions.net_benefit.net_benefit_km` with the
+cause codes), so the full-sample net benefits, calibration slopes and implied thresholds are
+the ``net_benefit``, ``calibration`` and ``thresholds`` tables' numbers. Each replicate
+refits those Fine–Gray models on its drawn rows (the censoring and entry weights
+re-estimated there, as in :func:`unbin.models.competing.fine_gray_bootstrap_cov`; Newton
+steps from the full-sample estimate, coefficients and baseline only) and reads their risks
+with its own baseline. The C index and delta C stay those of the cause-specific
+Cox models (as in the ``information`` table). The calibration slope (a Cox model of the event
+of interest, competing events censored, on the Fine–Gray ``log(-log(1 - p))``) is then not 1
+by construction in the sample the model was fitted to: it gets a percentile interval too.
+
 Rows (``quantity``):
 
 - "C index" per model and adjustment, "delta C" (spline minus legacy groups) per
@@ -34,7 +49,9 @@ Rows (``quantity``):
   value in its bootstrap sample minus its value in the original sample), ``corrected`` =
   ``apparent`` - ``optimism``. A rule that is not fitted (treat all, the legacy cut rule) has
   optimism 0. The calibration slope's apparent value is 1 (maximum likelihood); its corrected
-  value is the mean slope of the replicate models in the original sample (the shrinkage factor).
+  value is the mean slope of the replicate models in the original sample (the shrinkage
+  factor). With competing events (above) the apparent slope is the calibration table's and
+  ``corrected`` is apparent minus optimism, as for the other rows.
 - "implied threshold" per model, spec threshold and crossing: the exposure value at which the
   model's risk at the median risk profile (the rest of the linear predictor at its median in the
   sample; in a replicate, in its bootstrap sample) crosses the threshold, as in the
@@ -50,7 +67,7 @@ caution on thresholds and decision rules.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -59,6 +76,7 @@ from scipy import special
 
 from ..models import Outcome, fit
 from ..models.base import FitResult
+from ..models.competing import fine_gray_outcome, fit_fine_gray
 from ..models.cox import (
     baseline_cumhaz,
     concordance,
@@ -125,6 +143,9 @@ class _Sample:
         self.time = None if o.time is None else o.time[idx]
         self.entry = None if o.entry is None else o.entry[idx]
         self.strata = None if o.strata is None else o.strata[idx]
+        # competing events: every row's cause code, for the Aalen–Johansen incidence
+        self.cause = None if o.cause is None else np.asarray(o.cause)[idx]
+        self.event_of_interest = o.event_of_interest
         self._order: Any = None
         self._layout: Any = None
         self._outcome: Outcome | None = None
@@ -156,7 +177,8 @@ class _Sample:
                    else net_benefit_counts(self.y, positive, pt))
             return out[0]
         assert self.time is not None and self.h is not None
-        return net_benefit_km(self.time, self.y, self.entry, positive, self.h, pt, risk)[0]
+        return net_benefit_km(self.time, self.y, self.entry, positive, self.h, pt, risk,
+                              self.cause, self.event_of_interest)[0]
 
     def slope(self, z: np.ndarray) -> float:
         """Calibration slope of the linear predictor on the risk's link scale (Cox 1958)."""
@@ -302,6 +324,88 @@ def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarr
     return {k: fitted[first[id(models[k])]] for k in keys}
 
 
+# A risk model's coefficients and every analysis-sample row's z on the risk scale, or None
+# when it did not fit (or some row's risk is 0).
+RiskZ = tuple[np.ndarray, np.ndarray] | None
+
+
+def fine_gray_risks(r: Refit, models: dict[tuple[str, str], Model], horizon: float,
+                    rows: np.ndarray | None = None, weights: np.ndarray | None = None,
+                    starts: dict[tuple[str, str], RiskZ] | None = None,
+                    ) -> tuple[dict[tuple[str, str], RiskZ], list[str]]:
+    """Competing events: the Fine–Gray model of each risk model's design (as
+    :func:`unbin.refit.risk.competing_risk_fit` reads the decision tables' risks) fitted on
+    ``rows`` (a replicate's drawn rows, repeated as drawn, with their ``weights``; None: the
+    analysis sample), the censoring and entry weights re-estimated on them
+    (:func:`unbin.models.competing.fit_fine_gray`), and every sample row's
+    ``z = log Lambda0_s(h) + X b`` with that fit's baseline; and a note per model that did
+    not fit. A replicate's fits start from the full-sample ones (``starts``: this function's
+    result on the analysis sample; :func:`_fine_gray_near`)."""
+    o = r.outcome
+    assert o.cause is not None
+    sample = o if rows is None else replace(o.subset(rows), weights=weights, cluster=None)
+    out: dict[tuple[str, str], RiskZ] = {}
+    notes: list[str] = []
+    done: dict[int, RiskZ] = {}
+    for k in RISK_MODELS:
+        m = models.get(k)
+        if m is None:
+            continue
+        if id(m) not in done:
+            X = m.X if rows is None else m.X[rows]
+            start = None if rows is None or starts is None else starts.get(k)
+            if start is None:
+                res = fit_fine_gray(X, sample, np.asarray(sample.cause), o.event_of_interest,
+                                    m.res.names)
+                coef = res.coef if res.ok and np.all(np.isfinite(res.coef)) else None
+                base = res.extra.get("baseline") if coef is not None else None
+                message = res.message
+            else:  # a replicate: coefficients only, from the full-sample estimate
+                coef, base = _fine_gray_near(X, sample, start[0])
+                message = "no convergence from the full-sample estimate"
+            got: RiskZ = None
+            if coef is not None:
+                h0, _, _ = cumhaz_at(base, o.strata, o.n, horizon)
+                with np.errstate(divide="ignore"):
+                    z = np.log(h0) + m.X @ coef
+                got = (np.asarray(coef, dtype=float), z) if np.all(np.isfinite(z)) else None
+                if got is None:
+                    notes.append(f"{k[0]} with {k[1]} adjustment: the Fine–Gray risk is 0 for "
+                                 "some rows (no event of interest before the horizon)")
+            else:
+                notes.append(f"the Fine–Gray model of {k[0]} with {k[1]} adjustment did not "
+                             f"fit: {message}")
+            done[id(m)] = got
+        out[k] = done[id(m)]
+    return out, notes
+
+
+def _fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray,
+                    ) -> tuple[np.ndarray | None, Any]:
+    """A replicate's Fine–Gray coefficients and Breslow baseline (at covariates 0) as
+    :func:`unbin.models.competing.fit_fine_gray` gives them, on the same counting-process
+    expansion (:func:`unbin.models.competing.fine_gray_outcome`), without its sandwich
+    variance, which the replicate does not need: Newton steps from ``start``
+    (:func:`unbin.models.cox.refit_near`), else a full fit."""
+    assert sample.cause is not None
+    expanded, data = fine_gray_outcome(sample, np.asarray(sample.cause),
+                                       sample.event_of_interest)
+    Xe = data.take(X)
+    layout = cox_layout(expanded)
+    coef = refit_near(Xe, layout, start)
+    if coef is None:
+        res = fit("survival", Xe, expanded, tuple(f"x{j}" for j in range(X.shape[1])))
+        if not res.ok or not np.all(np.isfinite(res.coef)):
+            return None, None
+        coef = res.coef
+    lp = X @ coef
+    centre = float(np.mean(lp)) if lp.size else 0.0
+    base = baseline_cumhaz((data.take(lp) - centre)[:, None], expanded.time, expanded.y, [1.0],
+                           entry=expanded.entry, strata=expanded.strata,
+                           weights=expanded.weights, layout=layout)
+    return coef, base.assign(cumhaz=base["cumhaz"].to_numpy(float) * np.exp(-centre))
+
+
 class _Evaluator:
     """What each quantity is in one evaluation: the models' coefficients, the rows they were
     fitted on and the rows they are judged on."""
@@ -310,6 +414,9 @@ class _Evaluator:
                  horizon: float | None):
         self.r, self.models, self.pt, self.horizon = r, models, pt, horizon
         self.keys = list(models)
+        # competing events: the risks are the Fine–Gray models' (fine_gray_risks), not the
+        # cause-specific models', whose maximum likelihood does not make the slope 1
+        self.competing = r.family == "survival" and r.outcome.cause is not None
         self.rules = legacy_rules(r.legacy, r.x)[:1]
 
     def z_of(self, k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
@@ -342,22 +449,29 @@ class _Evaluator:
 
     def measures(self, coef_by: dict[tuple[str, str], np.ndarray],
                  zs: dict[int, np.ndarray | None], fit: _Sample, on: _Sample,
-                 apparent_run: bool = False) -> dict[tuple[Any, ...], float]:
+                 apparent_run: bool = False,
+                 risks: dict[tuple[str, str], RiskZ] | None = None,
+                 ) -> dict[tuple[Any, ...], float]:
         """Every quantity of the models with coefficients ``coef_by`` (fitted on ``fit``)
-        judged on ``on``'s rows."""
+        judged on ``on``'s rows; ``risks`` (competing events) the risk models' Fine–Gray
+        coefficients and z fitted on the same rows (:func:`fine_gray_risks`)."""
         out: dict[tuple[Any, ...], float] = {}
         cixs: dict[int, float] = {}
         for k in self.keys:
             z = zs[id(self.models[k])]
-            if z is None:
+            if z is not None:
+                if id(self.models[k]) not in cixs:
+                    cixs[id(self.models[k])] = on.c_index(z[on.idx])
+                out[("C index", k)] = cixs[id(self.models[k])]
+            if k not in RISK_MODELS:
                 continue
-            if id(self.models[k]) not in cixs:
-                cixs[id(self.models[k])] = on.c_index(z[on.idx])
-            out[("C index", k)] = cixs[id(self.models[k])]
-            if k in RISK_MODELS:
-                self._risk_measures(out, k, z[on.idx], fit, on, apparent_run)
+            risk = (risks.get(k) if risks is not None
+                    else None if z is None else (coef_by[k], z))
+            if risk is None:
+                continue
+            self._risk_measures(out, k, risk[1][on.idx], fit, on, apparent_run)
             if k in CURVE_MODELS:
-                self._crossings(out, k, coef_by[k], z, fit)
+                self._crossings(out, k, risk[0], risk[1], fit)
         for coding in CODINGS:
             s = out.get(("C index", ("spline", coding)))
             g = out.get(("C index", ("legacy", coding)))
@@ -374,8 +488,10 @@ class _Evaluator:
         for t, v in zip(pt, nb, strict=True):
             out[("net benefit", f"risk: {k[0]}", t)] = float(v)
         # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
+        # (not for the Fine–Gray risks under competing events: the slope is the
+        # cause-specific Cox model's on their z, as in the calibration table)
         out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
-                                         else on.slope(zo))
+                                         and not self.competing else on.slope(zo))
 
     def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
                    c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:
@@ -422,7 +538,8 @@ def _row_labels(key: tuple[Any, ...], est: float, q01: float, q99: float) -> dic
 
 def _row_interval(row: dict[str, Any], key: tuple[Any, ...], est: float,
                   apparent: dict[tuple[Any, ...], float], boot: list[dict[tuple[Any, ...], float]],
-                  test: list[dict[tuple[Any, ...], float]], B: int) -> None:
+                  test: list[dict[tuple[Any, ...], float]], B: int,
+                  slope_is_one: bool = True) -> None:
     """The row's percentile interval, optimism and replicate counts (module docstring)."""
     kind = key[0]
     if kind == "implied threshold":
@@ -442,7 +559,7 @@ def _row_interval(row: dict[str, Any], key: tuple[Any, ...], est: float,
         opt = float(diffs[ok].mean()) if ok.any() else float("nan")
         if kind == "net benefit" and not str(row["rule"]).startswith("risk: "):
             opt = 0.0  # a fixed rule (treat all, the legacy cut) is not fitted
-        if kind == "calibration slope":  # 1 in every bootstrap sample: no interval
+        if kind == "calibration slope" and slope_is_one:  # 1 in every bootstrap sample
             row["lower"] = row["upper"] = float("nan")
         row.update(apparent=est, optimism=opt, corrected=est - opt)
         row["computed_by"] = "percentile bootstrap; Harrell's optimism correction"
@@ -473,7 +590,13 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
     ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
     full = _Sample(r, np.arange(n), horizon)
     own = {k: models[k].res.coef for k in ev.keys}
-    apparent = ev.measures(own, ev.predictors(own, full), full, full, apparent_run=True)
+    risks: dict[tuple[str, str], RiskZ] | None = None
+    if ev.competing:
+        assert horizon is not None
+        risks, fg_notes = fine_gray_risks(r, models, horizon)
+        notes += fg_notes
+    apparent = ev.measures(own, ev.predictors(own, full), full, full, apparent_run=True,
+                           risks=risks)
     boot: list[dict[tuple[Any, ...], float]] = []
     test: list[dict[tuple[Any, ...], float]] = []
     for b in range(B):
@@ -481,8 +604,12 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
         drawn = _Sample(r, rows_b, horizon, weights_b)
         cb = {k: coefs[k][b] for k in ev.keys}
         zs = ev.predictors(cb, drawn)
-        boot.append(ev.measures(cb, zs, drawn, drawn))
-        test.append(ev.measures(cb, zs, drawn, full))
+        risks_b = None
+        if ev.competing:  # the Fine–Gray models refitted on the drawn rows
+            assert horizon is not None
+            risks_b = fine_gray_risks(r, models, horizon, rows_b, weights_b, risks)[0]
+        boot.append(ev.measures(cb, zs, drawn, drawn, risks=risks_b))
+        test.append(ev.measures(cb, zs, drawn, full, risks=risks_b))
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
     if collect is not None:
         collect.update(apparent=apparent, boot=boot, test=test, notes=notes, base=base)
@@ -494,7 +621,7 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
         row: dict[str, Any] = {**base, "quantity": key[0], "estimate": est, "status": "ok",
                                "reason": "", "note": note}
         row.update(_row_labels(key, est, q01, q99))
-        _row_interval(row, key, est, apparent, boot, test, B)
+        _row_interval(row, key, est, apparent, boot, test, B, slope_is_one=not ev.competing)
         rows.append(row)
     if not rows:
         rows.append({**base, "status": "failed", "reason": note or "no model could be fitted"})

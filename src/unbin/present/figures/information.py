@@ -43,7 +43,10 @@ def select_information(info: pd.DataFrame, boot: pd.DataFrame,
                        jobs: list[tuple[str, str]]) -> pd.DataFrame:
     """One row per (cohort, analysis) with the legacy adjustment, in spec order: the information
     table's columns, plus ``kept_lower``, ``kept_upper``, ``level``, ``replicates`` and
-    ``replicates_used`` from the bootstrap table's rows with status 'ok' (NaN without one)."""
+    ``replicates_used`` from the bootstrap table's rows with status 'ok' whose own
+    ``info_kept`` is the information table's (NaN without one: an interval of another
+    quantity, e.g. a resampled share beside a share combined over imputed sets, is never drawn
+    beside the point; as ``unbin.present.summary.kept_interval``)."""
     extra = ["kept_lower", "kept_upper", "level", "replicates", "replicates_used"]
     if info.empty:
         return info
@@ -61,9 +64,17 @@ def select_information(info: pd.DataFrame, boot: pd.DataFrame,
         keys = KEYS
     else:  # an information table from before adjustment codings: its rows are the legacy one
         keys, ok = KEYS[:2], ok[ok["adjustment"] == ADJUSTMENT]
-    ok = ok.drop_duplicates(keys)[[*keys, *[c for c in extra if c in ok]]]
-    merged = info.merge(ok, on=keys, how="left")
-    return merged.assign(**{c: np.nan for c in extra if c not in merged})
+    own = ["info_kept"] if "info_kept" in ok else []
+    ok = ok.drop_duplicates(keys)[[*keys, *own, *[c for c in extra if c in ok]]]
+    merged = info.merge(ok.rename(columns={"info_kept": "_boot_kept"}), on=keys, how="left")
+    merged = merged.assign(**{c: np.nan for c in extra if c not in merged})
+    point = (merged["info_kept"].astype(float).to_numpy() if "info_kept" in merged
+             else np.full(len(merged), np.nan))
+    theirs = (merged.pop("_boot_kept").astype(float).to_numpy() if own
+              else np.full(len(merged), np.nan))
+    same = np.isclose(theirs, point, rtol=1e-9, atol=1e-12)  # NaN on either side: not the same
+    merged.loc[~same, extra] = np.nan
+    return merged
 
 
 def lr_forms(rows: pd.DataFrame) -> list[str]:
