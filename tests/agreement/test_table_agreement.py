@@ -792,3 +792,30 @@ def test_summary_pairs_the_point_with_its_own_interval(tables: Any, name: str) -
     assert row["kept"].startswith(summary.text.percent(pairs.loc["legacy",
                                                                  "info_kept_information"]))
     assert ("(" in row["kept"]) == bool(same), row["kept"]
+
+
+def test_an_expansion_over_its_limit_fails_only_the_fine_gray_rows(
+        tables: Any, monkeypatch: pytest.MonkeyPatch) -> None:
+    """A Fine–Gray expansion too large to build (models.competing.EXPANSION_ROWS; at registry
+    size it would not fit in memory) fails the rows that need it, with the size and the fix in
+    their messages, and leaves every other number as the unlimited run's (common practice: a
+    resource limit must not change what it lets through)."""
+    import unbin.models.competing as competing
+
+    monkeypatch.setattr(competing, "EXPANSION_ROWS", 10)
+    frame, raw = design("competing")
+    spec = parse_spec(raw, base=Path("."))
+    limited, status = analyse(spec, "sim", "a", frame, resampling=True)
+    assert status["status"] in ("ok", "partial")
+    sub = limited["subdistribution"]
+    assert len(sub) > 0 and (sub["status"] == "failed").all()
+    assert sub["message"].str.contains("counting-process expansion would add").all()
+    full = tables["competing"]
+    for name in ("effects", "information", "fits", "hazards"):
+        pd.testing.assert_frame_equal(limited[name].reset_index(drop=True),
+                                      full[name].drop(columns=["cohort", "analysis"])
+                                      .reset_index(drop=True), check_dtype=False)
+    nb = limited["net_benefit"]
+    risk = nb[nb["rule"].astype(str).str.startswith("risk:")]
+    assert len(risk) > 0 and (risk["status"] != "ok").all()
+    assert (nb.loc[nb["rule"] == "treat all", "status"] == "ok").all()

@@ -147,6 +147,14 @@ class FineGrayData:
         return np.asarray(X)[self.person]
 
 
+# Rows of the counting-process expansion above which it is not built: every competing event
+# adds a row per later event time of interest, so a registry with many distinct event times
+# grows as (competing events x event times) — at 1,000,000 rows about 7e8 rows, beyond this
+# machine's 24 GB. A fit (and each of its bootstrap refits) holds a few hundred bytes per
+# expanded row, so this limit keeps one fit near 4 GB. A limit of the implementation.
+EXPANSION_ROWS = 10_000_000
+
+
 def fine_gray_data(time: np.ndarray, cause: np.ndarray, event_of_interest: int = 1, *,
                    entry: np.ndarray | None = None,
                    weights: np.ndarray | None = None) -> FineGrayData:
@@ -162,6 +170,14 @@ def fine_gray_data(time: np.ndarray, cause: np.ndarray, event_of_interest: int =
     competing = np.flatnonzero((c != 0) & ~mine)
     j0 = np.searchsorted(tk, t[competing], side="right")  # first event time after T_i
     counts = tk.size - j0
+    rows = int(counts.sum())
+    if rows > EXPANSION_ROWS:
+        raise ValueError(
+            f"the counting-process expansion would add {rows:,} rows ({competing.size:,} "
+            f"competing events x up to {tk.size:,} later distinct times of the event of "
+            f"interest; limit {EXPANSION_ROWS:,}), more memory than a fit should take; "
+            "record follow-up on a coarser time unit (e.g. weeks or months: fewer distinct "
+            "event times) for the Fine–Gray rows")
     who = np.repeat(competing, counts)
     first = np.repeat(j0, counts)
     k = first + (np.arange(who.size) - np.repeat(np.cumsum(counts) - counts, counts))

@@ -388,8 +388,11 @@ def _fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray,
     variance, which the replicate does not need: Newton steps from ``start``
     (:func:`unbin.models.cox.refit_near`), else a full fit."""
     assert sample.cause is not None
-    expanded, data = fine_gray_outcome(sample, np.asarray(sample.cause),
-                                       sample.event_of_interest)
+    try:
+        expanded, data = fine_gray_outcome(sample, np.asarray(sample.cause),
+                                           sample.event_of_interest)
+    except ValueError:  # the expansion is too large (models.competing.EXPANSION_ROWS)
+        return None, None
     Xe = data.take(X)
     layout = cox_layout(expanded)
     coef = refit_near(Xe, layout, start)

@@ -67,6 +67,8 @@ def subdistribution_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
                 rows += _form_rows(r, f, form, coding, shown, spec if variance == "bootstrap"
                                    else None)
     out = pd.DataFrame(rows)
+    for c in ("estimate", "se", "cs_estimate", "cs_se"):  # absent when every form failed
+        out[c] = pd.to_numeric(out[c], errors="coerce") if c in out else np.nan
     out = with_interval(out, "survival")
     out = with_interval(out, "survival", prefix="cs_")
     out["scale"] = SCALE
