@@ -800,4 +800,5 @@ def test_incidence_over_the_cell_limit_is_withheld_with_its_reason(
     none = confounding_table(r, spec)
     assert (none.loc[marg, "status"] == "skipped").all()
     assert none.loc[marg, "message"].str.contains("not computed").all()
+    assert not none.loc[marg, "message"].str.contains("could be refitted").any()
     pd.testing.assert_frame_equal(none[~marg], full[~marg])

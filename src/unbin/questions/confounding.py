@@ -524,7 +524,9 @@ def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
         est = np.array([contrast(kind, mu[0], mu[1]) for mu in means])
         boot = (np.column_stack([contrast(kind, boot_marginal[k][:, 0], boot_marginal[k][:, 1])
                                  for k in keys]) if boot_marginal else None)
-        if designs.incidence_boot_off and boot is not None:
+        if designs.incidence_off:  # no estimates, so no replicates to count either
+            boot = None
+        elif designs.incidence_boot_off and boot is not None:
             boot = None
             notes.append(designs.incidence_boot_off)
         row, used = _compare(est, boot, n_bootstrap, notes)
