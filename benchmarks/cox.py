@@ -4,6 +4,8 @@
     python benchmarks/cox.py --n 200000 --p 8 --json # one size, one JSON object
     python benchmarks/cox.py --n 200000 --p 8 --time-unit days --clock cpu --cohorts 4
                                                      # four cohorts (seeds), and their median
+    python benchmarks/cox.py --n 200000 --p 8 --ties days --json
+                                                     # --ties is another name of --time-unit
 
 The data are an invented registry cohort: a biomarker with a U-shaped log hazard, age and sex;
 follow-up up to 10 years with administrative censoring and random loss. p = 2 fits the
@@ -182,7 +184,11 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--n", type=int, help="one size (rows); default: the table")
     parser.add_argument("--p", type=int, default=8, choices=COLUMNS, help="columns (with --n)")
     parser.add_argument("--json", action="store_true", help="print one JSON object (with --n)")
-    parser.add_argument("--time-unit", choices=("continuous", "days"), default="continuous")
+    parser.add_argument(
+        "--time-unit", "--ties", dest="time_unit", choices=("continuous", "days"),
+        default="continuous",
+        help="days: times rounded up to whole days, heavy ties (--ties days is the same)",
+    )
     parser.add_argument(
         "--raw-basis", action="store_true", help="p = 8: the raw (not orthogonalised) splines"
     )
