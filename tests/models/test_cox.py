@@ -881,3 +881,47 @@ def test_chord_steps_reach_the_plain_newton_fit(
     info = lik._evaluate(L, D, chord.coef * scale, extras != "breslow")[2]
     np.testing.assert_allclose(np.linalg.inv(info) / np.outer(scale, scale), chord.cov,
                                rtol=1e-6)
+
+
+@pytest.mark.parametrize("layout_of", ["c_order", "f_order", "rows_dropped"])
+def test_standardised_design_is_the_two_pass_computation(layout_of: str) -> None:
+    # reference: numpy's two-pass mean and standard deviation of the sorted, kept rows
+    # (brute force, written here), including a near-constant column far from zero (where a
+    # one-pass variance would be rounding only) and a constant column
+    from unbin.models.cox import likelihood as lik
+
+    rng = np.random.default_rng(11)
+    n = 9_000  # more than two blocks of rows, and a partial one
+    time = np.ceil(rng.exponential(300.0, n))
+    event = rng.uniform(size=n) < 0.4
+    X = np.column_stack([
+        rng.normal(size=n), rng.lognormal(3.0, 1.0, n), 1e6 + 1e-3 * rng.normal(size=n),
+        np.full(n, 7.5), rng.integers(0, 2, n).astype(float),
+    ])
+    entry = None
+    if layout_of == "f_order":
+        X = np.asfortranarray(X)
+    if layout_of == "rows_dropped":  # rows entering after their own time's last event go
+        entry = np.where(rng.uniform(size=n) < 0.2, time - 0.5, 0.0)
+    L = prepare_layout(time, event, entry=entry)
+    if layout_of == "rows_dropped":
+        assert L.order.size < n
+    D, scale, sd = lik._standardised(X, L)
+    kept = X[L.order]
+    mean, ref_sd = kept.mean(axis=0), kept.std(axis=0)
+    np.testing.assert_allclose(sd[:3], ref_sd[:3], rtol=1e-9)
+    assert sd[3] == 0.0 and scale[3] == 1.0  # the constant column
+    np.testing.assert_allclose(sd[4], ref_sd[4], rtol=1e-12)
+    assert D.X1.flags.c_contiguous and np.all(D.X1[:, 0] == 1.0)
+    # each column is the kept rows less one centre, divided by the scale; the centre is the
+    # mean up to rounding (any centre gives the same fit: the partial likelihood is invariant
+    # to shifts of a column)
+    centre = kept - D.X1[:, 1:] * scale
+    size = np.maximum(1.0, np.abs(mean))
+    assert np.all(np.ptp(centre, axis=0) <= 1e-12 * size)
+    np.testing.assert_allclose(centre[0], mean, rtol=1e-12, atol=1e-12)
+    ref = (kept - mean) / np.where(sd > 0, ref_sd, 1.0)
+    np.testing.assert_allclose(D.X1[:, 1:][:, [0, 1, 3, 4]], ref[:, [0, 1, 3, 4]], rtol=1e-9,
+                               atol=1e-9)
+    np.testing.assert_allclose(D.reach, np.abs(D.X1[:, 1:]).max(axis=0), rtol=1e-9)
+    np.testing.assert_allclose(D.xwe, D.X1[:, 1:].T @ L.we, rtol=1e-12, atol=1e-9)

@@ -90,8 +90,7 @@ def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -
         if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
             tied_sums = _scaled(L, L.tie_op, r) @ X1 if with_x else L.tie_op @ r
             t0 = tied_sums[:, 0] if with_x else tied_sums
-            counts = np.diff(L.tie_op.indptr)
-            den = np.repeat(s0[L.tie_k], counts) - L.tie_f * np.repeat(t0, counts)
+            den = s0[L.tie_at] - L.tie_f * t0[L.tie_grp]
             loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
         else:  # Breslow, or no tied events: one term per event time
             loglik -= float(L.wsum @ log_s0)
@@ -119,7 +118,7 @@ def _row_weights(L: Layout, pt: _Point) -> None:
     cum = _forward_cum(L, c)
     v = r * (cum[L.b_idx] - cum[L.a_idx]) if L.late_entry else r * cum[L.b_idx]
     if pt.den is not None:
-        v[L.tie_ev] -= r[L.tie_ev] * np.repeat(bk, np.diff(L.tie_op.indptr))
+        v[L.tie_ev] -= r[L.tie_ev] * bk[L.tie_grp]
     pt.v = v
 
 
