@@ -118,7 +118,7 @@ def _event_times(
         new_run[1:] |= sc_s[1:] != sc_s[:-1]
     run_id = np.cumsum(new_run) - 1
     run_first = np.flatnonzero(new_run)
-    run_event = np.bincount(run_id[e_s], minlength=run_first.size) > 0
+    run_event = np.logical_or.reduceat(e_s, run_first) if n else np.zeros(0, dtype=bool)
     run_k = np.cumsum(run_event) - 1  # last event time at or before each run
     k_first = run_first[run_event]
     k_stratum = np.zeros(k_first.size, dtype=np.int64) if sc_s is None else sc_s[k_first]
@@ -177,7 +177,10 @@ def _tie_structure(ev: np.ndarray, event_k: np.ndarray, d: np.ndarray, m: int) -
     tied = d > 1
     tie_k = np.flatnonzero(tied)
     in_tied = tied[event_k]
-    tie_ev, tie_g = ev[in_tied], event_k[in_tied]
+    if in_tied.all():  # e.g. times in days: every event time holds ties
+        tie_ev, tie_g = ev, event_k
+    else:
+        tie_ev, tie_g = ev[in_tied], event_k[in_tied]
     tie_grp = (np.cumsum(tied) - 1)[tie_g]
     tie_d = d[tie_k]
     tie_first = np.cumsum(tie_d) - tie_d
@@ -197,7 +200,7 @@ def _risk_operator(
     m = b.size
     n_late = int(entered_late.sum())
     if n_late == 0:  # rows are sorted by b: the operator's rows are runs of consecutive rows
-        indptr = np.r_[0, np.cumsum(np.bincount(b, minlength=K))]
+        indptr = np.searchsorted(b, np.arange(K + 1))
         return sparse.csr_matrix((np.ones(m), np.arange(m), indptr), shape=(K, m))
     rows = np.concatenate([b, a[entered_late]])
     cols = np.concatenate([np.arange(m), np.flatnonzero(entered_late)])

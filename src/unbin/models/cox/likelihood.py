@@ -22,9 +22,12 @@ class _Design:
     buf: np.ndarray  # (min(m, _BLOCK), 1 + p) scratch
 
     @classmethod
-    def of(cls, X1: np.ndarray, we: np.ndarray, reach: np.ndarray) -> _Design:
+    def of(
+        cls, X1: np.ndarray, we: np.ndarray, reach: np.ndarray, xwe: np.ndarray | None = None
+    ) -> _Design:
+        """``xwe``: ``X1[:, 1:].T @ we`` when the caller has it already."""
         buf = np.empty((min(X1.shape[0], _BLOCK), X1.shape[1]))
-        return cls(X1, X1[:, 1:].T @ we, reach, buf)
+        return cls(X1, X1[:, 1:].T @ we if xwe is None else xwe, reach, buf)
 
 
 def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
@@ -262,6 +265,7 @@ def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.nd
     buf = np.empty((min(m, _STD_BLOCK), p))
     buf_items = buf.view(item).reshape(buf.shape[0])
     mean_wide, inv_wide = np.tile(mean, _STD_WIDE), np.tile(inv, _STD_WIDE)
+    xwe = np.zeros(p)  # the events' summed w x, while each block is in cache
     for start in range(0, m, _STD_BLOCK):
         k = min(_STD_BLOCK, m - start)
         block = buf[:k]
@@ -277,5 +281,6 @@ def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.nd
             block -= mean
             block *= inv
         out[start : start + k] = buf_items[:k]
+        xwe += L.we[start : start + k] @ block
     reach = np.maximum(hi - mean, mean - lo) * inv
-    return _Design.of(X1, L.we, reach), scale, sd
+    return _Design.of(X1, L.we, reach, xwe), scale, sd
