@@ -238,6 +238,7 @@ def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.nd
     scaled there (``_STD_WIDE`` rows at a time, as one wide row: numpy's per-row overhead on
     rows of a few columns would otherwise dominate), then stored behind the ones, again as
     opaque items."""
+    Xa = np.asarray(Xa, dtype=float)  # (no copy of float64)
     m, p = L.order.size, Xa.shape[1]
     X1 = np.empty((m, 1 + p))
     X1[:, 0] = 1.0
