@@ -9,19 +9,24 @@ the competing events lower; ``1 - Kaplan–Meier`` overstates it.
 - :func:`aalen_johansen`: the nonparametric cumulative incidence (Aalen & Johansen 1978),
   ``F(t) = sum_{t_k <= t} S(t_k-) d_1(t_k) / Y(t_k)`` with ``S`` the all-cause Kaplan–Meier,
   risk sets honouring delayed entry (at risk at t when entry < t <= time), optional case weights.
-- :func:`fine_gray_data` / :func:`fit_fine_gray`: the subdistribution hazards model (Fine &
-  Gray 1999), ``1 - F(t | x) = exp(-Lambda0(t) exp(x b))``, fitted as a weighted Cox model on a
-  counting-process expansion (Geskus 2011): a row with a competing event at T_i stays in the
-  risk set after T_i, one row per later event time t_k of the event of interest, with weight
-  ``G(t_k-) H(t_k) / (G(T_i-) H(T_i))``. ``G`` is the Kaplan–Meier of the censoring time (all
-  events as censoring's "survivors"; risk sets with delayed entry) and ``H(t) = P(entry < t)``
-  the product-limit of the entry times in reversed time (1 without delayed entry): the
-  probability, relative to T_i, that the person would still have been seen at t_k. Censoring
-  and entry are taken as independent of the covariates and of the strata (one G and one H for
-  the sample). The covariance is the cluster-robust sandwich with each person as a cluster
-  (the expanded rows of one person are not independent); the person's own cluster column,
-  when the analysis has one, is used instead. Each person's score term is their rows' Cox
-  score residuals plus the influence of their row on the estimated ``G`` and ``H``
+- :func:`fit_fine_gray`: the subdistribution hazards model (Fine & Gray 1999),
+  ``1 - F(t | x) = exp(-Lambda0(t) exp(x b))``, the weighted Cox model of a counting-process
+  expansion (Geskus 2011; :func:`fine_gray_data` builds it): a row with a competing event at
+  T_i stays in the risk set after T_i, one row per later event time t_k of the event of
+  interest, with weight ``G(t_k-) H(t_k) / (G(T_i-) H(T_i))``. ``G`` is the Kaplan–Meier of
+  the censoring time (all events as censoring's "survivors"; risk sets with delayed entry) and
+  ``H(t) = P(entry < t)`` the product-limit of the entry times in reversed time (1 without
+  delayed entry): the probability, relative to T_i, that the person would still have been
+  seen at t_k. Censoring and entry are taken as independent of the covariates and of the
+  strata (one G and one H for the sample). The expansion grows as competing events x later
+  event times (some 9e8 rows for a registry of a million), so the fit never builds it: its
+  risk sets are the sample's own rows plus a running sum over the competing times times the
+  current weight (:mod:`unbin.models.fine_gray`; O(n log n) time, O(n p) memory), with the
+  expansion's likelihood, ties, strata and weights. The covariance is the cluster-robust
+  sandwich with each person as a cluster (the expanded rows of one person are not
+  independent); the person's own cluster column, when the analysis has one, is used
+  instead. Each person's score term is their rows' Cox score residuals plus the influence of
+  their row on the estimated ``G`` and ``H``
   (:func:`weight_estimation_scores`; Fine & Gray 1999's censoring term, here with the entry
   term of the delayed-entry weights too).
 - :func:`fine_gray_bootstrap_cov`: the nonparametric bootstrap over persons (or clusters),
@@ -148,18 +153,20 @@ class FineGrayData:
         return np.asarray(X)[self.person]
 
 
-# Rows of the counting-process expansion above which it is not built: every competing event
-# adds a row per later event time of interest, so a registry with many distinct event times
-# grows as (competing events x event times) — at 1,000,000 rows about 7e8 rows, beyond this
-# machine's 24 GB. A fit (and each of its bootstrap refits) holds a few hundred bytes per
-# expanded row, so this limit keeps one fit near 4 GB. A limit of the implementation.
+# Rows of the counting-process expansion above which fine_gray_data does not build it: every
+# competing event adds a row per later event time of interest, so a registry with many distinct
+# event times grows as (competing events x event times) — at 1,000,000 rows about 9e8 rows,
+# beyond this machine's memory. fit_fine_gray never builds it (unbin.models.fine_gray); it is
+# built only for refits on its own rows (fine_gray_outcome: the tests' reference and the
+# decision bootstrap's replicate refits), which this limit keeps near 4 GB each.
 EXPANSION_ROWS = 10_000_000
 
 
 def fine_gray_data(time: np.ndarray, cause: np.ndarray, event_of_interest: int = 1, *,
                    entry: np.ndarray | None = None,
                    weights: np.ndarray | None = None) -> FineGrayData:
-    """The weighted counting-process expansion (module docstring; Geskus 2011)."""
+    """The weighted counting-process expansion (module docstring; Geskus 2011); the fits do
+    not need it (:func:`fine_gray_layout`)."""
     t = np.asarray(time, dtype=float)
     c = np.asarray(cause, dtype=float)
     e = None if entry is None else np.asarray(entry, dtype=float)
