@@ -269,7 +269,10 @@ def _fit_coef(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_inter
     problem = check_design(X, names)
     if problem:
         return failed_fit("survival", names, outcome.n, events, problem)
-    L = fine_gray_layout(outcome, cause, event_of_interest)
+    try:
+        L = fine_gray_layout(outcome, cause, event_of_interest)
+    except ValueError as exc:  # the sample's arrays (e.g. an entry not before its time)
+        return failed_fit("survival", names, outcome.n, events, f"Fine–Gray: {exc}")
     res = fine_gray.fit(L, X, init=init)
     if not res.converged:
         message = res.message
