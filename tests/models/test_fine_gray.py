@@ -199,3 +199,28 @@ def test_a_registry_sized_expansion_is_not_needed() -> None:
     se = float(np.sqrt(res.cov[0, 0]))
     assert 0.005 < se < 0.03
     assert abs(res.coef[0] - 0.5) < 4.5 * se
+
+
+def test_breslow_ties_equal_the_expansion() -> None:
+    """With Breslow's handling of ties (the fits use Efron's): the Newton fit's coefficients,
+    log partial likelihood and information, and each person's summed score residuals, against
+    the Cox engine's Breslow fit of the expanded rows and unbin.models.robust.cox_scores on
+    them (which tests/models/test_robust.py checks by brute force)."""
+    from unbin.models import fine_gray
+    from unbin.models.competing import fine_gray_layout
+    from unbin.models.cox import fit_cox
+
+    X, o, c = _sample(13, 150, delayed=True, weighted=True, strata=True)
+    L = fine_gray_layout(o, c, 1)
+    got = fine_gray.fit(L, X, ties="breslow")
+    expanded, data = fine_gray_outcome(o, c, 1)
+    ref = fit_cox(data.take(X), expanded.time, expanded.y, entry=expanded.entry,
+                  strata=expanded.strata, weights=expanded.weights, ties="breslow")
+    assert got.converged and ref.converged
+    np.testing.assert_allclose(got.coef, ref.coef, atol=1e-8)
+    assert got.loglik == pytest.approx(ref.loglik, abs=1e-8)
+    np.testing.assert_allclose(np.sqrt(np.diag(got.cov)), np.sqrt(np.diag(ref.cov)), atol=1e-7)
+    own = np.zeros_like(X)
+    np.add.at(own, data.person, cox_scores(data.take(X), expanded, ref.coef, ties="breslow"))
+    np.testing.assert_allclose(fine_gray.score_terms(L, X, ref.coef, ties="breslow"), own,
+                               atol=1e-10)
