@@ -137,17 +137,17 @@ def prepare(time: np.ndarray, cause: np.ndarray, event_of_interest: int, *,
     tie_f = (np.arange(tie_ev.size) - first) / np.maximum(d[tie_k], 1)
     tie_wavg = (wsum / np.maximum(d, 1))[tie_k]
 
-    Q = np.asarray(Q_at(k_time), dtype=float) if K else np.zeros(0)
     competing = np.flatnonzero((c != 0) & ~mine)
+    # Q at the event times, the competing times and the distinct event times (one call)
+    Q_cat = np.asarray(Q_at(np.concatenate([k_time, t[competing], values])), dtype=float)
+    Q, Qj, Q_all = np.split(Q_cat, [K, K + competing.size])
     seg_end = np.searchsorted(k_key, (code + 1) * span, side="left")
     cc = b[competing] + 1
     later = cc < seg_end[competing]
-    Qj = np.asarray(Q_at(t[competing]), dtype=float)
     keep = later & (Qj > 0)
     comp, comp_c = competing[keep], cc[keep]
     # the expansion's size: every competing event with Q(T_j) > 0 gets a row per later
     # distinct time of the event of interest (over all strata) where Q > 0
-    Q_all = np.asarray(Q_at(values), dtype=float) if values.size else np.zeros(0)
     pos_after = np.r_[np.cumsum((Q_all > 0)[::-1])[::-1], 0]
     j0 = np.searchsorted(values, t[competing], side="right")
     expanded_rows = n + int(np.sum(np.where(Qj > 0, pos_after[j0], 0)))
@@ -251,12 +251,12 @@ def _point(L: Layout, X: np.ndarray, beta: np.ndarray, efron: bool) -> _Point:
     return _Point(loglik, r, S0, den)
 
 
-def _evaluate(L: Layout, X: np.ndarray, beta: np.ndarray, efron: bool
-              ) -> tuple[float, np.ndarray, np.ndarray]:
+def _evaluate(L: Layout, X: np.ndarray, beta: np.ndarray, efron: bool,
+              pt: _Point | None = None) -> tuple[float, np.ndarray, np.ndarray]:
     """Log partial likelihood, score and observed information at ``beta`` (the expansion's
     weighted Cox fit's, term by term: Efron's tied denominators use the tied events' mean
-    weight)."""
-    pt = _point(L, X, beta, efron)
+    weight); ``pt``: the point at ``beta`` when already evaluated."""
+    pt = _point(L, X, beta, efron) if pt is None else pt
     p = X.shape[1]
     if not np.isfinite(pt.loglik) or p == 0:
         return pt.loglik, np.zeros(p), np.zeros((p, p))
@@ -385,7 +385,8 @@ def fit(L: Layout, X: np.ndarray, *, ties: str = "efron", init: np.ndarray | Non
         halving = 0
         while True:
             cand = beta + step
-            ll_c = _point(L, Xs, cand, efron).loglik
+            pt_c = _point(L, Xs, cand, efron)
+            ll_c = pt_c.loglik
             if np.isfinite(ll_c) and ll_c >= ll - 1e-12 * max(1.0, abs(ll)):
                 break
             halving += 1
@@ -397,7 +398,7 @@ def fit(L: Layout, X: np.ndarray, *, ties: str = "efron", init: np.ndarray | Non
                            "may have extreme values - rescale or drop columns")
         last_change = ll_c - ll
         beta = cand
-        ll, score, info = _evaluate(L, Xs, beta, efron)
+        ll, score, info = _evaluate(L, Xs, beta, efron, pt_c)
     if not message:
         final = newton_step(info, score)
         assert final is not None
