@@ -192,7 +192,7 @@ def test_weight_estimation_scores_are_the_derivative_of_the_score(delayed: bool)
                 weight_kind="sampling")
     res = fit_fine_gray(X, o, c, 1, ("x", "z"))
     data = fine_gray_data(t, c, 1, entry=entry, weights=w)
-    got = weight_estimation_scores(X, o, c, 1, data, res.coef)
+    got = weight_estimation_scores(X, o, c, 1, res.coef)
     n = t.size
     who, stop = data.person[n:], data.stop[n:]
 
@@ -241,8 +241,8 @@ def test_weight_estimation_scores_under_efron_ties(delayed: bool) -> None:
     res = fit_fine_gray(X, o, c, 1, ("x", "z"))
     data = fine_gray_data(t, c, 1, entry=entry, weights=w)
     assert np.bincount(np.unique(t[c == 1], return_inverse=True)[1]).max() >= 3
-    got = weight_estimation_scores(X, o, c, 1, data, res.coef, ties="efron")
-    breslow = weight_estimation_scores(X, o, c, 1, data, res.coef, ties="breslow")
+    got = weight_estimation_scores(X, o, c, 1, res.coef, ties="efron")
+    breslow = weight_estimation_scores(X, o, c, 1, res.coef, ties="breslow")
     n = t.size
     who, stop = data.person[n:], data.stop[n:]
 

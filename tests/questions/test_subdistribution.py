@@ -122,15 +122,15 @@ def test_too_few_refitted_resamples_fail_the_row_with_a_message() -> None:
 
     df = _frame(80, 5)
     spec, r = _refit(df, "bootstrap", 4)
-    original = competing.fine_gray_outcome
+    original = competing.fine_gray_layout
 
     def failing(outcome: Any, cause: np.ndarray, interest: int) -> Any:
-        if outcome is not r.outcome:  # the full sample's expansion works; the resamples' not
+        if outcome is not r.outcome:  # the full sample's layout works; the resamples' not
             raise ValueError("no rows")
         return original(outcome, cause, interest)
 
     mp = pytest.MonkeyPatch()
-    mp.setattr(competing, "fine_gray_outcome", failing)
+    mp.setattr(competing, "fine_gray_layout", failing)
     try:
         tab = subdistribution_table(r, spec)
     finally:

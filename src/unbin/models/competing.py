@@ -9,19 +9,24 @@ the competing events lower; ``1 - Kaplan–Meier`` overstates it.
 - :func:`aalen_johansen`: the nonparametric cumulative incidence (Aalen & Johansen 1978),
   ``F(t) = sum_{t_k <= t} S(t_k-) d_1(t_k) / Y(t_k)`` with ``S`` the all-cause Kaplan–Meier,
   risk sets honouring delayed entry (at risk at t when entry < t <= time), optional case weights.
-- :func:`fine_gray_data` / :func:`fit_fine_gray`: the subdistribution hazards model (Fine &
-  Gray 1999), ``1 - F(t | x) = exp(-Lambda0(t) exp(x b))``, fitted as a weighted Cox model on a
-  counting-process expansion (Geskus 2011): a row with a competing event at T_i stays in the
-  risk set after T_i, one row per later event time t_k of the event of interest, with weight
-  ``G(t_k-) H(t_k) / (G(T_i-) H(T_i))``. ``G`` is the Kaplan–Meier of the censoring time (all
-  events as censoring's "survivors"; risk sets with delayed entry) and ``H(t) = P(entry < t)``
-  the product-limit of the entry times in reversed time (1 without delayed entry): the
-  probability, relative to T_i, that the person would still have been seen at t_k. Censoring
-  and entry are taken as independent of the covariates and of the strata (one G and one H for
-  the sample). The covariance is the cluster-robust sandwich with each person as a cluster
-  (the expanded rows of one person are not independent); the person's own cluster column,
-  when the analysis has one, is used instead. Each person's score term is their rows' Cox
-  score residuals plus the influence of their row on the estimated ``G`` and ``H``
+- :func:`fit_fine_gray`: the subdistribution hazards model (Fine & Gray 1999),
+  ``1 - F(t | x) = exp(-Lambda0(t) exp(x b))``, the weighted Cox model of a counting-process
+  expansion (Geskus 2011; :func:`fine_gray_data` builds it): a row with a competing event at
+  T_i stays in the risk set after T_i, one row per later event time t_k of the event of
+  interest, with weight ``G(t_k-) H(t_k) / (G(T_i-) H(T_i))``. ``G`` is the Kaplan–Meier of
+  the censoring time (all events as censoring's "survivors"; risk sets with delayed entry) and
+  ``H(t) = P(entry < t)`` the product-limit of the entry times in reversed time (1 without
+  delayed entry): the probability, relative to T_i, that the person would still have been
+  seen at t_k. Censoring and entry are taken as independent of the covariates and of the
+  strata (one G and one H for the sample). The expansion grows as competing events x later
+  event times (some 9e8 rows for a registry of a million), so the fit never builds it: its
+  risk sets are the sample's own rows plus a running sum over the competing times times the
+  current weight (:mod:`unbin.models.fine_gray`; O(n log n) time, O(n p) memory), with the
+  expansion's likelihood, ties, strata and weights. The covariance is the cluster-robust
+  sandwich with each person as a cluster (the expanded rows of one person are not
+  independent); the person's own cluster column, when the analysis has one, is used
+  instead. Each person's score term is their rows' Cox score residuals plus the influence of
+  their row on the estimated ``G`` and ``H``
   (:func:`weight_estimation_scores`; Fine & Gray 1999's censoring term, here with the entry
   term of the delayed-entry weights too).
 - :func:`fine_gray_bootstrap_cov`: the nonparametric bootstrap over persons (or clusters),
@@ -38,6 +43,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
+from . import fine_gray
 from .base import FitResult, Outcome, failed_fit
 
 
@@ -147,18 +153,20 @@ class FineGrayData:
         return np.asarray(X)[self.person]
 
 
-# Rows of the counting-process expansion above which it is not built: every competing event
-# adds a row per later event time of interest, so a registry with many distinct event times
-# grows as (competing events x event times) — at 1,000,000 rows about 7e8 rows, beyond this
-# machine's 24 GB. A fit (and each of its bootstrap refits) holds a few hundred bytes per
-# expanded row, so this limit keeps one fit near 4 GB. A limit of the implementation.
+# Rows of the counting-process expansion above which fine_gray_data does not build it: every
+# competing event adds a row per later event time of interest, so a registry with many distinct
+# event times grows as (competing events x event times) — at 1,000,000 rows about 9e8 rows,
+# beyond this machine's memory. fit_fine_gray never builds it (unbin.models.fine_gray); it is
+# built only for refits on its own rows (fine_gray_outcome: the tests' reference and the
+# decision bootstrap's replicate refits), which this limit keeps near 4 GB each.
 EXPANSION_ROWS = 10_000_000
 
 
 def fine_gray_data(time: np.ndarray, cause: np.ndarray, event_of_interest: int = 1, *,
                    entry: np.ndarray | None = None,
                    weights: np.ndarray | None = None) -> FineGrayData:
-    """The weighted counting-process expansion (module docstring; Geskus 2011)."""
+    """The weighted counting-process expansion (module docstring; Geskus 2011); the fits do
+    not need it (:func:`fine_gray_layout`)."""
     t = np.asarray(time, dtype=float)
     c = np.asarray(cause, dtype=float)
     e = None if entry is None else np.asarray(entry, dtype=float)
@@ -201,12 +209,14 @@ def fine_gray_data(time: np.ndarray, cause: np.ndarray, event_of_interest: int =
 
 
 _CACHE = "fine_gray_outcome"
+_LAYOUT = "fine_gray_layout"
 
 
 def fine_gray_outcome(outcome: Outcome, cause: np.ndarray, event_of_interest: int
                       ) -> tuple[Outcome, FineGrayData]:
     """The expanded sample as a weighted survival Outcome (robust variance clustered by person,
-    or by the analysis' cluster), kept in ``outcome.cache`` for every fit of the sample."""
+    or by the analysis' cluster), kept in ``outcome.cache``. The fits do not use it
+    (:func:`fine_gray_layout`); it is the expansion itself, for a refit on its rows."""
     cached = outcome.cache.get(_CACHE)
     if cached is not None:
         return cached
@@ -221,6 +231,58 @@ def fine_gray_outcome(outcome: Outcome, cause: np.ndarray, event_of_interest: in
     return expanded, data
 
 
+def fine_gray_layout(outcome: Outcome, cause: np.ndarray, event_of_interest: int
+                     ) -> fine_gray.Layout:
+    """The sample laid out for the Fine–Gray fit without the expansion
+    (:mod:`unbin.models.fine_gray`), with ``G`` and ``H`` estimated on it; kept in
+    ``outcome.cache`` for every fit of the sample."""
+    cached = outcome.cache.get(_LAYOUT)
+    if cached is not None:
+        return cached
+    assert outcome.time is not None
+    t = np.asarray(outcome.time, dtype=float)
+    c = np.asarray(cause, dtype=float)
+    e = None if outcome.entry is None else np.asarray(outcome.entry, dtype=float)
+    _check(t, c, e)
+    w = np.ones(t.size) if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
+
+    def Q_at(at: np.ndarray) -> np.ndarray:
+        return censoring_survival_before(t, c, e, w, at) * entry_distribution(t, e, w, at)
+
+    layout = fine_gray.prepare(t, c, event_of_interest, entry=e, weights=outcome.weights,
+                               strata=outcome.strata, Q_at=Q_at)
+    outcome.cache[_LAYOUT] = layout
+    return layout
+
+
+def _fit_coef(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_interest: int,
+              names: tuple[str, ...], init: np.ndarray | None = None
+              ) -> tuple[fine_gray.Layout, fine_gray.Fit] | FitResult:
+    """The layout and Newton fit, or the failed result (no events, a bad design, a fit that
+    did not converge) with the Cox fitter's messages."""
+    from ._glm import check_design
+
+    events = int(np.sum(np.asarray(cause) == event_of_interest))
+    if events == 0:
+        return failed_fit("survival", names, outcome.n, 0, "no events in the analysis sample; "
+                          "a Cox model needs at least one event.")
+    problem = check_design(X, names)
+    if problem:
+        return failed_fit("survival", names, outcome.n, events, problem)
+    try:
+        L = fine_gray_layout(outcome, cause, event_of_interest)
+    except ValueError as exc:  # the sample's arrays (e.g. an entry not before its time)
+        return failed_fit("survival", names, outcome.n, events, f"Fine–Gray: {exc}")
+    res = fine_gray.fit(L, X, init=init)
+    if not res.converged:
+        message = res.message
+        if "monotone likelihood" in message:
+            message += ("; or set design: {firth: true} in the analysis for Firth-penalised "
+                        "(finite) estimates")
+        return failed_fit("survival", names, outcome.n, events, message)
+    return L, res
+
+
 def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_interest: int,
                   names: tuple[str, ...], bootstrap: int = 0,
                   seed: int | np.random.Generator = 0) -> FitResult:
@@ -230,64 +292,72 @@ def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_i
     ``extra["robust_cov"]``, the refits that failed counted in ``extra["bootstrap_failed"]``);
     ``linear_predictor`` is per sample row and ``extra["baseline"]`` the Breslow baseline
     cumulative subdistribution hazard (per stratum, at covariates 0;
-    :func:`unbin.models.cox.baseline_cumhaz`). A failed fit is returned, never raised."""
-    from . import fit
-    from .cox import baseline_cumhaz
-    from .robust import cox_scores, sandwich
-    from .survival import cox_layout
+    :func:`unbin.models.cox.baseline_cumhaz` of the expansion). Fitted without building the
+    expansion (:mod:`unbin.models.fine_gray`); ``extra["expanded_rows"]`` is the size the
+    expansion would have. A failed fit is returned, never raised."""
+    from .robust import describe, sandwich
 
     X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
+    names = tuple(names)
+    got = _fit_coef(X, outcome, cause, event_of_interest, names)
+    if isinstance(got, FitResult):
+        return got
+    L, res = got
     events = int(np.sum(np.asarray(cause) == event_of_interest))
-    try:
-        expanded, data = fine_gray_outcome(outcome, cause, event_of_interest)
-    except ValueError as exc:
-        return failed_fit("survival", names, outcome.n, events, f"Fine–Gray expansion: {exc}")
-    Xe = data.take(X)
-    res = fit("survival", Xe, expanded, names)
-    if not res.ok:
-        return res
     lp = X @ res.coef
-    centre = float(np.mean(lp)) if lp.size else 0.0
-    # baseline at the centred predictor (no underflow), moved back to covariates 0
-    base = baseline_cumhaz((data.take(lp) - centre)[:, None], expanded.time, expanded.y, [1.0],
-                           entry=expanded.entry, strata=expanded.strata,
-                           weights=expanded.weights, layout=cox_layout(expanded))
-    base = base.assign(cumhaz=base["cumhaz"].to_numpy(float) * np.exp(-centre))
-    cov, cov_known = res.cov, res.cov
-    if "model_cov" in res.extra:  # the sandwich, with the weights' estimation terms
-        scores = np.zeros((outcome.n, X.shape[1]))
-        np.add.at(scores, data.person, cox_scores(Xe, expanded, res.coef,
-                                                  ties=str(res.extra.get("ties", "efron"))))
-        scores += weight_estimation_scores(X, outcome, cause, event_of_interest, data, res.coef,
-                                           ties=str(res.extra.get("ties", "efron")))
-        clusters = np.arange(outcome.n) if outcome.cluster is None else outcome.cluster
-        V, _ = sandwich(np.asarray(res.extra["model_cov"]), scores, clusters)
+    clusters = np.arange(outcome.n) if outcome.cluster is None else np.asarray(outcome.cluster)
+    own = fine_gray.score_terms(L, X, res.coef)
+    known, G = sandwich(res.cov, own, clusters)
+    extra: dict[str, object] = {"loglik0": res.loglik0, "variance": "model"}
+    cov = cov_known = res.cov
+    if np.all(np.isfinite(known)):  # the sandwich, with the weights' estimation terms
+        extra.update(variance=describe(G), model_cov=res.cov, clusters=G)
+        cov = cov_known = known
+        scores = own + weight_estimation_scores(X, outcome, cause, event_of_interest, res.coef)
+        V, _ = sandwich(res.cov, scores, clusters)
         if np.all(np.isfinite(V)):
             cov = V
-    extra: dict[str, object] = {**res.extra, "baseline": base,
-                                "expanded_rows": int(data.stop.size),
-                                "cov_weights_known": cov_known}
+    extra.update(baseline=fine_gray.baseline(L, lp), expanded_rows=L.expanded_rows,
+                 cov_weights_known=cov_known)
     if bootstrap > 0:
         extra.update(robust_cov=cov, bootstrap=bootstrap)
         cov, extra["bootstrap_failed"] = fine_gray_bootstrap_cov(
-            X, outcome, cause, event_of_interest, names, bootstrap, seed)
-    return FitResult(family="survival", names=res.names, coef=res.coef, cov=cov,
-                     loglik=res.loglik, n=outcome.n, events=events, n_params=res.n_params,
-                     converged=True, iterations=res.iterations, warnings=res.warnings,
+            X, outcome, cause, event_of_interest, names, bootstrap, seed, init=res.coef)
+    return FitResult(family="survival", names=names, coef=res.coef, cov=cov,
+                     loglik=res.loglik, n=outcome.n, events=events, n_params=len(names),
+                     converged=True, iterations=res.iterations, warnings=(),
                      linear_predictor=lp, extra=extra)
+
+
+def fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray
+                   ) -> tuple[np.ndarray | None, pd.DataFrame | None]:
+    """Coefficients and Breslow baseline (at covariates 0) of the Fine–Gray model of ``X`` on
+    ``sample`` (its ``cause`` and ``event_of_interest``), as :func:`fit_fine_gray` gives them,
+    without the sandwich: Newton's method from ``start`` (a replicate's refit started at the
+    full-sample estimate); (None, None) when it does not fit."""
+    assert sample.cause is not None
+    X = np.asarray(X, dtype=float).reshape(sample.n, -1)
+    names = tuple(f"x{j}" for j in range(X.shape[1]))
+    got = _fit_coef(X, sample, np.asarray(sample.cause), sample.event_of_interest, names,
+                    init=np.asarray(start, dtype=float))
+    if isinstance(got, FitResult) or not np.all(np.isfinite(got[1].coef)):
+        return None, None
+    L, res = got
+    return res.coef, fine_gray.baseline(L, X @ res.coef)
 
 
 def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
                             event_of_interest: int, names: tuple[str, ...], replicates: int,
-                            seed: int | np.random.Generator = 0) -> tuple[np.ndarray, int]:
+                            seed: int | np.random.Generator = 0,
+                            init: np.ndarray | None = None) -> tuple[np.ndarray, int]:
     """The covariance of the Fine–Gray coefficients over ``replicates`` nonparametric bootstrap
     resamples of the persons (of the clusters when the outcome has them, Efron & Tibshirani
     1993, ch. 6), the censoring and entry distributions re-estimated in each (module
     docstring), and how many refits failed (left out; all NaN when fewer than two fitted).
-    ``seed`` is an integer or a numpy Generator (drawn from as given)."""
-    from . import fit
-
+    ``seed`` is an integer or a numpy Generator (drawn from as given); ``init``: starting
+    values of every refit (the full-sample estimate; the maximum is the same)."""
     X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
+    names = tuple(names)
     c = np.asarray(cause)
     rng = np.random.default_rng(seed)
     if outcome.cluster is None:
@@ -303,15 +373,10 @@ def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
         o = outcome.subset(rows)
         # each drawn row is its own person (a person drawn twice is two people)
         o = replace(o, cluster=None if members is None else np.repeat(
-            np.arange(pick.size), [members[u].size for u in pick]))
-        try:
-            expanded, data = fine_gray_outcome(o, c[rows], event_of_interest)
-        except ValueError:
-            failed += 1
-            continue
-        res = fit("survival", data.take(X[rows]), expanded, names)
-        if res.ok and np.all(np.isfinite(res.coef)):
-            draws.append(res.coef)
+            np.arange(pick.size), [members[u].size for u in pick]), cache={})
+        got = _fit_coef(X[rows], o, c[rows], event_of_interest, names, init=init)
+        if not isinstance(got, FitResult) and np.all(np.isfinite(got[1].coef)):
+            draws.append(got[1].coef)
         else:
             failed += 1
     if len(draws) < 2:
@@ -320,28 +385,28 @@ def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
 
 
 def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
-                             event_of_interest: int, data: FineGrayData,
-                             coef: np.ndarray, ties: str = "efron") -> np.ndarray:
+                             event_of_interest: int, coef: np.ndarray,
+                             ties: str = "efron") -> np.ndarray:
     """Each person's influence, through the estimated censoring and entry distributions, on
     the Fine–Gray score at ``coef`` (n x p): the derivative of the score with respect to the
     person's weight in ``G`` and ``H`` alone (an infinitesimal jackknife; Fine & Gray 1999,
     sec. 3, for ``G``).
 
-    A competing-event person j's row at event time t_k carries ``G(t_k-) H(t_k) / (G(T_j-)
-    H(T_j))``; its log changes by ``-dLc(u) / (1 - dLc(u))`` for each censoring-hazard step
-    ``dLc(u)`` at T_j <= u < t_k and by ``dLe(s) / (1 - dLe(s))`` for each reversed-time entry
-    hazard step ``dLe(s) = d(s) / R(s)`` at T_j <= s < t_k. The score moves with that row's
-    weight by ``-a_jk``, ``a_jk = (x_j - xbar(t_k)) w_jk r_j dN1(t_k) / S0(t_k)`` in the
+    A competing-event person j's expanded row at event time t_k carries ``G(t_k-) H(t_k) /
+    (G(T_j-) H(T_j))``; its log changes by ``-dLc(u) / (1 - dLc(u))`` for each censoring-hazard
+    step ``dLc(u)`` at T_j <= u < t_k and by ``dLe(s) / (1 - dLe(s))`` for each reversed-time
+    entry hazard step ``dLe(s) = d(s) / R(s)`` at T_j <= s < t_k. The score moves with that
+    row's weight by ``-a_jk``, ``a_jk = (x_j - xbar(t_k)) w_jk r_j dN1(t_k) / S0(t_k)`` in the
     Breslow form (``ties="breslow"``, or no tied events). In Efron's form (``ties="efron"``,
     the fit's default) the d tied events at t_k each carry the mean weight ``wavg`` of the
     tied events and the denominators ``S0 - f T0``, f = 0, 1/d, ..., (d-1)/d (T0, T1: the
     tied events' sums of ``w r`` and ``w r x``), so ``a_jk = w_jk r_j sum_f wavg (x_j -
     xbar_f) / (S0 - f T0)`` with ``xbar_f = (S1 - f T1) / (S0 - f T0)`` (the added rows are
     never events, so they are in no tied set). With ``q(u)`` the sums of ``a_jk`` over the
-    rows spanning u, a person l's term is
-    ``sum_u q(u) / (1 - dLc(u)) w_l (dNc_l(u) - Yc_l(u) dLc(u)) / Yc(u)`` for censoring minus
-    the same sum over the entry steps with ``1(entry_l = s) - 1(entry_l <= s < time_l) dLe(s)``
-    and ``R(s)``."""
+    rows spanning u (:func:`unbin.models.fine_gray.spanned_sums`, without the rows), a person
+    l's term is ``sum_u q(u) / (1 - dLc(u)) w_l (dNc_l(u) - Yc_l(u) dLc(u)) / Yc(u)`` for
+    censoring minus the same sum over the entry steps with ``1(entry_l = s) - 1(entry_l <= s <
+    time_l) dLe(s)`` and ``R(s)``."""
     assert outcome.time is not None
     time = np.asarray(outcome.time, dtype=float)
     n = time.size
@@ -350,12 +415,9 @@ def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
     w = np.ones(n) if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
     c = np.asarray(cause)
     out = np.zeros((n, p))
-    added = np.flatnonzero(np.arange(data.stop.size) >= n)
-    if p == 0 or added.size == 0:
+    L = fine_gray_layout(outcome, c, event_of_interest)
+    if p == 0 or L.comp.size == 0:
         return out
-    a = _weight_row_terms(X, outcome, c == event_of_interest, data, coef, added,
-                          efron=ties == "efron")
-    spans = (time[data.person[added]], data.stop[added])
     cens = c == 0
     ct = np.unique(time[cens])
     if ct.size:
@@ -364,7 +426,8 @@ def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
         hi = np.searchsorted(ct, time, side="right")
         Y = _at_risk(lo, hi, w, ct.size)
         jumps = np.bincount(hi[cens] - 1, w[cens], ct.size)
-        qY, dL = _spanned(a, ct, spans, Y, jumps)
+        q = fine_gray.spanned_sums(L, X, coef, time, ct, ties)
+        qY, dL = _spanned(q, Y, jumps)
         own = np.zeros((n, p))
         own[cens] = qY[hi[cens] - 1]
         out += w[:, None] * (own - _range_sums(qY * dL[:, None], lo, hi))
@@ -374,7 +437,8 @@ def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
         lo = np.searchsorted(st, entry, side="left")
         hi = np.searchsorted(st, time, side="left")
         R = _at_risk(lo, hi, w, st.size)
-        qR, dA = _spanned(a, st, spans, R, np.bincount(lo, w, st.size))
+        q = fine_gray.spanned_sums(L, X, coef, time, st, ties)
+        qR, dA = _spanned(q, R, np.bincount(lo, w, st.size))
         out -= w[:, None] * (qR[lo] - _range_sums(qR * dA[:, None], lo, hi))
     return out
 
@@ -390,87 +454,12 @@ def _range_sums(v: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     return np.asarray(cum[hi] - cum[lo])
 
 
-def _spanned(a: np.ndarray, grid: np.ndarray, spans: tuple[np.ndarray, np.ndarray],
-             at_risk: np.ndarray, jumps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``q(u) / ((1 - dL(u)) Y(u))`` on the grid (rows of ``a`` summed over the grid points u
-    with start <= u < stop of their span) and the hazard steps ``dL = jumps / Y``; 0 where
-    nobody is at risk or a step is 1."""
-    K = grid.size
-    q = np.zeros((K + 1, a.shape[1]))
-    np.add.at(q, np.searchsorted(grid, spans[0], side="left"), a)
-    np.add.at(q, np.searchsorted(grid, spans[1], side="left"), -a)
-    q = np.cumsum(q, axis=0)[:K]
+def _spanned(q: np.ndarray, at_risk: np.ndarray, jumps: np.ndarray
+             ) -> tuple[np.ndarray, np.ndarray]:
+    """``q(u) / ((1 - dL(u)) Y(u))`` on the grid and the hazard steps ``dL = jumps / Y``; 0
+    where nobody is at risk or a step is 1."""
     safe = at_risk > 0
     dL = np.where(safe, jumps / np.where(safe, at_risk, 1.0), 0.0)
     ok = safe & (dL < 1.0)
     scale = np.where(ok, 1.0 / (np.where(safe, at_risk, 1.0) * np.where(ok, 1.0 - dL, 1.0)), 0.0)
     return q * scale[:, None], dL
-
-
-def _weight_row_terms(X: np.ndarray, outcome: Outcome, mine: np.ndarray, data: FineGrayData,
-                      coef: np.ndarray, added: np.ndarray, efron: bool = False) -> np.ndarray:
-    """``a_jk`` (weight_estimation_scores) for the added rows of the expansion, per stratum
-    (``efron``: Efron's form at the event times holding tied events)."""
-    Xe = data.take(X)
-    eta = Xe @ np.asarray(coef, dtype=float)
-    r = np.exp(eta - (eta.max() if eta.size else 0.0))
-    tk = np.unique(np.asarray(outcome.time)[mine])
-    K, p = tk.size, Xe.shape[1]
-    srow = (np.zeros(data.stop.size, dtype=np.int64) if outcome.strata is None
-            else np.asarray(outcome.strata)[data.person])
-    is_added = np.zeros(data.stop.size, dtype=bool)
-    is_added[added] = True
-    a = np.zeros((data.stop.size, p))
-    for s in np.unique(srow):
-        rows = np.flatnonzero(srow == s)
-        lo = np.searchsorted(tk, data.start[rows], side="right")
-        hi = np.searchsorted(tk, data.stop[rows], side="right")
-        wr = data.weight[rows] * r[rows]
-        S0 = _at_risk(lo, hi, wr, K)
-        S1 = np.column_stack([_at_risk(lo, hi, wr * Xe[rows, j], K) for j in range(p)])
-        ev = rows[data.event[rows] > 0]
-        kev = np.searchsorted(tk, data.stop[ev])
-        d1 = np.bincount(kev, data.weight[ev], K)
-        safe = S0 > 0
-        S0s = np.where(safe, S0, 1.0)
-        # per event time: A0 = sum over its events of wavg / den, A1 = sum wavg S1_f / den^2;
-        # Breslow (one event, or ties="breslow"): A0 = d1 / S0, A1 = d1 S1 / S0^2
-        A0 = np.where(safe, d1 / S0s, 0.0)
-        A1 = S1 * (A0 / S0s)[:, None]
-        counts = np.bincount(kev, minlength=K)
-        if efron and np.any(counts > 1):
-            A0, A1 = _efron_sums(A0, A1, S0, S1, kev, counts, data.weight[ev],
-                                 (data.weight[ev] * r[ev])[:, None] * Xe[ev],
-                                 data.weight[ev] * r[ev])
-        mine_rows = rows[is_added[rows]]
-        k = np.searchsorted(tk, data.stop[mine_rows])
-        a[mine_rows] = ((Xe[mine_rows] * A0[k][:, None] - A1[k])
-                        * (data.weight[mine_rows] * r[mine_rows])[:, None])
-    return a[added]
-
-
-def _efron_sums(A0: np.ndarray, A1: np.ndarray, S0: np.ndarray, S1: np.ndarray,
-                kev: np.ndarray, counts: np.ndarray, w_ev: np.ndarray, wrx_ev: np.ndarray,
-                wr_ev: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``A0``, ``A1`` of _weight_row_terms in Efron's form at the event times holding tied
-    events (index ``kev`` of each event; ``counts`` events per time): one term per tied event,
-    f = l / d, l = 0..d-1, each with the mean weight of its time's events."""
-    K = counts.size
-    T0 = np.bincount(kev, wr_ev, K)
-    T1 = np.column_stack([np.bincount(kev, wrx_ev[:, j], K) for j in range(wrx_ev.shape[1])])
-    wavg = np.bincount(kev, w_ev, K) / np.maximum(counts, 1)
-    tied = np.flatnonzero(counts > 1)
-    at = np.repeat(tied, counts[tied])  # one entry per tied event
-    f = (np.arange(at.size) - np.repeat(np.cumsum(counts[tied]) - counts[tied],
-                                        counts[tied])) / counts[at]
-    den = S0[at] - f * T0[at]
-    ok = den > 0
-    inv = np.where(ok, 1.0 / np.where(ok, den, 1.0), 0.0)
-    A0, A1 = A0.copy(), A1.copy()
-    A0[tied] = 0.0
-    A1[tied] = 0.0
-    A0 += np.bincount(at, wavg[at] * inv, K)
-    num = (S1[at] - f[:, None] * T1[at]) * (wavg[at] * inv ** 2)[:, None]
-    for j in range(A1.shape[1]):
-        A1[:, j] += np.bincount(at, num[:, j], K)
-    return A0, A1

@@ -3,8 +3,8 @@ analyses with ``outcome.competing``; other analyses give an empty table).
 
 The legacy groups and each continuous form (linear, the AIC-chosen spline, the chosen FP) are
 refitted, under each adjustment coding, as Fine–Gray models of the same design (unbin.models.
-competing: a weighted Cox fit on the counting-process expansion, cluster-robust covariance by
-person; Fine & Gray 1999, Geskus 2011). Per form and non-reference legacy group: the contrast
+competing: the weighted Cox fit of the counting-process expansion, computed without building
+it, cluster-robust covariance by person; Fine & Gray 1999, Geskus 2011). Per form and non-reference legacy group: the contrast
 between the group's median exposure and the reference group's median (for the legacy form the
 group's own indicator), as a subdistribution hazard ratio, beside the cause-specific hazard
 ratio of the same contrast from the analysis' own Cox fit (competing events censored). The two
@@ -17,8 +17,8 @@ Variance (``outcome.subdistribution_variance``, the ``variance`` column): ``sand
 default) is the cluster-robust covariance with the estimated censoring and entry weights'
 terms; ``bootstrap`` the covariance of the Fine–Gray coefficients over ``resampling.bootstrap``
 resamples of the persons (of the clusters when the analysis has them), the weights
-re-estimated in each (``unbin.models.competing.fine_gray_bootstrap_cov``; Efron & Tibshirani
-1993), drawn from the spec's generator for this analysis (``Spec.rng``), the same resamples for
+re-estimated in each and the refits started at the estimate
+(``unbin.models.competing.fine_gray_bootstrap_cov``; Efron & Tibshirani 1993), drawn from the spec's generator for this analysis (``Spec.rng``), the same resamples for
 every form and coding; ``bootstrap_ok`` counts the refitted resamples. With fewer than half of
 them refitted the row keeps its estimate but has no standard error, and fails. The Wald limits then use the bootstrap
 standard error. Without a spec (direct calls) the sandwich is used."""
@@ -93,7 +93,7 @@ def bootstrapped(r: Refit, f: FormFit, g: FitResult, spec: Spec) -> tuple[FitRes
     if cached is None:
         X, names = design(r.sample.frame, r.x, f.exposure_terms, f.adjust_terms)
         cached = fine_gray_bootstrap_cov(X, o, o.cause, o.event_of_interest, names, B,
-                                         spec.rng(r.analysis.name, PURPOSE))
+                                         spec.rng(r.analysis.name, PURPOSE), init=g.coef)
         o.cache[key] = cached
     cov, failed = cached
     done = B - failed
