@@ -99,7 +99,6 @@ from ..spec import Spec
 from ..terms import LinearTerm, SplineTerm, Term
 from .decisions import EVENT_FAMILIES, thresholds_for, typed_table
 from .net_benefit import legacy_rules, net_benefit_counts, net_benefit_risk
-from .thresholds import crossings
 
 PURPOSE = "decision_resampling"
 FORMS = ("legacy", "linear", "spline")
@@ -551,12 +550,12 @@ class _Evaluator:
                  zs: dict[int, np.ndarray | None], fit: _Sample, on: _Sample,
                  apparent_run: bool = False,
                  risks: dict[tuple[str, str], RiskZ] | None = None,
-                 crossings: bool = True,
+                 implied: bool = True,
                  ) -> dict[tuple[Any, ...], float]:
         """Every quantity of the models with coefficients ``coef_by`` (fitted on ``fit``)
         judged on ``on``'s rows; ``risks`` (competing events) the risk models' Fine–Gray
         coefficients and z fitted on the same rows (:func:`fine_gray_risks`). The implied
-        thresholds (which depend on ``fit`` only) are left out when ``crossings`` is false."""
+        thresholds (which depend on ``fit`` only) are left out when ``implied`` is false."""
         out: dict[tuple[Any, ...], float] = {}
         cixs: dict[int, float] = {}
         for k in self.keys:
@@ -572,7 +571,7 @@ class _Evaluator:
             if risk is None:
                 continue
             self._risk_measures(out, k, risk[1][on.idx], fit, on, apparent_run)
-            if crossings and k in CURVE_MODELS:
+            if implied and k in CURVE_MODELS:
                 self._crossings(out, k, risk[0], risk[1], fit)
         for coding in CODINGS:
             s = out.get(("C index", ("spline", coding)))
@@ -598,6 +597,8 @@ class _Evaluator:
     def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
                    c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:
         """The implied thresholds of the model's curve at the median risk profile of ``fit``."""
+        from .thresholds import crossings  # scipy.optimize: imported by the jobs that need it
+
         r = self.r
         f = _curve(self.models[k], c, r.family)
         rest = float(np.median((z - f(r.x))[fit.idx]))
@@ -723,7 +724,7 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
             risks_b = fine_gray_risks(r, models, horizon, rows_b, weights_b, risks)[0]
         boot.append(ev.measures(cb, zs, drawn, drawn, risks=risks_b))
         # the implied thresholds read the fitting rows only: the same as in ``boot``
-        test.append(ev.measures(cb, zs, drawn, full, risks=risks_b, crossings=False))
+        test.append(ev.measures(cb, zs, drawn, full, risks=risks_b, implied=False))
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
     if collect is not None:
         collect.update(apparent=apparent, boot=boot, test=test, notes=notes, base=base)
