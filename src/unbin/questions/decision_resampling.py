@@ -78,12 +78,12 @@ from ..models import Outcome, fit
 from ..models.base import FitResult
 from ..models.competing import fine_gray_outcome, fit_fine_gray
 from ..models.cox import (
-    baseline_cumhaz,
     concordance,
     concordance_order,
     prepare_layout,
     refit_near,
 )
+from ..models.cox.baseline import baseline_steps
 from ..models.discrimination import auc, c_index
 from ..models.survival import cox_layout
 from ..models.weighted import (
@@ -306,8 +306,8 @@ def _log_base(on: _Sample, lp_m: np.ndarray, horizon: float, strata_all: np.ndar
     linear predictor ``lp_m`` (centred), as a lookup for every row of the sample, and the
     centre."""
     centre = float(np.mean(lp_m))
-    base = baseline_cumhaz((lp_m - centre)[:, None], on.time, on.y, [1.0], entry=on.entry,
-                           strata=on.strata, layout=on.layout())
+    base = baseline_steps((lp_m - centre)[:, None], on.time, on.y, [1.0], entry=on.entry,
+                          strata=on.strata, layout=on.layout())
     h0, _, _ = cumhaz_at(base, strata_all, n, horizon)
     with np.errstate(divide="ignore"):
         return np.log(h0), centre
@@ -499,10 +499,11 @@ def _fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray,
         coef = res.coef
     lp = X @ coef
     centre = float(np.mean(lp)) if lp.size else 0.0
-    base = baseline_cumhaz((data.take(lp) - centre)[:, None], expanded.time, expanded.y, [1.0],
-                           entry=expanded.entry, strata=expanded.strata,
-                           weights=expanded.weights, layout=layout)
-    return coef, base.assign(cumhaz=base["cumhaz"].to_numpy(float) * np.exp(-centre))
+    stratum, times, cum = baseline_steps((data.take(lp) - centre)[:, None], expanded.time,
+                                         expanded.y, [1.0], entry=expanded.entry,
+                                         strata=expanded.strata, weights=expanded.weights,
+                                         layout=layout)
+    return coef, (stratum, times, cum * np.exp(-centre))
 
 
 class _Evaluator:
