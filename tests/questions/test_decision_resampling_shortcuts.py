@@ -72,3 +72,21 @@ def test_a_subset_without_events_by_the_horizon() -> None:
     want = net_benefit_km(time, (cause == 1).astype(float), start, late, h, pt, None, cause,
                           1)[0]
     assert np.array_equal(fast.net_benefit(pt, late, None), want)
+
+
+def test_pair_auc_is_the_rank_auc() -> None:
+    """The AUC from one sort of the non-events equals the rank formula's (bit for bit) and a
+    count over every (event, non-event) pair (Hanley & McNeil 1982), with tied scores."""
+    from unbin.models.discrimination import auc
+    from unbin.questions.decision_resampling import pair_auc
+
+    rng = np.random.default_rng(11)
+    for n in (7, 60, 500):
+        y = rng.uniform(size=n) < 0.3
+        y[:2] = [True, False]
+        score = np.round(rng.normal(size=n) + y, 1)  # rounded: ties within and across groups
+        got = pair_auc(y, score)
+        assert got == auc(y, score)
+        diff = score[y][:, None] - score[~y][None, :]
+        assert got == pytest.approx(np.mean((diff > 0) + 0.5 * (diff == 0)), abs=1e-15)
+    assert np.isnan(pair_auc(np.zeros(5, bool), np.arange(5.0)))

@@ -166,7 +166,7 @@ class _Sample:
             return c_index(Outcome(self.family, self.y, time=self.time, entry=self.entry,
                                    strata=self.strata, weights=self.w), lp)
         if self.family == "binary":
-            return auc(self.y, lp)
+            return pair_auc(self.y, lp)
         if self._order is None:
             self._order = concordance_order(self.time, self.y, self.entry, self.strata)
         return float(concordance(self.time, lp, self.y, entry=self.entry, strata=self.strata,
@@ -281,6 +281,23 @@ class _AtHorizon:
                 done[key] = ((1.0 - s) * share, s * share)
             tp[g], fp[g] = done[key]
         return np.asarray(tp - fp * thresholds / (1.0 - thresholds))
+
+
+def pair_auc(y: np.ndarray, score: np.ndarray) -> float:
+    """:func:`unbin.models.discrimination.auc`, the same number: the Mann–Whitney count of
+    (event, non-event) pairs in which the event scores higher (ties one half) from one sort
+    of the non-events' scores instead of the ranks of all rows. The count is a multiple of
+    one half, exact in floating point either way, so the two divide the same numerator."""
+    e = np.asarray(y, dtype=bool)
+    s = np.asarray(score, dtype=float)
+    n1, n0 = int(e.sum()), int((~e).sum())
+    if n1 == 0 or n0 == 0 or np.isnan(s).any():
+        return auc(e, s)
+    others = np.sort(s[~e])
+    cases = s[e]
+    below = int(np.searchsorted(others, cases, side="left").sum())
+    not_above = int(np.searchsorted(others, cases, side="right").sum())
+    return float((below + not_above) / 2 / (n1 * n0))
 
 
 def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
