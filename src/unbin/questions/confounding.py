@@ -58,10 +58,9 @@ replicates for the linear, logistic and Poisson models; for survival ``unbin.mod
 resampled rows, whose sort and risk sets are laid out once per replicate for all designs — and
 its standardised means come from the refitted coefficients by matrix products (survival: the
 replicate's own Breslow baseline; with competing events each competing cause's Cox model is
-refitted on the replicate's rows too, by chord steps from its full-sample estimate,
-``unbin.models.cox.refit_near``, as the design's own model). A replicate fails for a row
-(counted in ``bootstrap_failed``, left out of ``bootstrap_ok``) when one of the row's three
-estimates is missing: a design column without variation, no convergence, (logistic) fitted risks running to 0 or 1, or an undefined
+refitted on the replicate's rows too, from its full-sample estimate). A replicate fails for a row (counted in ``bootstrap_failed``,
+left out of ``bootstrap_ok``) when one of the row's three estimates is missing: a design column
+without variation, no convergence, (logistic) fitted risks running to 0 or 1, or an undefined
 standardised contrast. ``confounding_clear`` is false when the interval of the confounding
 (crude - continuous) covers 0 — the share is then a ratio of noise and should not be read.
 """
@@ -76,7 +75,7 @@ import pandas as pd
 
 from ..models import EFFECT_SCALE, fit
 from ..models.base import FitResult, Outcome
-from ..models.cox import Layout, fit_cox, prepare_layout, refit_near
+from ..models.cox import Layout, fit_cox, prepare_layout
 from ..models.survival import cox_layout
 from ..models.weighted import (
     _CHUNK_CELLS,
@@ -336,19 +335,11 @@ class _Designs:
             lay = layouts[(b, c)]
             if lay is None:
                 return np.full(2, np.nan)
-            # chord steps from the full-sample estimate, as for the design's own model
-            # (unbin.models.weighted.weighted_cox_designs); the full fit where they do not
-            # settle
-            coef_c = refit_near(Xm, lay, full.coef, tol=1e-11)
-            if coef_c is None:
-                fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,
-                                 strata=strata, weights=case, init=full.coef, layout=lay)
-                if not fitted.converged:
-                    return np.full(2, np.nan)
-                coef_c = fitted.coef
-            if not np.all(np.isfinite(coef_c)):
+            fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,
+                             strata=strata, weights=case, init=full.coef, layout=lay)
+            if not fitted.converged or not np.all(np.isfinite(fitted.coef)):
                 return np.full(2, np.nan)
-            coefs.append(coef_c)
+            coefs.append(fitted.coef)
             lays.append(lay)
         return cif_risks(Xm, it.k, coefs, it.at, o.time[m], cause, self.causes, self.horizon,
                          entry=entry, strata=strata, layout=layout, other_layouts=lays)[0]
