@@ -78,12 +78,12 @@ from ..models import Outcome, fit
 from ..models.base import FitResult
 from ..models.competing import fine_gray_outcome, fit_fine_gray
 from ..models.cox import (
-    baseline_cumhaz,
     concordance,
     concordance_order,
     prepare_layout,
     refit_near,
 )
+from ..models.cox.baseline import baseline_steps
 from ..models.discrimination import auc, c_index
 from ..models.survival import cox_layout
 from ..models.weighted import (
@@ -98,8 +98,7 @@ from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import LinearTerm, SplineTerm, Term
 from .decisions import EVENT_FAMILIES, thresholds_for, typed_table
-from .net_benefit import legacy_rules, net_benefit_counts, net_benefit_km, net_benefit_risk
-from .thresholds import crossings
+from .net_benefit import legacy_rules, net_benefit_counts, net_benefit_risk
 
 PURPOSE = "decision_resampling"
 FORMS = ("legacy", "linear", "spline")
@@ -135,7 +134,7 @@ class _Sample:
     risk at the horizon, C-index, net benefit, calibration slope."""
 
     def __init__(self, r: Refit, idx: np.ndarray, horizon: float | None,
-                 weights: np.ndarray | None = None):
+                 weights: np.ndarray | None = None, layout: Any = None):
         o = r.outcome
         self.idx, self.family, self.h = idx, r.family, horizon
         self.w = weights if weights is not None or o.weights is None else o.weights[idx]
@@ -147,8 +146,13 @@ class _Sample:
         self.cause = None if o.cause is None else np.asarray(o.cause)[idx]
         self.event_of_interest = o.event_of_interest
         self._order: Any = None
-        self._layout: Any = None
+        # the Cox layout of these rows (unweighted): given when the replicate's refits made it
+        self._layout: Any = layout
         self._outcome: Outcome | None = None
+        self._at_horizon: _AtHorizon | None = None
+        # the net benefits of the rules that are not fitted: the same in every evaluation on
+        # these rows (the full sample is judged once per replicate)
+        self.fixed_rules: dict[tuple[Any, ...], float] | None = None
 
     def layout(self) -> Any:
         """The Cox layout of these rows (sort, risk sets), made once and shared by the models."""
@@ -162,7 +166,7 @@ class _Sample:
             return c_index(Outcome(self.family, self.y, time=self.time, entry=self.entry,
                                    strata=self.strata, weights=self.w), lp)
         if self.family == "binary":
-            return auc(self.y, lp)
+            return pair_auc(self.y, lp)
         if self._order is None:
             self._order = concordance_order(self.time, self.y, self.entry, self.strata)
         return float(concordance(self.time, lp, self.y, entry=self.entry, strata=self.strata,
@@ -177,8 +181,10 @@ class _Sample:
                    else net_benefit_counts(self.y, positive, pt))
             return out[0]
         assert self.time is not None and self.h is not None
-        return net_benefit_km(self.time, self.y, self.entry, positive, self.h, pt, risk,
-                              self.cause, self.event_of_interest)[0]
+        if self._at_horizon is None:
+            self._at_horizon = _AtHorizon(self.time, self.y, self.entry, self.h, self.cause,
+                                          self.event_of_interest)
+        return self._at_horizon.net_benefit(pt, positive, risk)
 
     def slope(self, z: np.ndarray) -> float:
         """Calibration slope of the linear predictor on the risk's link scale (Cox 1958)."""
@@ -189,11 +195,109 @@ class _Sample:
                                     strata=self.strata)
         zc = (z - z.mean())[:, None]
         if self.y.any():  # from a slope of 1, which the replicate models are near
-            near = refit_near(zc, cox_layout(self._outcome), [1.0])
+            # the rows' own layout (the Outcome's is laid out from the same arrays)
+            near = refit_near(zc, self.layout(), [1.0])
             if near is not None:
                 return float(near[0])
         res = fit("survival", zc, self._outcome, ("z",))
         return float(res.coef[0]) if res.ok else float("nan")
+
+
+class _AtHorizon:
+    """The Kaplan–Meier survival (Aalen–Johansen cumulative incidence with ``cause``) at the
+    horizon among any subset of one sample's rows, for the survival net benefits
+    (:func:`unbin.questions.net_benefit.net_benefit_km`, whose numbers these are, bit for bit).
+
+    Every row's place among the sample's event times up to the horizon (any cause) is found
+    once; a subset's at-risk and event counts at those times are then bincounts of its rows.
+    An event time of the sample that holds no event of the subset adds a factor of exactly 1
+    to the product-limit and 0 to the incidence's sum, so the subset's estimate on the
+    sample's times equals the one on its own; its risk-set counts are whole numbers, exact in
+    any order of summation. Rows without a weight only (as ``net_benefit_km``)."""
+
+    def __init__(self, time: np.ndarray, event: np.ndarray, entry: np.ndarray | None,
+                 horizon: float, cause: np.ndarray | None, event_of_interest: int):
+        t = np.asarray(time, dtype=float)
+        self.n, self.horizon, self.competing = t.size, horizon, cause is not None
+        c = (np.asarray(cause, dtype=float) if cause is not None
+             else (np.asarray(event, dtype=float) > 0).astype(float))
+        hit = (c != 0) & (t <= horizon)
+        self.grid = np.unique(t[hit])
+        self.K = self.grid.size
+        # at risk at the grid times [lo, hi): entered before the time, still there at it
+        self.hi = np.searchsorted(self.grid, t, side="right")
+        self.lo = (np.zeros(t.size, dtype=np.int64) if entry is None
+                   else np.searchsorted(self.grid, np.asarray(entry, dtype=float),
+                                        side="right"))
+        self.at = np.where(hit, self.hi - 1, -1)  # a row's event's grid index (-1: none)
+        self.mine = hit & (c == event_of_interest) if cause is not None else hit
+
+    def _counts(self, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        K = self.K
+        Y = np.cumsum(np.bincount(self.lo[mask], minlength=K + 1).astype(float)
+                      - np.bincount(self.hi[mask], minlength=K + 1))[:K]
+        ev = mask & (self.at >= 0)
+        d_all = np.bincount(self.at[ev], minlength=K).astype(float)
+        d_1 = np.bincount(self.at[ev & self.mine], minlength=K).astype(float)
+        return Y, d_all, d_1
+
+    def survival(self, mask: np.ndarray) -> float:
+        """S(h) among ``mask``'s rows: 1 - the incidence of the event of interest with
+        competing events, else the Kaplan–Meier estimate."""
+        if self.K == 0:
+            return 1.0
+        Y, d_all, d_1 = self._counts(mask)
+        if not self.competing:  # km_survival: the product over the subset's own event times
+            has = d_all > 0
+            if not has.any():
+                return 1.0
+            return float(np.prod(1.0 - d_all[has] / Y[has]))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            step = np.where(Y > 0, d_all / Y, 0.0)
+            haz1 = np.where(Y > 0, d_1 / Y, 0.0)
+        S = np.cumprod(1.0 - step)
+        S_before = np.concatenate([[1.0], S[:-1]])
+        if not d_all.any():  # the subset has no event by the horizon: incidence 0
+            return 1.0
+        # the incidence at the subset's last event time up to the horizon
+        last = int(np.flatnonzero(d_all)[-1])
+        return 1.0 - float(np.cumsum(S_before * haz1)[last])
+
+    def net_benefit(self, thresholds: np.ndarray, positive: np.ndarray,
+                    risk: np.ndarray | None) -> np.ndarray:
+        """``net_benefit_km(...)[0]``: NB per threshold of the rule ``positive`` (n,) or of
+        "treat when ``risk`` >= p_t"."""
+        tp = np.zeros(len(thresholds))
+        fp = np.zeros(len(thresholds))
+        done: dict[bytes, tuple[float, float]] = {}
+        for g in range(len(thresholds)):
+            mask = np.asarray(positive, dtype=bool) if risk is None else risk >= thresholds[g]
+            share = float(mask.mean())
+            if share == 0:
+                continue
+            key = np.packbits(mask).tobytes()
+            if key not in done:
+                s = self.survival(mask)
+                done[key] = ((1.0 - s) * share, s * share)
+            tp[g], fp[g] = done[key]
+        return np.asarray(tp - fp * thresholds / (1.0 - thresholds))
+
+
+def pair_auc(y: np.ndarray, score: np.ndarray) -> float:
+    """:func:`unbin.models.discrimination.auc`, the same number: the Mann–Whitney count of
+    (event, non-event) pairs in which the event scores higher (ties one half) from one sort
+    of the non-events' scores instead of the ranks of all rows. The count is a multiple of
+    one half, exact in floating point either way, so the two divide the same numerator."""
+    e = np.asarray(y, dtype=bool)
+    s = np.asarray(score, dtype=float)
+    n1, n0 = int(e.sum()), int((~e).sum())
+    if n1 == 0 or n0 == 0 or np.isnan(s).any():
+        return auc(e, s)
+    others = np.sort(s[~e])
+    cases = s[e]
+    below = int(np.searchsorted(others, cases, side="left").sum())
+    not_above = int(np.searchsorted(others, cases, side="right").sum())
+    return float((below + not_above) / 2 / (n1 * n0))
 
 
 def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
@@ -219,8 +323,8 @@ def _log_base(on: _Sample, lp_m: np.ndarray, horizon: float, strata_all: np.ndar
     linear predictor ``lp_m`` (centred), as a lookup for every row of the sample, and the
     centre."""
     centre = float(np.mean(lp_m))
-    base = baseline_cumhaz((lp_m - centre)[:, None], on.time, on.y, [1.0], entry=on.entry,
-                           strata=on.strata, layout=on.layout())
+    base = baseline_steps((lp_m - centre)[:, None], on.time, on.y, [1.0], entry=on.entry,
+                          strata=on.strata, layout=on.layout())
     h0, _, _ = cumhaz_at(base, strata_all, n, horizon)
     with np.errstate(divide="ignore"):
         return np.log(h0), centre
@@ -308,9 +412,12 @@ def _skip_reason(r: Refit, spec: Spec, horizon: float | None) -> str | None:
 
 
 def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarray,
+                     layouts: dict[int, Any] | None = None,
                      ) -> dict[tuple[str, str], np.ndarray]:
     """Every model's coefficients refitted in every replicate (rows of the result); a model
-    shared by two keys is refitted once."""
+    shared by two keys is refitted once. Survival: ``layouts`` (when given) receives, per
+    replicate, the Cox layout of its drawn rows that the refits used (when the outcome has no
+    weights, so that it is the unweighted layout the replicate's other numbers need)."""
     o = r.outcome
     keys = list(models)
     unique = list({id(models[k]): k for k in keys}.values())
@@ -318,7 +425,13 @@ def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarr
         fitted = {k: WeightedGLM("binary", models[k].X, o, models[k].res.coef).coef(W)
                   for k in unique}
     else:
-        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o, W)
+        def keep(b: int, j: int, Xm: np.ndarray, m: np.ndarray, layout: Any,
+                 coef: np.ndarray) -> None:
+            if layouts is not None and o.weights is None:
+                layouts.setdefault(b, layout)
+
+        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o, W,
+                                    keep)
         fitted = dict(zip(unique, outs, strict=True))
     first = {id(models[k]): k for k in unique}
     return {k: fitted[first[id(models[k])]] for k in keys}
@@ -403,10 +516,11 @@ def _fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray,
         coef = res.coef
     lp = X @ coef
     centre = float(np.mean(lp)) if lp.size else 0.0
-    base = baseline_cumhaz((data.take(lp) - centre)[:, None], expanded.time, expanded.y, [1.0],
-                           entry=expanded.entry, strata=expanded.strata,
-                           weights=expanded.weights, layout=layout)
-    return coef, base.assign(cumhaz=base["cumhaz"].to_numpy(float) * np.exp(-centre))
+    stratum, times, cum = baseline_steps((data.take(lp) - centre)[:, None], expanded.time,
+                                         expanded.y, [1.0], entry=expanded.entry,
+                                         strata=expanded.strata, weights=expanded.weights,
+                                         layout=layout)
+    return coef, (stratum, times, cum * np.exp(-centre))
 
 
 class _Evaluator:
@@ -454,10 +568,12 @@ class _Evaluator:
                  zs: dict[int, np.ndarray | None], fit: _Sample, on: _Sample,
                  apparent_run: bool = False,
                  risks: dict[tuple[str, str], RiskZ] | None = None,
+                 implied: bool = True,
                  ) -> dict[tuple[Any, ...], float]:
         """Every quantity of the models with coefficients ``coef_by`` (fitted on ``fit``)
         judged on ``on``'s rows; ``risks`` (competing events) the risk models' Fine–Gray
-        coefficients and z fitted on the same rows (:func:`fine_gray_risks`)."""
+        coefficients and z fitted on the same rows (:func:`fine_gray_risks`). The implied
+        thresholds (which depend on ``fit`` only) are left out when ``implied`` is false."""
         out: dict[tuple[Any, ...], float] = {}
         cixs: dict[int, float] = {}
         for k in self.keys:
@@ -473,7 +589,7 @@ class _Evaluator:
             if risk is None:
                 continue
             self._risk_measures(out, k, risk[1][on.idx], fit, on, apparent_run)
-            if k in CURVE_MODELS:
+            if implied and k in CURVE_MODELS:
                 self._crossings(out, k, risk[0], risk[1], fit)
         for coding in CODINGS:
             s = out.get(("C index", ("spline", coding)))
@@ -499,6 +615,8 @@ class _Evaluator:
     def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
                    c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:
         """The implied thresholds of the model's curve at the median risk profile of ``fit``."""
+        from .thresholds import crossings  # scipy.optimize: imported by the jobs that need it
+
         r = self.r
         f = _curve(self.models[k], c, r.family)
         rest = float(np.median((z - f(r.x))[fit.idx]))
@@ -510,14 +628,19 @@ class _Evaluator:
                 out[("implied threshold", k, t, j)] = xv
 
     def _fixed_rules(self, out: dict[tuple[Any, ...], float], on: _Sample) -> None:
-        """Net benefit of the rules that are not fitted: the legacy cut and treat all."""
-        pt = self.pt
-        for name, mask in self.rules:
-            for t, v in zip(pt, on.net_benefit(pt, positive=mask[on.idx]), strict=True):
-                out[("net benefit", name, t)] = float(v)
-        for t, v in zip(pt, on.net_benefit(pt, positive=np.ones(len(on.idx), dtype=bool)),
-                        strict=True):
-            out[("net benefit", "treat all", t)] = float(v)
+        """Net benefit of the rules that are not fitted: the legacy cut and treat all (the
+        same on the same rows in every evaluation: computed once per sample)."""
+        if on.fixed_rules is None:
+            pt = self.pt
+            fixed: dict[tuple[Any, ...], float] = {}
+            for name, mask in self.rules:
+                for t, v in zip(pt, on.net_benefit(pt, positive=mask[on.idx]), strict=True):
+                    fixed[("net benefit", name, t)] = float(v)
+            for t, v in zip(pt, on.net_benefit(pt, positive=np.ones(len(on.idx), dtype=bool)),
+                            strict=True):
+                fixed[("net benefit", "treat all", t)] = float(v)
+            on.fixed_rules = fixed
+        out.update(on.fixed_rules)
 
 
 def _row_labels(key: tuple[Any, ...], est: float, q01: float, q99: float) -> dict[str, Any]:
@@ -589,7 +712,9 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
     models, notes = fitted_models(r, spec, fixed)
     n = r.outcome.n
     W = design_resample_weights(spec.rng(a.name, purpose), r.outcome, B)
-    coefs = _replicate_coefs(r, models, W)
+    # binary: every replicate at once (vectorised); survival: one replicate at a time, whose
+    # refits lay out its drawn rows once for all of its numbers
+    coefs = _replicate_coefs(r, models, W) if r.family == "binary" else None
     ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
     full = _Sample(r, np.arange(n), horizon)
     own = {k: models[k].res.coef for k in ev.keys}
@@ -604,15 +729,20 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
     test: list[dict[tuple[Any, ...], float]] = []
     for b in range(B):
         rows_b, weights_b = replicate_rows(r.outcome, W[b])
-        drawn = _Sample(r, rows_b, horizon, weights_b)
-        cb = {k: coefs[k][b] for k in ev.keys}
+        layouts: dict[int, Any] = {}
+        if coefs is None:
+            cb = {k: c[0] for k, c in _replicate_coefs(r, models, W[b:b + 1], layouts).items()}
+        else:
+            cb = {k: coefs[k][b] for k in ev.keys}
+        drawn = _Sample(r, rows_b, horizon, weights_b, layouts.get(0))
         zs = ev.predictors(cb, drawn)
         risks_b = None
         if ev.competing:  # the Fine–Gray models refitted on the drawn rows
             assert horizon is not None
             risks_b = fine_gray_risks(r, models, horizon, rows_b, weights_b, risks)[0]
         boot.append(ev.measures(cb, zs, drawn, drawn, risks=risks_b))
-        test.append(ev.measures(cb, zs, drawn, full, risks=risks_b))
+        # the implied thresholds read the fitting rows only: the same as in ``boot``
+        test.append(ev.measures(cb, zs, drawn, full, risks=risks_b, implied=False))
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
     if collect is not None:
         collect.update(apparent=apparent, boot=boot, test=test, notes=notes, base=base)

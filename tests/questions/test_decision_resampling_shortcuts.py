@@ -1,0 +1,92 @@
+"""The shortcuts the decision bootstrap takes equal the direct computations they replace.
+
+- ``_AtHorizon`` (the survival net benefits of many row subsets of one sample) against
+  ``net_benefit_km`` on each subset (bit for bit) and against a product-limit estimate
+  written out as a loop over the subset's event times (Kaplan & Meier 1958; Aalen & Johansen
+  1978), on seeded data with tied times, delayed entry and competing events.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from unbin.questions.decision_resampling import _AtHorizon
+from unbin.questions.net_benefit import net_benefit_km
+
+
+def _data(seed: int, n: int = 400, entry: bool = True):
+    rng = np.random.default_rng(seed)
+    time = np.round(rng.exponential(4.0, n), 1) + 0.1  # tenths: many ties
+    cause = rng.choice([0, 1, 2], size=n, p=[0.4, 0.4, 0.2])
+    start = np.round(time * rng.uniform(0, 0.6, n), 1) if entry else None
+    if start is not None:
+        start = np.minimum(start, time - 0.05)
+    return time, cause, start
+
+
+def _loop(time, cause, entry, horizon, competing, eoi=1):
+    """The product-limit estimate at ``horizon`` by a loop over the distinct event times:
+    S(h) for Kaplan–Meier, 1 - F(h) for the Aalen–Johansen incidence of ``eoi``."""
+    s_all, cif = 1.0, 0.0
+    for u in np.unique(time[(cause != 0) & (time <= horizon)]):
+        at_risk = np.sum(((entry < u) if entry is not None else True) & (time >= u))
+        d_all = np.sum((time == u) & (cause != 0))
+        d_1 = np.sum((time == u) & (cause == eoi))
+        cif += s_all * d_1 / at_risk
+        s_all *= 1 - d_all / at_risk
+    return 1 - cif if competing else s_all
+
+
+@pytest.mark.parametrize("competing", [True, False])
+@pytest.mark.parametrize("entry", [True, False])
+def test_net_benefits_equal_the_subset_computation(competing: bool, entry: bool) -> None:
+    time, cause, start = _data(20261204 + competing + 2 * entry, entry=entry)
+    event = (cause == 1).astype(float) if competing else (cause != 0).astype(float)
+    h = 5.0
+    pt = np.array([0.05, 0.1, 0.2, 0.3])
+    fast = _AtHorizon(time, event, start, h, cause if competing else None, 1)
+    rng = np.random.default_rng(7)
+    cs = cause if competing else None
+    for _ in range(30):
+        risk = rng.uniform(0, 0.5, time.size)
+        want = net_benefit_km(time, event, start, np.zeros(time.size, bool), h, pt, risk,
+                              cs, 1)[0]
+        assert np.array_equal(fast.net_benefit(pt, np.zeros(time.size, bool), risk), want)
+        mask = rng.uniform(size=time.size) < rng.uniform(0.05, 1)
+        want = net_benefit_km(time, event, start, mask, h, pt, None, cs, 1)[0]
+        assert np.array_equal(fast.net_benefit(pt, mask, None), want)
+        # the product-limit loop (an independent computation) to rounding
+        ref = _loop(time[mask], np.where(competing, cause, (cause != 0).astype(int))[mask],
+                    None if start is None else start[mask], h, competing)
+        assert fast.survival(mask) == pytest.approx(ref, abs=1e-12)
+
+
+def test_a_subset_without_events_by_the_horizon() -> None:
+    time, cause, start = _data(3)
+    h = 5.0
+    late = time > h  # every row of the subset outlives the horizon
+    fast = _AtHorizon(time, (cause == 1).astype(float), start, h, cause, 1)
+    assert fast.survival(late) == 1.0
+    pt = np.array([0.1])
+    want = net_benefit_km(time, (cause == 1).astype(float), start, late, h, pt, None, cause,
+                          1)[0]
+    assert np.array_equal(fast.net_benefit(pt, late, None), want)
+
+
+def test_pair_auc_is_the_rank_auc() -> None:
+    """The AUC from one sort of the non-events equals the rank formula's (bit for bit) and a
+    count over every (event, non-event) pair (Hanley & McNeil 1982), with tied scores."""
+    from unbin.models.discrimination import auc
+    from unbin.questions.decision_resampling import pair_auc
+
+    rng = np.random.default_rng(11)
+    for n in (7, 60, 500):
+        y = rng.uniform(size=n) < 0.3
+        y[:2] = [True, False]
+        score = np.round(rng.normal(size=n) + y, 1)  # rounded: ties within and across groups
+        got = pair_auc(y, score)
+        assert got == auc(y, score)
+        diff = score[y][:, None] - score[~y][None, :]
+        assert got == pytest.approx(np.mean((diff > 0) + 0.5 * (diff == 0)), abs=1e-15)
+    assert np.isnan(pair_auc(np.zeros(5, bool), np.arange(5.0)))
