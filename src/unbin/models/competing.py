@@ -156,9 +156,9 @@ class FineGrayData:
 # Rows of the counting-process expansion above which fine_gray_data does not build it: every
 # competing event adds a row per later event time of interest, so a registry with many distinct
 # event times grows as (competing events x event times) — at 1,000,000 rows about 9e8 rows,
-# beyond this machine's memory. fit_fine_gray never builds it (unbin.models.fine_gray); it is
-# built only for refits on its own rows (fine_gray_outcome: the tests' reference and the
-# decision bootstrap's replicate refits), which this limit keeps near 4 GB each.
+# beyond this machine's memory. No fit builds it (unbin.models.fine_gray); it is built only as
+# the independent reference of the tests and benchmarks/fine_gray.py (fine_gray_outcome), which
+# this limit keeps near 4 GB.
 EXPANSION_ROWS = 10_000_000
 
 

@@ -76,7 +76,7 @@ from scipy import special
 
 from ..models import Outcome, fit
 from ..models.base import FitResult
-from ..models.competing import fine_gray_outcome, fit_fine_gray
+from ..models.competing import fine_gray_near, fit_fine_gray
 from ..models.cox import (
     concordance,
     concordance_order,
@@ -85,7 +85,6 @@ from ..models.cox import (
 )
 from ..models.cox.baseline import baseline_steps
 from ..models.discrimination import auc, c_index
-from ..models.survival import cox_layout
 from ..models.weighted import (
     WeightedGLM,
     design_resample_weights,
@@ -496,31 +495,10 @@ def fine_gray_risks(r: Refit, models: dict[tuple[str, str], Model], horizon: flo
 def _fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray,
                     ) -> tuple[np.ndarray | None, Any]:
     """A replicate's Fine–Gray coefficients and Breslow baseline (at covariates 0) as
-    :func:`unbin.models.competing.fit_fine_gray` gives them, on the same counting-process
-    expansion (:func:`unbin.models.competing.fine_gray_outcome`), without its sandwich
-    variance, which the replicate does not need: Newton steps from ``start``
-    (:func:`unbin.models.cox.refit_near`), else a full fit."""
-    assert sample.cause is not None
-    try:
-        expanded, data = fine_gray_outcome(sample, np.asarray(sample.cause),
-                                           sample.event_of_interest)
-    except ValueError:  # the expansion is too large (models.competing.EXPANSION_ROWS)
-        return None, None
-    Xe = data.take(X)
-    layout = cox_layout(expanded)
-    coef = refit_near(Xe, layout, start)
-    if coef is None:
-        res = fit("survival", Xe, expanded, tuple(f"x{j}" for j in range(X.shape[1])))
-        if not res.ok or not np.all(np.isfinite(res.coef)):
-            return None, None
-        coef = res.coef
-    lp = X @ coef
-    centre = float(np.mean(lp)) if lp.size else 0.0
-    stratum, times, cum = baseline_steps((data.take(lp) - centre)[:, None], expanded.time,
-                                         expanded.y, [1.0], entry=expanded.entry,
-                                         strata=expanded.strata, weights=expanded.weights,
-                                         layout=layout)
-    return coef, (stratum, times, cum * np.exp(-centre))
+    :func:`unbin.models.competing.fit_fine_gray` gives them, without its sandwich variance,
+    which the replicate does not need: Newton steps from ``start``
+    (:func:`unbin.models.competing.fine_gray_near`)."""
+    return fine_gray_near(X, sample, start)
 
 
 class _Evaluator:
