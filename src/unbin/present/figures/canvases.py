@@ -30,6 +30,8 @@ from matplotlib import cbook
 from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg, get_hinting_flag
 from matplotlib.backends.backend_mixed import MixedModeRenderer
 from matplotlib.backends.backend_svg import FigureCanvasSVG, RendererSVG
+from matplotlib.font_manager import fontManager as _fontManager
+from matplotlib.font_manager import get_font
 from matplotlib.ft2font import RenderMode
 from matplotlib.path import Path as MplPath
 from matplotlib.transforms import Affine2D
@@ -39,21 +41,50 @@ _LAYOUTS: dict[tuple[Any, ...], list[tuple[Any, int, float, float]]] = {}
 # (font, size, dpi, glyph, flags, mode, transform, x fraction, y fraction) ->
 #     (bitmap, left - whole x, top - whole y)
 _GLYPHS: dict[tuple[Any, ...], tuple[np.ndarray, int, int]] = {}
-# (renderer kind, font, resolution, string, math, hinting) -> (width, height, descent)
+# (font, resolution) -> (ascent, descent, line gap)
+_HEIGHTS: dict[tuple[Any, ...], tuple[Any, Any, Any]] = {}
+# (renderer kind, font, resolution, string, hinting) -> (width, height, descent)
 _METRICS: dict[tuple[Any, ...], tuple[float, float, float]] = {}
 _MOST = 200_000     # entries per cache before it is emptied (a long session's memory bound)
 
 
 def _font_key(prop: Any) -> tuple[Any, ...]:
-    return (tuple(prop.get_family()), prop.get_style(), prop.get_variant(), prop.get_weight(),
-            prop.get_stretch(), prop.get_size_in_points(), prop.get_file())
+    """The font files ``prop`` resolves to (under the rc settings in force) and its size."""
+    return (tuple(_fontManager._find_fonts_by_props(prop)), prop.get_size_in_points())
+
+
+def _font_heights(prop: Any, dpi: float) -> tuple[Any, Any, Any]:
+    # As matplotlib's Text._get_layout (3.11) measures a font's ascent, descent and line gap
+    # from its tables (its backends may give them through ``_get_font_height_metrics``); None
+    # lets it measure them itself.
+    key = (_font_key(prop), dpi)
+    hit = _HEIGHTS.get(key)
+    if hit is None:
+        hit = (None, None, None)
+        font: Any = get_font(_fontManager._find_fonts_by_props(prop))
+        for table_name, linegap_key, ascent_key, descent_key in (
+                ("OS/2", "sTypoLineGap", "sTypoAscender", "sTypoDescender"),
+                ("hhea", "lineGap", "ascent", "descent")):
+            table = font.get_sfnt_table(table_name)
+            if table is None:
+                continue
+            fontsize = prop.get_size_in_points()
+            units_per_em = font.get_sfnt_table("head")["unitsPerEm"]
+            scale = 1 / units_per_em * fontsize * dpi / 72
+            hit = (table[ascent_key] * scale, -table[descent_key] * scale,
+                   table[linegap_key] * scale)
+            break
+        if len(_HEIGHTS) >= _MOST:
+            _HEIGHTS.clear()
+        _HEIGHTS[key] = hit
+    return hit
 
 
 def _measured(kind: str, dpi: float, s: str, prop: Any, ismath: Any,
               measure: Any) -> tuple[float, float, float]:
-    if ismath == "TeX":
+    if ismath:     # mathtext and TeX: measured by matplotlib each time
         return measure(s, prop, ismath)
-    key = (kind, _font_key(prop), dpi, s, bool(ismath), get_hinting_flag())
+    key = (kind, _font_key(prop), dpi, s, get_hinting_flag())
     hit = _METRICS.get(key)
     if hit is None:
         hit = tuple(measure(s, prop, ismath))
@@ -69,6 +100,10 @@ class CachedRendererAgg(RendererAgg):
     def get_text_width_height_descent(self, s: str, prop: Any,
                                       ismath: Any) -> tuple[float, float, float]:
         return _measured("agg", self.dpi, s, prop, ismath, super().get_text_width_height_descent)
+
+    def _get_font_height_metrics(self, prop: Any) -> tuple[Any, Any, Any]:
+        # The figure's resolution is the renderer's (savefig draws at the figure's dpi).
+        return _font_heights(prop, self.dpi)
 
     def draw_text(self, gc: Any, x: float, y: float, s: str, prop: Any, angle: float,
                   ismath: Any = False, mtext: Any = None) -> None:
@@ -168,6 +203,10 @@ class CachedRendererSVG(RendererSVG):
                                       ismath: Any) -> tuple[float, float, float]:
         return _measured("svg", float(cast(Any, self.points_to_pixels(72))), s, prop, ismath,
                          super().get_text_width_height_descent)
+
+    def _get_font_height_metrics(self, prop: Any) -> tuple[Any, Any, Any]:
+        # print_svg draws with the figure at 72 dpi.
+        return _font_heights(prop, 72.0)
 
 
 class CachedCanvasSVG(FigureCanvasSVG):
