@@ -138,14 +138,20 @@ class CachedRendererAgg(RendererAgg):
         mode = RenderMode.NORMAL if gc.get_antialiased() else RenderMode.MONO
         height = self.height
         draw_image = self._renderer.draw_text_image
+        # The glyph transform, per (slant, extend): the same for every glyph of a string.
+        matrices: dict[tuple[float, float], tuple[np.ndarray, tuple[int, ...]]] = {}
         for font, size, glyph_index, slant, extend, dx, dy in glyphs:  # dy is upwards.
-            matrix = (0x10000 * np.array([[cos, -sin], [sin, cos]])
-                      @ [[extend, extend * slant], [0, 1]]).round().astype(int)
+            known = matrices.get((slant, extend))
+            if known is None:
+                m = (0x10000 * np.array([[cos, -sin], [sin, cos]])
+                     @ [[extend, extend * slant], [0, 1]]).round().astype(int)
+                known = matrices[(slant, extend)] = (m, tuple(m.ravel().tolist()))
+            matrix, matrix_key = known
             px = round(0x40 * (x + dx * cos - dy * sin))
             py = round(0x40 * (height - y + dx * sin + dy * cos))  # FreeType's y is upwards
             wx, wy = px >> 6, py >> 6          # whole pixels (floor)
             key = (font, size, self.dpi, glyph_index, load_flags, mode,
-                   tuple(matrix.ravel().tolist()), px & 63, py & 63)
+                   matrix_key, px & 63, py & 63)
             hit = _GLYPHS.get(key)
             if hit is None:
                 font.set_size(size, self.dpi)
