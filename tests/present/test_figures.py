@@ -629,3 +629,25 @@ def test_information_interval_is_drawn_only_beside_its_own_point() -> None:
     assert "bootstrap interval 51% to 70%" in inf.information_alt(same, ["a"],
                                                                   inf.lr_forms(same))
     assert "_boot_kept" not in same
+
+
+def test_rows_of_one_cohort_and_analysis_are_the_filtered_rows() -> None:
+    # Reference: the two equality filters written out with pandas (brute force), on a table
+    # whose keys interleave, repeat and include missing values, and on tables without the keys.
+    t = pd.DataFrame({"cohort": ["sim", "b", "sim", None, "sim", "b"],
+                      "analysis": ["a", "a", "z", "a", "a", None],
+                      "v": [1.0, 2.0, 3.0, 4.0, np.nan, 6.0], "k": [1, 2, 3, 4, 5, 6]})
+    tables = {"t": t, "no_keys": t.drop(columns=["cohort", "analysis"]),
+              "cohort_only": t.drop(columns=["analysis"]), "empty": t.iloc[:0]}
+    ctx = Context(tables, tiny_spec())
+    for name, df in tables.items():
+        for cohort, analysis in [("sim", "a"), ("b", "a"), ("sim", "z"), ("b", "z"),
+                                 ("x", "a"), ("sim", None), (None, "a"), (None, None)]:
+            want = df
+            if len(want) and cohort is not None and "cohort" in want:
+                want = want[want["cohort"] == cohort]
+            if len(want) and analysis is not None and "analysis" in want:
+                want = want[want["analysis"] == analysis]
+            pd.testing.assert_frame_equal(ctx.rows(name, cohort, analysis),
+                                          want.reset_index(drop=True), check_exact=True)
+    assert ctx.rows("t", "sim", "a")["k"].tolist() == [1, 5]

@@ -110,7 +110,7 @@ def test_changing_one_analysis_reruns_only_its_jobs(small_run: tuple[Path, Path]
     assert {w for r, w in jobs if r == "resample_analysis"} == _fits(jobs)
     assert {r for r, _ in jobs} <= {"fit_analysis", "resample_analysis", "bundle_cohort",
                                     "pool_bundles", "collect_tables", "draw_figures",
-                                    "build_report", "all"}
+                                    "draw_study_figures", "build_report", "all"}
 
 
 def test_replacing_one_extract_reruns_only_that_cohort(small_run: tuple[Path, Path],
@@ -173,8 +173,9 @@ def test_report_false_plans_no_figures_and_no_report(tmp_path: Path) -> None:
     raw["report"] = False
     spec.write_text(yaml.safe_dump(raw))
     without = {r for r, _ in planned(spec, folder / "out")}
-    assert {"draw_figures", "build_report"} <= with_report
-    assert without == with_report - {"draw_figures", "build_report"}
+    figure_rules = {"draw_figures", "draw_study_figures", "build_report"}
+    assert figure_rules <= with_report
+    assert without == with_report - figure_rules
     assert {"fit_analysis", "resample_analysis", "collect_tables"} <= without
 
 

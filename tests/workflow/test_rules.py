@@ -56,7 +56,7 @@ def test_every_script_rule_has_a_log_and_a_benchmark() -> None:
     script_rules = {name for name, body in blocks.items() if "    script:\n" in body}
     assert script_rules == {"fit_analysis", "resample_analysis", "collect_tables",
                             "summarise_sample", "common_basis", "bundle_cohort", "pool_bundles",
-                            "draw_figures", "build_report"}
+                            "draw_figures", "draw_study_figures", "build_report"}
     for name in script_rules:
         assert _keyword_body(blocks[name], "log").strip(), f"rule {name} has no log:"
         bench = _keyword_body(blocks[name], "benchmark")
@@ -89,18 +89,19 @@ def test_snakemake_lint_passes_on_the_test_config(test_config: Path) -> None:
     # an environment, reports nothing and exits 0).
     assert {r for _, r in linted if r} in (set(), {
         "fit_analysis", "resample_analysis", "collect_tables", "summarise_sample",
-        "common_basis", "bundle_cohort", "pool_bundles", "draw_figures", "build_report"}), text
+        "common_basis", "bundle_cohort", "pool_bundles", "draw_figures", "draw_study_figures",
+        "build_report"}), text
 
 
 @pytest.mark.workflow
 def test_dry_run_of_the_test_config_plans_every_rule(test_config: Path) -> None:
     """Two cohorts x one analysis: per (cohort, analysis) a fit, a resampling job and a summary;
     one common basis; per cohort a bundle and its figures; once the tables, the pool, the
-    report and the target."""
+    study's figures, the report and the target."""
     proc = _snakemake(test_config, "-n", "--cores", "1")
     assert proc.returncode == 0, proc.stdout + proc.stderr
     stats = dict(re.findall(r"^(\w+)\s+(\d+)$", proc.stdout + proc.stderr, flags=re.M))
     assert {k: int(v) for k, v in stats.items()} == {
         "fit_analysis": 2, "resample_analysis": 2, "summarise_sample": 2, "common_basis": 1,
         "bundle_cohort": 2, "draw_figures": 2, "collect_tables": 1, "pool_bundles": 1,
-        "build_report": 1, "all": 1, "total": 15}
+        "draw_study_figures": 1, "build_report": 1, "all": 1, "total": 16}

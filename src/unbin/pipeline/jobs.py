@@ -5,7 +5,7 @@ happens.
 Per (cohort, analysis): ``fit_analysis`` (the fits and the question tables built from them) and
 ``resample_analysis`` (the resampling questions). Study level: ``collect_tables``. Consortium
 mode: ``summarise_sample``, ``common_basis``, ``bundle_cohort``, ``pool_bundles``. Last:
-``draw_figures`` (one cohort's figures) and ``build_report``.
+``draw_figures`` (one cohort's figures), ``draw_study_figures`` and ``build_report``.
 """
 
 from __future__ import annotations
@@ -461,9 +461,17 @@ def draw_figures(spec_path: str | Path, cohort: str, figures_dir: str | Path) ->
     report.draw_cohort_figures(Path(figures_dir).parent.parent, spec_path, cohort, STUDY_TABLES)
 
 
+def draw_study_figures(spec_path: str | Path, figures_dir: str | Path) -> None:
+    """The study-level and pooled figures into ``figures_dir`` (``<run>/figures/_study``), from
+    every study-level table of the run."""
+    from ..present import report
+
+    report.draw_study_figures(Path(figures_dir).parent.parent, spec_path)
+
+
 def build_report(spec_path: str | Path, report_path: str | Path) -> None:
-    """The study-level figures and the self-contained HTML report at ``report_path``
-    (``<run>/report.html``), with the cohorts' figures read from their own jobs' folders."""
+    """The self-contained HTML report at ``report_path`` (``<run>/report.html``), with the
+    figures read from their own jobs' folders."""
     from ..present import report
 
     report.build_report(Path(report_path).parent, spec_path, draw_cohorts=False)

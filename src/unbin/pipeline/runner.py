@@ -34,6 +34,7 @@ class JobTracker:
     FINISHED = re.compile(r"Finished jobid: (\d+)")
     TOTAL = re.compile(r"^total\s+(\d+)\s*$")
     LABELS = {"collect_tables": "collecting the tables",
+              "draw_study_figures": "drawing the study's figures",
               "build_report": "drawing the figures and the report", "all": ""}
 
     def __init__(self) -> None:

@@ -18,15 +18,15 @@ import logging
 import traceback
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 import pandas as pd
 
 from ...results.tables import read_table
 from .base import Context, Drawn, FigureFile, Kind, finite
-from .style import save, styled
 
-__all__ = ["INDEX", "KINDS", "STUDY_DIR", "Context", "Drawn", "FigureFile", "Kind", "draw_figures",
-           "finite", "group_dir", "load_tables", "plan", "read_index"]
+__all__ = ["INDEX", "KINDS", "STUDY_DIR", "Context", "Drawn", "FigureFile", "Kind", "all_kinds",
+           "draw_figures", "finite", "group_dir", "load_tables", "plan", "read_index"]
 
 
 log = logging.getLogger(__name__)
@@ -67,7 +67,21 @@ def _kinds() -> tuple[Kind, ...]:
     )
 
 
-KINDS: tuple[Kind, ...] = _kinds()
+_REGISTERED: list[tuple[Kind, ...]] = []
+
+
+def all_kinds() -> tuple[Kind, ...]:
+    """Every registered kind (``KINDS``), in report order. Built on first use, so that reading
+    figures that are already drawn (the report) imports no plotting code."""
+    if not _REGISTERED:
+        _REGISTERED.append(_kinds())
+    return _REGISTERED[0]
+
+
+def __getattr__(name: str) -> Any:
+    if name == "KINDS":
+        return all_kinds()
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def load_tables(tables_dir: str | Path,
@@ -87,10 +101,12 @@ def figure_path(figures_dir: Path, kind: str, cohort: str | None, analysis: str 
 
 
 def plan(ctx: Context, cohorts: Sequence[str] | None, study: bool,
-         kinds: tuple[Kind, ...] = KINDS) -> list[tuple[Kind, str | None, str | None]]:
+         kinds: tuple[Kind, ...] | None = None) -> list[tuple[Kind, str | None, str | None]]:
     """Which figures to draw, in report order: study-level kinds once, pooled kinds once per
     analysis, the others per (cohort, analysis) of ``cohorts`` (None: all); each only when its
-    table has rows for it."""
+    table has rows for it. ``kinds``: those to consider (None: every registered kind)."""
+    if kinds is None:
+        kinds = all_kinds()
     todo: list[tuple[Kind, str | None, str | None]] = []
     if study:
         todo += [(k, None, None) for k in kinds if k.scope == "study" and len(ctx.table(k.table))]
@@ -105,9 +121,11 @@ def plan(ctx: Context, cohorts: Sequence[str] | None, study: bool,
 
 
 def draw_figures(ctx: Context, figures_dir: str | Path, cohorts: Sequence[str] | None = None,
-                 study: bool = True, kinds: tuple[Kind, ...] = KINDS) -> list[FigureFile]:
+                 study: bool = True, kinds: tuple[Kind, ...] | None = None) -> list[FigureFile]:
     """Draw the figures of ``plan`` as PNG and SVG, and write an ``index.json`` into every
     cohort's folder (and the study folder) listing them with their titles and alt texts."""
+    from .style import save, styled
+
     out = Path(figures_dir)
     done: list[FigureFile] = []
     for k, cohort, analysis in plan(ctx, cohorts, study, kinds):

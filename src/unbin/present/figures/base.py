@@ -56,6 +56,7 @@ class Context:
     spec: Spec
     _cache: dict[tuple[str, str | None, str | None], pd.DataFrame] = field(default_factory=dict,
                                                                          repr=False)
+    _groups: dict[str, dict[Any, Any]] = field(default_factory=dict, repr=False)
 
     def table(self, name: str) -> pd.DataFrame:
         return self.tables.get(name, pd.DataFrame())
@@ -65,10 +66,22 @@ class Context:
         key = (name, cohort, analysis)
         if key not in self._cache:
             df = self.table(name)
-            if len(df) and cohort is not None and "cohort" in df:
-                df = df[df["cohort"] == cohort]
-            if len(df) and analysis is not None and "analysis" in df:
-                df = df[df["analysis"] == analysis]
+            if len(df) and cohort is not None and analysis is not None and {
+                    "cohort", "analysis"} <= set(df.columns):
+                # Every (cohort, analysis) of the table at once: the positions of its rows,
+                # in table order (the rows the two equality filters select).
+                groups = self._groups.get(name)
+                if groups is None:
+                    groups = self._groups[name] = df.groupby(
+                        ["cohort", "analysis"], sort=False, dropna=True,
+                        observed=True).indices
+                pos = groups.get((cohort, analysis))
+                df = df.iloc[pos if pos is not None else []]
+            else:
+                if len(df) and cohort is not None and "cohort" in df:
+                    df = df[df["cohort"] == cohort]
+                if len(df) and analysis is not None and "analysis" in df:
+                    df = df[df["analysis"] == analysis]
             self._cache[key] = df.reset_index(drop=True)
         return self._cache[key]
 

@@ -15,7 +15,6 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ...refit.contrasts import Z95
 from .base import Context, Drawn, finite, per_analysis
 from .parts import effect_text, row_axis
 from .style import (
@@ -29,6 +28,10 @@ from .style import (
     new_figure,
     title,
 )
+
+# The normal distribution's 97.5th percentile, as ``refit.contrasts.Z95`` computes it (kept here
+# so that drawing figures does not import the model code and scipy).
+Z95 = 1.959963984540054
 
 FORM_TITLES = {"linear": "exposure linear", "legacy": "exposure in legacy groups"}
 Row = tuple[str, tuple[float, float, float], str]   # label, (effect, lower, upper), colour

@@ -14,7 +14,6 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ...distributions import stats
 from .base import Context, Drawn, finite, per_analysis
 from .parts import row_axis, value_ticks
 from .style import GRID, INK, LEGACY, MUTED, NEUTRAL, SPLINE, fmt_number, new_figure, title
@@ -126,12 +125,17 @@ def select_profile(df: pd.DataFrame) -> ProfileRows | None:
     return ProfileRows(var, prof.reset_index(drop=True), s, [float(c) for c in legacy], boot)
 
 
+# The 95th percentile of chi-squared on 1 df (scipy.stats.chi2.ppf(0.95, 1)), kept as a number so
+# that drawing figures does not import scipy.
+CHI2_1_95 = 3.841458820694124
+
+
 def draw_statistic(ax: Any, sel: ProfileRows) -> None:
     """The split statistic over the candidate cuts, the naive 5% line, the legacy cuts and the
     maximum."""
     prof = sel.profile
     ax.plot(prof["cut"], prof["statistic"], color=SPLINE, lw=1.6, marker="o", ms=3, zorder=3)
-    crit = float(stats.chi2.ppf(0.95, 1))
+    crit = CHI2_1_95
     ax.axhline(crit, color=MUTED, lw=1.0, ls=(0, (5, 3)), zorder=2)
     ax.annotate("naive 5% level", (float(prof["cut"].min()), crit), xytext=(2, 3),
                 textcoords="offset points", fontsize=7.5, color=MUTED)

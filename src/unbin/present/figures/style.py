@@ -22,10 +22,11 @@ from typing import Any
 import matplotlib as mpl
 import numpy as np
 from matplotlib.axes import Axes
-from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure, FigureBase, SubFigure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 from matplotlib.transforms import Bbox
+
+from .canvases import CachedCanvasAgg, CachedCanvasSVG
 
 # --------------------------------------------------------------------------- palette
 
@@ -139,7 +140,7 @@ def save(fig: Figure, base: Path) -> tuple[Path, Path]:
         fig.set_dpi(DPI)
         # An Agg canvas of its own: the layout and the PNG then use one renderer, so the
         # PNG's drawing reuses the text measurements the layout made.
-        FigureCanvasAgg(fig)
+        CachedCanvasAgg(fig)
         engine = fig.get_layout_engine()
         if engine is not None:
             # The constrained layout, computed once (without drawing every artist once more
@@ -147,6 +148,7 @@ def save(fig: Figure, base: Path) -> tuple[Path, Path]:
             engine.execute(fig)
         freeze_layout(fig)
         fig.savefig(png, format="png", dpi=DPI, metadata={"Software": None})
+        CachedCanvasSVG(fig)
         fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
     svg.write_text(lighter_svg(svg.read_text(encoding="utf-8")), encoding="utf-8")
     return png, svg

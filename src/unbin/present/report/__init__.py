@@ -17,9 +17,10 @@ from .page import (
                    build_report,
                    check_spec_matches,
                    draw_cohort_figures,
+                   draw_study_figures,
                    find_spec,
 )
 from .sections import CAUTION, Builder
 
 __all__ = ["CAUTION", "FIGURES_DIR", "REPORT_NAME", "Builder", "Report", "build_report",
-           "check_spec_matches", "draw_cohort_figures", "find_spec", "svg_data_uri"]
+           "check_spec_matches", "draw_cohort_figures", "draw_study_figures", "find_spec", "svg_data_uri"]

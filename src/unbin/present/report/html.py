@@ -142,6 +142,7 @@ class FigureView:
 # "<" and ">" stay as they are (allowed inside a quoted HTML attribute, and read as is in a data
 # URI by the browsers), which keeps the inlined figures about a tenth smaller.
 _URI_ESCAPES = {c: f"%{ord(c):02X}" for c in '%"#&\n\r\t'}
+_URI_TABLE = str.maketrans(_URI_ESCAPES)
 
 
 _PROLOG = re.compile(r"<\?xml[^>]*\?>|<!DOCTYPE[^>]*>|<metadata>.*?</metadata>", re.S)
@@ -172,7 +173,7 @@ def svg_data_uri(svg: bytes) -> str:
     attribute or the URI escaped: about a tenth larger than the text, where base64 is a third
     larger."""
     decoded = inline_svg(svg.decode("utf-8"))
-    return "data:image/svg+xml;charset=utf-8," + "".join(_URI_ESCAPES.get(c, c) for c in decoded)
+    return "data:image/svg+xml;charset=utf-8," + decoded.translate(_URI_TABLE)
 
 
 def figure_view(f: FigureFile) -> FigureView:

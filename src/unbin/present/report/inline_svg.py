@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import re
 from collections import Counter
+from functools import lru_cache
 
 import numpy as np
 
@@ -29,12 +30,18 @@ _STYLE_ATTR = re.compile(r' style="([^"]*)"')
 _IDENTITY_ROTATION = re.compile(r' transform="rotate\(-?0 [^)"]*\)"')
 _GROUP_TAG = re.compile(r"<g(?:\s[^>]*)?>|</g>")
 _STYLE_ELEMENT = re.compile(r"(<style[^>]*>)(.*?)(</style>)", re.S)
+_STYLE_SPACE = re.compile(r"\s*([:;])\s*")
+
+
+def _separator(m: re.Match[str]) -> str:
+    return m.group(1)
 
 
 def hundredths(v: float) -> int:
     return int(round(v * 100))
 
 
+@lru_cache(maxsize=65536)
 def number(h: int) -> str:
     """A coordinate given in hundredths of a point, as short as SVG reads it: 12.5, .25, -3."""
     sign, a = ("-" if h < 0 else ""), abs(h)
@@ -96,10 +103,8 @@ def _polyline(sub: list[tuple[int, int]], closed: bool, tolerance: float) -> lis
     ints = pts.astype(np.int64)
     out = ["M", number(int(ints[0, 0])), number(int(ints[0, 1]))]
     if len(ints) > 1:
-        steps = np.diff(ints, axis=0)
         out.append("l")
-        for dx, dy in steps:
-            out += [number(int(dx)), number(int(dy))]
+        out += map(number, np.diff(ints, axis=0).ravel().tolist())
     if closed:
         out.append("z")
     return out
@@ -135,8 +140,8 @@ def compact_path(d: str, tolerance: float = TOLERANCE_PT) -> str:
 
 def classes_for_styles(svg: str) -> str:
     """Every style used more than once becomes a class of the figure's style sheet."""
-    tidy = _STYLE_ATTR.sub(lambda m: ' style="' + re.sub(r"\s*([:;])\s*", r"\1",
-                                                         m.group(1).strip()) + '"', svg)
+    tidy = _STYLE_ATTR.sub(lambda m: ' style="' + _STYLE_SPACE.sub(_separator,
+                                                                  m.group(1).strip()) + '"', svg)
     counts = Counter(_STYLE_ATTR.findall(tidy))
     order = sorted((s for s, n in counts.items() if n > 1), key=lambda s: -counts[s])
     if not order:

@@ -123,11 +123,25 @@ def draw_cohort_figures(out: str | Path, spec_path: str | Path, cohort: str,
     return draw_figures(ctx, out / FIGURES_DIR, cohorts=[cohort], study=False)
 
 
+def draw_study_figures(out: str | Path, spec_path: str | Path) -> list[FigureFile]:
+    """The study-level and pooled figures (a workflow job of their own, beside the cohorts'
+    ones) into ``out/figures/_study/``, from every study-level table in ``out/tables``."""
+    out = Path(out)
+    spec = load_spec(spec_path)
+    check_spec_matches(spec, out / "tables")
+    ctx = Context(load_tables(out / "tables"), spec)
+    figures_dir = out / FIGURES_DIR
+    study_dir = group_dir(figures_dir, None)
+    if study_dir.is_dir():
+        shutil.rmtree(study_dir)
+    return draw_figures(ctx, figures_dir, cohorts=[], study=True)
+
+
 def build_report(out: str | Path, spec_path: str | Path, draw_cohorts: bool = True) -> Report:
-    """Write ``out/report.html`` from ``out``'s study-level tables and the spec, with the study's
-    figures drawn into ``out/figures/_study/``. With ``draw_cohorts`` (the command line) every
-    cohort's figures are drawn afresh too (the figures folder is replaced); without (the
-    workflow, where each cohort's figures are a job of their own) they are read from
+    """Write ``out/report.html`` from ``out``'s study-level tables and the spec. With
+    ``draw_cohorts`` (the command line) every figure is drawn afresh first (the figures folder
+    is replaced); without (the workflow, where the study's figures and each cohort's are jobs
+    of their own) they are read from ``out/figures/_study/index.json`` and
     ``out/figures/<cohort>/index.json``."""
     out = Path(out)
     spec = load_spec(spec_path)
@@ -139,10 +153,7 @@ def build_report(out: str | Path, spec_path: str | Path, draw_cohorts: bool = Tr
             shutil.rmtree(figures_dir)
         figures = draw_figures(ctx, figures_dir)
     else:
-        study_dir = group_dir(figures_dir, None)
-        if study_dir.is_dir():
-            shutil.rmtree(study_dir)
-        figures = draw_figures(ctx, figures_dir, cohorts=[], study=True)
+        figures = read_index(group_dir(figures_dir, None), figures_dir)
         for c in spec.cohorts:
             figures += read_index(group_dir(figures_dir, c.name), figures_dir)
     page = Builder(ctx, figures, out).page()
