@@ -24,7 +24,7 @@ the 75th and 25th percentiles of x in the sample; the bootstrap holds them fixed
 replicate runs ``unbin.questions.confounding.confounding_table`` (z grouped in thirds as the
 legacy adjustment) and checks whether the 95% bootstrap percentile interval of the continuous
 estimate (``lower_continuous``..``upper_continuous``, linear exposure form, all grouped
-variables) holds R(x75) - R(x25) (risk difference) and log R(x75) - log R(x25) (risk ratio,
+variables; the (B + 1) 0.025-th and 0.975-th ordered replicates) holds R(x75) - R(x25) (risk difference) and log R(x75) - log R(x25) (risk ratio,
 log scale). ``run`` returns each coverage with its Monte-Carlo SE and 99% band around 0.95,
 the mean error of the estimate with its MC SE, and the ratio of the mean interval half-width to
 1.96 x the empirical SD of the estimate (1 when the intervals are as wide as they should be).

@@ -332,7 +332,10 @@ def test_fine_gray_bootstrap_coverage_with_heavy_delayed_entry(beta: float) -> N
     # 0-1.5; Beyersmann et al. 2009), n = 300, 100 bootstrap resamples each: the Wald interval
     # with the bootstrap covariance covers the true log SHR in 0.95 of them within two-sided
     # binomial bounds (0.001 and 0.999 quantiles: 0.9125 to 0.98), where the sandwich's falls
-    # short (benchmarks/checks/fine_gray.py, README's checks table).
+    # short (benchmarks/checks/fine_gray.py, README's checks table). Measured: beta 0, 379/400
+    # = 0.948 (MC SE 0.011); beta 0.5, 369/400 = 0.923 (0.013), near the lower bound, with mean
+    # estimate - beta +0.025 and +0.020 (MC SE 0.009 each) and mean SE / empirical SD 0.96 and
+    # 0.94; 260 s and 223 s under pytest on two shared cores.
     rng = np.random.default_rng(71 + int(10 * beta))
     z = stats.norm.ppf(0.975)
     hits = 0

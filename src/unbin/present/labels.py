@@ -15,6 +15,7 @@ _COMMON: dict[str, str] = {
     "n": "rows", "n_input": "rows in extract", "n_used": "rows used", "rows": "rows",
     "events": "events", "person_time": "person-time", "follow_up": "follow-up",
     "step": "step", "family": "outcome", "exposure": "exposure",
+    "variance": "SE from", "horizon": "horizon (follow-up time units)",
 }
 
 # Labels of the fits table.
@@ -101,8 +102,8 @@ _CUTS: dict[str, str] = {
     "p_permutation": "permutation p", "p_simulated": "simulated p",
     "adjusted_for": "adjusted for", "n_candidates": "candidate cuts",
     "search_lower": "search from", "search_upper": "search to",
-    "bootstrap": "bootstrap replicates", "bootstrap_ok": "bootstrap fits",
-    "bootstrap_failed": "bootstrap failures",
+    "bootstrap": "bootstrap replicates", "bootstrap_ok": "bootstrap replicates refitted",
+    "bootstrap_failed": "bootstrap replicates failed",
 }
 
 # Labels of replication, confounding, ranges and decisions.
@@ -123,7 +124,39 @@ _QUESTIONS: dict[str, str] = {
     "replicates_matched": "replicates with as many crossings",
     "beyond_central_range": "outside 1st–99th percentile",
     "exposure_p01": "exposure 1st percentile", "exposure_p99": "exposure 99th percentile",
-    "risk_scale": "risk", "horizon": "horizon", "computed_by": "computed by",
+    "risk_scale": "risk", "computed_by": "computed by",
+    # net benefit (per patient: shares of the analysis sample)
+    "rule_type": "rule kind", "treated": "share treated",
+    "true_positive": "true positives per patient", "false_positive": "false positives per patient",
+    # implied thresholds
+    "by": "modifier", "rest_lp": "rest of the linear predictor", "position": "curve vs threshold",
+    "direction": "direction", "risk_at_value": "risk at the value",
+    "share_below": "share of rows below the value", "shift_from_cut": "shift from the cut",
+    "range_lower": "searched from", "range_upper": "searched to",
+    "lr_interaction": "LR χ² interaction", "df_interaction": "df interaction",
+    "p_interaction": "interaction, p",
+}
+
+# Labels of the confounding table (crude, grouped and continuously adjusted estimates).
+_CONFOUNDING: dict[str, str] = {
+    "comparison": "comparison group", "grouping": "grouped as", "scale_kind": "scale kind",
+    "primary": "primary scale", "confounding": "confounding (crude − continuous)",
+    "confounding_lower": "confounding, lower", "confounding_upper": "confounding, upper",
+    "confounding_clear": "confounding clear of 0", "residual": "residual (grouped − continuous)",
+    "share_left_lower": "share left, lower", "share_left_upper": "share left, upper",
+    "share_removed": "share of confounding removed",
+    "change_confounding": "change from confounding",
+    "change_confounding_lower": "change from confounding, lower",
+    "change_confounding_upper": "change from confounding, upper",
+    "change_noncollapsibility": "change from non-collapsibility",
+    "change_noncollapsibility_lower": "change from non-collapsibility, lower",
+    "change_noncollapsibility_upper": "change from non-collapsibility, upper",
+    "largest": "grouping leaving the most",
+    **{f"{part}_{what}": f"{name}{suffix}"
+       for what, name in (("crude", "crude"), ("grouped", "grouped adjustment"),
+                          ("continuous", "continuous adjustment"))
+       for part, suffix in (("estimate", ""), ("se", ", SE"), ("lower", ", lower"),
+                            ("upper", ", upper"), ("effect", ", effect"))},
 }
 
 # Labels of the missingness table.
@@ -134,7 +167,7 @@ _MISSING: dict[str, str] = {
 }
 
 COLUMNS: dict[str, str] = {**_COMMON, **_FITS, **_INFORMATION, **_EFFECTS, **_POOLED, **_CUTS,
-                           **_QUESTIONS, **_MISSING}
+                           **_QUESTIONS, **_CONFOUNDING, **_MISSING}
 
 FORMS: dict[str, str] = {
     "legacy": "legacy groups", "linear": "linear", "spline": "spline",

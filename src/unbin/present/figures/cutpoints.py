@@ -53,7 +53,9 @@ def positions_alt(rows: dict[str, pd.DataFrame], label: Any) -> str:
 
 @per_analysis("cutpoints", select_positions)
 def draw_positions(ctx: Context, rows: dict[str, pd.DataFrame], cohort: str, analysis: str) -> Drawn | None:
-    footnote = ("Each cut at its percentile in the analysis sample (the share of rows below it); "
+    weights = ctx.spec.analysis(analysis).weights  # a row stands for w persons: count persons
+    footnote = ("Each cut at its percentile in the analysis sample (the share of "
+                f"{'persons' if weights and weights.kind == 'frequency' else 'rows'} below it); "
                 "the sample median is at 50. Ember: the exposure's cuts; grey: cuts of grouped "
                 "adjustment variables.")
     fig_, fig = new_figure(9.0, 1.5 + 0.55 * len(rows), footnote)
