@@ -30,38 +30,6 @@ def test_the_true_standardised_incidence_matches_a_large_simulation(v: float) ->
     assert CHECK.true_risk(v) == pytest.approx(share, abs=4 * np.sqrt(share * (1 - share) / n))
 
 
-@pytest.mark.parametrize(("b", "k"), [(39, 1), (199, 5), (999, 25)])
-def test_percentile_limits_are_the_b_plus_1_alpha_ordered_replicates(b: int, k: int) -> None:
-    """Where (B + 1) x 0.025 is a whole number k, the limits are the k-th smallest and the k-th
-    largest replicate (Davison & Hinkley 1997, ch. 5), found here by sorting; numpy's default
-    rule would go 0.95 of the way from the k-th to the (k + 1)-th for B = 199."""
-    from unbin.questions.confounding import _interval
-
-    v = np.random.default_rng(b).normal(size=b)
-    s = np.sort(v)
-    assert _interval(v) == (s[k - 1], s[b - k])
-    both = _interval(np.column_stack([v, 2 * v]), axis=0)
-    np.testing.assert_array_equal(both, [[s[k - 1], 2 * s[k - 1]], [s[b - k], 2 * s[b - k]]])
-
-
-def test_percentile_limits_cover_at_95_percent_with_100_replicates() -> None:
-    """The rule's own coverage when the bootstrap distribution is exactly right (the estimate
-    and each of B = 100 replicates independent N(0, 1) steps, numpy): 20,000 seeded trials
-    cover the truth in 0.95 within 3.5 binomial SDs (0.0054); numpy's default quantile rule
-    covers about 0.933 here, below that band."""
-    from unbin.questions.confounding import _interval
-
-    rng = np.random.default_rng(8)
-    est = rng.normal(size=20_000)
-    boot = est[:, None] + rng.normal(size=(20_000, 100))
-    lims = _interval(boot.T, axis=0)
-    cover = float(np.mean((lims[0] <= 0) & (0 <= lims[1])))
-    assert abs(cover - 0.95) < 3.5 * np.sqrt(0.95 * 0.05 / 20_000), cover
-    old = np.percentile(boot, [2.5, 97.5], axis=1)
-    assert float(np.mean((old[0] <= 0) & (0 <= old[1]))) < 0.95 - 3.5 * np.sqrt(
-        0.95 * 0.05 / 20_000)
-
-
 def _check(res: dict[str, Any], lo: float, hi: float, ratio: tuple[float, float]) -> None:
     assert res["min_bootstrap_ok"] >= 0.9 * res["bootstrap"]
     for scale in ("risk difference", "log risk ratio"):

@@ -39,6 +39,7 @@ from ..data import MIN_SAMPLE_ROWS, Sample, _type_problems, analysis_sample
 from ..data.impute import Target, impute_chained, nelson_aalen
 from ..errors import DataError, UnbinError
 from ..models import Outcome
+from ..models.percentile_limits import percentile_limits
 from ..spec import Analysis, Spec
 from ..spec.missing import MissingOptions, missing_options
 from ..terms.roles import variable_role
@@ -653,7 +654,6 @@ def pooled_information_bootstrap(refits: list[Any], spec: Spec, first: FitsOnly,
                                        b, a.robust)
         for j, i in enumerate(ok_rows):
             pooled.setdefault(str(set_rows[i]["adjustment"]), []).append(shares[:, j])
-    alpha = (1 - kept.LEVEL) / 2
     method = (f"bootstrap within each of the {m} imputed sets ({B} replicates split over "
               "them), replicates pooled; the share is the information table's, combined over "
               "the sets")
@@ -673,7 +673,7 @@ def pooled_information_bootstrap(refits: list[Any], spec: Spec, first: FitsOnly,
                 f"only {len(s)} of {B} bootstrap replicates over the imputed sets could be "
                 f"refitted (at least {kept.MIN_REPLICATES} are needed for an interval)"))
             continue
-        lo, hi = np.quantile(s, [alpha, 1 - alpha])
+        lo, hi = percentile_limits(s, kept.LEVEL)
         row.update(info_kept_lower=float(lo), info_kept_upper=float(hi))
         if len(s) < B:
             row["message"] = (f"{method}; {B - len(s)} of {B} replicates left out (a model did "

@@ -76,6 +76,7 @@ import pandas as pd
 from ..models import EFFECT_SCALE, fit
 from ..models.base import FitResult, Outcome
 from ..models.cox import Layout, fit_cox, prepare_layout
+from ..models.percentile_limits import percentile_limits
 from ..models.survival import cox_layout
 from ..models.weighted import (
     _CHUNK_CELLS,
@@ -403,13 +404,8 @@ _RATIO_SCALES = {"odds ratio", "hazard ratio", "rate ratio", "risk ratio"}
 
 
 def _interval(v: np.ndarray, axis: int | None = None) -> Any:
-    """95% percentile limits of the B replicates ``v`` (along ``axis``): the (B + 1) 0.025-th
-    and (B + 1) 0.975-th ordered replicates, interpolated (Davison & Hinkley 1997, ch. 5;
-    Hyndman & Fan 1996's definition 6), which cover at 95% for any B when the bootstrap
-    distribution is right. numpy's default, the ((B - 1) p + 1)-th, lies nearer the middle:
-    with B = 100 it covers about 93% (benchmarks/checks/competing_confounding.py)."""
-    lims = np.percentile(v, [2.5, 97.5], axis=axis, method="weibull")
-    return (float(lims[0]), float(lims[1])) if axis is None else lims
+    """95% bootstrap percentile limits (:func:`unbin.models.percentile_limits.percentile_limits`)."""
+    return percentile_limits(v, 0.95, axis=axis)
 
 
 def _compare(est: np.ndarray, boot: np.ndarray | None, n_boot: int,

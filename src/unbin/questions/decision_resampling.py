@@ -85,6 +85,7 @@ from ..models.cox import (
 )
 from ..models.cox.baseline import baseline_steps
 from ..models.discrimination import auc, c_index
+from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     WeightedGLM,
     design_resample_weights,
@@ -394,8 +395,8 @@ def _percentiles(values: np.ndarray) -> tuple[float, float]:
     v = values[np.isfinite(values)]
     if v.size < 2:
         return float("nan"), float("nan")
-    lo, hi = np.quantile(v, [0.025, 0.975])
-    return float(lo), float(hi)
+    lo, hi = percentile_limits(v, 0.95)
+    return lo, hi
 
 
 def _skip_reason(r: Refit, spec: Spec, horizon: float | None) -> str | None:

@@ -45,6 +45,7 @@ import pandas as pd
 
 from ..models import fit
 from ..models.base import FitResult, Outcome
+from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
@@ -318,7 +319,6 @@ def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
     shares = replicate_shares(r.family, models, r.outcome,
                               spec.rng(r.analysis.name, "information-bootstrap"), replicates,
                               r.analysis.robust)
-    alpha = (1 - LEVEL) / 2
     for j, i in enumerate(ok_rows):
         s = shares[:, j]
         s = s[np.isfinite(s)]
@@ -329,7 +329,7 @@ def information_bootstrap_table(r: Refit, spec: Spec) -> pd.DataFrame:
                 f"only {len(s)} of {replicates} bootstrap replicates could be refitted (at "
                 f"least {MIN_REPLICATES} are needed for an interval)"))
             continue
-        lo, hi = np.quantile(s, [alpha, 1 - alpha])
+        lo, hi = percentile_limits(s, LEVEL)
         row.update(info_kept_lower=float(lo), info_kept_upper=float(hi))
         if len(s) < replicates:
             row["message"] = (
