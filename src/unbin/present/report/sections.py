@@ -273,7 +273,7 @@ class Builder:
                     lambda r: text.interval(R.get(r, "share_left"), R.get(r, "share_left_lower"),
                                             R.get(r, "share_left_upper"), "percent")
                     if R.get(r, "confounding_clear") is True else "not estimable", True),
-                Col("bootstrap fits", lambda r: f"{text.count(R.get(r, 'bootstrap_ok'))} of "
+                Col("bootstrap replicates refitted", lambda r: f"{text.count(R.get(r, 'bootstrap_ok'))} of "
                     f"{text.count(R.get(r, 'bootstrap'))}", True)]
         return self.blocks(
             Block("Residual confounding",
