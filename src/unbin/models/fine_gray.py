@@ -38,6 +38,8 @@ import numpy as np
 import pandas as pd
 from scipy import linalg
 
+from .cox.fit import newton_step
+
 
 @dataclass(frozen=True)
 class Layout:
@@ -294,18 +296,6 @@ def _evaluate(L: Layout, X: np.ndarray, beta: np.ndarray, efron: bool,
         info = X.T @ (X * v[:, None]) - (S1 * (c / S0)[:, None]).T @ S1
     score = X[L.ev].T @ L.w[L.ev] - X.T @ v
     return pt.loglik, score, (info + info.T) / 2.0
-
-
-def newton_step(info: np.ndarray, score: np.ndarray) -> np.ndarray | None:
-    """``info⁻¹ score`` by Cholesky, or None when that fails or is not finite."""
-    if not (np.isfinite(info).all() and np.isfinite(score).all()):
-        return None
-    try:
-        factor = linalg.cho_factor(info, check_finite=False)
-    except linalg.LinAlgError:
-        return None
-    step = linalg.cho_solve(factor, score, check_finite=False)
-    return step if np.isfinite(step).all() else None
 
 
 @dataclass(frozen=True)
