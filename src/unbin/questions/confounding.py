@@ -403,11 +403,6 @@ COLUMNS = ("exposure_form", "contrast", "comparison", "reference", "x_value", "x
 _RATIO_SCALES = {"odds ratio", "hazard ratio", "rate ratio", "risk ratio"}
 
 
-def _interval(v: np.ndarray, axis: int | None = None) -> Any:
-    """95% bootstrap percentile limits (:func:`unbin.models.percentile_limits.percentile_limits`)."""
-    return percentile_limits(v, 0.95, axis=axis)
-
-
 def _compare(est: np.ndarray, boot: np.ndarray | None, n_boot: int,
              notes: list[str]) -> tuple[dict[str, Any], np.ndarray | None]:
     """Confounding, residual and share from (crude, grouped, continuous) estimates, with
@@ -431,8 +426,8 @@ def _compare(est: np.ndarray, boot: np.ndarray | None, n_boot: int,
     with np.errstate(divide="ignore", invalid="ignore"):
         s = (b[:, 1] - b[:, 2]) / tot
     if np.isfinite(s).sum() >= 2:
-        row["share_left_lower"], row["share_left_upper"] = _interval(s[np.isfinite(s)])
-    lo, hi = _interval(tot)
+        row["share_left_lower"], row["share_left_upper"] = percentile_limits(s[np.isfinite(s)])
+    lo, hi = percentile_limits(tot)
     row["confounding_lower"], row["confounding_upper"] = lo, hi
     row["confounding_clear"] = bool(lo > 0 or hi < 0)
     if not row["confounding_clear"]:
@@ -533,7 +528,7 @@ def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
         row, used = _compare(est, boot, n_bootstrap, notes)
         sd, lims = np.full(3, np.nan), np.full((2, 3), np.nan)
         if used is not None:
-            sd, lims = used.std(axis=0, ddof=1), _interval(used, axis=0)
+            sd, lims = used.std(axis=0, ddof=1), percentile_limits(used, axis=0)
         row.update(base, scale_kind="marginal", scale=scale,
                    primary=scale == MEASURES[family][0][0], risk_kind=designs.risk_kind)
         for i, what in enumerate(_ESTIMATES):
@@ -576,7 +571,7 @@ def _conditional_row(family: str, designs: _Designs, keys: tuple[str, str, str],
         if good.sum() >= max(2, n_bootstrap // 2):
             for col, v in (("change_confounding", boot[good, 0] - bm[good]),
                            ("change_noncollapsibility", bm[good] - boot[good, 2])):
-                row[f"{col}_lower"], row[f"{col}_upper"] = _interval(v)
+                row[f"{col}_lower"], row[f"{col}_upper"] = percentile_limits(v)
     row["status"] = "ok" if np.isfinite(row["share_left"]) else "failed"
     row["message"] = "; ".join(dict.fromkeys(notes))
     return row

@@ -3,25 +3,27 @@ analyses with ``outcome.competing``; other analyses give an empty table).
 
 The legacy groups and each continuous form (linear, the AIC-chosen spline, the chosen FP) are
 refitted, under each adjustment coding, as Fine–Gray models of the same design (unbin.models.
-competing: the weighted Cox fit of the counting-process expansion, computed without building
-it, cluster-robust covariance by person; Fine & Gray 1999, Geskus 2011). Per form and non-reference legacy group: the contrast
-between the group's median exposure and the reference group's median (for the legacy form the
-group's own indicator), as a subdistribution hazard ratio, beside the cause-specific hazard
-ratio of the same contrast from the analysis' own Cox fit (competing events censored). The two
-answer different questions: the cause-specific ratio is about the rate of the event among
-those still free of any event; the subdistribution ratio is about the cumulative incidence
-(who has had the event by a time), which the risk at the horizon, the implied thresholds and
-the net benefit use (Putter, Fiocco & Geskus 2007). Counts of events below ``min_cell`` are suppressed.
+competing: the weighted Cox fit of the counting-process expansion, computed without building it,
+cluster-robust covariance by person; Fine & Gray 1999, Geskus 2011). Per form and non-reference
+legacy group: the contrast between the group's median exposure and the reference group's median
+(for the legacy form the group's own indicator), as a subdistribution hazard ratio, beside the
+cause-specific hazard ratio of the same contrast from the analysis' own Cox fit (competing events
+censored). The two answer different questions: the cause-specific ratio is about the rate of the
+event among those still free of any event; the subdistribution ratio is about the cumulative
+incidence (who has had the event by a time), which the risk at the horizon, the implied thresholds
+and the net benefit use (Putter, Fiocco & Geskus 2007). Counts of events below ``min_cell`` are
+suppressed.
 
 Variance (``outcome.subdistribution_variance``, the ``variance`` column): ``sandwich`` (the
-default) is the cluster-robust covariance with the estimated censoring and entry weights'
-terms; ``bootstrap`` the covariance of the Fine–Gray coefficients over ``resampling.bootstrap``
-resamples of the persons (of the clusters when the analysis has them), the weights
-re-estimated in each and the refits started at the estimate
-(``unbin.models.competing.fine_gray_bootstrap_cov``; Efron & Tibshirani 1993), drawn from the spec's generator for this analysis (``Spec.rng``), the same resamples for
-every form and coding; ``bootstrap_ok`` counts the refitted resamples. With fewer than half of
-them refitted the row keeps its estimate but has no standard error, and fails. The Wald limits then use the bootstrap
-standard error. Without a spec (direct calls) the sandwich is used."""
+default) is the cluster-robust covariance with the estimated censoring and entry weights' terms;
+``bootstrap`` the covariance of the Fine–Gray coefficients over ``resampling.bootstrap`` resamples
+of the persons (of the clusters when the analysis has them), the weights re-estimated in each and
+the refits started at the estimate (``unbin.models.competing.fine_gray_bootstrap_cov``; Efron &
+Tibshirani 1993), drawn from the spec's generator for this analysis (``Spec.rng``), the same
+resamples for every form and coding; ``bootstrap_ok`` counts the refitted resamples. With fewer
+than half of them refitted the row keeps its estimate but has no standard error, and fails. The
+Wald limits then use the bootstrap standard error. Without a spec (direct calls) the sandwich is
+used."""
 
 from __future__ import annotations
 
