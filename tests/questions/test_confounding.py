@@ -761,12 +761,17 @@ def test_incidence_on_repeated_rows_matches_a_row_by_row_g_formula() -> None:
 
 def test_incidence_over_the_cell_limit_is_withheld_with_its_reason(
         monkeypatch: pytest.MonkeyPatch) -> None:
-    """The standardised cumulative incidence costs rows x event times per design and
-    evaluation; past the limit its bootstrap (or the rows) are withheld, the message says why,
-    and what is still computed is unchanged (the conditional rows; the estimates when only the
-    bootstrap is withheld). Equality with the unlimited run is the reference (common practice:
-    a resource limit must not change any number it lets through)."""
+    """Where the interpolation cannot be used (forced here: no relative hazard box passes its
+    factor check), the standardised cumulative incidence is summed row by row, rows x event
+    times per design and evaluation; past the limit its bootstrap (or the rows) are withheld,
+    the message says why, and what is still computed is unchanged (the conditional rows; the
+    estimates when only the bootstrap is withheld). With the interpolation forced on every
+    stratum instead, the table equals the row-by-row one to 1e-10. Equality with the
+    unlimited run is the reference (common practice: a resource limit must not change any
+    number it lets through)."""
     import unbin.questions.confounding as conf
+    import unbin.refit.incidence_sum as isum
+    import unbin.refit.standardise as std
 
     df = _competing_frame(300, 29, True)
     outcome = {"type": "survival", "time": "T", "event": "E", "horizon": 2.0, "entry": "L",
@@ -774,22 +779,27 @@ def test_incidence_over_the_cell_limit_is_withheld_with_its_reason(
     raw = _raw(outcome, {"x": {"cuts": [0.0]}, "z": {"cuts": [-0.5, 0.5]}}, ["z"],
                resampling={"bootstrap": 20})
     r, spec = _refit(df, raw)
-    full = confounding_table(r, spec)
-    designs = conf._Designs(r, 2.0)
-    conf._plan(r, designs, conf._scopes(
-        conf.adjustment_terms(df, r.analysis, spec, "legacy"),
-        conf.adjustment_terms(df, r.analysis, spec, "continuous")),
-        conf.adjustment_terms(df, r.analysis, spec, "continuous"))
-    cells = designs.incidence_cells()
-    events = np.unique(df.loc[(df["E"] != 0) & (df["T"] <= 2.0), "T"]).size
-    assert cells == 300 * events * 2 * len(designs.items)
-
+    full = confounding_table(r, spec)  # 300 rows: summed row by row
     marg = full["scale_kind"] == "marginal"
+    assert (full.loc[marg, "status"] == "ok").all()
+    monkeypatch.setattr(std, "INTERPOLATE_ROWS", 0)
+    monkeypatch.setattr(std, "DIRECT_CELLS", 0)
+    r, spec = _refit(df, raw)
+    interpolated = confounding_table(r, spec)
+    num = [c for c in full.columns if pd.api.types.is_float_dtype(full[c])]
+    pd.testing.assert_frame_equal(interpolated.drop(columns=num), full.drop(columns=num))
+    np.testing.assert_allclose(interpolated[num].to_numpy(float), full[num].to_numpy(float),
+                               rtol=0, atol=1e-10)
+
+    monkeypatch.setattr(isum, "FACTOR_LIMIT", 0.0)  # no box passes: row by row
+    events = np.unique(df.loc[(df["E"] != 0) & (df["T"] <= 2.0), "T"]).size
+    cells = 300 * events * 2  # a design adjusted for continuous z: 300 distinct rows
     monkeypatch.setattr(conf, "INCIDENCE_CELLS", cells * 5)  # the point, not 21 evaluations
     r, spec = _refit(df, raw)
     some = confounding_table(r, spec)
     assert (some.loc[marg, "status"] == "ok").all()
     assert some.loc[marg, "message"].str.contains("without an interval").all()
+    assert some.loc[marg, "message"].str.contains("could not be interpolated").all()
     assert some.loc[marg, "lower_crude"].isna().all()
     np.testing.assert_allclose(some.loc[marg, "estimate_crude"], full.loc[marg, "estimate_crude"],
                                rtol=0, atol=1e-12)
@@ -800,5 +810,6 @@ def test_incidence_over_the_cell_limit_is_withheld_with_its_reason(
     none = confounding_table(r, spec)
     assert (none.loc[marg, "status"] == "skipped").all()
     assert none.loc[marg, "message"].str.contains("not computed").all()
+    assert none.loc[marg, "message"].str.contains(f"{cells:.1e} row-time cells", regex=False).all()
     assert not none.loc[marg, "message"].str.contains("could be refitted").any()
     pd.testing.assert_frame_equal(none[~marg], full[~marg])

@@ -92,6 +92,7 @@ from ..refit.risk import horizon_for
 from ..refit.sampling_design import marginal_reason
 from ..refit.standardise import (
     MEASURES,
+    IncidenceWithheld,
     cif_risks,
     contrast,
     cox_risks,
@@ -106,12 +107,14 @@ TABLE = "confounding"
 RISK_SURVIVAL = "1 - survival (Cox model)"
 RISK_INCIDENCE = "cumulative incidence (cause-specific Cox models of every cause)"
 RISK_CAUSE_SPECIFIC = "1 - cause-specific survival (competing events censored)"
-# The standardised cumulative incidence walks every row through every event time up to the
-# horizon (refit/standardise.cif_risks), so its cost is rows x event times x exposure values per
-# design and evaluation. Above this many cells (about a CPU-minute; a limit of the
-# implementation, not a statistical choice) the bootstrap of those rows, or the rows themselves,
-# are not computed and the message says why (the demo's largest analysis: about 1e8 cells per
-# evaluation, at roughly a nanosecond each).
+# The standardised cumulative incidence (refit/standardise.cif_risks) is interpolated over the
+# rows' relative hazards (refit/incidence_sum), nodes x event times up to the horizon per
+# design and evaluation; where the interpolation cannot be used (relative hazards too large or
+# too spread for the event times' increments) it walks every distinct row through every event
+# time. That row-by-row sum is refused above this many cells per evaluation for the estimate,
+# and above it summed over the bootstrap's evaluations for the bootstrap (about a CPU-minute;
+# a limit of the implementation, not a statistical choice): those rows, or their intervals,
+# are then not computed and the message says why.
 INCIDENCE_CELLS = 5e10
 
 
@@ -122,6 +125,23 @@ class _Design:
     at: tuple[np.ndarray, np.ndarray]  # exposure basis at the comparison and reference values
     res: FitResult
     others: tuple[FitResult, ...] = field(default=())  # competing causes' Cox models
+    _groups: np.ndarray | None = None
+
+    @property
+    def groups(self) -> np.ndarray:
+        """Each row's pattern of the adjustment columns ``X[:, k:]`` (numbered; rows of one
+        pattern have the same relative hazards), found once for every evaluation."""
+        if self._groups is None:
+            rest = self.X[:, self.k:]
+            if rest.shape[1] == 0:
+                self._groups = np.zeros(self.X.shape[0], dtype=np.int64)
+            else:
+                order = np.lexsort(rest.T[::-1])
+                s = rest[order]
+                new = np.r_[True, np.any(s[1:] != s[:-1], axis=1)]
+                self._groups = np.empty(rest.shape[0], dtype=np.int64)
+                self._groups[order] = np.cumsum(new) - 1
+        return self._groups
 
 
 class _Designs:
@@ -136,9 +156,10 @@ class _Designs:
         o = r.outcome
         # competing events: the event of interest first, then every other cause in the sample
         self.causes: tuple[int, ...] = ()
-        # why the standardised cumulative incidences (or their bootstrap) are not computed
-        self.incidence_off = ""
-        self.incidence_boot_off = ""
+        # per design, why its standardised cumulative incidences (or their bootstrap) are not
+        # computed (cif_risks' IncidenceWithheld)
+        self.incidence_off: dict[str, str] = {}
+        self.incidence_boot_off: dict[str, str] = {}
         self._cause_outcomes: list[Outcome] = []
         if r.family == "survival" and o.cause is not None:
             others = [int(c) for c in np.unique(o.cause) if c != 0 and c != o.event_of_interest]
@@ -161,33 +182,6 @@ class _Designs:
             self.items[key] = _Design(X, k, at, fit(self.r.family, X, self.r.outcome, names),
                                       others)
         return key
-
-    def incidence_cells(self) -> float:
-        """Cells of one evaluation of every design's standardised cumulative incidences: rows x
-        distinct event times up to the horizon x the two exposure values x designs."""
-        o = self.r.outcome
-        if not self.causes or self.horizon is None or o.time is None or o.cause is None:
-            return 0.0
-        times = np.unique(o.time[(o.cause != 0) & (o.time <= self.horizon)])
-        return float(o.n) * times.size * 2 * len(self.items)
-
-    def limit_incidence(self, replicates: int) -> None:
-        """Switches the standardised cumulative incidences, or their bootstrap, off when they
-        would exceed ``INCIDENCE_CELLS`` (the reason kept for the rows' message)."""
-        cells = self.incidence_cells()
-        size = (f"{self.r.outcome.n:,} rows x the event times up to the horizon x "
-                f"{len(self.items)} designs")
-        if cells > INCIDENCE_CELLS:
-            self.incidence_off = (
-                f"the standardised cumulative incidence would take {cells:.1e} row-time cells "
-                f"({size}; limit {INCIDENCE_CELLS:.0e}): not computed; the conditional rows "
-                "and the 1 - cause-specific survival of the other tables still are")
-        elif replicates > 0 and cells * (replicates + 1) > INCIDENCE_CELLS:
-            self.incidence_boot_off = (
-                f"the bootstrap of the standardised cumulative incidence would take "
-                f"{cells * (replicates + 1):.1e} row-time cells ({size}, {replicates} "
-                f"replicates; limit {INCIDENCE_CELLS:.0e}): the estimates are shown without an "
-                "interval; lower resampling.bootstrap for one")
 
     @property
     def risk_kind(self) -> str:
@@ -222,14 +216,17 @@ class _Designs:
                       for c, f in zip(self.causes[1:], it.others, strict=True) if not f.ok]
             if failed:
                 self.notes[key] = "; ".join(failed)
-            elif self.incidence_off:
-                self.notes[key] = self.incidence_off
             elif it.res.ok and self.marginal_ok:
                 assert o.time is not None and o.cause is not None and self.horizon is not None
-                out, self.notes[key] = cif_risks(
-                    it.X, it.k, [it.res.coef, *(f.coef for f in it.others)], it.at, o.time,
-                    o.cause, self.causes, self.horizon, entry=o.entry, strata=o.strata,
-                    layout=cox_layout(o))
+                try:
+                    out, self.notes[key] = cif_risks(
+                        it.X, it.k, [it.res.coef, *(f.coef for f in it.others)], it.at, o.time,
+                        o.cause, self.causes, self.horizon, entry=o.entry, strata=o.strata,
+                        layout=cox_layout(o), max_cells=INCIDENCE_CELLS, groups=it.groups)
+                except IncidenceWithheld as e:
+                    self.incidence_off[key] = self.notes[key] = (
+                        f"{e}: not computed; the conditional rows and the 1 - cause-specific "
+                        "survival of the other tables still are")
             self._means[key] = out
         return self._means[key]
 
@@ -287,11 +284,16 @@ class _Designs:
                                                          o.y[m], self.horizon,
                                                          entry=pick(o.entry),
                                                          strata=pick(o.strata), layout=layout)[0]
-                        if self.causes and not (self.incidence_off
-                                                or self.incidence_boot_off):
+                        if self.causes and key not in self.incidence_off \
+                                and key not in self.incidence_boot_off:
                             marg[key][c0 + b] = self._replicate_incidence(
                                 c0 + b, it, Xm, m, coef, layout, layouts,
-                                replicate_rows(o, W[b])[1])
+                                replicate_rows(o, W[b])[1], replicates)
+                    except IncidenceWithheld as e:
+                        self.incidence_boot_off[key] = (
+                            f"the bootstrap of {e} (summed over the {replicates} replicates): "
+                            "the estimates are shown without an interval; lower "
+                            "resampling.bootstrap for one")
                     except ValueError:
                         pass
                 coefs = weighted_cox_designs([(it.X, it.res.coef) for _, it in ok], o, W,
@@ -312,10 +314,13 @@ class _Designs:
     def _replicate_incidence(self, b: int, it: _Design, Xm: np.ndarray, m: np.ndarray,
                              coef: np.ndarray, layout: Layout,
                              layouts: dict[tuple[int, int], Layout | None],
-                             case: np.ndarray | None = None) -> np.ndarray:
+                             case: np.ndarray | None = None, replicates: int = 1
+                             ) -> np.ndarray:
         """A replicate's standardised cumulative incidences of one design: each competing
         cause's Cox model refitted on the replicate's rows ``m`` (from its full-sample
-        estimate; the layouts of a replicate shared by the designs), NaN when one fails."""
+        estimate; the layouts of a replicate shared by the designs), NaN when one fails; a
+        row-by-row sum is allowed ``INCIDENCE_CELLS`` cells over the ``replicates`` and the
+        full sample."""
         o = self.r.outcome
         assert o.time is not None and o.cause is not None and self.horizon is not None
         entry = None if o.entry is None else o.entry[m]
@@ -343,7 +348,8 @@ class _Designs:
             coefs.append(fitted.coef)
             lays.append(lay)
         return cif_risks(Xm, it.k, coefs, it.at, o.time[m], cause, self.causes, self.horizon,
-                         entry=entry, strata=strata, layout=layout, other_layouts=lays)[0]
+                         entry=entry, strata=strata, layout=layout, other_layouts=lays,
+                         max_cells=INCIDENCE_CELLS / (replicates + 1), groups=it.groups[m])[0]
 
 
 @dataclass(frozen=True)
@@ -461,11 +467,12 @@ def confounding_table(r: Refit, spec: Spec) -> pd.DataFrame:
     designs = _Designs(r, horizon)
     plan = _plan(r, designs, _scopes(legacy_adj, cont_adj), cont_adj)
     n_bootstrap = spec.resampling.bootstrap
-    designs.limit_incidence(n_bootstrap)
     boot_conditional: dict[str, np.ndarray] = {}
     boot_marginal: dict[str, np.ndarray] = {}
     boot_own: dict[str, np.ndarray] = {}  # the designs' own models' means (conditional split)
     if n_bootstrap > 0:
+        for key in designs.items:  # the estimates first: a withheld one is not bootstrapped
+            designs.means(key)
         boot_conditional, boot_marginal, boot_own = designs.bootstrap(
             spec.rng(a.name, "confounding-bootstrap"), n_bootstrap)
     rows = []
@@ -520,11 +527,14 @@ def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
         est = np.array([contrast(kind, mu[0], mu[1]) for mu in means])
         boot = (np.column_stack([contrast(kind, boot_marginal[k][:, 0], boot_marginal[k][:, 1])
                                  for k in keys]) if boot_marginal else None)
-        if designs.incidence_off:  # no estimates, so no replicates to count either
+        off = [designs.incidence_off[k] for k in keys if k in designs.incidence_off]
+        boot_off = [designs.incidence_boot_off[k] for k in keys
+                    if k in designs.incidence_boot_off]
+        if off:  # no estimates, so no replicates to count either
             boot = None
-        elif designs.incidence_boot_off and boot is not None:
+        elif boot_off and boot is not None:
             boot = None
-            notes.append(designs.incidence_boot_off)
+            notes += boot_off
         row, used = _compare(est, boot, n_bootstrap, notes)
         sd, lims = np.full(3, np.nan), np.full((2, 3), np.nan)
         if used is not None:
@@ -535,7 +545,7 @@ def _marginal_rows(family: str, designs: _Designs, keys: tuple[str, str, str],
             row[f"estimate_{what}"], row[f"se_{what}"] = float(est[i]), float(sd[i])
             row[f"lower_{what}"], row[f"upper_{what}"] = float(lims[0, i]), float(lims[1, i])
         row["status"] = "ok" if np.isfinite(row["share_left"]) else "failed"
-        if designs.incidence_off:
+        if off:
             row["status"] = "skipped"
         if not designs.marginal_ok:
             row["status"] = "skipped"

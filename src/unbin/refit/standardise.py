@@ -47,7 +47,19 @@ from scipy import special
 
 from ..models.cox import Layout
 from ..models.cox.baseline import baseline_steps
+from .incidence_sum import interpolated_sums, row_incidence
 from .risk import cumhaz_at, horizon_notes
+
+# a stratum with at most this many distinct rows, or distinct rows x event times up to the
+# horizon, is summed row by row (exact, and no dearer than the interpolation's nodes, of
+# which there are hundreds to thousands); larger ones are interpolated
+INTERPOLATE_ROWS = 4000
+DIRECT_CELLS = 4e6
+
+
+class IncidenceWithheld(Exception):
+    """The standardised cumulative incidence would exceed its caller's cell limit."""
+
 
 # The marginal contrasts reported per family: (name, kind); "ratio" contrasts are taken on the
 # log scale (log R1 - log R0), "difference" ones as R1 - R0.
@@ -155,13 +167,21 @@ def cif_risks(X: np.ndarray, k: int, coefs: Sequence[np.ndarray], at: Sequence[n
               entry: np.ndarray | None = None, strata: np.ndarray | None = None,
               layout: Layout | None = None,
               other_layouts: Sequence[Layout | None] | None = None,
-              block: int = 256) -> tuple[np.ndarray, str]:
+              max_cells: float | None = None,
+              groups: np.ndarray | None = None) -> tuple[np.ndarray, str]:
     """Standardised cumulative incidences of ``causes[0]`` by ``horizon`` (module docstring)
     from the cause-specific Cox models of every cause in ``causes`` (``coefs[j]`` the
     coefficients of cause ``causes[j]`` on ``X``; no intercept), on the rows given, at each
     exposure basis row in ``at``. ``layout`` is the Cox layout of ``causes[0]``'s event
-    indicator; ``other_layouts`` those of ``causes[1:]`` (laid out here when not given). Rows
-    are taken ``block`` at a time.
+    indicator; ``other_layouts`` those of ``causes[1:]`` (laid out here when not given).
+    Rows with the same predictors are computed once: ``groups`` (optional) numbers the rows'
+    patterns (rows of one number have the same ``X[:, k:]``; a design's numbering serves all
+    its bootstrap replicates), otherwise the distinct rows of the linear predictors are
+    sorted out here. Each stratum's sum over its distinct rows is interpolated
+    (``refit.incidence_sum``) when they are more than ``INTERPOLATE_ROWS`` and have more than
+    ``DIRECT_CELLS`` cells (distinct rows x event times up to the horizon), otherwise, or when the interpolation cannot be used,
+    summed row by row; that row-by-row sum is refused above ``max_cells`` cells
+    (:class:`IncidenceWithheld`, its message saying why).
     Returns (incidences, note on the horizon)."""
     X = np.asarray(X, dtype=float)
     cause = np.asarray(cause)
@@ -199,17 +219,29 @@ def cif_risks(X: np.ndarray, k: int, coefs: Sequence[np.ndarray], at: Sequence[n
         D = np.zeros((len(steps), grid.size))  # baseline increments of each cause on the grid
         for j, (t, d) in enumerate(steps):
             D[j, np.searchsorted(grid, t)] = d
-        # rows with the same predictors (a replicate's rows drawn more than once) share one
-        # incidence, counted as often as they occur
-        rest_u, count = _distinct_rows(rest_all[rows])
-        for a_i, shift in enumerate(shifts):
-            for r0 in range(0, count.size, block):
-                with np.errstate(over="ignore"):
-                    risk = np.exp(rest_u[r0:r0 + block] + shift)  # (rows, causes)
-                # S_i(t-) is the product of the factors before t: F_i = sum_t S_i(t-) dL_1i(t)
-                factor = 1.0 - risk @ D
-                np.maximum(factor, 0.0, out=factor)
-                np.cumprod(factor, axis=1, out=factor)
-                before_d = D[0, 0] + factor[:, :-1] @ D[0, 1:]
-                out[a_i] += float(count[r0:r0 + block] @ (risk[:, 0] * before_d))
+        if groups is not None:  # rows of one pattern share their predictors
+            ids = np.asarray(groups)[rows]
+            count_all = np.bincount(ids)
+            present = np.flatnonzero(count_all)
+            first = np.zeros(count_all.size, dtype=np.int64)
+            first[ids] = np.flatnonzero(rows)  # any row of the pattern stands for it
+            rest_u, count = rest_all[first[present]], count_all[present]
+        else:
+            # rows with the same predictors (a replicate's rows drawn more than once) share
+            # one incidence, counted as often as they occur
+            rest_u, count = _distinct_rows(rest_all[rows])
+        sums = None
+        if count.size > INTERPOLATE_ROWS and count.size * grid.size > DIRECT_CELLS:
+            sums = interpolated_sums(rest_u, count, shifts, D)  # refit/incidence_sum
+        if sums is None:
+            cells = float(count.size) * grid.size * len(shifts)
+            if max_cells is not None and cells > max_cells:
+                raise IncidenceWithheld(
+                    f"the standardised cumulative incidence could not be interpolated "
+                    f"(relative hazards too spread or too large for the event times' "
+                    f"increments) and its row-by-row sum would take {cells:.1e} row-time "
+                    f"cells ({count.size:,} distinct rows x {grid.size:,} event times up to "
+                    f"the horizon x {len(shifts)} exposure values; limit {max_cells:.0e})")
+            sums = np.array([count @ row_incidence(rest_u + shift, D) for shift in shifts])
+        out += sums
     return out / n, note
