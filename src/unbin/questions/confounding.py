@@ -75,7 +75,7 @@ import pandas as pd
 
 from ..models import EFFECT_SCALE, fit
 from ..models.base import FitResult, Outcome
-from ..models.cox import Layout, fit_cox, prepare_layout
+from ..models.cox import Layout, fit_cox, prepare_layout, refit_near
 from ..models.percentile_limits import percentile_limits
 from ..models.survival import cox_layout
 from ..models.weighted import (
@@ -341,11 +341,18 @@ class _Designs:
             lay = layouts[(b, c)]
             if lay is None:
                 return np.full(2, np.nan)
-            fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,
-                             strata=strata, weights=case, init=full.coef, layout=lay)
-            if not fitted.converged or not np.all(np.isfinite(fitted.coef)):
+            # chord steps from the full-sample estimate, as the design's own model's refit
+            # (models.weighted.weighted_cox_designs); Newton's fit where they do not settle
+            coef_c = refit_near(Xm, lay, full.coef)
+            if coef_c is None:
+                fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,
+                                 strata=strata, weights=case, init=full.coef, layout=lay)
+                if not fitted.converged:
+                    return np.full(2, np.nan)
+                coef_c = fitted.coef
+            if not np.all(np.isfinite(coef_c)):
                 return np.full(2, np.nan)
-            coefs.append(fitted.coef)
+            coefs.append(coef_c)
             lays.append(lay)
         return cif_risks(Xm, it.k, coefs, it.at, o.time[m], cause, self.causes, self.horizon,
                          entry=entry, strata=strata, layout=layout, other_layouts=lays,

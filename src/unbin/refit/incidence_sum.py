@@ -38,7 +38,7 @@ from scipy import fft
 # the incidence is analytic over the box (and no factor is set to 0)
 FACTOR_LIMIT = 0.5
 # the top quarter of an axis' Chebyshev coefficients sums to at most this (absolute)
-TAIL = 1e-12
+TAIL = 1e-10
 # the most interpolation nodes (product over the axes); beyond: the row-by-row sum
 MAX_NODES = 20000
 # the width of a box along cause c: r_c times the cause's cumulative baseline hazard by the

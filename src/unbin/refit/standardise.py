@@ -53,7 +53,7 @@ from .risk import cumhaz_at, horizon_notes
 # a stratum with at most this many distinct rows, or distinct rows x event times up to the
 # horizon, is summed row by row (exact, and no dearer than the interpolation's nodes, of
 # which there are hundreds to thousands); larger ones are interpolated
-INTERPOLATE_ROWS = 4000
+INTERPOLATE_ROWS = 500
 DIRECT_CELLS = 4e6
 
 
