@@ -25,7 +25,9 @@ sample itself, resampling counts for a bootstrap replicate):
   ``F_i(h; v) = sum_{t <= h} S_i(t-) dL_1i(t)``, ``S_i(t-) = prod_{u < t} (1 - sum_c dL_ci(u))``
   over the event times (any cause) of the row's stratum — the product-limit (Aalen–Johansen)
   form, which without covariates is the Aalen–Johansen estimate itself
-  (:func:`cif_risks`; a factor below 0 is set to 0).
+  (:func:`cif_risks`; a factor below 0 is set to 0). Its sum over the rows is taken once
+  per distinct row and, with many distinct rows, by Chebyshev interpolation over the rows'
+  relative hazards (``unbin.refit.incidence_sum``).
 
 The contrasts of two standardised means (:data:`MEASURES`) are collapsible: with no confounding
 the crude and the adjusted contrasts estimate the same quantity, unlike odds and hazard ratios,
