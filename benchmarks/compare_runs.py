@@ -66,7 +66,8 @@ def compare_table(old: pd.DataFrame, new: pd.DataFrame) -> tuple[float, list[str
                   == b.astype(object).where(b.notna(), None).tolist())
             if not eq:
                 bad = [i for i, (u, v) in enumerate(zip(a.tolist(), b.tolist(), strict=True))
-                       if not (u == v or (pd.isna(u) and pd.isna(v)))]
+                       if not (pd.isna(u) and pd.isna(v))
+                       and (pd.isna(u) or pd.isna(v) or u != v)]
                 problems.append(f"column {col!r} differs in {len(bad)} rows (first row {bad[0]}: "
                                 f"{a.iloc[bad[0]]!r} vs {b.iloc[bad[0]]!r})" if bad else
                                 f"column {col!r} differs in type: {a.dtype} vs {b.dtype}")
