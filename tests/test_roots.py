@@ -4,6 +4,7 @@ bit, on smooth, steep, flat, tiny-valued and risk-curve-like functions, and the 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 
 import numpy as np
 import pytest
@@ -12,9 +13,9 @@ from scipy import optimize
 from unbin.roots import brentq
 
 
-def _functions() -> list[tuple[str, object, float, float]]:
+def _functions() -> list[tuple[str, Callable[[float], float], float, float]]:
     rng = np.random.default_rng(20261204)
-    out: list[tuple[str, object, float, float]] = [
+    out: list[tuple[str, Callable[[float], float], float, float]] = [
         ("cubic", lambda x: x**3 - 2 * x - 5, 2.0, 3.0),
         ("cosine", lambda x: math.cos(x) - x, 0.0, 1.0),
         ("steep", lambda x: math.exp(40 * (x - 0.3)) - 1, -1.0, 1.0),
@@ -44,7 +45,7 @@ def test_roots_match_scipy_to_the_bit(xtol: float, rtol: float) -> None:
     cases = _functions()
     assert len(cases) > 30
     for name, f, a, b in cases:
-        ours = brentq(f, a, b, xtol=xtol, rtol=rtol, maxiter=500)  # type: ignore[arg-type]
+        ours = brentq(f, a, b, xtol=xtol, rtol=rtol, maxiter=500)
         ref = optimize.brentq(f, a, b, xtol=xtol, rtol=rtol, maxiter=500)
         assert ours == ref, (name, ours, ref)
 
@@ -54,7 +55,7 @@ def test_errors_match_scipy() -> None:
         with pytest.raises(ValueError):
             optimize.brentq(*bad)
         with pytest.raises(ValueError):
-            brentq(*bad)  # type: ignore[arg-type]
+            brentq(*bad)
     with pytest.raises(RuntimeError):
         optimize.brentq(lambda x: math.cos(x) - x, 0.0, 1.0, maxiter=2)
     with pytest.raises(RuntimeError):
