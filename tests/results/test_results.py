@@ -227,3 +227,24 @@ def test_provenance_hashes_are_the_inputs_and_the_spec_entries(tmp_path: Path) -
         fit_analysis(spec_path, "north", "flare_marker", tmp_path / "again")
         again = read_provenance(tmp_path / "again" / "fits.parquet")["spec_digest"]
         assert (again == want_digest) is same, key
+
+
+def test_read_table_gives_the_frame_pyarrow_read_table_gives(tmp_path: Path) -> None:
+    # Reference: pyarrow's own pq.read_table(...).to_pandas(), the reader used before.
+    import pyarrow.parquet as pq
+
+    df = pd.DataFrame({
+        "cohort": ["a", "b", None], "n": np.array([1, 2, 3], dtype="int64"),
+        "est": [0.5, np.nan, -1.25], "ok": [True, False, True],
+        "count": pd.array([1, None, 3], dtype="Int64"),
+        "level": pd.Categorical(["x", "y", "x"]),
+        "when": pd.to_datetime(["2020-01-01", None, "2021-06-30"]),
+    })
+    path = tmp_path / "t.parquet"
+    write_table(df, path, {"table": "t"})
+    ours = read_table(path)
+    pd.testing.assert_frame_equal(ours, pq.read_table(path).to_pandas(), check_exact=True)
+    pd.testing.assert_frame_equal(ours, df, check_exact=True)
+    empty = tmp_path / "empty.parquet"
+    write_table(pd.DataFrame({"cohort": pd.Series(dtype=str)}), empty, {"table": "e"})
+    pd.testing.assert_frame_equal(read_table(empty), pq.read_table(empty).to_pandas())

@@ -360,7 +360,7 @@ def pool_bundles(bundle_dirs: Sequence[str | Path], tables_dir: str | Path,
     names = list(POOLED_TABLES)
     if spec_path is not None:
         from ..published.job import add_published
-        from ..published.tables import PUBLISHED_TABLES
+        from ..published.spec import PUBLISHED_TABLES
 
         spec = load_spec(spec_path)
         pooled = add_published(spec, dict(sorted(bundles.items())), pooled)

@@ -25,9 +25,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize
 
 from ..distributions import stats
+from ..roots import brentq
 
 Z95 = float(stats.norm.ppf(0.975))
 KINDS = ("odds", "risk", "rate")
@@ -87,8 +87,8 @@ def gl_fitted_counts(kind: str, log_ratios: np.ndarray, cases: np.ndarray,
         c = rr * a0 / (n[0] - a0)
         return np.concatenate([[a0], n[1:] * c / (1.0 + c)])
 
-    a0 = optimize.brentq(lambda v: cases_at(v).sum() - m1, 1e-12 * n[0], n[0] * (1 - 1e-15),
-                         xtol=1e-13, rtol=8.9e-16, maxiter=500)
+    a0 = brentq(lambda v: cases_at(v).sum() - m1, 1e-12 * n[0], n[0] * (1 - 1e-15),
+                xtol=1e-13, rtol=8.9e-16, maxiter=500)
     A = cases_at(a0)
     return A, n - A
 
@@ -152,6 +152,8 @@ class _HamlingFit:
 def _hamling_reference(h: _HamlingFit) -> tuple[float, float]:
     """The reference (A_0, O_0) of least squared misfit: for rate, 1/A_0 on (0, min v) with
     O_0 = 1; otherwise (log A_0, log O_0) by Nelder-Mead from a grid of starts."""
+    from scipy import optimize  # only Hamling's method needs it: the other jobs skip the import
+
     vmin = float(h.v.min())
     if h.kind == "rate":
         def obj1(s: float) -> float:

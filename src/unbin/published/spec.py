@@ -34,6 +34,9 @@ SCALES = {"OR": "odds ratio", "RR": "risk ratio", "HR": "hazard ratio"}
 DESIGNS = ("case_control", "cohort_person_time", "cohort_participants")
 OTHER_COUNT = {"case_control": "controls", "cohort_person_time": "person_time",
                "cohort_participants": "participants"}
+# The tables the pooling job writes for these studies (named here, in a module without the
+# statistics, so that the workflow's set-up can name its outputs without importing them).
+PUBLISHED_TABLES = ("published_groups", "published_fits", "published_curves")
 GROUP_KEYS = ("lower", "upper", "median", "mean", "cases", "controls", "person_time",
               "participants", "ratio", "ratio_lower", "ratio_upper", "reference")
 

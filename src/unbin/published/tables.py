@@ -34,7 +34,6 @@ from .exposure import assigned_exposures
 from .gls import TrendFit, fit_trend, trend_basis, trend_curve
 from .spec import PublishedStudy
 
-PUBLISHED_TABLES = ("published_groups", "published_fits", "published_curves")
 EVIDENCE_DATA = "individual data"
 EVIDENCE_TABLE = "published table"
 EVIDENCE_POOLED = "pooled"

@@ -10,10 +10,10 @@ range, with the rest of the linear predictor (everything but the exposure: inter
 baseline hazard, adjustment, the level's main effect) held at its 10th, 50th and 90th percentile
 among the level's rows — the cut a risk rule implies moves with the patient's other risk
 factors. Crossings are found on a grid of :data:`SEARCH_POINTS` points and refined by Brent's
-method (``scipy.optimize.brentq``), so the risk at a reported value equals the threshold to
-rounding; every crossing of a non-monotone curve is reported (``crossing`` 1, 2, ...), a curve
-that stays on one side is reported once with ``position`` "always above"/"always below". A
-crossing between two grid points that touches the threshold without crossing it is not found.
+method (``unbin.roots.brentq``, scipy's ``brentq`` step for step), so the risk at a reported
+value equals the threshold to rounding; every crossing of a non-monotone curve is reported
+(``crossing`` 1, 2, ...), a curve that stays on one side is reported once with ``position``
+"always above"/"always below". A crossing between two grid points that touches the threshold without crossing it is not found.
 Each value is compared with the nearest legacy cut. The interaction model
 (:mod:`unbin.refit.interaction`: a spline with knots fixed before the outcome is seen, the level main
 effects in the model and in the one it is tested against) and its likelihood-ratio test against
@@ -28,10 +28,10 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import optimize
 
 from ..refit.analysis import Refit
 from ..refit.risk import RiskFit, link
+from ..roots import brentq
 from ..spec import Spec
 from .decisions import EVENT_FAMILIES, decision_models, finish
 
@@ -53,7 +53,7 @@ def crossings(curve: Callable[[np.ndarray], np.ndarray], lo: float, hi: float, t
         def g(v: float) -> float:
             return float(curve(np.array([v]))[0] - target)
 
-        root = float(optimize.brentq(g, grid[i], grid[i + 1], xtol=1e-13, maxiter=200))
+        root = float(brentq(g, grid[i], grid[i + 1], xtol=1e-13, maxiter=200))
         direction = "rising" if above[i + 1] else "falling"
         if found and abs(root - found[-1][0]) <= 1e-9 * max(hi - lo, 1.0):
             continue  # the grid point itself is the root: counted once

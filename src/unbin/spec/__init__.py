@@ -10,12 +10,14 @@ from .checks import semantic_problems
 from .load import (
     MAX_SPEC_DEPTH,
     MAX_SPEC_NODES,
+    VALIDATED_ENV,
     load_spec,
     named_paths,
     parse_spec,
     read_yaml,
     schema_problems,
     spec_schema,
+    validated_spec,
     yaml_message,
 )
 from .model import (
@@ -45,7 +47,7 @@ __all__ = [
     "DEFAULT_KNOTS", "DEFAULT_SEED", "FORMS", "MAX_SPEC_DEPTH", "MAX_SPEC_NODES",
     "OPTIONAL_OUTCOME_FIELDS", "OUTCOME_FIELDS", "Analysis", "Cohort", "ContinuousOptions",
     "CutpointSearch", "Filter", "Grouping", "OutcomeSpec", "Reported", "Resampling", "Spec",
-    "VariableInfo", "Weighting", "canonical_json", "default_labels", "digest", "load_spec", "named_paths",
-    "parse_spec", "read_yaml", "schema_problems", "semantic_problems", "spec_schema",
-    "yaml_message",
+    "VALIDATED_ENV", "VariableInfo", "Weighting", "canonical_json", "default_labels", "digest",
+    "load_spec", "named_paths", "parse_spec", "read_yaml", "schema_problems", "semantic_problems",
+    "spec_schema", "validated_spec", "yaml_message",
 ]

@@ -5,7 +5,9 @@ in)."""
 from __future__ import annotations
 
 import difflib
+import hashlib
 import json
+import os
 import re
 from functools import cache
 from importlib import resources
@@ -44,11 +46,16 @@ def spec_schema() -> dict[str, Any]:
 
 
 def read_yaml(path: str | Path) -> dict[str, Any]:
-    p = Path(path)
+    return _read_yaml(Path(path))[0]
+
+
+def _read_yaml(p: Path) -> tuple[dict[str, Any], str]:
+    """The file's top-level mapping and the SHA-256 of the bytes it was read from."""
     if not p.is_file():
         raise SpecError(f"spec: file {str(p)!r} does not exist; pass the path of a YAML spec.")
     try:
-        data = yaml.safe_load(p.read_text(encoding="utf-8"))
+        content = p.read_bytes()
+        data = yaml.safe_load(content.decode("utf-8"))
     except yaml.YAMLError as exc:
         raise SpecError(yaml_message(p.name, exc)) from None
     except UnicodeDecodeError:
@@ -61,7 +68,7 @@ def read_yaml(path: str | Path) -> dict[str, Any]:
     if not isinstance(data, dict):
         raise SpecError(f"spec: the top level of {p.name} must be a mapping (key: value), "
                         f"got {type(data).__name__}.")
-    return data
+    return data, hashlib.sha256(content).hexdigest()
 
 
 def yaml_message(name: str, exc: yaml.YAMLError) -> str:
@@ -83,11 +90,29 @@ def yaml_message(name: str, exc: yaml.YAMLError) -> str:
             "(indentation, colons, quotes).")
 
 
+# The workflow validates its spec once, when Snakemake reads the workflow, and puts the SHA-256
+# of the text it validated into this environment variable for the jobs it starts
+# (`validated_spec`). A job whose spec file holds that very text builds the spec without
+# validating it again (importing the JSON-schema library alone took about a twentieth of a
+# second of each job's CPU time); any other text is validated as usual.
+VALIDATED_ENV = "UNBIN_VALIDATED_SPEC"
+
+
 def load_spec(path: str | Path) -> Spec:
     """Read, validate and resolve a spec file. Raises SpecError listing every problem found."""
     p = Path(path).resolve()
-    raw = read_yaml(p)
+    raw, sha = _read_yaml(p)
+    if sha == os.environ.get(VALIDATED_ENV) and not _shape_problem(raw):
+        return _build(_dates_as_text(raw), p.parent, p)
     return parse_spec(raw, base=p.parent, source=p)
+
+
+def validated_spec(path: str | Path) -> tuple[Spec, str]:
+    """Read, validate (always) and resolve a spec file; also the SHA-256 of the text validated,
+    which the workflow hands its jobs in ``UNBIN_VALIDATED_SPEC``."""
+    p = Path(path).resolve()
+    raw, sha = _read_yaml(p)
+    return parse_spec(raw, base=p.parent, source=p), sha
 
 
 MAX_SPEC_DEPTH = 32  # a spec needs about 7 levels

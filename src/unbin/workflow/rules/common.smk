@@ -1,5 +1,6 @@
 # Shared set-up: validate the config and the spec up front, and name the jobs.
 import copy
+import os
 from pathlib import Path
 
 from snakemake.utils import min_version, validate
@@ -14,9 +15,8 @@ from unbin.pipeline.workflow_support import (
     derived_basis_analyses,
     study_params,
 )
-from unbin.published.spec import published_studies
-from unbin.published.tables import PUBLISHED_TABLES
-from unbin.spec import digest, load_spec
+from unbin.published.spec import PUBLISHED_TABLES, published_studies
+from unbin.spec import VALIDATED_ENV, digest, validated_spec
 
 min_version("9.0")
 
@@ -26,11 +26,14 @@ UNBIN_RULES_DIR = Path(workflow.current_basedir)
 
 validate(config, str(UNBIN_RULES_DIR.parent / "schemas" / "config.schema.json"))
 UNBIN_SPEC_PATH = str(Path(config["spec"]).resolve())
-UNBIN_SPEC = load_spec(UNBIN_SPEC_PATH)
+UNBIN_SPEC, UNBIN_SPEC_SHA256 = validated_spec(UNBIN_SPEC_PATH)
 # Snakemake's validate fills schema defaults in place: validate a copy, keep the spec as written.
 validate(
     copy.deepcopy(UNBIN_SPEC.raw), str(UNBIN_RULES_DIR.parent / "schemas" / "spec.schema.json")
 )
+# The jobs this process starts inherit its environment: a job that finds this very text in the
+# spec file skips validating it again (unbin.spec.load.VALIDATED_ENV).
+os.environ[VALIDATED_ENV] = UNBIN_SPEC_SHA256
 
 UNBIN_COHORTS = [c.name for c in UNBIN_SPEC.cohorts]
 UNBIN_ANALYSES = [a.name for a in UNBIN_SPEC.analyses]
