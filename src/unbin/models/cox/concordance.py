@@ -338,75 +338,76 @@ def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarr
     before an earlier-half event is the number of later rows with a lower score (an equal score
     sorts after, by position); with weights, the running sum of the later rows' weights. The
     count is also each row's rank within its half, which places it in the next level's
-    arrangement (one scatter per level, shared by every entry of ``weights``; the work arrays
-    are allocated once). The pairs within the smallest blocks (16 positions) are compared
-    directly, by each row's rank in the score order.
+    arrangement. Each row's position, event flag and target flag travel packed in one integer
+    (position << 2 | target << 1 | event), so one scatter per level moves them (one more per
+    weighted entry); the work arrays are allocated once. The pairs within the smallest blocks
+    (16 positions) are compared directly, by each row's rank in the score order.
     """
     n = pos.size
     if n < 2:
         return [0] * len(weights)
     low = min(_BRUTE_BITS, (n - 1).bit_length())
     higher = _within_blocks(pos, dead, idx, low, target, weights)
-    pos, dead = pos.astype(np.intp), dead.copy()
-    tgt = None if target is None else target.copy()
-    ws = [None if w is None else w.copy() for w in weights]
+    itype = np.int32 if n < 2**28 else np.int64
+    key = pos.astype(itype) << 2
+    key |= dead
+    if target is not None:
+        key |= target.astype(itype) << 1
+    ws = [None if w is None else w.astype(np.int64) for w in weights]
     ws_next = [None if w is None else np.empty_like(w) for w in ws]
-    at = np.arange(n, dtype=np.intp)
-    pos_next, dead_next = np.empty_like(pos), np.empty_like(dead)
-    tgt_next = None if tgt is None else np.empty_like(tgt)
+    at = np.arange(n, dtype=itype)
+    key_next = np.empty_like(key)
     later = np.empty(n, dtype=bool)
-    count, dest, tmp = (np.empty(n, dtype=np.intp) for _ in range(3))
-    count_t = None if tgt is None else np.empty(n, dtype=np.intp)
-    later_t = None if tgt is None else np.empty(n, dtype=bool)
+    first_event = np.empty(n, dtype=bool)  # an event in the earlier half
+    count, count_t, dest, tmp = (np.empty(n, dtype=itype) for _ in range(4))
+    later_t = None if target is None else np.empty(n, dtype=bool)
     weighted = any(w is not None for w in ws)
     wsum, wtmp = ((np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)) if weighted
                   else (None, None))
     for level in range((n - 1).bit_length() - 1, low - 1, -1):
         size = 1 << (level + 1)  # the block
         full = n // size * size
-        np.bitwise_and(pos, 1 << level, out=count)
+        bit = 1 << (level + 2)  # bit L of the position, in the packed key
+        np.bitwise_and(key, bit, out=count)
         np.not_equal(count, 0, out=later)
+        np.bitwise_and(key, bit | 1, out=tmp)
+        np.equal(tmp, 1, out=first_event)
         np.cumsum(later, out=count)
         count -= later  # later rows before each row ...
         _per_block(count, size, full)  # ... in its block
-        tally = count
-        if tgt is not None:
-            assert count_t is not None and later_t is not None
-            np.logical_and(later, tgt, out=later_t)
+        tally, later_w = count, later
+        if later_t is not None:
+            np.bitwise_and(key, bit | 2, out=tmp)
+            np.equal(tmp, bit | 2, out=later_t)  # a later row that is a target
             np.cumsum(later_t, out=count_t)
             count_t -= later_t
             _per_block(count_t, size, full)
-            tally = count_t
-        earlier_event = None
+            tally, later_w = count_t, later_t
+        # (masks enter as 0/1 factors: numpy's masked reductions and copies are slower)
         for k, w in enumerate(ws):
             if w is None:
-                np.multiply(tally, dead, out=tmp)
-                np.multiply(tmp, ~later, out=tmp)
-                higher[k] += int(tmp.sum())
+                np.multiply(tally, first_event, out=tmp)
+                higher[k] += int(tmp.sum(dtype=np.int64))
                 continue
             assert wsum is not None and wtmp is not None
             # the later (target) rows' weights, summed before each row in its block
-            np.multiply(w, later if later_t is None else later_t, out=wtmp)
+            np.multiply(w, later_w, out=wtmp)
             np.cumsum(wtmp, out=wsum)
             wsum -= wtmp
             _per_block(wsum, size, full)
-            if earlier_event is None:
-                earlier_event = dead & ~later
             np.multiply(wsum, w, out=wtmp)
-            higher[k] += int(wtmp[earlier_event].sum())
+            wtmp *= first_event
+            higher[k] += int(wtmp.sum())
         if level > low:
             np.subtract(at, count, out=dest)  # earlier half: its rank among the earlier rows
             np.bitwise_and(at, ~(size - 1), out=tmp)  # later half: after the earlier half
             tmp += 1 << level
             tmp += count
-            np.copyto(dest, tmp, where=later)
-            pos_next[dest] = pos
-            dead_next[dest] = dead
-            pos, pos_next, dead, dead_next = pos_next, pos, dead_next, dead
-            if tgt is not None:
-                assert tgt_next is not None
-                tgt_next[dest] = tgt
-                tgt, tgt_next = tgt_next, tgt
+            tmp -= dest
+            tmp *= later
+            dest += tmp
+            key_next[dest] = key
+            key, key_next = key_next, key
             for k, w in enumerate(ws):
                 if w is not None:
                     w_next = ws_next[k]
