@@ -348,7 +348,7 @@ def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarr
         return [0] * len(weights)
     low = min(_BRUTE_BITS, (n - 1).bit_length())
     higher = _within_blocks(pos, dead, idx, low, target, weights)
-    itype = np.int32 if n < 2**28 else np.int64
+    itype: Any = np.int32 if n < 2**28 else np.int64
     key = pos.astype(itype) << 2
     key |= dead
     if target is not None:
