@@ -190,6 +190,13 @@ def concordances(time_order: TimeOrder, risk_score: Any,
     pos = _by_key(s_time, T.stratum_s, itype)
     by_score = s_time[pos]
     w_sorted = [None if w is None else w[pos] for w in w_time]  # (before the move below)
+    # runs of equal (stratum, score); each position's run number orders the late-entry items
+    new_s = _new_runs(by_score, None if T.stratum_s is None else T.stratum_s[pos])
+    run = np.cumsum(new_s) - 1
+    run_at = None
+    if T.late is not None:
+        run_at = np.empty(n, dtype=np.int64)
+        run_at[pos] = run
     # the events tied in time take their time's slots by increasing score: the tied events in
     # score order, grouped by their time (a stable sort, so still by score within a time)
     same_time_same_score = [0] * len(counts)
@@ -208,10 +215,8 @@ def concordances(time_order: TimeOrder, risk_score: Any,
                                 for w in w_time]
     dead = T.event_s[pos]
     # tied scores: every event with the later rows of its run of equal (stratum, score)
-    new_s = _new_runs(by_score, None if T.stratum_s is None else T.stratum_s[pos])
     run_end = np.r_[np.flatnonzero(new_s)[1:], n]
     idx = np.arange(n, dtype=itype)
-    run = np.cumsum(new_s) - 1
     equal = []
     for w, tts in zip(w_sorted, same_time_same_score, strict=True):
         if w is None:
@@ -223,7 +228,8 @@ def concordances(time_order: TimeOrder, risk_score: Any,
         equal.append(e_k - tts)
     higher = _earlier_events_above_later(pos, dead, idx, weights=w_sorted)
     if T.late is not None:
-        late = _late_pairs(T.late, s_time, itype, w_time)
+        assert run_at is not None
+        late = _late_pairs(T.late, s_time, itype, w_time, run_at)
         for k, (late_higher, late_equal) in enumerate(late):
             higher[k] -= late_higher
             equal[k] -= late_equal
@@ -284,6 +290,15 @@ def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.nda
     return pos.astype(itype)
 
 
+def _stable_order(key: np.ndarray) -> np.ndarray:
+    """``np.argsort(key, kind="stable")`` of non-negative whole numbers; below 2^32 as two
+    stable sorts by 16-bit halves (numpy's radix sort), low half first."""
+    if key.size == 0 or int(key.max()) >= 2**32:
+        return np.argsort(key, kind="stable")
+    by_low = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
+    return by_low[np.argsort((key[by_low] >> 16).astype(np.uint16), kind="stable")]
+
+
 def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
     """Where a run of equal (stratum, value) starts, for values sorted by (stratum, value)."""
     new = np.ones(values.size, dtype=bool)
@@ -294,13 +309,16 @@ def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
 
 
 def _late_pairs(L: _LateEntry, s_time: np.ndarray, itype: Any,
-                w_time: Sequence[np.ndarray | None]) -> list[tuple[int, int]]:
+                w_time: Sequence[np.ndarray | None], run_at: np.ndarray,
+                ) -> list[tuple[int, int]]:
     """Among the pairs delayed entry takes out (event item before an entry item of its
     stratum), those where the event has the higher score, and those with equal scores; per
-    entry of ``w_time`` (row counts in time order, None: every row once)."""
+    entry of ``w_time`` (row counts in time order, None: every row once). ``run_at``: every
+    position's run of equal (stratum, score) in their order, so that the items' order by
+    (stratum, score), ties by item, is a stable sort of whole numbers."""
     m = L.row.size
     sc = s_time[L.row]
-    ip = _by_key(sc, L.stratum, itype)
+    ip = _stable_order(run_at[L.row]).astype(itype)
     first = L.is_event[ip]
     w_items = [None if w is None else w[L.row[ip]] for w in w_time]
     higher = _earlier_events_above_later(ip, first, np.arange(m, dtype=itype), target=~first,
