@@ -21,7 +21,10 @@ legacy cuts and the spline's knot count stay as in the full sample. Each replica
 refitted by Newton's method from the full-sample estimates on frequency weights (logistic:
 vectorised over replicates, :class:`unbin.models.weighted.WeightedGLM`; survival:
 :func:`unbin.models.weighted.weighted_cox_designs`, with the replicate's own Breslow baseline
-for the risk at the horizon).
+for the risk at the horizon). A survival replicate's C indices in its drawn rows and in the full
+sample come from one sort of the replicate model's score
+(:func:`unbin.models.cox.concordance.concordances`: the drawn rows as draw counts on the full
+sample's time order, the same integer pair counts as the repeated rows).
 
 Competing events (``outcome.competing``): the risks are those of the decision tables
 (:func:`unbin.refit.risk.competing_risk_fit`), the cumulative incidence of the event of
