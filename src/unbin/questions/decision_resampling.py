@@ -21,7 +21,10 @@ legacy cuts and the spline's knot count stay as in the full sample. Each replica
 refitted by Newton's method from the full-sample estimates on frequency weights (logistic:
 vectorised over replicates, :class:`unbin.models.weighted.WeightedGLM`; survival:
 :func:`unbin.models.weighted.weighted_cox_designs`, with the replicate's own Breslow baseline
-for the risk at the horizon).
+for the risk at the horizon). A survival replicate's C indices in its drawn rows and in the full
+sample come from one sort of the replicate model's score
+(:func:`unbin.models.cox.concordance.concordances`: the drawn rows as draw counts on the full
+sample's time order, the same integer pair counts as the repeated rows).
 
 Competing events (``outcome.competing``): the risks are those of the decision tables
 (:func:`unbin.refit.risk.competing_risk_fit`), the cumulative incidence of the event of
@@ -84,6 +87,7 @@ from ..models.cox import (
     refit_near,
 )
 from ..models.cox.baseline import baseline_steps
+from ..models.cox.concordance import concordances
 from ..models.discrimination import auc, c_index
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
@@ -161,16 +165,20 @@ class _Sample:
                                           strata=self.strata)
         return self._layout
 
+    def time_order(self) -> Any:
+        """Harrell's C's time order of these rows (made once, shared by every score)."""
+        if self._order is None:
+            self._order = concordance_order(self.time, self.y, self.entry, self.strata)
+        return self._order
+
     def c_index(self, lp: np.ndarray) -> float:
         if self.w is not None:  # pairs weighted w_i w_j (unbin.models.discrimination)
             return c_index(Outcome(self.family, self.y, time=self.time, entry=self.entry,
                                    strata=self.strata, weights=self.w), lp)
         if self.family == "binary":
             return pair_auc(self.y, lp)
-        if self._order is None:
-            self._order = concordance_order(self.time, self.y, self.entry, self.strata)
         return float(concordance(self.time, lp, self.y, entry=self.entry, strata=self.strata,
-                                 time_order=self._order))
+                                 time_order=self.time_order()))
 
     def net_benefit(self, pt: np.ndarray, risk: np.ndarray | None = None,
                     positive: np.ndarray | None = None) -> np.ndarray:
@@ -543,18 +551,37 @@ class _Evaluator:
         return (np.asarray(special.expit(z)) if self.r.family == "binary"
                 else np.asarray(-np.expm1(-np.exp(z))))
 
+    def replicate_c(self, zs: dict[int, np.ndarray | None], drawn: _Sample, full: _Sample,
+                    ) -> tuple[dict[int, float], dict[int, float]] | None:
+        """Harrell's C of every model of a replicate in its drawn data set and in the full
+        sample at once (survival without weights; else None): the drawn rows are the full
+        sample's rows repeated as drawn, so one time order (the full sample's) and one sort
+        by score serve both (:func:`unbin.models.cox.concordance.concordances`, the same
+        numbers as the C index of the repeated rows)."""
+        if self.r.family != "survival" or drawn.w is not None or full.w is not None:
+            return None
+        counts = np.bincount(drawn.idx, minlength=self.r.outcome.n)
+        in_drawn: dict[int, float] = {}
+        in_full: dict[int, float] = {}
+        for key, z in zs.items():
+            if z is not None:
+                in_drawn[key], in_full[key] = concordances(full.time_order(), z[full.idx],
+                                                           [counts, None])
+        return in_drawn, in_full
+
     def measures(self, coef_by: dict[tuple[str, str], np.ndarray],
                  zs: dict[int, np.ndarray | None], fit: _Sample, on: _Sample,
                  apparent_run: bool = False,
                  risks: dict[tuple[str, str], RiskZ] | None = None,
-                 implied: bool = True,
+                 implied: bool = True, c_of: dict[int, float] | None = None,
                  ) -> dict[tuple[Any, ...], float]:
         """Every quantity of the models with coefficients ``coef_by`` (fitted on ``fit``)
         judged on ``on``'s rows; ``risks`` (competing events) the risk models' Fine–Gray
         coefficients and z fitted on the same rows (:func:`fine_gray_risks`). The implied
-        thresholds (which depend on ``fit`` only) are left out when ``implied`` is false."""
+        thresholds (which depend on ``fit`` only) are left out when ``implied`` is false.
+        ``c_of``: the models' C indices on ``on`` when already known (:meth:`replicate_c`)."""
         out: dict[tuple[Any, ...], float] = {}
-        cixs: dict[int, float] = {}
+        cixs: dict[int, float] = dict(c_of) if c_of is not None else {}
         for k in self.keys:
             z = zs[id(self.models[k])]
             if z is not None:
@@ -719,9 +746,12 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
         if ev.competing:  # the Fine–Gray models refitted on the drawn rows
             assert horizon is not None
             risks_b = fine_gray_risks(r, models, horizon, rows_b, weights_b, risks)[0]
-        boot.append(ev.measures(cb, zs, drawn, drawn, risks=risks_b))
+        both = ev.replicate_c(zs, drawn, full)
+        boot.append(ev.measures(cb, zs, drawn, drawn, risks=risks_b,
+                                c_of=None if both is None else both[0]))
         # the implied thresholds read the fitting rows only: the same as in ``boot``
-        test.append(ev.measures(cb, zs, drawn, full, risks=risks_b, implied=False))
+        test.append(ev.measures(cb, zs, drawn, full, risks=risks_b, implied=False,
+                                c_of=None if both is None else both[1]))
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
     if collect is not None:
         collect.update(apparent=apparent, boot=boot, test=test, notes=notes, base=base)

@@ -4,6 +4,7 @@ weights, ``weighted_concordance`` (every pair counted w_i w_j) on ``weighted_pai
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -31,6 +32,7 @@ class _LateEntry:
     is_event: np.ndarray  # the item is an event (else an entry)
     stratum: np.ndarray | None  # each item's stratum code (None with one stratum)
     pairs: int  # (event, later entry) pairs within strata
+    last: np.ndarray  # each item's stratum's end (exclusive) in the kept items
 
 
 @dataclass(frozen=True)
@@ -49,6 +51,8 @@ class TimeOrder:
     tied_at: np.ndarray  # (n,) every position's tied_grp; the dtype's largest value if none
     stratum_s: np.ndarray | None = None  # stratum codes in that order (None: one stratum)
     late: _LateEntry | None = None  # None without delayed entry (or when it removes no pair)
+    events: np.ndarray | None = None  # positions of the events in that order
+    events_end: np.ndarray | None = None  # the end (exclusive) of each event's stratum
 
 
 def _small_stratum_codes(strata: Any | None, n: int) -> np.ndarray | None:
@@ -89,7 +93,10 @@ def _late_entry(t_s: np.ndarray, e_s: np.ndarray, en_s: np.ndarray,
     if pairs == 0:
         return None
     keep = np.where(is_event, entries_after > 0, events_before > 0)
-    return _LateEntry(rows[keep], is_event[keep], None if st is None else st[keep], pairs)
+    st_kept = None if st is None else st[keep]
+    last_kept = (np.full(int(keep.sum()), int(keep.sum()), dtype=np.intp) if st_kept is None
+                 else np.searchsorted(st_kept, st_kept, side="right"))
+    return _LateEntry(rows[keep], is_event[keep], st_kept, pairs, last_kept)
 
 
 def concordance_order(time: Any, event: Any, entry: Any | None = None,
@@ -129,7 +136,7 @@ def concordance_order(time: Any, event: Any, entry: Any | None = None,
     late = None if en is None else _late_entry(t_s, e_s, en[order], c_s)
     if late is not None:
         pairs -= late.pairs
-    return TimeOrder(n, order, e_s, pairs, slots, tied_grp, tied_at, c_s, late)
+    return TimeOrder(n, order, e_s, pairs, slots, tied_grp, tied_at, c_s, late, ev, end)
 
 
 def concordance(
@@ -151,26 +158,48 @@ def concordance(
     O(n log n), exact in integers (a sort by score, then one stable partition per bit of the
     position; DEVELOPERS.md, "The Cox engine's performance", describes the passes).
     """
-    s = np.asarray(risk_score, dtype=float)
     if time_order is None:
         time_order = concordance_order(time, event, entry, strata)
-    if s.ndim != 1 or s.shape[0] != time_order.n:
+    return concordances(time_order, risk_score, [None])[0]
+
+
+def concordances(time_order: TimeOrder, risk_score: Any,
+                 counts: Sequence[np.ndarray | None]) -> list[float]:
+    """Harrell's C of one score on several multisets of one sample's rows: for each entry of
+    ``counts``, the rows each repeated as often as it says (non-negative whole numbers, one per
+    row in the sample's order; None: every row once). Each value equals :func:`concordance` of
+    the repeated rows (a bootstrap replicate's drawn data set) exactly: a pair of rows counts
+    c_i c_j times and a row's copies form no pair with each other (two events at one time, or
+    no event), so the integer pair counts are the same. The sort by score and the partition
+    passes are shared by all entries; only the counts' tallies are added per entry."""
+    s = np.asarray(risk_score, dtype=float)
+    T = time_order
+    if s.ndim != 1 or s.shape[0] != T.n:
         raise ValueError(
-            f"risk_score must be one-dimensional with {time_order.n} values, got shape {s.shape}"
+            f"risk_score must be one-dimensional with {T.n} values, got shape {s.shape}"
         )
     _check_finite("risk_score", s)
-    T = time_order
     n = T.n
     if n < 2 or not T.event_s.any() or T.pairs <= 0:
-        return float("nan")
+        return [float("nan")] * len(counts)
+    w_time = [None if c is None else _counts_array(c, n)[T.order] for c in counts]
+    pairs = [T.pairs if w is None else _weighted_pairs(T, w) for w in w_time]
     s_time = s[T.order]  # scores in time order
     itype = np.int32 if n < 2**30 else np.int64
     # positions sorted by (stratum, score), ties by position (stable sorts)
     pos = _by_key(s_time, T.stratum_s, itype)
     by_score = s_time[pos]
+    w_sorted = [None if w is None else w[pos] for w in w_time]  # (before the move below)
+    # runs of equal (stratum, score); each position's run number orders the late-entry items
+    new_s = _new_runs(by_score, None if T.stratum_s is None else T.stratum_s[pos])
+    run = np.cumsum(new_s) - 1
+    run_at = None
+    if T.late is not None:
+        run_at = np.empty(n, dtype=np.int64)
+        run_at[pos] = run
     # the events tied in time take their time's slots by increasing score: the tied events in
     # score order, grouped by their time (a stable sort, so still by score within a time)
-    same_time_same_score = 0
+    same_time_same_score = [0] * len(counts)
     if T.tied_slots.size:
         seq = pos[T.tied_at[pos] != np.iinfo(T.tied_at.dtype).max]  # tied events, by score
         seq = seq[np.argsort(T.tied_at[seq], kind="stable")]  # by time, then score
@@ -181,21 +210,76 @@ def concordance(
         # events tied in time and in score: counted as tied below, but not comparable
         new_ts = np.ones(st.size, dtype=bool)
         new_ts[1:] = (T.tied_grp[1:] != T.tied_grp[:-1]) | (st[1:] != st[:-1])
-        size_ts = np.diff(np.r_[np.flatnonzero(new_ts), st.size])
-        same_time_same_score = int((size_ts * (size_ts - 1) // 2).sum())
+        starts = np.flatnonzero(new_ts)
+        same_time_same_score = [_pairs_within_runs(starts, None if w is None else w[seq], st.size)
+                                for w in w_time]
     dead = T.event_s[pos]
     # tied scores: every event with the later rows of its run of equal (stratum, score)
-    new_s = _new_runs(by_score, None if T.stratum_s is None else T.stratum_s[pos])
     run_end = np.r_[np.flatnonzero(new_s)[1:], n]
     idx = np.arange(n, dtype=itype)
-    run = np.cumsum(new_s) - 1
-    equal = int((run_end[run[dead]] - 1 - idx[dead]).sum()) - same_time_same_score
-    higher = _earlier_events_above_later(pos, dead, idx)
+    equal = []
+    for w, tts in zip(w_sorted, same_time_same_score, strict=True):
+        if w is None:
+            e_k = int((run_end[run[dead]] - 1 - idx[dead]).sum())
+        else:  # every event's count times the counts of the later rows of its run
+            cw = np.r_[0, np.cumsum(w)]
+            at = idx[dead]
+            e_k = int((w[at] * (cw[run_end[run[at]]] - cw[at + 1])).sum())
+        equal.append(e_k - tts)
+    higher = _earlier_events_above_later(pos, dead, idx, weights=w_sorted)
     if T.late is not None:
-        late_higher, late_equal = _late_pairs(T.late, s_time, itype)
-        higher -= late_higher
-        equal -= late_equal
-    return (higher + 0.5 * equal) / T.pairs
+        assert run_at is not None
+        late = _late_pairs(T.late, s_time, itype, w_time, run_at)
+        for k, (late_higher, late_equal) in enumerate(late):
+            higher[k] -= late_higher
+            equal[k] -= late_equal
+    return [float("nan") if p <= 0 else (h + 0.5 * e) / p
+            for h, e, p in zip(higher, equal, pairs, strict=True)]
+
+
+def _counts_array(counts: np.ndarray, n: int) -> np.ndarray:
+    """Checked per-row repeat counts as int64."""
+    c = np.asarray(counts)
+    if c.shape != (n,):
+        raise ValueError(f"counts must have one value per row ({n}), got shape {c.shape}")
+    ci = c.astype(np.int64)
+    if np.any(ci != c) or np.any(ci < 0):
+        raise ValueError("counts must be non-negative whole numbers (how often each row is "
+                         "repeated)")
+    return ci
+
+
+def _pairs_within_runs(starts: np.ndarray, w: np.ndarray | None, size: int) -> int:
+    """Pairs of items within the runs starting at ``starts`` (of ``size`` items), every pair
+    counted w_i w_j (once each: (sum w)^2 - sum w^2, halved); without ``w`` k (k - 1) / 2."""
+    if w is None:
+        k = np.diff(np.r_[starts, size])
+        return int((k * (k - 1) // 2).sum())
+    if size == 0:
+        return 0
+    tot = np.add.reduceat(w, starts)
+    sq = np.add.reduceat(w * w, starts)
+    return int(((tot * tot - sq) // 2).sum())
+
+
+def _weighted_pairs(T: TimeOrder, w: np.ndarray) -> int:
+    """The comparable pairs of :class:`TimeOrder` with every pair counted w_i w_j (``w`` in
+    time order): each event with the later rows of its stratum, less the events tied in time,
+    less the pairs delayed entry takes out."""
+    assert T.events is not None and T.events_end is not None
+    ev, end = T.events, T.events_end
+    cw = np.r_[0, np.cumsum(w)]
+    total = int((w[ev] * (cw[end] - cw[ev + 1])).sum())
+    if T.tied_slots.size:
+        starts = np.flatnonzero(np.r_[True, T.tied_grp[1:] != T.tied_grp[:-1]])
+        total -= _pairs_within_runs(starts, w[T.tied_slots], T.tied_slots.size)
+    if T.late is not None:
+        L = T.late
+        wl = w[L.row]
+        ce = np.r_[0, np.cumsum(np.where(L.is_event, 0, wl))]  # entry counts so far
+        at = np.flatnonzero(L.is_event)
+        total -= int((wl[at] * (ce[L.last[at]] - ce[at + 1])).sum())
+    return total
 
 
 def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.ndarray:
@@ -204,6 +288,15 @@ def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.nda
     if stratum is not None:
         pos = pos[np.argsort(stratum[pos], kind="stable")]
     return pos.astype(itype)
+
+
+def _stable_order(key: np.ndarray) -> np.ndarray:
+    """``np.argsort(key, kind="stable")`` of non-negative whole numbers; below 2^32 as two
+    stable sorts by 16-bit halves (numpy's radix sort), low half first."""
+    if key.size == 0 or int(key.max()) >= 2**32:
+        return np.argsort(key, kind="stable")
+    by_low = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
+    return by_low[np.argsort((key[by_low] >> 16).astype(np.uint16), kind="stable")]
 
 
 def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
@@ -215,85 +308,130 @@ def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
     return new
 
 
-def _late_pairs(L: _LateEntry, s_time: np.ndarray, itype: Any) -> tuple[int, int]:
+def _late_pairs(L: _LateEntry, s_time: np.ndarray, itype: Any,
+                w_time: Sequence[np.ndarray | None], run_at: np.ndarray,
+                ) -> list[tuple[int, int]]:
     """Among the pairs delayed entry takes out (event item before an entry item of its
-    stratum), those where the event has the higher score, and those with equal scores."""
+    stratum), those where the event has the higher score, and those with equal scores; per
+    entry of ``w_time`` (row counts in time order, None: every row once). ``run_at``: every
+    position's run of equal (stratum, score) in their order, so that the items' order by
+    (stratum, score), ties by item, is a stable sort of whole numbers."""
     m = L.row.size
     sc = s_time[L.row]
-    ip = _by_key(sc, L.stratum, itype)
+    ip = _stable_order(run_at[L.row]).astype(itype)
     first = L.is_event[ip]
-    higher = _earlier_events_above_later(ip, first, np.arange(m, dtype=itype), target=~first)
+    w_items = [None if w is None else w[L.row[ip]] for w in w_time]
+    higher = _earlier_events_above_later(ip, first, np.arange(m, dtype=itype), target=~first,
+                                         weights=w_items)
     new = _new_runs(sc[ip], None if L.stratum is None else L.stratum[ip])
     start = np.flatnonzero(new)[np.cumsum(new) - 1]  # each item's run start (sorted order)
-    n_ev = np.r_[0, np.cumsum(first)]
-    before = n_ev[np.arange(m)] - n_ev[start]  # events earlier in the run: earlier items
-    return higher, int(before[~first].sum())
+    out = []
+    for h, w in zip(higher, w_items, strict=True):
+        if w is None:
+            n_ev = np.r_[0, np.cumsum(first)]
+            before = n_ev[np.arange(m)] - n_ev[start]  # events earlier in the run: earlier items
+            out.append((h, int(before[~first].sum())))
+        else:
+            n_ev = np.r_[0, np.cumsum(np.where(first, w, 0))]
+            before = n_ev[np.arange(m)] - n_ev[start]
+            out.append((h, int((w * before)[~first].sum())))
+    return out
 
 
 _BRUTE_BITS = 4  # pairs within blocks of 2^4 positions are compared directly
 
 
 def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray,
-                                target: np.ndarray | None = None) -> int:
+                                target: np.ndarray | None = None,
+                                weights: Sequence[np.ndarray | None] = (None,)) -> list[int]:
     """Count pairs of positions i < j with i an event and a higher score than j (and, with
-    ``target``, j a target: ``target`` is aligned with ``pos`` as ``dead`` is).
+    ``target``, j a target: ``target`` is aligned with ``pos`` as ``dead`` is), once per entry
+    of ``weights`` (aligned with ``pos`` too): None counts every pair once, an integer array
+    counts a pair w_i w_j.
 
     ``pos`` are the positions 0..n-1 sorted by score (ties by position), ``dead`` whether each
     is an event, ``idx`` = arange(n) of pos's dtype. At the level of bit L the rows are arranged
     in blocks of 2^(L+1) positions (block b at indices from b 2^(L+1), as the positions are a
     permutation), each in score order; the later half of a block is bit L = 1. Its running count
     before an earlier-half event is the number of later rows with a lower score (an equal score
-    sorts after, by position). That count is also each row's rank within its half, which
-    places it in the next level's arrangement (one scatter per level; the work arrays are
-    allocated once). The pairs within the smallest blocks (16 positions) are compared
-    directly, by each row's rank in the score order.
+    sorts after, by position); with weights, the running sum of the later rows' weights. The
+    count is also each row's rank within its half, which places it in the next level's
+    arrangement. Each row's position, event flag and target flag travel packed in one integer
+    (position << 2 | target << 1 | event), so one scatter per level moves them (one more per
+    weighted entry); the work arrays are allocated once. The pairs within the smallest blocks
+    (16 positions) are compared directly, by each row's rank in the score order.
     """
     n = pos.size
     if n < 2:
-        return 0
+        return [0] * len(weights)
     low = min(_BRUTE_BITS, (n - 1).bit_length())
-    higher = _within_blocks(pos, dead, idx, low, target)
-    pos, dead = pos.astype(np.intp), dead.copy()
-    tgt = None if target is None else target.copy()
-    at = np.arange(n, dtype=np.intp)
-    pos_next, dead_next = np.empty_like(pos), np.empty_like(dead)
-    tgt_next = None if tgt is None else np.empty_like(tgt)
+    higher = _within_blocks(pos, dead, idx, low, target, weights)
+    itype: Any = np.int32 if n < 2**28 else np.int64
+    key = pos.astype(itype) << 2
+    key |= dead
+    if target is not None:
+        key |= target.astype(itype) << 1
+    ws = [None if w is None else w.astype(np.int64) for w in weights]
+    ws_next = [None if w is None else np.empty_like(w) for w in ws]
+    at = np.arange(n, dtype=itype)
+    key_next = np.empty_like(key)
     later = np.empty(n, dtype=bool)
-    count, dest, tmp = (np.empty(n, dtype=np.intp) for _ in range(3))
-    count_t = None if tgt is None else np.empty(n, dtype=np.intp)
-    later_t = None if tgt is None else np.empty(n, dtype=bool)
+    first_event = np.empty(n, dtype=bool)  # an event in the earlier half
+    count, count_t, dest, tmp = (np.empty(n, dtype=itype) for _ in range(4))
+    later_t = None if target is None else np.empty(n, dtype=bool)
+    weighted = any(w is not None for w in ws)
+    wsum, wtmp = ((np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)) if weighted
+                  else (None, None))
     for level in range((n - 1).bit_length() - 1, low - 1, -1):
         size = 1 << (level + 1)  # the block
         full = n // size * size
-        np.bitwise_and(pos, 1 << level, out=count)
+        bit = 1 << (level + 2)  # bit L of the position, in the packed key
+        np.bitwise_and(key, bit, out=count)
         np.not_equal(count, 0, out=later)
+        np.bitwise_and(key, bit | 1, out=tmp)
+        np.equal(tmp, 1, out=first_event)
         np.cumsum(later, out=count)
         count -= later  # later rows before each row ...
         _per_block(count, size, full)  # ... in its block
-        tally = count
-        if tgt is not None:
-            assert count_t is not None and later_t is not None
-            np.logical_and(later, tgt, out=later_t)
+        tally, later_w = count, later
+        if later_t is not None:
+            np.bitwise_and(key, bit | 2, out=tmp)
+            np.equal(tmp, bit | 2, out=later_t)  # a later row that is a target
             np.cumsum(later_t, out=count_t)
             count_t -= later_t
             _per_block(count_t, size, full)
-            tally = count_t
-        np.multiply(tally, dead, out=tmp)
-        np.multiply(tmp, ~later, out=tmp)
-        higher += int(tmp.sum())
+            tally, later_w = count_t, later_t
+        # (masks enter as 0/1 factors: numpy's masked reductions and copies are slower)
+        for k, w in enumerate(ws):
+            if w is None:
+                np.multiply(tally, first_event, out=tmp)
+                higher[k] += int(tmp.sum(dtype=np.int64))
+                continue
+            assert wsum is not None and wtmp is not None
+            # the later (target) rows' weights, summed before each row in its block
+            np.multiply(w, later_w, out=wtmp)
+            np.cumsum(wtmp, out=wsum)
+            wsum -= wtmp
+            _per_block(wsum, size, full)
+            np.multiply(wsum, w, out=wtmp)
+            wtmp *= first_event
+            higher[k] += int(wtmp.sum())
         if level > low:
             np.subtract(at, count, out=dest)  # earlier half: its rank among the earlier rows
             np.bitwise_and(at, ~(size - 1), out=tmp)  # later half: after the earlier half
             tmp += 1 << level
             tmp += count
-            np.copyto(dest, tmp, where=later)
-            pos_next[dest] = pos
-            dead_next[dest] = dead
-            pos, pos_next, dead, dead_next = pos_next, pos, dead_next, dead
-            if tgt is not None:
-                assert tgt_next is not None
-                tgt_next[dest] = tgt
-                tgt, tgt_next = tgt_next, tgt
+            tmp -= dest
+            tmp *= later
+            dest += tmp
+            key_next[dest] = key
+            key, key_next = key_next, key
+            for k, w in enumerate(ws):
+                if w is not None:
+                    w_next = ws_next[k]
+                    assert w_next is not None
+                    w_next[dest] = w
+                    ws[k], ws_next[k] = w_next, w
     return higher
 
 
@@ -306,10 +444,11 @@ def _per_block(count: np.ndarray, size: int, full: int) -> None:
 
 
 def _within_blocks(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray, bits: int,
-                   target: np.ndarray | None = None) -> int:
+                   target: np.ndarray | None = None,
+                   weights: Sequence[np.ndarray | None] = (None,)) -> list[int]:
     """The pairs of :func:`_earlier_events_above_later` within blocks of 2^bits positions."""
     if bits == 0:
-        return 0
+        return [0] * len(weights)
     n, size = pos.size, 1 << bits
     rows = -(-n // size)
     rank = np.full(rows * size, n, dtype=pos.dtype)  # padding: never lower, never an event
@@ -319,13 +458,25 @@ def _within_blocks(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray, bits: int
     tg = np.zeros(rows * size, dtype=bool)
     tg[pos] = True if target is None else target
     rank2, ev2, tg2 = rank.reshape(rows, size), ev.reshape(rows, size), tg.reshape(rows, size)
-    total = 0
+    w2s: list[np.ndarray | None] = []
+    for w in weights:
+        if w is None:
+            w2s.append(None)
+            continue
+        wp = np.zeros(rows * size, dtype=np.int64)
+        wp[pos] = w
+        w2s.append(wp.reshape(rows, size))
+    totals = [0] * len(weights)
     for i in range(size - 1):
         above = rank2[:, i + 1 :] < rank2[:, i : i + 1]
-        above &= ev2[:, i : i + 1]
         above &= tg2[:, i + 1 :]
-        total += int(np.count_nonzero(above))
-    return total
+        for k, w2 in enumerate(w2s):
+            if w2 is None:
+                totals[k] += int(np.count_nonzero(above & ev2[:, i : i + 1]))
+            else:
+                later_w = (above * w2[:, i + 1 :]).sum(axis=1)
+                totals[k] += int((later_w * (w2[:, i] * ev2[:, i])).sum())
+    return totals
 
 
 # ------------------------------------------------------------------------- weighted pairs
