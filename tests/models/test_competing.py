@@ -15,6 +15,7 @@ from helpers import load_check
 from unbin.data import analysis_sample
 from unbin.data.checks import data_problems
 from unbin.errors import SpecError
+from unbin.models import fine_gray
 from unbin.models.base import Outcome
 from unbin.models.competing import aalen_johansen, fine_gray_data, fit_fine_gray, step_at
 from unbin.questions.net_benefit import net_benefit_table
@@ -101,6 +102,37 @@ def test_fine_gray_solves_the_weighted_score_equation_on_a_small_example() -> No
     res = fit_fine_gray(x[:, None], o, c, 1, ("x",))
     assert res.ok
     assert res.coef[0] == pytest.approx(_brute_fine_gray(x, t, c), abs=1e-6)
+
+
+def test_delayed_entry_fit_with_given_weights_solves_the_weighted_score_equation() -> None:
+    """Heavy delayed entry (the check's design, n = 150, continuous times): with the design's
+    true G(t-) H(t) as the weights (``benchmarks/checks/fine_gray.py``'s ``true_weight``), the
+    fit without the expansion is the root of the weighted score equation written out from its
+    definition (Fine & Gray 1999, eq. 2, with Geskus's 2011 entry weights): at each event time
+    s of cause 1 the risk set is everyone with entry < s <= T_j, plus those with a competing
+    event before s weighted Q(s) / Q(T_j), Q = G(t-) H(t). The simulation's mean error under
+    this entry (test_fine_gray_bootstrap_coverage_with_heavy_delayed_entry) is the same with
+    these weights, so it is not the weights' estimation."""
+    check = load_check("fine_gray")
+    a = check.draw(150, 0.5, np.random.default_rng(23), True)
+    x, t, c, entry = a[:, 0], a[:, 1], a[:, 2], a[:, 3]
+    Q = check.true_weight
+
+    def score(b: float) -> float:
+        u = 0.0
+        for i in np.flatnonzero(c == 1):
+            s = t[i]
+            w = ((entry < s) & (s <= t)).astype(float)
+            comp = (c == 2) & (t < s)
+            w[comp] = Q(s) / Q(t[comp])
+            r = w * np.exp(b * x)
+            u += x[i] - np.sum(r * x) / np.sum(r)
+        return u
+
+    assert (entry > 0).all() and np.sum(c == 2) > 20
+    layout = fine_gray.prepare(t, c, 1, entry=entry, weights=None, strata=None, Q_at=Q)
+    got = fine_gray.fit(layout, x[:, None]).coef[0]
+    assert got == pytest.approx(optimize.brentq(score, -5, 5, xtol=1e-13), abs=1e-8)
 
 
 def _simulate(n: int, beta: float, rng: np.random.Generator, p: float = 0.3,
