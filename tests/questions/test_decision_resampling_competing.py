@@ -173,7 +173,10 @@ def test_treat_all_interval_coverage() -> None:
     two shared cores, so about an hour in full) covered in 78/84 = 0.929 (MC SE 0.028), width
     ratio 0.99, with numpy's default quantile rule, which covers about 0.937 with 200 draws even
     when the bootstrap is exact; the table now uses the (B + 1) alpha ordered replicates
-    (tests/models/test_percentile_limits.py), which cover 0.95 then."""
+    (tests/models/test_percentile_limits.py), which cover 0.95 then. Measured in full with
+    them (all 200 samples, 4.85 s of CPU each, 16 min of CPU): 188/200 = 0.940 (MC SE 0.017),
+    8 misses below the truth and 4 above, mean width / (2 x 1.96 x Monte-Carlo SD) 1.04, mean
+    error of the estimate -0.0006 (MC SE 0.0026), all 200 draws refitted in every sample."""
     hits, _, _ = _coverage(200, 200, 250, 6)
     assert 0.90 <= hits.mean() <= 0.98, hits.mean()
 
