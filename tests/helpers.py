@@ -65,3 +65,34 @@ def load_check(name: str) -> Any:
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
     return module
+
+
+def brute_pair_c(t: np.ndarray, s: np.ndarray, e: np.ndarray, c: np.ndarray | None = None,
+                 entry: np.ndarray | None = None, strata: np.ndarray | None = None) -> float:
+    """Harrell's C by counting every pair by hand (independent of the engine): i an event, j in
+    i's stratum with entry_j < t_i that outlived i (t_j > t_i, or t_j = t_i censored); the pair
+    counts c_i c_j (all 1 without ``c``), a higher score of i 1, a tied score 1/2. A row's
+    copies never pair (two events at one time, or no event)."""
+    e = np.asarray(e, dtype=bool)
+    c = np.ones(t.size) if c is None else np.asarray(c)
+    entry = np.full(t.size, -np.inf) if entry is None else entry
+    strata = np.zeros(t.size) if strata is None else strata
+    num = den = 0.0
+    for i in np.flatnonzero(e & (c > 0)):
+        ok = (strata == strata[i]) & ((t > t[i]) | ((t == t[i]) & ~e)) & (entry < t[i])
+        den += c[i] * c[ok].sum()
+        num += c[i] * (c[ok] * ((s[ok] < s[i]) + 0.5 * (s[ok] == s[i]))).sum()
+    return num / den if den else float("nan")
+
+
+def tied_survival_design(rng: np.random.Generator, n: int, n_times: int, n_scores: int,
+                         n_strata: int) -> tuple[np.ndarray, ...]:
+    """Times, scores, events, entries and strata with ties everywhere: whole times
+    1..n_times, scores 0..n_scores-1, half the rows entering late (some exactly at an event
+    time: entry_j = t_i, j not yet at risk; -1 = from the start)."""
+    t = rng.integers(1, n_times + 1, n).astype(float)
+    e = rng.random(n) < rng.uniform(0.2, 0.9)
+    s = rng.integers(0, n_scores, n).astype(float)
+    strata = rng.integers(0, n_strata, n)
+    entry = np.where(rng.random(n) < 0.5, t - rng.integers(1, n_times + 1, n), -1.0)
+    return t, s, e, entry, strata

@@ -2,7 +2,7 @@
 (unbin.models.cox.concordance.concordances: a bootstrap replicate's drawn rows as repeat
 counts on the full sample's time order).
 
-References: a brute-force pair count written here (every pair (i, j) counted c_i c_j: i an
+References: a brute-force pair count written in the tests (helpers.brute_pair_c) (every pair (i, j) counted c_i c_j: i an
 event, j in i's stratum, at risk at t_i and outliving it), and lifelines.utils.concordance_index
 on the rows repeated as counted (no delayed entry, one stratum)."""
 
@@ -12,39 +12,18 @@ import numpy as np
 import pytest
 from lifelines.utils import concordance_index
 
+from helpers import brute_pair_c, tied_survival_design
 from unbin.models.cox import concordance_order
 from unbin.models.cox.concordance import concordances
 
 
-def _brute_weighted_c(t: np.ndarray, s: np.ndarray, e: np.ndarray, c: np.ndarray,
-                      entry: np.ndarray | None, strata: np.ndarray | None) -> float:
-    """Every pair by hand: i an event, j in i's stratum with entry_j < t_i that outlived i
-    (t_j > t_i, or t_j = t_i censored); the pair counts c_i c_j, a higher score of i 1, a tied
-    score 1/2. A row's copies never pair (two events at one time, or no event)."""
-    e = np.asarray(e, dtype=bool)
-    entry = np.full(t.size, -np.inf) if entry is None else entry
-    strata = np.zeros(t.size) if strata is None else strata
-    num = den = 0.0
-    for i in np.flatnonzero(e & (c > 0)):
-        ok = (strata == strata[i]) & ((t > t[i]) | ((t == t[i]) & ~e)) & (entry < t[i])
-        den += c[i] * c[ok].sum()
-        num += c[i] * (c[ok] * ((s[ok] < s[i]) + 0.5 * (s[ok] == s[i]))).sum()
-    return num / den if den else float("nan")
-
-
 def _design(rng: np.random.Generator, n: int) -> tuple[np.ndarray, ...]:
-    n_times = int(rng.integers(1, 12))
-    t = rng.integers(1, n_times + 1, n).astype(float)
-    e = rng.random(n) < rng.uniform(0.2, 0.9)
-    s = rng.integers(0, int(rng.integers(1, 8)), n).astype(float)  # ties in score
-    strata = rng.integers(0, int(rng.integers(1, 4)), n)
-    # entry ties with event times too (entry_j = t_i: j not yet at risk)
-    entry = np.where(rng.random(n) < 0.5, t - rng.integers(1, n_times + 1, n), -1.0)
-    return t, s, e, entry, strata
+    return tied_survival_design(rng, n, int(rng.integers(1, 12)), int(rng.integers(1, 8)),
+                                int(rng.integers(1, 4)))
 
 
 def test_counts_match_a_brute_force_pair_count() -> None:
-    # source: brute-force weighted pair count (_brute_weighted_c); ties in time, score and
+    # source: brute-force weighted pair count (helpers.brute_pair_c); ties in time, score and
     # between event and entry times; with and without delayed entry and strata
     rng = np.random.default_rng(20261204)
     for it in range(300):
@@ -55,7 +34,7 @@ def test_counts_match_a_brute_force_pair_count() -> None:
         counts = rng.poisson(1.0, size=(2, n))
         order = concordance_order(t, e, use_entry, use_strata)
         got = concordances(order, s, [counts[0], None, counts[1]])
-        refs = [_brute_weighted_c(t, s, e, c, use_entry, use_strata)
+        refs = [brute_pair_c(t, s, e, c, use_entry, use_strata)
                 for c in (counts[0], np.ones(n, dtype=int), counts[1])]
         for g, ref in zip(got, refs, strict=True):
             if np.isnan(ref):
@@ -74,9 +53,9 @@ def test_counts_on_a_large_sample_match_a_brute_force_pair_count() -> None:
     order = concordance_order(t, e, entry, strata)
     counts = rng.multinomial(n, np.full(n, 1 / n))
     got_drawn, got_full = concordances(order, s, [counts, None])
-    assert got_drawn == pytest.approx(_brute_weighted_c(t, s, e, counts, entry, strata),
+    assert got_drawn == pytest.approx(brute_pair_c(t, s, e, counts, entry, strata),
                                       abs=1e-13)
-    assert got_full == pytest.approx(_brute_weighted_c(t, s, e, np.ones(n), entry, strata),
+    assert got_full == pytest.approx(brute_pair_c(t, s, e, np.ones(n), entry, strata),
                                      abs=1e-13)
 
 

@@ -21,6 +21,7 @@ from lifelines.datasets import load_rossi
 from lifelines.utils import concordance_index
 from scipy import stats
 
+from helpers import brute_pair_c, tied_survival_design
 from unbin.models.base import Outcome
 from unbin.models.cox import (
     CoxFit,
@@ -417,43 +418,17 @@ def test_c_index_counts_rounding_level_differences_as_ties(family: str) -> None:
     assert c_index(outcome, nudged) == pytest.approx(ref, abs=1e-12)
 
 
-def _brute_c(t: np.ndarray, s: np.ndarray, e: np.ndarray, entry: np.ndarray | None = None,
-             strata: np.ndarray | None = None) -> float:
-    """Harrell's C by counting every pair (independent of the engine): i an event, j in i's
-    stratum, at risk at t_i (entry_j < t_i) and outliving i (t_j > t_i, or t_j = t_i censored);
-    a higher score of i counts 1, a tied score 1/2."""
-    e = np.asarray(e, dtype=bool)
-    entry = np.full(t.size, -np.inf) if entry is None else entry
-    strata = np.zeros(t.size) if strata is None else strata
-    num = den = 0.0
-    for i in np.flatnonzero(e):
-        ok = (strata == strata[i]) & ((t > t[i]) | ((t == t[i]) & ~e)) & (entry < t[i])
-        den += ok.sum()
-        num += (s[ok] < s[i]).sum() + 0.5 * (s[ok] == s[i]).sum()
-    return num / den if den else float("nan")
-
-
-def _design_with_entry(rng: np.random.Generator, n: int, n_times: int, n_scores: int,
-                       n_strata: int) -> tuple[np.ndarray, ...]:
-    t = rng.integers(1, n_times + 1, n).astype(float)
-    e = rng.random(n) < rng.uniform(0.2, 0.9)
-    s = rng.integers(0, n_scores, n).astype(float)
-    strata = rng.integers(0, n_strata, n)
-    entry = np.where(rng.random(n) < 0.5, t - rng.integers(1, n_times + 1, n), -1.0)
-    return t, s, e, entry, strata
-
-
 def test_concordance_within_strata_and_risk_sets_matches_brute_force() -> None:
-    # source: brute-force pair count (_brute_c); ties in time, in score and between an event
+    # source: brute-force pair count (helpers.brute_pair_c); ties in time, in score and between an event
     # time and an entry time (entry_j = t_i: j not yet at risk)
     rng = np.random.default_rng(41)
     for it in range(300):
         n = int(rng.integers(2, 60))
-        t, s, e, entry, strata = _design_with_entry(
+        t, s, e, entry, strata = tied_survival_design(
             rng, n, int(rng.integers(1, 10)), int(rng.integers(1, 6)), int(rng.integers(1, 4)))
         use_entry = entry if it % 3 else None
         use_strata = strata if it % 2 else None
-        ref = _brute_c(t, s, e, use_entry, use_strata)
+        ref = brute_pair_c(t, s, e, None, use_entry, use_strata)
         got = concordance(t, s, e, entry=use_entry, strata=use_strata)
         if np.isnan(ref):
             assert np.isnan(got)
@@ -462,14 +437,14 @@ def test_concordance_within_strata_and_risk_sets_matches_brute_force() -> None:
 
 
 def test_concordance_large_sample_matches_brute_force() -> None:
-    # source: brute-force pair count (_brute_c) on 3000 rows (about 4.5 million pairs), with
+    # source: brute-force pair count (helpers.brute_pair_c) on 3000 rows (about 4.5 million pairs), with
     # every level of the bit recursion in use
     rng = np.random.default_rng(42)
-    t, s, e, entry, strata = _design_with_entry(rng, 3000, 60, 200, 4)
+    t, s, e, entry, strata = tied_survival_design(rng, 3000, 60, 200, 4)
     s = s + rng.normal(size=t.size).round(1)
     order = concordance_order(t, e, entry, strata)
     for score in (s, s.round(-1), -s):
-        ref = _brute_c(t, score, e, entry, strata)
+        ref = brute_pair_c(t, score, e, None, entry, strata)
         assert concordance(t, score, e, time_order=order) == pytest.approx(ref, abs=1e-13)
         assert concordance(t, score, e, entry=entry, strata=strata) == pytest.approx(
             ref, abs=1e-13)
@@ -480,7 +455,7 @@ def test_concordance_of_one_stratum_equals_lifelines() -> None:
     # the within-strata C pools their concordant and comparable pairs (brute-force counts
     # of the comparable pairs as weights)
     rng = np.random.default_rng(43)
-    t, s, e, _, strata = _design_with_entry(rng, 1500, 30, 50, 3)
+    t, s, e, _, strata = tied_survival_design(rng, 1500, 30, 50, 3)
     num = den = 0.0
     for g in range(3):
         m = strata == g
@@ -520,15 +495,16 @@ def test_within_strata_concordance_recovers_the_true_value() -> None:
 
 
 def test_c_index_passes_strata_and_entry_and_keys_its_time_order() -> None:
-    # source: brute-force pair count (_brute_c); an Outcome with strata and delayed entry, and a
+    # source: brute-force pair count (helpers.brute_pair_c); an Outcome with strata and delayed entry, and a
     # second Outcome sharing the cache but not the strata gets its own time order
     rng = np.random.default_rng(45)
-    t, s, e, entry, strata = _design_with_entry(rng, 800, 25, 40, 3)
+    t, s, e, entry, strata = tied_survival_design(rng, 800, 25, 40, 3)
     outcome = Outcome("survival", e.astype(float), time=t, entry=entry, strata=strata)
-    assert c_index(outcome, s) == pytest.approx(_brute_c(t, s, e, entry, strata), abs=1e-13)
+    assert c_index(outcome, s) == pytest.approx(brute_pair_c(t, s, e, None, entry, strata),
+                                                abs=1e-13)
     other = Outcome("survival", e.astype(float), time=t, cache=outcome.cache)
     score = s + 0.5
-    assert c_index(other, score) == pytest.approx(_brute_c(t, score, e), abs=1e-13)
+    assert c_index(other, score) == pytest.approx(brute_pair_c(t, score, e), abs=1e-13)
     with pytest.raises(ValueError, match="time must be greater than entry"):
         concordance(t, s, e, entry=t)
 
