@@ -36,6 +36,8 @@ from matplotlib.ft2font import RenderMode
 from matplotlib.path import Path as MplPath
 from matplotlib.transforms import Affine2D
 
+from .png import write_png
+
 # (font, size, dpi, string, flags, features, language) -> [(font, glyph index, x, y), ...]
 _LAYOUTS: dict[tuple[Any, ...], list[tuple[Any, int, float, float]]] = {}
 # (font, size, dpi, glyph, flags, mode, transform, x fraction, y fraction) ->
@@ -202,6 +204,21 @@ class CachedCanvasAgg(FigureCanvasAgg):
         return self.renderer
 
 
+class PngCanvas(CachedCanvasAgg):
+    """``CachedCanvasAgg`` whose PNG is written by ``png.write_png``: the same pixels as
+    matplotlib's PNG (drawn by the same canvas), in less time and fewer bytes."""
+
+    def print_png(self, filename_or_obj: Any, *, metadata: dict[str, str | None] | None = None,
+                  pil_kwargs: Any = None, **_ignored: Any) -> None:
+        # The other keywords savefig passes (resolution, face and edge colour, orientation) are
+        # those matplotlib drops for its own canvas: savefig has applied them to the figure.
+        if pil_kwargs:
+            raise ValueError("pil_kwargs do not apply: unbin writes its PNG files itself")
+        FigureCanvasAgg.draw(self)
+        write_png(filename_or_obj, np.asarray(self.buffer_rgba()), dpi=self.figure.dpi,
+                  text=metadata)
+
+
 class CachedRendererSVG(RendererSVG):
     """``RendererSVG`` whose text sizes are kept (the same file)."""
 
@@ -238,4 +255,5 @@ class CachedCanvasSVG(FigureCanvasSVG):
             renderer.finalize()
 
 
-__all__ = ["CachedCanvasAgg", "CachedCanvasSVG", "CachedRendererAgg", "CachedRendererSVG"]
+__all__ = ["CachedCanvasAgg", "CachedCanvasSVG", "CachedRendererAgg", "CachedRendererSVG",
+           "PngCanvas"]
