@@ -101,15 +101,19 @@ def select_thresholds(df: pd.DataFrame) -> ThresholdRows | None:
 def middle_crossings(sel: ThresholdRows) -> list[tuple[float, str, str, list[float]]]:
     """(threshold, model, level, exposure values) where the curve at the middle risk profile
     (the rest of the risk score at its median) crosses each threshold."""
+    rows = sel.rows
+    mid = rows[(rows["position"] == "crossing")
+               & np.isclose(rows["profile_quantile"].astype(float), 0.5)].dropna(
+        subset=["exposure_value"])
+    # The rows of each (threshold, model, level), in table order.
+    groups = mid.groupby(["threshold", "model", "level"], sort=False).indices
     out = []
     for thr in sel.thresholds:
         for model, level in sel.lines:
-            r = sel.rows[(sel.rows["threshold"] == thr) & (sel.rows["model"] == model)
-                         & (sel.rows["level"] == level) & (sel.rows["position"] == "crossing")]
-            mid = r[np.isclose(r["profile_quantile"].astype(float), 0.5)].dropna(
-                subset=["exposure_value"])
-            if len(mid):
-                out.append((float(thr), model, level, [float(v) for v in mid["exposure_value"]]))
+            pos = groups.get((thr, model, level))
+            if pos is not None:
+                out.append((float(thr), model, level,
+                            [float(v) for v in mid["exposure_value"].iloc[pos]]))
     return out
 
 
@@ -117,10 +121,12 @@ def draw_threshold_panel(ax: Any, sel: ThresholdRows, thr: float, cuts: list[flo
     """One threshold: per (model, level) row the crossings at the three risk profiles, joined
     when they belong to one crossing; 'above'/'below' when the curve never crosses."""
     t = sel.rows[sel.rows["threshold"] == thr]
+    # The rows of each (model, level), in table order.
+    groups = t.groupby(["model", "level"], sort=False).indices
     for c in cuts:
         ax.axvline(c, color=LEGACY, lw=1.6, zorder=1)
     for y, (model, level) in zip(range(len(sel.lines))[::-1], sel.lines, strict=True):
-        r = t[(t["model"] == model) & (t["level"] == level)]
+        r = t.iloc[groups.get((model, level), [])]
         colour = _model_colour(model)
         cross = r[r["position"] == "crossing"].dropna(subset=["exposure_value"])
         for _, g in cross.groupby("crossing"):

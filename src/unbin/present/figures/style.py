@@ -26,7 +26,7 @@ from matplotlib.figure import Figure, FigureBase, SubFigure
 from matplotlib.ticker import FixedLocator, FuncFormatter, MaxNLocator, NullLocator
 from matplotlib.transforms import Bbox
 
-from .canvases import CachedCanvasAgg, CachedCanvasSVG
+from .canvases import CachedCanvasSVG, PngCanvas, kept_text_layouts
 
 # --------------------------------------------------------------------------- palette
 
@@ -136,11 +136,11 @@ def save(fig: Figure, base: Path) -> tuple[Path, Path]:
     """Write ``base.png`` and ``base.svg``; no date, software or version inside either file."""
     base.parent.mkdir(parents=True, exist_ok=True)
     png, svg = base.with_suffix(".png"), base.with_suffix(".svg")
-    with styled():
+    with styled(), kept_text_layouts():
         fig.set_dpi(DPI)
         # An Agg canvas of its own: the layout and the PNG then use one renderer, so the
-        # PNG's drawing reuses the text measurements the layout made.
-        CachedCanvasAgg(fig)
+        # PNG's drawing reuses the text measurements the layout made (png.py writes the file).
+        PngCanvas(fig)
         engine = fig.get_layout_engine()
         if engine is not None:
             # The constrained layout, computed once (without drawing every artist once more

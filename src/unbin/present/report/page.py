@@ -5,7 +5,6 @@ beyond the spec's own: the same tables and spec give the same bytes."""
 from __future__ import annotations
 
 import shutil
-from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import partial
 from importlib import metadata, resources
@@ -19,14 +18,19 @@ from ... import __version__
 from ...data import file_sha256
 from ...errors import UnbinError
 from ...results.tables import read_provenance
-from ...spec import Spec, digest, load_spec
+from ...spec import load_spec
 from .. import text
 from ..figures import Context, FigureFile, draw_figures, group_dir, load_tables, read_index
+from .drawing import (  # noqa: F401  (re-exported: the figure jobs' entry points)
+    FIGURES_DIR,
+    check_spec_matches,
+    draw_cohort_figures,
+    draw_study_figures,
+)
 from .html import Col, TableView, render, table
 from .sections import Builder
 
 REPORT_NAME = "report.html"
-FIGURES_DIR = "figures"
 
 
 @dataclass(frozen=True)
@@ -97,44 +101,6 @@ def assemble(b: Builder) -> str:
 
 
 # --------------------------------------------------------------------------- entry points
-
-
-def check_spec_matches(spec: Spec, tables_dir: Path) -> None:
-    """The spec must be the one the tables were written with (same digest)."""
-    path = tables_dir / "status.parquet"
-    if not path.is_file():
-        raise UnbinError(f"{tables_dir} holds no study-level tables (status.parquet is missing); "
-                         "run the workflow first.")
-    want = read_provenance(path).get("spec_digest")
-    if want and want != digest(spec.raw):
-        raise UnbinError(f"the spec {spec.source} is not the one the tables in {tables_dir} were "
-                         "written with (its digest differs); give the spec of that run, or rerun "
-                         "the workflow.")
-
-
-def draw_cohort_figures(out: str | Path, spec_path: str | Path, cohort: str,
-                        tables: Sequence[str] | None = None) -> list[FigureFile]:
-    """One cohort's figures (a workflow job of their own) into ``out/figures/<cohort>/``, from
-    the study-level tables named in ``tables`` (None: every one in ``out/tables``)."""
-    out = Path(out)
-    spec = load_spec(spec_path)
-    check_spec_matches(spec, out / "tables")
-    ctx = Context(load_tables(out / "tables", tables), spec)
-    return draw_figures(ctx, out / FIGURES_DIR, cohorts=[cohort], study=False)
-
-
-def draw_study_figures(out: str | Path, spec_path: str | Path) -> list[FigureFile]:
-    """The study-level and pooled figures (a workflow job of their own, beside the cohorts'
-    ones) into ``out/figures/_study/``, from every study-level table in ``out/tables``."""
-    out = Path(out)
-    spec = load_spec(spec_path)
-    check_spec_matches(spec, out / "tables")
-    ctx = Context(load_tables(out / "tables"), spec)
-    figures_dir = out / FIGURES_DIR
-    study_dir = group_dir(figures_dir, None)
-    if study_dir.is_dir():
-        shutil.rmtree(study_dir)
-    return draw_figures(ctx, figures_dir, cohorts=[], study=True)
 
 
 def build_report(out: str | Path, spec_path: str | Path, draw_cohorts: bool = True) -> Report:
