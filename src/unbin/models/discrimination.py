@@ -34,6 +34,38 @@ def auc(y: np.ndarray, score: np.ndarray) -> float:
     return float((ranks[y].sum() - n1 * (n1 + 1) / 2) / (n1 * n0))
 
 
+def count_aucs(y: np.ndarray, score: np.ndarray,
+               counts: list[np.ndarray | None]) -> list[float] | None:
+    """The AUC of each data set in which row i is repeated ``counts[i]`` times (None: once
+    each; a bootstrap replicate's drawn rows as draw counts) from one sort of the rows' scores:
+    over (event, non-event) pairs of copies, the share in which the event scores higher, ties
+    one half. The numerator is counted in integers (twice the lower pairs plus the tied ones,
+    per group of equal scores), then divided as :func:`auc`'s Mann–Whitney count is, so each
+    value is bit for bit that of the repeated rows. None when a score is NaN."""
+    e = np.asarray(y, dtype=bool)
+    s = np.asarray(score, dtype=float)
+    if np.isnan(s).any():
+        return None
+    order = np.argsort(s)
+    ss, eo = s[order], e[order]
+    start = np.flatnonzero(np.r_[True, ss[1:] != ss[:-1]]) if s.size else np.zeros(0, np.intp)
+    out: list[float] = []
+    for c in counts:
+        co = (np.ones(s.size, dtype=np.int64) if c is None
+              else np.asarray(c, dtype=np.int64)[order])
+        zero = np.zeros_like(co)
+        non = np.add.reduceat(np.where(eo, zero, co), start) if s.size else zero
+        ev = np.add.reduceat(np.where(eo, co, zero), start) if s.size else zero
+        n1, n0 = int(ev.sum()), int(non.sum())
+        if n1 == 0 or n0 == 0:
+            out.append(float("nan"))
+            continue
+        below = np.cumsum(non) - non  # non-events with a lower score than the group
+        twice = int(ev @ (2 * below + non))
+        out.append(float(twice / 2 / (n1 * n0)))
+    return out
+
+
 def weighted_auc(y: np.ndarray, score: np.ndarray, weights: np.ndarray,
                  sets: np.ndarray | None = None) -> float:
     """The AUC with every (case, control) pair counted w_case w_control (ties one half); with

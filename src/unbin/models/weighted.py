@@ -37,6 +37,7 @@ if TYPE_CHECKING:
     from .cox import Layout
 
 _CHUNK_CELLS = 4_000_000
+_BLOCK_CELLS = 1 << 17  # replicates x rows of one block of the large-sample refits (1 MB)
 _MAX_NEWTON = 30
 _TOL = 1e-9
 
@@ -139,14 +140,24 @@ class WeightedGLM:
         self.off = outcome.offset if outcome.offset is not None else 0.0
         self.pairs = _Pairs(self.Z)
 
+    @property
+    def whole(self) -> bool:
+        """Large samples: :meth:`coef` refits any number of replicates in one pass per step
+        (over blocks of rows), so callers pass all of them at once; small samples refit a few
+        at a time (callers keep their chunks, whose results are bit for bit the same)."""
+        return self.pairs.cached is None
+
     def coef(self, W: np.ndarray) -> np.ndarray:
         """Coefficients (intercept first) for each row of frequency weights ``W`` (B, n)."""
         W = np.atleast_2d(np.asarray(W, dtype=float))
-        out = np.full((W.shape[0], self.p + 1), np.nan)
-        chunk = max(1, _CHUNK_CELLS // (self.n * (self.p + 1)))
-        for c0 in range(0, W.shape[0], chunk):
-            out[c0:c0 + chunk] = _newton(self.family, self.Z, self.y, self.off,
-                                         W[c0:c0 + chunk], self.theta0, self.pairs)
+        if self.whole:  # large samples: every replicate in one pass per step
+            out = _chord(self.family, self.Z, self.y, self.off, W, self.theta0)
+        else:
+            out = np.full((W.shape[0], self.p + 1), np.nan)
+            chunk = max(1, _CHUNK_CELLS // (self.n * (self.p + 1)))
+            for c0 in range(0, W.shape[0], chunk):
+                out[c0:c0 + chunk] = _newton(self.family, self.Z, self.y, self.off,
+                                             W[c0:c0 + chunk], self.theta0, self.pairs)
         coef = out.copy()
         coef[:, 1:] = out[:, 1:] / self.sd
         coef[:, 0] = out[:, 0] - coef[:, 1:] @ self.mean
@@ -210,6 +221,98 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: np.ndarray,
         bad |= np.any((np.abs(eta) > 20) & (W > 0), axis=1)
     T[bad | ~done] = np.nan
     return T
+
+
+def _mean_var(family: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+    """The mean and the variance function at ``eta`` (None for the linear model's 1)."""
+    if family == "binary":
+        mu = special.expit(eta)
+        return mu, mu * (1 - mu)
+    if family == "count":
+        mu = np.exp(np.clip(eta, None, 700))
+        return mu, mu
+    return eta, None
+
+
+def _row_blocks(n: int, replicates: int) -> Iterator[slice]:
+    """Blocks of rows small enough that (replicates x rows) temporaries stay in cache."""
+    rows = min(8192, max(256, _BLOCK_CELLS // max(replicates, 1)))
+    for r0 in range(0, n, rows):
+        yield slice(r0, min(n, r0 + rows))
+
+
+def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: np.ndarray,
+           theta0: np.ndarray) -> np.ndarray:
+    """``_newton``'s large-sample iteration (chord steps with each replicate's information at
+    the start) for every row of ``W`` at once, in blocks of rows: every replicate starts at
+    ``theta0``, so the first point's mean, variance and residual are the same for all of them
+    and computed once; the first step's information, score and the unweighted moments of the
+    estimability check are then weighted sums over the rows, one matrix product of the weights
+    with the rows' pairwise column products (z_i z_j, i <= j; the BLAS in float64) per block.
+    Later steps evaluate the score only, of the replicates still moving. The same steps,
+    stopping rule and checks as ``_newton``; only the order of summation differs."""
+    n, q = Z.shape
+    C = W.shape[0]
+    iu = np.triu_indices(q)
+    k = len(iu[0])
+    offset = np.broadcast_to(np.asarray(off, dtype=float), (n,))
+    eta0 = Z @ theta0 + offset
+    mu0, v0 = _mean_var(family, eta0)
+    r0 = y - mu0
+    moments = np.zeros((C, k))  # sum_i W_i z_i z_i' (the linear model's information)
+    info = np.zeros((C, k)) if v0 is not None else moments
+    score = np.zeros((C, q))
+    for sl in _row_blocks(n, C):
+        Zb = Z[sl]
+        P = Zb[:, iu[0]] * Zb[:, iu[1]]
+        Wb = W[:, sl]
+        moments += Wb @ P
+        if v0 is not None:
+            P *= v0[sl, None]
+            info += Wb @ P
+        score += Wb @ (Zb * r0[sl, None])
+    H0, H = _unpack(moments, q, iu), _unpack(info, q, iu)
+    N = H0[:, :1, 0]
+    m1 = H0[:, 0, 1:] / N
+    m2 = np.diagonal(H0, axis1=1, axis2=2)[:, 1:] / N
+    bad = np.any(m2 - m1 ** 2 <= 1e-10, axis=1)
+    T = np.tile(theta0, (C, 1))
+    done = np.zeros(C, dtype=bool)
+    for it in range(_MAX_NEWTON if family != "continuous" else 1):
+        act = np.flatnonzero(~(done | bad))
+        if act.size == 0:
+            break
+        if it > 0:  # the score at the replicates' current points
+            score = np.zeros((act.size, q))
+            Ta = T[act]
+            for sl in _row_blocks(n, act.size):
+                Zb = Z[sl]
+                mu, _ = _mean_var(family, Ta @ Zb.T + offset[sl])
+                score += (W[act, sl] * (y[sl] - mu)) @ Zb
+        else:
+            score = score[act]
+        step = _solve(H[act], score)
+        T[act] += np.nan_to_num(step, nan=0.0)
+        bad[act] |= ~np.all(np.isfinite(step), axis=1)
+        done[act] |= np.max(np.abs(step), axis=1) <= _TOL * (1 + np.max(np.abs(T[act]), axis=1))
+        if np.all(done | bad):
+            break
+    if family == "continuous":
+        done[:] = True
+    if family == "binary":
+        act = np.flatnonzero(done & ~bad)
+        for sl in _row_blocks(n, act.size) if act.size else ():
+            eta = T[act] @ Z[sl].T + offset[sl]
+            bad[act] |= np.any((np.abs(eta) > 20) & (W[act, sl] > 0), axis=1)
+    T[bad | ~done] = np.nan
+    return T
+
+
+def _unpack(flat: np.ndarray, q: int, iu: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    H = np.empty((flat.shape[0], q, q))
+    H[:, iu[0], iu[1]] = flat
+    H[:, iu[1], iu[0]] = flat
+    return H
 
 
 class _Pairs:
