@@ -316,19 +316,25 @@ def pair_auc(y: np.ndarray, score: np.ndarray) -> float:
 
 
 def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
-    """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence."""
-    Z = np.column_stack([np.ones(len(z)), z - z.mean()])
-    theta = np.array([special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6)), 1.0])
+    """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence.
+    The 2 x 2 information and the score are five sums over the rows (no n x 2 design)."""
+    y = np.asarray(y, dtype=float)
+    zc = np.asarray(z, dtype=float) - np.mean(z)
+    a, b = float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6))), 1.0
     for _ in range(50):
-        mu = special.expit(Z @ theta)
-        H = (Z * (mu * (1 - mu))[:, None]).T @ Z
-        try:
-            step = np.linalg.solve(H, Z.T @ (y - mu))
-        except np.linalg.LinAlgError:
+        mu = special.expit(a + b * zc)
+        w = mu * (1 - mu)
+        r = y - mu
+        wz = w * zc
+        h00, h01, h11 = float(w.sum()), float(wz.sum()), float(wz @ zc)
+        g0, g1 = float(r.sum()), float(r @ zc)
+        det = h00 * h11 - h01 * h01
+        if not (np.isfinite(det) and det > 0):
             return float("nan")
-        theta = theta + step
-        if np.max(np.abs(step)) < 1e-10:
-            return float(theta[1])
+        s0, s1 = (h11 * g0 - h01 * g1) / det, (h00 * g1 - h01 * g0) / det
+        a, b = a + s0, b + s1
+        if max(abs(s0), abs(s1)) < 1e-10:
+            return b
     return float("nan")
 
 
