@@ -37,31 +37,36 @@ def auc(y: np.ndarray, score: np.ndarray) -> float:
 def count_aucs(y: np.ndarray, score: np.ndarray,
                counts: list[np.ndarray | None]) -> list[float] | None:
     """The AUC of each data set in which row i is repeated ``counts[i]`` times (None: once
-    each; a bootstrap replicate's drawn rows as draw counts) from one sort of the rows' scores:
-    over (event, non-event) pairs of copies, the share in which the event scores higher, ties
-    one half. The numerator is counted in integers (twice the lower pairs plus the tied ones,
-    per group of equal scores), then divided as :func:`auc`'s Mann–Whitney count is, so each
+    each; a bootstrap replicate's drawn rows as draw counts): over (event, non-event) pairs of
+    copies, the share in which the event scores higher, ties one half. The events' distinct
+    scores are sorted once (the smaller group) and every non-event is placed among them by one
+    binary search; per distinct event score, the non-event copies below it and tied with it
+    are then sums of counts (whole numbers, exact in float64), and the numerator, twice the
+    lower pairs plus the tied ones, is divided as :func:`auc`'s Mann–Whitney count is, so each
     value is bit for bit that of the repeated rows. None when a score is NaN."""
     e = np.asarray(y, dtype=bool)
     s = np.asarray(score, dtype=float)
     if np.isnan(s).any():
         return None
-    order = np.argsort(s)
-    ss, eo = s[order], e[order]
-    start = np.flatnonzero(np.r_[True, ss[1:] != ss[:-1]]) if s.size else np.zeros(0, np.intp)
+    events, others = s[e], s[~e]
+    u, group = np.unique(events, return_inverse=True)  # the events' distinct scores, sorted
+    G = u.size
+    place = np.searchsorted(u, others, side="right")  # distinct event scores <= the non-event
+    tied = np.flatnonzero(place > 0)
+    tied = tied[u[place[tied] - 1] == others[tied]]
     out: list[float] = []
     for c in counts:
-        co = (np.ones(s.size, dtype=np.int64) if c is None
-              else np.asarray(c, dtype=np.int64)[order])
-        zero = np.zeros_like(co)
-        non = np.add.reduceat(np.where(eo, zero, co), start) if s.size else zero
-        ev = np.add.reduceat(np.where(eo, co, zero), start) if s.size else zero
-        n1, n0 = int(ev.sum()), int(non.sum())
+        c_ev = np.ones(events.size) if c is None else np.asarray(c, dtype=float)[e]
+        c_ot = np.ones(others.size) if c is None else np.asarray(c, dtype=float)[~e]
+        n1, n0 = int(c_ev.sum()), int(c_ot.sum())
         if n1 == 0 or n0 == 0:
             out.append(float("nan"))
             continue
-        below = np.cumsum(non) - non  # non-events with a lower score than the group
-        twice = int(ev @ (2 * below + non))
+        per_event = np.bincount(group.ravel(), weights=c_ev, minlength=G)
+        # non-event copies below each distinct event score: those placed before it
+        below = np.cumsum(np.bincount(place, weights=c_ot, minlength=G + 1))[:G]
+        equal = np.bincount(place[tied] - 1, weights=c_ot[tied], minlength=G)
+        twice = int(per_event @ (2.0 * below + equal))  # whole numbers below 2^53
         out.append(float(twice / 2 / (n1 * n0)))
     return out
 
