@@ -90,3 +90,19 @@ def test_pair_auc_is_the_rank_auc() -> None:
         diff = score[y][:, None] - score[~y][None, :]
         assert got == pytest.approx(np.mean((diff > 0) + 0.5 * (diff == 0)), abs=1e-15)
     assert np.isnan(pair_auc(np.zeros(5, bool), np.arange(5.0)))
+
+
+def test_logistic_slope_equals_statsmodels_logit() -> None:
+    """The calibration slope (Cox 1958: b in logit P(y) = a + b z) from five sums per Newton
+    step equals statsmodels' Logit of y on [1, z]; NaN when z does not vary."""
+    import statsmodels.api as sm
+
+    from unbin.questions.decision_resampling import logistic_slope
+
+    rng = np.random.default_rng(21)
+    for n in (50, 2000):
+        z = np.round(rng.normal(-1.5, 0.8, n), 2)
+        y = (rng.uniform(size=n) < 1 / (1 + np.exp(-(0.2 + 0.8 * z)))).astype(float)
+        ref = sm.Logit(y, sm.add_constant(z)).fit(disp=0, tol=1e-12).params[1]
+        assert logistic_slope(y, z) == pytest.approx(float(ref), rel=1e-9)
+    assert np.isnan(logistic_slope(np.array([0.0, 1.0, 0.0]), np.ones(3)))

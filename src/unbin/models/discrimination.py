@@ -34,6 +34,43 @@ def auc(y: np.ndarray, score: np.ndarray) -> float:
     return float((ranks[y].sum() - n1 * (n1 + 1) / 2) / (n1 * n0))
 
 
+def count_aucs(y: np.ndarray, score: np.ndarray,
+               counts: list[np.ndarray | None]) -> list[float] | None:
+    """The AUC of each data set in which row i is repeated ``counts[i]`` times (None: once
+    each; a bootstrap replicate's drawn rows as draw counts): over (event, non-event) pairs of
+    copies, the share in which the event scores higher, ties one half. The events' distinct
+    scores are sorted once (the smaller group) and every non-event is placed among them by one
+    binary search; per distinct event score, the non-event copies below it and tied with it
+    are then sums of counts (whole numbers, exact in float64), and the numerator, twice the
+    lower pairs plus the tied ones, is divided as :func:`auc`'s Mann–Whitney count is, so each
+    value is bit for bit that of the repeated rows. None when a score is NaN."""
+    e = np.asarray(y, dtype=bool)
+    s = np.asarray(score, dtype=float)
+    if np.isnan(s).any():
+        return None
+    events, others = s[e], s[~e]
+    u, group = np.unique(events, return_inverse=True)  # the events' distinct scores, sorted
+    G = u.size
+    place = np.searchsorted(u, others, side="right")  # distinct event scores <= the non-event
+    tied = np.flatnonzero(place > 0)
+    tied = tied[u[place[tied] - 1] == others[tied]]
+    out: list[float] = []
+    for c in counts:
+        c_ev = np.ones(events.size) if c is None else np.asarray(c, dtype=float)[e]
+        c_ot = np.ones(others.size) if c is None else np.asarray(c, dtype=float)[~e]
+        n1, n0 = int(c_ev.sum()), int(c_ot.sum())
+        if n1 == 0 or n0 == 0:
+            out.append(float("nan"))
+            continue
+        per_event = np.bincount(group.ravel(), weights=c_ev, minlength=G)
+        # non-event copies below each distinct event score: those placed before it
+        below = np.cumsum(np.bincount(place, weights=c_ot, minlength=G + 1))[:G]
+        equal = np.bincount(place[tied] - 1, weights=c_ot[tied], minlength=G)
+        twice = int(per_event @ (2.0 * below + equal))  # whole numbers below 2^53
+        out.append(float(twice / 2 / (n1 * n0)))
+    return out
+
+
 def weighted_auc(y: np.ndarray, score: np.ndarray, weights: np.ndarray,
                  sets: np.ndarray | None = None) -> float:
     """The AUC with every (case, control) pair counted w_case w_control (ties one half); with

@@ -37,6 +37,9 @@ if TYPE_CHECKING:
     from .cox import Layout
 
 _CHUNK_CELLS = 4_000_000
+_WHOLE_ROWS = 50_000
+_SLOW = 0.1  # a chord step that shrank less than this from the one before: new information
+_BLOCK_CELLS = 1 << 17  # replicates x rows of one block of the large-sample refits (1 MB)
 _MAX_NEWTON = 30
 _TOL = 1e-9
 
@@ -137,16 +140,34 @@ class WeightedGLM:
         self.theta0 = theta0
         self.y = np.asarray(outcome.y, dtype=float)
         self.off = outcome.offset if outcome.offset is not None else 0.0
-        self.pairs = _Pairs(self.Z)
+        # from this many rows every replicate is refitted at once (``_chord``); below it a few
+        # at a time with the pairwise products of the columns kept (``_newton``)
+        self._pairs = None if n >= _WHOLE_ROWS else _Pairs(self.Z)
+
+    @property
+    def pairs(self) -> _Pairs:
+        if self._pairs is None:
+            self._pairs = _Pairs(self.Z)
+        return self._pairs
+
+    @property
+    def whole(self) -> bool:
+        """Large samples: :meth:`coef` refits any number of replicates in one pass per step
+        (over blocks of rows), so callers pass all of them at once; small samples refit a few
+        at a time (callers keep their chunks, whose results are bit for bit the same)."""
+        return self.n >= _WHOLE_ROWS or self.pairs.cached is None
 
     def coef(self, W: np.ndarray) -> np.ndarray:
         """Coefficients (intercept first) for each row of frequency weights ``W`` (B, n)."""
         W = np.atleast_2d(np.asarray(W, dtype=float))
-        out = np.full((W.shape[0], self.p + 1), np.nan)
-        chunk = max(1, _CHUNK_CELLS // (self.n * (self.p + 1)))
-        for c0 in range(0, W.shape[0], chunk):
-            out[c0:c0 + chunk] = _newton(self.family, self.Z, self.y, self.off,
-                                         W[c0:c0 + chunk], self.theta0, self.pairs)
+        if self.whole:  # large samples: every replicate in one pass per step
+            out = _chord(self.family, self.Z, self.y, self.off, W, self.theta0)
+        else:
+            out = np.full((W.shape[0], self.p + 1), np.nan)
+            chunk = max(1, _CHUNK_CELLS // (self.n * (self.p + 1)))
+            for c0 in range(0, W.shape[0], chunk):
+                out[c0:c0 + chunk] = _newton(self.family, self.Z, self.y, self.off,
+                                             W[c0:c0 + chunk], self.theta0, self.pairs)
         coef = out.copy()
         coef[:, 1:] = out[:, 1:] / self.sd
         coef[:, 0] = out[:, 0] - coef[:, 1:] @ self.mean
@@ -210,6 +231,118 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: np.ndarray,
         bad |= np.any((np.abs(eta) > 20) & (W > 0), axis=1)
     T[bad | ~done] = np.nan
     return T
+
+
+def _mean_var(family: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+    """The mean and the variance function at ``eta`` (None for the linear model's 1)."""
+    if family == "binary":
+        mu = special.expit(eta)
+        return mu, mu * (1 - mu)
+    if family == "count":
+        mu = np.exp(np.clip(eta, None, 700))
+        return mu, mu
+    return eta, None
+
+
+def _row_blocks(n: int, replicates: int) -> Iterator[slice]:
+    """Blocks of rows small enough that (replicates x rows) temporaries stay in cache."""
+    rows = min(8192, max(256, _BLOCK_CELLS // max(replicates, 1)))
+    for r0 in range(0, n, rows):
+        yield slice(r0, min(n, r0 + rows))
+
+
+def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: np.ndarray,
+           theta0: np.ndarray) -> np.ndarray:
+    """``_newton`` for every row of ``W`` at once on a large sample, in blocks of rows whose
+    (replicates x rows) temporaries stay in cache. Every replicate starts at ``theta0``, so the
+    first point's mean, variance and residual are computed once for all of them, and the first
+    step's score and the estimability check's moments (sum W z, sum W z^2) are matrix products
+    of the weights with the rows. The first step uses the full sample's information at the
+    start scaled to the replicate's size (a replicate's own differs from it by ~1/sqrt(n));
+    the second point gets each replicate's own information (a product of the weights times
+    the variances with the rows' pairwise column products z_i z_j, i <= j, in float64), kept
+    for the later (chord) steps and made again wherever a step shrank less than ``_SLOW``-fold
+    from the one before. The score is exact at every point, so the fixed point is the same
+    maximum; the stopping rule and the checks are ``_newton``'s. The linear model takes its
+    one step with each replicate's own cross-product matrix, as ``_newton``."""
+    n, q = Z.shape
+    C = W.shape[0]
+    iu = np.triu_indices(q)
+    k = len(iu[0])
+    offset = np.broadcast_to(np.asarray(off, dtype=float), (n,))
+    mu0, v0 = _mean_var(family, Z @ theta0 + offset)
+    r0 = y - mu0
+    score = np.zeros((C, q))
+    if v0 is None:  # the linear model: each replicate's own information
+        moments = np.zeros((C, k))  # sum_i W_i z_i z_i'
+        for sl in _row_blocks(n, C):
+            Zb = Z[sl]
+            Wb = W[:, sl]
+            moments += Wb @ (Zb[:, iu[0]] * Zb[:, iu[1]])
+            score += Wb @ (Zb * r0[sl, None])
+        H = _unpack(moments, q, iu)
+        N = H[:, :1, 0]
+        m1 = H[:, 0, 1:] / N
+        m2 = np.diagonal(H, axis1=1, axis2=2)[:, 1:] / N
+    else:
+        sums = np.zeros((C, 2 * q))  # sum_i W_i z_i and sum_i W_i z_i^2
+        for sl in _row_blocks(n, C):
+            Zb = Z[sl]
+            Wb = W[:, sl]
+            sums += Wb @ np.hstack([Zb, Zb * Zb])
+            score += Wb @ (Zb * r0[sl, None])
+        N = sums[:, :1]
+        m1 = sums[:, 1:q] / N
+        m2 = sums[:, q + 1:] / N
+        H = gram(Z, v0)[None, :, :] * (N[:, 0] / n)[:, None, None]
+    # a column without variation among the drawn rows is not estimable in that replicate
+    bad = np.any(m2 - m1 ** 2 <= 1e-10, axis=1)
+    T = np.tile(theta0, (C, 1))
+    done = np.zeros(C, dtype=bool)
+    size, before = np.full(C, np.inf), np.full(C, np.inf)  # the last two steps' sizes
+    for it in range(_MAX_NEWTON if family != "continuous" else 1):
+        act = np.flatnonzero(~(done | bad))
+        if act.size == 0:
+            break
+        if it > 0:  # the score (and, when due, the information) at the current points
+            score = np.zeros((act.size, q))
+            Ta = T[act]
+            fresh = (np.zeros((act.size, k))
+                     if it == 1 or np.any(size[act] > _SLOW * before[act]) else None)
+            for sl in _row_blocks(n, act.size):
+                Zb = Z[sl]
+                mu, v = _mean_var(family, Ta @ Zb.T + offset[sl])
+                Wb = W[act, sl]
+                score += (Wb * (y[sl] - mu)) @ Zb
+                if fresh is not None:
+                    fresh += (Wb * v) @ (Zb[:, iu[0]] * Zb[:, iu[1]])
+            if fresh is not None:
+                H[act] = _unpack(fresh, q, iu)
+        else:
+            score = score[act]
+        step = _solve(H[act], score)
+        before[act], size[act] = size[act], np.max(np.abs(step), axis=1)
+        T[act] += np.nan_to_num(step, nan=0.0)
+        bad[act] |= ~np.all(np.isfinite(step), axis=1)
+        done[act] |= size[act] <= _TOL * (1 + np.max(np.abs(T[act]), axis=1))
+        if np.all(done | bad):
+            break
+    if family == "continuous":
+        done[:] = True
+    if family == "binary":
+        act = np.flatnonzero(done & ~bad)
+        for sl in _row_blocks(n, act.size) if act.size else ():
+            eta = T[act] @ Z[sl].T + offset[sl]
+            bad[act] |= np.any((np.abs(eta) > 20) & (W[act, sl] > 0), axis=1)
+    T[bad | ~done] = np.nan
+    return T
+
+
+def _unpack(flat: np.ndarray, q: int, iu: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    H = np.empty((flat.shape[0], q, q))
+    H[:, iu[0], iu[1]] = flat
+    H[:, iu[1], iu[0]] = flat
+    return H
 
 
 class _Pairs:

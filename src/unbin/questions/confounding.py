@@ -267,7 +267,8 @@ class _Designs:
         p_max = max((v.X.shape[1] for v in self.items.values()), default=0)
         chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
         ok = [(key, it) for key, it in self.items.items() if it.res.ok]
-        prepared: list[WeightedGLM] = []
+        if r.family != "survival":
+            return self._glm_bootstrap(rng, replicates, chunk, ok, cond, marg)
         for c0 in range(0, replicates, chunk):
             W = design_resample_weights(rng, o, min(chunk, replicates - c0))
             if r.family == "survival":  # all designs on each replicate's rows and Cox layout
@@ -300,16 +301,31 @@ class _Designs:
                                              risks if self.marginal_ok else None)
                 for (key, it), coef in zip(ok, coefs, strict=True):
                     cond[key][c0:c0 + len(W)] = coef[:, :it.k] @ self._d(key)
-                continue
-            if not prepared:  # each design standardised once, for every chunk
-                prepared.extend(WeightedGLM(r.family, it.X, o, it.res.coef) for _, it in ok)
-            for (key, it), g in zip(ok, prepared, strict=True):
-                coef = g.coef(W)
+        return cond, marg, marg_cs
+
+    def _glm_bootstrap(self, rng: np.random.Generator, replicates: int, chunk: int,
+                       ok: list[tuple[str, _Design]], cond: dict[str, np.ndarray],
+                       marg: dict[str, np.ndarray],
+                       ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray],
+                                  dict[str, np.ndarray]]:
+        """:meth:`bootstrap` of the linear, logistic and Poisson designs: the replicates drawn
+        in chunks of ``chunk`` (the same draws from ``rng`` as ever), each design refitted on
+        all of them at once where the sample is large (``WeightedGLM.whole``), else chunk by
+        chunk; the standardised means chunk by chunk."""
+        r, o = self.r, self.r.outcome
+        W_all = np.concatenate([design_resample_weights(rng, o, min(chunk, replicates - c0))
+                                for c0 in range(0, replicates, chunk)])
+        for key, it in ok:  # each design standardised once, for every chunk
+            g = WeightedGLM(r.family, it.X, o, it.res.coef)
+            whole = g.coef(W_all) if g.whole else None
+            for c0 in range(0, replicates, chunk):
+                W = W_all[c0:c0 + chunk]
+                coef = g.coef(W) if whole is None else whole[c0:c0 + len(W)]
                 cond[key][c0:c0 + len(W)] = coef[:, 1:1 + it.k] @ self._d(key)
                 # standardised over the drawn rows as the full sample's over its rows
                 marg[key][c0:c0 + len(W)] = glm_means(r.family, it.X, it.k, coef, it.at,
                                                       replicate_copies(o, W), o.offset)
-        return cond, marg, marg_cs
+        return cond, marg, marg
 
     def _replicate_incidence(self, b: int, it: _Design, Xm: np.ndarray, m: np.ndarray,
                              coef: np.ndarray, layout: Layout,

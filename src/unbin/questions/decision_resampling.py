@@ -88,7 +88,7 @@ from ..models.cox import (
 )
 from ..models.cox.baseline import baseline_steps
 from ..models.cox.concordance import concordances
-from ..models.discrimination import auc, c_index
+from ..models.discrimination import auc, c_index, count_aucs
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     WeightedGLM,
@@ -150,6 +150,7 @@ class _Sample:
         self.cause = None if o.cause is None else np.asarray(o.cause)[idx]
         self.event_of_interest = o.event_of_interest
         self._order: Any = None
+        self._counts: np.ndarray | None = None
         # the Cox layout of these rows (unweighted): given when the replicate's refits made it
         self._layout: Any = layout
         self._outcome: Outcome | None = None
@@ -157,6 +158,12 @@ class _Sample:
         # the net benefits of the rules that are not fitted: the same in every evaluation on
         # these rows (the full sample is judged once per replicate)
         self.fixed_rules: dict[tuple[Any, ...], float] | None = None
+
+    def row_counts(self, n: int) -> np.ndarray:
+        """How often each of the analysis sample's ``n`` rows is among these rows."""
+        if self._counts is None:
+            self._counts = np.bincount(self.idx, minlength=n)
+        return self._counts
 
     def layout(self) -> Any:
         """The Cox layout of these rows (sort, risk sets), made once and shared by the models."""
@@ -309,19 +316,25 @@ def pair_auc(y: np.ndarray, score: np.ndarray) -> float:
 
 
 def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
-    """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence."""
-    Z = np.column_stack([np.ones(len(z)), z - z.mean()])
-    theta = np.array([special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6)), 1.0])
+    """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence.
+    The 2 x 2 information and the score are five sums over the rows (no n x 2 design)."""
+    y = np.asarray(y, dtype=float)
+    zc = np.asarray(z, dtype=float) - np.mean(z)
+    a, b = float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6))), 1.0
     for _ in range(50):
-        mu = special.expit(Z @ theta)
-        H = (Z * (mu * (1 - mu))[:, None]).T @ Z
-        try:
-            step = np.linalg.solve(H, Z.T @ (y - mu))
-        except np.linalg.LinAlgError:
+        mu = special.expit(a + b * zc)
+        w = mu * (1 - mu)
+        r = y - mu
+        wz = w * zc
+        h00, h01, h11 = float(w.sum()), float(wz.sum()), float(wz @ zc)
+        g0, g1 = float(r.sum()), float(r @ zc)
+        det = h00 * h11 - h01 * h01
+        if not (np.isfinite(det) and det > 0):
             return float("nan")
-        theta = theta + step
-        if np.max(np.abs(step)) < 1e-10:
-            return float(theta[1])
+        s0, s1 = (h11 * g0 - h01 * g1) / det, (h00 * g1 - h01 * g0) / det
+        a, b = a + s0, b + s1
+        if max(abs(s0), abs(s1)) < 1e-10:
+            return b
     return float("nan")
 
 
@@ -553,16 +566,24 @@ class _Evaluator:
 
     def replicate_c(self, zs: dict[int, np.ndarray | None], drawn: _Sample, full: _Sample,
                     ) -> tuple[dict[int, float], dict[int, float]] | None:
-        """Harrell's C of every model of a replicate in its drawn data set and in the full
-        sample at once (survival without weights; else None): the drawn rows are the full
-        sample's rows repeated as drawn, so one time order (the full sample's) and one sort
-        by score serve both (:func:`unbin.models.cox.concordance.concordances`, the same
-        numbers as the C index of the repeated rows)."""
-        if self.r.family != "survival" or drawn.w is not None or full.w is not None:
+        """Harrell's C (binary: the AUC) of every model of a replicate in its drawn data set
+        and in the full sample at once (without weights; else None): the drawn rows are the
+        full sample's rows repeated as drawn, so one sort by score serves both, with the
+        drawn rows as draw counts (survival: and one time order, the full sample's,
+        :func:`unbin.models.cox.concordance.concordances`; binary:
+        :func:`unbin.models.discrimination.count_aucs`), the same numbers as the C index of
+        the repeated rows."""
+        if drawn.w is not None or full.w is not None:
             return None
-        counts = np.bincount(drawn.idx, minlength=self.r.outcome.n)
+        counts = drawn.row_counts(self.r.outcome.n)
         in_drawn: dict[int, float] = {}
         in_full: dict[int, float] = {}
+        if self.r.family == "binary":  # one sort per model (count_aucs), the pair_auc values
+            for key, z in zs.items():
+                got = None if z is None else count_aucs(full.y, z[full.idx], [counts, None])
+                if got is not None:
+                    in_drawn[key], in_full[key] = got
+            return in_drawn, in_full
         for key, z in zs.items():
             if z is not None:
                 in_drawn[key], in_full[key] = concordances(full.time_order(), z[full.idx],
@@ -594,7 +615,7 @@ class _Evaluator:
                     else None if z is None else (coef_by[k], z))
             if risk is None:
                 continue
-            self._risk_measures(out, k, risk[1][on.idx], fit, on, apparent_run)
+            self._risk_measures(out, k, risk[1], fit, on, apparent_run)
             if implied and k in CURVE_MODELS:
                 self._crossings(out, k, risk[0], risk[1], fit)
         for coding in CODINGS:
@@ -606,17 +627,26 @@ class _Evaluator:
         return out
 
     def _risk_measures(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
-                       zo: np.ndarray, fit: _Sample, on: _Sample, apparent_run: bool) -> None:
-        """Net benefit of the model's risk rule and its calibration slope on ``on``."""
+                       z: np.ndarray, fit: _Sample, on: _Sample, apparent_run: bool) -> None:
+        """Net benefit of the model's risk rule and its calibration slope on ``on``; ``z``
+        the model's z of every sample row."""
         pt = self.pt
-        nb = on.net_benefit(pt, risk=self.risk(zo)) if pt.size else np.zeros(0)
+        if self.r.family == "binary" and on.w is None and pt.size:
+            # on the sample's rows with ``on``'s draw counts: no repeated rows to form
+            nb = net_benefit_risk(self.r.outcome.y, self.risk(z), pt,
+                                  on.row_counts(self.r.outcome.n))[0]
+            zo = None
+        else:
+            zo = z[on.idx]
+            nb = on.net_benefit(pt, risk=self.risk(zo)) if pt.size else np.zeros(0)
         for t, v in zip(pt, nb, strict=True):
             out[("net benefit", f"risk: {k[0]}", t)] = float(v)
         # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
         # (not for the Fine–Gray risks under competing events: the slope is the
         # cause-specific Cox model's on their z, as in the calibration table)
         out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
-                                         and not self.competing else on.slope(zo))
+                                         and not self.competing
+                                         else on.slope(z[on.idx] if zo is None else zo))
 
     def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
                    c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:

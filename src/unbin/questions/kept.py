@@ -194,16 +194,20 @@ def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: np.nda
     p_max = max(mod.X.shape[1] for mod in unique)
     chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
     prepared: list[WeightedGLM] = []
+    whole: list[np.ndarray | None] = []
+    if family != "survival":
+        prepared = [WeightedGLM(family, mod.X, outcome, mod.res.coef) for mod in unique]
+        # large samples: every replicate refitted in one go (WeightedGLM.whole)
+        whole = [g.coef(W_all) if g.whole else None for g in prepared]
     for c0 in range(0, replicates, chunk):
         W = W_all[c0:c0 + chunk]
         if family == "survival":
             for j, v in enumerate(_cox_logliks(unique, outcome, W, robust)):
                 ll_unique[c0:c0 + len(W), j] = v
             continue
-        if not prepared:
-            prepared.extend(WeightedGLM(family, mod.X, outcome, mod.res.coef) for mod in unique)
         for j, (mod, g) in enumerate(zip(unique, prepared, strict=True)):
-            coef = g.coef(W)
+            got = whole[j]
+            coef = g.coef(W) if got is None else got[c0:c0 + len(W)]
             ll_unique[c0:c0 + len(W), j] = (
                 glm_robust_wald(family, mod.X, outcome, coef, W, mod.k) if robust
                 else glm_logliks(family, mod.X, coef, outcome, W))

@@ -43,13 +43,36 @@ def net_benefit_counts(y: np.ndarray, positive: np.ndarray,
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
 
 
-def net_benefit_risk(y: np.ndarray, risk: np.ndarray,
-                     thresholds: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+# Up to this many thresholds the rows at or above each are counted directly (a comparison and
+# a sum per threshold); beyond it, from one sort of the risks.
+_DIRECT_THRESHOLDS = 8
+
+
+def net_benefit_risk(y: np.ndarray, risk: np.ndarray, thresholds: np.ndarray,
+                     counts: np.ndarray | None = None,
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``net_benefit_counts`` of the rules "treat when risk >= p_t" at every threshold, from
     the sorted risks of the events and of the others (no thresholds x n matrix: counting the
-    risks at or above p_t is ``len - searchsorted(sorted, p_t, 'left')``)."""
+    risks at or above p_t is ``len - searchsorted(sorted, p_t, 'left')``); for a few
+    thresholds, by counting the rows at or above each directly (the same whole numbers).
+    ``counts``: the data set in which row i is repeated ``counts[i]`` times (a bootstrap
+    replicate's drawn rows), the same numbers as on the repeated rows, without repeating
+    them."""
     y = np.asarray(y, dtype=float) > 0
     risk = np.asarray(risk, dtype=float)
+    thresholds = np.asarray(thresholds, dtype=float)
+    direct = thresholds.size <= _DIRECT_THRESHOLDS and not np.isnan(risk).any()
+    if counts is not None and not direct:  # repeat the rows
+        rows = np.repeat(np.arange(len(y)), np.asarray(counts, dtype=np.int64))
+        y, risk, counts = y[rows], risk[rows], None
+    if direct:
+        c = np.ones(len(y)) if counts is None else np.asarray(counts, dtype=float)
+        n = len(y) if counts is None else int(round(float(c.sum())))
+        # whole numbers below 2^53: exact in any order of summation
+        ev, non, c_ev, c_non = risk[y], risk[~y], c[y], c[~y]
+        tp = np.array([c_ev @ (ev >= t) for t in thresholds], dtype=float) / n
+        fp = np.array([c_non @ (non >= t) for t in thresholds], dtype=float) / n
+        return tp - fp * thresholds / (1.0 - thresholds), tp, fp
     n = len(y)
     ev, non = np.sort(risk[y]), np.sort(risk[~y])
     tp = (ev.size - np.searchsorted(ev, thresholds, side="left")) / n
