@@ -901,3 +901,115 @@ def test_standardised_design_is_the_two_pass_computation(layout_of: str) -> None
                                atol=1e-9)
     np.testing.assert_allclose(D.reach, np.abs(D.X1[:, 1:]).max(axis=0), rtol=1e-9)
     np.testing.assert_allclose(D.xwe, D.X1[:, 1:].T @ L.we, rtol=1e-12, atol=1e-9)
+
+
+# ------------------------------------------------- refits of bootstrap replicates (secant)
+
+
+def _replicate(df: pd.DataFrame, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """A bootstrap replicate as count weights: the rows drawn at least once and how often each
+    was drawn (times its own weight ``W``)."""
+    n = len(df)
+    counts = np.random.default_rng(seed).multinomial(n, np.full(n, 1.0 / n))
+    m = np.flatnonzero(counts)
+    return m, counts[m] * df["W"].to_numpy(float)[m]
+
+
+def _replicate_fits(
+    df: pd.DataFrame, seed: int, ties: str, tol: float = 1e-9
+) -> tuple[np.ndarray, list[np.ndarray], CoxFit, np.ndarray | None, np.ndarray]:
+    """The replicate's design, the points the secant refit evaluated (last: its estimate),
+    the engine's Newton fit to 1e-13 (the reference), the refit's estimate and the start."""
+    from unbin.models.cox.fit import _near
+
+    X = _x(df)
+    kw = {"entry": df["entry"].to_numpy(float), "strata": df["S"].to_numpy()}
+    start = fit_cox(X, df["T"], df["E"], weights=df["W"], ties=ties, **kw).coef  # type: ignore[arg-type]
+    m, w = _replicate(df, seed)
+    t, e = df["T"].to_numpy(float)[m], df["E"].to_numpy(float)[m]
+    rep = {k: v[m] for k, v in kw.items()}
+    layout = prepare_layout(t, e, weights=w, **rep)
+    assert layout.ties and layout.late_entry and layout.n_strata == 2
+    trace: list[np.ndarray] = []
+    got = _near(X[m], layout, start, ties, tol, 50, False, trace)
+    ref = fit_cox(X[m], t, e, weights=w, ties=ties, tol=1e-13, **rep)
+    assert ref.converged, ref.message
+    return X[m], trace, ref, None if got is None else got[0], start
+
+
+@pytest.mark.parametrize("ties", ["efron", "breslow"])
+def test_secant_refits_of_replicates_equal_a_newton_fit_to_1e_13(
+    days: pd.DataFrame, ties: str
+) -> None:
+    """``refit_near`` on bootstrap replicates (count weights on weighted rows, tied days, two
+    strata, delayed entry), started at the full-sample estimate, gives the estimate of the
+    engine's own Newton fit iterated to tol 1e-13 (the reference), to a tenth of the stopping
+    rule's bound on the linear predictor (1e-7 at tol 1e-9)."""
+    from unbin.models.cox import refit_near
+
+    for seed in range(6):
+        Xm, trace, ref, got, start = _replicate_fits(days, seed, ties)
+        assert got is not None
+        assert float(np.abs(Xm @ (got - ref.coef)).max()) <= 1e-8
+        np.testing.assert_allclose(got, ref.coef, rtol=1e-8, atol=1e-12)
+        assert len(trace) >= 4  # a Newton step and at least two secant steps were needed
+        m, w = _replicate(days, seed)
+        layout = prepare_layout(days["T"].to_numpy(float)[m], days["E"].to_numpy(float)[m],
+                                entry=days["entry"].to_numpy(float)[m],
+                                strata=days["S"].to_numpy()[m], weights=w)
+        assert np.array_equal(refit_near(Xm, layout, start, ties=ties), got)
+
+
+def test_secant_refit_of_a_replicate_matches_lifelines(days: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter(weights_col=, strata=, entry_col=) on the replicate's rows
+    # with their count weights (Efron ties), fitted to lifelines' tightest precision
+    _, _, _, got, _ = _replicate_fits(days, 11, "efron")
+    m, w = _replicate(days, 11)
+    rows = days.iloc[m][COLS + ["T", "E", "S", "entry"]].assign(W=w)
+    cph = CoxPHFitter().fit(rows, "T", "E", weights_col="W", entry_col="entry", strata=["S"],
+                            fit_options=TIGHT)
+    assert got is not None
+    np.testing.assert_allclose(got, cph.params_.to_numpy(), rtol=1e-6)
+
+
+@pytest.mark.parametrize("tol", [1e-9, 1e-11])
+def test_secant_refit_does_not_stop_before_its_steps_settle(
+    days: pd.DataFrame, tol: float
+) -> None:
+    """The estimate returned is within a tenth of the stopping bound (``100 * tol`` on every
+    row's linear predictor) of the maximum (the engine's Newton fit to 1e-13), while every
+    point the iteration passed through before its last one is farther than the bound itself:
+    an iteration that returned any earlier point, or took the settling test on a step before
+    the last, fails here."""
+    bound = 100.0 * tol
+    for seed in (3, 4):
+        Xm, trace, ref, got, _ = _replicate_fits(days, seed, "efron", tol)
+        assert got is not None and np.array_equal(trace[-1], got)
+        off = [float(np.abs(Xm @ (b - ref.coef)).max()) for b in trace]
+        assert off[-1] <= 0.1 * bound
+        assert min(off[:-2]) > bound  # the points before the last evaluated one
+        assert len(off) >= 4, off
+
+
+def test_secant_steps_need_fewer_scores_than_chord_steps(
+    days: pd.DataFrame, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """With the secant update switched off (the start's information kept: chord steps) the
+    refit reaches the same maximum (reference: the engine's Newton fit to 1e-13) through as many
+    points or more: the update is what saves score evaluations, not a looser stop. Replicates
+    of 1,000 rows, whose estimates lie farther from the start than the full cohort's."""
+    import unbin.models.cox.fit as engine
+
+    small = days.iloc[:1000].reset_index(drop=True)
+    fewer = 0
+    for seed in range(8):
+        Xm, secant, ref, got, _ = _replicate_fits(small, seed, "efron")
+        with monkeypatch.context() as mp:
+            mp.setattr(engine, "_secant_update", lambda B, factor, step, y: (B, factor))
+            _, chord, _, got_chord, _ = _replicate_fits(small, seed, "efron")
+        assert got is not None and got_chord is not None
+        assert float(np.abs(Xm @ (got - ref.coef)).max()) <= 1e-8
+        assert float(np.abs(Xm @ (got_chord - ref.coef)).max()) <= 1e-7
+        assert len(secant) <= len(chord)
+        fewer += len(secant) < len(chord)
+    assert fewer >= 3

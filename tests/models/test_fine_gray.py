@@ -224,3 +224,39 @@ def test_breslow_ties_equal_the_expansion() -> None:
     np.add.at(own, data.person, cox_scores(data.take(X), expanded, ref.coef, ties="breslow"))
     np.testing.assert_allclose(fine_gray.score_terms(L, X, ref.coef, ties="breslow"), own,
                                atol=1e-10)
+
+
+@pytest.mark.parametrize("strata", [False, True])
+def test_secant_refits_of_replicates_equal_newtons_fit_to_1e_13(strata: bool) -> None:
+    """A bootstrap replicate as count weights on the drawn rows (tied times, delayed entry,
+    optionally strata), refitted from the full-sample estimate by quasi-Newton steps
+    (``fine_gray.fit_near``; through ``fine_gray_near`` with its baseline), against Newton's
+    method of :func:`unbin.models.fine_gray.fit` iterated to tol 1e-13 from zero (the
+    reference; that fit is checked against lifelines on the expanded rows above), to a tenth of
+    the refit's stopping bound on the linear predictor (``10 * tol``: 1e-8 at tol 1e-9)."""
+    from dataclasses import replace
+
+    from unbin.models import fine_gray
+    from unbin.models.competing import fine_gray_layout
+
+    X, o, c = _sample(21, 1500, delayed=True, weighted=False, strata=strata)
+    start = fit_fine_gray(X, o, c, 1, ("x", "z", "u")).coef
+    for seed in range(3):
+        counts = np.random.default_rng(seed).multinomial(o.n, np.full(o.n, 1.0 / o.n))
+        m = np.flatnonzero(counts)
+        rep = replace(o.subset(m), weights=counts[m].astype(float), cluster=None)
+        L = fine_gray_layout(rep, c[m], 1)
+        ref = fine_gray.fit(L, X[m], tol=1e-13)
+        assert ref.converged
+        got = fine_gray.fit_near(L, X[m], start)
+        assert got is not None
+        assert float(np.abs(X[m] @ (got - ref.coef)).max()) <= 1e-9
+        coef, base = fine_gray_near(X[m], rep, start)
+        assert coef is not None and base is not None
+        np.testing.assert_array_equal(coef, got)
+    # from far off, fit_near declines within few steps and fine_gray_near falls back to
+    # Newton's method, which reaches the same maximum
+    assert fine_gray.fit_near(L, X[m], start + 3.0, max_iter=3) is None
+    far, _ = fine_gray_near(X[m], rep, start + 3.0)
+    assert far is not None
+    assert float(np.abs(X[m] @ (far - ref.coef)).max()) <= 1e-7

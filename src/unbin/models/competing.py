@@ -333,17 +333,33 @@ def fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray
                    ) -> tuple[np.ndarray | None, pd.DataFrame | None]:
     """Coefficients and Breslow baseline (at covariates 0) of the Fine–Gray model of ``X`` on
     ``sample`` (its ``cause`` and ``event_of_interest``), as :func:`fit_fine_gray` gives them,
-    without the sandwich: Newton's method from ``start`` (a replicate's refit started at the
-    full-sample estimate); (None, None) when it does not fit."""
+    without the sandwich: a replicate's refit started at the full-sample estimate ``start``,
+    by quasi-Newton steps (:func:`unbin.models.fine_gray.fit_near`), or by Newton's method
+    from ``start`` where those do not settle; (None, None) when it does not fit."""
+    from ._glm import check_design
+
     assert sample.cause is not None
     X = np.asarray(X, dtype=float).reshape(sample.n, -1)
     names = tuple(f"x{j}" for j in range(X.shape[1]))
-    got = _fit_coef(X, sample, np.asarray(sample.cause), sample.event_of_interest, names,
-                    init=np.asarray(start, dtype=float))
-    if isinstance(got, FitResult) or not np.all(np.isfinite(got[1].coef)):
+    cause = np.asarray(sample.cause)
+    start = np.asarray(start, dtype=float)
+    coef: np.ndarray | None = None
+    L: fine_gray.Layout | None = None
+    if np.any(cause == sample.event_of_interest) and not check_design(X, names):
+        try:
+            L = fine_gray_layout(sample, cause, sample.event_of_interest)
+        except ValueError:  # the sample's arrays: _fit_coef below reports it
+            L = None
+        if L is not None:
+            coef = fine_gray.fit_near(L, X, start)
+    if coef is None or L is None:
+        got = _fit_coef(X, sample, cause, sample.event_of_interest, names, init=start)
+        if isinstance(got, FitResult):
+            return None, None
+        L, coef = got[0], got[1].coef
+    if not np.all(np.isfinite(coef)):
         return None, None
-    L, res = got
-    return res.coef, fine_gray.baseline(L, X @ res.coef)
+    return coef, fine_gray.baseline(L, X @ coef)
 
 
 def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,

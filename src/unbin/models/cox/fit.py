@@ -437,14 +437,16 @@ def refit_near(
     max_iter: int = 50,
 ) -> np.ndarray | None:
     """Coefficients only, for refits that start close to their estimate (bootstrap replicates
-    started at the full-sample estimate): one Newton step from ``init`` with the full
-    information, then chord steps that keep that information and recompute only the log
-    partial likelihood and the score (the risk-set sums of ``exp(eta)`` alone, no Gram
-    product). The score is exact, so the fixed point is the maximum ``fit_cox`` finds; each step
-    shrinks the error by about the relative change of the information between ``init`` and
-    the estimate. Stops by ``fit_cox``'s rule (the next step would change no row's linear
-    predictor by more than ``100 * tol``). Returns None when it does not settle, the likelihood
-    falls or the information is singular: the caller then fits with ``fit_cox``.
+    started at the full-sample estimate): one Newton step from ``init`` with the information
+    there, then quasi-Newton steps that recompute only the log partial likelihood and the
+    score (the risk-set sums of ``exp(eta)`` alone, no Gram product) and correct that
+    information by a secant (BFGS) update from each step and its change in score. The score is
+    exact, so the fixed point is the maximum ``fit_cox`` finds; the corrected information
+    tracks the one at the estimate, so the steps shrink faster than with the start's
+    information kept fixed (chord steps, linear convergence). Stops by ``fit_cox``'s rule (the
+    next step would change no row's linear predictor by more than ``100 * tol``; that step is
+    taken). Returns None when it does not settle, the likelihood falls or the information is
+    singular: the caller then fits with ``fit_cox``.
     """
     out = _near(X, layout, init, ties, tol, max_iter, False)
     return None if out is None else out[0]
@@ -460,9 +462,32 @@ def refit_near_loglik(
     return _near(X, layout, init, ties, tol, max_iter, True)
 
 
+def _secant_update(
+    B: np.ndarray, factor: Any, step: np.ndarray, y: np.ndarray
+) -> tuple[np.ndarray, Any]:
+    """The BFGS update of the information ``B`` (and its Cholesky factor) from a step and the
+    score's fall along it, ``y = score(before) - score(after)``: the updated matrix maps the
+    step to ``y`` (the information averaged along the step) and is unchanged on what is
+    orthogonal to it in ``B``'s metric (Nocedal & Wright 2006, sec. 6.1). Kept as it was when
+    the curvature ``step . y`` is not positive (the concave log partial likelihood makes it
+    positive unless rounding dominates) or the update is not positive definite."""
+    Bs = B @ step
+    sy, sBs = float(step @ y), float(step @ Bs)
+    if not (sy > 0.0 and sBs > 0.0):
+        return B, factor
+    updated = B - np.outer(Bs, Bs) / sBs + np.outer(y, y) / sy
+    try:
+        return updated, linalg.cho_factor(updated, check_finite=False)
+    except (linalg.LinAlgError, ValueError):
+        return B, factor
+
+
 def _near(
     X: Any, layout: Layout, init: Any, ties: str, tol: float, max_iter: int, with_loglik: bool,
+    trace: list[np.ndarray] | None = None,
 ) -> tuple[np.ndarray, float] | None:
+    """:func:`refit_near`'s iteration; ``trace`` (for tests) receives each point evaluated,
+    on the scale of X, and last the estimate returned."""
     efron = _efron(ties)
     Xa = _design(X)
     _check_finite("X", Xa)
@@ -481,16 +506,20 @@ def _near(
     except linalg.LinAlgError:
         return None
     for _ in range(max_iter):
+        if trace is not None:
+            trace.append(beta / scale)
         step = linalg.cho_solve(factor, score, check_finite=False)
         if not np.isfinite(step).all():
             return None
-        if _settled(D, step, tol):
-            beta = beta + step
-            ll_end = _evaluate(L, D, beta, efron, 0)[0] if with_loglik else float("nan")
-            return np.asarray(beta / scale), float(ll_end)
         beta = beta + step
-        ll_next, score, _ = _evaluate(L, D, beta, efron, 1)
+        if _settled(D, step, tol):
+            ll_end = _evaluate(L, D, beta, efron, 0)[0] if with_loglik else float("nan")
+            if trace is not None:
+                trace.append(beta / scale)
+            return np.asarray(beta / scale), float(ll_end)
+        ll_next, score_next, _ = _evaluate(L, D, beta, efron, 1)
         if not np.isfinite(ll_next) or ll_next < ll - tol * max(1.0, abs(ll)):
             return None
-        ll = ll_next
+        info, factor = _secant_update(info, factor, step, score - score_next)
+        ll, score = ll_next, score_next
     return None
