@@ -243,11 +243,13 @@ class _Screen:
             return self._least_squares_bound(ll, U, I_)
         theta = self.theta0[idx]
         D: object = None
+        # np.take gathers the columns straight into a row-major array (indexing with a list
+        # builds a column-major one that would then be copied again: several times slower)
         if self.family == "survival":
-            Zc = np.ascontiguousarray(self.Z[:, [0, *(idx + 1)]])
+            Zc = np.take(self.Z, np.array([0, *(idx + 1)]), axis=1)
             D = self._design_of.of(Zc, self.layout.we, np.zeros(idx.size))
         else:
-            Zc = np.ascontiguousarray(self.Z[:, idx])
+            Zc = np.take(self.Z, idx, axis=1)
         if anchor is not None:
             theta_a, (_, U_a, I_a) = anchor
             start = newton_step(I_a[np.ix_(idx, idx)], U_a[idx] + I_a[idx] @ theta_a)
