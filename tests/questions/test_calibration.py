@@ -287,6 +287,36 @@ def test_calibration_table_rows_for_every_decision_model(outcome: dict[str, Any]
     assert len(tab[(tab.model == "spline") & (tab.row_kind == "smooth")]) == 25
 
 
+def test_survival_slopes_of_every_model_match_lifelines_with_strata_and_entry() -> None:
+    """The table's models share the outcomes their calibration fits use (one Cox layout for
+    all): each model's slope still equals lifelines' CoxPHFitter of the event on that model's
+    log(-log(1 - p)), stratified, with delayed entry (Efron ties)."""
+    from unbin.questions.decisions import decision_models
+
+    rng = np.random.default_rng(8)
+    df = _frame(rng, 700)
+    df["centre"] = rng.integers(0, 3, len(df))
+    df["entry"] = rng.uniform(0, 1, len(df)).round(2)
+    df = df[df["time"] > df["entry"] + 0.01].reset_index(drop=True)
+    raw = _raw({"type": "survival", "event": "ev", "time": "time", "entry": "entry"},
+               strata=["centre"])
+    spec = parse_spec(raw, base=Path("."))
+    a = spec.analyses[0]
+    r = refit_analysis(analysis_sample(df, a, spec), a, spec, "sim")
+    tab = calibration_table(r, spec)
+    d = decision_models(r, spec)
+    models = ([d.legacy] if d.legacy is not None else []) + list(d.curves)
+    assert len(models) == 3
+    for rf in models:
+        z = rf.exposure_rows + rf.rest
+        frame = pd.DataFrame({"t": df["time"], "d": df["ev"], "e": df["entry"], "z": z,
+                              "s": df["centre"]})
+        cph = CoxPHFitter().fit(frame, "t", "d", entry_col="e", strata=["s"],
+                                fit_options=TIGHT)
+        row = tab[(tab["model"] == rf.model) & (tab["row_kind"] == "slope")].iloc[0]
+        assert row["estimate"] == pytest.approx(cph.params_["z"], abs=1e-6)
+
+
 def test_calibration_skips_outcomes_without_an_event_probability() -> None:
     df = _frame(np.random.default_rng(3), 200)
     spec = parse_spec(_raw({"type": "continuous", "value": "v"}), base=Path("."))

@@ -149,3 +149,44 @@ def test_contrasts_read_group_vs_reference(reference: str, comparison: str) -> N
         reference)]))
     assert lin["estimate"] == pytest.approx(lin["x_value"] - lin["x_reference"],
                                             abs=4 * lin["se"])
+
+
+def test_untrimmed_rows_reuse_the_refits_fits(monkeypatch: pytest.MonkeyPatch) -> None:
+    """With the analysis' own fits at hand, the untrimmed rows reuse them (the same design on
+    the same rows): every row equals the table built from a Refit without fits, which refits
+    each model, and the untrimmed legacy and linear contrasts equal statsmodels' logistic GLM
+    of the same indicators and covariate (statsmodels as the reference library)."""
+    import statsmodels.api as sm
+
+    from unbin.questions import ranges
+    from unbin.refit.analysis import refit_analysis
+
+    rng = np.random.default_rng(5)
+    n = 4000
+    x = rng.normal(50, 10, n).round(1)
+    age = rng.normal(60, 8, n).round(0)
+    y = (rng.random(n) < 1 / (1 + np.exp(-(-1 + 0.03 * (x - 50) + 0.02 * (age - 60))))
+         ).astype(float)
+    df = pd.DataFrame({"x": x, "y": y, "age": age})
+    raw = _raw({"type": "binary", "event": "y"}, [45.0, 55.0], ["age"])
+    bare, spec = _refit(df, raw)
+    full = refit_analysis(bare.sample, bare.analysis, spec, "sim")
+    calls = []
+    fit = ranges.fit
+    monkeypatch.setattr(ranges, "fit", lambda *args: calls.append(1) or fit(*args))
+    with_fits = ranges_table(full, spec)
+    assert len(calls) == 3 * len(trims()) - 3  # the three untrimmed models are reused
+    without = ranges_table(bare, spec)
+    assert len(calls) == 2 * 3 * len(trims()) - 3
+    pd.testing.assert_frame_equal(with_fits, without, check_exact=True)
+    untrimmed = with_fits[with_fits["trim"] == "none"].set_index("form")
+    # the reference group is the first (<45); the comparison is the highest group
+    g_high = (x >= 55).astype(float)
+    X = sm.add_constant(np.column_stack([((x >= 45) & (x < 55)).astype(float), g_high, age]))
+    ref = sm.GLM(y, X, family=sm.families.Binomial()).fit()
+    assert untrimmed.loc["legacy", "estimate"] == pytest.approx(ref.params[2], rel=1e-7)
+    assert untrimmed.loc["legacy", "se"] == pytest.approx(ref.bse[2], rel=1e-6)
+    lin = sm.GLM(y, sm.add_constant(np.column_stack([x, age])),
+                 family=sm.families.Binomial()).fit()
+    step = untrimmed.loc["linear", "x_value"] - untrimmed.loc["linear", "x_reference"]
+    assert untrimmed.loc["linear", "estimate"] == pytest.approx(lin.params[1] * step, rel=1e-7)

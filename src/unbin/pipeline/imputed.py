@@ -189,8 +189,10 @@ def _refit_fixed(sample: Sample, a: Analysis, spec: Spec, cohort: str,
 
 
 def stripped(fits: list[Any]) -> list[Any]:
-    """The fits without their n-long linear predictors (memory: M sets of some thirty fits)."""
-    return [replace(f, result=replace(f.result, linear_predictor=None)) for f in fits]
+    """The fits without their n-long linear predictors (memory: M sets of some thirty fits),
+    nor the C-index a released predictor left behind (a stripped fit has none, as before)."""
+    return [replace(f, result=replace(f.result, linear_predictor=None), c_index=None)
+            for f in fits]
 
 
 def _with_method(df: pd.DataFrame, method: str) -> pd.DataFrame:

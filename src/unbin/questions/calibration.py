@@ -43,6 +43,7 @@ row says so. Sampling weights and clusters are not used here (unweighted rows).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -200,6 +201,7 @@ def smooth_binary(y: np.ndarray, pred: np.ndarray, grid: np.ndarray,
 
 
 def smooth_survival(rf: RiskFit, outcome: Outcome, grid: np.ndarray, horizon: float,
+                    shared: dict[str, Outcome] | None = None,
                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Observed risk by the horizon at the predicted risks ``grid`` from a Cox model on a
     restricted cubic spline of log(-log(1 - p)), read through its Breslow baseline (strata
@@ -212,7 +214,8 @@ def smooth_survival(rf: RiskFit, outcome: Outcome, grid: np.ndarray, horizon: fl
     if term is None:
         return nan, nan, nan
     X = np.asarray(term.basis(z), dtype=float)
-    o = Outcome("survival", outcome.y, time=outcome.time, entry=outcome.entry)
+    o = _derived(shared, "unstratified", lambda: Outcome(
+        "survival", outcome.y, time=outcome.time, entry=outcome.entry))
     res = fit("survival", X, o, term.names())
     if not res.ok:
         return nan, nan, nan
@@ -238,16 +241,28 @@ def smooth_survival(rf: RiskFit, outcome: Outcome, grid: np.ndarray, horizon: fl
 # --------------------------------------------------------------------------- one model
 
 
+def _derived(shared: dict[str, Outcome] | None, key: str,
+             make: Callable[[], Outcome]) -> Outcome:
+    """An outcome derived from the analysis' one, made once per table when ``shared`` is
+    given: its cache (the Cox layout: sort order, risk sets) then serves every model."""
+    if shared is None:
+        return make()
+    if key not in shared:
+        shared[key] = make()
+    return shared[key]
+
+
 def _intercept_and_slope(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.ndarray,
-                         z: np.ndarray | None, common: dict[str, Any]) -> list[dict[str, Any]]:
+                         z: np.ndarray | None, common: dict[str, Any],
+                         shared: dict[str, Outcome] | None = None) -> list[dict[str, Any]]:
     """The calibration intercept and slope rows (``z``: survival's log(-log(1 - p)))."""
     h = rf.scale.horizon
     if z is not None:
         assert outcome.time is not None and h is not None
         a, se_a = oe_intercept(z, outcome.time, y, outcome.entry, outcome.strata, h)
         by = f"log(O/E), Poisson with expected events up to {h:g}"
-        o = Outcome("survival", y, time=outcome.time, entry=outcome.entry,
-                    strata=outcome.strata)
+        o = _derived(shared, "stratified", lambda: Outcome(
+            "survival", y, time=outcome.time, entry=outcome.entry, strata=outcome.strata))
         res = fit("survival", z[:, None], o, ("cloglog_risk",))
         method = "Cox model on log(-log(1 - p))"
         slope_i = 0
@@ -308,7 +323,8 @@ def _tenth_rows(pred: np.ndarray, y: np.ndarray, outcome: Outcome, h: float | No
 
 
 def _smooth_rows(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.ndarray,
-                 h: float | None, survival: bool, common: dict[str, Any]) -> list[dict[str, Any]]:
+                 h: float | None, survival: bool, common: dict[str, Any],
+                 shared: dict[str, Outcome] | None = None) -> list[dict[str, Any]]:
     """The flexible calibration curve between the 1st and 99th percentiles of predicted risk
     (none when too few distinct predictions)."""
     lo_p, hi_p = np.quantile(pred, [0.01, 0.99])
@@ -317,7 +333,7 @@ def _smooth_rows(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.ndarray,
     grid = np.linspace(lo_p, hi_p, SMOOTH_POINTS)
     if survival:
         assert h is not None
-        obs_s, lo_s, hi_s = smooth_survival(rf, outcome, grid, h)
+        obs_s, lo_s, hi_s = smooth_survival(rf, outcome, grid, h, shared)
         m = f"Cox on a {SMOOTH_KNOTS}-knot spline of log(-log(1 - p)), at {h:g}"
     else:
         obs_s, lo_s, hi_s = smooth_binary(y, pred, grid)
@@ -327,8 +343,10 @@ def _smooth_rows(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.ndarray,
              "computed_by": m} for k in range(len(grid))]
 
 
-def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[str, Any]]:
-    """Every calibration row of one model on the risk scale (module docstring)."""
+def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int,
+                     shared: dict[str, Outcome] | None = None) -> list[dict[str, Any]]:
+    """Every calibration row of one model on the risk scale (module docstring). ``shared``
+    keeps the outcomes derived from ``outcome`` for the next model of the same sample."""
     pred = np.asarray(rf.risk, dtype=float)
     y = np.asarray(outcome.y, dtype=float)
     common = {"model": rf.model, "adjustment": rf.adjustment, "detail": rf.detail,
@@ -346,9 +364,9 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int) -> list[dict[
             return [{**common, "status": "failed",
                      "reason": "predicted risk 0 for some rows (no event before the horizon); "
                                "choose a later horizon"}]
-    return (_intercept_and_slope(rf, outcome, pred, y, z, common)
+    return (_intercept_and_slope(rf, outcome, pred, y, z, common, shared)
             + _tenth_rows(pred, y, outcome, h, survival, min_cell, common)
-            + _smooth_rows(rf, outcome, pred, y, h, survival, common))
+            + _smooth_rows(rf, outcome, pred, y, h, survival, common, shared))
 
 
 def calibration_table(r: Refit, spec: Spec) -> pd.DataFrame:
@@ -366,9 +384,11 @@ def calibration_table(r: Refit, spec: Spec) -> pd.DataFrame:
         rows.append({**base, "model": model, "adjustment": adjustment, "status": "failed",
                      "reason": message})
     fits = ([d.legacy] if d.legacy is not None else []) + list(d.curves)
+    shared: dict[str, Outcome] = {}  # every model's calibration fits share their layouts
     for rf in fits:
         try:
-            rows += [{**base, **row} for row in calibration_rows(rf, r.outcome, spec.min_cell)]
+            rows += [{**base, **row} for row in calibration_rows(rf, r.outcome, spec.min_cell,
+                                                                 shared)]
         except (ValueError, np.linalg.LinAlgError) as exc:
             rows.append({**base, "model": rf.model, "adjustment": rf.adjustment,
                          "status": "failed", "reason": f"calibration could not be computed: "

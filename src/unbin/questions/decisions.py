@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..refit.analysis import Refit
+from ..refit.analysis import RISK_FORMS, Refit
 from ..refit.interaction import SPLINE, level_models
 from ..refit.modifier import Levels
 from ..refit.risk import RiskFit, RiskScale, from_result, risk_fit, risk_scale
@@ -27,7 +27,7 @@ from ..spec import Analysis, Spec
 TABLES = ("thresholds", "net_benefit")
 CAUTION = ("These numbers support statistical re-analysis; clinical decisions follow local "
            "guidelines and licensed practice.")
-CURVE_FORMS = ("linear", "spline", "fp")
+CURVE_FORMS = RISK_FORMS  # the refit keeps these fits' linear predictors
 EVENT_FAMILIES = frozenset({"binary", "survival"})
 
 

@@ -8,7 +8,6 @@ import numpy as np
 import pandas as pd
 
 from ..models.base import FitResult, Outcome
-from ..models.discrimination import c_index
 from ..models.robust import variance_label
 from ..refit.analysis import Refit
 from ..spec import Spec
@@ -64,8 +63,7 @@ def fits_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
         lr = 2 * (res.loglik - null.loglik) if (null is not None and null.ok and res.ok) else np.nan
         df_exp = sum(t.df for t in f.exposure_terms)
         basis = [t.to_dict() for t in f.exposure_terms]
-        lp = res.linear_predictor if res.ok else None
-        c = c_index(r.outcome, lp) if lp is not None else np.nan
+        c = f.concordance(r.outcome)
         rows.append({
             "form": f.form,
             "detail": f.detail,

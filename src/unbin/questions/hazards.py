@@ -11,6 +11,8 @@ with the reason; other analysis families give an empty table."""
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pandas as pd
 
@@ -30,11 +32,12 @@ def hazards_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     """The proportional-hazards tests of every survival model (see the module's notes)."""
     rows: list[dict[str, object]] = []
     if r.family == "survival":
+        shared = _Shared()
         for coding in CODINGS:
             for form in FORMS:
                 f = r.get(form, coding)
                 if f is not None:
-                    rows += _model_rows(r, f, form, coding)
+                    rows += _model_rows(r, f, form, coding, shared)
     return pd.DataFrame(rows, columns=list(COLUMNS))
 
 
@@ -63,7 +66,30 @@ def _term_groups(f: FormFit) -> list[tuple[str, str, list[int]]]:
     return out
 
 
-def _model_rows(r: Refit, f: FormFit, form: str, coding: str) -> list[dict[str, object]]:
+class _Shared:
+    """What the models of one table share: the adjustment terms' columns (the same rows and
+    terms give the same columns) and the time transform at the events, which depends on the
+    outcome and the event times only (every model of the sample has the same events, in the
+    layout's order)."""
+
+    def __init__(self) -> None:
+        self.columns: dict[str, np.ndarray] = {}
+        self.event_times: np.ndarray | None = None
+        self.g: np.ndarray | None = None
+
+    def transform(self, r: Refit, resid: Any) -> np.ndarray:
+        if self.g is None or self.event_times is None or not np.array_equal(
+                self.event_times, resid.time):
+            o = r.outcome
+            self.g = time_transform(DEFAULT_TRANSFORM, resid, o.time, o.y, entry=o.entry,
+                                    weights=o.weights)
+            self.event_times = resid.time
+        return self.g
+
+
+def _model_rows(r: Refit, f: FormFit, form: str, coding: str,
+                shared: _Shared | None = None) -> list[dict[str, object]]:
+    shared = shared if shared is not None else _Shared()
     res = f.result
     if not res.ok:
         return [_row(form, coding, GLOBAL, "global", status="failed",
@@ -73,14 +99,13 @@ def _model_rows(r: Refit, f: FormFit, form: str, coding: str) -> list[dict[str, 
         return [_row(form, coding, GLOBAL, "global", status="failed",
                      message="the model has no covariates to test")]
     try:
-        X, names = design(r.sample.frame, r.x, f.exposure_terms, f.adjust_terms)
+        X, names = design(r.sample.frame, r.x, f.exposure_terms, f.adjust_terms,
+                          shared.columns)
         if names != res.names:  # the fit's columns, in its order
             raise ValueError(f"the design's columns {names} are not the fit's {res.names}")
         layout = cox_layout(r.outcome)
         resid = schoenfeld(X, res.coef, layout=layout, ties="efron")
-        o = r.outcome
-        g = time_transform(DEFAULT_TRANSFORM, resid, o.time, o.y, entry=o.entry,
-                           weights=o.weights)
+        g = shared.transform(r, resid)
         groups = _term_groups(f)
         per, glob = ph_tests(resid, res.cov, g, {label: cols for label, _, cols in groups})
     except ValueError as exc:

@@ -35,7 +35,6 @@ import numpy as np
 import pandas as pd
 
 from ..distributions import stats
-from ..models.discrimination import c_index
 from ..refit.analysis import FormFit, Refit
 from ..refit.interaction import SPLINE, level_models
 from ..spec import Spec
@@ -124,7 +123,7 @@ def information_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
             f = get[form]
             if f is None or not f.result.ok:
                 return np.nan
-            return c_index(r.outcome, f.result.linear_predictor)
+            return f.concordance(r.outcome)
 
         forms = ("legacy", "linear", "spline", "fp", "test_spline", "legacy+test_spline")
         test = get["test_spline"]

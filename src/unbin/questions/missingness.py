@@ -172,11 +172,11 @@ def missingness_table(frame: pd.DataFrame, sample: Sample, a: Analysis, spec: Sp
     ]
     out: list[dict[str, Any]] = []
     for subset, group, levels in subsets:
-        sizes = [int((group == lev).sum()) for lev in levels]
+        inside = [(group == lev).to_numpy() for lev in levels]  # once for every column
+        sizes = [int(m.sum()) for m in inside]
         shown_sizes = sizes if subset == "all" else disclosure.complementary(sizes, min_cell)
         for c in cols:
-            counts = [int(missing[c].to_numpy()[(group == lev).to_numpy()].sum())
-                      for lev in levels]
+            counts = [int(missing[c].to_numpy()[m].sum()) for m in inside]
             hidden = withheld_cells(sizes, counts, min_cell, partition=subset != "all")
             for lev, size, shown, n_missing, withheld in zip(levels, sizes, shown_sizes, counts,
                                                              hidden, strict=True):

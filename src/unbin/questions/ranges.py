@@ -37,6 +37,7 @@ import numpy as np
 import pandas as pd
 
 from ..models import EFFECT_SCALE, fit
+from ..models.base import FitResult
 from ..refit.analysis import FormFit, Refit, adjustment_terms, design, legacy_term
 from ..refit.contrasts import contrast, with_interval
 from ..spec import Spec
@@ -124,9 +125,13 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
             keep &= x_full >= b_lo
         if hi > 0:
             keep &= x_full <= b_hi
-        df = df_full[keep].reset_index(drop=True)
-        x = x_full[keep]
-        outcome = r.outcome.subset(keep)
+        whole = lo == 0 and hi == 0
+        # the untrimmed sample is the analysis sample itself: no copy, and its models are the
+        # refit's own (the same design on the same rows; see _fitted)
+        df = df_full if whole else df_full[keep].reset_index(drop=True)
+        x = x_full if whole else x_full[keep]
+        outcome = r.outcome if whole else r.outcome.subset(keep)
+        fitted = _fitted(r) if whole else {}
         base = {"trim": name, "share_lower": lo, "share_upper": hi, "bound_lower": b_lo,
                 "bound_upper": b_hi, "n": int(keep.sum()),
                 "events": int(round(float(y_events[keep].sum()))) if y_events is not None
@@ -144,7 +149,8 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
         else:
             xc = float(np.median(x[codes == comp]))
             xr = float(np.median(x[codes == ref]))
-            rows.append({**row, **_fit_contrast(r, df, x, outcome, (term,), adjust, xc, xr),
+            rows.append({**row, **_fit_contrast(r, df, x, outcome, (term,), adjust, xc, xr,
+                                                fitted),
                          "x_value": xc, "x_reference": xr})
         # continuous forms between the fixed values
         extrap = bool((lo > 0 and min(x_comp, x_ref) < b_lo)
@@ -164,15 +170,29 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
                 rows.append({**row, "status": "failed", "reason": detail})
                 continue
             rows.append({**row, **_fit_contrast(r, df, x, outcome, terms, adjust, x_comp,
-                                                x_ref)})
+                                                x_ref, fitted)})
     return _finish(pd.DataFrame(rows), r.family)
+
+
+def _key(exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> tuple[str, ...]:
+    return tuple(repr(t) for t in (*exposure, *adjust))
+
+
+def _fitted(r: Refit) -> dict[tuple[str, ...], FitResult]:
+    """The refit's fits by their terms: a model of the untrimmed sample with the same terms is
+    the same design on the same rows, so its fit is reused rather than repeated."""
+    return {_key(f.exposure_terms, f.adjust_terms): f.result for f in r.fits
+            if f.exposure_terms}
 
 
 def _fit_contrast(r: Refit, df: pd.DataFrame, x: np.ndarray, outcome: Any,
                   exposure: tuple[Term, ...], adjust: tuple[Term, ...], x1: float,
-                  x0: float) -> dict[str, Any]:
-    X, names = design(df, x, exposure, adjust)
-    res = fit(r.family, X, outcome, names)
+                  x0: float, fitted: dict[tuple[str, ...], FitResult] | None = None,
+                  ) -> dict[str, Any]:
+    res = (fitted or {}).get(_key(exposure, adjust))
+    if res is None:
+        X, names = design(df, x, exposure, adjust)
+        res = fit(r.family, X, outcome, names)
     if not res.ok:
         return {"status": "failed", "reason": res.message, "estimate": np.nan, "se": np.nan}
     f = FormFit("", "legacy", exposure, adjust, res)

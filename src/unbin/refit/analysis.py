@@ -24,6 +24,8 @@ from ..consortium.basis import CommonBasis, combine, sample_summary
 from ..data import Sample
 from ..models import Outcome, fit
 from ..models.base import FitResult, failed_fit
+from ..models.discrimination import _MEMO as C_INDEX_MEMO
+from ..models.discrimination import c_index
 from ..spec import Analysis, Spec
 from ..terms import (
     CategoricalTerm,
@@ -40,6 +42,11 @@ from .fp_selection import select_fp
 from .modifier import modifier_term
 
 ADJUSTMENTS = ("legacy", "continuous")
+# The forms whose per-row linear predictor the absolute-risk questions read (under continuous
+# adjustment, beside the legacy groups under legacy adjustment: unbin.questions.decisions);
+# every other fit keeps its C-index instead of its n predictor values (see
+# ``_release_predictors``).
+RISK_FORMS = ("linear", "spline", "fp")
 EPV_MIN = 10  # events per estimated coefficient (Peduzzi et al. 1996; common practice)
 
 
@@ -54,6 +61,17 @@ class FormFit:
     result: FitResult
     detail: str = ""
     selected: bool = True
+    c_index: float | None = None  # kept when the linear predictor was released
+
+    def concordance(self, outcome: Outcome) -> float:
+        """The fit's C-index (AUC or Harrell's C; NaN where not defined or without a fit),
+        from its linear predictor, or the value kept when that was released."""
+        if not self.result.ok:
+            return float("nan")
+        lp = self.result.linear_predictor
+        if lp is not None:
+            return c_index(outcome, lp)
+        return float("nan") if self.c_index is None else self.c_index
 
     @property
     def exposure_names(self) -> tuple[str, ...]:
@@ -246,6 +264,51 @@ class _Fitter:
         return self.cache[key]
 
 
+def needs_predictor(f: FormFit) -> bool:
+    """Whether a question reads this fit's per-row linear predictor (the absolute risks of
+    unbin.questions.decisions); the others need only its C-index."""
+    return ((f.adjustment == "continuous" and f.form in RISK_FORMS)
+            or (f.form == "legacy" and f.adjustment == "legacy"))
+
+
+def _release_predictors(r: Refit, f: _Fitter, coding: str, later: set[tuple[str, ...]],
+                        ) -> None:
+    """The fits of ``coding`` that no question reads row by row keep their C-index (the value
+    the fits table would compute from the same predictor) and drop the predictor: n values
+    each, a third of a fit job's memory at registry size. The fitter's copy goes too, unless a
+    later coding has the same adjustment terms (it then reuses these very fits)."""
+    released = []
+    for i, ff in enumerate(r.fits):
+        if (ff.adjustment != coding or not ff.result.ok or needs_predictor(ff)
+                or ff.result.linear_predictor is None):
+            continue
+        value = c_index(r.outcome, ff.result.linear_predictor)
+        r.fits[i] = replace(ff, result=replace(ff.result, linear_predictor=None), c_index=value)
+        released.append(ff)
+    adjust = tuple(repr(t) for t in released[0].adjust_terms) if released else ()
+    if released and adjust not in later:
+        for ff in released:
+            f.drop_predictor(ff.exposure_terms, ff.adjust_terms)
+    # the C-index memo holds its predictors too: keep the entries of predictors still held
+    memo = r.outcome.cache.get(C_INDEX_MEMO)
+    if memo:
+        held = {id(ff.result.linear_predictor) for ff in r.fits}
+        held |= {id(res.linear_predictor) for res in f.cache.values()}
+        for key in [k for k in memo if k not in held]:
+            del memo[key]
+
+
+def with_predictor(r: Refit, f: FormFit) -> FitResult:
+    """The fit's result with its per-row linear predictor; a released one is computed again
+    by fitting the same design on the same rows (the same fit)."""
+    res = f.result
+    if not res.ok or res.linear_predictor is not None:
+        return res
+    X, names = design(r.sample.frame, r.x, f.exposure_terms, f.adjust_terms)
+    again = fit(r.family, X, r.outcome, names)
+    return replace(res, linear_predictor=again.linear_predictor)
+
+
 def _epv_warning(res: FitResult) -> FitResult:
     if not res.ok or res.family == "continuous" or res.events is None:
         return res
@@ -321,7 +384,8 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
     codings: list[tuple[str, tuple[Term, ...]]] = [
         (c, adjustment_terms(df, a, spec, c)) for c in ADJUSTMENTS]
     codings.append(("none", ()))
-    for coding, adjust in codings:
+    adjust_keys = [tuple(repr(t) for t in adjust) for _, adjust in codings]
+    for position, (coding, adjust) in enumerate(codings):
         null = f.run((), adjust)
         r.fits.append(FormFit("null", coding, (), adjust, null, "adjustment only"))
         if empty:
@@ -366,6 +430,7 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
                 rows, chosen = select_fp(f, adjust, x, a.exposure, opts.fp_alpha, null, linear)
                 r.fits += [replace(row, adjustment=coding) for row in rows]
                 r.fits.append(replace(chosen, adjustment=coding))
+        _release_predictors(r, f, coding, set(adjust_keys[position + 1:]))
     return r
 
 

@@ -108,18 +108,23 @@ def screenable(family: str, outcome: Outcome) -> bool:
     return family in ("continuous", "survival")
 
 
-def _fp_columns(x: np.ndarray, variable: str) -> tuple[np.ndarray, dict[tuple[float, ...], list[int]]]:
-    """The 16 distinct FP columns (x^p, x^p log x for every power p) and, for every candidate,
-    the positions of its columns among them."""
-    blocks = [FPTerm.from_data(variable, x, (p, p)).basis(x) for p in FP_POWERS]
-    cols = np.column_stack(blocks)
+def _fp_design(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, shape: FPTerm,
+               ) -> tuple[np.ndarray, int, dict[tuple[float, ...], list[int]]]:
+    """The shared design, written into one array: the 16 distinct FP columns (x^p, x^p log x
+    for every power p, with ``shape``'s shift and scale), then the adjustment columns; the
+    number of FP columns; and, for every candidate, the positions of its columns among them."""
+    from .analysis import design
+
+    terms = tuple(FPTerm(shape.variable, (p, p), shape.shift, shape.scale)
+                  for p in (float(q) for q in FP_POWERS))
+    X, _ = design(f.df, x, terms, adjust, f.columns)
     where: dict[tuple[float, ...], list[int]] = {}
     pos = {p: 2 * i for i, p in enumerate(FP_POWERS)}
     for (p,) in FP1_SET:
         where[(p,)] = [pos[p]]
     for p1, p2 in FP2_SET:
         where[(p1, p2)] = [pos[p1], pos[p1] + 1] if p1 == p2 else [pos[p1], pos[p2]]
-    return cols, where
+    return X, 2 * len(FP_POWERS), where
 
 
 @dataclass
@@ -136,12 +141,13 @@ _Point = tuple[np.ndarray, tuple[float, np.ndarray, np.ndarray]]
 class _Screen:
     """The shared design of one search and the family's likelihood on candidate designs."""
 
-    def __init__(self, family: str, outcome: Outcome, X_fp: np.ndarray, X_adj: np.ndarray,
+    def __init__(self, family: str, outcome: Outcome, X: np.ndarray, n_fp: int,
                  null: FitResult):
+        """``X``: the FP columns (the first ``n_fp``), then the adjustment columns; only its
+        standardised copy is kept."""
         self.family = family
         self.outcome = outcome
-        self.n_fp = X_fp.shape[1]
-        X = np.concatenate([X_fp, X_adj], axis=1)
+        self.n_fp = n_fp
         adj_coef = np.asarray(null.coef, dtype=float)
         if family == "survival":
             from ..models.cox.likelihood import _Design, _standardised
@@ -243,11 +249,13 @@ class _Screen:
             return self._least_squares_bound(ll, U, I_)
         theta = self.theta0[idx]
         D: object = None
+        # np.take gathers the columns straight into a row-major array (indexing with a list
+        # builds a column-major one that would then be copied again: several times slower)
         if self.family == "survival":
-            Zc = np.ascontiguousarray(self.Z[:, [0, *(idx + 1)]])
+            Zc = np.take(self.Z, np.array([0, *(idx + 1)]), axis=1)
             D = self._design_of.of(Zc, self.layout.we, np.zeros(idx.size))
         else:
-            Zc = np.ascontiguousarray(self.Z[:, idx])
+            Zc = np.take(self.Z, idx, axis=1)
         if anchor is not None:
             theta_a, (_, U_a, I_a) = anchor
             start = newton_step(I_a[np.ix_(idx, idx)], U_a[idx] + I_a[idx] @ theta_a)
@@ -308,17 +316,15 @@ def screened_best(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable:
                   null: FitResult) -> Best:
     """The best FP1 and FP2 fits, the same as :func:`exhaustive_best`'s, fitting in full only
     the candidates that could win (see the module's docstring)."""
-    from .analysis import design
-
     family, outcome = f.r.family, f.r.outcome
     if not screenable(family, outcome) or not null.ok:
         return exhaustive_best(f, adjust, x, variable)
-    X_fp, where = _fp_columns(x, variable)
-    X_adj, _ = design(f.df, x, (), adjust, f.columns)
-    screen = _Screen(family, outcome, X_fp, X_adj, null)
+    shape = FPTerm.from_data(variable, x, (1.0,))
+    X, n_fp, where = _fp_design(f, adjust, x, shape)
+    screen = _Screen(family, outcome, X, n_fp, null)
+    del X  # the screen keeps its standardised copy only
     best_at: np.ndarray | None = None
     incumbent_fp1 = -np.inf
-    shape = FPTerm.from_data(variable, x, (1.0,))
     best: Best = {}
     anchor: _Point | None = None
     for degree, powers_set in ((1, FP1_SET), (2, FP2_SET)):

@@ -37,7 +37,7 @@ from ..models.base import FitResult
 from ..models.cox import baseline_cumhaz
 from ..models.survival import cox_layout
 from ..spec import Analysis, Spec
-from .analysis import FormFit, Refit
+from .analysis import FormFit, Refit, with_predictor
 
 # An exposure curve: the exposure's part of the linear predictor at exposure values ``x`` for the
 # rows of one level (code) of the effect modifier; curves without a modifier ignore the level.
@@ -250,7 +250,8 @@ def risk_fit(r: Refit, f: FormFit, scale: RiskScale) -> RiskFit:
             return np.zeros(np.atleast_1d(x).shape)
         return np.asarray(f.exposure_basis(x) @ b, dtype=float)
 
-    return from_result(r, f.result, scale, curve, curve(r.x), f.form, f.adjustment, f.detail)
+    return from_result(r, with_predictor(r, f), scale, curve, curve(r.x), f.form, f.adjustment,
+                       f.detail)
 
 
 def absolute_risk(r: Refit, f: FormFit, spec: Spec) -> np.ndarray:
