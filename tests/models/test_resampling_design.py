@@ -230,3 +230,21 @@ def test_cox_replicate_robust_wald_equals_statsmodels_phreg_on_the_drawn_data_se
         V = np.asarray(ref.cov_params()) * G / (G - 1)
         bref = np.asarray(ref.params)
         assert wald == pytest.approx(float(bref @ np.linalg.solve(V, bref)), rel=1e-5)
+
+
+@pytest.mark.parametrize(("n", "replicates", "seed"), [(1, 3, 0), (7, 5, 1), (1000, 4, 2),
+                                                      (99_999, 3, 3)])
+def test_row_draws_are_numpy_draws_of_all_replicates_at_once(n: int, replicates: int,
+                                                             seed: int) -> None:
+    """One replicate at a time gives the same counts as numpy's draws of every replicate at once
+    (``Generator.integers`` with size (replicates, n), counted per row by ``np.bincount``),
+    odd and even sizes (the generator keeps half-used 64-bit outputs between calls), and the
+    generator ends in the same state (later draws of a table are unchanged)."""
+    rng_ref = np.random.default_rng(seed)
+    idx = rng_ref.integers(0, n, size=(replicates, n))
+    want = np.stack([np.bincount(row, minlength=n) for row in idx]).astype(float)
+    rng = np.random.default_rng(seed)
+    got = resample_weights(rng, n, replicates)
+    assert got.shape == (replicates, n) and got.dtype == np.float64
+    np.testing.assert_array_equal(got, want)
+    assert rng.integers(0, 2**31, size=5).tolist() == rng_ref.integers(0, 2**31, size=5).tolist()

@@ -46,10 +46,14 @@ _TOL = 1e-9
 
 def resample_weights(rng: np.random.Generator, n: int, replicates: int) -> np.ndarray:
     """Case-resampling frequency weights: row b counts how often each of the n rows was drawn
-    (n draws with replacement), shape (replicates, n)."""
-    idx = rng.integers(0, n, size=(replicates, n))
-    flat = (np.arange(replicates)[:, None] * n + idx).ravel()
-    return np.bincount(flat, minlength=replicates * n).reshape(replicates, n).astype(float)
+    (n draws with replacement), shape (replicates, n). Drawn one replicate at a time: the same
+    draws as ``rng.integers(0, n, size=(replicates, n))`` (the generator's stream is used in the
+    same order), without holding the replicates x n draws, their counts and a copy at once
+    (about 1.2 GB at 1,000,000 rows and 50 replicates)."""
+    out = np.empty((replicates, n))
+    for b in range(replicates):
+        out[b] = np.bincount(rng.integers(0, n, size=n), minlength=n)
+    return out
 
 
 def _base_weights(outcome: Outcome) -> np.ndarray | None:
