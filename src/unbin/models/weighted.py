@@ -432,7 +432,7 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
     """:func:`weighted_cox` for several designs ``(X, start)`` of the same rows at once: the
     designs share the replicates, so each replicate's repeated rows and their Cox layout (the
     sort and the risk sets, ``unbin.models.cox.prepare_layout``) are made once and every design is
-    fitted on them. A design with a start is refitted by chord steps from it
+    fitted on them. A design with a start is refitted by secant steps from it
     (``unbin.models.cox.refit_near``), falling back to ``fit_cox`` when those do not settle.
     ``on_fit(b, j, Xm, m, layout, coef)`` is called after each successful fit of design ``j``
     in replicate ``b`` (``m`` the repeated row indices, ``Xm`` their design rows)."""

@@ -357,7 +357,7 @@ class _Designs:
             lay = layouts[(b, c)]
             if lay is None:
                 return np.full(2, np.nan)
-            # chord steps from the full-sample estimate, as the design's own model's refit
+            # secant steps from the full-sample estimate, as the design's own model's refit
             # (models.weighted.weighted_cox_designs); Newton's fit where they do not settle
             coef_c = refit_near(Xm, lay, full.coef)
             if coef_c is None:

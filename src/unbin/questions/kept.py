@@ -25,9 +25,9 @@ as in the full sample (the spline was fixed before the outcome was seen; the cut
 
 Refits: the linear, logistic and Poisson models by the vectorised Newton solver on frequency
 weights (``unbin.models.weighted.WeightedGLM``), started at the full-sample estimate; Cox models
-on the drawn rows repeated as often as drawn (Efron ties), started there too, by chord steps
-(``unbin.models.cox.refit_near_loglik``; ``unbin.models.cox.fit_cox`` where they do not settle;
-a repeated row counts as tied events, as in the full-sample likelihood). The replicate
+on the drawn rows repeated as often as drawn (Efron ties), started there too, by quasi-Newton
+(secant) steps (``unbin.models.cox.refit_near_loglik``; ``unbin.models.cox.fit_cox`` where
+they do not settle; a repeated row counts as tied events, as in the full-sample likelihood). The replicate
 log-likelihoods are the frequency-weighted ones: logistic sum w (y eta - log(1 + e^eta)); Poisson
 sum w (y eta - mu) (the log y! term cancels in the LR); linear -N/2 log(RSS / N) with N = sum w
 and RSS the weighted residual sum of squares (the maximum-likelihood variance, as the full-sample
@@ -153,7 +153,7 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
                     out[j][b] = cox_robust_wald(Xm, (time, event, entry, strata), case,
                                                 clusters, f.coef, f.cov, mod.k)
                 continue
-            # chord steps from the full-sample estimate (one information evaluation); the
+            # secant steps from the full-sample estimate (one information evaluation); the
             # full fit where they do not settle (or the model has no columns)
             near = refit_near_loglik(Xm, layout, mod.res.coef)
             if near is not None:
