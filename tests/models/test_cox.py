@@ -367,11 +367,9 @@ def test_one_time_order_serves_many_scores_exactly() -> None:
         concordance(t, np.zeros(10), event, time_order=order)
 
 
-def test_c_index_is_computed_once_per_linear_predictor(
-    sim: pd.DataFrame, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    # source: lifelines.utils.concordance_index(time, -lp, event); the second request for the
-    # same array is answered from outcome.cache, a new array is computed
+@pytest.fixture
+def concordance_calls(monkeypatch: pytest.MonkeyPatch) -> list[int]:
+    """One entry per call of the engine's Harrell's C (``unbin.models.cox.concordance``)."""
     import unbin.models.cox as engine
 
     calls: list[int] = []
@@ -382,6 +380,15 @@ def test_c_index_is_computed_once_per_linear_predictor(
         return real(*args, **kwargs)
 
     monkeypatch.setattr(engine, "concordance", spy)
+    return calls
+
+
+def test_c_index_is_computed_once_per_linear_predictor(
+    sim: pd.DataFrame, concordance_calls: list[int]
+) -> None:
+    # source: lifelines.utils.concordance_index(time, -lp, event); the second request for the
+    # same array is answered from outcome.cache, a new array is computed
+    calls = concordance_calls
     outcome = Outcome("survival", sim["E"].to_numpy(float), time=sim["T"].to_numpy(float))
     lp = _x(sim) @ np.array([0.5, -0.4, 0.03])
     ref = concordance_index(sim["T"], -lp, sim["E"])
@@ -393,21 +400,12 @@ def test_c_index_is_computed_once_per_linear_predictor(
 
 
 def test_forgetting_c_indices_keeps_only_the_predictors_asked_for(
-    sim: pd.DataFrame, monkeypatch: pytest.MonkeyPatch
+    sim: pd.DataFrame, concordance_calls: list[int]
 ) -> None:
     # source: lifelines.utils.concordance_index(time, -lp, event). The memo keeps a reference
     # to each predictor; forget_c_indices drops every entry but those kept (by identity), and a
     # forgotten predictor's C-index is computed again, to the same value.
-    import unbin.models.cox as engine
-
-    calls: list[int] = []
-    real = engine.concordance
-
-    def spy(*args, **kwargs):  # type: ignore[no-untyped-def]
-        calls.append(1)
-        return real(*args, **kwargs)
-
-    monkeypatch.setattr(engine, "concordance", spy)
+    calls = concordance_calls
     outcome = Outcome("survival", sim["E"].to_numpy(float), time=sim["T"].to_numpy(float))
     forget_c_indices(outcome)  # nothing kept yet: nothing to do
     a = _x(sim) @ np.array([0.5, -0.4, 0.03])
