@@ -32,7 +32,7 @@ from unbin.models.cox import (
     predict_risk,
     prepare_layout,
 )
-from unbin.models.discrimination import c_index
+from unbin.models.discrimination import c_index, forget_c_indices, remembered_scores
 from unbin.models.survival import fit_survival
 
 TIGHT = {"precision": 1e-14, "r_precision": 1e-16}
@@ -367,11 +367,9 @@ def test_one_time_order_serves_many_scores_exactly() -> None:
         concordance(t, np.zeros(10), event, time_order=order)
 
 
-def test_c_index_is_computed_once_per_linear_predictor(
-    sim: pd.DataFrame, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    # source: lifelines.utils.concordance_index(time, -lp, event); the second request for the
-    # same array is answered from outcome.cache, a new array is computed
+@pytest.fixture
+def concordance_calls(monkeypatch: pytest.MonkeyPatch) -> list[int]:
+    """One entry per call of the engine's Harrell's C (``unbin.models.cox.concordance``)."""
     import unbin.models.cox as engine
 
     calls: list[int] = []
@@ -382,6 +380,15 @@ def test_c_index_is_computed_once_per_linear_predictor(
         return real(*args, **kwargs)
 
     monkeypatch.setattr(engine, "concordance", spy)
+    return calls
+
+
+def test_c_index_is_computed_once_per_linear_predictor(
+    sim: pd.DataFrame, concordance_calls: list[int]
+) -> None:
+    # source: lifelines.utils.concordance_index(time, -lp, event); the second request for the
+    # same array is answered from outcome.cache, a new array is computed
+    calls = concordance_calls
     outcome = Outcome("survival", sim["E"].to_numpy(float), time=sim["T"].to_numpy(float))
     lp = _x(sim) @ np.array([0.5, -0.4, 0.03])
     ref = concordance_index(sim["T"], -lp, sim["E"])
@@ -390,6 +397,31 @@ def test_c_index_is_computed_once_per_linear_predictor(
     assert len(calls) == 1
     assert c_index(outcome, lp.copy()) == pytest.approx(ref, abs=1e-12)
     assert len(calls) == 2
+
+
+def test_forgetting_c_indices_keeps_only_the_predictors_asked_for(
+    sim: pd.DataFrame, concordance_calls: list[int]
+) -> None:
+    # source: lifelines.utils.concordance_index(time, -lp, event). The memo keeps a reference
+    # to each predictor; forget_c_indices drops every entry but those kept (by identity), and a
+    # forgotten predictor's C-index is computed again, to the same value.
+    calls = concordance_calls
+    outcome = Outcome("survival", sim["E"].to_numpy(float), time=sim["T"].to_numpy(float))
+    forget_c_indices(outcome)  # nothing kept yet: nothing to do
+    a = _x(sim) @ np.array([0.5, -0.4, 0.03])
+    b = _x(sim) @ np.array([-0.2, 0.1, 0.01])
+    refs = {id(lp): concordance_index(sim["T"], -lp, sim["E"]) for lp in (a, b)}
+    for lp in (a, b):
+        assert c_index(outcome, lp) == pytest.approx(refs[id(lp)], abs=1e-12)
+    assert [id(lp) for lp in remembered_scores(outcome)] == [id(a), id(b)]
+    forget_c_indices(outcome, keep=[b, None])
+    assert [id(lp) for lp in remembered_scores(outcome)] == [id(b)]
+    assert c_index(outcome, b) == pytest.approx(refs[id(b)], abs=1e-12)
+    assert len(calls) == 2  # b answered from the memo
+    assert c_index(outcome, a) == pytest.approx(refs[id(a)], abs=1e-12)
+    assert len(calls) == 3  # a computed again
+    forget_c_indices(outcome)
+    assert remembered_scores(outcome) == []
 
 
 @pytest.mark.parametrize("family", ["survival", "binary"])

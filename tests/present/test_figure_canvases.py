@@ -91,3 +91,129 @@ def test_constants_equal_scipys_values() -> None:
 
     assert confounding.Z95 == Z95 == float(stats.norm.ppf(0.975))
     assert cutpoints.CHI2_1_95 == float(stats.chi2.ppf(0.95, 1))
+
+
+# --------------------------------------------------------------------------- without matplotlib's
+# private Text._get_layout (another matplotlib): no text boxes kept, the same bytes
+
+
+class _WithoutLayout:
+    pass
+
+
+class _OtherLayout:
+    def _get_layout(self, renderer, dpi):  # type: ignore[no-untyped-def]
+        raise AssertionError("never called")
+
+
+class _KeywordLayout:
+    def _get_layout(self, *, renderer):  # type: ignore[no-untyped-def]
+        raise AssertionError("never called")
+
+
+def test_own_layout_is_matplotlibs_only_with_its_arguments() -> None:
+    from matplotlib.text import Text
+
+    assert canvases._own_layout(Text) is Text._get_layout  # type: ignore[attr-defined]
+    for stand_in in (_WithoutLayout, _OtherLayout, _KeywordLayout):
+        assert canvases._own_layout(stand_in) is None
+
+
+@pytest.mark.parametrize(("fmt", "mine", "theirs"), [
+    ("png", canvases.CachedCanvasAgg, FigureCanvasAgg),
+    ("svg", canvases.CachedCanvasSVG, FigureCanvasSVG)])
+def test_without_a_usable_get_layout_the_bytes_are_the_same(
+        fmt: str, mine: type[FigureCanvasBase], theirs: type[FigureCanvasBase],
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    # Reference: matplotlib's own canvas; and the canvases with text boxes kept. With
+    # ``_get_layout`` as ``_own_layout`` finds it on a Text without one, kept_text_layouts
+    # leaves matplotlib's own in place and no text box is kept.
+    from matplotlib.text import Text
+
+    own = Text._get_layout  # type: ignore[attr-defined]
+    with styled():
+        want = _saved(_text_figure(0.0013), theirs, fmt)
+        with canvases.kept_text_layouts():
+            kept = _saved(_text_figure(0.0013), mine, fmt)
+    monkeypatch.setattr(canvases, "_get_layout", canvases._own_layout(_WithoutLayout))
+    monkeypatch.setattr(canvases, "_TEXT_BOXES", {})
+    with styled():
+        with canvases.kept_text_layouts():
+            assert Text._get_layout is own  # type: ignore[attr-defined]
+            got = _saved(_text_figure(0.0013), mine, fmt)
+    assert got == want == kept
+    assert canvases._TEXT_BOXES == {}
+
+
+def test_layouts_matplotlib_shapes_otherwise_are_not_kept(monkeypatch: pytest.MonkeyPatch,
+                                                          ) -> None:
+    # A _get_layout with the same arguments that returns something else than (box, list of
+    # lines, extent) is passed through and not kept; a text without the private attributes
+    # the key reads (here a getter that a matplotlib without it would lack) is laid out by
+    # matplotlib itself (reference: matplotlib's own result).
+    from matplotlib.text import Text
+
+    own = Text._get_layout  # type: ignore[attr-defined]
+    fig = _text_figure(0.0)
+    canvas = canvases.CachedCanvasAgg(fig)
+    renderer = canvas.get_renderer()
+    text = fig.axes[0].title
+    monkeypatch.setattr(canvases, "_TEXT_BOXES", {})
+
+    def odd(self, renderer):  # type: ignore[no-untyped-def]
+        return ("box", ("not", "a list"), 0.0)
+
+    monkeypatch.setattr(canvases, "_get_layout", odd)
+    assert canvases._kept_layout(text, renderer) == ("box", ("not", "a list"), 0.0)
+    assert canvases._TEXT_BOXES == {}
+    monkeypatch.setattr(canvases, "_get_layout", own)
+
+    def missing() -> str:
+        raise AttributeError("'Text' object has no attribute 'get_horizontalalignment'")
+
+    monkeypatch.setattr(text, "get_horizontalalignment", missing)
+    bbox, lines, box = canvases._kept_layout(text, renderer)
+    want = own(text, renderer)
+    assert bbox.bounds == want[0].bounds and lines == want[1] and box == want[2]
+    assert canvases._TEXT_BOXES == {}
+
+
+_IMPORT_WITHOUT = r"""
+import sys
+from pathlib import Path
+from matplotlib.text import Text
+
+own = Text._get_layout
+if sys.argv[1] == "absent":
+    del Text._get_layout
+else:  # another signature, still working for matplotlib itself
+    Text._get_layout = lambda self, renderer, dpi=None: own(self, renderer)
+from unbin.present.figures import canvases
+from unbin.present.figures.style import save
+assert canvases._get_layout is None
+Text._get_layout = own  # matplotlib itself needs one to lay out any text
+sys.path.insert(0, sys.argv[3])
+from test_figure_canvases import _text_figure
+save(_text_figure(0.0013), Path(sys.argv[2]))
+assert canvases._TEXT_BOXES == {}
+"""
+
+
+@pytest.mark.parametrize("how", ["absent", "other"])
+def test_canvases_import_and_save_without_text_get_layout(how: str, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    # A fresh process in which Text._get_layout is missing (or takes other arguments) when
+    # the canvases are imported: the import succeeds and style.save writes the same PNG and
+    # SVG bytes as this process's save with text boxes kept.
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    from unbin.present.figures.style import save
+
+    save(_text_figure(0.0013), tmp_path / "kept")
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
+    subprocess.run([sys.executable, "-c", _IMPORT_WITHOUT, how, str(tmp_path / "plain"),
+                    str(Path(__file__).parent)], check=True, env=env, cwd=tmp_path)
+    for ext in ("png", "svg"):
+        assert (tmp_path / f"plain.{ext}").read_bytes() == (tmp_path / f"kept.{ext}").read_bytes()

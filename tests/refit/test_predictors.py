@@ -14,7 +14,7 @@ import statsmodels.api as sm
 from scipy import stats
 
 from unbin.data import analysis_sample
-from unbin.models.discrimination import _MEMO
+from unbin.models.discrimination import remembered_scores
 from unbin.questions.fits import fits_table
 from unbin.refit.analysis import needs_predictor, refit_analysis, with_predictor
 from unbin.spec import parse_spec
@@ -45,9 +45,9 @@ def test_only_the_risk_models_keep_their_predictors_and_the_rest_their_c_index()
     assert all(needs_predictor(f) for f in kept)
     assert not any(needs_predictor(f) for f in released)
     assert all(f.c_index is not None for f in released)
-    # the C-index memo no longer holds the released predictors
-    memo = r.outcome.cache.get(_MEMO, {})
-    assert len(memo) <= len({id(f.result.linear_predictor) for f in kept})
+    # the C-index memo no longer holds the released predictors: only kept ones
+    held = {id(f.result.linear_predictor) for f in kept}
+    assert {id(lp) for lp in remembered_scores(r.outcome)} <= held
     # the linear model under legacy adjustment (age in two groups) was released: its C-index
     # is the AUC of statsmodels' linear predictor of the same model
     lin = r.get("linear", "legacy")

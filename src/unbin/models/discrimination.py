@@ -4,7 +4,8 @@ for survival outcomes). Not defined here for count and continuous outcomes (NaN)
 Several tables ask for the C-index of the same fits, so ``c_index`` computes it once per linear
 predictor: the value is kept in ``outcome.cache``, keyed by the identity of the array and holding
 a reference to it (so that the identity cannot pass to another array while the entry exists);
-linear predictors are never changed in place. For survival, Harrell's C compares only pairs
+linear predictors are never changed in place. A caller that drops predictors releases their
+entries with ``forget_c_indices``. For survival, Harrell's C compares only pairs
 within a stratum in which the longer-lived row was at risk at the earlier event time (entry
 before it); the time order and the tie and delayed-entry bookkeeping depend on (time, event,
 entry, strata) only and are kept there too (``unbin.models.cox.concordance_order``), with references
@@ -17,6 +18,8 @@ weights give the usual estimate of the population's C-index, each sampled pair s
 w_i w_j pairs of the population."""
 
 from __future__ import annotations
+
+from collections.abc import Iterable
 
 import numpy as np
 
@@ -119,18 +122,47 @@ _TIME_ORDER = "concordance_order"
 SCORE_DECIMALS = 10
 
 
+def compared_score(lp: np.ndarray) -> np.ndarray:
+    """The score as the C-index compares it: ``lp`` rounded to ``SCORE_DECIMALS`` decimals
+    (``np.round``, halves to even). Element by element, so the rounded scores of a subset of
+    rows are that subset of the rounded scores; every C index of a linear predictor (the fits'
+    and the bootstrap replicates') is computed from these."""
+    return np.round(np.asarray(lp, dtype=float), SCORE_DECIMALS)
+
+
+def remembered_scores(outcome: Outcome) -> list[np.ndarray]:
+    """The linear predictors whose C-index :func:`c_index` keeps for ``outcome`` (each entry
+    holds a reference to its predictor, so these stay in memory while it is kept)."""
+    memo: dict[int, tuple[np.ndarray, float]] = outcome.cache.get(_MEMO, {})
+    return [lp for lp, _ in memo.values()]
+
+
+def forget_c_indices(outcome: Outcome, keep: Iterable[np.ndarray | None] = ()) -> None:
+    """Forget the C-index :func:`c_index` keeps for each of ``outcome``'s linear predictors
+    except those in ``keep`` (by identity), and so the reference to the predictor that came
+    with it: a caller that drops a predictor calls this so that the memo does not hold it.
+    A forgotten predictor's C-index is computed again if asked for."""
+    memo: dict[int, tuple[np.ndarray, float]] | None = outcome.cache.get(_MEMO)
+    if not memo:
+        return
+    held = {id(lp) for lp in keep if lp is not None}
+    for key in [k for k in memo if k not in held]:
+        del memo[key]
+
+
 def c_index(outcome: Outcome, lp: np.ndarray | None) -> float:
     """AUC (binary) or Harrell's C (survival; within strata, pairs at risk together) of the
     linear predictor ``lp`` of a fit to ``outcome``'s rows, compared to ``SCORE_DECIMALS``
-    decimals, pairs weighted w_i w_j under ``outcome.weights``; NaN for other families or
-    without ``lp``. Computed once per ``lp``."""
+    decimals (:func:`compared_score`), pairs weighted w_i w_j under ``outcome.weights``; NaN
+    for other families or without ``lp``. Computed once per ``lp`` (kept until
+    :func:`forget_c_indices`)."""
     if lp is None or outcome.family not in ("binary", "survival"):
         return float("nan")
     memo: dict[int, tuple[np.ndarray, float]] = outcome.cache.setdefault(_MEMO, {})
     hit = memo.get(id(lp))
     if hit is not None and hit[0] is lp:
         return hit[1]
-    score = np.round(np.asarray(lp, dtype=float), SCORE_DECIMALS)
+    score = compared_score(lp)
     w = outcome.weights
     if w is not None and outcome.family == "binary":
         value = weighted_auc(outcome.y, score, w, outcome.strata)

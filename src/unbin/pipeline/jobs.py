@@ -227,6 +227,36 @@ def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
     return status
 
 
+def stack_tables(parts: Sequence[pd.DataFrame]) -> pd.DataFrame:
+    """The job tables one under the other (``pd.concat``), a column that is all missing in some
+    parts (an analysis without horizon: None in an object column) taking the type it has in
+    the others. pandas gave these columns that type already, by leaving all-missing columns
+    out when it chose a column's type, and has deprecated that; here the all-missing columns
+    are given the others' type first (where it holds missing values: float, string, nullable
+    integer, dates), so the stacked table is the same, columns, types and values, and pandas
+    chooses nothing from all-missing columns."""
+    parts = list(parts)
+    if len(parts) > 1:
+        columns = dict.fromkeys(c for df in parts for c in df.columns)
+        for col in columns:
+            empty = [i for i, df in enumerate(parts) if col in df and df[col].isna().all()]
+            full = [df[col] for df in parts if col in df and not df[col].isna().all()]
+            if not empty or not full:
+                continue
+            target = pd.concat(full, ignore_index=True).dtype
+            for i in empty:
+                s = parts[i][col]
+                if s.dtype == target:
+                    continue
+                try:
+                    cast = s.astype(target)
+                except (TypeError, ValueError):
+                    continue  # a type without missing values (int, bool): left to pandas
+                if cast.isna().all():
+                    parts[i] = parts[i].assign(**{col: cast})
+    return pd.concat(parts, ignore_index=True)
+
+
 def collect_tables(spec_path: str | Path, work: str | Path, tables_dir: str | Path) -> None:
     spec = load_spec(spec_path)
     inputs = [input_record(spec, c.name) for c in spec.cohorts]
@@ -238,7 +268,7 @@ def collect_tables(spec_path: str | Path, work: str | Path, tables_dir: str | Pa
                 if len(df):
                     parts.append(df)
         if parts:
-            out = pd.concat(parts, ignore_index=True)
+            out = stack_tables(parts)
         else:
             out = pd.DataFrame({"cohort": pd.Series(dtype=str),
                                 "analysis": pd.Series(dtype=str)})

@@ -24,7 +24,10 @@ vectorised over replicates, :class:`unbin.models.weighted.WeightedGLM`; survival
 for the risk at the horizon). A survival replicate's C indices in its drawn rows and in the full
 sample come from one sort of the replicate model's score
 (:func:`unbin.models.cox.concordance.concordances`: the drawn rows as draw counts on the full
-sample's time order, the same integer pair counts as the repeated rows).
+sample's time order, the same integer pair counts as the repeated rows). Every C index here,
+apparent or replicate, compares the scores rounded to ``SCORE_DECIMALS`` decimals, as
+:func:`unbin.models.discrimination.c_index` does, so that rows whose scores differ by
+rounding tie in the optimism as in the apparent value.
 
 Competing events (``outcome.competing``): the risks are those of the decision tables
 (:func:`unbin.refit.risk.competing_risk_fit`), the cumulative incidence of the event of
@@ -88,7 +91,7 @@ from ..models.cox import (
 )
 from ..models.cox.baseline import baseline_steps
 from ..models.cox.concordance import concordances
-from ..models.discrimination import auc, c_index, count_aucs
+from ..models.discrimination import auc, c_index, compared_score, count_aucs
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     WeightedGLM,
@@ -179,12 +182,15 @@ class _Sample:
         return self._order
 
     def c_index(self, lp: np.ndarray) -> float:
+        """The C index (AUC) of ``lp`` on these rows, scores compared as
+        :func:`unbin.models.discrimination.c_index` compares them (``compared_score``)."""
         if self.w is not None:  # pairs weighted w_i w_j (unbin.models.discrimination)
             return c_index(Outcome(self.family, self.y, time=self.time, entry=self.entry,
                                    strata=self.strata, weights=self.w), lp)
+        score = compared_score(lp)
         if self.family == "binary":
-            return pair_auc(self.y, lp)
-        return float(concordance(self.time, lp, self.y, entry=self.entry, strata=self.strata,
+            return pair_auc(self.y, score)
+        return float(concordance(self.time, score, self.y, entry=self.entry, strata=self.strata,
                                  time_order=self.time_order()))
 
     def net_benefit(self, pt: np.ndarray, risk: np.ndarray | None = None,
@@ -572,7 +578,9 @@ class _Evaluator:
         drawn rows as draw counts (survival: and one time order, the full sample's,
         :func:`unbin.models.cox.concordance.concordances`; binary:
         :func:`unbin.models.discrimination.count_aucs`), the same numbers as the C index of
-        the repeated rows."""
+        the repeated rows. Scores are compared as the point estimate compares them: rounded
+        to ``SCORE_DECIMALS`` decimals (:func:`unbin.models.discrimination.compared_score`),
+        so rows whose scores agree to that many decimals tie here as there."""
         if drawn.w is not None or full.w is not None:
             return None
         counts = drawn.row_counts(self.r.outcome.n)
@@ -580,13 +588,15 @@ class _Evaluator:
         in_full: dict[int, float] = {}
         if self.r.family == "binary":  # one sort per model (count_aucs), the pair_auc values
             for key, z in zs.items():
-                got = None if z is None else count_aucs(full.y, z[full.idx], [counts, None])
+                got = (None if z is None
+                       else count_aucs(full.y, compared_score(z[full.idx]), [counts, None]))
                 if got is not None:
                     in_drawn[key], in_full[key] = got
             return in_drawn, in_full
         for key, z in zs.items():
             if z is not None:
-                in_drawn[key], in_full[key] = concordances(full.time_order(), z[full.idx],
+                in_drawn[key], in_full[key] = concordances(full.time_order(),
+                                                           compared_score(z[full.idx]),
                                                            [counts, None])
         return in_drawn, in_full
 

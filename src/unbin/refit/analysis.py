@@ -24,8 +24,7 @@ from ..consortium.basis import CommonBasis, combine, sample_summary
 from ..data import Sample
 from ..models import Outcome, fit
 from ..models.base import FitResult, failed_fit
-from ..models.discrimination import _MEMO as C_INDEX_MEMO
-from ..models.discrimination import c_index
+from ..models.discrimination import c_index, forget_c_indices
 from ..spec import Analysis, Spec
 from ..terms import (
     CategoricalTerm,
@@ -290,12 +289,8 @@ def _release_predictors(r: Refit, f: _Fitter, coding: str, later: set[tuple[str,
         for ff in released:
             f.drop_predictor(ff.exposure_terms, ff.adjust_terms)
     # the C-index memo holds its predictors too: keep the entries of predictors still held
-    memo = r.outcome.cache.get(C_INDEX_MEMO)
-    if memo:
-        held = {id(ff.result.linear_predictor) for ff in r.fits}
-        held |= {id(res.linear_predictor) for res in f.cache.values()}
-        for key in [k for k in memo if k not in held]:
-            del memo[key]
+    forget_c_indices(r.outcome, [*(ff.result.linear_predictor for ff in r.fits),
+                                 *(res.linear_predictor for res in f.cache.values())])
 
 
 def with_predictor(r: Refit, f: FormFit) -> FitResult:

@@ -17,7 +17,11 @@ pure functions of their inputs, so they are kept for the whole process:
   (``Text._get_layout``, which does not depend on where the text stands) per renderer kind,
   resolutions, hinting, string, font, line spacing, alignments and rotation: matplotlib
   computes them again for every text at every layout pass and every drawing, some ten thousand
-  times per cohort for a few hundred different texts.
+  times per cohort for a few hundred different texts. ``Text._get_layout`` is private to
+  matplotlib: where it is missing or takes other arguments than ``(self, renderer)``
+  (``_own_layout``), or a text lacks what the key reads, or it returns something other than
+  (box, list of lines, extent), texts are laid out by matplotlib every time: the same files,
+  only slower; the module never fails at import for it.
 
 The bitmaps are composited exactly as matplotlib composites them, so the PNG and the SVG keep
 their bytes (``tests/present/test_figure_canvases.py`` compares them with matplotlib's own
@@ -27,8 +31,9 @@ canvases).
 from __future__ import annotations
 
 import codecs
+import inspect
 import math
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import Any, cast
 
@@ -266,7 +271,28 @@ class CachedCanvasSVG(FigureCanvasSVG):
             renderer.finalize()
 
 
-_get_layout = getattr(Text, "_get_layout")  # noqa: B009  (matplotlib's own, private)
+_Layout = tuple[Any, list[Any], Any]
+
+
+def _own_layout(cls: type) -> Callable[[Any, Any], _Layout] | None:
+    """``cls._get_layout`` (matplotlib's Text's own, private: 3.8 to 3.11 have it as
+    ``(self, renderer)``) when it is there with those arguments, so that ``_kept_layout`` can
+    stand in for it; None otherwise (texts are then laid out by matplotlib every time)."""
+    own = getattr(cls, "_get_layout", None)
+    if not callable(own):
+        return None
+    try:
+        params = list(inspect.signature(own).parameters.values())
+    except (TypeError, ValueError):  # no signature to read
+        return None
+    if ([p.name for p in params] != ["self", "renderer"]
+            or any(p.kind is not p.POSITIONAL_OR_KEYWORD or p.default is not p.empty
+                   for p in params)):
+        return None
+    return cast(Callable[[Any, Any], _Layout], own)
+
+
+_get_layout = _own_layout(Text)
 
 
 def _renderer_kind(renderer: Any) -> tuple[str, float] | None:
@@ -280,22 +306,39 @@ def _renderer_kind(renderer: Any) -> tuple[str, float] | None:
     return None
 
 
-def _kept_layout(text: Text, renderer: Any) -> tuple[Any, list[Any], Any]:
+def _text_key(text: Text, kind: tuple[str, float]) -> tuple[Any, ...] | None:
+    """What ``Text._get_layout``'s result depends on (module docstring); None when the text
+    lacks one of matplotlib's private attributes read here (another matplotlib)."""
+    try:
+        fig = text.get_figure(root=True)
+        return (*kind, fig.dpi if fig is not None else None, get_hinting_flag(), text.get_text(),
+                _font_key(text.get_fontproperties()),
+                text._linespacing,  # type: ignore[attr-defined]
+                text._get_multialignment(), text.get_rotation(),  # type: ignore[attr-defined]
+                text.get_rotation_mode(), text.get_horizontalalignment(),
+                text.get_verticalalignment())
+    except (AttributeError, TypeError):
+        return None
+
+
+def _kept_layout(text: Text, renderer: Any) -> _Layout:
     """``Text._get_layout`` kept per its inputs (copies of the box and the line list: callers
-    may keep them). Math, TeX and wrapped texts are laid out by matplotlib each time."""
+    may keep them). Math, TeX and wrapped texts are laid out by matplotlib each time, and so is
+    any text whose key cannot be read or whose layout is not (box, list of lines, extent)."""
+    assert _get_layout is not None  # installed by kept_text_layouts only when there is one
     kind = _renderer_kind(renderer)
     s = text.get_text()
     if kind is None or "$" in s or text.get_usetex() or text.get_wrap():
-        return cast(tuple[Any, list[Any], Any], _get_layout(text, renderer))
-    fig = text.get_figure(root=True)
-    key = (*kind, fig.dpi if fig is not None else None, get_hinting_flag(), s,
-           _font_key(text.get_fontproperties()), text._linespacing,  # type: ignore[attr-defined]
-           text._get_multialignment(), text.get_rotation(),  # type: ignore[attr-defined]
-           text.get_rotation_mode(), text.get_horizontalalignment(),
-           text.get_verticalalignment())
+        return _get_layout(text, renderer)
+    key = _text_key(text, kind)
+    if key is None:
+        return _get_layout(text, renderer)
     hit = _TEXT_BOXES.get(key)
     if hit is None:
-        hit = cast(tuple[Any, list[Any], Any], _get_layout(text, renderer))
+        hit = _get_layout(text, renderer)
+        if not (isinstance(hit, tuple) and len(hit) == 3 and hasattr(hit[0], "frozen")
+                and isinstance(hit[1], list)):
+            return hit  # another matplotlib's layout: not kept
         if len(_TEXT_BOXES) >= _MOST:
             _TEXT_BOXES.clear()
         _TEXT_BOXES[key] = hit
@@ -306,8 +349,10 @@ def _kept_layout(text: Text, renderer: Any) -> tuple[Any, list[Any], Any]:
 @contextmanager
 def kept_text_layouts() -> Iterator[None]:
     """Texts laid out inside are laid out once per their inputs (``_kept_layout``); matplotlib's
-    own ``Text._get_layout`` is back on leaving (nested uses keep the outer one's)."""
-    if getattr(Text, "_get_layout") is _kept_layout:  # noqa: B009
+    own ``Text._get_layout`` is back on leaving (nested uses keep the outer one's). Without a
+    usable ``Text._get_layout`` (``_own_layout``) nothing is changed: matplotlib lays out every
+    text itself, to the same files."""
+    if _get_layout is None or getattr(Text, "_get_layout", None) is _kept_layout:
         yield
         return
     setattr(Text, "_get_layout", _kept_layout)  # noqa: B010
