@@ -226,7 +226,7 @@ def concordances(time_order: TimeOrder, risk_score: Any,
             at = idx[dead]
             e_k = int((w[at] * (cw[run_end[run[at]]] - cw[at + 1])).sum())
         equal.append(e_k - tts)
-    higher = _earlier_events_above_later(pos, dead, idx, weights=w_sorted)
+    higher = _earlier_events_above_later(pos, dead, weights=w_sorted)
     if T.late is not None:
         assert run_at is not None
         late = _late_pairs(T.late, s_time, itype, w_time, run_at)
@@ -321,8 +321,7 @@ def _late_pairs(L: _LateEntry, s_time: np.ndarray, itype: Any,
     ip = _stable_order(run_at[L.row]).astype(itype)
     first = L.is_event[ip]
     w_items = [None if w is None else w[L.row[ip]] for w in w_time]
-    higher = _earlier_events_above_later(ip, first, np.arange(m, dtype=itype), target=~first,
-                                         weights=w_items)
+    higher = _earlier_events_above_later(ip, first, non_event_targets=True, weights=w_items)
     new = _new_runs(sc[ip], None if L.stratum is None else L.stratum[ip])
     start = np.flatnonzero(new)[np.cumsum(new) - 1]  # each item's run start (sorted order)
     out = []
@@ -338,144 +337,171 @@ def _late_pairs(L: _LateEntry, s_time: np.ndarray, itype: Any,
     return out
 
 
-_BRUTE_BITS = 4  # pairs within blocks of 2^4 positions are compared directly
+_BLOCK_BITS = 6  # pairs within blocks of 2^6 positions: one 64-bit mask per row (below)
 
 
-def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray,
-                                target: np.ndarray | None = None,
+def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray,
+                                non_event_targets: bool = False,
                                 weights: Sequence[np.ndarray | None] = (None,)) -> list[int]:
-    """Count pairs of positions i < j with i an event and a higher score than j (and, with
-    ``target``, j a target: ``target`` is aligned with ``pos`` as ``dead`` is), once per entry
-    of ``weights`` (aligned with ``pos`` too): None counts every pair once, an integer array
-    counts a pair w_i w_j.
+    """Count pairs of positions i < j with i an event and a higher score than j (with
+    ``non_event_targets``, only those with j not an event), once per entry of ``weights``
+    (aligned with ``pos``): None counts every pair once, an array of non-negative whole
+    numbers counts a pair w_i w_j.
 
     ``pos`` are the positions 0..n-1 sorted by score (ties by position), ``dead`` whether each
-    is an event, ``idx`` = arange(n) of pos's dtype. At the level of bit L the rows are arranged
-    in blocks of 2^(L+1) positions (block b at indices from b 2^(L+1), as the positions are a
-    permutation), each in score order; the later half of a block is bit L = 1. Its running count
-    before an earlier-half event is the number of later rows with a lower score (an equal score
-    sorts after, by position); with weights, the running sum of the later rows' weights. The
-    count is also each row's rank within its half, which places it in the next level's
-    arrangement. Each row's position, event flag and target flag travel packed in one integer
-    (position << 2 | target << 1 | event), so one scatter per level moves them (one more per
-    weighted entry); the work arrays are allocated once. The pairs within the smallest blocks
-    (16 positions) are compared directly, by each row's rank in the score order.
+    is an event. At the level of bit L the rows are arranged in blocks of 2^(L+1) positions
+    (block b at indices from b 2^(L+1), as the positions are a permutation), each in score
+    order; the later half of a block is bit L = 1. Its running count before an earlier-half
+    event is the number of later rows with a lower score (an equal score sorts after, by
+    position); with weights, the running sum of the later (target) rows' weights. The count is
+    also each row's rank within its half, which places it in the next level's arrangement (a
+    stable partition, one scatter). A row's position and event flag travel packed in one
+    integer (position << 1 | event); weights travel beside it. The pairs within the smallest
+    blocks (64 positions) are counted from one 64-bit mask per row (:func:`_within_blocks`).
     """
     n = pos.size
     if n < 2:
         return [0] * len(weights)
-    low = min(_BRUTE_BITS, (n - 1).bit_length())
-    higher = _within_blocks(pos, dead, idx, low, target, weights)
-    itype: Any = np.int32 if n < 2**28 else np.int64
-    key = pos.astype(itype) << 2
+    ktype: Any = np.int32 if n < 2**30 else np.int64
+    key = pos.astype(ktype) << 1
     key |= dead
-    if target is not None:
-        key |= target.astype(itype) << 1
-    ws = [None if w is None else w.astype(np.int64) for w in weights]
-    ws_next = [None if w is None else np.empty_like(w) for w in ws]
-    at = np.arange(n, dtype=itype)
-    key_next = np.empty_like(key)
-    later = np.empty(n, dtype=bool)
-    first_event = np.empty(n, dtype=bool)  # an event in the earlier half
-    count, count_t, dest, tmp = (np.empty(n, dtype=itype) for _ in range(4))
-    later_t = None if target is None else np.empty(n, dtype=bool)
-    weighted = any(w is not None for w in ws)
-    wsum, wtmp = ((np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)) if weighted
-                  else (None, None))
-    for level in range((n - 1).bit_length() - 1, low - 1, -1):
-        size = 1 << (level + 1)  # the block
-        full = n // size * size
-        bit = 1 << (level + 2)  # bit L of the position, in the packed key
-        np.bitwise_and(key, bit, out=count)
-        np.not_equal(count, 0, out=later)
-        np.bitwise_and(key, bit | 1, out=tmp)
-        np.equal(tmp, 1, out=first_event)
-        np.cumsum(later, out=count)
-        count -= later  # later rows before each row ...
-        _per_block(count, size, full)  # ... in its block
-        tally, later_w = count, later
-        if later_t is not None:
-            np.bitwise_and(key, bit | 2, out=tmp)
-            np.equal(tmp, bit | 2, out=later_t)  # a later row that is a target
-            np.cumsum(later_t, out=count_t)
-            count_t -= later_t
-            _per_block(count_t, size, full)
-            tally, later_w = count_t, later_t
-        # (masks enter as 0/1 factors: numpy's masked reductions and copies are slower)
-        for k, w in enumerate(ws):
-            if w is None:
-                np.multiply(tally, first_event, out=tmp)
-                higher[k] += int(tmp.sum(dtype=np.int64))
-                continue
-            assert wsum is not None and wtmp is not None
-            # the later (target) rows' weights, summed before each row in its block
-            np.multiply(w, later_w, out=wtmp)
-            np.cumsum(wtmp, out=wsum)
-            wsum -= wtmp
-            _per_block(wsum, size, full)
-            np.multiply(wsum, w, out=wtmp)
-            wtmp *= first_event
-            higher[k] += int(wtmp.sum())
-        if level > low:
-            np.subtract(at, count, out=dest)  # earlier half: its rank among the earlier rows
-            np.bitwise_and(at, ~(size - 1), out=tmp)  # later half: after the earlier half
-            tmp += 1 << level
+    # (own copies: the work arrays take turns with them; 32 bits when every running sum fits)
+    ws = [None if w is None else
+          np.array(w, dtype=np.int32 if int(w.sum(dtype=np.int64)) < 2**31 else np.int64)
+          for w in weights]
+    higher = [0] * len(weights)
+    top = (n - 1).bit_length() - 1
+    if top >= _BLOCK_BITS:
+        at = np.arange(n, dtype=ktype)
+        key_next = np.empty_like(key)
+        ws_next = [None if w is None else np.empty_like(w) for w in ws]
+        first_event = np.empty(n, dtype=bool)  # an event in the earlier half
+        later_target = np.empty(n, dtype=bool) if non_event_targets else None
+        event, later, count, tmp = (np.empty(n, dtype=ktype) for _ in range(4))
+        dest = np.empty(n, dtype=np.intp)
+        wsum = {w.dtype: np.empty(n, dtype=w.dtype) for w in ws if w is not None}
+        wprod = np.empty(n, dtype=np.int64)
+        count_t = np.empty(n, dtype=ktype) if non_event_targets else None
+        for level in range(top, _BLOCK_BITS - 1, -1):
+            half = 1 << level
+            size = 2 * half  # the block
+            full = n // size * size
+            np.right_shift(key, level + 1, out=later)
+            later &= 1  # bit L of the position (0/1)
+            np.bitwise_and(key, 1, out=event)
+            np.greater(event, later, out=first_event)
+            np.cumsum(later, out=count)  # later rows up to each row (at an earlier row: before it)
+            _restart(count, size, full)  # ... in its block
+            tally: np.ndarray = count
+            later_w: np.ndarray = later
+            if count_t is not None and later_target is not None:
+                np.greater(later, event, out=later_target)  # a later row that is a target
+                np.cumsum(later_target, out=count_t)
+                _restart(count_t, size, full)
+                tally, later_w = count_t, later_target
+            for k, w in enumerate(ws):
+                if w is None:
+                    np.multiply(tally, first_event, out=tmp)
+                    higher[k] += int(tmp.sum(dtype=np.int64))
+                    continue
+                ws_k = wsum[w.dtype]
+                np.multiply(w, later_w, out=ws_k)  # the later (target) rows' weights ...
+                np.cumsum(ws_k, out=ws_k)  # ... summed up to each row ...
+                _restart(ws_k, size, full)  # ... in its block
+                np.multiply(ws_k, w, out=wprod, dtype=np.int64)
+                wprod *= first_event
+                higher[k] += int(wprod.sum())
+            # earlier half: its rank among the block's earlier rows (position - later rows
+            # before it), at - count; later half: after the block's 2^L earlier rows, by its
+            # count, (at - offset in the block) + half + count - 1
+            np.bitwise_and(at, size - 1, out=tmp)
+            np.subtract(half - 1, tmp, out=tmp)
             tmp += count
-            tmp -= dest
+            tmp += count
             tmp *= later
-            dest += tmp
+            tmp -= count
+            np.add(at, tmp, out=dest)
             key_next[dest] = key
             key, key_next = key_next, key
             for k, w in enumerate(ws):
-                if w is not None:
-                    w_next = ws_next[k]
-                    assert w_next is not None
+                w_next = ws_next[k]
+                if w is not None and w_next is not None:
                     w_next[dest] = w
                     ws[k], ws_next[k] = w_next, w
-    return higher
+    within = _within_blocks(key, non_event_targets, ws, min(top + 1, _BLOCK_BITS))
+    return [h + b for h, b in zip(higher, within, strict=True)]
 
 
-def _per_block(count: np.ndarray, size: int, full: int) -> None:
-    """Make running counts restart at every block of ``size`` (in place)."""
-    blocks = count[:full].reshape(-1, size)
-    blocks -= blocks[:, :1].copy()
-    if full < count.size:
-        count[full:] -= count[full]
+def _restart(running: np.ndarray, size: int, full: int) -> None:
+    """Make inclusive running sums restart at every block of ``size`` (in place; the blocks
+    whole up to ``full``, then one shorter block)."""
+    if 0 < full < running.size:
+        running[full:] -= running[full - 1]
+    if full > size:
+        ends = running[size - 1 : full - size : size].copy()  # each block's total so far
+        running[size:full].reshape(-1, size)[...] -= ends[:, None]
 
 
-def _within_blocks(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray, bits: int,
-                   target: np.ndarray | None = None,
-                   weights: Sequence[np.ndarray | None] = (None,)) -> list[int]:
-    """The pairs of :func:`_earlier_events_above_later` within blocks of 2^bits positions."""
-    if bits == 0:
-        return [0] * len(weights)
-    n, size = pos.size, 1 << bits
-    rows = -(-n // size)
-    rank = np.full(rows * size, n, dtype=pos.dtype)  # padding: never lower, never an event
-    rank[pos] = idx  # rank in the score order (ties by position) of each position
-    ev = np.zeros(rows * size, dtype=bool)
-    ev[pos] = dead
-    tg = np.zeros(rows * size, dtype=bool)
-    tg[pos] = True if target is None else target
-    rank2, ev2, tg2 = rank.reshape(rows, size), ev.reshape(rows, size), tg.reshape(rows, size)
-    w2s: list[np.ndarray | None] = []
+def _popcount(x: np.ndarray) -> np.ndarray:
+    """The number of bits set in each uint64 (numpy >= 2: ``np.bitwise_count``)."""
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(x)
+    return _popcount_swar(x)
+
+
+def _popcount_swar(x: np.ndarray) -> np.ndarray:
+    """The number of bits set in each uint64, by summing bit fields in the word."""
+    x = x - ((x >> np.uint64(1)) & np.uint64(0x5555555555555555))
+    x = (x & np.uint64(0x3333333333333333)) + ((x >> np.uint64(2)) & np.uint64(0x3333333333333333))
+    x = (x + (x >> np.uint64(4))) & np.uint64(0x0F0F0F0F0F0F0F0F)
+    return (x * np.uint64(0x0101010101010101)) >> np.uint64(56)
+
+
+def _within_blocks(key: np.ndarray, non_event_targets: bool,
+                   weights: Sequence[np.ndarray | None], bits: int) -> list[int]:
+    """The pairs of :func:`_earlier_events_above_later` within blocks of 2^bits (at most 64)
+    positions, with the rows of every block in score order (``key``: position << 1 | event,
+    ``weights`` aligned with it). Within a block a row's bit at its position offset p is
+    unique, so the running sum of 2^p over the block is the set of positions with a lower
+    score; the bits above an event's own offset are its later rows with a lower score. With
+    weights, one such set per bit of the weights (w = sum 2^b [bit b of w]) gives their sums
+    exactly."""
+    size = 1 << bits
+    n = key.size
+    full = n // size * size
+    offset = (key >> 1).astype(np.uint64)
+    offset &= np.uint64(size - 1)
+    event = (key & 1).astype(bool)
+    unit = np.left_shift(np.uint64(1), offset)  # 2^p
+    if non_event_targets:
+        unit *= ~event
+    offset += np.uint64(1)
+    running = np.empty(n, dtype=np.uint64)
+
+    def lower_later(mask: np.ndarray) -> np.ndarray:
+        """Per row, the rows of ``mask`` (times 2^p) before it in its block at later
+        positions, counted."""
+        np.cumsum(mask, out=running)  # (uint64 sums may wrap; the differences are exact)
+        _restart(running, size, full)
+        np.right_shift(running, offset, out=running)
+        return _popcount(running)
+
+    totals = []
+    plain = None
     for w in weights:
         if w is None:
-            w2s.append(None)
+            if plain is None:
+                plain = int(lower_later(unit)[event].sum(dtype=np.int64))
+            totals.append(plain)
             continue
-        wp = np.zeros(rows * size, dtype=np.int64)
-        wp[pos] = w
-        w2s.append(wp.reshape(rows, size))
-    totals = [0] * len(weights)
-    for i in range(size - 1):
-        above = rank2[:, i + 1 :] < rank2[:, i : i + 1]
-        above &= tg2[:, i + 1 :]
-        for k, w2 in enumerate(w2s):
-            if w2 is None:
-                totals[k] += int(np.count_nonzero(above & ev2[:, i : i + 1]))
-            else:
-                later_w = (above * w2[:, i + 1 :]).sum(axis=1)
-                totals[k] += int((later_w * (w2[:, i] * ev2[:, i])).sum())
+        at = np.flatnonzero(event)
+        total = 0
+        for b in range(int(w.max(initial=0)).bit_length()):
+            plane = ((w >> b) & 1).astype(np.uint64)
+            plane *= unit
+            got = lower_later(plane)[at].astype(np.int64)
+            total += int((got * w[at]).sum()) << b
+        totals.append(total)
     return totals
 
 
