@@ -4,8 +4,9 @@ weights, ``weighted_concordance`` (every pair counted w_i w_j) on ``weighted_pai
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -18,6 +19,33 @@ from .inputs import (
     _positive_weights,
     _stratum_codes,
 )
+
+
+class _Scratch:
+    """Work arrays kept from one C index to the next of one sample (per thread). A fresh array
+    of a few hundred thousand numbers costs the kernel a page fault per 4 KiB the first time
+    it is written (at 200,000 rows about as much as the pass itself); reusing them saves that.
+    ``get`` hands out an array of at least the size asked for, cut to it, contents undefined;
+    ``arange`` one holding 0..size-1."""
+
+    def __init__(self) -> None:
+        self._arrays: dict[tuple[int, str], np.ndarray] = {}
+
+    def get(self, name: str, size: int, dtype: Any) -> np.ndarray:
+        key = (threading.get_ident(), name)
+        a = self._arrays.get(key)
+        if a is None or a.size < size or a.dtype != np.dtype(dtype):
+            a = np.empty(size, dtype=dtype)
+            self._arrays[key] = a
+        return a[:size]
+
+    def arange(self, size: int, dtype: Any) -> np.ndarray:
+        key = (threading.get_ident(), "arange")
+        a = self._arrays.get(key)
+        if a is None or a.size < size or a.dtype != np.dtype(dtype):
+            a = np.arange(size, dtype=dtype)
+            self._arrays[key] = a
+        return a[:size]
 
 
 @dataclass(frozen=True)
@@ -53,6 +81,7 @@ class TimeOrder:
     late: _LateEntry | None = None  # None without delayed entry (or when it removes no pair)
     events: np.ndarray | None = None  # positions of the events in that order
     events_end: np.ndarray | None = None  # the end (exclusive) of each event's stratum
+    scratch: _Scratch = field(default_factory=_Scratch, compare=False, repr=False)
 
 
 def _small_stratum_codes(strata: Any | None, n: int) -> np.ndarray | None:
@@ -226,10 +255,10 @@ def concordances(time_order: TimeOrder, risk_score: Any,
             at = idx[dead]
             e_k = int((w[at] * (cw[run_end[run[at]]] - cw[at + 1])).sum())
         equal.append(e_k - tts)
-    higher = _earlier_events_above_later(pos, dead, weights=w_sorted)
+    higher = _earlier_events_above_later(pos, dead, weights=w_sorted, scratch=T.scratch)
     if T.late is not None:
         assert run_at is not None
-        late = _late_pairs(T.late, s_time, itype, w_time, run_at)
+        late = _late_pairs(T.late, w_time, run_at, T.scratch)
         for k, (late_higher, late_equal) in enumerate(late):
             higher[k] -= late_higher
             equal[k] -= late_equal
@@ -282,8 +311,20 @@ def _weighted_pairs(T: TimeOrder, w: np.ndarray) -> int:
     return total
 
 
+_SORT_BY_STRATUM = 64  # up to this many strata, each stratum's scores are sorted apart
+
+
 def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.ndarray:
-    """Positions sorted by (stratum, score), ties by position."""
+    """Positions sorted by (stratum, score), ties by position; ``stratum`` non-decreasing (the
+    time order's). With few strata each stratum's run of positions is sorted by itself
+    (shorter sorts); else one sort by score and a stable (radix) sort by stratum."""
+    if stratum is not None:
+        cuts = np.flatnonzero(stratum[1:] != stratum[:-1]) + 1
+        if cuts.size < _SORT_BY_STRATUM:
+            pos = np.empty(score.size, dtype=itype)
+            for a, b in zip(np.r_[0, cuts], np.r_[cuts, score.size], strict=True):
+                np.add(np.argsort(score[a:b], kind="stable"), a, out=pos[a:b])
+            return pos
     pos = np.argsort(score, kind="stable")
     if stratum is not None:
         pos = pos[np.argsort(stratum[pos], kind="stable")]
@@ -293,8 +334,11 @@ def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.nda
 def _stable_order(key: np.ndarray) -> np.ndarray:
     """``np.argsort(key, kind="stable")`` of non-negative whole numbers; below 2^32 as two
     stable sorts by 16-bit halves (numpy's radix sort), low half first."""
-    if key.size == 0 or int(key.max()) >= 2**32:
+    top = int(key.max(initial=0))
+    if top >= 2**32:
         return np.argsort(key, kind="stable")
+    if top < 2**16:
+        return np.argsort(key.astype(np.uint16), kind="stable")
     by_low = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
     return by_low[np.argsort((key[by_low] >> 16).astype(np.uint16), kind="stable")]
 
@@ -308,32 +352,33 @@ def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
     return new
 
 
-def _late_pairs(L: _LateEntry, s_time: np.ndarray, itype: Any,
-                w_time: Sequence[np.ndarray | None], run_at: np.ndarray,
-                ) -> list[tuple[int, int]]:
+def _late_pairs(L: _LateEntry, w_time: Sequence[np.ndarray | None], run_at: np.ndarray,
+                scratch: _Scratch) -> list[tuple[int, int]]:
     """Among the pairs delayed entry takes out (event item before an entry item of its
     stratum), those where the event has the higher score, and those with equal scores; per
     entry of ``w_time`` (row counts in time order, None: every row once). ``run_at``: every
     position's run of equal (stratum, score) in their order, so that the items' order by
     (stratum, score), ties by item, is a stable sort of whole numbers."""
-    m = L.row.size
-    sc = s_time[L.row]
-    ip = _stable_order(run_at[L.row]).astype(itype)
+    item_run = run_at[L.row]
+    ip = _stable_order(item_run)
+    item_run = item_run[ip]
+    row = L.row[ip]
     first = L.is_event[ip]
-    w_items = [None if w is None else w[L.row[ip]] for w in w_time]
-    higher = _earlier_events_above_later(ip, first, non_event_targets=True, weights=w_items)
-    new = _new_runs(sc[ip], None if L.stratum is None else L.stratum[ip])
-    start = np.flatnonzero(new)[np.cumsum(new) - 1]  # each item's run start (sorted order)
+    w_items = [None if w is None else w[row] for w in w_time]
+    higher = _earlier_events_above_later(ip, first, non_event_targets=True, weights=w_items,
+                                         scratch=scratch)
+    # equal scores: each entry item with the events before it in its run of equal (stratum,
+    # score), by the running sum of the events' weights less its value before the run
+    starts = np.flatnonzero(_new_runs(item_run, None))
     out = []
     for h, w in zip(higher, w_items, strict=True):
-        if w is None:
-            n_ev = np.r_[0, np.cumsum(first)]
-            before = n_ev[np.arange(m)] - n_ev[start]  # events earlier in the run: earlier items
-            out.append((h, int(before[~first].sum())))
-        else:
-            n_ev = np.r_[0, np.cumsum(np.where(first, w, 0))]
-            before = n_ev[np.arange(m)] - n_ev[start]
-            out.append((h, int((w * before)[~first].sum())))
+        q = first.astype(np.int64) if w is None else w * first  # the events' weights
+        t = ~first if w is None else w * ~first  # the entries' weights
+        run_q = np.cumsum(q)
+        before_run = run_q[starts] - q[starts]
+        equal = int(np.dot(run_q, t)) - int(np.dot(before_run, np.add.reduceat(t, starts,
+                                                                                dtype=np.int64)))
+        out.append((h, equal))
     return out
 
 
@@ -342,7 +387,8 @@ _BLOCK_BITS = 6  # pairs within blocks of 2^6 positions: one 64-bit mask per row
 
 def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray,
                                 non_event_targets: bool = False,
-                                weights: Sequence[np.ndarray | None] = (None,)) -> list[int]:
+                                weights: Sequence[np.ndarray | None] = (None,),
+                                scratch: _Scratch | None = None) -> list[int]:
     """Count pairs of positions i < j with i an event and a higher score than j (with
     ``non_event_targets``, only those with j not an event), once per entry of ``weights``
     (aligned with ``pos``): None counts every pair once, an array of non-negative whole
@@ -363,25 +409,34 @@ def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray,
     if n < 2:
         return [0] * len(weights)
     ktype: Any = np.int32 if n < 2**30 else np.int64
-    key = pos.astype(ktype) << 1
+    sc = _Scratch() if scratch is None else scratch
+    key = sc.get("key", n, ktype)
+    np.left_shift(pos, 1, out=key)
     key |= dead
     # (own copies: the work arrays take turns with them; 32 bits when every running sum fits)
-    ws = [None if w is None else
-          np.array(w, dtype=np.int32 if int(w.sum(dtype=np.int64)) < 2**31 else np.int64)
-          for w in weights]
+    ws: list[np.ndarray | None] = []
+    for k, w in enumerate(weights):
+        if w is None:
+            ws.append(None)
+            continue
+        wtype = np.int32 if int(w.sum(dtype=np.int64)) < 2**31 else np.int64
+        ws.append(sc.get(f"w{k}", n, wtype))
+        ws[-1][...] = w
     higher = [0] * len(weights)
     top = (n - 1).bit_length() - 1
     if top >= _BLOCK_BITS:
-        at = np.arange(n, dtype=ktype)
-        key_next = np.empty_like(key)
-        ws_next = [None if w is None else np.empty_like(w) for w in ws]
-        first_event = np.empty(n, dtype=bool)  # an event in the earlier half
-        later_target = np.empty(n, dtype=bool) if non_event_targets else None
-        event, later, count, tmp = (np.empty(n, dtype=ktype) for _ in range(4))
-        dest = np.empty(n, dtype=np.intp)
-        wsum = {w.dtype: np.empty(n, dtype=w.dtype) for w in ws if w is not None}
-        wprod = np.empty(n, dtype=np.int64)
-        count_t = np.empty(n, dtype=ktype) if non_event_targets else None
+        at = sc.arange(n, ktype)
+        key_next = sc.get("key_next", n, ktype)
+        ws_next = [None if w is None else sc.get(f"w{k}_next", n, w.dtype)
+                   for k, w in enumerate(ws)]
+        first_event = sc.get("first_event", n, bool)  # an event in the earlier half
+        later_target = sc.get("later_target", n, bool) if non_event_targets else None
+        event, later, count, tmp = (sc.get(name, n, ktype)
+                                    for name in ("event", "later", "count", "tmp"))
+        dest = sc.get("dest", n, np.intp)
+        wsum = {w.dtype: sc.get(f"wsum{w.dtype}", n, w.dtype) for w in ws if w is not None}
+        wprod = sc.get("wprod", n, np.int64)
+        count_t = sc.get("count_t", n, ktype) if non_event_targets else None
         for level in range(top, _BLOCK_BITS - 1, -1):
             half = 1 << level
             size = 2 * half  # the block
@@ -428,7 +483,7 @@ def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray,
                 if w is not None and w_next is not None:
                     w_next[dest] = w
                     ws[k], ws_next[k] = w_next, w
-    within = _within_blocks(key, non_event_targets, ws, min(top + 1, _BLOCK_BITS))
+    within = _within_blocks(key, non_event_targets, ws, min(top + 1, _BLOCK_BITS), sc)
     return [h + b for h, b in zip(higher, within, strict=True)]
 
 
@@ -458,7 +513,8 @@ def _popcount_swar(x: np.ndarray) -> np.ndarray:
 
 
 def _within_blocks(key: np.ndarray, non_event_targets: bool,
-                   weights: Sequence[np.ndarray | None], bits: int) -> list[int]:
+                   weights: Sequence[np.ndarray | None], bits: int,
+                   sc: _Scratch) -> list[int]:
     """The pairs of :func:`_earlier_events_above_later` within blocks of 2^bits (at most 64)
     positions, with the rows of every block in score order (``key``: position << 1 | event,
     ``weights`` aligned with it). Within a block a row's bit at its position offset p is
@@ -468,39 +524,49 @@ def _within_blocks(key: np.ndarray, non_event_targets: bool,
     exactly."""
     size = 1 << bits
     n = key.size
-    full = n // size * size
-    offset = (key >> 1).astype(np.uint64)
+    offset = sc.get("offset", n, np.uint64)
+    np.right_shift(key, 1, out=offset, casting="unsafe")
     offset &= np.uint64(size - 1)
-    event = (key & 1).astype(bool)
-    unit = np.left_shift(np.uint64(1), offset)  # 2^p
+    event = sc.get("event_flag", n, bool)
+    np.bitwise_and(key, 1, out=event, casting="unsafe")
+    at = np.flatnonzero(event)
+    unit = sc.get("unit", n, np.uint64)
+    np.left_shift(np.uint64(1), offset, out=unit)  # 2^p
     if non_event_targets:
         unit *= ~event
-    offset += np.uint64(1)
-    running = np.empty(n, dtype=np.uint64)
+    above = offset[at] + np.uint64(1)  # each event's bits above its own
+    block = at >> bits
+    blocks = -(-n // size)
+    running = sc.get("running", n, np.uint64)
 
     def lower_later(mask: np.ndarray) -> np.ndarray:
-        """Per row, the rows of ``mask`` (times 2^p) before it in its block at later
-        positions, counted."""
+        """At every event, the rows of ``mask`` (2^p or 0 per row) before it in its block at
+        later positions, counted."""
         np.cumsum(mask, out=running)  # (uint64 sums may wrap; the differences are exact)
-        _restart(running, size, full)
-        np.right_shift(running, offset, out=running)
-        return _popcount(running)
+        before = np.zeros(blocks, dtype=np.uint64)  # the running sum before each block
+        before[1:] = running[size - 1 : (blocks - 1) * size : size]
+        got = running[at] - before[block]
+        got >>= above
+        return _popcount(got).astype(np.int64)
 
     totals = []
     plain = None
     for w in weights:
         if w is None:
             if plain is None:
-                plain = int(lower_later(unit)[event].sum(dtype=np.int64))
+                plain = int(lower_later(unit).sum())
             totals.append(plain)
             continue
-        at = np.flatnonzero(event)
         total = 0
+        w_at = w[at].astype(np.int64)
+        wu = sc.get("wu", n, np.uint64)
+        wu[...] = w
+        plane = sc.get("plane", n, np.uint64)
         for b in range(int(w.max(initial=0)).bit_length()):
-            plane = ((w >> b) & 1).astype(np.uint64)
+            np.right_shift(wu, np.uint64(b), out=plane)
+            plane &= np.uint64(1)
             plane *= unit
-            got = lower_later(plane)[at].astype(np.int64)
-            total += int((got * w[at]).sum()) << b
+            total += int(np.dot(lower_later(plane), w_at)) << b
         totals.append(total)
     return totals
 
