@@ -420,8 +420,9 @@ def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray,
             ws.append(None)
             continue
         wtype = np.int32 if int(w.sum(dtype=np.int64)) < 2**31 else np.int64
-        ws.append(sc.get(f"w{k}", n, wtype))
-        ws[-1][...] = w
+        own = sc.get(f"w{k}", n, wtype)
+        own[...] = w
+        ws.append(own)
     higher = [0] * len(weights)
     top = (n - 1).bit_length() - 1
     if top >= _BLOCK_BITS:
