@@ -211,49 +211,63 @@ def concordances(time_order: TimeOrder, risk_score: Any,
     n = T.n
     if n < 2 or not T.event_s.any() or T.pairs <= 0:
         return [float("nan")] * len(counts)
-    w_time = [None if c is None else _counts_array(c, n)[T.order] for c in counts]
+    sc = T.scratch  # (arrays of n reused from call to call: see _Scratch)
+    w_time: list[np.ndarray | None] = []
+    for k, c in enumerate(counts):
+        w_time.append(None if c is None else
+                      np.take(_counts_array(c, n), T.order, out=sc.get(f"w_time{k}", n, np.int64)))
     pairs = [T.pairs if w is None else _weighted_pairs(T, w) for w in w_time]
-    s_time = s[T.order]  # scores in time order
+    s_time = np.take(s, T.order, out=sc.get("s_time", n, float))  # scores in time order
     itype = np.int32 if n < 2**30 else np.int64
     # positions sorted by (stratum, score), ties by position (stable sorts)
     pos = _by_key(s_time, T.stratum_s, itype)
-    by_score = s_time[pos]
-    w_sorted = [None if w is None else w[pos] for w in w_time]  # (before the move below)
+    by_score = np.take(s_time, pos, out=sc.get("by_score", n, float))
+    w_sorted = [None if w is None else np.take(w, pos, out=sc.get(f"w_sorted{k}", n, w.dtype))
+                for k, w in enumerate(w_time)]  # (before the move below)
     # runs of equal (stratum, score); each position's run number orders the late-entry items
-    new_s = _new_runs(by_score, None if T.stratum_s is None else T.stratum_s[pos])
-    run = np.cumsum(new_s) - 1
+    new_s = _new_runs(by_score, None if T.stratum_s is None else
+                      np.take(T.stratum_s, pos, out=sc.get("stratum", n, T.stratum_s.dtype)))
     run_at = None
     if T.late is not None:
-        run_at = np.empty(n, dtype=np.int64)
+        run = np.cumsum(new_s, out=sc.get("run", n, np.int64))
+        run -= 1
+        run_at = sc.get("run_at", n, np.int64)
         run_at[pos] = run
     # the events tied in time take their time's slots by increasing score: the tied events in
     # score order, grouped by their time (a stable sort, so still by score within a time)
     same_time_same_score = [0] * len(counts)
     if T.tied_slots.size:
-        seq = pos[T.tied_at[pos] != np.iinfo(T.tied_at.dtype).max]  # tied events, by score
+        tied_at = np.take(T.tied_at, pos, out=sc.get("tied_at", n, T.tied_at.dtype))
+        seq = pos[tied_at != np.iinfo(T.tied_at.dtype).max]  # tied events, by score
         seq = seq[np.argsort(T.tied_at[seq], kind="stable")]  # by time, then score
         st = s_time[seq]  # the scores at T.tied_slots after the move
-        moved = np.arange(n, dtype=itype)
+        moved = sc.get("moved", n, itype)
+        moved[...] = sc.arange(n, itype)
         moved[seq] = T.tied_slots
-        pos = moved[pos]  # still by score, ties by (new) position
-        # events tied in time and in score: counted as tied below, but not comparable
+        pos = np.take(moved, pos, out=sc.get("pos_moved", n, itype))  # still by score, ties
+        # by (new) position; events tied in time and in score: counted as tied below, but
+        # not comparable
         new_ts = np.ones(st.size, dtype=bool)
         new_ts[1:] = (T.tied_grp[1:] != T.tied_grp[:-1]) | (st[1:] != st[:-1])
         starts = np.flatnonzero(new_ts)
         same_time_same_score = [_pairs_within_runs(starts, None if w is None else w[seq], st.size)
                                 for w in w_time]
-    dead = T.event_s[pos]
-    # tied scores: every event with the later rows of its run of equal (stratum, score)
-    run_end = np.r_[np.flatnonzero(new_s)[1:], n]
-    idx = np.arange(n, dtype=itype)
+    dead = np.take(T.event_s, pos, out=sc.get("dead", n, bool))
+    # tied scores: every event with the later rows of its run of equal (stratum, score), from
+    # the runs' sums: sum over events k of (run end - 1 - k), with counts sum of c_k times the
+    # counts after k in its run (running sums at the run's end less at k)
+    run_start = np.flatnonzero(new_s)
+    run_last = np.r_[run_start[1:], n] - 1
     equal = []
-    for w, tts in zip(w_sorted, same_time_same_score, strict=True):
+    for k, (w, tts) in enumerate(zip(w_sorted, same_time_same_score, strict=True)):
         if w is None:
-            e_k = int((run_end[run[dead]] - 1 - idx[dead]).sum())
-        else:  # every event's count times the counts of the later rows of its run
-            cw = np.r_[0, np.cumsum(w)]
-            at = idx[dead]
-            e_k = int((w[at] * (cw[run_end[run[at]]] - cw[at + 1])).sum())
+            per_run = np.add.reduceat(dead, run_start, dtype=np.int64)
+            e_k = int(np.dot(run_last, per_run)) - int(np.flatnonzero(dead).sum())
+        else:
+            q = np.multiply(w, dead, out=sc.get(f"q{k}", n, w.dtype))  # the events' counts
+            cw = np.cumsum(w, out=sc.get(f"cw{k}", n, np.int64))
+            per_run = np.add.reduceat(q, run_start, dtype=np.int64)
+            e_k = int(np.dot(cw[run_last], per_run)) - int(np.dot(q, cw))
         equal.append(e_k - tts)
     higher = _earlier_events_above_later(pos, dead, weights=w_sorted, scratch=T.scratch)
     if T.late is not None:
@@ -297,17 +311,20 @@ def _weighted_pairs(T: TimeOrder, w: np.ndarray) -> int:
     less the pairs delayed entry takes out."""
     assert T.events is not None and T.events_end is not None
     ev, end = T.events, T.events_end
-    cw = np.r_[0, np.cumsum(w)]
-    total = int((w[ev] * (cw[end] - cw[ev + 1])).sum())
+    sc = T.scratch
+    cw = np.cumsum(w, out=sc.get("pairs_cw", w.size, np.int64))  # (inclusive)
+    total = int(np.dot(w[ev], cw[end - 1] - cw[ev]))
     if T.tied_slots.size:
         starts = np.flatnonzero(np.r_[True, T.tied_grp[1:] != T.tied_grp[:-1]])
         total -= _pairs_within_runs(starts, w[T.tied_slots], T.tied_slots.size)
     if T.late is not None:
         L = T.late
-        wl = w[L.row]
-        ce = np.r_[0, np.cumsum(np.where(L.is_event, 0, wl))]  # entry counts so far
+        m = L.row.size
+        wl = np.take(w, L.row, out=sc.get("pairs_wl", m, np.int64))
+        entries = np.multiply(wl, ~L.is_event, out=sc.get("pairs_entries", m, np.int64))
+        ce = np.cumsum(entries, out=entries)  # entry counts so far (inclusive)
         at = np.flatnonzero(L.is_event)
-        total -= int((wl[at] * (ce[L.last[at]] - ce[at + 1])).sum())
+        total -= int(np.dot(wl[at], ce[L.last[at] - 1] - ce[at]))
     return total
 
 
@@ -359,25 +376,31 @@ def _late_pairs(L: _LateEntry, w_time: Sequence[np.ndarray | None], run_at: np.n
     entry of ``w_time`` (row counts in time order, None: every row once). ``run_at``: every
     position's run of equal (stratum, score) in their order, so that the items' order by
     (stratum, score), ties by item, is a stable sort of whole numbers."""
-    item_run = run_at[L.row]
+    m = L.row.size
+    item_run = np.take(run_at, L.row, out=scratch.get("item_run", m, run_at.dtype))
     ip = _stable_order(item_run)
-    item_run = item_run[ip]
-    row = L.row[ip]
-    first = L.is_event[ip]
-    w_items = [None if w is None else w[row] for w in w_time]
+    item_run = np.take(item_run, ip, out=scratch.get("item_run_sorted", m, run_at.dtype))
+    row = np.take(L.row, ip, out=scratch.get("item_row", m, L.row.dtype))
+    first = np.take(L.is_event, ip, out=scratch.get("item_event", m, bool))
+    w_items = [None if w is None else np.take(w, row, out=scratch.get(f"w_item{k}", m, w.dtype))
+               for k, w in enumerate(w_time)]
     higher = _earlier_events_above_later(ip, first, non_event_targets=True, weights=w_items,
                                          scratch=scratch)
     # equal scores: each entry item with the events before it in its run of equal (stratum,
     # score), by the running sum of the events' weights less its value before the run
     starts = np.flatnonzero(_new_runs(item_run, None))
     out = []
+    q, t, run_q = (scratch.get(name, m, np.int64) for name in ("item_q", "item_t", "item_run_q"))
     for h, w in zip(higher, w_items, strict=True):
-        q = first.astype(np.int64) if w is None else w * first  # the events' weights
-        t = ~first if w is None else w * ~first  # the entries' weights
-        run_q = np.cumsum(q)
+        if w is None:
+            np.copyto(q, first)  # the events' weights
+            np.logical_not(first, out=t, casting="unsafe")  # the entries' weights
+        else:
+            np.multiply(w, first, out=q)
+            np.subtract(w, q, out=t)
+        np.cumsum(q, out=run_q)
         before_run = run_q[starts] - q[starts]
-        equal = int(np.dot(run_q, t)) - int(np.dot(before_run, np.add.reduceat(t, starts,
-                                                                                dtype=np.int64)))
+        equal = int(np.dot(run_q, t)) - int(np.dot(before_run, np.add.reduceat(t, starts)))
         out.append((h, equal))
     return out
 
