@@ -25,19 +25,21 @@ class _Scratch:
     """Work arrays kept from one C index to the next of one sample (per thread). A fresh array
     of a few hundred thousand numbers costs the kernel a page fault per 4 KiB the first time
     it is written (at 200,000 rows about as much as the pass itself); reusing them saves that.
-    ``get`` hands out an array of at least the size asked for, cut to it, contents undefined;
-    ``arange`` one holding 0..size-1."""
+    ``get`` hands out a named buffer as an array of ``size`` values of ``dtype``, contents
+    undefined (the bytes of the largest use so far, so one name serves several types; the
+    callers give a name to one array at a time); ``arange`` one holding 0..size-1."""
 
     def __init__(self) -> None:
         self._arrays: dict[tuple[int, str], np.ndarray] = {}
 
     def get(self, name: str, size: int, dtype: Any) -> np.ndarray:
         key = (threading.get_ident(), name)
+        nbytes = size * np.dtype(dtype).itemsize
         a = self._arrays.get(key)
-        if a is None or a.size < size or a.dtype != np.dtype(dtype):
-            a = np.empty(size, dtype=dtype)
+        if a is None or a.size < nbytes:
+            a = np.empty(max(nbytes, 8), dtype=np.uint8)
             self._arrays[key] = a
-        return a[:size]
+        return a[:nbytes].view(dtype)
 
     def arange(self, size: int, dtype: Any) -> np.ndarray:
         key = (threading.get_ident(), "arange")
@@ -217,19 +219,19 @@ def concordances(time_order: TimeOrder, risk_score: Any,
         w_time.append(None if c is None else
                       np.take(_counts_array(c, n), T.order, out=sc.get(f"w_time{k}", n, np.int64)))
     pairs = [T.pairs if w is None else _weighted_pairs(T, w) for w in w_time]
-    s_time = np.take(s, T.order, out=sc.get("s_time", n, float))  # scores in time order
+    s_time = np.take(s, T.order, out=sc.get("s1", n, float))  # scores in time order
     itype = np.int32 if n < 2**30 else np.int64
     # positions sorted by (stratum, score), ties by position (stable sorts)
     pos = _by_key(s_time, T.stratum_s, itype)
-    by_score = np.take(s_time, pos, out=sc.get("by_score", n, float))
+    by_score = np.take(s_time, pos, out=sc.get("s2", n, float))
     w_sorted = [None if w is None else np.take(w, pos, out=sc.get(f"w_sorted{k}", n, w.dtype))
                 for k, w in enumerate(w_time)]  # (before the move below)
     # runs of equal (stratum, score); each position's run number orders the late-entry items
     new_s = _new_runs(by_score, None if T.stratum_s is None else
-                      np.take(T.stratum_s, pos, out=sc.get("stratum", n, T.stratum_s.dtype)))
+                      np.take(T.stratum_s, pos, out=sc.get("s3", n, T.stratum_s.dtype)))
     run_at = None
     if T.late is not None:
-        run = np.cumsum(new_s, out=sc.get("run", n, np.int64))
+        run = np.cumsum(new_s, out=sc.get("s2", n, np.int64))
         run -= 1
         run_at = sc.get("run_at", n, np.int64)
         run_at[pos] = run
@@ -237,14 +239,14 @@ def concordances(time_order: TimeOrder, risk_score: Any,
     # score order, grouped by their time (a stable sort, so still by score within a time)
     same_time_same_score = [0] * len(counts)
     if T.tied_slots.size:
-        tied_at = np.take(T.tied_at, pos, out=sc.get("tied_at", n, T.tied_at.dtype))
+        tied_at = np.take(T.tied_at, pos, out=sc.get("s3", n, T.tied_at.dtype))
         seq = pos[tied_at != np.iinfo(T.tied_at.dtype).max]  # tied events, by score
         seq = seq[np.argsort(T.tied_at[seq], kind="stable")]  # by time, then score
         st = s_time[seq]  # the scores at T.tied_slots after the move
-        moved = sc.get("moved", n, itype)
+        moved = sc.get("s1", n, itype)
         moved[...] = sc.arange(n, itype)
         moved[seq] = T.tied_slots
-        pos = np.take(moved, pos, out=sc.get("pos_moved", n, itype))  # still by score, ties
+        pos = np.take(moved, pos, out=sc.get("s2", n, itype))  # still by score, ties
         # by (new) position; events tied in time and in score: counted as tied below, but
         # not comparable
         new_ts = np.ones(st.size, dtype=bool)
@@ -252,20 +254,20 @@ def concordances(time_order: TimeOrder, risk_score: Any,
         starts = np.flatnonzero(new_ts)
         same_time_same_score = [_pairs_within_runs(starts, None if w is None else w[seq], st.size)
                                 for w in w_time]
-    dead = np.take(T.event_s, pos, out=sc.get("dead", n, bool))
+    dead = np.take(T.event_s, pos, out=sc.get("s3", n, bool))
     # tied scores: every event with the later rows of its run of equal (stratum, score), from
     # the runs' sums: sum over events k of (run end - 1 - k), with counts sum of c_k times the
     # counts after k in its run (running sums at the run's end less at k)
     run_start = np.flatnonzero(new_s)
     run_last = np.r_[run_start[1:], n] - 1
     equal = []
-    for k, (w, tts) in enumerate(zip(w_sorted, same_time_same_score, strict=True)):
+    for w, tts in zip(w_sorted, same_time_same_score, strict=True):
         if w is None:
             per_run = np.add.reduceat(dead, run_start, dtype=np.int64)
             e_k = int(np.dot(run_last, per_run)) - int(np.flatnonzero(dead).sum())
         else:
-            q = np.multiply(w, dead, out=sc.get(f"q{k}", n, w.dtype))  # the events' counts
-            cw = np.cumsum(w, out=sc.get(f"cw{k}", n, np.int64))
+            q = np.multiply(w, dead, out=sc.get("s1", n, w.dtype))  # the events' counts
+            cw = np.cumsum(w, out=sc.get("dest", n, np.int64))
             per_run = np.add.reduceat(q, run_start, dtype=np.int64)
             e_k = int(np.dot(cw[run_last], per_run)) - int(np.dot(q, cw))
         equal.append(e_k - tts)
@@ -312,7 +314,7 @@ def _weighted_pairs(T: TimeOrder, w: np.ndarray) -> int:
     assert T.events is not None and T.events_end is not None
     ev, end = T.events, T.events_end
     sc = T.scratch
-    cw = np.cumsum(w, out=sc.get("pairs_cw", w.size, np.int64))  # (inclusive)
+    cw = np.cumsum(w, out=sc.get("s1", w.size, np.int64))  # (inclusive)
     total = int(np.dot(w[ev], cw[end - 1] - cw[ev]))
     if T.tied_slots.size:
         starts = np.flatnonzero(np.r_[True, T.tied_grp[1:] != T.tied_grp[:-1]])
@@ -320,8 +322,8 @@ def _weighted_pairs(T: TimeOrder, w: np.ndarray) -> int:
     if T.late is not None:
         L = T.late
         m = L.row.size
-        wl = np.take(w, L.row, out=sc.get("pairs_wl", m, np.int64))
-        entries = np.multiply(wl, ~L.is_event, out=sc.get("pairs_entries", m, np.int64))
+        wl = np.take(w, L.row, out=sc.get("s2", m, np.int64))
+        entries = np.multiply(wl, ~L.is_event, out=sc.get("s3", m, np.int64))
         ce = np.cumsum(entries, out=entries)  # entry counts so far (inclusive)
         at = np.flatnonzero(L.is_event)
         total -= int(np.dot(wl[at], ce[L.last[at] - 1] - ce[at]))
@@ -377,12 +379,12 @@ def _late_pairs(L: _LateEntry, w_time: Sequence[np.ndarray | None], run_at: np.n
     position's run of equal (stratum, score) in their order, so that the items' order by
     (stratum, score), ties by item, is a stable sort of whole numbers."""
     m = L.row.size
-    item_run = np.take(run_at, L.row, out=scratch.get("item_run", m, run_at.dtype))
+    item_run = np.take(run_at, L.row, out=scratch.get("s1", m, run_at.dtype))
     ip = _stable_order(item_run)
-    item_run = np.take(item_run, ip, out=scratch.get("item_run_sorted", m, run_at.dtype))
-    row = np.take(L.row, ip, out=scratch.get("item_row", m, L.row.dtype))
-    first = np.take(L.is_event, ip, out=scratch.get("item_event", m, bool))
-    w_items = [None if w is None else np.take(w, row, out=scratch.get(f"w_item{k}", m, w.dtype))
+    item_run = np.take(item_run, ip, out=scratch.get("s2", m, run_at.dtype))
+    row = np.take(L.row, ip, out=scratch.get("s3", m, L.row.dtype))
+    first = np.take(L.is_event, ip, out=scratch.get("s4", m, bool))
+    w_items = [None if w is None else np.take(w, row, out=scratch.get(f"w_sorted{k}", m, w.dtype))
                for k, w in enumerate(w_time)]
     higher = _earlier_events_above_later(ip, first, non_event_targets=True, weights=w_items,
                                          scratch=scratch)
@@ -390,7 +392,7 @@ def _late_pairs(L: _LateEntry, w_time: Sequence[np.ndarray | None], run_at: np.n
     # score), by the running sum of the events' weights less its value before the run
     starts = np.flatnonzero(_new_runs(item_run, None))
     out = []
-    q, t, run_q = (scratch.get(name, m, np.int64) for name in ("item_q", "item_t", "item_run_q"))
+    q, t, run_q = (scratch.get(name, m, np.int64) for name in ("dest", "wprod", "count"))
     for h, w in zip(higher, w_items, strict=True):
         if w is None:
             np.copyto(q, first)  # the events' weights
@@ -548,20 +550,20 @@ def _within_blocks(key: np.ndarray, non_event_targets: bool,
     exactly."""
     size = 1 << bits
     n = key.size
-    offset = sc.get("offset", n, np.uint64)
+    offset = sc.get("dest", n, np.uint64)
     np.right_shift(key, 1, out=offset, casting="unsafe")
     offset &= np.uint64(size - 1)
-    event = sc.get("event_flag", n, bool)
+    event = sc.get("first_event", n, bool)
     np.bitwise_and(key, 1, out=event, casting="unsafe")
     at = np.flatnonzero(event)
-    unit = sc.get("unit", n, np.uint64)
+    unit = sc.get("wprod", n, np.uint64)
     np.left_shift(np.uint64(1), offset, out=unit)  # 2^p
     if non_event_targets:
         unit *= ~event
     above = offset[at] + np.uint64(1)  # each event's bits above its own
     block = at >> bits
     blocks = -(-n // size)
-    running = sc.get("running", n, np.uint64)
+    running = sc.get("count", n, np.uint64)
 
     def lower_later(mask: np.ndarray) -> np.ndarray:
         """At every event, the rows of ``mask`` (2^p or 0 per row) before it in its block at
@@ -583,9 +585,9 @@ def _within_blocks(key: np.ndarray, non_event_targets: bool,
             continue
         total = 0
         w_at = w[at].astype(np.int64)
-        wu = sc.get("wu", n, np.uint64)
+        wu = sc.get("later", n, np.uint64)
         wu[...] = w
-        plane = sc.get("plane", n, np.uint64)
+        plane = sc.get("tmp", n, np.uint64)
         for b in range(int(w.max(initial=0)).bit_length()):
             np.right_shift(wu, np.uint64(b), out=plane)
             plane &= np.uint64(1)
