@@ -187,7 +187,8 @@ def concordance(
     read again) saves the sort when one sample gets many scores.
 
     O(n log n), exact in integers (a sort by score, then one stable partition per bit of the
-    position; DEVELOPERS.md, "The Cox engine's performance", describes the passes).
+    position down to blocks of 64 positions, counted within by 64-bit masks; DEVELOPERS.md,
+    "The Cox engine's performance", describes the passes).
     """
     if time_order is None:
         time_order = concordance_order(time, event, entry, strata)
@@ -227,8 +228,8 @@ def concordances(time_order: TimeOrder, risk_score: Any,
     w_sorted = [None if w is None else np.take(w, pos, out=sc.get(f"w_sorted{k}", n, w.dtype))
                 for k, w in enumerate(w_time)]  # (before the move below)
     # runs of equal (stratum, score); each position's run number orders the late-entry items
-    new_s = _new_runs(by_score, None if T.stratum_s is None else
-                      np.take(T.stratum_s, pos, out=sc.get("s3", n, T.stratum_s.dtype)))
+    # (the strata in score order are T.stratum_s itself: it is sorted, and so is the order)
+    new_s = _new_runs(by_score, T.stratum_s)
     run_at = None
     if T.late is not None:
         run = np.cumsum(new_s, out=sc.get("s2", n, np.int64))
