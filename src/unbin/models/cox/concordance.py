@@ -192,18 +192,22 @@ def concordance(
     """
     if time_order is None:
         time_order = concordance_order(time, event, entry, strata)
-    return concordances(time_order, risk_score, [None])[0]
+    return concordances(time_order, risk_score, [None], keep_work=False)[0]
 
 
 def concordances(time_order: TimeOrder, risk_score: Any,
-                 counts: Sequence[np.ndarray | None]) -> list[float]:
+                 counts: Sequence[np.ndarray | None], keep_work: bool = True) -> list[float]:
     """Harrell's C of one score on several multisets of one sample's rows: for each entry of
     ``counts``, the rows each repeated as often as it says (non-negative whole numbers, one per
     row in the sample's order; None: every row once). Each value equals :func:`concordance` of
     the repeated rows (a bootstrap replicate's drawn data set) exactly: a pair of rows counts
     c_i c_j times and a row's copies form no pair with each other (two events at one time, or
     no event), so the integer pair counts are the same. The sort by score and the partition
-    passes are shared by all entries; only the counts' tallies are added per entry."""
+    passes are shared by all entries; only the counts' tallies are added per entry.
+
+    ``keep_work``: keep the work arrays on ``time_order`` for its next call (about 100 bytes
+    per row while it lives; see ``_Scratch``), as a bootstrap's many calls want;
+    :func:`concordance` (one score of a sample, e.g. each fit's C index) does not keep them."""
     s = np.asarray(risk_score, dtype=float)
     T = time_order
     if s.ndim != 1 or s.shape[0] != T.n:
@@ -214,12 +218,12 @@ def concordances(time_order: TimeOrder, risk_score: Any,
     n = T.n
     if n < 2 or not T.event_s.any() or T.pairs <= 0:
         return [float("nan")] * len(counts)
-    sc = T.scratch  # (arrays of n reused from call to call: see _Scratch)
+    sc = T.scratch if keep_work else _Scratch()  # (arrays reused from call to call)
     w_time: list[np.ndarray | None] = []
     for k, c in enumerate(counts):
         w_time.append(None if c is None else
                       np.take(_counts_array(c, n), T.order, out=sc.get(f"w_time{k}", n, np.int64)))
-    pairs = [T.pairs if w is None else _weighted_pairs(T, w) for w in w_time]
+    pairs = [T.pairs if w is None else _weighted_pairs(T, w, sc) for w in w_time]
     s_time = np.take(s, T.order, out=sc.get("s1", n, float))  # scores in time order
     itype = np.int32 if n < 2**30 else np.int64
     # positions sorted by (stratum, score), ties by position (stable sorts)
@@ -272,10 +276,10 @@ def concordances(time_order: TimeOrder, risk_score: Any,
             per_run = np.add.reduceat(q, run_start, dtype=np.int64)
             e_k = int(np.dot(cw[run_last], per_run)) - int(np.dot(q, cw))
         equal.append(e_k - tts)
-    higher = _earlier_events_above_later(pos, dead, weights=w_sorted, scratch=T.scratch)
+    higher = _earlier_events_above_later(pos, dead, weights=w_sorted, scratch=sc)
     if T.late is not None:
         assert run_at is not None
-        late = _late_pairs(T.late, w_time, run_at, T.scratch)
+        late = _late_pairs(T.late, w_time, run_at, sc)
         for k, (late_higher, late_equal) in enumerate(late):
             higher[k] -= late_higher
             equal[k] -= late_equal
@@ -308,13 +312,12 @@ def _pairs_within_runs(starts: np.ndarray, w: np.ndarray | None, size: int) -> i
     return int(((tot * tot - sq) // 2).sum())
 
 
-def _weighted_pairs(T: TimeOrder, w: np.ndarray) -> int:
+def _weighted_pairs(T: TimeOrder, w: np.ndarray, sc: _Scratch) -> int:
     """The comparable pairs of :class:`TimeOrder` with every pair counted w_i w_j (``w`` in
     time order): each event with the later rows of its stratum, less the events tied in time,
     less the pairs delayed entry takes out."""
     assert T.events is not None and T.events_end is not None
     ev, end = T.events, T.events_end
-    sc = T.scratch
     cw = np.cumsum(w, out=sc.get("s1", w.size, np.int64))  # (inclusive)
     total = int(np.dot(w[ev], cw[end - 1] - cw[ev]))
     if T.tied_slots.size:
