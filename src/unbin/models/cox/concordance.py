@@ -4,8 +4,9 @@ weights, ``weighted_concordance`` (every pair counted w_i w_j) on ``weighted_pai
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -18,6 +19,35 @@ from .inputs import (
     _positive_weights,
     _stratum_codes,
 )
+
+
+class _Scratch:
+    """Work arrays kept from one C index to the next of one sample (per thread). A fresh array
+    of a few hundred thousand numbers costs the kernel a page fault per 4 KiB the first time
+    it is written (at 200,000 rows about as much as the pass itself); reusing them saves that.
+    ``get`` hands out a named buffer as an array of ``size`` values of ``dtype``, contents
+    undefined (the bytes of the largest use so far, so one name serves several types; the
+    callers give a name to one array at a time); ``arange`` one holding 0..size-1."""
+
+    def __init__(self) -> None:
+        self._arrays: dict[tuple[int, str], np.ndarray] = {}
+
+    def get(self, name: str, size: int, dtype: Any) -> np.ndarray:
+        key = (threading.get_ident(), name)
+        nbytes = size * np.dtype(dtype).itemsize
+        a = self._arrays.get(key)
+        if a is None or a.size < nbytes:
+            a = np.empty(max(nbytes, 8), dtype=np.uint8)
+            self._arrays[key] = a
+        return a[:nbytes].view(dtype)
+
+    def arange(self, size: int, dtype: Any) -> np.ndarray:
+        key = (threading.get_ident(), "arange")
+        a = self._arrays.get(key)
+        if a is None or a.size < size or a.dtype != np.dtype(dtype):
+            a = np.arange(size, dtype=dtype)
+            self._arrays[key] = a
+        return a[:size]
 
 
 @dataclass(frozen=True)
@@ -53,6 +83,7 @@ class TimeOrder:
     late: _LateEntry | None = None  # None without delayed entry (or when it removes no pair)
     events: np.ndarray | None = None  # positions of the events in that order
     events_end: np.ndarray | None = None  # the end (exclusive) of each event's stratum
+    scratch: _Scratch = field(default_factory=_Scratch, compare=False, repr=False)
 
 
 def _small_stratum_codes(strata: Any | None, n: int) -> np.ndarray | None:
@@ -156,22 +187,27 @@ def concordance(
     read again) saves the sort when one sample gets many scores.
 
     O(n log n), exact in integers (a sort by score, then one stable partition per bit of the
-    position; DEVELOPERS.md, "The Cox engine's performance", describes the passes).
+    position down to blocks of 64 positions, counted within by 64-bit masks; DEVELOPERS.md,
+    "The Cox engine's performance", describes the passes).
     """
     if time_order is None:
         time_order = concordance_order(time, event, entry, strata)
-    return concordances(time_order, risk_score, [None])[0]
+    return concordances(time_order, risk_score, [None], keep_work=False)[0]
 
 
 def concordances(time_order: TimeOrder, risk_score: Any,
-                 counts: Sequence[np.ndarray | None]) -> list[float]:
+                 counts: Sequence[np.ndarray | None], keep_work: bool = True) -> list[float]:
     """Harrell's C of one score on several multisets of one sample's rows: for each entry of
     ``counts``, the rows each repeated as often as it says (non-negative whole numbers, one per
     row in the sample's order; None: every row once). Each value equals :func:`concordance` of
     the repeated rows (a bootstrap replicate's drawn data set) exactly: a pair of rows counts
     c_i c_j times and a row's copies form no pair with each other (two events at one time, or
     no event), so the integer pair counts are the same. The sort by score and the partition
-    passes are shared by all entries; only the counts' tallies are added per entry."""
+    passes are shared by all entries; only the counts' tallies are added per entry.
+
+    ``keep_work``: keep the work arrays on ``time_order`` for its next call (about 100 bytes
+    per row while it lives; see ``_Scratch``), as a bootstrap's many calls want;
+    :func:`concordance` (one score of a sample, e.g. each fit's C index) does not keep them."""
     s = np.asarray(risk_score, dtype=float)
     T = time_order
     if s.ndim != 1 or s.shape[0] != T.n:
@@ -182,54 +218,68 @@ def concordances(time_order: TimeOrder, risk_score: Any,
     n = T.n
     if n < 2 or not T.event_s.any() or T.pairs <= 0:
         return [float("nan")] * len(counts)
-    w_time = [None if c is None else _counts_array(c, n)[T.order] for c in counts]
-    pairs = [T.pairs if w is None else _weighted_pairs(T, w) for w in w_time]
-    s_time = s[T.order]  # scores in time order
+    sc = T.scratch if keep_work else _Scratch()  # (arrays reused from call to call)
+    w_time: list[np.ndarray | None] = []
+    for k, c in enumerate(counts):
+        w_time.append(None if c is None else
+                      np.take(_counts_array(c, n), T.order, out=sc.get(f"w_time{k}", n, np.int64)))
+    pairs = [T.pairs if w is None else _weighted_pairs(T, w, sc) for w in w_time]
+    s_time = np.take(s, T.order, out=sc.get("s1", n, float))  # scores in time order
     itype = np.int32 if n < 2**30 else np.int64
     # positions sorted by (stratum, score), ties by position (stable sorts)
     pos = _by_key(s_time, T.stratum_s, itype)
-    by_score = s_time[pos]
-    w_sorted = [None if w is None else w[pos] for w in w_time]  # (before the move below)
+    by_score = np.take(s_time, pos, out=sc.get("s2", n, float))
+    w_sorted = [None if w is None else np.take(w, pos, out=sc.get(f"w_sorted{k}", n, w.dtype))
+                for k, w in enumerate(w_time)]  # (before the move below)
     # runs of equal (stratum, score); each position's run number orders the late-entry items
-    new_s = _new_runs(by_score, None if T.stratum_s is None else T.stratum_s[pos])
-    run = np.cumsum(new_s) - 1
+    # (the strata in score order are T.stratum_s itself: it is sorted, and so is the order)
+    new_s = _new_runs(by_score, T.stratum_s)
     run_at = None
     if T.late is not None:
-        run_at = np.empty(n, dtype=np.int64)
+        run = np.cumsum(new_s, out=sc.get("s2", n, np.int64))
+        run -= 1
+        run_at = sc.get("run_at", n, np.int64)
         run_at[pos] = run
     # the events tied in time take their time's slots by increasing score: the tied events in
     # score order, grouped by their time (a stable sort, so still by score within a time)
     same_time_same_score = [0] * len(counts)
     if T.tied_slots.size:
-        seq = pos[T.tied_at[pos] != np.iinfo(T.tied_at.dtype).max]  # tied events, by score
+        tied_at = np.take(T.tied_at, pos, out=sc.get("s3", n, T.tied_at.dtype))
+        seq = pos[tied_at != np.iinfo(T.tied_at.dtype).max]  # tied events, by score
         seq = seq[np.argsort(T.tied_at[seq], kind="stable")]  # by time, then score
         st = s_time[seq]  # the scores at T.tied_slots after the move
-        moved = np.arange(n, dtype=itype)
+        moved = sc.get("s1", n, itype)
+        moved[...] = sc.arange(n, itype)
         moved[seq] = T.tied_slots
-        pos = moved[pos]  # still by score, ties by (new) position
-        # events tied in time and in score: counted as tied below, but not comparable
+        pos = np.take(moved, pos, out=sc.get("s2", n, itype))  # still by score, ties
+        # by (new) position; events tied in time and in score: counted as tied below, but
+        # not comparable
         new_ts = np.ones(st.size, dtype=bool)
         new_ts[1:] = (T.tied_grp[1:] != T.tied_grp[:-1]) | (st[1:] != st[:-1])
         starts = np.flatnonzero(new_ts)
         same_time_same_score = [_pairs_within_runs(starts, None if w is None else w[seq], st.size)
                                 for w in w_time]
-    dead = T.event_s[pos]
-    # tied scores: every event with the later rows of its run of equal (stratum, score)
-    run_end = np.r_[np.flatnonzero(new_s)[1:], n]
-    idx = np.arange(n, dtype=itype)
+    dead = np.take(T.event_s, pos, out=sc.get("s3", n, bool))
+    # tied scores: every event with the later rows of its run of equal (stratum, score), from
+    # the runs' sums: sum over events k of (run end - 1 - k), with counts sum of c_k times the
+    # counts after k in its run (running sums at the run's end less at k)
+    run_start = np.flatnonzero(new_s)
+    run_last = np.r_[run_start[1:], n] - 1
     equal = []
     for w, tts in zip(w_sorted, same_time_same_score, strict=True):
         if w is None:
-            e_k = int((run_end[run[dead]] - 1 - idx[dead]).sum())
-        else:  # every event's count times the counts of the later rows of its run
-            cw = np.r_[0, np.cumsum(w)]
-            at = idx[dead]
-            e_k = int((w[at] * (cw[run_end[run[at]]] - cw[at + 1])).sum())
+            per_run = np.add.reduceat(dead, run_start, dtype=np.int64)
+            e_k = int(np.dot(run_last, per_run)) - int(np.flatnonzero(dead).sum())
+        else:
+            q = np.multiply(w, dead, out=sc.get("s1", n, w.dtype))  # the events' counts
+            cw = np.cumsum(w, out=sc.get("dest", n, np.int64))
+            per_run = np.add.reduceat(q, run_start, dtype=np.int64)
+            e_k = int(np.dot(cw[run_last], per_run)) - int(np.dot(q, cw))
         equal.append(e_k - tts)
-    higher = _earlier_events_above_later(pos, dead, idx, weights=w_sorted)
+    higher = _earlier_events_above_later(pos, dead, weights=w_sorted, scratch=sc)
     if T.late is not None:
         assert run_at is not None
-        late = _late_pairs(T.late, s_time, itype, w_time, run_at)
+        late = _late_pairs(T.late, w_time, run_at, sc)
         for k, (late_higher, late_equal) in enumerate(late):
             higher[k] -= late_higher
             equal[k] -= late_equal
@@ -262,28 +312,42 @@ def _pairs_within_runs(starts: np.ndarray, w: np.ndarray | None, size: int) -> i
     return int(((tot * tot - sq) // 2).sum())
 
 
-def _weighted_pairs(T: TimeOrder, w: np.ndarray) -> int:
+def _weighted_pairs(T: TimeOrder, w: np.ndarray, sc: _Scratch) -> int:
     """The comparable pairs of :class:`TimeOrder` with every pair counted w_i w_j (``w`` in
     time order): each event with the later rows of its stratum, less the events tied in time,
     less the pairs delayed entry takes out."""
     assert T.events is not None and T.events_end is not None
     ev, end = T.events, T.events_end
-    cw = np.r_[0, np.cumsum(w)]
-    total = int((w[ev] * (cw[end] - cw[ev + 1])).sum())
+    cw = np.cumsum(w, out=sc.get("s1", w.size, np.int64))  # (inclusive)
+    total = int(np.dot(w[ev], cw[end - 1] - cw[ev]))
     if T.tied_slots.size:
         starts = np.flatnonzero(np.r_[True, T.tied_grp[1:] != T.tied_grp[:-1]])
         total -= _pairs_within_runs(starts, w[T.tied_slots], T.tied_slots.size)
     if T.late is not None:
         L = T.late
-        wl = w[L.row]
-        ce = np.r_[0, np.cumsum(np.where(L.is_event, 0, wl))]  # entry counts so far
+        m = L.row.size
+        wl = np.take(w, L.row, out=sc.get("s2", m, np.int64))
+        entries = np.multiply(wl, ~L.is_event, out=sc.get("s3", m, np.int64))
+        ce = np.cumsum(entries, out=entries)  # entry counts so far (inclusive)
         at = np.flatnonzero(L.is_event)
-        total -= int((wl[at] * (ce[L.last[at]] - ce[at + 1])).sum())
+        total -= int(np.dot(wl[at], ce[L.last[at] - 1] - ce[at]))
     return total
 
 
+_SORT_BY_STRATUM = 64  # up to this many strata, each stratum's scores are sorted apart
+
+
 def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.ndarray:
-    """Positions sorted by (stratum, score), ties by position."""
+    """Positions sorted by (stratum, score), ties by position; ``stratum`` non-decreasing (the
+    time order's). With few strata each stratum's run of positions is sorted by itself
+    (shorter sorts); else one sort by score and a stable (radix) sort by stratum."""
+    if stratum is not None:
+        cuts = np.flatnonzero(stratum[1:] != stratum[:-1]) + 1
+        if cuts.size < _SORT_BY_STRATUM:
+            pos = np.empty(score.size, dtype=itype)
+            for a, b in zip(np.r_[0, cuts], np.r_[cuts, score.size], strict=True):
+                np.add(np.argsort(score[a:b], kind="stable"), a, out=pos[a:b])
+            return pos
     pos = np.argsort(score, kind="stable")
     if stratum is not None:
         pos = pos[np.argsort(stratum[pos], kind="stable")]
@@ -293,8 +357,11 @@ def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.nda
 def _stable_order(key: np.ndarray) -> np.ndarray:
     """``np.argsort(key, kind="stable")`` of non-negative whole numbers; below 2^32 as two
     stable sorts by 16-bit halves (numpy's radix sort), low half first."""
-    if key.size == 0 or int(key.max()) >= 2**32:
+    top = int(key.max(initial=0))
+    if top >= 2**32:
         return np.argsort(key, kind="stable")
+    if top < 2**16:
+        return np.argsort(key.astype(np.uint16), kind="stable")
     by_low = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
     return by_low[np.argsort((key[by_low] >> 16).astype(np.uint16), kind="stable")]
 
@@ -308,174 +375,229 @@ def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
     return new
 
 
-def _late_pairs(L: _LateEntry, s_time: np.ndarray, itype: Any,
-                w_time: Sequence[np.ndarray | None], run_at: np.ndarray,
-                ) -> list[tuple[int, int]]:
+def _late_pairs(L: _LateEntry, w_time: Sequence[np.ndarray | None], run_at: np.ndarray,
+                scratch: _Scratch) -> list[tuple[int, int]]:
     """Among the pairs delayed entry takes out (event item before an entry item of its
     stratum), those where the event has the higher score, and those with equal scores; per
     entry of ``w_time`` (row counts in time order, None: every row once). ``run_at``: every
     position's run of equal (stratum, score) in their order, so that the items' order by
     (stratum, score), ties by item, is a stable sort of whole numbers."""
     m = L.row.size
-    sc = s_time[L.row]
-    ip = _stable_order(run_at[L.row]).astype(itype)
-    first = L.is_event[ip]
-    w_items = [None if w is None else w[L.row[ip]] for w in w_time]
-    higher = _earlier_events_above_later(ip, first, np.arange(m, dtype=itype), target=~first,
-                                         weights=w_items)
-    new = _new_runs(sc[ip], None if L.stratum is None else L.stratum[ip])
-    start = np.flatnonzero(new)[np.cumsum(new) - 1]  # each item's run start (sorted order)
+    item_run = np.take(run_at, L.row, out=scratch.get("s1", m, run_at.dtype))
+    ip = _stable_order(item_run)
+    item_run = np.take(item_run, ip, out=scratch.get("s2", m, run_at.dtype))
+    row = np.take(L.row, ip, out=scratch.get("s3", m, L.row.dtype))
+    first = np.take(L.is_event, ip, out=scratch.get("s4", m, bool))
+    w_items = [None if w is None else np.take(w, row, out=scratch.get(f"w_sorted{k}", m, w.dtype))
+               for k, w in enumerate(w_time)]
+    higher = _earlier_events_above_later(ip, first, non_event_targets=True, weights=w_items,
+                                         scratch=scratch)
+    # equal scores: each entry item with the events before it in its run of equal (stratum,
+    # score), by the running sum of the events' weights less its value before the run
+    starts = np.flatnonzero(_new_runs(item_run, None))
     out = []
+    q, t, run_q = (scratch.get(name, m, np.int64) for name in ("dest", "wprod", "count"))
     for h, w in zip(higher, w_items, strict=True):
         if w is None:
-            n_ev = np.r_[0, np.cumsum(first)]
-            before = n_ev[np.arange(m)] - n_ev[start]  # events earlier in the run: earlier items
-            out.append((h, int(before[~first].sum())))
+            np.copyto(q, first)  # the events' weights
+            np.logical_not(first, out=t, casting="unsafe")  # the entries' weights
         else:
-            n_ev = np.r_[0, np.cumsum(np.where(first, w, 0))]
-            before = n_ev[np.arange(m)] - n_ev[start]
-            out.append((h, int((w * before)[~first].sum())))
+            np.multiply(w, first, out=q)
+            np.subtract(w, q, out=t)
+        np.cumsum(q, out=run_q)
+        before_run = run_q[starts] - q[starts]
+        equal = int(np.dot(run_q, t)) - int(np.dot(before_run, np.add.reduceat(t, starts)))
+        out.append((h, equal))
     return out
 
 
-_BRUTE_BITS = 4  # pairs within blocks of 2^4 positions are compared directly
+_BLOCK_BITS = 6  # pairs within blocks of 2^6 positions: one 64-bit mask per row (below)
 
 
-def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray,
-                                target: np.ndarray | None = None,
-                                weights: Sequence[np.ndarray | None] = (None,)) -> list[int]:
-    """Count pairs of positions i < j with i an event and a higher score than j (and, with
-    ``target``, j a target: ``target`` is aligned with ``pos`` as ``dead`` is), once per entry
-    of ``weights`` (aligned with ``pos`` too): None counts every pair once, an integer array
-    counts a pair w_i w_j.
+def _earlier_events_above_later(pos: np.ndarray, dead: np.ndarray,
+                                non_event_targets: bool = False,
+                                weights: Sequence[np.ndarray | None] = (None,),
+                                scratch: _Scratch | None = None) -> list[int]:
+    """Count pairs of positions i < j with i an event and a higher score than j (with
+    ``non_event_targets``, only those with j not an event), once per entry of ``weights``
+    (aligned with ``pos``): None counts every pair once, an array of non-negative whole
+    numbers counts a pair w_i w_j.
 
     ``pos`` are the positions 0..n-1 sorted by score (ties by position), ``dead`` whether each
-    is an event, ``idx`` = arange(n) of pos's dtype. At the level of bit L the rows are arranged
-    in blocks of 2^(L+1) positions (block b at indices from b 2^(L+1), as the positions are a
-    permutation), each in score order; the later half of a block is bit L = 1. Its running count
-    before an earlier-half event is the number of later rows with a lower score (an equal score
-    sorts after, by position); with weights, the running sum of the later rows' weights. The
-    count is also each row's rank within its half, which places it in the next level's
-    arrangement. Each row's position, event flag and target flag travel packed in one integer
-    (position << 2 | target << 1 | event), so one scatter per level moves them (one more per
-    weighted entry); the work arrays are allocated once. The pairs within the smallest blocks
-    (16 positions) are compared directly, by each row's rank in the score order.
+    is an event. At the level of bit L the rows are arranged in blocks of 2^(L+1) positions
+    (block b at indices from b 2^(L+1), as the positions are a permutation), each in score
+    order; the later half of a block is bit L = 1. Its running count before an earlier-half
+    event is the number of later rows with a lower score (an equal score sorts after, by
+    position); with weights, the running sum of the later (target) rows' weights. The count is
+    also each row's rank within its half, which places it in the next level's arrangement (a
+    stable partition, one scatter). A row's position and event flag travel packed in one
+    integer (position << 1 | event); weights travel beside it. The pairs within the smallest
+    blocks (64 positions) are counted from one 64-bit mask per row (:func:`_within_blocks`).
     """
     n = pos.size
     if n < 2:
         return [0] * len(weights)
-    low = min(_BRUTE_BITS, (n - 1).bit_length())
-    higher = _within_blocks(pos, dead, idx, low, target, weights)
-    itype: Any = np.int32 if n < 2**28 else np.int64
-    key = pos.astype(itype) << 2
+    ktype: Any = np.int32 if n < 2**30 else np.int64
+    sc = _Scratch() if scratch is None else scratch
+    key = sc.get("key", n, ktype)
+    np.left_shift(pos, 1, out=key)
     key |= dead
-    if target is not None:
-        key |= target.astype(itype) << 1
-    ws = [None if w is None else w.astype(np.int64) for w in weights]
-    ws_next = [None if w is None else np.empty_like(w) for w in ws]
-    at = np.arange(n, dtype=itype)
-    key_next = np.empty_like(key)
-    later = np.empty(n, dtype=bool)
-    first_event = np.empty(n, dtype=bool)  # an event in the earlier half
-    count, count_t, dest, tmp = (np.empty(n, dtype=itype) for _ in range(4))
-    later_t = None if target is None else np.empty(n, dtype=bool)
-    weighted = any(w is not None for w in ws)
-    wsum, wtmp = ((np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)) if weighted
-                  else (None, None))
-    for level in range((n - 1).bit_length() - 1, low - 1, -1):
-        size = 1 << (level + 1)  # the block
-        full = n // size * size
-        bit = 1 << (level + 2)  # bit L of the position, in the packed key
-        np.bitwise_and(key, bit, out=count)
-        np.not_equal(count, 0, out=later)
-        np.bitwise_and(key, bit | 1, out=tmp)
-        np.equal(tmp, 1, out=first_event)
-        np.cumsum(later, out=count)
-        count -= later  # later rows before each row ...
-        _per_block(count, size, full)  # ... in its block
-        tally, later_w = count, later
-        if later_t is not None:
-            np.bitwise_and(key, bit | 2, out=tmp)
-            np.equal(tmp, bit | 2, out=later_t)  # a later row that is a target
-            np.cumsum(later_t, out=count_t)
-            count_t -= later_t
-            _per_block(count_t, size, full)
-            tally, later_w = count_t, later_t
-        # (masks enter as 0/1 factors: numpy's masked reductions and copies are slower)
-        for k, w in enumerate(ws):
-            if w is None:
-                np.multiply(tally, first_event, out=tmp)
-                higher[k] += int(tmp.sum(dtype=np.int64))
-                continue
-            assert wsum is not None and wtmp is not None
-            # the later (target) rows' weights, summed before each row in its block
-            np.multiply(w, later_w, out=wtmp)
-            np.cumsum(wtmp, out=wsum)
-            wsum -= wtmp
-            _per_block(wsum, size, full)
-            np.multiply(wsum, w, out=wtmp)
-            wtmp *= first_event
-            higher[k] += int(wtmp.sum())
-        if level > low:
-            np.subtract(at, count, out=dest)  # earlier half: its rank among the earlier rows
-            np.bitwise_and(at, ~(size - 1), out=tmp)  # later half: after the earlier half
-            tmp += 1 << level
+    # (own copies: the work arrays take turns with them; 32 bits when every running sum fits)
+    ws: list[np.ndarray | None] = []
+    for k, w in enumerate(weights):
+        if w is None:
+            ws.append(None)
+            continue
+        wtype = np.int32 if int(w.sum(dtype=np.int64)) < 2**31 else np.int64
+        own = sc.get(f"w{k}", n, wtype)
+        own[...] = w
+        ws.append(own)
+    higher = [0] * len(weights)
+    top = (n - 1).bit_length() - 1
+    if top >= _BLOCK_BITS:
+        at = sc.arange(n, ktype)
+        key_next = sc.get("key_next", n, ktype)
+        ws_next = [None if w is None else sc.get(f"w{k}_next", n, w.dtype)
+                   for k, w in enumerate(ws)]
+        first_event = sc.get("first_event", n, bool)  # an event in the earlier half
+        later_target = sc.get("later_target", n, bool) if non_event_targets else None
+        event, later, count, tmp = (sc.get(name, n, ktype)
+                                    for name in ("event", "later", "count", "tmp"))
+        dest = sc.get("dest", n, np.intp)
+        wsum = {w.dtype: sc.get(f"wsum{w.dtype}", n, w.dtype) for w in ws if w is not None}
+        wprod = sc.get("wprod", n, np.int64)
+        count_t = sc.get("count_t", n, ktype) if non_event_targets else None
+        for level in range(top, _BLOCK_BITS - 1, -1):
+            half = 1 << level
+            size = 2 * half  # the block
+            full = n // size * size
+            np.right_shift(key, level + 1, out=later)
+            later &= 1  # bit L of the position (0/1)
+            np.bitwise_and(key, 1, out=event)
+            np.greater(event, later, out=first_event)
+            np.cumsum(later, out=count)  # later rows up to each row (at an earlier row: before it)
+            _restart(count, size, full)  # ... in its block
+            tally: np.ndarray = count
+            later_w: np.ndarray = later
+            if count_t is not None and later_target is not None:
+                np.greater(later, event, out=later_target)  # a later row that is a target
+                np.cumsum(later_target, out=count_t)
+                _restart(count_t, size, full)
+                tally, later_w = count_t, later_target
+            for k, w in enumerate(ws):
+                if w is None:
+                    np.multiply(tally, first_event, out=tmp)
+                    higher[k] += int(tmp.sum(dtype=np.int64))
+                    continue
+                ws_k = wsum[w.dtype]
+                np.multiply(w, later_w, out=ws_k)  # the later (target) rows' weights ...
+                np.cumsum(ws_k, out=ws_k)  # ... summed up to each row ...
+                _restart(ws_k, size, full)  # ... in its block
+                np.multiply(ws_k, w, out=wprod, dtype=np.int64)
+                wprod *= first_event
+                higher[k] += int(wprod.sum())
+            # earlier half: its rank among the block's earlier rows (position - later rows
+            # before it), at - count; later half: after the block's 2^L earlier rows, by its
+            # count, (at - offset in the block) + half + count - 1
+            np.bitwise_and(at, size - 1, out=tmp)
+            np.subtract(half - 1, tmp, out=tmp)
             tmp += count
-            tmp -= dest
+            tmp += count
             tmp *= later
-            dest += tmp
+            tmp -= count
+            np.add(at, tmp, out=dest)
             key_next[dest] = key
             key, key_next = key_next, key
             for k, w in enumerate(ws):
-                if w is not None:
-                    w_next = ws_next[k]
-                    assert w_next is not None
+                w_next = ws_next[k]
+                if w is not None and w_next is not None:
                     w_next[dest] = w
                     ws[k], ws_next[k] = w_next, w
-    return higher
+    within = _within_blocks(key, non_event_targets, ws, min(top + 1, _BLOCK_BITS), sc)
+    return [h + b for h, b in zip(higher, within, strict=True)]
 
 
-def _per_block(count: np.ndarray, size: int, full: int) -> None:
-    """Make running counts restart at every block of ``size`` (in place)."""
-    blocks = count[:full].reshape(-1, size)
-    blocks -= blocks[:, :1].copy()
-    if full < count.size:
-        count[full:] -= count[full]
+def _restart(running: np.ndarray, size: int, full: int) -> None:
+    """Make inclusive running sums restart at every block of ``size`` (in place; the blocks
+    whole up to ``full``, then one shorter block)."""
+    if 0 < full < running.size:
+        running[full:] -= running[full - 1]
+    if full > size:
+        ends = running[size - 1 : full - size : size].copy()  # each block's total so far
+        running[size:full].reshape(-1, size)[...] -= ends[:, None]
 
 
-def _within_blocks(pos: np.ndarray, dead: np.ndarray, idx: np.ndarray, bits: int,
-                   target: np.ndarray | None = None,
-                   weights: Sequence[np.ndarray | None] = (None,)) -> list[int]:
-    """The pairs of :func:`_earlier_events_above_later` within blocks of 2^bits positions."""
-    if bits == 0:
-        return [0] * len(weights)
-    n, size = pos.size, 1 << bits
-    rows = -(-n // size)
-    rank = np.full(rows * size, n, dtype=pos.dtype)  # padding: never lower, never an event
-    rank[pos] = idx  # rank in the score order (ties by position) of each position
-    ev = np.zeros(rows * size, dtype=bool)
-    ev[pos] = dead
-    tg = np.zeros(rows * size, dtype=bool)
-    tg[pos] = True if target is None else target
-    rank2, ev2, tg2 = rank.reshape(rows, size), ev.reshape(rows, size), tg.reshape(rows, size)
-    w2s: list[np.ndarray | None] = []
+def _popcount(x: np.ndarray) -> np.ndarray:
+    """The number of bits set in each uint64 (numpy >= 2: ``np.bitwise_count``)."""
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(x)
+    return _popcount_swar(x)
+
+
+def _popcount_swar(x: np.ndarray) -> np.ndarray:
+    """The number of bits set in each uint64, by summing bit fields in the word."""
+    x = x - ((x >> np.uint64(1)) & np.uint64(0x5555555555555555))
+    x = (x & np.uint64(0x3333333333333333)) + ((x >> np.uint64(2)) & np.uint64(0x3333333333333333))
+    x = (x + (x >> np.uint64(4))) & np.uint64(0x0F0F0F0F0F0F0F0F)
+    return (x * np.uint64(0x0101010101010101)) >> np.uint64(56)
+
+
+def _within_blocks(key: np.ndarray, non_event_targets: bool,
+                   weights: Sequence[np.ndarray | None], bits: int,
+                   sc: _Scratch) -> list[int]:
+    """The pairs of :func:`_earlier_events_above_later` within blocks of 2^bits (at most 64)
+    positions, with the rows of every block in score order (``key``: position << 1 | event,
+    ``weights`` aligned with it). Within a block a row's bit at its position offset p is
+    unique, so the running sum of 2^p over the block is the set of positions with a lower
+    score; the bits above an event's own offset are its later rows with a lower score. With
+    weights, one such set per bit of the weights (w = sum 2^b [bit b of w]) gives their sums
+    exactly."""
+    size = 1 << bits
+    n = key.size
+    offset = sc.get("dest", n, np.uint64)
+    np.right_shift(key, 1, out=offset, casting="unsafe")
+    offset &= np.uint64(size - 1)
+    event = sc.get("first_event", n, bool)
+    np.bitwise_and(key, 1, out=event, casting="unsafe")
+    at = np.flatnonzero(event)
+    unit = sc.get("wprod", n, np.uint64)
+    np.left_shift(np.uint64(1), offset, out=unit)  # 2^p
+    if non_event_targets:
+        unit *= ~event
+    above = offset[at] + np.uint64(1)  # each event's bits above its own
+    block = at >> bits
+    blocks = -(-n // size)
+    running = sc.get("count", n, np.uint64)
+
+    def lower_later(mask: np.ndarray) -> np.ndarray:
+        """At every event, the rows of ``mask`` (2^p or 0 per row) before it in its block at
+        later positions, counted."""
+        np.cumsum(mask, out=running)  # (uint64 sums may wrap; the differences are exact)
+        before = np.zeros(blocks, dtype=np.uint64)  # the running sum before each block
+        before[1:] = running[size - 1 : (blocks - 1) * size : size]
+        got = running[at] - before[block]
+        got >>= above
+        return _popcount(got).astype(np.int64)
+
+    totals = []
+    plain = None
     for w in weights:
         if w is None:
-            w2s.append(None)
+            if plain is None:
+                plain = int(lower_later(unit).sum())
+            totals.append(plain)
             continue
-        wp = np.zeros(rows * size, dtype=np.int64)
-        wp[pos] = w
-        w2s.append(wp.reshape(rows, size))
-    totals = [0] * len(weights)
-    for i in range(size - 1):
-        above = rank2[:, i + 1 :] < rank2[:, i : i + 1]
-        above &= tg2[:, i + 1 :]
-        for k, w2 in enumerate(w2s):
-            if w2 is None:
-                totals[k] += int(np.count_nonzero(above & ev2[:, i : i + 1]))
-            else:
-                later_w = (above * w2[:, i + 1 :]).sum(axis=1)
-                totals[k] += int((later_w * (w2[:, i] * ev2[:, i])).sum())
+        total = 0
+        w_at = w[at].astype(np.int64)
+        wu = sc.get("later", n, np.uint64)
+        wu[...] = w
+        plane = sc.get("tmp", n, np.uint64)
+        for b in range(int(w.max(initial=0)).bit_length()):
+            np.right_shift(wu, np.uint64(b), out=plane)
+            plane &= np.uint64(1)
+            plane *= unit
+            total += int(np.dot(lower_later(plane), w_at)) << b
+        totals.append(total)
     return totals
 
 

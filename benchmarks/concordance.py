@@ -1,0 +1,147 @@
+"""CPU time of Harrell's C of bootstrap replicates (``concordances``: one score on the drawn
+rows as counts and on the full sample), against references timed in the same process.
+
+    python benchmarks/concordance.py                        # 10,000 / 200,000 rows, markdown
+    python benchmarks/concordance.py --rows 200000 --json   # one size, JSON
+    python benchmarks/concordance.py --baseline main        # also the module as it is at a
+                                                            # git revision, alternated with it
+
+The sample is an invented registry cohort like the decision bootstrap's at scale: follow-up in
+whole days (heavy ties), 8 strata, delayed entry for every row (age at study entry), about 20%
+events, and two kinds of score: a grouped one (about 200 distinct values) and a continuous
+one; every call gets the counts of one bootstrap draw (seeded) and None (the full sample).
+
+References: ``weighted_concordance`` (the module's O(n log^2 n) pair sums, the same C from
+the drawn rows with their counts as frequency weights; exact below 2^53, so the values agree
+to the bit) and, with ``--baseline REV``, ``concordances`` as it is at that revision (git
+show), its results required identical. Timings are CPU seconds of this process (one BLAS
+thread), old and new alternated; on a shared machine prefer the ratios to the seconds.
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import importlib.util  # noqa: E402
+import json  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+import tempfile  # noqa: E402
+import time  # noqa: E402
+from pathlib import Path  # noqa: E402
+from types import ModuleType  # noqa: E402
+from typing import Any  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+from unbin.models.cox import concordance_order, weighted_concordance  # noqa: E402
+from unbin.models.cox.concordance import concordances  # noqa: E402
+
+SIZES = (10_000, 200_000)
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def simulate(n: int, seed: int) -> dict[str, np.ndarray]:
+    """Times (days), events, entries, strata and two scores of an invented cohort."""
+    rng = np.random.default_rng(seed)
+    marker = rng.normal(60.0, 20.0, n).clip(5, 150)
+    age = rng.uniform(40, 90, n)
+    lp = 0.0004 * (marker - 60.0) ** 2 + 0.05 * (age - 65)
+    event_time = rng.exponential(3650 * np.exp(-lp))
+    censor = rng.uniform(365, 3650, n)
+    time_ = np.ceil(np.minimum(event_time, censor))
+    event = event_time <= censor
+    entry = np.floor(time_ * rng.uniform(0, 0.9, n)) - 1  # before the first day at risk
+    return {
+        "time": time_, "event": event, "entry": entry, "strata": rng.integers(0, 8, n),
+        "grouped": np.round(lp, 2), "continuous": lp + rng.normal(0, 0.01, n),
+    }
+
+
+def load_revision(rev: str) -> ModuleType:
+    """The concordance module as it is at git revision ``rev`` (its relative imports made
+    absolute), loaded under another name."""
+    text = subprocess.run(
+        ["git", "show", f"{rev}:src/unbin/models/cox/concordance.py"], cwd=ROOT, check=True,
+        capture_output=True, text=True).stdout
+    text = text.replace("from .inputs import", "from unbin.models.cox.inputs import")
+    folder = Path(tempfile.mkdtemp())
+    path = folder / "concordance_baseline.py"
+    path.write_text(text)
+    spec = importlib.util.spec_from_file_location("concordance_baseline", path)
+    assert spec is not None and spec.loader is not None
+    module = importlib.util.module_from_spec(spec)
+    sys.modules["concordance_baseline"] = module
+    spec.loader.exec_module(module)
+    return module
+
+
+def run(n: int, calls: int, seed: int, baseline: ModuleType | None) -> dict[str, Any]:
+    d = simulate(n, seed)
+    rng = np.random.default_rng(seed + 1)
+    draws = [rng.multinomial(n, np.full(n, 1 / n)) for _ in range(calls)]
+    scores = [d["grouped" if k % 2 == 0 else "continuous"] for k in range(calls)]
+    order = concordance_order(d["time"], d["event"], d["entry"], d["strata"])
+    old_order = (None if baseline is None else
+                 baseline.concordance_order(d["time"], d["event"], d["entry"], d["strata"]))
+    clock: dict[str, float] = {"new": 0.0, "baseline": 0.0}
+    got: dict[str, list[list[float]]] = {"new": [], "baseline": []}
+    turns = ["new", "baseline"] if baseline is not None else ["new"]
+    for k in range(calls):
+        for who in turns if k % 2 == 0 else turns[::-1]:
+            module_order = order if who == "new" else old_order
+            fn = concordances if who == "new" else baseline.concordances  # type: ignore[union-attr]
+            start = time.process_time()
+            got[who].append(fn(module_order, scores[k], [draws[k], None]))
+            clock[who] += time.process_time() - start
+    # the O(n log^2 n) weighted pair sums on the first call's drawn rows and full sample
+    m = draws[0] > 0
+    start = time.process_time()
+    ref = [weighted_concordance(d["time"][m], scores[0][m], d["event"][m], draws[0][m],
+                                entry=d["entry"][m], strata=d["strata"][m]),
+           weighted_concordance(d["time"], scores[0], d["event"], np.ones(n),
+                                entry=d["entry"], strata=d["strata"])]
+    ref_s = time.process_time() - start
+    out: dict[str, Any] = {
+        "rows": n, "calls": calls, "events": int(d["event"].sum()),
+        "new_ms_per_call": 1e3 * clock["new"] / calls,
+        "weighted_pair_sums_ms": 1e3 * ref_s,
+        "equal_to_weighted_pair_sums": got["new"][0] == ref,
+    }
+    if baseline is not None:
+        out["baseline_ms_per_call"] = 1e3 * clock["baseline"] / calls
+        out["speedup"] = clock["baseline"] / clock["new"]
+        out["identical_to_baseline"] = got["new"] == got["baseline"]
+    return out
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--rows", type=int, nargs="*", default=list(SIZES))
+    ap.add_argument("--calls", type=int, default=20, help="replicate scores per size")
+    ap.add_argument("--seed", type=int, default=20261204)
+    ap.add_argument("--baseline", metavar="REV", help="also time concordances at this git "
+                    "revision (e.g. main), alternated with the working tree's")
+    ap.add_argument("--json", action="store_true")
+    args = ap.parse_args()
+    baseline = None if args.baseline is None else load_revision(args.baseline)
+    rows = [run(n, args.calls, args.seed, baseline) for n in args.rows]
+    if args.json:
+        print(json.dumps(rows, indent=1))
+        return
+    print("| rows | events | ms per call | baseline ms | speed-up | identical | "
+          "weighted pair sums ms (2 C) | equal |")
+    print("|---:|---:|---:|---:|---:|:---:|---:|:---:|")
+    for r in rows:
+        print(f"| {r['rows']:,} | {r['events']:,} | {r['new_ms_per_call']:.1f} | "
+              f"{r.get('baseline_ms_per_call', float('nan')):.1f} | "
+              f"{r.get('speedup', float('nan')):.2f} | {r.get('identical_to_baseline', '–')} | "
+              f"{r['weighted_pair_sums_ms']:.0f} | {r['equal_to_weighted_pair_sums']} |")
+
+
+if __name__ == "__main__":
+    main()
