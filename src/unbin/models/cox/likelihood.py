@@ -91,7 +91,7 @@ def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -
     with np.errstate(divide="ignore", invalid="ignore"):
         log_s0 = np.log(s0)
         if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
-            tied_sums = _scaled(L, L.tie_op, r) @ X1 if with_x else L.tie_op @ r
+            tied_sums = _scaled(L, L.tie_op, r) @ X1 if with_x else _per_tied_time(L, r[L.tie_ev])
             t0 = tied_sums[:, 0] if with_x else tied_sums
             den = s0[L.tie_at] - L.tie_f * t0[L.tie_grp]
             loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
@@ -301,8 +301,21 @@ def _write_standardised(
         out[start : start + k] = buf_items[:k]
         xwe += we[start : start + k] @ block
         if bounds is not None:
-            seen = block if k < _STD_BLOCK else buf.reshape(-1, _STD_WIDE * p)
-            top, bottom = seen.max(axis=0), seen.min(axis=0)
-            np.maximum(bounds[0], top.reshape(-1, p).max(axis=0), out=bounds[0])
-            np.minimum(bounds[1], bottom.reshape(-1, p).min(axis=0), out=bounds[1])
+            _widen_bounds(bounds, block)
     return xwe
+
+
+def _widen_bounds(bounds: np.ndarray, block: np.ndarray) -> None:
+    """Widen ``bounds`` (largest, smallest per column) to the values of a C-contiguous block
+    of rows, read as wide rows of ``_STD_WIDE`` rows each as far as they go (a reduction down a
+    few columns costs numpy's per-row overhead on every row)."""
+    k, p = block.shape
+    whole = k - k % _STD_WIDE
+    if whole:
+        wide = block[:whole].reshape(-1, _STD_WIDE * p)
+        np.maximum(bounds[0], wide.max(axis=0).reshape(-1, p).max(axis=0), out=bounds[0])
+        np.minimum(bounds[1], wide.min(axis=0).reshape(-1, p).min(axis=0), out=bounds[1])
+    if whole < k:
+        rest = block[whole:]
+        np.maximum(bounds[0], rest.max(axis=0), out=bounds[0])
+        np.minimum(bounds[1], rest.min(axis=0), out=bounds[1])
