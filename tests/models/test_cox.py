@@ -1064,7 +1064,7 @@ def test_replicate_refits_from_the_shared_start_equal_a_newton_fit_to_1e_13(
             arrays = _drawn(days, rows, weights)
             layout = prepare_layout(arrays["time"], arrays["event"], entry=arrays["entry"],
                                     strata=arrays["strata"], weights=weights)
-            got = refit_replicate(start, rows, layout, with_loglik=True)
+            got = refit_replicate(start, X, rows, layout, with_loglik=True)
             ref = fit_cox(X[rows], ties=ties, tol=1e-13, **arrays)
             assert ref.converged and got is not None
             assert float(np.abs(X[rows] @ (got[0] - ref.coef)).max()) <= 1e-8
@@ -1082,7 +1082,7 @@ def test_replicate_refit_from_the_shared_start_matches_lifelines(days: pd.DataFr
     arrays = _drawn(days, m, w)
     layout = prepare_layout(arrays["time"], arrays["event"], entry=arrays["entry"],
                             strata=arrays["strata"], weights=w)
-    got = refit_replicate(start, m, layout)
+    got = refit_replicate(start, _x(days), m, layout)
     rows = days.iloc[m][COLS + ["T", "E", "S", "entry"]].assign(W=w)
     cph = CoxPHFitter().fit(rows, "T", "E", weights_col="W", entry_col="entry", strata=["S"],
                             fit_options=TIGHT)
@@ -1104,14 +1104,44 @@ def test_replicate_refit_declines_where_a_column_is_constant(days: pd.DataFrame)
     arrays = _drawn(days, m, days["W"].to_numpy(float)[m])
     layout = prepare_layout(arrays["time"], arrays["event"], entry=arrays["entry"],
                             strata=arrays["strata"], weights=arrays["weights"])
-    assert refit_replicate(start, m, layout) is None
+    assert refit_replicate(start, X, m, layout) is None
     ref = fit_cox(X[m], **arrays)
     assert not ref.converged and "singular" in ref.message
     with pytest.raises(ValueError, match="prepared for"):
-        refit_replicate(start, m[:-1], layout)
+        refit_replicate(start, X, m[:-1], layout)
+    with pytest.raises(ValueError, match="pass the same design"):
+        refit_replicate(start, X[:, :2], m, layout)
     far = dataclasses.replace(start, beta=start.beta + 5.0)
     m2, w2 = _replicate(days, 2)
     arrays2 = _drawn(days, m2, w2)
     layout2 = prepare_layout(arrays2["time"], arrays2["event"], entry=arrays2["entry"],
                              strata=arrays2["strata"], weights=w2)
-    assert refit_replicate(far, m2, layout2, max_iter=3) is None
+    assert refit_replicate(far, X, m2, layout2, max_iter=3) is None
+
+
+def test_shared_starts_are_kept_per_design_without_keeping_the_design_alive(
+    days: pd.DataFrame,
+) -> None:
+    """``cox_near_starts`` prepares a design's start once for every chunk of replicates (the
+    same object back for the same array and start, a new one for another start), and its
+    cache in the outcome does not keep the design alive once the caller drops it (a table's
+    designs at registry size are hundreds of MB). Behaviour of the cache (no statistical
+    reference)."""
+    import gc
+    import weakref
+
+    from unbin.models.weighted import cox_near_starts
+
+    o = Outcome("survival", days["E"].to_numpy(float), time=days["T"].to_numpy(float),
+                entry=days["entry"].to_numpy(float), strata=days["S"].to_numpy(),
+                weights=days["W"].to_numpy(float))
+    X = np.ascontiguousarray(_x(days))
+    coef, _ = _full_start(days, "efron")
+    first = cox_near_starts(o, [X], [coef])[0]
+    assert first is not None
+    assert cox_near_starts(o, [X], [coef])[0] is first
+    assert cox_near_starts(o, [X], [coef + 0.01])[0] is not first
+    alive = weakref.ref(X)
+    del X
+    gc.collect()
+    assert alive() is None

@@ -24,6 +24,7 @@ A replicate is then the full-sample computation applied to the drawn data set: i
 
 from __future__ import annotations
 
+import weakref
 from collections.abc import Callable, Iterator, Sequence
 from typing import TYPE_CHECKING, Any
 
@@ -448,7 +449,7 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
     starts = cox_near_starts(outcome, [X for X, _ in designs], inits)
     for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
         for j, (X, init, near, out) in enumerate(zip(Xs, inits, starts, outs, strict=True)):
-            got = refit_replicate(near, m, layout) if near is not None else None
+            got = refit_replicate(near, X, m, layout) if near is not None else None
             Xm: np.ndarray | None = None
             if got is not None:
                 coef = got[0]
@@ -475,7 +476,8 @@ def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
     (``unbin.models.cox.near_start``: the centring and scaling, the start and the full
     sample's information there), on the full sample's Cox layout with its case weights;
     None for a design without a start (or where it cannot be prepared). Kept in
-    ``outcome.cache`` for the next chunk of replicates of the same design and start."""
+    ``outcome.cache`` for the next chunk of replicates of the same design (the same array
+    object, held by a weak reference) and start."""
     from .cox import near_start, prepare_layout
 
     assert outcome.time is not None
@@ -489,7 +491,7 @@ def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
         except ValueError:
             outcome.cache[_NEAR_LAYOUT] = None
     layout = outcome.cache[_NEAR_LAYOUT]
-    known: dict[int, tuple[np.ndarray, np.ndarray, NearStart | None]] = \
+    known: dict[int, tuple[weakref.ref[Any], np.ndarray, NearStart | None]] = \
         outcome.cache.setdefault(_NEAR_STARTS, {})
     out: list[NearStart | None] = []
     for X, init in zip(Xs, inits, strict=True):
@@ -497,14 +499,19 @@ def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
             out.append(None)
             continue
         seen = known.get(id(X))
-        if seen is not None and seen[0] is X and np.array_equal(seen[1], init):
+        if seen is not None and seen[0]() is X and np.array_equal(seen[1], init):
             out.append(seen[2])
             continue
         try:
             start = near_start(np.asarray(X, dtype=float).reshape(outcome.n, -1), init, layout)
         except ValueError:
             start = None
-        known[id(X)] = (X, np.array(init, dtype=float), start)  # X kept: its id stays its own
+        # the design by a weak reference: the cache must not keep a table's designs alive
+        # once the table is done (a dead reference marks an id that may be reused)
+        try:
+            known[id(X)] = (weakref.ref(X), np.array(init, dtype=float), start)
+        except TypeError:  # not an object a weak reference can follow: not kept
+            pass
         out.append(start)
     return out
 

@@ -361,7 +361,7 @@ class _Designs:
             # secant steps from the full-sample estimate, as the design's own model's refit
             # (models.weighted.weighted_cox_designs); Newton's fit where they do not settle
             near = cox_near_starts(oc, [it.X], [full.coef])[0]
-            got = None if near is None else refit_replicate(near, m, lay)
+            got = None if near is None else refit_replicate(near, it.X, m, lay)
             coef_c = None if got is None else got[0]
             if coef_c is None:
                 fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,

@@ -159,7 +159,7 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
             # secant steps from the full-sample estimate (its information scaled); the
             # full fit where they do not settle (or the model has no columns)
             start = starts[j]
-            near = None if start is None else refit_replicate(start, m, layout,
+            near = None if start is None else refit_replicate(start, mod.X, m, layout,
                                                               with_loglik=True)
             if near is not None:
                 out[j][b] = near[1]

@@ -613,7 +613,7 @@ class NearStart:
     (their difference is of the order of the replicate's sampling error, which the secant
     updates correct; the score is always the replicate's own, so the maximum is too)."""
 
-    X: np.ndarray  # (n, p) the full sample's design, C-contiguous
+    n: int  # rows of the full sample (the design itself is the caller's: not kept here)
     mean: np.ndarray  # (p,) centre of each column
     scale: np.ndarray  # (p,) its standard deviation (1 for a constant column)
     beta: np.ndarray  # (p,) the start on the standardised scale
@@ -644,7 +644,8 @@ def near_start(
     D = _replicate_design(Xa, None, L, mean, 1.0 / scale)[0]
     ll, _, info = _evaluate(L, D, beta, efron)
     H = inverse_information(info) if np.isfinite(ll) else None
-    return NearStart(Xa, mean, scale, beta, None if H is None else H * _event_weight(L), efron)
+    return NearStart(Xa.shape[0], mean, scale, beta, None if H is None else H * _event_weight(L),
+                     efron)
 
 
 def _event_weight(L: Layout) -> float:
@@ -666,10 +667,12 @@ def _replicate_design(
 
 
 def refit_replicate(
-    start: NearStart, rows: np.ndarray, layout: Layout, *, tol: float = 1e-9,
+    start: NearStart, X: Any, rows: np.ndarray, layout: Layout, *, tol: float = 1e-9,
     max_iter: int = 50, with_loglik: bool = False,
 ) -> tuple[np.ndarray, float] | None:
-    """The Cox refit of one replicate of ``start``'s sample: its drawn rows ``rows`` (indices
+    """The Cox refit of one replicate of ``start``'s sample (``X``: the full sample's design
+    that ``start`` was prepared from; a C-contiguous float array is read in place, anything
+    else copied per call): its drawn rows ``rows`` (indices
     into the full sample, a row drawn k times repeated k times) laid out in ``layout``
     (``prepare_layout`` of those rows, with their case weights), by :func:`refit_near`'s secant
     steps from the full-sample estimate, without a copy of the replicate's design rows or
@@ -679,10 +682,16 @@ def refit_replicate(
     the steps do not settle, the likelihood falls or a column is constant among the
     replicate's rows (the caller then fits with ``fit_cox``, which reports that)."""
     L = _given_layout(layout, rows.size)
+    Xa = np.ascontiguousarray(X, dtype=float)
+    if Xa.shape != (start.n, start.mean.size):
+        raise ValueError(
+            f"X has shape {Xa.shape} but the start was prepared from a design of shape "
+            f"({start.n}, {start.mean.size}); pass the same design as to near_start"
+        )
     if L.events == 0:
         return None
     inv = 1.0 / start.scale
-    D, bounds = _replicate_design(start.X, rows, L, start.mean, inv)
+    D, bounds = _replicate_design(Xa, rows, L, start.mean, inv)
     # a column constant among the replicate's rows (as fit_cox's test, on the standardised
     # scale) makes its information singular
     top = np.maximum(np.abs(bounds[0]), np.abs(bounds[1])) + np.abs(start.mean) * inv
