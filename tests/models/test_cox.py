@@ -12,6 +12,8 @@ leave coefficient errors near 1e-6, which is the tolerance of the comparison its
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -25,6 +27,7 @@ from helpers import brute_pair_c, tied_survival_design
 from unbin.models.base import Outcome
 from unbin.models.cox import (
     CoxFit,
+    NearStart,
     baseline_cumhaz,
     concordance,
     concordance_order,
@@ -1037,7 +1040,7 @@ def test_secant_steps_need_fewer_scores_than_chord_steps(
     for seed in range(8):
         Xm, secant, ref, got, _ = _replicate_fits(small, seed, "efron")
         with monkeypatch.context() as mp:
-            mp.setattr(engine, "_secant_update", lambda B, factor, step, y: (B, factor))
+            mp.setattr(engine, "secant_update", lambda H, step, y: H)
             _, chord, _, got_chord, _ = _replicate_fits(small, seed, "efron")
         assert got is not None and got_chord is not None
         assert float(np.abs(Xm @ (got - ref.coef)).max()) <= 1e-8
@@ -1045,3 +1048,132 @@ def test_secant_steps_need_fewer_scores_than_chord_steps(
         assert len(secant) <= len(chord)
         fewer += len(secant) < len(chord)
     assert fewer >= 3
+
+
+# ------------------------------- refits of replicates sharing the full sample's design and start
+
+
+def _full_start(df: pd.DataFrame, ties: str) -> tuple[np.ndarray, NearStart]:
+    """The full sample's estimate (weights ``W``, strata, delayed entry) and what its
+    replicates' refits share (``near_start`` on the full sample's layout)."""
+    from unbin.models.cox import near_start
+
+    X = _x(df)
+    kw = {"entry": df["entry"].to_numpy(float), "strata": df["S"].to_numpy(),
+          "weights": df["W"].to_numpy(float)}
+    full = fit_cox(X, df["T"], df["E"], ties=ties, **kw)  # type: ignore[arg-type]
+    start = near_start(X, full.coef, prepare_layout(df["T"], df["E"], **kw), ties=ties)
+    assert start is not None and start.H is not None
+    return full.coef, start
+
+
+def _drawn(df: pd.DataFrame, rows: np.ndarray, weights: np.ndarray) -> dict[str, np.ndarray]:
+    return {"time": df["T"].to_numpy(float)[rows], "event": df["E"].to_numpy(float)[rows],
+            "entry": df["entry"].to_numpy(float)[rows], "strata": df["S"].to_numpy()[rows],
+            "weights": weights}
+
+
+@pytest.mark.parametrize("ties", ["efron", "breslow"])
+def test_replicate_refits_from_the_shared_start_equal_a_newton_fit_to_1e_13(
+    days: pd.DataFrame, ties: str
+) -> None:
+    """``refit_replicate`` (the full sample's standardisation and information, scaled, shared
+    by the replicates) on bootstrap replicates of the tied, stratified, late-entry cohort:
+    (a) count weights on the rows drawn at least once (the rows drawn 0 times are absent) and
+    (b) the drawn rows repeated as often as drawn (Efron: copies tie with each other), gives
+    the engine's own Newton fit to tol 1e-13 (the reference) on every row's linear predictor
+    to 1e-8, and, with the log partial likelihood, the reference's log partial likelihood."""
+    from unbin.models.cox import refit_replicate
+
+    _, start = _full_start(days, ties)
+    X = _x(days)
+    w_all = days["W"].to_numpy(float)
+    for seed in range(4):
+        m, w = _replicate(days, seed)  # (a): counts x W as case weights
+        counts = np.random.default_rng(seed).multinomial(len(days), np.full(len(days), 1 / 6000))
+        rep = np.repeat(np.arange(len(days)), counts)  # (b): rows repeated, weights W
+        for rows, weights in ((m, w), (rep, w_all[rep])):
+            arrays = _drawn(days, rows, weights)
+            layout = prepare_layout(arrays["time"], arrays["event"], entry=arrays["entry"],
+                                    strata=arrays["strata"], weights=weights)
+            got = refit_replicate(start, X, rows, layout, with_loglik=True)
+            ref = fit_cox(X[rows], ties=ties, tol=1e-13, **arrays)
+            assert ref.converged and got is not None
+            assert float(np.abs(X[rows] @ (got[0] - ref.coef)).max()) <= 1e-8
+            assert got[1] == pytest.approx(ref.loglik, rel=1e-12, abs=1e-9)
+        assert not np.array_equal(np.unique(rep), np.arange(len(days)))  # some counts are 0
+
+
+def test_replicate_refit_from_the_shared_start_matches_lifelines(days: pd.DataFrame) -> None:
+    # source: lifelines CoxPHFitter(weights_col=, strata=, entry_col=) on the replicate's rows
+    # with their count weights (Efron ties), fitted to lifelines' tightest precision
+    from unbin.models.cox import refit_replicate
+
+    _, start = _full_start(days, "efron")
+    m, w = _replicate(days, 11)
+    arrays = _drawn(days, m, w)
+    layout = prepare_layout(arrays["time"], arrays["event"], entry=arrays["entry"],
+                            strata=arrays["strata"], weights=w)
+    got = refit_replicate(start, _x(days), m, layout)
+    rows = days.iloc[m][COLS + ["T", "E", "S", "entry"]].assign(W=w)
+    cph = CoxPHFitter().fit(rows, "T", "E", weights_col="W", entry_col="entry", strata=["S"],
+                            fit_options=TIGHT)
+    assert got is not None
+    np.testing.assert_allclose(got[0], cph.params_.to_numpy(), rtol=1e-6)
+
+
+def test_replicate_refit_declines_where_a_column_is_constant(days: pd.DataFrame) -> None:
+    """A replicate in which the binary column x2 is 0 on every drawn row: its coefficient is
+    not estimable there (``fit_cox`` on the replicate says the information is singular, the
+    reference), and ``refit_replicate`` returns None (its caller then fits with ``fit_cox``)
+    instead of an arbitrary value along the flat direction; a start from far off is declined
+    too."""
+    from unbin.models.cox import refit_replicate
+
+    coef, start = _full_start(days, "efron")
+    X = _x(days)
+    m = np.flatnonzero(days["x2"].to_numpy() == 0)[::2]
+    arrays = _drawn(days, m, days["W"].to_numpy(float)[m])
+    layout = prepare_layout(arrays["time"], arrays["event"], entry=arrays["entry"],
+                            strata=arrays["strata"], weights=arrays["weights"])
+    assert refit_replicate(start, X, m, layout) is None
+    ref = fit_cox(X[m], **arrays)
+    assert not ref.converged and "singular" in ref.message
+    with pytest.raises(ValueError, match="prepared for"):
+        refit_replicate(start, X, m[:-1], layout)
+    with pytest.raises(ValueError, match="pass the same design"):
+        refit_replicate(start, X[:, :2], m, layout)
+    far = dataclasses.replace(start, beta=start.beta + 5.0)
+    m2, w2 = _replicate(days, 2)
+    arrays2 = _drawn(days, m2, w2)
+    layout2 = prepare_layout(arrays2["time"], arrays2["event"], entry=arrays2["entry"],
+                             strata=arrays2["strata"], weights=w2)
+    assert refit_replicate(far, X, m2, layout2, max_iter=3) is None
+
+
+def test_shared_starts_are_kept_per_design_without_keeping_the_design_alive(
+    days: pd.DataFrame,
+) -> None:
+    """``cox_near_starts`` prepares a design's start once for every chunk of replicates (the
+    same object back for the same array and start, a new one for another start), and its
+    cache in the outcome does not keep the design alive once the caller drops it (a table's
+    designs at registry size are hundreds of MB). Behaviour of the cache (no statistical
+    reference)."""
+    import gc
+    import weakref
+
+    from unbin.models.weighted import cox_near_starts
+
+    o = Outcome("survival", days["E"].to_numpy(float), time=days["T"].to_numpy(float),
+                entry=days["entry"].to_numpy(float), strata=days["S"].to_numpy(),
+                weights=days["W"].to_numpy(float))
+    X = np.ascontiguousarray(_x(days))
+    coef, _ = _full_start(days, "efron")
+    first = cox_near_starts(o, [X], [coef])[0]
+    assert first is not None
+    assert cox_near_starts(o, [X], [coef])[0] is first
+    assert cox_near_starts(o, [X], [coef + 0.01])[0] is not first
+    alive = weakref.ref(X)
+    del X
+    gc.collect()
+    assert alive() is None

@@ -38,7 +38,7 @@ import numpy as np
 import pandas as pd
 from scipy import linalg
 
-from .cox.fit import _secant_update, newton_step
+from .cox.fit import inverse_information, newton_step, secant_refit
 
 
 @dataclass(frozen=True)
@@ -352,7 +352,8 @@ def fit_near(L: Layout, X: np.ndarray, init: np.ndarray, *, ties: str = "efron",
     started at the full-sample estimate ``init``), as the Cox engine's
     ``unbin.models.cox.refit_near``: one Newton step with the information at ``init``, then
     steps that evaluate only the log partial likelihood and the score, the information
-    corrected by a secant (BFGS) update from each step. Stops when the next step would change
+    corrected by a secant (BFGS) update from each step (the engine's driver,
+    ``unbin.models.cox.fit.secant_refit``). Stops when the next step would change
     no row's linear predictor by more than ``10 * tol`` (that step is taken): a tenth of
     :func:`fit`'s bound, because the refits this replaces were Newton's, whose last step
     leaves an error far below the bound, while a secant step leaves a fraction of it (at
@@ -368,27 +369,22 @@ def fit_near(L: Layout, X: np.ndarray, init: np.ndarray, *, ties: str = "efron",
         return None
     beta = init * scale
     ll, score, info = _evaluate(L, Xs, beta, efron)
-    if not (np.isfinite(ll) and np.isfinite(score).all() and np.isfinite(info).all()):
+    if not (np.isfinite(ll) and np.isfinite(score).all()):
         return None
-    try:
-        factor = linalg.cho_factor(info, check_finite=False)
-    except linalg.LinAlgError:
+    H = inverse_information(info)
+    if H is None:
         return None
     settle = 10.0 * tol
-    for _ in range(max_iter):
-        step = linalg.cho_solve(factor, score, check_finite=False)
-        if not np.isfinite(step).all():
-            return None
-        beta = beta + step
-        if float(np.abs(Xs @ step).max()) <= settle:
-            return np.asarray(beta / scale)
-        pt = _point(L, Xs, beta, efron)
-        if not np.isfinite(pt.loglik) or pt.loglik < ll - tol * max(1.0, abs(ll)):
-            return None
-        score_next = _score(L, Xs, pt)
-        info, factor = _secant_update(info, factor, step, score - score_next)
-        ll, score = pt.loglik, score_next
-    return None
+
+    def score_at(b: np.ndarray) -> tuple[float, np.ndarray]:
+        pt = _point(L, Xs, b, efron)
+        if not np.isfinite(pt.loglik):
+            return pt.loglik, score
+        return pt.loglik, _score(L, Xs, pt)
+
+    end = secant_refit(beta, ll, score, H, score_at,
+                       lambda step: float(np.abs(Xs @ step).max()) <= settle, tol, max_iter)
+    return None if end is None else np.asarray(end / scale)
 
 
 def fit(L: Layout, X: np.ndarray, *, ties: str = "efron", init: np.ndarray | None = None,

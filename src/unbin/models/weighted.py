@@ -24,6 +24,7 @@ A replicate is then the full-sample computation applied to the drawn data set: i
 
 from __future__ import annotations
 
+import weakref
 from collections.abc import Callable, Iterator, Sequence
 from typing import TYPE_CHECKING, Any
 
@@ -34,7 +35,7 @@ from ._glm import gram, standardise
 from .base import Outcome
 
 if TYPE_CHECKING:
-    from .cox import Layout
+    from .cox import Layout, NearStart
 
 _CHUNK_CELLS = 4_000_000
 _WHOLE_ROWS = 50_000
@@ -433,10 +434,11 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
     designs share the replicates, so each replicate's repeated rows and their Cox layout (the
     sort and the risk sets, ``unbin.models.cox.prepare_layout``) are made once and every design is
     fitted on them. A design with a start is refitted by secant steps from it
-    (``unbin.models.cox.refit_near``), falling back to ``fit_cox`` when those do not settle.
+    (``unbin.models.cox.refit_replicate``, with what the replicates share prepared once,
+    :func:`cox_near_starts`), falling back to ``fit_cox`` when those do not settle.
     ``on_fit(b, j, Xm, m, layout, coef)`` is called after each successful fit of design ``j``
     in replicate ``b`` (``m`` the repeated row indices, ``Xm`` their design rows)."""
-    from .cox import fit_cox, refit_near
+    from .cox import fit_cox, refit_replicate
 
     assert outcome.time is not None
     Xs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X, _ in designs]
@@ -444,11 +446,15 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
              for _, start in designs]
     W = np.atleast_2d(W)
     outs = [np.full((W.shape[0], X.shape[1]), np.nan) for X in Xs]
+    starts = cox_near_starts(outcome, [X for X, _ in designs], inits)
     for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
-        for j, (X, init, out) in enumerate(zip(Xs, inits, outs, strict=True)):
-            Xm = X[m]
-            coef = refit_near(Xm, layout, init) if init is not None else None
-            if coef is None:
+        for j, (X, init, near, out) in enumerate(zip(Xs, inits, starts, outs, strict=True)):
+            got = refit_replicate(near, X, m, layout) if near is not None else None
+            Xm: np.ndarray | None = None
+            if got is not None:
+                coef = got[0]
+            else:
+                Xm = X[m]
                 try:  # far from the start, or not settling: the full fit decides (the layout
                     # carries the case weights)
                     fitted = fit_cox(Xm, time, event, entry=entry, strata=strata, init=init,
@@ -460,8 +466,58 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
                 coef = fitted.coef
             out[b] = coef
             if on_fit is not None:
-                on_fit(b, j, Xm, m, layout, coef)
+                on_fit(b, j, X[m] if Xm is None else Xm, m, layout, coef)
     return outs
+
+
+def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
+                    inits: Sequence[np.ndarray | None]) -> list[NearStart | None]:
+    """Per design (rows of ``outcome``), what its replicates' secant refits share
+    (``unbin.models.cox.near_start``: the centring and scaling, the start and the full
+    sample's information there), on the full sample's Cox layout with its case weights;
+    None for a design without a start (or where it cannot be prepared). Kept in
+    ``outcome.cache`` for the next chunk of replicates of the same design (the same array
+    object, held by a weak reference) and start."""
+    from .cox import near_start, prepare_layout
+
+    assert outcome.time is not None
+    if all(init is None for init in inits):
+        return [None] * len(Xs)
+    if _NEAR_LAYOUT not in outcome.cache:
+        try:
+            outcome.cache[_NEAR_LAYOUT] = prepare_layout(
+                outcome.time, outcome.y, entry=outcome.entry, strata=outcome.strata,
+                weights=_base_weights(outcome))
+        except ValueError:
+            outcome.cache[_NEAR_LAYOUT] = None
+    layout = outcome.cache[_NEAR_LAYOUT]
+    known: dict[int, tuple[weakref.ref[Any], np.ndarray, NearStart | None]] = \
+        outcome.cache.setdefault(_NEAR_STARTS, {})
+    out: list[NearStart | None] = []
+    for X, init in zip(Xs, inits, strict=True):
+        if init is None or layout is None:
+            out.append(None)
+            continue
+        seen = known.get(id(X))
+        if seen is not None and seen[0]() is X and np.array_equal(seen[1], init):
+            out.append(seen[2])
+            continue
+        try:
+            start = near_start(np.asarray(X, dtype=float).reshape(outcome.n, -1), init, layout)
+        except ValueError:
+            start = None
+        # the design by a weak reference: the cache must not keep a table's designs alive
+        # once the table is done (a dead reference marks an id that may be reused)
+        try:
+            known[id(X)] = (weakref.ref(X), np.array(init, dtype=float), start)
+        except TypeError:  # not an object a weak reference can follow: not kept
+            pass
+        out.append(start)
+    return out
+
+
+_NEAR_LAYOUT = "cox_near_layout"
+_NEAR_STARTS = "cox_near_starts"
 
 
 # -- robust Wald statistics of the replicates ----------------------------------------------------

@@ -75,12 +75,13 @@ import pandas as pd
 
 from ..models import EFFECT_SCALE, fit
 from ..models.base import FitResult, Outcome
-from ..models.cox import Layout, fit_cox, prepare_layout, refit_near
+from ..models.cox import Layout, fit_cox, prepare_layout, refit_replicate
 from ..models.percentile_limits import percentile_limits
 from ..models.survival import cox_layout
 from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
+    cox_near_starts,
     design_resample_weights,
     replicate_copies,
     replicate_rows,
@@ -343,7 +344,7 @@ class _Designs:
         strata = None if o.strata is None else o.strata[m]
         cause = o.cause[m]
         coefs, lays = [coef], []
-        for c, full in zip(self.causes[1:], it.others, strict=True):
+        for c, full, oc in zip(self.causes[1:], it.others, self._cause_outcomes, strict=True):
             if not full.ok:
                 return np.full(2, np.nan)
             if (b, c) not in layouts:
@@ -359,7 +360,9 @@ class _Designs:
                 return np.full(2, np.nan)
             # secant steps from the full-sample estimate, as the design's own model's refit
             # (models.weighted.weighted_cox_designs); Newton's fit where they do not settle
-            coef_c = refit_near(Xm, lay, full.coef)
+            near = cox_near_starts(oc, [it.X], [full.coef])[0]
+            got = None if near is None else refit_replicate(near, it.X, m, lay)
+            coef_c = None if got is None else got[0]
             if coef_c is None:
                 fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,
                                  strata=strata, weights=case, init=full.coef, layout=lay)

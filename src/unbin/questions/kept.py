@@ -26,7 +26,7 @@ as in the full sample (the spline was fixed before the outcome was seen; the cut
 Refits: the linear, logistic and Poisson models by the vectorised Newton solver on frequency
 weights (``unbin.models.weighted.WeightedGLM``), started at the full-sample estimate; Cox models
 on the drawn rows repeated as often as drawn (Efron ties), started there too, by quasi-Newton
-(secant) steps (``unbin.models.cox.refit_near_loglik``; ``unbin.models.cox.fit_cox`` where
+(secant) steps (``unbin.models.cox.refit_replicate``; ``unbin.models.cox.fit_cox`` where
 they do not settle; a repeated row counts as tied events, as in the full-sample likelihood). The replicate
 log-likelihoods are the frequency-weighted ones: logistic sum w (y eta - log(1 + e^eta)); Poisson
 sum w (y eta - mu) (the log y! term cancels in the LR); linear -N/2 log(RSS / N) with N = sum w
@@ -49,6 +49,7 @@ from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
+    cox_near_starts,
     cox_robust_wald,
     design_resample_weights,
     glm_robust_wald,
@@ -134,16 +135,18 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
                  robust: bool = False) -> list[np.ndarray]:
     """Per model, each replicate's log partial likelihood, or (``robust``) the robust Wald
     statistic of its exposure with the replicate's own sandwich."""
-    from ..models.cox import fit_cox, refit_near_loglik
+    from ..models.cox import fit_cox, refit_replicate
 
     out = [np.full(len(W), np.nan) for _ in models]
+    starts = [None] * len(models) if robust else cox_near_starts(
+        outcome, [mod.X for mod in models], [mod.res.coef for mod in models])
     for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
         if robust:
             case = replicate_rows(outcome, W[b])[1]
             clusters = replicate_clusters(outcome, m)
         for j, mod in enumerate(models):
-            Xm = mod.X[m]
-            if robust:  # the full fit: its inverse information is the sandwich's bread
+            if robust:
+                Xm = mod.X[m]  # the full fit: its inverse information is the sandwich's bread
                 try:
                     f = fit_cox(Xm, time, event, entry=entry, strata=strata,
                                 init=mod.res.coef, layout=layout)
@@ -153,14 +156,16 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
                     out[j][b] = cox_robust_wald(Xm, (time, event, entry, strata), case,
                                                 clusters, f.coef, f.cov, mod.k)
                 continue
-            # secant steps from the full-sample estimate (one information evaluation); the
+            # secant steps from the full-sample estimate (its information scaled); the
             # full fit where they do not settle (or the model has no columns)
-            near = refit_near_loglik(Xm, layout, mod.res.coef)
+            start = starts[j]
+            near = None if start is None else refit_replicate(start, mod.X, m, layout,
+                                                              with_loglik=True)
             if near is not None:
                 out[j][b] = near[1]
                 continue
             try:
-                f = fit_cox(Xm, time, event, entry=entry, strata=strata,
+                f = fit_cox(mod.X[m], time, event, entry=entry, strata=strata,
                             init=mod.res.coef, layout=layout)
             except ValueError:
                 continue

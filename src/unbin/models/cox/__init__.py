@@ -42,20 +42,31 @@ to try (iteration limit, singular information, diverging coefficient, non-finite
 
 from .baseline import baseline_cumhaz, predict_risk
 from .concordance import TimeOrder, concordance, concordance_order, weighted_concordance
-from .fit import CoxFit, fit_cox, refit_near, refit_near_loglik
+from .fit import (
+    CoxFit,
+    NearStart,
+    fit_cox,
+    near_start,
+    refit_near,
+    refit_near_loglik,
+    refit_replicate,
+)
 from .layout import Layout, prepare_layout
 
 __all__ = [
     "CoxFit",
     "Layout",
+    "NearStart",
     "TimeOrder",
     "baseline_cumhaz",
     "concordance",
     "concordance_order",
     "weighted_concordance",
     "fit_cox",
+    "near_start",
     "predict_risk",
     "prepare_layout",
     "refit_near",
     "refit_near_loglik",
+    "refit_replicate",
 ]

@@ -369,6 +369,7 @@ def _design_and_layout(
 
 
 _FEW_STRATA = 64  # up to this many strata, sums restart by looping over strata
+_accumulate = np.add.accumulate  # np.cumsum of a 1-D array, without its dispatch
 
 
 def _scaled(L: Layout, op: sparse.csr_matrix, r: np.ndarray) -> sparse.csr_matrix:
@@ -387,9 +388,10 @@ def _risk_sums(L: Layout, contrib: np.ndarray) -> np.ndarray:
     K, q = contrib.shape
     if L.k_bounds.size <= _FEW_STRATA + 1:
         out = np.empty((q, K))
-        for lo, hi in zip(L.k_bounds[:-1], L.k_bounds[1:], strict=True):
+        bounds = L.k_bounds.tolist()
+        for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
             for j in range(q):  # one 1-D pass per column: faster than a 2-D cumsum here
-                np.cumsum(contrib[lo:hi][::-1, j], out=out[j, lo:hi][::-1])
+                _accumulate(contrib[lo:hi][::-1, j], out=out[j, lo:hi][::-1])
         return out
     # many strata: restarted per stratum by subtracting the later strata's total; in extended
     # precision so that those totals do not swamp a stratum's small late risk sets
@@ -402,8 +404,9 @@ def _forward_cum(L: Layout, c: np.ndarray) -> np.ndarray:
     """Cumulative sum of ``c`` over event times within each stratum, zero-padded in front."""
     out = np.zeros(c.size + 1)
     if L.k_bounds.size <= _FEW_STRATA + 1:
-        for lo, hi in zip(L.k_bounds[:-1], L.k_bounds[1:], strict=True):
-            np.cumsum(c[lo:hi], out=out[lo + 1 : hi + 1])
+        bounds = L.k_bounds.tolist()
+        for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
+            _accumulate(c[lo:hi], out=out[lo + 1 : hi + 1])
         return out
     cum = np.concatenate([[0.0], np.cumsum(c.astype(np.longdouble))])
     out[1:] = cum[1:] - cum[L.seg_start]

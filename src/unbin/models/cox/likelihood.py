@@ -91,7 +91,7 @@ def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -
     with np.errstate(divide="ignore", invalid="ignore"):
         log_s0 = np.log(s0)
         if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
-            tied_sums = _scaled(L, L.tie_op, r) @ X1 if with_x else L.tie_op @ r
+            tied_sums = _scaled(L, L.tie_op, r) @ X1 if with_x else _per_tied_time(L, r[L.tie_ev])
             t0 = tied_sums[:, 0] if with_x else tied_sums
             den = s0[L.tie_at] - L.tie_f * t0[L.tie_grp]
             loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
@@ -244,12 +244,10 @@ def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.nd
     X1[:, 0] = 1.0
     if m == 0 or p == 0:
         return _Design.of(X1, L.we, np.zeros(p)), np.ones(p), np.zeros(p)
-    item = np.dtype((np.void, 8 * p))
     rows: np.ndarray | None = None
     if Xa.flags.c_contiguous and Xa.shape[0] == m:
         src = Xa
         rows = L.order
-        items = Xa.view(item).reshape(m)
     elif Xa.flags.f_contiguous and not Xa.flags.c_contiguous:  # e.g. from a data frame
         cols = np.empty((p, m))
         for j in range(p):  # gather column by column: each column is contiguous
@@ -261,18 +259,37 @@ def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.nd
     sd[sd <= 1e-12 * np.maximum(1.0, np.abs(mean))] = 0.0  # constant up to rounding
     scale = np.where(sd > 0, sd, 1.0)
     inv = 1.0 / scale
+    xwe = _write_standardised(X1, src, rows, mean, inv, L.we)
+    reach = np.maximum(hi - mean, mean - lo) * inv
+    return _Design.of(X1, L.we, reach, xwe), scale, sd
+
+
+def _write_standardised(
+    X1: np.ndarray, src: np.ndarray, rows: np.ndarray | None, mean: np.ndarray,
+    inv: np.ndarray, we: np.ndarray, bounds: np.ndarray | None = None,
+) -> np.ndarray:
+    """Write ``(src[rows] - mean) * inv`` (``src`` itself when ``rows`` is None) into columns
+    1..p of ``X1`` and return the events' summed ``we x`` (see :func:`_standardised`); ``src``
+    C-contiguous when ``rows`` is given. ``bounds`` (2, p), when given, receives the largest
+    and the smallest value written in each column (while each block is in cache)."""
+    m, p = X1.shape[0], X1.shape[1] - 1
+    item = np.dtype((np.void, 8 * p))
+    items = None if rows is None else src.view(item).reshape(src.shape[0])
     # X1's columns 1..p of each row, as one opaque item per row
     out = np.ndarray((m,), dtype=item, buffer=X1, offset=X1.itemsize, strides=(X1.strides[0],))
     buf = np.empty((min(m, _STD_BLOCK), p))
     buf_items = buf.view(item).reshape(buf.shape[0])
     mean_wide, inv_wide = np.tile(mean, _STD_WIDE), np.tile(inv, _STD_WIDE)
     xwe = np.zeros(p)  # the events' summed w x, while each block is in cache
+    if bounds is not None:
+        bounds[0], bounds[1] = -np.inf, np.inf
     for start in range(0, m, _STD_BLOCK):
         k = min(_STD_BLOCK, m - start)
         block = buf[:k]
-        if rows is None:
+        if items is None:
             block[:] = src[start : start + k]
         else:
+            assert rows is not None
             np.take(items, rows[start : start + k], out=buf_items[:k], mode="clip")
         if k == _STD_BLOCK:
             wide = buf.reshape(-1, _STD_WIDE * p)
@@ -282,6 +299,23 @@ def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.nd
             block -= mean
             block *= inv
         out[start : start + k] = buf_items[:k]
-        xwe += L.we[start : start + k] @ block
-    reach = np.maximum(hi - mean, mean - lo) * inv
-    return _Design.of(X1, L.we, reach, xwe), scale, sd
+        xwe += we[start : start + k] @ block
+        if bounds is not None:
+            _widen_bounds(bounds, block)
+    return xwe
+
+
+def _widen_bounds(bounds: np.ndarray, block: np.ndarray) -> None:
+    """Widen ``bounds`` (largest, smallest per column) to the values of a C-contiguous block
+    of rows, read as wide rows of ``_STD_WIDE`` rows each as far as they go (a reduction down a
+    few columns costs numpy's per-row overhead on every row)."""
+    k, p = block.shape
+    whole = k - k % _STD_WIDE
+    if whole:
+        wide = block[:whole].reshape(-1, _STD_WIDE * p)
+        np.maximum(bounds[0], wide.max(axis=0).reshape(-1, p).max(axis=0), out=bounds[0])
+        np.minimum(bounds[1], wide.min(axis=0).reshape(-1, p).min(axis=0), out=bounds[1])
+    if whole < k:
+        rest = block[whole:]
+        np.maximum(bounds[0], rest.max(axis=0), out=bounds[0])
+        np.minimum(bounds[1], rest.min(axis=0), out=bounds[1])
