@@ -38,7 +38,7 @@ import numpy as np
 import pandas as pd
 from scipy import linalg
 
-from .cox.fit import inverse_information, newton_step, secant_refit
+from .cox.fit import newton_step, secant_refit, secant_start
 
 
 @dataclass(frozen=True)
@@ -369,9 +369,7 @@ def fit_near(L: Layout, X: np.ndarray, init: np.ndarray, *, ties: str = "efron",
         return None
     beta = init * scale
     ll, score, info = _evaluate(L, Xs, beta, efron)
-    if not (np.isfinite(ll) and np.isfinite(score).all()):
-        return None
-    H = inverse_information(info)
+    H = secant_start(ll, score, info)
     if H is None:
         return None
     settle = 10.0 * tol

@@ -506,6 +506,15 @@ def inverse_information(info: np.ndarray) -> np.ndarray | None:
     return upper + np.triu(inv, 1).T
 
 
+def secant_start(ll: float, score: np.ndarray, info: np.ndarray) -> np.ndarray | None:
+    """The inverse information a secant refit starts from, given the log partial likelihood,
+    score and information at its start; None when any of them is not finite or the
+    information is not positive definite (the refit is then declined)."""
+    if not (np.isfinite(ll) and np.isfinite(score).all()):
+        return None
+    return inverse_information(info)
+
+
 # One secant refit's evaluation at a point: its log partial likelihood and its score (the
 # score may be anything when the log partial likelihood is not finite).
 ScoreAt = Callable[[np.ndarray], tuple[float, np.ndarray]]
@@ -561,9 +570,7 @@ def _near(
     D, scale, _ = _standardised(Xa, L)
     beta = init_arr * scale
     ll, score, info = _evaluate(L, D, beta, efron)
-    if not (np.isfinite(ll) and np.isfinite(score).all()):
-        return None
-    H = inverse_information(info)
+    H = secant_start(ll, score, info)
     if H is None:
         return None
     return _near_steps(L, D, beta, ll, score, H, scale, efron, tol, max_iter, with_loglik,
