@@ -6,6 +6,8 @@
                                                      # four cohorts (seeds), and their median
     python benchmarks/cox.py --ties days --json      # the table with times in days, as JSON
                                                      # (--ties is another name of --time-unit)
+    python benchmarks/cox.py --n 200000 --p 8 --time-unit days --phases
+                                                     # where one fit's CPU time goes
 
 The data are an invented registry cohort: a biomarker with a U-shaped log hazard, age and sex;
 follow-up up to 10 years with administrative censoring and random loss. p = 2 fits the
@@ -157,6 +159,72 @@ def measure(
 
 
 
+_PHASES = (
+    ("lay out the sample", "_design_and_layout"),
+    ("standardise X", "_standardised"),
+    ("subsample start", "_warm_start"),
+    ("full-data log-likelihood and r sums", "_point"),
+    ("full-data score", "_score"),
+    ("full-data information", "_information"),
+)
+
+
+def phases(n: int, p: int, seed: int, time_unit: str, repeats: int) -> dict[str, Any]:
+    """CPU milliseconds of the parts of one ``fit_cox`` (median over ``repeats`` fits), by
+    wrapping the engine's steps in its own module while the fits run (the results are the
+    same); the evaluations count only those on the full data (the subsample's are part of its
+    start), and ``other`` is the rest of the fit (the log-likelihood at zero, Newton's steps,
+    the stopping tests)."""
+    import time
+
+    from unbin.models.cox import fit as engine
+
+    X, time_, event = simulate(n, p, seed, time_unit)
+    m = n
+    spent: dict[str, float] = {}
+    calls: dict[str, int] = {}
+    depth = [0]  # inside the subsample start, evaluations belong to it
+
+    def wrap(label: str, fn: Any, full_only: bool) -> Any:
+        def wrapped(*args: Any, **kwargs: Any) -> Any:
+            if depth[0] or (full_only and args[0].order.size != m):
+                return fn(*args, **kwargs)  # (the subsample start's own parts: in its time)
+            depth[0] += label == "subsample start"
+            start = time.process_time()
+            try:
+                return fn(*args, **kwargs)
+            finally:
+                spent[label] = spent.get(label, 0.0) + time.process_time() - start
+                calls[label] = calls.get(label, 0) + 1
+                depth[0] -= label == "subsample start"
+        return wrapped
+
+    real = {name: getattr(engine, name) for _, name in _PHASES}
+    fit_cox(X, time_, event)  # warm-up
+    per_fit: list[dict[str, float]] = []
+    try:
+        for label, name in _PHASES:
+            setattr(engine, name, wrap(label, real[name], name in ("_point", "_score",
+                                                                     "_information")))
+        for _ in range(max(1, repeats)):
+            spent.clear()
+            calls.clear()
+            seconds, _fit = timed(lambda: fit_cox(X, time_, event), "cpu")
+            row = {label: 1e3 * spent.get(label, 0.0) for label, _ in _PHASES}
+            row["other"] = 1e3 * seconds - sum(row.values())
+            row["total"] = 1e3 * seconds
+            per_fit.append(row)
+    finally:
+        for name, fn in real.items():
+            setattr(engine, name, fn)
+    labels = [label for label, _ in _PHASES] + ["other", "total"]
+    return {
+        "n": n, "p": p, "time_unit": time_unit, "seed": seed,
+        "cpu_ms": {k: statistics.median(r[k] for r in per_fit) for k in labels},
+        "calls": dict(calls),
+    }
+
+
 def markdown(rows: list[dict[str, Any]]) -> str:
     head = (
         "| n | p | events | unbin s | unbin iterations | unbin peak MiB | lifelines s "
@@ -205,6 +273,9 @@ def main(argv: list[str] | None = None) -> int:
         help="with --n: this many cohorts (seeds --seed, --seed + 1, ...), one row each and "
              "the median speed-up (how many Newton steps a fit needs varies between cohorts)",
     )
+    parser.add_argument("--phases", action="store_true",
+                        help="with --n: CPU milliseconds of the parts of one unbin fit (no "
+                             "lifelines), median of --repeats fits per cohort")
     parser.add_argument("--clock", choices=("wall", "cpu"), default="wall",
                         help="wall: elapsed seconds; cpu: this process' CPU seconds (steadier on "
                              "a shared machine)")
@@ -223,6 +294,20 @@ def main(argv: list[str] | None = None) -> int:
             clock=args.clock,
         )
 
+    if args.n is not None and args.phases:
+        parts = [phases(args.n, args.p, args.seed + i, args.time_unit, args.repeats)
+                 for i in range(args.cohorts)]
+        if args.json:
+            print(json.dumps(parts))
+            return 0
+        print("| part | " + " | ".join(f"seed {r['seed']}" for r in parts) + " |")
+        print("|---|" + "---:|" * len(parts))
+        for label in parts[0]["cpu_ms"]:
+            cells = " | ".join(f"{r['cpu_ms'][label]:.1f}" for r in parts)
+            print(f"| {label} | {cells} |")
+        print("\nCPU ms, median of", args.repeats, "fits; full-data calls per fit:",
+              parts[-1]["calls"])
+        return 0
     if args.n is not None and args.cohorts > 1:
         rows = [one(args.n, args.p, args.seed + i) for i in range(args.cohorts)]
         for r, i in zip(rows, range(args.cohorts), strict=True):

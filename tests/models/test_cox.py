@@ -1177,3 +1177,75 @@ def test_shared_starts_are_kept_per_design_without_keeping_the_design_alive(
     del X
     gc.collect()
     assert alive() is None
+
+
+def _tie_runs_sample() -> pd.DataFrame:
+    """Whole-day times with tied-event groups of 1, 2 and many (one time holds 30 events in
+    stratum 0 and 3 in stratum 1), two strata sharing event times, delayed entry exactly at
+    tied event times, and case weights (integers, which lifelines takes without warning)."""
+    rng = np.random.default_rng(4711)
+    n = 500
+    x = np.column_stack([rng.normal(size=n), rng.binomial(1, 0.5, n)])
+    stratum = rng.integers(0, 2, n)
+    latent = rng.exponential(1 / np.exp(x @ np.array([0.6, -0.5]) - 3.0 + 0.4 * stratum))
+    censor = rng.uniform(5, 60, n)
+    time = np.ceil(np.minimum(latent, censor))
+    event = (latent <= censor).astype(int)
+    many = np.r_[np.flatnonzero(stratum == 0)[:30], np.flatnonzero(stratum == 1)[:3]]
+    time[many], event[many] = 12.0, 1
+    late = rng.uniform(size=n) < 0.35
+    entry = np.where(late, np.floor(rng.uniform(0, 1, n) * time), 0.0)
+    entry[np.flatnonzero(late & (time > 12))[:15]] = 12.0  # enter at the big tied time
+    return pd.DataFrame(x, columns=["a", "b"]).assign(
+        T=time, E=event, S=stratum, entry=entry, W=rng.integers(1, 4, n)
+    )
+
+
+def test_tied_event_runs_have_every_group_size() -> None:
+    # the sample above holds what the run-based Efron sums must get right (checked, not assumed)
+    df = _tie_runs_sample()
+    d = df[df["E"] == 1].groupby(["S", "T"]).size()
+    assert {1, 2}.issubset(set(d)) and d.max() >= 30
+    shared = d.reset_index().groupby("T")["S"].nunique()
+    assert (shared > 1).sum() > 5  # event times that fall in both strata
+    assert ((df["entry"] == 12.0) & (df["T"] > 12)).sum() >= 15
+
+
+@pytest.mark.parametrize("beta", [[0.0, 0.0], [0.7, -0.4], [-1.5, 2.0]])
+def test_efron_runs_match_statsmodels_at_any_coefficients(beta: list[float]) -> None:
+    # source: statsmodels PHReg(ties="efron", strata=, entry=).loglike/score/hessian at given
+    # coefficients (not only at the maximum). statsmodels counts a row entering exactly at an
+    # event time in that risk set (ours: entry < t), so the entries are moved off by half a day
+    from unbin.models.cox.likelihood import _evaluate, _standardised
+
+    df = _tie_runs_sample()
+    entry = np.where(df["entry"] > 0, df["entry"] - 0.5, 0.0)
+    X = df[["a", "b"]].to_numpy(float)
+    ref = sm.PHReg(df["T"].to_numpy(float), X, status=df["E"].to_numpy(),
+                   strata=df["S"].to_numpy(), entry=entry, ties="efron")
+    for kwargs in ({"strata": df["S"], "entry": entry}, {"strata": df["S"]}, {}):
+        layout = prepare_layout(df["T"], df["E"], **kwargs)  # type: ignore[arg-type]
+        if len(kwargs) < 2:
+            ref = sm.PHReg(df["T"].to_numpy(float), X, status=df["E"].to_numpy(),
+                           strata=df["S"].to_numpy() if kwargs else None, ties="efron")
+        D, scale, _ = _standardised(X, layout)
+        b = np.asarray(beta)
+        ll, score, info = _evaluate(layout, D, b * scale, True)
+        assert ll == pytest.approx(ref.loglike(b), rel=1e-12)
+        # (unbin works on standardised columns: coefficients times scale, score divided by it)
+        np.testing.assert_allclose(score * scale, ref.score(b), rtol=1e-10, atol=1e-9)
+        np.testing.assert_allclose(info * np.outer(scale, scale), -ref.hessian(b), rtol=1e-10)
+
+
+def test_efron_runs_with_entry_at_tied_times_match_lifelines() -> None:
+    # source: lifelines CoxPHFitter(strata=, entry_col=, weights_col=) (Efron ties; entry < t)
+    df = _tie_runs_sample()
+    fit = fit_cox(df[["a", "b"]].to_numpy(float), df["T"], df["E"], entry=df["entry"],
+                  strata=df["S"], weights=df["W"])
+    cph = CoxPHFitter().fit(df[["a", "b", "T", "E", "S", "entry", "W"]], "T", "E",
+                            strata=["S"], entry_col="entry", weights_col="W", fit_options=TIGHT)
+    _assert_matches_lifelines(fit, cph)
+    fit = fit_cox(df[["a", "b"]].to_numpy(float), df["T"], df["E"], entry=df["entry"])
+    cph = CoxPHFitter().fit(df[["a", "b", "T", "E", "entry"]], "T", "E", entry_col="entry",
+                            fit_options=TIGHT)
+    _assert_matches_lifelines(fit, cph)

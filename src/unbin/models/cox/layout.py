@@ -41,6 +41,8 @@ class Layout:
     tie_wavg: np.ndarray  # wavg of the event time of each event in tie_ev
     tie_op: sparse.csr_matrix  # (T, m): 1 for the events at tie_k
     b_idx: np.ndarray  # b_i + 1 (index into a zero-padded cumulative array)
+    b_counts: np.ndarray  # (K,) kept rows with b_i = k (rows are sorted by b: runs of rows)
+    tie_d: np.ndarray  # (T,) events at each of tie_k (the runs of tie_ev)
     a_idx: np.ndarray  # a_i + 1 if entered after the stratum's first event time, else 0
     seg_end: np.ndarray  # (K,) one past the last event-time index of t_k's stratum
     seg_start: np.ndarray  # (K,) first event-time index of t_k's stratum
@@ -193,15 +195,15 @@ def _tie_structure(ev: np.ndarray, event_k: np.ndarray, d: np.ndarray, m: int) -
 
 
 def _risk_operator(
-    a: np.ndarray, b: np.ndarray, entered_late: np.ndarray, K: int
+    a: np.ndarray, b: np.ndarray, b_starts: np.ndarray, entered_late: np.ndarray, K: int
 ) -> sparse.csr_matrix:
     """The (K, m) risk-set operator: +1 at (b_i, i), and -1 at (a_i, i) for the rows that
-    entered after their stratum's first event time."""
+    entered after their stratum's first event time. ``b_starts``: the first row with each
+    b (rows are sorted by b), then m."""
     m = b.size
     n_late = int(entered_late.sum())
-    if n_late == 0:  # rows are sorted by b: the operator's rows are runs of consecutive rows
-        indptr = np.searchsorted(b, np.arange(K + 1))
-        return sparse.csr_matrix((np.ones(m), np.arange(m), indptr), shape=(K, m))
+    if n_late == 0:  # the operator's rows are runs of consecutive rows
+        return sparse.csr_matrix((np.ones(m), np.arange(m), b_starts), shape=(K, m))
     rows = np.concatenate([b, a[entered_late]])
     cols = np.concatenate([np.arange(m), np.flatnonzero(entered_late)])
     vals = np.concatenate([np.ones(m), -np.ones(n_late)])
@@ -272,6 +274,8 @@ def _prepare(
     wavg = wsum / np.maximum(d, 1)
     ties = _tie_structure(ev, event_k, d, m)
     entered_late = a >= lo
+    late_entry = bool(entered_late.any())
+    b_starts = np.searchsorted(b, np.arange(K + 1))  # kept rows are sorted by b
     seg_start, seg_end, k_bounds = _stratum_segments(times.k_stratum, n_strata)
     starts = _stratum_starts(sc_s, n_strata, m)
     return Layout(
@@ -284,8 +288,8 @@ def _prepare(
         wavg=wavg,
         wsum=wsum,
         wsum_untied=np.where(ties.tied, 0.0, wsum),
-        risk_op=_risk_operator(a, b, entered_late, K),
-        plain_op=not entered_late.any(),
+        risk_op=_risk_operator(a, b, b_starts, entered_late, K),
+        plain_op=not late_entry,
         tie_k=ties.k,
         tie_ev=ties.ev,
         tie_grp=ties.grp,
@@ -294,7 +298,9 @@ def _prepare(
         tie_wavg=wavg[ties.at],
         tie_op=ties.op,
         b_idx=b + 1,
-        a_idx=np.where(entered_late, a + 1, 0),
+        b_counts=np.diff(b_starts),
+        tie_d=d[ties.k],
+        a_idx=np.where(entered_late, a + 1, 0) if late_entry else np.zeros(m, dtype=np.int64),
         seg_end=seg_end,
         seg_start=seg_start,
         k_bounds=k_bounds,
@@ -304,7 +310,7 @@ def _prepare(
         k_time=times.k_time,
         labels=sample.labels,
         n_strata=n_strata,
-        late_entry=bool(entered_late.any()),
+        late_entry=late_entry,
         n=n,
         events=int(sample.event.sum()),
         time_s=t_s,

@@ -43,6 +43,12 @@ def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
     return out
 
 
+def _per_tied_event(L: Layout, values: np.ndarray) -> np.ndarray:
+    """(T,) values of the tied event times, one per tied event (ordered as ``L.tie_ev``):
+    ``values[L.tie_grp]``, as runs (``np.repeat``, several times faster than the gather)."""
+    return np.repeat(values, L.tie_d)
+
+
 def _per_tied_time(L: Layout, values: np.ndarray) -> np.ndarray:
     """Sums of per-tied-event values (ordered as ``L.tie_ev``) by tied event time: the events
     of one time are a run (the tie operator's row), so one ``reduceat`` adds them."""
@@ -70,11 +76,12 @@ def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -
     r x, which only the information needs)."""
     X1 = D.X1
     p = X1.shape[1] - 1
-    eta: np.ndarray | None = None
+    loglik = 0.0
     if p and beta.any():
         eta = _shifted_eta(L, X1[:, 1:] @ beta)
+        loglik = float(L.we_ev @ np.take(eta, L.ev))
         with np.errstate(over="ignore", under="ignore"):
-            r = np.exp(eta)
+            r = np.exp(eta, out=eta)  # (eta is not needed any more)
         if not L.unit_w:
             r *= L.w
     else:
@@ -86,14 +93,18 @@ def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -
     else:
         sums = _risk_sums(L, np.asarray(L.risk_op @ r)[:, None])
     s0 = sums[0]
-    loglik = float(L.we_ev @ eta[L.ev]) if eta is not None else 0.0
     tied_sums = den = None
     with np.errstate(divide="ignore", invalid="ignore"):
         log_s0 = np.log(s0)
         if efron_terms:  # one term per tied event: denominators S0 - (l/d) T0
-            tied_sums = _scaled(L, L.tie_op, r) @ X1 if with_x else _per_tied_time(L, r[L.tie_ev])
+            if with_x:
+                tied_sums = _scaled(L, L.tie_op, r) @ X1
+            else:
+                tied_sums = _per_tied_time(L, np.take(r, L.tie_ev))
             t0 = tied_sums[:, 0] if with_x else tied_sums
-            den = s0[L.tie_at] - L.tie_f * t0[L.tie_grp]
+            # the events of a tied time are a run of tie_ev: its values repeated, not gathered
+            den = _per_tied_event(L, s0[L.tie_k])
+            den -= L.tie_f * _per_tied_event(L, t0)
             loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
         else:  # Breslow, or no tied events: one term per event time
             loglik -= float(L.wsum @ log_s0)
@@ -119,9 +130,11 @@ def _row_weights(L: Layout, pt: _Point) -> None:
         c = L.wsum / s0
         pt.a = c / s0
     cum = _forward_cum(L, c)
-    v = r * (cum[L.b_idx] - cum[L.a_idx]) if L.late_entry else r * cum[L.b_idx]
+    # cum[L.b_idx]: the kept rows are sorted by b, so runs of one value each (np.repeat)
+    at_b = np.repeat(cum[1:], L.b_counts)
+    v = r * (at_b - cum[L.a_idx]) if L.late_entry else r * at_b
     if pt.den is not None:
-        v[L.tie_ev] -= r[L.tie_ev] * bk[L.tie_grp]
+        v[L.tie_ev] -= np.take(r, L.tie_ev) * _per_tied_event(L, bk)
     pt.v = v
 
 
