@@ -90,7 +90,7 @@ from ..models.cox import (
     refit_near,
 )
 from ..models.cox.baseline import baseline_steps
-from ..models.cox.concordance import concordances
+from ..models.cox.concordance import scores_concordances
 from ..models.discrimination import auc, c_index, compared_score, count_aucs
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
@@ -593,11 +593,14 @@ class _Evaluator:
                 if got is not None:
                     in_drawn[key], in_full[key] = got
             return in_drawn, in_full
-        for key, z in zs.items():
-            if z is not None:
-                in_drawn[key], in_full[key] = concordances(full.time_order(),
-                                                           compared_score(z[full.idx]),
-                                                           [counts, None])
+        # one call for all the replicate's models: the counts' time order and pairs are
+        # made once, and the work arrays go with the call
+        keys = [key for key, z in zs.items() if z is not None]
+        got_all = scores_concordances(full.time_order(),
+                                      (compared_score(z[full.idx]) for key, z in zs.items()
+                                       if z is not None), [counts, None])
+        for key, (d, f) in zip(keys, got_all, strict=True):
+            in_drawn[key], in_full[key] = d, f
         return in_drawn, in_full
 
     def measures(self, coef_by: dict[tuple[str, str], np.ndarray],
