@@ -106,3 +106,28 @@ def test_logistic_slope_equals_statsmodels_logit() -> None:
         ref = sm.Logit(y, sm.add_constant(z)).fit(disp=0, tol=1e-12).params[1]
         assert logistic_slope(y, z) == pytest.approx(float(ref), rel=1e-9)
     assert np.isnan(logistic_slope(np.array([0.0, 1.0, 0.0]), np.ones(3)))
+
+
+@pytest.mark.parametrize("design", ["rows", "clusters", "frequency", "sampling"])
+def test_replicate_weights_one_at_a_time_are_the_draws_of_all_at_once(design: str) -> None:
+    # source: numpy's Generator draws all replicates at once (design_resample_weights with
+    # every replicate, from a generator of the same seed): the survival table draws each
+    # replicate's weights when it comes, and must get the same rows, bit for bit
+    from unbin.models.base import Outcome
+    from unbin.models.weighted import design_resample_weights
+    from unbin.questions.decision_resampling import _replicate_weights
+
+    rng = np.random.default_rng(8)
+    n = 300
+    time = rng.exponential(3.0, n)
+    kw: dict = {}
+    if design == "clusters":
+        kw["cluster"] = rng.integers(0, 40, n)
+    elif design == "frequency":
+        kw["weights"] = rng.integers(1, 5, n).astype(float)
+    elif design == "sampling":
+        kw.update(weights=rng.uniform(0.5, 3.0, n), weight_kind="sampling")
+    o = Outcome("survival", (rng.random(n) < 0.5).astype(float), time=time, **kw)
+    want = design_resample_weights(np.random.default_rng(99), o, 7)
+    got = np.array(list(_replicate_weights(np.random.default_rng(99), o, 7)))
+    np.testing.assert_array_equal(got, want)

@@ -72,7 +72,7 @@ caution on thresholds and decision rules.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -464,6 +464,16 @@ def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarr
     return {k: fitted[first[id(models[k])]] for k in keys}
 
 
+def _replicate_weights(rng: np.random.Generator, outcome: Outcome, replicates: int,
+                       ) -> Iterator[np.ndarray]:
+    """The rows of ``design_resample_weights(rng, outcome, replicates)``, drawn one replicate
+    at a time when asked for: the same draws from the same generator (its stream is used in
+    the same order), without holding the replicates x rows array (400 MB at 1,000,000 rows
+    and 50 replicates)."""
+    for _ in range(replicates):
+        yield design_resample_weights(rng, outcome, 1)[0]
+
+
 # A risk model's coefficients and every analysis-sample row's z on the risk scale, or None
 # when it did not fit (or some row's risk is 0).
 RiskZ = tuple[np.ndarray, np.ndarray] | None
@@ -760,10 +770,13 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
         return _finish([{**base, "status": "skipped", "reason": skip}])
     models, notes = fitted_models(r, spec, fixed)
     n = r.outcome.n
-    W = design_resample_weights(spec.rng(a.name, purpose), r.outcome, B)
+    rng = spec.rng(a.name, purpose)
     # binary: every replicate at once (vectorised); survival: one replicate at a time, whose
-    # refits lay out its drawn rows once for all of its numbers
-    coefs = _replicate_coefs(r, models, W) if r.family == "binary" else None
+    # refits lay out its drawn rows once for all of its numbers, its weights drawn when it
+    # comes (no replicates x rows array)
+    W = (design_resample_weights(rng, r.outcome, B) if r.family == "binary"
+         else _replicate_weights(rng, r.outcome, B))
+    coefs = _replicate_coefs(r, models, W) if isinstance(W, np.ndarray) else None
     ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
     full = _Sample(r, np.arange(n), horizon)
     own = {k: models[k].res.coef for k in ev.keys}
@@ -776,11 +789,11 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
                            risks=risks)
     boot: list[dict[tuple[Any, ...], float]] = []
     test: list[dict[tuple[Any, ...], float]] = []
-    for b in range(B):
-        rows_b, weights_b = replicate_rows(r.outcome, W[b])
+    for b, w_b in enumerate(W):
+        rows_b, weights_b = replicate_rows(r.outcome, w_b)
         layouts: dict[int, Any] = {}
         if coefs is None:
-            cb = {k: c[0] for k, c in _replicate_coefs(r, models, W[b:b + 1], layouts).items()}
+            cb = {k: c[0] for k, c in _replicate_coefs(r, models, w_b[None, :], layouts).items()}
         else:
             cb = {k: coefs[k][b] for k in ev.keys}
         drawn = _Sample(r, rows_b, horizon, weights_b, layouts.get(0))
@@ -795,6 +808,8 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
         # the implied thresholds read the fitting rows only: the same as in ``boot``
         test.append(ev.measures(cb, zs, drawn, full, risks=risks_b, implied=False,
                                 c_of=None if both is None else both[1]))
+        # the replicate's rows, layout and predictors go before the next one's refits
+        del rows_b, weights_b, layouts, drawn, zs, risks_b, both, w_b
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
     if collect is not None:
         collect.update(apparent=apparent, boot=boot, test=test, notes=notes, base=base)
