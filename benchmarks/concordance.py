@@ -119,7 +119,7 @@ def run(n: int, calls: int, seed: int, baseline: ModuleType | None,
     turns = ["new", "baseline"] if baseline is not None else ["new"]
     for k in range(calls):
         for who in turns if k % 2 == 0 else turns[::-1]:
-            module_order = order if who == "new" else old_order
+            module_order: Any = order if who == "new" else old_order
             fn = concordances if who == "new" else baseline.concordances  # type: ignore[union-attr]
             start = time.process_time()
             got[who].append(fn(module_order, scores[k], [draws[k], None]))

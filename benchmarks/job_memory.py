@@ -46,7 +46,8 @@ class Sampler:
 
     def __init__(self, every: float = 0.01) -> None:
         self.main = threading.get_ident()
-        self.every, self.peak, self.stack = every, 0.0, None
+        self.every, self.peak = every, 0.0
+        self.stack: list[traceback.FrameSummary] | None = None
         self.stop = False
         self.thread = threading.Thread(target=self._run, daemon=True)
         self.thread.start()
@@ -100,7 +101,7 @@ def main() -> None:
 
         return run
 
-    jobs._builder = builder  # type: ignore[assignment]
+    jobs._builder = builder
     cpu = time.process_time()
     jobs.resample_analysis(args.spec, args.cohort, args.analysis, args.out)
     sampler.stop = True
