@@ -22,6 +22,14 @@ def _design(rng: np.random.Generator, n: int) -> tuple[np.ndarray, ...]:
                                 int(rng.integers(1, 4)))
 
 
+def _check(got: float, ref: float) -> None:
+    """Equal to the reference pair count; NaN where it has no comparable pair."""
+    if np.isnan(ref):
+        assert np.isnan(got)
+    else:
+        assert got == pytest.approx(ref, abs=1e-13)
+
+
 def test_counts_match_a_brute_force_pair_count() -> None:
     # source: brute-force weighted pair count (helpers.brute_pair_c); ties in time, score and
     # between event and entry times; with and without delayed entry and strata
@@ -37,10 +45,7 @@ def test_counts_match_a_brute_force_pair_count() -> None:
         refs = [brute_pair_c(t, s, e, c, use_entry, use_strata)
                 for c in (counts[0], np.ones(n, dtype=int), counts[1])]
         for g, ref in zip(got, refs, strict=True):
-            if np.isnan(ref):
-                assert np.isnan(g)
-            else:
-                assert g == pytest.approx(ref, abs=1e-13)
+            _check(g, ref)
 
 
 def test_counts_on_a_large_sample_match_a_brute_force_pair_count() -> None:
@@ -103,11 +108,7 @@ def test_several_scores_in_one_call_match_a_brute_force_pair_count() -> None:
             # one score per call: the same numbers
             np.testing.assert_array_equal(values, concordances(order, score, counts))
             for c, g in zip(counts, values, strict=True):
-                ref = brute_pair_c(t, score, e, c, entry, strata)
-                if np.isnan(ref):
-                    assert np.isnan(g)
-                else:
-                    assert g == pytest.approx(ref, abs=1e-13)
+                _check(g, brute_pair_c(t, score, e, c, entry, strata))
 
 
 def test_several_scores_equal_lifelines_on_the_repeated_rows() -> None:
