@@ -360,10 +360,21 @@ def _weighted_pairs(T: TimeOrder, w: np.ndarray, sc: _Scratch) -> int:
 _SORT_BY_STRATUM = 64  # up to this many strata, each stratum's scores are sorted apart
 
 
+def _ordered_bits(score: np.ndarray) -> np.ndarray:
+    """64-bit integers in the order of the (finite or infinite, not NaN) scores, equal exactly
+    where the scores are equal: the IEEE bits, with every bit but the sign flipped for
+    negative numbers, after -0.0 is made 0.0 (-0.0 + 0.0 = 0.0). numpy's stable sort of
+    64-bit integers is about a quarter faster than of doubles, with the same result."""
+    bits = np.add(score, 0.0).view(np.int64)
+    bits ^= (bits >> 63) & np.int64(0x7FFFFFFFFFFFFFFF)
+    return bits
+
+
 def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.ndarray:
     """Positions sorted by (stratum, score), ties by position; ``stratum`` non-decreasing (the
     time order's). With few strata each stratum's run of positions is sorted by itself
     (shorter sorts); else one sort by score and a stable (radix) sort by stratum."""
+    score = _ordered_bits(score)
     if stratum is not None:
         cuts = np.flatnonzero(stratum[1:] != stratum[:-1]) + 1
         if cuts.size < _SORT_BY_STRATUM:
