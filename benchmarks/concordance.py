@@ -1,5 +1,6 @@
-"""CPU time of Harrell's C of bootstrap replicates (``concordances``: one score on the drawn
-rows as counts and on the full sample), against references timed in the same process.
+"""CPU time and memory of Harrell's C of bootstrap replicates (``concordances``: one score on
+the drawn rows as counts and on the full sample), against references timed in the same
+process.
 
     python benchmarks/concordance.py                        # 10,000 / 200,000 rows, markdown
     python benchmarks/concordance.py --rows 200000 --json   # one size, JSON
@@ -16,6 +17,12 @@ the drawn rows with their counts as frequency weights; exact below 2^53, so the 
 to the bit) and, with ``--baseline REV``, ``concordances`` as it is at that revision (git
 show), its results required identical. Timings are CPU seconds of this process (one BLAS
 thread), old and new alternated; on a shared machine prefer the ratios to the seconds.
+
+Memory (tracemalloc, which numpy reports its arrays to): one replicate's C of ``--scores``
+scores (the decision bootstrap's models; one call of ``scores_concordances``, or one call of
+``concordances`` per score for a baseline without it) on a fresh time order: ``peak_mb`` the
+largest traced memory above the start during the calls, ``kept_mb`` what is still traced
+after them (work arrays left on the time order for its next call).
 """
 
 from __future__ import annotations
@@ -32,6 +39,7 @@ import subprocess  # noqa: E402
 import sys  # noqa: E402
 import tempfile  # noqa: E402
 import time  # noqa: E402
+import tracemalloc  # noqa: E402
 from pathlib import Path  # noqa: E402
 from types import ModuleType  # noqa: E402
 from typing import Any  # noqa: E402
@@ -80,7 +88,25 @@ def load_revision(rev: str) -> ModuleType:
     return module
 
 
-def run(n: int, calls: int, seed: int, baseline: ModuleType | None) -> dict[str, Any]:
+def memory(module: ModuleType, d: dict[str, np.ndarray], draw: np.ndarray,
+           scores: int) -> tuple[float, float]:
+    """(peak, kept) traced MB of one replicate's C of ``scores`` scores with ``module``."""
+    order = module.concordance_order(d["time"], d["event"], d["entry"], d["strata"])
+    many = [d["grouped"] if k % 2 == 0 else d["continuous"] + 1e-3 * k for k in range(scores)]
+    tracemalloc.start()
+    start = tracemalloc.get_traced_memory()[0]
+    if hasattr(module, "scores_concordances"):
+        module.scores_concordances(order, many, [draw, None])
+    else:
+        for s in many:
+            module.concordances(order, s, [draw, None])
+    after, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    return (peak - start) / 2**20, (after - start) / 2**20
+
+
+def run(n: int, calls: int, seed: int, baseline: ModuleType | None,
+        n_scores: int = 5) -> dict[str, Any]:
     d = simulate(n, seed)
     rng = np.random.default_rng(seed + 1)
     draws = [rng.multinomial(n, np.full(n, 1 / n)) for _ in range(calls)]
@@ -93,7 +119,7 @@ def run(n: int, calls: int, seed: int, baseline: ModuleType | None) -> dict[str,
     turns = ["new", "baseline"] if baseline is not None else ["new"]
     for k in range(calls):
         for who in turns if k % 2 == 0 else turns[::-1]:
-            module_order = order if who == "new" else old_order
+            module_order: Any = order if who == "new" else old_order
             fn = concordances if who == "new" else baseline.concordances  # type: ignore[union-attr]
             start = time.process_time()
             got[who].append(fn(module_order, scores[k], [draws[k], None]))
@@ -112,7 +138,11 @@ def run(n: int, calls: int, seed: int, baseline: ModuleType | None) -> dict[str,
         "weighted_pair_sums_ms": 1e3 * ref_s,
         "equal_to_weighted_pair_sums": got["new"][0] == ref,
     }
+    this = sys.modules[concordances.__module__]
+    out["peak_mb"], out["kept_mb"] = memory(this, d, draws[0], n_scores)
     if baseline is not None:
+        out["baseline_peak_mb"], out["baseline_kept_mb"] = memory(baseline, d, draws[0],
+                                                                  n_scores)
         out["baseline_ms_per_call"] = 1e3 * clock["baseline"] / calls
         out["speedup"] = clock["baseline"] / clock["new"]
         out["identical_to_baseline"] = got["new"] == got["baseline"]
@@ -124,23 +154,28 @@ def main() -> None:
     ap.add_argument("--rows", type=int, nargs="*", default=list(SIZES))
     ap.add_argument("--calls", type=int, default=20, help="replicate scores per size")
     ap.add_argument("--seed", type=int, default=20261204)
+    ap.add_argument("--scores", type=int, default=5,
+                    help="scores per replicate in the memory measurement")
     ap.add_argument("--baseline", metavar="REV", help="also time concordances at this git "
                     "revision (e.g. main), alternated with the working tree's")
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     baseline = None if args.baseline is None else load_revision(args.baseline)
-    rows = [run(n, args.calls, args.seed, baseline) for n in args.rows]
+    rows = [run(n, args.calls, args.seed, baseline, args.scores) for n in args.rows]
     if args.json:
         print(json.dumps(rows, indent=1))
         return
     print("| rows | events | ms per call | baseline ms | speed-up | identical | "
-          "weighted pair sums ms (2 C) | equal |")
-    print("|---:|---:|---:|---:|---:|:---:|---:|:---:|")
+          "weighted pair sums ms (2 C) | equal | peak MB | baseline peak MB | kept MB | "
+          "baseline kept MB |")
+    print("|---:|---:|---:|---:|---:|:---:|---:|:---:|---:|---:|---:|---:|")
     for r in rows:
         print(f"| {r['rows']:,} | {r['events']:,} | {r['new_ms_per_call']:.1f} | "
               f"{r.get('baseline_ms_per_call', float('nan')):.1f} | "
               f"{r.get('speedup', float('nan')):.2f} | {r.get('identical_to_baseline', '–')} | "
-              f"{r['weighted_pair_sums_ms']:.0f} | {r['equal_to_weighted_pair_sums']} |")
+              f"{r['weighted_pair_sums_ms']:.0f} | {r['equal_to_weighted_pair_sums']} | "
+              f"{r['peak_mb']:.1f} | {r.get('baseline_peak_mb', float('nan')):.1f} | "
+              f"{r['kept_mb']:.1f} | {r.get('baseline_kept_mb', float('nan')):.1f} |")
 
 
 if __name__ == "__main__":

@@ -120,3 +120,52 @@ def test_apparent_c_compares_rounded_scores_too() -> None:
     want = concordance_index(o.time, -lattice, o.y)
     assert full.c_index(z) == pytest.approx(want, abs=1e-12)
     assert abs(concordance_index(o.time, -z, o.y) - want) > 1e-6
+
+
+def test_table_c_and_optimism_equal_the_drawn_rows_written_out(monkeypatch) -> None:
+    # The table's replicate C indices (every model of a replicate in one call of
+    # scores_concordances) and its optimism rows against the pair count by hand
+    # (brute_pair_c; Harrell et al. 1982) of each replicate model's scores, rounded to
+    # SCORE_DECIMALS decimals by numpy, on its drawn data set written out row by row and on
+    # the full sample; the optimism is their mean difference (Harrell, Lee & Mark 1996).
+    from unbin.questions import decision_resampling as dr
+
+    rng = np.random.default_rng(31)
+    df = _frame(rng, 180, entry=True)
+    r, spec = bare_refit(df, _raw("survival", True, True))
+    seen: list[tuple[Any, dict[int, Any], np.ndarray]] = []
+    original = dr._Evaluator.replicate_c
+
+    def record(self, zs, drawn, full):  # type: ignore[no-untyped-def]
+        seen.append((self, dict(zs), drawn.idx.copy()))
+        return original(self, zs, drawn, full)
+
+    monkeypatch.setattr(dr._Evaluator, "replicate_c", record)
+    collect: dict[str, Any] = {}
+    table = dr.decision_resampling_table(r, spec, collect=collect)
+    o = r.outcome
+    assert o.time is not None and o.entry is not None and o.strata is not None
+    assert len(seen) == len(collect["boot"]) == spec.resampling.bootstrap
+    y = np.asarray(o.y, dtype=float)
+    diffs: dict[tuple[str, str], list[float]] = {}
+    checked = 0
+    for (ev, zs, idx), boot, test in zip(seen, collect["boot"], collect["test"], strict=True):
+        for k in ev.keys:
+            z = zs[id(ev.models[k])]
+            if z is None:
+                continue
+            s = np.round(z, SCORE_DECIMALS)
+            drawn = brute_pair_c(o.time[idx], s[idx], y[idx], entry=o.entry[idx],
+                                 strata=o.strata[idx])
+            whole = brute_pair_c(o.time, s, y, entry=o.entry, strata=o.strata)
+            assert boot[("C index", k)] == pytest.approx(drawn, abs=1e-12)
+            assert test[("C index", k)] == pytest.approx(whole, abs=1e-12)
+            diffs.setdefault(k, []).append(drawn - whole)
+            checked += 1
+    assert checked >= 2 * spec.resampling.bootstrap
+    c_rows = table[table["quantity"] == "C index"]
+    assert len(c_rows) == len(diffs)
+    for _, row in c_rows.iterrows():
+        want = float(np.mean(diffs[(row["model"], row["adjustment"])]))
+        assert row["optimism"] == pytest.approx(want, abs=1e-12)
+        assert row["corrected"] == pytest.approx(row["apparent"] - want, abs=1e-12)

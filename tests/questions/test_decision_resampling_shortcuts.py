@@ -106,3 +106,61 @@ def test_logistic_slope_equals_statsmodels_logit() -> None:
         ref = sm.Logit(y, sm.add_constant(z)).fit(disp=0, tol=1e-12).params[1]
         assert logistic_slope(y, z) == pytest.approx(float(ref), rel=1e-9)
     assert np.isnan(logistic_slope(np.array([0.0, 1.0, 0.0]), np.ones(3)))
+
+
+@pytest.mark.parametrize("design", ["rows", "clusters", "frequency", "sampling"])
+def test_replicate_weights_one_at_a_time_are_the_draws_of_all_at_once(design: str) -> None:
+    # source: numpy's Generator draws all replicates at once (design_resample_weights with
+    # every replicate, from a generator of the same seed): the survival table draws each
+    # replicate's weights when it comes, and must get the same rows, bit for bit
+    from unbin.models.base import Outcome
+    from unbin.models.weighted import design_resample_weights
+    from unbin.questions.decision_resampling import _replicate_weights
+
+    rng = np.random.default_rng(8)
+    n = 300
+    time = rng.exponential(3.0, n)
+    kw: dict = {}
+    if design == "clusters":
+        kw["cluster"] = rng.integers(0, 40, n)
+    elif design == "frequency":
+        kw["weights"] = rng.integers(1, 5, n).astype(float)
+    elif design == "sampling":
+        kw.update(weights=rng.uniform(0.5, 3.0, n), weight_kind="sampling")
+    o = Outcome("survival", (rng.random(n) < 0.5).astype(float), time=time, **kw)
+    want = design_resample_weights(np.random.default_rng(99), o, 7)
+    got = np.array(list(_replicate_weights(np.random.default_rng(99), o, 7)))
+    np.testing.assert_array_equal(got, want)
+
+
+@pytest.mark.parametrize("competing", [True, False])
+@pytest.mark.parametrize("entry", [True, False])
+def test_net_benefits_with_draw_counts_equal_the_repeated_rows(competing: bool,
+                                                               entry: bool) -> None:
+    # A bootstrap replicate's net benefits read on the sample's rows with its draw counts
+    # equal net_benefit_km on the drawn rows written out row by row (bit for bit), and the
+    # product-limit loop over the repeated rows (Kaplan & Meier 1958; Aalen & Johansen 1978)
+    time, cause, start = _data(20261205 + competing + 2 * entry, entry=entry)
+    event = (cause == 1).astype(float) if competing else (cause != 0).astype(float)
+    h = 5.0
+    pt = np.array([0.05, 0.1, 0.2, 0.3])
+    cs = cause if competing else None
+    fast = _AtHorizon(time, event, start, h, cs, 1)
+    rng = np.random.default_rng(17)
+    n = time.size
+    for it in range(20):
+        counts = (rng.multinomial(n, np.full(n, 1 / n)) if it % 2 else
+                  rng.integers(0, 30, n) * (rng.random(n) < 0.2))  # zeros, large counts
+        m = np.repeat(np.arange(n), counts)
+        en = None if start is None else start[m]
+        risk = rng.uniform(0, 0.5, n)
+        want = net_benefit_km(time[m], event[m], en, np.zeros(m.size, bool), h, pt, risk[m],
+                              None if cs is None else cs[m], 1)[0]
+        assert np.array_equal(fast.net_benefit(pt, None, risk, counts), want)
+        mask = rng.uniform(size=n) < rng.uniform(0.05, 1)
+        want = net_benefit_km(time[m], event[m], en, mask[m], h, pt, None,
+                              None if cs is None else cs[m], 1)[0]
+        assert np.array_equal(fast.net_benefit(pt, mask, None, counts), want)
+        ref = _loop(time[m][mask[m]], np.where(competing, cause, (cause != 0).astype(int))[m][
+            mask[m]], None if en is None else en[mask[m]], h, competing)
+        assert fast.survival(mask, counts) == pytest.approx(ref, abs=1e-12)

@@ -72,7 +72,7 @@ caution on thresholds and decision rules.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -90,7 +90,7 @@ from ..models.cox import (
     refit_near,
 )
 from ..models.cox.baseline import baseline_steps
-from ..models.cox.concordance import concordances
+from ..models.cox.concordance import scores_concordances
 from ..models.discrimination import auc, c_index, compared_score, count_aucs
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
@@ -141,8 +141,12 @@ class _Sample:
     risk at the horizon, C-index, net benefit, calibration slope."""
 
     def __init__(self, r: Refit, idx: np.ndarray, horizon: float | None,
-                 weights: np.ndarray | None = None, layout: Any = None):
+                 weights: np.ndarray | None = None, layout: Any = None,
+                 base: _Sample | None = None):
         o = r.outcome
+        # the analysis sample (its _Sample) when these rows are read there as draw counts
+        # (a replicate's drawn rows without weights): survival net benefits on its rows
+        self.base = base
         self.idx, self.family, self.h = idx, r.family, horizon
         self.w = weights if weights is not None or o.weights is None else o.weights[idx]
         self.y = np.asarray(o.y, dtype=float)[idx]
@@ -207,6 +211,23 @@ class _Sample:
                                           self.event_of_interest)
         return self._at_horizon.net_benefit(pt, positive, risk)
 
+    def net_benefit_of_rows(self, pt: np.ndarray, risk: np.ndarray | None = None,
+                            positive: np.ndarray | None = None) -> np.ndarray:
+        """:meth:`net_benefit` with ``risk``/``positive`` given for every row of the analysis
+        sample (not only these rows; one of the two): read on ``base``'s rows with these rows' draw counts
+        when they have a base (the same numbers as on the repeated rows), else on
+        ``[self.idx]``."""
+        if self.base is None or self.family == "binary":
+            return self.net_benefit(pt, None if risk is None else risk[self.idx],
+                                    None if positive is None else positive[self.idx])
+        base = self.base
+        assert base.time is not None and base.h is not None
+        if base._at_horizon is None:
+            base._at_horizon = _AtHorizon(base.time, base.y, base.entry, base.h, base.cause,
+                                          base.event_of_interest)
+        return base._at_horizon.net_benefit(pt, positive, risk,
+                                            self.row_counts(len(base.idx)))
+
     def slope(self, z: np.ndarray) -> float:
         """Calibration slope of the linear predictor on the risk's link scale (Cox 1958)."""
         if self.family == "binary":
@@ -253,21 +274,28 @@ class _AtHorizon:
         self.at = np.where(hit, self.hi - 1, -1)  # a row's event's grid index (-1: none)
         self.mine = hit & (c == event_of_interest) if cause is not None else hit
 
-    def _counts(self, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def _counts(self, mask: np.ndarray, counts: np.ndarray | None = None,
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         K = self.K
-        Y = np.cumsum(np.bincount(self.lo[mask], minlength=K + 1).astype(float)
-                      - np.bincount(self.hi[mask], minlength=K + 1))[:K]
+        w = None if counts is None else counts[mask].astype(float)
+        Y = np.cumsum(np.bincount(self.lo[mask], w, minlength=K + 1).astype(float)
+                      - np.bincount(self.hi[mask], w, minlength=K + 1))[:K]
         ev = mask & (self.at >= 0)
-        d_all = np.bincount(self.at[ev], minlength=K).astype(float)
-        d_1 = np.bincount(self.at[ev & self.mine], minlength=K).astype(float)
+        mine = ev & self.mine
+        d_all = np.bincount(self.at[ev], None if counts is None else counts[ev].astype(float),
+                            minlength=K).astype(float)
+        d_1 = np.bincount(self.at[mine], None if counts is None else counts[mine].astype(float),
+                          minlength=K).astype(float)
         return Y, d_all, d_1
 
-    def survival(self, mask: np.ndarray) -> float:
-        """S(h) among ``mask``'s rows: 1 - the incidence of the event of interest with
-        competing events, else the Kaplan–Meier estimate."""
+    def survival(self, mask: np.ndarray, counts: np.ndarray | None = None) -> float:
+        """S(h) among ``mask``'s rows (each repeated ``counts`` times when given: whole
+        numbers, so the risk-set and event counts are the same whole numbers as those of the
+        repeated rows): 1 - the incidence of the event of interest with competing events,
+        else the Kaplan–Meier estimate."""
         if self.K == 0:
             return 1.0
-        Y, d_all, d_1 = self._counts(mask)
+        Y, d_all, d_1 = self._counts(mask, counts)
         if not self.competing:  # km_survival: the product over the subset's own event times
             has = d_all > 0
             if not has.any():
@@ -284,21 +312,26 @@ class _AtHorizon:
         last = int(np.flatnonzero(d_all)[-1])
         return 1.0 - float(np.cumsum(S_before * haz1)[last])
 
-    def net_benefit(self, thresholds: np.ndarray, positive: np.ndarray,
-                    risk: np.ndarray | None) -> np.ndarray:
+    def net_benefit(self, thresholds: np.ndarray, positive: np.ndarray | None,
+                    risk: np.ndarray | None, counts: np.ndarray | None = None) -> np.ndarray:
         """``net_benefit_km(...)[0]``: NB per threshold of the rule ``positive`` (n,) or of
-        "treat when ``risk`` >= p_t"."""
+        "treat when ``risk`` >= p_t". With ``counts`` (whole numbers, one per row), of the
+        rows repeated as often as they say (a bootstrap replicate's drawn rows): the share
+        treated is the same quotient of whole numbers as ``mask.mean()`` of the repeated
+        rows, the product-limit the same (``survival``)."""
         tp = np.zeros(len(thresholds))
         fp = np.zeros(len(thresholds))
         done: dict[bytes, tuple[float, float]] = {}
+        total = None if counts is None else int(counts.sum())
         for g in range(len(thresholds)):
             mask = np.asarray(positive, dtype=bool) if risk is None else risk >= thresholds[g]
-            share = float(mask.mean())
+            share = (float(mask.mean()) if counts is None or total is None
+                     else int(counts[mask].sum()) / total)
             if share == 0:
                 continue
             key = np.packbits(mask).tobytes()
             if key not in done:
-                s = self.survival(mask)
+                s = self.survival(mask, counts)
                 done[key] = ((1.0 - s) * share, s * share)
             tp[g], fp[g] = done[key]
         return np.asarray(tp - fp * thresholds / (1.0 - thresholds))
@@ -464,6 +497,16 @@ def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarr
     return {k: fitted[first[id(models[k])]] for k in keys}
 
 
+def _replicate_weights(rng: np.random.Generator, outcome: Outcome, replicates: int,
+                       ) -> Iterator[np.ndarray]:
+    """The rows of ``design_resample_weights(rng, outcome, replicates)``, drawn one replicate
+    at a time when asked for: the same draws from the same generator (its stream is used in
+    the same order), without holding the replicates x rows array (400 MB at 1,000,000 rows
+    and 50 replicates)."""
+    for _ in range(replicates):
+        yield design_resample_weights(rng, outcome, 1)[0]
+
+
 # A risk model's coefficients and every analysis-sample row's z on the risk scale, or None
 # when it did not fit (or some row's risk is 0).
 RiskZ = tuple[np.ndarray, np.ndarray] | None
@@ -593,11 +636,14 @@ class _Evaluator:
                 if got is not None:
                     in_drawn[key], in_full[key] = got
             return in_drawn, in_full
-        for key, z in zs.items():
-            if z is not None:
-                in_drawn[key], in_full[key] = concordances(full.time_order(),
-                                                           compared_score(z[full.idx]),
-                                                           [counts, None])
+        # one call for all the replicate's models: the counts' time order and pairs are
+        # made once, and the work arrays go with the call
+        keys = [key for key, z in zs.items() if z is not None]
+        got_all = scores_concordances(full.time_order(),
+                                      (compared_score(z[full.idx]) for key, z in zs.items()
+                                       if z is not None), [counts, None])
+        for key, (d, f) in zip(keys, got_all, strict=True):
+            in_drawn[key], in_full[key] = d, f
         return in_drawn, in_full
 
     def measures(self, coef_by: dict[tuple[str, str], np.ndarray],
@@ -646,6 +692,10 @@ class _Evaluator:
             nb = net_benefit_risk(self.r.outcome.y, self.risk(z), pt,
                                   on.row_counts(self.r.outcome.n))[0]
             zo = None
+        elif on.base is not None and on.w is None and pt.size:
+            # on the sample's rows with ``on``'s draw counts (as for binary outcomes)
+            nb = on.net_benefit_of_rows(pt, risk=self.risk(z))
+            zo = None
         else:
             zo = z[on.idx]
             nb = on.net_benefit(pt, risk=self.risk(zo)) if pt.size else np.zeros(0)
@@ -680,10 +730,10 @@ class _Evaluator:
             pt = self.pt
             fixed: dict[tuple[Any, ...], float] = {}
             for name, mask in self.rules:
-                for t, v in zip(pt, on.net_benefit(pt, positive=mask[on.idx]), strict=True):
+                for t, v in zip(pt, on.net_benefit_of_rows(pt, positive=mask), strict=True):
                     fixed[("net benefit", name, t)] = float(v)
-            for t, v in zip(pt, on.net_benefit(pt, positive=np.ones(len(on.idx), dtype=bool)),
-                            strict=True):
+            everyone = np.ones(self.r.outcome.n, dtype=bool)
+            for t, v in zip(pt, on.net_benefit_of_rows(pt, positive=everyone), strict=True):
                 fixed[("net benefit", "treat all", t)] = float(v)
             on.fixed_rules = fixed
         out.update(on.fixed_rules)
@@ -757,10 +807,13 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
         return _finish([{**base, "status": "skipped", "reason": skip}])
     models, notes = fitted_models(r, spec, fixed)
     n = r.outcome.n
-    W = design_resample_weights(spec.rng(a.name, purpose), r.outcome, B)
+    rng = spec.rng(a.name, purpose)
     # binary: every replicate at once (vectorised); survival: one replicate at a time, whose
-    # refits lay out its drawn rows once for all of its numbers
-    coefs = _replicate_coefs(r, models, W) if r.family == "binary" else None
+    # refits lay out its drawn rows once for all of its numbers, its weights drawn when it
+    # comes (no replicates x rows array)
+    W = (design_resample_weights(rng, r.outcome, B) if r.family == "binary"
+         else _replicate_weights(rng, r.outcome, B))
+    coefs = _replicate_coefs(r, models, W) if isinstance(W, np.ndarray) else None
     ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
     full = _Sample(r, np.arange(n), horizon)
     own = {k: models[k].res.coef for k in ev.keys}
@@ -773,14 +826,15 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
                            risks=risks)
     boot: list[dict[tuple[Any, ...], float]] = []
     test: list[dict[tuple[Any, ...], float]] = []
-    for b in range(B):
-        rows_b, weights_b = replicate_rows(r.outcome, W[b])
+    for b, w_b in enumerate(W):
+        rows_b, weights_b = replicate_rows(r.outcome, w_b)
         layouts: dict[int, Any] = {}
         if coefs is None:
-            cb = {k: c[0] for k, c in _replicate_coefs(r, models, W[b:b + 1], layouts).items()}
+            cb = {k: c[0] for k, c in _replicate_coefs(r, models, w_b[None, :], layouts).items()}
         else:
             cb = {k: coefs[k][b] for k in ev.keys}
-        drawn = _Sample(r, rows_b, horizon, weights_b, layouts.get(0))
+        drawn = _Sample(r, rows_b, horizon, weights_b, layouts.get(0),
+                        full if weights_b is None and r.family == "survival" else None)
         zs = ev.predictors(cb, drawn)
         risks_b = None
         if ev.competing:  # the Fine–Gray models refitted on the drawn rows
@@ -792,6 +846,8 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
         # the implied thresholds read the fitting rows only: the same as in ``boot``
         test.append(ev.measures(cb, zs, drawn, full, risks=risks_b, implied=False,
                                 c_of=None if both is None else both[1]))
+        # the replicate's rows, layout and predictors go before the next one's refits
+        del rows_b, weights_b, layouts, drawn, zs, risks_b, both, w_b
     q01, q99 = (float(v) for v in np.quantile(r.x, [0.01, 0.99]))
     if collect is not None:
         collect.update(apparent=apparent, boot=boot, test=test, notes=notes, base=base)
