@@ -38,7 +38,9 @@ the competing events lower; ``1 - Kaplan–Meier`` overstates it.
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -210,6 +212,7 @@ def fine_gray_data(time: np.ndarray, cause: np.ndarray, event_of_interest: int =
 
 _CACHE = "fine_gray_outcome"
 _LAYOUT = "fine_gray_layout"
+_NEAR = "fine_gray_near_starts"
 
 
 def fine_gray_outcome(outcome: Outcome, cause: np.ndarray, event_of_interest: int
@@ -360,6 +363,61 @@ def fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray
     if not np.all(np.isfinite(coef)):
         return None, None
     return coef, fine_gray.baseline(L, X @ coef)
+
+
+def fine_gray_replicate(X: np.ndarray, rows: np.ndarray, sample: Outcome, outcome: Outcome,
+                        start: np.ndarray) -> tuple[np.ndarray | None, pd.DataFrame | None]:
+    """:func:`fine_gray_near` of a bootstrap replicate of ``outcome`` (the full sample, whose
+    Fine–Gray layout its fit left in its cache) whose drawn rows are ``rows`` of the full
+    design ``X`` and whose outcome is ``sample`` (those rows, with their case weights): the
+    refit (:func:`unbin.models.fine_gray.fit_replicate`) takes the full sample's centring,
+    scaling and information at ``start``, prepared once per design and start
+    (:func:`unbin.models.fine_gray.near_start`, kept in ``outcome.cache``), instead of
+    evaluating the replicate's own information; where it declines, :func:`fine_gray_near` on
+    the replicate's rows decides (its own information, then Newton's method)."""
+    from ._glm import check_design
+
+    assert sample.cause is not None
+    near = _near_start(X, outcome, np.asarray(start, dtype=float))
+    X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
+    Xm = X[rows]
+    cause = np.asarray(sample.cause)
+    names = tuple(f"x{j}" for j in range(X.shape[1]))
+    if near is None or not np.any(cause == sample.event_of_interest) \
+            or check_design(Xm, names):
+        return fine_gray_near(Xm, sample, start)
+    try:
+        L = fine_gray_layout(sample, cause, sample.event_of_interest)
+    except ValueError:  # the replicate's arrays: fine_gray_near reports it
+        return fine_gray_near(Xm, sample, start)
+    coef = fine_gray.fit_replicate(near, X, rows, L)
+    if coef is None:
+        return fine_gray_near(Xm, sample, start)
+    if not np.all(np.isfinite(coef)):
+        return None, None
+    return coef, fine_gray.baseline(L, Xm @ coef)
+
+
+def _near_start(X: np.ndarray, outcome: Outcome, start: np.ndarray
+                ) -> fine_gray.NearStart | None:
+    """The full sample's :func:`unbin.models.fine_gray.near_start` of the design ``X`` at
+    ``start`` on its cached Fine–Gray layout (None without one), kept in ``outcome.cache``
+    per design (the same array object ``X``, by a weak reference; an array that is not held
+    elsewhere is prepared anew) and start."""
+    L = outcome.cache.get(_LAYOUT)
+    if L is None:
+        return None
+    known: dict[int, tuple[weakref.ref[Any], np.ndarray, fine_gray.NearStart | None]] = \
+        outcome.cache.setdefault(_NEAR, {})
+    seen = known.get(id(X))
+    if seen is not None and seen[0]() is X and np.array_equal(seen[1], start):
+        return seen[2]
+    near = fine_gray.near_start(L, np.asarray(X, dtype=float).reshape(outcome.n, -1), start)
+    try:  # a weak reference: the cache must not keep the table's designs alive
+        known[id(X)] = (weakref.ref(X), start.copy(), near)
+    except TypeError:
+        pass
+    return near
 
 
 def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
