@@ -68,6 +68,18 @@ def row_incidence(log_risk: np.ndarray, D: np.ndarray) -> np.ndarray:
     return out
 
 
+def shifted_sums(u: np.ndarray, w: np.ndarray, shifts: np.ndarray,
+                 D: np.ndarray) -> np.ndarray:
+    """``sum_i w_i F(u_i + shifts[s])`` for each row ``s`` of ``shifts``, row by row
+    (:func:`row_incidence` of every row at every shift in one pass)."""
+    m, C = u.shape
+    if m == 0:
+        return np.zeros(len(shifts))
+    stacked = (u[None, :, :] + np.asarray(shifts, dtype=float)[:, None, :]).reshape(-1, C)
+    F = row_incidence(stacked, D).reshape(len(shifts), m)
+    return np.array([w @ F[j] for j in range(len(shifts))])
+
+
 def _points(g: int) -> np.ndarray:
     """Chebyshev points of the second kind on [-1, 1], ``x_j = cos(pi j / (g - 1))``."""
     return np.cos(np.pi * np.arange(g) / (g - 1)) if g > 1 else np.zeros(1)
