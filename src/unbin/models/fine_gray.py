@@ -82,11 +82,26 @@ class Layout:
         return self.tie_ev.size > 0
 
 
+def _count_at_most(keys: np.ndarray, q: np.ndarray, size: int) -> np.ndarray:
+    """``np.searchsorted(keys, q, side="right")`` for sorted non-negative integer ``keys`` and
+    integer queries ``q`` in ``[0, size)``: by a table of counts when ``size`` is small next to
+    the queries (a gather per query instead of a binary search), else by the search."""
+    if size > 4 * (q.size + keys.size) + 1024:
+        return np.searchsorted(keys, q, side="right")
+    table = np.cumsum(np.bincount(keys, minlength=size)[:size])
+    return table[q]
+
+
 def prepare(time: np.ndarray, cause: np.ndarray, event_of_interest: int, *,
             entry: np.ndarray | None, weights: np.ndarray | None,
             strata: np.ndarray | None,
-            Q_at: Callable[[np.ndarray], np.ndarray]) -> Layout:
-    """The layout of one sample; ``Q_at(at)`` gives ``G(at-) H(at)`` for an array of times."""
+            Q_at: Callable[[np.ndarray], np.ndarray],
+            searched: tuple[np.ndarray, np.ndarray, np.ndarray | None] | None = None
+            ) -> Layout:
+    """The layout of one sample; ``Q_at(at)`` gives ``G(at-) H(at)`` for an array of times.
+    ``searched``: the distinct times of the event of interest and each row's count of them at
+    or before its time and its entry, when the caller has them (a bootstrap replicate, from
+    the full sample's: ``unbin.models.competing``)."""
     t = np.asarray(time, dtype=float)
     c = np.asarray(cause, dtype=float)
     n = t.size
@@ -103,9 +118,15 @@ def prepare(time: np.ndarray, cause: np.ndarray, event_of_interest: int, *,
     mine = c == event_of_interest
     ev_all = np.flatnonzero(mine)
     # event times by (stratum, time): integer keys code * span + rank of the time
-    values = np.unique(t[ev_all])
+    if searched is None:
+        values = np.unique(t[ev_all])
+        upto_t = np.searchsorted(values, t, side="right")
+        upto_e = (None if entry is None
+                  else np.searchsorted(values, np.asarray(entry, dtype=float), side="right"))
+    else:
+        values, upto_t, upto_e = searched
     span = np.int64(values.size + 1)
-    ev_key = code[ev_all] * span + np.searchsorted(values, t[ev_all]) + 1
+    ev_key = code[ev_all] * span + upto_t[ev_all]  # an event's count is its rank + 1
     k_key, ev_k = np.unique(ev_key, return_inverse=True)
     ev_k = ev_k.reshape(-1)
     K = k_key.size
@@ -114,16 +135,14 @@ def prepare(time: np.ndarray, cause: np.ndarray, event_of_interest: int, *,
     k_new = np.ones(K, dtype=bool)
     k_new[1:] = k_code[1:] != k_code[:-1]
     k_bounds = np.r_[np.flatnonzero(k_new), K]
-    seg_start = np.searchsorted(k_key, code * span, side="right")  # per row
+    size = int(code.max() + 1) * int(span) if n else 1
+    seg_start = _count_at_most(k_key, code * span, size)  # per row
     # last event time of the row's stratum at or before its time / its entry
-    b = np.searchsorted(k_key, code * span + np.searchsorted(values, t, side="right"),
-                        side="right") - 1
-    if entry is None:
+    b = _count_at_most(k_key, code * span + upto_t, size) - 1
+    if upto_e is None:
         a = seg_start - 1
     else:
-        e = np.asarray(entry, dtype=float)
-        a = np.searchsorted(k_key, code * span + np.searchsorted(values, e, side="right"),
-                            side="right") - 1
+        a = _count_at_most(k_key, code * span + upto_e, size) - 1
         a = np.maximum(a, seg_start - 1)
     at_risk = b > a
     rows = np.flatnonzero(at_risk)
@@ -151,7 +170,7 @@ def prepare(time: np.ndarray, cause: np.ndarray, event_of_interest: int, *,
     # the expansion's size: every competing event with Q(T_j) > 0 gets a row per later
     # distinct time of the event of interest (over all strata) where Q > 0
     pos_after = np.r_[np.cumsum((Q_all > 0)[::-1])[::-1], 0]
-    j0 = np.searchsorted(values, t[competing], side="right")
+    j0 = upto_t[competing]
     expanded_rows = n + int(np.sum(np.where(Qj > 0, pos_after[j0], 0)))
     return Layout(
         n=n, w=w, rows=rows, b=b[rows], late=late, a=a[rows][late], comp=comp, comp_c=comp_c,
