@@ -302,14 +302,18 @@ def _grids(outcome: Outcome) -> _Grids:
         e = None if outcome.entry is None else np.asarray(outcome.entry, dtype=float)
         values = np.unique(t[c == outcome.event_of_interest])
         cens = np.unique(t[c == 0])
-        entries = None if e is None else np.unique(e)
-        got = _Grids(
-            values, np.searchsorted(values, t, side="right"),
-            None if e is None else np.searchsorted(values, e, side="right"),
-            cens, np.searchsorted(cens, t, side="right"),
-            None if e is None else np.searchsorted(cens, e, side="right"),
-            entries, None if entries is None else np.searchsorted(entries, e, side="left"),
-            None if entries is None else np.searchsorted(entries, t, side="left"))
+        if e is None:
+            got = _Grids(values, np.searchsorted(values, t, side="right"), None,
+                         cens, np.searchsorted(cens, t, side="right"), None, None, None, None)
+        else:
+            entries = np.unique(e)
+            got = _Grids(
+                values, np.searchsorted(values, t, side="right"),
+                np.searchsorted(values, e, side="right"),
+                cens, np.searchsorted(cens, t, side="right"),
+                np.searchsorted(cens, e, side="right"),
+                entries, np.searchsorted(entries, e, side="left"),
+                np.searchsorted(entries, t, side="left"))
         outcome.cache[_GRIDS] = got
     return got
 
