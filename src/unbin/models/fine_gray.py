@@ -27,6 +27,9 @@ is then taken, the log-likelihood its quadratic prediction, the covariance the i
 information at the last point); :func:`score_terms` gives each person's Cox score residual
 summed over what would be their expanded rows, and :func:`weight_row_sums` the sums the
 weights' estimation terms need (``unbin.models.competing.weight_estimation_scores``).
+Bootstrap replicates are refitted from the full-sample estimate: :func:`fit_near` from the
+replicate's own information, :func:`fit_replicate` from the full sample's (:func:`near_start`,
+prepared once per design), both by the Cox engine's secant driver.
 """
 
 from __future__ import annotations
