@@ -17,6 +17,11 @@ checkout's own ``fit_fine_gray``, its size limit lifted. A path whose expansion 
 ``--max-expanded`` rows is not run (it would not fit in memory).
 
     python benchmarks/fine_gray.py --rows 30000 200000 --new-only 1000000 [--old-src PATH]
+
+With ``--replicates B``: the decision bootstrap's replicate refits instead (``replicates``'s
+docstring), both ways in one process, alternated:
+
+    python benchmarks/fine_gray.py --rows 30000 200000 --replicates 10
 """
 
 from __future__ import annotations
@@ -98,6 +103,36 @@ def one(rows: int, path: str) -> dict[str, Any]:
             "expanded_rows": int(expanded_rows), "coef": [float(v) for v in coef]}
 
 
+def replicates(rows: int, count: int, seed: int = 11) -> dict[str, Any]:
+    """CPU time per bootstrap replicate refit (coefficients and baseline, as the decision
+    bootstrap needs them), both ways alternated in this process on the same replicates (the
+    drawn rows repeated as drawn): ``own`` lays the replicate out from scratch and starts from
+    its own information (``fine_gray_near`` on the drawn rows, the previous path), ``shared``
+    takes the full sample's standardisation, information and sorted times
+    (``fine_gray_replicate``); and how far apart their estimates are on the linear predictor."""
+    import dataclasses
+
+    from unbin.models.competing import fine_gray_near, fine_gray_replicate, fit_fine_gray
+
+    X, o, cause = sample(rows)
+    start = fit_fine_gray(X, o, cause, 1, ("egfr", "age", "sex")).coef
+    draws = np.random.default_rng(seed)
+    cpu = {"own": 0.0, "shared": 0.0}
+    gap = 0.0
+    for _ in range(count):
+        m = np.sort(draws.integers(0, o.n, o.n))
+        got = {}
+        for way in ("own", "shared"):
+            rep = dataclasses.replace(o.subset(m), cluster=None, cache={})
+            t0 = time.process_time()
+            got[way] = (fine_gray_near(X[m], rep, start) if way == "own"
+                        else fine_gray_replicate(X, m, rep, o, start))[0]
+            cpu[way] += time.process_time() - t0
+        gap = max(gap, float(np.abs(X[m] @ (got["own"] - got["shared"])).max()))
+    return {"rows": rows, "replicates": count, "own_ms": 1e3 * cpu["own"] / count,
+            "shared_ms": 1e3 * cpu["shared"] / count, "max_linear_predictor_gap": gap}
+
+
 def spawn(rows: int, path: str, src: str) -> dict[str, Any]:
     env = {**os.environ, "PYTHONPATH": src}
     out = subprocess.run([sys.executable, __file__, "--one", str(rows), path], env=env,
@@ -115,10 +150,16 @@ def main(argv: list[str] | None = None) -> int:
                         "time its own fit_fine_gray as the old path")
     parser.add_argument("--max-expanded", type=float, default=2e7,
                         help="run no old path whose expansion exceeds this many rows")
+    parser.add_argument("--replicates", type=int, default=0,
+                        help="instead: time this many bootstrap replicate refits per size, "
+                        "from the replicate's own start and from the full sample's")
     parser.add_argument("--one", nargs=2, metavar=("ROWS", "PATH"), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.one:
         print(json.dumps(one(int(args.one[0]), args.one[1])))
+        return 0
+    if args.replicates:
+        print(json.dumps([replicates(rows, args.replicates) for rows in args.rows]))
         return 0
     here_src = str(HERE.parent / "src")
     results = []

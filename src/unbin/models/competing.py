@@ -38,7 +38,9 @@ the competing events lower; ``1 - Kaplan–Meier`` overstates it.
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass, replace
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -107,6 +109,13 @@ def censoring_survival_before(time: np.ndarray, cause: np.ndarray, entry: np.nda
     hi = np.searchsorted(ct, time, side="right")
     lo = (np.zeros(time.size, dtype=int) if entry is None
           else np.searchsorted(ct, entry, side="right"))
+    return _censoring_steps(ct, hi, lo, cens, weights, at)
+
+
+def _censoring_steps(ct: np.ndarray, hi: np.ndarray, lo: np.ndarray, cens: np.ndarray,
+                     weights: np.ndarray, at: np.ndarray) -> np.ndarray:
+    """:func:`censoring_survival_before` from the distinct censoring times ``ct`` and each
+    row's count of them at or before its time (``hi``) and its entry (``lo``)."""
     K = ct.size
     Y = np.cumsum(np.bincount(lo, weights, K + 1) - np.bincount(hi, weights, K + 1))[:K]
     dc = np.bincount(hi[cens] - 1, weights[cens], K)
@@ -124,10 +133,17 @@ def entry_distribution(time: np.ndarray, entry: np.ndarray | None, weights: np.n
     if entry is None:
         return np.ones(np.shape(at))
     st = np.unique(entry)
-    K = st.size
     # entry <= s: index from searchsorted(st, entry, left); s < time: s below searchsorted left
     lo = np.searchsorted(st, entry, side="left")
     hi = np.searchsorted(st, time, side="left")
+    return _entry_steps(st, lo, hi, weights, at)
+
+
+def _entry_steps(st: np.ndarray, lo: np.ndarray, hi: np.ndarray, weights: np.ndarray,
+                 at: np.ndarray) -> np.ndarray:
+    """:func:`entry_distribution` from the distinct entry times ``st`` and each row's count of
+    them before its entry (``lo``) and before its time (``hi``)."""
+    K = st.size
     R = np.cumsum(np.bincount(lo, weights, K + 1) - np.bincount(hi, weights, K + 1))[:K]
     d = np.bincount(lo, weights, K)
     factor = 1.0 - np.where(R > 0, d / np.where(R > 0, R, 1.0), 0.0)
@@ -210,6 +226,8 @@ def fine_gray_data(time: np.ndarray, cause: np.ndarray, event_of_interest: int =
 
 _CACHE = "fine_gray_outcome"
 _LAYOUT = "fine_gray_layout"
+_NEAR = "fine_gray_near_starts"
+_GRIDS = "fine_gray_grids"
 
 
 def fine_gray_outcome(outcome: Outcome, cause: np.ndarray, event_of_interest: int
@@ -252,6 +270,102 @@ def fine_gray_layout(outcome: Outcome, cause: np.ndarray, event_of_interest: int
     layout = fine_gray.prepare(t, c, event_of_interest, entry=e, weights=outcome.weights,
                                strata=outcome.strata, Q_at=Q_at)
     outcome.cache[_LAYOUT] = layout
+    return layout
+
+
+@dataclass(frozen=True)
+class _Grids:
+    """The full sample's sorted distinct times that a Fine–Gray layout searches (event times
+    of interest, censoring times, entry times) and each row's count of them at or before (or
+    before) its time and its entry: a replicate's distinct times are a subset, and its counts
+    are the full sample's mapped through the running count of that subset (integers, so the
+    replicate's layout is the one :func:`fine_gray_layout` would make, bit for bit)."""
+
+    values: np.ndarray  # event times of interest
+    v_time: np.ndarray  # per row: how many are at or before its time
+    v_entry: np.ndarray | None  # ... at or before its entry
+    cens: np.ndarray  # censoring times
+    c_time: np.ndarray  # per row: how many are at or before its time
+    c_entry: np.ndarray | None  # ... at or before its entry
+    entries: np.ndarray | None  # entry times
+    e_entry: np.ndarray | None  # per row: how many are before its entry
+    e_time: np.ndarray | None  # ... before its time
+
+
+def _grids(outcome: Outcome) -> _Grids:
+    """The full sample's :class:`_Grids`, kept in its cache."""
+    got = outcome.cache.get(_GRIDS)
+    if got is None:
+        assert outcome.time is not None and outcome.cause is not None
+        t = np.asarray(outcome.time, dtype=float)
+        c = np.asarray(outcome.cause, dtype=float)
+        e = None if outcome.entry is None else np.asarray(outcome.entry, dtype=float)
+        values = np.unique(t[c == outcome.event_of_interest])
+        cens = np.unique(t[c == 0])
+        if e is None:
+            got = _Grids(values, np.searchsorted(values, t, side="right"), None,
+                         cens, np.searchsorted(cens, t, side="right"), None, None, None, None)
+        else:
+            entries = np.unique(e)
+            got = _Grids(
+                values, np.searchsorted(values, t, side="right"),
+                np.searchsorted(values, e, side="right"),
+                cens, np.searchsorted(cens, t, side="right"),
+                np.searchsorted(cens, e, side="right"),
+                entries, np.searchsorted(entries, e, side="left"),
+                np.searchsorted(entries, t, side="left"))
+        outcome.cache[_GRIDS] = got
+    return got
+
+
+def _subset_counts(size: int, present: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For the grid positions ``present`` (of ``size``): the mask of the subset and the running
+    count of it (``size + 1`` entries: how many of the subset lie below each position)."""
+    mask = np.zeros(size, dtype=bool)
+    mask[present] = True
+    return mask, np.r_[0, np.cumsum(mask)]
+
+
+def replicate_layout(outcome: Outcome, rows: np.ndarray, sample: Outcome) -> fine_gray.Layout:
+    """:func:`fine_gray_layout` of ``sample``, the rows ``rows`` of ``outcome`` (a bootstrap
+    replicate, with its own case weights), without sorting or searching its times: from the
+    full sample's sorted times and each row's position in them (:class:`_Grids`). The same
+    layout bit for bit; kept in ``sample.cache``."""
+    cached = sample.cache.get(_LAYOUT)
+    if cached is not None:
+        return cached
+    assert sample.time is not None and sample.cause is not None
+    g = _grids(outcome)
+    t = np.asarray(sample.time, dtype=float)
+    c = np.asarray(sample.cause, dtype=float)
+    e = None if sample.entry is None else np.asarray(sample.entry, dtype=float)
+    _check(t, c, e)
+    w = np.ones(t.size) if sample.weights is None else np.asarray(sample.weights, dtype=float)
+    v_time = g.v_time[rows]
+    mask, count = _subset_counts(g.values.size, v_time[c == sample.event_of_interest] - 1)
+    searched = (g.values[mask], count[v_time],
+                None if g.v_entry is None else count[g.v_entry[rows]])
+    cens = c == 0
+    c_time = g.c_time[rows]
+    cmask, ccount = _subset_counts(g.cens.size, c_time[cens] - 1)
+    ct = g.cens[cmask]
+    hi = ccount[c_time]
+    lo = np.zeros(t.size, dtype=int) if g.c_entry is None else ccount[g.c_entry[rows]]
+    entry_part = None
+    if g.entries is not None and g.e_entry is not None and g.e_time is not None:
+        e_entry = g.e_entry[rows]
+        emask, ecount = _subset_counts(g.entries.size, e_entry)
+        entry_part = (g.entries[emask], ecount[e_entry], ecount[g.e_time[rows]])
+
+    def Q_at(at: np.ndarray) -> np.ndarray:
+        G = _censoring_steps(ct, hi, lo, cens, w, at) if ct.size else np.ones(np.shape(at))
+        H = np.ones(np.shape(at)) if entry_part is None else _entry_steps(*entry_part, w, at)
+        return G * H
+
+    layout = fine_gray.prepare(t, c, sample.event_of_interest, entry=e,
+                               weights=sample.weights, strata=sample.strata, Q_at=Q_at,
+                               searched=searched)
+    sample.cache[_LAYOUT] = layout
     return layout
 
 
@@ -360,6 +474,63 @@ def fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray
     if not np.all(np.isfinite(coef)):
         return None, None
     return coef, fine_gray.baseline(L, X @ coef)
+
+
+def fine_gray_replicate(X: np.ndarray, rows: np.ndarray, sample: Outcome, outcome: Outcome,
+                        start: np.ndarray) -> tuple[np.ndarray | None, pd.DataFrame | None]:
+    """:func:`fine_gray_near` of a bootstrap replicate of ``outcome`` (the full sample, whose
+    Fine–Gray layout its fit left in its cache) whose drawn rows are ``rows`` of the full
+    design ``X`` and whose outcome is ``sample`` (those rows, with their case weights): the
+    refit (:func:`unbin.models.fine_gray.fit_replicate`) takes the full sample's centring,
+    scaling and information at ``start``, prepared once per design and start
+    (:func:`unbin.models.fine_gray.near_start`, kept in ``outcome.cache``), instead of
+    evaluating the replicate's own information, on the replicate's layout made from the full
+    sample's sorted times (:func:`replicate_layout`); where it declines,
+    :func:`fine_gray_near` on the replicate's rows decides (its own information, then
+    Newton's method)."""
+    from ._glm import check_design
+
+    assert sample.cause is not None
+    near = _near_start(X, outcome, np.asarray(start, dtype=float))
+    X = np.asarray(X, dtype=float).reshape(outcome.n, -1)
+    Xm = X[rows]
+    cause = np.asarray(sample.cause)
+    names = tuple(f"x{j}" for j in range(X.shape[1]))
+    if near is None or not np.any(cause == sample.event_of_interest) \
+            or check_design(Xm, names):
+        return fine_gray_near(Xm, sample, start)
+    try:
+        L = replicate_layout(outcome, rows, sample)
+    except ValueError:  # the replicate's arrays: fine_gray_near reports it
+        return fine_gray_near(Xm, sample, start)
+    coef = fine_gray.fit_replicate(near, X, rows, L)
+    if coef is None:
+        return fine_gray_near(Xm, sample, start)
+    if not np.all(np.isfinite(coef)):
+        return None, None
+    return coef, fine_gray.baseline(L, Xm @ coef)
+
+
+def _near_start(X: np.ndarray, outcome: Outcome, start: np.ndarray
+                ) -> fine_gray.NearStart | None:
+    """The full sample's :func:`unbin.models.fine_gray.near_start` of the design ``X`` at
+    ``start`` on its cached Fine–Gray layout (None without one), kept in ``outcome.cache``
+    per design (the same array object ``X``, by a weak reference; an array that is not held
+    elsewhere is prepared anew) and start."""
+    L = outcome.cache.get(_LAYOUT)
+    if L is None:
+        return None
+    known: dict[int, tuple[weakref.ref[Any], np.ndarray, fine_gray.NearStart | None]] = \
+        outcome.cache.setdefault(_NEAR, {})
+    seen = known.get(id(X))
+    if seen is not None and seen[0]() is X and np.array_equal(seen[1], start):
+        return seen[2]
+    near = fine_gray.near_start(L, np.asarray(X, dtype=float).reshape(outcome.n, -1), start)
+    try:  # a weak reference: the cache must not keep the table's designs alive
+        known[id(X)] = (weakref.ref(X), start.copy(), near)
+    except TypeError:
+        pass
+    return near
 
 
 def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,

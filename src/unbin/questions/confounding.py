@@ -93,7 +93,9 @@ from ..refit.risk import horizon_for
 from ..refit.sampling_design import marginal_reason
 from ..refit.standardise import (
     MEASURES,
+    CauseBaseline,
     IncidenceWithheld,
+    cause_baseline,
     cif_risks,
     contrast,
     cox_risks,
@@ -282,15 +284,20 @@ class _Designs:
                         return None if v is None else v[m]
 
                     try:
+                        # the event of interest's baseline, shared by its standardised
+                        # survival and the cumulative incidence
+                        base = cause_baseline(Xm, coef, o.time[m], o.y[m], entry=pick(o.entry),
+                                              strata=pick(o.strata), layout=layout)
                         marg_cs[key][c0 + b] = cox_risks(Xm, it.k, coef, it.at, o.time[m],
                                                          o.y[m], self.horizon,
                                                          entry=pick(o.entry),
-                                                         strata=pick(o.strata), layout=layout)[0]
+                                                         strata=pick(o.strata), layout=layout,
+                                                         baseline=base)[0]
                         if self.causes and key not in self.incidence_off \
                                 and key not in self.incidence_boot_off:
                             marg[key][c0 + b] = self._replicate_incidence(
                                 c0 + b, it, Xm, m, coef, layout, layouts,
-                                replicate_rows(o, W[b])[1], replicates)
+                                replicate_rows(o, W[b])[1], replicates, base)
                     except IncidenceWithheld as e:
                         self.incidence_boot_off[key] = (
                             f"the bootstrap of {e} (summed over the {replicates} replicates): "
@@ -331,13 +338,14 @@ class _Designs:
     def _replicate_incidence(self, b: int, it: _Design, Xm: np.ndarray, m: np.ndarray,
                              coef: np.ndarray, layout: Layout,
                              layouts: dict[tuple[int, int], Layout | None],
-                             case: np.ndarray | None = None, replicates: int = 1
-                             ) -> np.ndarray:
+                             case: np.ndarray | None = None, replicates: int = 1,
+                             base: CauseBaseline | None = None) -> np.ndarray:
         """A replicate's standardised cumulative incidences of one design: each competing
         cause's Cox model refitted on the replicate's rows ``m`` (from its full-sample
         estimate; the layouts of a replicate shared by the designs), NaN when one fails; a
         row-by-row sum is allowed ``INCIDENCE_CELLS`` cells over the ``replicates`` and the
-        full sample."""
+        full sample; ``base``: the event of interest's baseline on those rows when the caller
+        has it (``standardise.cause_baseline``)."""
         o = self.r.outcome
         assert o.time is not None and o.cause is not None and self.horizon is not None
         entry = None if o.entry is None else o.entry[m]
@@ -375,7 +383,8 @@ class _Designs:
             lays.append(lay)
         return cif_risks(Xm, it.k, coefs, it.at, o.time[m], cause, self.causes, self.horizon,
                          entry=entry, strata=strata, layout=layout, other_layouts=lays,
-                         max_cells=INCIDENCE_CELLS / (replicates + 1), groups=it.groups[m])[0]
+                         max_cells=INCIDENCE_CELLS / (replicates + 1), groups=it.groups[m],
+                         baseline=base, with_note=False)[0]
 
 
 @dataclass(frozen=True)

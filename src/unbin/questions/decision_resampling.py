@@ -82,7 +82,7 @@ from scipy import special
 
 from ..models import Outcome, fit
 from ..models.base import FitResult
-from ..models.competing import fine_gray_near, fit_fine_gray
+from ..models.competing import fine_gray_replicate, fit_fine_gray
 from ..models.cox import (
     concordance,
     concordance_order,
@@ -535,16 +535,17 @@ def fine_gray_risks(r: Refit, models: dict[tuple[str, str], Model], horizon: flo
         if m is None:
             continue
         if id(m) not in done:
-            X = m.X if rows is None else m.X[rows]
             start = None if rows is None or starts is None else starts.get(k)
             if start is None:
+                X = m.X if rows is None else m.X[rows]
                 res = fit_fine_gray(X, sample, np.asarray(sample.cause), o.event_of_interest,
                                     m.res.names)
                 coef = res.coef if res.ok and np.all(np.isfinite(res.coef)) else None
                 base = res.extra.get("baseline") if coef is not None else None
                 message = res.message
             else:  # a replicate: coefficients only, from the full-sample estimate
-                coef, base = _fine_gray_near(X, sample, start[0])
+                assert rows is not None
+                coef, base = _fine_gray_near(m.X, rows, sample, o, start[0])
                 message = "no convergence from the full-sample estimate"
             got: RiskZ = None
             if coef is not None:
@@ -563,13 +564,14 @@ def fine_gray_risks(r: Refit, models: dict[tuple[str, str], Model], horizon: flo
     return out, notes
 
 
-def _fine_gray_near(X: np.ndarray, sample: Outcome, start: np.ndarray,
-                    ) -> tuple[np.ndarray | None, Any]:
+def _fine_gray_near(X: np.ndarray, rows: np.ndarray, sample: Outcome, full: Outcome,
+                    start: np.ndarray) -> tuple[np.ndarray | None, Any]:
     """A replicate's Fine–Gray coefficients and Breslow baseline (at covariates 0) as
     :func:`unbin.models.competing.fit_fine_gray` gives them, without its sandwich variance,
-    which the replicate does not need: Newton steps from ``start``
-    (:func:`unbin.models.competing.fine_gray_near`)."""
-    return fine_gray_near(X, sample, start)
+    which the replicate does not need: secant steps from ``start`` that begin with the full
+    sample ``full``'s information (its design ``X``; the replicate's rows ``rows``, its
+    outcome ``sample``; :func:`unbin.models.competing.fine_gray_replicate`)."""
+    return fine_gray_replicate(X, rows, sample, full, start)
 
 
 class _Evaluator:

@@ -68,6 +68,18 @@ def row_incidence(log_risk: np.ndarray, D: np.ndarray) -> np.ndarray:
     return out
 
 
+def shifted_sums(u: np.ndarray, w: np.ndarray, shifts: np.ndarray,
+                 D: np.ndarray) -> np.ndarray:
+    """``sum_i w_i F(u_i + shifts[s])`` for each row ``s`` of ``shifts``, row by row
+    (:func:`row_incidence` of every row at every shift in one pass)."""
+    m, C = u.shape
+    if m == 0:
+        return np.zeros(len(shifts))
+    stacked = (u[None, :, :] + np.asarray(shifts, dtype=float)[:, None, :]).reshape(-1, C)
+    F = row_incidence(stacked, D).reshape(len(shifts), m)
+    return np.array([w @ F[j] for j in range(len(shifts))])
+
+
 def _points(g: int) -> np.ndarray:
     """Chebyshev points of the second kind on [-1, 1], ``x_j = cos(pi j / (g - 1))``."""
     return np.cos(np.pi * np.arange(g) / (g - 1)) if g > 1 else np.zeros(1)
@@ -126,6 +138,30 @@ def _moments(x: np.ndarray, w: np.ndarray, shape: tuple[int, ...]) -> np.ndarray
     return M.reshape(shape)
 
 
+def _node_values(nodes: np.ndarray, shape: tuple[int, ...], coarser: list[np.ndarray],
+                 shifts: np.ndarray, D: np.ndarray) -> list[np.ndarray]:
+    """``F(log node + shift)`` at every node of the tensor grid ``nodes`` (``shape`` + (axes,))
+    for each shift; ``coarser``: the values of the previous grid of the same box (empty at the
+    first), whose nodes are this grid's nodes of even index along every axis whose degree
+    doubled (second-kind points are nested: ``cos(pi 2j / 2m) = cos(pi j / m)``, the same
+    floating-point node), so only the new nodes are evaluated."""
+    if not coarser:
+        flat = np.log(nodes.reshape(-1, len(shape)))
+        return [row_incidence(flat + s, D).reshape(shape) for s in shifts]
+    old = tuple(slice(None, None, 2) if n != m else slice(None)
+                for n, m in zip(shape, coarser[0].shape, strict=True))
+    new = np.ones(shape, dtype=bool)
+    new[old] = False
+    fresh = np.log(nodes[new])
+    out = []
+    for s, before in zip(shifts, coarser, strict=True):
+        v = np.empty(shape)
+        v[old] = before
+        v[new] = row_incidence(fresh + s, D)
+        out.append(v)
+    return out
+
+
 def _box_sums(r: np.ndarray, w: np.ndarray, shifts: np.ndarray, D: np.ndarray,
               budget: int) -> tuple[np.ndarray, int] | None:
     """The sums of one box of relative hazards ``r`` (rows, causes) and the nodes used; None
@@ -133,14 +169,16 @@ def _box_sums(r: np.ndarray, w: np.ndarray, shifts: np.ndarray, D: np.ndarray,
     lo, hi = r.min(axis=0), r.max(axis=0)
     g = [1 if h == low else _FIRST for low, h in zip(lo, hi, strict=True)]
     used = 0
+    values: list[np.ndarray] = []
     while True:
-        used += math.prod(g)
+        used += math.prod(g)  # the budget counts every node of every degree tried
         if used > budget:
             return None
         axes = [low + (h - low) * (1.0 + _points(n)) / 2.0
                 for low, h, n in zip(lo, hi, g, strict=True)]
-        nodes = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, len(g))
-        coefs = [_coefficients(row_incidence(np.log(nodes) + s, D).reshape(g)) for s in shifts]
+        nodes = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1)
+        values = _node_values(nodes, tuple(g), values, shifts, D)
+        coefs = [_coefficients(v) for v in values]
         tails = np.max([_tails(c) for c in coefs], axis=0)
         if np.all(tails <= TAIL):
             break

@@ -42,14 +42,16 @@ the design with the coefficient matrix, never from refits.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import special
 
 from ..models.cox import Layout
 from ..models.cox.baseline import baseline_steps
-from .incidence_sum import interpolated_sums, row_incidence
+from .incidence_sum import interpolated_sums, shifted_sums
 from .risk import cumhaz_at, horizon_notes
 
 # a stratum with at most this many distinct rows, or distinct rows x event times up to the
@@ -130,22 +132,49 @@ def glm_means(family: str, X: np.ndarray, k: int, coef: np.ndarray, at: Sequence
     return out
 
 
+@dataclass(frozen=True)
+class CauseBaseline:
+    """One cause's Cox model on the rows given, as the standardised risks use it: the linear
+    predictor ``eta = X b`` of every row, its mean ``centre`` and the Breslow baseline steps
+    (stratum, time, cumulative hazard) at the centred predictor (:func:`cause_baseline`)."""
+
+    eta: np.ndarray
+    centre: float
+    steps: tuple[np.ndarray, np.ndarray, np.ndarray]
+
+
+def cause_baseline(X: np.ndarray, coef: np.ndarray, time: np.ndarray, event: np.ndarray, *,
+                   entry: np.ndarray | None = None, strata: np.ndarray | None = None,
+                   layout: Layout | None = None) -> CauseBaseline:
+    """The linear predictor, its mean and the Breslow baseline at the centred predictor of the
+    Cox model with coefficients ``coef`` on the rows given (``layout``: the Cox layout of
+    ``event`` on those rows, as for :func:`unbin.models.cox.baseline_cumhaz`). What
+    :func:`cox_risks` and :func:`cif_risks` (for the event of interest) both need: a caller
+    that needs both passes it to each."""
+    eta = np.asarray(X, dtype=float) @ np.asarray(coef, dtype=float)
+    centre = float(np.mean(eta)) if eta.size else 0.0  # baseline at the centred predictor
+    steps = baseline_steps((eta - centre)[:, None], time, event, [1.0], entry=entry,
+                           strata=strata, layout=layout)
+    return CauseBaseline(eta, centre, steps)
+
+
 def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
               time: np.ndarray, event: np.ndarray, horizon: float, *,
               entry: np.ndarray | None = None, strata: np.ndarray | None = None,
-              layout: Layout | None = None) -> tuple[np.ndarray, str]:
+              layout: Layout | None = None,
+              baseline: CauseBaseline | None = None) -> tuple[np.ndarray, str]:
     """Standardised risks by ``horizon`` (module docstring) of the Cox model with coefficients
     ``coef`` (no intercept) on the rows given (a replicate's rows repeated as drawn), at each
     exposure basis row in ``at``; the baseline is Breslow's on the same rows (``layout`` as
-    for :func:`unbin.models.cox.baseline_cumhaz`). Returns (risks, note on the horizon)."""
+    for :func:`unbin.models.cox.baseline_cumhaz`; ``baseline``: :func:`cause_baseline` of
+    these arguments when the caller has it). Returns (risks, note on the horizon)."""
     X = np.asarray(X, dtype=float)
     coef = np.asarray(coef, dtype=float)
-    eta = X @ coef
-    centre = float(np.mean(eta)) if eta.size else 0.0  # baseline at the centred predictor
-    base = baseline_steps((eta - centre)[:, None], time, event, [1.0], entry=entry,
-                          strata=strata, layout=layout)
-    h0, held, empty = cumhaz_at(base, strata, X.shape[0], horizon)
-    rest = eta - centre - X[:, :k] @ coef[:k]
+    if baseline is None:
+        baseline = cause_baseline(X, coef, time, event, entry=entry, strata=strata,
+                                  layout=layout)
+    h0, held, empty = cumhaz_at(baseline.steps, strata, X.shape[0], horizon)
+    rest = baseline.eta - baseline.centre - X[:, :k] @ coef[:k]
     out = np.empty(len(at))
     for j, a in enumerate(at):
         shift = float(np.asarray(a, dtype=float) @ coef[:k])
@@ -170,49 +199,47 @@ def cif_risks(X: np.ndarray, k: int, coefs: Sequence[np.ndarray], at: Sequence[n
               layout: Layout | None = None,
               other_layouts: Sequence[Layout | None] | None = None,
               max_cells: float | None = None,
-              groups: np.ndarray | None = None) -> tuple[np.ndarray, str]:
+              groups: np.ndarray | None = None,
+              baseline: CauseBaseline | None = None,
+              with_note: bool = True) -> tuple[np.ndarray, str]:
     """Standardised cumulative incidences of ``causes[0]`` by ``horizon`` (module docstring)
     from the cause-specific Cox models of every cause in ``causes`` (``coefs[j]`` the
     coefficients of cause ``causes[j]`` on ``X``; no intercept), on the rows given, at each
     exposure basis row in ``at``. ``layout`` is the Cox layout of ``causes[0]``'s event
-    indicator; ``other_layouts`` those of ``causes[1:]`` (laid out here when not given).
+    indicator; ``other_layouts`` those of ``causes[1:]`` (laid out here when not given);
+    ``baseline`` the :func:`cause_baseline` of ``causes[0]`` when the caller has it.
     Rows with the same predictors are computed once: ``groups`` (optional) numbers the rows'
     patterns (rows of one number have the same ``X[:, k:]``; a design's numbering serves all
     its bootstrap replicates), otherwise the distinct rows of the linear predictors are
     sorted out here. Each stratum's sum over its distinct rows is interpolated
     (``refit.incidence_sum``) when they are more than ``INTERPOLATE_ROWS`` and have more than
-    ``DIRECT_CELLS`` cells (distinct rows x event times up to the horizon), otherwise, or when the interpolation cannot be used,
-    summed row by row; that row-by-row sum is refused above ``max_cells`` cells
-    (:class:`IncidenceWithheld`, its message saying why).
-    Returns (incidences, note on the horizon)."""
+    ``DIRECT_CELLS`` cells (distinct rows x event times up to the horizon), otherwise, or when
+    the interpolation cannot be used, summed row by row, every exposure value in one pass;
+    that row-by-row sum is refused above ``max_cells`` cells (:class:`IncidenceWithheld`, its
+    message saying why). Returns (incidences, note on the horizon; "" without
+    ``with_note``)."""
     X = np.asarray(X, dtype=float)
     cause = np.asarray(cause)
     n = X.shape[0]
-    labels = np.zeros(n, dtype=np.int64) if strata is None else np.asarray(strata)
-    bases, rests, slopes = [], [], []
-    note = ""
+    fitted: list[CauseBaseline] = []
     for j, (c, b) in enumerate(zip(causes, coefs, strict=True)):
-        b = np.asarray(b, dtype=float)
-        eta = X @ b
-        centre = float(np.mean(eta)) if eta.size else 0.0
-        base = baseline_steps((eta - centre)[:, None], time, (cause == c).astype(float), [1.0],
-                              entry=entry, strata=strata,
-                              layout=layout if j == 0 else (
-                                  None if other_layouts is None else other_layouts[j - 1]))
-        if j == 0:
-            _, held, empty = cumhaz_at(base, strata, n, horizon)
-            note = horizon_notes(horizon, held, empty, strata is not None)
-        bases.append(base)
-        rests.append(eta - centre - X[:, :k] @ b[:k])
-        slopes.append(b[:k])
+        if j == 0 and baseline is not None:
+            fitted.append(baseline)
+            continue
+        lay = layout if j == 0 else (None if other_layouts is None else other_layouts[j - 1])
+        fitted.append(cause_baseline(X, b, time, (cause == c).astype(float), entry=entry,
+                                     strata=strata, layout=lay))
+    note = ""
+    if with_note:
+        _, held, empty = cumhaz_at(fitted[0].steps, strata, n, horizon)
+        note = horizon_notes(horizon, held, empty, strata is not None)
+    slopes = [np.asarray(b, dtype=float)[:k] for b in coefs]
     shifts = np.array([[float(np.asarray(a, dtype=float) @ s) for s in slopes] for a in at])
-    rest_all = np.column_stack(rests)  # (n, causes)
     out = np.zeros(len(at))
-    for lab in np.unique(labels):
-        rows = labels == lab
+    for lab, rest_u, count in _patterns(X, k, fitted, slopes, strata, groups):
         steps = []
-        for base in bases:
-            st, t, cum = base
+        for f in fitted:
+            st, t, cum = f.steps
             part = (st == lab) & (t <= horizon)
             steps.append((t[part], np.diff(cum[part], prepend=0.0)))
         grid = np.unique(np.concatenate([t for t, _ in steps]))
@@ -221,17 +248,6 @@ def cif_risks(X: np.ndarray, k: int, coefs: Sequence[np.ndarray], at: Sequence[n
         D = np.zeros((len(steps), grid.size))  # baseline increments of each cause on the grid
         for j, (t, d) in enumerate(steps):
             D[j, np.searchsorted(grid, t)] = d
-        if groups is not None:  # rows of one pattern share their predictors
-            ids = np.asarray(groups)[rows]
-            count_all = np.bincount(ids)
-            present = np.flatnonzero(count_all)
-            first = np.zeros(count_all.size, dtype=np.int64)
-            first[ids] = np.flatnonzero(rows)  # any row of the pattern stands for it
-            rest_u, count = rest_all[first[present]], count_all[present]
-        else:
-            # rows with the same predictors (a replicate's rows drawn more than once) share
-            # one incidence, counted as often as they occur
-            rest_u, count = _distinct_rows(rest_all[rows])
         sums = None
         if count.size > INTERPOLATE_ROWS and count.size * grid.size > DIRECT_CELLS:
             sums = interpolated_sums(rest_u, count, shifts, D)  # refit/incidence_sum
@@ -244,6 +260,45 @@ def cif_risks(X: np.ndarray, k: int, coefs: Sequence[np.ndarray], at: Sequence[n
                     f"increments) and its row-by-row sum would take {cells:.1e} row-time "
                     f"cells ({count.size:,} distinct rows x {grid.size:,} event times up to "
                     f"the horizon x {len(shifts)} exposure values; limit {max_cells:.0e})")
-            sums = np.array([count @ row_incidence(rest_u + shift, D) for shift in shifts])
+            sums = shifted_sums(rest_u, count, shifts, D)
         out += sums
     return out / n, note
+
+
+def _patterns(X: np.ndarray, k: int, fitted: Sequence[CauseBaseline],
+              slopes: Sequence[np.ndarray], strata: np.ndarray | None,
+              groups: np.ndarray | None) -> Iterator[tuple[Any, np.ndarray, np.ndarray]]:
+    """Per stratum (label), the distinct rows' log relative hazards without the exposure part
+    (rows, causes) and how often each occurs: with ``groups``, one row standing for each
+    pattern of the stratum (the last of its rows), found for all strata in one pass;
+    otherwise the distinct rows of the linear predictors."""
+    n = X.shape[0]
+    if strata is None:
+        uniq, codes = np.zeros(1, dtype=np.int64), None
+    else:
+        uniq, codes = np.unique(np.asarray(strata), return_inverse=True)
+        codes = codes.reshape(-1)
+    if groups is None:
+        rest_all = np.column_stack([f.eta - f.centre - X[:, :k] @ s
+                                    for f, s in zip(fitted, slopes, strict=True)])
+        for c, lab in enumerate(uniq):
+            mine = rest_all if codes is None else rest_all[codes == c]
+            rest_u, count = _distinct_rows(mine)
+            yield lab, rest_u, count
+        return
+    g = np.asarray(groups, dtype=np.int64)
+    span = int(g.max()) + 1 if n else 1
+    key = g if codes is None else codes * span + g
+    count_all = np.bincount(key)
+    present = np.flatnonzero(count_all)
+    first = np.zeros(count_all.size, dtype=np.int64)
+    first[key] = np.arange(n)  # the last row of each pattern stands for it
+    rows = first[present]
+    rest = np.column_stack([f.eta[rows] - f.centre - X[rows, :k] @ s
+                            for f, s in zip(fitted, slopes, strict=True)])
+    count = count_all[present]
+    bounds = np.searchsorted(present // span, np.arange(uniq.size + 1))
+    for c, lab in enumerate(uniq):
+        lo, hi = bounds[c], bounds[c + 1]
+        if hi > lo:
+            yield lab, rest[lo:hi], count[lo:hi]
