@@ -25,7 +25,7 @@ cache); :func:`fit` is Newton's method with step halving and the Cox engine's st
 (the next step would change no row's linear predictor by more than ``100 * tol``; that step
 is then taken, the log-likelihood its quadratic prediction, the covariance the inverse
 information at the last point); :func:`score_terms` gives each person's Cox score residual
-summed over what would be their expanded rows, and :func:`weight_row_sums` the sums the
+summed over what would be their expanded rows, and :func:`spanned_sums` the sums the
 weights' estimation terms need (``unbin.models.competing.weight_estimation_scores``).
 Bootstrap replicates are refitted from the full-sample estimate: :func:`fit_near` from the
 replicate's own information, :func:`fit_replicate` from the full sample's (:func:`near_start`,
