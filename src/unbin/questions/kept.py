@@ -50,6 +50,7 @@ from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
     cox_near_starts,
+    cox_replicate_refits,
     cox_robust_wald,
     design_resample_weights,
     glm_robust_wald,
@@ -140,7 +141,14 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
     out = [np.full(len(W), np.nan) for _ in models]
     starts = [None] * len(models) if robust else cox_near_starts(
         outcome, [mod.X for mod in models], [mod.res.coef for mod in models])
-    for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
+    # every replicate of a model at once (its full-sample start); one at a time below where
+    # that did not settle
+    batched = cox_replicate_refits(outcome, [mod.X for mod in models], starts, W, True)
+    for out_j, got in zip(out, batched, strict=True):
+        if got is not None:
+            out_j[got.done] = got.loglik[got.done]
+    which = [b for b in range(len(W)) if any(got is None or not got.done[b] for got in batched)]
+    for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W, which):
         if robust:
             case = replicate_rows(outcome, W[b])[1]
             clusters = replicate_clusters(outcome, m)
@@ -155,6 +163,9 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
                 if f.converged and np.all(np.isfinite(f.coef)):
                     out[j][b] = cox_robust_wald(Xm, (time, event, entry, strata), case,
                                                 clusters, f.coef, f.cov, mod.k)
+                continue
+            got = batched[j]
+            if got is not None and got.done[b]:
                 continue
             # secant steps from the full-sample estimate (its information scaled); the
             # full fit where they do not settle (or the model has no columns)

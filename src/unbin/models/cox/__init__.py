@@ -52,6 +52,7 @@ from .fit import (
     refit_replicate,
 )
 from .layout import Layout, prepare_layout
+from .replicates import ReplicateRefits, refit_replicates
 
 __all__ = [
     "CoxFit",
@@ -69,4 +70,6 @@ __all__ = [
     "refit_near",
     "refit_near_loglik",
     "refit_replicate",
+    "refit_replicates",
+    "ReplicateRefits",
 ]
