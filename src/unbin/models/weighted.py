@@ -494,17 +494,30 @@ def cox_replicate_refits(outcome: Outcome, Xs: Sequence[np.ndarray],
     ``unbin.models.cox.refit_replicate`` and ``fit_cox`` one at a time, as before; so do all
     of them when there are fewer than ``_BATCH_MIN`` (a caller that refits replicate by
     replicate and lays out each replicate's rows anyway)."""
-    from .cox import refit_replicates
+    from .cox import ReplicateRefits, refit_replicates
 
     layout = outcome.cache.get(_NEAR_LAYOUT)
     W = np.atleast_2d(np.asarray(W, dtype=float))
-    if layout is None or all(start is None for start in starts) or len(W) < _BATCH_MIN:
+    B = len(W)
+    if layout is None or all(start is None for start in starts) or B < _BATCH_MIN:
         return [None] * len(Xs)
-    copies = replicate_copies(outcome, W)
-    return [None if start is None else
-            refit_replicates(start, np.asarray(X, dtype=float).reshape(outcome.n, -1), layout,
-                             copies, W, with_loglik=with_loglik)
-            for X, start in zip(Xs, starts, strict=True)]
+    designs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X in Xs]
+    p = [X.shape[1] for X in designs]
+    coef = [np.full((B, k), np.nan) for k in p]
+    loglik = [np.full(B, np.nan) for _ in p]
+    done = [np.zeros(B, dtype=bool) for _ in p]
+    # the draw counts a slice of replicates at a time (with weights they are a new array)
+    step = max(_BATCH_SLICE, _CHUNK_CELLS // max(1, outcome.n))
+    for lo in range(0, B, step):
+        part = slice(lo, min(B, lo + step))
+        copies = replicate_copies(outcome, W[part])
+        for j, (X, start) in enumerate(zip(designs, starts, strict=True)):
+            if start is None:
+                continue
+            got = refit_replicates(start, X, layout, copies, W[part], with_loglik=with_loglik)
+            coef[j][part], loglik[j][part], done[j][part] = got.coef, got.loglik, got.done
+    return [None if start is None else ReplicateRefits(coef[j], loglik[j], done[j])
+            for j, start in enumerate(starts)]
 
 
 def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
@@ -556,6 +569,7 @@ def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
 _NEAR_LAYOUT = "cox_near_layout"
 _NEAR_STARTS = "cox_near_starts"
 _BATCH_MIN = 4  # replicates of one call refitted at once from this many on
+_BATCH_SLICE = 64  # replicates whose draw counts are made at once (at least)
 
 
 # -- robust Wald statistics of the replicates ----------------------------------------------------

@@ -215,18 +215,18 @@ def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: np.nda
         prepared = [WeightedGLM(family, mod.X, outcome, mod.res.coef) for mod in unique]
         # large samples: every replicate refitted in one go (WeightedGLM.whole)
         whole = [g.coef(W_all) if g.whole else None for g in prepared]
-    for c0 in range(0, replicates, chunk):
-        W = W_all[c0:c0 + chunk]
-        if family == "survival":
-            for j, v in enumerate(_cox_logliks(unique, outcome, W, robust)):
-                ll_unique[c0:c0 + len(W), j] = v
-            continue
-        for j, (mod, g) in enumerate(zip(unique, prepared, strict=True)):
-            got = whole[j]
-            coef = g.coef(W) if got is None else got[c0:c0 + len(W)]
-            ll_unique[c0:c0 + len(W), j] = (
-                glm_robust_wald(family, mod.X, outcome, coef, W, mod.k) if robust
-                else glm_logliks(family, mod.X, coef, outcome, W))
+    if family == "survival":  # every replicate in one call (the refits block them)
+        for j, v in enumerate(_cox_logliks(unique, outcome, W_all, robust)):
+            ll_unique[:, j] = v
+    else:
+        for c0 in range(0, replicates, chunk):
+            W = W_all[c0:c0 + chunk]
+            for j, (mod, g) in enumerate(zip(unique, prepared, strict=True)):
+                got = whole[j]
+                coef = g.coef(W) if got is None else got[c0:c0 + len(W)]
+                ll_unique[c0:c0 + len(W), j] = (
+                    glm_robust_wald(family, mod.X, outcome, coef, W, mod.k) if robust
+                    else glm_logliks(family, mod.X, coef, outcome, W))
     ll = ll_unique[:, [col[id(mod)] for mod in models]].reshape(replicates, k, 3)
     if robust:  # robust Wald statistics of the exposure (0 for the null model)
         lr_legacy, lr_full = ll[:, :, 1], ll[:, :, 2]
