@@ -218,3 +218,21 @@ def test_many_strata_and_blocks() -> None:
         m = np.repeat(np.arange(n), C[b].astype(int))
         ref = fit_cox(X[m], time[m], event[m], entry=entry[m], strata=stratum[m], tol=1e-13)
         assert _lp_apart(X[m], wide.coef[b], ref.coef) <= BOUND
+
+
+def test_null_model_loglik(rossi: pd.DataFrame) -> None:
+    # reference: fit_cox's log partial likelihood of a design without columns on each drawn
+    # data set (the engine's, checked against lifelines and statsmodels in test_cox.py)
+    X, s, coef, _, _ = _prepared(rossi)
+    o = Outcome("survival", s["event"], time=s["time"], entry=s["entry"], strata=s["strata"])
+    null = np.zeros((len(rossi), 0))
+    starts = weighted.cox_near_starts(o, [null, X], [np.zeros(0), coef])
+    assert starts[0] is None and starts[1] is not None
+    C = _copies(len(rossi), 5, 41)
+    got = weighted.cox_replicate_refits(o, [null, X], starts, C, with_loglik=True)
+    assert got[0] is not None and got[0].done.all()
+    for b in range(len(C)):
+        m = np.repeat(np.arange(len(rossi)), C[b].astype(int))
+        sb = _sample(rossi, m)
+        ref = fit_cox(null[m], sb["time"], sb["event"], entry=sb["entry"], strata=sb["strata"])
+        assert got[0].loglik[b] == pytest.approx(ref.loglik, rel=1e-12)

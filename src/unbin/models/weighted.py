@@ -490,11 +490,13 @@ def cox_replicate_refits(outcome: Outcome, Xs: Sequence[np.ndarray],
     """Per design ``Xs[j]`` with a start (``cox_near_starts``), the secant refits of all the
     replicates of refit weights ``W`` (B, n) at once (``unbin.models.cox.refit_replicates``:
     each replicate's drawn data set, a row drawn k times as k rows, through the full sample's
-    layout); None for a design without a start. A replicate not ``done`` there goes to
+    layout; a design without columns, whose refit is its log partial likelihood at no
+    coefficients, needs no start); None for a design without a start. A replicate not
+    ``done`` there goes to
     ``unbin.models.cox.refit_replicate`` and ``fit_cox`` one at a time, as before; so do all
     of them when there are fewer than ``_BATCH_MIN`` (a caller that refits replicate by
     replicate and lays out each replicate's rows anyway)."""
-    from .cox import ReplicateRefits, refit_replicates
+    from .cox import NearStart, ReplicateRefits, refit_replicates
 
     layout = outcome.cache.get(_NEAR_LAYOUT)
     W = np.atleast_2d(np.asarray(W, dtype=float))
@@ -503,6 +505,10 @@ def cox_replicate_refits(outcome: Outcome, Xs: Sequence[np.ndarray],
         return [None] * len(Xs)
     designs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X in Xs]
     p = [X.shape[1] for X in designs]
+    # a design without columns (a null model) has nothing to refit: its log partial
+    # likelihood is read at the empty coefficient vector, as fit_cox reads it
+    starts = [NearStart(outcome.n, np.zeros(0), np.ones(0), np.zeros(0), np.zeros((0, 0)), True)
+              if start is None and k == 0 else start for start, k in zip(starts, p, strict=True)]
     coef = [np.full((B, k), np.nan) for k in p]
     loglik = [np.full(B, np.nan) for _ in p]
     done = [np.zeros(B, dtype=bool) for _ in p]

@@ -44,7 +44,7 @@ _MAX_WIDTH = 256
 # a replicate's largest value of a column is that of its first row in the column's order of
 # values; the rows with the _EXTREMES largest (smallest) values are looked at first (a row is
 # in a replicate with probability about 0.63), all rows only when none of them is
-_EXTREMES = 64
+_EXTREMES = 16
 
 
 @dataclass(frozen=True)
@@ -131,19 +131,27 @@ class _Fixed:
             Z1[:, p] = -eta0.max()
         else:
             Z1[:, p] = -np.repeat(np.maximum.reduceat(eta0, L.row_starts), L.row_counts)
-        T = min(m, _EXTREMES)
-        top, bottom = np.empty((p, T), dtype=np.int64), np.empty((p, T), dtype=np.int64)
-        for j in range(p):
-            col = Z1[:, j]
-            for out, sign in ((top, -1.0), (bottom, 1.0)):
-                key = sign * col
-                part = np.argpartition(key, T - 1)[:T] if T < m else np.arange(m)
-                out[j] = part[np.argsort(key[part], kind="stable")]
+        if "extremes" not in start.memo:  # the same for every call with this start
+            start.memo["extremes"] = _extremes(Z1[:, :p])
+        top, bottom = start.memo["extremes"]
         return cls(L, Z1, np.ascontiguousarray(Z1[L.ev]), ev_op, ev_k, top, bottom)
 
     @property
     def Z(self) -> np.ndarray:
         return self.Z1[:, :-1]
+
+
+def _extremes(Z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(p, T) rows of each column of ``Z`` with the T largest values, largest first, and with
+    the T smallest, smallest first."""
+    m, p = Z.shape
+    T = min(m, _EXTREMES)
+    top, bottom = np.empty((p, T), dtype=np.int64), np.empty((p, T), dtype=np.int64)
+    for j in range(p):
+        for out, key in ((top, -Z[:, j]), (bottom, Z[:, j])):
+            part = np.argpartition(key, T - 1)[:T] if T < m else np.arange(m)
+            out[j] = part[np.argsort(key[part], kind="stable")]
+    return top, bottom
 
 
 class _Work:
@@ -334,7 +342,7 @@ def _settled(F: _Fixed, blk: _Block, cols: np.ndarray, step: np.ndarray,
     near = np.flatnonzero(~out & (bound <= max(1e-3, 10.0 * limit)))
     if near.size:
         change = np.abs(step[near] @ F.Z.T)  # (near, m)
-        change[~blk.kept[cols[near]]] = 0.0
+        change *= blk.kept[cols[near]]
         out[near] = change.max(axis=1) <= limit
     return out
 
