@@ -1,6 +1,7 @@
 """The proportional-hazards engine: Cox partial likelihood on numpy arrays (``inputs``: the
 checks of the arrays; ``layout``: the sorted sample and its risk sets; ``likelihood``: the log
-partial likelihood, score and information; ``fit``: the Newton fit; ``baseline``: baseline
+partial likelihood, score and information; ``fit``: the Newton fit; ``replicates``: the
+refits of many bootstrap replicates at once; ``baseline``: baseline
 hazard and absolute risk; ``concordance``: Harrell's C).
 
 What it does
