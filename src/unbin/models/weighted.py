@@ -495,13 +495,16 @@ def cox_replicate_refits(outcome: Outcome, Xs: Sequence[np.ndarray],
     ``done`` there goes to
     ``unbin.models.cox.refit_replicate`` and ``fit_cox`` one at a time, as before; so do all
     of them when there are fewer than ``_BATCH_MIN`` (a caller that refits replicate by
-    replicate and lays out each replicate's rows anyway)."""
+    replicate and lays out each replicate's rows anyway) or the sample has more than
+    ``_BATCH_ROWS`` rows (there a batched evaluation costs more per replicate than the
+    one-at-a-time one and the layout it saves: ``benchmarks/cox_refits.py``)."""
     from .cox import NearStart, ReplicateRefits, refit_replicates
 
     layout = outcome.cache.get(_NEAR_LAYOUT)
     W = np.atleast_2d(np.asarray(W, dtype=float))
     B = len(W)
-    if layout is None or all(start is None for start in starts) or B < _BATCH_MIN:
+    if (layout is None or all(start is None for start in starts) or B < _BATCH_MIN
+            or outcome.n > _BATCH_ROWS):
         return [None] * len(Xs)
     designs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X in Xs]
     p = [X.shape[1] for X in designs]
@@ -576,6 +579,7 @@ _NEAR_LAYOUT = "cox_near_layout"
 _NEAR_STARTS = "cox_near_starts"
 _BATCH_MIN = 4  # replicates of one call refitted at once from this many on
 _BATCH_SLICE = 64  # replicates whose draw counts are made at once (at least)
+_BATCH_ROWS = 300_000  # rows of the sample up to which they are refitted at once
 
 
 # -- robust Wald statistics of the replicates ----------------------------------------------------

@@ -122,7 +122,9 @@ class _Fixed:
     def of(cls, L: Layout, Xa: np.ndarray, start: NearStart) -> _Fixed:
         m, p = L.order.size, start.mean.size
         Z1 = np.empty((m, p + 1))
-        Z1[:, :p] = (Xa[L.order] - start.mean) / start.scale
+        Z1[:, :p] = Xa[L.order]
+        Z1[:, :p] -= start.mean
+        Z1[:, :p] /= start.scale
         ev_k = L.b_idx[L.ev] - 1
         E, K = L.ev.size, L.k_time.size
         ev_op = sparse.csr_matrix((np.ones(E), (ev_k, np.arange(E))), shape=(K, E))
@@ -195,7 +197,8 @@ class _Block:
     @classmethod
     def of(cls, F: _Fixed, copies: np.ndarray, weights: np.ndarray, start: NearStart) -> _Block:
         L = F.L
-        W = np.ascontiguousarray(weights[:, L.order].T)  # (m, A)
+        W_rows = np.take(weights, L.order, axis=1)  # (A, m)
+        W = np.ascontiguousarray(W_rows.T)  # (m, A)
         rows_ev = L.order[L.ev]
         We = np.ascontiguousarray(weights[:, rows_ev].T)  # (E, A)
         A, p = W.shape[1], F.top.shape[0]
@@ -207,13 +210,14 @@ class _Block:
         event_weight = We.sum(axis=0)
         # a row is in the replicate's own layout when it is drawn and at risk at one of the
         # replicate's event times at least
-        cum = _forward_cum(L, has.astype(float))
-        kept = np.take(cum, L.b_idx, axis=0)
+        cum = np.ascontiguousarray(_forward_cum(L, has.astype(float)).T)  # (A, K + 1)
+        at_risk = np.take(cum, L.b_idx, axis=1)
         if L.late_entry:
-            kept -= np.take(cum, L.a_idx, axis=0)
-        kept = (kept > 0.5).T  # (A, m)
-        kept &= (W > 0).T
-        kept = np.ascontiguousarray(kept)
+            at_risk -= np.take(cum, L.a_idx, axis=1)
+        kept = at_risk > 0.5  # (A, m)
+        del at_risk
+        kept &= W_rows > 0
+        del W_rows
         # each column's largest and smallest value among those rows
         hi, lo = np.empty((A, p)), np.empty((A, p))
         for j in range(p):
@@ -231,16 +235,19 @@ class _Block:
         top = np.maximum(np.abs(hi), np.abs(lo)) + np.abs(start.mean) * inv
         flat = ~(hi - lo > 1e-12 * np.maximum(inv, top))
         bad = ~(event_weight > 0) | flat.any(axis=1) | ~kept.any(axis=1)
-        if start.efron:
-            extra = np.maximum(d - 1.0, 0.0).astype(np.int64).ravel()  # (K * A), k major
-        else:
-            extra = np.zeros(d.size, dtype=np.int64)
-        t_at = np.repeat(np.arange(extra.size), extra)
-        run = np.cumsum(extra) - extra
-        ell = (np.arange(t_at.size) - run[t_at] + 1).astype(float)
-        t_f = ell / d.ravel()[t_at]
+        # Efron's terms l = 1 .. d - 1 of each (event time, replicate), k major
+        extra = np.maximum(d - 1.0, 0.0).astype(np.int64).ravel() if start.efron else \
+            np.zeros(d.size, dtype=np.int64)
+        key = np.flatnonzero(extra)  # the (k, a) with terms
+        run = (np.cumsum(extra) - extra)[key]  # where each one's terms start
+        index = np.int32 if extra.size < 2**31 else np.int64
+        t_at = np.repeat(key.astype(index), extra[key])
+        ell = np.arange(1, t_at.size + 1, dtype=float)
+        ell -= np.repeat(run.astype(float), extra[key])
+        t_f = ell / np.repeat(d.ravel()[key], extra[key])
+        t_w = np.repeat(wavg.ravel()[key], extra[key])
         return cls(W, xwe1, wavg if start.efron else wsum, has, event_weight, kept,
-                   reach, bad, *_terms(t_at % A, t_at, t_f, wavg.ravel()[t_at]))
+                   reach, bad, t_at % A, t_at, t_f, t_w, run, key)
 
     def take(self, sel: np.ndarray) -> _Block:
         """The block of the columns ``sel`` (increasing)."""
@@ -341,7 +348,9 @@ def _settled(F: _Fixed, blk: _Block, cols: np.ndarray, step: np.ndarray,
     out = bound <= limit
     near = np.flatnonzero(~out & (bound <= max(1e-3, 10.0 * limit)))
     if near.size:
-        change = np.abs(step[near] @ F.Z.T)  # (near, m)
+        step1 = np.zeros((near.size, F.Z1.shape[1]))  # (the shift column's coefficient 0)
+        step1[:, :-1] = step[near]
+        change = np.abs(step1 @ F.Z1.T)  # (near, m), no copy of the design
         change *= blk.kept[cols[near]]
         out[near] = change.max(axis=1) <= limit
     return out
