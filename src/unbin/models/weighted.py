@@ -35,7 +35,7 @@ from ._glm import gram, standardise
 from .base import Outcome
 
 if TYPE_CHECKING:
-    from .cox import Layout, NearStart
+    from .cox import Layout, NearStart, ReplicateRefits
 
 _CHUNK_CELLS = 4_000_000
 _WHOLE_ROWS = 50_000
@@ -405,9 +405,10 @@ def weighted_cox(X: np.ndarray, outcome: Outcome, W: np.ndarray,
 CoxSample = tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None]
 
 
-def resampled_cox_samples(outcome: Outcome, W: np.ndarray
+def resampled_cox_samples(outcome: Outcome, W: np.ndarray, which: Sequence[int] | None = None
                           ) -> Iterator[tuple[int, np.ndarray, CoxSample, Layout]]:
-    """Per refit-weight row ``b`` of ``W`` (``design_resample_weights``): the drawn data set's
+    """Per refit-weight row ``b`` of ``W`` (``design_resample_weights``; only the rows
+    ``which`` when given): the drawn data set's
     row indices ``m`` (``replicate_rows``), the survival arrays (time, event, entry, strata) of
     those rows and their prepared Cox layout, which carries the rows' case weights (the
     outcome's weights, or the counts of individuals); a replicate whose layout cannot be
@@ -415,8 +416,8 @@ def resampled_cox_samples(outcome: Outcome, W: np.ndarray
     from .cox import prepare_layout
 
     assert outcome.time is not None
-    for b, w in enumerate(W):
-        m, case = replicate_rows(outcome, w)
+    for b in range(len(W)) if which is None else which:
+        m, case = replicate_rows(outcome, W[b])
         time, event = outcome.time[m], outcome.y[m]
         entry = outcome.entry[m] if outcome.entry is not None else None
         strata = outcome.strata[m] if outcome.strata is not None else None
@@ -447,27 +448,85 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
     W = np.atleast_2d(W)
     outs = [np.full((W.shape[0], X.shape[1]), np.nan) for X in Xs]
     starts = cox_near_starts(outcome, [X for X, _ in designs], inits)
-    for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
+    # every replicate of every design with a start at once; the one-at-a-time path below for
+    # the replicates that did not settle there (and for every replicate when ``on_fit`` wants
+    # each replicate's rows and layout)
+    batched = cox_replicate_refits(outcome, Xs, starts, W)
+    for out, got in zip(outs, batched, strict=True):
+        if got is not None:
+            out[got.done] = got.coef[got.done]
+    which = [b for b in range(W.shape[0])
+             if on_fit is not None or any(got is None or not got.done[b] for got in batched)]
+    for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W, which):
         for j, (X, init, near, out) in enumerate(zip(Xs, inits, starts, outs, strict=True)):
-            got = refit_replicate(near, X, m, layout) if near is not None else None
+            got = batched[j]
             Xm: np.ndarray | None = None
-            if got is not None:
-                coef = got[0]
+            if got is not None and got.done[b]:
+                coef = got.coef[b]
             else:
-                Xm = X[m]
-                try:  # far from the start, or not settling: the full fit decides (the layout
-                    # carries the case weights)
-                    fitted = fit_cox(Xm, time, event, entry=entry, strata=strata, init=init,
-                                layout=layout)
-                except ValueError:
-                    continue
-                if not fitted.converged:
-                    continue
-                coef = fitted.coef
+                one = refit_replicate(near, X, m, layout) if near is not None else None
+                if one is not None:
+                    coef = one[0]
+                else:
+                    Xm = X[m]
+                    try:  # far from the start, or not settling: the full fit decides (the
+                        # layout carries the case weights)
+                        fitted = fit_cox(Xm, time, event, entry=entry, strata=strata,
+                                         init=init, layout=layout)
+                    except ValueError:
+                        continue
+                    if not fitted.converged:
+                        continue
+                    coef = fitted.coef
             out[b] = coef
             if on_fit is not None:
                 on_fit(b, j, X[m] if Xm is None else Xm, m, layout, coef)
     return outs
+
+
+def cox_replicate_refits(outcome: Outcome, Xs: Sequence[np.ndarray],
+                         starts: Sequence[NearStart | None], W: np.ndarray,
+                         with_loglik: bool = False) -> list[ReplicateRefits | None]:
+    """Per design ``Xs[j]`` with a start (``cox_near_starts``), the secant refits of all the
+    replicates of refit weights ``W`` (B, n) at once (``unbin.models.cox.refit_replicates``:
+    each replicate's drawn data set, a row drawn k times as k rows, through the full sample's
+    layout; a design without columns, whose refit is its log partial likelihood at no
+    coefficients, needs no start); None for a design without a start. A replicate not
+    ``done`` there goes to
+    ``unbin.models.cox.refit_replicate`` and ``fit_cox`` one at a time, as before; so do all
+    of them when there are fewer than ``_BATCH_MIN`` (a caller that refits replicate by
+    replicate and lays out each replicate's rows anyway) or the sample has more than
+    ``_BATCH_ROWS`` rows (there a batched evaluation costs more per replicate than the
+    one-at-a-time one and the layout it saves: ``benchmarks/cox_refits.py``)."""
+    from .cox import NearStart, ReplicateRefits, refit_replicates
+
+    layout = outcome.cache.get(_NEAR_LAYOUT)
+    W = np.atleast_2d(np.asarray(W, dtype=float))
+    B = len(W)
+    if (layout is None or all(start is None for start in starts) or B < _BATCH_MIN
+            or outcome.n > _BATCH_ROWS):
+        return [None] * len(Xs)
+    designs = [np.asarray(X, dtype=float).reshape(outcome.n, -1) for X in Xs]
+    p = [X.shape[1] for X in designs]
+    # a design without columns (a null model) has nothing to refit: its log partial
+    # likelihood is read at the empty coefficient vector, as fit_cox reads it
+    starts = [NearStart(outcome.n, np.zeros(0), np.ones(0), np.zeros(0), np.zeros((0, 0)), True)
+              if start is None and k == 0 else start for start, k in zip(starts, p, strict=True)]
+    coef = [np.full((B, k), np.nan) for k in p]
+    loglik = [np.full(B, np.nan) for _ in p]
+    done = [np.zeros(B, dtype=bool) for _ in p]
+    # the draw counts a slice of replicates at a time (with weights they are a new array)
+    step = max(_BATCH_SLICE, _CHUNK_CELLS // max(1, outcome.n))
+    for lo in range(0, B, step):
+        part = slice(lo, min(B, lo + step))
+        copies = replicate_copies(outcome, W[part])
+        for j, (X, start) in enumerate(zip(designs, starts, strict=True)):
+            if start is None:
+                continue
+            got = refit_replicates(start, X, layout, copies, W[part], with_loglik=with_loglik)
+            coef[j][part], loglik[j][part], done[j][part] = got.coef, got.loglik, got.done
+    return [None if start is None else ReplicateRefits(coef[j], loglik[j], done[j])
+            for j, start in enumerate(starts)]
 
 
 def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
@@ -518,6 +577,9 @@ def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
 
 _NEAR_LAYOUT = "cox_near_layout"
 _NEAR_STARTS = "cox_near_starts"
+_BATCH_MIN = 4  # replicates of one call refitted at once from this many on
+_BATCH_SLICE = 64  # replicates whose draw counts are made at once (at least)
+_BATCH_ROWS = 300_000  # rows of the sample up to which they are refitted at once
 
 
 # -- robust Wald statistics of the replicates ----------------------------------------------------

@@ -82,6 +82,7 @@ from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
     cox_near_starts,
+    cox_replicate_refits,
     design_resample_weights,
     replicate_copies,
     replicate_rows,
@@ -275,8 +276,18 @@ class _Designs:
         for c0 in range(0, replicates, chunk):
             W = design_resample_weights(rng, o, min(chunk, replicates - c0))
             if r.family == "survival":  # all designs on each replicate's rows and Cox layout
+                # each other cause's model refitted on all the chunk's replicates at once
+                others = {(key, c): cox_replicate_refits(
+                              oc, [it.X], cox_near_starts(oc, [it.X], [full.coef]), W)[0]
+                          for key, it in ok if self.causes and self.marginal_ok
+                          and key not in self.incidence_off
+                          and key not in self.incidence_boot_off
+                          for c, full, oc in zip(self.causes[1:], it.others,
+                                                 self._cause_outcomes, strict=True) if full.ok}
+
                 def risks(b: int, j: int, Xm: np.ndarray, m: np.ndarray, layout: Any,
-                          coef: np.ndarray, c0: int = c0, W: np.ndarray = W) -> None:
+                          coef: np.ndarray, c0: int = c0, W: np.ndarray = W,
+                          others: dict[tuple[str, int], Any] = others) -> None:
                     key, it = ok[j]
                     assert o.time is not None and self.horizon is not None
 
@@ -297,7 +308,9 @@ class _Designs:
                                 and key not in self.incidence_boot_off:
                             marg[key][c0 + b] = self._replicate_incidence(
                                 c0 + b, it, Xm, m, coef, layout, layouts,
-                                replicate_rows(o, W[b])[1], replicates, base)
+                                replicate_rows(o, W[b])[1], replicates, base,
+                                {c: got.coef[b] for (k, c), got in others.items()
+                                 if k == key and got is not None and got.done[b]})
                     except IncidenceWithheld as e:
                         self.incidence_boot_off[key] = (
                             f"the bootstrap of {e} (summed over the {replicates} replicates): "
@@ -339,13 +352,15 @@ class _Designs:
                              coef: np.ndarray, layout: Layout,
                              layouts: dict[tuple[int, int], Layout | None],
                              case: np.ndarray | None = None, replicates: int = 1,
-                             base: CauseBaseline | None = None) -> np.ndarray:
+                             base: CauseBaseline | None = None,
+                             refitted: dict[int, np.ndarray] | None = None) -> np.ndarray:
         """A replicate's standardised cumulative incidences of one design: each competing
         cause's Cox model refitted on the replicate's rows ``m`` (from its full-sample
         estimate; the layouts of a replicate shared by the designs), NaN when one fails; a
         row-by-row sum is allowed ``INCIDENCE_CELLS`` cells over the ``replicates`` and the
         full sample; ``base``: the event of interest's baseline on those rows when the caller
-        has it (``standardise.cause_baseline``)."""
+        has it (``standardise.cause_baseline``); ``refitted``: the causes whose refit is done
+        already (by cause code, the batched refits of the chunk's replicates)."""
         o = self.r.outcome
         assert o.time is not None and o.cause is not None and self.horizon is not None
         entry = None if o.entry is None else o.entry[m]
@@ -368,9 +383,11 @@ class _Designs:
                 return np.full(2, np.nan)
             # secant steps from the full-sample estimate, as the design's own model's refit
             # (models.weighted.weighted_cox_designs); Newton's fit where they do not settle
-            near = cox_near_starts(oc, [it.X], [full.coef])[0]
-            got = None if near is None else refit_replicate(near, it.X, m, lay)
-            coef_c = None if got is None else got[0]
+            coef_c = None if refitted is None else refitted.get(c)
+            if coef_c is None:
+                near = cox_near_starts(oc, [it.X], [full.coef])[0]
+                got = None if near is None else refit_replicate(near, it.X, m, lay)
+                coef_c = None if got is None else got[0]
             if coef_c is None:
                 fitted = fit_cox(Xm, o.time[m], (cause == c).astype(float), entry=entry,
                                  strata=strata, weights=case, init=full.coef, layout=lay)

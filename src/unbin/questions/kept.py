@@ -50,6 +50,7 @@ from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
     cox_near_starts,
+    cox_replicate_refits,
     cox_robust_wald,
     design_resample_weights,
     glm_robust_wald,
@@ -140,7 +141,14 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
     out = [np.full(len(W), np.nan) for _ in models]
     starts = [None] * len(models) if robust else cox_near_starts(
         outcome, [mod.X for mod in models], [mod.res.coef for mod in models])
-    for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W):
+    # every replicate of a model at once (its full-sample start); one at a time below where
+    # that did not settle
+    batched = cox_replicate_refits(outcome, [mod.X for mod in models], starts, W, True)
+    for out_j, got in zip(out, batched, strict=True):
+        if got is not None:
+            out_j[got.done] = got.loglik[got.done]
+    which = [b for b in range(len(W)) if any(got is None or not got.done[b] for got in batched)]
+    for b, m, (time, event, entry, strata), layout in resampled_cox_samples(outcome, W, which):
         if robust:
             case = replicate_rows(outcome, W[b])[1]
             clusters = replicate_clusters(outcome, m)
@@ -155,6 +163,9 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
                 if f.converged and np.all(np.isfinite(f.coef)):
                     out[j][b] = cox_robust_wald(Xm, (time, event, entry, strata), case,
                                                 clusters, f.coef, f.cov, mod.k)
+                continue
+            got = batched[j]
+            if got is not None and got.done[b]:
                 continue
             # secant steps from the full-sample estimate (its information scaled); the
             # full fit where they do not settle (or the model has no columns)
@@ -204,18 +215,18 @@ def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: np.nda
         prepared = [WeightedGLM(family, mod.X, outcome, mod.res.coef) for mod in unique]
         # large samples: every replicate refitted in one go (WeightedGLM.whole)
         whole = [g.coef(W_all) if g.whole else None for g in prepared]
-    for c0 in range(0, replicates, chunk):
-        W = W_all[c0:c0 + chunk]
-        if family == "survival":
-            for j, v in enumerate(_cox_logliks(unique, outcome, W, robust)):
-                ll_unique[c0:c0 + len(W), j] = v
-            continue
-        for j, (mod, g) in enumerate(zip(unique, prepared, strict=True)):
-            got = whole[j]
-            coef = g.coef(W) if got is None else got[c0:c0 + len(W)]
-            ll_unique[c0:c0 + len(W), j] = (
-                glm_robust_wald(family, mod.X, outcome, coef, W, mod.k) if robust
-                else glm_logliks(family, mod.X, coef, outcome, W))
+    if family == "survival":  # every replicate in one call (the refits block them)
+        for j, v in enumerate(_cox_logliks(unique, outcome, W_all, robust)):
+            ll_unique[:, j] = v
+    else:
+        for c0 in range(0, replicates, chunk):
+            W = W_all[c0:c0 + chunk]
+            for j, (mod, g) in enumerate(zip(unique, prepared, strict=True)):
+                got = whole[j]
+                coef = g.coef(W) if got is None else got[c0:c0 + len(W)]
+                ll_unique[c0:c0 + len(W), j] = (
+                    glm_robust_wald(family, mod.X, outcome, coef, W, mod.k) if robust
+                    else glm_logliks(family, mod.X, coef, outcome, W))
     ll = ll_unique[:, [col[id(mod)] for mod in models]].reshape(replicates, k, 3)
     if robust:  # robust Wald statistics of the exposure (0 for the null model)
         lr_legacy, lr_full = ll[:, :, 1], ll[:, :, 2]

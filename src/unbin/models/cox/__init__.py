@@ -1,6 +1,7 @@
 """The proportional-hazards engine: Cox partial likelihood on numpy arrays (``inputs``: the
 checks of the arrays; ``layout``: the sorted sample and its risk sets; ``likelihood``: the log
-partial likelihood, score and information; ``fit``: the Newton fit; ``baseline``: baseline
+partial likelihood, score and information; ``fit``: the Newton fit; ``replicates``: the
+refits of many bootstrap replicates at once; ``baseline``: baseline
 hazard and absolute risk; ``concordance``: Harrell's C).
 
 What it does
@@ -52,6 +53,7 @@ from .fit import (
     refit_replicate,
 )
 from .layout import Layout, prepare_layout
+from .replicates import ReplicateRefits, refit_replicates
 
 __all__ = [
     "CoxFit",
@@ -69,4 +71,6 @@ __all__ = [
     "refit_near",
     "refit_near_loglik",
     "refit_replicate",
+    "refit_replicates",
+    "ReplicateRefits",
 ]

@@ -5,7 +5,7 @@ its messages, ``fit_cox`` and ``refit_near``."""
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -627,6 +627,8 @@ class NearStart:
     H: np.ndarray | None  # (p, p) inverse information at the start times the summed event
     # weight (None: not positive definite there; each replicate then evaluates its own)
     efron: bool
+    # what the batched refits (``replicates.refit_replicates``) derive from the design once
+    memo: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
 
 def near_start(
