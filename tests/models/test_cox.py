@@ -1249,3 +1249,23 @@ def test_efron_runs_with_entry_at_tied_times_match_lifelines() -> None:
     cph = CoxPHFitter().fit(df[["a", "b", "T", "E", "entry"]], "T", "E", entry_col="entry",
                             fit_options=TIGHT)
     _assert_matches_lifelines(fit, cph)
+
+
+@pytest.mark.parametrize("with_entry", [False, True])
+def test_no_events_with_strata_is_reported_like_without(with_entry: bool) -> None:
+    """A sample with no events has no estimable coefficients (common practice: the partial
+    likelihood is constant). With strata the layout used to stop with numpy's broadcasting
+    error; it now gives the same unconverged fit and message as without strata."""
+    rng = np.random.default_rng(31)
+    n = 40
+    time = rng.uniform(1, 10, n)
+    X = rng.normal(size=(n, 2))
+    strata = np.repeat([0, 1, 2, 3], n // 4)
+    entry = time * 0.2 if with_entry else None
+    plain = fit_cox(X, time, np.zeros(n), entry=entry)
+    stratified = fit_cox(X, time, np.zeros(n), entry=entry, strata=strata)
+    assert not plain.converged and not stratified.converged
+    assert stratified.message == plain.message
+    assert "no events" in stratified.message
+    layout = prepare_layout(time, np.zeros(n), entry=entry, strata=strata)
+    assert layout.n == n

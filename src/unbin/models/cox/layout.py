@@ -216,7 +216,7 @@ def _stratum_segments(
     """Per event time, the first and one-past-last event-time index of its stratum; and the
     first index of each stratum with events, then K."""
     K = k_stratum.size
-    if n_strata == 1:
+    if n_strata == 1 or K == 0:  # no events: as one stratum (the fit then says "no events")
         return np.zeros(K, dtype=np.int64), np.full(K, K, dtype=np.int64), np.array([0, K])
     k_new = np.ones(K, dtype=bool)
     k_new[1:] = k_stratum[1:] != k_stratum[:-1]
