@@ -1,5 +1,6 @@
-"""Where one resampling job's memory peaks: each table builder of
-``unbin.pipeline.jobs.resample_analysis`` run in this process, with its CPU seconds, the
+"""Where one job's memory peaks: each step of ``unbin.pipeline.jobs.resample_analysis`` (or,
+with ``--fit``, of ``fit_analysis``) run in this process — reading the extract, the analysis
+sample, the refits, each table builder — with its CPU seconds, the
 process' resident memory (RSS, from /proc, sampled every 10 ms by a thread) at the table's
 start and its largest value during the table, and the main thread's innermost calls at the
 moment that largest value was first seen (where the table was when memory peaked). With
@@ -9,6 +10,7 @@ program that the C library has not handed back to the system.
 
     python benchmarks/registry.py --rows 1000000 --only death_egfr --keep /tmp/reg1m --json
     python benchmarks/job_memory.py /tmp/reg1m/spec.yaml registry death_egfr /tmp/out
+    python benchmarks/job_memory.py --fit /tmp/reg1m/spec.yaml registry death_egfr /tmp/out
 
 (the spec and extract of any run work; the tables are written to the last argument's folder
 as the job writes them). Linux only (/proc).
@@ -73,23 +75,22 @@ def main() -> None:
     ap.add_argument("out", help="folder for the job's tables")
     ap.add_argument("--traced", action="store_true",
                     help="also tracemalloc's view (slower: every allocation is recorded)")
+    ap.add_argument("--fit", action="store_true",
+                    help="the analysis' fit job (fit_analysis) instead of its resampling job")
     args = ap.parse_args()
     os.makedirs(args.out, exist_ok=True)
     sampler = Sampler()
     if args.traced:
         tracemalloc.start()
-    original = jobs._builder
 
-    def builder(target: str) -> Callable[..., Any]:
-        build = original(target)
-
+    def measured(label: str, fn: Callable[..., Any]) -> Callable[..., Any]:
         def run(*a: Any, **k: Any) -> Any:
             sampler.reset()
             start, cpu = rss_mb(), time.process_time()
             traced = tracemalloc.get_traced_memory()[0] / 2**20 if args.traced else None
-            table = build(*a, **k)
+            out = fn(*a, **k)
             cpu = time.process_time() - cpu
-            line = (f"{target.split(':')[1]}: {cpu:.1f} s CPU, RSS at start {start:.0f} MB, "
+            line = (f"{label}: {cpu:.1f} s CPU, RSS at start {start:.0f} MB, "
                     f"peak {sampler.peak:.0f} MB")
             if traced is not None:
                 line += (f"; traced at start {traced:.0f} MB, at end "
@@ -97,13 +98,27 @@ def main() -> None:
             print(line, flush=True)
             for fs in sampler.stack or []:
                 print(f"    {os.path.basename(fs.filename)}:{fs.lineno} {fs.name}", flush=True)
-            return table
+            return out
 
         return run
 
+    original = jobs._builder
+
+    def builder(target: str) -> Callable[..., Any]:
+        return measured(target.split(":")[1], original(target))
+
+    # the steps before the tables: the names the job functions look up when they run
+    from unbin.refit import analysis as refit_module
+
+    jobs.read_extract = measured("read_extract", jobs.read_extract)  # type: ignore[assignment]
+    jobs.analysis_sample = measured("analysis_sample",  # type: ignore[assignment]
+                                    jobs.analysis_sample)
+    for name in ("refit_analysis", "bare_refit"):
+        setattr(refit_module, name, measured(name, getattr(refit_module, name)))
     jobs._builder = builder
     cpu = time.process_time()
-    jobs.resample_analysis(args.spec, args.cohort, args.analysis, args.out)
+    job = jobs.fit_analysis if args.fit else jobs.resample_analysis
+    job(args.spec, args.cohort, args.analysis, args.out)
     sampler.stop = True
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"job: {time.process_time() - cpu:.1f} s CPU, largest RSS {peak:.0f} MB")

@@ -177,18 +177,22 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
     checked = design_weights(cur, a)
     cols = [c for c in a.columns if (c not in {f.variable for f in a.filters} or c in design_cols)
             and not (c in checked and c not in design_cols)]
+    # each column's missing rows among those the earlier columns left, in one mask: the rows
+    # are copied once (not once per column)
+    keep = np.ones(len(cur), dtype=bool)
     for c in cols:
-        miss = cur[c].isna()
-        dropped.append((f"missing {c}", int(miss.sum())))
-        cur = cur[~miss]
+        miss = cur[c].isna().to_numpy()
+        dropped.append((f"missing {c}", int(np.count_nonzero(miss & keep))))
+        keep &= ~miss
+    out = cur.take(np.flatnonzero(keep))  # a new frame: the columns below are set on it
     o = a.outcome
     fu = o.followup
     dates = {fu.start, fu.end, fu.entry_date} if fu else set()
     numeric = {a.exposure, *o.columns} - dates
     numeric |= {v for v in (*a.adjust, a.by) if v and is_grouped(v, spec)}
-    out = cur.copy()
     for c in sorted(numeric):
-        out[c] = coerce_numeric(out, c, "analysis column")
+        if out[c].dtype != np.float64:  # a float64 column is already what coerce_numeric gives
+            out[c] = coerce_numeric(out, c, "analysis column")
     if df.attrs.get("value_labels"):
         out = labelled_factors(out, a, spec, df.attrs["value_labels"])
     if o.followup is not None:
@@ -202,15 +206,18 @@ def analysis_sample(df: pd.DataFrame, a: Analysis, spec: Spec) -> Sample:
             bad |= (out[o.entry] < 0) | (out[o.entry] >= out[o.time])
         dropped.append((f"non-positive follow-up ({o.time}"
                         + (f" <= {o.entry}" if o.entry else " <= 0") + ")", int(bad.sum())))
-        out = out[~bad]
+        if bad.any():
+            out = out[~bad]
     if o.type == "count":
         assert o.persontime is not None
         bad = out[o.persontime] <= 0
         dropped.append((f"non-positive person-time ({o.persontime} <= 0)", int(bad.sum())))
-        out = out[~bad]
+        if bad.any():
+            out = out[~bad]
     if a.cluster:
         single_cluster(out, a)
-    return Sample(frame=out.reset_index(drop=True), n_input=n0, dropped=tuple(dropped))
+    out.index = pd.RangeIndex(len(out))  # reset_index(drop=True) without copying the rows
+    return Sample(frame=out, n_input=n0, dropped=tuple(dropped))
 
 
 def design_weights(df: pd.DataFrame, a: Analysis) -> tuple[str, ...]:

@@ -145,11 +145,22 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
     Problems of this analysis (bad data, empty sample, a failing question) are recorded in the
     status, never raised: the other analyses must complete.
     """
+    return _analyse_extract(spec, cohort, analysis, [frame], basis, resampling)
+
+
+def _analyse_extract(spec: Spec, cohort: str, analysis: str, extract: list[pd.DataFrame],
+                     basis: CommonBasis | None, resampling: bool
+                     ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
+    """:func:`analyse` of the frame in ``extract`` (a list of one), which is taken out of the
+    list once the analysis sample and the missingness table are built: when the caller keeps
+    no other reference (``fit_analysis``), the extract's rows are freed before the fits."""
     a = spec.analysis(analysis)
     if missing_options(spec, analysis).imputed:  # multiple imputation: its own module
         from .imputed import analyse_imputed
 
-        return analyse_imputed(spec, cohort, analysis, frame, basis, resampling=resampling)
+        return analyse_imputed(spec, cohort, analysis, extract.pop(), basis,
+                               resampling=resampling)
+    frame = extract[0]
     status: dict[str, Any] = {"status": "ok", "message": "", "n_input": len(frame), "n_used": 0,
                               "family": a.family, "exposure": a.exposure}
     tables: dict[str, pd.DataFrame] = {}
@@ -173,6 +184,8 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                       traceback.format_exc())
             missing_note.append(f"table 'missingness' failed ({type(exc).__name__}: {exc}); "
                                 "it is empty, the other tables are complete")
+        extract.clear()
+        del frame  # the sample holds the rows the fits use
         check_sample_usable(sample, a)
         from ..refit.analysis import refit_analysis
 
@@ -207,9 +220,8 @@ def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
             if saved.get("status") == "failed":
                 raise DataError(saved["message"])
             basis = CommonBasis.from_dict(saved)
-        frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
+        extract = [read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)]
     except UnbinError as exc:
-        frame = pd.DataFrame()
         tables = {"samples": pd.DataFrame({"step": pd.Series(dtype=str),
                                            "rows": pd.Series(dtype="int64")}),
                   "status": pd.DataFrame([{"status": "failed", "message": str(exc), "n_input": 0,
@@ -217,7 +229,9 @@ def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
                                            "exposure": a.exposure}])}
         status = tables["status"].iloc[0].to_dict()
     else:
-        tables, status = analyse(spec, cohort, analysis, frame, basis, resampling=False)
+        # no reference kept here: the extract's rows are freed once the sample is built
+        tables, status = _analyse_extract(spec, cohort, analysis, extract, basis,
+                                          resampling=False)
     out = Path(outdir)
     for name in FIT_JOB_TABLES:
         df = tables.get(name, pd.DataFrame())
@@ -464,6 +478,7 @@ def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir:
             tables = resampling_tables(spec, cohort, analysis, frame)
         else:
             sample = analysis_sample(frame, a, spec)
+            del frame  # the sample holds the rows the tables use
             if sample.n < MIN_SAMPLE_ROWS:
                 raise DataError("too few rows")
             from ..refit.analysis import bare_refit
