@@ -8,7 +8,7 @@ moment that largest value was first seen (where the table was when memory peaked
 reports its arrays) at each table's start and end: RSS well above it is memory freed by the
 program that the C library has not handed back to the system.
 
-    python benchmarks/registry.py --rows 1000000 --only death_egfr --keep /tmp/reg1m --json
+    python benchmarks/registry.py --rows 1000000 --inputs-only --keep /tmp/reg1m
     python benchmarks/job_memory.py /tmp/reg1m/spec.yaml registry death_egfr /tmp/out
     python benchmarks/job_memory.py --fit /tmp/reg1m/spec.yaml registry death_egfr /tmp/out
 

@@ -2,6 +2,9 @@
 
     python benchmarks/registry.py                      # 1,000,000 rows, a markdown report
     python benchmarks/registry.py --rows 100000 --json # one size, one JSON object
+    python benchmarks/registry.py --rows 10000000 --inputs-only --keep /tmp/reg10m
+                                                       # the inputs only (then one job at a time:
+                                                       # benchmarks/job_memory.py [--fit])
 
 The extract is an invented registry (one parquet file, 20 columns, two of which no analysis
 uses): ten legacy grouped analyses over all four outcome types — three logistic, three Cox (one
@@ -331,7 +334,18 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--competing", action="store_true",
                         help="add the competing-risk analysis death_egfr_competing")
     parser.add_argument("--json", action="store_true", help="print one JSON object")
+    parser.add_argument("--inputs-only", action="store_true",
+                        help="write the spec and extract into --keep and stop (for measuring "
+                             "single jobs at this size with benchmarks/job_memory.py)")
     args = parser.parse_args(argv)
+    if args.inputs_only:
+        if args.keep is None:
+            parser.error("--inputs-only needs --keep FOLDER (where the inputs go)")
+        spec_path = write_inputs(args.keep, args.rows, args.bootstrap, args.permutations,
+                                 args.imputations, tuple(n for n in args.only.split(",") if n),
+                                 args.competing)
+        print(spec_path)
+        return 0
     folder = args.keep or Path(tempfile.mkdtemp(prefix="unbin-registry-"))
     try:
         result = measure(args.rows, args.cores, args.bootstrap, args.permutations, folder,
