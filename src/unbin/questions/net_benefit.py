@@ -36,10 +36,16 @@ def net_benefit_counts(y: np.ndarray, positive: np.ndarray,
     """Binary outcome: (NB, TP/n, FP/n) per threshold, for ``positive`` of shape (n,) (one rule
     at every threshold) or (thresholds, n). Vickers & Elkin 2006."""
     y = np.asarray(y, dtype=float)
-    pos = np.broadcast_to(np.asarray(positive, dtype=float), (len(thresholds), len(y)))
     n = len(y)
-    tp = pos @ y / n
-    fp = pos @ (1.0 - y) / n
+    positive = np.asarray(positive, dtype=float)
+    if positive.ndim == 1:  # one rule at every threshold: its counts once (no thresholds x n
+        # matrix; whole numbers, so the same sums as each row of that matrix would give)
+        tp = np.full(len(thresholds), positive @ y) / n
+        fp = np.full(len(thresholds), positive @ (1.0 - y)) / n
+    else:
+        pos = np.broadcast_to(positive, (len(thresholds), n))
+        tp = pos @ y / n
+        fp = pos @ (1.0 - y) / n
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
 
 
