@@ -51,7 +51,8 @@ import pandas as pd
 from scipy import special
 
 from ..models import Outcome, fit
-from ..models.cox import baseline_cumhaz
+from ..models.cox import Layout, baseline_cumhaz
+from ..models.survival import cox_layout
 from ..refit.analysis import Refit
 from ..refit.contrasts import Z95
 from ..refit.risk import RiskFit, link
@@ -157,14 +158,17 @@ def logistic_intercept(y: np.ndarray, lp: np.ndarray) -> tuple[float, float]:
 
 def survival_expected(z: np.ndarray, time: np.ndarray, event: np.ndarray,
                       entry: np.ndarray | None, strata: np.ndarray | None,
-                      horizon: float) -> np.ndarray:
+                      horizon: float, layout: Layout | None = None) -> np.ndarray:
     """Each row's expected events up to the horizon under the predictions ``z`` (the log
     cumulative hazard at the horizon, ``log(-log(1 - p))``): ``exp(z_i)`` spread over time in
     the shape of the Breslow baseline of ``z`` in the row's stratum, ``exp(z_i) (B(min(t_i, h)) -
     B(entry_i)) / B(h)``. The shape is estimated; the level is the prediction's own, so a risk
-    predicted too high gives O/E below 1 (for a Cox model's own predictions O = E)."""
+    predicted too high gives O/E below 1 (for a Cox model's own predictions O = E).
+    ``layout``: the Cox layout of these times, events, entries and strata (no weights), when
+    the caller has it (the same baseline, without preparing it again)."""
     centre = float(np.mean(z))
-    base = baseline_cumhaz((z - centre)[:, None], time, event, [1.0], entry=entry, strata=strata)
+    base = baseline_cumhaz((z - centre)[:, None], time, event, [1.0], entry=entry, strata=strata,
+                           layout=layout)
     labels = np.zeros(len(z), dtype=np.int64) if strata is None else np.asarray(strata)
     stop = np.minimum(time, horizon)
     out = np.zeros(len(z))
@@ -183,10 +187,11 @@ def survival_expected(z: np.ndarray, time: np.ndarray, event: np.ndarray,
 
 
 def oe_intercept(z: np.ndarray, time: np.ndarray, event: np.ndarray, entry: np.ndarray | None,
-                 strata: np.ndarray | None, horizon: float) -> tuple[float, float]:
+                 strata: np.ndarray | None, horizon: float,
+                 layout: Layout | None = None) -> tuple[float, float]:
     """Calibration-in-the-large at the horizon: log(O/E) (the intercept of a Poisson model of
     the events up to the horizon with log expected events as offset) and its SE 1/sqrt(O)."""
-    expected = float(np.sum(survival_expected(z, time, event, entry, strata, horizon)))
+    expected = float(np.sum(survival_expected(z, time, event, entry, strata, horizon, layout)))
     observed = float(np.sum(np.asarray(event, dtype=float)[np.asarray(time) <= horizon]))
     if observed <= 0 or expected <= 0:
         return float("nan"), float("nan")
@@ -242,7 +247,7 @@ def smooth_survival(rf: RiskFit, outcome: Outcome, grid: np.ndarray, horizon: fl
         return nan, nan, nan
     Xc = X - X.mean(axis=0)
     base = baseline_cumhaz(Xc, outcome.time, outcome.y, res.coef, entry=outcome.entry,
-                           strata=None)
+                           strata=None, layout=cox_layout(o))  # the fit's own layout
     tt = base["time"].to_numpy(float)
     pos = int(np.searchsorted(tt, horizon, side="right")) - 1
     if pos < 0:
@@ -280,10 +285,12 @@ def _intercept_and_slope(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.
     h = rf.scale.horizon
     if z is not None:
         assert outcome.time is not None and h is not None
-        a, se_a = oe_intercept(z, outcome.time, y, outcome.entry, outcome.strata, h)
-        by = f"log(O/E), Poisson with expected events up to {h:g}"
         o = _derived(shared, "stratified", lambda: Outcome(
             "survival", y, time=outcome.time, entry=outcome.entry, strata=outcome.strata))
+        # the expected events' baseline and the slope's fit share that outcome's layout
+        a, se_a = oe_intercept(z, outcome.time, y, outcome.entry, outcome.strata, h,
+                               cox_layout(o))
+        by = f"log(O/E), Poisson with expected events up to {h:g}"
         res = fit("survival", z[:, None], o, ("cloglog_risk",))
         method = "Cox model on log(-log(1 - p))"
         slope_i = 0
