@@ -93,3 +93,26 @@ def test_km_risk_of_a_tenth_is_the_subsets_own(delayed: bool) -> None:
         inside = codes == g
         own = km_risk(time[inside], event[inside], 4.0, None if entry is None else entry[inside])
         np.testing.assert_array_equal(km_risk_of(order, inside, 4.0), own)
+
+
+@pytest.mark.parametrize("delayed", [False, True])
+def test_nested_risk_rules_in_one_pass_are_each_subsets_own_estimate(delayed: bool) -> None:
+    # every threshold's S(h) among the rows with risk >= p_t, counted by removing the rows
+    # below each next threshold, must be km_survival of that subset bit for bit (risks tied at
+    # a threshold, a missing risk, thresholds out of order, one threshold above every risk)
+    time, event, entry = _sample(1500, 13, delayed)
+    rng = np.random.default_rng(14)
+    risk = np.round(rng.beta(2, 4, time.size), 2)
+    risk[:7] = np.nan
+    pt = np.array([0.3, 0.05, 0.5, 0.31, 0.3, 0.99, 0.2, 0.0])
+    order = TimeOrder(time, event, entry)
+    for h in (1.0, 4.0, 40.0):
+        got = order.survival_at_or_above(h, risk, pt)
+        for g, p in enumerate(pt):
+            mask = risk >= p
+            if not mask.any():
+                assert np.isnan(got[g])
+                continue
+            want = km_survival(time[mask], event[mask], h,
+                               None if entry is None else entry[mask])
+            assert got[g] == want, (h, p)

@@ -133,10 +133,12 @@ class TimeOrder:
         self.event = (np.asarray(event, dtype=float) > 0)[self.by_time]
         self.by_entry: np.ndarray | None = None
         self.entry: np.ndarray | None = None
+        self._entry_rows: np.ndarray | None = None  # as given (row order)
         if entry is not None:
             en = np.asarray(entry, dtype=float)
             self.by_entry = np.argsort(en, kind="stable")
             self.entry = en[self.by_entry]
+            self._entry_rows = en
 
     def in_order(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
         """``values`` (one per row) in time order and in entry order (None without entry)."""
@@ -163,6 +165,62 @@ class TimeOrder:
             assert by_entry is not None
             entered = np.searchsorted(self.entry[by_entry], u, side="left")
         return d, entered - exited
+
+    def survival_at_or_above(self, horizon: float, risk: np.ndarray,
+                             thresholds: np.ndarray) -> np.ndarray:
+        """:func:`km_survival` among the rows whose ``risk`` is at least each threshold (NaN
+        where there are none), for all thresholds at once: the rules "treat when risk >= p_t"
+        treat nested sets, so the at-risk and event counts at the sample's event times up to
+        the horizon are counted once for all rows and then lose the rows below each next
+        threshold. A subset's product runs over the times where it has events, with the same
+        whole numbers as its own count (an event time of the sample without an event of the
+        subset is left out, as it is absent from the subset's own times): the same estimate,
+        bit for bit."""
+        t, e = self.time, self.event
+        hit = t[e & (t <= horizon)]
+        first = np.flatnonzero(np.concatenate(([True], hit[1:] != hit[:-1]))) if hit.size \
+            else np.zeros(0, dtype=np.int64)
+        grid = hit[first]
+        K = grid.size
+        # in time order: a row is at risk at the grid times lo <= k < hi, and its event (up to
+        # the horizon) is at grid time hi - 1
+        hi = np.searchsorted(grid, t, side="right")
+        lo = (np.zeros(t.size, dtype=np.int64) if self._entry_rows is None
+              else np.searchsorted(grid, self._entry_rows[self.by_time], side="right"))
+        at = np.where(e & (t <= horizon), hi - 1, -1)
+        risk_t = np.asarray(risk, dtype=float)[self.by_time]
+        by_risk = np.argsort(risk_t, kind="stable")  # a missing risk last: never treated
+        valid = int(np.count_nonzero(~np.isnan(risk_t)))
+        by_risk = by_risk[:valid]
+        cuts = np.searchsorted(risk_t[by_risk], thresholds, side="left")
+        rows = by_risk if valid < t.size else slice(None)
+        enter = np.bincount(lo[rows], minlength=K + 1)
+        leave = np.bincount(hi[rows], minlength=K + 1)
+        ev = at[rows]
+        events = np.bincount(ev[ev >= 0], minlength=K)
+        out = np.full(len(thresholds), np.nan)
+        gone, value = 0, float("nan")
+        for g in np.argsort(thresholds, kind="stable"):  # ever fewer rows
+            cut = int(cuts[g])
+            if cut > gone:
+                out_rows = by_risk[gone:cut]
+                enter -= np.bincount(lo[out_rows], minlength=K + 1)
+                leave -= np.bincount(hi[out_rows], minlength=K + 1)
+                ev = at[out_rows]
+                events -= np.bincount(ev[ev >= 0], minlength=K)
+                value = float("nan")
+                gone = cut
+            if gone == valid:
+                break
+            if np.isnan(value):
+                has = events > 0
+                if not has.any():
+                    value = 1.0
+                else:
+                    at_risk = np.cumsum(enter - leave)[:K]
+                    value = float(np.prod(1.0 - events[has] / at_risk[has]))
+            out[g] = value
+        return out
 
     def survival(self, horizon: float, by_time: np.ndarray,
                  by_entry: np.ndarray | None = None) -> float:
@@ -204,17 +262,19 @@ def net_benefit_km(time: np.ndarray, event: np.ndarray, entry: np.ndarray | None
         order = TimeOrder(time, event, entry)
     tp = np.zeros(len(thresholds))
     fp = np.zeros(len(thresholds))
+    if risk is not None:  # nested rules: every threshold's estimate in one pass
+        risk = np.asarray(risk, dtype=float)
+        surv = order.survival_at_or_above(horizon, risk, np.asarray(thresholds, dtype=float))
+        for g in range(len(thresholds)):
+            share = float((risk >= thresholds[g]).mean())
+            if share == 0:
+                continue
+            tp[g], fp[g] = (1.0 - surv[g]) * share, surv[g] * share
+        return tp - fp * thresholds / (1.0 - thresholds), tp, fp
     cache: dict[bytes, tuple[float, float]] = {}
-    if risk is not None:  # the rows' risks in time and entry order: each mask is a comparison
-        risk_t, risk_e = order.in_order(np.asarray(risk, dtype=float))
-    else:
-        pos = np.broadcast_to(np.asarray(positive, dtype=bool), (len(thresholds), len(time)))
+    pos = np.broadcast_to(np.asarray(positive, dtype=bool), (len(thresholds), len(time)))
     for g in range(len(thresholds)):
-        if risk is not None:
-            by_time = risk_t >= thresholds[g]
-            by_entry = None if risk_e is None else risk_e >= thresholds[g]
-        else:
-            by_time, by_entry = order.in_order(pos[g])
+        by_time, by_entry = order.in_order(pos[g])
         share = float(by_time.mean())
         if share == 0:
             continue
