@@ -194,6 +194,22 @@ def test_treat_all_reproduces_vickers_elkin() -> None:
     assert value[0] == pytest.approx(0.15 - 0.05 * 0.25, abs=1e-12)
 
 
+def test_one_rule_at_every_threshold_counts_as_the_rule_per_threshold() -> None:
+    # One mask for all thresholds (the legacy rules) is counted once; the numbers must be
+    # those of the same mask given per threshold, and of a count by hand (Vickers & Elkin
+    # 2006: NB = TP/n - FP/n p_t / (1 - p_t)).
+    rng = np.random.default_rng(21)
+    y = (rng.random(5000) < 0.2).astype(float)
+    mask = rng.random(5000) < 0.35
+    grid = NB_GRID
+    one = net_benefit_counts(y, mask, grid)
+    each = net_benefit_counts(y, np.tile(mask, (grid.size, 1)), grid)
+    for a, b in zip(one, each, strict=True):
+        np.testing.assert_array_equal(a, b)
+    tp, fp = np.sum(mask & (y == 1)) / 5000, np.sum(mask & (y == 0)) / 5000
+    np.testing.assert_allclose(one[0], tp - fp * grid / (1 - grid), rtol=0, atol=1e-15)
+
+
 def test_treat_all_in_the_table_at_prevalence_030(tmp_path: Path) -> None:
     # Vickers & Elkin 2006 worked values through the whole table.
     rng = np.random.default_rng(5)

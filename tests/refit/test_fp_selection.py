@@ -187,3 +187,28 @@ def test_exhaustive_deviances_equal_statsmodels_and_lifelines() -> None:
                 tol = 1e-8
             assert res.loglik == pytest.approx(ref, rel=tol), (family, powers)
         assert checked == 5, family
+
+
+@pytest.mark.parametrize("family", ["binary", "count", "continuous"])
+def test_near_equal_candidates_pruned_by_the_glm_margin(family: str,
+                                                       monkeypatch: pytest.MonkeyPatch) -> None:
+    # A wide, smooth exposure range on 20,000 rows: the best FP2 candidates' maxima lie a few
+    # 1e-8 of the log-likelihood apart, inside the Cox margin (1e-7) and outside the linear,
+    # logistic and Poisson fits' (1e-9). Brute force as the reference: the screened search
+    # still picks the exhaustive powers with the same fits, and with the smaller margin it
+    # fits fewer candidates in full than with the larger one.
+    from unbin.refit import fp_selection
+
+    frame = _frame("log", seed=7, n=20000)
+    frame["x"] = 5.0 + 20.0 * np.random.default_rng(1).random(len(frame))
+    f, spec = _setup(family, frame)
+    screened, exhaustive, n_screened, _ = _best_both_ways(f, spec, "continuous")
+    for degree in (1, 2):
+        (t_s, r_s), (t_e, r_e) = screened[degree], exhaustive[degree]
+        assert t_s == t_e, (family, degree, t_s.powers, t_e.powers)
+        np.testing.assert_array_equal(r_s.coef, r_e.coef)
+    f.cache.clear()
+    monkeypatch.setattr(fp_selection, "_GLM_MARGIN", 1e-7)
+    wide, _, n_wide, _ = _best_both_ways(f, spec, "continuous")
+    assert [wide[d][0] for d in (1, 2)] == [exhaustive[d][0] for d in (1, 2)]
+    assert n_screened < n_wide, (family, n_screened, n_wide)

@@ -51,7 +51,8 @@ import pandas as pd
 from scipy import special
 
 from ..models import Outcome, fit
-from ..models.cox import baseline_cumhaz
+from ..models.cox import Layout, baseline_cumhaz
+from ..models.survival import cox_layout
 from ..refit.analysis import Refit
 from ..refit.contrasts import Z95
 from ..refit.risk import RiskFit, link
@@ -59,6 +60,7 @@ from ..spec import Spec
 from ..terms import SplineTerm
 from . import disclosure
 from .decisions import EVENT_FAMILIES, decision_models, design_not_used, typed_table
+from .net_benefit import TimeOrder
 
 TENTHS = 10
 SMOOTH_POINTS = 25
@@ -100,7 +102,14 @@ def km_risk(time: np.ndarray, event: np.ndarray, horizon: float,
     exited = np.searchsorted(np.sort(t), u, side="left")
     entered = (np.full(u.size, t.size) if entry is None else
                np.searchsorted(np.sort(np.asarray(entry, dtype=float)), u, side="left"))
-    at_risk = (entered - exited).astype(float)
+    return _km_risk_limits(d, entered - exited, z)
+
+
+def _km_risk_limits(d: np.ndarray, at_risk: np.ndarray, z: float = Z95,
+                    ) -> tuple[float, float, float]:
+    """:func:`km_risk` from the event and at-risk counts at the event times up to the
+    horizon (at least one)."""
+    at_risk = at_risk.astype(float)
     s = float(np.prod(1.0 - d / at_risk))
     if s <= 0.0 or s >= 1.0:
         return 1.0 - s, float("nan"), float("nan")
@@ -109,6 +118,19 @@ def km_risk(time: np.ndarray, event: np.ndarray, horizon: float,
     se = np.sqrt(green) / abs(np.log(s))
     lo_s, hi_s = s ** np.exp(z * se), s ** np.exp(-z * se)
     return 1.0 - s, 1.0 - hi_s, 1.0 - lo_s
+
+
+def km_risk_of(order: TimeOrder, inside: np.ndarray, horizon: float,
+               z: float = Z95) -> tuple[float, float, float]:
+    """:func:`km_risk` of the rows ``inside`` (a row mask) of the sample sorted in ``order``
+    (the same numbers, without sorting the subset)."""
+    by_time, by_entry = order.in_order(np.asarray(inside, dtype=bool))
+    if not by_time.any():
+        return float("nan"), float("nan"), float("nan")
+    d, at_risk = order.steps(horizon, by_time, by_entry)
+    if d.size == 0:
+        return 0.0, float("nan"), float("nan")
+    return _km_risk_limits(d, at_risk, z)
 
 
 def risk_groups(pred: np.ndarray, groups: int = TENTHS) -> np.ndarray:
@@ -136,14 +158,17 @@ def logistic_intercept(y: np.ndarray, lp: np.ndarray) -> tuple[float, float]:
 
 def survival_expected(z: np.ndarray, time: np.ndarray, event: np.ndarray,
                       entry: np.ndarray | None, strata: np.ndarray | None,
-                      horizon: float) -> np.ndarray:
+                      horizon: float, layout: Layout | None = None) -> np.ndarray:
     """Each row's expected events up to the horizon under the predictions ``z`` (the log
     cumulative hazard at the horizon, ``log(-log(1 - p))``): ``exp(z_i)`` spread over time in
     the shape of the Breslow baseline of ``z`` in the row's stratum, ``exp(z_i) (B(min(t_i, h)) -
     B(entry_i)) / B(h)``. The shape is estimated; the level is the prediction's own, so a risk
-    predicted too high gives O/E below 1 (for a Cox model's own predictions O = E)."""
+    predicted too high gives O/E below 1 (for a Cox model's own predictions O = E).
+    ``layout``: the Cox layout of these times, events, entries and strata (no weights), when
+    the caller has it (the same baseline, without preparing it again)."""
     centre = float(np.mean(z))
-    base = baseline_cumhaz((z - centre)[:, None], time, event, [1.0], entry=entry, strata=strata)
+    base = baseline_cumhaz((z - centre)[:, None], time, event, [1.0], entry=entry, strata=strata,
+                           layout=layout)
     labels = np.zeros(len(z), dtype=np.int64) if strata is None else np.asarray(strata)
     stop = np.minimum(time, horizon)
     out = np.zeros(len(z))
@@ -162,10 +187,11 @@ def survival_expected(z: np.ndarray, time: np.ndarray, event: np.ndarray,
 
 
 def oe_intercept(z: np.ndarray, time: np.ndarray, event: np.ndarray, entry: np.ndarray | None,
-                 strata: np.ndarray | None, horizon: float) -> tuple[float, float]:
+                 strata: np.ndarray | None, horizon: float,
+                 layout: Layout | None = None) -> tuple[float, float]:
     """Calibration-in-the-large at the horizon: log(O/E) (the intercept of a Poisson model of
     the events up to the horizon with log expected events as offset) and its SE 1/sqrt(O)."""
-    expected = float(np.sum(survival_expected(z, time, event, entry, strata, horizon)))
+    expected = float(np.sum(survival_expected(z, time, event, entry, strata, horizon, layout)))
     observed = float(np.sum(np.asarray(event, dtype=float)[np.asarray(time) <= horizon]))
     if observed <= 0 or expected <= 0:
         return float("nan"), float("nan")
@@ -221,7 +247,7 @@ def smooth_survival(rf: RiskFit, outcome: Outcome, grid: np.ndarray, horizon: fl
         return nan, nan, nan
     Xc = X - X.mean(axis=0)
     base = baseline_cumhaz(Xc, outcome.time, outcome.y, res.coef, entry=outcome.entry,
-                           strata=None)
+                           strata=None, layout=cox_layout(o))  # the fit's own layout
     tt = base["time"].to_numpy(float)
     pos = int(np.searchsorted(tt, horizon, side="right")) - 1
     if pos < 0:
@@ -259,10 +285,12 @@ def _intercept_and_slope(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.
     h = rf.scale.horizon
     if z is not None:
         assert outcome.time is not None and h is not None
-        a, se_a = oe_intercept(z, outcome.time, y, outcome.entry, outcome.strata, h)
-        by = f"log(O/E), Poisson with expected events up to {h:g}"
         o = _derived(shared, "stratified", lambda: Outcome(
             "survival", y, time=outcome.time, entry=outcome.entry, strata=outcome.strata))
+        # the expected events' baseline and the slope's fit share that outcome's layout
+        a, se_a = oe_intercept(z, outcome.time, y, outcome.entry, outcome.strata, h,
+                               cox_layout(o))
+        by = f"log(O/E), Poisson with expected events up to {h:g}"
         res = fit("survival", z[:, None], o, ("cloglog_risk",))
         method = "Cox model on log(-log(1 - p))"
         slope_i = 0
@@ -286,8 +314,10 @@ def _intercept_and_slope(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.
 
 
 def _tenth_rows(pred: np.ndarray, y: np.ndarray, outcome: Outcome, h: float | None,
-                survival: bool, min_cell: int, common: dict[str, Any]) -> list[dict[str, Any]]:
-    """Observed against mean predicted risk in tenths of predicted risk, small cells withheld."""
+                survival: bool, min_cell: int, common: dict[str, Any],
+                order: TimeOrder | None = None) -> list[dict[str, Any]]:
+    """Observed against mean predicted risk in tenths of predicted risk, small cells withheld.
+    ``order``: the sample's rows in time order, shared by every model's tenths."""
     time, entry = outcome.time, outcome.entry
     codes = risk_groups(pred)
     groups = np.unique(codes)
@@ -309,8 +339,9 @@ def _tenth_rows(pred: np.ndarray, y: np.ndarray, outcome: Outcome, h: float | No
             continue
         if survival:
             assert h is not None and time is not None
-            obs, lo, hi = km_risk(time[inside], y[inside], h,
-                                  None if entry is None else entry[inside])
+            if order is None:
+                order = TimeOrder(time, y, entry)
+            obs, lo, hi = km_risk_of(order, inside, h)
             m = f"Kaplan-Meier at {h:g}, Greenwood log(-log) limits"
         else:
             obs = ev_g[k] / n_g[k]
@@ -344,9 +375,11 @@ def _smooth_rows(rf: RiskFit, outcome: Outcome, pred: np.ndarray, y: np.ndarray,
 
 
 def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int,
-                     shared: dict[str, Outcome] | None = None) -> list[dict[str, Any]]:
+                     shared: dict[str, Outcome] | None = None,
+                     order: TimeOrder | None = None) -> list[dict[str, Any]]:
     """Every calibration row of one model on the risk scale (module docstring). ``shared``
-    keeps the outcomes derived from ``outcome`` for the next model of the same sample."""
+    keeps the outcomes derived from ``outcome`` for the next model of the same sample,
+    ``order`` the sample's rows in time order (survival: made here when not given)."""
     pred = np.asarray(rf.risk, dtype=float)
     y = np.asarray(outcome.y, dtype=float)
     common = {"model": rf.model, "adjustment": rf.adjustment, "detail": rf.detail,
@@ -365,7 +398,7 @@ def calibration_rows(rf: RiskFit, outcome: Outcome, min_cell: int,
                      "reason": "predicted risk 0 for some rows (no event before the horizon); "
                                "choose a later horizon"}]
     return (_intercept_and_slope(rf, outcome, pred, y, z, common, shared)
-            + _tenth_rows(pred, y, outcome, h, survival, min_cell, common)
+            + _tenth_rows(pred, y, outcome, h, survival, min_cell, common, order)
             + _smooth_rows(rf, outcome, pred, y, h, survival, common, shared))
 
 
@@ -385,10 +418,13 @@ def calibration_table(r: Refit, spec: Spec) -> pd.DataFrame:
                      "reason": message})
     fits = ([d.legacy] if d.legacy is not None else []) + list(d.curves)
     shared: dict[str, Outcome] = {}  # every model's calibration fits share their layouts
+    o = r.outcome  # and their tenths' Kaplan-Meier estimates one time order
+    order = (TimeOrder(o.time, o.y, o.entry) if r.family == "survival" and o.time is not None
+             else None)
     for rf in fits:
         try:
             rows += [{**base, **row} for row in calibration_rows(rf, r.outcome, spec.min_cell,
-                                                                 shared)]
+                                                                 shared, order)]
         except (ValueError, np.linalg.LinAlgError) as exc:
             rows.append({**base, "model": rf.model, "adjustment": rf.adjustment,
                          "status": "failed", "reason": f"calibration could not be computed: "

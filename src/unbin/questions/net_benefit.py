@@ -36,10 +36,16 @@ def net_benefit_counts(y: np.ndarray, positive: np.ndarray,
     """Binary outcome: (NB, TP/n, FP/n) per threshold, for ``positive`` of shape (n,) (one rule
     at every threshold) or (thresholds, n). Vickers & Elkin 2006."""
     y = np.asarray(y, dtype=float)
-    pos = np.broadcast_to(np.asarray(positive, dtype=float), (len(thresholds), len(y)))
     n = len(y)
-    tp = pos @ y / n
-    fp = pos @ (1.0 - y) / n
+    positive = np.asarray(positive, dtype=float)
+    if positive.ndim == 1:  # one rule at every threshold: its counts once (no thresholds x n
+        # matrix; whole numbers, so the same sums as each row of that matrix would give)
+        tp = np.full(len(thresholds), positive @ y) / n
+        fp = np.full(len(thresholds), positive @ (1.0 - y)) / n
+    else:
+        pos = np.broadcast_to(positive, (len(thresholds), n))
+        tp = pos @ y / n
+        fp = pos @ (1.0 - y) / n
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
 
 
@@ -111,6 +117,122 @@ def km_survival(time: np.ndarray, event: np.ndarray, horizon: float,
     return float(np.prod(1.0 - d / at_risk))
 
 
+class TimeOrder:
+    """One sample's rows sorted once by time (and by entry), for Kaplan-Meier estimates on
+    many subsets of its rows: a subset's times in time order are the sorted rows picked by its
+    mask in that order, so :meth:`steps` needs no sort of its own (the net benefit's 99
+    thresholds per rule and the calibration's tenths would otherwise sort the subset's times
+    and entries for each). Its counts are :func:`km_survival`'s whole numbers at the same
+    event times, so the estimates are the same to the bit."""
+
+    def __init__(self, time: np.ndarray, event: np.ndarray, entry: np.ndarray | None = None):
+        t = np.asarray(time, dtype=float)
+        self.n = t.size
+        self.by_time = np.argsort(t, kind="stable")
+        self.time = t[self.by_time]
+        self.event = (np.asarray(event, dtype=float) > 0)[self.by_time]
+        self.by_entry: np.ndarray | None = None
+        self.entry: np.ndarray | None = None
+        self._entry_rows: np.ndarray | None = None  # as given (row order)
+        if entry is not None:
+            en = np.asarray(entry, dtype=float)
+            self.by_entry = np.argsort(en, kind="stable")
+            self.entry = en[self.by_entry]
+            self._entry_rows = en
+
+    def in_order(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+        """``values`` (one per row) in time order and in entry order (None without entry)."""
+        v = np.asarray(values)
+        return v[self.by_time], None if self.by_entry is None else v[self.by_entry]
+
+    def steps(self, horizon: float, by_time: np.ndarray, by_entry: np.ndarray | None = None,
+              ) -> tuple[np.ndarray, np.ndarray]:
+        """(events d_u, rows at risk n_u) at the subset's event times u <= horizon, in time
+        order; the subset is given by its row mask in time order and, with entry, in entry
+        order (:meth:`in_order`)."""
+        t = self.time[by_time]
+        hit = t[self.event[by_time] & (t <= horizon)]  # event times up to h, sorted
+        if hit.size == 0:
+            empty = np.zeros(0, dtype=np.int64)
+            return empty, empty
+        first = np.flatnonzero(np.concatenate(([True], hit[1:] != hit[:-1])))
+        u = hit[first]
+        d = np.diff(np.append(first, hit.size))
+        exited = np.searchsorted(t, u, side="left")  # rows with time < u
+        if self.entry is None:
+            entered = np.full(u.size, t.size)
+        else:
+            assert by_entry is not None
+            entered = np.searchsorted(self.entry[by_entry], u, side="left")
+        return d, entered - exited
+
+    def survival_at_or_above(self, horizon: float, risk: np.ndarray,
+                             thresholds: np.ndarray) -> np.ndarray:
+        """:func:`km_survival` among the rows whose ``risk`` is at least each threshold (NaN
+        where there are none), for all thresholds at once: the rules "treat when risk >= p_t"
+        treat nested sets, so the at-risk and event counts at the sample's event times up to
+        the horizon are counted once for all rows and then lose the rows below each next
+        threshold. A subset's product runs over the times where it has events, with the same
+        whole numbers as its own count (an event time of the sample without an event of the
+        subset is left out, as it is absent from the subset's own times): the same estimate,
+        bit for bit."""
+        t, e = self.time, self.event
+        hit = t[e & (t <= horizon)]
+        first = np.flatnonzero(np.concatenate(([True], hit[1:] != hit[:-1]))) if hit.size \
+            else np.zeros(0, dtype=np.int64)
+        grid = hit[first]
+        K = grid.size
+        # in time order: a row is at risk at the grid times lo <= k < hi, and its event (up to
+        # the horizon) is at grid time hi - 1
+        hi = np.searchsorted(grid, t, side="right")
+        lo = (np.zeros(t.size, dtype=np.int64) if self._entry_rows is None
+              else np.searchsorted(grid, self._entry_rows[self.by_time], side="right"))
+        at = np.where(e & (t <= horizon), hi - 1, -1)
+        risk_t = np.asarray(risk, dtype=float)[self.by_time]
+        by_risk = np.argsort(risk_t, kind="stable")  # a missing risk last: never treated
+        valid = int(np.count_nonzero(~np.isnan(risk_t)))
+        by_risk = by_risk[:valid]
+        cuts = np.searchsorted(risk_t[by_risk], thresholds, side="left")
+        rows = by_risk if valid < t.size else slice(None)
+        enter = np.bincount(lo[rows], minlength=K + 1)
+        leave = np.bincount(hi[rows], minlength=K + 1)
+        ev = at[rows]
+        events = np.bincount(ev[ev >= 0], minlength=K)
+        out = np.full(len(thresholds), np.nan)
+        gone, value = 0, float("nan")
+        for g in np.argsort(thresholds, kind="stable"):  # ever fewer rows
+            cut = int(cuts[g])
+            if cut > gone:
+                out_rows = by_risk[gone:cut]
+                enter -= np.bincount(lo[out_rows], minlength=K + 1)
+                leave -= np.bincount(hi[out_rows], minlength=K + 1)
+                ev = at[out_rows]
+                events -= np.bincount(ev[ev >= 0], minlength=K)
+                value = float("nan")
+                gone = cut
+            if gone == valid:
+                break
+            if np.isnan(value):
+                has = events > 0
+                if not has.any():
+                    value = 1.0
+                else:
+                    at_risk = np.cumsum(enter - leave)[:K]
+                    value = float(np.prod(1.0 - events[has] / at_risk[has]))
+            out[g] = value
+        return out
+
+    def survival(self, horizon: float, by_time: np.ndarray,
+                 by_entry: np.ndarray | None = None) -> float:
+        """:func:`km_survival` of the subset (masks as in :meth:`steps`)."""
+        if not by_time.any():
+            return float("nan")
+        d, at_risk = self.steps(horizon, by_time, by_entry)
+        if d.size == 0:
+            return 1.0
+        return float(np.prod(1.0 - d / at_risk))
+
+
 def cif_at(time: np.ndarray, cause: np.ndarray, event_of_interest: int, horizon: float,
            entry: np.ndarray | None = None) -> float:
     """The Aalen–Johansen cumulative incidence of ``event_of_interest`` at ``horizon``."""
@@ -124,12 +246,51 @@ def net_benefit_km(time: np.ndarray, event: np.ndarray, entry: np.ndarray | None
                    positive: np.ndarray, horizon: float,
                    thresholds: np.ndarray, risk: np.ndarray | None = None,
                    cause: np.ndarray | None = None, event_of_interest: int = 1,
+                   order: TimeOrder | None = None,
                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Survival outcome at ``horizon``: (NB, (1 - S+) P+, S+ P+) per threshold (Vickers et al.
     2008), ``positive`` of shape (n,) or (thresholds, n); with ``risk`` (n,), the rules "treat
     when risk >= p_t" instead (``positive`` is then ignored; one row mask at a time). A rule
     treating nobody has NB 0. With ``cause`` (competing events), S+ is one minus the
-    Aalen–Johansen cumulative incidence of ``event_of_interest`` among the treated."""
+    Aalen–Johansen cumulative incidence of ``event_of_interest`` among the treated.
+    ``order``: the sample's :class:`TimeOrder` (made here when not given), which every rule
+    of one sample can share; the Kaplan-Meier estimates are those of :func:`km_survival`."""
+    if cause is not None:
+        return _net_benefit_competing(time, cause, event_of_interest, entry, positive,
+                                      horizon, thresholds, risk)
+    if order is None:
+        order = TimeOrder(time, event, entry)
+    tp = np.zeros(len(thresholds))
+    fp = np.zeros(len(thresholds))
+    if risk is not None:  # nested rules: every threshold's estimate in one pass
+        risk = np.asarray(risk, dtype=float)
+        surv = order.survival_at_or_above(horizon, risk, np.asarray(thresholds, dtype=float))
+        for g in range(len(thresholds)):
+            share = float((risk >= thresholds[g]).mean())
+            if share == 0:
+                continue
+            tp[g], fp[g] = (1.0 - surv[g]) * share, surv[g] * share
+        return tp - fp * thresholds / (1.0 - thresholds), tp, fp
+    cache: dict[bytes, tuple[float, float]] = {}
+    pos = np.broadcast_to(np.asarray(positive, dtype=bool), (len(thresholds), len(time)))
+    for g in range(len(thresholds)):
+        by_time, by_entry = order.in_order(pos[g])
+        share = float(by_time.mean())
+        if share == 0:
+            continue
+        key = np.packbits(by_time).tobytes()
+        if key not in cache:
+            s = order.survival(horizon, by_time, by_entry)
+            cache[key] = ((1.0 - s) * share, s * share)
+        tp[g], fp[g] = cache[key]
+    return tp - fp * thresholds / (1.0 - thresholds), tp, fp
+
+
+def _net_benefit_competing(time: np.ndarray, cause: np.ndarray, event_of_interest: int,
+                           entry: np.ndarray | None, positive: np.ndarray, horizon: float,
+                           thresholds: np.ndarray, risk: np.ndarray | None,
+                           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`net_benefit_km` with competing events (Aalen–Johansen among the treated)."""
     pos = np.broadcast_to(np.asarray(positive, dtype=bool), (len(thresholds), len(time)))
     tp = np.zeros(len(thresholds))
     fp = np.zeros(len(thresholds))
@@ -142,9 +303,7 @@ def net_benefit_km(time: np.ndarray, event: np.ndarray, entry: np.ndarray | None
         key = np.packbits(mask).tobytes()
         if key not in cache:
             sub_entry = None if entry is None else entry[mask]
-            s = (km_survival(time[mask], event[mask], horizon, sub_entry) if cause is None
-                 else 1.0 - cif_at(time[mask], cause[mask], event_of_interest, horizon,
-                                   sub_entry))
+            s = 1.0 - cif_at(time[mask], cause[mask], event_of_interest, horizon, sub_entry)
             cache[key] = ((1.0 - s) * share, s * share)
         tp[g], fp[g] = cache[key]
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
@@ -208,6 +367,7 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
         method = f"{estimator} at {d.scale.horizon:g}"
         h = d.scale.horizon
         time, entry = np.asarray(o.time, dtype=float), o.entry
+        order = TimeOrder(time, y, entry) if o.cause is None else None  # one for every rule
         if h > time.max():
             held = (f"the horizon {h:g} is past the longest follow-up ({time.max():g}): "
                     f"{estimator} held at its last value")
@@ -215,7 +375,7 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
         def nb(positive: np.ndarray, risk: np.ndarray | None = None,
                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
             return net_benefit_km(time, y, entry, positive, h, pt, risk, o.cause,
-                                  o.event_of_interest)
+                                  o.event_of_interest, order)
 
     # (rule, kind, model, adjustment, who is treated: a row mask, or the risk of each row for
     # the rules "treat when risk >= p_t" at every p_t, note)

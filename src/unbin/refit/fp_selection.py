@@ -57,15 +57,22 @@ if TYPE_CHECKING:
 # Two log-likelihoods closer than this (relative to their size) are treated as possibly equal:
 # far above the rounding of a likelihood summed over millions of rows (about 1e-12) and the
 # fits' own convergence tolerance, so a candidate pruned by it cannot be the exhaustive winner.
-_MARGIN = 1e-7
+# The Cox fit may stop once three steps changed its log partial likelihood by at most 1e-9 of
+# its size (unbin.models.cox.fit), so its margin is 100 times that; the linear, logistic and
+# Poisson fits stop at a change of 1e-12 of it plus 1e-10 (unbin.models._glm), and their
+# margin of 1e-9 is still a thousand times that. A smaller margin prunes near-equal candidates
+# (on a registry's million rows, FP2 curves a few hundredths of a log-likelihood unit apart)
+# without fitting them in full; the screen then takes a few more of its cheap steps on them.
+_MARGIN = {"survival": 1e-7}
+_GLM_MARGIN = 1e-9
 _MAX_STEPS = 30
 _MAX_HALVINGS = 20
 _REANCHOR = 2
 ENV_SWITCH = "UNBIN_FP_SEARCH"
 
 
-def _margin(ll: float) -> float:
-    return _MARGIN * max(1.0, abs(ll))
+def _margin(ll: float, family: str) -> float:
+    return _MARGIN.get(family, _GLM_MARGIN) * max(1.0, abs(ll))
 
 
 def exhaustive_by_default() -> bool:
@@ -278,14 +285,14 @@ class _Screen:
             change = (Zc[:, 1:] if self.family == "survival" else Zc) @ step
             if self._feasible(change):
                 out.upper = min(out.upper, ll + gain)
-            if out.upper + _margin(out.upper) < incumbent:
+            if out.upper + _margin(out.upper, self.family) < incumbent:
                 return out  # cannot win
-            if out.upper - out.lower <= 0.01 * _margin(ll):
+            if out.upper - out.lower <= 0.01 * _margin(ll, self.family):
                 return out  # converged: lower and upper agree
             for _halving in range(_MAX_HALVINGS):
                 trial = theta + step
                 ll_next, U_next, I_next = self._evaluate(Zc, D, trial)
-                if np.isfinite(ll_next) and ll_next >= ll - _margin(ll):
+                if np.isfinite(ll_next) and ll_next >= ll - _margin(ll, self.family):
                     break
                 step = step / 2.0
             else:
@@ -359,7 +366,7 @@ def screened_best(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable:
             # any, the best log-likelihood reached in the screen)
             floor = max(reach, incumbent) if not fitted else reach
             todo = [i for i in range(len(terms)) if i not in fitted
-                    and bounds[i].upper + _margin(bounds[i].upper) >= floor]
+                    and bounds[i].upper + _margin(bounds[i].upper, family) >= floor]
             if not todo:
                 break
             for i in todo:
