@@ -94,7 +94,9 @@ from ..models.cox.concordance import scores_concordances
 from ..models.discrimination import auc, c_index, compared_score, count_aucs
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
+    Replicates,
     WeightedGLM,
+    design_resample_replicates,
     design_resample_weights,
     replicate_rows,
     weighted_cox_designs,
@@ -471,7 +473,8 @@ def _skip_reason(r: Refit, spec: Spec, horizon: float | None) -> str | None:
     return bootstrap_reason(r.analysis) or None
 
 
-def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarray,
+def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model],
+                     W: np.ndarray | Replicates,
                      layouts: dict[int, Any] | None = None,
                      ) -> dict[tuple[str, str], np.ndarray]:
     """Every model's coefficients refitted in every replicate (rows of the result); a model
@@ -490,8 +493,9 @@ def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarr
             if layouts is not None and o.weights is None:
                 layouts.setdefault(b, layout)
 
-        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o, W,
-                                    keep)
+        dense = W if isinstance(W, np.ndarray) else W.dense()
+        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o,
+                                    dense, keep)
         fitted = dict(zip(unique, outs, strict=True))
     first = {id(models[k]): k for k in unique}
     return {k: fitted[first[id(models[k])]] for k in keys}
@@ -813,9 +817,11 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
     # binary: every replicate at once (vectorised); survival: one replicate at a time, whose
     # refits lay out its drawn rows once for all of its numbers, its weights drawn when it
     # comes (no replicates x rows array)
-    W = (design_resample_weights(rng, r.outcome, B) if r.family == "binary"
+    drawn_all = (design_resample_replicates(rng, r.outcome, B) if r.family == "binary"
+                 else None)  # compact: draw counts as small integers
+    W = (drawn_all.rows() if drawn_all is not None
          else _replicate_weights(rng, r.outcome, B))
-    coefs = _replicate_coefs(r, models, W) if isinstance(W, np.ndarray) else None
+    coefs = _replicate_coefs(r, models, drawn_all) if drawn_all is not None else None
     ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
     full = _Sample(r, np.arange(n), horizon)
     own = {k: models[k].res.coef for k in ev.keys}
