@@ -447,10 +447,14 @@ def _curve(mdl: Model, coef: np.ndarray, family: str) -> Callable[[np.ndarray], 
     b = coef[lo:lo + mdl.k]
 
     def f(v: np.ndarray) -> np.ndarray:
-        B = np.column_stack([t.basis(np.atleast_1d(v)) for t in mdl.terms])
-        return np.asarray(B @ b, dtype=float)
+        return np.asarray(_exposure_basis(mdl, v) @ b, dtype=float)
 
     return f
+
+
+def _exposure_basis(mdl: Model, v: np.ndarray) -> np.ndarray:
+    """The model's exposure columns at the exposure values ``v``."""
+    return np.column_stack([t.basis(np.atleast_1d(v)) for t in mdl.terms])
 
 
 def _percentiles(values: np.ndarray) -> tuple[float, float]:
@@ -590,6 +594,12 @@ class _Evaluator:
         # cause-specific models', whose maximum likelihood does not make the slope 1
         self.competing = r.family == "survival" and r.outcome.cause is not None
         self.rules = legacy_rules(r.legacy, r.x)[:1]
+        # per curve model (by identity), its exposure columns at every sample row: the same
+        # in every replicate (the knots stay the full sample's), made once
+        self._basis_x: dict[int, np.ndarray] = {}
+        # the risks of the last predictors (by identity, holding them): a replicate's model
+        # is judged on its drawn rows and on the full sample from the same z
+        self._risks: dict[int, tuple[np.ndarray, np.ndarray]] = {}
 
     def z_of(self, k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
         """Every row's linear predictor on the risk's link scale (log odds; survival the log
@@ -618,6 +628,17 @@ class _Evaluator:
     def risk(self, z: np.ndarray) -> np.ndarray:
         return (np.asarray(special.expit(z)) if self.r.family == "binary"
                 else np.asarray(-np.expm1(-np.exp(z))))
+
+    def risk_of(self, z: np.ndarray) -> np.ndarray:
+        """:meth:`risk` of a predictor, kept for the last few predictors (the same array)."""
+        hit = self._risks.get(id(z))
+        if hit is not None and hit[0] is z:
+            return hit[1]
+        if len(self._risks) >= len(RISK_MODELS):
+            del self._risks[next(iter(self._risks))]
+        out = self.risk(z)
+        self._risks[id(z)] = (z, out)
+        return out
 
     def replicate_c(self, zs: dict[int, np.ndarray | None], drawn: _Sample, full: _Sample,
                     ) -> tuple[dict[int, float], dict[int, float]] | None:
@@ -695,7 +716,7 @@ class _Evaluator:
         pt = self.pt
         if self.r.family == "binary" and on.w is None and pt.size:
             # on the sample's rows with ``on``'s draw counts: no repeated rows to form
-            nb = net_benefit_risk(self.r.outcome.y, self.risk(z), pt,
+            nb = net_benefit_risk(self.r.outcome.y, self.risk_of(z), pt,
                                   on.row_counts(self.r.outcome.n))[0]
             zo = None
         elif on.base is not None and on.w is None and pt.size:
@@ -720,8 +741,14 @@ class _Evaluator:
         from .thresholds import crossings  # scipy.optimize: imported by the jobs that need it
 
         r = self.r
-        f = _curve(self.models[k], c, r.family)
-        rest = float(np.median((z - f(r.x))[fit.idx]))
+        mdl = self.models[k]
+        f = _curve(mdl, c, r.family)
+        basis = self._basis_x.get(id(mdl))
+        if basis is None:
+            basis = self._basis_x[id(mdl)] = _exposure_basis(mdl, r.x)
+        lo = 1 if r.family == "binary" else 0
+        rest = float(np.median((z - np.asarray(basis @ c[lo:lo + mdl.k], dtype=float))
+                               [fit.idx]))
         lo_x, hi_x = float(r.x.min()), float(r.x.max())
         for t in self.pt:
             found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
