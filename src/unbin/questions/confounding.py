@@ -348,6 +348,8 @@ class _Designs:
                 # standardised over the drawn rows as the full sample's over its rows
                 marg[key][c0:c0 + len(W)] = glm_means(r.family, it.X, it.k, coef, it.at,
                                                       replicate_copies(o, W), o.offset)
+            # the design's standardised copy goes before the next one's is made
+            del g, whole
         return cond, marg, marg
 
     def _replicate_incidence(self, b: int, it: _Design, Xm: np.ndarray, m: np.ndarray,
