@@ -86,6 +86,7 @@ def count_aucs(y: np.ndarray, score: np.ndarray,
 
 _RADIX_ROWS = 4096  # from this many scores the order is found by two 16-bit radix passes
 _TOP = 4294967295.0  # 2^32 - 1
+_FEW_DOWN = 256  # up to this many out-of-order neighbours their buckets are found one by one
 
 
 def ascending_order(s: np.ndarray) -> np.ndarray:
@@ -107,15 +108,24 @@ def ascending_order(s: np.ndarray) -> np.ndarray:
     order = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
     order = order[np.argsort((key[order] >> 16).astype(np.uint16), kind="stable")]
     ranked = s[order]
-    down = ranked[1:] < ranked[:-1]  # only within a shared bucket
-    if down.any():
-        ks = key[order]
-        run = np.cumsum(np.r_[True, ks[1:] != ks[:-1]])  # bucket runs in the order
-        fix = np.zeros(int(run[-1]) + 1, dtype=bool)
-        fix[run[1:][down]] = True
-        pos = np.flatnonzero(fix[run])
-        sub = order[pos]
-        order[pos] = sub[np.lexsort((s[sub], run[pos]))]
+    down = np.flatnonzero(ranked[1:] < ranked[:-1])  # only within a shared bucket
+    if down.size == 0:
+        return order
+    ks = key[order]  # the buckets in the order: ascending
+    if down.size <= _FEW_DOWN:  # each such bucket's places by a binary search
+        shared = np.unique(ks[down])
+        start = np.searchsorted(ks, shared, side="left")
+        stop = np.searchsorted(ks, shared, side="right")
+        pos = np.concatenate([np.arange(a, b) for a, b in zip(start, stop, strict=True)])
+        run = np.repeat(np.arange(shared.size), stop - start)
+    else:
+        runs = np.cumsum(np.r_[True, ks[1:] != ks[:-1]])  # bucket runs in the order
+        fix = np.zeros(int(runs[-1]) + 1, dtype=bool)
+        fix[runs[1:][down]] = True
+        pos = np.flatnonzero(fix[runs])
+        run = runs[pos]
+    sub = order[pos]
+    order[pos] = sub[np.lexsort((s[sub], run))]
     return order
 
 

@@ -362,11 +362,17 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     y = np.asarray(y, dtype=float)
     zc = np.asarray(z, dtype=float) - np.mean(z)
     a, b = float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6))), 1.0
+    # the rows' arrays made once and overwritten at each step (the same operations on the
+    # same values as fresh arrays: b zc + a, expit, mu (1 - mu), y - mu, w zc)
+    mu, w, r, wz = (np.empty_like(zc) for _ in range(4))
     for _ in range(50):
-        mu = special.expit(a + b * zc)
-        w = mu * (1 - mu)
-        r = y - mu
-        wz = w * zc
+        np.multiply(zc, b, out=mu)
+        mu += a
+        special.expit(mu, out=mu)
+        np.subtract(1.0, mu, out=w)
+        w *= mu
+        np.subtract(y, mu, out=r)
+        np.multiply(w, zc, out=wz)
         h00, h01, h11 = float(w.sum()), float(wz.sum()), float(wz @ zc)
         g0, g1 = float(r.sum()), float(r @ zc)
         det = h00 * h11 - h01 * h01
