@@ -340,7 +340,9 @@ def _mean_var(family: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray | No
     """The mean and the variance function at ``eta`` (None for the linear model's 1)."""
     if family == "binary":
         mu = special.expit(eta)
-        return mu, mu * (1 - mu)
+        v = np.subtract(1.0, mu)
+        v *= mu  # mu (1 - mu)
+        return mu, v
     if family == "count":
         mu = np.exp(np.clip(eta, None, 700))
         return mu, mu
@@ -375,6 +377,7 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
     iu = np.triu_indices(q)
     k = len(iu[0])
     offset = np.broadcast_to(np.asarray(off, dtype=float), (n,))
+    shift = bool(np.any(offset != 0.0))  # an offset to add (adding zeros changes nothing)
     mu0, v0 = _mean_var(family, Z @ theta0 + offset)
     r0 = y - mu0
     score = np.zeros((C, q))
@@ -416,11 +419,20 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
                      if it == 1 or np.any(size[act] > _SLOW * before[act]) else None)
             for sl in _row_blocks(n, act.size):
                 Zb = Z[sl]
-                mu, v = _mean_var(family, Ta @ Zb.T + offset[sl])
+                eta = Ta @ Zb.T
+                if shift:
+                    eta += offset[sl]
+                mu, v = _mean_var(family, eta)
                 Wb = W.block(act, sl)
-                score += (Wb * (y[sl] - mu)) @ Zb
+                # W (y - mu) and W v written over eta and v (the same products as fresh
+                # arrays; neither is read again)
+                r = np.subtract(y[sl], mu, out=eta)
+                r *= Wb
+                score += r @ Zb
                 if fresh is not None:
-                    fresh += (Wb * v) @ (Zb[:, iu[0]] * Zb[:, iu[1]])
+                    assert v is not None
+                    v *= Wb
+                    fresh += v @ (Zb[:, iu[0]] * Zb[:, iu[1]])
             if fresh is not None:
                 H[act] = _unpack(fresh, q, iu)
         else:
