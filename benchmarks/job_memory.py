@@ -64,6 +64,9 @@ class Sampler:
                 self.peak = now
                 frame = sys._current_frames().get(self.main)
                 self.stack = None if frame is None else traceback.extract_stack(frame)[-8:]
+                # the frame (and so its locals' arrays) must not be held here until the
+                # next peak: that kept a finished table's arrays alive into the next one
+                del frame
             time.sleep(self.every)
 
 

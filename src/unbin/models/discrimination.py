@@ -41,37 +41,92 @@ def count_aucs(y: np.ndarray, score: np.ndarray,
                counts: list[np.ndarray | None]) -> list[float] | None:
     """The AUC of each data set in which row i is repeated ``counts[i]`` times (None: once
     each; a bootstrap replicate's drawn rows as draw counts): over (event, non-event) pairs of
-    copies, the share in which the event scores higher, ties one half. The events' distinct
-    scores are sorted once (the smaller group) and every non-event is placed among them by one
-    binary search; per distinct event score, the non-event copies below it and tied with it
-    are then sums of counts (whole numbers, exact in float64), and the numerator, twice the
-    lower pairs plus the tied ones, is divided as :func:`auc`'s Mann–Whitney count is, so each
-    value is bit for bit that of the repeated rows. None when a score is NaN."""
+    copies, the share in which the event scores higher, ties one half. All scores are sorted
+    once (:func:`ascending_order`); the runs of equal scores in that order are the groups of
+    tied rows. Per data set, the copies of each group's events and non-events are sums of
+    counts over its run, and the non-event copies below a group a running sum over the runs
+    before it (whole numbers in int64, exact); the numerator, twice the lower pairs plus the
+    tied ones, is divided as :func:`auc`'s Mann–Whitney count is, so each value is bit for
+    bit that of the repeated rows. ``counts`` are whole numbers. None when a score is
+    NaN."""
     e = np.asarray(y, dtype=bool)
     s = np.asarray(score, dtype=float)
     if np.isnan(s).any():
         return None
-    events, others = s[e], s[~e]
-    u, group = np.unique(events, return_inverse=True)  # the events' distinct scores, sorted
-    G = u.size
-    place = np.searchsorted(u, others, side="right")  # distinct event scores <= the non-event
-    tied = np.flatnonzero(place > 0)
-    tied = tied[u[place[tied] - 1] == others[tied]]
+    if s.size == 0:
+        return [float("nan")] * len(counts)
+    order = ascending_order(s)  # ties in any order: the runs below group them
+    ranked = s[order]
+    first = np.flatnonzero(np.r_[True, ranked[1:] != ranked[:-1]])  # each run's first place
+    size = np.diff(np.r_[first, s.size])  # rows per group of tied scores
+    event = e[order]
     out: list[float] = []
     for c in counts:
-        c_ev = np.ones(events.size) if c is None else np.asarray(c, dtype=float)[e]
-        c_ot = np.ones(others.size) if c is None else np.asarray(c, dtype=float)[~e]
-        n1, n0 = int(c_ev.sum()), int(c_ot.sum())
+        if c is None:  # each row once
+            tot_g = size
+            ev_g = np.add.reduceat(event, first, dtype=np.int64)
+        else:
+            c_s = np.asarray(c)[order]
+            if c_s.dtype.kind not in "iub":
+                if not np.array_equal(c_s, np.rint(c_s)):
+                    raise ValueError("count_aucs: counts must be whole numbers")
+                c_s = c_s.astype(np.int64)
+            tot_g = np.add.reduceat(c_s, first, dtype=np.int64)  # copies per group
+            ev_g = np.add.reduceat(c_s * event, first, dtype=np.int64)  # event copies
+        ot_g = tot_g - ev_g  # non-event copies tied with the group's events
+        n1, n0 = int(ev_g.sum()), int(ot_g.sum())
         if n1 == 0 or n0 == 0:
             out.append(float("nan"))
             continue
-        per_event = np.bincount(group.ravel(), weights=c_ev, minlength=G)
-        # non-event copies below each distinct event score: those placed before it
-        below = np.cumsum(np.bincount(place, weights=c_ot, minlength=G + 1))[:G]
-        equal = np.bincount(place[tied] - 1, weights=c_ot[tied], minlength=G)
-        twice = int(per_event @ (2.0 * below + equal))  # whole numbers below 2^53
+        below = np.cumsum(ot_g) - ot_g  # non-event copies with a lower score
+        twice = int(ev_g @ (2 * below + ot_g))  # whole numbers in int64: exact
         out.append(float(twice / 2 / (n1 * n0)))
     return out
+
+
+_RADIX_ROWS = 4096  # from this many scores the order is found by two 16-bit radix passes
+_TOP = 4294967295.0  # 2^32 - 1
+_FEW_DOWN = 256  # up to this many out-of-order neighbours their buckets are found one by one
+
+
+def ascending_order(s: np.ndarray) -> np.ndarray:
+    """A permutation that sorts the finite scores ``s`` ascending (equal scores in any
+    order), as ``np.argsort`` would sort them. From ``_RADIX_ROWS`` scores: each score's
+    32-bit bucket on the range (``floor((s - min) * (2^32 - 1) / (max - min))``, non-decreasing
+    in the score, as floating-point subtraction, multiplication by a positive number and floor
+    are) is sorted by two stable 16-bit passes (numpy's radix sort, linear in the rows:
+    cheaper than a comparison sort of the doubles); the buckets shared by scores out of order
+    are then sorted by score (few rows)."""
+    n = s.size
+    if n < _RADIX_ROWS:
+        return np.argsort(s)
+    lo, hi = float(s.min()), float(s.max())
+    scale = _TOP / (hi - lo) if np.isfinite(hi - lo) and hi > lo else float("nan")
+    if not np.isfinite(scale):
+        return np.argsort(s)
+    key = np.minimum(np.floor((s - lo) * scale), _TOP).astype(np.uint32)
+    order = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
+    order = order[np.argsort((key[order] >> 16).astype(np.uint16), kind="stable")]
+    ranked = s[order]
+    down = np.flatnonzero(ranked[1:] < ranked[:-1])  # only within a shared bucket
+    if down.size == 0:
+        return order
+    ks = key[order]  # the buckets in the order: ascending
+    if down.size <= _FEW_DOWN:  # each such bucket's places by a binary search
+        shared = np.unique(ks[down])
+        start = np.searchsorted(ks, shared, side="left")
+        stop = np.searchsorted(ks, shared, side="right")
+        pos = np.concatenate([np.arange(a, b) for a, b in zip(start, stop, strict=True)])
+        run = np.repeat(np.arange(shared.size), stop - start)
+    else:
+        runs = np.cumsum(np.r_[True, ks[1:] != ks[:-1]])  # bucket runs in the order
+        fix = np.zeros(int(runs[-1]) + 1, dtype=bool)
+        fix[runs[1:][down]] = True
+        pos = np.flatnonzero(fix[runs])
+        run = runs[pos]
+    sub = order[pos]
+    order[pos] = sub[np.lexsort((s[sub], run))]
+    return order
 
 
 def weighted_auc(y: np.ndarray, score: np.ndarray, weights: np.ndarray,

@@ -83,6 +83,7 @@ from ..models.weighted import (
     WeightedGLM,
     cox_near_starts,
     cox_replicate_refits,
+    design_resample_replicates,
     design_resample_weights,
     replicate_copies,
     replicate_rows,
@@ -330,22 +331,25 @@ class _Designs:
                        ) -> tuple[dict[str, np.ndarray], dict[str, np.ndarray],
                                   dict[str, np.ndarray]]:
         """:meth:`bootstrap` of the linear, logistic and Poisson designs: the replicates drawn
-        in chunks of ``chunk`` (the same draws from ``rng`` as ever), each design refitted on
-        all of them at once where the sample is large (``WeightedGLM.whole``), else chunk by
-        chunk; the standardised means chunk by chunk."""
+        at once, kept compact (``design_resample_replicates``: draw counts as small integers;
+        the same draws from ``rng`` as drawing them in chunks, one replicate after another),
+        each design refitted on all of them at once where the sample is large
+        (``WeightedGLM.whole``), else chunk by chunk; the standardised means chunk by
+        chunk."""
         r, o = self.r, self.r.outcome
-        W_all = np.concatenate([design_resample_weights(rng, o, min(chunk, replicates - c0))
-                                for c0 in range(0, replicates, chunk)])
+        R = design_resample_replicates(rng, o, replicates)
         for key, it in ok:  # each design standardised once, for every chunk
             g = WeightedGLM(r.family, it.X, o, it.res.coef)
-            whole = g.coef(W_all) if g.whole else None
+            whole = g.coef(R) if g.whole else None
             for c0 in range(0, replicates, chunk):
-                W = W_all[c0:c0 + chunk]
+                W = R.part(c0, c0 + chunk)
                 coef = g.coef(W) if whole is None else whole[c0:c0 + len(W)]
                 cond[key][c0:c0 + len(W)] = coef[:, 1:1 + it.k] @ self._d(key)
                 # standardised over the drawn rows as the full sample's over its rows
                 marg[key][c0:c0 + len(W)] = glm_means(r.family, it.X, it.k, coef, it.at,
                                                       replicate_copies(o, W), o.offset)
+            # the design's standardised copy goes before the next one's is made
+            del g, whole
         return cond, marg, marg
 
     def _replicate_incidence(self, b: int, it: _Design, Xm: np.ndarray, m: np.ndarray,

@@ -94,7 +94,9 @@ from ..models.cox.concordance import scores_concordances
 from ..models.discrimination import auc, c_index, compared_score, count_aucs
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
+    Replicates,
     WeightedGLM,
+    design_resample_replicates,
     design_resample_weights,
     replicate_rows,
     weighted_cox_designs,
@@ -360,11 +362,17 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     y = np.asarray(y, dtype=float)
     zc = np.asarray(z, dtype=float) - np.mean(z)
     a, b = float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6))), 1.0
+    # the rows' arrays made once and overwritten at each step (the same operations on the
+    # same values as fresh arrays: b zc + a, expit, mu (1 - mu), y - mu, w zc)
+    mu, w, r, wz = (np.empty_like(zc) for _ in range(4))
     for _ in range(50):
-        mu = special.expit(a + b * zc)
-        w = mu * (1 - mu)
-        r = y - mu
-        wz = w * zc
+        np.multiply(zc, b, out=mu)
+        mu += a
+        special.expit(mu, out=mu)
+        np.subtract(1.0, mu, out=w)
+        w *= mu
+        np.subtract(y, mu, out=r)
+        np.multiply(w, zc, out=wz)
         h00, h01, h11 = float(w.sum()), float(wz.sum()), float(wz @ zc)
         g0, g1 = float(r.sum()), float(r @ zc)
         det = h00 * h11 - h01 * h01
@@ -445,10 +453,14 @@ def _curve(mdl: Model, coef: np.ndarray, family: str) -> Callable[[np.ndarray], 
     b = coef[lo:lo + mdl.k]
 
     def f(v: np.ndarray) -> np.ndarray:
-        B = np.column_stack([t.basis(np.atleast_1d(v)) for t in mdl.terms])
-        return np.asarray(B @ b, dtype=float)
+        return np.asarray(_exposure_basis(mdl, v) @ b, dtype=float)
 
     return f
+
+
+def _exposure_basis(mdl: Model, v: np.ndarray) -> np.ndarray:
+    """The model's exposure columns at the exposure values ``v``."""
+    return np.column_stack([t.basis(np.atleast_1d(v)) for t in mdl.terms])
 
 
 def _percentiles(values: np.ndarray) -> tuple[float, float]:
@@ -471,7 +483,8 @@ def _skip_reason(r: Refit, spec: Spec, horizon: float | None) -> str | None:
     return bootstrap_reason(r.analysis) or None
 
 
-def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarray,
+def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model],
+                     W: np.ndarray | Replicates,
                      layouts: dict[int, Any] | None = None,
                      ) -> dict[tuple[str, str], np.ndarray]:
     """Every model's coefficients refitted in every replicate (rows of the result); a model
@@ -490,8 +503,9 @@ def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model], W: np.ndarr
             if layouts is not None and o.weights is None:
                 layouts.setdefault(b, layout)
 
-        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o, W,
-                                    keep)
+        dense = W if isinstance(W, np.ndarray) else W.dense()
+        outs = weighted_cox_designs([(models[k].X, models[k].res.coef) for k in unique], o,
+                                    dense, keep)
         fitted = dict(zip(unique, outs, strict=True))
     first = {id(models[k]): k for k in unique}
     return {k: fitted[first[id(models[k])]] for k in keys}
@@ -586,6 +600,12 @@ class _Evaluator:
         # cause-specific models', whose maximum likelihood does not make the slope 1
         self.competing = r.family == "survival" and r.outcome.cause is not None
         self.rules = legacy_rules(r.legacy, r.x)[:1]
+        # per curve model (by identity), its exposure columns at every sample row: the same
+        # in every replicate (the knots stay the full sample's), made once
+        self._basis_x: dict[int, np.ndarray] = {}
+        # the risks of the last predictors (by identity, holding them): a replicate's model
+        # is judged on its drawn rows and on the full sample from the same z
+        self._risks: dict[int, tuple[np.ndarray, np.ndarray]] = {}
 
     def z_of(self, k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
         """Every row's linear predictor on the risk's link scale (log odds; survival the log
@@ -614,6 +634,17 @@ class _Evaluator:
     def risk(self, z: np.ndarray) -> np.ndarray:
         return (np.asarray(special.expit(z)) if self.r.family == "binary"
                 else np.asarray(-np.expm1(-np.exp(z))))
+
+    def risk_of(self, z: np.ndarray) -> np.ndarray:
+        """:meth:`risk` of a predictor, kept for the last few predictors (the same array)."""
+        hit = self._risks.get(id(z))
+        if hit is not None and hit[0] is z:
+            return hit[1]
+        if len(self._risks) >= len(RISK_MODELS):
+            del self._risks[next(iter(self._risks))]
+        out = self.risk(z)
+        self._risks[id(z)] = (z, out)
+        return out
 
     def replicate_c(self, zs: dict[int, np.ndarray | None], drawn: _Sample, full: _Sample,
                     ) -> tuple[dict[int, float], dict[int, float]] | None:
@@ -691,7 +722,7 @@ class _Evaluator:
         pt = self.pt
         if self.r.family == "binary" and on.w is None and pt.size:
             # on the sample's rows with ``on``'s draw counts: no repeated rows to form
-            nb = net_benefit_risk(self.r.outcome.y, self.risk(z), pt,
+            nb = net_benefit_risk(self.r.outcome.y, self.risk_of(z), pt,
                                   on.row_counts(self.r.outcome.n))[0]
             zo = None
         elif on.base is not None and on.w is None and pt.size:
@@ -716,8 +747,14 @@ class _Evaluator:
         from .thresholds import crossings  # scipy.optimize: imported by the jobs that need it
 
         r = self.r
-        f = _curve(self.models[k], c, r.family)
-        rest = float(np.median((z - f(r.x))[fit.idx]))
+        mdl = self.models[k]
+        f = _curve(mdl, c, r.family)
+        basis = self._basis_x.get(id(mdl))
+        if basis is None:
+            basis = self._basis_x[id(mdl)] = _exposure_basis(mdl, r.x)
+        lo = 1 if r.family == "binary" else 0
+        rest = float(np.median((z - np.asarray(basis @ c[lo:lo + mdl.k], dtype=float))
+                               [fit.idx]))
         lo_x, hi_x = float(r.x.min()), float(r.x.max())
         for t in self.pt:
             found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
@@ -813,9 +850,11 @@ def decision_resampling_table(r: Refit, spec: Spec, replicates: int | None = Non
     # binary: every replicate at once (vectorised); survival: one replicate at a time, whose
     # refits lay out its drawn rows once for all of its numbers, its weights drawn when it
     # comes (no replicates x rows array)
-    W = (design_resample_weights(rng, r.outcome, B) if r.family == "binary"
+    drawn_all = (design_resample_replicates(rng, r.outcome, B) if r.family == "binary"
+                 else None)  # compact: draw counts as small integers
+    W = (drawn_all.rows() if drawn_all is not None
          else _replicate_weights(rng, r.outcome, B))
-    coefs = _replicate_coefs(r, models, W) if isinstance(W, np.ndarray) else None
+    coefs = _replicate_coefs(r, models, drawn_all) if drawn_all is not None else None
     ev = _Evaluator(r, models, np.asarray(thresholds_for(a, spec), dtype=float), horizon)
     full = _Sample(r, np.arange(n), horizon)
     own = {k: models[k].res.coef for k in ev.keys}

@@ -49,10 +49,12 @@ from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
+    Weights,
+    as_replicates,
     cox_near_starts,
     cox_replicate_refits,
     cox_robust_wald,
-    design_resample_weights,
+    design_resample_replicates,
     glm_robust_wald,
     replicate_clusters,
     replicate_rows,
@@ -193,15 +195,17 @@ def replicate_shares(family: str, models: list[_Model], outcome: Outcome,
     The replicates resample the design (``design_resample_weights``); ``robust``: the share is
     the ratio of the replicates' robust Wald statistics (as the point estimate's), else of
     their likelihood ratios."""
-    W = design_resample_weights(rng, outcome, replicates)
+    W = design_resample_replicates(rng, outcome, replicates)  # compact: small integers
     return shares_on(family, models, outcome, W, robust)
 
 
-def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: np.ndarray,
+def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: Weights,
               robust: bool = False) -> np.ndarray:
-    """:func:`replicate_shares` on given refit weights ``W_all`` (replicates, n)."""
+    """:func:`replicate_shares` on given refit weights ``W_all`` (replicates, n; float64 or
+    compact, ``unbin.models.weighted.Replicates``)."""
     n = outcome.n
-    replicates = W_all.shape[0]
+    R = as_replicates(W_all)
+    replicates = len(R)
     k = len(models) // 3
     # a model shared by several codings (no adjustment variables) is refitted once
     unique = list({id(mod): mod for mod in models}.values())
@@ -209,21 +213,28 @@ def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: np.nda
     ll_unique = np.full((replicates, len(unique)), np.nan)
     p_max = max(mod.X.shape[1] for mod in unique)
     chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
-    prepared: list[WeightedGLM] = []
+    prepared: list[WeightedGLM | None] = []
     whole: list[np.ndarray | None] = []
-    if family != "survival":
-        prepared = [WeightedGLM(family, mod.X, outcome, mod.res.coef) for mod in unique]
-        # large samples: every replicate refitted in one go (WeightedGLM.whole)
-        whole = [g.coef(W_all) if g.whole else None for g in prepared]
+    for mod in unique if family != "survival" else ():
+        one = WeightedGLM(family, mod.X, outcome, mod.res.coef)
+        # large samples: every replicate refitted in one go (WeightedGLM.whole), one design
+        # at a time (its standardised copy goes before the next one's is made)
+        whole.append(one.coef(R) if one.whole else None)
+        prepared.append(None if one.whole else one)
+        del one
     if family == "survival":  # every replicate in one call (the refits block them)
-        for j, v in enumerate(_cox_logliks(unique, outcome, W_all, robust)):
+        for j, v in enumerate(_cox_logliks(unique, outcome, R.dense(), robust)):
             ll_unique[:, j] = v
     else:
         for c0 in range(0, replicates, chunk):
-            W = W_all[c0:c0 + chunk]
+            W = R.part(c0, c0 + chunk).dense()  # float64 refit weights of the chunk only
             for j, (mod, g) in enumerate(zip(unique, prepared, strict=True)):
                 got = whole[j]
-                coef = g.coef(W) if got is None else got[c0:c0 + len(W)]
+                if got is None:
+                    assert g is not None
+                    coef = g.coef(W)
+                else:
+                    coef = got[c0:c0 + len(W)]
                 ll_unique[c0:c0 + len(W), j] = (
                     glm_robust_wald(family, mod.X, outcome, coef, W, mod.k) if robust
                     else glm_logliks(family, mod.X, coef, outcome, W))
