@@ -4,7 +4,9 @@ Data (invented): ``rows`` rows, times and delayed entry in whole days (heavily t
 times), 4 strata, 6 columns (normal, binary, uniform), about 12% events. Replicates: rows drawn
 with replacement (seeded), each drawn row repeated as often as drawn (as the resampling tables
 lay them out), the replicate's layout prepared before timing (its CPU time is printed apart:
-the batched refits do not need it).
+the batched refits do not need it), and the same layout derived from the full sample's
+(``cox.layout.draw_layout``, as the resampling tables make it for whole-day times; timed
+apart too, and required identical to the prepared one).
 
 Ways: ``own`` is ``unbin.models.cox.refit_near`` on the replicate's copy of its design rows
 (its own standardisation and its own information at the start); ``shared`` is
@@ -38,6 +40,7 @@ from _measure import peak_mib  # noqa: E402
 
 import unbin.models.cox.fit as engine  # noqa: E402
 from unbin.models.cox import (  # noqa: E402
+    Layout,
     fit_cox,
     near_start,
     prepare_layout,
@@ -45,6 +48,8 @@ from unbin.models.cox import (  # noqa: E402
     refit_replicate,
     refit_replicates,
 )
+from unbin.models.cox.inputs import _stratum_codes  # noqa: E402
+from unbin.models.cox.layout import draw_layout  # noqa: E402
 
 
 def cohort(rows: int, seed: int = 20) -> dict[str, np.ndarray]:
@@ -84,7 +89,8 @@ def run(rows: int, replicates: int, checked: int) -> None:
     C = draws(rows, replicates)
     half = replicates // 2
     batched = np.full((replicates, X.shape[1]), np.nan)
-    cpu = {"own": 0.0, "shared": 0.0, "batched": 0.0, "layouts": 0.0}
+    cpu = {"own": 0.0, "shared": 0.0, "batched": 0.0, "layouts": 0.0, "derived": 0.0}
+    codes = _stratum_codes(d["strata"], rows)[0]
 
     def batch(part: slice) -> None:  # the batched way on a half of the replicates
         t0 = time.process_time()
@@ -109,6 +115,12 @@ def run(rows: int, replicates: int, checked: int) -> None:
             lay = prepare_layout(d["time"][m], d["event"][m], entry=d["entry"][m],
                                  strata=d["strata"][m])
             cpu["layouts"] += time.process_time() - t0
+            # the same layout derived from the full sample's (what the resampling tables use
+            # where the times are whole days); required identical
+            t0 = time.process_time()
+            derived = draw_layout(layout, C[b], None, codes)
+            cpu["derived"] += time.process_time() - t0
+            _same_layout(derived, lay)
             got = {}
             for way in (("own", "shared") if b % 2 == 0 else ("shared", "own")):
                 count["n"] = 0
@@ -138,11 +150,28 @@ def run(rows: int, replicates: int, checked: int) -> None:
     print(f"{rows:>9,} rows, {replicates} replicates, per refit: own {per['own']:.2f} ms "
           f"({evals['own'] / replicates:.2f} evaluations); shared {per['shared']:.2f} ms "
           f"({evals['shared'] / replicates:.2f} evaluations; + {1e3 * prep:.1f} ms once); "
-          f"batched {per['batched']:.2f} ms; the replicate's layout {per['layouts']:.2f} ms. "
+          f"batched {per['batched']:.2f} ms; the replicate's layout {per['layouts']:.2f} ms "
+          f"(derived from the full sample's {per['derived']:.2f} ms). "
           f"batched / shared {per['batched'] / per['shared']:.2f}, with the layouts "
           f"{per['batched'] / (per['shared'] + per['layouts']):.2f}. Linear predictors: own "
           f"from shared <= {apart:.1e}, batched from shared <= {batched_apart:.1e}, batched "
           f"from Newton 1e-13 <= {from_ref:.1e}")
+
+
+def _same_layout(got: Layout | None, want: Layout) -> None:
+    """``draw_layout``'s layout equals ``prepare_layout``'s array for array."""
+    assert got is not None, "draw_layout declined a replicate of whole-day times"
+    for name, value in vars(want).items():
+        if name == "subsamples":
+            continue
+        other = getattr(got, name)
+        if hasattr(value, "toarray"):
+            assert all(np.array_equal(getattr(other, f), getattr(value, f))
+                       for f in ("indptr", "indices", "data")), name
+        elif isinstance(value, np.ndarray):
+            assert value.dtype == other.dtype and np.array_equal(value, other), name
+        else:
+            assert value == other, name
 
 
 def peak(rows: int, replicates: int) -> None:

@@ -261,3 +261,35 @@ def test_interval_covers_the_true_share_logistic() -> None:
     cover, width, sd = _coverage("binary", truth, 1500, 200, 200, _draw_logistic)
     assert 0.90 <= cover <= 0.98
     assert 0.8 < width / (2 * stats.norm.ppf(0.975) * sd) < 1.25
+
+
+def test_large_cox_samples_draw_one_replicate_at_a_time(monkeypatch: pytest.MonkeyPatch) -> None:
+    # Above weighted._BATCH_ROWS rows the Cox replicates are drawn one at a time (no
+    # replicates x rows weights held); forced here on a small sample: each replicate's share
+    # still equals lifelines' (Efron ties) on the rows drawn all at once from the same seed.
+    from unbin.questions import kept
+
+    calls: list[int] = []
+    draw = kept.design_resample_replicates
+
+    def counted(rng: np.random.Generator, outcome: Any, replicates: int) -> Any:
+        calls.append(replicates)
+        return draw(rng, outcome, replicates)
+
+    monkeypatch.setattr(kept, "_BATCH_ROWS", 0)
+    monkeypatch.setattr(kept, "design_resample_replicates", counted)
+    df = _frame(2, 300)
+    r, spec = bare_refit(df, _raw(OUTCOMES["survival"], 3, adjust=["z"]))
+    shares = bootstrap_shares(r, spec)["legacy"]
+    assert calls == [1, 1, 1]
+    W = resample_weights(spec.rng("a", "information-bootstrap"), len(df), 3)
+    x = df["x"].to_numpy()
+    groups = np.column_stack([(x > c).astype(float) for c in CUTS])
+    spline = _rcs(x, refit_analysis.test_spline_term(r.analysis, x).knots)
+    z = df["z"].to_numpy()[:, None]
+    for b in range(3):
+        m = np.repeat(np.arange(len(df)), W[b].astype(int))
+        d = df.iloc[m].reset_index(drop=True)
+        lr_legacy = _reference_lr("survival", d, z[m], groups[m])
+        lr_full = _reference_lr("survival", d, z[m], np.column_stack([groups, spline])[m])
+        assert shares[b] == pytest.approx(lr_legacy / lr_full, rel=2e-5, abs=1e-6)

@@ -526,18 +526,61 @@ def resampled_cox_samples(outcome: Outcome, W: np.ndarray, which: Sequence[int] 
     outcome's weights, or the counts of individuals); a replicate whose layout cannot be
     prepared is skipped."""
     from .cox import prepare_layout
+    from .cox.layout import draw_layout
 
     assert outcome.time is not None
+    source = _draw_source(outcome)
     for b in range(len(W)) if which is None else which:
         m, case = replicate_rows(outcome, W[b])
         time, event = outcome.time[m], outcome.y[m]
         entry = outcome.entry[m] if outcome.entry is not None else None
         strata = outcome.strata[m] if outcome.strata is not None else None
-        try:
-            layout = prepare_layout(time, event, entry=entry, strata=strata, weights=case)
-        except ValueError:
-            continue
+        # the layout derived from the full sample's where that gives prepare_layout's own
+        layout = None
+        if source is not None:
+            w = _base_weights(outcome)
+            layout = draw_layout(source[0], replicate_copies(outcome, W[b]),
+                                 W[b] if w is not None and _individuals(outcome) else w,
+                                 source[1])
+        if layout is None:
+            try:
+                layout = prepare_layout(time, event, entry=entry, strata=strata, weights=case)
+            except ValueError:
+                continue
         yield b, m, (time, event, entry, strata), layout
+
+
+def _draw_source(outcome: Outcome) -> tuple[Layout, np.ndarray | None] | None:
+    """The full sample's Cox layout and every row's stratum code, from which
+    ``cox.layout.draw_layout`` derives the replicates' layouts; None where the full sample's
+    times are not sorted stably (``cox.layout.stable_times``) or it cannot be laid out. Kept
+    in ``outcome.cache``."""
+    from .cox.inputs import _stratum_codes
+    from .cox.layout import stable_times
+
+    if _DRAW_SOURCE not in outcome.cache:
+        layout = _full_layout(outcome) if stable_times(outcome.time) else None
+        codes = (None if layout is None or outcome.strata is None
+                 else _stratum_codes(outcome.strata, outcome.n)[0])
+        outcome.cache[_DRAW_SOURCE] = None if layout is None else (layout, codes)
+    got: tuple[Layout, np.ndarray | None] | None = outcome.cache[_DRAW_SOURCE]
+    return got
+
+
+def _full_layout(outcome: Outcome) -> Layout | None:
+    """The full sample's Cox layout with its case weights (None where it cannot be made),
+    kept in ``outcome.cache``."""
+    from .cox import prepare_layout
+
+    if _NEAR_LAYOUT not in outcome.cache:
+        try:
+            outcome.cache[_NEAR_LAYOUT] = prepare_layout(
+                outcome.time, outcome.y, entry=outcome.entry, strata=outcome.strata,
+                weights=_base_weights(outcome))
+        except ValueError:
+            outcome.cache[_NEAR_LAYOUT] = None
+    got: Layout | None = outcome.cache[_NEAR_LAYOUT]
+    return got
 
 
 def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]],
@@ -649,19 +692,12 @@ def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
     None for a design without a start (or where it cannot be prepared). Kept in
     ``outcome.cache`` for the next chunk of replicates of the same design (the same array
     object, held by a weak reference) and start."""
-    from .cox import near_start, prepare_layout
+    from .cox import near_start
 
     assert outcome.time is not None
     if all(init is None for init in inits):
         return [None] * len(Xs)
-    if _NEAR_LAYOUT not in outcome.cache:
-        try:
-            outcome.cache[_NEAR_LAYOUT] = prepare_layout(
-                outcome.time, outcome.y, entry=outcome.entry, strata=outcome.strata,
-                weights=_base_weights(outcome))
-        except ValueError:
-            outcome.cache[_NEAR_LAYOUT] = None
-    layout = outcome.cache[_NEAR_LAYOUT]
+    layout = _full_layout(outcome)
     known: dict[int, tuple[weakref.ref[Any], np.ndarray, NearStart | None]] = \
         outcome.cache.setdefault(_NEAR_STARTS, {})
     out: list[NearStart | None] = []
@@ -688,6 +724,7 @@ def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
 
 
 _NEAR_LAYOUT = "cox_near_layout"
+_DRAW_SOURCE = "cox_draw_source"
 _NEAR_STARTS = "cox_near_starts"
 _BATCH_MIN = 4  # replicates of one call refitted at once from this many on
 _BATCH_SLICE = 64  # replicates whose draw counts are made at once (at least)

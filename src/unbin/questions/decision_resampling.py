@@ -275,19 +275,23 @@ class _AtHorizon:
                                         side="right"))
         self.at = np.where(hit, self.hi - 1, -1)  # a row's event's grid index (-1: none)
         self.mine = hit & (c == event_of_interest) if cause is not None else hit
+        # the rows with an event by the horizon (of interest) and their grid indices
+        self.ev_rows = np.flatnonzero(hit)
+        self.ev_at = self.at[self.ev_rows]
+        self.mine_rows = np.flatnonzero(self.mine)
+        self.mine_at = self.at[self.mine_rows]
 
     def _counts(self, mask: np.ndarray, counts: np.ndarray | None = None,
                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         K = self.K
-        w = None if counts is None else counts[mask].astype(float)
-        Y = np.cumsum(np.bincount(self.lo[mask], w, minlength=K + 1).astype(float)
-                      - np.bincount(self.hi[mask], w, minlength=K + 1))[:K]
-        ev = mask & (self.at >= 0)
-        mine = ev & self.mine
-        d_all = np.bincount(self.at[ev], None if counts is None else counts[ev].astype(float),
-                            minlength=K).astype(float)
-        d_1 = np.bincount(self.at[mine], None if counts is None else counts[mine].astype(float),
-                          minlength=K).astype(float)
+        # each row's count in the subset (0 outside it): whole numbers, so every sum below is
+        # exact, the same as over the subset's rows alone
+        w = (mask.astype(float) if counts is None
+             else np.where(mask, counts, 0).astype(float))
+        Y = np.cumsum(np.bincount(self.lo, w, minlength=K + 1)
+                      - np.bincount(self.hi, w, minlength=K + 1))[:K]
+        d_all = np.bincount(self.ev_at, w[self.ev_rows], minlength=K)
+        d_1 = np.bincount(self.mine_at, w[self.mine_rows], minlength=K)
         return Y, d_all, d_1
 
     def survival(self, mask: np.ndarray, counts: np.ndarray | None = None) -> float:

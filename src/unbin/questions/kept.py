@@ -47,6 +47,7 @@ from ..models import fit
 from ..models.base import FitResult, Outcome
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
+    _BATCH_ROWS,
     _CHUNK_CELLS,
     WeightedGLM,
     Weights,
@@ -195,6 +196,13 @@ def replicate_shares(family: str, models: list[_Model], outcome: Outcome,
     The replicates resample the design (``design_resample_weights``); ``robust``: the share is
     the ratio of the replicates' robust Wald statistics (as the point estimate's), else of
     their likelihood ratios."""
+    if family == "survival" and outcome.n > _BATCH_ROWS and replicates > 0:
+        # the Cox refits go replicate by replicate here (cox_replicate_refits): each
+        # replicate drawn when it comes, the same draws from the same generator, without
+        # holding the replicates x rows weights (400 MB at 1,000,000 rows and 50 replicates)
+        return np.concatenate(
+            [shares_on(family, models, outcome, design_resample_replicates(rng, outcome, 1),
+                       robust) for _ in range(replicates)])
     W = design_resample_replicates(rng, outcome, replicates)  # compact: small integers
     return shares_on(family, models, outcome, W, robust)
 

@@ -370,10 +370,56 @@ def _ordered_bits(score: np.ndarray) -> np.ndarray:
     return bits
 
 
+# Scores on a grid of 1e-10 (the C index compares linear predictors rounded to 10 decimals)
+# and below _GRID_TOP in size are sorted as whole numbers score x 1e10 (below 2^48: three
+# stable 16-bit radix passes, about twice as fast as numpy's stable sort of 64-bit keys);
+# _grid_order checks that no two different scores share a number, else the scores are sorted
+# as they are.
+_GRID_SCALE = 1e10
+_GRID_TOP = 1e4
+
+
+def _grid_key(score: np.ndarray) -> np.ndarray | None:
+    """``rint(score x 1e10)`` less its smallest value, as non-negative whole numbers below 2^48
+    (None where the scores are too large for that or not finite). Multiplying by a positive
+    number and rounding never reverse two scores' order, so sorted by these numbers the scores
+    are sorted, provided no two different scores got the same number (see _grid_order)."""
+    if score.size == 0:
+        return None
+    lo, hi = float(score.min()), float(score.max())
+    if not (-_GRID_TOP < lo and hi < _GRID_TOP):
+        return None
+    key = np.rint(score * _GRID_SCALE).astype(np.int64)
+    key -= np.int64(np.rint(lo * _GRID_SCALE))
+    return key
+
+
+def _grid_order(key: np.ndarray, score: np.ndarray) -> np.ndarray | None:
+    """The stable order of ``key`` (< 2^48) by three 16-bit radix passes, low half first;
+    None when two different scores share a key (adjacent in that order with equal keys
+    but unequal scores), so that the order is not the scores' own."""
+    order = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
+    for shift in (16, 32):
+        part = np.take(key, order)
+        part >>= shift
+        part &= 0xFFFF
+        order = order[np.argsort(part.astype(np.uint16), kind="stable")]
+    k, s = np.take(key, order), np.take(score, order)
+    if not np.array_equal(k[1:] == k[:-1], s[1:] == s[:-1]):
+        return None
+    return order
+
+
 def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.ndarray:
     """Positions sorted by (stratum, score), ties by position; ``stratum`` non-decreasing (the
     time order's). With few strata each stratum's run of positions is sorted by itself
-    (shorter sorts); else one sort by score and a stable (radix) sort by stratum."""
+    (shorter sorts); else one sort by score and a stable (radix) sort by stratum. Scores on
+    the C index's grid are sorted as whole numbers (``_grid_key``)."""
+    key = _grid_key(score)
+    if key is not None:
+        pos = _by_grid(key, score, stratum, itype)
+        if pos is not None:
+            return pos
     score = _ordered_bits(score)
     if stratum is not None:
         cuts = np.flatnonzero(stratum[1:] != stratum[:-1]) + 1
@@ -386,6 +432,29 @@ def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.nda
     if stratum is not None:
         pos = pos[np.argsort(stratum[pos], kind="stable")]
     return pos.astype(itype)
+
+
+def _by_grid(key: np.ndarray, score: np.ndarray, stratum: np.ndarray | None, itype: Any
+             ) -> np.ndarray | None:
+    """:func:`_by_key` by the grid numbers ``key`` (None where ``_grid_order`` declines):
+    each stratum's run of positions by itself, or all at once and then a stable sort by
+    stratum."""
+    if stratum is not None:
+        cuts = np.flatnonzero(stratum[1:] != stratum[:-1]) + 1
+        if cuts.size < _SORT_BY_STRATUM:
+            pos = np.empty(score.size, dtype=itype)
+            for a, b in zip(np.r_[0, cuts], np.r_[cuts, score.size], strict=True):
+                got = _grid_order(key[a:b], score[a:b])
+                if got is None:
+                    return None
+                np.add(got, a, out=pos[a:b])
+            return pos
+    order = _grid_order(key, score)
+    if order is None:
+        return None
+    if stratum is not None:
+        order = order[np.argsort(stratum[order], kind="stable")]
+    return order.astype(itype)
 
 
 def _stable_order(key: np.ndarray) -> np.ndarray:

@@ -87,14 +87,30 @@ def _time_order(t: np.ndarray) -> np.ndarray:
     """``argsort(t)``. Times that are whole numbers spanning fewer than 2**16 values (e.g. days,
     as registries store them) are sorted as 16-bit integers by numpy's radix sort, several
     times faster on such heavily tied data; rows tied in time keep their input order."""
+    small = _day_offsets(t)
+    if small is not None:
+        return np.argsort(small, kind="stable")
+    return np.argsort(t)
+
+
+def _day_offsets(t: np.ndarray) -> np.ndarray | None:
+    """``t`` less its smallest value as 16-bit integers when :func:`_time_order` sorts them
+    so (stably: rows tied in time keep their input order), else None."""
     if t.size >= _RADIX_MIN_ROWS:
         lo = t.min()
         if t.max() - lo < 2**16 - 1:
             offset = t - lo
             small = offset.astype(np.uint16)
             if np.array_equal(small, offset):
-                return np.argsort(small, kind="stable")
-    return np.argsort(t)
+                return small
+    return None
+
+
+def stable_times(time: Any) -> bool:
+    """Whether :func:`prepare_layout` sorts these times (and any subset of them of at least
+    ``_RADIX_MIN_ROWS`` rows) stably, rows tied in time in their input order: the condition
+    under which :func:`draw_layout` derives a replicate's layout from this sample's."""
+    return _day_offsets(np.asarray(time, dtype=float)) is not None
 
 
 @dataclass(frozen=True)
@@ -253,35 +269,53 @@ def _prepare(
     t_s, e_s = sample.time[order], sample.event[order]
     sc_s = None if sample.codes is None else sample.codes[order]
     times = _event_times(t_s, e_s, sc_s, n_strata)
-    K = int(times.k_time.size)
     b, lo = times.b, times.lo
     en_s = None if sample.entry is None else sample.entry[order]
     a = lo - 1 if en_s is None else _last_before_entry(en_s, sc_s, times, n_strata)
+    w_s = None if sample.weights is None else sample.weights[order]
+    return _assemble(n, order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, times.k_time,
+                     times.k_stratum, sample.labels, n_strata, int(sample.event.sum()))
+
+
+def _assemble(
+    n: int, order: np.ndarray, t_s: np.ndarray, e_s: np.ndarray, sc_s: np.ndarray | None,
+    en_s: np.ndarray | None, w_s: np.ndarray | None, b: np.ndarray, a: np.ndarray,
+    lo: np.ndarray, k_time: np.ndarray, k_stratum: np.ndarray, labels: np.ndarray,
+    n_strata: int, events: int,
+) -> Layout:
+    """The layout of rows sorted by (stratum, time) (``order``, with their sorted values), each
+    with its event-time index b (last at or before its time), a (last at or before its entry)
+    and lo (its stratum's first): the rows at risk at no event time dropped, then the tie and
+    risk-set operators. ``w_s``: the rows' weights in that order (None: all ones)."""
+    unit_w = w_s is None
+    K = int(k_time.size)
     keep = b > a  # at risk at one event time at least
     if not keep.all():
         kept = np.flatnonzero(keep)
         order, b, a, lo, e_s, t_s = order[kept], b[kept], a[kept], lo[kept], e_s[kept], t_s[kept]
         sc_s = None if sc_s is None else sc_s[kept]
         en_s = None if en_s is None else en_s[kept]
+        w_s = None if w_s is None else w_s[kept]
     m = order.size
-    w_s = np.ones(m) if sample.weights is None else sample.weights[order]
+    if w_s is None:
+        w_s = np.ones(m)
 
     ev = np.flatnonzero(e_s)
     event_k = b[ev]  # each event's event-time index
     d = np.bincount(event_k, minlength=K)  # events at each event time
     we_ev = w_s[ev]
-    wsum = _event_weight_sums(event_k, d, None if sample.weights is None else we_ev)
+    wsum = _event_weight_sums(event_k, d, None if unit_w else we_ev)
     wavg = wsum / np.maximum(d, 1)
     ties = _tie_structure(ev, event_k, d, m)
     entered_late = a >= lo
     late_entry = bool(entered_late.any())
     b_starts = np.searchsorted(b, np.arange(K + 1))  # kept rows are sorted by b
-    seg_start, seg_end, k_bounds = _stratum_segments(times.k_stratum, n_strata)
+    seg_start, seg_end, k_bounds = _stratum_segments(k_stratum, n_strata)
     starts = _stratum_starts(sc_s, n_strata, m)
     return Layout(
         order=order,
         w=w_s,
-        unit_w=sample.weights is None,
+        unit_w=unit_w,
         we=w_s * e_s,
         ev=ev,
         we_ev=we_ev,
@@ -306,13 +340,13 @@ def _prepare(
         k_bounds=k_bounds,
         row_starts=starts,
         row_counts=np.diff(np.r_[starts, m]),
-        k_stratum=times.k_stratum,
-        k_time=times.k_time,
-        labels=sample.labels,
+        k_stratum=k_stratum,
+        k_time=k_time,
+        labels=labels,
         n_strata=n_strata,
         late_entry=late_entry,
         n=n,
-        events=int(sample.event.sum()),
+        events=events,
         time_s=t_s,
         event_s=e_s,
         entry_s=en_s,
@@ -429,3 +463,71 @@ def _shifted_eta(L: Layout, eta: np.ndarray) -> np.ndarray:
     top = np.maximum.reduceat(eta, L.row_starts)
     eta -= np.repeat(top, L.row_counts)
     return eta
+
+
+def draw_layout(
+    full: Layout, copies: np.ndarray, weights: np.ndarray | None, codes: np.ndarray | None,
+) -> Layout | None:
+    """What :func:`prepare_layout` makes of a bootstrap replicate's drawn rows, derived from
+    the full sample's layout ``full`` without sorting them again: the replicate is every row i
+    of the full sample repeated ``copies[i]`` times, in row order (a row's copies side by
+    side, as ``unbin.models.weighted.replicate_rows`` lays them out), with case weight
+    ``weights[i]`` (one per row of the full sample; None: no weights); ``codes``: the full
+    sample's stratum code of every row (``inputs._stratum_codes``; None without strata).
+
+    Valid only where ``prepare_layout`` sorts both the full sample and the replicate stably
+    (:func:`stable_times` of the full sample's times, true for whole days spanning fewer than
+    2^16 values; the caller checks it once): the replicate's rows by (stratum, time) are then
+    the full sample's sorted rows, each repeated as drawn, ties in row order. The replicate's
+    event times are those of the full sample holding a drawn event, so each row's event-time
+    indices (last at or before its time, its entry, its stratum's first) are counts of them
+    up to the full sample's indices; a row the full sample drops (at risk at no event time) is
+    dropped by the replicate too. The result equals ``prepare_layout``'s array for array.
+    None where that does not hold (fewer than ``_RADIX_MIN_ROWS`` drawn rows, no drawn event):
+    the caller then prepares the layout."""
+    copies = np.asarray(copies).astype(np.int64)
+    if copies.shape != (full.n,):
+        raise ValueError(f"copies must have one value per row of the full sample ({full.n}), "
+                         f"got shape {copies.shape}")
+    N = int(copies.sum())
+    K = full.k_time.size
+    if N < _RADIX_MIN_ROWS or K == 0:
+        return None
+    c_k = copies[full.order]  # copies of each of the full sample's kept rows
+    b_full = full.b_idx - 1
+    has = np.zeros(K, dtype=bool)  # the replicate's event times (among the full sample's)
+    has[b_full[full.ev[c_k[full.ev] > 0]]] = True
+    if not has.any():
+        return None
+    count = np.zeros(K + 1, dtype=np.int64)  # replicate event times before each full one
+    np.cumsum(has, out=count[1:])
+    lo_full = full.seg_start[b_full]
+    a_full = np.where(full.a_idx > 0, full.a_idx - 1, lo_full - 1)
+    b = count[b_full + 1] - 1
+    a = count[a_full + 1] - 1
+    rows = np.flatnonzero((c_k > 0) & (b > a))  # drawn, at risk at a replicate event time
+    c = c_k[rows]
+    rep = np.repeat(rows, c)  # the full sample's kept row of each of the replicate's
+    # each copy's position among the drawn rows: a row's first copy after the earlier rows'
+    first = np.cumsum(copies)
+    first -= copies
+    order = np.repeat(first[full.order[rows]], c)
+    order += np.arange(rep.size)
+    order -= np.repeat(np.cumsum(c) - c, c)
+    lo = count[lo_full[rep]]
+    if codes is None:
+        sc_s, labels, n_strata = None, full.labels, 1
+        k_stratum = full.k_stratum[has]
+    else:
+        present = np.zeros(full.labels.size, dtype=bool)
+        present[codes[copies > 0]] = True
+        recode = np.cumsum(present) - 1
+        labels, n_strata = full.labels[present], int(present.sum())
+        assert full.code_s is not None
+        sc_s = recode[full.code_s[rep]]
+        k_stratum = recode[full.k_stratum[has]]
+    w_s = None if weights is None else np.asarray(weights, dtype=float)[full.order[rep]]
+    events = int(np.dot(c_k, full.event_s))
+    return _assemble(N, order, full.time_s[rep], full.event_s[rep], sc_s,
+                     None if full.entry_s is None else full.entry_s[rep], w_s, b[rep], a[rep],
+                     lo, full.k_time[has], k_stratum, labels, n_strata, events)

@@ -1,0 +1,128 @@
+"""A bootstrap replicate's Cox layout derived from the full sample's (``cox.layout.draw_layout``,
+used by ``weighted.resampled_cox_samples``) against the layout of the drawn rows themselves.
+
+References: ``prepare_layout`` of the drawn data set written out (a row drawn k times as k
+rows), which must come out array for array the same (the derivation skips its sort and its
+searches only); and lifelines ``CoxPHFitter`` (Efron ties, ``strata``, ``entry_col``) on the
+same drawn rows for the Cox fit made on the derived layout.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pandas as pd
+import pytest
+from lifelines import CoxPHFitter
+from scipy import sparse
+
+import unbin.models.weighted as weighted
+from unbin.models.base import Outcome
+from unbin.models.cox import Layout, fit_cox, prepare_layout
+from unbin.models.cox.inputs import _stratum_codes
+from unbin.models.cox.layout import draw_layout, stable_times
+
+TIGHT = {"precision": 1e-14, "r_precision": 1e-16}
+
+
+def _assert_same_layout(got: Layout, ref: Layout) -> None:
+    for f in dataclasses.fields(Layout):
+        if f.name == "subsamples":
+            continue
+        a, b = getattr(got, f.name), getattr(ref, f.name)
+        if sparse.issparse(b):
+            assert a.shape == b.shape, f.name
+            for part in ("indptr", "indices", "data"):
+                assert np.array_equal(getattr(a, part), getattr(b, part)), (f.name, part)
+        elif isinstance(b, np.ndarray):
+            assert a.dtype == b.dtype and a.shape == b.shape, (f.name, a.dtype, b.dtype)
+            assert np.array_equal(a, b), f.name
+        else:
+            assert a == b, (f.name, a, b)
+
+
+def _cohort(n: int, seed: int, *, entry: bool, strata: bool, weights: bool
+            ) -> dict[str, np.ndarray | None]:
+    """Invented: follow-up in whole days (heavily tied), a rare stratum without events
+    (often not drawn at all), delayed entry for about half the rows (some at an event time)."""
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=(n, 2))
+    time = np.ceil(rng.exponential(300 * np.exp(-0.4 * x[:, 0]), n)) + 1
+    event = rng.uniform(size=n) < 0.3
+    en = np.floor(rng.uniform(0, 1, n) * time * (rng.uniform(size=n) < 0.5)) if entry else None
+    st = rng.choice(np.array(["north", "south", "west"]), n) if strata else None
+    if st is not None:
+        st[:3], event[:3] = "zz-rare", False
+    w = rng.uniform(0.5, 2.0, n) if weights else None
+    return {"x": x, "time": time, "event": event, "entry": en, "strata": st, "w": w}
+
+
+@pytest.mark.parametrize(("entry", "strata", "weights"),
+                         [(True, True, False), (True, True, True), (False, True, True),
+                          (True, False, False), (False, False, False)])
+def test_derived_layout_is_the_drawn_rows_own(entry: bool, strata: bool, weights: bool) -> None:
+    n = 6000
+    c = _cohort(n, 5, entry=entry, strata=strata, weights=weights)
+    time, event, en, st, w = c["time"], c["event"], c["entry"], c["strata"], c["w"]
+    assert time is not None and event is not None
+    assert stable_times(time)
+    full = prepare_layout(time, event, entry=en, strata=st, weights=w)
+    codes = None if st is None else _stratum_codes(st, n)[0]
+    rng = np.random.default_rng(9)
+    draws = [rng.multinomial(n, np.full(n, 1 / n)) for _ in range(3)]
+    draws.append((rng.uniform(size=n) < 0.8).astype(np.int64))  # a subsample (0/1 copies)
+    p = np.full(n, 1 / (n - 3))
+    p[:3] = 0.0
+    draws.append(rng.multinomial(n, p))  # the rare stratum not drawn: fewer labels
+    for copies in draws:
+        m = np.repeat(np.arange(n), copies)
+        ref = prepare_layout(time[m], event[m], entry=None if en is None else en[m],
+                             strata=None if st is None else st[m],
+                             weights=None if w is None else w[m])
+        got = draw_layout(full, copies.astype(float), w, codes)
+        assert got is not None
+        _assert_same_layout(got, ref)
+    if strata:
+        assert ref.n_strata == full.n_strata - 1  # (the last draw)
+
+
+def test_declines_what_it_cannot_derive() -> None:
+    c = _cohort(6000, 6, entry=True, strata=True, weights=False)
+    time, event = c["time"], c["event"]
+    assert time is not None and event is not None
+    full = prepare_layout(time, event, entry=c["entry"], strata=c["strata"])
+    codes = _stratum_codes(c["strata"], 6000)[0]
+    few = np.zeros(6000)
+    few[:4000] = 1  # fewer drawn rows than the stable sort needs
+    assert draw_layout(full, few, None, codes) is None
+    no_events = (~event).astype(float)
+    assert draw_layout(full, no_events, None, codes) is None
+    with pytest.raises(ValueError, match="one value per row"):
+        draw_layout(full, np.ones(10), None, codes)
+    # times that are not whole days are sorted unstably: no derivation offered
+    assert not stable_times(time + 0.5 * np.random.default_rng(1).uniform(size=6000))
+
+
+def test_fit_on_derived_layout_matches_lifelines() -> None:
+    # reference: lifelines CoxPHFitter (Efron ties, strata, entry_col) on the drawn rows
+    n = 5000
+    c = _cohort(n, 7, entry=True, strata=True, weights=False)
+    time, event, en, st, x = c["time"], c["event"], c["entry"], c["strata"], c["x"]
+    assert time is not None and event is not None and x is not None and st is not None
+    df = pd.DataFrame({"x1": x[:, 0], "x2": x[:, 1], "T": time, "E": event.astype(int),
+                       "entry": en, "S": st})
+    copies = np.random.default_rng(3).multinomial(n, np.full(n, 1 / n))
+    o = Outcome("survival", event.astype(float), time=time, entry=en, strata=st)
+    got = list(weighted.resampled_cox_samples(o, copies[None, :].astype(float)))
+    assert len(got) == 1
+    _, m, _, layout = got[0]
+    full = weighted._draw_source(o)
+    assert full is not None  # the layout was derived, not prepared
+    fit = fit_cox(x[m], time[m], event[m], entry=en[m] if en is not None else None,
+                  strata=st[m], layout=layout)
+    drawn = df.iloc[m].reset_index(drop=True)
+    cph = CoxPHFitter().fit(drawn[["x1", "x2", "T", "E", "entry", "S"]], "T", "E",
+                            entry_col="entry", strata=["S"], fit_options=TIGHT)
+    np.testing.assert_allclose(fit.coef, cph.params_[["x1", "x2"]].to_numpy(), rtol=1e-6)
+    assert fit.loglik == pytest.approx(cph.log_likelihood_, abs=1e-7)
