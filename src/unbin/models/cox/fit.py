@@ -251,7 +251,8 @@ def _warm_start(
         )
     if sub.events == 0:
         return None
-    Dsub = _Design.of(np.take(D.X1, pos[sub.order], axis=0), sub.we, D.reach)
+    Dsub = _Design.of(np.take(D.X1, pos[sub.order], axis=0), sub.we, D.reach,
+                      compiled_from=D.X1.shape[0])  # (compiled when the sample's fit is)
     # the subsample's estimate differs from the full data's by its sampling error (of the
     # order of 1 / sqrt(its events)), so it stops once a step would change no linear predictor
     # by more than _WARM_ROUGH, and takes that step

@@ -64,6 +64,8 @@ class Layout:
     # the layouts of subsamples for the start of Newton's method, by stride (made on first use:
     # they too depend on the sample only, so the fits sharing this layout share them)
     subsamples: dict[int, Layout] = field(default_factory=dict, compare=False, repr=False)
+    # the arrays the compiled evaluation reads (``likelihood._kernel_arrays``, made on first use)
+    kernel: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def ties(self) -> bool:

@@ -7,9 +7,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .. import compiled
 from .layout import Layout, _forward_cum, _risk_sums, _scaled, _shifted_eta
 
 _BLOCK = 8192  # rows per block of the weighted cross-products (stays in cache)
+
+# From this many rows of a sample on, its evaluations run compiled
+# (``models/compiled/cox_evaluation.py``); a subsample's design inherits the choice of the
+# sample it was drawn from, so the subsample start of a large fit runs compiled too.
+EVALUATION_FROM_ROWS = 20_000
 
 
 @dataclass(frozen=True)
@@ -20,14 +26,19 @@ class _Design:
     xwe: np.ndarray  # (p,) sum over events of w x: the part of the score that never changes
     reach: np.ndarray  # (p,) largest |x| of each standardised column (or a bound on it)
     buf: np.ndarray  # (min(m, _BLOCK), 1 + p) scratch
+    compiled: bool = False  # evaluate with the compiled kernel
 
     @classmethod
     def of(
-        cls, X1: np.ndarray, we: np.ndarray, reach: np.ndarray, xwe: np.ndarray | None = None
+        cls, X1: np.ndarray, we: np.ndarray, reach: np.ndarray, xwe: np.ndarray | None = None,
+        compiled_from: int | None = None,
     ) -> _Design:
-        """``xwe``: ``X1[:, 1:].T @ we`` when the caller has it already."""
-        buf = np.empty((min(X1.shape[0], _BLOCK), X1.shape[1]))
-        return cls(X1, X1[:, 1:].T @ we if xwe is None else xwe, reach, buf)
+        """``xwe``: ``X1[:, 1:].T @ we`` when the caller has it already; ``compiled_from``:
+        the rows that decide whether the evaluations run compiled (X1's own by default)."""
+        rows = X1.shape[0] if compiled_from is None else compiled_from
+        use = compiled.wanted(rows, EVALUATION_FROM_ROWS)
+        buf = np.empty((0 if use else min(X1.shape[0], _BLOCK), X1.shape[1]))
+        return cls(X1, X1[:, 1:].T @ we if xwe is None else xwe, reach, buf, use)
 
 
 def _weighted_gram(D: _Design, v: np.ndarray) -> np.ndarray:
@@ -69,11 +80,107 @@ class _Point:
     a: np.ndarray | None = None  # (K,) the weights of S1 S1' (filled at the tied times later)
     w_inv: np.ndarray | None = None  # Efron: wavg / den per tied event
     fw_inv: np.ndarray | None = None  # Efron: f wavg / den per tied event
+    # the compiled path's Efron weights per tied event time: sums of f^j wavg / den^2, j = 1, 2
+    a1: np.ndarray | None = None
+    a2: np.ndarray | None = None
+
+
+def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
+    """The layout's arrays as the compiled kernel reads them (made once per layout): each
+    kept row's last event time at risk b and, for a row that entered late, the last before
+    its entry (-1 otherwise), and the tie structure (empty for Breslow)."""
+    key = "efron" if efron and L.ties else "breslow"
+    got = L.kernel.get(key)
+    if got is None:
+        base = L.kernel.get("rows")
+        if base is None:
+            base = L.kernel["rows"] = (
+                np.ascontiguousarray(L.row_starts, dtype=np.int64), L.w,
+                np.asarray(L.b_idx - 1, dtype=np.int64),
+                np.asarray(L.a_idx - 1, dtype=np.int64),
+                np.asarray(L.k_bounds, dtype=np.int64), np.asarray(L.ev, dtype=np.int64),
+                np.asarray(L.we_ev, dtype=float), L.wsum, L.wsum_untied,
+            )
+        if key == "efron":
+            ties = (np.asarray(L.tie_k, dtype=np.int64), np.asarray(L.tie_d, dtype=np.int64),
+                    np.asarray(L.tie_f, dtype=float), np.asarray(L.tie_wavg, dtype=float),
+                    np.asarray(L.tie_ev, dtype=np.int64))
+        else:
+            none_i, none_f = np.zeros(0, dtype=np.int64), np.zeros(0)
+            ties = (none_i, none_i, none_f, none_f, none_i)
+        got = L.kernel[key] = base + ties
+    return got
+
+
+def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool) -> _Point:
+    """:func:`_point` with the risk-set and tied sums by the compiled kernel (the linear
+    predictor, ``exp`` and ``log`` stay numpy's vectorised loops; the sums of r x are left to
+    the information)."""
+    from ..compiled import cox_evaluation
+
+    (_, w, b, a_late, k_bounds, _, _, _, _, tie_k, tie_d, tie_f, _, tie_ev) = _kernel_arrays(
+        L, efron)
+    X1 = D.X1
+    m, K = X1.shape[0], L.wsum.size
+    efron_terms = efron and L.ties
+    T, E = (L.tie_k.size, L.tie_ev.size) if efron_terms else (0, 0)
+    s0, t0, den = np.empty(K), np.empty(T), np.empty(E)
+    loglik = 0.0
+    if X1.shape[1] > 1 and beta.any():
+        eta = _shifted_eta(L, X1[:, 1:] @ beta)
+        loglik = float(L.we_ev @ np.take(eta, L.ev))
+        with np.errstate(over="ignore", under="ignore"):
+            r = np.exp(eta, out=eta)
+        unit = L.unit_w
+    else:
+        r, unit = L.w.copy(), True
+    cox_evaluation.risk_sums(r, w, unit, b, a_late, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0,
+                             t0, den)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_s0 = np.log(s0)
+        if efron_terms:
+            loglik -= float(L.wsum_untied @ log_s0 + L.tie_wavg @ np.log(den))
+        else:
+            loglik -= float(L.wsum @ log_s0)
+    return _Point(loglik, r, s0[None, :], t0 if efron_terms else None,
+                  den if efron_terms else None)
+
+
+def _compiled_row_weights(L: Layout, pt: _Point) -> None:
+    """:func:`_row_weights` by the compiled kernel (also the Efron weights ``a1``, ``a2``)."""
+    if pt.v is not None:
+        return
+    from ..compiled import cox_evaluation
+
+    efron_terms = pt.den is not None
+    (_, _, b, a_late, k_bounds, _, _, wsum, wsum_untied,
+     tie_k, tie_d, tie_f, tie_wavg, tie_ev) = _kernel_arrays(L, efron_terms)
+    K, T = L.wsum.size, tie_k.size
+    v, a, a1, a2 = np.empty(pt.r.size), np.empty(K), np.zeros(T), np.zeros(T)
+    cox_evaluation.row_weights(pt.r, pt.sums[0], pt.den if efron_terms else np.zeros(0), b,
+                               a_late, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f,
+                               tie_wavg, tie_ev, efron_terms, v, a, a1, a2)
+    pt.v, pt.a, pt.a1, pt.a2 = v, a, a1, a2
+
+
+def _compiled_information(L: Layout, D: _Design, pt: _Point) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_information` by the compiled kernel."""
+    from ..compiled import cox_evaluation
+
+    _compiled_row_weights(L, pt)
+    assert pt.v is not None and pt.a is not None and pt.a1 is not None and pt.a2 is not None
+    efron_terms = pt.den is not None
+    (_, _, b, a_late, k_bounds, _, _, _, _, tie_k, tie_d, _, _, tie_ev) = _kernel_arrays(
+        L, efron_terms)
+    return cox_evaluation.information(D.X1, pt.r, pt.v, D.xwe, b, a_late, k_bounds, tie_k,
+                                      tie_d, tie_ev, pt.a, pt.a1, pt.a2, efron_terms)
 
 
 def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -> _Point:
     """The log partial likelihood at ``beta`` with the risk-set sums of r (``with_x``: and of
     r x, which only the information needs)."""
+    if D.compiled:
+        return _compiled_point(L, D, beta, efron)
     X1 = D.X1
     p = X1.shape[1] - 1
     loglik = 0.0
@@ -140,6 +247,10 @@ def _row_weights(L: Layout, pt: _Point) -> None:
 
 def _score(L: Layout, D: _Design, pt: _Point) -> np.ndarray:
     """The score at the point (from the risk-set sums of r only)."""
+    if D.compiled:
+        _compiled_row_weights(L, pt)
+        assert pt.v is not None
+        return D.xwe - D.X1[:, 1:].T @ pt.v
     _row_weights(L, pt)
     assert pt.v is not None
     return D.xwe - D.X1[:, 1:].T @ pt.v
@@ -148,6 +259,8 @@ def _score(L: Layout, D: _Design, pt: _Point) -> np.ndarray:
 def _information(L: Layout, D: _Design, pt: _Point) -> tuple[np.ndarray, np.ndarray]:
     """The score and observed information at the point (computing the risk-set sums of r x
     when ``pt`` has only those of r)."""
+    if D.compiled:
+        return _compiled_information(L, D, pt)
     X1 = D.X1
     if pt.sums.shape[0] == 1:  # add the sums of r x
         pt.sums = _risk_sums(L, _scaled(L, L.risk_op, pt.r) @ X1)
