@@ -20,8 +20,8 @@ __all__ = ["information", "risk_sums", "row_weights"]
 
 
 @numba.njit(cache=True, nogil=True)
-def risk_sums(r, w, unit_w, b, a_late, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0, t0,
-              den):  # pragma: no cover
+def risk_sums(r, w, unit_w, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0,
+              t0, den):  # pragma: no cover
     """Given ``r`` (m,) = exp(eta), multiply it by the weights ``w`` (unless ``unit_w``) and
     fill ``s0`` (K,) with the risk-set sums of r; where ``tie_k`` is not empty (Efron's ties),
     ``t0`` (T,) with each tied event time's summed r of its events and ``den`` (one per tied
@@ -29,14 +29,19 @@ def risk_sums(r, w, unit_w, b, a_late, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0
     (vectorised; a compiled scalar ``log`` per tied event costs more than the rest)."""
     m = r.size
     K = s0.size
+    # rows are sorted by b: each b's rows are a run, summed in a register; the rows that
+    # entered after their stratum's first event time (``late_rows``) are taken off again at
+    # the last event time before their entry (``late_at``)
     for k in range(K):
         s0[k] = 0.0
-    # rows are sorted by b: each b's rows are a run, summed in a register
     k_run = b[0] if m else 0
     acc = 0.0
     for i in range(m):
-        ri = r[i] if unit_w else r[i] * w[i]
-        r[i] = ri
+        if unit_w:
+            ri = r[i]
+        else:
+            ri = r[i] * w[i]
+            r[i] = ri
         if b[i] != k_run:
             s0[k_run] += acc
             k_run = b[i]
@@ -44,9 +49,8 @@ def risk_sums(r, w, unit_w, b, a_late, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0
         acc += ri
     if m:
         s0[k_run] += acc
-    for i in range(m):  # the rows that entered after their stratum's first event time
-        if a_late[i] >= 0:
-            s0[a_late[i]] -= r[i]
+    for e in range(late_rows.size):
+        s0[late_at[e]] -= r[late_rows[e]]
     for s in range(k_bounds.size - 1):  # backwards within each stratum
         acc = 0.0
         for k in range(k_bounds[s + 1] - 1, k_bounds[s] - 1, -1):
@@ -65,7 +69,7 @@ def risk_sums(r, w, unit_w, b, a_late, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0
 
 
 @numba.njit(cache=True, nogil=True)
-def row_weights(r, s0, den, b, a_late, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f,
+def row_weights(r, s0, den, b, late_rows, late_at, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f,
                 tie_wavg, tie_ev, efron, v, a, a1, a2):  # pragma: no cover
     """Fill ``v`` (m,) = r_i sum_{k: i in R_k} c_k less, for a tied event, r_i times its
     time's summed f wavg / den (the Gram product's row weights), ``a`` (K,) the weights of
@@ -110,8 +114,9 @@ def row_weights(r, s0, den, b, a_late, k_bounds, wsum, wsum_untied, tie_k, tie_d
             acc += c[k]
             cum[k + 1] = acc
     for i in range(m):
-        lo = cum[a_late[i] + 1] if a_late[i] >= 0 else 0.0
-        v[i] = r[i] * (cum[b[i] + 1] - lo)
+        v[i] = r[i] * cum[b[i] + 1]
+    for e in range(late_rows.size):
+        v[late_rows[e]] -= r[late_rows[e]] * cum[late_at[e] + 1]
     if tied:
         pos = 0
         for g in range(tie_k.size):
@@ -121,7 +126,7 @@ def row_weights(r, s0, den, b, a_late, k_bounds, wsum, wsum_untied, tie_k, tie_d
 
 
 @numba.njit(cache=True, nogil=True)
-def information(X1, r, v, xwe, b, a_late, k_bounds, tie_k, tie_d, tie_ev, a, a1, a2,
+def information(X1, r, v, xwe, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_ev, a, a1, a2,
                 efron):  # pragma: no cover
     """The score and the observed information at the point whose ``r``, row weights ``v``
     and event-time weights ``a`` (``a1``, ``a2``) are given. One pass over the rows in blocks
@@ -131,7 +136,7 @@ def information(X1, r, v, xwe, b, a_late, k_bounds, tie_k, tie_d, tie_ev, a, a1,
     m, q = X1.shape
     p = q - 1
     K = a.size
-    B = 2048
+    B = 1024
     gram = np.zeros((q, q))
     S1 = np.zeros((K, p))
     buf = np.empty((min(B, m), q))
@@ -143,15 +148,16 @@ def information(X1, r, v, xwe, b, a_late, k_bounds, tie_k, tie_d, tie_ev, a, a1,
             vi = v[start + i]
             ri = r[start + i]
             bi = b[start + i]
-            al = a_late[start + i]
             for j in range(q):
                 scaled[i, j] = block[i, j] * vi
             for j in range(p):
                 S1[bi, j] += ri * block[i, 1 + j]
-            if al >= 0:
-                for j in range(p):
-                    S1[al, j] -= ri * block[i, 1 + j]
         gram += np.dot(block.T, scaled)
+    for e in range(late_rows.size):
+        i = late_rows[e]
+        al = late_at[e]
+        for j in range(p):
+            S1[al, j] -= r[i] * X1[i, 1 + j]
     for s in range(k_bounds.size - 1):  # backwards within each stratum
         for k in range(k_bounds[s + 1] - 2, k_bounds[s] - 1, -1):
             for j in range(p):

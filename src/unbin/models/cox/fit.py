@@ -13,8 +13,11 @@ from scipy import linalg
 
 from .inputs import _as_1d, _check_finite, _design
 from .layout import Layout, _design_and_layout, _given_layout, _prepare
+from .. import compiled
 from .likelihood import (
+    EVALUATION_FROM_ROWS,
     _column_stats,
+    _compiled_standardised,
     _Design,
     _evaluate,
     _information,
@@ -667,11 +670,14 @@ def _replicate_design(
 ) -> tuple[_Design, np.ndarray]:
     """The rows ``rows`` of ``Xa`` (all when None) in ``L``'s order, centred at ``mean`` and
     scaled by ``inv``, and the largest and smallest value of each standardised column."""
-    idx = L.order if rows is None else rows[L.order]
-    X1 = np.empty((idx.size, 1 + Xa.shape[1]))
+    X1 = np.empty((L.order.size, 1 + Xa.shape[1]))
     X1[:, 0] = 1.0
     bounds = np.empty((2, Xa.shape[1]))
-    xwe = _write_standardised(X1, Xa, idx, mean, inv, L.we, bounds)
+    if compiled.wanted(L.order.size, EVALUATION_FROM_ROWS):  # (a scatter from Xa's rows)
+        xwe = _compiled_standardised(X1, Xa, rows, L, (mean, inv), bounds)[4]
+    else:
+        idx = L.order if rows is None else rows[L.order]
+        xwe = _write_standardised(X1, Xa, idx, mean, inv, L.we, bounds)
     reach = np.maximum(bounds[0], -bounds[1])
     return _Design.of(X1, L.we, reach, xwe), bounds
 

@@ -3,6 +3,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -87,8 +88,9 @@ class _Point:
 
 def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
     """The layout's arrays as the compiled kernel reads them (made once per layout): each
-    kept row's last event time at risk b and, for a row that entered late, the last before
-    its entry (-1 otherwise), and the tie structure (empty for Breslow)."""
+    kept row's last event time at risk b, the rows that entered after their stratum's first
+    event time with the last event time before their entry, and the tie structure (empty for
+    Breslow)."""
     key = "efron" if efron and L.ties else "breslow"
     got = L.kernel.get(key)
     if got is None:
@@ -97,7 +99,8 @@ def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
             base = L.kernel["rows"] = (
                 np.ascontiguousarray(L.row_starts, dtype=np.int64), L.w,
                 np.asarray(L.b_idx - 1, dtype=np.int64),
-                np.asarray(L.a_idx - 1, dtype=np.int64),
+                np.flatnonzero(L.a_idx).astype(np.int64),
+                np.asarray(L.a_idx[L.a_idx > 0] - 1, dtype=np.int64),
                 np.asarray(L.k_bounds, dtype=np.int64), np.asarray(L.ev, dtype=np.int64),
                 np.asarray(L.we_ev, dtype=float), L.wsum, L.wsum_untied,
             )
@@ -118,8 +121,8 @@ def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool) -> _Po
     the information)."""
     from ..compiled import cox_evaluation
 
-    (_, w, b, a_late, k_bounds, _, _, _, _, tie_k, tie_d, tie_f, _, tie_ev) = _kernel_arrays(
-        L, efron)
+    (_, w, b, late_rows, late_at, k_bounds, _, _, _, _, tie_k, tie_d, tie_f, _,
+     tie_ev) = _kernel_arrays(L, efron)
     X1 = D.X1
     m, K = X1.shape[0], L.wsum.size
     efron_terms = efron and L.ties
@@ -134,7 +137,7 @@ def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool) -> _Po
         unit = L.unit_w
     else:
         r, unit = L.w.copy(), True
-    cox_evaluation.risk_sums(r, w, unit, b, a_late, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0,
+    cox_evaluation.risk_sums(r, w, unit, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0,
                              t0, den)
     with np.errstate(divide="ignore", invalid="ignore"):
         log_s0 = np.log(s0)
@@ -153,12 +156,12 @@ def _compiled_row_weights(L: Layout, pt: _Point) -> None:
     from ..compiled import cox_evaluation
 
     efron_terms = pt.den is not None
-    (_, _, b, a_late, k_bounds, _, _, wsum, wsum_untied,
+    (_, _, b, late_rows, late_at, k_bounds, _, _, wsum, wsum_untied,
      tie_k, tie_d, tie_f, tie_wavg, tie_ev) = _kernel_arrays(L, efron_terms)
     K, T = L.wsum.size, tie_k.size
     v, a, a1, a2 = np.empty(pt.r.size), np.empty(K), np.zeros(T), np.zeros(T)
     cox_evaluation.row_weights(pt.r, pt.sums[0], pt.den if efron_terms else np.zeros(0), b,
-                               a_late, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f,
+                               late_rows, late_at, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f,
                                tie_wavg, tie_ev, efron_terms, v, a, a1, a2)
     pt.v, pt.a, pt.a1, pt.a2 = v, a, a1, a2
 
@@ -170,9 +173,9 @@ def _compiled_information(L: Layout, D: _Design, pt: _Point) -> tuple[np.ndarray
     _compiled_row_weights(L, pt)
     assert pt.v is not None and pt.a is not None and pt.a1 is not None and pt.a2 is not None
     efron_terms = pt.den is not None
-    (_, _, b, a_late, k_bounds, _, _, _, _, tie_k, tie_d, _, _, tie_ev) = _kernel_arrays(
-        L, efron_terms)
-    return cox_evaluation.information(D.X1, pt.r, pt.v, D.xwe, b, a_late, k_bounds, tie_k,
+    (_, _, b, late_rows, late_at, k_bounds, _, _, _, _, tie_k, tie_d, _, _,
+     tie_ev) = _kernel_arrays(L, efron_terms)
+    return cox_evaluation.information(D.X1, pt.r, pt.v, D.xwe, b, late_rows, late_at, k_bounds, tie_k,
                                       tie_d, tie_ev, pt.a, pt.a1, pt.a2, efron_terms)
 
 
@@ -342,12 +345,63 @@ def _column_stats(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np
     else:
         total, squares = np.ones(m) @ a, np.einsum("ij,ij->j", a, a)
         hi, lo = a.max(axis=0), a.min(axis=0)
+    return _moments(lambda j: a[:, j], m, total, squares, hi, lo)
+
+
+def _moments(
+    column: Callable[[int], np.ndarray], m: int, total: np.ndarray, squares: np.ndarray, hi: np.ndarray,
+    lo: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`_column_stats` from the columns' sums and sums of squares over m rows (the
+    column ``j`` of which is ``column(j)``, re-summed, centred, where the variance is below
+    1e-6 times the squared mean)."""
     mean = total / m
     var = squares / m - mean * mean
     for j in np.flatnonzero(~(var > 1e-6 * mean * mean)):
-        centred = a[:, j] - mean[j]
+        centred = column(j) - mean[j]
         var[j] = centred @ centred / m
     return mean, np.sqrt(var), hi, lo
+
+
+def _compiled_standardised(
+    X1: np.ndarray, Xa: np.ndarray, rows: np.ndarray | None, L: Layout,
+    centre: tuple[np.ndarray, np.ndarray] | None, bounds: np.ndarray | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The compiled :func:`_standardised` / ``fit._replicate_design``: the rows ``rows`` of
+    ``Xa`` (all when None; a row drawn k times repeated k times) in ``L``'s order, written
+    into columns 1..p of ``X1`` centred and scaled by ``centre`` (mean, 1 / scale; None: the
+    statistics of the rows laid out, as :func:`_column_stats`). Returns mean, sd (unclipped),
+    largest, smallest value (NaN when ``centre`` was given), and the events' summed w x;
+    ``bounds`` (2, p), when given, receives each standardised column's extremes."""
+    from ..compiled import cox_standardise
+
+    p = Xa.shape[1]
+    n_src = Xa.shape[0] if rows is None else rows.size
+    pos, we_src = np.empty(n_src, dtype=np.int64), np.empty(n_src)
+    cox_standardise.positions(np.asarray(L.order, dtype=np.int64), L.we, pos, we_src)
+    drawn = np.zeros(0, dtype=np.int64) if rows is None else np.asarray(rows, dtype=np.int64)
+    if centre is None:
+        total, squares, hi, lo = np.empty(p), np.empty(p), np.empty(p), np.empty(p)
+        masked = L.order.size < n_src
+        cox_standardise.column_sums(Xa, drawn, pos, masked, total, squares, hi, lo)
+
+        def column(j: int) -> np.ndarray:
+            if rows is None and not masked:
+                return Xa[:, j]
+            return Xa[np.flatnonzero(pos >= 0) if rows is None else drawn[pos >= 0], j]
+
+        mean, sd, hi, lo = _moments(column, L.order.size, total, squares, hi, lo)
+        sd_clip = sd.copy()
+        sd_clip[sd_clip <= 1e-12 * np.maximum(1.0, np.abs(mean))] = 0.0
+        inv = 1.0 / np.where(sd_clip > 0, sd_clip, 1.0)
+    else:
+        mean, inv = centre
+        sd = hi = lo = np.full(p, np.nan)
+    xwe = np.empty(p)
+    cox_standardise.scatter_standardised(X1, Xa, drawn, pos, we_src, mean, inv,
+                                         np.empty((2, p)) if bounds is None else bounds,
+                                         bounds is not None, xwe)
+    return mean, sd, hi, lo, xwe
 
 
 _STD_BLOCK = 4096  # rows gathered, centred and scaled at a time (stays in cache)
@@ -370,6 +424,12 @@ def _standardised(Xa: np.ndarray, L: Layout) -> tuple[_Design, np.ndarray, np.nd
     X1[:, 0] = 1.0
     if m == 0 or p == 0:
         return _Design.of(X1, L.we, np.zeros(p)), np.ones(p), np.zeros(p)
+    if compiled.wanted(m, EVALUATION_FROM_ROWS):
+        mean, sd, hi, lo, xwe = _compiled_standardised(X1, Xa, None, L, None, None)
+        sd[sd <= 1e-12 * np.maximum(1.0, np.abs(mean))] = 0.0  # constant up to rounding
+        scale = np.where(sd > 0, sd, 1.0)
+        reach = np.maximum(hi - mean, mean - lo) * (1.0 / scale)
+        return _Design.of(X1, L.we, reach, xwe), scale, sd
     rows: np.ndarray | None = None
     if Xa.flags.c_contiguous and Xa.shape[0] == m:
         src = Xa
