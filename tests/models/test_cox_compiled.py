@@ -1,0 +1,242 @@
+"""The Cox engine's compiled evaluation and standardised copy (``models/compiled/cox_*.py``)
+against the numpy path (both forced with ``UNBIN_COMPILED``) and against outside references.
+
+References: statsmodels ``PHReg(ties="efron"/"breslow")`` (its ``loglike``, ``score`` and
+``hessian`` at given coefficients, strata and delayed entry; statsmodels keeps a row entering
+exactly at an event time in that risk set, so entries are moved off the event times for it),
+and lifelines ``CoxPHFitter`` (strata, entry, case weights, Efron ties) for whole fits.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from lifelines import CoxPHFitter
+
+from unbin.models.cox import fit_cox, prepare_layout
+from unbin.models.cox import likelihood as lk
+from unbin.models.cox.fit import _replicate_design
+from unbin.models.cox.layout import Layout
+
+TIGHT = {"precision": 1e-14, "r_precision": 1e-16}
+
+
+def _tied_cohort(seed: int = 31) -> dict[str, np.ndarray]:
+    """Two strata sharing their tied event times: at time 5 each stratum has 30 events, at
+    time 7 two, at time 9 one (an untied event time), plus random rows on 1..14; delayed entry
+    at the tied times 5 and 7 (a row entering at t is at risk after t), and case weights."""
+    rng = np.random.default_rng(seed)
+    parts_t, parts_e, parts_s = [], [], []
+    for s in (0, 1):
+        fixed_t = np.r_[np.full(30, 5.0), np.full(2, 7.0), [9.0]]
+        rand_t = rng.integers(1, 15, 250).astype(float)
+        rand_t[np.isin(rand_t, (5.0, 7.0, 9.0))] += 0.5  # keep the counts at 5, 7, 9 exact
+        parts_t += [fixed_t, rand_t]
+        parts_e += [np.ones(fixed_t.size), (rng.uniform(size=rand_t.size) < 0.4) * 1.0]
+        parts_s.append(np.full(fixed_t.size + rand_t.size, s))
+    time = np.concatenate(parts_t)
+    event = np.concatenate(parts_e)
+    strata = np.concatenate(parts_s)
+    n = time.size
+    entry = np.zeros(n)
+    late = (rng.uniform(size=n) < 0.25) & (time > 7.0)
+    entry[late] = np.where(rng.uniform(size=late.sum()) < 0.5, 5.0, 7.0)
+    X = np.column_stack([rng.normal(size=n), rng.binomial(1, 0.4, n), rng.uniform(40, 80, n),
+                         rng.normal(size=n)])
+    weights = rng.uniform(0.5, 2.5, n)
+    return {"X": X, "time": time, "event": event, "strata": strata, "entry": entry,
+            "weights": weights}
+
+
+@pytest.fixture(scope="module")
+def cohort() -> dict[str, np.ndarray]:
+    return _tied_cohort()
+
+
+def test_cohort_has_the_tie_patterns(cohort: dict[str, np.ndarray]) -> None:
+    # (the data the checks below rely on: tied groups of 30 and 2 events, an untied one, in
+    # both strata; entries at tied event times)
+    L = prepare_layout(cohort["time"], cohort["event"], entry=cohort["entry"],
+                       strata=cohort["strata"])
+    d = np.bincount(L.b_idx[L.ev] - 1, minlength=L.k_time.size)
+    for s in (0, 1):
+        at = {t: d[k] for k, t in enumerate(L.k_time) if L.k_stratum[k] == s}
+        assert at[5.0] >= 30 and at[7.0] >= 2 and at[9.0] == 1
+    assert L.late_entry
+
+
+def _evaluate(
+    monkeypatch: pytest.MonkeyPatch, mode: str, L: Layout, X: np.ndarray, beta: np.ndarray,
+    efron: bool, order: int = 2,
+) -> tuple[float, np.ndarray, np.ndarray, np.ndarray]:
+    """The evaluation at ``beta`` (on X's scale) by the path ``mode``; score and information
+    mapped back to X's scale (the standardised coefficients are beta * scale)."""
+    monkeypatch.setenv("UNBIN_COMPILED", mode)
+    D, scale, _ = lk._standardised(X, L)
+    assert D.compiled is (mode == "always")
+    ll, score, info = lk._evaluate(L, D, beta * scale, efron, order)
+    return ll, score * scale, info * np.outer(scale, scale), scale
+
+
+@pytest.mark.parametrize("efron", [True, False], ids=["efron", "breslow"])
+@pytest.mark.parametrize("design", ["plain", "strata", "entry", "weights", "all"])
+def test_kernel_matches_numpy_path(
+    monkeypatch: pytest.MonkeyPatch, cohort: dict[str, np.ndarray], efron: bool, design: str
+) -> None:
+    # source: the numpy path (models/cox/likelihood.py), itself checked against lifelines and
+    # statsmodels in test_cox.py; the two differ only in summation order
+    kw = {
+        "plain": {}, "strata": {"strata": cohort["strata"]}, "entry": {"entry": cohort["entry"]},
+        "weights": {"weights": cohort["weights"]},
+        "all": {"strata": cohort["strata"], "entry": cohort["entry"],
+                "weights": cohort["weights"]},
+    }[design]
+    L = prepare_layout(cohort["time"], cohort["event"], **kw)
+    X = cohort["X"]
+    for beta in (np.zeros(4), np.array([0.4, -0.6, 0.02, 0.3])):
+        for order in (0, 1, 2):
+            ref = _evaluate(monkeypatch, "never", L, X, beta, efron, order)
+            got = _evaluate(monkeypatch, "always", L, X, beta, efron, order)
+            assert got[0] == pytest.approx(ref[0], rel=1e-13, abs=1e-12)
+            np.testing.assert_allclose(got[1], ref[1], rtol=1e-10, atol=1e-9)
+            np.testing.assert_allclose(got[2], ref[2], rtol=1e-10, atol=1e-9)
+            np.testing.assert_allclose(got[3], ref[3], rtol=1e-13)
+
+
+def test_split_evaluation_matches_whole(
+    monkeypatch: pytest.MonkeyPatch, cohort: dict[str, np.ndarray]
+) -> None:
+    # the fit's split path (log-likelihood, then score, then the information added at the
+    # same point) gives the one-call evaluation's numbers (the kernel's own consistency)
+    monkeypatch.setenv("UNBIN_COMPILED", "always")
+    L = prepare_layout(cohort["time"], cohort["event"], entry=cohort["entry"],
+                       strata=cohort["strata"], weights=cohort["weights"])
+    D, scale, _ = lk._standardised(cohort["X"], L)
+    beta = np.array([0.3, 0.2, -0.01, 0.1]) * scale
+    pt = lk._point(L, D, beta, True, False)
+    score = lk._score(L, D, pt)
+    score2, info = lk._information(L, D, pt)
+    ll, score3, info3 = lk._evaluate(L, D, beta, True)
+    assert pt.loglik == ll
+    np.testing.assert_allclose(score, score3, rtol=1e-12, atol=1e-10)
+    np.testing.assert_allclose(score2, score3, rtol=1e-12, atol=1e-10)
+    np.testing.assert_array_equal(info, info3)
+
+
+@pytest.mark.parametrize("ties", ["efron", "breslow"])
+def test_kernel_matches_statsmodels(
+    monkeypatch: pytest.MonkeyPatch, cohort: dict[str, np.ndarray], ties: str
+) -> None:
+    # source: statsmodels PHReg(ties=..., strata=, entry=): loglike, score, hessian at beta
+    # (entries moved off the event times: statsmodels counts entry <= t as at risk at t)
+    entry = np.where(cohort["entry"] > 0, cohort["entry"] + 0.25, 0.0)
+    L = prepare_layout(cohort["time"], cohort["event"], entry=entry, strata=cohort["strata"])
+    ref = sm.PHReg(cohort["time"], cohort["X"], status=cohort["event"],
+                   strata=cohort["strata"], entry=entry, ties=ties)
+    for beta in (np.zeros(4), np.array([0.4, -0.6, 0.02, 0.3])):
+        ll, score, info, _ = _evaluate(monkeypatch, "always", L, cohort["X"], beta,
+                                       ties == "efron")
+        assert ll == pytest.approx(ref.loglike(beta), rel=1e-12)
+        np.testing.assert_allclose(score, ref.score(beta), rtol=1e-9, atol=1e-9)
+        np.testing.assert_allclose(info, -ref.hessian(beta), rtol=1e-9, atol=1e-9)
+
+
+def test_compiled_fit_matches_lifelines_with_strata_entry_weights(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # source: lifelines CoxPHFitter(weights_col=, strata=, entry_col=) (Efron ties,
+    # model-based variance); integer weights, as lifelines warns on others
+    monkeypatch.setenv("UNBIN_COMPILED", "always")
+    c = _tied_cohort(seed=47)
+    w = np.random.default_rng(5).integers(1, 4, c["time"].size)
+    fit = fit_cox(c["X"], c["time"], c["event"], entry=c["entry"], strata=c["strata"], weights=w)
+    frame = pd.DataFrame(c["X"], columns=["a", "b", "c", "d"]).assign(
+        T=c["time"], E=c["event"], S=c["strata"], en=c["entry"], W=w)
+    cph = CoxPHFitter().fit(frame, "T", "E", weights_col="W", entry_col="en", strata=["S"],
+                            fit_options=TIGHT)
+    assert fit.converged, fit.message
+    np.testing.assert_allclose(fit.coef, cph.params_.to_numpy(), rtol=1e-6)
+    np.testing.assert_allclose(np.sqrt(np.diag(fit.cov)), cph.standard_errors_.to_numpy(),
+                               rtol=1e-6)
+    assert fit.loglik == pytest.approx(cph.log_likelihood_, abs=1e-8)
+
+
+def test_compiled_fit_with_subsample_start_matches_numpy_fit(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # source: the numpy path's fit (itself checked against lifelines in test_cox.py). Enough
+    # events for the subsample start (its designs inherit the compiled choice), heavy ties
+    fits = {}
+    rng = np.random.default_rng(2)
+    n = 60_000
+    X = np.column_stack([rng.normal(size=n), rng.binomial(1, 0.3, n), rng.normal(size=n)])
+    latent = rng.exponential(1 / np.exp(X @ np.array([0.5, -0.3, 0.2]) - 0.5))
+    follow = rng.uniform(0.5, 3.0, n)
+    time = np.ceil(np.minimum(latent, follow) * 50)
+    event = (latent <= follow) * 1.0
+    strata = rng.integers(0, 3, n)
+    assert event.sum() > 10_000  # (fit_cox's subsample start needs that many)
+    for mode in ("never", "always"):
+        monkeypatch.setenv("UNBIN_COMPILED", mode)
+        fits[mode] = fit_cox(X, time, event, strata=strata)
+    a, b = fits["never"], fits["always"]
+    assert a.converged and b.converged
+    np.testing.assert_allclose(b.coef, a.coef, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(b.cov, a.cov, rtol=1e-7)
+    assert b.loglik == pytest.approx(a.loglik, rel=1e-13)
+
+
+@pytest.mark.parametrize("layout", ["C", "F"])
+def test_standardised_copy_matches_numpy_path(
+    monkeypatch: pytest.MonkeyPatch, cohort: dict[str, np.ndarray], layout: str
+) -> None:
+    # source: the numpy path's gather (rows in time order, centred and scaled); here with rows
+    # dropped by the layout (a row entering after its stratum's last event time is at risk at
+    # no event time) and X in C or Fortran order
+    entry = cohort["entry"].copy()
+    entry[:5] = 100.0
+    time = cohort["time"].copy()
+    time[:5] = 101.0
+    event = cohort["event"].copy()
+    event[:5] = 0.0
+    L = prepare_layout(time, event, entry=entry, strata=cohort["strata"])
+    assert L.order.size < time.size
+    X = np.asarray(cohort["X"], order=layout)
+    got = {}
+    for mode in ("never", "always"):
+        monkeypatch.setenv("UNBIN_COMPILED", mode)
+        got[mode] = lk._standardised(X, L)
+    (Dn, sn, sdn), (Dc, sc, sdc) = got["never"], got["always"]
+    np.testing.assert_allclose(Dc.X1, Dn.X1, rtol=1e-13, atol=1e-13)
+    np.testing.assert_allclose(sc, sn, rtol=1e-13)
+    np.testing.assert_allclose(sdc, sdn, rtol=1e-13)
+    np.testing.assert_allclose(Dc.xwe, Dn.xwe, rtol=1e-12, atol=1e-11)
+    np.testing.assert_allclose(Dc.reach, Dn.reach, rtol=1e-12)
+    # and the by-hand standardisation of the kept rows (numpy's own mean and std)
+    kept = cohort["X"][L.order]
+    np.testing.assert_allclose(Dc.X1[:, 1:], (kept - kept.mean(0)) / kept.std(0), atol=1e-12)
+
+
+def test_replicate_design_matches_numpy_path(
+    monkeypatch: pytest.MonkeyPatch, cohort: dict[str, np.ndarray]
+) -> None:
+    # source: the numpy path's gather of a replicate's drawn rows (each row repeated as often
+    # as drawn, side by side), centred and scaled by the full sample's statistics
+    rng = np.random.default_rng(8)
+    n = cohort["time"].size
+    rows = np.repeat(np.arange(n), rng.multinomial(n, np.full(n, 1.0 / n)))
+    L = prepare_layout(cohort["time"][rows], cohort["event"][rows],
+                       entry=cohort["entry"][rows], strata=cohort["strata"][rows])
+    X = np.ascontiguousarray(cohort["X"])
+    mean, inv = X.mean(0), 1.0 / X.std(0)
+    got = {}
+    for mode in ("never", "always"):
+        monkeypatch.setenv("UNBIN_COMPILED", mode)
+        got[mode] = _replicate_design(X, rows, L, mean, inv)
+    (Dn, bn), (Dc, bc) = got["never"], got["always"]
+    np.testing.assert_array_equal(Dc.X1, Dn.X1)  # the same arithmetic per value
+    np.testing.assert_array_equal(bc, bn)
+    np.testing.assert_allclose(Dc.xwe, Dn.xwe, rtol=1e-12, atol=1e-11)
+    np.testing.assert_array_equal(Dc.X1[:, 1:], (X[rows[L.order]] - mean) * inv)
