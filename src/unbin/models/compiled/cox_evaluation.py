@@ -5,9 +5,9 @@ The numbers are those of ``unbin.models.cox.likelihood``'s numpy path (``_point`
 ``_row_weights``, ``_score``, ``_information``), whose docstrings and DEVELOPERS.md ("The Cox
 engine's performance") give the algebra; only the summation order differs. Rows are the
 layout's kept rows in (stratum, time) order, each at risk at the event times ``(a_i, b_i]``
-(``b_i`` nondecreasing); the risk-set sums are per-event-time contributions (``+`` at ``b_i``,
-``-`` at ``a_i`` for a row that entered after its stratum's first event time) summed backwards
-within each stratum, and the weights of the Gram product ``X' diag(v) X`` are forward sums
+(``b_i`` nondecreasing; the argument ``b`` holds ``b_i + 1``, the layout's ``b_idx``); the
+risk-set sums are per-event-time contributions (``+`` at ``b_i``, ``-`` at ``a_i`` for a row
+that entered after its stratum's first event time) summed backwards within each stratum, and the weights of the Gram product ``X' diag(v) X`` are forward sums
 over event times. Every function here is one or two passes over the rows and one or two over
 the event times; the (1 + p) design columns are read row by row (C order)."""
 
@@ -34,7 +34,7 @@ def risk_sums(r, w, unit_w, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_f
     # the last event time before their entry (``late_at``)
     for k in range(K):
         s0[k] = 0.0
-    k_run = b[0] if m else 0
+    k_run = b[0] - 1 if m else 0
     acc = 0.0
     for i in range(m):
         if unit_w:
@@ -42,9 +42,9 @@ def risk_sums(r, w, unit_w, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_f
         else:
             ri = r[i] * w[i]
             r[i] = ri
-        if b[i] != k_run:
+        if b[i] - 1 != k_run:
             s0[k_run] += acc
-            k_run = b[i]
+            k_run = b[i] - 1
             acc = 0.0
         acc += ri
     if m:
@@ -114,7 +114,7 @@ def row_weights(r, s0, den, b, late_rows, late_at, k_bounds, wsum, wsum_untied, 
             acc += c[k]
             cum[k + 1] = acc
     for i in range(m):
-        v[i] = r[i] * cum[b[i] + 1]
+        v[i] = r[i] * cum[b[i]]
     for e in range(late_rows.size):
         v[late_rows[e]] -= r[late_rows[e]] * cum[late_at[e] + 1]
     if tied:
@@ -147,7 +147,7 @@ def information(X1, r, v, xwe, b, late_rows, late_at, k_bounds, tie_k, tie_d, ti
         for i in range(stop - start):
             vi = v[start + i]
             ri = r[start + i]
-            bi = b[start + i]
+            bi = b[start + i] - 1
             for j in range(q):
                 scaled[i, j] = block[i, j] * vi
             for j in range(p):
@@ -167,8 +167,8 @@ def information(X1, r, v, xwe, b, late_rows, late_at, k_bounds, tie_k, tie_d, ti
         ak = a[k]
         for j in range(p):
             sj = ak * S1[k, j]
-            for l in range(j, p):
-                info[j, l] -= sj * S1[k, l]
+            for h in range(j, p):
+                info[j, h] -= sj * S1[k, h]
     if efron and tie_k.size:
         t1 = np.empty(p)
         pos = 0
@@ -183,15 +183,15 @@ def information(X1, r, v, xwe, b, late_rows, late_at, k_bounds, tie_k, tie_d, ti
             g1 = a1[g]
             g2 = a2[g]
             for j in range(p):
-                for l in range(j, p):
-                    info[j, l] += g1 * (S1[k, j] * t1[l] + t1[j] * S1[k, l])
-                    info[j, l] -= g2 * t1[j] * t1[l]
+                for h in range(j, p):
+                    info[j, h] += g1 * (S1[k, j] * t1[h] + t1[j] * S1[k, h])
+                    info[j, h] -= g2 * t1[j] * t1[h]
             pos += tie_d[g]
     out = np.empty((p, p))
     for j in range(p):
-        for l in range(j, p):
-            out[j, l] = (gram[1 + j, 1 + l] + gram[1 + l, 1 + j]) / 2.0 + info[j, l]
-            out[l, j] = out[j, l]
+        for h in range(j, p):
+            out[j, h] = (gram[1 + j, 1 + h] + gram[1 + h, 1 + j]) / 2.0 + info[j, h]
+            out[h, j] = out[j, h]
     sc = np.empty(p)
     for j in range(p):
         sc[j] = xwe[j] - gram[1 + j, 0]

@@ -11,9 +11,9 @@ from typing import Any
 import numpy as np
 from scipy import linalg
 
+from .. import compiled
 from .inputs import _as_1d, _check_finite, _design
 from .layout import Layout, _design_and_layout, _given_layout, _prepare
-from .. import compiled
 from .likelihood import (
     EVALUATION_FROM_ROWS,
     _column_stats,

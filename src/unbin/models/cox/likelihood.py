@@ -88,7 +88,7 @@ class _Point:
 
 def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
     """The layout's arrays as the compiled kernel reads them (made once per layout): each
-    kept row's last event time at risk b, the rows that entered after their stratum's first
+    kept row's last event time at risk b (as b + 1, the layout's own array), the rows that entered after their stratum's first
     event time with the last event time before their entry, and the tie structure (empty for
     Breslow)."""
     key = "efron" if efron and L.ties else "breslow"
@@ -98,7 +98,7 @@ def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
         if base is None:
             base = L.kernel["rows"] = (
                 np.ascontiguousarray(L.row_starts, dtype=np.int64), L.w,
-                np.asarray(L.b_idx - 1, dtype=np.int64),
+                np.asarray(L.b_idx, dtype=np.int64),
                 np.flatnonzero(L.a_idx).astype(np.int64),
                 np.asarray(L.a_idx[L.a_idx > 0] - 1, dtype=np.int64),
                 np.asarray(L.k_bounds, dtype=np.int64), np.asarray(L.ev, dtype=np.int64),
@@ -124,7 +124,7 @@ def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool) -> _Po
     (_, w, b, late_rows, late_at, k_bounds, _, _, _, _, tie_k, tie_d, tie_f, _,
      tie_ev) = _kernel_arrays(L, efron)
     X1 = D.X1
-    m, K = X1.shape[0], L.wsum.size
+    K = L.wsum.size
     efron_terms = efron and L.ties
     T, E = (L.tie_k.size, L.tie_ev.size) if efron_terms else (0, 0)
     s0, t0, den = np.empty(K), np.empty(T), np.empty(E)
@@ -357,7 +357,7 @@ def _moments(
     1e-6 times the squared mean)."""
     mean = total / m
     var = squares / m - mean * mean
-    for j in np.flatnonzero(~(var > 1e-6 * mean * mean)):
+    for j in np.flatnonzero(~(var > 1e-6 * mean * mean)).tolist():
         centred = column(j) - mean[j]
         var[j] = centred @ centred / m
     return mean, np.sqrt(var), hi, lo
