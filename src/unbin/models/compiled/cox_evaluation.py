@@ -7,9 +7,12 @@ engine's performance") give the algebra; only the summation order differs. Rows 
 layout's kept rows in (stratum, time) order, each at risk at the event times ``(a_i, b_i]``
 (``b_i`` nondecreasing; the argument ``b`` holds ``b_i + 1``, the layout's ``b_idx``); the
 risk-set sums are per-event-time contributions (``+`` at ``b_i``, ``-`` at ``a_i`` for a row
-that entered after its stratum's first event time) summed backwards within each stratum, and the weights of the Gram product ``X' diag(v) X`` are forward sums
-over event times. Every function here is one or two passes over the rows and one or two over
-the event times; the (1 + p) design columns are read row by row (C order)."""
+that entered after its stratum's first event time, listed in ``late_rows`` with ``late_at``)
+summed backwards within each stratum, and the weights of the Gram product ``X' diag(v) X``
+are forward sums over event times. Every function here is one pass over the rows and one or
+two over the event times. ``X beta``, ``exp``, ``log`` and the score's ``X' v`` stay with
+the caller (numpy's vectorised loops and BLAS are faster than compiled scalar ones: numba has
+no vectorised ``exp``/``log`` without Intel's SVML)."""
 
 from __future__ import annotations
 

@@ -87,30 +87,28 @@ class _Point:
 
 
 def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
-    """The layout's arrays as the compiled kernel reads them (made once per layout): each
-    kept row's last event time at risk b (as b + 1, the layout's own array), the rows that entered after their stratum's first
-    event time with the last event time before their entry, and the tie structure (empty for
-    Breslow)."""
+    """The layout's arrays as the compiled kernels read them (made once per layout): the kept
+    rows' weights and last event time at risk b (as b + 1, the layout's ``b_idx``), the rows
+    that entered after their stratum's first event time with the last event time before their
+    entry, the strata's bounds among the event times, the event weights per event time, and
+    the tie structure (empty for Breslow or without ties)."""
     key = "efron" if efron and L.ties else "breslow"
     got = L.kernel.get(key)
     if got is None:
         base = L.kernel.get("rows")
         if base is None:
+            late = L.a_idx > 0
             base = L.kernel["rows"] = (
-                np.ascontiguousarray(L.row_starts, dtype=np.int64), L.w,
-                np.asarray(L.b_idx, dtype=np.int64),
-                np.flatnonzero(L.a_idx).astype(np.int64),
-                np.asarray(L.a_idx[L.a_idx > 0] - 1, dtype=np.int64),
-                np.asarray(L.k_bounds, dtype=np.int64), np.asarray(L.ev, dtype=np.int64),
-                np.asarray(L.we_ev, dtype=float), L.wsum, L.wsum_untied,
+                L.w, np.asarray(L.b_idx, dtype=np.int64), np.flatnonzero(late),
+                np.asarray(L.a_idx[late] - 1, dtype=np.int64),
+                np.asarray(L.k_bounds, dtype=np.int64), L.wsum, L.wsum_untied,
             )
         if key == "efron":
             ties = (np.asarray(L.tie_k, dtype=np.int64), np.asarray(L.tie_d, dtype=np.int64),
-                    np.asarray(L.tie_f, dtype=float), np.asarray(L.tie_wavg, dtype=float),
-                    np.asarray(L.tie_ev, dtype=np.int64))
+                    L.tie_f, L.tie_wavg, np.asarray(L.tie_ev, dtype=np.int64))
         else:
-            none_i, none_f = np.zeros(0, dtype=np.int64), np.zeros(0)
-            ties = (none_i, none_i, none_f, none_f, none_i)
+            none_i = np.zeros(0, dtype=np.int64)
+            ties = (none_i, none_i, np.zeros(0), np.zeros(0), none_i)
         got = L.kernel[key] = base + ties
     return got
 
@@ -121,13 +119,11 @@ def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool) -> _Po
     the information)."""
     from ..compiled import cox_evaluation
 
-    (_, w, b, late_rows, late_at, k_bounds, _, _, _, _, tie_k, tie_d, tie_f, _,
+    (w, b, late_rows, late_at, k_bounds, _, _, tie_k, tie_d, tie_f, _,
      tie_ev) = _kernel_arrays(L, efron)
     X1 = D.X1
-    K = L.wsum.size
     efron_terms = efron and L.ties
-    T, E = (L.tie_k.size, L.tie_ev.size) if efron_terms else (0, 0)
-    s0, t0, den = np.empty(K), np.empty(T), np.empty(E)
+    s0, t0, den = np.empty(L.wsum.size), np.empty(tie_k.size), np.empty(tie_ev.size)
     loglik = 0.0
     if X1.shape[1] > 1 and beta.any():
         eta = _shifted_eta(L, X1[:, 1:] @ beta)
@@ -136,9 +132,9 @@ def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool) -> _Po
             r = np.exp(eta, out=eta)
         unit = L.unit_w
     else:
-        r, unit = L.w.copy(), True
-    cox_evaluation.risk_sums(r, w, unit, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_f, tie_ev, s0,
-                             t0, den)
+        r, unit = L.w, True  # (not written when unit)
+    cox_evaluation.risk_sums(r, w, unit, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_f,
+                             tie_ev, s0, t0, den)
     with np.errstate(divide="ignore", invalid="ignore"):
         log_s0 = np.log(s0)
         if efron_terms:
@@ -156,13 +152,13 @@ def _compiled_row_weights(L: Layout, pt: _Point) -> None:
     from ..compiled import cox_evaluation
 
     efron_terms = pt.den is not None
-    (_, _, b, late_rows, late_at, k_bounds, _, _, wsum, wsum_untied,
-     tie_k, tie_d, tie_f, tie_wavg, tie_ev) = _kernel_arrays(L, efron_terms)
-    K, T = L.wsum.size, tie_k.size
-    v, a, a1, a2 = np.empty(pt.r.size), np.empty(K), np.zeros(T), np.zeros(T)
+    (_, b, late_rows, late_at, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f, tie_wavg,
+     tie_ev) = _kernel_arrays(L, efron_terms)
+    T = tie_k.size
+    v, a, a1, a2 = np.empty(pt.r.size), np.empty(L.wsum.size), np.zeros(T), np.zeros(T)
     cox_evaluation.row_weights(pt.r, pt.sums[0], pt.den if efron_terms else np.zeros(0), b,
-                               late_rows, late_at, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f,
-                               tie_wavg, tie_ev, efron_terms, v, a, a1, a2)
+                               late_rows, late_at, k_bounds, wsum, wsum_untied, tie_k, tie_d,
+                               tie_f, tie_wavg, tie_ev, efron_terms, v, a, a1, a2)
     pt.v, pt.a, pt.a1, pt.a2 = v, a, a1, a2
 
 
@@ -173,10 +169,11 @@ def _compiled_information(L: Layout, D: _Design, pt: _Point) -> tuple[np.ndarray
     _compiled_row_weights(L, pt)
     assert pt.v is not None and pt.a is not None and pt.a1 is not None and pt.a2 is not None
     efron_terms = pt.den is not None
-    (_, _, b, late_rows, late_at, k_bounds, _, _, _, _, tie_k, tie_d, _, _,
+    (_, b, late_rows, late_at, k_bounds, _, _, tie_k, tie_d, _, _,
      tie_ev) = _kernel_arrays(L, efron_terms)
-    return cox_evaluation.information(D.X1, pt.r, pt.v, D.xwe, b, late_rows, late_at, k_bounds, tie_k,
-                                      tie_d, tie_ev, pt.a, pt.a1, pt.a2, efron_terms)
+    return cox_evaluation.information(D.X1, pt.r, pt.v, D.xwe, b, late_rows, late_at,
+                                      k_bounds, tie_k, tie_d, tie_ev, pt.a, pt.a1, pt.a2,
+                                      efron_terms)
 
 
 def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -> _Point:
@@ -252,9 +249,8 @@ def _score(L: Layout, D: _Design, pt: _Point) -> np.ndarray:
     """The score at the point (from the risk-set sums of r only)."""
     if D.compiled:
         _compiled_row_weights(L, pt)
-        assert pt.v is not None
-        return D.xwe - D.X1[:, 1:].T @ pt.v
-    _row_weights(L, pt)
+    else:
+        _row_weights(L, pt)
     assert pt.v is not None
     return D.xwe - D.X1[:, 1:].T @ pt.v
 
@@ -349,8 +345,8 @@ def _column_stats(a: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np
 
 
 def _moments(
-    column: Callable[[int], np.ndarray], m: int, total: np.ndarray, squares: np.ndarray, hi: np.ndarray,
-    lo: np.ndarray,
+    column: Callable[[int], np.ndarray], m: int, total: np.ndarray, squares: np.ndarray,
+    hi: np.ndarray, lo: np.ndarray,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """:func:`_column_stats` from the columns' sums and sums of squares over m rows (the
     column ``j`` of which is ``column(j)``, re-summed, centred, where the variance is below
