@@ -11,6 +11,7 @@ from typing import Any
 
 import numpy as np
 
+from ..compiled import wanted
 from .inputs import (
     _as_1d,
     _check_finite,
@@ -219,6 +220,8 @@ def scores_concordances(time_order: TimeOrder, risk_scores: Iterable[Any],
     ``time_order`` between calls."""
     T = time_order
     checked = [None if c is None else _counts_array(c, T.n) for c in counts]
+    if wanted(T.n, _COMPILED_ROWS):
+        return _compiled_scores(T, risk_scores, checked)
     sc = _Scratch()  # (arrays reused from score to score, released at the end)
     w_time: list[np.ndarray | None] | None = None
     pairs: list[int] = []
@@ -239,6 +242,79 @@ def scores_concordances(time_order: TimeOrder, risk_scores: Iterable[Any],
                       for k, c in enumerate(checked)]
             pairs = [T.pairs if w is None else _weighted_pairs(T, w, sc) for w in w_time]
         out.append(_one_score(T, s, w_time, pairs, sc))
+    return out
+
+
+# From this many rows the pair counts of one score are one compiled sweep
+# (``unbin.models.compiled.concordance``) instead of the numpy passes (measured crossover:
+# DEVELOPERS.md, "Compiled kernels").
+_COMPILED_ROWS = 50_000
+
+
+def _checked_score(s: Any, n: int) -> np.ndarray:
+    """A risk score as floats, one finite value per row (else ``ValueError``)."""
+    out = np.asarray(s, dtype=float)
+    if out.ndim != 1 or out.shape[0] != n:
+        raise ValueError(
+            f"risk_score must be one-dimensional with {n} values, got shape {out.shape}"
+        )
+    _check_finite("risk_score", out)
+    return out
+
+
+def _compiled_scores(T: TimeOrder, risk_scores: Iterable[Any],
+                     checked: list[np.ndarray | None]) -> list[list[float]]:
+    """:func:`scores_concordances` by the compiled sweep: per score, the runs of equal
+    (stratum, score) from the same sort as the numpy path's, then one sweep counting the
+    higher and equal pairs of every count vector at once; the comparable pairs as the numpy
+    path counts them (once per call)."""
+    from ..compiled.concordance import sweep_pairs
+
+    n = T.n
+    out: list[list[float]] = []
+    prepared: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, list[int]] | None = None
+    itype = np.int32 if n < 2**30 else np.int64
+    for risk_score in risk_scores:
+        s = _checked_score(risk_score, n)
+        if n < 2 or not T.event_s.any() or T.pairs <= 0:
+            out.append([float("nan")] * len(checked))
+            continue
+        if prepared is None:  # what depends on the counts and the time order alone, once
+            sc = _Scratch()
+            w_time = [None if c is None else np.take(c, T.order) for c in checked]
+            pairs = [T.pairs if w is None else _weighted_pairs(T, w, sc) for w in w_time]
+            del sc
+            # (rows, counts) in time order, 32 bits when every column's total fits
+            wide = max((int(w.sum()) for w in w_time if w is not None), default=n) >= 2**31
+            weights = np.ones((n, len(checked)), dtype=np.int64 if wide else np.int32)
+            for k, w in enumerate(w_time):
+                if w is not None:
+                    weights[:, k] = w
+            del w_time
+            tied = T.tied_at.astype(np.int64)
+            tied[T.tied_at == np.iinfo(T.tied_at.dtype).max] = -1
+            late_row = np.zeros(0, dtype=np.int64)
+            late_event = np.zeros(0, dtype=bool)
+            late_at = np.zeros(0, dtype=np.int64)
+            if T.late is not None:  # the items, and each event's item (-1: none)
+                late_row = T.late.row.astype(np.int64)
+                late_event = np.ascontiguousarray(T.late.is_event, dtype=bool)
+                late_at = np.full(n, -1, dtype=np.int64)
+                late_at[late_row[late_event]] = np.flatnonzero(late_event)
+            prepared = (weights, tied, late_row, late_event, late_at, pairs)
+        weights, tied, late_row, late_event, late_at, pairs = prepared
+        s_time = np.take(s, T.order)
+        pos = _by_key(s_time, T.stratum_s, itype)
+        new_s = _new_runs(s_time[pos], T.stratum_s)
+        run_at = np.empty(n, dtype=np.int64)
+        run_at[pos] = np.cumsum(new_s) - 1
+        table = np.zeros((int(np.count_nonzero(new_s)) + 1, 2 * len(checked)),
+                         dtype=weights.dtype)
+        higher, equal = sweep_pairs(run_at, T.event_s, tied, weights, late_row, late_event,
+                                    late_at, table)
+        del table
+        out.append([float("nan") if p <= 0 else (int(h) + 0.5 * int(e)) / p
+                    for h, e, p in zip(higher, equal, pairs, strict=True)])
     return out
 
 
