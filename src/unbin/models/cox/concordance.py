@@ -220,7 +220,7 @@ def scores_concordances(time_order: TimeOrder, risk_scores: Iterable[Any],
     ``time_order`` between calls."""
     T = time_order
     checked = [None if c is None else _counts_array(c, T.n) for c in counts]
-    if wanted(T.n, _COMPILED_ROWS):
+    if wanted(T.n, CONCORDANCE_FROM_ROWS):
         return _compiled_scores(T, risk_scores, checked)
     sc = _Scratch()  # (arrays reused from score to score, released at the end)
     w_time: list[np.ndarray | None] | None = None
@@ -248,7 +248,7 @@ def scores_concordances(time_order: TimeOrder, risk_scores: Iterable[Any],
 # From this many rows the pair counts of one score are one compiled sweep
 # (``unbin.models.compiled.concordance``) instead of the numpy passes (measured crossover:
 # DEVELOPERS.md, "Compiled kernels").
-_COMPILED_ROWS = 50_000
+CONCORDANCE_FROM_ROWS = 20_000
 
 
 def _checked_score(s: Any, n: int) -> np.ndarray:
