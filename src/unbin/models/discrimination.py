@@ -25,6 +25,7 @@ import numpy as np
 
 from ..distributions import stats
 from .base import Outcome
+from .compiled import wanted
 
 
 def auc(y: np.ndarray, score: np.ndarray) -> float:
@@ -56,6 +57,8 @@ def count_aucs(y: np.ndarray, score: np.ndarray,
     if s.size == 0:
         return [float("nan")] * len(counts)
     order = ascending_order(s)  # ties in any order: the runs below group them
+    if wanted(s.size, AUC_FROM_ROWS):
+        return _compiled_aucs(e, s, order, counts)
     ranked = s[order]
     first = np.flatnonzero(np.r_[True, ranked[1:] != ranked[:-1]])  # each run's first place
     size = np.diff(np.r_[first, s.size])  # rows per group of tied scores
@@ -81,6 +84,34 @@ def count_aucs(y: np.ndarray, score: np.ndarray,
         below = np.cumsum(ot_g) - ot_g  # non-event copies with a lower score
         twice = int(ev_g @ (2 * below + ot_g))  # whole numbers in int64: exact
         out.append(float(twice / 2 / (n1 * n0)))
+    return out
+
+
+# From this many rows the counts of :func:`count_aucs` are one compiled pass
+# (``unbin.models.compiled.auc``) instead of the numpy reductions (DEVELOPERS.md, "Compiled
+# kernels").
+AUC_FROM_ROWS = 50_000
+
+
+def _compiled_aucs(e: np.ndarray, s: np.ndarray, order: np.ndarray,
+                   counts: list[np.ndarray | None]) -> list[float]:
+    """:func:`count_aucs` by the compiled pass over the rows in score order ``order``: the
+    same integer counts, divided as there."""
+    from .compiled.auc import auc_pairs
+
+    weights = np.ones((s.size, len(counts)), dtype=np.int64)  # in score order
+    for k, c in enumerate(counts):
+        if c is None:
+            continue
+        c_s = np.asarray(c)[order]
+        if c_s.dtype.kind not in "iub":
+            if not np.array_equal(c_s, np.rint(c_s)):
+                raise ValueError("count_aucs: counts must be whole numbers")
+        weights[:, k] = c_s
+    n1s, n0s, twices = auc_pairs(s[order], e[order], weights)
+    out: list[float] = []
+    for n1, n0, twice in zip(n1s.tolist(), n0s.tolist(), twices.tolist(), strict=True):
+        out.append(float("nan") if n1 == 0 or n0 == 0 else float(twice / 2 / (n1 * n0)))
     return out
 
 
