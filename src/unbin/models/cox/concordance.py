@@ -272,7 +272,8 @@ def _compiled_scores(T: TimeOrder, risk_scores: Iterable[Any],
 
     n = T.n
     out: list[list[float]] = []
-    prepared: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, list[int]] | None = None
+    prepared: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray,
+                   list[int]] | None = None
     itype = np.int32 if n < 2**30 else np.int64
     for risk_score in risk_scores:
         s = _checked_score(risk_score, n)
@@ -301,17 +302,23 @@ def _compiled_scores(T: TimeOrder, risk_scores: Iterable[Any],
                 late_event = np.ascontiguousarray(T.late.is_event, dtype=bool)
                 late_at = np.full(n, -1, dtype=np.int64)
                 late_at[late_row[late_event]] = np.flatnonzero(late_event)
-            prepared = (weights, tied, late_row, late_event, late_at, pairs)
-        weights, tied, late_row, late_event, late_at, pairs = prepared
+            # where each stratum's positions start (the same in time and in score order)
+            cuts = (np.array([0, n], dtype=np.int64) if T.stratum_s is None else
+                    np.r_[0, np.flatnonzero(T.stratum_s[1:] != T.stratum_s[:-1]) + 1, n]
+                    .astype(np.int64))
+            prepared = (weights, tied, late_row, late_event, late_at, cuts, pairs)
+        weights, tied, late_row, late_event, late_at, cuts, pairs = prepared
         s_time = np.take(s, T.order)
         pos = _by_key(s_time, T.stratum_s, itype)
-        new_s = _new_runs(s_time[pos], T.stratum_s)
-        run_at = np.empty(n, dtype=np.int64)
-        run_at[pos] = np.cumsum(new_s) - 1
-        table = np.zeros((int(np.count_nonzero(new_s)) + 1, 2 * len(checked)),
+        run = np.cumsum(_new_runs(s_time[pos], T.stratum_s), dtype=itype)
+        run -= 1
+        run_at = np.empty(n, dtype=itype)
+        run_at[pos] = run
+        run_cuts = np.r_[run[cuts[:-1]], run[-1] + 1].astype(np.int64)
+        table = np.empty((int(np.diff(run_cuts).max()) + 1, 2 * len(checked)),
                          dtype=weights.dtype)
         higher, equal = sweep_pairs(run_at, T.event_s, tied, weights, late_row, late_event,
-                                    late_at, table)
+                                    late_at, cuts, run_cuts, table)
         del table
         out.append([float("nan") if p <= 0 else (int(h) + 0.5 * int(e)) / p
                     for h, e, p in zip(higher, equal, pairs, strict=True)])
