@@ -12,7 +12,8 @@ from scipy import stats
 from unbin.models.discrimination import count_aucs
 
 
-def _both(monkeypatch: pytest.MonkeyPatch, y, s, counts):  # type: ignore[no-untyped-def]
+def _both(monkeypatch: pytest.MonkeyPatch, y: np.ndarray, s: np.ndarray,
+          counts: list[np.ndarray | None]) -> tuple[list[float] | None, list[float] | None]:
     monkeypatch.setenv("UNBIN_COMPILED", "never")
     plain = count_aucs(y, s, counts)
     monkeypatch.setenv("UNBIN_COMPILED", "always")
@@ -47,7 +48,9 @@ def test_compiled_auc_is_mann_whitney_on_the_repeated_rows(
         y = rng.random(n) < 1 / (1 + np.exp(-x))
         s = np.round(x + rng.normal(size=n), 1)
         c = rng.multinomial(n, np.full(n, 1 / n))
-        got_drawn, got_full = count_aucs(y, s, [c, None])
+        pair = count_aucs(y, s, [c, None])
+        assert pair is not None
+        got_drawn, got_full = pair
         rep = np.repeat(np.arange(n), c)
         for got, yy, ss in ((got_drawn, y[rep], s[rep]), (got_full, y, s)):
             u = stats.mannwhitneyu(ss[yy], ss[~yy]).statistic

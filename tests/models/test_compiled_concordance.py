@@ -20,10 +20,15 @@ from lifelines.utils import concordance_index
 
 from helpers import brute_pair_c, tied_survival_design
 from unbin.models.cox import concordance, concordance_order
-from unbin.models.cox.concordance import CONCORDANCE_FROM_ROWS, scores_concordances
+from unbin.models.cox.concordance import (
+    CONCORDANCE_FROM_ROWS,
+    TimeOrder,
+    scores_concordances,
+)
 
 
-def _both(monkeypatch: pytest.MonkeyPatch, order, scores, counts) -> tuple[list, list]:  # type: ignore[no-untyped-def]
+def _both(monkeypatch: pytest.MonkeyPatch, order: TimeOrder, scores: list[np.ndarray],
+          counts: list[np.ndarray | None]) -> tuple[list[list[float]], list[list[float]]]:
     """scores_concordances by the numpy passes and by the compiled sweep."""
     monkeypatch.setenv("UNBIN_COMPILED", "never")
     plain = scores_concordances(order, scores, counts)
@@ -37,7 +42,8 @@ def _same(a: list[list[float]], b: list[list[float]]) -> None:
     assert np.array_equal(np.array(a), np.array(b), equal_nan=True)
 
 
-def _pair_counts(t, s, e, c, entry, strata):  # type: ignore[no-untyped-def]
+def _pair_counts(t: np.ndarray, s: np.ndarray, e: np.ndarray, c: np.ndarray,
+                 entry: np.ndarray, strata: np.ndarray) -> tuple[int, int, int]:
     """(higher, equal, pairs) in integers by visiting every pair (the definition of
     helpers.brute_pair_c, counts kept whole)."""
     higher = equal = pairs = 0

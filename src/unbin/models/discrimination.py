@@ -26,6 +26,7 @@ import numpy as np
 from ..distributions import stats
 from .base import Outcome
 from .compiled import wanted
+from .radix import stable_order
 
 
 def auc(y: np.ndarray, score: np.ndarray) -> float:
@@ -125,8 +126,8 @@ def ascending_order(s: np.ndarray) -> np.ndarray:
     order), as ``np.argsort`` would sort them. From ``_RADIX_ROWS`` scores: each score's
     32-bit bucket on the range (``floor((s - min) * (2^32 - 1) / (max - min))``, non-decreasing
     in the score, as floating-point subtraction, multiplication by a positive number and floor
-    are) is sorted by two stable 16-bit passes (numpy's radix sort, linear in the rows:
-    cheaper than a comparison sort of the doubles); the buckets shared by scores out of order
+    are) is sorted by stable 16-bit passes (``radix.stable_order``: numpy's radix sort, linear
+    in the rows, cheaper than a comparison sort of the doubles); the buckets shared by scores out of order
     are then sorted by score (few rows)."""
     n = s.size
     if n < _RADIX_ROWS:
@@ -136,8 +137,7 @@ def ascending_order(s: np.ndarray) -> np.ndarray:
     if not np.isfinite(scale):
         return np.argsort(s)
     key = np.minimum(np.floor((s - lo) * scale), _TOP).astype(np.uint32)
-    order = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
-    order = order[np.argsort((key[order] >> 16).astype(np.uint16), kind="stable")]
+    order = stable_order(key)
     ranked = s[order]
     down = np.flatnonzero(ranked[1:] < ranked[:-1])  # only within a shared bucket
     if down.size == 0:

@@ -12,6 +12,7 @@ from typing import Any
 import numpy as np
 
 from ..compiled import wanted
+from ..radix import stable_order
 from .inputs import (
     _as_1d,
     _check_finite,
@@ -310,8 +311,8 @@ def _compiled_scores(T: TimeOrder, risk_scores: Iterable[Any],
         weights, tied, late_row, late_event, late_at, cuts, pairs = prepared
         s_time = np.take(s, T.order)
         pos = _by_key(s_time, T.stratum_s, itype)
-        run = np.cumsum(_new_runs(s_time[pos], T.stratum_s), dtype=itype)
-        run -= 1
+        run: np.ndarray = np.cumsum(_new_runs(s_time[pos], T.stratum_s), dtype=itype)
+        np.subtract(run, 1, out=run)
         run_at = np.empty(n, dtype=itype)
         run_at[pos] = run
         run_cuts = np.r_[run[cuts[:-1]], run[-1] + 1].astype(np.int64)
@@ -454,8 +455,9 @@ def _ordered_bits(score: np.ndarray) -> np.ndarray:
 
 
 # Scores on a grid of 1e-10 (the C index compares linear predictors rounded to 10 decimals)
-# and below _GRID_TOP in size are sorted as whole numbers score x 1e10 (below 2^48: three
-# stable 16-bit radix passes, about twice as fast as numpy's stable sort of 64-bit keys);
+# and below _GRID_TOP in size are sorted as whole numbers score x 1e10 (below 2^48: up to
+# three stable 16-bit radix passes, radix.stable_order, about twice as fast as numpy's stable
+# sort of 64-bit keys);
 # _grid_order checks that no two different scores share a number, else the scores are sorted
 # as they are.
 _GRID_SCALE = 1e10
@@ -478,15 +480,10 @@ def _grid_key(score: np.ndarray) -> np.ndarray | None:
 
 
 def _grid_order(key: np.ndarray, score: np.ndarray) -> np.ndarray | None:
-    """The stable order of ``key`` (< 2^48) by three 16-bit radix passes, low half first;
-    None when two different scores share a key (adjacent in that order with equal keys
-    but unequal scores), so that the order is not the scores' own."""
-    order = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
-    for shift in (16, 32):
-        part = np.take(key, order)
-        part >>= shift
-        part &= 0xFFFF
-        order = order[np.argsort(part.astype(np.uint16), kind="stable")]
+    """The stable order of ``key`` (< 2^48) by 16-bit radix passes (``radix.stable_order``);
+    None when two different scores share a key (adjacent in that order with equal keys but
+    unequal scores), so that the order is not the scores' own."""
+    order = stable_order(key)
     k, s = np.take(key, order), np.take(score, order)
     if not np.array_equal(k[1:] == k[:-1], s[1:] == s[:-1]):
         return None
@@ -540,18 +537,6 @@ def _by_grid(key: np.ndarray, score: np.ndarray, stratum: np.ndarray | None, ity
     return order.astype(itype)
 
 
-def _stable_order(key: np.ndarray) -> np.ndarray:
-    """``np.argsort(key, kind="stable")`` of non-negative whole numbers; below 2^32 as two
-    stable sorts by 16-bit halves (numpy's radix sort), low half first."""
-    top = int(key.max(initial=0))
-    if top >= 2**32:
-        return np.argsort(key, kind="stable")
-    if top < 2**16:
-        return np.argsort(key.astype(np.uint16), kind="stable")
-    by_low = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
-    return by_low[np.argsort((key[by_low] >> 16).astype(np.uint16), kind="stable")]
-
-
 def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
     """Where a run of equal (stratum, value) starts, for values sorted by (stratum, value)."""
     new = np.ones(values.size, dtype=bool)
@@ -570,7 +555,7 @@ def _late_pairs(L: _LateEntry, w_time: Sequence[np.ndarray | None], run_at: np.n
     (stratum, score), ties by item, is a stable sort of whole numbers."""
     m = L.row.size
     item_run = np.take(run_at, L.row, out=scratch.get("s1", m, run_at.dtype))
-    ip = _stable_order(item_run)
+    ip = stable_order(item_run)
     item_run = np.take(item_run, ip, out=scratch.get("s2", m, run_at.dtype))
     row = np.take(L.row, ip, out=scratch.get("s3", m, L.row.dtype))
     first = np.take(L.is_event, ip, out=scratch.get("s4", m, bool))
