@@ -6,7 +6,8 @@ process.
     python benchmarks/concordance.py --rows 200000 --json   # one size, JSON
     python benchmarks/concordance.py --baseline main        # also the module as it is at a
                                                             # git revision, alternated with it
-    python benchmarks/concordance.py --rows 200000 1000000  # the registry sizes
+    python benchmarks/concordance.py --rows 200000 1000000 --auc  # the registry sizes,
+                                                            # and the binary AUC
 
 The working tree's ``concordances`` is timed twice, alternated: by the compiled sweep
 (``UNBIN_COMPILED=always``, ``unbin.models.compiled.concordance``) and by the numpy passes
@@ -166,6 +167,37 @@ def run(n: int, calls: int, seed: int, baseline: ModuleType | None,
     return out
 
 
+def run_auc(n: int, calls: int, seed: int) -> dict[str, Any]:
+    """The binary AUC of bootstrap draws and the full sample (``count_aucs``) by the compiled
+    pass and by the numpy reductions, alternated; the full sample's against scipy's
+    Mann-Whitney U."""
+    from scipy import stats
+
+    from unbin.models.discrimination import compared_score, count_aucs
+
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=n)
+    y = rng.random(n) < 1 / (1 + np.exp(-x))
+    scores = [compared_score(x + rng.normal(0, 1, n)) for _ in range(calls)]
+    draws = [rng.multinomial(n, np.full(n, 1 / n)) for _ in range(calls)]
+    os.environ["UNBIN_COMPILED"] = "always"
+    count_aucs(y, scores[0], [draws[0], None])  # import and load the kernel
+    clock = {"always": 0.0, "never": 0.0}
+    got: dict[str, list[Any]] = {"always": [], "never": []}
+    for k in range(calls):
+        for who in ("always", "never") if k % 2 == 0 else ("never", "always"):
+            os.environ["UNBIN_COMPILED"] = who
+            start = time.process_time()
+            got[who].append(count_aucs(y, scores[k], [draws[k], None]))
+            clock[who] += time.process_time() - start
+    os.environ["UNBIN_COMPILED"] = "auto"
+    u = stats.mannwhitneyu(scores[0][y], scores[0][~y]).statistic / (y.sum() * (~y).sum())
+    return {"rows": n, "compiled_ms": 1e3 * clock["always"] / calls,
+            "numpy_ms": 1e3 * clock["never"] / calls,
+            "identical": got["always"] == got["never"],
+            "mann_whitney_abs_diff": abs(got["always"][0][1] - u)}
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--rows", type=int, nargs="*", default=list(SIZES))
@@ -175,12 +207,15 @@ def main() -> None:
                     help="scores per replicate in the memory measurement")
     ap.add_argument("--baseline", metavar="REV", help="also time concordances at this git "
                     "revision (e.g. main), alternated with the working tree's")
+    ap.add_argument("--auc", action="store_true", help="also the binary AUC of the draws "
+                    "(count_aucs), compiled against numpy, alternated")
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     baseline = None if args.baseline is None else load_revision(args.baseline)
     rows = [run(n, args.calls, args.seed, baseline, args.scores) for n in args.rows]
+    aucs = [run_auc(n, args.calls, args.seed) for n in args.rows] if args.auc else []
     if args.json:
-        print(json.dumps(rows, indent=1))
+        print(json.dumps(rows + aucs, indent=1))
         return
     print("| rows | events | ms per call | numpy ms | compiled speed-up | identical | "
           "baseline ms | speed-up | identical | "
@@ -196,6 +231,15 @@ def main() -> None:
               f"{r['weighted_pair_sums_ms']:.0f} | {r['equal_to_weighted_pair_sums']} | "
               f"{r['peak_mb']:.1f} | {r.get('baseline_peak_mb', float('nan')):.1f} | "
               f"{r['kept_mb']:.1f} | {r.get('baseline_kept_mb', float('nan')):.1f} |")
+
+    if aucs:
+        print("\n| rows | AUC compiled ms | AUC numpy ms | speed-up | identical | "
+              "abs diff to Mann-Whitney U |")
+        print("|---:|---:|---:|---:|:---:|---:|")
+        for a in aucs:
+            print(f"| {a['rows']:,} | {a['compiled_ms']:.1f} | {a['numpy_ms']:.1f} | "
+                  f"{a['numpy_ms'] / a['compiled_ms']:.2f} | {a['identical']} | "
+                  f"{a['mann_whitney_abs_diff']:.1e} |")
 
 
 if __name__ == "__main__":
