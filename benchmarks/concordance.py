@@ -6,6 +6,14 @@ process.
     python benchmarks/concordance.py --rows 200000 --json   # one size, JSON
     python benchmarks/concordance.py --baseline main        # also the module as it is at a
                                                             # git revision, alternated with it
+    python benchmarks/concordance.py --rows 200000 1000000 --auc  # the registry sizes,
+                                                            # and the binary AUC
+
+The working tree's ``concordances`` is timed twice, alternated: by the compiled sweep
+(``UNBIN_COMPILED=always``, ``unbin.models.compiled.concordance``) and by the numpy passes
+(``never``); its results must be identical (the same integer counts). Its first call is made
+before the clock starts (the kernel's import and load of its compiled code, timed apart as
+``first_call_s``).
 
 The sample is an invented registry cohort like the decision bootstrap's at scale: follow-up in
 whole days (heavy ties), 8 strata, delayed entry for every row (age at study entry), about 20%
@@ -114,16 +122,22 @@ def run(n: int, calls: int, seed: int, baseline: ModuleType | None,
     order = concordance_order(d["time"], d["event"], d["entry"], d["strata"])
     old_order = (None if baseline is None else
                  baseline.concordance_order(d["time"], d["event"], d["entry"], d["strata"]))
-    clock: dict[str, float] = {"new": 0.0, "baseline": 0.0}
-    got: dict[str, list[list[float]]] = {"new": [], "baseline": []}
-    turns = ["new", "baseline"] if baseline is not None else ["new"]
+    clock: dict[str, float] = {"new": 0.0, "numpy": 0.0, "baseline": 0.0}
+    got: dict[str, list[list[float]]] = {"new": [], "numpy": [], "baseline": []}
+    turns = ["new", "numpy"] + (["baseline"] if baseline is not None else [])
+    os.environ["UNBIN_COMPILED"] = "always"
+    start = time.process_time()
+    concordances(order, scores[0], [draws[0], None])  # import and load the kernel
+    first_call_s = time.process_time() - start
     for k in range(calls):
         for who in turns if k % 2 == 0 else turns[::-1]:
-            module_order: Any = order if who == "new" else old_order
-            fn = concordances if who == "new" else baseline.concordances  # type: ignore[union-attr]
+            module_order: Any = order if who != "baseline" else old_order
+            fn = concordances if who != "baseline" else baseline.concordances  # type: ignore[union-attr]
+            os.environ["UNBIN_COMPILED"] = "never" if who == "numpy" else "always"
             start = time.process_time()
             got[who].append(fn(module_order, scores[k], [draws[k], None]))
             clock[who] += time.process_time() - start
+    os.environ["UNBIN_COMPILED"] = "auto"
     # the O(n log^2 n) weighted pair sums on the first call's drawn rows and full sample
     m = draws[0] > 0
     start = time.process_time()
@@ -135,6 +149,10 @@ def run(n: int, calls: int, seed: int, baseline: ModuleType | None,
     out: dict[str, Any] = {
         "rows": n, "calls": calls, "events": int(d["event"].sum()),
         "new_ms_per_call": 1e3 * clock["new"] / calls,
+        "numpy_ms_per_call": 1e3 * clock["numpy"] / calls,
+        "compiled_speedup": clock["numpy"] / clock["new"],
+        "compiled_identical": got["new"] == got["numpy"],
+        "first_call_s": first_call_s,
         "weighted_pair_sums_ms": 1e3 * ref_s,
         "equal_to_weighted_pair_sums": got["new"][0] == ref,
     }
@@ -149,6 +167,37 @@ def run(n: int, calls: int, seed: int, baseline: ModuleType | None,
     return out
 
 
+def run_auc(n: int, calls: int, seed: int) -> dict[str, Any]:
+    """The binary AUC of bootstrap draws and the full sample (``count_aucs``) by the compiled
+    pass and by the numpy reductions, alternated; the full sample's against scipy's
+    Mann-Whitney U."""
+    from scipy import stats
+
+    from unbin.models.discrimination import compared_score, count_aucs
+
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=n)
+    y = rng.random(n) < 1 / (1 + np.exp(-x))
+    scores = [compared_score(x + rng.normal(0, 1, n)) for _ in range(calls)]
+    draws = [rng.multinomial(n, np.full(n, 1 / n)) for _ in range(calls)]
+    os.environ["UNBIN_COMPILED"] = "always"
+    count_aucs(y, scores[0], [draws[0], None])  # import and load the kernel
+    clock = {"always": 0.0, "never": 0.0}
+    got: dict[str, list[Any]] = {"always": [], "never": []}
+    for k in range(calls):
+        for who in ("always", "never") if k % 2 == 0 else ("never", "always"):
+            os.environ["UNBIN_COMPILED"] = who
+            start = time.process_time()
+            got[who].append(count_aucs(y, scores[k], [draws[k], None]))
+            clock[who] += time.process_time() - start
+    os.environ["UNBIN_COMPILED"] = "auto"
+    u = stats.mannwhitneyu(scores[0][y], scores[0][~y]).statistic / (y.sum() * (~y).sum())
+    return {"rows": n, "compiled_ms": 1e3 * clock["always"] / calls,
+            "numpy_ms": 1e3 * clock["never"] / calls,
+            "identical": got["always"] == got["never"],
+            "mann_whitney_abs_diff": abs(got["always"][0][1] - u)}
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--rows", type=int, nargs="*", default=list(SIZES))
@@ -158,24 +207,39 @@ def main() -> None:
                     help="scores per replicate in the memory measurement")
     ap.add_argument("--baseline", metavar="REV", help="also time concordances at this git "
                     "revision (e.g. main), alternated with the working tree's")
+    ap.add_argument("--auc", action="store_true", help="also the binary AUC of the draws "
+                    "(count_aucs), compiled against numpy, alternated")
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     baseline = None if args.baseline is None else load_revision(args.baseline)
     rows = [run(n, args.calls, args.seed, baseline, args.scores) for n in args.rows]
+    aucs = [run_auc(n, args.calls, args.seed) for n in args.rows] if args.auc else []
     if args.json:
-        print(json.dumps(rows, indent=1))
+        print(json.dumps(rows + aucs, indent=1))
         return
-    print("| rows | events | ms per call | baseline ms | speed-up | identical | "
+    print("| rows | events | ms per call | numpy ms | compiled speed-up | identical | "
+          "baseline ms | speed-up | identical | "
           "weighted pair sums ms (2 C) | equal | peak MB | baseline peak MB | kept MB | "
           "baseline kept MB |")
-    print("|---:|---:|---:|---:|---:|:---:|---:|:---:|---:|---:|---:|---:|")
+    print("|---:|---:|---:|---:|---:|:---:|---:|---:|:---:|---:|:---:|---:|---:|---:|---:|")
     for r in rows:
         print(f"| {r['rows']:,} | {r['events']:,} | {r['new_ms_per_call']:.1f} | "
+              f"{r['numpy_ms_per_call']:.1f} | {r['compiled_speedup']:.2f} | "
+              f"{r['compiled_identical']} | "
               f"{r.get('baseline_ms_per_call', float('nan')):.1f} | "
               f"{r.get('speedup', float('nan')):.2f} | {r.get('identical_to_baseline', '–')} | "
               f"{r['weighted_pair_sums_ms']:.0f} | {r['equal_to_weighted_pair_sums']} | "
               f"{r['peak_mb']:.1f} | {r.get('baseline_peak_mb', float('nan')):.1f} | "
               f"{r['kept_mb']:.1f} | {r.get('baseline_kept_mb', float('nan')):.1f} |")
+
+    if aucs:
+        print("\n| rows | AUC compiled ms | AUC numpy ms | speed-up | identical | "
+              "abs diff to Mann-Whitney U |")
+        print("|---:|---:|---:|---:|:---:|---:|")
+        for a in aucs:
+            print(f"| {a['rows']:,} | {a['compiled_ms']:.1f} | {a['numpy_ms']:.1f} | "
+                  f"{a['numpy_ms'] / a['compiled_ms']:.2f} | {a['identical']} | "
+                  f"{a['mann_whitney_abs_diff']:.1e} |")
 
 
 if __name__ == "__main__":

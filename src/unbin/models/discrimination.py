@@ -25,6 +25,8 @@ import numpy as np
 
 from ..distributions import stats
 from .base import Outcome
+from .compiled import wanted
+from .radix import stable_order
 
 
 def auc(y: np.ndarray, score: np.ndarray) -> float:
@@ -56,6 +58,8 @@ def count_aucs(y: np.ndarray, score: np.ndarray,
     if s.size == 0:
         return [float("nan")] * len(counts)
     order = ascending_order(s)  # ties in any order: the runs below group them
+    if wanted(s.size, AUC_FROM_ROWS):
+        return _compiled_aucs(e, s, order, counts)
     ranked = s[order]
     first = np.flatnonzero(np.r_[True, ranked[1:] != ranked[:-1]])  # each run's first place
     size = np.diff(np.r_[first, s.size])  # rows per group of tied scores
@@ -84,6 +88,34 @@ def count_aucs(y: np.ndarray, score: np.ndarray,
     return out
 
 
+# From this many rows the counts of :func:`count_aucs` are one compiled pass
+# (``unbin.models.compiled.auc``) instead of the numpy reductions (DEVELOPERS.md, "Compiled
+# kernels").
+AUC_FROM_ROWS = 50_000
+
+
+def _compiled_aucs(e: np.ndarray, s: np.ndarray, order: np.ndarray,
+                   counts: list[np.ndarray | None]) -> list[float]:
+    """:func:`count_aucs` by the compiled pass over the rows in score order ``order``: the
+    same integer counts, divided as there."""
+    from .compiled.auc import auc_pairs
+
+    weights = np.ones((s.size, len(counts)), dtype=np.int64)  # in score order
+    for k, c in enumerate(counts):
+        if c is None:
+            continue
+        c_s = np.asarray(c)[order]
+        if c_s.dtype.kind not in "iub":
+            if not np.array_equal(c_s, np.rint(c_s)):
+                raise ValueError("count_aucs: counts must be whole numbers")
+        weights[:, k] = c_s
+    n1s, n0s, twices = auc_pairs(s[order], e[order], weights)
+    out: list[float] = []
+    for n1, n0, twice in zip(n1s.tolist(), n0s.tolist(), twices.tolist(), strict=True):
+        out.append(float("nan") if n1 == 0 or n0 == 0 else float(twice / 2 / (n1 * n0)))
+    return out
+
+
 _RADIX_ROWS = 4096  # from this many scores the order is found by two 16-bit radix passes
 _TOP = 4294967295.0  # 2^32 - 1
 _FEW_DOWN = 256  # up to this many out-of-order neighbours their buckets are found one by one
@@ -94,8 +126,8 @@ def ascending_order(s: np.ndarray) -> np.ndarray:
     order), as ``np.argsort`` would sort them. From ``_RADIX_ROWS`` scores: each score's
     32-bit bucket on the range (``floor((s - min) * (2^32 - 1) / (max - min))``, non-decreasing
     in the score, as floating-point subtraction, multiplication by a positive number and floor
-    are) is sorted by two stable 16-bit passes (numpy's radix sort, linear in the rows:
-    cheaper than a comparison sort of the doubles); the buckets shared by scores out of order
+    are) is sorted by stable 16-bit passes (``radix.stable_order``: numpy's radix sort, linear
+    in the rows, cheaper than a comparison sort of the doubles); the buckets shared by scores out of order
     are then sorted by score (few rows)."""
     n = s.size
     if n < _RADIX_ROWS:
@@ -105,8 +137,7 @@ def ascending_order(s: np.ndarray) -> np.ndarray:
     if not np.isfinite(scale):
         return np.argsort(s)
     key = np.minimum(np.floor((s - lo) * scale), _TOP).astype(np.uint32)
-    order = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
-    order = order[np.argsort((key[order] >> 16).astype(np.uint16), kind="stable")]
+    order = stable_order(key)
     ranked = s[order]
     down = np.flatnonzero(ranked[1:] < ranked[:-1])  # only within a shared bucket
     if down.size == 0:

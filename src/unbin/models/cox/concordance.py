@@ -11,6 +11,8 @@ from typing import Any
 
 import numpy as np
 
+from ..compiled import wanted
+from ..radix import stable_order
 from .inputs import (
     _as_1d,
     _check_finite,
@@ -219,6 +221,8 @@ def scores_concordances(time_order: TimeOrder, risk_scores: Iterable[Any],
     ``time_order`` between calls."""
     T = time_order
     checked = [None if c is None else _counts_array(c, T.n) for c in counts]
+    if wanted(T.n, CONCORDANCE_FROM_ROWS):
+        return _compiled_scores(T, risk_scores, checked)
     sc = _Scratch()  # (arrays reused from score to score, released at the end)
     w_time: list[np.ndarray | None] | None = None
     pairs: list[int] = []
@@ -239,6 +243,86 @@ def scores_concordances(time_order: TimeOrder, risk_scores: Iterable[Any],
                       for k, c in enumerate(checked)]
             pairs = [T.pairs if w is None else _weighted_pairs(T, w, sc) for w in w_time]
         out.append(_one_score(T, s, w_time, pairs, sc))
+    return out
+
+
+# From this many rows the pair counts of one score are one compiled sweep
+# (``unbin.models.compiled.concordance``) instead of the numpy passes (measured crossover:
+# DEVELOPERS.md, "Compiled kernels").
+CONCORDANCE_FROM_ROWS = 20_000
+
+
+def _checked_score(s: Any, n: int) -> np.ndarray:
+    """A risk score as floats, one finite value per row (else ``ValueError``)."""
+    out = np.asarray(s, dtype=float)
+    if out.ndim != 1 or out.shape[0] != n:
+        raise ValueError(
+            f"risk_score must be one-dimensional with {n} values, got shape {out.shape}"
+        )
+    _check_finite("risk_score", out)
+    return out
+
+
+def _compiled_scores(T: TimeOrder, risk_scores: Iterable[Any],
+                     checked: list[np.ndarray | None]) -> list[list[float]]:
+    """:func:`scores_concordances` by the compiled sweep: per score, the runs of equal
+    (stratum, score) from the same sort as the numpy path's, then one sweep counting the
+    higher and equal pairs of every count vector at once; the comparable pairs as the numpy
+    path counts them (once per call)."""
+    from ..compiled.concordance import sweep_pairs
+
+    n = T.n
+    out: list[list[float]] = []
+    prepared: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray,
+                   list[int]] | None = None
+    itype = np.int32 if n < 2**30 else np.int64
+    for risk_score in risk_scores:
+        s = _checked_score(risk_score, n)
+        if n < 2 or not T.event_s.any() or T.pairs <= 0:
+            out.append([float("nan")] * len(checked))
+            continue
+        if prepared is None:  # what depends on the counts and the time order alone, once
+            sc = _Scratch()
+            w_time = [None if c is None else np.take(c, T.order) for c in checked]
+            pairs = [T.pairs if w is None else _weighted_pairs(T, w, sc) for w in w_time]
+            del sc
+            # (rows, counts) in time order, 32 bits when every column's total fits
+            wide = max((int(w.sum()) for w in w_time if w is not None), default=n) >= 2**31
+            weights = np.ones((n, len(checked)), dtype=np.int64 if wide else np.int32)
+            for k, w in enumerate(w_time):
+                if w is not None:
+                    weights[:, k] = w
+            del w_time
+            tied = T.tied_at.astype(np.int64)
+            tied[T.tied_at == np.iinfo(T.tied_at.dtype).max] = -1
+            late_row = np.zeros(0, dtype=np.int64)
+            late_event = np.zeros(0, dtype=bool)
+            late_at = np.zeros(0, dtype=np.int64)
+            if T.late is not None:  # the items, and each event's item (-1: none)
+                late_row = T.late.row.astype(np.int64)
+                late_event = np.ascontiguousarray(T.late.is_event, dtype=bool)
+                late_at = np.full(n, -1, dtype=np.int64)
+                late_at[late_row[late_event]] = np.flatnonzero(late_event)
+            # where each stratum's positions start (the same in time and in score order)
+            cuts = (np.array([0, n], dtype=np.int64) if T.stratum_s is None else
+                    np.r_[0, np.flatnonzero(T.stratum_s[1:] != T.stratum_s[:-1]) + 1, n]
+                    .astype(np.int64))
+            prepared = (weights, tied, late_row, late_event, late_at, cuts, pairs)
+        weights, tied, late_row, late_event, late_at, cuts, pairs = prepared
+        s_time = np.take(s, T.order)
+        pos = _by_key(s_time, T.stratum_s, itype)
+        run: np.ndarray = np.cumsum(_new_runs(s_time[pos], T.stratum_s), dtype=itype)
+        np.subtract(run, 1, out=run)
+        run_at = np.empty(n, dtype=itype)
+        run_at[pos] = run
+        run_cuts = np.r_[run[cuts[:-1]], run[-1] + 1].astype(np.int64)
+        table = np.empty((int(np.diff(run_cuts).max()) + 1, 2 * len(checked)),
+                         dtype=weights.dtype)
+        higher, equal = sweep_pairs(run_at, T.event_s, tied, weights, late_row, late_event,
+                                    late_at, cuts, run_cuts, table)
+        del table
+        out.append([float("nan") if p <= 0 else (int(h) + 0.5 * int(e)) / p
+                    for h, e, p in zip(higher, equal, pairs, strict=True)])
     return out
 
 
@@ -371,8 +455,9 @@ def _ordered_bits(score: np.ndarray) -> np.ndarray:
 
 
 # Scores on a grid of 1e-10 (the C index compares linear predictors rounded to 10 decimals)
-# and below _GRID_TOP in size are sorted as whole numbers score x 1e10 (below 2^48: three
-# stable 16-bit radix passes, about twice as fast as numpy's stable sort of 64-bit keys);
+# and below _GRID_TOP in size are sorted as whole numbers score x 1e10 (below 2^48: up to
+# three stable 16-bit radix passes, radix.stable_order, about twice as fast as numpy's stable
+# sort of 64-bit keys);
 # _grid_order checks that no two different scores share a number, else the scores are sorted
 # as they are.
 _GRID_SCALE = 1e10
@@ -395,15 +480,10 @@ def _grid_key(score: np.ndarray) -> np.ndarray | None:
 
 
 def _grid_order(key: np.ndarray, score: np.ndarray) -> np.ndarray | None:
-    """The stable order of ``key`` (< 2^48) by three 16-bit radix passes, low half first;
-    None when two different scores share a key (adjacent in that order with equal keys
-    but unequal scores), so that the order is not the scores' own."""
-    order = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
-    for shift in (16, 32):
-        part = np.take(key, order)
-        part >>= shift
-        part &= 0xFFFF
-        order = order[np.argsort(part.astype(np.uint16), kind="stable")]
+    """The stable order of ``key`` (< 2^48) by 16-bit radix passes (``radix.stable_order``);
+    None when two different scores share a key (adjacent in that order with equal keys but
+    unequal scores), so that the order is not the scores' own."""
+    order = stable_order(key)
     k, s = np.take(key, order), np.take(score, order)
     if not np.array_equal(k[1:] == k[:-1], s[1:] == s[:-1]):
         return None
@@ -457,18 +537,6 @@ def _by_grid(key: np.ndarray, score: np.ndarray, stratum: np.ndarray | None, ity
     return order.astype(itype)
 
 
-def _stable_order(key: np.ndarray) -> np.ndarray:
-    """``np.argsort(key, kind="stable")`` of non-negative whole numbers; below 2^32 as two
-    stable sorts by 16-bit halves (numpy's radix sort), low half first."""
-    top = int(key.max(initial=0))
-    if top >= 2**32:
-        return np.argsort(key, kind="stable")
-    if top < 2**16:
-        return np.argsort(key.astype(np.uint16), kind="stable")
-    by_low = np.argsort((key & 0xFFFF).astype(np.uint16), kind="stable")
-    return by_low[np.argsort((key[by_low] >> 16).astype(np.uint16), kind="stable")]
-
-
 def _new_runs(values: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
     """Where a run of equal (stratum, value) starts, for values sorted by (stratum, value)."""
     new = np.ones(values.size, dtype=bool)
@@ -487,7 +555,7 @@ def _late_pairs(L: _LateEntry, w_time: Sequence[np.ndarray | None], run_at: np.n
     (stratum, score), ties by item, is a stable sort of whole numbers."""
     m = L.row.size
     item_run = np.take(run_at, L.row, out=scratch.get("s1", m, run_at.dtype))
-    ip = _stable_order(item_run)
+    ip = stable_order(item_run)
     item_run = np.take(item_run, ip, out=scratch.get("s2", m, run_at.dtype))
     row = np.take(L.row, ip, out=scratch.get("s3", m, L.row.dtype))
     first = np.take(L.is_event, ip, out=scratch.get("s4", m, bool))
