@@ -204,6 +204,20 @@ def replicate_copies(outcome: Outcome, W: Weights) -> np.ndarray:
     return np.rint(W / w)
 
 
+def compact_copies(outcome: Outcome, R: Replicates) -> Replicates | None:
+    """:func:`replicate_copies` of compact refit weights ``R`` kept compact (the copies as
+    counts with no scale: each block made in float64 is the float64 copies'), None where the
+    copies are not whole numbers held by ``R`` (float64 weights without a scale)."""
+    w = _base_weights(outcome)
+    if w is not None and _individuals(outcome):
+        return Replicates((R.counts > 0).astype(np.uint8))
+    if R.scale is not None or w is None:
+        if not np.issubdtype(R.counts.dtype, np.integer):
+            return None
+        return Replicates(R.counts)
+    return None
+
+
 def replicate_rows(outcome: Outcome, w_row: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
     """One replicate's drawn data set: the row indices (a row repeated as often as it is in the
     replicate) and the weights of those rows (None without weights); ``w_row`` one row of

@@ -98,6 +98,7 @@ from ..models.weighted import (
     WeightedGLM,
     design_resample_replicates,
     design_resample_weights,
+    expit_into,
     replicate_rows,
     weighted_cox_designs,
 )
@@ -372,7 +373,7 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     for _ in range(50):
         np.multiply(zc, b, out=mu)
         mu += a
-        special.expit(mu, out=mu)
+        expit_into(mu, mu)
         np.subtract(1.0, mu, out=w)
         w *= mu
         np.subtract(y, mu, out=r)
