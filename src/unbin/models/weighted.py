@@ -26,11 +26,13 @@ from __future__ import annotations
 
 import weakref
 from collections.abc import Callable, Iterator, Sequence
+from types import ModuleType
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy import sparse, special
 
+from . import compiled
 from ._glm import gram, standardise
 from .base import Outcome
 
@@ -42,6 +44,9 @@ _WHOLE_ROWS = 50_000
 _SLOW = 0.1  # a chord step that shrank less than this from the one before: new information
 _BLOCK_CELLS = 1 << 17  # replicates x rows of one block of the large-sample refits (1 MB)
 _MAX_NEWTON = 30
+# from this many rows the per-cell work of the large-sample refits' passes runs compiled
+# (``compiled.glm_cells``; measured by ``benchmarks/glm_chord.py``)
+CELLS_FROM_ROWS = 100_000
 _TOL = 1e-9
 
 
@@ -439,6 +444,13 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
     done = np.zeros(C, dtype=bool)
     size, before = np.full(C, np.inf), np.full(C, np.inf)  # the last two steps' sizes
     pairs = np.empty((min(n, 8192), k))  # a row block's pairwise products z_i z_j, i <= j
+    cells: ModuleType | None = None  # from CELLS_FROM_ROWS rows: the per-cell work compiled
+    if v0 is not None and compiled.wanted(n, CELLS_FROM_ROWS):
+        from .compiled import glm_cells
+
+        cells = glm_cells
+
+        scale_c = np.zeros(0) if W.scale is None else np.ascontiguousarray(W.scale)
     for it in range(_MAX_NEWTON if family != "continuous" else 1):
         act = np.flatnonzero(~(done | bad))
         if act.size == 0:
@@ -453,6 +465,21 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
                 eta = Ta @ Zb.T
                 if shift:
                     eta += offset[sl]
+                if cells is not None:  # the same values from one compiled pass
+                    wv = np.empty_like(eta) if fresh is not None else eta[:0]
+                    if family == "binary":
+                        np.negative(eta, out=eta)
+                        with np.errstate(over="ignore"):
+                            np.exp(eta, out=eta)
+                    else:
+                        np.minimum(eta, 700.0, out=eta)
+                        np.exp(eta, out=eta)
+                    cells.glm_cells(eta, y[sl], W.counts, act, sl.start, scale_c,
+                                    family == "binary", fresh is not None, eta, wv)
+                    score += eta @ Zb
+                    if fresh is not None:
+                        fresh += wv @ _pair_products(Zb, pairs)
+                    continue
                 mu, v = _mean_var(family, eta, fresh is not None)
                 Wb = W.block(act, sl)
                 # W (y - mu) and W v written over eta and v (the same products as fresh
