@@ -5,8 +5,8 @@ statsmodels:
   dense or compact) equals the frequency-weighted mean of statsmodels' predictions with the
   exposure set to each value (logistic; Poisson with person-time; linear), including the
   direct form when exp(-shift) overflows;
-- ``kept.glm_logliks`` of a logistic model equals statsmodels' log-likelihood with
-  ``freq_weights``;
+- ``kept.glm_logliks`` (row blocks, dense or compact weights) of a logistic and a Poisson
+  model equals statsmodels' log-likelihood with ``freq_weights``;
 - ``decision_resampling.logistic_slope`` (sums over blocks of rows) equals statsmodels' Logit
   slope of the outcome on the linear predictor.
 """
@@ -88,20 +88,35 @@ def test_glm_means_direct_form_when_the_factor_overflows() -> None:
     assert np.all(np.isnan(got[2]))
 
 
-def test_logistic_logliks_equal_statsmodels() -> None:
+@pytest.mark.parametrize("family", ["binary", "count"])
+def test_logliks_equal_statsmodels(family: str) -> None:
+    """Each replicate's frequency-weighted log-likelihood, blocks of rows summed, against
+    statsmodels' GLM llf with ``freq_weights`` (Poisson: its log y! constant added back), on
+    dense and on compact weights."""
     n = 3000
-    X, _ = _data(n, 6)
+    X, t = _data(n, 6)
     rng = np.random.default_rng(7)
-    y = (rng.random(n) < special.expit(-0.5 + X[:, 0])).astype(float)
+    eta = -0.5 + X[:, 0]
     design = sm.add_constant(X)
-    W = resample_counts(rng, n, 2).astype(float)
+    counts = resample_counts(rng, n, 2)
+    if family == "binary":
+        y = (rng.random(n) < special.expit(eta)).astype(float)
+        o = Outcome("binary", y)
+    else:
+        y = rng.poisson(t * np.exp(eta)).astype(float)
+        o = Outcome("count", y, offset=np.log(t))
     coef, ref = [], []
-    for w in W:
-        res = sm.GLM(y, design, family=sm.families.Binomial(), freq_weights=w).fit()
+    for w in counts.astype(float):
+        res = (sm.GLM(y, design, family=sm.families.Binomial(), freq_weights=w).fit()
+               if family == "binary" else
+               sm.GLM(y, design, family=sm.families.Poisson(), offset=np.log(t),
+                      freq_weights=w).fit())
         coef.append(np.asarray(res.params))
-        ref.append(res.llf)
-    got = glm_logliks("binary", X, np.array(coef), Outcome("binary", y), W)
+        ref.append(res.llf + (w @ special.gammaln(y + 1) if family == "count" else 0.0))
+    got = glm_logliks(family, X, np.array(coef), o, counts.astype(float))
     np.testing.assert_allclose(got, ref, rtol=1e-12)
+    np.testing.assert_array_equal(glm_logliks(family, X, np.array(coef), o, Replicates(counts)),
+                                  got)
 
 
 @pytest.mark.parametrize("n", [1000, 3 * decision_resampling._SLOPE_ROWS + 17])
