@@ -1,8 +1,8 @@
 """The sums the GLM resampling tables read from each replicate's coefficients, against
 statsmodels:
 
-- ``standardise.glm_means`` (row blocks, one exponential for every exposure value; weights
-  dense or compact) equals the frequency-weighted mean of statsmodels' predictions with the
+- ``standardise.glm_means`` (row by row below ``BLOCKED_MEANS_FROM_ROWS``; from it row
+  blocks with one exponential for every exposure value, weights dense or compact) equals the frequency-weighted mean of statsmodels' predictions with the
   exposure set to each value (logistic; Poisson with person-time; linear), including the
   direct form when exp(-shift) overflows;
 - ``kept.glm_logliks`` (row blocks, dense or compact weights) of a logistic and a Poisson
@@ -23,6 +23,7 @@ from unbin.models.weighted import Replicates, resample_counts
 from unbin.questions import decision_resampling
 from unbin.questions.decision_resampling import logistic_slope
 from unbin.questions.kept import glm_logliks
+from unbin.refit import standardise
 from unbin.refit.standardise import glm_means
 
 
@@ -34,7 +35,8 @@ def _data(n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 @pytest.mark.parametrize("family", ["binary", "count", "continuous"])
-def test_glm_means_equal_statsmodels_predictions(family: str) -> None:
+def test_glm_means_equal_statsmodels_predictions(family: str,
+                                                 monkeypatch: pytest.MonkeyPatch) -> None:
     n = 5000
     X, t = _data(n, 3)
     rng = np.random.default_rng(4)
@@ -68,14 +70,19 @@ def test_glm_means_equal_statsmodels_predictions(family: str) -> None:
         refs.append(ref)
     coef = np.array(coefs)
     offset = np.log(t) if family == "count" else None
+    rowwise = glm_means(family, X, 2, coef, at, counts.astype(float), offset)
+    np.testing.assert_allclose(rowwise, np.array(refs), rtol=1e-12)
+    monkeypatch.setattr(standardise, "BLOCKED_MEANS_FROM_ROWS", 0)  # the large samples' form
     dense = glm_means(family, X, 2, coef, at, counts.astype(float), offset)
     compact = glm_means(family, X, 2, coef, at, Replicates(counts), offset)
     np.testing.assert_allclose(dense, np.array(refs), rtol=1e-12)
     np.testing.assert_array_equal(compact, dense)
 
 
-def test_glm_means_direct_form_when_the_factor_overflows() -> None:
+def test_glm_means_direct_form_when_the_factor_overflows(
+        monkeypatch: pytest.MonkeyPatch) -> None:
     """A shift beyond exp's range (exp(-shift) = 0) takes expit(rest + shift) directly."""
+    monkeypatch.setattr(standardise, "BLOCKED_MEANS_FROM_ROWS", 0)
     n = 400
     X, _ = _data(n, 5)
     coef = np.array([[-0.5, 900.0, 0.0, 0.2], [-0.5, 0.3, 0.1, 0.2], [np.nan] * 4])

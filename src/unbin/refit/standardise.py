@@ -60,6 +60,10 @@ from .risk import cumhaz_at, horizon_notes
 # which there are hundreds to thousands); larger ones are interpolated
 INTERPOLATE_ROWS = 500
 _BLOCK_CELLS = 1 << 17  # replicates x rows of a block of the GLM standardised means (1 MB)
+# from this many rows (the GLM bootstrap's large-sample refits, models.weighted._WHOLE_ROWS)
+# the standardised means are summed in row blocks with one exponential per row; below it row
+# by row as before
+BLOCKED_MEANS_FROM_ROWS = 50_000
 DIRECT_CELLS = 4e6
 
 
@@ -114,11 +118,16 @@ def glm_means(family: str, X: np.ndarray, k: int, coef: np.ndarray, at: Sequence
     exposure is X's first ``k`` columns). Returns shape (C, len(at)). The rows are summed a
     block at a time (the (C x rows) temporaries stay in cache), and one exponential of the
     rows serves every exposure value: ``exp(rest + shift) = exp(rest) exp(shift)`` and
-    ``expit(rest + shift) = 1 / (1 + exp(-rest) exp(-shift))`` (the same means to rounding)."""
+    ``expit(rest + shift) = 1 / (1 + exp(-rest) exp(-shift))`` (the same means to rounding),
+    from ``BLOCKED_MEANS_FROM_ROWS`` rows or on compact weights; smaller samples are summed as
+    before (:func:`_glm_means_rowwise`)."""
     X = np.asarray(X, dtype=float)
     coef = np.atleast_2d(np.asarray(coef, dtype=float))
-    R = W if isinstance(W, Replicates) else Replicates(np.atleast_2d(np.asarray(W, float)))
     C, n = coef.shape[0], X.shape[0]
+    if n < BLOCKED_MEANS_FROM_ROWS and not isinstance(W, Replicates):
+        return _glm_means_rowwise(family, X, k, coef, at, np.atleast_2d(np.asarray(W, float)),
+                                  offset)
+    R = W if isinstance(W, Replicates) else Replicates(np.atleast_2d(np.asarray(W, float)))
     shifts = np.column_stack([coef[:, 1:1 + k] @ np.asarray(a, dtype=float) for a in at]
                              ) if len(at) else np.zeros((C, 0))  # (C, J)
     # person-time weights for counts; the rate itself is without the offset
@@ -162,6 +171,32 @@ def glm_means(family: str, X: np.ndarray, k: int, coef: np.ndarray, at: Sequence
         if family == "count":
             return np.asarray(sums * factors / total[:, None])
         return np.asarray(sums / total[:, None])
+
+
+def _glm_means_rowwise(family: str, X: np.ndarray, k: int, coef: np.ndarray,
+                       at: Sequence[np.ndarray], W: np.ndarray,
+                       offset: np.ndarray | None) -> np.ndarray:
+    """:func:`glm_means` below ``BLOCKED_MEANS_FROM_ROWS`` rows: each exposure value's means
+    from the whole (C x n) arrays, the mean by ``scipy.special.expit`` (the small samples' and
+    the demo's numbers bit for bit as before the blocked form)."""
+    rest = X[:, k:] @ coef[:, 1 + k:].T  # (n, C): adjustment part, exposure left out
+    rest = rest.T + coef[:, :1]  # (C, n)
+    if family == "count" and offset is not None:
+        W = W * np.exp(offset)  # person-time weights; the rate itself is without the offset
+    total = W.sum(axis=1)
+    out = np.empty((coef.shape[0], len(at)))
+    for j, a in enumerate(at):
+        shift = coef[:, 1:1 + k] @ np.asarray(a, dtype=float)  # (C,)
+        eta = rest + shift[:, None]
+        if family == "binary":
+            mu = special.expit(eta)
+        elif family == "count":
+            with np.errstate(over="ignore"):
+                mu = np.exp(eta)
+        else:
+            mu = eta
+        out[:, j] = np.einsum("cn,cn->c", W, mu) / total
+    return out
 
 
 @dataclass(frozen=True)
