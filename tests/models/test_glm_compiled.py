@@ -6,7 +6,9 @@
 - each replicate's refit equals statsmodels' GLM with ``freq_weights`` (Binomial; Poisson with
   a log person-time offset; Gaussian through WLS) with the kernel forced on;
 - the kernel's cells equal their definition written out in numpy;
-- ``expit_into`` agrees with ``scipy.special.expit``.
+- ``expit_into`` agrees with ``scipy.special.expit``;
+- ``compact_copies`` (the confounding bootstrap's standardised means over every replicate at
+  once) holds each row's copies in the repeated rows of ``replicate_rows``.
 """
 
 from __future__ import annotations
@@ -113,3 +115,23 @@ def test_expit_into_agrees_with_scipy() -> None:
     ref = special.expit(x)
     np.testing.assert_allclose(got, ref, rtol=1e-15, atol=0)
     assert got[0] == 0.0 and got[20000] == 1.0
+
+
+@pytest.mark.parametrize("design", ["rows", "sampling", "frequency", "cluster"])
+def test_compact_copies_are_the_drawn_rows_copies(design: str) -> None:
+    """``compact_copies`` holds how often each row is in the drawn data set, as the repeated
+    rows show it (``replicate_rows``: a row drawn k times repeated k times; frequency weights
+    without a cluster: each individual row once, its count the weight)."""
+    rng = np.random.default_rng(12)
+    n = 200
+    w = rng.uniform(0.5, 3.0, n) if design == "sampling" else (
+        rng.integers(1, 5, n).astype(float) if design == "frequency" else None)
+    o = Outcome("binary", (rng.random(n) < 0.3).astype(float), weights=w,
+                weight_kind="frequency" if design == "frequency" else "sampling",
+                cluster=rng.integers(0, 40, n) if design == "cluster" else None)
+    R = weighted.design_resample_replicates(np.random.default_rng(3), o, 4)
+    copies = weighted.compact_copies(o, R)
+    assert copies is not None
+    for b in range(len(R)):
+        m, _ = weighted.replicate_rows(o, R.row(b))
+        np.testing.assert_array_equal(copies.row(b), np.bincount(m, minlength=n))
