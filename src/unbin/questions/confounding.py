@@ -344,7 +344,9 @@ class _Designs:
         for key, it in ok:  # each design standardised once, for every chunk
             g = WeightedGLM(r.family, it.X, o, it.res.coef)
             whole = g.coef(R) if g.whole else None
-            if whole is not None and copies is not None:
+            # (the linear model's means need no exponential: they stay chunk by chunk, whose
+            # sums the confounding share's limits, a ratio of differences, are sensitive to)
+            if whole is not None and copies is not None and r.family != "continuous":
                 # every replicate's standardised means in one pass over the rows
                 cond[key][:] = whole[:, 1:1 + it.k] @ self._d(key)
                 marg[key][:] = glm_means(r.family, it.X, it.k, whole, it.at, copies, o.offset)

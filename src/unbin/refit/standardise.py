@@ -124,7 +124,8 @@ def glm_means(family: str, X: np.ndarray, k: int, coef: np.ndarray, at: Sequence
     X = np.asarray(X, dtype=float)
     coef = np.atleast_2d(np.asarray(coef, dtype=float))
     C, n = coef.shape[0], X.shape[0]
-    if n < BLOCKED_MEANS_FROM_ROWS and not isinstance(W, Replicates):
+    if (n < BLOCKED_MEANS_FROM_ROWS or family == "continuous") \
+            and not isinstance(W, Replicates):
         return _glm_means_rowwise(family, X, k, coef, at, np.atleast_2d(np.asarray(W, float)),
                                   offset)
     R = W if isinstance(W, Replicates) else Replicates(np.atleast_2d(np.asarray(W, float)))
