@@ -26,11 +26,13 @@ from __future__ import annotations
 
 import weakref
 from collections.abc import Callable, Iterator, Sequence
+from types import ModuleType
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from scipy import sparse, special
 
+from . import compiled
 from ._glm import gram, standardise
 from .base import Outcome
 
@@ -42,6 +44,9 @@ _WHOLE_ROWS = 50_000
 _SLOW = 0.1  # a chord step that shrank less than this from the one before: new information
 _BLOCK_CELLS = 1 << 17  # replicates x rows of one block of the large-sample refits (1 MB)
 _MAX_NEWTON = 30
+# from this many rows the per-cell work of the large-sample refits' passes runs compiled
+# (``compiled.glm_cells``; measured by ``benchmarks/glm_chord.py``)
+CELLS_FROM_ROWS = 100_000
 _TOL = 1e-9
 
 
@@ -204,6 +209,20 @@ def replicate_copies(outcome: Outcome, W: Weights) -> np.ndarray:
     return np.rint(W / w)
 
 
+def compact_copies(outcome: Outcome, R: Replicates) -> Replicates | None:
+    """:func:`replicate_copies` of compact refit weights ``R`` kept compact (the copies as
+    counts with no scale: each block made in float64 is the float64 copies'), None where the
+    copies are not whole numbers held by ``R`` (float64 weights without a scale)."""
+    w = _base_weights(outcome)
+    if w is not None and _individuals(outcome):
+        return Replicates((R.counts > 0).astype(np.uint8))
+    if R.scale is not None or w is None:
+        if not np.issubdtype(R.counts.dtype, np.integer):
+            return None
+        return Replicates(R.counts)
+    return None
+
+
 def replicate_rows(outcome: Outcome, w_row: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
     """One replicate's drawn data set: the row indices (a row repeated as often as it is in the
     replicate) and the weights of those rows (None without weights); ``w_row`` one row of
@@ -336,10 +355,14 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: np.ndarray,
     return T
 
 
-def _mean_var(family: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
-    """The mean and the variance function at ``eta`` (None for the linear model's 1)."""
+def _mean_var(family: str, eta: np.ndarray, want_v: bool = True
+              ) -> tuple[np.ndarray, np.ndarray | None]:
+    """The mean and the variance function at ``eta`` (None for the linear model's 1, and
+    for the logistic one unless ``want_v``)."""
     if family == "binary":
-        mu = special.expit(eta)
+        mu = expit_into(eta, np.empty_like(eta))
+        if not want_v:
+            return mu, None
         v = np.subtract(1.0, mu)
         v *= mu  # mu (1 - mu)
         return mu, v
@@ -347,6 +370,18 @@ def _mean_var(family: str, eta: np.ndarray) -> tuple[np.ndarray, np.ndarray | No
         mu = np.exp(np.clip(eta, None, 700))
         return mu, mu
     return eta, None
+
+
+def expit_into(eta: np.ndarray, out: np.ndarray) -> np.ndarray:
+    """The logistic function ``1 / (1 + exp(-eta))`` written into ``out`` (which may be
+    ``eta``) by numpy's vectorised exponential, three times as fast as ``scipy.special.expit``
+    on large arrays; the values agree with it to within a few units in the last place
+    (relative 4e-16; an ``eta`` below about -709 gives 0)."""
+    np.negative(eta, out=out)
+    with np.errstate(over="ignore"):
+        np.exp(out, out=out)
+    out += 1.0
+    return np.reciprocal(out, out=out)
 
 
 def _row_blocks(n: int, replicates: int) -> Iterator[slice]:
@@ -408,6 +443,14 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
     T = np.tile(theta0, (C, 1))
     done = np.zeros(C, dtype=bool)
     size, before = np.full(C, np.inf), np.full(C, np.inf)  # the last two steps' sizes
+    pairs = np.empty((min(n, 8192), k))  # a row block's pairwise products z_i z_j, i <= j
+    cells: ModuleType | None = None  # from CELLS_FROM_ROWS rows: the per-cell work compiled
+    if v0 is not None and compiled.wanted(n, CELLS_FROM_ROWS):
+        from .compiled import glm_cells
+
+        cells = glm_cells
+
+        scale_c = np.zeros(0) if W.scale is None else np.ascontiguousarray(W.scale)
     for it in range(_MAX_NEWTON if family != "continuous" else 1):
         act = np.flatnonzero(~(done | bad))
         if act.size == 0:
@@ -422,7 +465,22 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
                 eta = Ta @ Zb.T
                 if shift:
                     eta += offset[sl]
-                mu, v = _mean_var(family, eta)
+                if cells is not None:  # the same values from one compiled pass
+                    wv = np.empty_like(eta) if fresh is not None else eta[:0]
+                    if family == "binary":
+                        np.negative(eta, out=eta)
+                        with np.errstate(over="ignore"):
+                            np.exp(eta, out=eta)
+                    else:
+                        np.minimum(eta, 700.0, out=eta)
+                        np.exp(eta, out=eta)
+                    cells.glm_cells(eta, y[sl], W.counts, act, sl.start, scale_c,
+                                    family == "binary", fresh is not None, eta, wv)
+                    score += eta @ Zb
+                    if fresh is not None:
+                        fresh += wv @ _pair_products(Zb, pairs)
+                    continue
+                mu, v = _mean_var(family, eta, fresh is not None)
                 Wb = W.block(act, sl)
                 # W (y - mu) and W v written over eta and v (the same products as fresh
                 # arrays; neither is read again)
@@ -432,7 +490,7 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
                 if fresh is not None:
                     assert v is not None
                     v *= Wb
-                    fresh += v @ (Zb[:, iu[0]] * Zb[:, iu[1]])
+                    fresh += v @ _pair_products(Zb, pairs)
             if fresh is not None:
                 H[act] = _unpack(fresh, q, iu)
         else:
@@ -453,6 +511,19 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
             bad[act] |= np.any((np.abs(eta) > 20) & (W.block(act, sl) > 0), axis=1)
     T[bad | ~done] = np.nan
     return T
+
+
+def _pair_products(Zb: np.ndarray, buf: np.ndarray) -> np.ndarray:
+    """The pairwise products ``Zb[:, i] * Zb[:, j]`` (i <= j, in ``np.triu_indices`` order) of
+    a block's rows, written into ``buf`` one column's run at a time (the values of
+    ``Zb[:, iu[0]] * Zb[:, iu[1]]`` without its two gathered copies)."""
+    nb, q = Zb.shape
+    out = buf[:nb]
+    at = 0
+    for i in range(q):
+        np.multiply(Zb[:, i:i + 1], Zb[:, i:], out=out[:, at:at + q - i])
+        at += q - i
+    return out
 
 
 def _unpack(flat: np.ndarray, q: int, iu: tuple[np.ndarray, np.ndarray]) -> np.ndarray:

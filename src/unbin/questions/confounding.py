@@ -81,6 +81,7 @@ from ..models.survival import cox_layout
 from ..models.weighted import (
     _CHUNK_CELLS,
     WeightedGLM,
+    compact_copies,
     cox_near_starts,
     cox_replicate_refits,
     design_resample_replicates,
@@ -334,13 +335,23 @@ class _Designs:
         at once, kept compact (``design_resample_replicates``: draw counts as small integers;
         the same draws from ``rng`` as drawing them in chunks, one replicate after another),
         each design refitted on all of them at once where the sample is large
-        (``WeightedGLM.whole``), else chunk by chunk; the standardised means chunk by
-        chunk."""
+        (``WeightedGLM.whole``), else chunk by chunk; the standardised means of a design
+        refitted at once in one blocked pass over the rows (``glm_means`` on the compact
+        copies), else chunk by chunk."""
         r, o = self.r, self.r.outcome
         R = design_resample_replicates(rng, o, replicates)
+        copies = compact_copies(o, R)  # the drawn rows' copies, compact (None: chunk by chunk)
         for key, it in ok:  # each design standardised once, for every chunk
             g = WeightedGLM(r.family, it.X, o, it.res.coef)
             whole = g.coef(R) if g.whole else None
+            # (the linear model's means need no exponential: they stay chunk by chunk, whose
+            # sums the confounding share's limits, a ratio of differences, are sensitive to)
+            if whole is not None and copies is not None and r.family != "continuous":
+                # every replicate's standardised means in one pass over the rows
+                cond[key][:] = whole[:, 1:1 + it.k] @ self._d(key)
+                marg[key][:] = glm_means(r.family, it.X, it.k, whole, it.at, copies, o.offset)
+                del g, whole
+                continue
             for c0 in range(0, replicates, chunk):
                 W = R.part(c0, c0 + chunk)
                 coef = g.coef(W) if whole is None else whole[c0:c0 + len(W)]

@@ -98,6 +98,7 @@ from ..models.weighted import (
     WeightedGLM,
     design_resample_replicates,
     design_resample_weights,
+    expit_into,
     replicate_rows,
     weighted_cox_designs,
 )
@@ -362,23 +363,33 @@ def pair_auc(y: np.ndarray, score: np.ndarray) -> float:
 
 def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence.
-    The 2 x 2 information and the score are five sums over the rows (no n x 2 design)."""
+    The 2 x 2 information and the score are five sums over the rows (no n x 2 design), taken
+    a block of ``_SLOPE_ROWS`` rows at a time so that each step's passes (b zc + a, expit,
+    mu (1 - mu), y - mu, w zc) stay in cache (the same sums to rounding)."""
     y = np.asarray(y, dtype=float)
     zc = np.asarray(z, dtype=float) - np.mean(z)
+    n = len(zc)
     a, b = float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6))), 1.0
-    # the rows' arrays made once and overwritten at each step (the same operations on the
-    # same values as fresh arrays: b zc + a, expit, mu (1 - mu), y - mu, w zc)
-    mu, w, r, wz = (np.empty_like(zc) for _ in range(4))
+    # a block's arrays made once and overwritten at each step
+    mu, w, r, wz = (np.empty(min(n, _SLOPE_ROWS)) for _ in range(4))
     for _ in range(50):
-        np.multiply(zc, b, out=mu)
-        mu += a
-        special.expit(mu, out=mu)
-        np.subtract(1.0, mu, out=w)
-        w *= mu
-        np.subtract(y, mu, out=r)
-        np.multiply(w, zc, out=wz)
-        h00, h01, h11 = float(w.sum()), float(wz.sum()), float(wz @ zc)
-        g0, g1 = float(r.sum()), float(r @ zc)
+        h00 = h01 = h11 = g0 = g1 = 0.0
+        for r0 in range(0, n, _SLOPE_ROWS):
+            zb, yb = zc[r0:r0 + _SLOPE_ROWS], y[r0:r0 + _SLOPE_ROWS]
+            m = len(zb)
+            mub, wb, rb, wzb = mu[:m], w[:m], r[:m], wz[:m]
+            np.multiply(zb, b, out=mub)
+            mub += a
+            expit_into(mub, mub)
+            np.subtract(1.0, mub, out=wb)
+            wb *= mub
+            np.subtract(yb, mub, out=rb)
+            np.multiply(wb, zb, out=wzb)
+            h00 += float(wb.sum())
+            h01 += float(wzb.sum())
+            h11 += float(wzb @ zb)
+            g0 += float(rb.sum())
+            g1 += float(rb @ zb)
         det = h00 * h11 - h01 * h01
         if not (np.isfinite(det) and det > 0):
             return float("nan")
@@ -387,6 +398,9 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
         if max(abs(s0), abs(s1)) < 1e-10:
             return b
     return float("nan")
+
+
+_SLOPE_ROWS = 32768  # rows of a block of the calibration slope's sums (5 arrays of 256 kB)
 
 
 def _log_base(on: _Sample, lp_m: np.ndarray, horizon: float, strata_all: np.ndarray | None,

@@ -51,6 +51,7 @@ from scipy import special
 
 from ..models.cox import Layout
 from ..models.cox.baseline import baseline_steps
+from ..models.weighted import Replicates, expit_into
 from .incidence_sum import interpolated_sums, shifted_sums
 from .risk import cumhaz_at, horizon_notes
 
@@ -58,6 +59,11 @@ from .risk import cumhaz_at, horizon_notes
 # horizon, is summed row by row (exact, and no dearer than the interpolation's nodes, of
 # which there are hundreds to thousands); larger ones are interpolated
 INTERPOLATE_ROWS = 500
+_BLOCK_CELLS = 1 << 17  # replicates x rows of a block of the GLM standardised means (1 MB)
+# from this many rows (the GLM bootstrap's large-sample refits, models.weighted._WHOLE_ROWS)
+# the standardised means are summed in row blocks with one exponential per row; below it row
+# by row as before
+BLOCKED_MEANS_FROM_ROWS = 50_000
 DIRECT_CELLS = 4e6
 
 
@@ -104,14 +110,76 @@ def on_model_scale(family: str, r1: np.ndarray, r0: np.ndarray) -> np.ndarray:
 
 
 def glm_means(family: str, X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
-              W: np.ndarray, offset: np.ndarray | None = None) -> np.ndarray:
+              W: np.ndarray | Replicates, offset: np.ndarray | None = None) -> np.ndarray:
     """Standardised means (module docstring) of the linear, logistic or Poisson model for each
     row of ``coef`` (shape (C, p + 1), intercept first, then X's columns; NaN rows give NaN)
-    with frequency weights ``W`` (shape (C, n)), at each exposure basis row in ``at`` (the
-    exposure is X's first ``k`` columns). Returns shape (C, len(at))."""
+    with frequency weights ``W`` (shape (C, n); float64 or compact,
+    ``unbin.models.weighted.Replicates``), at each exposure basis row in ``at`` (the
+    exposure is X's first ``k`` columns). Returns shape (C, len(at)). The rows are summed a
+    block at a time (the (C x rows) temporaries stay in cache), and one exponential of the
+    rows serves every exposure value: ``exp(rest + shift) = exp(rest) exp(shift)`` and
+    ``expit(rest + shift) = 1 / (1 + exp(-rest) exp(-shift))`` (the same means to rounding),
+    from ``BLOCKED_MEANS_FROM_ROWS`` rows or on compact weights; smaller samples are summed as
+    before (:func:`_glm_means_rowwise`)."""
     X = np.asarray(X, dtype=float)
     coef = np.atleast_2d(np.asarray(coef, dtype=float))
-    W = np.atleast_2d(np.asarray(W, dtype=float))
+    C, n = coef.shape[0], X.shape[0]
+    if (n < BLOCKED_MEANS_FROM_ROWS or family == "continuous") \
+            and not isinstance(W, Replicates):
+        return _glm_means_rowwise(family, X, k, coef, at, np.atleast_2d(np.asarray(W, float)),
+                                  offset)
+    R = W if isinstance(W, Replicates) else Replicates(np.atleast_2d(np.asarray(W, float)))
+    shifts = np.column_stack([coef[:, 1:1 + k] @ np.asarray(a, dtype=float) for a in at]
+                             ) if len(at) else np.zeros((C, 0))  # (C, J)
+    # person-time weights for counts; the rate itself is without the offset
+    time = np.exp(offset) if family == "count" and offset is not None else None
+    with np.errstate(over="ignore"):
+        factors = np.exp(-shifts) if family == "binary" else np.exp(shifts)
+    # a factor exp(-shift) of 0 or infinity, where 1 + exp(-rest) exp(-shift) could be
+    # undefined, takes the direct form expit(rest + shift)
+    direct = ~((factors > 0) & np.isfinite(factors))  # (C, J)
+    total = np.zeros(C)
+    sums = np.zeros((C, shifts.shape[1] if family != "count" else 1))
+    rows = max(1024, _BLOCK_CELLS // max(C, 1))
+    for r0 in range(0, n, rows):
+        sl = slice(r0, min(n, r0 + rows))
+        Wb = R.block(slice(None), sl)
+        if time is not None:
+            Wb *= time[sl]
+        total += Wb.sum(axis=1)
+        rest = coef[:, 1 + k:] @ X[sl, k:].T
+        rest += coef[:, :1]  # (C, rows): adjustment part, exposure left out
+        if family == "count":
+            with np.errstate(over="ignore"):
+                sums[:, 0] += np.einsum("cn,cn->c", Wb, np.exp(rest))
+            continue
+        if family != "binary":
+            for j in range(shifts.shape[1]):
+                sums[:, j] += np.einsum("cn,cn->c", Wb, rest + shifts[:, j:j + 1])
+            continue
+        with np.errstate(over="ignore"):
+            e_rest = np.exp(np.negative(rest))
+        mu = np.empty_like(rest)
+        for j in range(shifts.shape[1]):
+            np.multiply(e_rest, factors[:, j:j + 1], out=mu)
+            mu += 1.0
+            np.reciprocal(mu, out=mu)
+            odd = direct[:, j]
+            if odd.any():
+                mu[odd] = expit_into(rest[odd] + shifts[odd, j:j + 1], rest[odd])
+            sums[:, j] += np.einsum("cn,cn->c", Wb, mu)
+    with np.errstate(over="ignore", invalid="ignore"):
+        if family == "count":
+            return np.asarray(sums * factors / total[:, None])
+        return np.asarray(sums / total[:, None])
+
+
+def _glm_means_rowwise(family: str, X: np.ndarray, k: int, coef: np.ndarray,
+                       at: Sequence[np.ndarray], W: np.ndarray,
+                       offset: np.ndarray | None) -> np.ndarray:
+    """:func:`glm_means` below ``BLOCKED_MEANS_FROM_ROWS`` rows: each exposure value's means
+    from the whole (C x n) arrays, the mean by ``scipy.special.expit`` (the small samples' and
+    the demo's numbers bit for bit as before the blocked form)."""
     rest = X[:, k:] @ coef[:, 1 + k:].T  # (n, C): adjustment part, exposure left out
     rest = rest.T + coef[:, :1]  # (C, n)
     if family == "count" and offset is not None:
