@@ -53,25 +53,53 @@ _PASS_ROWS = 1 << 13  # rows per block of one likelihood pass (a few hundred kB)
 # columns. (The Gram's eigenvalues are the squared singular values, accurate to about
 # eps * largest, so 1e-10 leaves a wide margin.)
 _GRAM_RCOND = 1e-10
+_START_VARIANCE = 0.1875  # mu (1 - mu) at the logistic start's mu = 1/4 and 3/4
 
 
 def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``[1, (X - mean) / sd]`` written straight into one array (no (n, p) temporaries). The
     scale comes from the raw second moments (one pass): it only conditions the problem, and
     the estimates are mapped back with the very values used."""
+    Z, mean, sd, _ = _standardised(X, False)
+    return Z, mean, sd
+
+
+def standardise_with_gram(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray,
+                                                   np.ndarray]:
+    """``standardise(X)`` and the cross-product matrix ``Z'Z`` of its result, accumulated
+    block by block while each block of ``Z`` is still in cache (a separate ``gram(Z)`` reads
+    the whole of ``Z`` again: at a million rows that pass cost more than the copy itself)."""
+    Z, mean, sd, G = _standardised(X, True)
+    assert G is not None
+    return Z, mean, sd, G
+
+
+def _standardised(X: np.ndarray, with_gram: bool,
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
     n, p = X.shape
     Z = np.empty((n, p + 1))
-    Z[:, 0] = 1.0
+    G = np.zeros((p + 1, p + 1)) if with_gram else None
     if p == 0 or n == 0:
-        return Z, np.zeros(p), np.ones(p)
+        Z[:, 0] = 1.0
+        if G is not None:
+            G[0, 0] = float(n)
+        return Z, np.zeros(p), np.ones(p), G
     mean = (np.ones(n) @ X) / n
     var = np.einsum("ij,ij->j", X, X) / n - mean * mean
     # a column whose variance is lost in the rounding of its mean is constant: left unscaled
     sd = np.where(var > 1e-13 * np.maximum(mean * mean, 1e-300), np.sqrt(np.abs(var)), 1.0)
-    Zs = Z[:, 1:]
-    np.subtract(X, mean, out=Zs)
-    Zs *= 1.0 / sd
-    return Z, mean, sd
+    inv = 1.0 / sd
+    # in blocks of rows: the scaling (and the Gram) finds each block still in cache; every
+    # element gets the same two operations as on the whole array at once
+    for r0 in range(0, n, _PASS_ROWS):
+        Zb = Z[r0:r0 + _PASS_ROWS]
+        Zb[:, 0] = 1.0
+        Zs = Zb[:, 1:]
+        np.subtract(X[r0:r0 + _PASS_ROWS], mean, out=Zs)
+        Zs *= inv
+        if G is not None:
+            G += Zb.T @ Zb
+    return Z, mean, sd, G
 
 
 def back_transform(theta_s: np.ndarray, cov_s: np.ndarray, mean: np.ndarray,
@@ -94,14 +122,17 @@ def gram(Z: np.ndarray, v: np.ndarray | None = None) -> np.ndarray:
     return G
 
 
-def check_design(X: np.ndarray, names: tuple[str, ...], Z: np.ndarray | None = None) -> str:
+def check_design(X: np.ndarray, names: tuple[str, ...], Z: np.ndarray | None = None,
+                 G: np.ndarray | None = None) -> str:
     """A message naming the collinear columns, or '' when the design has full rank.
-    ``Z`` is ``standardise(X)[0]`` when the caller has it already."""
+    ``Z`` is ``standardise(X)[0]`` when the caller has it already, ``G`` its ``gram(Z)``."""
     if X.shape[1] == 0:
         return ""
     if Z is None:
         Z, _, _ = standardise(X)
-    eig = np.linalg.eigvalsh(gram(Z) / max(Z.shape[0], 1))
+    if G is None:
+        G = gram(Z)
+    eig = np.linalg.eigvalsh(G / max(Z.shape[0], 1))
     if eig[0] > _GRAM_RCOND * eig[-1]:
         return ""
     rank = np.linalg.matrix_rank(Z)
@@ -169,11 +200,15 @@ class _Family:
             H += (Zb * v[:, None]).T @ Zb
         return ll, score, H
 
-    def start(self) -> np.ndarray:
+    def start(self, G: np.ndarray | None = None) -> np.ndarray:
         """Starting coefficients. Logistic: the weighted least-squares step from the customary
         starting means, mu = (y + 1/2) / 2. Poisson: the intercept-only estimate with the
         offset, log(sum y / sum e^offset), other coefficients 0 (the customary start ignores
-        the offset and, with person-time offsets, costs several more steps)."""
+        the offset and, with person-time offsets, costs several more steps).
+
+        ``G``: ``gram(Z)``, when the caller has it. Without frequency weights every 0/1
+        outcome's starting variance is 3/16, so the step's information is ``3/16 G`` and
+        no pass over the rows is needed for it."""
         Z, y, freq = self.Z, self.y, self.freq
         if not self.binary:
             theta = np.zeros(Z.shape[1])
@@ -186,7 +221,11 @@ class _Family:
         eta0 = np.log(mu / (1.0 - mu))
         v = mu * (1.0 - mu)
         freq_v = v if freq is None else freq * v
-        factor = _cholesky(gram(Z, freq_v))
+        if G is not None and freq is None and np.all(v == _START_VARIANCE):
+            info = _START_VARIANCE * G
+        else:
+            info = gram(Z, freq_v)
+        factor = _cholesky(info)
         if factor is None:
             return np.full(Z.shape[1], np.nan)
         resid = y - mu if freq is None else freq * (y - mu)
@@ -207,12 +246,14 @@ def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
 
 
 def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-            freq: np.ndarray | None, const: float | None = None) -> _Solution:
-    """Maximum likelihood of the logistic or Poisson model on the standardised design."""
+            freq: np.ndarray | None, const: float | None = None,
+            G: np.ndarray | None = None) -> _Solution:
+    """Maximum likelihood of the logistic or Poisson model on the standardised design
+    (``G``: ``gram(Z)`` when the caller has it; see ``_Family.start``)."""
     model = _Family(family, Z, y, off, freq, const)
     k = Z.shape[1]
     nan = _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0, "")
-    theta = model.start()
+    theta = model.start(G)
     if not np.all(np.isfinite(theta)):
         nan.message = "the information matrix is singular at the start; check the design."
         return nan
@@ -256,11 +297,13 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
                      "sparse groups.")
 
 
-def _least_squares(Z: np.ndarray, y: np.ndarray, freq: np.ndarray | None) -> _Solution:
+def _least_squares(Z: np.ndarray, y: np.ndarray, freq: np.ndarray | None,
+                   G: np.ndarray | None = None) -> _Solution:
     """The linear model by maximum likelihood (residual variance RSS / N), with the usual
-    unbiased ``RSS / (N - p)`` in the covariance; frequency weights count as repeated rows."""
+    unbiased ``RSS / (N - p)`` in the covariance; frequency weights count as repeated rows.
+    ``G``: ``gram(Z)`` if the caller has it (the cross-product matrix without weights)."""
     k = Z.shape[1]
-    factor = _cholesky(gram(Z, freq))
+    factor = _cholesky(G if G is not None and freq is None else gram(Z, freq))
     if factor is None:
         return _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0,
                          "the design's cross-product matrix is singular; check the design.")
@@ -282,21 +325,23 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
     """Fit one linear, logistic or Poisson model and record failures as a failed FitResult."""
     all_names = (INTERCEPT, *names)
     n = outcome.n
-    Z, mean, sd = standardise(X)  # once: the rank check and the fit share it
-    problem = check_design(X, names, Z)
+    # once: the rank check and the fit share the standardised design and its Gram (the
+    # logistic start's information is 3/16 of it, least squares' cross-product matrix)
+    Z, mean, sd, G = standardise_with_gram(X)
+    problem = check_design(X, names, Z, G)
     if problem:
         return failed_fit(family, all_names, n, events, problem)
     y = np.asarray(outcome.y, dtype=float)
     freq = None if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
     if family == "continuous":
-        sol = _least_squares(Z, y, freq)
+        sol = _least_squares(Z, y, freq, G)
     else:
         const = None
         if family == "count":  # the same for every fit of this outcome
             const = outcome.cache.get("poisson_constant")
             if const is None:
                 const = outcome.cache["poisson_constant"] = poisson_constant(y, freq)
-        sol = _newton(family, Z, y, outcome.offset, freq, const)
+        sol = _newton(family, Z, y, outcome.offset, freq, const, G)
     if separation_check is not None and np.all(np.isfinite(sol.theta)):
         sep = separation_check(Z @ sol.theta)
         if sep:
