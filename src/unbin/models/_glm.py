@@ -342,8 +342,13 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
             if const is None:
                 const = outcome.cache["poisson_constant"] = poisson_constant(y, freq)
         sol = _newton(family, Z, y, outcome.offset, freq, const, G)
+    lp: np.ndarray | None = None
     if separation_check is not None and np.all(np.isfinite(sol.theta)):
-        sep = separation_check(Z @ sol.theta)
+        # the check reads the linear predictor the result keeps, plus the intercept (Z theta_s
+        # to rounding): one product with the rows instead of two
+        coef = back_transform(sol.theta, sol.cov, mean, sd)[0]
+        lp = X @ coef[1:]
+        sep = separation_check(lp + coef[0])
         if sep:
             return failed_fit(family, all_names, n, events, sep)
     if sol.message:
@@ -356,6 +361,6 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
     return FitResult(
         family=family, names=all_names, coef=theta, cov=cov, loglik=sol.loglik, n=n,
         events=events, n_params=len(all_names) + n_extra_params, converged=True,
-        iterations=sol.iterations, linear_predictor=X @ theta[1:],
+        iterations=sol.iterations, linear_predictor=X @ theta[1:] if lp is None else lp,
         extra={"intercept": float(theta[0])},
     )
