@@ -168,9 +168,12 @@ class _Family:
     information at one linear predictor, for the logistic or the Poisson model."""
 
     def __init__(self, family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-                 freq: np.ndarray | None, const: float | None = None):
+                 freq: np.ndarray | None, const: float | None = None,
+                 cols: np.ndarray | None = None):
+        """``cols``: the evaluations use only these columns of ``Z``, gathered one block of
+        rows at a time (the same blocks, hence the same numbers, as on ``Z[:, cols]``)."""
         self.binary = family == "binary"
-        self.Z, self.y, self.off, self.freq = Z, y, off, freq
+        self.Z, self.y, self.off, self.freq, self.cols = Z, y, off, freq, cols
         self.const = 0.0
         if not self.binary:  # the log(y!) term of the Poisson log-likelihood
             self.const = poisson_constant(y, freq) if const is None else const
@@ -187,13 +190,15 @@ class _Family:
 
     def _pass(self, theta: np.ndarray, information: bool,
               ) -> tuple[float, np.ndarray, np.ndarray | None]:
-        Z, y, off, freq = self.Z, self.y, self.off, self.freq
-        n, k = Z.shape
+        Z, y, off, freq, cols = self.Z, self.y, self.off, self.freq, self.cols
+        n, k = Z.shape[0], Z.shape[1] if cols is None else cols.size
         ll, score = self.const, np.zeros(k)
         H = np.zeros((k, k)) if information else None
         for r0 in range(0, n, _PASS_ROWS):
             r1 = min(n, r0 + _PASS_ROWS)
             Zb, yb = Z[r0:r1], y[r0:r1]
+            if cols is not None:
+                Zb = np.take(Zb, cols, axis=1)
             eta = Zb @ theta
             if off is not None:
                 eta += off[r0:r1]
@@ -228,6 +233,7 @@ class _Family:
         outcome's starting variance is 3/16, so the step's information is ``3/16 G`` and
         no pass over the rows is needed for it."""
         Z, y, freq = self.Z, self.y, self.freq
+        assert self.cols is None, "the start is made on whole designs"
         if not self.binary:
             theta = np.zeros(Z.shape[1])
             t = np.ones_like(y) if self.off is None else np.exp(self.off)
@@ -248,6 +254,16 @@ class _Family:
             return np.full(Z.shape[1], np.nan)
         resid = y - mu if freq is None else freq * (y - mu)
         return linalg.cho_solve(factor, Z.T @ (freq_v * eta0 + resid))
+
+
+def gathered_range(Z: np.ndarray, cols: np.ndarray, coef: np.ndarray) -> tuple[float, float]:
+    """The smallest and largest value of ``Z[:, cols] @ coef``, one block of rows at a time
+    (no copy of the columns)."""
+    lo, hi = np.inf, -np.inf
+    for r0 in range(0, Z.shape[0], _PASS_ROWS):
+        values = np.take(Z[r0:r0 + _PASS_ROWS], cols, axis=1) @ coef
+        lo, hi = min(lo, float(values.min())), max(hi, float(values.max()))
+    return lo, hi
 
 
 def poisson_constant(y: np.ndarray, freq: np.ndarray | None = None) -> float:
