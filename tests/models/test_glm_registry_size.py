@@ -1,6 +1,6 @@
 """The GLM solver's registry-size paths (unbin.models._glm): the standardised design written in
-row blocks with its cross-product matrix accumulated on the way (the rank check, the logistic
-start, 3/16 of it without weights, and least squares use that one matrix), and the logistic
+row blocks with its cross-product matrix accumulated on the way (the rank check and least
+squares use that one matrix), and the logistic
 and Poisson fits started at a subsample's estimate from ``SUBSAMPLE_FROM`` rows. Fits on
 several row blocks (more rows than ``_PASS_ROWS``, not a multiple of it) against statsmodels,
 and the subsample-started fits (forced on with a low threshold) against the fits from the
@@ -13,9 +13,9 @@ import pytest
 import statsmodels.api as sm
 
 from unbin.models import Outcome, _glm, fit
-from unbin.models._glm import _PASS_ROWS, check_design, gram, standardise, standardise_with_gram
+from unbin.models._glm import _BLOCK_ROWS, check_design, gram, standardise, standardise_with_gram
 
-N = 2 * _PASS_ROWS + 1234  # three row blocks, the last one partial
+N = 2 * _BLOCK_ROWS + 1234  # three row blocks of the Gram (12 of an evaluation), one partial
 
 
 def _design(seed: int, n: int = N) -> np.ndarray:
@@ -35,7 +35,7 @@ TRUTH = np.array([-2.0, -0.05, 0.02, 0.015, -0.2, 0.1, -0.15])  # intercept, the
 def test_blocked_standardise_and_its_gram() -> None:
     # Definition: Z = [1, (X - mean) / sd] elementwise (the same two operations per element as
     # on the whole array at once, so the same numbers), and G = Z'Z (numpy's product of the
-    # whole matrix, to rounding).
+    # whole matrix, to rounding; the very numbers of gram(Z), whose blocks it shares).
     X = _design(1)
     Z, mean, sd, G = standardise_with_gram(X)
     np.testing.assert_array_equal(Z[:, 0], 1.0)
@@ -45,7 +45,7 @@ def test_blocked_standardise_and_its_gram() -> None:
     np.testing.assert_array_equal(Z[:, 1:], whole)
     np.testing.assert_array_equal(standardise(X)[0], Z)
     np.testing.assert_allclose(G, Z.T @ Z, rtol=1e-12, atol=1e-9)
-    np.testing.assert_allclose(G, gram(Z), rtol=1e-12, atol=1e-9)
+    np.testing.assert_array_equal(G, gram(Z))
     # no columns: the intercept's Gram is the row count
     Z0, _, _, G0 = standardise_with_gram(np.empty((5, 0)))
     np.testing.assert_array_equal(Z0, np.ones((5, 1)))
@@ -213,3 +213,28 @@ def test_evaluations_on_gathered_columns_equal_those_on_their_copy(case: str) ->
                  freq_weights=out.weights)
     np.testing.assert_allclose(gathered[1], ref.score(theta), rtol=1e-9, atol=1e-8)
     np.testing.assert_allclose(gathered[2], -ref.hessian(theta), rtol=1e-9, atol=1e-8)
+
+
+def test_a_misleading_subsample_falls_back_to_the_family_start(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    # Reference library: statsmodels GLM (Binomial). A group whose rows in the subsample (every
+    # 16th row) have no events, but a quarter of events elsewhere: the subsample's estimate of
+    # its coefficient runs off towards minus infinity, the full sample's first step from there
+    # is far beyond _WARM_STEP_LIMIT, and the fit restarts from the family's start, reaching
+    # statsmodels' estimate.
+    X = _design(10)
+    i = np.arange(N)
+    group = (i % 8 == 0).astype(float)
+    X = np.column_stack([X, group])
+    out = _outcomes(10)["binary"]
+    rng = np.random.default_rng(11)
+    y = np.where(i % 16 == 0, 0.0, np.where(i % 16 == 8, (rng.random(N) < 0.5) * 1.0, out.y))
+    monkeypatch.setattr(_glm, "SUBSAMPLE_FROM", 1000)
+    assert not y[::_glm.SUBSAMPLE_STRIDE][group[::_glm.SUBSAMPLE_STRIDE] == 1].any()
+    restarts = []
+    start = _glm._Family.start
+    monkeypatch.setattr(_glm._Family, "start",
+                        lambda self: restarts.append(self.Z.shape[0]) or start(self))
+    res = fit("binary", X, Outcome("binary", y), (*NAMES, "group"))
+    assert restarts[-1] == N  # the full sample's own start was made after the subsample's
+    _agrees_with_statsmodels(res, _statsmodels("binary", X, y))

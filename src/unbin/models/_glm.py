@@ -53,12 +53,14 @@ _PASS_ROWS = 1 << 13  # rows per block of one likelihood pass (a few hundred kB)
 # columns. (The Gram's eigenvalues are the squared singular values, accurate to about
 # eps * largest, so 1e-10 leaves a wide margin.)
 _GRAM_RCOND = 1e-10
-_START_VARIANCE = 0.1875  # mu (1 - mu) at the logistic start's mu = 1/4 and 3/4
 # From this many rows the logistic and Poisson fits start at the estimate of every
 # SUBSAMPLE_STRIDE-th row (``_subsample_start``; measured in DEVELOPERS.md, "The fit job at
 # registry size"); below it, at the family's start, as before.
 SUBSAMPLE_FROM = 100_000
 SUBSAMPLE_STRIDE = 16
+# A first full-sample step from the subsample's estimate larger than this (standardised scale;
+# its sampling error is a few hundredths) means the subsample misled: the usual start instead.
+_WARM_STEP_LIMIT = 0.5
 
 
 def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -95,12 +97,13 @@ def _standardised(X: np.ndarray, with_gram: bool,
     sd = np.where(var > 1e-13 * np.maximum(mean * mean, 1e-300), np.sqrt(np.abs(var)), 1.0)
     inv = 1.0 / sd
     # in blocks of rows: the scaling (and the Gram) finds each block still in cache; every
-    # element gets the same two operations as on the whole array at once
-    for r0 in range(0, n, _PASS_ROWS):
-        Zb = Z[r0:r0 + _PASS_ROWS]
+    # element gets the same two operations as on the whole array at once, and the Gram the
+    # same products of the same blocks as ``gram(Z)``, so the same numbers
+    for r0 in range(0, n, _BLOCK_ROWS):
+        Zb = Z[r0:r0 + _BLOCK_ROWS]
         Zb[:, 0] = 1.0
         Zs = Zb[:, 1:]
-        np.subtract(X[r0:r0 + _PASS_ROWS], mean, out=Zs)
+        np.subtract(X[r0:r0 + _BLOCK_ROWS], mean, out=Zs)
         Zs *= inv
         if G is not None:
             G += Zb.T @ Zb
@@ -223,15 +226,11 @@ class _Family:
                 H += (Zb * v[:, None]).T @ Zb
         return ll, score, H
 
-    def start(self, G: np.ndarray | None = None) -> np.ndarray:
+    def start(self) -> np.ndarray:
         """Starting coefficients. Logistic: the weighted least-squares step from the customary
         starting means, mu = (y + 1/2) / 2. Poisson: the intercept-only estimate with the
         offset, log(sum y / sum e^offset), other coefficients 0 (the customary start ignores
-        the offset and, with person-time offsets, costs several more steps).
-
-        ``G``: ``gram(Z)``, when the caller has it. Without frequency weights every 0/1
-        outcome's starting variance is 3/16, so the step's information is ``3/16 G`` and
-        no pass over the rows is needed for it."""
+        the offset and, with person-time offsets, costs several more steps)."""
         Z, y, freq = self.Z, self.y, self.freq
         assert self.cols is None, "the start is made on whole designs"
         if not self.binary:
@@ -245,11 +244,7 @@ class _Family:
         eta0 = np.log(mu / (1.0 - mu))
         v = mu * (1.0 - mu)
         freq_v = v if freq is None else freq * v
-        if G is not None and freq is None and np.all(v == _START_VARIANCE):
-            info = _START_VARIANCE * G
-        else:
-            info = gram(Z, freq_v)
-        factor = _cholesky(info)
+        factor = _cholesky(gram(Z, freq_v))
         if factor is None:
             return np.full(Z.shape[1], np.nan)
         resid = y - mu if freq is None else freq * (y - mu)
@@ -305,9 +300,8 @@ def _subsample_start(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray 
 
 def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
             freq: np.ndarray | None, const: float | None = None,
-            G: np.ndarray | None = None, subsample: bool = True) -> _Solution:
-    """Maximum likelihood of the logistic or Poisson model on the standardised design
-    (``G``: ``gram(Z)`` when the caller has it; see ``_Family.start``). From
+            subsample: bool = True) -> _Solution:
+    """Maximum likelihood of the logistic or Poisson model on the standardised design. From
     ``SUBSAMPLE_FROM`` rows the iteration starts at a subsample's estimate
     (``_subsample_start``); the stopping rule is the same, so the estimate is the same maximum
     (to the rule's tolerance) and the covariance the information's at the final iterate."""
@@ -317,7 +311,7 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
     warm = None
     if subsample and Z.shape[0] >= SUBSAMPLE_FROM:
         warm = _subsample_start(family, Z, y, off, freq)
-    theta = model.start(G) if warm is None else warm[0]
+    theta = model.start() if warm is None else warm[0]
     if not np.all(np.isfinite(theta)):
         nan.message = "the information matrix is singular at the start; check the design."
         return nan
@@ -328,11 +322,13 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
             # subsample's scaled information (never the last step: the covariance and the
             # stopping rule use the full sample's own information at later iterates)
             ll, score = model.evaluate_score(theta)
-            if np.isfinite(ll):
-                step = warm[1] @ score
+            step = warm[1] @ score
+            if np.isfinite(ll) and float(np.max(np.abs(step))) <= _WARM_STEP_LIMIT:
                 ll_prev, theta = ll, theta + step
                 continue
-            warm, theta = None, model.start(G)  # the subsample's estimate overflows here
+            # the subsample's estimate overflows here, or is far from the full sample's (e.g.
+            # a diverging coefficient where the subsample is separated): the usual start
+            warm, theta = None, model.start()
             if not np.all(np.isfinite(theta)):
                 nan.message = "the information matrix is singular at the start; check the design."
                 return nan
@@ -402,8 +398,8 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
     """Fit one linear, logistic or Poisson model and record failures as a failed FitResult."""
     all_names = (INTERCEPT, *names)
     n = outcome.n
-    # once: the rank check and the fit share the standardised design and its Gram (the
-    # logistic start's information is 3/16 of it, least squares' cross-product matrix)
+    # once: the rank check and the fit share the standardised design and its Gram (least
+    # squares' cross-product matrix too)
     Z, mean, sd, G = standardise_with_gram(X)
     problem = check_design(X, names, Z, G)
     if problem:
@@ -418,7 +414,7 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
             const = outcome.cache.get("poisson_constant")
             if const is None:
                 const = outcome.cache["poisson_constant"] = poisson_constant(y, freq)
-        sol = _newton(family, Z, y, outcome.offset, freq, const, G)
+        sol = _newton(family, Z, y, outcome.offset, freq, const)
     lp: np.ndarray | None = None
     if separation_check is not None and np.all(np.isfinite(sol.theta)):
         # the check reads the linear predictor the result keeps, plus the intercept (Z theta_s
