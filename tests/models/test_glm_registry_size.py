@@ -1,10 +1,8 @@
 """The GLM solver's registry-size paths (unbin.models._glm): the standardised design written in
 row blocks with its cross-product matrix accumulated on the way (the rank check and least
-squares use that one matrix), and the logistic
-and Poisson fits started at a subsample's estimate from ``SUBSAMPLE_FROM`` rows. Fits on
-several row blocks (more rows than ``_PASS_ROWS``, not a multiple of it) against statsmodels,
-and the subsample-started fits (forced on with a low threshold) against the fits from the
-family's start."""
+squares use that one matrix), and the FP screen's evaluations on a candidate's columns gathered
+block by block. Fits on several row blocks (more rows than ``_BLOCK_ROWS``, not a multiple of
+it) against statsmodels."""
 
 from __future__ import annotations
 
@@ -133,59 +131,6 @@ def test_intercept_only_logistic_fit_is_the_log_odds() -> None:
     assert res.cov[0, 0] == pytest.approx(1.0 / (N * p * (1 - p)), rel=1e-10)
 
 
-@pytest.mark.parametrize("case", ["binary", "binary-weighted", "count", "count-weighted"])
-def test_fits_from_a_subsample_start_equal_fits_from_the_family_start(
-        case: str, monkeypatch: pytest.MonkeyPatch) -> None:
-    # Reference library: statsmodels GLM (Binomial; Poisson with log person-time offset; with
-    # freq_weights). The fit started at every 16th row's estimate (the threshold lowered so
-    # this sample takes that path) reaches the same maximum as the fit from the family's own
-    # start, to the stopping rule's tolerance.
-    X = _design(7)
-    out = _outcomes(7)[case]
-    family = out.family
-    evaluations = {"score": 0, "full": 0}
-    full_pass = _glm._Family._pass
-
-    def counted(self: _glm._Family, theta: np.ndarray, information: bool):  # type: ignore[no-untyped-def]
-        if self.Z.shape[0] == N:
-            evaluations["full" if information else "score"] += 1
-        return full_pass(self, theta, information)
-
-    monkeypatch.setattr(_glm._Family, "_pass", counted)
-    plain = fit(family, X, out, NAMES)
-    assert evaluations["score"] == 0 and evaluations["full"] >= 3
-    monkeypatch.setattr(_glm, "SUBSAMPLE_FROM", 1000)
-    evaluations.update(score=0, full=0)
-    warm = fit(family, X, out, NAMES)
-    # the path taken: the first step from the full score and the subsample's information
-    # (fewer evaluations only pay at registry size: benchmarks, not tests)
-    assert evaluations["score"] == 1 and evaluations["full"] >= 2
-    assert plain.ok and warm.ok, (plain.message, warm.message)
-    np.testing.assert_allclose(warm.coef, plain.coef, rtol=1e-9, atol=1e-11)
-    np.testing.assert_allclose(warm.cov, plain.cov, rtol=1e-7, atol=1e-14)
-    assert warm.loglik == pytest.approx(plain.loglik, rel=1e-13)
-    _agrees_with_statsmodels(warm, _statsmodels(family, X, out.y, offset=out.offset,
-                                                freq=out.weights))
-
-
-def test_a_subsample_that_cannot_be_fitted_falls_back_to_the_family_start(
-        monkeypatch: pytest.MonkeyPatch) -> None:
-    # Reference library: statsmodels GLM (Binomial). A rare indicator that is 1 only on rows
-    # the subsample skips (every 16th row is taken) leaves the subsample's design singular: the
-    # fit starts as usual and still reaches statsmodels' estimate.
-    X = _design(8)
-    rare = np.zeros(N)
-    rare[np.arange(N) % 16 == 3] = 1.0
-    rare[np.arange(N) % 64 != 3] = 0.0
-    X = np.column_stack([X, rare])
-    out = _outcomes(8)["binary"]
-    monkeypatch.setattr(_glm, "SUBSAMPLE_FROM", 1000)
-    rows = slice(None, None, _glm.SUBSAMPLE_STRIDE)
-    assert not X[rows, -1].any()  # precondition: the subsample has no row of the indicator
-    _agrees_with_statsmodels(fit("binary", X, out, (*NAMES, "rare")),
-                             _statsmodels("binary", X, out.y))
-
-
 @pytest.mark.parametrize("case", ["binary", "count-weighted"])
 def test_evaluations_on_gathered_columns_equal_those_on_their_copy(case: str) -> None:
     # Definition (the FP screen's candidates): evaluating a subset of the columns gathered one
@@ -213,28 +158,3 @@ def test_evaluations_on_gathered_columns_equal_those_on_their_copy(case: str) ->
                  freq_weights=out.weights)
     np.testing.assert_allclose(gathered[1], ref.score(theta), rtol=1e-9, atol=1e-8)
     np.testing.assert_allclose(gathered[2], -ref.hessian(theta), rtol=1e-9, atol=1e-8)
-
-
-def test_a_misleading_subsample_falls_back_to_the_family_start(
-        monkeypatch: pytest.MonkeyPatch) -> None:
-    # Reference library: statsmodels GLM (Binomial). A group whose rows in the subsample (every
-    # 16th row) have no events, but a quarter of events elsewhere: the subsample's estimate of
-    # its coefficient runs off towards minus infinity, the full sample's first step from there
-    # is far beyond _WARM_STEP_LIMIT, and the fit restarts from the family's start, reaching
-    # statsmodels' estimate.
-    X = _design(10)
-    i = np.arange(N)
-    group = (i % 8 == 0).astype(float)
-    X = np.column_stack([X, group])
-    out = _outcomes(10)["binary"]
-    rng = np.random.default_rng(11)
-    y = np.where(i % 16 == 0, 0.0, np.where(i % 16 == 8, (rng.random(N) < 0.5) * 1.0, out.y))
-    monkeypatch.setattr(_glm, "SUBSAMPLE_FROM", 1000)
-    assert not y[::_glm.SUBSAMPLE_STRIDE][group[::_glm.SUBSAMPLE_STRIDE] == 1].any()
-    restarts = []
-    start = _glm._Family.start
-    monkeypatch.setattr(_glm._Family, "start",
-                        lambda self: restarts.append(self.Z.shape[0]) or start(self))
-    res = fit("binary", X, Outcome("binary", y), (*NAMES, "group"))
-    assert restarts[-1] == N  # the full sample's own start was made after the subsample's
-    _agrees_with_statsmodels(res, _statsmodels("binary", X, y))

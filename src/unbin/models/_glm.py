@@ -53,14 +53,6 @@ _PASS_ROWS = 1 << 13  # rows per block of one likelihood pass (a few hundred kB)
 # columns. (The Gram's eigenvalues are the squared singular values, accurate to about
 # eps * largest, so 1e-10 leaves a wide margin.)
 _GRAM_RCOND = 1e-10
-# From this many rows the logistic and Poisson fits start at the estimate of every
-# SUBSAMPLE_STRIDE-th row (``_subsample_start``; measured in DEVELOPERS.md, "The fit job at
-# registry size"); below it, at the family's start, as before.
-SUBSAMPLE_FROM = 100_000
-SUBSAMPLE_STRIDE = 16
-# A first full-sample step from the subsample's estimate larger than this (standardised scale;
-# its sampling error is a few hundredths) means the subsample misled: the usual start instead.
-_WARM_STEP_LIMIT = 0.5
 
 
 def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -182,21 +174,9 @@ class _Family:
             self.const = poisson_constant(y, freq) if const is None else const
 
     def evaluate(self, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
-        ll, score, H = self._pass(theta, True)
-        assert H is not None
-        return ll, score, H
-
-    def evaluate_score(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
-        """The log-likelihood and score only (the information's products skipped)."""
-        ll, score, _ = self._pass(theta, False)
-        return ll, score
-
-    def _pass(self, theta: np.ndarray, information: bool,
-              ) -> tuple[float, np.ndarray, np.ndarray | None]:
         Z, y, off, freq, cols = self.Z, self.y, self.off, self.freq, self.cols
         n, k = Z.shape[0], Z.shape[1] if cols is None else cols.size
-        ll, score = self.const, np.zeros(k)
-        H = np.zeros((k, k)) if information else None
+        ll, score, H = self.const, np.zeros(k), np.zeros((k, k))
         for r0 in range(0, n, _PASS_ROWS):
             r1 = min(n, r0 + _PASS_ROWS)
             Zb, yb = Z[r0:r1], y[r0:r1]
@@ -222,8 +202,7 @@ class _Family:
                 terms, resid, v = freq_b * terms, freq_b * resid, freq_b * v
             ll += float(terms.sum())
             score += Zb.T @ resid
-            if H is not None:
-                H += (Zb * v[:, None]).T @ Zb
+            H += (Zb * v[:, None]).T @ Zb
         return ll, score, H
 
     def start(self) -> np.ndarray:
@@ -274,64 +253,18 @@ def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
         return None
 
 
-def _subsample_start(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-                     freq: np.ndarray | None) -> tuple[np.ndarray, np.ndarray] | None:
-    """The maximum on every ``SUBSAMPLE_STRIDE``-th row and the inverse of its information
-    scaled to the full sample. The estimate is within the subsample's sampling error (a few
-    hundredths on the standardised scale at the threshold) of the full sample's, where Newton's
-    method converges quadratically, and the scaled information is the full sample's there to
-    about the same relative error: the full sample's first step needs only its score, and
-    the full sample then needs about one evaluation fewer than from the family's start; the
-    subsample's own iterations cost a sixteenth each. None where the subsample's fit fails
-    (the family's start is then used)."""
-    rows = slice(None, None, SUBSAMPLE_STRIDE)
-    sub_y = y[rows]
-    sub_freq = None if freq is None else freq[rows]
-    sol = _newton(family, np.ascontiguousarray(Z[rows]), sub_y,
-                  None if off is None else off[rows], sub_freq, const=0.0, subsample=False)
-    if sol.message or not (np.all(np.isfinite(sol.theta)) and np.all(np.isfinite(sol.cov))):
-        return None
-    full = float(y.size if freq is None else freq.sum())
-    part = float(sub_y.size if sub_freq is None else sub_freq.sum())
-    if not part > 0:
-        return None
-    return sol.theta, sol.cov * (part / full)
-
-
 def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-            freq: np.ndarray | None, const: float | None = None,
-            subsample: bool = True) -> _Solution:
-    """Maximum likelihood of the logistic or Poisson model on the standardised design. From
-    ``SUBSAMPLE_FROM`` rows the iteration starts at a subsample's estimate
-    (``_subsample_start``); the stopping rule is the same, so the estimate is the same maximum
-    (to the rule's tolerance) and the covariance the information's at the final iterate."""
+            freq: np.ndarray | None, const: float | None = None) -> _Solution:
+    """Maximum likelihood of the logistic or Poisson model on the standardised design."""
     model = _Family(family, Z, y, off, freq, const)
     k = Z.shape[1]
     nan = _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0, "")
-    warm = None
-    if subsample and Z.shape[0] >= SUBSAMPLE_FROM:
-        warm = _subsample_start(family, Z, y, off, freq)
-    theta = model.start() if warm is None else warm[0]
+    theta = model.start()
     if not np.all(np.isfinite(theta)):
         nan.message = "the information matrix is singular at the start; check the design."
         return nan
     ll_prev, step = -np.inf, np.zeros(k)
     for it in range(1, MAX_ITER + 1):
-        if warm is not None and it == 1:
-            # at the subsample's estimate: the first step from the full sample's score and the
-            # subsample's scaled information (never the last step: the covariance and the
-            # stopping rule use the full sample's own information at later iterates)
-            ll, score = model.evaluate_score(theta)
-            step = warm[1] @ score
-            if np.isfinite(ll) and float(np.max(np.abs(step))) <= _WARM_STEP_LIMIT:
-                ll_prev, theta = ll, theta + step
-                continue
-            # the subsample's estimate overflows here, or is far from the full sample's (e.g.
-            # a diverging coefficient where the subsample is separated): the usual start
-            warm, theta = None, model.start()
-            if not np.all(np.isfinite(theta)):
-                nan.message = "the information matrix is singular at the start; check the design."
-                return nan
         ll, score, H = model.evaluate(theta)
         halvings = 0
         while not (np.isfinite(ll) and ll >= ll_prev - _ABS_TOL) and halvings < 30:
