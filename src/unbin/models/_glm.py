@@ -59,19 +59,47 @@ def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``[1, (X - mean) / sd]`` written straight into one array (no (n, p) temporaries). The
     scale comes from the raw second moments (one pass): it only conditions the problem, and
     the estimates are mapped back with the very values used."""
+    Z, mean, sd, _ = _standardised(X, False)
+    return Z, mean, sd
+
+
+def standardise_with_gram(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray,
+                                                   np.ndarray]:
+    """``standardise(X)`` and the cross-product matrix ``Z'Z`` of its result, accumulated
+    block by block while each block of ``Z`` is still in cache (a separate ``gram(Z)`` reads
+    the whole of ``Z`` again: at a million rows that pass cost more than the copy itself)."""
+    Z, mean, sd, G = _standardised(X, True)
+    assert G is not None
+    return Z, mean, sd, G
+
+
+def _standardised(X: np.ndarray, with_gram: bool,
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
     n, p = X.shape
     Z = np.empty((n, p + 1))
-    Z[:, 0] = 1.0
+    G = np.zeros((p + 1, p + 1)) if with_gram else None
     if p == 0 or n == 0:
-        return Z, np.zeros(p), np.ones(p)
+        Z[:, 0] = 1.0
+        if G is not None:
+            G[0, 0] = float(n)
+        return Z, np.zeros(p), np.ones(p), G
     mean = (np.ones(n) @ X) / n
     var = np.einsum("ij,ij->j", X, X) / n - mean * mean
     # a column whose variance is lost in the rounding of its mean is constant: left unscaled
     sd = np.where(var > 1e-13 * np.maximum(mean * mean, 1e-300), np.sqrt(np.abs(var)), 1.0)
-    Zs = Z[:, 1:]
-    np.subtract(X, mean, out=Zs)
-    Zs *= 1.0 / sd
-    return Z, mean, sd
+    inv = 1.0 / sd
+    # in blocks of rows: the scaling (and the Gram) finds each block still in cache; every
+    # element gets the same two operations as on the whole array at once, and the Gram the
+    # same products of the same blocks as ``gram(Z)``, so the same numbers
+    for r0 in range(0, n, _BLOCK_ROWS):
+        Zb = Z[r0:r0 + _BLOCK_ROWS]
+        Zb[:, 0] = 1.0
+        Zs = Zb[:, 1:]
+        np.subtract(X[r0:r0 + _BLOCK_ROWS], mean, out=Zs)
+        Zs *= inv
+        if G is not None:
+            G += Zb.T @ Zb
+    return Z, mean, sd, G
 
 
 def back_transform(theta_s: np.ndarray, cov_s: np.ndarray, mean: np.ndarray,
@@ -94,14 +122,17 @@ def gram(Z: np.ndarray, v: np.ndarray | None = None) -> np.ndarray:
     return G
 
 
-def check_design(X: np.ndarray, names: tuple[str, ...], Z: np.ndarray | None = None) -> str:
+def check_design(X: np.ndarray, names: tuple[str, ...], Z: np.ndarray | None = None,
+                 G: np.ndarray | None = None) -> str:
     """A message naming the collinear columns, or '' when the design has full rank.
-    ``Z`` is ``standardise(X)[0]`` when the caller has it already."""
+    ``Z`` is ``standardise(X)[0]`` when the caller has it already, ``G`` its ``gram(Z)``."""
     if X.shape[1] == 0:
         return ""
     if Z is None:
         Z, _, _ = standardise(X)
-    eig = np.linalg.eigvalsh(gram(Z) / max(Z.shape[0], 1))
+    if G is None:
+        G = gram(Z)
+    eig = np.linalg.eigvalsh(G / max(Z.shape[0], 1))
     if eig[0] > _GRAM_RCOND * eig[-1]:
         return ""
     rank = np.linalg.matrix_rank(Z)
@@ -132,20 +163,25 @@ class _Family:
     information at one linear predictor, for the logistic or the Poisson model."""
 
     def __init__(self, family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-                 freq: np.ndarray | None, const: float | None = None):
+                 freq: np.ndarray | None, const: float | None = None,
+                 cols: np.ndarray | None = None):
+        """``cols``: the evaluations use only these columns of ``Z``, gathered one block of
+        rows at a time (the same blocks, hence the same numbers, as on ``Z[:, cols]``)."""
         self.binary = family == "binary"
-        self.Z, self.y, self.off, self.freq = Z, y, off, freq
+        self.Z, self.y, self.off, self.freq, self.cols = Z, y, off, freq, cols
         self.const = 0.0
         if not self.binary:  # the log(y!) term of the Poisson log-likelihood
             self.const = poisson_constant(y, freq) if const is None else const
 
     def evaluate(self, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
-        Z, y, off, freq = self.Z, self.y, self.off, self.freq
-        n, k = Z.shape
+        Z, y, off, freq, cols = self.Z, self.y, self.off, self.freq, self.cols
+        n, k = Z.shape[0], Z.shape[1] if cols is None else cols.size
         ll, score, H = self.const, np.zeros(k), np.zeros((k, k))
         for r0 in range(0, n, _PASS_ROWS):
             r1 = min(n, r0 + _PASS_ROWS)
             Zb, yb = Z[r0:r1], y[r0:r1]
+            if cols is not None:
+                Zb = np.take(Zb, cols, axis=1)
             eta = Zb @ theta
             if off is not None:
                 eta += off[r0:r1]
@@ -175,6 +211,7 @@ class _Family:
         offset, log(sum y / sum e^offset), other coefficients 0 (the customary start ignores
         the offset and, with person-time offsets, costs several more steps)."""
         Z, y, freq = self.Z, self.y, self.freq
+        assert self.cols is None, "the start is made on whole designs"
         if not self.binary:
             theta = np.zeros(Z.shape[1])
             t = np.ones_like(y) if self.off is None else np.exp(self.off)
@@ -191,6 +228,16 @@ class _Family:
             return np.full(Z.shape[1], np.nan)
         resid = y - mu if freq is None else freq * (y - mu)
         return linalg.cho_solve(factor, Z.T @ (freq_v * eta0 + resid))
+
+
+def gathered_range(Z: np.ndarray, cols: np.ndarray, coef: np.ndarray) -> tuple[float, float]:
+    """The smallest and largest value of ``Z[:, cols] @ coef``, one block of rows at a time
+    (no copy of the columns)."""
+    lo, hi = np.inf, -np.inf
+    for r0 in range(0, Z.shape[0], _PASS_ROWS):
+        values = np.take(Z[r0:r0 + _PASS_ROWS], cols, axis=1) @ coef
+        lo, hi = min(lo, float(values.min())), max(hi, float(values.max()))
+    return lo, hi
 
 
 def poisson_constant(y: np.ndarray, freq: np.ndarray | None = None) -> float:
@@ -256,11 +303,13 @@ def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
                      "sparse groups.")
 
 
-def _least_squares(Z: np.ndarray, y: np.ndarray, freq: np.ndarray | None) -> _Solution:
+def _least_squares(Z: np.ndarray, y: np.ndarray, freq: np.ndarray | None,
+                   G: np.ndarray | None = None) -> _Solution:
     """The linear model by maximum likelihood (residual variance RSS / N), with the usual
-    unbiased ``RSS / (N - p)`` in the covariance; frequency weights count as repeated rows."""
+    unbiased ``RSS / (N - p)`` in the covariance; frequency weights count as repeated rows.
+    ``G``: ``gram(Z)`` if the caller has it (the cross-product matrix without weights)."""
     k = Z.shape[1]
-    factor = _cholesky(gram(Z, freq))
+    factor = _cholesky(G if G is not None and freq is None else gram(Z, freq))
     if factor is None:
         return _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0,
                          "the design's cross-product matrix is singular; check the design.")
@@ -282,14 +331,16 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
     """Fit one linear, logistic or Poisson model and record failures as a failed FitResult."""
     all_names = (INTERCEPT, *names)
     n = outcome.n
-    Z, mean, sd = standardise(X)  # once: the rank check and the fit share it
-    problem = check_design(X, names, Z)
+    # once: the rank check and the fit share the standardised design and its Gram (least
+    # squares' cross-product matrix too)
+    Z, mean, sd, G = standardise_with_gram(X)
+    problem = check_design(X, names, Z, G)
     if problem:
         return failed_fit(family, all_names, n, events, problem)
     y = np.asarray(outcome.y, dtype=float)
     freq = None if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
     if family == "continuous":
-        sol = _least_squares(Z, y, freq)
+        sol = _least_squares(Z, y, freq, G)
     else:
         const = None
         if family == "count":  # the same for every fit of this outcome
@@ -297,8 +348,13 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
             if const is None:
                 const = outcome.cache["poisson_constant"] = poisson_constant(y, freq)
         sol = _newton(family, Z, y, outcome.offset, freq, const)
+    lp: np.ndarray | None = None
     if separation_check is not None and np.all(np.isfinite(sol.theta)):
-        sep = separation_check(Z @ sol.theta)
+        # the check reads the linear predictor the result keeps, plus the intercept (Z theta_s
+        # to rounding): one product with the rows instead of two
+        coef = back_transform(sol.theta, sol.cov, mean, sd)[0]
+        lp = X @ coef[1:]
+        sep = separation_check(lp + coef[0])
         if sep:
             return failed_fit(family, all_names, n, events, sep)
     if sol.message:
@@ -311,6 +367,6 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
     return FitResult(
         family=family, names=all_names, coef=theta, cov=cov, loglik=sol.loglik, n=n,
         events=events, n_params=len(all_names) + n_extra_params, converged=True,
-        iterations=sol.iterations, linear_predictor=X @ theta[1:],
+        iterations=sol.iterations, linear_predictor=X @ theta[1:] if lp is None else lp,
         extra={"intercept": float(theta[0])},
     )

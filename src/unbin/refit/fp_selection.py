@@ -202,7 +202,10 @@ class _Screen:
 
         return _evaluate(self.layout, D, theta, True)  # type: ignore[arg-type]
 
-    def _glm_evaluate(self, Z: np.ndarray, theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+    def _glm_evaluate(self, Z: np.ndarray, theta: np.ndarray, cols: np.ndarray | None = None,
+                      ) -> tuple[float, np.ndarray, np.ndarray]:
+        """``cols``: a candidate's columns of ``Z`` (gathered block by block while evaluating;
+        logistic and Poisson only)."""
         from ..models._glm import _Family
 
         if self.family == "continuous":
@@ -213,15 +216,13 @@ class _Screen:
             rss = float(resid @ wr)
             G = Z.T @ (Z if self.freq is None else Z * self.freq[:, None])
             return -rss / 2.0, Z.T @ wr, G
-        model = _Family(self.family, Z, self.y, self.outcome.offset, self.freq, self.const)
+        model = _Family(self.family, Z, self.y, self.outcome.offset, self.freq, self.const,
+                        cols)
         return model.evaluate(theta)
 
-    def _feasible(self, change: np.ndarray) -> bool:
+    def _feasible(self, lo: float, hi: float) -> bool:
         """Whether the Newton step's tilt keeps the dual point valid (see the module's
-        docstring): every row's change in its linear predictor."""
-        if change.size == 0:
-            return True
-        lo, hi = float(change.min()), float(change.max())
+        docstring): the smallest and largest change of a row's linear predictor."""
         if self.family == "binary":
             return max(-lo, hi) <= 1.0
         if self.family == "count":
@@ -235,11 +236,21 @@ class _Screen:
             return theta, self._cox_evaluate(self.D, theta)
         return theta, self._glm_evaluate(self.Z, theta)
 
-    def _evaluate(self, Zc: np.ndarray, D: object, theta: np.ndarray,
+    def _evaluate(self, cols: np.ndarray, D: object, theta: np.ndarray,
                   ) -> tuple[float, np.ndarray, np.ndarray]:
         if self.family == "survival":
             return self._cox_evaluate(D, theta)
-        return self._glm_evaluate(Zc, theta)
+        return self._glm_evaluate(self.Z, theta, cols)
+
+    def _change_range(self, cols: np.ndarray, D: object, step: np.ndarray,
+                      ) -> tuple[float, float]:
+        """The smallest and largest change of a row's linear predictor under ``step``."""
+        if self.family == "survival":
+            change = D.X1[:, 1:] @ step  # type: ignore[attr-defined]
+            return (float(change.min()), float(change.max())) if change.size else (0.0, 0.0)
+        from ..models._glm import gathered_range
+
+        return gathered_range(self.Z, cols, step)
 
     def bound(self, fp_cols: list[int], incumbent: float, anchor: _Point | None = None,
               ) -> _Bound:
@@ -256,18 +267,17 @@ class _Screen:
             return self._least_squares_bound(ll, U, I_)
         theta = self.theta0[idx]
         D: object = None
-        # np.take gathers the columns straight into a row-major array (indexing with a list
-        # builds a column-major one that would then be copied again: several times slower)
+        # Cox: the candidate's design is gathered (np.take writes a row-major array; indexing
+        # with a list builds a column-major one that would then be copied again). The GLM
+        # evaluations gather its columns one block of rows at a time instead (no copy).
         if self.family == "survival":
             Zc = np.take(self.Z, np.array([0, *(idx + 1)]), axis=1)
             D = self._design_of.of(Zc, self.layout.we, np.zeros(idx.size))
-        else:
-            Zc = np.take(self.Z, idx, axis=1)
         if anchor is not None:
             theta_a, (_, U_a, I_a) = anchor
             start = newton_step(I_a[np.ix_(idx, idx)], U_a[idx] + I_a[idx] @ theta_a)
             if start is not None:
-                ll_s, U_s, I_s = self._evaluate(Zc, D, start)
+                ll_s, U_s, I_s = self._evaluate(idx, D, start)
                 if np.isfinite(ll_s) and ll_s >= ll:
                     theta, ll, U, I_ = start, ll_s, U_s, I_s
         out = _Bound(-np.inf, np.inf)
@@ -282,8 +292,7 @@ class _Screen:
             if step is None:
                 return out
             gain = float(U @ step)
-            change = (Zc[:, 1:] if self.family == "survival" else Zc) @ step
-            if self._feasible(change):
+            if self._feasible(*self._change_range(idx, D, step)):
                 out.upper = min(out.upper, ll + gain)
             if out.upper + _margin(out.upper, self.family) < incumbent:
                 return out  # cannot win
@@ -291,7 +300,7 @@ class _Screen:
                 return out  # converged: lower and upper agree
             for _halving in range(_MAX_HALVINGS):
                 trial = theta + step
-                ll_next, U_next, I_next = self._evaluate(Zc, D, trial)
+                ll_next, U_next, I_next = self._evaluate(idx, D, trial)
                 if np.isfinite(ll_next) and ll_next >= ll - _margin(ll, self.family):
                     break
                 step = step / 2.0
