@@ -27,19 +27,19 @@ TIGHT = {"precision": 1e-14, "r_precision": 1e-16}
 
 
 def _assert_same_layout(got: Layout, ref: Layout) -> None:
-    for f in dataclasses.fields(Layout):
-        if f.name == "subsamples":
-            continue
-        a, b = getattr(got, f.name), getattr(ref, f.name)
+    names = [f.name for f in dataclasses.fields(Layout)
+             if f.name not in ("subsamples", "kernel", "operators")]
+    for name in [*names, "risk_op", "tie_op"]:  # (the operators are made on first use)
+        a, b = getattr(got, name), getattr(ref, name)
         if sparse.issparse(b):
-            assert a.shape == b.shape, f.name
+            assert a.shape == b.shape, name
             for part in ("indptr", "indices", "data"):
-                assert np.array_equal(getattr(a, part), getattr(b, part)), (f.name, part)
+                assert np.array_equal(getattr(a, part), getattr(b, part)), (name, part)
         elif isinstance(b, np.ndarray):
-            assert a.dtype == b.dtype and a.shape == b.shape, (f.name, a.dtype, b.dtype)
-            assert np.array_equal(a, b), f.name
+            assert a.dtype == b.dtype and a.shape == b.shape, (name, a.dtype, b.dtype)
+            assert np.array_equal(a, b), name
         else:
-            assert a == b, (f.name, a, b)
+            assert a == b, (name, a, b)
 
 
 def _cohort(n: int, seed: int, *, entry: bool, strata: bool, weights: bool

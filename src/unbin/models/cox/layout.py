@@ -31,7 +31,6 @@ class Layout:
     wavg: np.ndarray  # (K,) mean weight of the events tied at t_k
     wsum: np.ndarray  # (K,) summed weight of the events at t_k
     wsum_untied: np.ndarray  # (K,) wsum, with 0 at the event times holding tied events
-    risk_op: sparse.csr_matrix  # (K, m): +1 at b_i, -1 at a_i (entered after t_k)
     plain_op: bool  # risk_op is one +1 per row in row order (no delayed entry)
     tie_k: np.ndarray  # (T,) the event times holding more than one event
     tie_ev: np.ndarray  # positions (in kept rows) of the events at those times, grouped
@@ -39,7 +38,6 @@ class Layout:
     tie_f: np.ndarray  # l / d_k for each event in tie_ev (Efron), l = 0 .. d_k - 1
     tie_at: np.ndarray  # event-time index of each event in tie_ev (tie_k[tie_grp])
     tie_wavg: np.ndarray  # wavg of the event time of each event in tie_ev
-    tie_op: sparse.csr_matrix  # (T, m): 1 for the events at tie_k
     b_idx: np.ndarray  # b_i + 1 (index into a zero-padded cumulative array)
     b_counts: np.ndarray  # (K,) kept rows with b_i = k (rows are sorted by b: runs of rows)
     tie_d: np.ndarray  # (T,) events at each of tie_k (the runs of tie_ev)
@@ -66,11 +64,36 @@ class Layout:
     subsamples: dict[int, Layout] = field(default_factory=dict, compare=False, repr=False)
     # the arrays the compiled evaluation reads (``likelihood._kernel_arrays``, made on first use)
     kernel: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+    # the sparse operators, made on first use: the compiled evaluation never reads them, so a
+    # replicate's layout evaluated compiled never pays for them
+    operators: dict[str, sparse.csr_matrix] = field(default_factory=dict, compare=False,
+                                                    repr=False)
 
     @property
     def ties(self) -> bool:
         """Some event time has more than one event."""
         return self.tie_k.size > 0
+
+    @property
+    def risk_op(self) -> sparse.csr_matrix:
+        """(K, m): +1 at (b_i, i), -1 at (a_i, i) for the rows that entered after t_k."""
+        op = self.operators.get("risk")
+        if op is None:
+            late = np.flatnonzero(self.a_idx) if self.late_entry else None
+            op = self.operators["risk"] = _risk_operator(
+                self.b_idx - 1, self.a_idx, late, np.r_[0, np.cumsum(self.b_counts)],
+                self.wsum.size)
+        return op
+
+    @property
+    def tie_op(self) -> sparse.csr_matrix:
+        """(T, m): 1 for the events at each tied event time (runs of ``tie_ev``)."""
+        op = self.operators.get("tie")
+        if op is None:
+            op = self.operators["tie"] = sparse.csr_matrix(
+                (np.ones(self.tie_ev.size), self.tie_ev, np.r_[0, np.cumsum(self.tie_d)]),
+                shape=(self.tie_k.size, self.order.size))
+        return op
 
 
 def _stratum_time_order(t: np.ndarray, codes: np.ndarray | None, n_strata: int) -> np.ndarray:
@@ -188,7 +211,6 @@ class _Ties:
     grp: np.ndarray  # index into k of each of those events
     at: np.ndarray  # event-time index of each of those events
     frac: np.ndarray  # l / d_k for each of those events, l = 0 .. d_k - 1
-    op: sparse.csr_matrix  # (T, m): 1 for the events at each tied event time
 
 
 def _tie_structure(ev: np.ndarray, event_k: np.ndarray, d: np.ndarray, m: int) -> _Ties:
@@ -205,25 +227,21 @@ def _tie_structure(ev: np.ndarray, event_k: np.ndarray, d: np.ndarray, m: int) -
     tie_d = d[tie_k]
     tie_first = np.cumsum(tie_d) - tie_d
     tie_f = (np.arange(tie_ev.size) - tie_first[tie_grp]) / tie_d[tie_grp]
-    # events are sorted by event time, so the tie operator's rows are runs of events
-    tie_op = sparse.csr_matrix(
-        (np.ones(tie_ev.size), tie_ev, np.r_[0, np.cumsum(tie_d)]), shape=(tie_k.size, m)
-    )
-    return _Ties(tied, tie_k, tie_ev, tie_grp, tie_g, tie_f, tie_op)
+    return _Ties(tied, tie_k, tie_ev, tie_grp, tie_g, tie_f)
 
 
 def _risk_operator(
-    a: np.ndarray, b: np.ndarray, b_starts: np.ndarray, entered_late: np.ndarray, K: int
+    b: np.ndarray, a_idx: np.ndarray, late: np.ndarray | None, b_starts: np.ndarray, K: int
 ) -> sparse.csr_matrix:
-    """The (K, m) risk-set operator: +1 at (b_i, i), and -1 at (a_i, i) for the rows that
-    entered after their stratum's first event time. ``b_starts``: the first row with each
-    b (rows are sorted by b), then m."""
+    """The (K, m) risk-set operator: +1 at (b_i, i), and -1 at (a_i, i) for the rows ``late``
+    that entered after their stratum's first event time (``a_idx`` = a_i + 1 there; None:
+    no such row). ``b_starts``: the first row with each b (rows are sorted by b), then m."""
     m = b.size
-    n_late = int(entered_late.sum())
-    if n_late == 0:  # the operator's rows are runs of consecutive rows
+    if late is None or late.size == 0:  # the operator's rows are runs of consecutive rows
         return sparse.csr_matrix((np.ones(m), np.arange(m), b_starts), shape=(K, m))
-    rows = np.concatenate([b, a[entered_late]])
-    cols = np.concatenate([np.arange(m), np.flatnonzero(entered_late)])
+    n_late = late.size
+    rows = np.concatenate([b, a_idx[late] - 1])
+    cols = np.concatenate([np.arange(m), late])
     vals = np.concatenate([np.ones(m), -np.ones(n_late)])
     return sparse.csr_matrix((vals, (rows, cols)), shape=(K, m))
 
@@ -324,7 +342,6 @@ def _assemble(
         wavg=wavg,
         wsum=wsum,
         wsum_untied=np.where(ties.tied, 0.0, wsum),
-        risk_op=_risk_operator(a, b, b_starts, entered_late, K),
         plain_op=not late_entry,
         tie_k=ties.k,
         tie_ev=ties.ev,
@@ -332,7 +349,6 @@ def _assemble(
         tie_f=ties.frac,
         tie_at=ties.at,
         tie_wavg=wavg[ties.at],
-        tie_op=ties.op,
         b_idx=b + 1,
         b_counts=np.diff(b_starts),
         tie_d=d[ties.k],
@@ -416,7 +432,7 @@ _accumulate = np.add.accumulate  # np.cumsum of a 1-D array, without its dispatc
 
 def _scaled(L: Layout, op: sparse.csr_matrix, r: np.ndarray) -> sparse.csr_matrix:
     """``op @ diag(r)``: the operator's values times r of their rows (columns of op)."""
-    data = r if op is L.risk_op and L.plain_op else op.data * r[op.indices]
+    data = r if L.plain_op and op is L.operators.get("risk") else op.data * r[op.indices]
     return sparse.csr_matrix((data, op.indices, op.indptr), shape=op.shape)
 
 
