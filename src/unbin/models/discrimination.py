@@ -116,6 +116,10 @@ def _compiled_aucs(e: np.ndarray, s: np.ndarray, order: np.ndarray,
     return out
 
 
+# From this many scores the buckets' stable order is one compiled radix sort
+# (``unbin.models.compiled.score_order``, three 11-bit digits) instead of numpy's two stable
+# 16-bit passes (DEVELOPERS.md, "Compiled kernels").
+ORDER_FROM_ROWS = 50_000
 _RADIX_ROWS = 4096  # from this many scores the order is found by two 16-bit radix passes
 _TOP = 4294967295.0  # 2^32 - 1
 _FEW_DOWN = 256  # up to this many out-of-order neighbours their buckets are found one by one
@@ -127,7 +131,8 @@ def ascending_order(s: np.ndarray) -> np.ndarray:
     32-bit bucket on the range (``floor((s - min) * (2^32 - 1) / (max - min))``, non-decreasing
     in the score, as floating-point subtraction, multiplication by a positive number and floor
     are) is sorted by stable 16-bit passes (``radix.stable_order``: numpy's radix sort, linear
-    in the rows, cheaper than a comparison sort of the doubles); the buckets shared by scores out of order
+    in the rows, cheaper than a comparison sort of the doubles; from ``ORDER_FROM_ROWS`` scores
+    the same stable order by a compiled radix sort); the buckets shared by scores out of order
     are then sorted by score (few rows)."""
     n = s.size
     if n < _RADIX_ROWS:
@@ -137,7 +142,12 @@ def ascending_order(s: np.ndarray) -> np.ndarray:
     if not np.isfinite(scale):
         return np.argsort(s)
     key = np.minimum(np.floor((s - lo) * scale), _TOP).astype(np.uint32)
-    order = stable_order(key)
+    if wanted(n, ORDER_FROM_ROWS):  # the same stable order, by a compiled radix sort
+        from .compiled.score_order import stable_order32
+
+        order = stable_order32(key)
+    else:
+        order = stable_order(key)
     ranked = s[order]
     down = np.flatnonzero(ranked[1:] < ranked[:-1])  # only within a shared bucket
     if down.size == 0:

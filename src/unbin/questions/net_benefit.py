@@ -21,6 +21,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..models.compiled import wanted
 from ..refit.analysis import Refit
 from ..spec import Spec
 from ..terms import GroupedTerm
@@ -49,40 +50,58 @@ def net_benefit_counts(y: np.ndarray, positive: np.ndarray,
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
 
 
-# Up to this many thresholds the rows at or above each are counted directly (a comparison and
-# a sum per threshold); beyond it, from one sort of the risks.
-_DIRECT_THRESHOLDS = 8
+# From this many rows the places of :func:`threshold_counts` are counted by one compiled pass
+# (``unbin.models.compiled.threshold_counts``) instead of ``searchsorted`` and ``bincount``
+# (DEVELOPERS.md, "Compiled kernels").
+THRESHOLD_COUNTS_FROM_ROWS = 50_000
+
+
+def threshold_counts(y: np.ndarray, risk: np.ndarray, thresholds: np.ndarray,
+                     counts: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, int]:
+    """(events, non-events, n): the rows (or, with ``counts``, the copies of the rows: row i
+    repeated ``counts[i]`` times) whose ``risk`` is at or above each threshold, by outcome
+    ``y`` (bool), and all the rows (copies). One pass for every threshold: each row's place
+    among the sorted thresholds (how many are at or below its risk, a binary search; a risk
+    equal to a threshold is at or above it) is counted by outcome, and the rows at or above
+    the j-th threshold are those with a place beyond j, a running sum from the top. A NaN risk
+    counts as above every threshold, as it sorts last (:func:`net_benefit_risk` has always
+    counted it so). Whole numbers (below 2^53 also as float sums): exact in any order."""
+    thresholds = np.asarray(thresholds, dtype=float)
+    n_t = thresholds.size
+    up = np.argsort(thresholds, kind="stable")
+    c = None if counts is None else np.asarray(counts)
+    n = int(y.size) if c is None else int(round(float(c.sum())))
+    if n_t and wanted(y.size, THRESHOLD_COUNTS_FROM_ROWS) and (c is None or c.dtype.kind in "iu"):
+        from ..models.compiled.threshold_counts import place_counts
+
+        weights = np.zeros(0, dtype=np.int64) if c is None else c.astype(np.int64, copy=False)
+        hist = place_counts(np.ascontiguousarray(thresholds[up]), risk, y, weights)
+    else:
+        place = np.searchsorted(thresholds[up], risk, side="right")
+        key = 2 * place + y  # (place, outcome) -> one bin
+        hist = np.bincount(key, weights=c, minlength=2 * (n_t + 1)).reshape(n_t + 1, 2)
+    at_or_above = np.cumsum(hist[::-1], axis=0)[::-1]  # the rows at places >= b
+    events = np.empty(n_t, dtype=float)
+    others = np.empty(n_t, dtype=float)
+    events[up] = at_or_above[1:, 1]
+    others[up] = at_or_above[1:, 0]
+    return events, others, n
 
 
 def net_benefit_risk(y: np.ndarray, risk: np.ndarray, thresholds: np.ndarray,
                      counts: np.ndarray | None = None,
                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``net_benefit_counts`` of the rules "treat when risk >= p_t" at every threshold, from
-    the sorted risks of the events and of the others (no thresholds x n matrix: counting the
-    risks at or above p_t is ``len - searchsorted(sorted, p_t, 'left')``); for a few
-    thresholds, by counting the rows at or above each directly (the same whole numbers).
+    :func:`threshold_counts` (no thresholds x n matrix, no sort of the risks).
     ``counts``: the data set in which row i is repeated ``counts[i]`` times (a bootstrap
     replicate's drawn rows), the same numbers as on the repeated rows, without repeating
     them."""
     y = np.asarray(y, dtype=float) > 0
     risk = np.asarray(risk, dtype=float)
     thresholds = np.asarray(thresholds, dtype=float)
-    direct = thresholds.size <= _DIRECT_THRESHOLDS and not np.isnan(risk).any()
-    if counts is not None and not direct:  # repeat the rows
-        rows = np.repeat(np.arange(len(y)), np.asarray(counts, dtype=np.int64))
-        y, risk, counts = y[rows], risk[rows], None
-    if direct:
-        c = np.ones(len(y)) if counts is None else np.asarray(counts, dtype=float)
-        n = len(y) if counts is None else int(round(float(c.sum())))
-        # whole numbers below 2^53: exact in any order of summation
-        ev, non, c_ev, c_non = risk[y], risk[~y], c[y], c[~y]
-        tp = np.array([c_ev @ (ev >= t) for t in thresholds], dtype=float) / n
-        fp = np.array([c_non @ (non >= t) for t in thresholds], dtype=float) / n
-        return tp - fp * thresholds / (1.0 - thresholds), tp, fp
-    n = len(y)
-    ev, non = np.sort(risk[y]), np.sort(risk[~y])
-    tp = (ev.size - np.searchsorted(ev, thresholds, side="left")) / n
-    fp = (non.size - np.searchsorted(non, thresholds, side="left")) / n
+    events, others, n = threshold_counts(y, risk, thresholds, counts)
+    tp = events / n
+    fp = others / n
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
 
 
@@ -405,8 +424,8 @@ def net_benefit_table(r: Refit, spec: Spec) -> pd.DataFrame:
         elif risk is None:
             treated = positive.mean() * np.ones(len(pt))
         else:
-            srt = np.sort(risk)
-            treated = (srt.size - np.searchsorted(srt, pt, side="left")) / srt.size
+            events, others, _ = threshold_counts(y > 0, risk, pt)
+            treated = (events + others) / risk.size
         part = pd.DataFrame({**base, "rule": name, "rule_type": kind, "model": model,
                              "adjustment": adjustment, "threshold": pt, "net_benefit": value,
                              "treated": treated, "true_positive": tp, "false_positive": fp,
