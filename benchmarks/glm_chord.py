@@ -3,9 +3,9 @@ from ``_WHOLE_ROWS`` rows: ``_chord``, every replicate at once) on a simulated s
 a few rounds; ``--save`` keeps the coefficients so that two source trees can be compared
 (run the old and the new one alternately, each with its own PYTHONPATH):
 
-    PYTHONPATH=OLD/src python benchmarks/glm_chord.py --n 200000 --save /tmp/old.npy
-    PYTHONPATH=NEW/src python benchmarks/glm_chord.py --n 200000 --save /tmp/new.npy \\
-        --against /tmp/old.npy
+    PYTHONPATH=OLD/src python benchmarks/glm_chord.py --n 200000 --save old.npy
+    PYTHONPATH=NEW/src python benchmarks/glm_chord.py --n 200000 --save new.npy \\
+        --against old.npy
 """
 
 from __future__ import annotations
