@@ -52,13 +52,11 @@ def test_net_benefit_of_risk_rules_is_the_definition(monkeypatch: pytest.MonkeyP
 
 def test_the_compiled_pass_counts_as_the_numpy_path(monkeypatch: pytest.MonkeyPatch) -> None:
     # source: the numpy path (searchsorted + bincount, forced), itself checked against the
-    # definition above; uneven and infinite thresholds, NaN risks (counted above every
-    # threshold, as numpy sorts them last), zero counts
+    # definition above; uneven and infinite thresholds, zero counts
     rng = np.random.default_rng(7)
     for it in range(100):
         n = int(rng.integers(1, 500))
         risk = rng.normal(size=n).round(1)
-        risk[rng.random(n) < 0.03] = np.nan
         y = rng.random(n) < 0.4
         grid = np.sort(rng.normal(size=int(rng.integers(1, 30))).round(1)) ** 3
         if it % 7 == 0:
@@ -70,3 +68,21 @@ def test_the_compiled_pass_counts_as_the_numpy_path(monkeypatch: pytest.MonkeyPa
         compiled = threshold_counts(y, risk, grid, counts)
         for a, b in zip(plain, compiled, strict=True):
             assert np.array_equal(a, b)
+
+
+@pytest.mark.parametrize("path", ["never", "always"])
+def test_a_risk_that_is_not_a_number_leaves_the_rule_undefined(
+        monkeypatch: pytest.MonkeyPatch, path: str) -> None:
+    # common practice: a rule whose risk is undefined for some row cannot be counted (the row
+    # is neither treated nor untreated), so its net benefit is NaN at every threshold, never
+    # the row counted as treated; the same risks without the NaN give finite values
+    monkeypatch.setenv("UNBIN_COMPILED", path)
+    rng = np.random.default_rng(3)
+    n = 60_000
+    risk = rng.beta(2, 5, n)
+    y = (rng.random(n) < risk).astype(float)
+    finite = net_benefit_risk(y, risk, NB_GRID)
+    assert all(np.isfinite(a).all() for a in finite)
+    risk[17] = np.nan
+    for a in net_benefit_risk(y, risk, NB_GRID, rng.integers(0, 3, n)):
+        assert a.shape == NB_GRID.shape and np.isnan(a).all()

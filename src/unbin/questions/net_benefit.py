@@ -63,11 +63,15 @@ def threshold_counts(y: np.ndarray, risk: np.ndarray, thresholds: np.ndarray,
     ``y`` (bool), and all the rows (copies). One pass for every threshold: each row's place
     among the sorted thresholds (how many are at or below its risk, a binary search; a risk
     equal to a threshold is at or above it) is counted by outcome, and the rows at or above
-    the j-th threshold are those with a place beyond j, a running sum from the top. A NaN risk
-    counts as above every threshold, as it sorts last (:func:`net_benefit_risk` has always
-    counted it so). Whole numbers (below 2^53 also as float sums): exact in any order."""
+    the j-th threshold are those with a place beyond j, a running sum from the top. A risk that
+    is not a number (a prediction that overflowed) leaves the rule undefined: every count is
+    NaN, so its net benefit is NaN rather than counting that row as treated at every threshold.
+    Whole numbers (below 2^53 also as float sums): exact in any order."""
     thresholds = np.asarray(thresholds, dtype=float)
     n_t = thresholds.size
+    if np.isnan(risk).any():
+        n_rows = int(y.size) if counts is None else int(round(float(np.sum(counts))))
+        return np.full(n_t, np.nan), np.full(n_t, np.nan), n_rows
     up = np.argsort(thresholds, kind="stable")
     c = None if counts is None else np.asarray(counts)
     n = int(y.size) if c is None else int(round(float(c.sum())))
