@@ -263,3 +263,85 @@ def test_compiled_fit_never_builds_the_sparse_operators(
         assert fit.converged, fit.message
         np.testing.assert_allclose(fit.coef, cph.params_.to_numpy(), rtol=1e-6)
         assert fit.loglik == pytest.approx(cph.log_likelihood_, abs=1e-8)
+
+
+def test_kernel_exp_matches_numpy_exp() -> None:
+    # source: numpy's exp (the C library's), to 1 ulp on normal results; outside the
+    # polynomial's range and for non-finite input the kernel takes the library's exp itself
+    from unbin.models.compiled import cox_evaluation
+
+    rng = np.random.default_rng(8)
+    x = np.concatenate([rng.uniform(-708.0, 709.0, 200_000), rng.normal(0.0, 3.0, 200_000),
+                        np.linspace(-1.0, 1.0, 20_001), [-708.0, 709.0, 0.0, -0.0, 1e-300]])
+    got = np.empty_like(x)
+    cox_evaluation.exp_values(x, got)
+    np.testing.assert_allclose(got, np.exp(x), rtol=2.3e-16, atol=0)
+    assert got[-3] == 1.0 and got[-2] == 1.0
+    edge = np.array([np.nan, -np.inf, np.inf, -745.2, -720.0, 709.5, 710.0, -1e6])
+    got = np.empty_like(edge)
+    cox_evaluation.exp_values(edge, got)
+    with np.errstate(over="ignore"):
+        np.testing.assert_array_equal(got, np.exp(edge))
+
+
+@pytest.mark.parametrize("efron", [True, False], ids=["efron", "breslow"])
+def test_kernel_rescales_when_the_linear_predictor_climbs(
+    monkeypatch: pytest.MonkeyPatch, efron: bool
+) -> None:
+    # source: statsmodels PHReg's loglike, score and hessian; the numpy path. The compiled
+    # point shifts each stratum's linear predictor by its first block's largest value and
+    # rescales its sums when a later block's exceeds that by more than 30: here x rises with
+    # time, so in each stratum (1,500 rows, several blocks) eta climbs by about 90
+    rng = np.random.default_rng(12)
+    n = 3_000
+    strata = np.repeat([0, 1], n // 2)
+    time = np.concatenate([np.sort(rng.integers(1, 400, n // 2)).astype(float)] * 2)
+    event = (rng.uniform(size=n) < 0.5) * 1.0
+    X = np.column_stack([time / 40.0 + rng.normal(0, 0.1, n), rng.normal(size=n)])
+    beta = np.array([9.0, 0.3])  # eta climbs from about 0 to 90 along each stratum's rows
+    L = prepare_layout(time, event, strata=strata)
+    assert L.ties
+    ref = sm.PHReg(time, X, status=event, strata=strata, ties="efron" if efron else "breslow")
+    got = _evaluate(monkeypatch, "always", L, X, beta, efron)
+    numpy_path = _evaluate(monkeypatch, "never", L, X, beta, efron)
+    assert got[0] == pytest.approx(ref.loglike(beta), rel=1e-11)
+    np.testing.assert_allclose(got[1], ref.score(beta), rtol=1e-8, atol=1e-8)
+    np.testing.assert_allclose(got[2], -ref.hessian(beta), rtol=1e-8, atol=1e-8)
+    assert got[0] == pytest.approx(numpy_path[0], rel=1e-13)
+    np.testing.assert_allclose(got[1], numpy_path[1], rtol=1e-10, atol=1e-9)
+    np.testing.assert_allclose(got[2], numpy_path[2], rtol=1e-10, atol=1e-9)
+    # (in each stratum a later block's eta exceeds the first block's by more than 30: the
+    # sums were rescaled)
+    D, scale, _ = lk._standardised(X, L)
+    eta = D.X1[:, 1:] @ (beta * scale)
+    bounds = np.r_[L.row_starts, eta.size]
+    for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
+        assert eta[lo:hi].max() > eta[lo : lo + 256].max() + 60
+
+
+def test_compiled_stopping_test_matches_numpy(
+    monkeypatch: pytest.MonkeyPatch, cohort: dict[str, np.ndarray]
+) -> None:
+    # source: the numpy stopping test (max over rows of |x_i' step| against the limit, as a
+    # product of the whole design); the kernel stops at the first row beyond the limit
+    from unbin.models.cox.fit import _settled
+
+    L = prepare_layout(cohort["time"], cohort["event"], strata=cohort["strata"])
+    rng = np.random.default_rng(4)
+    designs = {}
+    for mode in ("never", "always"):
+        monkeypatch.setenv("UNBIN_COMPILED", mode)
+        designs[mode] = lk._standardised(cohort["X"], L)[0]
+    exact = designs["never"].X1[:, 1:]
+    decided = set()
+    for _ in range(300):
+        step = rng.normal(size=4) * 10.0 ** rng.uniform(-9, -5)
+        limit = float(np.abs(exact @ step).max()) * rng.choice([0.5, 0.999, 1.001, 2.0])
+        a = _settled(designs["never"], step, 1e-9, limit)
+        b = _settled(designs["always"], step, 1e-9, limit)
+        assert a == b
+        decided.add(a)
+    assert decided == {True, False}
+    nan_step = np.array([np.nan, 0.0, 0.0, 0.0])
+    from unbin.models.compiled import cox_settle
+    assert not cox_settle.within(designs["always"].X1, nan_step, 1.0)

@@ -124,6 +124,10 @@ def _settled(D: _Design, step: np.ndarray, tol: float, limit: float | None = Non
         return True
     if bound > max(1e-3, 10.0 * limit):
         return False
+    if D.compiled:  # (one pass that stops at the first row beyond the limit)
+        from ..compiled import cox_settle
+
+        return bool(cox_settle.within(D.X1, np.ascontiguousarray(step, dtype=float), limit))
     return float(np.abs(D.X1[:, 1:] @ step).max()) <= limit
 
 

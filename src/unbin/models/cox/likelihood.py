@@ -84,6 +84,7 @@ class _Point:
     # the compiled path's Efron weights per tied event time: sums of f^j wavg / den^2, j = 1, 2
     a1: np.ndarray | None = None
     a2: np.ndarray | None = None
+    score: np.ndarray | None = None  # the compiled point's score, when it was asked for
 
 
 def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
@@ -113,28 +114,54 @@ def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
     return got
 
 
-def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool) -> _Point:
-    """:func:`_point` with the risk-set and tied sums by the compiled kernel (the linear
-    predictor, ``exp`` and ``log`` stay numpy's vectorised loops; the sums of r x are left to
-    the information)."""
+def _point_arrays(L: Layout) -> tuple[np.ndarray, ...]:
+    """The layout's arrays the compiled point (:func:`_compiled_point`) reads besides
+    :func:`_kernel_arrays`' (made once per layout): the strata's runs of rows, the rows' event
+    weights summed by stratum, each event time's index among the tied ones (-1: not tied) and
+    the rows' event indicators as 0/1 numbers."""
+    got = L.kernel.get("point")
+    if got is None:
+        # every kept row is at risk at an event time of its stratum, so the strata of the rows
+        # and of the event times are the same, in the same order
+        assert L.row_starts.size == L.k_bounds.size - 1
+        k_group = np.full(L.wsum.size, -1, dtype=np.int64)
+        k_group[L.tie_k] = np.arange(L.tie_k.size)
+        got = L.kernel["point"] = (
+            np.asarray(L.row_starts, dtype=np.int64), np.asarray(L.row_counts, dtype=np.int64),
+            np.add.reduceat(L.we, L.row_starts) if L.we.size else np.zeros(0), k_group,
+            np.asarray(L.event_s, dtype=float),
+        )
+    return got
+
+
+def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool,
+                    score: bool) -> _Point:
+    """:func:`_point` by the compiled kernel ``score_point``: the linear predictor, ``exp``,
+    the risk-set and tied sums of r and, with ``score``, of r x and the score from them, in
+    one read of the design (the logarithms of the K sums stay numpy's). The sums of r x are
+    kept only for the score: the information's kernel forms its own beside the Gram
+    product."""
     from ..compiled import cox_evaluation
 
-    (w, b, late_rows, late_at, k_bounds, _, _, tie_k, tie_d, tie_f, _,
-     tie_ev) = _kernel_arrays(L, efron)
+    (w, b, late_rows, late_at, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f, tie_wavg,
+     _) = _kernel_arrays(L, efron)
+    row_starts, row_counts, we_strata, k_group, ev_f = _point_arrays(L)
     X1 = D.X1
+    m, p = X1.shape[0], X1.shape[1] - 1
     efron_terms = efron and L.ties
-    s0, t0, den = np.empty(L.wsum.size), np.empty(tie_k.size), np.empty(tie_ev.size)
-    loglik = 0.0
-    if X1.shape[1] > 1 and beta.any():
-        eta = _shifted_eta(L, X1[:, 1:] @ beta)
-        loglik = float(L.we_ev @ np.take(eta, L.ev))
-        with np.errstate(over="ignore", under="ignore"):
-            r = np.exp(eta, out=eta)
-        unit = L.unit_w
-    else:
-        r, unit = L.w, True  # (not written when unit)
-    cox_evaluation.risk_sums(r, w, unit, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_f,
-                             tie_ev, s0, t0, den)
+    K, T = L.wsum.size, tie_k.size
+    s0, t0, den = np.empty(K), np.empty(T), np.empty(tie_f.size)
+    r, shifts = np.empty(m), np.empty(row_starts.size)
+    score = score and p > 0
+    S1, T1 = (np.empty((K, p)), np.empty((T, p))) if score else (np.empty((0, p)),) * 2
+    sc = np.empty(p)
+    beta = np.ascontiguousarray(beta, dtype=float)
+    cox_evaluation.score_point(
+        X1, beta, row_starts, row_counts, k_bounds, w, L.unit_w, b, late_rows, late_at,
+        wsum_untied if efron_terms else wsum, D.xwe, tie_k, tie_d, tie_f, tie_wavg, k_group,
+        ev_f, score, r, shifts, s0, S1, t0, T1, den, sc)
+    # the events' summed w (eta - shift): sum_i we_i x_i' beta less each stratum's shift
+    loglik = float(D.xwe @ beta) - float(we_strata @ shifts) if p else 0.0
     with np.errstate(divide="ignore", invalid="ignore"):
         log_s0 = np.log(s0)
         if efron_terms:
@@ -142,7 +169,7 @@ def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool) -> _Po
         else:
             loglik -= float(L.wsum @ log_s0)
     return _Point(loglik, r, s0[None, :], t0 if efron_terms else None,
-                  den if efron_terms else None)
+                  den if efron_terms else None, score=sc if score else None)
 
 
 def _compiled_row_weights(L: Layout, pt: _Point) -> None:
@@ -176,11 +203,13 @@ def _compiled_information(L: Layout, D: _Design, pt: _Point) -> tuple[np.ndarray
                                       efron_terms)
 
 
-def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool) -> _Point:
+def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool,
+           score: bool = True) -> _Point:
     """The log partial likelihood at ``beta`` with the risk-set sums of r (``with_x``: and of
-    r x, which only the information needs)."""
+    r x, which only the information needs). ``score``: the score will be asked for (the
+    compiled path then forms it in the same pass; the numpy path later, in :func:`_score`)."""
     if D.compiled:
-        return _compiled_point(L, D, beta, efron)
+        return _compiled_point(L, D, beta, efron, score and not with_x)
     X1 = D.X1
     p = X1.shape[1] - 1
     loglik = 0.0
@@ -247,6 +276,8 @@ def _row_weights(L: Layout, pt: _Point) -> None:
 
 def _score(L: Layout, D: _Design, pt: _Point) -> np.ndarray:
     """The score at the point (from the risk-set sums of r only)."""
+    if pt.score is not None:
+        return pt.score
     if D.compiled:
         _compiled_row_weights(L, pt)
     else:
@@ -302,7 +333,7 @@ def _evaluate(
     """
     p = D.X1.shape[1] - 1
     order = order if p > 0 else 0
-    pt = _point(L, D, beta, efron, order == 2)
+    pt = _point(L, D, beta, efron, order == 2, order == 1)
     if order == 0 or not np.isfinite(pt.loglik):
         return pt.loglik, np.zeros(p), np.zeros((p, p))
     if order == 1:
