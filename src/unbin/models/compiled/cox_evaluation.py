@@ -317,18 +317,22 @@ def row_weights(r, s0, den, b, late_rows, late_at, k_bounds, wsum, wsum_untied, 
 
 @numba.njit(cache=True, nogil=True)
 def information(X1, r, v, xwe, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_ev, a, a1, a2,
-                efron):  # pragma: no cover
+                efron, S1_given, T1_given):  # pragma: no cover
     """The score and the observed information at the point whose ``r``, row weights ``v``
     and event-time weights ``a`` (``a1``, ``a2``) are given. One pass over the rows in blocks
     that stay in cache: the Gram product ``X1' diag(v) X1`` (a BLAS product per block; its
     first row holds the score's ``X' v``) and the risk-set contributions of ``r x``; then the
-    risk-set sums S1 per stratum and the event-time terms."""
+    risk-set sums S1 per stratum and the event-time terms. ``S1_given`` (K, p) and
+    ``T1_given`` (T, p), when they have rows (the point's score already formed them,
+    :func:`score_point`), are the risk-set sums of r x and the tied events' sums, which are
+    then not formed again."""
     m, q = X1.shape
     p = q - 1
     K = a.size
     B = 1024
     gram = np.zeros((q, q))
-    S1 = np.zeros((K, p))
+    given = S1_given.shape[0] == K and K > 0
+    S1 = S1_given if given else np.zeros((K, p))
     buf = np.empty((min(B, m), q))
     for start in range(0, m, B):
         stop = min(start + B, m)
@@ -336,22 +340,25 @@ def information(X1, r, v, xwe, b, late_rows, late_at, k_bounds, tie_k, tie_d, ti
         scaled = buf[: stop - start]
         for i in range(stop - start):
             vi = v[start + i]
-            ri = r[start + i]
-            bi = b[start + i] - 1
             for j in range(q):
                 scaled[i, j] = block[i, j] * vi
-            for j in range(p):
-                S1[bi, j] += ri * block[i, 1 + j]
+        if not given:
+            for i in range(stop - start):
+                ri = r[start + i]
+                bi = b[start + i] - 1
+                for j in range(p):
+                    S1[bi, j] += ri * block[i, 1 + j]
         gram += np.dot(block.T, scaled)
-    for e in range(late_rows.size):
-        i = late_rows[e]
-        al = late_at[e]
-        for j in range(p):
-            S1[al, j] -= r[i] * X1[i, 1 + j]
-    for s in range(k_bounds.size - 1):  # backwards within each stratum
-        for k in range(k_bounds[s + 1] - 2, k_bounds[s] - 1, -1):
+    if not given:
+        for e in range(late_rows.size):
+            i = late_rows[e]
+            al = late_at[e]
             for j in range(p):
-                S1[k, j] += S1[k + 1, j]
+                S1[al, j] -= r[i] * X1[i, 1 + j]
+        for s in range(k_bounds.size - 1):  # backwards within each stratum
+            for k in range(k_bounds[s + 1] - 2, k_bounds[s] - 1, -1):
+                for j in range(p):
+                    S1[k, j] += S1[k + 1, j]
     info = np.zeros((p, p))
     for k in range(K):
         ak = a[k]
@@ -363,12 +370,16 @@ def information(X1, r, v, xwe, b, late_rows, late_at, k_bounds, tie_k, tie_d, ti
         t1 = np.empty(p)
         pos = 0
         for g in range(tie_k.size):
-            for j in range(p):
-                t1[j] = 0.0
-            for e in range(pos, pos + tie_d[g]):
-                ri = r[tie_ev[e]]
+            if T1_given.shape[0] == tie_k.size:
                 for j in range(p):
-                    t1[j] += ri * X1[tie_ev[e], 1 + j]
+                    t1[j] = T1_given[g, j]
+            else:
+                for j in range(p):
+                    t1[j] = 0.0
+                for e in range(pos, pos + tie_d[g]):
+                    ri = r[tie_ev[e]]
+                    for j in range(p):
+                        t1[j] += ri * X1[tie_ev[e], 1 + j]
             k = tie_k[g]
             g1 = a1[g]
             g2 = a2[g]

@@ -85,6 +85,9 @@ class _Point:
     a1: np.ndarray | None = None
     a2: np.ndarray | None = None
     score: np.ndarray | None = None  # the compiled point's score, when it was asked for
+    # with it, the compiled point's risk-set sums of r x (K, p) and tied events' sums (T, p)
+    S1: np.ndarray | None = None
+    T1: np.ndarray | None = None
 
 
 def _kernel_arrays(L: Layout, efron: bool) -> tuple[np.ndarray, ...]:
@@ -169,7 +172,8 @@ def _compiled_point(L: Layout, D: _Design, beta: np.ndarray, efron: bool,
         else:
             loglik -= float(L.wsum @ log_s0)
     return _Point(loglik, r, s0[None, :], t0 if efron_terms else None,
-                  den if efron_terms else None, score=sc if score else None)
+                  den if efron_terms else None, score=sc if score else None,
+                  S1=S1 if score else None, T1=T1 if score and efron_terms else None)
 
 
 def _compiled_row_weights(L: Layout, pt: _Point) -> None:
@@ -198,9 +202,13 @@ def _compiled_information(L: Layout, D: _Design, pt: _Point) -> tuple[np.ndarray
     efron_terms = pt.den is not None
     (_, b, late_rows, late_at, k_bounds, _, _, tie_k, tie_d, _, _,
      tie_ev) = _kernel_arrays(L, efron_terms)
+    p = D.X1.shape[1] - 1
+    none = np.empty((0, p))
+    # (the sums of r x that the point's score formed are not formed again)
     return cox_evaluation.information(D.X1, pt.r, pt.v, D.xwe, b, late_rows, late_at,
                                       k_bounds, tie_k, tie_d, tie_ev, pt.a, pt.a1, pt.a2,
-                                      efron_terms)
+                                      efron_terms, none if pt.S1 is None else pt.S1.copy(),
+                                      none if pt.T1 is None else pt.T1)
 
 
 def _point(L: Layout, D: _Design, beta: np.ndarray, efron: bool, with_x: bool,
