@@ -3,16 +3,16 @@ strata, delayed entry, case weights) as compiled loops over one layout's arrays.
 
 The numbers are those of ``unbin.models.cox.likelihood``'s numpy path (``_point``,
 ``_row_weights``, ``_score``, ``_information``), whose docstrings and DEVELOPERS.md ("The Cox
-engine's performance") give the algebra; only the summation order differs. Rows are the
+engine's performance") give the algebra; only the summation order (and, in ``score_point``,
+the shift of the linear predictor and its own ``exp``, within 1 ulp of numpy's) differs. Rows are the
 layout's kept rows in (stratum, time) order, each at risk at the event times ``(a_i, b_i]``
 (``b_i`` nondecreasing; the argument ``b`` holds ``b_i + 1``, the layout's ``b_idx``); the
 risk-set sums are per-event-time contributions (``+`` at ``b_i``, ``-`` at ``a_i`` for a row
 that entered after its stratum's first event time, listed in ``late_rows`` with ``late_at``)
 summed backwards within each stratum, and the weights of the Gram product ``X' diag(v) X``
 are forward sums over event times. Every function here is one pass over the rows and one or
-two over the event times. ``X beta``, ``exp``, ``log`` and the score's ``X' v`` stay with
-the caller (numpy's vectorised loops and BLAS are faster than compiled scalar ones: numba has
-no vectorised ``exp``/``log`` without Intel's SVML)."""
+two over the event times. ``score_point`` forms ``X beta``, ``exp`` and the score in its
+pass; the logarithms and the Gram product's BLAS blocks stay numpy's."""
 
 from __future__ import annotations
 
@@ -115,6 +115,12 @@ def score_point(X1, beta, row_starts, row_counts, k_bounds, w, unit_w, b, late_r
     common)."""
     m, q = X1.shape
     p = q - 1
+    # at coefficients all zero (the log-likelihood at zero) eta is 0: the design is read only
+    # for the score's sums of r x
+    p_read = 0
+    for j in range(p):
+        if beta[j] != 0.0:
+            p_read = p
     K = s0.size
     T = tie_k.size
     for k in range(K):
@@ -142,7 +148,7 @@ def score_point(X1, beta, row_starts, row_counts, k_bounds, w, unit_w, b, late_r
             top = -np.inf
             for i in range(n):
                 e = 0.0
-                for j in range(p):
+                for j in range(p_read):
                     e += X1[start + i, 1 + j] * beta[j]
                 buf[i] = e
                 if e > top:

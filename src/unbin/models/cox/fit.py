@@ -117,7 +117,9 @@ def _diverging(step: np.ndarray, beta: np.ndarray, tol: float) -> np.ndarray:
 
 def _settled(D: _Design, step: np.ndarray, tol: float, limit: float | None = None) -> bool:
     """The step changes no row's linear predictor by more than ``limit`` (``100 * tol``): first
-    a bound (``|step| . reach``), then, near that point only, the exact largest change."""
+    a bound (``|step| . reach``), then, near that point only, the exact largest change (on a
+    compiled design by a kernel that stops at the first row beyond the limit: the same
+    decision)."""
     limit = 100.0 * tol if limit is None else limit
     bound = float(np.abs(step) @ D.reach)
     if bound <= limit:
