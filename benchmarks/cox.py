@@ -8,6 +8,8 @@
                                                      # (--ties is another name of --time-unit)
     python benchmarks/cox.py --n 200000 --p 8 --time-unit days --phases
                                                      # where one fit's CPU time goes
+    python benchmarks/cox.py --n 1000000 --p 8 --time-unit days --refits 4
+                                                     # bootstrap replicates' refits (CPU ms)
 
 The data are an invented registry cohort: a biomarker with a U-shaped log hazard, age and sex;
 follow-up up to 10 years with administrative censoring and random loss. p = 2 fits the
@@ -225,6 +227,57 @@ def phases(n: int, p: int, seed: int, time_unit: str, repeats: int) -> dict[str,
     }
 
 
+def refits(n: int, p: int, seed: int, time_unit: str, replicates: int) -> dict[str, Any]:
+    """CPU milliseconds per bootstrap replicate's refit (``near_start`` once, then
+    ``refit_replicate`` with the log-likelihood, as the information bootstrap refits one at a
+    time above 300,000 rows), and of it the secant steps (``_near_steps``: the evaluations
+    after the start's and the stopping tests); the replicates' layouts are prepared before
+    timing. Times in days are divided by 365.25 (years, as the registry benchmark's). Also the
+    estimates and log-likelihoods, to compare two versions of the engine."""
+    import time
+
+    from unbin.models.cox import fit as engine
+    from unbin.models.cox import prepare_layout
+
+    X, time_, event = simulate(n, p, seed, time_unit)
+    if time_unit == "days":
+        time_ = time_ / 365.25
+    full = prepare_layout(time_, event)
+    start = engine.near_start(X, fit_cox(X, time_, event, layout=full).coef, full)
+    assert start is not None
+    rng = np.random.default_rng(seed + 1)
+    drawn = []
+    for _ in range(replicates + 1):
+        rows = np.sort(rng.integers(0, n, n))
+        drawn.append((rows, prepare_layout(time_[rows], event[rows])))
+    spent = [0.0]
+    real = engine._near_steps
+
+    def steps(*args: Any, **kwargs: Any) -> Any:
+        begin = time.process_time()
+        try:
+            return real(*args, **kwargs)
+        finally:
+            spent[0] += time.process_time() - begin
+
+    engine._near_steps = steps
+    try:
+        engine.refit_replicate(start, X, *drawn[0], with_loglik=True)  # warm-up
+        spent[0] = 0.0
+        begin = time.process_time()
+        got = [engine.refit_replicate(start, X, rows, L, with_loglik=True)
+               for rows, L in drawn[1:]]
+        total = time.process_time() - begin
+    finally:
+        engine._near_steps = real
+    return {
+        "n": n, "p": p, "time_unit": time_unit, "seed": seed, "replicates": replicates,
+        "refit_cpu_ms": 1e3 * total / replicates,
+        "secant_steps_cpu_ms": 1e3 * spent[0] / replicates,
+        "estimates": [None if g is None else [*map(float, g[0]), g[1]] for g in got],
+    }
+
+
 def markdown(rows: list[dict[str, Any]]) -> str:
     head = (
         "| n | p | events | unbin s | unbin iterations | unbin peak MiB | lifelines s "
@@ -276,6 +329,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--phases", action="store_true",
                         help="with --n: CPU milliseconds of the parts of one unbin fit (no "
                              "lifelines), median of --repeats fits per cohort")
+    parser.add_argument("--refits", type=int, metavar="R",
+                        help="with --n: CPU ms per refit of R bootstrap replicates (one at a "
+                             "time, from the full sample's estimate; no lifelines), as JSON")
     parser.add_argument("--clock", choices=("wall", "cpu"), default="wall",
                         help="wall: elapsed seconds; cpu: this process' CPU seconds (steadier on "
                              "a shared machine)")
@@ -294,6 +350,9 @@ def main(argv: list[str] | None = None) -> int:
             clock=args.clock,
         )
 
+    if args.n is not None and args.refits:
+        print(json.dumps(refits(args.n, args.p, args.seed, args.time_unit, args.refits)))
+        return 0
     if args.n is not None and args.phases:
         parts = [phases(args.n, args.p, args.seed + i, args.time_unit, args.repeats)
                  for i in range(args.cohorts)]
