@@ -109,18 +109,21 @@ _RADIX_MIN_ROWS = 4096  # below this a plain sort is as fast as the check
 
 
 def _time_order(t: np.ndarray) -> np.ndarray:
-    """``argsort(t)``. Times that are whole numbers spanning fewer than 2**16 values (e.g. days,
-    as registries store them) are sorted as 16-bit integers by numpy's radix sort, several
-    times faster on such heavily tied data; rows tied in time keep their input order."""
+    """``argsort(t, kind="stable")``: rows tied in time keep their input order, on every time
+    scale (what :func:`draw_layout` relies on). Times that are whole numbers spanning fewer
+    than 2**16 values (e.g. days, as registries store them) are sorted as 16-bit integers by
+    numpy's radix sort, several times faster on such heavily tied data; other times (e.g.
+    years as fractions) by numpy's stable sort of the floats (at 1,000,000 rows about as fast
+    as its default, unstable one)."""
     small = _day_offsets(t)
     if small is not None:
         return np.argsort(small, kind="stable")
-    return np.argsort(t)
+    return np.argsort(t, kind="stable")
 
 
 def _day_offsets(t: np.ndarray) -> np.ndarray | None:
-    """``t`` less its smallest value as 16-bit integers when :func:`_time_order` sorts them
-    so (stably: rows tied in time keep their input order), else None."""
+    """``t`` less its smallest value as 16-bit integers when they are whole numbers spanning
+    fewer than 2**16 values (and there are at least ``_RADIX_MIN_ROWS``), else None."""
     if t.size >= _RADIX_MIN_ROWS:
         lo = t.min()
         if t.max() - lo < 2**16 - 1:
@@ -129,13 +132,6 @@ def _day_offsets(t: np.ndarray) -> np.ndarray | None:
             if np.array_equal(small, offset):
                 return small
     return None
-
-
-def stable_times(time: Any) -> bool:
-    """Whether :func:`prepare_layout` sorts these times (and any subset of them of at least
-    ``_RADIX_MIN_ROWS`` rows) stably, rows tied in time in their input order: the condition
-    under which :func:`draw_layout` derives a replicate's layout from this sample's."""
-    return _day_offsets(np.asarray(time, dtype=float)) is not None
 
 
 @dataclass(frozen=True)
@@ -493,23 +489,22 @@ def draw_layout(
     ``weights[i]`` (one per row of the full sample; None: no weights); ``codes``: the full
     sample's stratum code of every row (``inputs._stratum_codes``; None without strata).
 
-    Valid only where ``prepare_layout`` sorts both the full sample and the replicate stably
-    (:func:`stable_times` of the full sample's times, true for whole days spanning fewer than
-    2^16 values; the caller checks it once): the replicate's rows by (stratum, time) are then
-    the full sample's sorted rows, each repeated as drawn, ties in row order. The replicate's
+    Valid because ``prepare_layout`` sorts every sample stably, on every time scale (rows tied
+    in stratum and time in input order, :func:`_time_order`): the replicate's rows by (stratum,
+    time) are the full sample's sorted rows, each repeated as drawn, ties in row order. The replicate's
     event times are those of the full sample holding a drawn event, so each row's event-time
     indices (last at or before its time, its entry, its stratum's first) are counts of them
     up to the full sample's indices; a row the full sample drops (at risk at no event time) is
     dropped by the replicate too. The result equals ``prepare_layout``'s array for array.
-    None where that does not hold (fewer than ``_RADIX_MIN_ROWS`` drawn rows, no drawn event):
-    the caller then prepares the layout."""
+    None where no drawn row is an event: the caller then prepares the layout (which reports
+    that)."""
     copies = np.asarray(copies).astype(np.int64)
     if copies.shape != (full.n,):
         raise ValueError(f"copies must have one value per row of the full sample ({full.n}), "
                          f"got shape {copies.shape}")
     N = int(copies.sum())
     K = full.k_time.size
-    if N < _RADIX_MIN_ROWS or K == 0:
+    if N == 0 or K == 0:
         return None
     c_k = copies[full.order]  # copies of each of the full sample's kept rows
     b_full = full.b_idx - 1
