@@ -67,12 +67,15 @@ def _cohort(n: int, seed: int, *, entry: bool, strata: bool, weights: bool, scal
     return {"x": x, "time": time, "event": event, "entry": en, "strata": st, "w": w}
 
 
+@pytest.mark.parametrize("mode", ["never", "always"])  # the numpy passes; the compiled pass
 @pytest.mark.parametrize("scale", ["days", "years", "continuous"])
 @pytest.mark.parametrize(("entry", "strata", "weights"),
                          [(True, True, False), (True, True, True), (False, True, True),
                           (True, False, False), (False, False, False)])
 def test_derived_layout_is_the_drawn_rows_own(entry: bool, strata: bool, weights: bool,
-                                              scale: str) -> None:
+                                              scale: str, mode: str,
+                                              monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("UNBIN_COMPILED", mode)
     n = 6000
     c = _cohort(n, 5, entry=entry, strata=strata, weights=weights, scale=scale)
     time, event, en, st, w = c["time"], c["event"], c["entry"], c["strata"], c["w"]

@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 from scipy import sparse
 
+from .. import compiled
 from .inputs import _check_finite, _checked_sample, _design
 
 
@@ -506,14 +507,50 @@ def draw_layout(
     K = full.k_time.size
     if N == 0 or K == 0:
         return None
-    c_k = copies[full.order]  # copies of each of the full sample's kept rows
     b_full = full.b_idx - 1
     has = np.zeros(K, dtype=bool)  # the replicate's event times (among the full sample's)
-    has[b_full[full.ev[c_k[full.ev] > 0]]] = True
+    has[b_full[full.ev[copies[full.order[full.ev]] > 0]]] = True
     if not has.any():
         return None
     count = np.zeros(K + 1, dtype=np.int64)  # replicate event times before each full one
     np.cumsum(has, out=count[1:])
+    # each row's first copy among the drawn rows (a row's copies side by side, in row order)
+    first = np.cumsum(copies)
+    first -= copies
+    if codes is None:
+        recode, labels, n_strata = None, full.labels, 1
+        k_stratum = full.k_stratum[has]
+    else:
+        present = np.zeros(full.labels.size, dtype=bool)
+        present[codes[copies > 0]] = True
+        recode = np.cumsum(present) - 1
+        labels, n_strata = full.labels[present], int(present.sum())
+        k_stratum = recode[full.k_stratum[has]]
+    w = None if weights is None else np.asarray(weights, dtype=float)
+    if compiled.wanted(N, DRAW_FROM_ROWS):
+        rows = _drawn_rows_compiled(full, copies, first, count, recode, w, N)
+    else:
+        rows = _drawn_rows(full, copies, first, count, recode, w)
+    order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, events = rows
+    return _assemble(N, order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, full.k_time[has],
+                     k_stratum, labels, n_strata, events)
+
+
+DRAW_FROM_ROWS = 20_000  # drawn rows from which draw_layout's rows come from one compiled pass
+
+_DrawnRows = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None,
+                   np.ndarray | None, np.ndarray, np.ndarray, np.ndarray, int]
+
+
+def _drawn_rows(
+    full: Layout, copies: np.ndarray, first: np.ndarray, count: np.ndarray,
+    recode: np.ndarray | None, w: np.ndarray | None,
+) -> _DrawnRows:
+    """:func:`draw_layout`'s replicate rows in (stratum, time) order, by numpy passes: their
+    positions among the drawn rows, time, event, stratum code, entry, weight, event-time
+    indices b, a and lo, and the replicate's number of events."""
+    c_k = copies[full.order]  # copies of each of the full sample's kept rows
+    b_full = full.b_idx - 1
     lo_full = full.seg_start[b_full]
     a_full = np.where(full.a_idx > 0, full.a_idx - 1, lo_full - 1)
     b = count[b_full + 1] - 1
@@ -521,26 +558,42 @@ def draw_layout(
     rows = np.flatnonzero((c_k > 0) & (b > a))  # drawn, at risk at a replicate event time
     c = c_k[rows]
     rep = np.repeat(rows, c)  # the full sample's kept row of each of the replicate's
-    # each copy's position among the drawn rows: a row's first copy after the earlier rows'
-    first = np.cumsum(copies)
-    first -= copies
     order = np.repeat(first[full.order[rows]], c)
     order += np.arange(rep.size)
     order -= np.repeat(np.cumsum(c) - c, c)
     lo = count[lo_full[rep]]
-    if codes is None:
-        sc_s, labels, n_strata = None, full.labels, 1
-        k_stratum = full.k_stratum[has]
+    if recode is None:
+        sc_s = None
     else:
-        present = np.zeros(full.labels.size, dtype=bool)
-        present[codes[copies > 0]] = True
-        recode = np.cumsum(present) - 1
-        labels, n_strata = full.labels[present], int(present.sum())
         assert full.code_s is not None
         sc_s = recode[full.code_s[rep]]
-        k_stratum = recode[full.k_stratum[has]]
-    w_s = None if weights is None else np.asarray(weights, dtype=float)[full.order[rep]]
+    w_s = None if w is None else w[full.order[rep]]
     events = int(np.dot(c_k, full.event_s))
-    return _assemble(N, order, full.time_s[rep], full.event_s[rep], sc_s,
-                     None if full.entry_s is None else full.entry_s[rep], w_s, b[rep], a[rep],
-                     lo, full.k_time[has], k_stratum, labels, n_strata, events)
+    return (order, full.time_s[rep], full.event_s[rep], sc_s,
+            None if full.entry_s is None else full.entry_s[rep], w_s, b[rep], a[rep], lo, events)
+
+
+def _drawn_rows_compiled(
+    full: Layout, copies: np.ndarray, first: np.ndarray, count: np.ndarray,
+    recode: np.ndarray | None, w: np.ndarray | None, N: int,
+) -> _DrawnRows:
+    """:func:`_drawn_rows` as one compiled pass (``compiled.cox_draw``), the same arrays."""
+    from ..compiled import cox_draw
+
+    none_i, none_f = np.zeros(0, dtype=np.int64), np.zeros(0)
+    order = np.empty(N, dtype=np.int64)
+    t_s, e_s = np.empty(N), np.empty(N, dtype=bool)
+    en_s = none_f if full.entry_s is None else np.empty(N)
+    sc_s = none_i if recode is None else np.empty(N, dtype=np.int64)
+    w_s = none_f if w is None else np.empty(N)
+    b, a, lo = (np.empty(N, dtype=np.int64) for _ in range(3))
+    # the draws of the laid-out rows gathered first (independent loads), then read in order
+    m, events = cox_draw.drawn_rows(
+        copies[full.order], first[full.order], full.b_idx, full.a_idx, full.seg_start, count, full.time_s,
+        full.event_s, none_f if full.entry_s is None else full.entry_s,
+        none_i if recode is None or full.code_s is None else full.code_s,
+        none_i if recode is None else recode, none_f if w is None else w[full.order],
+        order, t_s, e_s, en_s, sc_s, w_s, b, a, lo)
+    return (order[:m], t_s[:m], e_s[:m], None if recode is None else sc_s[:m],
+            None if full.entry_s is None else en_s[:m], None if w is None else w_s[:m],
+            b[:m], a[:m], lo[:m], int(events))
