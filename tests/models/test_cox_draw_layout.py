@@ -124,8 +124,12 @@ def test_declines_what_it_cannot_derive() -> None:
         draw_layout(full, np.ones(10), None, codes)
 
 
-def test_fit_on_derived_layout_matches_lifelines() -> None:
-    # reference: lifelines CoxPHFitter (Efron ties, strata, entry_col) on the drawn rows
+@pytest.mark.parametrize("mode", ["never", "always"])
+def test_fit_on_derived_layout_matches_lifelines(mode: str,
+                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    # reference: lifelines CoxPHFitter (Efron ties, strata, entry_col) on the drawn rows; the
+    # layout derived by the numpy passes and by the compiled pass (compiled/cox_draw.py)
+    monkeypatch.setenv("UNBIN_COMPILED", mode)
     n = 5000
     c = _cohort(n, 7, entry=True, strata=True, weights=False)
     time, event, en, st, x = c["time"], c["event"], c["entry"], c["strata"], c["x"]
