@@ -5,7 +5,7 @@ times), 4 strata, 6 columns (normal, binary, uniform), about 12% events. Replica
 with replacement (seeded), each drawn row repeated as often as drawn (as the resampling tables
 lay them out), the replicate's layout prepared before timing (its CPU time is printed apart:
 the batched refits do not need it), and the same layout derived from the full sample's
-(``cox.layout.draw_layout``, as the resampling tables make it for whole-day times; timed
+(``cox.layout.draw_layout``, as the resampling tables make it on every time scale; timed
 apart too, and required identical to the prepared one).
 
 Ways: ``own`` is ``unbin.models.cox.refit_near`` on the replicate's copy of its design rows
@@ -160,7 +160,7 @@ def run(rows: int, replicates: int, checked: int) -> None:
 
 def _same_layout(got: Layout | None, want: Layout) -> None:
     """``draw_layout``'s layout equals ``prepare_layout``'s array for array."""
-    assert got is not None, "draw_layout declined a replicate of whole-day times"
+    assert got is not None, "draw_layout declined a replicate"
     for name, value in vars(want).items():
         if name == "subsamples":
             continue

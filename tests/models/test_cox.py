@@ -808,19 +808,23 @@ def days() -> pd.DataFrame:
     )
 
 
-def test_time_order_of_whole_days_is_numpys_stable_sort() -> None:
-    # reference: numpy's stable argsort of the float times (brute force, written here);
-    # whole numbers of small span take the 16-bit path, others the general sort
+def test_time_order_is_a_stable_sort_on_every_time_scale() -> None:
+    # reference: numpy's stable argsort of the float times; whole numbers of small span take
+    # the 16-bit path, others the general sort, both stable (rows tied in time in input order,
+    # checked directly too)
     from unbin.models.cox.layout import _time_order
 
     rng = np.random.default_rng(7)
     days = np.ceil(rng.exponential(400.0, 10_000))
-    for t in (days, days - 5_000.0, np.minimum(days, 3.0)):  # ties, negative, nearly all tied
-        assert np.array_equal(_time_order(t), np.argsort(t, kind="stable"))
-    for t in (days + 0.25, days * 70.0, rng.normal(size=10_000)):  # fractions; span >= 2**16
+    for t in (days, days - 5_000.0, np.minimum(days, 3.0),  # ties, negative, nearly all tied
+              days + 0.25, days * 70.0, np.round(days / 365.25, 3),  # fractions; wide span
+              rng.normal(size=10_000), days[:100] / 7.0):  # no ties; few rows
         order = _time_order(t)
-        assert np.array_equal(np.sort(order), np.arange(t.size))
-        assert np.all(np.diff(t[order]) >= 0)
+        assert np.array_equal(order, np.argsort(t, kind="stable"))
+        ts = t[order]
+        assert np.all(np.diff(ts) >= 0)
+        tied = ts[1:] == ts[:-1]
+        assert np.all(order[1:][tied] > order[:-1][tied])
 
 
 def test_times_in_days_match_lifelines(days: pd.DataFrame) -> None:

@@ -244,6 +244,40 @@ def test_replicate_design_matches_numpy_path(
     np.testing.assert_array_equal(Dc.X1[:, 1:], (X[rows[L.order]] - mean) * inv)
 
 
+@pytest.mark.parametrize("p", [1, 8, 11, 17])
+def test_replicate_design_gathers_every_width(
+    monkeypatch: pytest.MonkeyPatch, cohort: dict[str, np.ndarray], p: int
+) -> None:
+    # source: numpy's own gather and arithmetic, (X[rows[order]] - mean) * inv, its column
+    # extremes and the events' summed w x (np.dot); designs narrower and wider than a cache
+    # line's 8 values (the kernel loads one value per line ahead), more rows than a block, a
+    # derived replicate layout (draw_layout) and the full sample's (rows None), with weights
+    from unbin.models.cox.inputs import _stratum_codes
+    from unbin.models.cox.layout import draw_layout
+
+    rng = np.random.default_rng(p)
+    n = cohort["time"].size
+    X = rng.normal(size=(n, p)) * rng.uniform(0.5, 40.0, p)
+    mean, inv = X.mean(0), 1.0 / X.std(0)
+    w = cohort["weights"]
+    full = prepare_layout(cohort["time"], cohort["event"], entry=cohort["entry"],
+                          strata=cohort["strata"], weights=w)
+    copies = rng.multinomial(n, np.full(n, 1.0 / n))
+    rows = np.repeat(np.arange(n), copies)
+    drawn = draw_layout(full, copies, w, _stratum_codes(cohort["strata"], n)[0])
+    assert drawn is not None
+    monkeypatch.setenv("UNBIN_COMPILED", "always")
+    for L, r in ((drawn, rows), (full, None)):
+        idx = L.order if r is None else r[L.order]
+        assert idx.size > 128
+        D, bounds = _replicate_design(X, r, L, mean, inv)
+        ref = (X[idx] - mean) * inv
+        np.testing.assert_array_equal(D.X1[:, 1:], ref)
+        np.testing.assert_array_equal(D.X1[:, 0], 1.0)
+        np.testing.assert_array_equal(bounds, np.stack([ref.max(0), ref.min(0)]))
+        np.testing.assert_allclose(D.xwe, L.we @ ref, rtol=1e-12, atol=1e-11)
+
+
 def test_compiled_fit_never_builds_the_sparse_operators(
     monkeypatch: pytest.MonkeyPatch,
 ) -> None:

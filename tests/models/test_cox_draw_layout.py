@@ -21,7 +21,7 @@ import unbin.models.weighted as weighted
 from unbin.models.base import Outcome
 from unbin.models.cox import Layout, fit_cox, prepare_layout
 from unbin.models.cox.inputs import _stratum_codes
-from unbin.models.cox.layout import draw_layout, stable_times
+from unbin.models.cox.layout import draw_layout
 
 TIGHT = {"precision": 1e-14, "r_precision": 1e-16}
 
@@ -42,15 +42,24 @@ def _assert_same_layout(got: Layout, ref: Layout) -> None:
             assert a == b, (name, a, b)
 
 
-def _cohort(n: int, seed: int, *, entry: bool, strata: bool, weights: bool
+def _cohort(n: int, seed: int, *, entry: bool, strata: bool, weights: bool, scale: str = "days"
             ) -> dict[str, np.ndarray | None]:
-    """Invented: follow-up in whole days (heavily tied), a rare stratum without events
-    (often not drawn at all), delayed entry for about half the rows (some at an event time)."""
+    """Invented: follow-up in whole days (heavily tied), or in years (days / 365.25 rounded to
+    3 decimals, as a registry extract stores them: tied, fractions, more than 2^16 distinct
+    values impossible to sort as 16-bit offsets), or continuous (no ties); a rare stratum
+    without events (often not drawn at all), delayed entry for about half the rows (some at an
+    event time)."""
     rng = np.random.default_rng(seed)
     x = rng.normal(size=(n, 2))
     time = np.ceil(rng.exponential(300 * np.exp(-0.4 * x[:, 0]), n)) + 1
     event = rng.uniform(size=n) < 0.3
     en = np.floor(rng.uniform(0, 1, n) * time * (rng.uniform(size=n) < 0.5)) if entry else None
+    if scale == "years":
+        time = np.round(time / 365.25, 3)
+        en = None if en is None else np.round(en / 365.25, 3)
+    elif scale == "continuous":
+        time = time - rng.uniform(0.0, 0.999, n)
+        en = None if en is None else np.minimum(en, time - 1e-3) * rng.uniform(0.5, 1.0, n)
     st = rng.choice(np.array(["north", "south", "west"]), n) if strata else None
     if st is not None:
         st[:3], event[:3] = "zz-rare", False
@@ -58,15 +67,24 @@ def _cohort(n: int, seed: int, *, entry: bool, strata: bool, weights: bool
     return {"x": x, "time": time, "event": event, "entry": en, "strata": st, "w": w}
 
 
+@pytest.mark.parametrize("mode", ["never", "always"])  # the numpy passes; the compiled pass
+@pytest.mark.parametrize("scale", ["days", "years", "continuous"])
 @pytest.mark.parametrize(("entry", "strata", "weights"),
                          [(True, True, False), (True, True, True), (False, True, True),
                           (True, False, False), (False, False, False)])
-def test_derived_layout_is_the_drawn_rows_own(entry: bool, strata: bool, weights: bool) -> None:
+def test_derived_layout_is_the_drawn_rows_own(entry: bool, strata: bool, weights: bool,
+                                              scale: str, mode: str,
+                                              monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("UNBIN_COMPILED", mode)
     n = 6000
-    c = _cohort(n, 5, entry=entry, strata=strata, weights=weights)
+    c = _cohort(n, 5, entry=entry, strata=strata, weights=weights, scale=scale)
     time, event, en, st, w = c["time"], c["event"], c["entry"], c["strata"], c["w"]
     assert time is not None and event is not None
-    assert stable_times(time)
+    distinct = np.unique(time).size
+    if scale == "continuous":
+        assert distinct == n  # no ties
+    else:
+        assert distinct < n // 3  # heavily tied
     full = prepare_layout(time, event, entry=en, strata=st, weights=w)
     codes = None if st is None else _stratum_codes(st, n)[0]
     rng = np.random.default_rng(9)
@@ -75,6 +93,9 @@ def test_derived_layout_is_the_drawn_rows_own(entry: bool, strata: bool, weights
     p = np.full(n, 1 / (n - 3))
     p[:3] = 0.0
     draws.append(rng.multinomial(n, p))  # the rare stratum not drawn: fewer labels
+    few = np.zeros(n, dtype=np.int64)
+    few[:1500] = rng.integers(0, 3, 1500)  # fewer drawn rows than the 16-bit sort takes
+    draws.append(few)
     for copies in draws:
         m = np.repeat(np.arange(n), copies)
         ref = prepare_layout(time[m], event[m], entry=None if en is None else en[m],
@@ -84,7 +105,10 @@ def test_derived_layout_is_the_drawn_rows_own(entry: bool, strata: bool, weights
         assert got is not None
         _assert_same_layout(got, ref)
     if strata:
-        assert ref.n_strata == full.n_strata - 1  # (the last draw)
+        assert draws[4][:3].sum() == 0
+        # (the draw without the rare stratum)
+        ref = draw_layout(full, draws[4].astype(float), w, codes)
+        assert ref is not None and ref.n_strata == full.n_strata - 1
 
 
 def test_declines_what_it_cannot_derive() -> None:
@@ -93,19 +117,19 @@ def test_declines_what_it_cannot_derive() -> None:
     assert time is not None and event is not None
     full = prepare_layout(time, event, entry=c["entry"], strata=c["strata"])
     codes = _stratum_codes(c["strata"], 6000)[0]
-    few = np.zeros(6000)
-    few[:4000] = 1  # fewer drawn rows than the stable sort needs
-    assert draw_layout(full, few, None, codes) is None
     no_events = (~event).astype(float)
     assert draw_layout(full, no_events, None, codes) is None
+    assert draw_layout(full, np.zeros(6000), None, codes) is None
     with pytest.raises(ValueError, match="one value per row"):
         draw_layout(full, np.ones(10), None, codes)
-    # times that are not whole days are sorted unstably: no derivation offered
-    assert not stable_times(time + 0.5 * np.random.default_rng(1).uniform(size=6000))
 
 
-def test_fit_on_derived_layout_matches_lifelines() -> None:
-    # reference: lifelines CoxPHFitter (Efron ties, strata, entry_col) on the drawn rows
+@pytest.mark.parametrize("mode", ["never", "always"])
+def test_fit_on_derived_layout_matches_lifelines(mode: str,
+                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    # reference: lifelines CoxPHFitter (Efron ties, strata, entry_col) on the drawn rows; the
+    # layout derived by the numpy passes and by the compiled pass (compiled/cox_draw.py)
+    monkeypatch.setenv("UNBIN_COMPILED", mode)
     n = 5000
     c = _cohort(n, 7, entry=True, strata=True, weights=False)
     time, event, en, st, x = c["time"], c["event"], c["entry"], c["strata"], c["x"]

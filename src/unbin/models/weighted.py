@@ -623,14 +623,13 @@ def resampled_cox_samples(outcome: Outcome, W: np.ndarray, which: Sequence[int] 
 
 def _draw_source(outcome: Outcome) -> tuple[Layout, np.ndarray | None] | None:
     """The full sample's Cox layout and every row's stratum code, from which
-    ``cox.layout.draw_layout`` derives the replicates' layouts; None where the full sample's
-    times are not sorted stably (``cox.layout.stable_times``) or it cannot be laid out. Kept
-    in ``outcome.cache``."""
+    ``cox.layout.draw_layout`` derives the replicates' layouts (``prepare_layout`` sorts every
+    time scale stably, so the derivation holds for any times); None where the full sample
+    cannot be laid out. Kept in ``outcome.cache``."""
     from .cox.inputs import _stratum_codes
-    from .cox.layout import stable_times
 
     if _DRAW_SOURCE not in outcome.cache:
-        layout = _full_layout(outcome) if stable_times(outcome.time) else None
+        layout = _full_layout(outcome)
         codes = (None if layout is None or outcome.strata is None
                  else _stratum_codes(outcome.strata, outcome.n)[0])
         outcome.cache[_DRAW_SOURCE] = None if layout is None else (layout, codes)

@@ -17,7 +17,6 @@ from .layout import Layout, _design_and_layout, _given_layout, _prepare
 from .likelihood import (
     EVALUATION_FROM_ROWS,
     _column_stats,
-    _compiled_standardised,
     _Design,
     _evaluate,
     _information,
@@ -679,10 +678,14 @@ def _replicate_design(
     X1 = np.empty((L.order.size, 1 + Xa.shape[1]))
     X1[:, 0] = 1.0
     bounds = np.empty((2, Xa.shape[1]))
-    if compiled.wanted(L.order.size, EVALUATION_FROM_ROWS):  # (a scatter from Xa's rows)
-        xwe = _compiled_standardised(X1, Xa, rows, L, (mean, inv), bounds)[4]
+    idx = L.order if rows is None else rows[L.order]  # the source row of each laid-out row
+    if compiled.wanted(L.order.size, EVALUATION_FROM_ROWS):
+        from ..compiled import cox_standardise  # (a gather, its random reads overlapped)
+
+        xwe = np.empty(Xa.shape[1])
+        cox_standardise.gather_standardised(X1, Xa, np.asarray(idx, dtype=np.int64), L.we,
+                                            mean, inv, bounds, True, xwe)
     else:
-        idx = L.order if rows is None else rows[L.order]
         xwe = _write_standardised(X1, Xa, idx, mean, inv, L.we, bounds)
     reach = np.maximum(bounds[0], -bounds[1])
     return _Design.of(X1, L.we, reach, xwe), bounds

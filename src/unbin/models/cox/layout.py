@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 from scipy import sparse
 
+from .. import compiled
 from .inputs import _check_finite, _checked_sample, _design
 
 
@@ -109,18 +110,21 @@ _RADIX_MIN_ROWS = 4096  # below this a plain sort is as fast as the check
 
 
 def _time_order(t: np.ndarray) -> np.ndarray:
-    """``argsort(t)``. Times that are whole numbers spanning fewer than 2**16 values (e.g. days,
-    as registries store them) are sorted as 16-bit integers by numpy's radix sort, several
-    times faster on such heavily tied data; rows tied in time keep their input order."""
+    """``argsort(t, kind="stable")``: rows tied in time keep their input order, on every time
+    scale (what :func:`draw_layout` relies on). Times that are whole numbers spanning fewer
+    than 2**16 values (e.g. days, as registries store them) are sorted as 16-bit integers by
+    numpy's radix sort, several times faster on such heavily tied data; other times (e.g.
+    years as fractions) by numpy's stable sort of the floats (at 1,000,000 rows about as fast
+    as its default, unstable one)."""
     small = _day_offsets(t)
     if small is not None:
         return np.argsort(small, kind="stable")
-    return np.argsort(t)
+    return np.argsort(t, kind="stable")
 
 
 def _day_offsets(t: np.ndarray) -> np.ndarray | None:
-    """``t`` less its smallest value as 16-bit integers when :func:`_time_order` sorts them
-    so (stably: rows tied in time keep their input order), else None."""
+    """``t`` less its smallest value as 16-bit integers when they are whole numbers spanning
+    fewer than 2**16 values (and there are at least ``_RADIX_MIN_ROWS``), else None."""
     if t.size >= _RADIX_MIN_ROWS:
         lo = t.min()
         if t.max() - lo < 2**16 - 1:
@@ -129,13 +133,6 @@ def _day_offsets(t: np.ndarray) -> np.ndarray | None:
             if np.array_equal(small, offset):
                 return small
     return None
-
-
-def stable_times(time: Any) -> bool:
-    """Whether :func:`prepare_layout` sorts these times (and any subset of them of at least
-    ``_RADIX_MIN_ROWS`` rows) stably, rows tied in time in their input order: the condition
-    under which :func:`draw_layout` derives a replicate's layout from this sample's."""
-    return _day_offsets(np.asarray(time, dtype=float)) is not None
 
 
 @dataclass(frozen=True)
@@ -493,32 +490,67 @@ def draw_layout(
     ``weights[i]`` (one per row of the full sample; None: no weights); ``codes``: the full
     sample's stratum code of every row (``inputs._stratum_codes``; None without strata).
 
-    Valid only where ``prepare_layout`` sorts both the full sample and the replicate stably
-    (:func:`stable_times` of the full sample's times, true for whole days spanning fewer than
-    2^16 values; the caller checks it once): the replicate's rows by (stratum, time) are then
-    the full sample's sorted rows, each repeated as drawn, ties in row order. The replicate's
+    Valid because ``prepare_layout`` sorts every sample stably, on every time scale (rows tied
+    in stratum and time in input order, :func:`_time_order`): the replicate's rows by (stratum,
+    time) are the full sample's sorted rows, each repeated as drawn, ties in row order. The replicate's
     event times are those of the full sample holding a drawn event, so each row's event-time
     indices (last at or before its time, its entry, its stratum's first) are counts of them
     up to the full sample's indices; a row the full sample drops (at risk at no event time) is
     dropped by the replicate too. The result equals ``prepare_layout``'s array for array.
-    None where that does not hold (fewer than ``_RADIX_MIN_ROWS`` drawn rows, no drawn event):
-    the caller then prepares the layout."""
+    None where no drawn row is an event: the caller then prepares the layout (which reports
+    that)."""
     copies = np.asarray(copies).astype(np.int64)
     if copies.shape != (full.n,):
         raise ValueError(f"copies must have one value per row of the full sample ({full.n}), "
                          f"got shape {copies.shape}")
     N = int(copies.sum())
     K = full.k_time.size
-    if N < _RADIX_MIN_ROWS or K == 0:
+    if N == 0 or K == 0:
         return None
-    c_k = copies[full.order]  # copies of each of the full sample's kept rows
     b_full = full.b_idx - 1
     has = np.zeros(K, dtype=bool)  # the replicate's event times (among the full sample's)
-    has[b_full[full.ev[c_k[full.ev] > 0]]] = True
+    has[b_full[full.ev[copies[full.order[full.ev]] > 0]]] = True
     if not has.any():
         return None
     count = np.zeros(K + 1, dtype=np.int64)  # replicate event times before each full one
     np.cumsum(has, out=count[1:])
+    # each row's first copy among the drawn rows (a row's copies side by side, in row order)
+    first = np.cumsum(copies)
+    first -= copies
+    if codes is None:
+        recode, labels, n_strata = None, full.labels, 1
+        k_stratum = full.k_stratum[has]
+    else:
+        present = np.zeros(full.labels.size, dtype=bool)
+        present[codes[copies > 0]] = True
+        recode = np.cumsum(present) - 1
+        labels, n_strata = full.labels[present], int(present.sum())
+        k_stratum = recode[full.k_stratum[has]]
+    w = None if weights is None else np.asarray(weights, dtype=float)
+    if compiled.wanted(N, DRAW_FROM_ROWS):
+        rows = _drawn_rows_compiled(full, copies, first, count, recode, w, N)
+    else:
+        rows = _drawn_rows(full, copies, first, count, recode, w)
+    order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, events = rows
+    return _assemble(N, order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, full.k_time[has],
+                     k_stratum, labels, n_strata, events)
+
+
+DRAW_FROM_ROWS = 20_000  # drawn rows from which draw_layout's rows come from one compiled pass
+
+_DrawnRows = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None,
+                   np.ndarray | None, np.ndarray, np.ndarray, np.ndarray, int]
+
+
+def _drawn_rows(
+    full: Layout, copies: np.ndarray, first: np.ndarray, count: np.ndarray,
+    recode: np.ndarray | None, w: np.ndarray | None,
+) -> _DrawnRows:
+    """:func:`draw_layout`'s replicate rows in (stratum, time) order, by numpy passes: their
+    positions among the drawn rows, time, event, stratum code, entry, weight, event-time
+    indices b, a and lo, and the replicate's number of events."""
+    c_k = copies[full.order]  # copies of each of the full sample's kept rows
+    b_full = full.b_idx - 1
     lo_full = full.seg_start[b_full]
     a_full = np.where(full.a_idx > 0, full.a_idx - 1, lo_full - 1)
     b = count[b_full + 1] - 1
@@ -526,26 +558,42 @@ def draw_layout(
     rows = np.flatnonzero((c_k > 0) & (b > a))  # drawn, at risk at a replicate event time
     c = c_k[rows]
     rep = np.repeat(rows, c)  # the full sample's kept row of each of the replicate's
-    # each copy's position among the drawn rows: a row's first copy after the earlier rows'
-    first = np.cumsum(copies)
-    first -= copies
     order = np.repeat(first[full.order[rows]], c)
     order += np.arange(rep.size)
     order -= np.repeat(np.cumsum(c) - c, c)
     lo = count[lo_full[rep]]
-    if codes is None:
-        sc_s, labels, n_strata = None, full.labels, 1
-        k_stratum = full.k_stratum[has]
+    if recode is None:
+        sc_s = None
     else:
-        present = np.zeros(full.labels.size, dtype=bool)
-        present[codes[copies > 0]] = True
-        recode = np.cumsum(present) - 1
-        labels, n_strata = full.labels[present], int(present.sum())
         assert full.code_s is not None
         sc_s = recode[full.code_s[rep]]
-        k_stratum = recode[full.k_stratum[has]]
-    w_s = None if weights is None else np.asarray(weights, dtype=float)[full.order[rep]]
+    w_s = None if w is None else w[full.order[rep]]
     events = int(np.dot(c_k, full.event_s))
-    return _assemble(N, order, full.time_s[rep], full.event_s[rep], sc_s,
-                     None if full.entry_s is None else full.entry_s[rep], w_s, b[rep], a[rep],
-                     lo, full.k_time[has], k_stratum, labels, n_strata, events)
+    return (order, full.time_s[rep], full.event_s[rep], sc_s,
+            None if full.entry_s is None else full.entry_s[rep], w_s, b[rep], a[rep], lo, events)
+
+
+def _drawn_rows_compiled(
+    full: Layout, copies: np.ndarray, first: np.ndarray, count: np.ndarray,
+    recode: np.ndarray | None, w: np.ndarray | None, N: int,
+) -> _DrawnRows:
+    """:func:`_drawn_rows` as one compiled pass (``compiled.cox_draw``), the same arrays."""
+    from ..compiled import cox_draw
+
+    none_i, none_f = np.zeros(0, dtype=np.int64), np.zeros(0)
+    order = np.empty(N, dtype=np.int64)
+    t_s, e_s = np.empty(N), np.empty(N, dtype=bool)
+    en_s = none_f if full.entry_s is None else np.empty(N)
+    sc_s = none_i if recode is None else np.empty(N, dtype=np.int64)
+    w_s = none_f if w is None else np.empty(N)
+    b, a, lo = (np.empty(N, dtype=np.int64) for _ in range(3))
+    # the draws of the laid-out rows gathered first (independent loads), then read in order
+    m, events = cox_draw.drawn_rows(
+        copies[full.order], first[full.order], full.b_idx, full.a_idx, full.seg_start, count, full.time_s,
+        full.event_s, none_f if full.entry_s is None else full.entry_s,
+        none_i if recode is None or full.code_s is None else full.code_s,
+        none_i if recode is None else recode, none_f if w is None else w[full.order],
+        order, t_s, e_s, en_s, sc_s, w_s, b, a, lo)
+    return (order[:m], t_s[:m], e_s[:m], None if recode is None else sc_s[:m],
+            None if full.entry_s is None else en_s[:m], None if w is None else w_s[:m],
+            b[:m], a[:m], lo[:m], int(events))
