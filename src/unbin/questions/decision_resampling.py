@@ -89,7 +89,7 @@ from ..models.cox import (
     prepare_layout,
     refit_near,
 )
-from ..models.cox.baseline import baseline_steps
+from ..models.cox.baseline import DrawnHorizon, baseline_steps
 from ..models.cox.concordance import scores_concordances
 from ..models.discrimination import auc, c_index, compared_score, count_aucs
 from ..models.percentile_limits import percentile_limits
@@ -161,6 +161,8 @@ class _Sample:
         self.event_of_interest = o.event_of_interest
         self._order: Any = None
         self._counts: np.ndarray | None = None
+        self._fcounts: np.ndarray | None = None
+        self._drawn_horizon: DrawnHorizon | None = None
         # the Cox layout of these rows (unweighted): given when the replicate's refits made it
         self._layout: Any = layout
         self._outcome: Outcome | None = None
@@ -174,6 +176,20 @@ class _Sample:
         if self._counts is None:
             self._counts = np.bincount(self.idx, minlength=n)
         return self._counts
+
+    def float_counts(self, n: int) -> np.ndarray:
+        """:meth:`row_counts` as floats (the weights of sums over the analysis sample)."""
+        if self._fcounts is None:
+            self._fcounts = self.row_counts(n).astype(float)
+        return self._fcounts
+
+    def drawn_horizon(self) -> DrawnHorizon:
+        """The Breslow baseline at the horizon of any draw of these rows
+        (:class:`unbin.models.cox.baseline.DrawnHorizon` on their layout, made once)."""
+        if self._drawn_horizon is None:
+            assert self.h is not None
+            self._drawn_horizon = DrawnHorizon(self.layout(), self.h, self.strata)
+        return self._drawn_horizon
 
     def layout(self) -> Any:
         """The Cox layout of these rows (sort, risk sets), made once and shared by the models."""
@@ -633,8 +649,17 @@ class _Evaluator:
             return np.asarray(coef[0] + X @ coef[1:])
         assert self.horizon is not None
         lp = X @ coef
-        log_h0, centre = _log_base(fit, lp[fit.idx], self.horizon, self.r.outcome.strata,
-                                   self.r.outcome.n)
+        if fit.base is not None and fit.w is None:
+            # a replicate's drawn rows as draw counts on the sample's rows: the baseline at
+            # the horizon on the sample's event times (DrawnHorizon), no gather or sort
+            counts = fit.float_counts(self.r.outcome.n)
+            centre = float(counts @ lp) / fit.idx.size
+            at_h = fit.base.drawn_horizon()
+            with np.errstate(divide="ignore"):
+                log_h0 = at_h.per_row(np.log(at_h.cumhaz(lp - centre, counts)))
+        else:
+            log_h0, centre = _log_base(fit, lp[fit.idx], self.horizon,
+                                       self.r.outcome.strata, self.r.outcome.n)
         z = log_h0 + lp - centre
         return z if np.all(np.isfinite(z)) else None
 
