@@ -532,7 +532,7 @@ def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model],
         fitted = {k: WeightedGLM("binary", models[k].X, o, models[k].res.coef).coef(W)
                   for k in unique}
     else:
-        def keep(b: int, j: int, Xm: np.ndarray, m: np.ndarray, layout: Any,
+        def keep(b: int, j: int, Xm: np.ndarray | None, m: np.ndarray, layout: Any,
                  coef: np.ndarray) -> None:
             if layouts is not None and o.weights is None:
                 layouts.setdefault(b, layout)
