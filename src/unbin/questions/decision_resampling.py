@@ -311,6 +311,30 @@ class _AtHorizon:
         d_1 = np.bincount(self.mine_at, w[self.mine_rows], minlength=K)
         return Y, d_all, d_1
 
+    def _rule_counts(self, group: np.ndarray, G: int, w: np.ndarray,
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """:meth:`_counts` of the G nested subsets "``group`` > g" (g = 0 .. G - 1; ``group``
+        a whole number 0 .. G per row) at once, each row with weight ``w`` (whole numbers):
+        every row's risk-set entry and exit and every event binned by (group, grid index) in
+        one pass each, then summed over the groups above g. Returns (G, K) arrays Y, d_all,
+        d_1 and each subset's summed weight (G,). Whole numbers throughout, so every sum is
+        exact: the same numbers as :meth:`_counts` of each subset."""
+        K = self.K
+        span = K + 1
+
+        def binned(at: np.ndarray, rows: np.ndarray | None, size: int) -> np.ndarray:
+            g = group if rows is None else group[rows]
+            wr = w if rows is None else w[rows]
+            out = np.bincount(g * size + at, wr, minlength=(G + 1) * size)
+            # the rows of the groups above g: a reverse cumulative sum over the groups
+            return np.cumsum(out.reshape(G + 1, size)[::-1], axis=0)[::-1][1:]
+
+        Y = np.cumsum(binned(self.lo, None, span) - binned(self.hi, None, span), axis=1)[:, :K]
+        d_all = binned(self.ev_at, self.ev_rows, K)
+        d_1 = binned(self.mine_at, self.mine_rows, K)
+        size = np.cumsum(np.bincount(group, w, minlength=G + 1)[::-1])[::-1][1:]
+        return Y, d_all, d_1, size
+
     def survival(self, mask: np.ndarray, counts: np.ndarray | None = None) -> float:
         """S(h) among ``mask``'s rows (each repeated ``counts`` times when given: whole
         numbers, so the risk-set and event counts are the same whole numbers as those of the
@@ -318,7 +342,10 @@ class _AtHorizon:
         else the Kaplan–Meier estimate."""
         if self.K == 0:
             return 1.0
-        Y, d_all, d_1 = self._counts(mask, counts)
+        return self._survival_of(*self._counts(mask, counts))
+
+    def _survival_of(self, Y: np.ndarray, d_all: np.ndarray, d_1: np.ndarray) -> float:
+        """:meth:`survival` from a subset's risk-set and event counts on the grid."""
         if not self.competing:  # km_survival: the product over the subset's own event times
             has = d_all > 0
             if not has.any():
@@ -342,6 +369,8 @@ class _AtHorizon:
         rows repeated as often as they say (a bootstrap replicate's drawn rows): the share
         treated is the same quotient of whole numbers as ``mask.mean()`` of the repeated
         rows, the product-limit the same (``survival``)."""
+        if risk is not None:
+            return self._risk_rule(np.asarray(thresholds, dtype=float), risk, counts)
         tp = np.zeros(len(thresholds))
         fp = np.zeros(len(thresholds))
         done: dict[bytes, tuple[float, float]] = {}
@@ -357,6 +386,36 @@ class _AtHorizon:
                 s = self.survival(mask, counts)
                 done[key] = ((1.0 - s) * share, s * share)
             tp[g], fp[g] = done[key]
+        return np.asarray(tp - fp * thresholds / (1.0 - thresholds))
+
+    def _risk_rule(self, thresholds: np.ndarray, risk: np.ndarray,
+                   counts: np.ndarray | None) -> np.ndarray:
+        """:meth:`net_benefit` of "treat when ``risk`` >= p_t" at every threshold from one
+        pass over the rows: the rules are nested (a higher threshold treats a subset), so each
+        row's group is the number of thresholds (in increasing order) its risk reaches, and
+        the subset treated at the g-th is the rows of a group above g (:meth:`_rule_counts`;
+        a risk that is not a number reaches none). The same whole-number counts, shares and
+        product-limits as the rule's mask at each threshold."""
+        G = thresholds.size
+        up = np.argsort(thresholds, kind="stable")
+        group = np.zeros(self.n, dtype=np.intp)
+        for t in thresholds[up]:
+            group += risk >= t
+        w = np.ones(self.n) if counts is None else np.asarray(counts, dtype=float)
+        total = float(self.n) if counts is None else float(w.sum())
+        tp = np.zeros(G)
+        fp = np.zeros(G)
+        if self.K == 0:
+            Y = d_all = d_1 = np.zeros((G, 0))
+            size = np.cumsum(np.bincount(group, w, minlength=G + 1)[::-1])[::-1][1:]
+        else:
+            Y, d_all, d_1, size = self._rule_counts(group, G, w)
+        for rank, g in enumerate(up):
+            share = size[rank] / total
+            if share == 0:
+                continue
+            s = 1.0 if self.K == 0 else self._survival_of(Y[rank], d_all[rank], d_1[rank])
+            tp[g], fp[g] = (1.0 - s) * share, s * share
         return np.asarray(tp - fp * thresholds / (1.0 - thresholds))
 
 
