@@ -182,7 +182,7 @@ def test_risk_rule_at_unsorted_thresholds_equals_the_product_limit_loop(competin
     rng = np.random.default_rng(23)
     n = time.size
     codes = np.where(competing, cause, (cause != 0).astype(int))
-    for it in range(10):
+    for _ in range(10):
         counts = rng.multinomial(n, np.full(n, 1 / n))
         m = np.repeat(np.arange(n), counts)
         risk = rng.uniform(0, 0.5, n)

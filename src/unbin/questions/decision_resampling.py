@@ -151,6 +151,9 @@ class _Sample:
         # (a replicate's drawn rows without weights): survival net benefits on its rows
         self.base = base
         self.idx, self.family, self.h = idx, r.family, horizon
+        # the whole analysis sample in its order (idx = 0 .. n - 1)
+        self._whole = (base is None and idx.size == r.outcome.n
+                       and bool(np.array_equal(idx, np.arange(idx.size))))
         self.w = weights if weights is not None or o.weights is None else o.weights[idx]
         self.y = np.asarray(o.y, dtype=float)[idx]
         self.time = None if o.time is None else o.time[idx]
@@ -170,6 +173,13 @@ class _Sample:
         # the net benefits of the rules that are not fitted: the same in every evaluation on
         # these rows (the full sample is judged once per replicate)
         self.fixed_rules: dict[tuple[Any, ...], float] | None = None
+
+    def rows_of(self, v: np.ndarray) -> np.ndarray:
+        """``v[self.idx]`` (``v`` one value per row of the analysis sample): ``v`` itself when
+        these rows are the whole sample in its order (no copy)."""
+        if self.idx.size == v.shape[0] and self._whole:
+            return v
+        return v[self.idx]
 
     def row_counts(self, n: int) -> np.ndarray:
         """How often each of the analysis sample's ``n`` rows is among these rows."""
@@ -767,7 +777,7 @@ class _Evaluator:
         if self.r.family == "binary":  # one sort per model (count_aucs), the pair_auc values
             for key, z in zs.items():
                 got = (None if z is None
-                       else count_aucs(full.y, compared_score(z[full.idx]), [counts, None]))
+                       else count_aucs(full.y, compared_score(full.rows_of(z)), [counts, None]))
                 if got is not None:
                     in_drawn[key], in_full[key] = got
             return in_drawn, in_full
@@ -775,7 +785,7 @@ class _Evaluator:
         # made once, and the work arrays go with the call
         keys = [key for key, z in zs.items() if z is not None]
         got_all = scores_concordances(full.time_order(),
-                                      (compared_score(z[full.idx]) for key, z in zs.items()
+                                      (compared_score(full.rows_of(z)) for key, z in zs.items()
                                        if z is not None), [counts, None])
         for key, (d, f) in zip(keys, got_all, strict=True):
             in_drawn[key], in_full[key] = d, f
@@ -798,7 +808,7 @@ class _Evaluator:
             z = zs[id(self.models[k])]
             if z is not None:
                 if id(self.models[k]) not in cixs:
-                    cixs[id(self.models[k])] = on.c_index(z[on.idx])
+                    cixs[id(self.models[k])] = on.c_index(on.rows_of(z))
                 out[("C index", k)] = cixs[id(self.models[k])]
             if k not in RISK_MODELS:
                 continue
@@ -832,7 +842,7 @@ class _Evaluator:
             nb = on.net_benefit_of_rows(pt, risk=self.risk(z))
             zo = None
         else:
-            zo = z[on.idx]
+            zo = on.rows_of(z)
             nb = on.net_benefit(pt, risk=self.risk(zo)) if pt.size else np.zeros(0)
         for t, v in zip(pt, nb, strict=True):
             out[("net benefit", f"risk: {k[0]}", t)] = float(v)
@@ -841,7 +851,7 @@ class _Evaluator:
         # cause-specific Cox model's on their z, as in the calibration table)
         out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
                                          and not self.competing
-                                         else on.slope(z[on.idx] if zo is None else zo))
+                                         else on.slope(on.rows_of(z) if zo is None else zo))
 
     def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
                    c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:
