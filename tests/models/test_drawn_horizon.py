@@ -45,14 +45,22 @@ def _draw(n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
     return counts, np.repeat(np.arange(n), counts)
 
 
+def _stratified_fit(cohort: pd.DataFrame, seed: int
+                    ) -> tuple[np.ndarray, np.ndarray, pd.DataFrame, CoxPHFitter]:
+    """A draw of the cohort's rows (counts, repeated row indices), the repeated rows and
+    lifelines' stratified Cox model fitted on them."""
+    counts, rows = _draw(len(cohort), seed)
+    rep = cohort.iloc[rows].reset_index(drop=True)
+    cph = CoxPHFitter().fit(rep[COLS + ["T", "E", "S"]], "T", "E", strata=["S"],
+                            fit_options=TIGHT)
+    return counts, rows, rep, cph
+
+
 def test_strata_match_lifelines_on_the_repeated_rows(cohort: pd.DataFrame) -> None:
     # source: lifelines CoxPHFitter(strata=...) fitted on the drawn rows repeated; its
     # baseline is at the drawn rows' column means, ours at the linear predictor centred on
     # the draw (the same point); the horizon is an event time, so no interpolation
-    counts, rows = _draw(len(cohort), 3)
-    rep = cohort.iloc[rows].reset_index(drop=True)
-    cph = CoxPHFitter().fit(rep[COLS + ["T", "E", "S"]], "T", "E", strata=["S"],
-                            fit_options=TIGHT)
+    counts, _, _, cph = _stratified_fit(cohort, 3)
     b = cph.params_.to_numpy()
     X = cohort[COLS].to_numpy()
     eta = X @ b
@@ -118,10 +126,7 @@ def test_equals_the_baseline_steps_of_the_repeated_rows(cohort: pd.DataFrame,
 def test_standardised_survival_matches_lifelines(cohort: pd.DataFrame) -> None:
     # source: lifelines CoxPHFitter(strata=...).predict_survival_function on the repeated rows
     # with the exposure x1 set to each value (g-computation: 1 - the mean survival)
-    counts, rows = _draw(len(cohort), 8)
-    rep = cohort.iloc[rows].reset_index(drop=True)
-    cph = CoxPHFitter().fit(rep[COLS + ["T", "E", "S"]], "T", "E", strata=["S"],
-                            fit_options=TIGHT)
+    counts, rows, rep, cph = _stratified_fit(cohort, 8)
     b = cph.params_.to_numpy()
     horizon = 6.0
     layout = prepare_layout(cohort["T"], cohort["E"], strata=cohort["S"])
