@@ -47,3 +47,21 @@ def test_auc_with_the_radix_order_is_mann_whitney(monkeypatch: pytest.MonkeyPatc
         for got, yy, ss in ((pair[0], y[rep], s[rep]), (pair[1], y, s)):
             u = stats.mannwhitneyu(ss[yy], ss[~yy]).statistic
             assert got == pytest.approx(u / (yy.sum() * (~yy).sum()), abs=1e-13)
+
+
+def test_radix_order48_is_numpys_stable_argsort() -> None:
+    # source: np.argsort(kind="stable") (numpy); keys spanning a few values, 2^39 (three
+    # passes and one more), the whole 2^48, with many ties, a smallest key above 0, one key,
+    # no key
+    from unbin.models.compiled.score_order import stable_order48
+
+    rng = np.random.default_rng(20261206)
+    for it in range(40):
+        n = int(rng.integers(0, 20000))
+        top = [2**48, 2**39, 2**40 + 7, 50][it % 4]
+        key = rng.integers(0, top, n, dtype=np.int64) + (it % 3) * 1000
+        if n > 2 and top == 2**48:
+            key[:2] = [0, 2**48 - 1]
+        order, in_order = stable_order48(key)
+        assert np.array_equal(order, np.argsort(key, kind="stable"))
+        assert np.array_equal(in_order, np.sort(key))

@@ -26,8 +26,11 @@ def _reference(score: np.ndarray, stratum: np.ndarray | None) -> np.ndarray:
     return np.lexsort(keys)
 
 
+@pytest.mark.parametrize("path", ["never", "always"])  # numpy's radix passes; compiled
 @pytest.mark.parametrize("strata", [None, 3, 80])  # none, few (apart), many (one sort)
-def test_grid_order_is_the_score_order(strata: int | None) -> None:
+def test_grid_order_is_the_score_order(monkeypatch: pytest.MonkeyPatch, strata: int | None,
+                                       path: str) -> None:
+    monkeypatch.setenv("UNBIN_COMPILED", path)
     rng = np.random.default_rng(4)
     n = 20000
     score = np.round(rng.normal(-1.0, 2.0, n), 10)
@@ -38,9 +41,12 @@ def test_grid_order_is_the_score_order(strata: int | None) -> None:
     assert np.array_equal(got, _reference(score, stratum))
 
 
-def test_scores_sharing_a_grid_number_are_sorted_as_they_are() -> None:
+@pytest.mark.parametrize("path", ["never", "always"])
+def test_scores_sharing_a_grid_number_are_sorted_as_they_are(monkeypatch: pytest.MonkeyPatch,
+                                                             path: str) -> None:
     # two different scores closer than 1e-10 would share a whole number: the check declines
     # and the scores are sorted by their own values
+    monkeypatch.setenv("UNBIN_COMPILED", path)
     rng = np.random.default_rng(5)
     score = np.round(rng.normal(size=5000), 10)
     score[10], score[20] = 0.5 + 1e-12, 0.5  # the later one lower, by less than the grid

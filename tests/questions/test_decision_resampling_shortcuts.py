@@ -164,3 +164,37 @@ def test_net_benefits_with_draw_counts_equal_the_repeated_rows(competing: bool,
         ref = _loop(time[m][mask[m]], np.where(competing, cause, (cause != 0).astype(int))[m][
             mask[m]], None if en is None else en[mask[m]], h, competing)
         assert fast.survival(mask, counts) == pytest.approx(ref, abs=1e-12)
+
+
+@pytest.mark.parametrize("competing", [True, False])
+def test_risk_rule_at_unsorted_thresholds_equals_the_product_limit_loop(competing: bool) -> None:
+    # The net benefit of "treat when risk >= p_t" at thresholds in any order (nested subsets
+    # from one pass), risks on the thresholds themselves and not a number, with draw counts:
+    # net_benefit_km of the repeated rows (bit for bit) and the definition NB = TP/N -
+    # FP/N p_t/(1 - p_t) with the treated rows' product-limit loop (Kaplan & Meier 1958;
+    # Aalen & Johansen 1978; Vickers & Elkin 2006, Med Decis Making 26:565)
+    time, cause, start = _data(20261206 + competing)
+    event = (cause == 1).astype(float) if competing else (cause != 0).astype(float)
+    h = 5.0
+    pt = np.array([0.2, 0.05, 0.3, 0.1, 0.2])
+    cs = cause if competing else None
+    fast = _AtHorizon(time, event, start, h, cs, 1)
+    rng = np.random.default_rng(23)
+    n = time.size
+    codes = np.where(competing, cause, (cause != 0).astype(int))
+    for _ in range(10):
+        counts = rng.multinomial(n, np.full(n, 1 / n))
+        m = np.repeat(np.arange(n), counts)
+        risk = rng.uniform(0, 0.5, n)
+        risk[:20] = pt[rng.integers(0, pt.size, 20)]  # on a threshold: treated
+        risk[20:25] = np.nan  # not a number: never treated
+        got = fast.net_benefit(pt, None, risk, counts)
+        want = net_benefit_km(time[m], event[m], start[m], np.zeros(m.size, bool), h, pt,
+                              risk[m], None if cs is None else cs[m], 1)[0]
+        assert np.array_equal(got, want)
+        for g, t in enumerate(pt):
+            treated = (risk >= t)[m]
+            share = treated.mean()
+            s = _loop(time[m][treated], codes[m][treated], start[m][treated], h, competing)
+            assert got[g] == pytest.approx((1 - s) * share - s * share * t / (1 - t),
+                                           abs=1e-12)

@@ -573,7 +573,7 @@ def _solve(H: np.ndarray, g: np.ndarray) -> np.ndarray:
         return out
 
 
-OnCoxFit = Callable[[int, int, np.ndarray, np.ndarray, Any, np.ndarray], None]
+OnCoxFit = Callable[[int, int, np.ndarray | None, np.ndarray, Any, np.ndarray], None]
 
 
 def weighted_cox(X: np.ndarray, outcome: Outcome, W: np.ndarray,
@@ -663,7 +663,8 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
     (``unbin.models.cox.refit_replicate``, with what the replicates share prepared once,
     :func:`cox_near_starts`), falling back to ``fit_cox`` when those do not settle.
     ``on_fit(b, j, Xm, m, layout, coef)`` is called after each successful fit of design ``j``
-    in replicate ``b`` (``m`` the repeated row indices, ``Xm`` their design rows)."""
+    in replicate ``b`` (``m`` the repeated row indices, ``Xm`` their design rows when the fit
+    made them, else None: ``X[m]``, gathered by the callers that need it)."""
     from .cox import fit_cox, refit_replicate
 
     assert outcome.time is not None
@@ -705,7 +706,7 @@ def weighted_cox_designs(designs: Sequence[tuple[np.ndarray, np.ndarray | None]]
                     coef = fitted.coef
             out[b] = coef
             if on_fit is not None:
-                on_fit(b, j, X[m] if Xm is None else Xm, m, layout, coef)
+                on_fit(b, j, Xm, m, layout, coef)
     return outs
 
 

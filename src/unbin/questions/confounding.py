@@ -76,6 +76,7 @@ import pandas as pd
 from ..models import EFFECT_SCALE, fit
 from ..models.base import FitResult, Outcome
 from ..models.cox import Layout, fit_cox, prepare_layout, refit_replicate
+from ..models.cox.baseline import DrawnHorizon
 from ..models.percentile_limits import percentile_limits
 from ..models.survival import cox_layout
 from ..models.weighted import (
@@ -102,6 +103,7 @@ from ..refit.standardise import (
     cif_risks,
     contrast,
     cox_risks,
+    drawn_cox_risks,
     glm_means,
     on_model_scale,
 )
@@ -270,6 +272,11 @@ class _Designs:
         marg_cs = ({k: np.full((replicates, 2), np.nan) for k in self.items} if self.causes
                    else marg)
         layouts: dict[tuple[int, int], Layout | None] = {}
+        # without competing events or weights: each replicate's standardised survival from
+        # its draw counts on the sample's rows and event times (drawn_cox_risks)
+        at_h = (DrawnHorizon(cox_layout(o), self.horizon, o.strata)
+                if r.family == "survival" and self.marginal_ok and not self.causes
+                and o.weights is None and self.horizon is not None else None)
         p_max = max((v.X.shape[1] for v in self.items.values()), default=0)
         chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
         ok = [(key, it) for key, it in self.items.items() if it.res.ok]
@@ -287,11 +294,17 @@ class _Designs:
                           for c, full, oc in zip(self.causes[1:], it.others,
                                                  self._cause_outcomes, strict=True) if full.ok}
 
-                def risks(b: int, j: int, Xm: np.ndarray, m: np.ndarray, layout: Any,
+                def risks(b: int, j: int, Xm: np.ndarray | None, m: np.ndarray, layout: Any,
                           coef: np.ndarray, c0: int = c0, W: np.ndarray = W,
                           others: dict[tuple[str, int], Any] = others) -> None:
                     key, it = ok[j]
                     assert o.time is not None and self.horizon is not None
+                    if at_h is not None:
+                        marg_cs[key][c0 + b] = drawn_cox_risks(at_h, it.X, it.k, coef, it.at,
+                                                               W[b])
+                        return
+                    if Xm is None:
+                        Xm = it.X[m]
 
                     def pick(v: np.ndarray | None) -> np.ndarray | None:
                         return None if v is None else v[m]

@@ -89,7 +89,7 @@ from ..models.cox import (
     prepare_layout,
     refit_near,
 )
-from ..models.cox.baseline import baseline_steps
+from ..models.cox.baseline import DrawnHorizon, baseline_steps
 from ..models.cox.concordance import scores_concordances
 from ..models.discrimination import auc, c_index, compared_score, count_aucs
 from ..models.percentile_limits import percentile_limits
@@ -151,6 +151,9 @@ class _Sample:
         # (a replicate's drawn rows without weights): survival net benefits on its rows
         self.base = base
         self.idx, self.family, self.h = idx, r.family, horizon
+        # the whole analysis sample in its order (idx = 0 .. n - 1)
+        self._whole = (base is None and idx.size == r.outcome.n
+                       and bool(np.array_equal(idx, np.arange(idx.size))))
         self.w = weights if weights is not None or o.weights is None else o.weights[idx]
         self.y = np.asarray(o.y, dtype=float)[idx]
         self.time = None if o.time is None else o.time[idx]
@@ -161,6 +164,8 @@ class _Sample:
         self.event_of_interest = o.event_of_interest
         self._order: Any = None
         self._counts: np.ndarray | None = None
+        self._fcounts: np.ndarray | None = None
+        self._drawn_horizon: DrawnHorizon | None = None
         # the Cox layout of these rows (unweighted): given when the replicate's refits made it
         self._layout: Any = layout
         self._outcome: Outcome | None = None
@@ -169,11 +174,32 @@ class _Sample:
         # these rows (the full sample is judged once per replicate)
         self.fixed_rules: dict[tuple[Any, ...], float] | None = None
 
+    def rows_of(self, v: np.ndarray) -> np.ndarray:
+        """``v[self.idx]`` (``v`` one value per row of the analysis sample): ``v`` itself when
+        these rows are the whole sample in its order (no copy)."""
+        if self.idx.size == v.shape[0] and self._whole:
+            return v
+        return v[self.idx]
+
     def row_counts(self, n: int) -> np.ndarray:
         """How often each of the analysis sample's ``n`` rows is among these rows."""
         if self._counts is None:
             self._counts = np.bincount(self.idx, minlength=n)
         return self._counts
+
+    def float_counts(self, n: int) -> np.ndarray:
+        """:meth:`row_counts` as floats (the weights of sums over the analysis sample)."""
+        if self._fcounts is None:
+            self._fcounts = self.row_counts(n).astype(float)
+        return self._fcounts
+
+    def drawn_horizon(self) -> DrawnHorizon:
+        """The Breslow baseline at the horizon of any draw of these rows
+        (:class:`unbin.models.cox.baseline.DrawnHorizon` on their layout, made once)."""
+        if self._drawn_horizon is None:
+            assert self.h is not None
+            self._drawn_horizon = DrawnHorizon(self.layout(), self.h, self.strata)
+        return self._drawn_horizon
 
     def layout(self) -> Any:
         """The Cox layout of these rows (sort, risk sets), made once and shared by the models."""
@@ -295,6 +321,30 @@ class _AtHorizon:
         d_1 = np.bincount(self.mine_at, w[self.mine_rows], minlength=K)
         return Y, d_all, d_1
 
+    def _rule_counts(self, group: np.ndarray, G: int, w: np.ndarray,
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """:meth:`_counts` of the G nested subsets "``group`` > g" (g = 0 .. G - 1; ``group``
+        a whole number 0 .. G per row) at once, each row with weight ``w`` (whole numbers):
+        every row's risk-set entry and exit and every event binned by (group, grid index) in
+        one pass each, then summed over the groups above g. Returns (G, K) arrays Y, d_all,
+        d_1 and each subset's summed weight (G,). Whole numbers throughout, so every sum is
+        exact: the same numbers as :meth:`_counts` of each subset."""
+        K = self.K
+        span = K + 1
+
+        def binned(at: np.ndarray, rows: np.ndarray | None, size: int) -> np.ndarray:
+            g = group if rows is None else group[rows]
+            wr = w if rows is None else w[rows]
+            out = np.bincount(g * size + at, wr, minlength=(G + 1) * size)
+            # the rows of the groups above g: a reverse cumulative sum over the groups
+            return np.cumsum(out.reshape(G + 1, size)[::-1], axis=0)[::-1][1:]
+
+        Y = np.cumsum(binned(self.lo, None, span) - binned(self.hi, None, span), axis=1)[:, :K]
+        d_all = binned(self.ev_at, self.ev_rows, K)
+        d_1 = binned(self.mine_at, self.mine_rows, K)
+        size = np.cumsum(np.bincount(group, w, minlength=G + 1)[::-1])[::-1][1:]
+        return Y, d_all, d_1, size
+
     def survival(self, mask: np.ndarray, counts: np.ndarray | None = None) -> float:
         """S(h) among ``mask``'s rows (each repeated ``counts`` times when given: whole
         numbers, so the risk-set and event counts are the same whole numbers as those of the
@@ -302,7 +352,10 @@ class _AtHorizon:
         else the Kaplan–Meier estimate."""
         if self.K == 0:
             return 1.0
-        Y, d_all, d_1 = self._counts(mask, counts)
+        return self._survival_of(*self._counts(mask, counts))
+
+    def _survival_of(self, Y: np.ndarray, d_all: np.ndarray, d_1: np.ndarray) -> float:
+        """:meth:`survival` from a subset's risk-set and event counts on the grid."""
         if not self.competing:  # km_survival: the product over the subset's own event times
             has = d_all > 0
             if not has.any():
@@ -326,6 +379,8 @@ class _AtHorizon:
         rows repeated as often as they say (a bootstrap replicate's drawn rows): the share
         treated is the same quotient of whole numbers as ``mask.mean()`` of the repeated
         rows, the product-limit the same (``survival``)."""
+        if risk is not None:
+            return self._risk_rule(np.asarray(thresholds, dtype=float), risk, counts)
         tp = np.zeros(len(thresholds))
         fp = np.zeros(len(thresholds))
         done: dict[bytes, tuple[float, float]] = {}
@@ -341,6 +396,36 @@ class _AtHorizon:
                 s = self.survival(mask, counts)
                 done[key] = ((1.0 - s) * share, s * share)
             tp[g], fp[g] = done[key]
+        return np.asarray(tp - fp * thresholds / (1.0 - thresholds))
+
+    def _risk_rule(self, thresholds: np.ndarray, risk: np.ndarray,
+                   counts: np.ndarray | None) -> np.ndarray:
+        """:meth:`net_benefit` of "treat when ``risk`` >= p_t" at every threshold from one
+        pass over the rows: the rules are nested (a higher threshold treats a subset), so each
+        row's group is the number of thresholds (in increasing order) its risk reaches, and
+        the subset treated at the g-th is the rows of a group above g (:meth:`_rule_counts`;
+        a risk that is not a number reaches none). The same whole-number counts, shares and
+        product-limits as the rule's mask at each threshold."""
+        G = thresholds.size
+        up = np.argsort(thresholds, kind="stable")
+        group = np.zeros(self.n, dtype=np.intp)
+        for t in thresholds[up]:
+            group += risk >= t
+        w = np.ones(self.n) if counts is None else np.asarray(counts, dtype=float)
+        total = float(self.n) if counts is None else float(w.sum())
+        tp = np.zeros(G)
+        fp = np.zeros(G)
+        if self.K == 0:
+            Y = d_all = d_1 = np.zeros((G, 0))
+            size = np.cumsum(np.bincount(group, w, minlength=G + 1)[::-1])[::-1][1:]
+        else:
+            Y, d_all, d_1, size = self._rule_counts(group, G, w)
+        for rank, g in enumerate(up):
+            share = size[rank] / total
+            if share == 0:
+                continue
+            s = 1.0 if self.K == 0 else self._survival_of(Y[rank], d_all[rank], d_1[rank])
+            tp[g], fp[g] = (1.0 - s) * share, s * share
         return np.asarray(tp - fp * thresholds / (1.0 - thresholds))
 
 
@@ -516,7 +601,7 @@ def _replicate_coefs(r: Refit, models: dict[tuple[str, str], Model],
         fitted = {k: WeightedGLM("binary", models[k].X, o, models[k].res.coef).coef(W)
                   for k in unique}
     else:
-        def keep(b: int, j: int, Xm: np.ndarray, m: np.ndarray, layout: Any,
+        def keep(b: int, j: int, Xm: np.ndarray | None, m: np.ndarray, layout: Any,
                  coef: np.ndarray) -> None:
             if layouts is not None and o.weights is None:
                 layouts.setdefault(b, layout)
@@ -633,8 +718,17 @@ class _Evaluator:
             return np.asarray(coef[0] + X @ coef[1:])
         assert self.horizon is not None
         lp = X @ coef
-        log_h0, centre = _log_base(fit, lp[fit.idx], self.horizon, self.r.outcome.strata,
-                                   self.r.outcome.n)
+        if fit.base is not None and fit.w is None:
+            # a replicate's drawn rows as draw counts on the sample's rows: the baseline at
+            # the horizon on the sample's event times (DrawnHorizon), no gather or sort
+            counts = fit.float_counts(self.r.outcome.n)
+            centre = float(counts @ lp) / fit.idx.size
+            at_h = fit.base.drawn_horizon()
+            with np.errstate(divide="ignore"):
+                log_h0 = at_h.per_row(np.log(at_h.cumhaz(lp - centre, counts)))
+        else:
+            log_h0, centre = _log_base(fit, lp[fit.idx], self.horizon,
+                                       self.r.outcome.strata, self.r.outcome.n)
         z = log_h0 + lp - centre
         return z if np.all(np.isfinite(z)) else None
 
@@ -683,7 +777,7 @@ class _Evaluator:
         if self.r.family == "binary":  # one sort per model (count_aucs), the pair_auc values
             for key, z in zs.items():
                 got = (None if z is None
-                       else count_aucs(full.y, compared_score(z[full.idx]), [counts, None]))
+                       else count_aucs(full.y, compared_score(full.rows_of(z)), [counts, None]))
                 if got is not None:
                     in_drawn[key], in_full[key] = got
             return in_drawn, in_full
@@ -691,7 +785,7 @@ class _Evaluator:
         # made once, and the work arrays go with the call
         keys = [key for key, z in zs.items() if z is not None]
         got_all = scores_concordances(full.time_order(),
-                                      (compared_score(z[full.idx]) for key, z in zs.items()
+                                      (compared_score(full.rows_of(z)) for key, z in zs.items()
                                        if z is not None), [counts, None])
         for key, (d, f) in zip(keys, got_all, strict=True):
             in_drawn[key], in_full[key] = d, f
@@ -714,7 +808,7 @@ class _Evaluator:
             z = zs[id(self.models[k])]
             if z is not None:
                 if id(self.models[k]) not in cixs:
-                    cixs[id(self.models[k])] = on.c_index(z[on.idx])
+                    cixs[id(self.models[k])] = on.c_index(on.rows_of(z))
                 out[("C index", k)] = cixs[id(self.models[k])]
             if k not in RISK_MODELS:
                 continue
@@ -748,7 +842,7 @@ class _Evaluator:
             nb = on.net_benefit_of_rows(pt, risk=self.risk(z))
             zo = None
         else:
-            zo = z[on.idx]
+            zo = on.rows_of(z)
             nb = on.net_benefit(pt, risk=self.risk(zo)) if pt.size else np.zeros(0)
         for t, v in zip(pt, nb, strict=True):
             out[("net benefit", f"risk: {k[0]}", t)] = float(v)
@@ -757,7 +851,7 @@ class _Evaluator:
         # cause-specific Cox model's on their z, as in the calibration table)
         out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
                                          and not self.competing
-                                         else on.slope(z[on.idx] if zo is None else zo))
+                                         else on.slope(on.rows_of(z) if zo is None else zo))
 
     def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
                    c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:

@@ -50,7 +50,7 @@ import numpy as np
 from scipy import special
 
 from ..models.cox import Layout
-from ..models.cox.baseline import baseline_steps
+from ..models.cox.baseline import DrawnHorizon, baseline_steps
 from ..models.weighted import Replicates, expit_into
 from .incidence_sum import interpolated_sums, shifted_sums
 from .risk import cumhaz_at, horizon_notes
@@ -249,6 +249,32 @@ def cox_risks(X: np.ndarray, k: int, coef: np.ndarray, at: Sequence[np.ndarray],
         with np.errstate(over="ignore"):
             out[j] = 1.0 - float(np.mean(np.exp(-h0 * np.exp(rest + shift))))
     return out, horizon_notes(horizon, held, empty, strata is not None)
+
+
+def drawn_cox_risks(at_h: DrawnHorizon, X: np.ndarray, k: int, coef: np.ndarray,
+                    at: Sequence[np.ndarray], counts: np.ndarray) -> np.ndarray:
+    """:func:`cox_risks` of a bootstrap replicate given as draw counts on the sample's rows
+    (``counts``, whole numbers, one per row of the sample's design ``X``; ``at_h`` the
+    sample's :class:`unbin.models.cox.baseline.DrawnHorizon`): the same numbers as
+    ``cox_risks`` of the repeated rows, up to the order of summation. The linear predictor's
+    mean, the baseline at the horizon (on the sample's event times, no sort or gather of the
+    drawn rows) and the means of the standardised survival are sums over the sample's rows,
+    each row counted as often as drawn."""
+    X = np.asarray(X, dtype=float)
+    coef = np.asarray(coef, dtype=float)
+    c = np.asarray(counts, dtype=float)
+    total = float(c.sum())
+    eta = X @ coef
+    centre = float(c @ eta) / total
+    eta -= centre
+    h0 = at_h.per_row(at_h.cumhaz(eta, c))
+    eta -= X[:, :k] @ coef[:k]  # the rest of the linear predictor
+    out = np.empty(len(at))
+    for j, a in enumerate(at):
+        shift = float(np.asarray(a, dtype=float) @ coef[:k])
+        with np.errstate(over="ignore"):
+            out[j] = 1.0 - float(c @ np.exp(-h0 * np.exp(eta + shift))) / total
+    return out
 
 
 def _distinct_rows(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -479,15 +479,28 @@ def _grid_key(score: np.ndarray) -> np.ndarray | None:
     return key
 
 
-def _grid_order(key: np.ndarray, score: np.ndarray) -> np.ndarray | None:
-    """The stable order of ``key`` (< 2^48) by 16-bit radix passes (``radix.stable_order``);
-    None when two different scores share a key (adjacent in that order with equal keys but
-    unequal scores), so that the order is not the scores' own."""
-    order = stable_order(key)
-    k, s = np.take(key, order), np.take(score, order)
+def _grid_order(key: np.ndarray, score: np.ndarray, compiled: bool = False
+                ) -> np.ndarray | None:
+    """The stable order of ``key`` (< 2^48) by 16-bit radix passes (``radix.stable_order``;
+    ``compiled``: by the compiled 12-bit radix sort, ``compiled.score_order.stable_order48``,
+    the same order); None when two different scores share a key (adjacent in that order with
+    equal keys but unequal scores), so that the order is not the scores' own."""
+    if compiled:
+        from ..compiled.score_order import stable_order48
+
+        order, k = stable_order48(key)
+    else:
+        order = stable_order(key)
+        k = np.take(key, order)
+    s = np.take(score, order)
     if not np.array_equal(k[1:] == k[:-1], s[1:] == s[:-1]):
         return None
     return order
+
+
+# From this many rows of the sample (not of one stratum's run) the grid scores are sorted by
+# the compiled radix sort (``compiled.score_order.stable_order48``).
+GRID_ORDER_FROM_ROWS = 50_000
 
 
 def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.ndarray:
@@ -497,7 +510,8 @@ def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.nda
     the C index's grid are sorted as whole numbers (``_grid_key``)."""
     key = _grid_key(score)
     if key is not None:
-        pos = _by_grid(key, score, stratum, itype)
+        pos = _by_grid(key, score, stratum, itype,
+                       wanted(score.size, GRID_ORDER_FROM_ROWS))
         if pos is not None:
             return pos
     score = _ordered_bits(score)
@@ -514,22 +528,22 @@ def _by_key(score: np.ndarray, stratum: np.ndarray | None, itype: Any) -> np.nda
     return pos.astype(itype)
 
 
-def _by_grid(key: np.ndarray, score: np.ndarray, stratum: np.ndarray | None, itype: Any
-             ) -> np.ndarray | None:
+def _by_grid(key: np.ndarray, score: np.ndarray, stratum: np.ndarray | None, itype: Any,
+             compiled: bool = False) -> np.ndarray | None:
     """:func:`_by_key` by the grid numbers ``key`` (None where ``_grid_order`` declines):
     each stratum's run of positions by itself, or all at once and then a stable sort by
-    stratum."""
+    stratum (``compiled``: the runs sorted by the compiled radix sort)."""
     if stratum is not None:
         cuts = np.flatnonzero(stratum[1:] != stratum[:-1]) + 1
         if cuts.size < _SORT_BY_STRATUM:
             pos = np.empty(score.size, dtype=itype)
             for a, b in zip(np.r_[0, cuts], np.r_[cuts, score.size], strict=True):
-                got = _grid_order(key[a:b], score[a:b])
+                got = _grid_order(key[a:b], score[a:b], compiled)
                 if got is None:
                     return None
                 np.add(got, a, out=pos[a:b])
             return pos
-    order = _grid_order(key, score)
+    order = _grid_order(key, score, compiled)
     if order is None:
         return None
     if stratum is not None:
