@@ -142,3 +142,15 @@ def test_compiled_standardised_copy_is_its_definition(
     np.testing.assert_array_equal(Z, Zn)
     np.testing.assert_array_equal(G, Gn)
     assert _glm.STANDARDISE_FROM_ROWS > 6000 and _glm.ROWS_FROM_ROWS > 6000  # the demo: numpy
+
+
+def test_weighted_cross_product_agrees_on_both_paths(monkeypatch: pytest.MonkeyPatch) -> None:
+    # Definition: Z' diag(v) Z; the compiled scaled rows are numpy's products, so both paths
+    # give the very same matrix, and numpy's product of the whole arrays to rounding.
+    Z = standardise(_design(6))[0]
+    v = np.random.default_rng(60).uniform(0.05, 0.25, N)
+    monkeypatch.setenv("UNBIN_COMPILED", "always")
+    a = _glm.gram(Z, v)
+    monkeypatch.setenv("UNBIN_COMPILED", "never")
+    np.testing.assert_array_equal(a, _glm.gram(Z, v))
+    np.testing.assert_allclose(a, (Z * v[:, None]).T @ Z, rtol=1e-12)

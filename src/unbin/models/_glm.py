@@ -126,12 +126,27 @@ def back_transform(theta_s: np.ndarray, cov_s: np.ndarray, mean: np.ndarray,
 
 
 def gram(Z: np.ndarray, v: np.ndarray | None = None) -> np.ndarray:
-    """``Z' diag(v) Z`` (``Z' Z`` without ``v``), accumulated over blocks of rows."""
+    """``Z' diag(v) Z`` (``Z' Z`` without ``v``), accumulated over blocks of rows (from
+    ``ROWS_FROM_ROWS`` rows each block's ``Zb * v[:, None]`` is a compiled loop: the same
+    products)."""
     n, k = Z.shape
     G = np.zeros((k, k))
+    scaled = None
+    if v is not None and compiled.wanted(n, ROWS_FROM_ROWS):
+        from .compiled.scaled_rows import scaled_rows as scaled
+
+        work = np.empty((min(n, _BLOCK_ROWS), k))
+        v = np.ascontiguousarray(v, dtype=float)
     for r0 in range(0, n, _BLOCK_ROWS):
         Zb = Z[r0:r0 + _BLOCK_ROWS]
-        G += (Zb if v is None else Zb * v[r0:r0 + _BLOCK_ROWS, None]).T @ Zb
+        if v is None:
+            G += Zb.T @ Zb
+        elif scaled is not None:
+            Zv = work[:Zb.shape[0]]
+            scaled(Zb, v[r0:r0 + _BLOCK_ROWS], Zv)
+            G += Zv.T @ Zb
+        else:
+            G += (Zb * v[r0:r0 + _BLOCK_ROWS, None]).T @ Zb
     return G
 
 
