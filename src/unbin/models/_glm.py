@@ -35,6 +35,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import linalg, special
@@ -95,7 +96,7 @@ def _standardised(X: np.ndarray, with_gram: bool,
     # a column whose variance is lost in the rounding of its mean is constant: left unscaled
     sd = np.where(var > 1e-13 * np.maximum(mean * mean, 1e-300), np.sqrt(np.abs(var)), 1.0)
     inv = 1.0 / sd
-    rows = None
+    rows: Any = None  # the compiled loop, from STANDARDISE_FROM_ROWS rows
     if compiled.wanted(n, STANDARDISE_FROM_ROWS):
         from .compiled.glm_standardise import standardised_rows as rows
     # in blocks of rows: the scaling (and the Gram) finds each block still in cache; every
@@ -131,7 +132,7 @@ def gram(Z: np.ndarray, v: np.ndarray | None = None) -> np.ndarray:
     products)."""
     n, k = Z.shape
     G = np.zeros((k, k))
-    scaled = None
+    scaled: Any = None  # the compiled loop, from ROWS_FROM_ROWS rows
     if v is not None and compiled.wanted(n, ROWS_FROM_ROWS):
         from .compiled.scaled_rows import scaled_rows as scaled
 
@@ -205,7 +206,7 @@ class _Family:
         Z, y, off, freq, cols = self.Z, self.y, self.off, self.freq, self.cols
         n, k = Z.shape[0], Z.shape[1] if cols is None else cols.size
         ll, score, H = self.const, np.zeros(k), np.zeros((k, k))
-        rows = None
+        rows: Any = None  # the compiled loop, from ROWS_FROM_ROWS rows
         if compiled.wanted(n, ROWS_FROM_ROWS):
             from .compiled.glm_rows import glm_rows as rows
 
