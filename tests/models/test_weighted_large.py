@@ -134,6 +134,23 @@ def test_forced_whole_path_marks_the_replicates_the_small_path_marks(
     np.testing.assert_allclose(large[0], expected, rtol=1e-8, atol=1e-10)
 
 
+@pytest.mark.parametrize("q", [1, 2, 5, 12])
+def test_block_products_are_the_direct_products(q: int) -> None:
+    """``_chord``'s work arrays hold the values of the direct numpy expressions they stand in
+    for (the pairwise column products in ``np.triu_indices`` order, ``[z, z^2]``, ``z r``),
+    element for element, on a full block and on a shorter last block (common practice:
+    the expressions themselves are the definition)."""
+    rng = np.random.default_rng(7)
+    blocks = weighted._BlockProducts(q, 300)
+    iu = np.triu_indices(q)
+    for rows in (300, 41):
+        Zb = rng.normal(size=(rows, q))
+        r = rng.normal(size=rows)
+        assert np.array_equal(blocks.pairs(Zb), Zb[:, iu[0]] * Zb[:, iu[1]])
+        assert np.array_equal(blocks.moments(Zb), np.hstack([Zb, Zb * Zb]))
+        assert np.array_equal(blocks.scaled(Zb, r), Zb * r[:, None])
+
+
 def test_count_aucs_equal_the_pair_count_of_the_repeated_rows() -> None:
     from unbin.questions.decision_resampling import pair_auc
 

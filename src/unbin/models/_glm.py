@@ -35,10 +35,12 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import linalg, special
 
+from . import compiled
 from .base import FitResult, Outcome, failed_fit
 
 INTERCEPT = "(intercept)"
@@ -53,6 +55,12 @@ _PASS_ROWS = 1 << 13  # rows per block of one likelihood pass (a few hundred kB)
 # columns. (The Gram's eigenvalues are the squared singular values, accurate to about
 # eps * largest, so 1e-10 leaves a wide margin.)
 _GRAM_RCOND = 1e-10
+# From these many rows the per-row work of a likelihood pass (``compiled.glm_rows``) and the
+# standardised copy (``compiled.glm_standardise``) run compiled: the same values, one pass
+# instead of about ten (a pass) or two short-row loops (the copy); below it numpy, so small
+# fits (the demo, most tests) never import numba (DEVELOPERS.md, "Compiled kernels")
+ROWS_FROM_ROWS = 100_000
+STANDARDISE_FROM_ROWS = 100_000
 
 
 def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -88,15 +96,21 @@ def _standardised(X: np.ndarray, with_gram: bool,
     # a column whose variance is lost in the rounding of its mean is constant: left unscaled
     sd = np.where(var > 1e-13 * np.maximum(mean * mean, 1e-300), np.sqrt(np.abs(var)), 1.0)
     inv = 1.0 / sd
+    rows: Any = None  # the compiled loop, from STANDARDISE_FROM_ROWS rows
+    if compiled.wanted(n, STANDARDISE_FROM_ROWS):
+        from .compiled.glm_standardise import standardised_rows as rows
     # in blocks of rows: the scaling (and the Gram) finds each block still in cache; every
     # element gets the same two operations as on the whole array at once, and the Gram the
     # same products of the same blocks as ``gram(Z)``, so the same numbers
     for r0 in range(0, n, _BLOCK_ROWS):
         Zb = Z[r0:r0 + _BLOCK_ROWS]
-        Zb[:, 0] = 1.0
-        Zs = Zb[:, 1:]
-        np.subtract(X[r0:r0 + _BLOCK_ROWS], mean, out=Zs)
-        Zs *= inv
+        if rows is not None:  # the same values from one compiled pass
+            rows(X, r0, mean, inv, Zb)
+        else:
+            Zb[:, 0] = 1.0
+            Zs = Zb[:, 1:]
+            np.subtract(X[r0:r0 + _BLOCK_ROWS], mean, out=Zs)
+            Zs *= inv
         if G is not None:
             G += Zb.T @ Zb
     return Z, mean, sd, G
@@ -113,12 +127,27 @@ def back_transform(theta_s: np.ndarray, cov_s: np.ndarray, mean: np.ndarray,
 
 
 def gram(Z: np.ndarray, v: np.ndarray | None = None) -> np.ndarray:
-    """``Z' diag(v) Z`` (``Z' Z`` without ``v``), accumulated over blocks of rows."""
+    """``Z' diag(v) Z`` (``Z' Z`` without ``v``), accumulated over blocks of rows (from
+    ``ROWS_FROM_ROWS`` rows each block's ``Zb * v[:, None]`` is a compiled loop: the same
+    products)."""
     n, k = Z.shape
     G = np.zeros((k, k))
+    scaled: Any = None  # the compiled loop, from ROWS_FROM_ROWS rows
+    if v is not None and compiled.wanted(n, ROWS_FROM_ROWS):
+        from .compiled.scaled_rows import scaled_rows as scaled
+
+        work = np.empty((min(n, _BLOCK_ROWS), k))
+        v = np.ascontiguousarray(v, dtype=float)
     for r0 in range(0, n, _BLOCK_ROWS):
         Zb = Z[r0:r0 + _BLOCK_ROWS]
-        G += (Zb if v is None else Zb * v[r0:r0 + _BLOCK_ROWS, None]).T @ Zb
+        if v is None:
+            G += Zb.T @ Zb
+        elif scaled is not None:
+            Zv = work[:Zb.shape[0]]
+            scaled(Zb, v[r0:r0 + _BLOCK_ROWS], Zv)
+            G += Zv.T @ Zb
+        else:
+            G += (Zb * v[r0:r0 + _BLOCK_ROWS, None]).T @ Zb
     return G
 
 
@@ -177,6 +206,13 @@ class _Family:
         Z, y, off, freq, cols = self.Z, self.y, self.off, self.freq, self.cols
         n, k = Z.shape[0], Z.shape[1] if cols is None else cols.size
         ll, score, H = self.const, np.zeros(k), np.zeros((k, k))
+        rows: Any = None  # the compiled loop, from ROWS_FROM_ROWS rows
+        if compiled.wanted(n, ROWS_FROM_ROWS):
+            from .compiled.glm_rows import glm_rows as rows
+
+            m = min(n, _PASS_ROWS)
+            terms_w, resid_w, Zv_w = np.empty(m), np.empty(m), np.empty((m, k))
+            no_freq = np.zeros(0)
         for r0 in range(0, n, _PASS_ROWS):
             r1 = min(n, r0 + _PASS_ROWS)
             Zb, yb = Z[r0:r1], y[r0:r1]
@@ -185,6 +221,21 @@ class _Family:
             eta = Zb @ theta
             if off is not None:
                 eta += off[r0:r1]
+            if rows is not None:  # the same values as below from one compiled pass
+                if self.binary:
+                    e = np.exp(-np.abs(eta))
+                    lg = np.log1p(e)
+                else:
+                    e = np.exp(np.minimum(eta, 700.0))
+                    lg = e[:0]
+                nb = r1 - r0
+                terms, resid, Zv = terms_w[:nb], resid_w[:nb], Zv_w[:nb]
+                rows(eta, e, lg, yb, no_freq if freq is None else freq[r0:r1],
+                     np.ascontiguousarray(Zb), self.binary, terms, resid, Zv)
+                ll += float(terms.sum())
+                score += Zb.T @ resid
+                H += Zv.T @ Zb
+                continue
             if self.binary:
                 # one exp and one log1p give the mean, the variance and log(1 + e^eta) stably
                 e = np.exp(-np.abs(eta))

@@ -416,13 +416,14 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
     mu0, v0 = _mean_var(family, Z @ theta0 + offset)
     r0 = y - mu0
     score = np.zeros((C, q))
+    blocks = _BlockProducts(q, min(n, 8192))
     if v0 is None:  # the linear model: each replicate's own information
         moments = np.zeros((C, k))  # sum_i W_i z_i z_i'
         for sl in _row_blocks(n, C):
             Zb = Z[sl]
             Wb = W.block(slice(None), sl)
-            moments += Wb @ (Zb[:, iu[0]] * Zb[:, iu[1]])
-            score += Wb @ (Zb * r0[sl, None])
+            moments += Wb @ blocks.pairs(Zb)
+            score += Wb @ blocks.scaled(Zb, r0[sl])
         H = _unpack(moments, q, iu)
         N = H[:, :1, 0]
         m1 = H[:, 0, 1:] / N
@@ -432,8 +433,8 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
         for sl in _row_blocks(n, C):
             Zb = Z[sl]
             Wb = W.block(slice(None), sl)
-            sums += Wb @ np.hstack([Zb, Zb * Zb])
-            score += Wb @ (Zb * r0[sl, None])
+            sums += Wb @ blocks.moments(Zb)
+            score += Wb @ blocks.scaled(Zb, r0[sl])
         N = sums[:, :1]
         m1 = sums[:, 1:q] / N
         m2 = sums[:, q + 1:] / N
@@ -443,7 +444,6 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
     T = np.tile(theta0, (C, 1))
     done = np.zeros(C, dtype=bool)
     size, before = np.full(C, np.inf), np.full(C, np.inf)  # the last two steps' sizes
-    pairs = np.empty((min(n, 8192), k))  # a row block's pairwise products z_i z_j, i <= j
     cells: ModuleType | None = None  # from CELLS_FROM_ROWS rows: the per-cell work compiled
     if v0 is not None and compiled.wanted(n, CELLS_FROM_ROWS):
         from .compiled import glm_cells
@@ -478,7 +478,7 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
                                     family == "binary", fresh is not None, eta, wv)
                     score += eta @ Zb
                     if fresh is not None:
-                        fresh += wv @ _pair_products(Zb, pairs)
+                        fresh += wv @ blocks.pairs(Zb)
                     continue
                 mu, v = _mean_var(family, eta, fresh is not None)
                 Wb = W.block(act, sl)
@@ -490,7 +490,7 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
                 if fresh is not None:
                     assert v is not None
                     v *= Wb
-                    fresh += v @ _pair_products(Zb, pairs)
+                    fresh += v @ blocks.pairs(Zb)
             if fresh is not None:
                 H[act] = _unpack(fresh, q, iu)
         else:
@@ -513,17 +513,46 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
     return T
 
 
-def _pair_products(Zb: np.ndarray, buf: np.ndarray) -> np.ndarray:
-    """The pairwise products ``Zb[:, i] * Zb[:, j]`` (i <= j, in ``np.triu_indices`` order) of
-    a block's rows, written into ``buf`` one column's run at a time (the values of
-    ``Zb[:, iu[0]] * Zb[:, iu[1]]`` without its two gathered copies)."""
-    nb, q = Zb.shape
-    out = buf[:nb]
-    at = 0
-    for i in range(q):
-        np.multiply(Zb[:, i:i + 1], Zb[:, i:], out=out[:, at:at + q - i])
-        at += q - i
-    return out
+class _BlockProducts:
+    """The elementwise products of one row block of ``_chord``'s passes, written into work
+    arrays kept for the whole refit (no fresh arrays per block): the pairwise column products
+    ``z_i z_j`` (i <= j, ``np.triu_indices`` order), ``[z, z^2]`` and ``z r``. Each is the
+    array of the direct expression (``Zb[:, iu[0]] * Zb[:, iu[1]]``, ``np.hstack([Zb, Zb *
+    Zb])``, ``Zb * r[:, None]``) value for value and in the same (row-major) layout, so the
+    matrix products that read them are the same: BLAS may sum a product of another shape or
+    layout in another order (with few replicates it does), so only the way the products are
+    made changes. The pairwise products are made column by column from a transposed copy of
+    the block (each one multiplication of two contiguous rows, then one transposing copy):
+    made directly in the row-major array, each row's short run of products was a loop of its
+    own, four times as slow at 12 columns."""
+
+    def __init__(self, q: int, rows: int):
+        self.q = q
+        k = q * (q + 1) // 2
+        self.ZT = np.empty((q, rows))
+        self.PT = np.empty((k, rows))
+        self.M = np.empty((rows, 2 * q))
+        self.S = np.empty((rows, q))
+
+    def pairs(self, Zb: np.ndarray) -> np.ndarray:
+        nb, q = Zb.shape
+        ZT, PT = self.ZT[:, :nb], self.PT[:, :nb]
+        ZT[...] = Zb.T
+        at = 0
+        for i in range(q):
+            np.multiply(ZT[i], ZT[i:], out=PT[at:at + q - i])
+            at += q - i
+        return PT.T
+
+    def moments(self, Zb: np.ndarray) -> np.ndarray:
+        nb, q = Zb.shape
+        out = self.M[:nb]
+        out[:, :q] = Zb
+        np.multiply(Zb, Zb, out=out[:, q:])
+        return out
+
+    def scaled(self, Zb: np.ndarray, r: np.ndarray) -> np.ndarray:
+        return np.multiply(Zb, r[:, None], out=self.S[:Zb.shape[0]])
 
 
 def _unpack(flat: np.ndarray, q: int, iu: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
