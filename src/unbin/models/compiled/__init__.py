@@ -3,7 +3,7 @@
 Each kernel lives in its own module in this package and imports numba when that module is
 imported. Callers import a kernel module lazily, only when :func:`wanted` says the sample is
 large enough, so small jobs (the demo, most tests) never pay numba's import (about 0.13 s) or a
-first compilation. Kernels are ``@numba.njit(cache=True, nogil=True)`` functions on plain numpy
+first compilation. Kernels are ``@numba.njit(cache=True, nogil=True, error_model="numpy")`` functions on plain numpy
 arrays, and every one is tested against the numpy path it stands in for and against an outside
 reference (DEVELOPERS.md, "Compiled kernels").
 

@@ -16,7 +16,7 @@ import numpy as np
 __all__ = ["auc_pairs"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def auc_pairs(ranked: np.ndarray, event: np.ndarray, weights: np.ndarray
               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(event copies, non-event copies, twice the pairs with the event scoring higher plus

@@ -30,7 +30,7 @@ import numpy as np
 __all__ = ["sweep_pairs"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def sweep_pairs(run: np.ndarray, event: np.ndarray, tied: np.ndarray, weights: np.ndarray,
                 late_row: np.ndarray, late_event: np.ndarray, late_at: np.ndarray,
                 cuts: np.ndarray, run_cuts: np.ndarray, table: np.ndarray

@@ -11,7 +11,7 @@ import numba
 __all__ = ["drawn_rows"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def drawn_rows(copies, first, b_idx, a_idx, seg_start, count, time_s, event_s, entry_s,
                code_s, recode, weights, out_order, out_time, out_event, out_entry, out_code,
                out_w, out_b, out_a, out_lo):  # pragma: no cover

@@ -46,7 +46,7 @@ _SHIFT_SLACK = 30.0
 _ROWS = 256  # rows per block: their linear predictors stay in cache until exp and the sums
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def _exp_shifted(eta, n, shift, out, at):  # pragma: no cover
     """``out[at + i] = exp(eta[i] - shift)`` for i < n (a loop the compiler vectorises)."""
     outside = 0
@@ -80,13 +80,13 @@ def _exp_shifted(eta, n, shift, out, at):  # pragma: no cover
                 out[at + i] = math.exp(x)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def exp_values(x, out):  # pragma: no cover
     """``out = exp(x)`` by the kernels' own ``exp`` (for the tests against numpy's)."""
     _exp_shifted(x, x.size, 0.0, out, 0)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def score_point(X1, beta, row_starts, row_counts, k_bounds, w, unit_w, b, late_rows, late_at,
                 ws, xwe, tie_k, tie_d, tie_f, tie_wavg, k_group, ev_f, with_score, r, shifts,
                 s0, S1, t0, T1, den, score):  # pragma: no cover
@@ -264,7 +264,7 @@ def score_point(X1, beta, row_starts, row_counts, k_bounds, w, unit_w, b, late_r
         pos += tie_d[g]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def row_weights(r, s0, den, b, late_rows, late_at, k_bounds, wsum, wsum_untied, tie_k, tie_d, tie_f,
                 tie_wavg, tie_ev, efron, v, a, a1, a2):  # pragma: no cover
     """Fill ``v`` (m,) = r_i sum_{k: i in R_k} c_k less, for a tied event, r_i times its
@@ -321,7 +321,7 @@ def row_weights(r, s0, den, b, late_rows, late_at, k_bounds, wsum, wsum_untied, 
             pos += tie_d[g]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def information(X1, r, v, xwe, b, late_rows, late_at, k_bounds, tie_k, tie_d, tie_ev, a, a1, a2,
                 efron, S1_given, T1_given):  # pragma: no cover
     """The score and the observed information at the point whose ``r``, row weights ``v``

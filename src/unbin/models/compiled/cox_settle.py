@@ -13,7 +13,7 @@ import numba
 __all__ = ["within"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def within(X1, step, limit):  # pragma: no cover
     """Whether ``|X1[i, 1:] @ step| <= limit`` for every row i (False at a NaN)."""
     m, q = X1.shape

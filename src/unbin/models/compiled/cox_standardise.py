@@ -27,7 +27,7 @@ __all__ = ["GATHER_BLOCK", "column_sums", "gather_standardised", "positions",
 GATHER_BLOCK = 128  # rows whose cache lines are loaded before they are written
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def positions(order, we, pos, we_src):  # pragma: no cover
     """``pos[order[i]] = i`` and ``we_src[order[i]] = we[i]`` (``pos`` -1 and ``we_src`` 0 for
     a source row that is not laid out)."""
@@ -39,7 +39,7 @@ def positions(order, we, pos, we_src):  # pragma: no cover
         we_src[order[i]] = we[i]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def column_sums(a, rows, pos, masked, total, squares, hi, lo):  # pragma: no cover
     """Each column's sum, sum of squares, largest and smallest value over the source rows
     ``rows[q]`` (``q`` itself when ``rows`` is empty) of the rows q with ``pos[q] >= 0`` (all
@@ -64,7 +64,7 @@ def column_sums(a, rows, pos, masked, total, squares, hi, lo):  # pragma: no cov
             lo[j] = min(lo[j], x)
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, error_model="numpy", inline="always")
 def _write_row(X1, i, src, o, wi, mean, inv, bounds, with_bounds, xwe):  # pragma: no cover
     """Row ``i`` of ``X1`` (columns 1..p) = ``(src[o] - mean) * inv``; adds ``wi x`` to ``xwe``
     and, ``with_bounds``, widens ``bounds`` (2, p) to the values written."""
@@ -77,7 +77,7 @@ def _write_row(X1, i, src, o, wi, mean, inv, bounds, with_bounds, xwe):  # pragm
             bounds[1, j] = min(bounds[1, j], x)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def scatter_standardised(X1, src, rows, pos, we_src, mean, inv, bounds, with_bounds,
                          xwe):  # pragma: no cover
     """Row ``pos[q]`` of ``X1`` (columns 1..p) = ``(src[rows[q]] - mean) * inv`` (``src[q]``
@@ -99,7 +99,7 @@ def scatter_standardised(X1, src, rows, pos, we_src, mean, inv, bounds, with_bou
                    with_bounds, xwe)
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def gather_standardised(X1, src, idx, we, mean, inv, bounds, with_bounds, xwe):  # pragma: no cover
     """Row ``i`` of ``X1`` (columns 1..p) = ``(src[idx[i]] - mean) * inv`` for every i;
     ``xwe`` (p,) = the sum of ``we[i] x`` over them in row order and, ``with_bounds``,

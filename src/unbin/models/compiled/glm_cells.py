@@ -17,7 +17,7 @@ import numba
 import numpy as np
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def glm_cells(e: np.ndarray, y: np.ndarray, counts: np.ndarray, act: np.ndarray, r0: int,
               scale: np.ndarray, logistic: bool, want_v: bool, r: np.ndarray,
               wv: np.ndarray) -> None:  # pragma: no cover - compiled

@@ -21,7 +21,7 @@ import numpy as np
 __all__ = ["glm_rows"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def glm_rows(eta: np.ndarray, e: np.ndarray, lg: np.ndarray, y: np.ndarray,
              freq: np.ndarray, Zb: np.ndarray, logistic: bool, terms: np.ndarray,
              resid: np.ndarray, Zv: np.ndarray) -> None:  # pragma: no cover - compiled

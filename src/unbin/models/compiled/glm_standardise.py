@@ -12,7 +12,7 @@ import numpy as np
 __all__ = ["standardised_rows"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def standardised_rows(X: np.ndarray, r0: int, mean: np.ndarray, inv: np.ndarray,
                       Zb: np.ndarray) -> None:  # pragma: no cover - compiled
     nb = Zb.shape[0]

@@ -12,7 +12,7 @@ import numpy as np
 __all__ = ["scaled_rows"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def scaled_rows(Zb: np.ndarray, v: np.ndarray, out: np.ndarray) -> None:  # pragma: no cover
     nb, k = Zb.shape
     for i in range(nb):

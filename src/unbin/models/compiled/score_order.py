@@ -19,7 +19,7 @@ import numpy as np
 __all__ = ["stable_order32", "stable_order48"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def stable_order32(key: np.ndarray) -> np.ndarray:
     """``np.argsort(key, kind="stable")`` of ``key`` (n,) uint32, as int64 positions."""
     n = key.shape[0]
@@ -62,7 +62,7 @@ def stable_order32(key: np.ndarray) -> np.ndarray:
     return first
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def stable_order48(key: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """``np.argsort(key, kind="stable")`` of ``key`` (n,) int64, every key in [0, 2^48), as
     int64 positions, and the keys in that order. The keys less their smallest are split into

@@ -18,7 +18,7 @@ import numpy as np
 __all__ = ["place_counts"]
 
 
-@numba.njit(cache=True, nogil=True)
+@numba.njit(cache=True, nogil=True, error_model="numpy")
 def place_counts(ranked: np.ndarray, risk: np.ndarray, event: np.ndarray,
                  weights: np.ndarray) -> np.ndarray:
     """(thresholds + 1, 2) int64: the copies of the rows at each place (0: below every
