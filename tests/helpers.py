@@ -96,3 +96,20 @@ def tied_survival_design(rng: np.random.Generator, n: int, n_times: int, n_score
     strata = rng.integers(0, n_strata, n)
     entry = np.where(rng.random(n) < 0.5, t - rng.integers(1, n_times + 1, n), -1.0)
     return t, s, e, entry, strata
+
+
+# An invented clinic's sodium, its square, age, sex and two of three sites (the GLM engine's
+# registry-size tests); SODIUM_TRUTH: intercept, then the columns' coefficients.
+SODIUM_NAMES = ("sodium", "sodium_sq", "age", "female", "site_b", "site_c")
+SODIUM_TRUTH = np.array([-2.0, -0.05, 0.02, 0.015, -0.2, 0.1, -0.15])
+
+
+def sodium_design(seed: int, n: int) -> np.ndarray:
+    """n rows of the columns SODIUM_NAMES, seeded."""
+    rng = np.random.default_rng(seed)
+    age = 60 + 12 * rng.normal(size=n)
+    sodium = 139 + 3.5 * rng.normal(size=n)
+    female = (rng.random(n) < 0.5).astype(float)
+    site = rng.integers(0, 3, n)
+    return np.column_stack([sodium, (sodium - 139) ** 2, age, female,
+                            (site == 1).astype(float), (site == 2).astype(float)])

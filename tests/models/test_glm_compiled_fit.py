@@ -18,27 +18,20 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 
+from helpers import SODIUM_NAMES, SODIUM_TRUTH, sodium_design
 from unbin.models import Outcome, _glm, fit
 from unbin.models._glm import _BLOCK_ROWS, _Family, standardise, standardise_with_gram
 
 N = 2 * _BLOCK_ROWS + 1234
-NAMES = ("sodium", "sodium_sq", "age", "female", "site_b", "site_c")
-TRUTH = np.array([-2.0, -0.05, 0.02, 0.015, -0.2, 0.1, -0.15])  # intercept, then NAMES
 
 
-def _design(seed: int) -> np.ndarray:
-    rng = np.random.default_rng(seed)
-    age = 60 + 12 * rng.normal(size=N)
-    sodium = 139 + 3.5 * rng.normal(size=N)
-    female = (rng.random(N) < 0.5).astype(float)
-    site = rng.integers(0, 3, N)
-    return np.column_stack([sodium, (sodium - 139) ** 2, age, female,
-                            (site == 1).astype(float), (site == 2).astype(float)])
+def _design(seed: int, n: int = N) -> np.ndarray:
+    return sodium_design(seed, n)
 
 
 def _outcome(case: str, X: np.ndarray) -> Outcome:
     rng = np.random.default_rng(17)
-    eta = X @ TRUTH[1:]
+    eta = X @ SODIUM_TRUTH[1:]
     eta = eta - eta.mean()
     freq = rng.integers(1, 4, N).astype(float) if case.endswith("weighted") else None
     if case.startswith("binary"):
@@ -54,7 +47,7 @@ def _outcome(case: str, X: np.ndarray) -> Outcome:
 def _fit(path: str, case: str, X: np.ndarray, monkeypatch: pytest.MonkeyPatch):  # type: ignore[no-untyped-def]
     monkeypatch.setenv("UNBIN_COMPILED", path)
     out = _outcome(case, X)
-    return fit(out.family, X, out, NAMES), out
+    return fit(out.family, X, out, SODIUM_NAMES), out
 
 
 CASES = ["binary", "binary-weighted", "count", "count-weighted", "continuous"]

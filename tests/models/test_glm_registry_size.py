@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 
+from helpers import SODIUM_NAMES, SODIUM_TRUTH, sodium_design
 from unbin.models import Outcome, _glm, fit
 from unbin.models._glm import _BLOCK_ROWS, check_design, gram, standardise, standardise_with_gram
 
@@ -17,17 +18,9 @@ N = 2 * _BLOCK_ROWS + 1234  # three row blocks of the Gram (12 of an evaluation)
 
 
 def _design(seed: int, n: int = N) -> np.ndarray:
-    rng = np.random.default_rng(seed)
-    age = 60 + 12 * rng.normal(size=n)
-    sodium = 139 + 3.5 * rng.normal(size=n)
-    female = (rng.random(n) < 0.5).astype(float)
-    site = rng.integers(0, 3, n)
-    return np.column_stack([sodium, (sodium - 139) ** 2, age, female,
-                            (site == 1).astype(float), (site == 2).astype(float)])
+    return sodium_design(seed, n)
 
 
-NAMES = ("sodium", "sodium_sq", "age", "female", "site_b", "site_c")
-TRUTH = np.array([-2.0, -0.05, 0.02, 0.015, -0.2, 0.1, -0.15])  # intercept, then NAMES
 
 
 def test_blocked_standardise_and_its_gram() -> None:
@@ -55,13 +48,13 @@ def test_rank_check_with_the_shared_gram_names_the_tied_columns() -> None:
     # given the shared Gram names the same columns as the one computing its own.
     X = _design(2, n=3000)
     X = np.column_stack([X, X[:, 4] + X[:, 5]])
-    names = (*NAMES, "site_any")
+    names = (*SODIUM_NAMES, "site_any")
     Z, _, _, G = standardise_with_gram(X)
     msg = check_design(X, names, Z, G)
     assert "collinear" in msg and "site_any" in msg and "site_b" in msg
     assert msg == check_design(X, names)
     Z1, _, _, G1 = standardise_with_gram(X[:, :-1])
-    assert check_design(X[:, :-1], NAMES, Z1, G1) == ""
+    assert check_design(X[:, :-1], SODIUM_NAMES, Z1, G1) == ""
 
 
 def _statsmodels(family: str, X: np.ndarray, y: np.ndarray, offset: np.ndarray | None = None,
@@ -75,7 +68,7 @@ def _statsmodels(family: str, X: np.ndarray, y: np.ndarray, offset: np.ndarray |
 def _outcomes(seed: int) -> dict[str, Outcome]:
     X = _design(seed)
     rng = np.random.default_rng(seed)
-    eta = X @ TRUTH[1:]
+    eta = X @ SODIUM_TRUTH[1:]
     eta = eta - eta.mean()
     years = rng.uniform(0.2, 3.0, N)
     freq = rng.integers(1, 4, N).astype(float)
@@ -100,7 +93,7 @@ def test_fits_from_the_shared_gram_equal_statsmodels(case: str) -> None:
     # person-time offset).
     X = _design(3)
     out = _outcomes(3)[case]
-    res = fit(out.family, X, out, NAMES)
+    res = fit(out.family, X, out, SODIUM_NAMES)
     _agrees_with_statsmodels(res, _statsmodels(out.family, X, out.y, offset=out.offset,
                                                freq=out.weights))
 
@@ -110,8 +103,8 @@ def test_linear_fit_from_the_shared_gram_equals_statsmodels() -> None:
     # maximum-likelihood Gaussian log-likelihood).
     X = _design(5)
     rng = np.random.default_rng(50)
-    y = 130 + X @ (10 * TRUTH[1:]) + 8 * rng.normal(size=N)
-    res = fit("continuous", X, Outcome("continuous", y), NAMES)
+    y = 130 + X @ (10 * SODIUM_TRUTH[1:]) + 8 * rng.normal(size=N)
+    res = fit("continuous", X, Outcome("continuous", y), SODIUM_NAMES)
     ref = sm.OLS(y, sm.add_constant(X)).fit()
     assert res.ok, res.message
     np.testing.assert_allclose(res.coef, ref.params, rtol=1e-9, atol=1e-9)
