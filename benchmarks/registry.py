@@ -256,6 +256,7 @@ def run_unbin(spec_path: Path, out: Path, cores: int) -> dict[str, Any]:
         "rules": manifest["rules"],
         "statuses": {str(k): int(v) for k, v in status["status"].value_counts().items()},
         "slowest_jobs": slowest_jobs(out),
+        "memory_requests": memory_requests(out, spec_path),
     }
 
 
@@ -267,6 +268,30 @@ def slowest_jobs(out: Path, k: int = 5) -> list[dict[str, Any]]:
         rows.append({"job": str(rel.with_suffix("")), "seconds": round(float(row["s"]), 1),
                      "max_rss_mb": float(row["max_rss"]) if row["max_rss"] != "-" else None})
     return sorted(rows, key=lambda r: -r["seconds"])[:k]
+
+
+def memory_requests(out: Path, spec_path: Path) -> dict[str, Any]:
+    """Each fit and resampling job's peak (Snakemake's max_rss) against the memory it asked for
+    (``pipeline.memory``): the largest share, and the jobs whose peak exceeded the request (on a
+    cluster that enforces requests, they would have been killed and retried)."""
+    from unbin.pipeline.workflow_support import analysis_memory_mb
+    from unbin.spec import load_spec
+
+    spec = load_spec(spec_path)
+    shares: list[dict[str, Any]] = []
+    for rule, job in (("fit_analysis", "fit"), ("resample_analysis", "resample")):
+        for tsv in sorted((out / "benchmarks" / rule).glob("*/*.tsv")):
+            row = pd.read_csv(tsv, sep="\t").iloc[0]
+            if row["max_rss"] == "-":
+                continue
+            cohort, analysis = tsv.parent.name, tsv.stem
+            asked = analysis_memory_mb(spec, cohort, analysis, job, 1)
+            shares.append({"job": f"{rule}/{cohort}/{analysis}", "asked_mb": asked,
+                           "peak_mb": round(float(row["max_rss"]), 1),
+                           "share": round(float(row["max_rss"]) / asked, 3)})
+    return {"largest_share": max((r["share"] for r in shares), default=None),
+            "over": [r for r in shares if r["share"] > 1.0],
+            "asked_mb_total": sum(r["asked_mb"] for r in shares)}
 
 
 def measure(rows: int, cores: int, bootstrap: int, permutations: int,
@@ -314,6 +339,12 @@ def markdown(r: dict[str, Any]) -> str:
                      f"{v['seconds_max']:.1f} | {v['max_rss_mb']:,.0f} |")
     lines += ["", "Slowest jobs: " + ", ".join(f"{j['job']} {j['seconds']:.0f} s"
                                                for j in r["slowest_jobs"])]
+    req = r["memory_requests"]
+    if req["largest_share"] is not None:
+        lines += ["", f"Memory requests: the largest peak was {req['largest_share']:.0%} of its "
+                      f"job's request; {len(req['over'])} job(s) over their request"
+                      + "".join(f"; {o['job']} {o['peak_mb']:,.0f} of {o['asked_mb']:,} MB"
+                                for o in req["over"])]
     return "\n".join(lines)
 
 

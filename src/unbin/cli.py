@@ -63,7 +63,8 @@ def cmd_check(args: argparse.Namespace) -> int:
     return 0
 
 
-def _run(spec_path: Path, out: Path, cores: int, profile: str | None, quiet: bool) -> int:
+def _run(spec_path: Path, out: Path, cores: int, profile: str | None, quiet: bool,
+         memory_mb: int | None = None) -> int:
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 
     from .pipeline.runner import run_workflow
@@ -83,7 +84,8 @@ def _run(spec_path: Path, out: Path, cores: int, profile: str | None, quiet: boo
                             description=f"jobs done · running {current}" if current
                             else "jobs done")
 
-        rc = run_workflow(spec_path, out, cores=cores, profile=profile, on_progress=update)
+        rc = run_workflow(spec_path, out, cores=cores, profile=profile, on_progress=update,
+                          memory_mb=memory_mb)
     if rc != 0:
         errors.print(f"[red]The workflow failed (exit {rc}); see {out / 'logs'}.[/red]")
         return rc
@@ -97,7 +99,8 @@ def _run(spec_path: Path, out: Path, cores: int, profile: str | None, quiet: boo
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    return _run(Path(args.spec), Path(args.out), args.cores, args.profile, args.quiet)
+    return _run(Path(args.spec), Path(args.out), args.cores, args.profile, args.quiet,
+                args.memory_mb)
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
@@ -107,7 +110,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     spec_path = write_demo(out)
     _console(args.quiet).print(f"Demo registry (invented data) written: spec {spec_path}, "
                                f"extract {out / 'data'}")
-    return _run(spec_path, out, args.cores, args.profile, args.quiet)
+    return _run(spec_path, out, args.cores, args.profile, args.quiet, args.memory_mb)
 
 
 def cmd_pool(args: argparse.Namespace) -> int:
@@ -183,6 +186,10 @@ def build_parser() -> argparse.ArgumentParser:
                         help="cores for local jobs (default: all)")
         sp.add_argument("--profile", default=None,
                         help="Snakemake profile: 'local', 'slurm' or a profile folder")
+        sp.add_argument("--memory-mb", type=int, default=None,
+                        help="megabytes the jobs running at once on this computer may use "
+                             "together (default: 90%% of the memory available at the start; "
+                             "no cap with a cluster profile)")
         sp.add_argument("--quiet", action="store_true", help="no progress and no summary")
 
     sp = sub.add_parser("run", help="run every analysis of a spec")

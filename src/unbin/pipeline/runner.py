@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from ..errors import UnbinError
+from .memory import memory_budget_mb
 from .workflow_support import snakefile
 
 PROGRESS = re.compile(r"(\d+) of (\d+) steps \((\d+(?:\.\d+)?)%\) done")
@@ -89,7 +90,11 @@ def profile_path(profile: str) -> Path:
 
 
 def snakemake_command(spec: Path, out: Path, cores: int, profile: str | None = None,
-                      extra: list[str] | None = None) -> list[str]:
+                      extra: list[str] | None = None,
+                      memory_mb: int | None = None) -> list[str]:
+    """The Snakemake command line of a run. ``memory_mb`` caps what the jobs running at once on
+    this computer may ask for together (``--resources mem_mb``; see ``pipeline.memory``): given
+    only for local runs, where the jobs share this computer's memory."""
     cmd = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile()),
            "--directory", str(out), "--config", f"spec={spec.resolve()}",
            "--rerun-triggers", "params", "input", "--rerun-incomplete"]
@@ -98,11 +103,28 @@ def snakemake_command(spec: Path, out: Path, cores: int, profile: str | None = N
     # The command line wins over a profile: --cores caps local work (and local rules on a
     # cluster); no workflow profile is picked up implicitly.
     cmd += ["--cores", str(cores), "--workflow-profile", "none"]
+    if memory_mb is not None:
+        cmd += ["--resources", f"mem_mb={memory_mb}"]
     return cmd + (extra or [])
 
 
+def local_memory_mb(profile: str | None, memory_mb: int | None) -> int | None:
+    """The memory cap of a run: the one asked for; else, for a run on this computer (no profile
+    or the ``local`` one), ``pipeline.memory.memory_budget_mb``; none for a cluster profile,
+    whose jobs each get their own memory."""
+    if memory_mb is not None:
+        if memory_mb < 1:
+            raise UnbinError(f"--memory-mb {memory_mb}: give the megabytes the jobs may use at "
+                             "once on this computer, a positive whole number (e.g. 16000).")
+        return memory_mb
+    if profile not in (None, "local"):
+        return None
+    return memory_budget_mb()
+
+
 def run_manifest(out: Path, spec: Path, cores: int, profile: str | None, started: float,
-                 ended: float, returncode: int) -> dict[str, Any]:
+                 ended: float, returncode: int,
+                 memory_mb: int | None = None) -> dict[str, Any]:
     """The run manifest (``out/run.json``): versions, the spec's digest, per-rule timings from
     Snakemake's benchmark files, start and end times. Times live here, never in the results."""
     from ..results.provenance import versions
@@ -130,6 +152,7 @@ def run_manifest(out: Path, spec: Path, cores: int, profile: str | None, started
         "spec_git": spec_git(spec),
         "versions": versions(),
         "cores": cores,
+        "memory_mb": memory_mb,
         "profile": profile or "none",
         "started": stamp(started),
         "ended": stamp(ended),
@@ -171,16 +194,19 @@ def spec_git(spec: Path) -> dict[str, Any] | None:
 
 def run_workflow(spec: Path, out: Path, cores: int = 1, profile: str | None = None,
                  extra: list[str] | None = None,
-                 on_progress: Callable[[int, int, str], None] | None = None) -> int:
+                 on_progress: Callable[[int, int, str], None] | None = None,
+                 memory_mb: int | None = None) -> int:
     """Run the workflow; returns Snakemake's exit code. Its log goes to ``out/logs/snakemake.log``
-    and the run manifest to ``out/run.json``."""
+    and the run manifest to ``out/run.json``. ``memory_mb``: the local jobs' memory cap
+    (default: :func:`local_memory_mb`)."""
     started = time.time()
+    memory_mb = local_memory_mb(profile, memory_mb)
     with _folder_lock(out) as held:
         if held:
             _remove_stale_lock(spec, out, cores, profile)
-        rc = _run_snakemake(spec, out, cores, profile, extra, on_progress)
+        rc = _run_snakemake(spec, out, cores, profile, extra, on_progress, memory_mb)
     if not extra or "-n" not in extra:
-        manifest = run_manifest(out, spec, cores, profile, started, time.time(), rc)
+        manifest = run_manifest(out, spec, cores, profile, started, time.time(), rc, memory_mb)
         (out / "run.json").write_text(json.dumps(manifest, indent=1, sort_keys=True) + "\n")
     return rc
 
@@ -217,10 +243,11 @@ def _remove_stale_lock(spec: Path, out: Path, cores: int, profile: str | None) -
 
 def _run_snakemake(spec: Path, out: Path, cores: int, profile: str | None,
                    extra: list[str] | None,
-                   on_progress: Callable[[int, int, str], None] | None) -> int:
+                   on_progress: Callable[[int, int, str], None] | None,
+                   memory_mb: int | None = None) -> int:
     out.mkdir(parents=True, exist_ok=True)
     (out / "logs").mkdir(exist_ok=True)
-    cmd = snakemake_command(spec, out, cores, profile, extra)
+    cmd = snakemake_command(spec, out, cores, profile, extra, memory_mb)
     env = dict(os.environ)
     env.setdefault("PYTHONHASHSEED", "0")
     # Each job is single-threaded; parallelism comes from Snakemake jobs. A multi-threaded BLAS

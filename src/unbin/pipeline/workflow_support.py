@@ -11,8 +11,10 @@ from pathlib import Path
 from typing import Any
 
 from .. import __version__
-from ..data import file_sha256
+from ..data import extract_rows, file_sha256
 from ..spec import Spec, digest
+from ..spec.missing import missing_options
+from .memory import job_memory_mb
 
 
 def snakefile() -> Path:
@@ -31,6 +33,25 @@ def analysis_params(spec: Spec, cohort: str, analysis: str) -> str:
     c = spec.cohort(cohort)
     return (f"extract={_sha(str(c.path))} spec={digest(spec.slice_for(analysis, cohort))} "
             f"unbin={__version__}")
+
+
+@cache
+def _rows(path: str, dialect: Any) -> int:
+    try:
+        return extract_rows(Path(path), dialect)
+    except Exception:  # noqa: BLE001 - unreadable here: the job itself reports why
+        return 0
+
+
+def analysis_memory_mb(spec: Spec, cohort: str, analysis: str, job: str, attempt: int) -> int:
+    """The memory (MB) the ``fit`` or ``resample`` job of a (cohort, analysis) asks for: from
+    the extract's row count (read once per extract), the outcome type and the imputed sets
+    (:func:`unbin.pipeline.memory.job_memory_mb`)."""
+    c = spec.cohort(cohort)
+    options = missing_options(spec, analysis)
+    sets = options.imputations if options.imputed else 1
+    return job_memory_mb(job, _rows(str(c.path), c.csv), spec.analysis(analysis).family, sets,
+                         attempt)
 
 
 def derived_basis_analyses(spec: Spec) -> list[str]:

@@ -8,6 +8,7 @@ from snakemake.utils import min_version, validate
 from unbin.consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
 from unbin.pipeline.jobs import FIT_JOB_TABLES, JOB_TABLES, RESAMPLING_TABLES, STUDY_TABLES
 from unbin.pipeline.workflow_support import (
+    analysis_memory_mb,
     analysis_params,
     basis_cohort_params,
     basis_params,

@@ -16,7 +16,9 @@ rule fit_analysis:
         "benchmarks/fit_analysis/{cohort}/{analysis}.tsv"
     threads: 1
     resources:
-        mem_mb=lambda w, attempt: 1000 * attempt,
+        mem_mb=lambda w, attempt: analysis_memory_mb(
+            UNBIN_SPEC, w.cohort, w.analysis, "fit", attempt
+        ),
     params:
         digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     script:
@@ -36,7 +38,9 @@ rule resample_analysis:
         "benchmarks/resample_analysis/{cohort}/{analysis}.tsv"
     threads: 1
     resources:
-        mem_mb=lambda w, attempt: 1000 * attempt,
+        mem_mb=lambda w, attempt: analysis_memory_mb(
+            UNBIN_SPEC, w.cohort, w.analysis, "resample", attempt
+        ),
     params:
         digests=lambda w: analysis_params(UNBIN_SPEC, w.cohort, w.analysis),
     script:
