@@ -40,6 +40,7 @@ from ..results.tables import read_table, write_table
 from ..spec import Analysis, Spec, digest, load_spec
 from ..spec.missing import missing_options
 from ..terms.legacy import legacy_term
+from .memory import keep_freed_memory
 from .workflow_support import derived_basis_analyses
 
 if TYPE_CHECKING:
@@ -208,6 +209,7 @@ def _analyse_extract(spec: Spec, cohort: str, analysis: str, extract: list[pd.Da
 
 def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
                  outdir: str | Path, basis_path: str | Path | None = None) -> dict[str, Any]:
+    keep_freed_memory()  # registry-size temporaries reused, not mapped afresh (pipeline.memory)
     spec = load_spec(spec_path).for_cohort(cohort)
     a = spec.analysis(analysis)
     rec = input_record(spec, cohort)
@@ -462,6 +464,7 @@ def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir:
     """The resampling questions of one analysis on one cohort (bootstrap, permutations), on the
     analysis sample (an imputed analysis: :func:`unbin.pipeline.imputed.resampling_tables`); an
     analysis that cannot run leaves empty tables (its fit job records why)."""
+    keep_freed_memory()
     spec = load_spec(spec_path).for_cohort(cohort)
     a = spec.analysis(analysis)
     prov_base = dict(inputs=[input_record(spec, cohort)],
