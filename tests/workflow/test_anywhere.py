@@ -160,6 +160,9 @@ def test_run_manifest_beside_results(small_run: tuple[Path, Path]) -> None:
     assert manifest["rules"]["fit_analysis"]["jobs"] == 4
     assert manifest["started"] <= manifest["ended"]
     assert "statsmodels" in manifest["versions"]
+    # a local run caps its jobs' memory requests (pipeline.memory), and says at what
+    if Path("/proc/meminfo").is_file():
+        assert isinstance(manifest["memory_mb"], int) and manifest["memory_mb"] > 0
 
 
 def test_report_false_plans_no_figures_and_no_report(tmp_path: Path) -> None:

@@ -106,3 +106,23 @@ def test_local_runs_cap_memory_cluster_runs_do_not(tmp_path: Path) -> None:
     cmd = snakemake_command(tmp_path / "spec.yaml", tmp_path, 2, memory_mb=12000)
     assert cmd[cmd.index("--resources") + 1] == "mem_mb=12000"
     assert "--resources" not in snakemake_command(tmp_path / "spec.yaml", tmp_path, 2)
+
+
+def test_a_cap_that_is_not_positive_is_refused_with_its_fix(tmp_path: Path,
+                                                            capsys: pytest.CaptureFixture[str]
+                                                            ) -> None:
+    from unbin.cli import main
+
+    raw = demo_spec(COHORTS[:1])
+    keep_analyses(raw, "readmission_sodium")
+    (tmp_path / "data").mkdir()
+    c = COHORTS[0]
+    simulate_registry(profile=replace(c, n=400)).to_parquet(
+        tmp_path / "data" / f"{c.name}.parquet", index=False)
+    spec = tmp_path / "spec.yaml"
+    spec.write_text(yaml.safe_dump(raw, sort_keys=False))
+    rc = main(["run", str(spec), "--out", str(tmp_path / "out"), "--memory-mb", "0", "--quiet"])
+    assert rc == 2
+    said = capsys.readouterr().out
+    assert "--memory-mb 0" in said and "positive whole number" in said
+    assert not (tmp_path / "out" / "tables").exists()
