@@ -91,7 +91,7 @@ from ..models.cox import (
 )
 from ..models.cox.baseline import DrawnHorizon, baseline_steps
 from ..models.cox.concordance import scores_concordances
-from ..models.discrimination import auc, c_index, compared_score, count_aucs
+from ..models.discrimination import auc, c_index, compared_score, drawn_aucs
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     Replicates,
@@ -709,6 +709,8 @@ class _Evaluator:
         # the risks of the last predictors (by identity, holding them): a replicate's model
         # is judged on its drawn rows and on the full sample from the same z
         self._risks: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+        # binary: the full sample's outcomes as bool (the C indices' events), made once
+        self._event: np.ndarray | None = None
 
     def z_of(self, k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
         """Every row's linear predictor on the risk's link scale (log odds; survival the log
@@ -765,7 +767,7 @@ class _Evaluator:
         full sample's rows repeated as drawn, so one sort by score serves both, with the
         drawn rows as draw counts (survival: and one time order, the full sample's,
         :func:`unbin.models.cox.concordance.concordances`; binary:
-        :func:`unbin.models.discrimination.count_aucs`), the same numbers as the C index of
+        :func:`unbin.models.discrimination.drawn_aucs`), the same numbers as the C index of
         the repeated rows. Scores are compared as the point estimate compares them: rounded
         to ``SCORE_DECIMALS`` decimals (:func:`unbin.models.discrimination.compared_score`),
         so rows whose scores agree to that many decimals tie here as there."""
@@ -774,10 +776,11 @@ class _Evaluator:
         counts = drawn.row_counts(self.r.outcome.n)
         in_drawn: dict[int, float] = {}
         in_full: dict[int, float] = {}
-        if self.r.family == "binary":  # one sort per model (count_aucs), the pair_auc values
+        if self.r.family == "binary":  # one call per model (drawn_aucs), the pair_auc values
+            if self._event is None:
+                self._event = np.asarray(full.y) > 0
             for key, z in zs.items():
-                got = (None if z is None
-                       else count_aucs(full.y, compared_score(full.rows_of(z)), [counts, None]))
+                got = None if z is None else drawn_aucs(self._event, full.rows_of(z), counts)
                 if got is not None:
                     in_drawn[key], in_full[key] = got
             return in_drawn, in_full
