@@ -108,7 +108,12 @@ from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import LinearTerm, SplineTerm, Term
 from .decisions import EVENT_FAMILIES, thresholds_for, typed_table
-from .net_benefit import legacy_rules, net_benefit_counts, net_benefit_risk
+from .net_benefit import (
+    legacy_rules,
+    logistic_rules_drawn_and_full,
+    net_benefit_counts,
+    net_benefit_risk,
+)
 
 PURPOSE = "decision_resampling"
 FORMS = ("legacy", "linear", "spline")
@@ -711,6 +716,9 @@ class _Evaluator:
         self._risks: dict[int, tuple[np.ndarray, np.ndarray]] = {}
         # binary: the full sample's outcomes as bool (the C indices' events), made once
         self._event: np.ndarray | None = None
+        # binary: the risk rules' net benefits on the full sample of the last replicate
+        # predictors (by identity, holding them), made with those on the drawn rows
+        self._full_rules: dict[int, tuple[np.ndarray, np.ndarray]] = {}
 
     def z_of(self, k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
         """Every row's linear predictor on the risk's link scale (log odds; survival the log
@@ -837,8 +845,7 @@ class _Evaluator:
         pt = self.pt
         if self.r.family == "binary" and on.w is None and pt.size:
             # on the sample's rows with ``on``'s draw counts: no repeated rows to form
-            nb = net_benefit_risk(self.r.outcome.y, self.risk_of(z), pt,
-                                  on.row_counts(self.r.outcome.n))[0]
+            nb = self._binary_rules(z, on)
             zo = None
         elif on.base is not None and on.w is None and pt.size:
             # on the sample's rows with ``on``'s draw counts (as for binary outcomes)
@@ -855,6 +862,28 @@ class _Evaluator:
         out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
                                          and not self.competing
                                          else on.slope(on.rows_of(z) if zo is None else zo))
+
+    def _binary_rules(self, z: np.ndarray, on: _Sample) -> np.ndarray:
+        """The net benefits of a logistic model's risk rule (log odds ``z`` of every sample
+        row) on ``on``'s rows as draw counts. A replicate's drawn rows are read first, and
+        with them the full sample's (one pass, :func:`unbin.questions.net_benefit.
+        logistic_rules_drawn_and_full`), kept for the replicate's reading on the full sample
+        (the same array ``z``)."""
+        n = self.r.outcome.n
+        if self._event is None:
+            self._event = np.asarray(self.r.outcome.y) > 0
+        if on._whole:
+            hit = self._full_rules.pop(id(z), None)
+            if hit is not None and hit[0] is z:
+                return hit[1]
+            return net_benefit_risk(self._event, self.risk_of(z), self.pt,
+                                    on.row_counts(n))[0]
+        drawn, whole = logistic_rules_drawn_and_full(self._event, z, self.pt,
+                                                     on.row_counts(n))
+        if len(self._full_rules) >= 2 * len(RISK_MODELS):  # a replicate's at most
+            del self._full_rules[next(iter(self._full_rules))]
+        self._full_rules[id(z)] = (z, whole)
+        return drawn
 
     def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
                    c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:
