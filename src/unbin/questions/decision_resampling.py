@@ -82,6 +82,7 @@ from scipy import special
 
 from ..models import Outcome, fit
 from ..models.base import FitResult
+from ..models.compiled import wanted
 from ..models.competing import fine_gray_replicate, fit_fine_gray
 from ..models.cox import (
     concordance,
@@ -455,22 +456,45 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence.
     The 2 x 2 information and the score are five sums over the rows (no n x 2 design), taken
     a block of ``_SLOPE_ROWS`` rows at a time so that each step's passes (b zc + a, expit,
-    mu (1 - mu), y - mu, w zc) stay in cache (the same sums to rounding)."""
+    mu (1 - mu), y - mu, w zc) stay in cache (the same sums to rounding; from
+    ``SLOPE_SUMS_FROM_ROWS`` rows the five sums of a block are one compiled pass,
+    ``unbin.models.compiled.slope_sums``). Newton starts from the predictor as it is
+    (a = mean z, b = 1), the maximum when z is the log odds of a model fitted to these rows and
+    near it for a bootstrap replicate's model (fewer steps than from the outcome's log odds;
+    the same maximum)."""
     y = np.asarray(y, dtype=float)
-    zc = np.asarray(z, dtype=float) - np.mean(z)
+    z = np.asarray(z, dtype=float)
+    centre = float(np.mean(z))
+    zc = z - centre
     n = len(zc)
-    a, b = float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6))), 1.0
+    a, b = (centre if np.isfinite(centre)
+            else float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6)))), 1.0
+    sums: Callable[[np.ndarray, np.ndarray, np.ndarray], np.ndarray] | None = None
+    if wanted(n, SLOPE_SUMS_FROM_ROWS):
+        from ..models.compiled.slope_sums import slope_sums
+
+        sums = slope_sums
     # a block's arrays made once and overwritten at each step
-    mu, w, r, wz = (np.empty(min(n, _SLOPE_ROWS)) for _ in range(4))
+    mu, w, r, wz = (np.empty(min(n, _SLOPE_ROWS) if sums is None or k == 0 else 0)
+                    for k in range(4))
     for _ in range(50):
         h00 = h01 = h11 = g0 = g1 = 0.0
         for r0 in range(0, n, _SLOPE_ROWS):
             zb, yb = zc[r0:r0 + _SLOPE_ROWS], y[r0:r0 + _SLOPE_ROWS]
             m = len(zb)
-            mub, wb, rb, wzb = mu[:m], w[:m], r[:m], wz[:m]
+            mub = mu[:m]
             np.multiply(zb, b, out=mub)
             mub += a
             expit_into(mub, mub)
+            if sums is not None:
+                s5 = sums(zb, yb, mub)
+                h00 += float(s5[0])
+                h01 += float(s5[1])
+                h11 += float(s5[2])
+                g0 += float(s5[3])
+                g1 += float(s5[4])
+                continue
+            wb, rb, wzb = w[:m], r[:m], wz[:m]
             np.subtract(1.0, mub, out=wb)
             wb *= mub
             np.subtract(yb, mub, out=rb)
@@ -490,6 +514,9 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     return float("nan")
 
 
+# From this many rows a block's sums of :func:`logistic_slope` are one compiled pass
+# (DEVELOPERS.md, "Compiled kernels").
+SLOPE_SUMS_FROM_ROWS = 50_000
 _SLOPE_ROWS = 32768  # rows of a block of the calibration slope's sums (5 arrays of 256 kB)
 
 
