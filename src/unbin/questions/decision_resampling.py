@@ -82,8 +82,8 @@ from scipy import special
 
 from ..models import Outcome, fit
 from ..models.base import FitResult
-from ..models.compiled import wanted
 from ..models.competing import fine_gray_replicate, fit_fine_gray
+from ..models.compiled import wanted
 from ..models.cox import (
     concordance,
     concordance_order,
