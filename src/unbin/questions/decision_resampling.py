@@ -924,8 +924,8 @@ class _Evaluator:
         if basis is None:
             basis = self._basis_x[id(mdl)] = _exposure_basis(mdl, r.x)
         lo = 1 if r.family == "binary" else 0
-        rest = float(np.median((z - np.asarray(basis @ c[lo:lo + mdl.k], dtype=float))
-                               [fit.idx]))
+        rest = _median_of_rows(z - np.asarray(basis @ c[lo:lo + mdl.k], dtype=float), fit,
+                               r.outcome.n)
         lo_x, hi_x = float(r.x.min()), float(r.x.max())
         for t in self.pt:
             found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
@@ -947,6 +947,30 @@ class _Evaluator:
                 fixed[("net benefit", "treat all", t)] = float(v)
             on.fixed_rules = fixed
         out.update(on.fixed_rules)
+
+
+def _median_of_rows(v: np.ndarray, on: _Sample, n: int) -> float:
+    """``np.median(v[on.idx])`` (``v`` one value per row of the analysis sample), the same
+    number: from ``MIDDLE_FROM_ROWS`` rows the middle values of ``v`` with ``on``'s draw counts
+    (``unbin.models.compiled.weighted_median``: no gather, no partition), the mean of the two
+    for an even count as numpy takes it."""
+    total = on.idx.size
+    if total and wanted(n, MIDDLE_FROM_ROWS):
+        from ..models.compiled.weighted_median import middle_pair
+
+        half = total // 2
+        status, a, b = middle_pair(np.ascontiguousarray(v, dtype=float), on.row_counts(n),
+                                   half - 1 if total % 2 == 0 else half, half)
+        if status == 1:
+            return float("nan")
+        if status == 0:
+            return float(b if total % 2 else (a + b) / 2)
+    return float(np.median(v[on.idx]))
+
+
+# From this many rows :func:`_median_of_rows` is one compiled selection (DEVELOPERS.md,
+# "Compiled kernels").
+MIDDLE_FROM_ROWS = 50_000
 
 
 def _row_labels(key: tuple[Any, ...], est: float, q01: float, q99: float) -> dict[str, Any]:
