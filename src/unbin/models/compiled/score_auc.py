@@ -80,10 +80,10 @@ def drawn_full_pairs(lp: np.ndarray, event: np.ndarray, counts: np.ndarray
                     | np.uint64(1 if event[i] else 0))
     for p in range(2):
         total = 0
-        for b in range(2048):
-            c = hist[p, b]
-            hist[p, b] = total
-            total += c
+        for q in range(2048):
+            h = hist[p, q]
+            hist[p, q] = total
+            total += h
     spare = np.empty(n, dtype=np.uint64)
     low = np.uint64(16 + shift)
     mask = np.uint64(2047)
@@ -139,12 +139,12 @@ def drawn_full_pairs(lp: np.ndarray, event: np.ndarray, counts: np.ndarray
             n0f += otf
             evd = otd = evf = otf = 0
             prev = key
-        c = np.int64((it >> np.uint64(1)) & count_mask)
+        copies = int((it >> np.uint64(1)) & count_mask)
         if it & np.uint64(1):
-            evd += c
+            evd += copies
             evf += 1
         else:
-            otd += c
+            otd += copies
             otf += 1
     twd += evd * (2 * n0d + otd)
     n1d += evd
