@@ -127,16 +127,18 @@ def drawn_full_pairs(lp: np.ndarray, event: np.ndarray, counts: np.ndarray
     evd = otd = evf = otf = 0
     count_mask = np.uint64(32767)
     prev = items[0] >> np.uint64(16)
-    for i in range(n):
-        it = items[i]
+    for i in range(n + 1):  # the step past the last item closes the last group
+        it = items[i] if i < n else np.uint64(0)
         key = it >> np.uint64(16)
-        if key != prev:  # a new group of tied scores: close the last one
+        if i == n or key != prev:  # a new group of tied scores: close the last one
             twd += evd * (2 * n0d + otd)
             n1d += evd
             n0d += otd
             twf += evf * (2 * n0f + otf)
             n1f += evf
             n0f += otf
+            if i == n:
+                break
             evd = otd = evf = otf = 0
             prev = key
         copies = int((it >> np.uint64(1)) & count_mask)
@@ -146,12 +148,6 @@ def drawn_full_pairs(lp: np.ndarray, event: np.ndarray, counts: np.ndarray
         else:
             otd += copies
             otf += 1
-    twd += evd * (2 * n0d + otd)
-    n1d += evd
-    n0d += otd
-    twf += evf * (2 * n0f + otf)
-    n1f += evf
-    n0f += otf
     pairs[0, 0], pairs[0, 1], pairs[0, 2] = n1d, n0d, twd
     pairs[1, 0], pairs[1, 1], pairs[1, 2] = n1f, n0f, twf
     return 0, pairs
