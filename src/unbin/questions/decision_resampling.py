@@ -876,11 +876,13 @@ class _Evaluator:
             zo = None
         elif on.base is not None and on.w is None and pt.size:
             # on the sample's rows with ``on``'s draw counts (as for binary outcomes)
-            nb = on.net_benefit_of_rows(pt, risk=self.risk(z))
+            nb = on.net_benefit_of_rows(pt, risk=self.risk_of(z))
             zo = None
         else:
             zo = on.rows_of(z)
-            nb = on.net_benefit(pt, risk=self.risk(zo)) if pt.size else np.zeros(0)
+            # the whole sample (zo is z): the risks the drawn rows' reading made (risk_of)
+            risk = self.risk_of(z) if zo is z else self.risk(zo)
+            nb = on.net_benefit(pt, risk=risk) if pt.size else np.zeros(0)
         for t, v in zip(pt, nb, strict=True):
             out[("net benefit", f"risk: {k[0]}", t)] = float(v)
         # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
