@@ -128,8 +128,13 @@ def test_logliks_equal_statsmodels(family: str) -> None:
                                   got)
 
 
+@pytest.mark.parametrize("mode", ["never", "always"])
 @pytest.mark.parametrize("n", [1000, 3 * decision_resampling._SLOPE_ROWS + 17])
-def test_logistic_slope_equals_statsmodels(n: int) -> None:
+def test_logistic_slope_equals_statsmodels(n: int, mode: str,
+                                           monkeypatch: pytest.MonkeyPatch) -> None:
+    # source: statsmodels' Logit of y on [1, z]; both paths forced (the block sums by numpy
+    # and by unbin.models.compiled.slope_sums)
+    monkeypatch.setenv("UNBIN_COMPILED", mode)
     rng = np.random.default_rng(9)
     z = rng.normal(size=n) - 1.0
     y = (rng.random(n) < special.expit(0.2 + 0.8 * z)).astype(float)

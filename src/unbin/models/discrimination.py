@@ -88,6 +88,41 @@ def count_aucs(y: np.ndarray, score: np.ndarray,
     return out
 
 
+def drawn_aucs(y: np.ndarray, lp: np.ndarray,
+               counts: np.ndarray) -> tuple[float, float] | None:
+    """The AUC of the linear predictor ``lp`` compared as :func:`c_index` compares it
+    (:func:`compared_score`) in the data set in which row i is repeated ``counts[i]`` times (a
+    bootstrap replicate's drawn rows as draw counts, whole numbers) and in the rows as they
+    are: ``count_aucs(y, compared_score(lp), [counts, None])``, the same numbers. From
+    ``DRAWN_AUC_FROM_ROWS`` rows one compiled call rounds, orders and counts
+    (``unbin.models.compiled.score_auc``: no rounded copy, no order array, no gathers), unless
+    it declines (a predictor beyond 1e4 in size, a count beyond 2^15). None when a predictor
+    is NaN."""
+    c = np.asarray(counts)
+    x = np.asarray(lp, dtype=float)
+    if wanted(x.size, DRAWN_AUC_FROM_ROWS) and c.dtype.kind in "iu":
+        from .compiled.score_auc import drawn_full_pairs
+
+        e = np.asarray(y)
+        e = e if e.dtype == np.bool_ else e.astype(bool)
+        status, pairs = drawn_full_pairs(np.ascontiguousarray(x), e,
+                                         c.astype(np.int64, copy=False))
+        if status == 1:
+            return None
+        if status == 0:
+            n1d, n0d, twd = (int(v) for v in pairs[0])
+            n1f, n0f, twf = (int(v) for v in pairs[1])
+            return (float("nan") if n1d == 0 or n0d == 0 else float(twd / 2 / (n1d * n0d)),
+                    float("nan") if n1f == 0 or n0f == 0 else float(twf / 2 / (n1f * n0f)))
+    got = count_aucs(y, compared_score(x), [c, None])
+    return None if got is None else (got[0], got[1])
+
+
+# From this many rows :func:`drawn_aucs` is one compiled call (DEVELOPERS.md, "Compiled
+# kernels").
+DRAWN_AUC_FROM_ROWS = 50_000
+
+
 # From this many rows the counts of :func:`count_aucs` are one compiled pass
 # (``unbin.models.compiled.auc``) instead of the numpy reductions (DEVELOPERS.md, "Compiled
 # kernels").

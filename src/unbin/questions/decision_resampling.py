@@ -83,6 +83,7 @@ from scipy import special
 from ..models import Outcome, fit
 from ..models.base import FitResult
 from ..models.competing import fine_gray_replicate, fit_fine_gray
+from ..models.compiled import wanted
 from ..models.cox import (
     concordance,
     concordance_order,
@@ -91,7 +92,7 @@ from ..models.cox import (
 )
 from ..models.cox.baseline import DrawnHorizon, baseline_steps
 from ..models.cox.concordance import scores_concordances
-from ..models.discrimination import auc, c_index, compared_score, count_aucs
+from ..models.discrimination import auc, c_index, compared_score, drawn_aucs
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     Replicates,
@@ -108,7 +109,12 @@ from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import LinearTerm, SplineTerm, Term
 from .decisions import EVENT_FAMILIES, thresholds_for, typed_table
-from .net_benefit import legacy_rules, net_benefit_counts, net_benefit_risk
+from .net_benefit import (
+    legacy_rules,
+    logistic_rules_drawn_and_full,
+    net_benefit_counts,
+    net_benefit_risk,
+)
 
 PURPOSE = "decision_resampling"
 FORMS = ("legacy", "linear", "spline")
@@ -450,22 +456,45 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     """b in logit P(y) = a + b z by Newton's method (two parameters); NaN without convergence.
     The 2 x 2 information and the score are five sums over the rows (no n x 2 design), taken
     a block of ``_SLOPE_ROWS`` rows at a time so that each step's passes (b zc + a, expit,
-    mu (1 - mu), y - mu, w zc) stay in cache (the same sums to rounding)."""
+    mu (1 - mu), y - mu, w zc) stay in cache (the same sums to rounding; from
+    ``SLOPE_SUMS_FROM_ROWS`` rows the five sums of a block are one compiled pass,
+    ``unbin.models.compiled.slope_sums``). Newton starts from the predictor as it is
+    (a = mean z, b = 1), the maximum when z is the log odds of a model fitted to these rows and
+    near it for a bootstrap replicate's model (fewer steps than from the outcome's log odds;
+    the same maximum)."""
     y = np.asarray(y, dtype=float)
-    zc = np.asarray(z, dtype=float) - np.mean(z)
+    z = np.asarray(z, dtype=float)
+    centre = float(np.mean(z))
+    zc = z - centre
     n = len(zc)
-    a, b = float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6))), 1.0
+    a, b = (centre if np.isfinite(centre)
+            else float(special.logit(np.clip(y.mean(), 1e-6, 1 - 1e-6)))), 1.0
+    sums: Callable[[np.ndarray, np.ndarray, np.ndarray], np.ndarray] | None = None
+    if wanted(n, SLOPE_SUMS_FROM_ROWS):
+        from ..models.compiled.slope_sums import slope_sums
+
+        sums = slope_sums
     # a block's arrays made once and overwritten at each step
-    mu, w, r, wz = (np.empty(min(n, _SLOPE_ROWS)) for _ in range(4))
+    mu, w, r, wz = (np.empty(min(n, _SLOPE_ROWS) if sums is None or k == 0 else 0)
+                    for k in range(4))
     for _ in range(50):
         h00 = h01 = h11 = g0 = g1 = 0.0
         for r0 in range(0, n, _SLOPE_ROWS):
             zb, yb = zc[r0:r0 + _SLOPE_ROWS], y[r0:r0 + _SLOPE_ROWS]
             m = len(zb)
-            mub, wb, rb, wzb = mu[:m], w[:m], r[:m], wz[:m]
+            mub = mu[:m]
             np.multiply(zb, b, out=mub)
             mub += a
             expit_into(mub, mub)
+            if sums is not None:
+                s5 = sums(zb, yb, mub)
+                h00 += float(s5[0])
+                h01 += float(s5[1])
+                h11 += float(s5[2])
+                g0 += float(s5[3])
+                g1 += float(s5[4])
+                continue
+            wb, rb, wzb = w[:m], r[:m], wz[:m]
             np.subtract(1.0, mub, out=wb)
             wb *= mub
             np.subtract(yb, mub, out=rb)
@@ -485,6 +514,9 @@ def logistic_slope(y: np.ndarray, z: np.ndarray) -> float:
     return float("nan")
 
 
+# From this many rows a block's sums of :func:`logistic_slope` are one compiled pass
+# (DEVELOPERS.md, "Compiled kernels").
+SLOPE_SUMS_FROM_ROWS = 50_000
 _SLOPE_ROWS = 32768  # rows of a block of the calibration slope's sums (5 arrays of 256 kB)
 
 
@@ -709,6 +741,11 @@ class _Evaluator:
         # the risks of the last predictors (by identity, holding them): a replicate's model
         # is judged on its drawn rows and on the full sample from the same z
         self._risks: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+        # binary: the full sample's outcomes as bool (the C indices' events), made once
+        self._event: np.ndarray | None = None
+        # binary: the risk rules' net benefits on the full sample of the last replicate
+        # predictors (by identity, holding them), made with those on the drawn rows
+        self._full_rules: dict[int, tuple[np.ndarray, np.ndarray]] = {}
 
     def z_of(self, k: tuple[str, str], coef: np.ndarray, fit: _Sample) -> np.ndarray | None:
         """Every row's linear predictor on the risk's link scale (log odds; survival the log
@@ -765,7 +802,7 @@ class _Evaluator:
         full sample's rows repeated as drawn, so one sort by score serves both, with the
         drawn rows as draw counts (survival: and one time order, the full sample's,
         :func:`unbin.models.cox.concordance.concordances`; binary:
-        :func:`unbin.models.discrimination.count_aucs`), the same numbers as the C index of
+        :func:`unbin.models.discrimination.drawn_aucs`), the same numbers as the C index of
         the repeated rows. Scores are compared as the point estimate compares them: rounded
         to ``SCORE_DECIMALS`` decimals (:func:`unbin.models.discrimination.compared_score`),
         so rows whose scores agree to that many decimals tie here as there."""
@@ -774,10 +811,11 @@ class _Evaluator:
         counts = drawn.row_counts(self.r.outcome.n)
         in_drawn: dict[int, float] = {}
         in_full: dict[int, float] = {}
-        if self.r.family == "binary":  # one sort per model (count_aucs), the pair_auc values
+        if self.r.family == "binary":  # one call per model (drawn_aucs), the pair_auc values
+            if self._event is None:
+                self._event = np.asarray(full.y) > 0
             for key, z in zs.items():
-                got = (None if z is None
-                       else count_aucs(full.y, compared_score(full.rows_of(z)), [counts, None]))
+                got = None if z is None else drawn_aucs(self._event, full.rows_of(z), counts)
                 if got is not None:
                     in_drawn[key], in_full[key] = got
             return in_drawn, in_full
@@ -834,16 +872,17 @@ class _Evaluator:
         pt = self.pt
         if self.r.family == "binary" and on.w is None and pt.size:
             # on the sample's rows with ``on``'s draw counts: no repeated rows to form
-            nb = net_benefit_risk(self.r.outcome.y, self.risk_of(z), pt,
-                                  on.row_counts(self.r.outcome.n))[0]
+            nb = self._binary_rules(z, on)
             zo = None
         elif on.base is not None and on.w is None and pt.size:
             # on the sample's rows with ``on``'s draw counts (as for binary outcomes)
-            nb = on.net_benefit_of_rows(pt, risk=self.risk(z))
+            nb = on.net_benefit_of_rows(pt, risk=self.risk_of(z))
             zo = None
         else:
             zo = on.rows_of(z)
-            nb = on.net_benefit(pt, risk=self.risk(zo)) if pt.size else np.zeros(0)
+            # the whole sample (zo is z): the risks the drawn rows' reading made (risk_of)
+            risk = self.risk_of(z) if zo is z else self.risk(zo)
+            nb = on.net_benefit(pt, risk=risk) if pt.size else np.zeros(0)
         for t, v in zip(pt, nb, strict=True):
             out[("net benefit", f"risk: {k[0]}", t)] = float(v)
         # in the sample the model was fitted to, the slope is 1 (maximum likelihood)
@@ -852,6 +891,28 @@ class _Evaluator:
         out[("calibration slope", k)] = (1.0 if on is fit and not apparent_run
                                          and not self.competing
                                          else on.slope(on.rows_of(z) if zo is None else zo))
+
+    def _binary_rules(self, z: np.ndarray, on: _Sample) -> np.ndarray:
+        """The net benefits of a logistic model's risk rule (log odds ``z`` of every sample
+        row) on ``on``'s rows as draw counts. A replicate's drawn rows are read first, and
+        with them the full sample's (one pass, :func:`unbin.questions.net_benefit.
+        logistic_rules_drawn_and_full`), kept for the replicate's reading on the full sample
+        (the same array ``z``)."""
+        n = self.r.outcome.n
+        if self._event is None:
+            self._event = np.asarray(self.r.outcome.y) > 0
+        if on._whole:
+            hit = self._full_rules.pop(id(z), None)
+            if hit is not None and hit[0] is z:
+                return hit[1]
+            return net_benefit_risk(self._event, self.risk_of(z), self.pt,
+                                    on.row_counts(n))[0]
+        drawn, whole = logistic_rules_drawn_and_full(self._event, z, self.pt,
+                                                     on.row_counts(n))
+        if len(self._full_rules) >= 2 * len(RISK_MODELS):  # a replicate's at most
+            del self._full_rules[next(iter(self._full_rules))]
+        self._full_rules[id(z)] = (z, whole)
+        return drawn
 
     def _crossings(self, out: dict[tuple[Any, ...], float], k: tuple[str, str],
                    c: np.ndarray, z: np.ndarray, fit: _Sample) -> None:
@@ -865,8 +926,8 @@ class _Evaluator:
         if basis is None:
             basis = self._basis_x[id(mdl)] = _exposure_basis(mdl, r.x)
         lo = 1 if r.family == "binary" else 0
-        rest = float(np.median((z - np.asarray(basis @ c[lo:lo + mdl.k], dtype=float))
-                               [fit.idx]))
+        rest = _median_of_rows(z - np.asarray(basis @ c[lo:lo + mdl.k], dtype=float), fit,
+                               r.outcome.n)
         lo_x, hi_x = float(r.x.min()), float(r.x.max())
         for t in self.pt:
             found, _ = crossings(f, lo_x, hi_x, float(link(r.family, t)) - rest)
@@ -888,6 +949,30 @@ class _Evaluator:
                 fixed[("net benefit", "treat all", t)] = float(v)
             on.fixed_rules = fixed
         out.update(on.fixed_rules)
+
+
+def _median_of_rows(v: np.ndarray, on: _Sample, n: int) -> float:
+    """``np.median(v[on.idx])`` (``v`` one value per row of the analysis sample), the same
+    number: from ``MIDDLE_FROM_ROWS`` rows the middle values of ``v`` with ``on``'s draw counts
+    (``unbin.models.compiled.weighted_median``: no gather, no partition), the mean of the two
+    for an even count as numpy takes it."""
+    total = on.idx.size
+    if total and wanted(n, MIDDLE_FROM_ROWS):
+        from ..models.compiled.weighted_median import middle_pair
+
+        half = total // 2
+        status, a, b = middle_pair(np.ascontiguousarray(v, dtype=float), on.row_counts(n),
+                                   half - 1 if total % 2 == 0 else half, half)
+        if status == 1:
+            return float("nan")
+        if status == 0:
+            return float(b if total % 2 else (a + b) / 2)
+    return float(np.median(v[on.idx]))
+
+
+# From this many rows :func:`_median_of_rows` is one compiled selection (DEVELOPERS.md,
+# "Compiled kernels").
+MIDDLE_FROM_ROWS = 50_000
 
 
 def _row_labels(key: tuple[Any, ...], est: float, q01: float, q99: float) -> dict[str, Any]:

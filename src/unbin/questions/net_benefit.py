@@ -84,12 +84,21 @@ def threshold_counts(y: np.ndarray, risk: np.ndarray, thresholds: np.ndarray,
         place = np.searchsorted(thresholds[up], risk, side="right")
         key = 2 * place + y  # (place, outcome) -> one bin
         hist = np.bincount(key, weights=c, minlength=2 * (n_t + 1)).reshape(n_t + 1, 2)
+    events, others = _at_or_above(hist, up)
+    return events, others, n
+
+
+def _at_or_above(hist: np.ndarray, up: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(events, non-events) at or above each threshold (in the given order; ``up`` sorts the
+    thresholds) from the copies at each place among the sorted thresholds (``hist``
+    (thresholds + 1, 2), by outcome): a running sum from the top."""
+    n_t = up.size
     at_or_above = np.cumsum(hist[::-1], axis=0)[::-1]  # the rows at places >= b
     events = np.empty(n_t, dtype=float)
     others = np.empty(n_t, dtype=float)
     events[up] = at_or_above[1:, 1]
     others[up] = at_or_above[1:, 0]
-    return events, others, n
+    return events, others
 
 
 def net_benefit_risk(y: np.ndarray, risk: np.ndarray, thresholds: np.ndarray,
@@ -107,6 +116,46 @@ def net_benefit_risk(y: np.ndarray, risk: np.ndarray, thresholds: np.ndarray,
     tp = events / n
     fp = others / n
     return tp - fp * thresholds / (1.0 - thresholds), tp, fp
+
+
+# From this many rows :func:`logistic_rules_drawn_and_full` is one compiled pass
+# (``unbin.models.compiled.risk_places``) instead of the risks and two ``threshold_counts``.
+RISK_PLACES_FROM_ROWS = 50_000
+
+
+def logistic_rules_drawn_and_full(y: np.ndarray, z: np.ndarray, thresholds: np.ndarray,
+                                  counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The net benefits (:func:`net_benefit_risk`'s first array) of the rules "treat when
+    ``expit(z)`` >= p_t" (``z`` the log odds of a logistic model) in the data set in which row
+    i is repeated ``counts[i]`` times (a bootstrap replicate's drawn rows, whole numbers) and
+    in the rows as they are: the same numbers as ``net_benefit_risk`` of
+    ``scipy.special.expit(z)`` with ``counts`` and without. From ``RISK_PLACES_FROM_ROWS``
+    rows one compiled pass for both (``unbin.models.compiled.risk_places``: the log odds
+    compared with each threshold's, the risk computed only near one)."""
+    y = np.asarray(y)
+    y = y if y.dtype == np.bool_ else y > 0
+    z = np.asarray(z, dtype=float)
+    thresholds = np.asarray(thresholds, dtype=float)
+    c = np.asarray(counts)
+    if thresholds.size and wanted(z.size, RISK_PLACES_FROM_ROWS) and c.dtype.kind in "iu":
+        from ..models.compiled.risk_places import risk_place_counts
+
+        up = np.argsort(thresholds, kind="stable")
+        status, hist = risk_place_counts(np.ascontiguousarray(thresholds[up]),
+                                         np.ascontiguousarray(z), y,
+                                         c.astype(np.int64, copy=False))
+        if status == 0:
+            out = []
+            for k, n in ((0, int(c.sum())), (1, int(z.size))):
+                events, others = _at_or_above(hist[:, :, k], up)
+                tp, fp = events / n, others / n
+                out.append(tp - fp * thresholds / (1.0 - thresholds))
+            return out[0], out[1]
+    from scipy import special
+
+    risk = np.asarray(special.expit(z))
+    return (net_benefit_risk(y, risk, thresholds, c)[0],
+            net_benefit_risk(y, risk, thresholds)[0])
 
 
 def reweighted(tp: np.ndarray, fp: np.ndarray, y: np.ndarray, prevalence: float,
