@@ -50,6 +50,7 @@ _ABS_TOL = 1e-10
 _STEP_TOL = 1e-10
 _BLOCK_ROWS = 1 << 15
 _PASS_ROWS = 1 << 13  # rows per block of one likelihood pass (a few hundred kB)
+_START_V = 0.1875  # mu (1 - mu) at the logistic start's means 1/4 and 3/4 (a 0/1 outcome)
 # An information (Gram) matrix this well conditioned has full rank beyond doubt; below it, the
 # singular values of the design itself decide (numpy's matrix_rank), which also names the tied
 # columns. (The Gram's eigenvalues are the squared singular values, accurate to about
@@ -81,10 +82,23 @@ def standardise_with_gram(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.nda
     return Z, mean, sd, G
 
 
-def _standardised(X: np.ndarray, with_gram: bool,
+def standardised_gram(X: np.ndarray) -> np.ndarray:
+    """The cross-product matrix ``Z'Z`` of ``standardise(X)``'s ``Z`` without keeping ``Z``:
+    each block of rows is standardised into one work block and its products accumulated, the
+    same blocks and operations as ``standardise_with_gram``, hence the same matrix (the rank
+    check of a design whose fit standardises it its own way needs only this; the copy of n
+    rows, a fresh allocation of ~100 MB at a million rows x 12 columns, is not made)."""
+    G = _standardised(X, True, keep=False)[3]
+    assert G is not None
+    return G
+
+
+def _standardised(X: np.ndarray, with_gram: bool, keep: bool = True,
                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
+    """``keep=False``: only the Gram is wanted; the blocks of Z go through one work block and
+    the returned Z is that block (not the standardised design)."""
     n, p = X.shape
-    Z = np.empty((n, p + 1))
+    Z = np.empty((n if keep else min(n, _BLOCK_ROWS), p + 1))
     G = np.zeros((p + 1, p + 1)) if with_gram else None
     if p == 0 or n == 0:
         Z[:, 0] = 1.0
@@ -103,7 +117,7 @@ def _standardised(X: np.ndarray, with_gram: bool,
     # element gets the same two operations as on the whole array at once, and the Gram the
     # same products of the same blocks as ``gram(Z)``, so the same numbers
     for r0 in range(0, n, _BLOCK_ROWS):
-        Zb = Z[r0:r0 + _BLOCK_ROWS]
+        Zb = Z[r0:r0 + _BLOCK_ROWS] if keep else Z[:min(_BLOCK_ROWS, n - r0)]
         if rows is not None:  # the same values from one compiled pass
             rows(X, r0, mean, inv, Zb)
         else:
@@ -157,13 +171,15 @@ def check_design(X: np.ndarray, names: tuple[str, ...], Z: np.ndarray | None = N
     ``Z`` is ``standardise(X)[0]`` when the caller has it already, ``G`` its ``gram(Z)``."""
     if X.shape[1] == 0:
         return ""
-    if Z is None:
-        Z, _, _ = standardise(X)
     if G is None:
-        G = gram(Z)
-    eig = np.linalg.eigvalsh(G / max(Z.shape[0], 1))
+        # without Z the Gram comes block by block (the same matrix, no copy of the rows):
+        # Z itself is needed only below, for a design that is not clearly of full rank
+        G = gram(Z) if Z is not None else standardised_gram(X)
+    eig = np.linalg.eigvalsh(G / max(X.shape[0], 1))
     if eig[0] > _GRAM_RCOND * eig[-1]:
         return ""
+    if Z is None:
+        Z, _, _ = standardise(X)
     rank = np.linalg.matrix_rank(Z)
     if rank == Z.shape[1]:
         return ""
@@ -256,11 +272,16 @@ class _Family:
             H += (Zb * v[:, None]).T @ Zb
         return ll, score, H
 
-    def start(self) -> np.ndarray:
+    def start(self, G: np.ndarray | None = None) -> np.ndarray:
         """Starting coefficients. Logistic: the weighted least-squares step from the customary
         starting means, mu = (y + 1/2) / 2. Poisson: the intercept-only estimate with the
         offset, log(sum y / sum e^offset), other coefficients 0 (the customary start ignores
-        the offset and, with person-time offsets, costs several more steps)."""
+        the offset and, with person-time offsets, costs several more steps).
+
+        ``G``: ``Z'Z`` when the caller has it (``standardise_with_gram``). Without frequency
+        weights and with a 0/1 outcome every row's starting weight mu (1 - mu) is 3/16, so
+        the start's information is ``3/16 Z'Z`` and needs no pass over the rows (the same
+        matrix to rounding: each product is scaled once instead of each row)."""
         Z, y, freq = self.Z, self.y, self.freq
         assert self.cols is None, "the start is made on whole designs"
         if not self.binary:
@@ -274,7 +295,10 @@ class _Family:
         eta0 = np.log(mu / (1.0 - mu))
         v = mu * (1.0 - mu)
         freq_v = v if freq is None else freq * v
-        factor = _cholesky(gram(Z, freq_v))
+        if G is not None and freq is None and v.size and bool(np.all(v == _START_V)):
+            factor = _cholesky(_START_V * G)
+        else:
+            factor = _cholesky(gram(Z, freq_v))
         if factor is None:
             return np.full(Z.shape[1], np.nan)
         resid = y - mu if freq is None else freq * (y - mu)
@@ -305,12 +329,14 @@ def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
 
 
 def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-            freq: np.ndarray | None, const: float | None = None) -> _Solution:
-    """Maximum likelihood of the logistic or Poisson model on the standardised design."""
+            freq: np.ndarray | None, const: float | None = None,
+            G: np.ndarray | None = None) -> _Solution:
+    """Maximum likelihood of the logistic or Poisson model on the standardised design
+    (``G``: ``Z'Z`` if the caller has it, for the logistic start)."""
     model = _Family(family, Z, y, off, freq, const)
     k = Z.shape[1]
     nan = _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0, "")
-    theta = model.start()
+    theta = model.start(G)
     if not np.all(np.isfinite(theta)):
         nan.message = "the information matrix is singular at the start; check the design."
         return nan
@@ -398,7 +424,7 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
             const = outcome.cache.get("poisson_constant")
             if const is None:
                 const = outcome.cache["poisson_constant"] = poisson_constant(y, freq)
-        sol = _newton(family, Z, y, outcome.offset, freq, const)
+        sol = _newton(family, Z, y, outcome.offset, freq, const, G)
     lp: np.ndarray | None = None
     if separation_check is not None and np.all(np.isfinite(sol.theta)):
         # the check reads the linear predictor the result keeps, plus the intercept (Z theta_s
