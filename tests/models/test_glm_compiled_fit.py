@@ -168,16 +168,3 @@ def test_gram_without_the_copy_is_the_copys_gram(path: str, monkeypatch: pytest.
     assert "tied" in _glm.check_design(tied, names)
     assert _glm.check_design(X, SODIUM_NAMES) == ""
 
-
-def test_logistic_start_from_the_gram_is_the_weighted_start() -> None:
-    # Definition: with a 0/1 outcome and no weights every starting weight mu (1 - mu) is 3/16,
-    # so the start from 3/16 Z'Z equals the start from Z' diag(v) Z to rounding; with
-    # frequency weights (or another outcome) the weighted Gram is still formed.
-    X = _design(8)
-    out = _outcome("binary", X)
-    Z, _, _, G = standardise_with_gram(X)
-    y = np.asarray(out.y, float)
-    model = _Family("binary", Z, y, None, None)
-    np.testing.assert_allclose(model.start(G), model.start(), rtol=1e-12, atol=1e-14)
-    weighted = _Family("binary", Z, y, None, np.full(N, 2.0))
-    np.testing.assert_array_equal(weighted.start(G), weighted.start())

@@ -50,7 +50,6 @@ _ABS_TOL = 1e-10
 _STEP_TOL = 1e-10
 _BLOCK_ROWS = 1 << 15
 _PASS_ROWS = 1 << 13  # rows per block of one likelihood pass (a few hundred kB)
-_START_V = 0.1875  # mu (1 - mu) at the logistic start's means 1/4 and 3/4 (a 0/1 outcome)
 # An information (Gram) matrix this well conditioned has full rank beyond doubt; below it, the
 # singular values of the design itself decide (numpy's matrix_rank), which also names the tied
 # columns. (The Gram's eigenvalues are the squared singular values, accurate to about
@@ -298,16 +297,16 @@ class _Family:
             H += (Zb * v[:, None]).T @ Zb
         return ll, score, H
 
-    def start(self, G: np.ndarray | None = None) -> np.ndarray:
+    def start(self) -> np.ndarray:
         """Starting coefficients. Logistic: the weighted least-squares step from the customary
         starting means, mu = (y + 1/2) / 2. Poisson: the intercept-only estimate with the
         offset, log(sum y / sum e^offset), other coefficients 0 (the customary start ignores
         the offset and, with person-time offsets, costs several more steps).
 
-        ``G``: ``Z'Z`` when the caller has it (``standardise_with_gram``). Without frequency
-        weights and with a 0/1 outcome every row's starting weight mu (1 - mu) is 3/16, so
-        the start's information is ``3/16 Z'Z`` and needs no pass over the rows (the same
-        matrix to rounding: each product is scaled once instead of each row)."""
+        (Every row's starting weight mu (1 - mu) is 3/16 for a 0/1 outcome, so the start's
+        information is 3/16 Z'Z; taking it from the standardised copy's Gram saves a pass but
+        is the same matrix only to rounding, and on the demo's logistic fits that moved the
+        stopping point: curves by up to 2e-6. It stays the weighted Gram of the rows.)"""
         Z, y, freq = self.Z, self.y, self.freq
         assert self.cols is None, "the start is made on whole designs"
         if not self.binary:
@@ -321,10 +320,7 @@ class _Family:
         eta0 = np.log(mu / (1.0 - mu))
         v = mu * (1.0 - mu)
         freq_v = v if freq is None else freq * v
-        if G is not None and freq is None and v.size and bool(np.all(v == _START_V)):
-            factor = _cholesky(_START_V * G)
-        else:
-            factor = _cholesky(gram(Z, freq_v))
+        factor = _cholesky(gram(Z, freq_v))
         if factor is None:
             return np.full(Z.shape[1], np.nan)
         resid = y - mu if freq is None else freq * (y - mu)
@@ -355,14 +351,12 @@ def _cholesky(H: np.ndarray) -> tuple[np.ndarray, bool] | None:
 
 
 def _newton(family: str, Z: np.ndarray, y: np.ndarray, off: np.ndarray | None,
-            freq: np.ndarray | None, const: float | None = None,
-            G: np.ndarray | None = None) -> _Solution:
-    """Maximum likelihood of the logistic or Poisson model on the standardised design
-    (``G``: ``Z'Z`` if the caller has it, for the logistic start)."""
+            freq: np.ndarray | None, const: float | None = None) -> _Solution:
+    """Maximum likelihood of the logistic or Poisson model on the standardised design."""
     model = _Family(family, Z, y, off, freq, const)
     k = Z.shape[1]
     nan = _Solution(np.full(k, np.nan), np.full((k, k), np.nan), float("nan"), 0, "")
-    theta = model.start(G)
+    theta = model.start()
     if not np.all(np.isfinite(theta)):
         nan.message = "the information matrix is singular at the start; check the design."
         return nan
@@ -450,7 +444,7 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
             const = outcome.cache.get("poisson_constant")
             if const is None:
                 const = outcome.cache["poisson_constant"] = poisson_constant(y, freq)
-        sol = _newton(family, Z, y, outcome.offset, freq, const, G)
+        sol = _newton(family, Z, y, outcome.offset, freq, const)
     lp: np.ndarray | None = None
     if separation_check is not None and np.all(np.isfinite(sol.theta)):
         # the check reads the linear predictor the result keeps, plus the intercept (Z theta_s
