@@ -113,17 +113,3 @@ def sodium_design(seed: int, n: int) -> np.ndarray:
     site = rng.integers(0, 3, n)
     return np.column_stack([sodium, (sodium - 139) ** 2, age, female,
                             (site == 1).astype(float), (site == 2).astype(float)])
-
-
-def grouped_binary_refit(df: pd.DataFrame) -> Refit:
-    """The refit of one invented logistic analysis: exposure ``x`` (legacy cuts 45 and 55),
-    outcome ``y``, adjusted for ``age`` (grouped at 60 in the legacy coding)."""
-    from unbin.refit.analysis import refit_analysis
-
-    raw = {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
-           "groupings": {"x": {"cuts": [45.0, 55.0]}, "age": {"cuts": [60.0]}},
-           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
-                         "exposure": "x", "adjust": ["age"]}]}
-    spec = parse_spec(raw, base=Path("."))
-    a = spec.analyses[0]
-    return refit_analysis(analysis_sample(df, a, spec), a, spec, "sim")

@@ -5,16 +5,19 @@ own fit (AUC = U / (n1 n0); Hanley & McNeil 1982)."""
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from helpers import grouped_binary_refit
+from unbin.data import analysis_sample
 from unbin.models.discrimination import remembered_scores
 from unbin.questions.fits import fits_table
-from unbin.refit.analysis import needs_predictor, with_predictor
+from unbin.refit.analysis import needs_predictor, refit_analysis, with_predictor
+from unbin.spec import parse_spec
 
 
 def _refit() -> tuple[object, pd.DataFrame]:
@@ -25,7 +28,13 @@ def _refit() -> tuple[object, pd.DataFrame]:
     y = (rng.random(n) < 1 / (1 + np.exp(-(-1 + 0.04 * (x - 50) + 0.03 * (age - 60))))
          ).astype(float)
     df = pd.DataFrame({"x": x, "age": age, "y": y})
-    return grouped_binary_refit(df), df
+    raw = {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
+           "groupings": {"x": {"cuts": [45.0, 55.0]}, "age": {"cuts": [60.0]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["age"]}]}
+    spec = parse_spec(raw, base=Path("."))
+    a = spec.analyses[0]
+    return refit_analysis(analysis_sample(df, a, spec), a, spec, "sim"), df
 
 
 def test_only_the_risk_models_keep_their_predictors_and_the_rest_their_c_index() -> None:

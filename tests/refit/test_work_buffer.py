@@ -6,14 +6,17 @@ and statsmodels' GLM of the same designs."""
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import statsmodels.api as sm
 
-from helpers import grouped_binary_refit
+from unbin.data import analysis_sample
 from unbin.models import Outcome, fit
 from unbin.models._glm import WORK, WorkBuffer
-from unbin.refit.analysis import design
+from unbin.refit.analysis import design, refit_analysis
+from unbin.spec import parse_spec
 from unbin.terms import LinearTerm, SplineTerm
 
 
@@ -62,7 +65,13 @@ def test_buffered_designs_and_copies_give_the_fits_of_fresh_arrays() -> None:
 
 def test_the_refit_drops_its_buffers_and_matches_statsmodels() -> None:
     df = _data()
-    r = grouped_binary_refit(df)
+    raw = {"study": "sim", "cohorts": [{"name": "c", "path": "unused.csv"}],
+           "groupings": {"x": {"cuts": [45.0, 55.0]}, "age": {"cuts": [60.0]}},
+           "analyses": [{"name": "a", "outcome": {"type": "binary", "event": "y"},
+                         "exposure": "x", "adjust": ["age"]}]}
+    spec = parse_spec(raw, base=Path("."))
+    a = spec.analyses[0]
+    r = refit_analysis(analysis_sample(df, a, spec), a, spec, "sim")
     assert WORK not in r.outcome.cache
     lin = r.get("linear", "legacy")
     assert lin is not None and lin.result.ok
