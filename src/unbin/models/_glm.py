@@ -63,29 +63,6 @@ ROWS_FROM_ROWS = 100_000
 STANDARDISE_FROM_ROWS = 100_000
 
 
-class WorkBuffer:
-    """One block of memory reused by a sequence of fits on the same rows for an array that
-    lives only during one fit (a design, its standardised copy). At a million rows such an
-    array is ~100 MB, which the allocator maps fresh for every fit and the system hands over
-    zeroed (about 12 ms per 100 MB); the buffer grows to the largest size asked and is freed
-    with its owner. ``take`` returns a view: the caller must not keep it past the fit."""
-
-    def __init__(self) -> None:
-        self._flat: np.ndarray | None = None
-
-    def take(self, n: int, p: int) -> np.ndarray:
-        size = n * p
-        if self._flat is None or self._flat.size < size:
-            self._flat = None  # the old block goes before the larger one is made
-            self._flat = np.empty(size)
-        return self._flat[:size].reshape(n, p)
-
-
-# ``outcome.cache[WORK]``: a WorkBuffer for the standardised copies of the fits of that
-# outcome, put there by a caller that fits many designs of its rows in a row (and removed by it)
-WORK = "glm_work"
-
-
 def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``[1, (X - mean) / sd]`` written straight into one array (no (n, p) temporaries). The
     scale comes from the raw second moments (one pass): it only conditions the problem, and
@@ -94,13 +71,12 @@ def standardise(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return Z, mean, sd
 
 
-def standardise_with_gram(X: np.ndarray, work: WorkBuffer | None = None,
-                          ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def standardise_with_gram(X: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray,
+                                                   np.ndarray]:
     """``standardise(X)`` and the cross-product matrix ``Z'Z`` of its result, accumulated
     block by block while each block of ``Z`` is still in cache (a separate ``gram(Z)`` reads
-    the whole of ``Z`` again: at a million rows that pass cost more than the copy itself).
-    ``work``: ``Z`` is written into that buffer (the same values)."""
-    Z, mean, sd, G = _standardised(X, True, work=work)
+    the whole of ``Z`` again: at a million rows that pass cost more than the copy itself)."""
+    Z, mean, sd, G = _standardised(X, True)
     assert G is not None
     return Z, mean, sd, G
 
@@ -117,13 +93,11 @@ def standardised_gram(X: np.ndarray) -> np.ndarray:
 
 
 def _standardised(X: np.ndarray, with_gram: bool, keep: bool = True,
-                  work: WorkBuffer | None = None,
                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
     """``keep=False``: only the Gram is wanted; the blocks of Z go through one work block and
-    the returned Z is that block (not the standardised design). ``work``: Z is written there."""
+    the returned Z is that block (not the standardised design)."""
     n, p = X.shape
-    rows_z = n if keep else min(n, _BLOCK_ROWS)
-    Z = work.take(rows_z, p + 1) if work is not None else np.empty((rows_z, p + 1))
+    Z = np.empty((n if keep else min(n, _BLOCK_ROWS), p + 1))
     G = np.zeros((p + 1, p + 1)) if with_gram else None
     if p == 0 or n == 0:
         Z[:, 0] = 1.0
@@ -430,7 +404,7 @@ def run_glm(family: str, X: np.ndarray, names: tuple[str, ...], outcome: Outcome
     n = outcome.n
     # once: the rank check and the fit share the standardised design and its Gram (least
     # squares' cross-product matrix too)
-    Z, mean, sd, G = standardise_with_gram(X, outcome.cache.get(WORK))
+    Z, mean, sd, G = standardise_with_gram(X)
     problem = check_design(X, names, Z, G)
     if problem:
         return failed_fit(family, all_names, n, events, problem)

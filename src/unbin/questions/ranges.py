@@ -37,7 +37,6 @@ import numpy as np
 import pandas as pd
 
 from ..models import EFFECT_SCALE, fit
-from ..models._glm import WORK, WorkBuffer
 from ..models.base import FitResult
 from ..refit.analysis import FormFit, Refit, adjustment_terms, design, legacy_term
 from ..refit.contrasts import contrast, with_interval
@@ -137,10 +136,6 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
         outcome = r.outcome if whole else r.outcome.subset(keep)
         fitted = _fitted(r) if whole else {}
         columns: dict[str, np.ndarray] = {}  # the trim's adjustment columns, for all its forms
-        work = None
-        if not whole:  # the trim's designs and their standardised copies: one block each
-            work = WorkBuffer()
-            outcome.cache[WORK] = WorkBuffer()
         base = {"trim": name, "share_lower": lo, "share_upper": hi, "bound_lower": b_lo,
                 "bound_upper": b_hi, "n": int(keep.sum()),
                 "events": int(round(float(y_events[keep].sum()))) if y_events is not None
@@ -159,7 +154,7 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
             xc = float(np.median(x[codes == comp]))
             xr = float(np.median(x[codes == ref]))
             rows.append({**row, **_fit_contrast(r, df, x, outcome, (term,), adjust, xc, xr,
-                                                fitted, columns, work),
+                                                fitted, columns),
                          "x_value": xc, "x_reference": xr})
         # continuous forms between the fixed values
         extrap = bool((lo > 0 and min(x_comp, x_ref) < b_lo)
@@ -179,7 +174,7 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
                 rows.append({**row, "status": "failed", "reason": detail})
                 continue
             rows.append({**row, **_fit_contrast(r, df, x, outcome, terms, adjust, x_comp,
-                                                x_ref, fitted, columns, work)})
+                                                x_ref, fitted, columns)})
     return _finish(pd.DataFrame(rows), r.family)
 
 
@@ -197,16 +192,14 @@ def _fitted(r: Refit) -> dict[tuple[str, ...], FitResult]:
 def _fit_contrast(r: Refit, df: pd.DataFrame, x: np.ndarray, outcome: Any,
                   exposure: tuple[Term, ...], adjust: tuple[Term, ...], x1: float,
                   x0: float, fitted: dict[tuple[str, ...], FitResult] | None = None,
-                  columns: dict[str, np.ndarray] | None = None,
-                  work: WorkBuffer | None = None) -> dict[str, Any]:
+                  columns: dict[str, np.ndarray] | None = None) -> dict[str, Any]:
     """The contrast x1 vs x0 of one model of the (trimmed) sample: the refit's own fit when
     ``fitted`` has it, else a fit of its design (``columns``: the sample's adjustment columns,
     built once for all its models; see ``design``)."""
     res = (fitted or {}).get(_key(exposure, adjust))
     if res is None:
-        X, names = design(df, x, exposure, adjust, columns, work)
+        X, names = design(df, x, exposure, adjust, columns)
         res = fit(r.family, X, outcome, names)
-        del X  # a view of the trim's buffer
     if not res.ok:
         return {"status": "failed", "reason": res.message, "estimate": np.nan, "se": np.nan}
     f = FormFit("", "legacy", exposure, adjust, res)

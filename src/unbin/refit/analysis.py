@@ -24,7 +24,6 @@ import pandas as pd
 from ..consortium.basis import CommonBasis, combine, sample_summary
 from ..data import Sample
 from ..models import Outcome, fit
-from ..models._glm import WORK, WorkBuffer
 from ..models.base import FitResult, failed_fit
 from ..models.discrimination import c_index, forget_c_indices
 from ..spec import Analysis, Spec
@@ -214,11 +213,10 @@ def adjustment_terms(df: pd.DataFrame, a: Analysis, spec: Spec, coding: str) -> 
 
 def design(df: pd.DataFrame, x: np.ndarray, exposure: tuple[Term, ...],
            adjust: tuple[Term, ...], cache: dict[str, np.ndarray] | None = None,
-           work: WorkBuffer | None = None) -> tuple[np.ndarray, tuple[str, ...]]:
+           ) -> tuple[np.ndarray, tuple[str, ...]]:
     """The design matrix (exposure columns, then adjustment columns) and its column names.
     ``cache`` keeps the adjustment terms' columns between calls on the same rows (an analysis
-    fits dozens of exposure forms against the same few adjustment sets). ``work``: the matrix
-    is written into that buffer (a view of it, valid until the buffer's next use)."""
+    fits dozens of exposure forms against the same few adjustment sets)."""
     def adjust_basis(t: Term) -> np.ndarray:
         key = repr(t)
         if cache is not None and key in cache:
@@ -236,12 +234,7 @@ def design(df: pd.DataFrame, x: np.ndarray, exposure: tuple[Term, ...],
     # np.hstack copies each part row block by row block; writing the parts one column range
     # at a time into a preallocated array touched every row of it once per part (at a million
     # rows 42 against 30 ms for a design of 11 columns in 5 parts)
-    if not cols:
-        return np.empty((len(x), 0)), names
-    if work is None:
-        return np.hstack(cols), names
-    X = work.take(len(x), sum(c.shape[1] for c in cols))
-    np.concatenate(cols, axis=1, out=X)  # hstack's copy, into the buffer
+    X = np.hstack(cols) if cols else np.empty((len(x), 0))
     return X, names
 
 
@@ -253,18 +246,10 @@ class _Fitter:
         self.df = df
         self.cache: dict[tuple[str, ...], FitResult] = {}
         self.columns: dict[str, np.ndarray] = {}  # adjustment columns, built once
-        self.work = WorkBuffer()  # each fit's design, in one block of memory
 
     @staticmethod
     def _key(exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> tuple[str, ...]:
         return tuple(repr(t) for t in (*exposure, *adjust))
-
-    def release_work(self) -> None:
-        """Free the fits' idle buffers (before a large allocation of the caller's own, which
-        they would otherwise sit beside); the next fits make them again."""
-        self.work = WorkBuffer()
-        if WORK in self.r.outcome.cache:
-            self.r.outcome.cache[WORK] = WorkBuffer()
 
     def drop_predictor(self, exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> None:
         """Forget the per-row linear predictor of a fit no table uses (a losing FP candidate):
@@ -277,9 +262,8 @@ class _Fitter:
     def run(self, exposure: tuple[Term, ...], adjust: tuple[Term, ...]) -> FitResult:
         key = self._key(exposure, adjust)
         if key not in self.cache:
-            X, names = design(self.df, self.r.x, exposure, adjust, self.columns, self.work)
+            X, names = design(self.df, self.r.x, exposure, adjust, self.columns)
             res = fit(self.r.family, X, self.r.outcome, names)
-            del X  # a view of the buffer: no fit result keeps it
             self.cache[key] = _epv_warning(res)
         return self.cache[key]
 
@@ -380,8 +364,6 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
         basis = combine([sample_summary(x, legacy, a.continuous)], a.continuous)
     r = Refit(a, cohort, sample, build_outcome(sample, a), x, legacy, basis)
     f = _Fitter(r, df)
-    # the GLM fits' standardised copies in one block of memory too, for the refit's fits only
-    r.outcome.cache[WORK] = WorkBuffer()
     opts = a.continuous
     empty = _empty_group_message(legacy, x)
     spline_terms: list[SplineTerm] = []
@@ -449,7 +431,6 @@ def refit_analysis(sample: Sample, a: Analysis, spec: Spec, cohort: str,
                 r.fits += [replace(row, adjustment=coding) for row in rows]
                 r.fits.append(replace(chosen, adjustment=coding))
         _release_predictors(r, f, coding, set(adjust_keys[position + 1:]))
-    r.outcome.cache.pop(WORK, None)
     return r
 
 

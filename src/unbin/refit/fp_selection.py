@@ -336,7 +336,6 @@ def screened_best(f: _Fitter, adjust: tuple[Term, ...], x: np.ndarray, variable:
     if not screenable(family, outcome) or not null.ok:
         return exhaustive_best(f, adjust, x, variable)
     shape = FPTerm.from_data(variable, x, (1.0,))
-    f.release_work()  # the shared design and its copy are the search's largest arrays
     X, n_fp, where = _fp_design(f, adjust, x, shape)
     screen = _Screen(family, outcome, X, n_fp, null)
     del X  # the screen keeps its standardised copy only
