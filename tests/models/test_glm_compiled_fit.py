@@ -147,3 +147,24 @@ def test_weighted_cross_product_agrees_on_both_paths(monkeypatch: pytest.MonkeyP
     monkeypatch.setenv("UNBIN_COMPILED", "never")
     np.testing.assert_array_equal(a, _glm.gram(Z, v))
     np.testing.assert_allclose(a, (Z * v[:, None]).T @ Z, rtol=1e-12)
+
+
+@pytest.mark.parametrize("path", ["always", "never"])
+def test_gram_without_the_copy_is_the_copys_gram(path: str, monkeypatch: pytest.MonkeyPatch,
+                                                 ) -> None:
+    # Definition: the rank check's Gram made block by block through one work block
+    # (``standardised_gram``, no standardised copy kept) is the very matrix of the copy's
+    # blocks, and numpy's Z'Z of Z = [1, (X - mean) / sd] (population sd) to rounding.
+    X = _design(7)
+    monkeypatch.setenv("UNBIN_COMPILED", path)
+    Z, _, _, G = standardise_with_gram(X)
+    np.testing.assert_array_equal(_glm.standardised_gram(X), G)
+    Zdef = np.column_stack([np.ones(N), (X - X.mean(axis=0)) / X.std(axis=0)])
+    np.testing.assert_allclose(_glm.standardised_gram(X), Zdef.T @ Zdef, rtol=1e-9,
+                               atol=1e-7 * N)
+    # with a tied column the check still names it (Z is made then)
+    tied = np.column_stack([X, X[:, 0] - 2.0 * X[:, 1]])
+    names = (*SODIUM_NAMES, "tied")
+    assert "tied" in _glm.check_design(tied, names)
+    assert _glm.check_design(X, SODIUM_NAMES) == ""
+

@@ -39,6 +39,11 @@ def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
     q25, q75 = np.quantile(r.x, [0.25, 0.75])
     codes_iqr = term.codes(np.array([q25, q75]))
     iqr_one_group = bool(codes_iqr[0] == codes_iqr[1])
+    # each group's rows, median and 10th/90th percentiles, once for every form and coding
+    # (the same values each time; at registry size each is a pass over the sample)
+    groups = [r.group_values(g) for g in range(len(labels))]
+    medians = [float(np.median(v)) if len(v) else float("nan") for v in groups]
+    spreads = [np.quantile(v, [0.10, 0.90]) if len(v) else np.full(2, np.nan) for v in groups]
     for coding in ("legacy", "continuous", "none"):
         for form in FORMS:
             f = r.get(form, coding)
@@ -48,7 +53,7 @@ def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
                     "message": f.result.message,
                     "variance": variance_label(f.result)}
             for g in range(len(labels)):
-                vals = r.group_values(g)
+                vals = groups[g]
                 is_ref = g == term.reference
                 if len(vals) == 0 or not len(ref_vals):
                     empty = labels[g] if len(vals) == 0 else labels[term.reference]
@@ -62,13 +67,13 @@ def effects_table(r: Refit, spec: Spec | None = None) -> pd.DataFrame:
                                  "estimate": np.nan, "se": np.nan,
                                  "within_p10": np.nan, "within_p90": np.nan})
                     continue
-                x_g = float(np.median(vals))
+                x_g = medians[g]
                 if form == "legacy":
                     est, se = contrast(f, np.array([x_g]), x_ref)
                     spread = (np.nan, np.nan)
                 else:
                     est, se = contrast(f, np.array([x_g]), x_ref)
-                    p10, p90 = np.quantile(vals, [0.10, 0.90])
+                    p10, p90 = spreads[g]
                     sp, _ = contrast(f, np.array([p10, p90]), x_ref)
                     spread = (float(sp[0]), float(sp[1]))
                 rows.append({**base, "contrast_type": "group",
@@ -117,7 +122,7 @@ def _level_effects(r: Refit) -> list[dict[str, object]]:
     lm = level_models(r)
     term = r.legacy
     labels, ref = term.labels, term.reference
-    codes = term.codes(r.x)
+    codes = r.legacy_codes
     rows: list[dict[str, object]] = []
     for coding in ("legacy", "continuous"):
         for form in (LEGACY, SPLINE):

@@ -102,7 +102,7 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
     a = r.analysis
     df_full = r.sample.frame
     x_full = r.x
-    full_codes = r.legacy.codes(x_full)
+    full_codes = r.legacy_codes
     labels = r.legacy.labels
     ref = r.legacy.reference
     comp = comparison_group(ref, len(labels))
@@ -117,6 +117,9 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
     min_rows = max(MIN_GROUP_ROWS, spec.min_cell)
     y_events = None if r.family == "continuous" else np.asarray(r.outcome.y, dtype=float)
     rows: list[dict[str, Any]] = []
+    # a trimmed sample copies only the columns its models read (the exposure, the adjusters
+    # and the modifier), not the whole analysis frame
+    used = list(dict.fromkeys([a.exposure, *a.adjust, *([a.by] if a.by else [])]))
     for name, lo, hi in trims():
         keep = np.ones(len(x_full), dtype=bool)
         b_lo = float(np.quantile(x_full, lo)) if lo > 0 else float("nan")
@@ -128,7 +131,7 @@ def ranges_table(r: Refit, spec: Spec) -> pd.DataFrame:
         whole = lo == 0 and hi == 0
         # the untrimmed sample is the analysis sample itself: no copy, and its models are the
         # refit's own (the same design on the same rows; see _fitted)
-        df = df_full if whole else df_full[keep].reset_index(drop=True)
+        df = df_full if whole else df_full.loc[keep, used].reset_index(drop=True)
         x = x_full if whole else x_full[keep]
         outcome = r.outcome if whole else r.outcome.subset(keep)
         fitted = _fitted(r) if whole else {}

@@ -15,6 +15,7 @@ their AIC is comparable with the other forms'."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -114,11 +115,16 @@ class Refit:
     def family(self) -> str:
         return self.analysis.family
 
+    @cached_property
+    def legacy_codes(self) -> np.ndarray:
+        """Each row's legacy group (``legacy.codes(x)``), computed once: the questions read the
+        groups' rows many times."""
+        return self.legacy.codes(self.x)
+
     @property
     def reference_value(self) -> float:
         """The median exposure of the legacy reference group: the curves' reference point."""
-        codes = self.legacy.codes(self.x)
-        return float(np.median(self.x[codes == self.legacy.reference]))
+        return float(np.median(self.x[self.legacy_codes == self.legacy.reference]))
 
     @property
     def curve_reference(self) -> float:
@@ -127,7 +133,7 @@ class Refit:
         return self.basis.reference if self.basis is not None else self.reference_value
 
     def group_values(self, g: int) -> np.ndarray:
-        return self.x[self.legacy.codes(self.x) == g]
+        return self.x[self.legacy_codes == g]
 
 
 def build_outcome(sample: Sample, a: Analysis) -> Outcome:
