@@ -537,11 +537,17 @@ def fit_replicate(start: NearStart, X: np.ndarray, rows: np.ndarray, L: Layout, 
     if L.K == 0 or L.rows.size == 0:
         return None
     inv = 1.0 / start.scale
-    Xs = X[rows]
-    Xs -= start.mean
-    Xs *= inv
-    used = Xs[L.rows]
-    hi, lo = used.max(axis=0), used.min(axis=0)
+    kernels = _kernels(L)
+    if kernels is not None:
+        Xs, bounds = kernels.gather_standardised(X, np.asarray(rows, dtype=np.int64),
+                                                 start.mean, inv, L.rows)
+        hi, lo = bounds[0], bounds[1]
+    else:
+        Xs = X[rows]
+        Xs -= start.mean
+        Xs *= inv
+        used = Xs[L.rows]
+        hi, lo = used.max(axis=0), used.min(axis=0)
     # a column constant among the rows at risk (as _standardised's test, on this scale) makes
     # the information singular
     top = np.maximum(np.abs(hi), np.abs(lo)) + np.abs(start.mean) * inv
