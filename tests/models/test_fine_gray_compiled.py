@@ -75,6 +75,7 @@ def test_compiled_fit_equals_the_numpy_fit_and_lifelines_on_the_expansion(
     assert np.array_equal(a.coef, b.coef) and np.array_equal(a.cov, b.cov)
     assert a.loglik == b.loglik
     assert np.array_equal(a.extra["baseline"]["cumhaz"], b.extra["baseline"]["cumhaz"])
+    assert o.time is not None
     d = fine_gray_data(o.time, o.cause, 1, entry=o.entry, weights=o.weights)
     frame = pd.DataFrame(d.take(X), columns=["x", "z"]).assign(
         start=d.start, stop=d.stop, event=d.event, w=d.weight)
@@ -112,6 +113,7 @@ def test_compiled_replicate_refit_equals_the_numpy_path_and_lifelines(
     assert np.array_equal(a, b)
     assert np.array_equal(base_a["cumhaz"], base_b["cumhaz"])
     rep = o.subset(m)
+    assert rep.time is not None
     d = fine_gray_data(rep.time, np.asarray(rep.cause), 1, entry=rep.entry,
                        weights=rep.weights)
     frame = pd.DataFrame(d.take(X[m]), columns=["x", "z"]).assign(

@@ -36,6 +36,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from types import ModuleType
 
 import numpy as np
 import pandas as pd
@@ -213,7 +214,7 @@ def _bins(idx: np.ndarray, v: np.ndarray, K: int) -> np.ndarray:
     return np.column_stack([np.bincount(idx, v[:, j], K) for j in range(v.shape[1])])
 
 
-def _kernels(L: Layout):  # type: ignore[no-untyped-def]
+def _kernels(L: Layout) -> ModuleType | None:
     """The compiled sums' module when the sample is large enough (``SUMS_FROM_ROWS``), else
     None."""
     if not compiled.wanted(L.n, SUMS_FROM_ROWS):
