@@ -583,7 +583,8 @@ def fit(L: Layout, X: np.ndarray, *, ties: str = "efron", init: np.ndarray | Non
     Xs, sd, scale = _standardised(L, X)
     p = Xs.shape[1]
     nan = np.full(p, np.nan), np.full((p, p), np.nan)
-    ll0 = _point(L, Xs, np.zeros(p), efron).loglik
+    pt0 = _point(L, Xs, np.zeros(p), efron)
+    ll0 = pt0.loglik
     if p == 0:
         return Fit(np.zeros(0), np.zeros((0, 0)), ll0, ll0, 0, "")
     if np.any(sd == 0):
@@ -591,10 +592,11 @@ def fit(L: Layout, X: np.ndarray, *, ties: str = "efron", init: np.ndarray | Non
         return Fit(*nan, ll0, ll0, 0, f"information matrix is singular: column(s) {const} "
                    "are constant among the rows at risk; drop them")
     beta = np.zeros(p) if init is None else np.asarray(init, dtype=float) * scale
-    ll, score, info = _evaluate(L, Xs, beta, efron)
+    # the point at zero is already evaluated (ll0)
+    ll, score, info = _evaluate(L, Xs, beta, efron, pt0 if init is None else None)
     if not np.isfinite(ll):
         beta = np.zeros(p)
-        ll, score, info = _evaluate(L, Xs, beta, efron)
+        ll, score, info = _evaluate(L, Xs, beta, efron, pt0)
     settle = 100.0 * tol
     iterations = flat = 0
     last_change = float("nan")
