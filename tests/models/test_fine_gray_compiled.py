@@ -143,3 +143,30 @@ def test_compiled_gather_keeps_numpys_nan_bounds() -> None:
     assert np.array_equal(Xs, ref, equal_nan=True)
     assert np.array_equal(bounds[0], ref[used].max(axis=0), equal_nan=True)
     assert np.array_equal(bounds[1], ref[used].min(axis=0), equal_nan=True)
+
+
+@pytest.mark.parametrize("strata", [False, True])
+def test_a_samples_layout_from_its_grids_is_the_searched_one(strata: bool) -> None:
+    """``fine_gray_layout`` (from the sample's cached sorted times and each row's place in
+    them) field by field the layout ``fine_gray.prepare`` makes searching the times itself,
+    with ``G`` and ``H`` from ``censoring_survival_before`` and ``entry_distribution`` (bit
+    for bit). A structural check; the layout's fit is checked against lifelines above."""
+    import dataclasses
+
+    from unbin.models.competing import censoring_survival_before, entry_distribution
+
+    X, o = _sample(21, 2500, strata)
+    assert o.time is not None and o.cause is not None and o.entry is not None
+    t, c, e, w = o.time, o.cause, o.entry, np.asarray(o.weights)
+
+    def Q_at(at: np.ndarray) -> np.ndarray:
+        return censoring_survival_before(t, c, e, w, at) * entry_distribution(t, e, w, at)
+
+    ref = fine_gray.prepare(t, c, 1, entry=e, weights=w, strata=o.strata, Q_at=Q_at)
+    got = fine_gray_layout(o, o.cause, 1)
+    for field in dataclasses.fields(ref):
+        a, b = getattr(ref, field.name), getattr(got, field.name)
+        if isinstance(a, np.ndarray):
+            assert a.dtype == b.dtype and np.array_equal(a, b), field.name
+        else:
+            assert a == b, field.name

@@ -263,12 +263,31 @@ def fine_gray_layout(outcome: Outcome, cause: np.ndarray, event_of_interest: int
     e = None if outcome.entry is None else np.asarray(outcome.entry, dtype=float)
     _check(t, c, e)
     w = np.ones(t.size) if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
+    own = outcome.cause is not None and event_of_interest == outcome.event_of_interest \
+        and (cause is outcome.cause or np.array_equal(cause, outcome.cause))
+    searched = None
+    if own:
+        # the sample's sorted times and each row's place in them, made once (_Grids, which
+        # the weights' estimation terms and the replicates' layouts use too): the searches
+        # censoring_survival_before and entry_distribution would repeat, the same integers
+        g = _grids(outcome)
+        searched = (g.values, g.v_time, g.v_entry)
+        cens = c == 0
+        lo = np.zeros(t.size, dtype=int) if g.c_entry is None else g.c_entry
+        entry_part = (None if g.entries is None or g.e_entry is None or g.e_time is None
+                      else (g.entries, g.e_entry, g.e_time))
 
-    def Q_at(at: np.ndarray) -> np.ndarray:
-        return censoring_survival_before(t, c, e, w, at) * entry_distribution(t, e, w, at)
+        def Q_at(at: np.ndarray) -> np.ndarray:
+            G = (_censoring_steps(g.cens, g.c_time, lo, cens, w, at) if g.cens.size
+                 else np.ones(np.shape(at)))
+            H = np.ones(np.shape(at)) if entry_part is None else _entry_steps(*entry_part, w, at)
+            return G * H
+    else:
+        def Q_at(at: np.ndarray) -> np.ndarray:
+            return censoring_survival_before(t, c, e, w, at) * entry_distribution(t, e, w, at)
 
     layout = fine_gray.prepare(t, c, event_of_interest, entry=e, weights=outcome.weights,
-                               strata=outcome.strata, Q_at=Q_at)
+                               strata=outcome.strata, Q_at=Q_at, searched=searched)
     outcome.cache[_LAYOUT] = layout
     return layout
 
