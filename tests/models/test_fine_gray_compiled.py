@@ -7,13 +7,12 @@ which is the Fine–Gray model's weighted Cox likelihood."""
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
-from lifelines import CoxPHFitter
 
+from helpers import assert_same_fields, lifelines_on_expansion
 from unbin.models import fine_gray
 from unbin.models.base import Outcome
-from unbin.models.competing import fine_gray_data, fine_gray_layout, fit_fine_gray
+from unbin.models.competing import fine_gray_layout, fit_fine_gray
 
 
 def _sample(seed: int, n: int, strata: bool) -> tuple[np.ndarray, Outcome]:
@@ -75,17 +74,7 @@ def test_compiled_fit_equals_the_numpy_fit_and_lifelines_on_the_expansion(
     assert np.array_equal(a.coef, b.coef) and np.array_equal(a.cov, b.cov)
     assert a.loglik == b.loglik
     assert np.array_equal(a.extra["baseline"]["cumhaz"], b.extra["baseline"]["cumhaz"])
-    assert o.time is not None
-    d = fine_gray_data(o.time, o.cause, 1, entry=o.entry, weights=o.weights)
-    frame = pd.DataFrame(d.take(X), columns=["x", "z"]).assign(
-        start=d.start, stop=d.stop, event=d.event, w=d.weight)
-    keys = None
-    if o.strata is not None:
-        frame["s"] = np.asarray(o.strata)[d.person]
-        keys = ["s"]
-    cph = CoxPHFitter().fit(frame, "stop", "event", weights_col="w", entry_col="start",
-                            strata=keys, robust=True,
-                            fit_options={"precision": 1e-14, "r_precision": 1e-16})
+    cph = lifelines_on_expansion(X, o, o.cause, ("x", "z"))
     np.testing.assert_allclose(b.coef, cph.params_[["x", "z"]].to_numpy(float), atol=1e-7)
     assert b.loglik == pytest.approx(float(cph.log_likelihood_), rel=1e-9)
 
@@ -113,15 +102,8 @@ def test_compiled_replicate_refit_equals_the_numpy_path_and_lifelines(
     assert np.array_equal(a, b)
     assert np.array_equal(base_a["cumhaz"], base_b["cumhaz"])
     rep = o.subset(m)
-    assert rep.time is not None
-    d = fine_gray_data(rep.time, np.asarray(rep.cause), 1, entry=rep.entry,
-                       weights=rep.weights)
-    frame = pd.DataFrame(d.take(X[m]), columns=["x", "z"]).assign(
-        start=d.start, stop=d.stop, event=d.event, w=d.weight,
-        s=np.asarray(rep.strata)[d.person])
-    cph = CoxPHFitter().fit(frame, "stop", "event", weights_col="w", entry_col="start",
-                            strata=["s"], robust=True,
-                            fit_options={"precision": 1e-14, "r_precision": 1e-16})
+    assert rep.cause is not None
+    cph = lifelines_on_expansion(X[m], rep, rep.cause, ("x", "z"))
     np.testing.assert_allclose(b, cph.params_[["x", "z"]].to_numpy(float), atol=1e-7)
 
 
@@ -151,8 +133,6 @@ def test_a_samples_layout_from_its_grids_is_the_searched_one(strata: bool) -> No
     them) field by field the layout ``fine_gray.prepare`` makes searching the times itself,
     with ``G`` and ``H`` from ``censoring_survival_before`` and ``entry_distribution`` (bit
     for bit). A structural check; the layout's fit is checked against lifelines above."""
-    import dataclasses
-
     from unbin.models.competing import censoring_survival_before, entry_distribution
 
     X, o = _sample(21, 2500, strata)
@@ -163,10 +143,4 @@ def test_a_samples_layout_from_its_grids_is_the_searched_one(strata: bool) -> No
         return censoring_survival_before(t, c, e, w, at) * entry_distribution(t, e, w, at)
 
     ref = fine_gray.prepare(t, c, 1, entry=e, weights=w, strata=o.strata, Q_at=Q_at)
-    got = fine_gray_layout(o, o.cause, 1)
-    for field in dataclasses.fields(ref):
-        a, b = getattr(ref, field.name), getattr(got, field.name)
-        if isinstance(a, np.ndarray):
-            assert a.dtype == b.dtype and np.array_equal(a, b), field.name
-        else:
-            assert a == b, field.name
+    assert_same_fields(fine_gray_layout(o, o.cause, 1), ref)
