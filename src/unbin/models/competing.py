@@ -263,10 +263,8 @@ def fine_gray_layout(outcome: Outcome, cause: np.ndarray, event_of_interest: int
     e = None if outcome.entry is None else np.asarray(outcome.entry, dtype=float)
     _check(t, c, e)
     w = np.ones(t.size) if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
-    own = outcome.cause is not None and event_of_interest == outcome.event_of_interest \
-        and (cause is outcome.cause or np.array_equal(cause, outcome.cause))
     searched = None
-    if own:
+    if _own_causes(outcome, cause, event_of_interest):
         # the sample's sorted times and each row's place in them, made once (_Grids, which
         # the weights' estimation terms and the replicates' layouts use too): the searches
         # censoring_survival_before and entry_distribution would repeat, the same integers
@@ -345,11 +343,16 @@ def _make_grids(outcome: Outcome, cause: np.ndarray, event_of_interest: int) -> 
 def _sample_grids(outcome: Outcome, cause: np.ndarray, event_of_interest: int) -> _Grids:
     """The outcome's :class:`_Grids` (kept in its cache) when ``cause`` and
     ``event_of_interest`` are its own; else made here for them (not kept)."""
-    own = outcome.cause is not None and event_of_interest == outcome.event_of_interest \
-        and (cause is outcome.cause or np.array_equal(cause, outcome.cause))
-    if own:
+    if _own_causes(outcome, cause, event_of_interest):
         return _grids(outcome)
     return _make_grids(outcome, cause, event_of_interest)
+
+
+def _own_causes(outcome: Outcome, cause: np.ndarray, event_of_interest: int) -> bool:
+    """Whether ``cause`` and ``event_of_interest`` are the outcome's own (its cached grids
+    then apply)."""
+    return outcome.cause is not None and event_of_interest == outcome.event_of_interest \
+        and (cause is outcome.cause or np.array_equal(cause, outcome.cause))
 
 
 def _subset_counts(size: int, present: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
