@@ -206,3 +206,28 @@ def test_cif_risks_equals_the_g_formula_written_out() -> None:
     assert np.all((want > 0.1) & (want < 0.9))
     np.testing.assert_allclose(plain, want, rtol=0, atol=1e-13)
     np.testing.assert_allclose(shared, want, rtol=0, atol=1e-13)
+
+
+@pytest.mark.parametrize("causes", [2, 3])
+def test_compiled_row_incidence_equals_numpy_and_the_time_by_time_sum(
+        causes: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    """``row_incidence`` compiled (``compiled/row_incidence.py``) and numpy's blocks, both
+    forced, against each other and against the time-by-time incidence written in this test
+    (Cheng, Fine & Wei 1998's product-limit form), row by row to 1e-14 (incidences between 0
+    and 1); a factor that would go below 0 is set to 0 on both paths, and a NaN stays NaN."""
+    rng = np.random.default_rng(61 + causes)
+    u, D, _ = _case(rng, 500, 700, causes, 1.0, False)
+    u[3] = 6.0  # a row whose factors go below 0 (set to 0)
+    u[5, 0] = np.nan
+    got = {}
+    for mode in ("never", "always"):
+        monkeypatch.setenv("UNBIN_COMPILED", mode)
+        got[mode] = isum.row_incidence(u, D)
+    ones = np.ones(1)
+    by_hand = np.array([_direct(u[i:i + 1], ones, np.zeros(causes), D) for i in range(500)])
+    assert np.isnan(got["never"][5]) and np.isnan(got["always"][5])
+    assert np.isnan(by_hand[5])
+    fine = np.arange(500) != 5
+    assert np.any(1.0 - np.exp(u[3]) @ D < 0)
+    np.testing.assert_allclose(got["always"][fine], got["never"][fine], rtol=0, atol=1e-14)
+    np.testing.assert_allclose(got["always"][fine], by_hand[fine], rtol=0, atol=1e-14)

@@ -263,12 +263,29 @@ def fine_gray_layout(outcome: Outcome, cause: np.ndarray, event_of_interest: int
     e = None if outcome.entry is None else np.asarray(outcome.entry, dtype=float)
     _check(t, c, e)
     w = np.ones(t.size) if outcome.weights is None else np.asarray(outcome.weights, dtype=float)
+    searched = None
+    if _own_causes(outcome, cause, event_of_interest):
+        # the sample's sorted times and each row's place in them, made once (_Grids, which
+        # the weights' estimation terms and the replicates' layouts use too): the searches
+        # censoring_survival_before and entry_distribution would repeat, the same integers
+        g = _grids(outcome)
+        searched = (g.values, g.v_time, g.v_entry)
+        cens = c == 0
+        lo = np.zeros(t.size, dtype=int) if g.c_entry is None else g.c_entry
+        entry_part = (None if g.entries is None or g.e_entry is None or g.e_time is None
+                      else (g.entries, g.e_entry, g.e_time))
 
-    def Q_at(at: np.ndarray) -> np.ndarray:
-        return censoring_survival_before(t, c, e, w, at) * entry_distribution(t, e, w, at)
+        def Q_at(at: np.ndarray) -> np.ndarray:
+            G = (_censoring_steps(g.cens, g.c_time, lo, cens, w, at) if g.cens.size
+                 else np.ones(np.shape(at)))
+            H = np.ones(np.shape(at)) if entry_part is None else _entry_steps(*entry_part, w, at)
+            return G * H
+    else:
+        def Q_at(at: np.ndarray) -> np.ndarray:
+            return censoring_survival_before(t, c, e, w, at) * entry_distribution(t, e, w, at)
 
     layout = fine_gray.prepare(t, c, event_of_interest, entry=e, weights=outcome.weights,
-                               strata=outcome.strata, Q_at=Q_at)
+                               strata=outcome.strata, Q_at=Q_at, searched=searched)
     outcome.cache[_LAYOUT] = layout
     return layout
 
@@ -296,26 +313,46 @@ def _grids(outcome: Outcome) -> _Grids:
     """The full sample's :class:`_Grids`, kept in its cache."""
     got = outcome.cache.get(_GRIDS)
     if got is None:
-        assert outcome.time is not None and outcome.cause is not None
-        t = np.asarray(outcome.time, dtype=float)
-        c = np.asarray(outcome.cause, dtype=float)
-        e = None if outcome.entry is None else np.asarray(outcome.entry, dtype=float)
-        values = np.unique(t[c == outcome.event_of_interest])
-        cens = np.unique(t[c == 0])
-        if e is None:
-            got = _Grids(values, np.searchsorted(values, t, side="right"), None,
-                         cens, np.searchsorted(cens, t, side="right"), None, None, None, None)
-        else:
-            entries = np.unique(e)
-            got = _Grids(
-                values, np.searchsorted(values, t, side="right"),
-                np.searchsorted(values, e, side="right"),
-                cens, np.searchsorted(cens, t, side="right"),
-                np.searchsorted(cens, e, side="right"),
-                entries, np.searchsorted(entries, e, side="left"),
-                np.searchsorted(entries, t, side="left"))
+        assert outcome.cause is not None
+        got = _make_grids(outcome, np.asarray(outcome.cause), outcome.event_of_interest)
         outcome.cache[_GRIDS] = got
     return got
+
+
+def _make_grids(outcome: Outcome, cause: np.ndarray, event_of_interest: int) -> _Grids:
+    """:class:`_Grids` of the outcome's times with the causes ``cause``."""
+    assert outcome.time is not None
+    t = np.asarray(outcome.time, dtype=float)
+    c = np.asarray(cause, dtype=float)
+    e = None if outcome.entry is None else np.asarray(outcome.entry, dtype=float)
+    values = np.unique(t[c == event_of_interest])
+    cens = np.unique(t[c == 0])
+    if e is None:
+        return _Grids(values, np.searchsorted(values, t, side="right"), None,
+                      cens, np.searchsorted(cens, t, side="right"), None, None, None, None)
+    entries = np.unique(e)
+    return _Grids(
+        values, np.searchsorted(values, t, side="right"),
+        np.searchsorted(values, e, side="right"),
+        cens, np.searchsorted(cens, t, side="right"),
+        np.searchsorted(cens, e, side="right"),
+        entries, np.searchsorted(entries, e, side="left"),
+        np.searchsorted(entries, t, side="left"))
+
+
+def _sample_grids(outcome: Outcome, cause: np.ndarray, event_of_interest: int) -> _Grids:
+    """The outcome's :class:`_Grids` (kept in its cache) when ``cause`` and
+    ``event_of_interest`` are its own; else made here for them (not kept)."""
+    if _own_causes(outcome, cause, event_of_interest):
+        return _grids(outcome)
+    return _make_grids(outcome, cause, event_of_interest)
+
+
+def _own_causes(outcome: Outcome, cause: np.ndarray, event_of_interest: int) -> bool:
+    """Whether ``cause`` and ``event_of_interest`` are the outcome's own (its cached grids
+    then apply)."""
+    return outcome.cause is not None and event_of_interest == outcome.event_of_interest \
+        and (cause is outcome.cause or np.array_equal(cause, outcome.cause))
 
 
 def _subset_counts(size: int, present: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -420,14 +457,16 @@ def fit_fine_gray(X: np.ndarray, outcome: Outcome, cause: np.ndarray, event_of_i
     events = int(np.sum(np.asarray(cause) == event_of_interest))
     lp = X @ res.coef
     clusters = np.arange(outcome.n) if outcome.cluster is None else np.asarray(outcome.cluster)
-    own = fine_gray.score_terms(L, X, res.coef)
+    at = fine_gray.at_estimate(L, X, res.coef)
+    own = fine_gray.score_terms(L, X, res.coef, at=at)
     known, G = sandwich(res.cov, own, clusters)
     extra: dict[str, object] = {"loglik0": res.loglik0, "variance": "model"}
     cov = cov_known = res.cov
     if np.all(np.isfinite(known)):  # the sandwich, with the weights' estimation terms
         extra.update(variance=describe(G), model_cov=res.cov, clusters=G)
         cov = cov_known = known
-        scores = own + weight_estimation_scores(X, outcome, cause, event_of_interest, res.coef)
+        scores = own + weight_estimation_scores(X, outcome, cause, event_of_interest, res.coef,
+                                                at=at)
         V, _ = sandwich(res.cov, scores, clusters)
         if np.all(np.isfinite(V)):
             cov = V
@@ -573,7 +612,8 @@ def fine_gray_bootstrap_cov(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
 
 def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
                              event_of_interest: int, coef: np.ndarray,
-                             ties: str = "efron") -> np.ndarray:
+                             ties: str = "efron", at: fine_gray.AtEstimate | None = None
+                             ) -> np.ndarray:
     """Each person's influence, through the estimated censoring and entry distributions, on
     the Fine–Gray score at ``coef`` (n x p): the derivative of the score with respect to the
     person's weight in ``G`` and ``H`` alone (an infinitesimal jackknife; Fine & Gray 1999,
@@ -605,27 +645,27 @@ def weight_estimation_scores(X: np.ndarray, outcome: Outcome, cause: np.ndarray,
     L = fine_gray_layout(outcome, c, event_of_interest)
     if p == 0 or L.comp.size == 0:
         return out
+    if at is None:
+        at = fine_gray.at_estimate(L, X, coef, ties)
     cens = c == 0
-    ct = np.unique(time[cens])
+    g = _sample_grids(outcome, c, event_of_interest)
+    ct = g.cens
+    grids = ([ct] if ct.size else []) + ([g.entries] if g.entries is not None else [])
+    qs = fine_gray.spanned_sums_on(L, at, time, grids)
     if ct.size:
-        lo = (np.zeros(n, dtype=int) if outcome.entry is None
-              else np.searchsorted(ct, outcome.entry, side="right"))
-        hi = np.searchsorted(ct, time, side="right")
+        lo = np.zeros(n, dtype=int) if g.c_entry is None else g.c_entry
+        hi = g.c_time
         Y = _at_risk(lo, hi, w, ct.size)
         jumps = np.bincount(hi[cens] - 1, w[cens], ct.size)
-        q = fine_gray.spanned_sums(L, X, coef, time, ct, ties)
-        qY, dL = _spanned(q, Y, jumps)
+        qY, dL = _spanned(qs[0], Y, jumps)
         own = np.zeros((n, p))
         own[cens] = qY[hi[cens] - 1]
         out += w[:, None] * (own - _range_sums(qY * dL[:, None], lo, hi))
-    if outcome.entry is not None:
-        entry = np.asarray(outcome.entry, dtype=float)
-        st = np.unique(entry)
-        lo = np.searchsorted(st, entry, side="left")
-        hi = np.searchsorted(st, time, side="left")
-        R = _at_risk(lo, hi, w, st.size)
-        q = fine_gray.spanned_sums(L, X, coef, time, st, ties)
-        qR, dA = _spanned(q, R, np.bincount(lo, w, st.size))
+    if g.entries is not None:
+        assert g.e_entry is not None and g.e_time is not None
+        lo, hi = g.e_entry, g.e_time
+        R = _at_risk(lo, hi, w, g.entries.size)
+        qR, dA = _spanned(qs[-1], R, np.bincount(lo, w, g.entries.size))
         out -= w[:, None] * (qR[lo] - _range_sums(qR * dA[:, None], lo, hi))
     return out
 

@@ -36,12 +36,19 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from types import ModuleType
 
 import numpy as np
 import pandas as pd
 from scipy import linalg
 
+from . import compiled
 from .cox.fit import newton_step, secant_refit, secant_start
+
+# From this many sample rows the risk-set sums and row weights run compiled
+# (``compiled/fine_gray_sums.py``, the same numbers bit for bit): below it the numpy path,
+# so small samples never import numba.
+SUMS_FROM_ROWS = 20_000
 
 
 @dataclass(frozen=True)
@@ -207,9 +214,28 @@ def _bins(idx: np.ndarray, v: np.ndarray, K: int) -> np.ndarray:
     return np.column_stack([np.bincount(idx, v[:, j], K) for j in range(v.shape[1])])
 
 
+def _kernels(L: Layout) -> ModuleType | None:
+    """The compiled sums' module when the sample is large enough (``SUMS_FROM_ROWS``), else
+    None."""
+    if not compiled.wanted(L.n, SUMS_FROM_ROWS):
+        return None
+    from .compiled import fine_gray_sums
+
+    return fine_gray_sums
+
+
+def _layout_args(L: Layout) -> tuple[np.ndarray, ...]:
+    return (L.rows, L.b, L.late, L.a, L.comp, L.comp_c, L.comp_qinv, L.Q, L.k_bounds)
+
+
 def risk_sums(L: Layout, r: np.ndarray, cols: np.ndarray) -> np.ndarray:
     """``S(t_k)`` (K x q) of the module docstring for the columns ``cols`` (n x q) weighted by
     ``r`` (n,; case weight included)."""
+    kernels = _kernels(L)
+    if kernels is not None:
+        return np.asarray(kernels.risk_sums(np.ascontiguousarray(r, dtype=float),
+                                            np.ascontiguousarray(cols, dtype=float),
+                                            *_layout_args(L)))
     K = L.K
     rc = r[:, None] * cols
     own = rc[L.rows]
@@ -226,6 +252,10 @@ def risk_sums(L: Layout, r: np.ndarray, cols: np.ndarray) -> np.ndarray:
 def risk_sum0(L: Layout, r: np.ndarray) -> np.ndarray:
     """``S0(t_k)`` (K,): :func:`risk_sums` of the column of ones, without forming it (the same
     sums in the same order)."""
+    kernels = _kernels(L)
+    if kernels is not None:
+        return np.asarray(kernels.risk_sum0(np.ascontiguousarray(r, dtype=float),
+                                            *_layout_args(L)))
     K = L.K
     contrib = np.bincount(L.b, r[L.rows], K)
     if L.late.size:
@@ -245,6 +275,11 @@ def risk_sum0(L: Layout, r: np.ndarray) -> np.ndarray:
 def row_weights(L: Layout, r: np.ndarray, c: np.ndarray) -> np.ndarray:
     """Per sample row, ``r_i`` times the sum of ``c`` (K,) over the event times at which the row
     or its expanded copies are at risk, each copy weighted by its ``Q(t_k) / Q(T_j)``."""
+    kernels = _kernels(L)
+    if kernels is not None:
+        return np.asarray(kernels.row_weights(np.ascontiguousarray(r, dtype=float),
+                                              np.ascontiguousarray(c, dtype=float),
+                                              *_layout_args(L)))
     cum = _fwd_cum(L, c[:, None])[:, 0]
     s = np.zeros(L.n)
     s[L.rows] = cum[L.b]
@@ -310,7 +345,7 @@ def _score_weights(L: Layout, pt: _Point) -> np.ndarray:
     bk = np.bincount(L.tie_k, L.tie_f * w_inv, L.K)
     v = row_weights(L, r, c)
     tie_rows = L.ev[L.tie_ev]
-    np.subtract.at(v, tie_rows, r[tie_rows] * bk[L.tie_k])
+    v[tie_rows] -= r[tie_rows] * bk[L.tie_k]  # distinct rows: ufunc.at's result, faster
     return v
 
 
@@ -503,11 +538,17 @@ def fit_replicate(start: NearStart, X: np.ndarray, rows: np.ndarray, L: Layout, 
     if L.K == 0 or L.rows.size == 0:
         return None
     inv = 1.0 / start.scale
-    Xs = X[rows]
-    Xs -= start.mean
-    Xs *= inv
-    used = Xs[L.rows]
-    hi, lo = used.max(axis=0), used.min(axis=0)
+    kernels = _kernels(L)
+    if kernels is not None:
+        Xs, bounds = kernels.gather_standardised(X, np.asarray(rows, dtype=np.int64),
+                                                 start.mean, inv, L.rows)
+        hi, lo = bounds[0], bounds[1]
+    else:
+        Xs = X[rows]
+        Xs -= start.mean
+        Xs *= inv
+        used = Xs[L.rows]
+        hi, lo = used.max(axis=0), used.min(axis=0)
     # a column constant among the rows at risk (as _standardised's test, on this scale) makes
     # the information singular
     top = np.maximum(np.abs(hi), np.abs(lo)) + np.abs(start.mean) * inv
@@ -542,7 +583,8 @@ def fit(L: Layout, X: np.ndarray, *, ties: str = "efron", init: np.ndarray | Non
     Xs, sd, scale = _standardised(L, X)
     p = Xs.shape[1]
     nan = np.full(p, np.nan), np.full((p, p), np.nan)
-    ll0 = _point(L, Xs, np.zeros(p), efron).loglik
+    pt0 = _point(L, Xs, np.zeros(p), efron)
+    ll0 = pt0.loglik
     if p == 0:
         return Fit(np.zeros(0), np.zeros((0, 0)), ll0, ll0, 0, "")
     if np.any(sd == 0):
@@ -550,10 +592,11 @@ def fit(L: Layout, X: np.ndarray, *, ties: str = "efron", init: np.ndarray | Non
         return Fit(*nan, ll0, ll0, 0, f"information matrix is singular: column(s) {const} "
                    "are constant among the rows at risk; drop them")
     beta = np.zeros(p) if init is None else np.asarray(init, dtype=float) * scale
-    ll, score, info = _evaluate(L, Xs, beta, efron)
+    # the point at zero is already evaluated (ll0)
+    ll, score, info = _evaluate(L, Xs, beta, efron, pt0 if init is None else None)
     if not np.isfinite(ll):
         beta = np.zeros(p)
-        ll, score, info = _evaluate(L, Xs, beta, efron)
+        ll, score, info = _evaluate(L, Xs, beta, efron, pt0)
     settle = 100.0 * tol
     iterations = flat = 0
     last_change = float("nan")
@@ -667,13 +710,33 @@ def increments(L: Layout, X: np.ndarray, coef: np.ndarray, efron: bool) -> Incre
     return Increments(A, B, A_ev, B_ev, xavg, e)
 
 
-def score_terms(L: Layout, X: np.ndarray, coef: np.ndarray, ties: str = "efron") -> np.ndarray:
+@dataclass(frozen=True)
+class AtEstimate:
+    """What the score terms and the weights' estimation terms of one fit share: the design
+    centred by its column means (the residuals do not change with a shift of a column) and the
+    hazard increments at the estimate (:func:`increments`), computed once per fit."""
+
+    X: np.ndarray
+    inc: Increments
+
+
+def at_estimate(L: Layout, X: np.ndarray, coef: np.ndarray, ties: str = "efron"
+                ) -> AtEstimate:
+    """:class:`AtEstimate` of the design ``X`` at ``coef``."""
+    X = np.asarray(X, dtype=float).reshape(L.n, -1)
+    X = X - X.mean(axis=0)
+    return AtEstimate(X, increments(L, X, np.asarray(coef, dtype=float), ties == "efron"))
+
+
+def score_terms(L: Layout, X: np.ndarray, coef: np.ndarray, ties: str = "efron",
+                at: AtEstimate | None = None) -> np.ndarray:
     """Each person's weighted Cox score residual (n x p) summed over their own row and what
     would be their expanded rows: ``unbin.models.robust.cox_scores`` of the expansion, added up
-    by person."""
-    X = np.asarray(X, dtype=float).reshape(L.n, -1)
-    X = X - X.mean(axis=0)  # residuals do not change with a shift of a column
-    inc = increments(L, X, np.asarray(coef, dtype=float), ties == "efron")
+    by person; ``at``: :func:`at_estimate` of the same design and coefficients, when the
+    caller has it."""
+    if at is None:
+        at = at_estimate(L, X, coef, ties)
+    X, inc = at.X, at.inc
     p = X.shape[1]
     U = np.zeros((L.n, p))
     cA = _fwd_cum(L, inc.A[:, None])[:, 0]
@@ -706,12 +769,21 @@ def spanned_sums(L: Layout, X: np.ndarray, coef: np.ndarray, time: np.ndarray,
     (``unbin.models.competing.weight_estimation_scores``), by stratum: the competing persons'
     running sums up to u times the event times' suffix sums after u."""
     X = np.asarray(X, dtype=float).reshape(L.n, -1)
+    if not L.comp.size or X.shape[1] == 0:
+        return np.zeros((grid.size, X.shape[1]))
+    return spanned_sums_on(L, at_estimate(L, X, coef, ties), time, [grid])[0]
+
+
+def spanned_sums_on(L: Layout, at: AtEstimate, time: np.ndarray,
+                    grids: list[np.ndarray]) -> list[np.ndarray]:
+    """:func:`spanned_sums` on each of ``grids`` from one :func:`at_estimate` (the competing
+    persons' order and running sums and the event times' suffix sums made once for every
+    grid)."""
+    X, inc = at.X, at.inc
     p = X.shape[1]
-    q = np.zeros((grid.size, p))
+    qs = [np.zeros((grid.size, p)) for grid in grids]
     if not L.comp.size or p == 0:
-        return q
-    X = X - X.mean(axis=0)
-    inc = increments(L, X, np.asarray(coef, dtype=float), ties == "efron")
+        return qs
     QA = _rev_cum(L, (L.Q * inc.A)[:, None])[:, 0]
     QB = _rev_cum(L, L.Q[:, None] * inc.B)
     m0 = L.w[L.comp] * inc.e[L.comp] * L.comp_qinv
@@ -725,12 +797,13 @@ def spanned_sums(L: Layout, X: np.ndarray, coef: np.ndarray, time: np.ndarray,
         Tj = time[L.comp[order]]
         c0 = np.r_[0.0, np.cumsum(m0[order])]
         c1 = np.vstack([np.zeros((1, p)), np.cumsum(m1[order], axis=0)])
-        upto = np.searchsorted(Tj, grid, side="right")  # persons with T_j <= u
-        after = lo + np.searchsorted(L.k_time[lo:hi], grid, side="right")  # first t_k > u
         qa = np.r_[QA[lo:hi], 0.0]
         qb = np.vstack([QB[lo:hi], np.zeros((1, p))])
-        q += c1[upto] * qa[after - lo][:, None] - c0[upto][:, None] * qb[after - lo]
-    return q
+        for q, grid in zip(qs, grids, strict=True):
+            upto = np.searchsorted(Tj, grid, side="right")  # persons with T_j <= u
+            after = lo + np.searchsorted(L.k_time[lo:hi], grid, side="right")  # first t_k > u
+            q += c1[upto] * qa[after - lo][:, None] - c0[upto][:, None] * qb[after - lo]
+    return qs
 
 
 def baseline(L: Layout, lp: np.ndarray) -> pd.DataFrame:

@@ -34,6 +34,8 @@ import math
 import numpy as np
 from scipy import fft
 
+from ..models import compiled
+
 # every factor 1 - sum_c r_c dL_c(s) at the box's upper corner at least 1 - FACTOR_LIMIT, so
 # the incidence is analytic over the box (and no factor is set to 0)
 FACTOR_LIMIT = 0.5
@@ -48,12 +50,23 @@ _FIRST = 9  # nodes per axis to start with (8 intervals)
 _CELLS = 1 << 21  # rows x event times held at once (16 MB)
 
 
+# From this many cells (rows x event times) each row's incidence is one compiled loop over its
+# event times (compiled/row_incidence.py; the same terms, added in time order); below it numpy's
+# blocks, so small evaluations never import numba.
+ROW_INCIDENCE_FROM_CELLS = 1_000_000
+
+
 def row_incidence(log_risk: np.ndarray, D: np.ndarray) -> np.ndarray:
     """Each row's cumulative incidence of cause 1 (row of ``D``'s first) at log relative
     hazards ``log_risk`` (rows, causes), from the baseline increments ``D`` (causes, event
     times up to the horizon); a factor below 0 is set to 0. Rows are taken a block at a time
-    (at most about 2^21 cells)."""
+    (at most about 2^21 cells), or one at a time compiled from ``ROW_INCIDENCE_FROM_CELLS``."""
     m, K = log_risk.shape[0], D.shape[1]
+    if K and compiled.wanted(m * K, ROW_INCIDENCE_FROM_CELLS):
+        from ..models.compiled import row_incidence as kernel
+
+        return np.asarray(kernel.row_incidence(np.ascontiguousarray(log_risk, dtype=float),
+                                               np.ascontiguousarray(D, dtype=float)))
     out = np.empty(m)
     block = max(1, min(256, _CELLS // max(K, 1)))
     for r0 in range(0, m, block):
