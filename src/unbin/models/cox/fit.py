@@ -638,6 +638,13 @@ class NearStart:
     efron: bool
     # what the batched refits (``replicates.refit_replicates``) derive from the design once
     memo: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+    # the compiled path's standardised design of the full sample in its layout's order, ones
+    # first (``_replicate_design`` copies a replicate's rows from it, a near-sequential read),
+    # each full-sample row's position in it (-1: not laid out) and the scratch shared by the
+    # starts of one layout (``_sorted_replicate_design``); None on the numpy path
+    sorted_X1: np.ndarray | None = field(default=None, compare=False, repr=False)
+    rank: np.ndarray | None = field(default=None, compare=False, repr=False)
+    scratch: dict[str, Any] | None = field(default=None, compare=False, repr=False)
 
 
 def near_start(
@@ -662,8 +669,22 @@ def near_start(
     D = _replicate_design(Xa, None, L, mean, 1.0 / scale)[0]
     ll, _, info = _evaluate(L, D, beta, efron)
     H = inverse_information(info) if np.isfinite(ll) else None
+    kept = D.compiled  # (kept only where the replicates' designs are copied compiled)
     return NearStart(Xa.shape[0], mean, scale, beta, None if H is None else H * _event_weight(L),
-                     efron)
+                     efron, sorted_X1=D.X1 if kept else None,
+                     rank=_layout_rank(L) if kept else None,
+                     scratch=L.kernel.setdefault("replicate_scratch", {}) if kept else None)
+
+
+def _layout_rank(L: Layout) -> np.ndarray:
+    """Each of the sample's rows' position in ``L``'s order, -1 for a row not laid out (made
+    once per layout, kept in ``L.kernel``)."""
+    got = L.kernel.get("rank")
+    if got is None:
+        got = L.kernel["rank"] = np.full(L.n, -1, dtype=np.int64)
+        got[L.order] = np.arange(L.order.size)
+    rank: np.ndarray = got
+    return rank
 
 
 def _event_weight(L: Layout) -> float:
@@ -687,6 +708,45 @@ def _replicate_design(
                                             mean, inv, bounds, True, xwe)
     else:
         xwe = _write_standardised(X1, Xa, idx, mean, inv, L.we, bounds)
+    reach = np.maximum(bounds[0], -bounds[1])
+    return _Design.of(X1, L.we, reach, xwe), bounds
+
+
+def _sorted_replicate_design(
+    start: NearStart, rows: np.ndarray, L: Layout
+) -> tuple[_Design, np.ndarray] | None:
+    """:func:`_replicate_design` of the drawn rows ``rows`` laid out in ``L``, copied from the
+    full sample's standardised design in its layout's order (``start.sorted_X1``): the same
+    values, events' summed ``w x`` (in ``L``'s order) and column bounds, bit for bit. A
+    replicate's rows in its layout's order are the full sample's laid-out rows, each repeated
+    as drawn (``layout.draw_layout``), so the copy reads the full design nearly in order where
+    the gather from X read a random row per row. The rows are written into ``start.scratch``,
+    shared by the starts of one layout and reused from refit to refit (a fresh array of that
+    size costs a page fault per 4 KiB): the design is valid until the next call, which
+    :func:`refit_replicate`, its only user, never outlives. None on the numpy path or where a
+    drawn row is not laid out in the full sample (the caller then gathers from X)."""
+    S, rank, scratch = start.sorted_X1, start.rank, start.scratch
+    if S is None or rank is None or scratch is None or not compiled.wanted(
+            L.order.size, EVALUATION_FROM_ROWS):
+        return None
+    from ..compiled import cox_standardise
+
+    seen = L.kernel.get("drawn_positions")
+    if seen is not None and seen[0] is rows and seen[1] is rank:
+        pos = seen[2]
+    else:  # the full layout's position of each laid-out row's source row (once per replicate)
+        pos = rank[rows[L.order]]
+        L.kernel["drawn_positions"] = (rows, rank, pos)
+    m, q = L.order.size, S.shape[1]
+    buf = scratch.get("X1")
+    if buf is None or buf.size < m * q:
+        scratch.pop("X1", None)  # (released before the larger one is taken)
+        buf = scratch["X1"] = np.empty(max(m, start.n + 1) * q)
+    X1 = buf[: m * q].reshape(m, q)
+    bounds = np.empty((2, q - 1))
+    xwe = np.empty(q - 1)
+    if not cox_standardise.copy_standardised(X1, S, pos, L.we, bounds, xwe):
+        return None
     reach = np.maximum(bounds[0], -bounds[1])
     return _Design.of(X1, L.we, reach, xwe), bounds
 
@@ -716,7 +776,9 @@ def refit_replicate(
     if L.events == 0:
         return None
     inv = 1.0 / start.scale
-    D, bounds = _replicate_design(Xa, rows, L, start.mean, inv)
+    copied = _sorted_replicate_design(start, rows, L)
+    D, bounds = copied if copied is not None else _replicate_design(Xa, rows, L, start.mean,
+                                                                    inv)
     # a column constant among the replicate's rows (as fit_cox's test, on the standardised
     # scale) makes its information singular
     top = np.maximum(np.abs(bounds[0]), np.abs(bounds[1])) + np.abs(start.mean) * inv
