@@ -755,10 +755,15 @@ def _sorted_replicate_design(
         return None
     from ..compiled import cox_standardise
 
+    # the full layout's position of each laid-out row's source row: kept by draw_layout
+    # when it derived L from the full layout, else found once per replicate
+    drawn = L.kernel.get("drawn_from")
     seen = L.kernel.get("drawn_positions")
-    if seen is not None and seen[0] is rows and seen[1] is rank:
+    if drawn is not None and drawn[0].kernel.get("rank") is rank:
+        pos = drawn[1]
+    elif seen is not None and seen[0] is rows and seen[1] is rank:
         pos = seen[2]
-    else:  # the full layout's position of each laid-out row's source row (once per replicate)
+    else:
         pos = rank[rows[L.order]]
         L.kernel["drawn_positions"] = (rows, rank, pos)
     m, q = L.order.size, S.shape[1]
