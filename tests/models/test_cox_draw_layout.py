@@ -114,8 +114,8 @@ def test_derived_layout_is_the_drawn_rows_own(entry: bool, strata: bool, weights
     if strata:
         assert draws[4][:3].sum() == 0
         # (the draw without the rare stratum)
-        ref = draw_layout(full, draws[4].astype(float), w, codes)
-        assert ref is not None and ref.n_strata == full.n_strata - 1
+        fewer = draw_layout(full, draws[4].astype(float), w, codes)
+        assert fewer is not None and fewer.n_strata == full.n_strata - 1
 
 
 def test_declines_what_it_cannot_derive() -> None:
