@@ -353,6 +353,39 @@ def test_replicate_refit_copies_the_sorted_full_design(
         assert refit[1] == pytest.approx(numpy_refit[1], abs=1e-8)
 
 
+def test_sorted_designs_held_within_the_budget(monkeypatch: pytest.MonkeyPatch) -> None:
+    # source: the gather from X (the path a start without a sorted design keeps), bit for
+    # bit. A sample's starts hold sorted designs up to fit._SORTED_BUDGET bytes; a start
+    # beyond it has none and its replicates gather; a start's bytes are released with it
+    import gc
+
+    from unbin.models.cox import fit as cox_fit
+    from unbin.models.cox import near_start, refit_replicate
+
+    monkeypatch.setenv("UNBIN_COMPILED", "always")
+    c = _tied_cohort(seed=67)
+    X = np.ascontiguousarray(c["X"])
+    full, rows, drawn = _drawn_replicate(c, None, 5)
+    coef = fit_cox(X, c["time"], c["event"], entry=c["entry"], strata=c["strata"]).coef
+    one = full.order.size * (1 + X.shape[1]) * 8
+    monkeypatch.setattr(cox_fit, "_SORTED_BUDGET", int(1.5 * one))
+    first = near_start(X, coef, full)
+    second = near_start(X, coef, full)
+    assert first is not None and second is not None
+    assert first.sorted_X1 is not None and second.sorted_X1 is None
+    assert full.kernel["replicate_scratch"]["held"] == one
+    a = refit_replicate(first, X, rows, drawn, with_loglik=True)
+    b = refit_replicate(second, X, rows, drawn, with_loglik=True)
+    assert a is not None and b is not None
+    np.testing.assert_array_equal(a[0], b[0])
+    assert a[1] == b[1]
+    del first
+    gc.collect()
+    assert full.kernel["replicate_scratch"]["held"] == 0
+    third = near_start(X, coef, full)
+    assert third is not None and third.sorted_X1 is not None
+
+
 def test_compiled_fit_never_builds_the_sparse_operators(
     monkeypatch: pytest.MonkeyPatch,
 ) -> None:

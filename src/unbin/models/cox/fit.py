@@ -4,6 +4,7 @@ its messages, ``fit_cox`` and ``refit_near``."""
 
 from __future__ import annotations
 
+import weakref
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
@@ -693,11 +694,28 @@ def near_start(
     D = _replicate_design(Xa, None, L, mean, 1.0 / scale)[0]
     ll, _, info = _evaluate(L, D, beta, efron)
     H = inverse_information(info) if np.isfinite(ll) else None
-    kept = D.compiled  # (kept only where the replicates' designs are copied compiled)
+    # the sorted design kept for the replicates' copies: on the compiled path, while the
+    # copies a sample's starts hold stay within _SORTED_BUDGET bytes (beyond, a start's
+    # replicates gather their design from X as before)
+    scratch: dict[str, Any] = L.kernel.setdefault("replicate_scratch", {"held": 0})
+    kept = D.compiled and scratch["held"] + D.X1.nbytes <= _SORTED_BUDGET
+    if kept:
+        scratch["held"] += D.X1.nbytes
+        weakref.finalize(D.X1, _release, scratch, D.X1.nbytes)
     return NearStart(Xa.shape[0], mean, scale, beta, None if H is None else H * _event_weight(L),
                      efron, sorted_X1=D.X1 if kept else None,
-                     rank=_layout_rank(L) if kept else None,
-                     scratch=L.kernel.setdefault("replicate_scratch", {}) if kept else None)
+                     rank=_layout_rank(L) if kept else None, scratch=scratch if kept else None)
+
+
+# Bytes of sorted designs (``NearStart.sorted_X1``) the starts of one sample may hold at once:
+# 1,000,000 rows x (1 + 6) columns take 56 MB, so the 8 designs of an information bootstrap
+# fit; a table with more or wider designs gathers the rest from X.
+_SORTED_BUDGET = 512 * 2**20
+
+
+def _release(scratch: dict[str, Any], nbytes: int) -> None:
+    """A kept sorted design is gone: its bytes no longer count against the budget."""
+    scratch["held"] -= nbytes
 
 
 def _layout_rank(L: Layout) -> np.ndarray:
