@@ -278,6 +278,114 @@ def test_replicate_design_gathers_every_width(
         np.testing.assert_allclose(D.xwe, L.we @ ref, rtol=1e-12, atol=1e-11)
 
 
+def _drawn_replicate(c: dict[str, np.ndarray], w: np.ndarray | None, seed: int
+                     ) -> tuple[Layout, np.ndarray, Layout]:
+    """The full sample's layout, a replicate's drawn rows (each row repeated as drawn, side by
+    side) and the replicate's layout derived from the full one."""
+    from unbin.models.cox.inputs import _stratum_codes
+    from unbin.models.cox.layout import draw_layout
+
+    n = c["time"].size
+    full = prepare_layout(c["time"], c["event"], entry=c["entry"], strata=c["strata"],
+                          weights=w)
+    copies = np.random.default_rng(seed).multinomial(n, np.full(n, 1.0 / n))
+    drawn = draw_layout(full, copies, w, _stratum_codes(c["strata"], n)[0])
+    assert drawn is not None
+    return full, np.repeat(np.arange(n), copies), drawn
+
+
+@pytest.mark.parametrize("ties", ["efron", "breslow"])
+def test_replicate_refit_copies_the_sorted_full_design(
+    monkeypatch: pytest.MonkeyPatch, ties: str
+) -> None:
+    # source: lifelines CoxPHFitter (Efron ties; strata, entry_col, integer weights_col) and
+    # statsmodels PHReg (Breslow ties; strata, entry moved off the event times, as statsmodels
+    # counts entry <= t at risk at t; no case weights there) fitted on the replicate's repeated
+    # rows; the gather from X (the path the copy replaces) for the design, bit for bit. The
+    # compiled path copies a replicate's design from the full sample's standardised design in
+    # its layout order (kept by near_start) into a scratch reused from refit to refit
+    from unbin.models.cox import near_start, refit_replicate
+    from unbin.models.cox.fit import _sorted_replicate_design
+
+    monkeypatch.setenv("UNBIN_COMPILED", "always")
+    c = _tied_cohort(seed=61)
+    if ties == "breslow":
+        c["entry"] = np.where(c["entry"] > 0, c["entry"] + 0.25, 0.0)
+    w = np.random.default_rng(9).integers(1, 4, c["time"].size) if ties == "efron" else None
+    X = np.ascontiguousarray(c["X"])
+    full_fit = fit_cox(X, c["time"], c["event"], entry=c["entry"], strata=c["strata"],
+                       weights=w, ties=ties)
+    for seed in (3, 4):  # the second refit reuses the first one's scratch
+        full, rows, drawn = _drawn_replicate(c, w, seed)
+        start = near_start(X, full_fit.coef, full, ties=ties)
+        assert start is not None and start.sorted_X1 is not None
+        got = _sorted_replicate_design(start, rows, drawn)
+        assert got is not None
+        want = _replicate_design(X, rows, drawn, start.mean, 1.0 / start.scale)
+        np.testing.assert_array_equal(got[0].X1, want[0].X1)
+        np.testing.assert_array_equal(got[0].xwe, want[0].xwe)
+        np.testing.assert_array_equal(got[1], want[1])
+        refit = refit_replicate(start, X, rows, drawn, with_loglik=True)
+        assert refit is not None
+        if ties == "efron":
+            assert w is not None
+            frame = pd.DataFrame(X[rows], columns=["a", "b", "c", "d"]).assign(
+                T=c["time"][rows], E=c["event"][rows], S=c["strata"][rows],
+                en=c["entry"][rows], W=w[rows])
+            cph = CoxPHFitter().fit(frame, "T", "E", weights_col="W", entry_col="en",
+                                    strata=["S"], fit_options=TIGHT)
+            want_coef, want_ll = cph.params_.to_numpy(), cph.log_likelihood_
+        else:
+            ph = sm.PHReg(c["time"][rows], X[rows], status=c["event"][rows],
+                          strata=c["strata"][rows], entry=c["entry"][rows], ties="breslow")
+            res = ph.fit(method="newton", tol=1e-12)
+            want_coef, want_ll = res.params, ph.loglike(res.params)
+        np.testing.assert_allclose(refit[0], want_coef, rtol=1e-6, atol=1e-8)
+        assert refit[1] == pytest.approx(want_ll, abs=1e-7)
+        # the numpy path (no sorted copy kept) reaches the same refit
+        monkeypatch.setenv("UNBIN_COMPILED", "never")
+        plain = near_start(X, full_fit.coef, full, ties=ties)
+        assert plain is not None and plain.sorted_X1 is None
+        numpy_refit = refit_replicate(plain, X, rows, drawn, with_loglik=True)
+        monkeypatch.setenv("UNBIN_COMPILED", "always")
+        assert numpy_refit is not None
+        np.testing.assert_allclose(refit[0], numpy_refit[0], rtol=1e-8, atol=1e-10)
+        assert refit[1] == pytest.approx(numpy_refit[1], abs=1e-8)
+
+
+def test_sorted_designs_held_within_the_budget(monkeypatch: pytest.MonkeyPatch) -> None:
+    # source: the gather from X (the path a start without a sorted design keeps), bit for
+    # bit. A sample's starts hold sorted designs up to fit._SORTED_BUDGET bytes; a start
+    # beyond it has none and its replicates gather; a start's bytes are released with it
+    import gc
+
+    from unbin.models.cox import fit as cox_fit
+    from unbin.models.cox import near_start, refit_replicate
+
+    monkeypatch.setenv("UNBIN_COMPILED", "always")
+    c = _tied_cohort(seed=67)
+    X = np.ascontiguousarray(c["X"])
+    full, rows, drawn = _drawn_replicate(c, None, 5)
+    coef = fit_cox(X, c["time"], c["event"], entry=c["entry"], strata=c["strata"]).coef
+    one = full.order.size * (1 + X.shape[1]) * 8
+    monkeypatch.setattr(cox_fit, "_SORTED_BUDGET", int(1.5 * one))
+    first = near_start(X, coef, full)
+    second = near_start(X, coef, full)
+    assert first is not None and second is not None
+    assert first.sorted_X1 is not None and second.sorted_X1 is None
+    assert full.kernel["replicate_scratch"]["held"] == one
+    a = refit_replicate(first, X, rows, drawn, with_loglik=True)
+    b = refit_replicate(second, X, rows, drawn, with_loglik=True)
+    assert a is not None and b is not None
+    np.testing.assert_array_equal(a[0], b[0])
+    assert a[1] == b[1]
+    del first
+    gc.collect()
+    assert full.kernel["replicate_scratch"]["held"] == 0
+    third = near_start(X, coef, full)
+    assert third is not None and third.sorted_X1 is not None
+
+
 def test_compiled_fit_never_builds_the_sparse_operators(
     monkeypatch: pytest.MonkeyPatch,
 ) -> None:

@@ -104,11 +104,18 @@ def test_derived_layout_is_the_drawn_rows_own(entry: bool, strata: bool, weights
         got = draw_layout(full, copies.astype(float), w, codes)
         assert got is not None
         _assert_same_layout(got, ref)
+        # each laid-out row's position among the full sample's laid-out rows, by definition
+        # (its drawn row's source row, found in the full layout's order)
+        rank = np.full(n, -1)
+        rank[full.order] = np.arange(full.order.size)
+        source, positions = got.kernel["drawn_from"]
+        assert source is full
+        np.testing.assert_array_equal(positions, rank[m[got.order]])
     if strata:
         assert draws[4][:3].sum() == 0
         # (the draw without the rare stratum)
-        ref = draw_layout(full, draws[4].astype(float), w, codes)
-        assert ref is not None and ref.n_strata == full.n_strata - 1
+        fewer = draw_layout(full, draws[4].astype(float), w, codes)
+        assert fewer is not None and fewer.n_strata == full.n_strata - 1
 
 
 def test_declines_what_it_cannot_derive() -> None:

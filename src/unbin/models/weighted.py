@@ -814,13 +814,27 @@ def cox_near_starts(outcome: Outcome, Xs: Sequence[np.ndarray],
         except ValueError:
             start = None
         # the design by a weak reference: the cache must not keep a table's designs alive
-        # once the table is done (a dead reference marks an id that may be reused)
+        # once the table is done, nor their starts (which hold the design's standardised
+        # copy on the compiled path): the entry goes when the design does
         try:
-            known[id(X)] = (weakref.ref(X), np.array(init, dtype=float), start)
+            known[id(X)] = (weakref.ref(X, _forget_start(known, id(X))),
+                            np.array(init, dtype=float), start)
         except TypeError:  # not an object a weak reference can follow: not kept
             pass
         out.append(start)
     return out
+
+
+def _forget_start(known: dict[int, Any], key: int) -> Callable[[weakref.ref[Any]], None]:
+    """The callback that drops ``known[key]`` when its design's weak reference dies (not an
+    entry made since for a new design under the same id)."""
+
+    def forget(ref: weakref.ref[Any]) -> None:
+        seen = known.get(key)
+        if seen is not None and seen[0] is ref:
+            del known[key]
+
+    return forget
 
 
 _NEAR_LAYOUT = "cox_near_layout"

@@ -14,7 +14,7 @@ __all__ = ["drawn_rows"]
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def drawn_rows(copies, first, b_idx, a_idx, seg_start, count, time_s, event_s, entry_s,
                code_s, recode, weights, out_order, out_time, out_event, out_entry, out_code,
-               out_w, out_b, out_a, out_lo):  # pragma: no cover
+               out_w, out_b, out_a, out_lo, out_src):  # pragma: no cover
     """Fill the ``out_*`` arrays with the replicate's rows and return (their number, the
     replicate's events). Inputs per laid-out row r of the full sample (all read in order):
     ``copies[r]``, ``first[r]`` (the position of its first copy among the drawn rows),
@@ -22,8 +22,9 @@ def drawn_rows(copies, first, b_idx, a_idx, seg_start, count, time_s, event_s, e
     ``time_s``, ``event_s``, ``entry_s``, ``code_s`` its values (``entry_s``/``code_s``
     empty: none); per full-sample event time k: ``seg_start[k]``, the first of its stratum,
     and ``count[k + 1]``, the replicate's event times up to k; ``recode`` maps the full
-    sample's stratum codes to the replicate's. A row at risk in the replicate at no event time
-    (b <= a) is left out, with its copies."""
+    sample's stratum codes to the replicate's; ``out_src`` receives each row's laid-out row r
+    of the full sample. A row at risk in the replicate at no event time (b <= a) is left out,
+    with its copies."""
     has_entry = entry_s.size > 0
     has_codes = code_s.size > 0
     has_w = weights.size > 0
@@ -57,5 +58,6 @@ def drawn_rows(copies, first, b_idx, a_idx, seg_start, count, time_s, event_s, e
             out_b[k] = b
             out_a[k] = a
             out_lo[k] = lo
+            out_src[k] = r
             k += 1
     return k, events

@@ -21,8 +21,8 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["GATHER_BLOCK", "column_sums", "gather_standardised", "positions",
-           "scatter_standardised"]
+__all__ = ["GATHER_BLOCK", "column_sums", "copy_standardised", "gather_standardised",
+           "positions", "scatter_standardised"]
 
 GATHER_BLOCK = 128  # rows whose cache lines are loaded before they are written
 
@@ -126,3 +126,30 @@ def gather_standardised(X1, src, idx, we, mean, inv, bounds, with_bounds, xwe): 
         for i in range(start, stop):
             _write_row(X1, i, src, idx[i], we[i], mean, inv, bounds, with_bounds, xwe)
     return touched
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def copy_standardised(X1, S, pos, we, bounds, xwe):  # pragma: no cover
+    """Row ``i`` of ``X1`` = row ``pos[i]`` of ``S`` (a standardised design, ones first, as
+    :func:`gather_standardised` writes it) for every i; ``xwe`` (p,) = the sum of ``we[i] x``
+    over them in row order and ``bounds`` (2, p) each column's largest and smallest value
+    written: :func:`gather_standardised`'s results from the rows it wrote once, bit for bit.
+    False (X1 partly written) at a negative position."""
+    p = X1.shape[1] - 1
+    for j in range(p):
+        xwe[j] = 0.0
+        bounds[0, j] = -np.inf
+        bounds[1, j] = np.inf
+    for i in range(pos.size):
+        s = pos[i]
+        if s < 0:
+            return False
+        X1[i, 0] = S[s, 0]
+        wi = we[i]
+        for j in range(1, p + 1):
+            x = S[s, j]
+            X1[i, j] = x
+            xwe[j - 1] += wi * x
+            bounds[0, j - 1] = max(bounds[0, j - 1], x)
+            bounds[1, j - 1] = min(bounds[1, j - 1], x)
+    return True

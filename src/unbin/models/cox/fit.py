@@ -4,6 +4,7 @@ its messages, ``fit_cox`` and ``refit_near``."""
 
 from __future__ import annotations
 
+import weakref
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
@@ -532,7 +533,7 @@ ScoreAt = Callable[[np.ndarray], tuple[float, np.ndarray]]
 def secant_refit(
     beta: np.ndarray, ll: float, score: np.ndarray, H: np.ndarray, score_at: ScoreAt,
     settled: Callable[[np.ndarray], bool], tol: float, max_iter: int,
-    trace: list[np.ndarray] | None = None,
+    trace: list[np.ndarray] | None = None, last: list[Any] | None = None,
 ) -> np.ndarray | None:
     """Quasi-Newton steps from ``beta`` (log partial likelihood ``ll``, score ``score``, an
     inverse information ``H``): each step is ``H @ score``; the step is taken, and returned as
@@ -542,7 +543,8 @@ def secant_refit(
     likelihood falls by more than ``tol * max(1, |ll|)`` or ``max_iter`` steps do not settle.
     The driver of the Cox engine's replicate refits and of the Fine–Gray model's
     (``unbin.models.fine_gray.fit_near``). ``trace`` (for tests) receives each point
-    evaluated and last the estimate returned."""
+    evaluated and last the estimate returned; ``last``, when given, receives the last point's
+    log partial likelihood, its score and the settling step taken from it."""
     for _ in range(max_iter):
         if trace is not None:
             trace.append(beta)
@@ -553,6 +555,8 @@ def secant_refit(
         if settled(step):
             if trace is not None:
                 trace.append(beta)
+            if last is not None:
+                last[:] = [ll, score, step]
             return beta
         ll_next, score_next = score_at(beta)
         if not np.isfinite(ll_next) or ll_next < ll - tol * max(1.0, abs(ll)):
@@ -589,24 +593,45 @@ def _near(
 def _near_steps(
     L: Layout, D: _Design, beta: np.ndarray, ll: float, score: np.ndarray, H: np.ndarray,
     scale: np.ndarray, efron: bool, tol: float, max_iter: int, with_loglik: bool,
-    limit: float, trace: list[np.ndarray] | None,
+    limit: float, trace: list[np.ndarray] | None, settled_loglik: bool = False,
 ) -> tuple[np.ndarray, float] | None:
     """The secant steps of a Cox refit on the standardised design ``D`` (``scale``: to map
-    back to X's), and the log partial likelihood at the estimate when ``with_loglik``."""
+    back to X's), and the log partial likelihood at the estimate when ``with_loglik``:
+    evaluated there, or (``settled_loglik``) from the last point evaluated, ``ll + g's / 2``
+    (g its score, s the settling step: the quadratic model's value at the estimate, exact for
+    a Newton step on a quadratic; see :func:`_settled_loglik`)."""
 
     def score_at(b: np.ndarray) -> tuple[float, np.ndarray]:
         got = _evaluate(L, D, b, efron, 1)
         return got[0], got[1]
 
     inner: list[np.ndarray] | None = [] if trace is not None else None
+    last: list[Any] = []
     end = secant_refit(beta, ll, score, H, score_at, lambda step: _settled(D, step, tol, limit), tol,
-                       max_iter, inner)
+                       max_iter, inner, last)
     if trace is not None and inner is not None:
         trace.extend(b / scale for b in inner)
     if end is None:
         return None
-    ll_end = _evaluate(L, D, end, efron, 0)[0] if with_loglik else float("nan")
+    if not with_loglik:
+        ll_end = float("nan")
+    elif settled_loglik:
+        ll_end = _settled_loglik(*last)
+    else:
+        ll_end = _evaluate(L, D, end, efron, 0)[0]
     return np.asarray(end / scale), float(ll_end)
+
+
+def _settled_loglik(ll: float, score: np.ndarray, step: np.ndarray) -> float:
+    """The log partial likelihood at ``beta + step`` from its value ``ll`` and ``score`` at
+    ``beta``, where ``step`` is the settling quasi-Newton step ``H score``: ``ll + score' step
+    / 2``. Its error is ``step' (H^-1 - I) step / 2`` plus third-order terms (I the
+    information): the step changes no row's linear predictor by more than the stop's bound
+    (3e-8 for the replicate refits at tol 1e-9), so ``step' I step``, at most the events'
+    summed squared changes, is below 1e-9 for a million events, and the error a fraction of
+    that, where an evaluation at the estimate (a pass over the design) carries the rounding
+    of a sum of a million terms (a log-likelihood of 5e6 is spaced 9e-10 apart)."""
+    return float(ll + 0.5 * float(score @ step))
 
 
 # The replicate refits stop once the next step would change no row's linear predictor by more
@@ -638,6 +663,13 @@ class NearStart:
     efron: bool
     # what the batched refits (``replicates.refit_replicates``) derive from the design once
     memo: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+    # the compiled path's standardised design of the full sample in its layout's order, ones
+    # first (``_replicate_design`` copies a replicate's rows from it, a near-sequential read),
+    # each full-sample row's position in it (-1: not laid out) and the scratch shared by the
+    # starts of one layout (``_sorted_replicate_design``); None on the numpy path
+    sorted_X1: np.ndarray | None = field(default=None, compare=False, repr=False)
+    rank: np.ndarray | None = field(default=None, compare=False, repr=False)
+    scratch: dict[str, Any] | None = field(default=None, compare=False, repr=False)
 
 
 def near_start(
@@ -662,8 +694,39 @@ def near_start(
     D = _replicate_design(Xa, None, L, mean, 1.0 / scale)[0]
     ll, _, info = _evaluate(L, D, beta, efron)
     H = inverse_information(info) if np.isfinite(ll) else None
+    # the sorted design kept for the replicates' copies: on the compiled path, while the
+    # copies a sample's starts hold stay within _SORTED_BUDGET bytes (beyond, a start's
+    # replicates gather their design from X as before)
+    scratch: dict[str, Any] = L.kernel.setdefault("replicate_scratch", {"held": 0})
+    kept = D.compiled and scratch["held"] + D.X1.nbytes <= _SORTED_BUDGET
+    if kept:
+        scratch["held"] += D.X1.nbytes
+        weakref.finalize(D.X1, _release, scratch, D.X1.nbytes)
     return NearStart(Xa.shape[0], mean, scale, beta, None if H is None else H * _event_weight(L),
-                     efron)
+                     efron, sorted_X1=D.X1 if kept else None,
+                     rank=_layout_rank(L) if kept else None, scratch=scratch if kept else None)
+
+
+# Bytes of sorted designs (``NearStart.sorted_X1``) the starts of one sample may hold at once:
+# 1,000,000 rows x (1 + 6) columns take 56 MB, so the 8 designs of an information bootstrap
+# fit; a table with more or wider designs gathers the rest from X.
+_SORTED_BUDGET = 512 * 2**20
+
+
+def _release(scratch: dict[str, Any], nbytes: int) -> None:
+    """A kept sorted design is gone: its bytes no longer count against the budget."""
+    scratch["held"] -= nbytes
+
+
+def _layout_rank(L: Layout) -> np.ndarray:
+    """Each of the sample's rows' position in ``L``'s order, -1 for a row not laid out (made
+    once per layout, kept in ``L.kernel``)."""
+    got = L.kernel.get("rank")
+    if got is None:
+        got = L.kernel["rank"] = np.full(L.n, -1, dtype=np.int64)
+        got[L.order] = np.arange(L.order.size)
+    rank: np.ndarray = got
+    return rank
 
 
 def _event_weight(L: Layout) -> float:
@@ -687,6 +750,50 @@ def _replicate_design(
                                             mean, inv, bounds, True, xwe)
     else:
         xwe = _write_standardised(X1, Xa, idx, mean, inv, L.we, bounds)
+    reach = np.maximum(bounds[0], -bounds[1])
+    return _Design.of(X1, L.we, reach, xwe), bounds
+
+
+def _sorted_replicate_design(
+    start: NearStart, rows: np.ndarray, L: Layout
+) -> tuple[_Design, np.ndarray] | None:
+    """:func:`_replicate_design` of the drawn rows ``rows`` laid out in ``L``, copied from the
+    full sample's standardised design in its layout's order (``start.sorted_X1``): the same
+    values, events' summed ``w x`` (in ``L``'s order) and column bounds, bit for bit. A
+    replicate's rows in its layout's order are the full sample's laid-out rows, each repeated
+    as drawn (``layout.draw_layout``), so the copy reads the full design nearly in order where
+    the gather from X read a random row per row. The rows are written into ``start.scratch``,
+    shared by the starts of one layout and reused from refit to refit (a fresh array of that
+    size costs a page fault per 4 KiB): the design is valid until the next call, which
+    :func:`refit_replicate`, its only user, never outlives. None on the numpy path or where a
+    drawn row is not laid out in the full sample (the caller then gathers from X)."""
+    S, rank, scratch = start.sorted_X1, start.rank, start.scratch
+    if S is None or rank is None or scratch is None or not compiled.wanted(
+            L.order.size, EVALUATION_FROM_ROWS):
+        return None
+    from ..compiled import cox_standardise
+
+    # the full layout's position of each laid-out row's source row: kept by draw_layout
+    # when it derived L from the full layout, else found once per replicate
+    drawn = L.kernel.get("drawn_from")
+    seen = L.kernel.get("drawn_positions")
+    if drawn is not None and drawn[0].kernel.get("rank") is rank:
+        pos = drawn[1]
+    elif seen is not None and seen[0] is rows and seen[1] is rank:
+        pos = seen[2]
+    else:
+        pos = rank[rows[L.order]]
+        L.kernel["drawn_positions"] = (rows, rank, pos)
+    m, q = L.order.size, S.shape[1]
+    buf = scratch.get("X1")
+    if buf is None or buf.size < m * q:
+        scratch.pop("X1", None)  # (released before the larger one is taken)
+        buf = scratch["X1"] = np.empty(max(m, start.n + 1) * q)
+    X1 = buf[: m * q].reshape(m, q)
+    bounds = np.empty((2, q - 1))
+    xwe = np.empty(q - 1)
+    if not cox_standardise.copy_standardised(X1, S, pos, L.we, bounds, xwe):
+        return None
     reach = np.maximum(bounds[0], -bounds[1])
     return _Design.of(X1, L.we, reach, xwe), bounds
 
@@ -716,7 +823,9 @@ def refit_replicate(
     if L.events == 0:
         return None
     inv = 1.0 / start.scale
-    D, bounds = _replicate_design(Xa, rows, L, start.mean, inv)
+    copied = _sorted_replicate_design(start, rows, L)
+    D, bounds = copied if copied is not None else _replicate_design(Xa, rows, L, start.mean,
+                                                                    inv)
     # a column constant among the replicate's rows (as fit_cox's test, on the standardised
     # scale) makes its information singular
     top = np.maximum(np.abs(bounds[0]), np.abs(bounds[1])) + np.abs(start.mean) * inv
@@ -733,4 +842,4 @@ def refit_replicate(
     if not (np.isfinite(ll) and np.isfinite(score).all()):
         return None
     return _near_steps(L, D, start.beta, ll, score, H, start.scale, start.efron, tol, max_iter,
-                       with_loglik, _REPLICATE_SETTLE * tol, None)
+                       with_loglik, _REPLICATE_SETTLE * tol, None, settled_loglik=True)

@@ -531,15 +531,20 @@ def draw_layout(
         rows = _drawn_rows_compiled(full, copies, first, count, recode, w, N)
     else:
         rows = _drawn_rows(full, copies, first, count, recode, w)
-    order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, events = rows
-    return _assemble(N, order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, full.k_time[has],
-                     k_stratum, labels, n_strata, events)
+    order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, events, src = rows
+    out = _assemble(N, order, t_s, e_s, sc_s, en_s, w_s, b, a, lo, full.k_time[has],
+                    k_stratum, labels, n_strata, events)
+    if src.size == out.order.size:  # (every drawn row is kept: _assemble drops none)
+        # each laid-out row's position in the full layout, for the replicate refits' design
+        # (``fit._sorted_replicate_design``)
+        out.kernel["drawn_from"] = (full, src)
+    return out
 
 
 DRAW_FROM_ROWS = 20_000  # drawn rows from which draw_layout's rows come from one compiled pass
 
 _DrawnRows = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None,
-                   np.ndarray | None, np.ndarray, np.ndarray, np.ndarray, int]
+                   np.ndarray | None, np.ndarray, np.ndarray, np.ndarray, int, np.ndarray]
 
 
 def _drawn_rows(
@@ -548,7 +553,8 @@ def _drawn_rows(
 ) -> _DrawnRows:
     """:func:`draw_layout`'s replicate rows in (stratum, time) order, by numpy passes: their
     positions among the drawn rows, time, event, stratum code, entry, weight, event-time
-    indices b, a and lo, and the replicate's number of events."""
+    indices b, a and lo, the replicate's number of events and each row's position among the
+    full sample's laid-out rows."""
     c_k = copies[full.order]  # copies of each of the full sample's kept rows
     b_full = full.b_idx - 1
     lo_full = full.seg_start[b_full]
@@ -570,7 +576,8 @@ def _drawn_rows(
     w_s = None if w is None else w[full.order[rep]]
     events = int(np.dot(c_k, full.event_s))
     return (order, full.time_s[rep], full.event_s[rep], sc_s,
-            None if full.entry_s is None else full.entry_s[rep], w_s, b[rep], a[rep], lo, events)
+            None if full.entry_s is None else full.entry_s[rep], w_s, b[rep], a[rep], lo, events,
+            rep)
 
 
 def _drawn_rows_compiled(
@@ -586,14 +593,14 @@ def _drawn_rows_compiled(
     en_s = none_f if full.entry_s is None else np.empty(N)
     sc_s = none_i if recode is None else np.empty(N, dtype=np.int64)
     w_s = none_f if w is None else np.empty(N)
-    b, a, lo = (np.empty(N, dtype=np.int64) for _ in range(3))
+    b, a, lo, src = (np.empty(N, dtype=np.int64) for _ in range(4))
     # the draws of the laid-out rows gathered first (independent loads), then read in order
     m, events = cox_draw.drawn_rows(
         copies[full.order], first[full.order], full.b_idx, full.a_idx, full.seg_start, count, full.time_s,
         full.event_s, none_f if full.entry_s is None else full.entry_s,
         none_i if recode is None or full.code_s is None else full.code_s,
         none_i if recode is None else recode, none_f if w is None else w[full.order],
-        order, t_s, e_s, en_s, sc_s, w_s, b, a, lo)
+        order, t_s, e_s, en_s, sc_s, w_s, b, a, lo, src)
     return (order[:m], t_s[:m], e_s[:m], None if recode is None else sc_s[:m],
             None if full.entry_s is None else en_s[:m], None if w is None else w_s[:m],
-            b[:m], a[:m], lo[:m], int(events))
+            b[:m], a[:m], lo[:m], int(events), src[:m])
