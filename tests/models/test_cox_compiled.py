@@ -355,7 +355,7 @@ def test_replicate_refit_copies_the_sorted_full_design(
 
 def test_sorted_designs_held_within_the_budget(monkeypatch: pytest.MonkeyPatch) -> None:
     # source: the gather from X (the path a start without a sorted design keeps), bit for
-    # bit. A sample's starts hold sorted designs up to fit._SORTED_BUDGET bytes; a start
+    # bit. A sample's starts hold sorted designs up to fit.SORTED_BUDGET bytes; a start
     # beyond it has none and its replicates gather; a start's bytes are released with it
     import gc
 
@@ -368,7 +368,7 @@ def test_sorted_designs_held_within_the_budget(monkeypatch: pytest.MonkeyPatch) 
     full, rows, drawn = _drawn_replicate(c, None, 5)
     coef = fit_cox(X, c["time"], c["event"], entry=c["entry"], strata=c["strata"]).coef
     one = full.order.size * (1 + X.shape[1]) * 8
-    monkeypatch.setattr(cox_fit, "_SORTED_BUDGET", int(1.5 * one))
+    monkeypatch.setattr(cox_fit, "SORTED_BUDGET", int(1.5 * one))
     first = near_start(X, coef, full)
     second = near_start(X, coef, full)
     assert first is not None and second is not None

@@ -72,7 +72,7 @@ def test_request_grows_with_rows_sets_and_attempts() -> None:
     # rows a logistic fit 7,267 MB, the linear resampling 6,920 MB (freed memory kept), a Cox
     # resampling job 5,780 MB
     assert job_memory_mb("fit", 1_000_000, "survival") > 981
-    assert job_memory_mb("resample", 1_000_000, "survival") > 1_510
+    assert job_memory_mb("resample", 1_000_000, "survival") > 1_903  # with sorted designs
     assert job_memory_mb("resample", 1_000_000, "binary") > 1_089
     assert job_memory_mb("resample", 1_000_000, "continuous") > 924
     assert job_memory_mb("fit", 10_000_000, "binary") > 7_267

@@ -7,14 +7,17 @@ single jobs at 10,000,000 rows with ``benchmarks/job_memory.py``):
 
 - fit jobs at 1,000,000 rows: 716–981 MB (every family; the Cox with strata and delayed entry
   the largest); a logistic fit at 10,000,000 rows: 7,267 MB (an older release);
-- resampling at 1,000,000 rows: Cox 823–1,510 MB, logistic and Poisson 931–1,089 MB, linear
+- resampling at 1,000,000 rows (before the sorted designs below): Cox 823–1,510 MB, logistic and Poisson 931–1,089 MB, linear
   689–924 MB; at 10,000,000 rows the linear ldl_bmi job 6,100 MB (6,920 MB with
   :func:`keep_freed_memory`), where the line through its 1,000,000-row peak and 350 MB at no
   rows predicts 6,090 MB, and the Cox death_age job 5,780 MB.
 
 So a job is taken to hold ``BASE_MB`` (the interpreter, pandas, pyarrow, the compiled kernels and
 the extract's reading) plus a family's megabytes per million rows (``PER_MILLION_ROWS_MB``: the
-largest slope seen for the job and family). Imputed analyses (M sets) held 2.0–2.4 times the
+largest slope seen for the job and family). A survival resampling job also holds the sorted
+designs its bootstrap refits copy from, at most ``models.cox.fit.SORTED_BUDGET`` (512 MB) per
+sample: with them death_sbp's job peaked at 1,660 MB and death_egfr's at 1,903 MB at 1,000,000
+rows (1,167 and 1,510 MB without). Imputed analyses (M sets) held 2.0–2.4 times the
 complete-case part at M = 5, so each further set adds ``FURTHER_SET_SHARE`` of it. The request
 is that line times ``MARGIN``, never below the 1,000 MB the workflow asked for before this
 estimate, and doubled, tripled… on a retry (``attempt``), as Snakemake's retries expect.
@@ -39,6 +42,9 @@ PER_MILLION_ROWS_MB = {
     "fit": {"survival": 700.0, "binary": 700.0, "count": 700.0, "continuous": 700.0},
     "resample": {"survival": 1200.0, "binary": 750.0, "count": 750.0, "continuous": 600.0},
 }
+# the sorted designs of a survival resampling job: 8 designs of 1 + 6 columns of float64 and
+# their rows' positions at 1,000,000 rows, up to the cap
+SORTED_SHARE_MB_PER_MILLION = 500.0
 FURTHER_SET_SHARE = 0.35
 MARGIN = 1.2
 FLOOR_MB = 1000
@@ -57,7 +63,12 @@ def job_memory_mb(job: str, rows: int, family: str = "binary", imputations: int 
                          "be at least 0, imputations and attempt at least 1")
     slope = PER_MILLION_ROWS_MB[job].get(family, PER_MILLION_ROWS_MB[job]["binary"])
     per_row = slope * (1.0 + FURTHER_SET_SHARE * (imputations - 1)) / 1e6
-    estimate = MARGIN * (BASE_MB + per_row * rows)
+    held = 0.0
+    if job == "resample" and family == "survival":
+        from ..models.cox.fit import SORTED_BUDGET
+
+        held = min(SORTED_BUDGET / 2**20, SORTED_SHARE_MB_PER_MILLION * rows / 1e6)
+    estimate = MARGIN * (BASE_MB + held + per_row * rows)
     return int(math.ceil(max(FLOOR_MB, estimate))) * attempt
 
 

@@ -695,10 +695,10 @@ def near_start(
     ll, _, info = _evaluate(L, D, beta, efron)
     H = inverse_information(info) if np.isfinite(ll) else None
     # the sorted design kept for the replicates' copies: on the compiled path, while the
-    # copies a sample's starts hold stay within _SORTED_BUDGET bytes (beyond, a start's
+    # copies a sample's starts hold stay within SORTED_BUDGET bytes (beyond, a start's
     # replicates gather their design from X as before)
     scratch: dict[str, Any] = L.kernel.setdefault("replicate_scratch", {"held": 0})
-    kept = D.compiled and scratch["held"] + D.X1.nbytes <= _SORTED_BUDGET
+    kept = D.compiled and scratch["held"] + D.X1.nbytes <= SORTED_BUDGET
     if kept:
         scratch["held"] += D.X1.nbytes
         weakref.finalize(D.X1, _release, scratch, D.X1.nbytes)
@@ -710,7 +710,7 @@ def near_start(
 # Bytes of sorted designs (``NearStart.sorted_X1``) the starts of one sample may hold at once:
 # 1,000,000 rows x (1 + 6) columns take 56 MB, so the 8 designs of an information bootstrap
 # fit; a table with more or wider designs gathers the rest from X.
-_SORTED_BUDGET = 512 * 2**20
+SORTED_BUDGET = 512 * 2**20
 
 
 def _release(scratch: dict[str, Any], nbytes: int) -> None:
