@@ -10,7 +10,7 @@ rule fit_analysis:
         basis=lambda w: f"common/{w.analysis}.json" if UNBIN_DERIVED_BASIS[w.analysis] else [],
     output:
         expand("work/{{cohort}}/{{analysis}}/{table}.parquet", table=FIT_JOB_TABLES),
-        handover="work/{cohort}/{analysis}/" + HANDOVER,
+        handover=f"work/{{cohort}}/{{analysis}}/{HANDOVER}",
     log:
         "logs/fit/{cohort}/{analysis}.log",
     benchmark:
