@@ -13,7 +13,9 @@ program that the C library has not handed back to the system.
     python benchmarks/job_memory.py --fit /tmp/reg1m/spec.yaml registry death_egfr /tmp/out
 
 (the spec and extract of any run work; the tables are written to the last argument's folder
-as the job writes them). Linux only (/proc).
+as the job writes them; an imputed analysis' resampling job reads what its fit job handed
+over when that folder holds it, as in the workflow, else imputes and refits again). Linux
+only (/proc).
 """
 
 from __future__ import annotations
@@ -120,8 +122,12 @@ def main() -> None:
         setattr(refit_module, name, measured(name, getattr(refit_module, name)))
     jobs._builder = builder
     cpu = time.process_time()
-    job = jobs.fit_analysis if args.fit else jobs.resample_analysis
-    job(args.spec, args.cohort, args.analysis, args.out)
+    if args.fit:
+        jobs.fit_analysis(args.spec, args.cohort, args.analysis, args.out)
+    else:  # an imputed analysis reads what its fit job (--fit, same OUT) handed over
+        handover = os.path.join(args.out, jobs.HANDOVER)
+        jobs.resample_analysis(args.spec, args.cohort, args.analysis, args.out,
+                               handover=handover if os.path.isfile(handover) else None)
     sampler.stop = True
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"job: {time.process_time() - cpu:.1f} s CPU, largest RSS {peak:.0f} MB")

@@ -10,11 +10,14 @@ On a loaded machine ``s`` is inflated: estimate from a run on an idle machine, o
 
 The dependencies are those of ``src/unbin/workflow/rules/*.smk`` (kept in step with them by
 hand): fits wait for the common bases (which wait for every cohort's summaries, when the run
-has them), a cohort's bundle for its fit and resampling jobs, pooling for the bundles,
-collecting for every fit and resampling job, the figures for the collected tables (the study's
-figures for pooling too), the report for every figure. When a core is free, the ready job that
-became ready first starts (Snakemake's order among ready jobs is its scheduler's; with
-priorities left at 0 a list schedule is what it does up to that order). Printed: the estimate
+has them), an imputed analysis' resampling job for its fit job (the handover), a cohort's
+bundle for its fit and resampling jobs, pooling for the bundles, collecting for every fit and
+resampling job, the figures for the collected tables (the study's figures for pooling too),
+the report for every figure. The imputed analyses are read from the run's spec (``run.json``),
+or named with ``--imputed``. When a core is free, the ready job of the highest priority starts
+(the fits of imputed analyses have priority 1, every other job 0, as in ``fit.smk``), among
+equals the one that became ready first (Snakemake's order among those is its scheduler's; a
+list schedule is what it does up to that order). Printed: the estimate
 (``--startup`` seconds before the first job, measured from the run's log, plus the schedule
 plus ``--gap`` seconds per job for starting it), the jobs' summed time, that sum over the cores
 (the bound no schedule beats) and the core-seconds left idle, most of them in the last steps.
@@ -24,6 +27,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+import json
 from pathlib import Path
 
 STUDY_LEVEL = ("common_basis", "collect_tables", "pool_bundles", "draw_study_figures",
@@ -40,7 +44,23 @@ def job_times(run: Path) -> dict[str, float]:
     return out
 
 
-def dependencies(jobs: list[str]) -> dict[str, list[str]]:
+def imputed_analyses(run: Path) -> set[str]:
+    """The analyses of the run's spec (``run.json``) that impute their missing values."""
+    record = run / "run.json"
+    if not record.is_file():
+        return set()
+    spec_path = json.loads(record.read_text()).get("spec")
+    if not spec_path or not Path(spec_path).is_file():
+        return set()
+    from unbin.spec import load_spec
+    from unbin.spec.missing import missing_options
+
+    spec = load_spec(spec_path)
+    return {a.name for a in spec.analyses if missing_options(spec, a.name).imputed}
+
+
+def dependencies(jobs: list[str], imputed: set[str] | frozenset[str] = frozenset()
+                 ) -> dict[str, list[str]]:
     by_rule: dict[str, list[str]] = {}
     for j in jobs:
         by_rule.setdefault(j.split("/")[0], []).append(j)
@@ -69,21 +89,30 @@ def dependencies(jobs: list[str]) -> dict[str, list[str]]:
             deps[j] = of("collect_tables") + of("pool_bundles")
         elif rule == "build_report":
             deps[j] = of("draw_figures") + of("draw_study_figures") + of("pool_bundles")
-        else:  # summarise_sample, resample_analysis: the extract only
+        elif rule == "resample_analysis" and wild[-1] in imputed:  # the fit's handover
+            deps[j] = [f"fit_analysis/{'/'.join(wild)}"]
+        else:  # summarise_sample, a complete-case resample_analysis: the extract only
             deps[j] = []
     return deps
 
 
-def schedule(times: dict[str, float], cores: int, gap: float) -> tuple[float, dict[str, float]]:
+def priority(job: str, imputed: set[str] | frozenset[str]) -> int:
+    rule, *wild = job.split("/")
+    return 1 if rule == "fit_analysis" and wild and wild[-1] in imputed else 0
+
+
+def schedule(times: dict[str, float], cores: int, gap: float,
+             imputed: set[str] | frozenset[str] = frozenset()) -> tuple[float, dict[str, float]]:
     """Makespan and each job's end of the list schedule."""
-    deps = dependencies(list(times))
+    deps = dependencies(list(times), imputed)
     ends: dict[str, float] = {}
     running: list[tuple[float, str]] = []
     started: set[str] = set()
     now = 0.0
     while len(ends) < len(times):
         ready = [j for j in times if j not in started and all(d in ends for d in deps[j])]
-        ready.sort(key=lambda j: max((ends[d] for d in deps[j]), default=0.0))
+        ready.sort(key=lambda j: (-priority(j, imputed),
+                                  max((ends[d] for d in deps[j]), default=0.0)))
         while ready and len(running) < cores:
             j = ready.pop(0)
             started.add(j)
@@ -105,12 +134,16 @@ def main(argv: list[str] | None = None) -> int:
                     "on an idle machine: 81.0 s estimated, 81.1 s measured, --startup 2.6)")
     ap.add_argument("--scale", action="append", default=[], metavar="RULE=FACTOR",
                     help="multiply a rule's job times (what-if), e.g. draw_figures=0.7")
+    ap.add_argument("--imputed", default=None, metavar="A,B",
+                    help="the imputed analyses (default: those of the run's spec, run.json)")
     args = ap.parse_args(argv)
     times = job_times(args.run)
+    imputed = (imputed_analyses(args.run) if args.imputed is None
+               else {a for a in args.imputed.split(",") if a})
     for item in args.scale:
         rule, factor = item.split("=")
         times = {j: t * float(factor) if j.split("/")[0] == rule else t for j, t in times.items()}
-    makespan, _ = schedule(times, args.cores, args.gap)
+    makespan, _ = schedule(times, args.cores, args.gap, imputed)
     total = sum(times.values())
     busy = total + args.gap * len(times)
     print(f"{len(times)} jobs, summed time {total:.1f} s; on {args.cores} cores at best "

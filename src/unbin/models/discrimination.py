@@ -23,20 +23,24 @@ from collections.abc import Iterable
 
 import numpy as np
 
-from ..distributions import stats
 from .base import Outcome
 from .compiled import wanted
 from .radix import stable_order
 
 
 def auc(y: np.ndarray, score: np.ndarray) -> float:
-    """Area under the ROC curve by the Mann–Whitney rank formula (ties count one half)."""
+    """Area under the ROC curve: the Mann–Whitney count of (event, non-event) pairs in which
+    the event scores higher, ties one half, over n1 n0 (NaN without events or non-events, or
+    with a NaN score). Counted by :func:`count_aucs` (the scores ordered once by a radix
+    sort, whole-number counts): the value of the rank formula (the events' midranks summed,
+    less n1 (n1 + 1) / 2) bit for bit, as both numerators are the same whole or half number,
+    exact in float64, divided by the same n1 n0."""
     y = np.asarray(y, dtype=bool)
     n1, n0 = int(y.sum()), int((~y).sum())
     if n1 == 0 or n0 == 0:
         return float("nan")
-    ranks = stats.rankdata(score)
-    return float((ranks[y].sum() - n1 * (n1 + 1) / 2) / (n1 * n0))
+    got = count_aucs(y, score, [None])
+    return float("nan") if got is None else got[0]
 
 
 def count_aucs(y: np.ndarray, score: np.ndarray,

@@ -27,8 +27,10 @@ weights or a cluster), and the interaction test by D2.
 from __future__ import annotations
 
 import logging
+import pickle
 import traceback
 from dataclasses import replace
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -43,6 +45,7 @@ from ..models.percentile_limits import percentile_limits
 from ..spec import Analysis, Spec
 from ..spec.missing import MissingOptions, missing_options
 from ..terms.roles import variable_role
+from .jobs import HANDED_TABLES
 
 log = logging.getLogger("unbin")
 
@@ -427,13 +430,17 @@ def combine_replication(tables: list[pd.DataFrame]) -> tuple[pd.DataFrame, str]:
 
 def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
                     basis: CommonBasis | None = None, opts: MissingOptions | None = None,
-                    resampling: bool = False, questions: tuple[str, ...] | None = None
+                    resampling: bool = False, questions: tuple[str, ...] | None = None,
+                    handover: dict[str, Any] | None = None
                     ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
     """Every fit-job table of one analysis under multiple imputation, and its status record
     (problems recorded, never raised, as in :func:`unbin.pipeline.jobs.analyse`); with
     ``resampling`` also the resampling tables (:func:`imputed_resampling`); ``questions``:
-    only these fit-job tables (default all; the resampling job needs only the ones whose
-    numbers its tables repeat, :data:`RESAMPLING_READS`)."""
+    only these fit-job tables (default all; a resampling job without the fit job's handover
+    needs only the ones whose numbers its tables repeat, :data:`RESAMPLING_READS`). A
+    ``handover`` dict is filled with what the resampling job needs from this analysis
+    (:func:`handover_state`) once its tables are combined; it stays empty when the analysis
+    stopped."""
     from ..refit.analysis import refit_analysis
 
     a = spec.analysis(analysis)
@@ -489,6 +496,8 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
             tables.update(imputed_resampling(spec, cohort, a, frame, samples_m, first, common,
                                              tables.get("information"),
                                              tables.get("thresholds")))
+        if handover is not None:
+            handover.update(handover_state(sample, sets, first, common))
         if partial:
             status["status"] = "partial"
         status["message"] = " | ".join(dict.fromkeys(notes))
@@ -497,6 +506,8 @@ def analyse_imputed(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
 
         status.update(failure_status(exc, f"{cohort}/{analysis}"))
         tables = {}
+        if handover is not None:
+            handover.clear()
     tables["samples"] = samples
     tables["status"] = pd.DataFrame([status])
     return tables, status
@@ -798,8 +809,9 @@ def _median_profile_crossings(thresholds: pd.DataFrame | None) -> pd.DataFrame |
                       & (thresholds["level"] == "all")]
 
 
-# the fit-job tables whose combined numbers the pooled resampling tables repeat
-RESAMPLING_READS = ("information", "thresholds")
+# the fit-job tables whose combined numbers the pooled resampling tables repeat (the
+# workflow's resampling job reads them from the fit job)
+RESAMPLING_READS = HANDED_TABLES
 
 
 def resampling_tables(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
@@ -812,6 +824,111 @@ def resampling_tables(spec: Spec, cohort: str, analysis: str, frame: pd.DataFram
     tables, _ = analyse_imputed(spec, cohort, analysis, frame, basis, resampling=True,
                                 questions=RESAMPLING_READS)
     return {n: tables[n] for n in RESAMPLING_TABLES if n in tables}
+
+
+# What an imputed analysis' fit job hands its resampling job (``jobs.HANDOVER``): this layout.
+HANDOVER_FORMAT = 1
+
+
+def handover_state(sample: Sample, sets: list[pd.DataFrame], first: FitsOnly,
+                   basis: CommonBasis | None) -> dict[str, Any]:
+    """What the resampling job of an imputed analysis needs from its fit job, so that it
+    neither imputes nor refits again: the values imputation put in each imputed set, per
+    column the cells missing in the analysis sample (in row order; the column's type after
+    filling, which :func:`restored_sets` checks), the first set's fits with the terms every
+    set keeps (without the per-row linear predictors, as :class:`FitsOnly` holds them, and
+    without the fitters' extras), its messages and legacy grouping, and the common basis."""
+    filled: dict[str, tuple[list[np.ndarray], list[str]]] = {}
+    for c in sample.frame.columns:
+        miss = sample.frame[c].isna().to_numpy()
+        if miss.any() and not sets[0][c].isna().to_numpy()[miss].any():
+            filled[c] = ([s[c].to_numpy()[miss] for s in sets], [str(s[c].dtype) for s in sets])
+    light = FitsOnly([replace(f, result=replace(f.result, extra={})) for f in first.fits],
+                     first.messages, first.legacy)
+    return {"rows": sample.n, "imputations": len(sets), "filled": filled, "first": light,
+            "basis": basis}
+
+
+def restored_sets(sample: Sample, state: dict[str, Any]) -> list[Sample]:
+    """The imputed sets of :func:`handover_state` rebuilt on the analysis sample (the same
+    frames imputation gave: each column's missing cells set to the values it drew). A
+    ValueError when they do not fit the sample (another extract or spec)."""
+    if state["rows"] != sample.n:
+        raise ValueError(f"the fit job's imputed sets have {state['rows']} rows, the sample "
+                         f"{sample.n}")
+    out = []
+    for m in range(state["imputations"]):
+        cur = sample.frame.copy()
+        for c, (values, types) in state["filled"].items():
+            miss = cur[c].isna().to_numpy() if c in cur else np.zeros(0, dtype=bool)
+            if c not in cur or int(miss.sum()) != len(values[m]):
+                raise ValueError(f"column {c!r}: the fit job imputed other cells")
+            cur.loc[miss, c] = values[m]
+            if str(cur[c].dtype) != types[m]:
+                raise ValueError(f"column {c!r} restored as {cur[c].dtype}, imputed as "
+                                 f"{types[m]}")
+        out.append(Sample(cur, sample.n_input, sample.dropped))
+    return out
+
+
+def save_handover(path: str | Path, state: dict[str, Any]) -> None:
+    """``state`` (empty: nothing to hand over; complete cases, or the analysis stopped) to
+    ``path``, written whole or not at all. A pickle: the file passes between two jobs of one
+    run of one unbin version (the rerun digests hold the version) and is read by no one else."""
+    from .. import __version__
+
+    path = Path(path)
+    tmp = path.with_name(f".{path.name}.tmp")
+    with open(tmp, "wb") as fh:
+        pickle.dump({"format": HANDOVER_FORMAT, "unbin": __version__, "state": state}, fh,
+                    protocol=pickle.HIGHEST_PROTOCOL)
+    tmp.replace(path)
+
+
+def load_handover(path: str | Path) -> dict[str, Any] | None:
+    """The state :func:`save_handover` wrote, or None when another layout or unbin version
+    wrote the file."""
+    from .. import __version__
+
+    with open(path, "rb") as fh:
+        saved = pickle.load(fh)  # noqa: S301 - this run's own fit job wrote it
+    if saved.get("format") != HANDOVER_FORMAT or saved.get("unbin") != __version__:
+        return None
+    state: dict[str, Any] = saved["state"]
+    return state
+
+
+def resampling_from_fit(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
+                        handover: str | Path) -> dict[str, pd.DataFrame]:
+    """The resampling tables of an imputed analysis from what its fit job handed over (the
+    workflow's resampling job): the imputed sets rebuilt from the values the fit job drew,
+    the first set's choices, and the combined ``information`` and ``thresholds`` tables the
+    fit job wrote beside ``handover``; then :func:`imputed_resampling`, as
+    :func:`resampling_tables` does after imputing and refitting every set again. No tables
+    when the fit job stopped before combining the sets (its status says why); the whole
+    computation again (:func:`resampling_tables`) when the handover does not fit."""
+    from ..questions import KEY_COLUMNS
+    from ..results.tables import read_table
+
+    state = load_handover(handover)
+    if state is not None and not state:
+        return {}
+    a = spec.analysis(analysis)
+    try:
+        if state is None:
+            raise ValueError("written by another unbin version")
+        sample, _ = incomplete_sample(frame, a, spec)
+        samples_m = restored_sets(sample, state)
+    except (ValueError, UnbinError) as exc:
+        log.warning("%s/%s: the fit job's imputed sets cannot be used (%s); imputing and "
+                    "refitting them again", cohort, analysis, exc)
+        return resampling_tables(spec, cohort, analysis, frame)
+    folder = Path(handover).parent
+    read = {n: read_table(folder / f"{n}.parquet").drop(columns=list(KEY_COLUMNS),
+                                                         errors="ignore")
+            for n in RESAMPLING_READS}
+    return imputed_resampling(spec, cohort, a, frame, samples_m, state["first"], state["basis"],
+                              read["information"], read["thresholds"])
 
 
 COMPLETE_CASES = ("complete cases: the rows with a missing value are left out of this table "

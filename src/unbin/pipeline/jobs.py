@@ -62,6 +62,11 @@ def _builder(target: str) -> Callable[[Refit, Spec], pd.DataFrame]:
 log = logging.getLogger("unbin")
 
 FIT_JOB_TABLES: tuple[str, ...] = (*QUESTION_TABLES, "samples", "missingness", "status")
+# What a fit job hands its analysis' resampling job besides its tables: under multiple
+# imputation the imputed sets and the first set's choices (``pipeline.imputed.handover_state``;
+# empty for complete cases). An imputed analysis' resampling job reads it and HANDED_TABLES.
+HANDOVER = "handover.pkl"
+HANDED_TABLES = ("information", "thresholds")
 JOB_TABLES: tuple[str, ...] = (*FIT_JOB_TABLES, *RESAMPLING_TABLES)
 STUDY_TABLES = JOB_TABLES
 
@@ -150,17 +155,19 @@ def analyse(spec: Spec, cohort: str, analysis: str, frame: pd.DataFrame,
 
 
 def _analyse_extract(spec: Spec, cohort: str, analysis: str, extract: list[pd.DataFrame],
-                     basis: CommonBasis | None, resampling: bool
+                     basis: CommonBasis | None, resampling: bool,
+                     handover: dict[str, Any] | None = None
                      ) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
     """:func:`analyse` of the frame in ``extract`` (a list of one), which is taken out of the
     list once the analysis sample and the missingness table are built: when the caller keeps
-    no other reference (``fit_analysis``), the extract's rows are freed before the fits."""
+    no other reference (``fit_analysis``), the extract's rows are freed before the fits. An
+    imputed analysis fills ``handover`` (see :data:`HANDOVER`)."""
     a = spec.analysis(analysis)
     if missing_options(spec, analysis).imputed:  # multiple imputation: its own module
         from .imputed import analyse_imputed
 
         return analyse_imputed(spec, cohort, analysis, extract.pop(), basis,
-                               resampling=resampling)
+                               resampling=resampling, handover=handover)
     frame = extract[0]
     status: dict[str, Any] = {"status": "ok", "message": "", "n_input": len(frame), "n_used": 0,
                               "family": a.family, "exposure": a.exposure}
@@ -215,6 +222,7 @@ def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
     rec = input_record(spec, cohort)
     prov_base = dict(inputs=[rec], spec_digest=digest(spec.slice_for(analysis, cohort)),
                      seed=spec.seed, study=spec.study)
+    handover: dict[str, Any] = {}
     try:
         basis = None
         if basis_path is not None:
@@ -233,12 +241,15 @@ def fit_analysis(spec_path: str | Path, cohort: str, analysis: str,
     else:
         # no reference kept here: the extract's rows are freed once the sample is built
         tables, status = _analyse_extract(spec, cohort, analysis, extract, basis,
-                                          resampling=False)
+                                          resampling=False, handover=handover)
     out = Path(outdir)
     for name in FIT_JOB_TABLES:
         df = tables.get(name, pd.DataFrame())
         write_table(_keyed(df, cohort, analysis), out / f"{name}.parquet",
                     provenance(table=name, **prov_base))  # type: ignore[arg-type]
+    from .imputed import save_handover
+
+    save_handover(out / HANDOVER, handover)
     log.info("%s/%s: %s %s", cohort, analysis, status["status"], status["message"])
     return status
 
@@ -460,10 +471,13 @@ def compare_folders(old: str | Path, new: str | Path, tolerance: float) -> pd.Da
     return pd.concat(parts, ignore_index=True) if parts else changes
 
 
-def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir: str | Path) -> None:
+def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir: str | Path,
+                      handover: str | Path | None = None) -> None:
     """The resampling questions of one analysis on one cohort (bootstrap, permutations), on the
-    analysis sample (an imputed analysis: :func:`unbin.pipeline.imputed.resampling_tables`); an
-    analysis that cannot run leaves empty tables (its fit job records why)."""
+    analysis sample (an imputed analysis: from its fit job's ``handover`` file and tables,
+    :func:`unbin.pipeline.imputed.resampling_from_fit`; without one, imputed and refitted
+    again, :func:`unbin.pipeline.imputed.resampling_tables`); an analysis that cannot run
+    leaves empty tables (its fit job records why)."""
     keep_freed_memory()
     spec = load_spec(spec_path).for_cohort(cohort)
     a = spec.analysis(analysis)
@@ -475,7 +489,11 @@ def resample_analysis(spec_path: str | Path, cohort: str, analysis: str, outdir:
         frame = read_extract(spec.cohort(cohort).path, a.columns, spec.cohort(cohort).csv)
         if _type_problems(a, frame, spec):
             raise DataError("the data do not fit the spec (see the fit job's status)")
-        if missing_options(spec, analysis).imputed:  # within the imputed sets
+        if missing_options(spec, analysis).imputed and handover is not None:
+            from .imputed import resampling_from_fit
+
+            tables = resampling_from_fit(spec, cohort, analysis, frame, handover)
+        elif missing_options(spec, analysis).imputed:  # within the imputed sets
             from .imputed import resampling_tables
 
             tables = resampling_tables(spec, cohort, analysis, frame)

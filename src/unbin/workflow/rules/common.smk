@@ -6,7 +6,14 @@ from pathlib import Path
 from snakemake.utils import min_version, validate
 
 from unbin.consortium.bundles import BUNDLE_TABLES, POOLED_TABLES
-from unbin.pipeline.jobs import FIT_JOB_TABLES, JOB_TABLES, RESAMPLING_TABLES, STUDY_TABLES
+from unbin.pipeline.jobs import (
+    FIT_JOB_TABLES,
+    HANDED_TABLES,
+    HANDOVER,
+    JOB_TABLES,
+    RESAMPLING_TABLES,
+    STUDY_TABLES,
+)
 from unbin.pipeline.workflow_support import (
     analysis_memory_mb,
     analysis_params,
@@ -18,6 +25,7 @@ from unbin.pipeline.workflow_support import (
 )
 from unbin.published.spec import PUBLISHED_TABLES, published_studies
 from unbin.spec import VALIDATED_ENV, digest, validated_spec
+from unbin.spec.missing import missing_options
 
 min_version("9.0")
 
@@ -47,6 +55,8 @@ UNBIN_PUBLISHED_TABLES = (
 )
 UNBIN_BASIS_ANALYSES = derived_basis_analyses(UNBIN_SPEC)
 UNBIN_DERIVED_BASIS = {a: a in UNBIN_BASIS_ANALYSES for a in UNBIN_ANALYSES}
+# Analyses under multiple imputation: their resampling jobs read what the fit jobs hand over.
+UNBIN_IMPUTED = {a: missing_options(UNBIN_SPEC, a).imputed for a in UNBIN_ANALYSES}
 
 # Bookkeeping rules run in the main process, not as cluster jobs: each says so itself
 # (`localrule: True`), which survives a consumer's `use rule * from unbin as unbin_*` (a
