@@ -137,6 +137,63 @@ def test_replicate_shares_equal_reference_refits_of_the_drawn_rows(family: str) 
         assert shares[b] == pytest.approx(lr_legacy / lr_full, rel=2e-5, abs=1e-6)
 
 
+def _nb_frame(seed: int, n: int) -> pd.DataFrame:
+    """Overdispersed counts: Poisson with a gamma frailty of mean 1 and variance 1 (NB2 with
+    alpha = 1)."""
+    d = _frame(seed, n)
+    rng = np.random.default_rng(seed + 100)
+    eta = -0.4 + 0.7 * d["x"] - 0.3 * d["x"] ** 2 + 0.4 * d["z"]
+    d["yn"] = rng.poisson(np.exp(0.5 * eta) * d["pt"] * rng.gamma(1.0, 1.0, n))
+    return d
+
+
+NB = {"type": "count", "count": "yn", "persontime": "pt", "count_model": "negative-binomial"}
+
+
+def test_negative_binomial_replicates_are_nb2_refits_of_the_drawn_rows() -> None:
+    # An NB2 analysis' replicate shares come from NB2 refits (alpha re-estimated), not from
+    # Poisson refits: each equals the LR ratio of statsmodels' NegativeBinomial (NB2, log
+    # person-time offset) fitted on the drawn rows repeated as often as drawn. The Poisson LR
+    # ratio of the same rows differs, so the check can fail.
+    df = _nb_frame(6, 400)
+    raw = _raw(NB, 3, adjust=["z"])
+    r, spec = bare_refit(df, raw)
+    shares = bootstrap_shares(r, spec)["legacy"]
+    W = resample_weights(spec.rng("a", "information-bootstrap"), len(df), 3)
+    x = df["x"].to_numpy()
+    groups = np.column_stack([(x > c).astype(float) for c in CUTS])
+    spline = _rcs(x, refit_analysis.test_spline_term(r.analysis, x).knots)
+    z = df["z"].to_numpy()[:, None]
+
+    def nb_llf(d: pd.DataFrame, X: np.ndarray) -> float:
+        model = sm.NegativeBinomial(d["yn"].to_numpy(), sm.add_constant(X, has_constant="add"),
+                                    loglike_method="nb2", offset=np.log(d["pt"].to_numpy()))
+        return float(model.fit(method="newton", maxiter=200, tol=1e-12, disp=0).llf)
+
+    poisson_differs = False
+    for b in range(3):
+        m = np.repeat(np.arange(len(df)), W[b].astype(int))
+        d = df.iloc[m].reset_index(drop=True)
+        base = nb_llf(d, z[m])
+        lr_legacy = 2 * (nb_llf(d, np.column_stack([z[m], groups[m]])) - base)
+        lr_full = 2 * (nb_llf(d, np.column_stack([z[m], groups[m], spline[m]])) - base)
+        assert shares[b] == pytest.approx(lr_legacy / lr_full, rel=1e-4)
+        pois = _reference_lr("count", d, z[m], groups[m]) / _reference_lr(
+            "count", d, z[m], np.column_stack([groups, spline])[m])
+        poisson_differs |= abs(pois - shares[b]) > 1e-3
+    assert poisson_differs
+
+
+def test_negative_binomial_interval_is_around_its_own_estimate() -> None:
+    # With NB2 refits the replicates estimate what the point estimate does: the percentile
+    # interval contains the share kept (common practice for a percentile interval on a
+    # smooth statistic; 60 replicates).
+    kept = information_bootstrap_table(*bare_refit(_nb_frame(7, 600), _raw(NB, 60)))
+    row = kept.set_index("adjustment").loc["none"]
+    assert row["status"] == "ok" and row["replicates_used"] >= 55
+    assert row["info_kept_lower"] < row["info_kept"] < row["info_kept_upper"]
+
+
 def test_reruns_repeat_and_the_seed_decides_the_draws() -> None:
     df = _frame(3, 400)
     a = information_bootstrap_table(*bare_refit(df, _raw(OUTCOMES["binary"], 30)))

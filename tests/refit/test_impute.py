@@ -71,6 +71,24 @@ def test_rubin_degrees_of_freedom_follow_barnard_rubin():
                                                                  rel=1e-12)
 
 
+def test_rubin_reads_a_rounding_level_spread_as_no_between_set_variance():
+    # Rubin (1987): with no between-imputation variance B the degrees of freedom are infinite
+    # and the fraction of missing information 0. Sets that agree up to floating-point rounding
+    # (a few units in the last place) must read that way in every run, not df ~ 1e53; a
+    # spread just above the bound (here 1e-12 relative) is a real spread with a finite df.
+    base = 0.7310585786300049
+    ulps = base + np.array([0, 1, -2, 3, 1]) * np.spacing(base)
+    se = np.full((5, 1), 0.05)
+    tiny = rubin(ulps[:, None], se)
+    assert tiny.df[0] == np.inf and tiny.lam[0] == 0 and tiny.fmi[0] == 0
+    assert tiny.se[0] == pytest.approx(0.05, rel=1e-15)
+    spread = base * (1 + np.array([0, 1, -2, 3, 1]) * 1e-12)
+    real = rubin(spread[:, None], se)
+    b = spread.var(ddof=1)
+    lam = 1.2 * b / (0.05**2 + 1.2 * b)
+    assert np.isfinite(real.df[0]) and real.df[0] == pytest.approx(4 / lam**2, rel=1e-9)
+
+
 def test_d1_with_one_coefficient_is_the_squared_rubin_t():
     # Li, Raghunathan & Rubin (1991): for k = 1, D1 = qbar^2 / T (T Rubin's total variance).
     rng = np.random.default_rng(3)

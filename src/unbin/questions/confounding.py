@@ -54,7 +54,9 @@ with ``cluster``; each copy keeping its sampling or frequency weight; without a 
 frequency-weighted rows by the individuals they stand for), drawn once and shared by every model, so all estimates of a replicate come from the same
 resampled data; groupings, knots and contrast values stay as in the full sample. A replicate is
 refitted by Newton's method from the full-sample estimate on frequency weights — vectorised over
-replicates for the linear, logistic and Poisson models; for survival ``unbin.models.cox.fit_cox`` on the
+replicates for the linear, logistic and Poisson models; negative binomial (NB2) count models by the
+analysis' own fitter on each drawn data set (``unbin.models.drawn_refits``, alpha re-estimated:
+the same estimator as the full sample's); for survival ``unbin.models.cox.fit_cox`` on the
 resampled rows, whose sort and risk sets are laid out once per replicate for all designs — and
 its standardised means come from the refitted coefficients by matrix products (survival: the
 replicate's own Breslow baseline; with competing events each competing cause's Cox model is
@@ -77,6 +79,7 @@ from ..models import EFFECT_SCALE, fit
 from ..models.base import FitResult, Outcome
 from ..models.cox import Layout, fit_cox, prepare_layout, refit_replicate
 from ..models.cox.baseline import DrawnHorizon
+from ..models.drawn_refits import coefficients, drawn_fits, needs_own_fitter
 from ..models.percentile_limits import percentile_limits
 from ..models.survival import cox_layout
 from ..models.weighted import (
@@ -354,6 +357,14 @@ class _Designs:
         r, o = self.r, self.r.outcome
         R = design_resample_replicates(rng, o, replicates)
         copies = compact_copies(o, R)  # the drawn rows' copies, compact (None: chunk by chunk)
+        if needs_own_fitter(o):  # NB2: each replicate refitted by the analysis' own fitter
+            refits = drawn_fits([it.X for _, it in ok], o, R)
+            drawn = copies if copies is not None else replicate_copies(o, R)
+            for j, (key, it) in enumerate(ok):
+                coef = coefficients([fs[j] for fs in refits], it.X.shape[1])
+                cond[key][:] = coef[:, 1:1 + it.k] @ self._d(key)
+                marg[key][:] = glm_means(r.family, it.X, it.k, coef, it.at, drawn, o.offset)
+            return cond, marg, marg
         for key, it in ok:  # each design standardised once, for every chunk
             g = WeightedGLM(r.family, it.X, o, it.res.coef)
             whole = g.coef(R) if g.whole else None

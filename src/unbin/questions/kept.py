@@ -24,7 +24,10 @@ replicates are shared by all codings and models. The legacy cuts and the test sp
 as in the full sample (the spline was fixed before the outcome was seen; the cuts are the paper's).
 
 Refits: the linear, logistic and Poisson models by the vectorised Newton solver on frequency
-weights (``unbin.models.weighted.WeightedGLM``), started at the full-sample estimate; Cox models
+weights (``unbin.models.weighted.WeightedGLM``), started at the full-sample estimate; negative
+binomial (NB2) count models by the analysis' own fitter on each drawn data set
+(``unbin.models.drawn_refits``: the same estimator as the point estimate's, alpha re-estimated,
+the LR from the NB2 log-likelihoods, a robust Wald statistic from the refit's own sandwich); Cox models
 on the drawn rows repeated as often as drawn (Efron ties), started there too, by quasi-Newton
 (secant) steps (``unbin.models.cox.refit_replicates`` for many replicates at once; one at a
 time ``unbin.models.cox.replicate_loglik.refit_replicate_loglik``, stopped once the next
@@ -48,6 +51,7 @@ import pandas as pd
 
 from ..models import fit
 from ..models.base import FitResult, Outcome
+from ..models.drawn_refits import drawn_fits, needs_own_fitter
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     _BATCH_ROWS,
@@ -262,14 +266,20 @@ def shares_on(family: str, models: list[_Model], outcome: Outcome, W_all: Weight
     chunk = max(1, _CHUNK_CELLS // (n * (p_max + 1)))
     prepared: list[WeightedGLM | None] = []
     whole: list[np.ndarray | None] = []
-    for mod in unique if family != "survival" else ():
+    own = needs_own_fitter(outcome)  # NB2: each replicate by the analysis' own fitter
+    for mod in unique if family != "survival" and not own else ():
         one = WeightedGLM(family, mod.X, outcome, mod.res.coef)
         # large samples: every replicate refitted in one go (WeightedGLM.whole), one design
         # at a time (its standardised copy goes before the next one's is made)
         whole.append(one.coef(R) if one.whole else None)
         prepared.append(None if one.whole else one)
         del one
-    if family == "survival":  # every replicate in one call (the refits block them)
+    if own:
+        for b, refits in enumerate(drawn_fits([mod.X for mod in unique], outcome, R)):
+            for j, (mod, f) in enumerate(zip(unique, refits, strict=True)):
+                if f.ok:
+                    ll_unique[b, j] = _Model(mod.X, f, mod.k).wald() if robust else f.loglik
+    elif family == "survival":  # every replicate in one call (the refits block them)
         for j, v in enumerate(_cox_logliks(unique, outcome, R.dense(), robust)):
             ll_unique[:, j] = v
     else:

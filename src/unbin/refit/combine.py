@@ -53,7 +53,8 @@ def rubin(estimates: np.ndarray, ses: np.ndarray, df_complete: float = np.inf) -
 
     Degrees of freedom: Barnard & Rubin (1999) with the complete-data ``df_complete`` (infinite
     by default: then Rubin's 1987 (M - 1) / lambda^2); infinite when nothing varies between
-    imputations."""
+    imputations beyond floating-point rounding (a between-set standard deviation of at most 64
+    units in the last place of the largest estimate counts as none)."""
     q = np.asarray(estimates, float)
     u = np.asarray(ses, float) ** 2
     m = q.shape[0]
@@ -62,6 +63,13 @@ def rubin(estimates: np.ndarray, ses: np.ndarray, df_complete: float = np.inf) -
     qbar = q.mean(axis=0)
     w = u.mean(axis=0)
     b = q.var(axis=0, ddof=1)
+    # A spread between the sets at the level of floating-point rounding (the same estimate
+    # computed from sets that agree, e.g. a point with no imputed rows in its neighbourhood) is no
+    # between-set variance: without this, such points read df = inf in one run and ~1e53 in
+    # another. The bound: a standard deviation of 64 units in the last place of the largest
+    # estimate.
+    rounding = (64 * np.finfo(float).eps * np.abs(q).max(axis=0, initial=0.0)) ** 2
+    b = np.where(b <= rounding, 0.0, b)
     total = w + (1 + 1 / m) * b
     with np.errstate(divide="ignore", invalid="ignore"):
         lam = np.where(total > 0, (1 + 1 / m) * b / total, 0.0)
