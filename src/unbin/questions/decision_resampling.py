@@ -313,6 +313,8 @@ class _AtHorizon:
         self.ev_at = self.at[self.ev_rows]
         self.mine_rows = np.flatnonzero(self.mine)
         self.mine_at = self.at[self.mine_rows]
+        # the last risk rule's groups and bins (_rule_bins), with the risk array they are of
+        self._bins: tuple[Any, ...] | None = None
 
     def _counts(self, mask: np.ndarray, counts: np.ndarray | None = None,
                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -327,27 +329,50 @@ class _AtHorizon:
         d_1 = np.bincount(self.mine_at, w[self.mine_rows], minlength=K)
         return Y, d_all, d_1
 
-    def _rule_counts(self, group: np.ndarray, G: int, w: np.ndarray,
-                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    def _rule_bins(self, ascending: np.ndarray, risk: np.ndarray,
+                   ) -> tuple[np.ndarray, tuple[np.ndarray, ...]]:
+        """Each row's group for the rules "treat when ``risk`` >= p_t" (the number of the
+        ``ascending`` thresholds its risk reaches) and the (group, grid index) bins of every
+        row's risk-set entry and exit and of every event (of interest) by the horizon. Kept
+        for the last ``risk`` array (by identity) and thresholds: a bootstrap replicate's
+        model is read on its drawn rows and on the full sample from the same risks, and only
+        the rows' weights differ between the two."""
+        key = ascending.tobytes()
+        got = self._bins
+        if got is not None and got[0] is risk and got[1] == key:
+            return got[2], got[3]
+        group = np.zeros(self.n, dtype=np.intp)
+        for t in ascending:
+            group += risk >= t
+        span, K = self.K + 1, self.K
+        bins = () if K == 0 else (group * span + self.lo, group * span + self.hi,
+                                  group[self.ev_rows] * K + self.ev_at,
+                                  group[self.mine_rows] * K + self.mine_at)
+        self._bins = (risk, key, group, bins)
+        return group, bins
+
+    def _rule_counts(self, group: np.ndarray, bins: tuple[np.ndarray, ...], G: int,
+                     w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """:meth:`_counts` of the G nested subsets "``group`` > g" (g = 0 .. G - 1; ``group``
         a whole number 0 .. G per row) at once, each row with weight ``w`` (whole numbers):
-        every row's risk-set entry and exit and every event binned by (group, grid index) in
-        one pass each, then summed over the groups above g. Returns (G, K) arrays Y, d_all,
-        d_1 and each subset's summed weight (G,). Whole numbers throughout, so every sum is
-        exact: the same numbers as :meth:`_counts` of each subset."""
+        every row's risk-set entry and exit and every event binned by (group, grid index)
+        (``bins``, :meth:`_rule_bins`) in one pass each, then summed over the groups above g.
+        Returns (G, K) arrays Y, d_all, d_1 and each subset's summed weight (G,). Whole
+        numbers throughout, so every sum is exact: the same numbers as :meth:`_counts` of
+        each subset."""
         K = self.K
         span = K + 1
+        lo, hi, ev, mine = bins
 
         def binned(at: np.ndarray, rows: np.ndarray | None, size: int) -> np.ndarray:
-            g = group if rows is None else group[rows]
             wr = w if rows is None else w[rows]
-            out = np.bincount(g * size + at, wr, minlength=(G + 1) * size)
+            out = np.bincount(at, wr, minlength=(G + 1) * size)
             # the rows of the groups above g: a reverse cumulative sum over the groups
             return np.cumsum(out.reshape(G + 1, size)[::-1], axis=0)[::-1][1:]
 
-        Y = np.cumsum(binned(self.lo, None, span) - binned(self.hi, None, span), axis=1)[:, :K]
-        d_all = binned(self.ev_at, self.ev_rows, K)
-        d_1 = binned(self.mine_at, self.mine_rows, K)
+        Y = np.cumsum(binned(lo, None, span) - binned(hi, None, span), axis=1)[:, :K]
+        d_all = binned(ev, self.ev_rows, K)
+        d_1 = binned(mine, self.mine_rows, K)
         size = np.cumsum(np.bincount(group, w, minlength=G + 1)[::-1])[::-1][1:]
         return Y, d_all, d_1, size
 
@@ -414,9 +439,7 @@ class _AtHorizon:
         product-limits as the rule's mask at each threshold."""
         G = thresholds.size
         up = np.argsort(thresholds, kind="stable")
-        group = np.zeros(self.n, dtype=np.intp)
-        for t in thresholds[up]:
-            group += risk >= t
+        group, bins = self._rule_bins(thresholds[up], risk)
         w = np.ones(self.n) if counts is None else np.asarray(counts, dtype=float)
         total = float(self.n) if counts is None else float(w.sum())
         tp = np.zeros(G)
@@ -425,7 +448,7 @@ class _AtHorizon:
             Y = d_all = d_1 = np.zeros((G, 0))
             size = np.cumsum(np.bincount(group, w, minlength=G + 1)[::-1])[::-1][1:]
         else:
-            Y, d_all, d_1, size = self._rule_counts(group, G, w)
+            Y, d_all, d_1, size = self._rule_counts(group, bins, G, w)
         for rank, g in enumerate(up):
             share = size[rank] / total
             if share == 0:

@@ -29,8 +29,11 @@ binomial (NB2) count models by the analysis' own fitter on each drawn data set
 (``unbin.models.drawn_refits``: the same estimator as the point estimate's, alpha re-estimated,
 the LR from the NB2 log-likelihoods, a robust Wald statistic from the refit's own sandwich); Cox models
 on the drawn rows repeated as often as drawn (Efron ties), started there too, by quasi-Newton
-(secant) steps (``unbin.models.cox.refit_replicate``; ``unbin.models.cox.fit_cox`` where
-they do not settle; a repeated row counts as tied events, as in the full-sample likelihood). The replicate
+(secant) steps (``unbin.models.cox.refit_replicates`` for many replicates at once; one at a
+time ``unbin.models.cox.replicate_loglik.refit_replicate_loglik``, stopped once the next
+step's predicted gain in log partial likelihood is at most 1e-6; ``unbin.models.cox.fit_cox``
+where they do not settle; a repeated row counts as tied events, as in the full-sample
+likelihood). The replicate
 log-likelihoods are the frequency-weighted ones: logistic sum w (y eta - log(1 + e^eta)); Poisson
 sum w (y eta - mu) (the log y! term cancels in the LR); linear -N/2 log(RSS / N) with N = sum w
 and RSS the weighted residual sum of squares (the maximum-likelihood variance, as the full-sample
@@ -178,7 +181,8 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
                  robust: bool = False) -> list[np.ndarray]:
     """Per model, each replicate's log partial likelihood, or (``robust``) the robust Wald
     statistic of its exposure with the replicate's own sandwich."""
-    from ..models.cox import fit_cox, refit_replicate
+    from ..models.cox import fit_cox
+    from ..models.cox.replicate_loglik import refit_replicate_loglik
 
     out = [np.full(len(W), np.nan) for _ in models]
     starts = [None] * len(models) if robust else cox_near_starts(
@@ -209,13 +213,13 @@ def _cox_logliks(models: list[_Model], outcome: Outcome, W: np.ndarray,
             got = batched[j]
             if got is not None and got.done[b]:
                 continue
-            # secant steps from the full-sample estimate (its information scaled); the
-            # full fit where they do not settle (or the model has no columns)
+            # secant steps from the full-sample estimate (its information scaled), stopped
+            # once the log-likelihood is settled (refit_replicate_loglik); the full fit
+            # where they do not settle (or the model has no columns)
             start = starts[j]
-            near = None if start is None else refit_replicate(start, mod.X, m, layout,
-                                                              with_loglik=True)
+            near = None if start is None else refit_replicate_loglik(start, mod.X, m, layout)
             if near is not None:
-                out[j][b] = near[1]
+                out[j][b] = near
                 continue
             try:
                 f = fit_cox(mod.X[m], time, event, entry=entry, strata=strata,

@@ -813,6 +813,21 @@ def refit_replicate(
     scale) and, ``with_loglik``, the log partial likelihood at them (NaN otherwise); None when
     the steps do not settle, the likelihood falls or a column is constant among the
     replicate's rows (the caller then fits with ``fit_cox``, which reports that)."""
+    first = replicate_first_point(start, X, rows, layout)
+    if first is None:
+        return None
+    L, D, ll, score, H = first
+    return _near_steps(L, D, start.beta, ll, score, H, start.scale, start.efron, tol, max_iter,
+                       with_loglik, _REPLICATE_SETTLE * tol, None, settled_loglik=True)
+
+
+def replicate_first_point(
+    start: NearStart, X: Any, rows: np.ndarray, layout: Layout,
+) -> tuple[Layout, _Design, float, np.ndarray, np.ndarray] | None:
+    """The first point of :func:`refit_replicate`'s secant steps: the replicate's layout, its
+    standardised design, and the log partial likelihood, score and starting inverse
+    information at the full-sample estimate; None where the refit declines (no events, a
+    column constant among the drawn rows, a singular information, a value not finite)."""
     L = _given_layout(layout, rows.size)
     Xa = np.ascontiguousarray(X, dtype=float)
     if Xa.shape != (start.n, start.mean.size):
@@ -841,5 +856,5 @@ def refit_replicate(
         H = start.H / _event_weight(L)
     if not (np.isfinite(ll) and np.isfinite(score).all()):
         return None
-    return _near_steps(L, D, start.beta, ll, score, H, start.scale, start.efron, tol, max_iter,
-                       with_loglik, _REPLICATE_SETTLE * tol, None, settled_loglik=True)
+    return L, D, ll, score, H
+
