@@ -43,7 +43,6 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..models import fit
 from ..models.base import FitResult, Outcome
 from ..models.compiled import wanted
 from ..models.percentile_limits import percentile_limits
@@ -73,6 +72,7 @@ from ..refit.analysis import (
 from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import Term
+from .job_fits import job_fit
 
 TABLE = "information_bootstrap"
 LEVEL = 0.95
@@ -364,7 +364,7 @@ def _point_rows(r: Refit, spec: Spec, test_term: Term | None = None,
         key = repr((exposure, adjust))
         if key not in fitted:
             X, names = design(df, r.x, exposure, adjust)
-            fitted[key] = _Model(X, fit(r.family, X, r.outcome, names),
+            fitted[key] = _Model(X, job_fit(r, X, names, exposure, adjust),
                                  sum(len(t.names()) for t in exposure))
         return fitted[key]
 
