@@ -451,8 +451,8 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
         cells = glm_cells
 
         scale_c = np.zeros(0) if W.scale is None else np.ascontiguousarray(W.scale)
-    # logistic, compiled: each replicate's range of exp(-eta) over its drawn rows at the last
-    # point evaluated and the step taken from there, for the final check (``_settled_eta``)
+    # logistic, compiled: each replicate's range of exp(-eta) over the rows at the last point
+    # evaluated and the step taken from there, for the final check (``_settled_eta``)
     ranged = family == "binary" and cells is not None
     e_lo, e_hi = np.full(C, np.inf), np.full(C, -np.inf)
     seen = np.zeros(C, dtype=bool)  # evaluated at least once (not only the shared start)
@@ -539,8 +539,8 @@ def _settled_eta(Z: np.ndarray, e_lo: np.ndarray, e_hi: np.ndarray, moved: np.nd
                  seen: np.ndarray) -> np.ndarray:
     """Which replicates' final logistic check (any drawn row with |eta| > 20 at the final
     coefficients) is settled without a pass: no drawn row can have |eta| > 20. At the last
-    point evaluated each drawn row's eta lies in [-log max e, -log min e] (``e = exp(-eta)``,
-    the range the compiled pass kept); the final coefficients differ from that point by the
+    point evaluated every row's eta (so every drawn row's) lies in [-log max e, -log min e]
+    (``e = exp(-eta)``, the range the compiled pass kept over the rows); the final coefficients differ from that point by the
     last step, so eta moves by at most ``moved`` (the step's sum of absolute values) times
     the largest |z| (Hölder's inequality). A replicate is settled when that range widened by
     the move and ``_ETA_SLACK`` lies inside [-20, 20]; the others (and those never evaluated
