@@ -97,15 +97,74 @@ def test_kernel_cells_equal_their_definition(logistic: bool) -> None:
     y = (rng.random(n) < 0.3).astype(float)
     e = np.exp(-eta) if logistic else np.exp(np.minimum(eta, 700.0))
     r, wv = np.empty_like(e), np.empty_like(e)
-    glm_cells(e, y[r0:r0 + nb], counts, act, r0, scale, logistic, True, r, wv)
+    lo, hi = np.full(len(act), np.inf), np.full(len(act), -np.inf)
+    glm_cells(e, y[r0:r0 + nb], counts, act, r0, scale, logistic, True, r, wv, lo, hi)
     w = counts[act, r0:r0 + nb] * scale[r0:r0 + nb]
     mu = 1 / (1 + np.exp(-eta)) if logistic else np.exp(eta)
     v = mu * (1 - mu) if logistic else mu
     np.testing.assert_allclose(r, w * (y[r0:r0 + nb] - mu), rtol=1e-13, atol=1e-15)
     np.testing.assert_allclose(wv, w * v, rtol=1e-13, atol=1e-300)
-    glm_cells(e, y[r0:r0 + nb], counts, act, r0, np.zeros(0), logistic, False, r, wv[:0])
+    np.testing.assert_array_equal(lo, e.min(axis=1))  # the range of e over the block's rows
+    np.testing.assert_array_equal(hi, e.max(axis=1))
+    glm_cells(e, y[r0:r0 + nb], counts, act, r0, np.zeros(0), logistic, False, r, wv[:0],
+              np.zeros(0), np.zeros(0))
     np.testing.assert_allclose(r, counts[act, r0:r0 + nb] * (y[r0:r0 + nb] - mu), rtol=1e-13,
                                atol=1e-15)
+
+
+def test_logistic_final_check_from_the_last_evaluation(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The logistic refits' final check (a replicate whose drawn rows include one with
+    |eta| > 20 fails) read from the last evaluation's range of the predictor
+    (``weighted._settled_eta``, compiled path) fails the same replicates as the pass over
+    the rows (numpy path), and the others' coefficients are equal. Rows with eta beyond 20
+    at the fitted coefficients are planted so that some replicates draw one and some none."""
+    X, o, model = _sample("binary", 41)
+    X = X.copy()
+    far = np.array([5])  # a row with |eta| above 20 at the full-sample estimate
+    X[far, 0] = -40.0
+    start = np.asarray(model(np.ones(N)).fit().params)
+    assert np.all(np.abs(start[0] + X[far] @ start[1:]) > 20)
+    counts = resample_counts(np.random.default_rng(9), N, 10)
+    drew = (counts[:, far] > 0).any(axis=1)
+    assert drew.any() and not drew.all()
+    got = {}
+    for path in ("always", "never"):
+        monkeypatch.setenv("UNBIN_COMPILED", path)
+        got[path] = WeightedGLM("binary", X, o, start).coef(Replicates(counts))
+    np.testing.assert_array_equal(np.isnan(got["always"][:, 0]), drew)
+    np.testing.assert_array_equal(np.isnan(got["never"][:, 0]), drew)
+    np.testing.assert_allclose(got["always"][~drew], got["never"][~drew], rtol=1e-12,
+                               atol=1e-13)
+
+
+def test_settled_eta_is_a_bound() -> None:
+    """``_settled_eta`` settles a replicate only when every drawn row's predictor at the final
+    coefficients (the evaluated point plus the step) lies within [-20, 20]: random points,
+    steps and ranges near the edge, checked against the predictor computed directly; a
+    replicate never evaluated, or with NaN in its range, is not settled."""
+    rng = np.random.default_rng(3)
+    n, q = 400, 4
+    Z = np.column_stack([np.ones(n), rng.normal(scale=3.0, size=(n, q - 1))])
+    settled_any = unsettled_any = False
+    for _ in range(300):
+        T = rng.normal(scale=2.0, size=q)
+        step = rng.normal(scale=10.0 ** rng.uniform(-9, -1), size=q)
+        drawn = rng.random(n) < 0.6
+        eta = Z[drawn] @ T
+        e = np.exp(-eta)
+        ok = weighted._settled_eta(Z, np.array([e.min()]), np.array([e.max()]),
+                                   np.array([np.abs(step).sum()]), np.array([True]))[0]
+        final = Z[drawn] @ (T + step)
+        if ok:
+            assert np.all(np.abs(final) <= 20)
+            settled_any = True
+        else:
+            unsettled_any = True
+    assert settled_any and unsettled_any
+    one = np.array([1.0])
+    assert not weighted._settled_eta(Z, one, one, np.zeros(1), np.array([False]))[0]
+    assert not weighted._settled_eta(Z, one, np.array([np.inf]), np.zeros(1),
+                                     np.array([True]))[0]
 
 
 def test_expit_into_agrees_with_scipy() -> None:

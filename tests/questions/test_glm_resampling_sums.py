@@ -97,11 +97,15 @@ def test_glm_means_direct_form_when_the_factor_overflows(
     assert np.all(np.isnan(got[2]))
 
 
+@pytest.mark.parametrize("mode", ["never", "always"])
 @pytest.mark.parametrize("family", ["binary", "count"])
-def test_logliks_equal_statsmodels(family: str) -> None:
+def test_logliks_equal_statsmodels(family: str, mode: str,
+                                   monkeypatch: pytest.MonkeyPatch) -> None:
     """Each replicate's frequency-weighted log-likelihood, blocks of rows summed, against
     statsmodels' GLM llf with ``freq_weights`` (Poisson: its log y! constant added back), on
-    dense and on compact weights."""
+    dense and on compact weights; numpy's terms and the compiled pass
+    (``compiled.glm_loglik``) both forced."""
+    monkeypatch.setenv("UNBIN_COMPILED", mode)
     n = 3000
     X, t = _data(n, 6)
     rng = np.random.default_rng(7)
@@ -140,3 +144,55 @@ def test_logistic_slope_equals_statsmodels(n: int, mode: str,
     y = (rng.random(n) < special.expit(0.2 + 0.8 * z)).astype(float)
     ref = sm.Logit(y, sm.add_constant(z)).fit(disp=0, tol=1e-12).params[1]
     assert logistic_slope(y, z) == pytest.approx(ref, rel=1e-10)
+
+
+@pytest.mark.parametrize("family", ["binary", "count"])
+def test_compiled_logliks_equal_numpy_sums(family: str,
+                                           monkeypatch: pytest.MonkeyPatch) -> None:
+    """The compiled log-likelihood pass (``compiled.glm_loglik``: rows a replicate did not draw
+    skipped, sums in row order) against numpy's terms summed by ``einsum`` over several row
+    blocks, with and without sampling weights scaling the draw counts; a replicate with NaN
+    coefficients stays NaN."""
+    n = 9000
+    X, t = _data(n, 16)
+    rng = np.random.default_rng(17)
+    eta = -0.5 + X[:, 0]
+    if family == "binary":
+        o = Outcome("binary", (rng.random(n) < special.expit(eta)).astype(float))
+    else:
+        o = Outcome("count", rng.poisson(t * np.exp(eta)).astype(float), offset=np.log(t))
+    coef = np.column_stack([np.full(4, -0.5), 1.0 + 0.1 * rng.normal(size=(4, 3))])
+    coef[2] = np.nan
+    counts = resample_counts(rng, n, 4)
+    for scale in (None, rng.uniform(0.5, 2.0, n)):
+        R = Replicates(counts, scale)
+        got = {}
+        for mode in ("never", "always"):
+            monkeypatch.setenv("UNBIN_COMPILED", mode)
+            got[mode] = glm_logliks(family, X, coef, o, R)
+        assert np.isnan(got["always"][2]) and np.isnan(got["never"][2])
+        np.testing.assert_allclose(got["always"], got["never"], rtol=1e-13)
+
+
+@pytest.mark.parametrize("logistic", [True, False])
+def test_compiled_loglik_terms_are_numpys(logistic: bool) -> None:
+    """Each term of the compiled pass, one cell at a time, equals numpy's term bit for bit
+    (``y eta - (log1p(exp(-|eta|)) + max(eta, 0))``, Poisson ``y eta - exp(min(eta, 700))``),
+    far into both tails; a cell of weight 0 adds nothing."""
+    from unbin.models.compiled.glm_loglik import loglik_sums
+    from unbin.questions.kept import _log1p_exp
+
+    eta = np.concatenate([np.linspace(-750, 750, 3001), [0.0, -0.0, 1e-300, 36.7, -36.7]])
+    y = (np.arange(eta.size) % 3 == 0).astype(float)
+    ref = y * eta - (_log1p_exp(eta) if logistic else np.exp(np.minimum(eta, 700.0)))
+    got = np.empty_like(eta)
+    ones = np.ones((1, 1), dtype=np.uint8)
+    for i in range(eta.size):
+        out = np.zeros(1)
+        loglik_sums(eta[i:i + 1][None, :], y[i:i + 1], ones, 0, np.zeros(0), logistic, out)
+        got[i] = out[0]
+    np.testing.assert_array_equal(got, ref)
+    out = np.zeros(1)
+    loglik_sums(np.array([[3.0]]), np.ones(1), np.zeros((1, 1), dtype=np.uint8), 0,
+                np.zeros(0), logistic, out)
+    assert out[0] == 0.0

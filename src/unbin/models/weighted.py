@@ -451,6 +451,13 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
         cells = glm_cells
 
         scale_c = np.zeros(0) if W.scale is None else np.ascontiguousarray(W.scale)
+    # logistic, compiled: each replicate's range of exp(-eta) over the rows at the last point
+    # evaluated and the step taken from there, for the final check (``_settled_eta``)
+    ranged = family == "binary" and cells is not None
+    e_lo, e_hi = np.full(C, np.inf), np.full(C, -np.inf)
+    seen = np.zeros(C, dtype=bool)  # evaluated at least once (not only the shared start)
+    moved = np.full(C, np.inf)  # the last step's sum of absolute values
+    none = np.zeros(0)
     for it in range(_MAX_NEWTON if family != "continuous" else 1):
         act = np.flatnonzero(~(done | bad))
         if act.size == 0:
@@ -460,6 +467,8 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
             Ta = T[act]
             fresh = (np.zeros((act.size, k))
                      if it == 1 or np.any(size[act] > _SLOW * before[act]) else None)
+            lo_a = np.full(act.size, np.inf) if ranged else none
+            hi_a = np.full(act.size, -np.inf) if ranged else none
             for sl in _row_blocks(n, act.size):
                 Zb = Z[sl]
                 eta = Ta @ Zb.T
@@ -475,7 +484,8 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
                         np.minimum(eta, 700.0, out=eta)
                         np.exp(eta, out=eta)
                     cells.glm_cells(eta, y[sl], W.counts, act, sl.start, scale_c,
-                                    family == "binary", fresh is not None, eta, wv)
+                                    family == "binary", fresh is not None, eta, wv, lo_a,
+                                    hi_a)
                     score += eta @ Zb
                     if fresh is not None:
                         fresh += wv @ blocks.pairs(Zb)
@@ -493,11 +503,16 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
                     fresh += v @ blocks.pairs(Zb)
             if fresh is not None:
                 H[act] = _unpack(fresh, q, iu)
+            if ranged:
+                e_lo[act], e_hi[act], seen[act] = lo_a, hi_a, True
         else:
             score = score[act]
         step = _solve(H[act], score)
         before[act], size[act] = size[act], np.max(np.abs(step), axis=1)
-        T[act] += np.nan_to_num(step, nan=0.0)
+        taken = np.nan_to_num(step, nan=0.0)
+        if ranged:
+            moved[act] = np.sum(np.abs(taken), axis=1)
+        T[act] += taken
         bad[act] |= ~np.all(np.isfinite(step), axis=1)
         done[act] |= size[act] <= _TOL * (1 + np.max(np.abs(T[act]), axis=1))
         if np.all(done | bad):
@@ -506,11 +521,35 @@ def _chord(family: str, Z: np.ndarray, y: np.ndarray, off: Any, W: Replicates,
         done[:] = True
     if family == "binary":
         act = np.flatnonzero(done & ~bad)
+        if ranged and act.size:  # the replicates the last evaluation settles skip the pass
+            act = act[~_settled_eta(Z, e_lo[act], e_hi[act], moved[act], seen[act])]
         for sl in _row_blocks(n, act.size) if act.size else ():
             eta = T[act] @ Z[sl].T + offset[sl]
             bad[act] |= np.any((np.abs(eta) > 20) & (W.block(act, sl) > 0), axis=1)
     T[bad | ~done] = np.nan
     return T
+
+
+# the predictor's computed values against their exact ones: the products' and exponential's
+# rounding (about 1e-14 at |eta| = 20) many times over
+_ETA_SLACK = 1e-6
+
+
+def _settled_eta(Z: np.ndarray, e_lo: np.ndarray, e_hi: np.ndarray, moved: np.ndarray,
+                 seen: np.ndarray) -> np.ndarray:
+    """Which replicates' final logistic check (any drawn row with |eta| > 20 at the final
+    coefficients) is settled without a pass: no drawn row can have |eta| > 20. At the last
+    point evaluated every row's eta (so every drawn row's) lies in [-log max e, -log min e]
+    (``e = exp(-eta)``, the range the compiled pass kept over the rows); the final coefficients differ from that point by the
+    last step, so eta moves by at most ``moved`` (the step's sum of absolute values) times
+    the largest |z| (Hölder's inequality). A replicate is settled when that range widened by
+    the move and ``_ETA_SLACK`` lies inside [-20, 20]; the others (and those never evaluated
+    past the shared start) get the pass as before, so the check's answer is the same."""
+    reach = moved * max(float(Z.max()), -float(Z.min())) + _ETA_SLACK
+    with np.errstate(divide="ignore", invalid="ignore"):
+        low = -np.log(e_hi)  # the smallest eta (from the largest exp(-eta))
+        high = -np.log(e_lo)
+    return np.asarray(seen & (high + reach < 20.0) & (low - reach > -20.0))
 
 
 class _BlockProducts:

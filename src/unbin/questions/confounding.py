@@ -112,6 +112,7 @@ from ..refit.standardise import (
 )
 from ..spec import Spec
 from ..terms import GroupedTerm, LinearTerm, Term
+from .job_fits import job_fit
 
 TABLE = "confounding"
 # ``risk_kind``: what the standardised absolute risks of a survival row are
@@ -190,7 +191,7 @@ class _Designs:
             X, names = design(self.r.sample.frame, self.r.x, exposure, adjust)
             k = sum(len(t.names()) for t in exposure)
             others = tuple(fit("survival", X, oc, names) for oc in self._cause_outcomes)
-            self.items[key] = _Design(X, k, at, fit(self.r.family, X, self.r.outcome, names),
+            self.items[key] = _Design(X, k, at, job_fit(self.r, X, names, exposure, adjust),
                                       others)
         return key
 

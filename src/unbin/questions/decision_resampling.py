@@ -109,6 +109,7 @@ from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import LinearTerm, SplineTerm, Term
 from .decisions import EVENT_FAMILIES, thresholds_for, typed_table
+from .job_fits import job_fit
 from .net_benefit import (
     legacy_rules,
     logistic_rules_drawn_and_full,
@@ -595,7 +596,7 @@ def fitted_models(r: Refit, spec: Spec, fixed: dict[str, Any] | None = None
                 continue
             for terms in cands[form]:
                 X, names = design(df, x, terms, adjust, cache)
-                res = fit(r.family, X, r.outcome, names)
+                res = job_fit(r, X, names, terms, adjust)
                 k = sum(len(t.names()) for t in terms)
                 if res.ok and (best is None or res.aic < best.res.aic):
                     best = Model(form, coding, X, k, terms, adjust, res)

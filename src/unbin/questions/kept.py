@@ -49,13 +49,14 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..models import fit
 from ..models.base import FitResult, Outcome
+from ..models.compiled import wanted
 from ..models.drawn_refits import drawn_fits, needs_own_fitter
 from ..models.percentile_limits import percentile_limits
 from ..models.weighted import (
     _BATCH_ROWS,
     _CHUNK_CELLS,
+    Replicates,
     WeightedGLM,
     Weights,
     as_replicates,
@@ -78,6 +79,7 @@ from ..refit.analysis import (
 from ..refit.sampling_design import bootstrap_reason
 from ..spec import Spec
 from ..terms import Term
+from .job_fits import job_fit
 
 TABLE = "information_bootstrap"
 LEVEL = 0.95
@@ -129,6 +131,8 @@ def glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
     B, n = coef.shape[0], len(y)
     sums = np.zeros((B, 2))  # the terms' sum; linear: the weights' and the squares' sums
     rows = max(1024, _LL_CELLS // max(B, 1))
+    if family != "continuous" and wanted(n, LOGLIK_FROM_ROWS):
+        return _glm_logliks_compiled(family, X, coef, outcome, R, y, rows)
     with np.errstate(invalid="ignore"):  # a failed replicate's NaN coefficients stay NaN
         for r0 in range(0, n, rows):
             sl = slice(r0, min(n, r0 + rows))
@@ -142,6 +146,33 @@ def glm_logliks(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
 
 
 _LL_CELLS = 1 << 17  # replicates x rows of a block of the log-likelihood sums (1 MB)
+# From this many rows the logistic and Poisson log-likelihood sums of the replicates are one
+# compiled pass per block (``unbin.models.compiled.glm_loglik``; DEVELOPERS.md, "The GLM
+# bootstrap at registry size")
+LOGLIK_FROM_ROWS = 100_000
+
+
+def _glm_logliks_compiled(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
+                          R: Replicates, y: np.ndarray, rows: int) -> np.ndarray:
+    """:func:`glm_logliks` of the logistic and Poisson models from ``LOGLIK_FROM_ROWS``
+    rows: each block's predictor by the same product, its terms and their weighted sums in one
+    compiled pass that skips the rows a replicate did not draw (the same terms; the sums in row
+    order, so they differ from the numpy path's by rounding)."""
+    from ..models.compiled.glm_loglik import loglik_sums
+
+    n = len(y)
+    counts = R.counts
+    scale = np.zeros(0) if R.scale is None else np.ascontiguousarray(R.scale)
+    out = np.zeros(coef.shape[0])
+    slopes, intercept = coef[:, 1:], coef[:, :1]
+    for r0 in range(0, n, rows):
+        sl = slice(r0, min(n, r0 + rows))
+        eta = slopes @ X[sl].T
+        eta += intercept
+        if outcome.offset is not None:
+            eta += outcome.offset[sl]
+        loglik_sums(eta, y[sl], counts, r0, scale, family == "binary", out)
+    return out
 
 
 def _glm_loglik_sums(family: str, X: np.ndarray, coef: np.ndarray, outcome: Outcome,
@@ -347,7 +378,7 @@ def _point_rows(r: Refit, spec: Spec, test_term: Term | None = None,
         key = repr((exposure, adjust))
         if key not in fitted:
             X, names = design(df, r.x, exposure, adjust)
-            fitted[key] = _Model(X, fit(r.family, X, r.outcome, names),
+            fitted[key] = _Model(X, job_fit(r, X, names, exposure, adjust),
                                  sum(len(t.names()) for t in exposure))
         return fitted[key]
 
